@@ -1,0 +1,3 @@
+"""pipeline.demod (see DEVELOPERS.md, stage contracts)."""
+
+__all__: list[str] = []

@@ -1,0 +1,31 @@
+"""Exception hierarchy of the pipeline.
+
+Bad *input* (a file that cannot be read, a profile out of range, an output folder that exists)
+raises one of these.  Bad *data* (a codeword that fails RS, a lost lock) never raises: it is a
+status on the item and a counter in the run statistics.
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "DownlinkError",
+    "RecordingError",
+    "ProfileError",
+    "OutputError",
+]
+
+
+class DownlinkError(Exception):
+    """Base class of every error the ``downlink`` command reports as one line."""
+
+
+class RecordingError(DownlinkError):
+    """A recording (or symbol file) cannot be opened or read; the message names the file."""
+
+
+class ProfileError(DownlinkError):
+    """A link profile is missing, malformed or out of range; the message names the file and key."""
+
+
+class OutputError(DownlinkError):
+    """The output folder cannot be written, or exists and ``--overwrite`` was not given."""

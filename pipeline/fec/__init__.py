@@ -1,0 +1,3 @@
+"""pipeline.fec (see DEVELOPERS.md, stage contracts)."""
+
+__all__: list[str] = []

@@ -1,0 +1,458 @@
+"""Link profile: what the spacecraft sends and how the receiver is tuned, loaded from TOML.
+
+A profile is a tree of frozen dataclasses validated once at load time.  Every stage takes the
+parts it needs; nothing downstream re-checks ranges.
+
+The TOML keys follow ../shared/DESIGN.md (``[link]``, ``[coding]``, ``[frames]``) plus the
+optional tables ``[packets]``, ``[receiver]`` and ``[simulate]``.  Attribute names carry units
+(``symbol_rate_baud``) where the TOML key does not.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+from dataclasses import dataclass, field, fields, replace
+from importlib import resources
+from pathlib import Path
+from typing import Any, Literal, get_args
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+from pipeline.errors import ProfileError
+
+__all__ = [
+    "Modulation",
+    "Pulse",
+    "LineCode",
+    "ConvRate",
+    "FrameKind",
+    "TimeCodeKind",
+    "LinkSection",
+    "CodingSection",
+    "FramesSection",
+    "TimeCodeConfig",
+    "PacketsSection",
+    "ReceiverSection",
+    "ApidTraffic",
+    "SimulateSection",
+    "LinkProfile",
+    "load_profile",
+    "profile_from_dict",
+    "demo_profile_path",
+    "CONV_RATES",
+]
+
+Modulation = Literal["bpsk", "qpsk", "oqpsk", "pcm-pm", "pcm-psk-pm"]
+Pulse = Literal["rrc", "rect"]
+LineCode = Literal["nrz-l", "nrz-m", "bi-phase-l"]
+ConvRate = Literal["none", "1/2", "2/3", "3/4", "5/6", "7/8"]
+FrameKind = Literal["tm", "aos"]
+TimeCodeKind = Literal["cuc", "cds"]
+SubcarrierWave = Literal["square", "sine"]
+
+#: Convolutional code rate as a fraction, by profile name ("none" = uncoded).
+CONV_RATES: dict[str, float] = {"none": 1.0, "1/2": 0.5, "2/3": 2 / 3, "3/4": 0.75, "5/6": 5 / 6, "7/8": 7 / 8}
+
+_RS_K = {16: 223, 8: 239}
+
+
+@dataclass(frozen=True)
+class LinkSection:
+    """``[link]``: the physical layer."""
+
+    modulation: Modulation = "bpsk"
+    symbol_rate_baud: float = 240_000.0
+    pulse: Pulse = "rrc"
+    rolloff: float = 0.5
+    line_code: LineCode = "nrz-l"
+    modulation_index_rad: float = 1.1
+    subcarrier_hz: float = 0.0
+    subcarrier_wave: SubcarrierWave = "square"
+    downlink_frequency_hz: float | None = None
+
+    @property
+    def bits_per_symbol(self) -> int:
+        """Channel bits carried by one modulation symbol (2 for QPSK/OQPSK, else 1)."""
+        return 2 if self.modulation in ("qpsk", "oqpsk") else 1
+
+
+@dataclass(frozen=True)
+class CodingSection:
+    """``[coding]``: channel coding (CCSDS 131.0-B)."""
+
+    convolutional: ConvRate = "1/2"
+    reed_solomon: int = 16
+    interleave: int = 5
+    randomizer: bool = True
+
+    @property
+    def conv_rate(self) -> float:
+        return CONV_RATES[self.convolutional]
+
+    @property
+    def rs_k(self) -> int:
+        """RS information symbols per codeword (223 or 239), 255 when there is no RS code."""
+        return _RS_K.get(self.reed_solomon, 255)
+
+
+@dataclass(frozen=True)
+class FramesSection:
+    """``[frames]``: transfer frames (CCSDS 132.0-B TM or 732.0-B AOS)."""
+
+    kind: FrameKind = "tm"
+    length: int = 1115
+    fecf: bool = False
+    ocf: bool = False
+    spacecraft_id: int = 499
+    secondary_header_length: int = 0  # TM: octets of the secondary header incl. its ID octet (0 = none)
+    fhec: bool = False  # AOS frame header error control
+    insert_zone_length: int = 0  # AOS insert zone octets
+    bitstream_vcids: tuple[int, ...] = ()  # AOS VCs carrying B_PDUs instead of M_PDUs
+    idle_vcid: int = 63  # AOS idle VC (CCSDS 732.0-B); TM idle frames are marked by FHP 0x7FE
+
+    @property
+    def length_bytes(self) -> int:
+        return self.length
+
+
+@dataclass(frozen=True)
+class TimeCodeConfig:
+    """How one APID's packet secondary header starts with a CCSDS 301.0-B time code."""
+
+    apid: int
+    code: TimeCodeKind = "cuc"
+    pfield: int | None = None  # implicit P-field octet(s) as an integer; None = explicit P-field in the packet
+    epoch: str = "1958-01-01T00:00:00"  # TAI epoch for level-2 / agency-defined epochs
+    offset: int = 0  # octets from the start of the secondary header
+
+
+@dataclass(frozen=True)
+class PacketsSection:
+    """``[packets]``: space packets and their time codes."""
+
+    time_codes: tuple[TimeCodeConfig, ...] = ()
+    encapsulation: bool = True  # accept CCSDS 133.1-B encapsulation packets (PVN 111)
+
+
+@dataclass(frozen=True)
+class ReceiverSection:
+    """``[receiver]``: receiver tuning.  Defaults suit the demo link."""
+
+    carrier_loop_bandwidth_hz: float = 0.0  # 0 = automatic (a fraction of the symbol rate)
+    carrier_loop_order: int = 2  # 2 or 3 (third order tracks a Doppler rate without bias)
+    timing_loop_bandwidth: float = 0.005  # normalised to the symbol rate
+    acquisition_range: float = 0.05  # +- fraction of the symbol rate searched for the carrier
+    asm_max_errors: int = 4  # mismatched ASM bits accepted when searching / checking
+    flywheel_frames: int = 3  # missed markers tolerated before dropping back to search
+    chunk_samples: int = 1 << 18
+
+
+@dataclass(frozen=True)
+class ApidTraffic:
+    """One APID of the simulated traffic."""
+
+    apid: int
+    length: int  # packet data field octets (the packet is 6 octets longer)
+    rate_hz: float
+    vcid: int = 0
+    time_code: bool = False  # put a CUC secondary header (4+2 octets, P-field 0x1E, implicit)
+
+
+@dataclass(frozen=True)
+class SimulateSection:
+    """``[simulate]``: the transmitter and channel of ``downlink simulate``."""
+
+    start: str = "2026-03-14T09:30:00Z"
+    sample_rate_hz: float = 1_000_000.0
+    seconds: float = 10.0
+    ebn0_db: float = 8.0
+    carrier_offset_hz: float = 1500.0
+    doppler_rate_hz_per_s: float = 0.0
+    phase_noise_rad: float = 0.0
+    timing_offset: float = 0.37  # fraction of a symbol
+    clock_offset_ppm: float = 20.0
+    datatype: str = "cf32_le"
+    seed: int = 1
+    traffic: tuple[ApidTraffic, ...] = (
+        ApidTraffic(apid=100, length=120, rate_hz=10.0, vcid=0, time_code=True),
+        ApidTraffic(apid=200, length=2000, rate_hz=4.0, vcid=1),
+        ApidTraffic(apid=300, length=60, rate_hz=5.0, vcid=0, time_code=True),
+    )
+
+
+@dataclass(frozen=True)
+class LinkProfile:
+    """A whole link profile.  Build with :func:`load_profile` or :func:`profile_from_dict`."""
+
+    link: LinkSection = field(default_factory=LinkSection)
+    coding: CodingSection = field(default_factory=CodingSection)
+    frames: FramesSection = field(default_factory=FramesSection)
+    packets: PacketsSection = field(default_factory=PacketsSection)
+    receiver: ReceiverSection = field(default_factory=ReceiverSection)
+    simulate: SimulateSection = field(default_factory=SimulateSection)
+    name: str = "profile"
+
+    # ---- derived sizes -------------------------------------------------------------------
+    @property
+    def rs_parity_bytes(self) -> int:
+        """Parity octets in one codeblock (2 E I), 0 without RS."""
+        c = self.coding
+        return 2 * c.reed_solomon * c.interleave if c.reed_solomon else 0
+
+    @property
+    def codeblock_bytes(self) -> int:
+        """Octets between two ASMs: the frame plus RS parity (CCSDS 131.0-B)."""
+        return self.frames.length + self.rs_parity_bytes
+
+    @property
+    def virtual_fill_bytes(self) -> int:
+        """Virtual fill octets per codeblock (k I - frame length), 0 without RS."""
+        c = self.coding
+        return c.rs_k * c.interleave - self.frames.length if c.reed_solomon else 0
+
+    @property
+    def cadu_bits(self) -> int:
+        """Bits of one CADU: 32-bit ASM plus the codeblock."""
+        return 32 + 8 * self.codeblock_bytes
+
+    @property
+    def code_rate(self) -> float:
+        """Overall information rate per channel bit (convolutional x RS), ASM excluded."""
+        rs = (self.frames.length / self.codeblock_bytes) if self.coding.reed_solomon else 1.0
+        return self.coding.conv_rate * rs
+
+    def esn0_from_ebn0(self, ebn0_db: float) -> float:
+        """``Es/N0 = Eb/N0 + 10 log10(code rate x bits per modulation symbol)`` (../shared/DESIGN.md)."""
+        return ebn0_db + 10.0 * math.log10(self.code_rate * self.link.bits_per_symbol)
+
+    def with_changes(self, **sections: Any) -> "LinkProfile":
+        """A copy with whole sections or section fields replaced: ``p.with_changes(coding={"interleave": 1})``."""
+        kw = {}
+        for name, value in sections.items():
+            current = getattr(self, name)
+            if isinstance(value, dict):
+                kw[name] = replace(current, **value)
+            else:
+                kw[name] = value
+        new = replace(self, **kw)
+        _validate(new, "<changes>")
+        return new
+
+
+# ---- loading -----------------------------------------------------------------------------
+
+_KEY_MAP = {
+    "link": {"symbol_rate": "symbol_rate_baud", "modulation_index": "modulation_index_rad"},
+}
+
+
+def demo_profile_path() -> Path:
+    """Path of the bundled demo profile (the invented *Tamarisk* lunar relay orbiter)."""
+    return Path(str(resources.files("pipeline") / "data" / "tamarisk.toml"))
+
+
+def load_profile(path: str | Path) -> LinkProfile:
+    """Read and validate a TOML link profile.
+
+    Raises
+    ------
+    ProfileError
+        One line naming the file and the problem: missing, not TOML, unknown key, value out of range.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ProfileError(f"{path}: profile not found") from None
+    except OSError as exc:
+        raise ProfileError(f"{path}: cannot read profile ({exc.strerror})") from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ProfileError(f"{path}: not valid TOML ({exc})") from None
+    return profile_from_dict(data, source=str(path), name=path.stem)
+
+
+def profile_from_dict(data: dict, *, source: str = "<dict>", name: str = "profile") -> LinkProfile:
+    """Build and validate a profile from the parsed TOML tree (see :func:`load_profile`)."""
+    if not isinstance(data, dict):
+        raise ProfileError(f"{source}: profile must be a TOML table")
+    known = {"link", "coding", "frames", "packets", "receiver", "simulate", "name"}
+    for key in data:
+        if key not in known:
+            raise ProfileError(f"{source}: unknown table [{key}] (expected one of {', '.join(sorted(known))})")
+    sections: dict[str, Any] = {}
+    for sec_name, cls in (
+        ("link", LinkSection),
+        ("coding", CodingSection),
+        ("frames", FramesSection),
+        ("receiver", ReceiverSection),
+    ):
+        sections[sec_name] = _build_section(cls, data.get(sec_name, {}), sec_name, source)
+    sections["packets"] = _build_packets(data.get("packets", {}), source)
+    sections["simulate"] = _build_simulate(data.get("simulate", {}), source)
+    prof = LinkProfile(name=str(data.get("name", name)), **sections)
+    _validate(prof, source)
+    return prof
+
+
+def _build_section(cls, table: Any, sec_name: str, source: str, skip: tuple[str, ...] = ()):
+    if not isinstance(table, dict):
+        raise ProfileError(f"{source}: [{sec_name}] must be a table")
+    keymap = _KEY_MAP.get(sec_name, {})
+    names = {f.name: f for f in fields(cls)}
+    kw = {}
+    for key, value in table.items():
+        if key in skip:
+            continue
+        attr = keymap.get(key, key)
+        if attr not in names:
+            allowed = sorted({next((k for k, v in keymap.items() if v == n), n) for n in names} - set(skip))
+            raise ProfileError(f"{source}: unknown key '{key}' in [{sec_name}] (known: {', '.join(allowed)})")
+        default = names[attr].default
+        kw[attr] = _coerce(value, default, f"[{sec_name}] {key}", source)
+    try:
+        return cls(**kw)
+    except TypeError as exc:  # pragma: no cover - defensive
+        raise ProfileError(f"{source}: [{sec_name}] {exc}") from None
+
+
+def _coerce(value: Any, default: Any, where: str, source: str) -> Any:
+    if isinstance(default, bool):
+        if not isinstance(value, bool):
+            raise ProfileError(f"{source}: {where} must be true or false, not {value!r}")
+        return value
+    if isinstance(default, int) and not isinstance(default, bool):
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise ProfileError(f"{source}: {where} must be an integer, not {value!r}")
+        return value
+    if isinstance(default, float) or (default is None and isinstance(value, (int, float))):
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise ProfileError(f"{source}: {where} must be a number, not {value!r}")
+        value = float(value)
+        if not math.isfinite(value):
+            raise ProfileError(f"{source}: {where} must be finite, not {value!r}")
+        return value
+    if isinstance(default, str):
+        if not isinstance(value, str):
+            raise ProfileError(f"{source}: {where} must be a string, not {value!r}")
+        return value
+    if isinstance(default, tuple):
+        if not isinstance(value, list) or not all(isinstance(v, int) and not isinstance(v, bool) for v in value):
+            raise ProfileError(f"{source}: {where} must be a list of integers, not {value!r}")
+        return tuple(value)
+    return value
+
+
+def _build_packets(table: Any, source: str) -> PacketsSection:
+    if not isinstance(table, dict):
+        raise ProfileError(f"{source}: [packets] must be a table")
+    base = _build_section(PacketsSection, table, "packets", source, skip=("time_code",))
+    codes = []
+    entries = table.get("time_code", [])
+    if not isinstance(entries, list):
+        raise ProfileError(f"{source}: [[packets.time_code]] must be an array of tables")
+    for i, entry in enumerate(entries):
+        if not isinstance(entry, dict) or "apid" not in entry:
+            raise ProfileError(f"{source}: [[packets.time_code]] entry {i + 1} needs an 'apid'")
+        entry = dict(entry)
+        apid = entry.pop("apid")
+        if isinstance(apid, bool) or not isinstance(apid, int):
+            raise ProfileError(f"{source}: [[packets.time_code]] apid must be an integer, not {apid!r}")
+        tc = _build_section(TimeCodeConfig, {"apid": apid, **entry}, "packets.time_code", source)
+        codes.append(tc)
+    return replace(base, time_codes=tuple(codes))
+
+
+def _build_simulate(table: Any, source: str) -> SimulateSection:
+    if not isinstance(table, dict):
+        raise ProfileError(f"{source}: [simulate] must be a table")
+    base = _build_section(SimulateSection, table, "simulate", source, skip=("traffic",))
+    if "traffic" not in table:
+        return base
+    entries = table["traffic"]
+    if not isinstance(entries, list) or not entries:
+        raise ProfileError(f"{source}: [[simulate.traffic]] must be a non-empty array of tables")
+    traffic = []
+    for i, entry in enumerate(entries):
+        if not isinstance(entry, dict) or not {"apid", "length", "rate_hz"} <= set(entry):
+            raise ProfileError(f"{source}: [[simulate.traffic]] entry {i + 1} needs 'apid', 'length' and 'rate_hz'")
+        proto = ApidTraffic(apid=0, length=1, rate_hz=1.0)
+        kw = {}
+        for key, value in entry.items():
+            if key not in {f.name for f in fields(ApidTraffic)}:
+                raise ProfileError(f"{source}: unknown key '{key}' in [[simulate.traffic]]")
+            kw[key] = _coerce(value, getattr(proto, key), f"[[simulate.traffic]] {key}", source)
+        traffic.append(ApidTraffic(**kw))
+    return replace(base, traffic=tuple(traffic))
+
+
+def _choice(value: str, alias, where: str, source: str) -> None:
+    allowed = get_args(alias)
+    if value not in allowed:
+        raise ProfileError(f"{source}: {where} must be one of {' | '.join(allowed)}, not {value!r}")
+
+
+def _check(cond: bool, source: str, message: str) -> None:
+    if not cond:
+        raise ProfileError(f"{source}: {message}")
+
+
+def _validate(p: LinkProfile, source: str) -> None:
+    L, C, F, R, S = p.link, p.coding, p.frames, p.receiver, p.simulate
+    _choice(L.modulation, Modulation, "[link] modulation", source)
+    _choice(L.pulse, Pulse, "[link] pulse", source)
+    _choice(L.line_code, LineCode, "[link] line_code", source)
+    _choice(L.subcarrier_wave, SubcarrierWave, "[link] subcarrier_wave", source)
+    _check(L.symbol_rate_baud > 0, source, f"[link] symbol_rate must be > 0, not {L.symbol_rate_baud:g}")
+    _check(0.0 < L.rolloff <= 1.0, source, f"[link] rolloff must be in (0, 1], not {L.rolloff:g}")
+    if L.modulation in ("pcm-pm", "pcm-psk-pm"):
+        _check(0.0 < L.modulation_index_rad < math.pi / 2, source,
+               f"[link] modulation_index must be in (0, pi/2) rad, not {L.modulation_index_rad:g}")
+    if L.modulation == "pcm-psk-pm":
+        _check(L.subcarrier_hz > 0, source, f"[link] subcarrier_hz must be > 0 for pcm-psk-pm, not {L.subcarrier_hz:g}")
+    _choice(C.convolutional, ConvRate, "[coding] convolutional", source)
+    _check(C.reed_solomon in (0, 8, 16), source, f"[coding] reed_solomon must be 0, 8 or 16, not {C.reed_solomon}")
+    _check(1 <= C.interleave <= 8, source, f"[coding] interleave must be 1..8, not {C.interleave}")
+    _choice(F.kind, FrameKind, "[frames] kind", source)
+    max_scid = 0x3FF if F.kind == "tm" else 0xFF
+    _check(0 <= F.spacecraft_id <= max_scid, source,
+           f"[frames] spacecraft_id must be 0..{max_scid} for {F.kind.upper()} frames, not {F.spacecraft_id}")
+    min_len = 6 + (2 if F.fecf else 0) + (4 if F.ocf else 0) + 2 + F.secondary_header_length + F.insert_zone_length
+    _check(min_len < F.length <= 65536, source, f"[frames] length must be {min_len + 1}..65536 octets, not {F.length}")
+    _check(0 <= F.secondary_header_length <= 64, source,
+           f"[frames] secondary_header_length must be 0..64, not {F.secondary_header_length}")
+    _check(all(0 <= v <= 63 for v in F.bitstream_vcids), source, "[frames] bitstream_vcids must be 0..63")
+    _check(0 <= F.idle_vcid <= 63, source, f"[frames] idle_vcid must be 0..63, not {F.idle_vcid}")
+    if C.reed_solomon:
+        k = C.rs_k
+        _check(F.length % C.interleave == 0, source,
+               f"[frames] length {F.length} must be a multiple of [coding] interleave {C.interleave} with Reed-Solomon")
+        _check(F.length <= k * C.interleave, source,
+               f"[frames] length must be at most {k * C.interleave} octets for RS E={C.reed_solomon} and "
+               f"interleave {C.interleave}, not {F.length}")
+        _check(F.length > 2 * C.reed_solomon * 0 + C.interleave, source, "[frames] length too short for RS")
+    _check(R.carrier_loop_bandwidth_hz >= 0, source, "[receiver] carrier_loop_bandwidth_hz must be >= 0")
+    _check(R.carrier_loop_order in (2, 3), source,
+           f"[receiver] carrier_loop_order must be 2 or 3, not {R.carrier_loop_order}")
+    _check(0 < R.timing_loop_bandwidth < 0.1, source, "[receiver] timing_loop_bandwidth must be in (0, 0.1)")
+    _check(0 < R.acquisition_range <= 0.5, source, "[receiver] acquisition_range must be in (0, 0.5]")
+    _check(0 <= R.asm_max_errors <= 10, source, f"[receiver] asm_max_errors must be 0..10, not {R.asm_max_errors}")
+    _check(0 <= R.flywheel_frames <= 100, source, "[receiver] flywheel_frames must be 0..100")
+    _check(1024 <= R.chunk_samples <= 1 << 26, source, "[receiver] chunk_samples must be 1024..67108864")
+    for tc in p.packets.time_codes:
+        _choice(tc.code, TimeCodeKind, "[[packets.time_code]] code", source)
+        _check(0 <= tc.apid <= 0x7FE, source, f"[[packets.time_code]] apid must be 0..2046, not {tc.apid}")
+    _check(S.sample_rate_hz > 0, source, f"[simulate] sample_rate_hz must be > 0, not {S.sample_rate_hz:g}")
+    _check(S.seconds > 0, source, f"[simulate] seconds must be > 0, not {S.seconds:g}")
+    _check(S.datatype in ("cf32_le", "ci16_le", "ci8", "cu8"), source,
+           f"[simulate] datatype must be cf32_le | ci16_le | ci8 | cu8, not {S.datatype!r}")
+    for t in S.traffic:
+        _check(0 <= t.apid <= 0x7FE, source, f"[[simulate.traffic]] apid must be 0..2046, not {t.apid}")
+        _check(1 <= t.length <= 65536, source, f"[[simulate.traffic]] length must be 1..65536, not {t.length}")
+        _check(t.rate_hz > 0, source, f"[[simulate.traffic]] rate_hz must be > 0, not {t.rate_hz:g}")
+        _check(0 <= t.vcid <= 63, source, f"[[simulate.traffic]] vcid must be 0..63, not {t.vcid}")

@@ -1,0 +1,3 @@
+"""pipeline.report (see DEVELOPERS.md, stage contracts)."""
+
+__all__: list[str] = []
