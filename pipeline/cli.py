@@ -1,0 +1,362 @@
+"""The ``downlink`` command: every subcommand declared here, one boundary for errors and exit codes.
+
+Each subcommand handler imports its implementation lazily so ``downlink --help`` stays fast and a
+broken optional part cannot stop the others.  Errors from :mod:`pipeline.errors` become one
+``Error: ...`` line on stderr and an exit code from :class:`ExitCode`; ``--traceback`` shows the
+whole traceback instead.
+"""
+
+from __future__ import annotations
+
+import argparse
+import enum
+import json
+import logging
+import signal
+import sys
+import traceback
+from pathlib import Path
+from typing import Sequence
+
+from pipeline._version import __version__
+from pipeline.errors import DownlinkError, OutputError, ProfileError, RecordingError
+
+__all__ = ["main", "ExitCode", "build_parser"]
+
+log = logging.getLogger("pipeline")
+
+CAUTION = "Decoded data is no substitute for the mission's validated ground segment."
+
+
+class ExitCode(enum.IntEnum):
+    """Process exit codes of ``downlink``."""
+
+    OK = 0
+    FAILED = 1  # the command ran but its check failed (verify: a vector failed)
+    USAGE = 2  # bad command line (argparse)
+    BAD_INPUT = 3  # recording or profile cannot be used
+    BAD_OUTPUT = 4  # output folder exists / cannot be written
+    INTERNAL = 70  # a bug: please report with --traceback
+    INTERRUPTED = 130  # SIGINT
+    TERMINATED = 143  # SIGTERM
+
+
+class Terminated(BaseException):
+    """Raised from the SIGTERM handler so that clean-up runs exactly as for Ctrl-C."""
+
+
+def _on_sigterm(signum, frame):  # pragma: no cover - exercised in a subprocess test
+    raise Terminated()
+
+
+# ---- parser ------------------------------------------------------------------------------
+
+
+def _add_recording_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("recording", help="x.sigmf-meta (or .sigmf-data), a two-channel .wav, or a raw file with --format")
+    p.add_argument("--format", dest="datatype", choices=["cf32", "ci16", "ci8", "cu8"],
+                   help="sample format of a raw recording (little-endian interleaved I/Q)")
+    p.add_argument("--sample-rate", dest="sample_rate_hz", type=float, help="sample rate of a raw recording, Hz")
+    p.add_argument("--start", help="UTC time of the first sample of a raw recording (ISO-8601, e.g. 2026-03-14T09:30:00Z)")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="downlink",
+        description="CCSDS telemetry decoding: IQ recording -> verified, time-tagged space packets. " + CAUTION,
+    )
+    parser.add_argument("--version", action="version", version=f"downlink {__version__}")
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("-v", "--verbose", action="count", default=0, help="log more (-vv for debug)")
+    common.add_argument("-q", "--quiet", action="store_true", help="no progress bar and no summary line")
+    common.add_argument("--traceback", action="store_true", help="show the full traceback on an error")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+
+    p = sub.add_parser("decode", parents=[common], help="decode a recording into packets, frames and a pass report",
+                       description="Stream a recording through demodulation, decoding, frame sync, transfer frames "
+                                   "and packet extraction. " + CAUTION)
+    _add_recording_args(p)
+    p.add_argument("--profile", required=True, help="link profile (TOML)")
+    p.add_argument("--out", required=True, help="output folder (created; refused if it exists)")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--input", dest="input_kind", choices=["iq", "soft", "bits"], default="iq",
+                   help="iq: complex samples (default); soft: int8 per channel symbol, + means bit 0; "
+                        "bits: packed hard channel bits, MSB first")
+    p.set_defaults(handler=_cmd_decode)
+
+    p = sub.add_parser("demo", parents=[common], help="simulate the bundled demo pass and decode it",
+                       description="Simulate about 10 s of the invented Tamarisk lunar relay orbiter as received at "
+                                   "the invented Hollow Ridge station, then decode it and compare with the truth.")
+    p.add_argument("--out", default="downlink-demo", help="output folder (default: ./downlink-demo)")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--seconds", type=float, default=None, help="length of the simulated pass (default 10 s)")
+    p.add_argument("--ebn0", dest="ebn0_db", type=float, default=None, help="Eb/N0 in dB (default: the profile's)")
+    p.add_argument("--seed", type=int, default=None, help="random seed")
+    p.set_defaults(handler=_cmd_demo)
+
+    p = sub.add_parser("simulate", parents=[common], help="make a recording with known truth",
+                       description="Simulate the transmitter and channel of a link profile and write a SigMF "
+                                   "recording plus truth files listing every packet with its ERT.")
+    p.add_argument("--profile", required=True, help="link profile (TOML)")
+    p.add_argument("--out", required=True, help="output folder")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--ebn0", dest="ebn0_db", type=float, help="Eb/N0 in dB per information bit")
+    p.add_argument("--seconds", type=float, help="duration in seconds")
+    p.add_argument("--seed", type=int, help="random seed")
+    p.add_argument("--carrier-offset", dest="carrier_offset_hz", type=float, help="carrier offset, Hz")
+    p.add_argument("--doppler-rate", dest="doppler_rate_hz_per_s", type=float, help="Doppler rate, Hz/s")
+    p.add_argument("--clock-offset", dest="clock_offset_ppm", type=float, help="sample-clock offset, ppm")
+    p.add_argument("--timing-offset", dest="timing_offset", type=float, help="timing offset, fraction of a symbol")
+    p.add_argument("--phase-noise", dest="phase_noise_rad", type=float, help="phase noise, rad rms")
+    p.add_argument("--datatype", choices=["cf32_le", "ci16_le"], help="sample format of the recording")
+    p.add_argument("--fade", action="append", default=[], metavar="START:DURATION:DEPTH_DB",
+                   help="a fade (seconds, seconds, dB); repeat for several; a depth of 100 is a dropout")
+    p.add_argument("--no-noise", dest="noise", action="store_false", help="no AWGN (for debugging)")
+    p.add_argument("--write-bits", action="store_true", help="also write channel.bits (for --input bits)")
+    p.add_argument("--write-soft", action="store_true", help="also write channel.soft (for --input soft)")
+    p.set_defaults(handler=_cmd_simulate)
+
+    p = sub.add_parser("inspect", parents=[common], help="spectrum, carrier, Es/N0 and lock of a recording",
+                       description="Look at a recording without decoding it.")
+    _add_recording_args(p)
+    p.add_argument("--profile", help="link profile (TOML); adds carrier offset, drift, Es/N0, lock fraction")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--plot", metavar="DIR", help="write spectrum.png and constellation.png into DIR")
+    p.add_argument("--seconds", type=float, default=None, help="look at the first SECONDS only")
+    p.set_defaults(handler=_cmd_inspect)
+
+    p = sub.add_parser("verify", parents=[common], help="run the known-answer vectors, pass/fail table",
+                       description="Run every known-answer vector and print a pass/fail table.")
+    p.add_argument("vectors", nargs="?", default=None, help="vector folder (default: the bundled vectors)")
+    p.add_argument("--json", action="store_true", help="print one JSON object with a 'cases' list")
+    p.set_defaults(handler=_cmd_verify)
+
+    p = sub.add_parser("sweep", parents=[common], help="error-rate curves beside coding theory",
+                       description="Monte-Carlo bit, frame and packet error rates against Eb/N0.")
+    p.add_argument("--profile", required=True, help="link profile (TOML)")
+    p.add_argument("--ebn0", required=True, metavar="A:B:STEP", help="Eb/N0 range in dB, e.g. 0:6:0.5")
+    p.add_argument("--frames", type=int, default=200, help="frames per point at most (default 200)")
+    p.add_argument("--errors", type=int, default=100, help="stop a point after this many bit errors")
+    p.add_argument("--stage", choices=["code", "chain"], default="code",
+                   help="code: the codes alone on AWGN; chain: the full chain with carrier and timing recovery")
+    p.add_argument("--seed", type=int, default=1, help="random seed")
+    p.add_argument("--workers", type=int, default=None, help="processes (default: all cores)")
+    p.add_argument("--out", default="sweep-out", help="folder for sweep.csv, sweep.json, sweep.png")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.set_defaults(handler=_cmd_sweep)
+
+    p = sub.add_parser("bench", parents=[common], help="per-stage and end-to-end throughput",
+                       description="Measure throughput of each stage and of the whole chain on the demo profile.")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--seconds", type=float, default=4.0, help="length of the end-to-end test recording")
+    p.set_defaults(handler=_cmd_bench)
+
+    p = sub.add_parser("batch", parents=[common], help="decode many recordings on Dask",
+                       description="Decode many recordings (a mission archive) in parallel with Dask.")
+    p.add_argument("recordings", nargs="+", help="SigMF recordings (.sigmf-meta)")
+    p.add_argument("--profile", required=True, help="link profile (TOML)")
+    p.add_argument("--out", required=True, help="output folder: one sub-folder per recording plus index.json")
+    p.add_argument("--scheduler", default=None, help="dask.distributed scheduler address (default: a local cluster)")
+    p.add_argument("--workers", type=int, default=None, help="local workers (default: cores)")
+    p.set_defaults(handler=_cmd_batch)
+    return parser
+
+
+# ---- handlers ----------------------------------------------------------------------------
+
+
+def _load_profile(path: str):
+    from pipeline.profile import load_profile
+
+    return load_profile(path)
+
+
+def _cmd_decode(args) -> int:
+    from pipeline._chain import decode_to_folder
+
+    profile = _load_profile(args.profile)
+    summary = decode_to_folder(
+        args.recording,
+        profile,
+        args.out,
+        overwrite=args.overwrite,
+        input_kind=args.input_kind,
+        datatype=args.datatype,
+        sample_rate_hz=args.sample_rate_hz,
+        start=args.start,
+        progress=not args.quiet and sys.stderr.isatty(),
+    )
+    if not args.quiet:
+        print(summary.line(), file=sys.stderr)
+    print(str(Path(args.out) / "report.html"))
+    return ExitCode.OK
+
+
+def _cmd_demo(args) -> int:
+    from pipeline._demo import run_demo
+
+    return run_demo(out=args.out, overwrite=args.overwrite, seconds=args.seconds, ebn0_db=args.ebn0_db,
+                    seed=args.seed, quiet=args.quiet)
+
+
+def _parse_fades(items: list[str]) -> tuple[tuple[float, float, float], ...]:
+    fades = []
+    for item in items:
+        parts = item.split(":")
+        try:
+            if len(parts) != 3:
+                raise ValueError
+            start, dur, depth = (float(x) for x in parts)
+        except ValueError:
+            raise ProfileError(f"--fade {item!r}: expected START:DURATION:DEPTH_DB, e.g. 3.0:0.1:100") from None
+        if dur <= 0 or start < 0 or depth < 0:
+            raise ProfileError(f"--fade {item!r}: start and depth must be >= 0 and duration > 0")
+        fades.append((start, dur, depth))
+    return tuple(fades)
+
+
+def _cmd_simulate(args) -> int:
+    from pipeline._output import OutputFolder
+    from pipeline.sim import simulate
+
+    profile = _load_profile(args.profile)
+    fades = _parse_fades(args.fade)
+    with OutputFolder(args.out, overwrite=args.overwrite) as tmp:
+        result = simulate(
+            profile, tmp, seconds=args.seconds, ebn0_db=args.ebn0_db, seed=args.seed,
+            carrier_offset_hz=args.carrier_offset_hz, doppler_rate_hz_per_s=args.doppler_rate_hz_per_s,
+            clock_offset_ppm=args.clock_offset_ppm, timing_offset=args.timing_offset,
+            phase_noise_rad=args.phase_noise_rad, datatype=args.datatype, fades=fades, noise=args.noise,
+            write_bits=args.write_bits, write_soft=args.write_soft,
+        )
+    if not args.quiet:
+        print(f"simulated {result.seconds:g} s: {result.num_samples} samples, {result.num_frames} frames, "
+              f"{result.num_packets} packets, Es/N0 {result.esn0_db:.2f} dB (simulated data)", file=sys.stderr)
+    print(str(Path(args.out) / Path(result.meta_path).name))
+    return ExitCode.OK
+
+
+def _cmd_inspect(args) -> int:
+    from pipeline.demod import inspect_recording, write_inspect_plots
+    from pipeline.recording import open_recording
+
+    profile = _load_profile(args.profile) if args.profile else None
+    rec = open_recording(args.recording, datatype=args.datatype, sample_rate_hz=args.sample_rate_hz,
+                         start=args.start)
+    result = inspect_recording(rec, profile=profile, max_seconds=args.seconds)
+    if args.plot:
+        Path(args.plot).mkdir(parents=True, exist_ok=True)
+        write_inspect_plots(result, args.plot)
+    shown = {k: v for k, v in result.items() if k != "plots"}
+    if args.json:
+        print(json.dumps(_jsonable(shown), indent=None))
+    else:
+        width = max(len(k) for k in shown)
+        for key, value in shown.items():
+            if isinstance(value, float):
+                value = f"{value:.6g}"
+            print(f"{key:<{width}}  {value}")
+    return ExitCode.OK
+
+
+def _cmd_verify(args) -> int:
+    from pipeline._verify import run_verify
+
+    return run_verify(args.vectors, as_json=args.json)
+
+
+def _cmd_sweep(args) -> int:
+    from pipeline._sweep import run_sweep
+
+    profile = _load_profile(args.profile)
+    return run_sweep(profile, args.ebn0, frames=args.frames, errors=args.errors, stage=args.stage, seed=args.seed,
+                     workers=args.workers, out=args.out, overwrite=args.overwrite, quiet=args.quiet)
+
+
+def _cmd_bench(args) -> int:
+    from pipeline._bench import run_bench
+
+    return run_bench(as_json=args.json, seconds=args.seconds)
+
+
+def _cmd_batch(args) -> int:
+    from pipeline._batch import run_batch
+
+    profile = _load_profile(args.profile)
+    return run_batch(args.recordings, profile, args.profile, args.out, scheduler=args.scheduler,
+                     workers=args.workers, quiet=args.quiet)
+
+
+def _jsonable(value):
+    import numpy as np
+
+    if isinstance(value, dict):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, float) and value != value:
+        return None
+    return value
+
+
+# ---- entry point -------------------------------------------------------------------------
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run ``downlink`` with ``argv`` (default: ``sys.argv[1:]``) and return the exit code."""
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse: --help, --version, usage errors
+        return int(exc.code or 0)
+    level = logging.WARNING - 10 * getattr(args, "verbose", 0)
+    logging.basicConfig(level=max(level, logging.DEBUG), format="%(levelname)s %(name)s: %(message)s")
+    old_term = None
+    try:
+        old_term = signal.signal(signal.SIGTERM, _on_sigterm)
+    except ValueError:  # not in the main thread (tests, Dask workers)
+        pass
+    try:
+        return int(args.handler(args))
+    except (RecordingError, ProfileError) as exc:
+        return _report(args, exc, ExitCode.BAD_INPUT)
+    except OutputError as exc:
+        return _report(args, exc, ExitCode.BAD_OUTPUT)
+    except DownlinkError as exc:
+        return _report(args, exc, ExitCode.FAILED)
+    except KeyboardInterrupt:
+        print("Error: interrupted; no output was completed", file=sys.stderr)
+        return ExitCode.INTERRUPTED
+    except Terminated:
+        print("Error: terminated; no output was completed", file=sys.stderr)
+        return ExitCode.TERMINATED
+    except Exception as exc:  # a bug
+        if getattr(args, "traceback", False):
+            traceback.print_exc()
+        else:
+            print(f"Error: internal error ({type(exc).__name__}: {exc}); rerun with --traceback and report it",
+                  file=sys.stderr)
+        return ExitCode.INTERNAL
+    finally:
+        if old_term is not None:
+            try:
+                signal.signal(signal.SIGTERM, old_term)
+            except ValueError:
+                pass
+
+
+def _report(args, exc: BaseException, code: ExitCode) -> int:
+    if getattr(args, "traceback", False):
+        traceback.print_exc()
+    else:
+        print(f"Error: {exc}", file=sys.stderr)
+    return code
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
