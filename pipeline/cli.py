@@ -173,9 +173,9 @@ def _load_profile(path: str):
 
 
 def _cmd_decode(args) -> int:
+    profile = _load_profile(args.profile)
     from pipeline._chain import decode_to_folder
 
-    profile = _load_profile(args.profile)
     summary = decode_to_folder(
         args.recording,
         profile,
@@ -217,11 +217,11 @@ def _parse_fades(items: list[str]) -> tuple[tuple[float, float, float], ...]:
 
 
 def _cmd_simulate(args) -> int:
+    profile = _load_profile(args.profile)
+    fades = _parse_fades(args.fade)
     from pipeline._output import OutputFolder
     from pipeline.sim import simulate
 
-    profile = _load_profile(args.profile)
-    fades = _parse_fades(args.fade)
     with OutputFolder(args.out, overwrite=args.overwrite) as tmp:
         result = simulate(
             profile, tmp, seconds=args.seconds, ebn0_db=args.ebn0_db, seed=args.seed,

@@ -1,0 +1,81 @@
+"""Link profile loading and validation (pipeline/profile.py)."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+
+from pipeline.errors import ProfileError
+from pipeline.profile import demo_profile_path, load_profile, profile_from_dict
+
+
+def test_demo_profile_sizes(demo_profile):
+    p = demo_profile
+    assert p.frames.spacecraft_id == 499
+    # CCSDS 131.0-B-2 sec. 4: RS(255,223) with I = 5 -> 5 x 32 parity octets after a 1115-octet frame
+    assert p.rs_parity_bytes == 160
+    assert p.codeblock_bytes == 1275
+    assert p.virtual_fill_bytes == 0
+    assert p.cadu_bits == 32 + 8 * 1275
+
+
+def test_esn0_from_ebn0_follows_design_definition(demo_profile):
+    # ../shared/DESIGN.md: Es/N0 = Eb/N0 + 10 log10(code rate x bits per modulation symbol)
+    rate = 0.5 * 1115 / 1275
+    assert demo_profile.esn0_from_ebn0(6.0) == pytest.approx(6.0 + 10 * math.log10(rate))
+    qpsk = demo_profile.with_changes(link={"modulation": "qpsk"})
+    assert qpsk.esn0_from_ebn0(6.0) == pytest.approx(6.0 + 10 * math.log10(2 * rate))
+
+
+def test_virtual_fill_from_length():
+    # CCSDS 130.1-G-1 Fig. 5-3: I = 5 with Q = 15 fill octets (q = 3 per codeword) -> 8800-bit frame
+    p = profile_from_dict({"coding": {"interleave": 5}, "frames": {"length": 1100}})
+    assert p.virtual_fill_bytes == 15
+    assert 8 * p.frames.length == 8800
+    assert 8 * p.codeblock_bytes == 10080
+
+
+@pytest.mark.parametrize(
+    "data, fragment",
+    [
+        ({"coding": {"interleave": 9}}, "interleave must be 1..8, not 9"),
+        ({"coding": {"reed_solomon": 5}}, "reed_solomon must be 0, 8 or 16, not 5"),
+        ({"link": {"symbol_rate": -1.0}}, "symbol_rate must be > 0"),
+        ({"link": {"modulation": "fsk"}}, "modulation must be one of"),
+        ({"coding": {"convolutional": "4/5"}}, "convolutional must be one of"),
+        ({"frames": {"length": 1116}}, "multiple of [coding] interleave"),
+        ({"frames": {"length": 2000}}, "at most 1115"),
+        ({"frames": {"spacecraft_id": 1024}}, "spacecraft_id must be 0..1023"),
+        ({"frames": {"kind": "aos", "spacecraft_id": 499}}, "spacecraft_id must be 0..255"),
+        ({"link": {"bogus": 1}}, "unknown key 'bogus' in [link]"),
+        ({"extra": {}}, "unknown table [extra]"),
+        ({"coding": {"interleave": "5"}}, "interleave must be an integer"),
+        ({"coding": {"randomizer": 1}}, "randomizer must be true or false"),
+    ],
+)
+def test_out_of_range_values_name_the_key(data, fragment):
+    with pytest.raises(ProfileError) as info:
+        profile_from_dict(data, source="p.toml")
+    msg = str(info.value)
+    assert msg.startswith("p.toml: ")
+    assert fragment in msg
+    assert "\n" not in msg
+
+
+def test_missing_and_malformed_files(tmp_path):
+    with pytest.raises(ProfileError, match="profile not found"):
+        load_profile(tmp_path / "nope.toml")
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[link\nmodulation = 'bpsk'\n")
+    with pytest.raises(ProfileError, match="not valid TOML"):
+        load_profile(bad)
+
+
+def test_time_codes_and_traffic_tables():
+    p = load_profile(demo_profile_path())
+    assert [tc.apid for tc in p.packets.time_codes] == [100, 300]
+    assert p.packets.time_codes[0].pfield == 0x1E
+    assert {t.apid for t in p.simulate.traffic} == {100, 200, 300}
+    with pytest.raises(ProfileError, match="needs 'apid', 'length' and 'rate_hz'"):
+        profile_from_dict({"simulate": {"traffic": [{"apid": 5}]}})
