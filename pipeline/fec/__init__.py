@@ -1,3 +1,55 @@
-"""pipeline.fec (see DEVELOPERS.md, stage contracts)."""
+"""pipeline.fec: the CCSDS channel codes (131.0-B) and the TM/AOS frame CRC (132.0-B).
 
-__all__: list[str] = []
+Encoders and decoders are bit-exact to the standards: the K=7 convolutional code and its
+punctured rates, Reed-Solomon (255,223)/(255,239) in the dual basis with interleaving and virtual
+fill, the TM pseudo-randomizer, the FECF CRC-16 and the attached sync markers.
+See DEVELOPERS.md (stage contracts) for how the other stages use these.
+"""
+
+from pipeline.fec._args import RATES, Rate
+from pipeline.fec._conv import (
+    ConvEncoder,
+    conv_bit_symbol_index,
+    conv_encode,
+    conv_output_length,
+    puncture_pattern,
+)
+from pipeline.fec._crc import crc16
+from pipeline.fec._markers import (
+    ASM,
+    ASM_BITS,
+    ASM_INVERTED,
+    TURBO_ASM_R1_2,
+    TURBO_ASM_R1_3,
+    TURBO_ASM_R1_4,
+    TURBO_ASM_R1_6,
+    TURBO_ASMS,
+    marker_bits,
+)
+from pipeline.fec._randomizer import pn_sequence
+from pipeline.fec._rs import dual_basis_tables, rs_encode, rs_generator, rs_k
+
+__all__ = [
+    "RATES",
+    "Rate",
+    "ConvEncoder",
+    "conv_encode",
+    "conv_bit_symbol_index",
+    "conv_output_length",
+    "puncture_pattern",
+    "crc16",
+    "ASM",
+    "ASM_BITS",
+    "ASM_INVERTED",
+    "TURBO_ASM_R1_2",
+    "TURBO_ASM_R1_3",
+    "TURBO_ASM_R1_4",
+    "TURBO_ASM_R1_6",
+    "TURBO_ASMS",
+    "marker_bits",
+    "pn_sequence",
+    "rs_encode",
+    "rs_generator",
+    "rs_k",
+    "dual_basis_tables",
+]

@@ -1,0 +1,230 @@
+"""CCSDS Reed-Solomon codes RS(255,223) E=16 and RS(255,239) E=8, dual basis, interleave 1..8, virtual fill.
+
+Field GF(2^8) with F(x) = x^8+x^7+x^2+x+1; code generator g(x) = prod_{j=128-E}^{127+E} (x - a^(11 j)).
+All arithmetic here uses logarithms to the base b = a^11 (0xAD, primitive), so the code roots are
+b^j for consecutive j starting at ``fcr = 128 - E``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from pipeline.fec._args import as_bytes, check_int
+from pipeline.fec._kernels import rs_remainder_kernel
+
+__all__ = [
+    "RS_FIELD_POLY",
+    "RS_ROOT_ELEMENT",
+    "rs_k",
+    "rs_generator",
+    "dual_basis_tables",
+    "rs_encode",
+    "rs_fill",
+]
+
+#: F(x) = x^8 + x^7 + x^2 + x + 1 (131.0-B sec. 4.3.2).
+RS_FIELD_POLY = 0x187
+#: a^11, the element whose powers are the code roots.
+RS_ROOT_ELEMENT = 0xAD
+#: a^117: the dual basis is the trace-dual of (1, a^117, ..., a^(7*117)) (131.0-B sec. 4.4.2).
+_DUAL_BASIS_ELEMENT_EXP = 117
+
+_N = 255
+
+
+def _alpha_tables() -> tuple[np.ndarray, np.ndarray]:
+    exp = np.zeros(510, dtype=np.int64)
+    x = 1
+    for i in range(255):
+        exp[i] = x
+        x <<= 1
+        if x & 0x100:
+            x ^= RS_FIELD_POLY
+    exp[255:] = exp[:255]
+    log = np.zeros(256, dtype=np.int64)
+    log[exp[:255]] = np.arange(255)
+    return exp, log
+
+
+_A_EXP, _A_LOG = _alpha_tables()
+
+
+def _amul(x: int, y: int) -> int:
+    if x == 0 or y == 0:
+        return 0
+    return int(_A_EXP[_A_LOG[x] + _A_LOG[y]])
+
+
+def _beta_tables() -> tuple[np.ndarray, np.ndarray]:
+    """exp/log to the base b = a^11; ``exp`` has 512 entries so a sum of two logs needs no modulo."""
+    exp = np.zeros(512, dtype=np.int64)
+    x = 1
+    for i in range(255):
+        exp[i] = x
+        x = _amul(x, RS_ROOT_ELEMENT)
+    exp[255:510] = exp[:255]
+    exp[510:] = exp[:2]
+    log = np.zeros(256, dtype=np.int64)
+    log[exp[:255]] = np.arange(255)
+    log[0] = 0  # never used for 0: callers test for zero first
+    return exp, log
+
+
+B_EXP, B_LOG = _beta_tables()
+
+
+def _bmul(x: int, y: int) -> int:
+    if x == 0 or y == 0:
+        return 0
+    return int(B_EXP[(int(B_LOG[x]) + int(B_LOG[y])) % 255])
+
+
+def _trace(x: int) -> int:
+    t, y = 0, x
+    for _ in range(8):
+        t ^= y
+        y = _amul(y, y)
+    return t  # 0 or 1
+
+
+def dual_basis_tables() -> tuple[np.ndarray, np.ndarray]:
+    """Conversions between the conventional basis (1, a, ..., a^7) and the CCSDS dual basis.
+
+    Returns
+    -------
+    conv_to_dual, dual_to_conv : numpy.ndarray of uint8, shape (256,)
+        ``conv_to_dual[u]`` is the transmitted octet (z0 = MSB) of the element with conventional
+        bits u7..u0; ``dual_to_conv`` is its inverse.
+
+    Notes
+    -----
+    With b' = a^117 and Tr(z) = sum_k z^(2^k), the dual basis (l0..l7) satisfies
+    Tr(l_i b'^j) = delta_ij, so the dual coordinates of x are z_j = Tr(x b'^j).
+
+    References
+    ----------
+    CCSDS 131.0-B sec. 4.3.9 and 4.4.2 (Annex F in later issues).
+    """
+    beta = [int(_A_EXP[(_DUAL_BASIS_ELEMENT_EXP * j) % 255]) for j in range(8)]
+    c2d = np.zeros(256, dtype=np.uint8)
+    for u in range(256):
+        z = 0
+        for j in range(8):
+            z = (z << 1) | _trace(_amul(u, beta[j]))
+        c2d[u] = z
+    d2c = np.zeros(256, dtype=np.uint8)
+    d2c[c2d] = np.arange(256, dtype=np.uint8)
+    return c2d, d2c
+
+
+CONV_TO_DUAL, DUAL_TO_CONV = dual_basis_tables()
+for _t in (CONV_TO_DUAL, DUAL_TO_CONV, B_EXP, B_LOG):
+    _t.flags.writeable = False
+
+
+def rs_k(e: int) -> int:
+    """Information symbols per codeword for correction power ``e`` (223 for 16, 239 for 8)."""
+    e = _check_e(e)
+    return _N - 2 * e
+
+
+def _check_e(e) -> int:
+    return check_int("e", e, "16 or 8", lambda v: v in (16, 8))
+
+
+def _check_interleave(interleave) -> int:
+    return check_int("interleave", interleave, "1..8", lambda v: 1 <= v <= 8)
+
+
+def rs_generator(e: int) -> np.ndarray:
+    """Coefficients of g(x), highest degree first, conventional basis (2E + 1 octets, g[0] = 1).
+
+    References
+    ----------
+    CCSDS 131.0-B sec. 4.3.3: g(x) = prod_{j=128-E}^{127+E} (x - a^(11 j)).
+    """
+    e = _check_e(e)
+    g = [1]
+    for j in range(128 - e, 128 + e):
+        root = int(B_EXP[j % 255])
+        # multiply g by (x + root); g highest degree first
+        g = [a ^ _bmul(root, b) for a, b in zip(g + [0], [0] + g)]
+    return np.array(g, dtype=np.uint8)
+
+
+def _gtab(e: int) -> np.ndarray:
+    """``gtab[f]``: f * (g(x) - x^(2E)) packed as 2E/8 uint64 words, x^(2E-1) in the top octet of word 0."""
+    g = rs_generator(e)
+    n_par = 2 * e
+    tab = np.zeros((256, n_par // 8), dtype=np.uint64)
+    for f in range(256):
+        prod = bytes(_bmul(f, int(c)) for c in g[1:])  # coefficients of x^(2E-1) .. x^0
+        tab[f] = np.frombuffer(prod, dtype=">u8").astype(np.uint64)
+    return tab
+
+
+_GTAB = {e: _gtab(e) for e in (16, 8)}
+for _t in _GTAB.values():
+    _t.flags.writeable = False
+
+
+def rs_fill(data_len: int, e: int = 16, interleave: int = 1) -> int:
+    """Virtual fill symbols per codeword, q = k - data_len / I, after checking ``data_len``."""
+    e = _check_e(e)
+    interleave = _check_interleave(interleave)
+    k = _N - 2 * e
+    if data_len % interleave or not interleave <= data_len <= k * interleave:
+        raise ValueError(
+            f"Argument 'data' must have a length that is a multiple of interleave {interleave} in "
+            f"{interleave}..{k * interleave}, not {data_len}."
+        )
+    return k - data_len // interleave
+
+
+def _parity_bytes(data: np.ndarray, e: int, interleave: int) -> np.ndarray:
+    """The 2 E I check octets (dual basis, interleaved) for ``data`` (dual basis)."""
+    n_rows = data.shape[0] // interleave
+    rem = np.empty((interleave, (2 * e) // 8), dtype=np.uint64)
+    rs_remainder_kernel(data, n_rows, interleave, DUAL_TO_CONV, _GTAB[e], rem)
+    # rem[c] as big-endian octets is parity symbol j of codeword c at j; interleave symbol-wise
+    par_conv = rem.astype(">u8").view(np.uint8).reshape(interleave, 2 * e)
+    return CONV_TO_DUAL[par_conv.T.reshape(-1)]
+
+
+def rs_encode(data, e: int = 16, interleave: int = 1):
+    """Append CCSDS Reed-Solomon check symbols to ``data``.
+
+    Parameters
+    ----------
+    data : bytes-like or uint8 array
+        The frame: ``(k - q) I`` octets in transmission order (dual basis, as on the link), where
+        ``q >= 0`` virtual fill symbols per codeword are implied by the length.  Its length must be
+        a multiple of ``interleave`` and at most ``k I``.
+    e : {16, 8}
+        Correctable symbols per codeword: RS(255,223) or RS(255,239).
+    interleave : int
+        Interleave depth I, 1..8.
+
+    Returns
+    -------
+    bytes or numpy.ndarray of uint8
+        The codeblock, ``data`` followed by the 2 E I check octets, symbol-interleaved (codeword c
+        owns positions c, c + I, ...).  Same kind as ``data`` (bytes for bytes-like input).
+
+    Notes
+    -----
+    Dual-basis octets are mapped to the conventional basis, divided by g(x) in a byte-wise
+    table-driven LFSR (one 2E-octet table row per symbol, held as 2E/8 64-bit words), and the
+    remainder mapped back.  Virtual fill zeros do not change the remainder, so they are skipped.
+    Cost: about (2E/8 + 1) word operations per data octet.
+
+    References
+    ----------
+    CCSDS 131.0-B sec. 4.3 (code, shortening), 4.4 (interleaving, dual basis).
+    """
+    arr, as_bytes_out = as_bytes("data", data)
+    e = _check_e(e)
+    interleave = _check_interleave(interleave)
+    rs_fill(arr.shape[0], e, interleave)
+    out = np.concatenate([arr, _parity_bytes(arr, e, interleave)])
+    return out.tobytes() if as_bytes_out else out
