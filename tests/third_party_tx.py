@@ -1,0 +1,201 @@
+"""An independent CCSDS transmitter for the tests, sharing no code with pipeline/.
+
+It builds channel bits from packets with outside references only, so the simulator and the decoder
+cannot share one mistake (issue 5):
+
+- Reed-Solomon parity from ``reedsolo`` (PyPI) configured for CCSDS as in ../shared/REFERENCES.md
+  sec. 10.2 (``generator`` is the field element 0xAD = alpha^11, ``fcr = 128 - E``), with the
+  dual-basis conversion tables printed there (CCSDS 131.0-B-2 p. 4-6 matrices, tables computed).
+- Randomizer from the LFSR definition h(x) = x^8 + x^7 + x^5 + x^3 + 1, all-ones seed
+  (CCSDS 131.0-B-2 sec. 9 / REFERENCES.md sec. 1.4), written here bit by bit.
+- Convolutional code K = 7, G1 = 171, G2 = 133 (octal), G2 inverted, C1 first
+  (CCSDS 131.0-B-2 sec. 3.3), written here as a plain shift register.
+- CRC-16 FECF from ``crccheck`` (PyPI, CRC-16/IBM-3740 = CCSDS 132.0-B sec. 4.1.6).
+- TM frame and space packet headers from the bit layouts in REFERENCES.md sec. 3 and sec. 5
+  (from memory, not confirmed there; cross-checked against the worked examples).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+# Conventional -> dual (T_alpha_l) and dual -> conventional, as printed in REFERENCES.md sec. 10.2
+# (computed there from the CCSDS 131.0-B-2 p. 4-6 matrices).
+TAL = bytes.fromhex(
+    "007BAFD499E2364DFA81552E6318CCB7"
+    "86FD29521F64B0CB7C07D3A8E59E4A31"
+    "EC974338750EDAA1166DB9C28FF4205B"
+    "6A11C5BEF3885C2790EB3F440972A6DD"
+    "EF94403B760DD9A2156EBAC18CF72358"
+    "6912C6BDF08B5F2493E83C470A71A5DE"
+    "0378ACD79AE1354EF982562D601BCFB4"
+    "85FE2A511C67B3C87F04D0ABE69D4932"
+    "8DF62259146FBBC0770CD8A3EE95413A"
+    "0B70A4DF92E93D46F18A5E256813C7BC"
+    "611ACEB5F883572C9BE0344F0279ADD6"
+    "E79C48337E05D1AA1D66B2C984FF2B50"
+    "6219CDB6FB80542F98E3374C017AAED5"
+    "E49F4B307D06D2A91E65B1CA87FC2853"
+    "8EF5215A176CB8C3740FDBA0ED964239"
+    "0873A7DC91EA3E45F2895D266B10C4BF"
+)
+TAL_INV = bytes.fromhex(
+    "00CCAC6079B5D519F03C5C90894525E9"
+    "FD31519D844828E40DC1A16D74B8D814"
+    "2EE2824E579BFB37DE1272BEA76B0BC7"
+    "D31F7FB3AA6606CA23EF8F435A96F63A"
+    "428EEE223BF7975BB27E1ED2CB0767AB"
+    "BF7313DFC60A6AA64F83E32F36FA9A56"
+    "6CA0C00C15D9B9759C5030FCE5294985"
+    "915D3DF1E824448861ADCD0118D4B478"
+    "C50969A5BC7010DC35F999554C80E02C"
+    "38F49458418DED21C80464A8B17D1DD1"
+    "EB27478B925E3EF21BD7B77B62AECE02"
+    "16DABA766FA3C30FE62A4A869F5333FF"
+    "874B2BE7FE32529E77BBDB170EC2A26E"
+    "7AB6D61A03CFAF638A4626EAF33F5F93"
+    "A96505C9D01C7CB05995F53920EC8C40"
+    "5498F8342DE1814DA46808C4DD1171BD"
+)
+assert all(TAL_INV[TAL[x]] == x for x in range(256))
+
+
+def pn_bytes(n: int) -> bytes:
+    """CCSDS TM pseudo-randomizer, h(x) = x^8+x^7+x^5+x^3+1, all-ones seed, MSB first."""
+    a = [1] * 8
+    out = bytearray()
+    bits = []
+    while len(out) < n:
+        bits.append(a[0])
+        # a_k = a_{k-8} xor a_{k-5} xor a_{k-3} xor a_{k-1}: REFERENCES.md sec. 10.1
+        nxt = a[0] ^ a[3] ^ a[5] ^ a[7]
+        a = a[1:] + [nxt]
+        if len(bits) == 8:
+            v = 0
+            for b in bits:
+                v = (v << 1) | b
+            out.append(v)
+            bits = []
+    return bytes(out)
+
+
+def rs_codeblock(frame: bytes, e: int, interleave: int) -> bytes:
+    """Frame + interleaved RS parity (dual basis), with virtual fill if the frame is short."""
+    import reedsolo
+
+    k = 255 - 2 * e
+    codec = reedsolo.RSCodec(nsym=2 * e, nsize=255, fcr=128 - e, prim=0x187, generator=0xAD, c_exp=8)
+    assert len(frame) % interleave == 0
+    n_data = len(frame) // interleave
+    assert n_data <= k
+    parity = []
+    for j in range(interleave):
+        data_dual = frame[j::interleave]
+        data_conv = bytes(TAL_INV[b] for b in data_dual)
+        cw = codec.encode(data_conv)
+        parity.append(bytes(TAL[b] for b in cw[n_data:]))
+    out = bytearray(frame)
+    for i in range(2 * e):
+        for j in range(interleave):
+            out.append(parity[j][i])
+    return bytes(out)
+
+
+def conv_encode_r12(bits: np.ndarray, state: int = 0) -> tuple[np.ndarray, int]:
+    """K=7 r=1/2, G1=171, G2=133 octal with G2 inverted, C1 first; state = last 6 input bits."""
+    g1 = [1, 1, 1, 1, 0, 0, 1]
+    g2 = [1, 0, 1, 1, 0, 1, 1]
+    reg = [(state >> (5 - i)) & 1 for i in range(6)]  # D1..D6, D1 the newest
+    out = np.empty(2 * len(bits), dtype=np.uint8)
+    for n, b in enumerate(bits):
+        r = [int(b)] + reg
+        c1 = sum(x & g for x, g in zip(r, g1)) & 1
+        c2 = (sum(x & g for x, g in zip(r, g2)) & 1) ^ 1
+        out[2 * n] = c1
+        out[2 * n + 1] = c2
+        reg = r[:6]
+    new_state = 0
+    for x in reg:
+        new_state = (new_state << 1) | x
+    return out, new_state
+
+
+def crc16(data: bytes) -> int:
+    from crccheck.crc import Crc16CcittFalse  # = CRC-16/IBM-3740, check 0x29B1
+
+    return Crc16CcittFalse.calc(data)
+
+
+def space_packet(apid: int, seq: int, payload: bytes) -> bytes:
+    """Unsegmented TM space packet, no secondary header (CCSDS 133.0-B; REFERENCES.md sec. 5)."""
+    w1 = (0 << 13) | (0 << 12) | (0 << 11) | apid
+    w2 = (0b11 << 14) | (seq & 0x3FFF)
+    n = len(payload) - 1
+    return bytes([w1 >> 8, w1 & 0xFF, w2 >> 8, w2 & 0xFF, n >> 8, n & 0xFF]) + payload
+
+
+def idle_packet(length: int) -> bytes:
+    """Idle packet (APID 0x7FF) of ``length`` octets in total (at least 7)."""
+    return space_packet(0x7FF, 0, bytes([0x55]) * (length - 6))
+
+
+def tm_frames(packets: list[bytes], *, scid: int, vcid: int, length: int, ocf: bool, fecf: bool) -> list[bytes]:
+    """Cut a packet stream into TM frames (CCSDS 132.0-B; REFERENCES.md sec. 3), idle-filled at the end."""
+    field_len = length - 6 - (4 if ocf else 0) - (2 if fecf else 0)
+    stream = bytearray()
+    starts = []
+    for p in packets:
+        starts.append(len(stream))
+        stream += p
+    frames = []
+    pos = 0
+    count = 0
+    start_set = sorted(starts)
+    si = 0
+    while pos < len(stream):
+        chunk = stream[pos:pos + field_len]
+        while si < len(start_set) and start_set[si] < pos:
+            si += 1
+        fhp = (start_set[si] - pos) if si < len(start_set) and start_set[si] < pos + field_len else 0x7FF
+        if len(chunk) < field_len:
+            fill = field_len - len(chunk)
+            if fill >= 7:
+                if fhp == 0x7FF:
+                    fhp = len(chunk)
+                chunk = chunk + idle_packet(fill)
+            else:
+                chunk = chunk + bytes(fill)  # too short for a packet: pad (last frame only)
+        w1 = (0 << 14) | (scid << 4) | (vcid << 1) | (1 if ocf else 0)
+        w3 = (0 << 15) | (0 << 14) | (0 << 13) | (0b11 << 11) | fhp
+        hdr = bytes([w1 >> 8, w1 & 0xFF, count & 0xFF, count & 0xFF, w3 >> 8, w3 & 0xFF])
+        frame = hdr + bytes(chunk)
+        if ocf:
+            frame += bytes([0x01, 0x00, 0x00, 0x00])  # CLCW: COP-1 in effect, everything else zero
+        if fecf:
+            c = crc16(frame)
+            frame += bytes([c >> 8, c & 0xFF])
+        frames.append(frame)
+        pos += field_len
+        count += 1
+    return frames
+
+
+def channel_bits(frames: list[bytes], *, rs_e: int, interleave: int, randomize: bool, conv: bool,
+                 nrz_m: bool, lead_bits: int = 317, seed: int = 5) -> np.ndarray:
+    """ASM + codeblocks -> (randomized) -> convolutional code -> NRZ-M; random bits before the first ASM."""
+    asm = bytes.fromhex("1ACFFC1D")  # CCSDS 131.0-B-2 sec. 8 / REFERENCES.md sec. 1.1
+    rng = np.random.default_rng(seed)
+    stream = [rng.integers(0, 2, lead_bits, dtype=np.uint8)]
+    for f in frames:
+        block = rs_codeblock(f, rs_e, interleave) if rs_e else f
+        if randomize:
+            block = bytes(a ^ b for a, b in zip(block, pn_bytes(len(block))))
+        stream.append(np.unpackbits(np.frombuffer(asm + block, dtype=np.uint8)))
+    stream.append(rng.integers(0, 2, 200, dtype=np.uint8))
+    bits = np.concatenate(stream)
+    if conv:
+        bits, _ = conv_encode_r12(bits)
+    if nrz_m:
+        # NRZ-M: a 1 is a change of level (CCSDS 131.0-B-2 sec. 3.3.3)
+        bits = (np.cumsum(bits) & 1).astype(np.uint8)
+    return bits
