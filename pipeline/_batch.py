@@ -21,7 +21,7 @@ from pathlib import Path
 from pipeline.errors import OutputError
 from pipeline.profile import LinkProfile
 
-__all__ = ["run_batch", "decode_one", "output_name"]
+__all__ = ["decode_one", "output_name", "run_batch"]
 
 
 def output_name(recording: str) -> str:

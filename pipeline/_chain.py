@@ -17,7 +17,7 @@ import json
 import math
 import sys
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -28,7 +28,7 @@ from pipeline._version import __version__
 from pipeline.errors import ProfileError, RecordingError
 from pipeline.profile import LinkProfile
 
-__all__ = ["DecodeChain", "DecodeSummary", "SymbolTimebase", "decode_to_folder", "CAUTION"]
+__all__ = ["CAUTION", "DecodeChain", "DecodeSummary", "SymbolTimebase", "decode_to_folder"]
 
 CAUTION = "Decoded data is no substitute for the mission's validated ground segment."
 

@@ -13,7 +13,7 @@ from pathlib import Path
 
 from pipeline._output import OutputFolder
 
-__all__ = ["run_demo", "compare_with_truth"]
+__all__ = ["compare_with_truth", "run_demo"]
 
 
 def compare_with_truth(truth_path: Path, packets_path: Path) -> dict:

@@ -15,13 +15,13 @@ import logging
 import signal
 import sys
 import traceback
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Sequence
 
 from pipeline._version import __version__
 from pipeline.errors import DownlinkError, OutputError, ProfileError, RecordingError
 
-__all__ = ["main", "ExitCode", "build_parser"]
+__all__ = ["ExitCode", "build_parser", "main"]
 
 log = logging.getLogger("pipeline")
 

@@ -25,25 +25,25 @@ else:  # pragma: no cover
 from pipeline.errors import ProfileError
 
 __all__ = [
-    "Modulation",
-    "Pulse",
-    "LineCode",
+    "CONV_RATES",
+    "ApidTraffic",
+    "CodingSection",
     "ConvRate",
     "FrameKind",
-    "TimeCodeKind",
-    "LinkSection",
-    "CodingSection",
     "FramesSection",
-    "TimeCodeConfig",
-    "PacketsSection",
-    "ReceiverSection",
-    "ApidTraffic",
-    "SimulateSection",
+    "LineCode",
     "LinkProfile",
+    "LinkSection",
+    "Modulation",
+    "PacketsSection",
+    "Pulse",
+    "ReceiverSection",
+    "SimulateSection",
+    "TimeCodeConfig",
+    "TimeCodeKind",
+    "demo_profile_path",
     "load_profile",
     "profile_from_dict",
-    "demo_profile_path",
-    "CONV_RATES",
 ]
 
 Modulation = Literal["bpsk", "qpsk", "oqpsk", "pcm-pm", "pcm-psk-pm"]
@@ -229,7 +229,7 @@ class LinkProfile:
         """``Es/N0 = Eb/N0 + 10 log10(code rate x bits per modulation symbol)`` (../shared/DESIGN.md)."""
         return ebn0_db + 10.0 * math.log10(self.code_rate * self.link.bits_per_symbol)
 
-    def with_changes(self, **sections: Any) -> "LinkProfile":
+    def with_changes(self, **sections: Any) -> LinkProfile:
         """A copy with whole sections or section fields replaced: ``p.with_changes(coding={"interleave": 1})``."""
         kw = {}
         for name, value in sections.items():

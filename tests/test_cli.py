@@ -54,10 +54,9 @@ def test_output_folder_refuses_existing(tmp_path):
 
 def test_output_folder_appears_only_on_success(tmp_path):
     out = tmp_path / "out"
-    with pytest.raises(RuntimeError):
-        with OutputFolder(out) as tmp:
-            (tmp / "half.jsonl").write_text("x")
-            raise RuntimeError("boom")
+    with pytest.raises(RuntimeError), OutputFolder(out) as tmp:
+        (tmp / "half.jsonl").write_text("x")
+        raise RuntimeError("boom")
     assert not out.exists()
     assert list(tmp_path.iterdir()) == []
     with OutputFolder(out) as tmp:

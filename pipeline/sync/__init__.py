@@ -1,3 +1,19 @@
-"""pipeline.sync (see DEVELOPERS.md, stage contracts)."""
+"""pipeline.sync: frame synchronization and the codeblock path (see DEVELOPERS.md, stage contracts).
 
-__all__: list[str] = []
+Decoded (or uncoded) soft bits -> :class:`FrameSync` -> :class:`Cadu` -> :class:`CodeblockDecoder`
+-> :class:`DecodedFrame`.  :class:`BranchSync` comes first on convolutionally coded links.
+"""
+
+from pipeline.sync._framesync import DEFAULT_ASM, FrameSync, FrameSyncStats
+from pipeline.sync._types import Cadu, DecodedFrame, FrameStatus, SyncEvent, SyncEventKind
+
+__all__ = [
+    "FrameSync",
+    "FrameSyncStats",
+    "DEFAULT_ASM",
+    "Cadu",
+    "DecodedFrame",
+    "FrameStatus",
+    "SyncEvent",
+    "SyncEventKind",
+]
