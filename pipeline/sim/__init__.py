@@ -1,3 +1,39 @@
-"""pipeline.sim (see DEVELOPERS.md, stage contracts)."""
+"""pipeline.sim: the transmitter chain and channel model (see DEVELOPERS.md, stage contracts).
 
-__all__: list[str] = []
+packets -> TM / AOS frames -> RS -> randomizer -> ASM -> (NRZ-M) convolutional code -> modulation
+-> channel -> SigMF recording plus truth files.
+"""
+
+from pipeline.sim._frames import (
+    FHP_IDLE,
+    FHP_NO_PACKET,
+    AosFrameBuilder,
+    BuiltFrame,
+    TmFrameBuilder,
+    aos_primary_header,
+    clcw_word,
+    tm_primary_header,
+)
+from pipeline.sim._packets import IDLE_APID, PacketSource, SimPacket, idle_packet, space_packet, space_packet_header
+from pipeline.sim._time import cuc_4_2, format_utc_ns, parse_utc_ns, tai_seconds_since_1958
+
+__all__ = [
+    "FHP_IDLE",
+    "FHP_NO_PACKET",
+    "IDLE_APID",
+    "AosFrameBuilder",
+    "BuiltFrame",
+    "PacketSource",
+    "SimPacket",
+    "TmFrameBuilder",
+    "aos_primary_header",
+    "clcw_word",
+    "cuc_4_2",
+    "format_utc_ns",
+    "idle_packet",
+    "parse_utc_ns",
+    "space_packet",
+    "space_packet_header",
+    "tai_seconds_since_1958",
+    "tm_primary_header",
+]
