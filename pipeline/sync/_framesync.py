@@ -1,0 +1,397 @@
+"""Frame synchronizer: find the attached sync marker, lock on the frame period, flywheel, re-acquire."""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from pipeline.fec import ASM
+from pipeline.sync import _kernels
+from pipeline.sync._types import Cadu, SyncEvent
+
+__all__ = ["FrameSync", "FrameSyncStats", "DEFAULT_ASM"]
+
+#: The 32-bit attached sync marker 1ACFFC1D (CCSDS 131.0-B sec. 8.2), first transmitted bit = MSB.
+DEFAULT_ASM = ASM
+
+_SEARCH, _CHECK, _LOCK = "search", "check", "lock"
+
+
+@dataclass
+class FrameSyncStats:
+    """Counters of one :class:`FrameSync` run."""
+
+    bits_in: int = 0
+    candidates: int = 0  # markers found while searching (true or false)
+    false_candidates: int = 0  # candidates rejected by the check at the next expected position
+    locks: int = 0
+    losses: int = 0
+    cadus: int = 0  # all CADUs emitted, flywheel ones included
+    flywheel_cadus: int = 0
+    inverted_cadus: int = 0
+    bit_slips: int = 0
+    polarity_changes: int = 0
+    asm_errors: int = 0  # marker bit errors summed over the CADUs whose marker was found
+    bits_discarded: int = 0  # bits received after the last CADU when the stream was flushed
+
+    def as_dict(self) -> dict:
+        return asdict(self)
+
+
+class FrameSync:
+    """Search / check / lock / flywheel frame synchronizer on the 32-bit ASM (or any marker).
+
+    Parameters
+    ----------
+    frame_bits : int
+        Bits after the marker up to the next marker (the codeblock: RS codeblock, transfer frame or
+        codeword), 8 .. 2**22.
+    asm : bytes
+        The marker, MSB first transmitted (default 1ACFFC1D, CCSDS 131.0-B sec. 8.2).
+    max_errors : int
+        Marker bits allowed to differ for a match, 0 .. len(marker bits)/2 - 1 (so that a marker
+        can never match both upright and complemented).
+    check_frames : int
+        Markers that must follow a search candidate at exactly one period's distance before the
+        synchronizer locks (0 locks on the first marker found).
+    flywheel : int
+        Consecutive missing markers tolerated while locked; the CADUs cut at those expected
+        positions are emitted with ``flywheel=True``.  One more miss drops back to search.
+    slip_bits : int
+        While locked, when the marker is not at the expected position, positions up to this many
+        bits either side are tried before the marker is counted as missing: a slip of the bit clock
+        of up to ``slip_bits`` bits is followed within the same frame.
+    keep_soft : bool
+        Attach the codeblock's soft values to each CADU (for soft-input decoders).
+
+    Notes
+    -----
+    Input is soft bits (float32, positive = bit 0) with the sample position of each bit; the
+    marker is correlated on hard decisions.  The state machine, with ``L = marker + frame_bits``:
+
+    * search: the first offset ``c`` (scanning forward) where the marker or its complement
+      matches with at most ``max_errors`` mismatches is a candidate; every offset is examined
+      exactly once, so the number of candidates in random data is binomial, with per-offset
+      probability ``2 sum_{i<=e} C(m, i) / 2^m`` (REFERENCES.md sec. 1.7, both polarities).
+    * check: the marker must match (either polarity) at ``c + L, ..., c + check_frames L``; the
+      first failure rejects the candidate and the search resumes at ``c + 1``.
+    * lock: at each expected position ``p`` the marker is compared; if it fails, the offsets
+      ``p - slip_bits .. p + slip_bits`` are tried (best match, nearest first); if one matches,
+      the lock moves there (a ``bit_slip`` event).  Otherwise the CADU at ``p`` is emitted as a
+      flywheel CADU, up to ``flywheel`` in a row; the next miss is a loss of lock and the search
+      resumes one bit after the start of the last CADU emitted, so a marker displaced by a large
+      slip is found again in the following frame.
+    * A complemented marker means the codeblock is complemented (180-degree phase ambiguity); the
+      data are re-inverted and ``inverted`` is set.  The polarity is followed marker by marker.
+
+    Every decision needs only bits already received and is taken as soon as they are, so the
+    output does not depend on how the input is cut into chunks.  Memory is bounded by about
+    ``(check_frames + 2) L`` bits plus one input chunk.  Search cost: the kernel
+    :func:`~pipeline.sync._kernels.find_marker`, O(max_errors) per offset on random data.
+
+    References
+    ----------
+    CCSDS 131.0-B-2 sec. 8 (ASM placement, pattern); CCSDS 130.1-G-1 sec. 8.3 (marker search);
+    search/check/lock/flywheel thresholds: common practice, no published source.
+    """
+
+    def __init__(
+        self,
+        *,
+        frame_bits: int,
+        asm: bytes = DEFAULT_ASM,
+        max_errors: int = 4,
+        check_frames: int = 1,
+        flywheel: int = 3,
+        slip_bits: int = 2,
+        keep_soft: bool = False,
+    ) -> None:
+        if isinstance(asm, (bytearray, memoryview)):
+            asm = bytes(asm)
+        if not isinstance(asm, bytes):
+            raise TypeError(f"Argument 'asm' must be bytes, not {type(asm).__name__}.")
+        if not 2 <= len(asm) <= 32:
+            raise ValueError(f"Argument 'asm' must be 2..32 octets long, not {len(asm)}.")
+        m = 8 * len(asm)
+        _check_int("frame_bits", frame_bits, 8, 1 << 22)
+        _check_int("max_errors", max_errors, 0, m // 2 - 1)
+        _check_int("check_frames", check_frames, 0, 100)
+        _check_int("flywheel", flywheel, 0, 1000)
+        _check_int("slip_bits", slip_bits, 0, min(64, frame_bits // 2))
+        self.frame_bits = int(frame_bits)
+        self.asm = asm
+        self.max_errors = int(max_errors)
+        self.check_frames = int(check_frames)
+        self.flywheel = int(flywheel)
+        self.slip_bits = int(slip_bits)
+        self.keep_soft = bool(keep_soft)
+        self.marker_bits = m
+        self.cadu_bits = m + self.frame_bits
+        self._marker = np.unpackbits(np.frombuffer(asm, dtype=np.uint8)).astype(np.uint8)
+        self._result = np.zeros(2, dtype=np.int64)
+        self._window_errors = np.zeros(2 * self.slip_bits + 1, dtype=np.int64)
+        self.stats = FrameSyncStats()
+        self.events: list[SyncEvent] = []
+        self._clear_stream(0)
+
+    # ---- public -----------------------------------------------------------------------------
+    @property
+    def locked(self) -> bool:
+        """True while in lock (including flywheel)."""
+        return self._state == _LOCK
+
+    @property
+    def state(self) -> str:
+        """``"search"``, ``"check"`` or ``"lock"``."""
+        return self._state
+
+    @property
+    def bits_received(self) -> int:
+        """Bits received since the start of the stream (the next input bit's ``bit_index``)."""
+        return self._end
+
+    def reset(self) -> None:
+        """Forget the stream, the statistics and the events; bit indices restart at 0."""
+        self.stats = FrameSyncStats()
+        self.events = []
+        self._clear_stream(0)
+
+    def process(self, soft: np.ndarray, position: np.ndarray) -> list[Cadu]:
+        """Take the next soft bits and their sample positions; return the CADUs completed.
+
+        Parameters
+        ----------
+        soft : array_like of float
+            Soft bits, positive = bit 0 (any scale; only the sign is used for the marker).
+        position : array_like of float
+            Sample position of each bit (for decoded bits: of the first channel symbol of its branch).
+
+        Returns
+        -------
+        list of Cadu
+            In stream order; a CADU is returned as soon as its last bit has arrived and the marker
+            decision for it is final.
+        """
+        soft, position = _as_inputs(soft, position)
+        if soft.size:
+            hard = np.empty(soft.size, dtype=np.uint8)
+            _kernels.hard_decisions(soft, hard)
+            self._hard = np.concatenate((self._hard, hard))
+            self._soft = np.concatenate((self._soft, soft))
+            self._pos = np.concatenate((self._pos, position))
+            self._end += soft.size
+            self.stats.bits_in += soft.size
+        out: list[Cadu] = []
+        self._advance(out, final=False)
+        self._trim()
+        return out
+
+    def flush(self) -> list[Cadu]:
+        """End of stream: decide with the bits at hand, return the last complete CADUs.
+
+        Afterwards the synchronizer searches again (a new stream may follow); statistics, events
+        and the bit count are kept.
+        """
+        out: list[Cadu] = []
+        self._advance(out, final=True)
+        self.stats.bits_discarded += max(0, self._end - self._last_cadu_end)
+        self._clear_stream(self._end)
+        return out
+
+    # ---- state machine ------------------------------------------------------------------------
+    def _clear_stream(self, end: int) -> None:
+        self._hard = np.zeros(0, dtype=np.uint8)
+        self._soft = np.zeros(0, dtype=np.float32)
+        self._pos = np.zeros(0, dtype=np.float64)
+        self._base = end  # absolute bit index of self._hard[0]
+        self._end = end  # absolute index one past the last bit received
+        self._state = _SEARCH
+        self._search_at = end
+        self._candidate = 0
+        self._checks_passed = 0
+        self._expected = 0
+        self._misses = 0
+        self._inverted = False
+        self._last_cadu_start = end - 1
+        self._last_cadu_end = end
+
+    def _trim(self) -> None:
+        if self._state == _SEARCH:
+            keep = self._search_at
+        elif self._state == _CHECK:
+            keep = self._candidate
+        else:  # a loss re-searches from one bit after the last CADU start; the slip window looks back
+            keep = min(self._last_cadu_start + 1, self._expected - self.slip_bits)
+        drop = min(keep, self._end) - self._base
+        if drop > 0:
+            self._hard = self._hard[drop:]
+            self._soft = self._soft[drop:]
+            self._pos = self._pos[drop:]
+            self._base += drop
+
+    def _mismatches(self, at: int) -> tuple[int, bool]:
+        """(mismatches, inverted) of the better polarity of the marker at absolute bit ``at``."""
+        r = at - self._base
+        err = int(np.count_nonzero(self._hard[r : r + self.marker_bits] != self._marker))
+        inv_err = self.marker_bits - err
+        return (inv_err, True) if inv_err < err else (err, False)
+
+    def _advance(self, out: list[Cadu], final: bool) -> None:
+        m, L, e, w = self.marker_bits, self.cadu_bits, self.max_errors, self.slip_bits
+        while True:
+            end = self._end
+            if self._state == _SEARCH:
+                stop = end - m + 1  # one past the last offset holding a whole marker
+                if self._search_at >= stop:
+                    return
+                rel = _kernels.find_marker(
+                    self._hard, self._search_at - self._base, stop - self._base, self._marker, e, self._result
+                )
+                if rel < 0:
+                    self._search_at = stop
+                    return
+                c = self._base + int(rel)
+                self.stats.candidates += 1
+                self._candidate = c
+                self._checks_passed = 0
+                self._state = _CHECK
+                self._inverted = bool(self._result[1])
+            elif self._state == _CHECK:
+                if self._checks_passed == self.check_frames:
+                    self._state = _LOCK
+                    self._expected = self._candidate
+                    self._misses = 0
+                    self._last_cadu_start = self._candidate - 1
+                    self.stats.locks += 1
+                    self._event("lock_acquired", self._candidate)
+                    continue
+                q = self._candidate + (self._checks_passed + 1) * L
+                if q + m > end:
+                    return
+                err, _ = self._mismatches(q)
+                if err <= e:
+                    self._checks_passed += 1
+                else:
+                    self.stats.false_candidates += 1
+                    self._state = _SEARCH
+                    self._search_at = self._candidate + 1
+            else:
+                if not self._lock_step(out, final, m, L, e, w):
+                    return
+
+    def _lock_step(self, out: list[Cadu], final: bool, m: int, L: int, e: int, w: int) -> bool:
+        """One marker decision while locked; False when more bits are needed first."""
+        p = self._expected
+        end = self._end
+        if p + w + L > end and not final:
+            return False
+        if p + m > end:
+            return False
+        err, inv = self._mismatches(p)
+        found = p if err <= e else -1
+        if found < 0 and w > 0:
+            lo = max(p - w, self._base, self._last_cadu_start + 1)
+            hi = min(p + w, end - m)  # clipped only at the end of the stream
+            if hi >= lo:
+                count = hi - lo + 1
+                errs = self._window_errors[:count]
+                _kernels.marker_mismatches(self._hard, lo - self._base, count, self._marker, errs)
+                best = None
+                for k in range(count):
+                    q = lo + k
+                    if q == p:
+                        continue
+                    ek = int(min(errs[k], m - errs[k]))
+                    key = (ek, abs(q - p), q)
+                    if ek <= e and (best is None or key < best[0]):
+                        best = (key, q, bool(errs[k] > m - errs[k]))
+                if best is not None:
+                    (err, _, _), found, inv = best
+        if found >= 0:
+            if found + L > end:
+                return False  # only at the end of the stream: the last CADU is incomplete
+            if found != p:
+                self.stats.bit_slips += 1
+                self._event("bit_slip", found, offset_bits=found - p)
+            if inv != self._inverted:
+                self.stats.polarity_changes += 1
+                self._event("polarity_change", found)
+            self._inverted = inv
+            self._misses = 0
+            self.stats.asm_errors += err
+            self._emit(out, found, err, flywheel=False)
+            self._expected = found + L
+            return True
+        self._misses += 1
+        if self._misses <= self.flywheel:
+            if p + L > end:
+                return False
+            upright = int(np.count_nonzero(self._hard[p - self._base : p - self._base + m] != self._marker))
+            self._emit(out, p, m - upright if self._inverted else upright, flywheel=True)
+            self._expected = p + L
+            return True
+        self.stats.losses += 1
+        self._event("lock_lost", p)
+        self._state = _SEARCH
+        self._search_at = self._last_cadu_start + 1
+        return True
+
+    def _emit(self, out: list[Cadu], at: int, asm_errors: int, *, flywheel: bool) -> None:
+        m, L = self.marker_bits, self.cadu_bits
+        r = at - self._base
+        bits = self._hard[r + m : r + L]
+        if self._inverted:
+            bits = bits ^ np.uint8(1)
+        soft = None
+        if self.keep_soft:
+            soft = self._soft[r + m : r + L].copy()
+            if self._inverted:
+                soft = -soft
+        out.append(
+            Cadu(
+                data=np.packbits(bits).tobytes(),
+                position=float(self._pos[r]),
+                asm_errors=int(asm_errors),
+                inverted=self._inverted,
+                flywheel=flywheel,
+                bit_index=at,
+                soft=soft,
+            )
+        )
+        self._last_cadu_start = at
+        self._last_cadu_end = at + L
+        self.stats.cadus += 1
+        if flywheel:
+            self.stats.flywheel_cadus += 1
+        if self._inverted:
+            self.stats.inverted_cadus += 1
+
+    def _event(self, kind: str, at: int, offset_bits: int = 0) -> None:
+        r = at - self._base
+        pos = float(self._pos[r]) if 0 <= r < self._pos.size else float("nan")
+        self.events.append(SyncEvent(kind=kind, bit_index=at, position=pos, offset_bits=offset_bits))
+
+
+def _check_int(name: str, value, lo: int, hi: int) -> None:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+        raise TypeError(f"Argument '{name}' must be an integer, not {type(value).__name__}.")
+    if not lo <= value <= hi:
+        raise ValueError(f"Argument '{name}' must be {lo}..{hi}, not {value}.")
+
+
+def _as_inputs(soft, position) -> tuple[np.ndarray, np.ndarray]:
+    soft = np.asarray(soft)
+    position = np.asarray(position)
+    if soft.ndim != 1:
+        raise ValueError(f"Argument 'soft' must be one-dimensional, not {soft.ndim}-dimensional.")
+    if not (np.issubdtype(soft.dtype, np.floating) or np.issubdtype(soft.dtype, np.integer)):
+        raise TypeError(f"Argument 'soft' must hold real numbers, not {soft.dtype}.")
+    if position.shape != soft.shape:
+        raise ValueError(f"Argument 'position' must have the length of 'soft' ({soft.size}), not {position.size}.")
+    if not (np.issubdtype(position.dtype, np.floating) or np.issubdtype(position.dtype, np.integer)):
+        raise TypeError(f"Argument 'position' must hold real numbers, not {position.dtype}.")
+    return (
+        np.ascontiguousarray(soft, dtype=np.float32),
+        np.ascontiguousarray(position, dtype=np.float64),
+    )
