@@ -1,0 +1,700 @@
+"""Reading IQ recordings: SigMF pairs, raw sample files and two-channel WAV, memmapped in chunks."""
+
+from __future__ import annotations
+
+import bisect
+import json
+import math
+import os
+import struct
+from collections.abc import Iterator
+from dataclasses import dataclass
+from fractions import Fraction
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from pipeline.errors import RecordingError
+from pipeline.recording._formats import SampleFormat, sample_format
+from pipeline.recording._kernels import float_iq_to_complex64, int_iq_to_complex64
+from pipeline.recording._time import NS_PER_S, parse_iso8601_ns
+
+__all__ = [
+    "Capture",
+    "Chunk",
+    "Recording",
+    "open_recording",
+    "SIGMF_META_SUFFIX",
+    "SIGMF_DATA_SUFFIX",
+]
+
+SIGMF_META_SUFFIX = ".sigmf-meta"
+SIGMF_DATA_SUFFIX = ".sigmf-data"
+
+# Largest metadata file we parse: real ones are kilobytes; a huge one is a mistake, not a recording.
+_MAX_META_BYTES = 64 << 20
+
+
+@dataclass(frozen=True)
+class Capture:
+    """One capture segment: samples from ``sample_start`` on, until the next segment.
+
+    Attributes
+    ----------
+    sample_start : int
+        Index of the segment's first sample in the recording.
+    datetime_ns : int
+        UTC of that sample, nanoseconds since 1970-01-01.  When the metadata gave no time it is
+        carried on from the previous segment at the nominal sample rate (see ``time_given``).
+    frequency_hz : float or None
+        Centre frequency of the segment, if known.
+    time_given : bool
+        True when the time came from the metadata (``core:datetime``) or the ``start`` argument.
+    """
+
+    sample_start: int
+    datetime_ns: int
+    frequency_hz: float | None = None
+    time_given: bool = True
+
+
+@dataclass(frozen=True)
+class Chunk:
+    """A block of consecutive samples.
+
+    Attributes
+    ----------
+    samples : numpy.ndarray
+        complex64, C-contiguous, owned by the caller (a fresh array per chunk).
+    start : int
+        Absolute index of ``samples[0]`` in the recording.
+    nonfinite : int
+        Samples that held NaN or Inf in the file; they are 0 in ``samples`` (erasures).
+    """
+
+    samples: np.ndarray
+    start: int
+    nonfinite: int = 0
+
+    @property
+    def stop(self) -> int:
+        """Index one past the last sample."""
+        return self.start + int(self.samples.shape[0])
+
+    def __len__(self) -> int:
+        return int(self.samples.shape[0])
+
+
+class Recording:
+    """An IQ recording on disk, read through read-only memory maps.
+
+    Build with :func:`open_recording`.  Nothing is read at construction beyond the metadata; each
+    call of :meth:`chunks` or :meth:`read` maps only the bytes it converts, so memory stays
+    bounded by the chunk size however long the file is.
+
+    Attributes
+    ----------
+    path : pathlib.Path
+        The file holding the samples (the ``.sigmf-data`` for a SigMF pair).
+    meta_path : pathlib.Path or None
+        The ``.sigmf-meta`` file, None for raw and WAV files.
+    container : str
+        ``"sigmf"``, ``"raw"`` or ``"wav"``.
+    datatype : str
+        SigMF datatype name of the stored samples (``"ci16_le"``).
+    sample_format : SampleFormat
+        The parsed datatype.
+    sample_rate_hz : float
+        Samples per second.
+    num_samples : int
+        Complex samples in the file.
+    captures : tuple of Capture
+        Capture segments sorted by ``sample_start``; the first starts at sample 0 or later.
+    frequency_hz : float or None
+        Centre frequency of the first segment.
+    start_ns : int
+        UTC of sample 0, nanoseconds since 1970-01-01 (``utc_ns(0)``).
+    time_known : bool
+        False when no start time was given anywhere (then ``start_ns`` is 0, i.e. 1970).
+    metadata : dict
+        The parsed SigMF metadata (``global``, ``captures``, ``annotations``) or, for raw and WAV
+        files, an equivalent dict built from the arguments.
+    data_offset_bytes : int
+        Octets before the first sample (a WAV header, or SigMF ``core:header_bytes``).
+    """
+
+    def __init__(
+        self,
+        *,
+        path: Path,
+        container: str,
+        fmt: SampleFormat,
+        sample_rate_hz: float,
+        num_samples: int,
+        captures: tuple[Capture, ...],
+        metadata: dict,
+        data_offset_bytes: int = 0,
+        meta_path: Path | None = None,
+    ) -> None:
+        self.path = Path(path)
+        self.meta_path = meta_path
+        self.container = container
+        self.sample_format = fmt
+        self.datatype = fmt.name
+        self.sample_rate_hz = float(sample_rate_hz)
+        self.num_samples = int(num_samples)
+        self.captures = tuple(captures)
+        self.metadata = metadata
+        self.data_offset_bytes = int(data_offset_bytes)
+        self._starts = [c.sample_start for c in self.captures]
+        # Exact rational rate: utc_ns() is then exact integer arithmetic however long the pass.
+        self._rate = Fraction(self.sample_rate_hz)
+        self.time_known = any(c.time_given for c in self.captures)
+
+    # ---- derived ---------------------------------------------------------------------------
+    @property
+    def frequency_hz(self) -> float | None:
+        return self.captures[0].frequency_hz
+
+    @property
+    def start_ns(self) -> int:
+        return self.utc_ns(0)
+
+    @property
+    def duration_s(self) -> float:
+        """``num_samples / sample_rate_hz``."""
+        return self.num_samples / self.sample_rate_hz
+
+    @property
+    def annotations(self) -> list:
+        """The SigMF ``annotations`` list (empty for raw and WAV files)."""
+        ann = self.metadata.get("annotations", [])
+        return ann if isinstance(ann, list) else []
+
+    def __repr__(self) -> str:
+        return (
+            f"Recording({str(self.path)!r}, {self.container}, {self.datatype}, "
+            f"{self.sample_rate_hz:g} Hz, {self.num_samples} samples, {len(self.captures)} capture(s))"
+        )
+
+    # ---- time ------------------------------------------------------------------------------
+    def capture_at(self, position: float) -> Capture:
+        """The capture segment holding sample ``position`` (the first one for positions before it)."""
+        i = bisect.bisect_right(self._starts, position) - 1
+        return self.captures[max(i, 0)]
+
+    def utc_ns(self, position: float) -> int:
+        """UTC of a (fractional) sample position, integer nanoseconds since 1970-01-01.
+
+        Notes
+        -----
+        ``datetime_ns + round((position - sample_start) * 1e9 / sample_rate_hz)`` for the capture
+        segment holding ``position``, evaluated exactly with :class:`fractions.Fraction` (a float64
+        position and rate are exact binary fractions), rounded half to even.
+
+        References
+        ----------
+        SigMF specification, captures object: ``core:sample_start`` and ``core:datetime``.
+        """
+        if isinstance(position, (bool, np.bool_)):
+            raise TypeError("Argument 'position' must be a number, not bool.")
+        try:
+            pos = Fraction(position)
+        except (TypeError, ValueError, OverflowError):
+            raise ValueError(f"Argument 'position' must be a finite number, not {position!r}.") from None
+        cap = self.capture_at(position)
+        return cap.datetime_ns + round((pos - cap.sample_start) * NS_PER_S / self._rate)
+
+    # ---- samples ---------------------------------------------------------------------------
+    def _check_range(self, start: int, stop: int | None) -> tuple[int, int]:
+        if isinstance(start, (bool, np.bool_)) or not isinstance(start, (int, np.integer)):
+            raise TypeError(f"Argument 'start' must be an integer, not {type(start).__name__}.")
+        start = int(start)
+        if not 0 <= start <= self.num_samples:
+            raise ValueError(f"Argument 'start' must be 0..{self.num_samples}, not {start}.")
+        if stop is None:
+            return start, self.num_samples
+        if isinstance(stop, (bool, np.bool_)) or not isinstance(stop, (int, np.integer)):
+            raise TypeError(f"Argument 'stop' must be an integer or None, not {type(stop).__name__}.")
+        stop = int(stop)
+        if not start <= stop <= self.num_samples:
+            raise ValueError(f"Argument 'stop' must be {start}..{self.num_samples}, not {stop}.")
+        return start, stop
+
+    def _convert(self, start: int, count: int) -> Chunk:
+        fmt = self.sample_format
+        out = np.empty(count, dtype=np.complex64)
+        if count == 0:
+            return Chunk(out, start, 0)
+        try:
+            raw = np.memmap(
+                self.path,
+                dtype=fmt.component_dtype,
+                mode="r",
+                offset=self.data_offset_bytes + start * fmt.bytes_per_sample,
+                shape=(2 * count,),
+            )
+        except (OSError, ValueError) as exc:
+            raise RecordingError(f"{self.path}: cannot read samples {start}..{start + count} ({exc})") from None
+        # A fresh map per chunk (dropped on return) keeps resident memory at one chunk.
+        raw = raw.view(np.ndarray)
+        comps = raw if fmt.native else raw.astype(fmt.component_dtype.newbyteorder("="))
+        if fmt.is_float:
+            bad = int(float_iq_to_complex64(comps, out))
+        else:
+            bad = int(int_iq_to_complex64(comps, np.float32(fmt.offset), np.float32(fmt.scale), out))
+        del comps, raw
+        return Chunk(out, start, bad)
+
+    def read(self, start: int = 0, count: int | None = None) -> Chunk:
+        """Convert ``count`` samples from ``start`` (all remaining when None) into one chunk."""
+        start, stop = self._check_range(start, None if count is None else start + int(count))
+        return self._convert(start, stop - start)
+
+    def chunks(self, chunk_samples: int, start: int = 0, stop: int | None = None) -> Iterator[Chunk]:
+        """Yield consecutive :class:`Chunk` objects of ``chunk_samples`` samples (the last may be shorter).
+
+        Parameters
+        ----------
+        chunk_samples : int
+            Samples per chunk, at least 1.
+        start, stop : int
+            Sample range ``[start, stop)``; ``stop=None`` means the end of the recording.
+
+        Notes
+        -----
+        Each chunk maps just its own bytes read-only, converts them in one pass (numba kernel,
+        O(n)) and unmaps them, so resident memory is O(chunk_samples).
+        """
+        if isinstance(chunk_samples, (bool, np.bool_)) or not isinstance(chunk_samples, (int, np.integer)):
+            raise TypeError(f"Argument 'chunk_samples' must be an integer, not {type(chunk_samples).__name__}.")
+        if chunk_samples < 1:
+            raise ValueError(f"Argument 'chunk_samples' must be >= 1, not {chunk_samples}.")
+        start, stop = self._check_range(start, stop)
+        chunk_samples = int(chunk_samples)
+        pos = start
+        while pos < stop:
+            n = min(chunk_samples, stop - pos)
+            yield self._convert(pos, n)
+            pos += n
+
+
+# ---- opening --------------------------------------------------------------------------------
+
+
+def open_recording(
+    path: str | os.PathLike,
+    *,
+    datatype: str | None = None,
+    sample_rate_hz: float | None = None,
+    start: str | int | None = None,
+    frequency_hz: float | None = None,
+) -> Recording:
+    """Open an IQ recording: a SigMF pair, a two-channel WAV file or a raw sample file.
+
+    Parameters
+    ----------
+    path : str or path-like
+        ``x.sigmf-meta`` or ``x.sigmf-data`` (either names the pair; ``x`` or ``x.sigmf`` also
+        find it), ``x.wav``, or any other file, read as raw interleaved I/Q.
+    datatype : str, optional
+        Raw files only (required there): ``cf32 | ci16 | ci8 | cu8`` or a SigMF name
+        (``cf32_be``, ``ci16_be``...).  Refused for SigMF and WAV, which say what they hold.
+    sample_rate_hz : float, optional
+        Required for raw files.  For SigMF and WAV it overrides the rate in the file.
+    start : str or int, optional
+        UTC of sample 0: ISO-8601 with a zone (``2026-03-14T09:30:00.25Z``) or integer
+        nanoseconds since 1970.  For SigMF it replaces the time of the first capture segment.
+    frequency_hz : float, optional
+        Centre frequency, when the file does not give one.
+
+    Returns
+    -------
+    Recording
+
+    Raises
+    ------
+    RecordingError
+        One line naming the file and the problem: missing file, missing ``.sigmf-data`` or
+        ``.sigmf-meta``, metadata that is not valid JSON, an unknown datatype, a sample rate that
+        is missing, zero or negative, a size that is not a whole number of samples, no samples.
+
+    References
+    ----------
+    SigMF specification (Signal Metadata Format), global/captures/annotations objects and the
+    dataset format; Microsoft/IBM RIFF WAVE format (``fmt `` and ``data`` chunks).
+    """
+    p = Path(os.fspath(path))
+    name = p.name.lower()
+    if name.endswith(SIGMF_META_SUFFIX) or name.endswith(SIGMF_DATA_SUFFIX):
+        base = Path(str(p)[: -len(SIGMF_META_SUFFIX)])
+        meta, data = base.with_name(base.name + SIGMF_META_SUFFIX), base.with_name(base.name + SIGMF_DATA_SUFFIX)
+        if name.endswith(SIGMF_DATA_SUFFIX) and not meta.exists() and datatype is not None:
+            return _open_raw(p, datatype, sample_rate_hz, start, frequency_hz)
+        return _open_sigmf(meta, data, datatype, sample_rate_hz, start, frequency_hz)
+    if not p.exists():
+        stem = Path(str(p)[: -len(".sigmf")]) if name.endswith(".sigmf") else p
+        meta = stem.with_name(stem.name + SIGMF_META_SUFFIX)
+        if meta.exists():
+            return _open_sigmf(meta, stem.with_name(stem.name + SIGMF_DATA_SUFFIX),
+                               datatype, sample_rate_hz, start, frequency_hz)
+        raise RecordingError(f"{p}: recording not found")
+    if p.is_dir():
+        raise RecordingError(f"{p}: is a folder, not a recording")
+    if name.endswith(".sigmf"):
+        raise RecordingError(f"{p}: SigMF archives (.sigmf) are not read directly; extract the "
+                             f".sigmf-meta and .sigmf-data pair first")
+    if name.endswith(".wav") or name.endswith(".wave") or (datatype is None and _looks_like_wav(p)):
+        return _open_wav(p, datatype, sample_rate_hz, start, frequency_hz)
+    return _open_raw(p, datatype, sample_rate_hz, start, frequency_hz)
+
+
+def _looks_like_wav(p: Path) -> bool:
+    try:
+        with open(p, "rb") as fh:
+            head = fh.read(12)
+    except OSError:
+        return False
+    return len(head) == 12 and head[:4] in (b"RIFF", b"RF64") and head[8:12] == b"WAVE"
+
+
+def _check_rate(p: Path, rate: Any, what: str) -> float:
+    if rate is None:
+        raise RecordingError(f"{p}: sample rate missing ({what})")
+    if isinstance(rate, bool) or not isinstance(rate, (int, float, np.integer, np.floating)):
+        raise RecordingError(f"{p}: sample rate must be a number, not {rate!r}")
+    rate = float(rate)
+    if not math.isfinite(rate) or rate <= 0:
+        raise RecordingError(f"{p}: sample rate must be a positive number of Hz, not {rate:g}")
+    return rate
+
+
+def _check_frequency(p: Path, freq: Any, what: str) -> float | None:
+    if freq is None:
+        return None
+    if isinstance(freq, bool) or not isinstance(freq, (int, float, np.integer, np.floating)):
+        raise RecordingError(f"{p}: {what} must be a number of Hz, not {freq!r}")
+    freq = float(freq)
+    if not math.isfinite(freq):
+        raise RecordingError(f"{p}: {what} must be finite, not {freq!r}")
+    return freq
+
+
+def _start_ns(p: Path, start: Any, what: str) -> int:
+    if isinstance(start, bool):
+        raise RecordingError(f"{p}: {what} must be an ISO-8601 UTC time, not {start!r}")
+    if isinstance(start, (int, np.integer)):
+        return int(start)
+    if not isinstance(start, str):
+        raise RecordingError(f"{p}: {what} must be an ISO-8601 UTC time, not {start!r}")
+    try:
+        return parse_iso8601_ns(start)
+    except ValueError as exc:
+        raise RecordingError(f"{p}: {what}: {exc}") from None
+
+
+def _format_or_error(p: Path, datatype: Any, what: str) -> SampleFormat:
+    if not isinstance(datatype, str):
+        raise RecordingError(f"{p}: {what} must be a string, not {datatype!r}")
+    try:
+        return sample_format(datatype)
+    except ValueError:
+        low = datatype.lower()
+        if low.startswith("r") and len(low) > 1 and low[1] in "fiu":
+            raise RecordingError(f"{p}: datatype {datatype!r} is real-valued; an IQ (complex) recording is needed") \
+                from None
+        raise RecordingError(f"{p}: unknown datatype {datatype!r} (known: cf32_le, cf32_be, ci16_le, ci16_be, "
+                             f"ci8, cu8)") from None
+
+
+def _count_samples(p: Path, size_bytes: int, header_bytes: int, fmt: SampleFormat) -> int:
+    payload = size_bytes - header_bytes
+    if payload < 0:
+        raise RecordingError(f"{p}: file is shorter ({size_bytes} bytes) than its {header_bytes}-byte header")
+    if payload % fmt.bytes_per_sample:
+        raise RecordingError(
+            f"{p}: truncated: {payload} bytes is not a whole number of {fmt.bytes_per_sample}-byte "
+            f"{fmt.name} samples"
+        )
+    n = payload // fmt.bytes_per_sample
+    if n == 0:
+        raise RecordingError(f"{p}: contains no samples")
+    return n
+
+
+def _file_size(p: Path, missing: str) -> int:
+    try:
+        st = p.stat()
+    except FileNotFoundError:
+        raise RecordingError(f"{p}: {missing}") from None
+    except OSError as exc:
+        raise RecordingError(f"{p}: cannot read ({exc.strerror})") from None
+    if not p.is_file():
+        raise RecordingError(f"{p}: not a regular file")
+    return st.st_size
+
+
+def _open_raw(p, datatype, sample_rate_hz, start, frequency_hz) -> Recording:
+    size = _file_size(p, "recording not found")
+    if datatype is None:
+        raise RecordingError(f"{p}: raw recording needs a datatype (cf32 | ci16 | ci8 | cu8)")
+    fmt = _format_or_error(p, datatype, "datatype")
+    rate = _check_rate(p, sample_rate_hz, "give the sample rate of a raw recording")
+    freq = _check_frequency(p, frequency_hz, "frequency")
+    n = _count_samples(p, size, 0, fmt)
+    t0 = 0 if start is None else _start_ns(p, start, "start time")
+    cap = Capture(0, t0, freq, start is not None)
+    meta = _synth_meta(fmt, rate, cap, container="raw")
+    return Recording(path=p, container="raw", fmt=fmt, sample_rate_hz=rate, num_samples=n,
+                     captures=(cap,), metadata=meta)
+
+
+def _synth_meta(fmt: SampleFormat, rate: float, cap: Capture, container: str) -> dict:
+    from pipeline.recording._time import format_iso8601_ns
+
+    capture: dict[str, Any] = {"core:sample_start": 0}
+    if cap.time_given:
+        capture["core:datetime"] = format_iso8601_ns(cap.datetime_ns)
+    if cap.frequency_hz is not None:
+        capture["core:frequency"] = cap.frequency_hz
+    return {
+        "global": {"core:datatype": fmt.name, "core:sample_rate": rate, "downlink:container": container},
+        "captures": [capture],
+        "annotations": [],
+    }
+
+
+# ---- SigMF ------------------------------------------------------------------------------------
+
+
+def _open_sigmf(meta_path: Path, data_path: Path, datatype, sample_rate_hz, start, frequency_hz) -> Recording:
+    if datatype is not None:
+        raise RecordingError(f"{meta_path}: a SigMF recording names its own datatype; do not give one")
+    try:
+        meta_size = meta_path.stat().st_size
+    except FileNotFoundError:
+        raise RecordingError(f"{meta_path}: SigMF metadata file not found") from None
+    except OSError as exc:
+        raise RecordingError(f"{meta_path}: cannot read ({exc.strerror})") from None
+    if meta_size > _MAX_META_BYTES:
+        raise RecordingError(f"{meta_path}: metadata is {meta_size} bytes, more than a SigMF meta file should be")
+    try:
+        text = meta_path.read_text(encoding="utf-8")
+    except UnicodeDecodeError:
+        raise RecordingError(f"{meta_path}: metadata is not UTF-8 text") from None
+    except OSError as exc:
+        raise RecordingError(f"{meta_path}: cannot read ({exc.strerror})") from None
+    try:
+        meta = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise RecordingError(f"{meta_path}: metadata is not valid JSON ({exc.msg} at line {exc.lineno} "
+                             f"column {exc.colno})") from None
+    except RecursionError:
+        raise RecordingError(f"{meta_path}: metadata is nested too deeply") from None
+    return recording_from_sigmf_meta(meta, meta_path=meta_path, data_path=data_path,
+                                     sample_rate_hz=sample_rate_hz, start=start, frequency_hz=frequency_hz)
+
+
+def recording_from_sigmf_meta(meta: Any, *, meta_path: Path, data_path: Path, sample_rate_hz=None, start=None,
+                              frequency_hz=None) -> Recording:
+    """Validate parsed SigMF metadata and build the :class:`Recording` (see :func:`open_recording`)."""
+    mp = meta_path
+    if not isinstance(meta, dict):
+        raise RecordingError(f"{mp}: metadata must be a JSON object with 'global', 'captures', 'annotations'")
+    glob = meta.get("global")
+    if not isinstance(glob, dict):
+        raise RecordingError(f"{mp}: metadata has no 'global' object")
+    if "core:datatype" not in glob:
+        raise RecordingError(f"{mp}: 'global' has no 'core:datatype'")
+    fmt = _format_or_error(mp, glob["core:datatype"], "core:datatype")
+    channels = glob.get("core:num_channels", 1)
+    if isinstance(channels, bool) or not isinstance(channels, int) or channels < 1:
+        raise RecordingError(f"{mp}: core:num_channels must be a positive integer, not {channels!r}")
+    if channels != 1:
+        raise RecordingError(f"{mp}: core:num_channels is {channels}; only single-channel recordings are read")
+    if sample_rate_hz is not None:
+        rate = _check_rate(mp, sample_rate_hz, "sample_rate_hz argument")
+    else:
+        rate = _check_rate(mp, glob.get("core:sample_rate"), "'global' has no 'core:sample_rate'")
+    for key in ("core:version", "core:description", "core:recorder", "core:author"):
+        if key in glob and not isinstance(glob[key], str):
+            raise RecordingError(f"{mp}: {key} must be a string, not {glob[key]!r}")
+    if glob.get("core:dataset") is not None:
+        # Non-conforming dataset named in the metadata (SigMF "core:dataset"): a file beside the meta.
+        ds = glob["core:dataset"]
+        if not isinstance(ds, str) or not ds or "/" in ds or "\\" in ds or ds in (".", ".."):
+            raise RecordingError(f"{mp}: core:dataset must be a file name beside the metadata, not {ds!r}")
+        data_path = mp.with_name(ds)
+
+    caps_in = meta.get("captures", [])
+    if not isinstance(caps_in, list):
+        raise RecordingError(f"{mp}: 'captures' must be a list")
+    header_bytes = 0
+    parsed: list[tuple[int, int | None, float | None]] = []
+    for i, c in enumerate(caps_in):
+        if not isinstance(c, dict):
+            raise RecordingError(f"{mp}: capture {i} must be an object")
+        s0 = c.get("core:sample_start", 0 if i == 0 else None)
+        if isinstance(s0, bool) or not isinstance(s0, int) or s0 < 0:
+            raise RecordingError(f"{mp}: capture {i} core:sample_start must be a non-negative integer, not {s0!r}")
+        if parsed and s0 <= parsed[-1][0]:
+            raise RecordingError(f"{mp}: capture {i} core:sample_start {s0} is not after the previous one")
+        hb = c.get("core:header_bytes", 0)
+        if isinstance(hb, bool) or not isinstance(hb, int) or hb < 0:
+            raise RecordingError(f"{mp}: capture {i} core:header_bytes must be a non-negative integer, not {hb!r}")
+        if hb and i > 0:
+            raise RecordingError(f"{mp}: core:header_bytes in capture {i}: only a header before the first "
+                                 f"capture is supported")
+        header_bytes += hb
+        dt = c.get("core:datetime")
+        dt_ns = None
+        if dt is not None:
+            if not isinstance(dt, str):
+                raise RecordingError(f"{mp}: capture {i} core:datetime must be a string, not {dt!r}")
+            try:
+                dt_ns = parse_iso8601_ns(dt)
+            except ValueError as exc:
+                raise RecordingError(f"{mp}: capture {i} core:datetime: {exc}") from None
+        freq = _check_frequency(mp, c.get("core:frequency"), f"capture {i} core:frequency")
+        parsed.append((s0, dt_ns, freq))
+    if not parsed:
+        parsed.append((0, None, None))
+    if start is not None:
+        s0, _, f0 = parsed[0]
+        t = _start_ns(mp, start, "start time")
+        # The argument is the time of sample 0; move it to the first segment's start.
+        parsed[0] = (s0, t + round(Fraction(s0) * NS_PER_S / Fraction(rate)), f0)
+    if frequency_hz is not None:
+        f = _check_frequency(mp, frequency_hz, "frequency")
+        parsed = [(s, t, f if fr is None else fr) for s, t, fr in parsed]
+
+    ann = meta.get("annotations", [])
+    if not isinstance(ann, list):
+        raise RecordingError(f"{mp}: 'annotations' must be a list")
+    for i, a in enumerate(ann):
+        if not isinstance(a, dict):
+            raise RecordingError(f"{mp}: annotation {i} must be an object")
+        s = a.get("core:sample_start")
+        if isinstance(s, bool) or not isinstance(s, int) or s < 0:
+            raise RecordingError(f"{mp}: annotation {i} core:sample_start must be a non-negative integer, not {s!r}")
+        cnt = a.get("core:sample_count", 0)
+        if isinstance(cnt, bool) or not isinstance(cnt, int) or cnt < 0:
+            raise RecordingError(f"{mp}: annotation {i} core:sample_count must be a non-negative integer, "
+                                 f"not {cnt!r}")
+
+    size = _file_size(data_path, f"SigMF dataset file missing (expected beside {mp.name})")
+    n = _count_samples(data_path, size, header_bytes, fmt)
+    if parsed[-1][0] >= n:
+        raise RecordingError(f"{mp}: capture core:sample_start {parsed[-1][0]} is beyond the {n} samples "
+                             f"of {data_path.name}")
+    captures = _resolve_times(parsed, rate)
+    return Recording(path=data_path, container="sigmf", fmt=fmt, sample_rate_hz=rate, num_samples=n,
+                     captures=captures, metadata=meta, data_offset_bytes=header_bytes, meta_path=mp)
+
+
+def _resolve_times(parsed: list[tuple[int, int | None, float | None]], rate: float) -> tuple[Capture, ...]:
+    """Fill in segments without ``core:datetime`` by carrying time on at the nominal rate."""
+    r = Fraction(rate)
+    caps: list[Capture] = []
+    known = [i for i, (_, t, _) in enumerate(parsed) if t is not None]
+    if not known:
+        anchor_i, anchor_t = 0, 0
+    else:
+        anchor_i, anchor_t = known[0], parsed[known[0]][1]
+    for s0, t, f in parsed:
+        if t is not None:
+            caps.append(Capture(s0, t, f, True))
+            continue
+        if caps:
+            prev = caps[-1]
+            t_new = prev.datetime_ns + round(Fraction(s0 - prev.sample_start) * NS_PER_S / r)
+        else:
+            # Before the first segment with a time: count back from it.
+            t_new = anchor_t - round(Fraction(parsed[anchor_i][0] - s0) * NS_PER_S / r)
+        caps.append(Capture(s0, t_new, f, False))
+    return tuple(caps)
+
+
+# ---- WAV -------------------------------------------------------------------------------------
+
+
+def _open_wav(p: Path, datatype, sample_rate_hz, start, frequency_hz) -> Recording:
+    size = _file_size(p, "recording not found")
+    if datatype is not None:
+        raise RecordingError(f"{p}: a WAV file names its own sample format; do not give a datatype")
+    fmt_name, rate_in_file, data_offset, data_bytes = _parse_wav(p, size)
+    fmt = sample_format(fmt_name)
+    rate = _check_rate(p, sample_rate_hz if sample_rate_hz is not None else rate_in_file, "WAV header")
+    freq = _check_frequency(p, frequency_hz, "frequency")
+    if data_offset + data_bytes > size:
+        raise RecordingError(f"{p}: truncated: the data chunk declares {data_bytes} bytes but only "
+                             f"{size - data_offset} follow")
+    n = _count_samples(p, data_bytes, 0, fmt)
+    t0 = 0 if start is None else _start_ns(p, start, "start time")
+    cap = Capture(0, t0, freq, start is not None)
+    meta = _synth_meta(fmt, rate, cap, container="wav")
+    return Recording(path=p, container="wav", fmt=fmt, sample_rate_hz=rate, num_samples=n, captures=(cap,),
+                     metadata=meta, data_offset_bytes=data_offset)
+
+
+_WAVE_FORMAT_PCM = 0x0001
+_WAVE_FORMAT_IEEE_FLOAT = 0x0003
+_WAVE_FORMAT_EXTENSIBLE = 0xFFFE
+
+
+def _parse_wav(p: Path, size: int) -> tuple[str, int, int, int]:
+    """Walk the RIFF chunks: returns (datatype, sample rate, data offset, data bytes).
+
+    Reads only the chunk headers (a few dozen bytes), never the samples.
+    """
+    with open(p, "rb") as fh:
+        head = fh.read(12)
+        if len(head) < 12 or head[:4] not in (b"RIFF", b"RF64") or head[8:12] != b"WAVE":
+            raise RecordingError(f"{p}: not a RIFF WAVE file")
+        rf64 = head[:4] == b"RF64"
+        big_data_size = None
+        fmt = None
+        pos = 12
+        while pos + 8 <= size:
+            fh.seek(pos)
+            hdr = fh.read(8)
+            cid, csize = hdr[:4], struct.unpack("<I", hdr[4:])[0]
+            body = pos + 8
+            if cid == b"ds64":
+                ds = fh.read(24)
+                if len(ds) < 24:
+                    raise RecordingError(f"{p}: truncated ds64 chunk")
+                big_data_size = struct.unpack("<QQQ", ds)[1]
+            elif cid == b"fmt ":
+                raw = fh.read(min(csize, 40))
+                if len(raw) < 16:
+                    raise RecordingError(f"{p}: WAV fmt chunk too short")
+                tag, channels, rate, _, block_align, bits = struct.unpack("<HHIIHH", raw[:16])
+                if tag == _WAVE_FORMAT_EXTENSIBLE and len(raw) >= 40:
+                    tag = struct.unpack("<H", raw[24:26])[0]  # first two octets of the SubFormat GUID
+                fmt = (tag, channels, rate, block_align, bits)
+            elif cid == b"data":
+                if fmt is None:
+                    raise RecordingError(f"{p}: WAV data chunk before its fmt chunk")
+                data_bytes = big_data_size if (rf64 and csize == 0xFFFFFFFF and big_data_size is not None) else csize
+                tag, channels, rate, block_align, bits = fmt
+                if channels != 2:
+                    raise RecordingError(f"{p}: WAV has {channels} channel(s); IQ needs 2 (I left, Q right)")
+                if tag == _WAVE_FORMAT_PCM and bits == 16:
+                    name = "ci16_le"
+                elif tag == _WAVE_FORMAT_PCM and bits == 8:
+                    name = "cu8"  # 8-bit WAV PCM is unsigned, zero level near 128
+                elif tag == _WAVE_FORMAT_IEEE_FLOAT and bits == 32:
+                    name = "cf32_le"
+                else:
+                    raise RecordingError(f"{p}: WAV format tag {tag} with {bits} bits is not supported "
+                                         f"(16-bit PCM, 8-bit PCM or 32-bit float)")
+                if block_align != 2 * bits // 8:
+                    raise RecordingError(f"{p}: WAV block align {block_align} does not match 2 x {bits} bits")
+                if csize == 0xFFFFFFFF and not rf64 or data_bytes == 0 and size > body:
+                    # A writer that never finished: take the rest of the file.
+                    data_bytes = size - body
+                return name, rate, body, data_bytes
+            pos = body + csize + (csize & 1)  # chunks are padded to an even size
+    raise RecordingError(f"{p}: WAV file has no data chunk")

@@ -1,0 +1,138 @@
+"""Channel symbols from a demodulator elsewhere: int8 soft values or packed hard bits."""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Iterator
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Literal
+
+import numpy as np
+
+from pipeline.errors import RecordingError
+from pipeline.recording._kernels import int8_to_soft, unpack_bits_to_soft
+
+__all__ = ["SymbolKind", "SymbolChunk", "SymbolFile", "open_symbols"]
+
+SymbolKind = Literal["soft", "bits"]
+
+
+@dataclass(frozen=True)
+class SymbolChunk:
+    """Consecutive channel symbols as soft values.
+
+    Attributes
+    ----------
+    soft : numpy.ndarray
+        float32, positive = bit 0, magnitude = confidence, 0.0 = erasure.
+    start : int
+        Index of ``soft[0]`` among the file's channel symbols.
+    """
+
+    soft: np.ndarray
+    start: int
+
+    @property
+    def stop(self) -> int:
+        return self.start + int(self.soft.shape[0])
+
+    def __len__(self) -> int:
+        return int(self.soft.shape[0])
+
+
+class SymbolFile:
+    """A file of channel symbols read through read-only memory maps (see :func:`open_symbols`).
+
+    Attributes
+    ----------
+    path : pathlib.Path
+    kind : str
+        ``"soft"``: one int8 per channel symbol, value kept (+ = bit 0, 0 = erasure).
+        ``"bits"``: packed hard channel bits, MSB first; bit 0 -> +1.0, bit 1 -> -1.0.
+    num_symbols : int
+        Channel symbols in the file (bytes for soft, 8 x bytes for bits).
+    """
+
+    def __init__(self, path: Path, kind: str, size_bytes: int) -> None:
+        self.path = path
+        self.kind = kind
+        self.size_bytes = int(size_bytes)
+        self.num_symbols = self.size_bytes * (8 if kind == "bits" else 1)
+
+    def __repr__(self) -> str:
+        return f"SymbolFile({str(self.path)!r}, {self.kind}, {self.num_symbols} symbols)"
+
+    def _convert(self, start: int, count: int) -> SymbolChunk:
+        out = np.empty(count, dtype=np.float32)
+        if count == 0:
+            return SymbolChunk(out, start)
+        if self.kind == "soft":
+            raw = np.memmap(self.path, dtype=np.int8, mode="r", offset=start, shape=(count,)).view(np.ndarray)
+            int8_to_soft(raw, out)
+        else:
+            b0, b1 = start >> 3, (start + count + 7) >> 3
+            raw = np.memmap(self.path, dtype=np.uint8, mode="r", offset=b0, shape=(b1 - b0,)).view(np.ndarray)
+            unpack_bits_to_soft(raw, start & 7, out)
+        del raw
+        return SymbolChunk(out, start)
+
+    def chunks(self, chunk_symbols: int, start: int = 0, stop: int | None = None) -> Iterator[SymbolChunk]:
+        """Yield :class:`SymbolChunk` objects of ``chunk_symbols`` symbols over ``[start, stop)``.
+
+        Notes
+        -----
+        One read-only map per chunk, converted in one O(n) pass; memory is O(chunk_symbols).
+        """
+        if isinstance(chunk_symbols, (bool, np.bool_)) or not isinstance(chunk_symbols, (int, np.integer)):
+            raise TypeError(f"Argument 'chunk_symbols' must be an integer, not {type(chunk_symbols).__name__}.")
+        if chunk_symbols < 1:
+            raise ValueError(f"Argument 'chunk_symbols' must be >= 1, not {chunk_symbols}.")
+        for name, v in (("start", start), ("stop", stop)):
+            if v is not None and (isinstance(v, (bool, np.bool_)) or not isinstance(v, (int, np.integer))):
+                raise TypeError(f"Argument '{name}' must be an integer, not {type(v).__name__}.")
+        start = int(start)
+        stop = self.num_symbols if stop is None else int(stop)
+        if not 0 <= start <= self.num_symbols:
+            raise ValueError(f"Argument 'start' must be 0..{self.num_symbols}, not {start}.")
+        if not start <= stop <= self.num_symbols:
+            raise ValueError(f"Argument 'stop' must be {start}..{self.num_symbols}, not {stop}.")
+        pos = start
+        while pos < stop:
+            n = min(int(chunk_symbols), stop - pos)
+            yield self._convert(pos, n)
+            pos += n
+
+
+def open_symbols(path: str | os.PathLike, kind: str) -> SymbolFile:
+    """Open a channel-symbol file for ``--input soft`` or ``--input bits``.
+
+    Parameters
+    ----------
+    path : str or path-like
+    kind : {"soft", "bits"}
+        ``soft``: one int8 per channel symbol, positive = bit 0 (the value becomes the float32
+        soft value, 0 = erasure).  ``bits``: packed hard channel bits, MSB first of each octet;
+        a 0 bit becomes +1.0 and a 1 bit -1.0.
+
+    Raises
+    ------
+    ValueError
+        ``kind`` is not ``"soft"`` or ``"bits"``.
+    RecordingError
+        The file is missing, not a regular file, or empty.
+    """
+    if kind not in ("soft", "bits"):
+        raise ValueError(f"Argument 'kind' must be 'soft' or 'bits', not {kind!r}.")
+    p = Path(os.fspath(path))
+    try:
+        st = p.stat()
+    except FileNotFoundError:
+        raise RecordingError(f"{p}: symbol file not found") from None
+    except OSError as exc:
+        raise RecordingError(f"{p}: cannot read ({exc.strerror})") from None
+    if not p.is_file():
+        raise RecordingError(f"{p}: not a regular file")
+    if st.st_size == 0:
+        raise RecordingError(f"{p}: contains no symbols")
+    return SymbolFile(p, kind, st.st_size)
