@@ -1,3 +1,33 @@
-"""pipeline.link (see DEVELOPERS.md, stage contracts)."""
+"""pipeline.link: transfer frames (TM, CCSDS 132.0-B; AOS, CCSDS 732.0-B) and channel accounting.
 
-__all__: list[str] = []
+See DEVELOPERS.md, stage contracts.
+"""
+
+from pipeline.link._accounting import ChannelAccounting, Gap, count_step
+from pipeline.link._fhec import fhec_check, fhec_parity
+from pipeline.link._frames import (
+    BDP_ALL_VALID,
+    BDP_IDLE,
+    FHP_IDLE,
+    FHP_NO_HEADER,
+    FRAME_STATUSES,
+    FrameParser,
+    FrameRecord,
+    decode_clcw,
+)
+
+__all__ = [
+    "FrameParser",
+    "FrameRecord",
+    "FRAME_STATUSES",
+    "ChannelAccounting",
+    "Gap",
+    "count_step",
+    "decode_clcw",
+    "fhec_parity",
+    "fhec_check",
+    "FHP_NO_HEADER",
+    "FHP_IDLE",
+    "BDP_ALL_VALID",
+    "BDP_IDLE",
+]
