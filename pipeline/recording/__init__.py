@@ -8,7 +8,7 @@ in chunks; write SigMF in a stream; read ``--input soft|bits`` symbol files.  Se
 from pipeline.recording._formats import RAW_FORMAT_ALIASES, SAMPLE_FORMATS, Datatype, SampleFormat, sample_format
 from pipeline.recording._recording import Capture, Chunk, Recording, open_recording
 from pipeline.recording._symbols import SymbolChunk, SymbolFile, SymbolKind, open_symbols
-from pipeline.recording._time import format_iso8601_ns, parse_iso8601_ns
+from pipeline.recording._time import format_iso8601_ns, parse_iso8601_ns, parse_iso_ns
 from pipeline.recording._writer import SIGMF_VERSION, SigmfWriter
 
 __all__ = [
@@ -28,5 +28,6 @@ __all__ = [
     "open_recording",
     "open_symbols",
     "parse_iso8601_ns",
+    "parse_iso_ns",
     "sample_format",
 ]

@@ -9,7 +9,7 @@ from __future__ import annotations
 import datetime as _dt
 import re
 
-__all__ = ["parse_iso8601_ns", "format_iso8601_ns", "NS_PER_S"]
+__all__ = ["parse_iso8601_ns", "parse_iso_ns", "format_iso8601_ns", "NS_PER_S"]
 
 NS_PER_S = 1_000_000_000
 _NS_PER_DAY = 86_400 * NS_PER_S
@@ -119,3 +119,7 @@ def format_iso8601_ns(ns: int, *, digits: int = 9) -> str:
     if digits:
         text += "." + f"{frac:09d}"[:digits]
     return text + "Z"
+
+
+#: Short name of :func:`parse_iso8601_ns` (used by the decode chain and the demo).
+parse_iso_ns = parse_iso8601_ns
