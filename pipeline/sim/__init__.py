@@ -4,6 +4,8 @@ packets -> TM / AOS frames -> RS -> randomizer -> ASM -> (NRZ-M) convolutional c
 -> channel -> SigMF recording plus truth files.
 """
 
+from pipeline.sim._channel import Channel, DopplerPass, Fade, noise_variance_per_sample
+from pipeline.sim._coding import ChannelCoder, CoderOutput, NrzmPosition
 from pipeline.sim._frames import (
     FHP_IDLE,
     FHP_NO_PACKET,
@@ -14,10 +16,26 @@ from pipeline.sim._frames import (
     clcw_word,
     tm_primary_header,
 )
+from pipeline.sim._modulator import Modulator, ModulatorOutput, rrc_pulse
 from pipeline.sim._packets import IDLE_APID, PacketSource, SimPacket, idle_packet, space_packet, space_packet_header
+from pipeline.sim._simulate import SOFT_SCALE, SimulationResult, simulate, soft_channel_symbols
 from pipeline.sim._time import cuc_4_2, format_utc_ns, parse_utc_ns, tai_seconds_since_1958
 
 __all__ = [
+    "SOFT_SCALE",
+    "Channel",
+    "ChannelCoder",
+    "CoderOutput",
+    "DopplerPass",
+    "Fade",
+    "Modulator",
+    "ModulatorOutput",
+    "NrzmPosition",
+    "SimulationResult",
+    "noise_variance_per_sample",
+    "rrc_pulse",
+    "simulate",
+    "soft_channel_symbols",
     "FHP_IDLE",
     "FHP_NO_PACKET",
     "IDLE_APID",
