@@ -1,3 +1,20 @@
-"""pipeline.report (see DEVELOPERS.md, stage contracts)."""
+"""pipeline.report: the pass report, ``report.json`` and a self-contained ``report.html`` with plots.
 
-__all__: list[str] = []
+See DEVELOPERS.md ("pipeline.report") for what the decode chain passes in.
+"""
+
+from pipeline.report._html import CAUTION_TEXT, KNOWN_SECTIONS, MAX_TABLE_ROWS, jsonable, render_html, write_report
+from pipeline.report._plots import MAX_CONSTELLATION_POINTS, Figure, PlotData, render_plots
+
+__all__ = [
+    "CAUTION_TEXT",
+    "Figure",
+    "KNOWN_SECTIONS",
+    "MAX_CONSTELLATION_POINTS",
+    "MAX_TABLE_ROWS",
+    "PlotData",
+    "jsonable",
+    "render_html",
+    "render_plots",
+    "write_report",
+]
