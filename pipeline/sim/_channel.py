@@ -20,8 +20,8 @@ without changing N0.
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable
 from dataclasses import dataclass
-from typing import Iterable
 
 import numpy as np
 
@@ -137,7 +137,8 @@ class Channel:
         self.carrier_offset_hz = _finite("carrier_offset_hz", carrier_offset_hz)
         self.doppler_rate_hz_per_s = _finite("doppler_rate_hz_per_s", doppler_rate_hz_per_s)
         if doppler_pass is not None and not isinstance(doppler_pass, DopplerPass):
-            raise TypeError(f"Argument 'doppler_pass' must be a DopplerPass or None, not {type(doppler_pass).__name__}.")
+            raise TypeError(f"Argument 'doppler_pass' must be a DopplerPass or None, "
+                            f"not {type(doppler_pass).__name__}.")
         self.doppler_pass = doppler_pass
         self.phase0_rad = _finite("phase0_rad", phase0_rad)
         self.phase_noise_rad = _finite("phase_noise_rad", phase_noise_rad)
@@ -145,7 +146,8 @@ class Channel:
             raise ValueError(f"Argument 'phase_noise_rad' must be >= 0, not {phase_noise_rad}.")
         self.phase_noise_bandwidth_hz = _finite("phase_noise_bandwidth_hz", phase_noise_bandwidth_hz)
         if not 0 < self.phase_noise_bandwidth_hz < self.sample_rate_hz / 2:
-            raise ValueError(f"Argument 'phase_noise_bandwidth_hz' must be in (0, fs/2), not {phase_noise_bandwidth_hz}.")
+            raise ValueError(f"Argument 'phase_noise_bandwidth_hz' must be in (0, fs/2), "
+                             f"not {phase_noise_bandwidth_hz}.")
         fl = []
         for f in fades:
             if isinstance(f, Fade):
@@ -154,7 +156,8 @@ class Channel:
                 try:
                     start, dur, depth = f
                 except (TypeError, ValueError):
-                    raise TypeError(f"Argument 'fades' must hold (start_s, duration_s, depth_db) triples, not {f!r}.")
+                    raise TypeError(f"Argument 'fades' must hold (start_s, duration_s, depth_db) triples, "
+                                    f"not {f!r}.") from None
                 fl.append(Fade(float(start), float(dur), float(depth)))
         self.fades = tuple(fl)
         if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):

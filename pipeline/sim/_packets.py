@@ -9,8 +9,8 @@ generation time as a CUC T-field (implicit P-field 0x1E: level 1, 1958 TAI epoch
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable
 from dataclasses import dataclass
-from typing import Iterable
 
 import numpy as np
 

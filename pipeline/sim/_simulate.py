@@ -13,9 +13,9 @@ from __future__ import annotations
 import json
 import math
 import os
+from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterable
 
 import numpy as np
 
@@ -223,7 +223,7 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
         try:
             start, dur, depth = f
         except (TypeError, ValueError):
-            raise TypeError(f"Argument 'fades' must hold (start_s, duration_s, depth_db) triples, not {f!r}.")
+            raise TypeError(f"Argument 'fades' must hold (start_s, duration_s, depth_db) triples, not {f!r}.") from None
         depth = float(depth)
         fade_list.append(Fade(float(start), float(dur), math.inf if depth >= 100.0 else depth))
 
@@ -329,8 +329,8 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
             s0 = int(round(f.start_s * fs))
             if s0 < num_samples:
                 n = max(1, min(int(round(f.duration_s * fs)), num_samples - s0))
-                writer.annotate(s0, n, label="fade" if f.gain > 0 else "dropout",
-                                comment=f"simulated {'fade of %g dB' % f.depth_db if f.gain > 0 else 'dropout'}")
+                what = f"fade of {f.depth_db:g} dB" if f.gain > 0 else "dropout"
+                writer.annotate(s0, n, label="fade" if f.gain > 0 else "dropout", comment=f"simulated {what}")
         written = 0
         while written < num_samples:
             built = []
