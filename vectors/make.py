@@ -536,11 +536,16 @@ def packet_cases():
                                       for p in pkts]},
                 source="REFERENCES.md sec. 5 packet layout and sec. 3 FHP (from memory, not confirmed); "
                        "computed by vectors/make.py", seed=seed)
-    yield _case("space_packet_header_example", "packets", "packet_header",
-                inp={"hex": space_packet(apid=0x123, seq_count=0x1234, data=bytes(range(10)), sec_hdr=True).hex()},
-                expected={"apid": 0x123, "seq_count": 0x1234, "seq_flags": 3, "secondary_header": True,
-                          "data_length": 9, "header": "0923D2340009"},
-                source="REFERENCES.md sec. 5 computed example (09 23 D2 34 00 09)")
+    pkt = space_packet(apid=0x123, seq_count=0x1234, data=bytes(range(10)), sec_hdr=True)
+    frames = _tm_frames(pkt, length=40, scid=499, vcid=0, ocf=False, fecf=False, first_header_offsets=[0],
+                        extra_idle=0)
+    yield _case("packets_header_example_apid0x123", "packets", "packets_from_frames",
+                params={"frames": {"kind": "tm", "length": 40, "fecf": False, "ocf": False, "spacecraft_id": 499}},
+                inp={"frames": [f.hex() for f in frames]},
+                expected={"packets": [{"apid": 0x123, "seq_count": 0x1234, "seq_flags": 3, "hex": pkt.hex()}],
+                          "header": "0923D2340009"},
+                source="REFERENCES.md sec. 5 computed example (header 09 23 D2 34 00 09); the rest of the "
+                       "40-octet frame is one idle packet (APID 0x7FF, from memory, not confirmed)")
 
 
 def timecode_cases():
