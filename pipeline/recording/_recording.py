@@ -96,11 +96,11 @@ class Recording:
     Attributes
     ----------
     path : pathlib.Path
-        The file holding the samples (the ``.sigmf-data`` for a SigMF pair).
+        The file holding the samples (the ``.sigmf-data`` of a pair, the ``.sigmf`` archive).
     meta_path : pathlib.Path or None
-        The ``.sigmf-meta`` file, None for raw and WAV files.
+        The ``.sigmf-meta`` file (the archive for an archive), None for raw and WAV files.
     container : str
-        ``"sigmf"``, ``"raw"`` or ``"wav"``.
+        ``"sigmf"``, ``"sigmf-archive"``, ``"raw"`` or ``"wav"``.
     datatype : str
         SigMF datatype name of the stored samples (``"ci16_le"``).
     sample_format : SampleFormat
@@ -121,7 +121,8 @@ class Recording:
         The parsed SigMF metadata (``global``, ``captures``, ``annotations``) or, for raw and WAV
         files, an equivalent dict built from the arguments.
     data_offset_bytes : int
-        Octets before the first sample (a WAV header, or SigMF ``core:header_bytes``).
+        Octets before the first sample (a WAV header, SigMF ``core:header_bytes``, the position of
+        the data member in an archive).
     """
 
     def __init__(
@@ -200,7 +201,7 @@ class Recording:
         if isinstance(position, (bool, np.bool_)):
             raise TypeError("Argument 'position' must be a number, not bool.")
         try:
-            pos = Fraction(position)
+            pos = Fraction(int(position)) if isinstance(position, (int, np.integer)) else Fraction(float(position))
         except (TypeError, ValueError, OverflowError):
             raise ValueError(f"Argument 'position' must be a finite number, not {position!r}.") from None
         cap = self.capture_at(position)
@@ -296,8 +297,9 @@ def open_recording(
     Parameters
     ----------
     path : str or path-like
-        ``x.sigmf-meta`` or ``x.sigmf-data`` (either names the pair; ``x`` or ``x.sigmf`` also
-        find it), ``x.wav``, or any other file, read as raw interleaved I/Q.
+        ``x.sigmf-meta`` or ``x.sigmf-data`` (either names the pair; ``x`` also finds it), an
+        uncompressed SigMF archive ``x.sigmf`` (read in place, not extracted), ``x.wav``, or any
+        other file, read as raw interleaved I/Q.
     datatype : str, optional
         Raw files only (required there): ``cf32 | ci16 | ci8 | cu8`` or a SigMF name
         (``cf32_be``, ``ci16_be``...).  Refused for SigMF and WAV, which say what they hold.
@@ -343,8 +345,7 @@ def open_recording(
     if p.is_dir():
         raise RecordingError(f"{p}: is a folder, not a recording")
     if name.endswith(".sigmf"):
-        raise RecordingError(f"{p}: SigMF archives (.sigmf) are not read directly; extract the "
-                             f".sigmf-meta and .sigmf-data pair first")
+        return _open_archive(p, datatype, sample_rate_hz, start, frequency_hz)
     if name.endswith(".wav") or name.endswith(".wave") or (datatype is None and _looks_like_wav(p)):
         return _open_wav(p, datatype, sample_rate_hz, start, frequency_hz)
     return _open_raw(p, datatype, sample_rate_hz, start, frequency_hz)
@@ -497,7 +498,8 @@ def _open_sigmf(meta_path: Path, data_path: Path, datatype, sample_rate_hz, star
 
 
 def recording_from_sigmf_meta(meta: Any, *, meta_path: Path, data_path: Path, sample_rate_hz=None, start=None,
-                              frequency_hz=None) -> Recording:
+                              frequency_hz=None, data_span: tuple[int, int] | None = None,
+                              container: str = "sigmf") -> Recording:
     """Validate parsed SigMF metadata and build the :class:`Recording` (see :func:`open_recording`)."""
     mp = meta_path
     if not isinstance(meta, dict):
@@ -520,7 +522,7 @@ def recording_from_sigmf_meta(meta: Any, *, meta_path: Path, data_path: Path, sa
     for key in ("core:version", "core:description", "core:recorder", "core:author"):
         if key in glob and not isinstance(glob[key], str):
             raise RecordingError(f"{mp}: {key} must be a string, not {glob[key]!r}")
-    if glob.get("core:dataset") is not None:
+    if glob.get("core:dataset") is not None and data_span is None:
         # Non-conforming dataset named in the metadata (SigMF "core:dataset"): a file beside the meta.
         ds = glob["core:dataset"]
         if not isinstance(ds, str) or not ds or "/" in ds or "\\" in ds or ds in (".", ".."):
@@ -583,14 +585,18 @@ def recording_from_sigmf_meta(meta: Any, *, meta_path: Path, data_path: Path, sa
             raise RecordingError(f"{mp}: annotation {i} core:sample_count must be a non-negative integer, "
                                  f"not {cnt!r}")
 
-    size = _file_size(data_path, f"SigMF dataset file missing (expected beside {mp.name})")
+    if data_span is None:
+        base_offset = 0
+        size = _file_size(data_path, f"SigMF dataset file missing (expected beside {mp.name})")
+    else:  # inside an archive: the data member's offset and size
+        base_offset, size = data_span
     n = _count_samples(data_path, size, header_bytes, fmt)
     if parsed[-1][0] >= n:
         raise RecordingError(f"{mp}: capture core:sample_start {parsed[-1][0]} is beyond the {n} samples "
                              f"of {data_path.name}")
     captures = _resolve_times(parsed, rate)
-    return Recording(path=data_path, container="sigmf", fmt=fmt, sample_rate_hz=rate, num_samples=n,
-                     captures=captures, metadata=meta, data_offset_bytes=header_bytes, meta_path=mp)
+    return Recording(path=data_path, container=container, fmt=fmt, sample_rate_hz=rate, num_samples=n,
+                     captures=captures, metadata=meta, data_offset_bytes=base_offset + header_bytes, meta_path=mp)
 
 
 def _resolve_times(parsed: list[tuple[int, int | None, float | None]], rate: float) -> tuple[Capture, ...]:
@@ -614,6 +620,54 @@ def _resolve_times(parsed: list[tuple[int, int | None, float | None]], rate: flo
             t_new = anchor_t - round(Fraction(parsed[anchor_i][0] - s0) * NS_PER_S / r)
         caps.append(Capture(s0, t_new, f, False))
     return tuple(caps)
+
+
+def _open_archive(p: Path, datatype, sample_rate_hz, start, frequency_hz) -> Recording:
+    """A SigMF archive: an uncompressed tar holding one ``.sigmf-meta`` and its ``.sigmf-data``.
+
+    A tar member's bytes are contiguous in the archive, so the samples are mapped in place at the
+    member's data offset; nothing is extracted.
+    """
+    import tarfile
+
+    if datatype is not None:
+        raise RecordingError(f"{p}: a SigMF recording names its own datatype; do not give one")
+    try:
+        with open(p, "rb") as fh:
+            magic = fh.read(6)
+        if magic[:2] == b"\x1f\x8b" or magic == b"\xfd7zXZ\x00" or magic[:3] == b"BZh" or magic[:4] == b"PK\x03\x04":
+            raise RecordingError(f"{p}: compressed SigMF archive: decompress it (or extract the pair) first, "
+                                 f"samples are read in place from an uncompressed tar only")
+        with tarfile.open(p, mode="r:") as tar:
+            members = tar.getmembers()
+            metas = [m for m in members if m.isfile() and m.name.lower().endswith(SIGMF_META_SUFFIX)]
+            if len(metas) != 1:
+                raise RecordingError(f"{p}: SigMF archive holds {len(metas)} recordings; exactly one can be opened")
+            meta_m = metas[0]
+            if meta_m.size > _MAX_META_BYTES:
+                raise RecordingError(f"{p}: metadata in the archive is too large ({meta_m.size} bytes)")
+            raw_meta = tar.extractfile(meta_m).read()
+            by_name = {m.name: m for m in members if m.isfile()}
+    except tarfile.TarError as exc:
+        raise RecordingError(f"{p}: not a readable SigMF archive (tar: {exc})") from None
+    except OSError as exc:
+        raise RecordingError(f"{p}: cannot read ({exc.strerror})") from None
+    try:
+        meta = json.loads(raw_meta.decode("utf-8"))
+    except UnicodeDecodeError:
+        raise RecordingError(f"{p}: metadata in the archive is not UTF-8 text") from None
+    except json.JSONDecodeError as exc:
+        raise RecordingError(f"{p}: metadata in the archive is not valid JSON ({exc.msg} at line {exc.lineno} "
+                             f"column {exc.colno})") from None
+    except RecursionError:
+        raise RecordingError(f"{p}: metadata in the archive is nested too deeply") from None
+    data_name = meta_m.name[: -len(SIGMF_META_SUFFIX)] + SIGMF_DATA_SUFFIX
+    data_m = by_name.get(data_name)
+    if data_m is None:
+        raise RecordingError(f"{p}: SigMF archive has no {Path(data_name).name} beside {Path(meta_m.name).name}")
+    return recording_from_sigmf_meta(meta, meta_path=p, data_path=p, sample_rate_hz=sample_rate_hz, start=start,
+                                     frequency_hz=frequency_hz, data_span=(data_m.offset_data, data_m.size),
+                                     container="sigmf-archive")
 
 
 # ---- WAV -------------------------------------------------------------------------------------
@@ -653,6 +707,7 @@ def _parse_wav(p: Path, size: int) -> tuple[str, int, int, int]:
         if len(head) < 12 or head[:4] not in (b"RIFF", b"RF64") or head[8:12] != b"WAVE":
             raise RecordingError(f"{p}: not a RIFF WAVE file")
         rf64 = head[:4] == b"RF64"
+        riff_size = struct.unpack("<I", head[4:8])[0]
         big_data_size = None
         fmt = None
         pos = 12
@@ -692,8 +747,9 @@ def _parse_wav(p: Path, size: int) -> tuple[str, int, int, int]:
                                          f"(16-bit PCM, 8-bit PCM or 32-bit float)")
                 if block_align != 2 * bits // 8:
                     raise RecordingError(f"{p}: WAV block align {block_align} does not match 2 x {bits} bits")
-                if csize == 0xFFFFFFFF and not rf64 or data_bytes == 0 and size > body:
-                    # A writer that never finished: take the rest of the file.
+                if not rf64 and riff_size in (0, 0xFFFFFFFF) and csize in (0, 0xFFFFFFFF):
+                    # A streaming writer that never came back to fill in the sizes: the samples
+                    # run to the end of the file.
                     data_bytes = size - body
                 return name, rate, body, data_bytes
             pos = body + csize + (csize & 1)  # chunks are padded to an even size
