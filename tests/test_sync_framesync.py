@@ -8,8 +8,7 @@ import numpy as np
 import pytest
 
 from pipeline.fec import ASM
-from pipeline.sync import Cadu, FrameSync
-from pipeline.sync import _kernels
+from pipeline.sync import Cadu, FrameSync, _kernels
 
 ASM_BITS = np.unpackbits(np.frombuffer(ASM, dtype=np.uint8))
 

@@ -8,7 +8,6 @@ answer with ``NUMBA_DISABLE_JIT=1``.
 from __future__ import annotations
 
 import numba
-import numpy as np
 
 __all__ = ["find_marker", "marker_mismatches", "hard_decisions"]
 
