@@ -28,6 +28,7 @@ from pipeline.fec._markers import (
 )
 from pipeline.fec._randomizer import pn_sequence
 from pipeline.fec._rs import dual_basis_tables, rs_encode, rs_generator, rs_k
+from pipeline.fec._viterbi import DEFAULT_TRACEBACK_DEPTH, ViterbiDecoder, viterbi_decode
 
 __all__ = [
     "RATES",
@@ -52,4 +53,7 @@ __all__ = [
     "rs_generator",
     "rs_k",
     "dual_basis_tables",
+    "ViterbiDecoder",
+    "viterbi_decode",
+    "DEFAULT_TRACEBACK_DEPTH",
 ]
