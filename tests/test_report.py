@@ -247,6 +247,33 @@ def test_jsonable_and_write_report(tmp_path, rng):
         write_report(out, [1, 2], None)
 
 
+def test_long_series_are_thinned_without_losing_peaks(rng):
+    from pipeline.report._plots import MAX_LINE_BINS, _envelope, _lock_changes
+
+    n = 300_001
+    x = np.arange(n, dtype=np.float64)
+    y = rng.standard_normal(n)
+    y[123_457] = 50.0  # a narrow spectral line must survive the thinning
+    y[7] = -50.0
+    y[1000:1100] = np.nan
+    tx, ty = _envelope(x, y)
+    assert ty.size <= 2 * MAX_LINE_BINS and np.all(np.diff(tx) > 0)
+    assert ty.max() == 50.0 and tx[np.argmax(ty)] == 123_457 and ty.min() == -50.0
+    # slow obvious reference: the min and max of each bin, bin by bin
+    edges = np.linspace(0, n, MAX_LINE_BINS + 1).astype(np.int64)
+    ref = sorted(v for a, b in zip(edges[:-1], edges[1:]) for v in (np.nanmin(y[a:b]), np.nanmax(y[a:b])))
+    np.testing.assert_array_equal(np.sort(ty), ref)
+    short_x, short_y = _envelope(x[:100], y[:100])
+    assert np.array_equal(short_x, x[:100]) and np.array_equal(short_y, y[:100], equal_nan=True)
+    # lock track: a post-step through the change points equals the step through every point
+    t = np.sort(rng.uniform(0, 100, 5000))
+    locked = np.repeat(rng.integers(0, 2, 50).astype(bool), 100)
+    tk, lk = _lock_changes(t, locked)
+    at = np.searchsorted(tk, t, side="right") - 1
+    np.testing.assert_array_equal(lk[at], locked.astype(float))
+    assert tk[0] == t[0] and tk[-1] == t[-1] and tk.size <= 51 + 1
+
+
 def _chromium() -> str | None:
     for name in ("chromium", "chromium-browser"):
         path = shutil.which(name)

@@ -10,12 +10,15 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["PlotData", "Figure", "render_plots", "MAX_CONSTELLATION_POINTS"]
+__all__ = ["PlotData", "Figure", "render_plots", "MAX_CONSTELLATION_POINTS", "MAX_LINE_BINS"]
 
 log = logging.getLogger(__name__)
 
 #: Points drawn in the constellation snapshot; longer inputs are thinned evenly.
 MAX_CONSTELLATION_POINTS = 4000
+
+#: Line plots with more points are reduced to the minimum and maximum of each of this many bins.
+MAX_LINE_BINS = 2000
 
 
 @dataclass
@@ -106,6 +109,29 @@ def _plain(text: str) -> str:
     return str(text).replace("$", r"\$")
 
 
+def _envelope(x: np.ndarray, y: np.ndarray, bins: int = MAX_LINE_BINS) -> tuple[np.ndarray, np.ndarray]:
+    """Thin a long line to the min and max of ``bins`` equal runs of points (peaks stay visible).
+
+    O(n); short inputs are returned unchanged.  NaN points are ignored within a bin.
+    """
+    n = x.shape[0]
+    if n <= 2 * bins:
+        return x, y
+    edges = np.linspace(0, n, bins + 1).astype(np.int64)
+    xs, ys = [], []
+    for a, b in zip(edges[:-1], edges[1:]):
+        seg = y[a:b]
+        ok = np.isfinite(seg)
+        if not ok.any():
+            continue
+        idx = np.flatnonzero(ok)
+        i_lo, i_hi = idx[np.argmin(seg[ok])], idx[np.argmax(seg[ok])]
+        for i in sorted((i_lo, i_hi)):
+            xs.append(x[a + i])
+            ys.append(seg[i])
+    return np.asarray(xs), np.asarray(ys)
+
+
 def _plot_spectrum(d: PlotData) -> bytes:
     f = _vector(d.spectrum_freq_hz, "spectrum frequency")
     p = _vector(d.spectrum_db, "spectrum power")
@@ -115,7 +141,8 @@ def _plot_spectrum(d: PlotData) -> bytes:
         raise _Missing("spectrum data has no finite values")
     fig, (ax,) = _new_figure(8.0, 3.0)
     scale, unit = (1e-3, "kHz") if np.max(np.abs(f[ok])) < 5e6 else (1e-6, "MHz")
-    ax.plot(f[ok] * scale, p[ok], lw=0.8, color="#1f4e79")
+    fx, py = _envelope(f[ok], p[ok])
+    ax.plot(fx * scale, py, lw=0.8, color="#1f4e79")
     ax.set_xlabel(f"frequency offset ({unit})")
     ax.set_ylabel("power (dB)")
     return _png(fig)
@@ -153,19 +180,31 @@ def _plot_tracks(d: PlotData) -> bytes:
         raise _Missing("no Es/N0 or carrier-offset track")
     fig, axes = _new_figure(8.0, 2.2 * len(series) + 0.6, rows=len(series))
     for ax, (y, label) in zip(axes, series):
-        ax.plot(t, y, lw=0.9, color="#1f4e79")
+        tx, yy = _envelope(t, y)
+        ax.plot(tx, yy, lw=0.9, color="#1f4e79")
         ax.set_ylabel(label)
     axes[-1].set_xlabel("time from start of recording (s)")
     return _png(fig)
+
+
+def _lock_changes(t: np.ndarray, locked: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The points of a lock track where the state changes, plus the first and last point.
+
+    A post-step plot through them is the same as through every point.  O(n).
+    """
+    keep = np.concatenate([[0], np.flatnonzero(np.diff(locked.astype(np.int8))) + 1, [t.shape[0] - 1]])
+    keep = np.unique(keep)
+    return t[keep], locked[keep].astype(float)
 
 
 def _plot_lock(d: PlotData) -> bytes:
     t = _vector(d.track_time_s, "track time")
     locked = _vector(d.track_locked, "lock", dtype=bool)
     _same_length(t, locked, "track time and lock")
+    tk, lk = _lock_changes(t, locked)
     fig, (ax,) = _new_figure(8.0, 1.6)
-    ax.fill_between(t, 0, locked.astype(float), step="post", color="#2e7d32", alpha=0.6, lw=0)
-    ax.step(t, locked.astype(float), where="post", color="#2e7d32", lw=0.8)
+    ax.fill_between(tk, 0, lk, step="post", color="#2e7d32", alpha=0.6, lw=0)
+    ax.step(tk, lk, where="post", color="#2e7d32", lw=0.8)
     ax.set_ylim(-0.1, 1.1)
     ax.set_yticks([0, 1], ["lost", "locked"])
     ax.set_xlabel("time from start of recording (s)")
