@@ -1,0 +1,368 @@
+"""Tests of pipeline.link: TM / AOS frame parsing, CLCW, FECF, FHEC and channel accounting."""
+
+from __future__ import annotations
+
+import functools
+import json
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from test_link_builders import (
+    aos_frame,
+    aos_zone_length,
+    clcw_word,
+    crc16_ref,
+    decoded,
+    pack_bits,
+    tm_frame,
+    tm_primary,
+    tm_zone_length,
+)
+
+from pipeline.link import ChannelAccounting, FrameParser, Gap, count_step, decode_clcw, fhec_check, fhec_parity
+from pipeline.link._fhec import fhec_generator
+from pipeline.profile import FramesSection
+
+TM = FramesSection(kind="tm", length=64, ocf=True, fecf=False, spacecraft_id=0x123)
+TM_FECF = FramesSection(kind="tm", length=64, ocf=False, fecf=True, spacecraft_id=499)
+AOS = FramesSection(kind="aos", length=80, ocf=True, fecf=True, spacecraft_id=0xAB, fhec=True,
+                    insert_zone_length=4, bitstream_vcids=(9,))
+
+
+def _tm(vcid=5, mcfc=0x45, vcfc=0x67, fhp=0, frames=TM, **kw):
+    z = bytes(range(tm_zone_length(frames, len(kw.get("sec_header", b"") or b""))))
+    return tm_frame(frames, vcid=vcid, mcfc=mcfc, vcfc=vcfc, zone=z, fhp=fhp, **kw)
+
+
+@functools.lru_cache(maxsize=1)
+def _galois_rs():
+    import galois
+
+    gf = galois.GF(2**4, irreducible_poly="x^4 + x + 1")
+    return gf, galois.ReedSolomon(15, 11, field=gf, c=6)
+
+
+def _aos_fhec(hdr6: bytes) -> int:
+    """FHEC by the galois (PyPI) Reed-Solomon code RS(15,11) shortened to (10,6), roots alpha^6..alpha^9."""
+    gf, rs = _galois_rs()
+    msg = gf([hdr6[0] >> 4, hdr6[0] & 15, hdr6[1] >> 4, hdr6[1] & 15, hdr6[5] >> 4, hdr6[5] & 15])
+    par = [int(v) for v in rs.encode(msg)[6:]]
+    return (par[0] << 12) | (par[1] << 8) | (par[2] << 4) | par[3]
+
+
+# ---- TM -------------------------------------------------------------------------------------
+
+@pytest.mark.kat
+def test_tm_worked_example_header():
+    # ../shared/REFERENCES.md sec. 3, computed there: header 12 3B 45 67 18 00
+    frame = _tm()
+    assert frame[:6] == bytes.fromhex("123B45671800")
+    rec = FrameParser(frames=TM).process(decoded(frame, position=1234.5, rs=(1, 0, 2)))
+    assert rec.status == "ok", rec.detail
+    assert (rec.version, rec.scid, rec.vcid, rec.ocf_flag, rec.mcfc, rec.vcfc) == (0, 0x123, 5, True, 0x45, 0x67)
+    assert (rec.sec_header_flag, rec.sync_flag, rec.packet_order, rec.segment_length_id, rec.fhp) == \
+        (False, False, False, 3, 0)
+    assert rec.data_field == frame[6:60] and rec.packet_zone == rec.data_field
+    assert rec.ocf == frame[60:64] and rec.clcw["vcid"] == 5 and rec.fecf_ok is None
+    assert rec.position == 1234.5 and rec.rs_corrected == (1, 0, 2) and rec.vcfc_modulus == 256
+    d = rec.as_dict()
+    json.dumps(d)
+    assert d["scid"] == 0x123 and d["ocf"] == frame[60:64].hex() and d["data_field_length"] == 54
+
+
+def test_tm_fields_against_bit_string_builder(rng):
+    p = FrameParser(frames=FramesSection(kind="tm", length=40, spacecraft_id=0))
+    for _ in range(300):
+        scid, vcid, mc, vc, fhp = (int(rng.integers(0, n)) for n in (1024, 8, 256, 256, 28))
+        order, seglen = bool(rng.integers(2)), int(rng.integers(4))
+        frames = FramesSection(kind="tm", length=40, spacecraft_id=scid)
+        p.frames = frames
+        frame = tm_primary(scid, vcid, mc, vc, fhp=fhp, order=order, seglen=seglen) + bytes(34)
+        rec = p.process(decoded(frame))
+        assert (rec.status, rec.scid, rec.vcid, rec.mcfc, rec.vcfc, rec.fhp, rec.packet_order,
+                rec.segment_length_id) == ("ok", scid, vcid, mc, vc, fhp, order, seglen)
+
+
+@pytest.mark.kat
+def test_clcw_fields():
+    # CCSDS 232.0-B sec. 4.2 bit map (from memory, not confirmed), built as a bit string
+    w = clcw_word(status=5, cop=1, vcid=0x2A, no_rf=1, no_bitlock=0, lockout=1, wait=0, retransmit=1, farm_b=2,
+                  report=0xC3)
+    c = decode_clcw(w)
+    assert c == {"control_word_type": 0, "version": 0, "status_field": 5, "cop_in_effect": 1, "vcid": 0x2A,
+                 "spare1": 0, "no_rf_available": 1, "no_bit_lock": 0, "lockout": 1, "wait": 0, "retransmit": 1,
+                 "farm_b_counter": 2, "spare2": 0, "report_value": 0xC3}
+    assert decode_clcw(b"\x80\x00\x00\x00") is None  # type-2 report ([TM-DL] sec. 4.1.5.4)
+    with pytest.raises(ValueError, match="Argument 'ocf' must be 4 octets"):
+        decode_clcw(b"\x00")
+
+
+def test_tm_secondary_header():
+    frames = FramesSection(kind="tm", length=64, spacecraft_id=7, secondary_header_length=5)
+    sh = bytes([0x04, 1, 2, 3, 4])  # version 00, length - 1 = 4
+    frame = tm_frame(frames, vcid=1, mcfc=0, vcfc=0, zone=bytes(64 - 11), fhp=0, sec_header=sh)
+    rec = FrameParser(frames=frames).process(decoded(frame))
+    assert rec.status == "ok" and rec.sec_header == sh and len(rec.data_field) == 64 - 11
+    bad = bytearray(frame)
+    bad[6] = 0x03  # says 4 octets, profile says 5
+    assert FrameParser(frames=frames).process(decoded(bytes(bad))).status == "bad_header"
+    # the profile does not fix the length: taken from the first octet
+    free = FramesSection(kind="tm", length=64, spacecraft_id=7)
+    rec = FrameParser(frames=free).process(decoded(frame))
+    assert rec.status == "ok" and rec.sec_header == sh
+
+
+def test_tm_statuses():
+    p = FrameParser(frames=TM)
+    assert p.process(decoded(_tm(fhp=0x7FE))).status == "idle"  # OID frame, [GB2] p. 97
+    assert p.process(decoded(_tm(fhp=0x7FF))).status == "ok"
+    r = p.process(decoded(_tm(fhp=54)))  # the data field is 54 octets: 54 is past it
+    assert r.status == "bad_header" and "first header pointer 54" in r.detail
+    assert p.process(decoded(_tm(fhp=53))).status == "ok"
+    foreign = tm_frame(TM, vcid=1, mcfc=0, vcfc=0, zone=bytes(54), fhp=0, scid=0x124)
+    assert p.process(decoded(foreign)).status == "foreign_scid"
+    v1 = bytearray(_tm())
+    v1[0] |= 0x40
+    assert p.process(decoded(bytes(v1))).status == "bad_header"
+    no_ocf = bytearray(_tm())
+    no_ocf[1] &= 0xFE
+    assert "OCF flag" in p.process(decoded(bytes(no_ocf))).detail
+    assert p.process(decoded(_tm(), status="rs_uncorrectable")).status == "rs_uncorrectable"
+    short = p.process(decoded(_tm()[:-1]))
+    assert short.status == "bad_header" and short.scid is None
+    vca = p.process(decoded(_tm(fhp=0x7FF, sync=True)))
+    assert vca.status == "ok" and vca.fhp is None and vca.packet_zone is None
+    assert p.counts["idle"] == 1 and p.counts["foreign_scid"] == 1 and p.counts["rs_uncorrectable"] == 1
+    p.reset()
+    assert sum(p.counts.values()) == 0
+
+
+def test_fecf():
+    frame = _tm(frames=TM_FECF, vcid=2, fhp=0)
+    assert crc16_ref(frame) == 0  # the residue of a good frame ([TM-DL] sec. 4.1.6.3)
+    p = FrameParser(frames=TM_FECF)
+    rec = p.process(decoded(frame))
+    assert rec.status == "ok" and rec.fecf_ok is True
+    for i in (0, 10, 63):
+        bad = bytearray(frame)
+        bad[i] ^= 0x10
+        rec = p.process(decoded(bytes(bad)))
+        assert rec.status == "fecf_error" and rec.fecf_ok is False
+
+
+# ---- AOS ------------------------------------------------------------------------------------
+
+def _gf16_mul_slow(a: int, b: int) -> int:
+    """Carry-less multiply, then reduce by x^4 + x + 1 (the obvious way, no tables)."""
+    prod = 0
+    for i in range(4):
+        if (b >> i) & 1:
+            prod ^= a << i
+    for bit in (6, 5, 4):
+        if (prod >> bit) & 1:
+            prod ^= 0b10011 << (bit - 4)
+    return prod
+
+
+@pytest.mark.kat
+def test_fhec_generator_slow_reference():
+    # g(x) = (x + a^6)(x + a^7)(x + a^8)(x + a^9), a = x in GF(16) mod x^4 + x + 1 (from memory, not confirmed)
+    alpha = [1]
+    for _ in range(15):
+        alpha.append(_gf16_mul_slow(alpha[-1], 2))
+    g = [1]
+    for k in (6, 7, 8, 9):
+        g = [a ^ _gf16_mul_slow(b, alpha[k]) for a, b in zip(g + [0], [0] + g)]
+    assert tuple(g) == fhec_generator()
+    # systematic: header nibbles followed by the parity form a multiple of g(x), so the remainder is 0
+    hdr = bytes.fromhex("6AEA12345600")
+    par = fhec_parity(hdr)
+    word = [6, 10, 14, 10, 0, 0] + [(par >> s) & 15 for s in (12, 8, 4, 0)]
+    for i in range(6):
+        c = word[i]
+        for j in range(5):
+            word[i + j] ^= _gf16_mul_slow(c, g[j])
+    assert word == [0] * 10
+
+
+def test_fhec_generator_and_parity_against_galois():
+    # galois (PyPI) RS over GF(16) with the from-memory CCSDS 732.0-B definition (not confirmed)
+    gf, rs = _galois_rs()
+    assert [int(c) for c in rs.generator_poly.coeffs] == list(fhec_generator())
+    for hdr in (bytes.fromhex("6AEA12345600"), bytes.fromhex("40000000000F"), bytes.fromhex("FFFFFFFFFFFF")):
+        assert fhec_parity(hdr) == _aos_fhec(hdr)
+        assert fhec_check(hdr, _aos_fhec(hdr))
+
+
+def test_fhec_detects_every_error_of_up_to_four_symbols(rng):
+    # minimum distance 5 of RS(10,6): any 1..4 symbol errors change the syndrome
+    for _ in range(300):
+        hdr = bytes(rng.integers(0, 256, 6, dtype=np.uint8))
+        par = fhec_parity(hdr)
+        word = [hdr[0] >> 4, hdr[0] & 15, hdr[1] >> 4, hdr[1] & 15, hdr[5] >> 4, hdr[5] & 15] + \
+               [(par >> s) & 15 for s in (12, 8, 4, 0)]
+        for pos in rng.choice(10, int(rng.integers(1, 5)), replace=False):
+            word[pos] ^= int(rng.integers(1, 16))
+        h2 = bytes([(word[0] << 4) | word[1], (word[2] << 4) | word[3], hdr[2], hdr[3], hdr[4],
+                    (word[4] << 4) | word[5]])
+        assert not fhec_check(h2, (word[6] << 12) | (word[7] << 8) | (word[8] << 4) | word[9])
+
+
+def _aos(vcid=0x2A, vcfc=0x123456, fhp=0, frames=AOS, **kw):
+    from test_link_builders import aos_primary
+
+    hdr = aos_primary(frames.spacecraft_id, vcid, vcfc, usage=kw.get("usage", False), cycle=kw.get("cycle", 0))
+    return aos_frame(frames, vcid=vcid, vcfc=vcfc, zone=bytes(range(aos_zone_length(frames))), fhp=fhp,
+                     fhec=_aos_fhec(hdr) if frames.fhec else None, insert_zone=b"\xde\xad\xbe\xef", **kw)
+
+
+def test_aos_worked_example_and_fields():
+    frame = _aos()
+    assert frame[:6] == bytes.fromhex("6AEA12345600")  # ../shared/REFERENCES.md sec. 4, computed there
+    rec = FrameParser(frames=AOS).process(decoded(frame))
+    assert rec.status == "ok", rec.detail
+    assert (rec.version, rec.scid, rec.vcid, rec.vcfc, rec.vcfc_modulus, rec.mcfc) == (1, 0xAB, 0x2A, 0x123456,
+                                                                                       1 << 24, None)
+    assert rec.fhec_ok and rec.insert_zone == b"\xde\xad\xbe\xef" and rec.fecf_ok and rec.fhp == 0
+    assert rec.packet_zone == bytes(range(aos_zone_length(AOS))) and rec.data_field[2:] == rec.packet_zone
+    json.dumps(rec.as_dict())
+    cyc = FrameParser(frames=AOS).process(decoded(_aos(usage=True, cycle=0xB)))
+    assert cyc.vcfc == (0xB << 24) | 0x123456 and cyc.vcfc_modulus == 1 << 28 and cyc.vc_count_cycle == 0xB
+
+
+def test_aos_statuses():
+    p = FrameParser(frames=AOS)
+    assert p.process(decoded(_aos(vcid=63))).status == "idle"  # idle VC 63 (REFERENCES.md sec. 4)
+    assert p.process(decoded(_aos(fhp=0x7FE))).status == "idle"
+    bad = bytearray(_aos())
+    bad[5] ^= 0x20  # signalling field, protected by the FHEC; fix the FECF so only the FHEC fails
+    bad[-2:] = crc16_ref(bytes(bad[:-2])).to_bytes(2, "big")
+    r = p.process(decoded(bytes(bad)))
+    assert r.status == "bad_header" and r.fhec_ok is False
+    assert p.process(decoded(_aos(fhp=aos_zone_length(AOS)))).status == "bad_header"
+    bpdu = p.process(decoded(_aos(vcid=9, fhp=0x3FFF, bpdu=True)))
+    assert bpdu.status == "ok" and bpdu.bdp == 0x3FFF and bpdu.packet_zone is None
+    assert p.process(decoded(_aos(vcid=9, fhp=0x3FFE, bpdu=True))).status == "idle"
+    assert p.process(decoded(_aos(vcid=9, fhp=8 * (aos_zone_length(AOS)), bpdu=True))).status == "bad_header"
+
+
+@given(st.binary(min_size=0, max_size=90), st.sampled_from([TM, TM_FECF, AOS]), st.sampled_from(["ok", "x"]))
+@settings(max_examples=400, deadline=None)
+def test_parser_fuzz_never_crashes(data, frames, status):
+    p = FrameParser(frames=frames)
+    if len(data) < frames.length:
+        data = data + bytes(frames.length - len(data)) if len(data) > frames.length - 8 else data
+    rec = p.process(decoded(data, status=status))
+    assert rec.status in ("ok", "rs_uncorrectable", "fecf_error", "idle", "foreign_scid", "bad_header", "x")
+    json.dumps(rec.as_dict())
+    if rec.status == "ok" and rec.fhp is not None and rec.fhp != 0x7FF:
+        assert rec.fhp < len(rec.packet_zone)
+
+
+def test_parser_argument_errors():
+    with pytest.raises(TypeError, match="Argument 'frames' must be a FramesSection"):
+        FrameParser(frames={"kind": "tm"})
+
+
+# ---- accounting -----------------------------------------------------------------------------
+
+@pytest.mark.kat
+def test_count_step():
+    assert count_step(255, 0, 256) == ("next", 0)  # wrap-around
+    assert count_step(10, 10, 256) == ("duplicate", 0)
+    assert count_step(10, 9, 256) == ("behind", 0)
+    assert count_step(250, 3, 256) == ("gap", 8)
+    assert count_step((1 << 24) - 1, 0, 1 << 24) == ("next", 0)
+
+
+def _rec(p, vcid, mc, vc, pos, status="ok", frames=TM, fhp=0):
+    return p.process(decoded(_tm(vcid=vcid, mcfc=mc % 256, vcfc=vc % 256, fhp=fhp, frames=frames), position=pos,
+                             status=status))
+
+
+def test_accounting_gaps_wrap_duplicates():
+    p, acc = FrameParser(frames=TM), ChannelAccounting()
+    gaps = []
+    seq = [(0, 250, 250), (1, 251, 0), (0, 252, 251), (0, 253, 252), (0, 253, 252),  # duplicate
+           (0, 256, 255), (0, 257, 256),  # wrap of both counts; MC lost 254, 255
+           (1, 255, 1)]  # behind on MC: out of order
+    for i, (vc, mc, vcc) in enumerate(seq):
+        gaps += acc.process(_rec(p, vc, mc, vcc, float(i)))
+    assert [(g.kind, g.vcid, g.expected, g.got, g.missing, g.position) for g in gaps] == \
+        [("mc", None, 254, 0, 2, 5.0), ("vc", 0, 253, 255, 2, 5.0)]
+    d = acc.as_dict()
+    json.dumps(d)
+    assert d["mc_duplicates"] == 1 and d["mc_out_of_order"] == 1 and d["mc_gaps"] == 1 and d["mc_missing"] == 2
+    vc0 = next(v for v in d["virtual_channels"] if v["vcid"] == 0)
+    assert vc0["gaps"] == 1 and vc0["missing"] == 2 and vc0["last_count"] == 0
+    assert isinstance(gaps[0], Gap) and gaps[0].as_dict()["kind"] == "mc"
+
+
+def test_accounting_counts_corrupt_frames_in_gap():
+    p, acc = FrameParser(frames=TM), ChannelAccounting()
+    acc.process(_rec(p, 0, 0, 0, 0.0))
+    acc.process(_rec(p, 0, 1, 1, 1.0, status="rs_uncorrectable"))
+    acc.process(_rec(p, 0, 2, 2, 2.0, status="rs_uncorrectable"))
+    gaps = acc.process(_rec(p, 0, 4, 4, 4.0))
+    assert [(g.kind, g.missing, g.unusable_between, g.after_position) for g in gaps] == \
+        [("mc", 3, 2, 0.0), ("vc", 3, 2, 0.0)]
+    foreign = p.process(decoded(tm_frame(TM, vcid=0, mcfc=9, vcfc=9, zone=bytes(54), fhp=0, scid=5)))
+    assert acc.process(foreign) == [] and acc.as_dict()["foreign_scids"] == {"5": 1}
+    assert acc.as_dict()["status_counts"] == {"ok": 2, "rs_uncorrectable": 2, "foreign_scid": 1}
+
+
+def test_accounting_idle_frames_keep_counts():
+    p, acc = FrameParser(frames=TM), ChannelAccounting()
+    gaps = []
+    for i in range(6):
+        gaps += acc.process(_rec(p, 7 if i % 2 else 0, i, i // 2, float(i), fhp=0x7FE if i % 2 else 0))
+    assert gaps == []
+    d = acc.as_dict()
+    assert d["master_channels"][0]["idle_frames"] == 3 and d["master_channels"][0]["gaps"] == 0
+
+
+def test_accounting_aos_vc_only():
+    p, acc = FrameParser(frames=AOS), ChannelAccounting()
+    assert acc.process(p.process(decoded(_aos(vcfc=(1 << 24) - 1)))) == []
+    assert acc.process(p.process(decoded(_aos(vcfc=0)))) == []
+    g = acc.process(p.process(decoded(_aos(vcfc=5))))
+    assert [(x.kind, x.missing) for x in g] == [("vc", 4)]
+    assert acc.as_dict()["master_channels"] == []
+
+
+def test_accounting_batches_and_reset_match_fresh(rng):
+    # Chunking invariance: the same record stream cut into random batches, with reset() between runs,
+    # gives the same gaps as one pass on a fresh object.
+    p = FrameParser(frames=TM)
+    recs = []
+    mc = 0
+    vcs = [0, 0]
+    for i in range(400):
+        vc = int(rng.integers(2))
+        mc += 1 + int(rng.random() < 0.05)
+        vcs[vc] += 1 + int(rng.random() < 0.05)
+        status = "rs_uncorrectable" if rng.random() < 0.03 else "ok"
+        recs.append(_rec(p, vc, mc, vcs[vc], float(i), status=status))
+    fresh = ChannelAccounting()
+    one = [g for r in recs for g in fresh.process(r)]
+    acc = ChannelAccounting()
+    for _ in range(2):
+        acc.reset()
+        cuts = sorted(rng.choice(np.arange(1, 400), 7, replace=False))
+        got = []
+        for lo, hi in zip([0, *cuts], [*cuts, 400]):
+            for r in recs[lo:hi]:
+                got += acc.process(r)
+        assert got == one and acc.as_dict() == fresh.as_dict()
+    assert any(g.kind == "mc" for g in one) and any(g.kind == "vc" for g in one)
+
+
+def test_accounting_argument_errors():
+    with pytest.raises(ValueError, match="Argument 'spacecraft_id' must be 0..1023"):
+        ChannelAccounting(spacecraft_id=5000)
+
+
+def test_pack_bits_helper_is_msb_first():
+    assert pack_bits((1, 1), (0, 7)) == b"\x80"
