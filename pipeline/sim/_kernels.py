@@ -26,7 +26,10 @@ __all__ = [
 def idle_lfsr_fill(state, out):
     """Fill ``out`` (uint8 octets) with the idle pattern of x^32 + x^22 + x^2 + x + 1; return the state.
 
-    Fibonacci register of 32 cells, the output bit is the oldest cell; octets are packed MSB first.
+    Fibonacci register of 32 cells, the output bit is the oldest cell, so the output obeys
+    ``o[k+32] = o[k] ^ o[k+1] ^ o[k+2] ^ o[k+22]``; octets are packed MSB first.  The polynomial
+    is that of the 132.0-B-2 idle pattern as remembered (REFERENCES.md sec. 3, not confirmed); only
+    idle data uses it, which a receiver discards.
     ``state`` is a Python int / uint64 holding the 32 cells (bit 31 oldest).
     """
     s = np.uint64(state)
@@ -36,8 +39,9 @@ def idle_lfsr_fill(state, out):
         octet = 0
         for _ in range(8):
             bit = (s >> np.uint64(31)) & one
-            # taps of x^32 + x^22 + x^2 + x + 1 counted from the output end
-            fb = bit ^ ((s >> np.uint64(21)) & one) ^ ((s >> np.uint64(1)) & one) ^ (s & one)
+            # cell j holds o[k + 31 - j]; o[k+32] = o[k] ^ o[k+1] ^ o[k+2] ^ o[k+22] is the recurrence of
+            # x^32 + x^22 + x^2 + x + 1
+            fb = bit ^ ((s >> np.uint64(30)) & one) ^ ((s >> np.uint64(29)) & one) ^ ((s >> np.uint64(9)) & one)
             s = ((s << one) | fb) & mask
             octet = (octet << 1) | int(bit)
         out[i] = octet
@@ -84,17 +88,19 @@ def scatter_pulses(values, k0, p0, period, shift, table, table_step, half_span, 
 
 @njit(cache=True)
 def scatter_rect(values, k0, p0, period, shift, base, buf):
-    """Rectangular pulses: ``buf[n - base] += values[i]`` for ``p_i - period/2 <= n < p_i + period/2``.
+    """Rectangular pulses: ``buf[n - base] += values[i]`` for ``e_i <= n < e_{i+1}``.
 
-    ``p_i = p0 + (k0 + i) * period + shift``; consecutive rectangles tile the time axis, so every
-    sample gets exactly one symbol (sample-and-hold NRZ).
+    ``e_m = p0 + m * period + shift - period / 2`` is the leading edge of symbol ``m = k0 + i``
+    (its peak ``p_m`` is the centre of the rectangle).  Both edges of every symbol are evaluated by
+    the same expression, so consecutive rectangles tile the time axis exactly and every sample gets
+    exactly one symbol (sample-and-hold NRZ).
     """
     n_buf = buf.shape[0]
     half = 0.5 * period
     for i in range(values.shape[0]):
-        p = p0 + (k0 + i) * period + shift
-        lo = int(math.ceil(p - half))
-        hi = int(math.ceil(p + half))  # exclusive
+        m = k0 + i
+        lo = int(math.ceil(p0 + m * period + shift - half))
+        hi = int(math.ceil(p0 + (m + 1) * period + shift - half))  # exclusive
         v = values[i]
         for n in range(lo, hi):
             idx = n - base

@@ -14,7 +14,8 @@ recorder's sample clock, so symbols are shorter in samples).  Modulation symbol 
 
 computed in float64 exactly as written.  For OQPSK the Q component of symbol ``k`` peaks half a
 symbol later, at ``p_k + T / 2``.  For rectangular pulses the peak is the centre of the rectangle,
-which spans ``[p_k - T/2, p_k + T/2)``.
+which spans ``[p_0 + (k - 1/2) T, p_0 + (k + 1/2) T)`` (each edge evaluated by that one expression,
+so the rectangles tile the time axis).
 
 Mapping: a channel bit 0 is +1, a 1 is -1 (the soft-value sign of DEVELOPERS.md).  BPSK sends
 one bit per symbol; QPSK and OQPSK send the I bit then the Q bit of each symbol
@@ -240,8 +241,11 @@ class Modulator:
                 scatter_pulses(q_rail * amp, np.int64(k0), self.p0, T, self.q_shift, self.table, self.table_step,
                                self.half_span, np.int64(self.base), buf)
         self.symbols_done = k0 + m
-        p_next = self.p0 + (k0 + m) * T
-        final_end = int(math.ceil(p_next - self.half_span * T))
+        if self.rect:
+            # the leading edge of the next symbol, as scatter_rect computes it
+            final_end = int(math.ceil(self.p0 + (k0 + m) * T + 0.0 - 0.5 * T))
+        else:
+            final_end = int(math.ceil(self.p0 + (k0 + m) * T - self.half_span * T))
         n_final = min(max(final_end - self.base, 0), buf.size)
         out = buf[:n_final].copy()
         start = self.base
