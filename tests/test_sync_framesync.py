@@ -503,3 +503,51 @@ def test_cadu_is_value_object():
     c = Cadu(data=b"\x01", position=1.0, asm_errors=0, inverted=False, flywheel=False, bit_index=3)
     assert c == Cadu(data=b"\x01", position=1.0, asm_errors=0, inverted=False, flywheel=False, bit_index=3,
                      soft=np.zeros(8, np.float32))
+
+
+# ---- the search kernel against brute force, markers of every length ------------------------------------------
+@pytest.mark.kat
+def test_kat_popcount():
+    for x in (0, 1, 0xFF, 0x8000000000000001, 0xFFFFFFFFFFFFFFFF, 0x123456789ABCDEF0):
+        assert _kernels.popcount64(np.uint64(x)) == bin(x).count("1")
+
+
+@pytest.mark.parametrize("marker_hex", ["1ACFFC1D", "034776C7272895B0", "25D5C0CE8990F6C9461BF79C", "1ACF"])
+def test_find_marker_equals_brute_force(marker_hex):
+    # 16-, 32-, 64- and 96-bit markers (the last ones: turbo markers of CCSDS 131.0-B-2 Fig. 8-3, REFERENCES.md 1.1)
+    rng = np.random.default_rng(int(marker_hex[:6], 16))
+    marker = np.unpackbits(np.frombuffer(bytes.fromhex(marker_hex), dtype=np.uint8))
+    m = marker.size
+    e = m // 8
+    hard = rng.integers(0, 2, 30000, dtype=np.uint8)
+    for at in rng.choice(30000 - m, 25, replace=False):  # plant noisy markers, upright and inverted
+        mk = marker ^ (rng.random(m) < 0.06).astype(np.uint8)
+        hard[at: at + m] = mk ^ np.uint8(rng.integers(0, 2))
+    windows = np.lib.stride_tricks.sliding_window_view(hard, m)
+    d = np.count_nonzero(windows != marker, axis=1)
+    want = np.flatnonzero((d <= e) | (m - d <= e))
+    got = []
+    res = np.zeros(2, dtype=np.int64)
+    i = 0
+    stop = hard.size - m + 1
+    while i < stop:
+        k = _kernels.find_marker(hard, i, stop, marker, e, res)
+        if k < 0:
+            break
+        assert (res[0], bool(res[1])) == ((d[k], False) if d[k] <= e else (m - d[k], True))
+        got.append(k)
+        i = k + 1
+    assert got == want.tolist() and len(got) >= 20
+
+
+def test_turbo_marker_stream(rng):
+    from pipeline.fec import TURBO_ASM_R1_3
+
+    marker = np.unpackbits(np.frombuffer(TURBO_ASM_R1_3, dtype=np.uint8))
+    fb = 1000
+    frames = [rng.integers(0, 2, fb, dtype=np.uint8) for _ in range(5)]
+    bits = np.concatenate([rng.integers(0, 2, 77, dtype=np.uint8)] + [np.concatenate((marker, f)) for f in frames])
+    fs = FrameSync(frame_bits=fb, asm=TURBO_ASM_R1_3, max_errors=8)
+    out = run(fs, to_soft(bits), np.arange(bits.size, dtype=np.float64))
+    assert [c.bit_index for c in out] == [77 + k * (96 + fb) for k in range(5)]
+    assert all(c.data == np.packbits(f).tobytes() for c, f in zip(out, frames))

@@ -8,8 +8,21 @@ answer with ``NUMBA_DISABLE_JIT=1``.
 from __future__ import annotations
 
 import numba
+import numpy as np
 
-__all__ = ["find_marker", "marker_mismatches", "hard_decisions"]
+__all__ = ["popcount64", "find_marker", "marker_mismatches", "hard_decisions"]
+
+
+@numba.njit(cache=True)
+def popcount64(x):  # pragma: no cover - compiled
+    """Number of set bits of a uint64 (SWAR, shifts and adds only, so it wraps the same uncompiled)."""
+    x = x - ((x >> np.uint64(1)) & np.uint64(0x5555555555555555))
+    x = (x & np.uint64(0x3333333333333333)) + ((x >> np.uint64(2)) & np.uint64(0x3333333333333333))
+    x = (x + (x >> np.uint64(4))) & np.uint64(0x0F0F0F0F0F0F0F0F)
+    x = x + (x >> np.uint64(8))
+    x = x + (x >> np.uint64(16))
+    x = x + (x >> np.uint64(32))
+    return int(x & np.uint64(0x7F))
 
 
 @numba.njit(cache=True)
@@ -18,34 +31,44 @@ def find_marker(hard, start, stop, marker, max_errors, result):  # pragma: no co
 
     A match at offset ``i`` means at most ``max_errors`` of the ``m = len(marker)`` bits
     ``hard[i:i + m]`` differ from the marker (upright) or from its complement (inverted).  The
-    caller guarantees ``stop - 1 + m <= len(hard)``.
+    caller guarantees ``stop > start`` and ``stop - 1 + m <= len(hard)``.
 
     Returns the offset (or -1) and writes ``result[0]`` = mismatches against the matching polarity,
-    ``result[1]`` = 1 when it is the complement.  Cost: O(max_errors) bit comparisons per offset on
-    random data (both polarities are abandoned as soon as each exceeds ``max_errors``), O(m) at worst.
+    ``result[1]`` = 1 when it is the complement.
+
+    Notes
+    -----
+    The first ``w = min(m, 64)`` bits at each offset are held in a shift register (one uint64, MSB
+    = oldest bit) and compared with the marker's first ``w`` bits by XOR and popcount: O(1) per
+    offset.  Only where that partial count passes (at most ``max_errors`` mismatches, or at most
+    ``max_errors`` agreements for the complement; a necessary condition) are the remaining
+    ``m - w`` bits counted.
     """
     m = marker.shape[0]
+    w = m if m < 64 else 64
+    one = np.uint64(1)
+    mask = np.uint64(0xFFFFFFFFFFFFFFFF) if w == 64 else (one << np.uint64(w)) - one
+    mword = np.uint64(0)
+    for j in range(w):
+        mword = (mword << one) | np.uint64(marker[j])
+    reg = np.uint64(0)
+    for j in range(w - 1):
+        reg = (reg << one) | np.uint64(hard[start + j])
     for i in range(start, stop):
-        err = 0
-        upright_ok = True
-        inverted_ok = True
-        for j in range(m):
-            if hard[i + j] != marker[j]:
-                err += 1
-                if err > max_errors:
-                    upright_ok = False
-            elif j + 1 - err > max_errors:
-                inverted_ok = False
-            if not upright_ok and not inverted_ok:
-                break
-        if upright_ok:
-            result[0] = err
-            result[1] = 0
-            return i
-        if inverted_ok:
-            result[0] = m - err
-            result[1] = 1
-            return i
+        reg = ((reg << one) | np.uint64(hard[i + w - 1])) & mask
+        err = popcount64(reg ^ mword)
+        if err <= max_errors or w - err <= max_errors:
+            for j in range(w, m):
+                if hard[i + j] != marker[j]:
+                    err += 1
+            if err <= max_errors:
+                result[0] = err
+                result[1] = 0
+                return i
+            if m - err <= max_errors:
+                result[0] = m - err
+                result[1] = 1
+                return i
     return -1
 
 
