@@ -211,6 +211,9 @@ def test_chunk_arguments_are_checked(tmp_path, rng):
         next(rec.chunks(4, start=3, stop=11))
     with pytest.raises(TypeError, match="chunk_samples"):
         next(rec.chunks(2.5))
+    with pytest.raises(ValueError, match="Argument 'count' must be 0..8, not -1."):
+        rec.read(2, -1)
+    assert len(rec.read(2, 3)) == 3 and rec.read(2, 3).start == 2 and len(rec.read(4)) == 6
 
 
 # ---- SigMF ------------------------------------------------------------------------------------
@@ -486,7 +489,7 @@ def _check_fuzz(tmp_path, meta_obj, text=None):
     try:
         rec = open_recording(tmp_path / "f.sigmf-meta")
     except RecordingError as exc:
-        assert "\n" not in str(exc) and "f.sigmf" in str(exc) or "x.sigmf-data" in str(exc)
+        assert "\n" not in str(exc) and ("f.sigmf" in str(exc) or "x.sigmf-data" in str(exc))
         return
     assert rec.num_samples > 0 and rec.sample_rate_hz > 0
     assert isinstance(rec.start_ns, int) and isinstance(rec.utc_ns(rec.num_samples - 1), int)

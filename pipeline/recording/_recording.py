@@ -59,7 +59,7 @@ class Capture:
     time_given: bool = True
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Chunk:
     """A block of consecutive samples.
 
@@ -250,7 +250,13 @@ class Recording:
 
     def read(self, start: int = 0, count: int | None = None) -> Chunk:
         """Convert ``count`` samples from ``start`` (all remaining when None) into one chunk."""
-        start, stop = self._check_range(start, None if count is None else start + int(count))
+        start, stop = self._check_range(start, None)
+        if count is not None:
+            if isinstance(count, (bool, np.bool_)) or not isinstance(count, (int, np.integer)):
+                raise TypeError(f"Argument 'count' must be an integer or None, not {type(count).__name__}.")
+            if not 0 <= count <= stop - start:
+                raise ValueError(f"Argument 'count' must be 0..{stop - start}, not {count}.")
+            stop = start + int(count)
         return self._convert(start, stop - start)
 
     def chunks(self, chunk_samples: int, start: int = 0, stop: int | None = None) -> Iterator[Chunk]:
@@ -605,7 +611,8 @@ def _resolve_times(parsed: list[tuple[int, int | None, float | None]], rate: flo
     caps: list[Capture] = []
     known = [i for i, (_, t, _) in enumerate(parsed) if t is not None]
     if not known:
-        anchor_i, anchor_t = 0, 0
+        # No time anywhere: sample 0 is put at the epoch (Recording.time_known says so).
+        anchor_i, anchor_t = 0, round(Fraction(parsed[0][0]) * NS_PER_S / r)
     else:
         anchor_i, anchor_t = known[0], parsed[known[0]][1]
     for s0, t, f in parsed:

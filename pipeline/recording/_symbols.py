@@ -18,7 +18,7 @@ __all__ = ["SymbolKind", "SymbolChunk", "SymbolFile", "open_symbols"]
 SymbolKind = Literal["soft", "bits"]
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class SymbolChunk:
     """Consecutive channel symbols as soft values.
 
