@@ -425,6 +425,8 @@ def test_bad_input_messages(tmp_path, rng):
         (json.dumps(_meta(datatype="rf32_le")), "real-valued"),
         (json.dumps(_meta(rate=0)), "sample rate must be a positive"),
         (json.dumps(_meta(rate=-1e6)), "sample rate must be a positive"),
+        (json.dumps(_meta(rate=10**400)), "sample rate must be a positive"),
+        ('{"global": {"core:datatype": "cf32_le", "core:sample_rate": 1e999}}', "sample rate must be a positive"),
         (json.dumps({"global": {"core:datatype": "cf32_le"}, "captures": []}), "core:sample_rate"),
         (json.dumps({"captures": []}), "no 'global'"),
         (json.dumps([1, 2]), "JSON object"),
@@ -462,7 +464,7 @@ _keys = st.sampled_from(["core:datatype", "core:sample_rate", "core:version", "c
                          "core:header_bytes", "core:sample_count", "global", "captures", "annotations"])
 _values = st.one_of(_json, st.sampled_from(["cf32_le", "ci16_be", "cu8", "ri16_le", "2026-03-14T09:30:00Z",
                                             "2026-13-01T00:00:00Z", "x.sigmf-data", "..", "/etc/passwd"]),
-                    st.integers(-3, 300), st.floats(-1e7, 1e7))
+                    st.integers(-3, 300), st.floats(-1e7, 1e7), st.integers(-(10**400), 10**400))
 
 
 @st.composite
@@ -509,6 +511,7 @@ def test_fuzz_random_json(tmp_path, meta, junk):
     (tmp_path / "f.sigmf-data").write_bytes(np.zeros(64, np.complex64).tobytes())
     _check_fuzz(tmp_path, meta)
     _check_fuzz(tmp_path, None, text=junk)
+    _check_fuzz(tmp_path, None, text="[" * 100_000)  # nesting deeper than the JSON parser's recursion
 
 
 # ---- symbol files ------------------------------------------------------------------------------

@@ -371,7 +371,10 @@ def _check_rate(p: Path, rate: Any, what: str) -> float:
         raise RecordingError(f"{p}: sample rate missing ({what})")
     if isinstance(rate, bool) or not isinstance(rate, (int, float, np.integer, np.floating)):
         raise RecordingError(f"{p}: sample rate must be a number, not {rate!r}")
-    rate = float(rate)
+    try:
+        rate = float(rate)
+    except OverflowError:
+        rate = math.inf
     if not math.isfinite(rate) or rate <= 0:
         raise RecordingError(f"{p}: sample rate must be a positive number of Hz, not {rate:g}")
     return rate
@@ -382,7 +385,10 @@ def _check_frequency(p: Path, freq: Any, what: str) -> float | None:
         return None
     if isinstance(freq, bool) or not isinstance(freq, (int, float, np.integer, np.floating)):
         raise RecordingError(f"{p}: {what} must be a number of Hz, not {freq!r}")
-    freq = float(freq)
+    try:
+        freq = float(freq)
+    except OverflowError:
+        freq = math.inf
     if not math.isfinite(freq):
         raise RecordingError(f"{p}: {what} must be finite, not {freq!r}")
     return freq
