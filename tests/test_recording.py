@@ -247,6 +247,7 @@ def test_writer_metadata_field_names(tmp_path, rng):
     assert rec.annotations[0]["core:label"] == "burst" and rec.num_samples == 100
 
 
+@pytest.mark.kat
 def test_writer_ci16_saturates_and_scales(tmp_path):
     x = np.array([0.5 + 0.25j, 1.0 - 1.0j, 2.0 + 0j, np.nan + 0j], dtype=np.complex64)
     with SigmfWriter(tmp_path / "s", sample_rate_hz=1.0, datatype="ci16_le", datetime_ns=0) as w:
@@ -263,6 +264,24 @@ def test_writer_ci16_saturates_and_scales(tmp_path):
         SigmfWriter(tmp_path / "t", sample_rate_hz=1.0, datetime_ns=0)
     with pytest.raises(ValueError, match="Argument 'sample_rate_hz' must be > 0"):
         SigmfWriter(tmp_path / "u", sample_rate_hz=0.0, datetime_ns=0)
+
+
+def test_writer_chunking_invariance(tmp_path, rng):
+    x = _iq(rng, 10_007, amp=0.6)  # some components beyond full scale: saturation counted the same way
+    x[rng.choice(x.size, 9, replace=False)] = np.nan
+    for name in ("ci16_le", "cu8", "cf32_be"):
+        whole, parts = tmp_path / f"w-{name}", tmp_path / f"p-{name}"
+        with SigmfWriter(whole, sample_rate_hz=1e6, datatype=name, datetime_ns=0, scale=2.0) as w1:
+            w1.write(x)
+        cuts = np.sort(rng.choice(np.arange(1, x.size), 11, replace=False))
+        with SigmfWriter(parts, sample_rate_hz=1e6, datatype=name, datetime_ns=0, scale=2.0) as w2:
+            for piece in np.split(x, cuts):
+                w2.write(piece)
+        assert (tmp_path / f"w-{name}.sigmf-data").read_bytes() == (tmp_path / f"p-{name}.sigmf-data").read_bytes()
+        assert (w1.clipped, w1.nonfinite, w1.num_samples) == (w2.clipped, w2.nonfinite, w2.num_samples)
+        assert w1.metadata()["global"]["core:sha512"] == w2.metadata()["global"]["core:sha512"]
+        if name != "cf32_be":
+            assert w1.clipped > 0 and w1.nonfinite == 9
 
 
 def test_writer_roundtrip_all_datatypes(tmp_path, rng):

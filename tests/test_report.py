@@ -290,6 +290,7 @@ def test_report_in_headless_chromium(tmp_path, rng):
     url = (tmp_path / "out" / "report.html").resolve().as_uri()
     flags = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
              "--disable-background-networking", "--disable-component-update", "--disable-sync",
+             "--disable-dev-shm-usage",
              f"--user-data-dir={tmp_path / 'profile'}"]
     try:
         dom = subprocess.run(flags + ["--dump-dom", url], capture_output=True, text=True, timeout=120)
