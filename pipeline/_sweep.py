@@ -1,0 +1,614 @@
+"""``downlink sweep``: Monte-Carlo bit, frame and packet error rates against Eb/N0, beside theory.
+
+Two stages:
+
+``code``
+    The codes of the profile alone: random frames -> RS (E, I, virtual fill) -> randomizer -> ASM
+    -> convolutional code -> BPSK symbols +-1 with real Gaussian noise, unquantized (float32), ->
+    ``pipeline.fec.viterbi_decode`` -> cut at the known CADU boundaries ->
+    ``pipeline.sync.CodeblockDecoder`` (de-randomize, RS decode).  No synchronization, carrier or
+    timing: this is what the codes and their decoders do.  Measured: the bit error rate after the
+    convolutional decoder (``ber_inner``, on the codeblock bits), the bit and frame error rates of
+    the delivered frames (``ber``, ``fer``) and the RS failures.
+``chain``
+    The whole receiver: ``pipeline.sim.simulate`` makes an IQ recording of the profile (its
+    ``[simulate]`` carrier offset, Doppler, clock offset and traffic) at each Eb/N0, and
+    ``pipeline._chain.decode_to_folder`` decodes it with carrier and timing recovery.  The decoded
+    packets are compared with the simulator's ``truth.jsonl``: packet error rate (lost or wrong
+    packets), frame error rate (truth frames not delivered with status ``ok``), and the bit error
+    rate of the delivered packets.
+
+Eb/N0 is per information bit of the codeblock, ASM excluded (../shared/DESIGN.md):
+``Es/N0 = Eb/N0 + 10 log10(code rate)`` for BPSK.
+
+Every point has its own random stream, ``numpy.random.SeedSequence([seed, point index])``, and is
+simulated in fixed-size batches until ``frames`` frames or ``errors`` errors, so results depend
+on the seed only, not on the number of worker processes.
+
+Outputs in ``out``: ``sweep.csv`` (one row per point), ``sweep.json`` (points, theory, losses) and
+``sweep.png`` (curves beside uncoded BPSK, the K=7 union bound, the RS bounded-distance curve and
+the BI-AWGN capacity limit of the overall rate).
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+import os
+import sys
+import tempfile
+import time
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from pipeline import _theory
+from pipeline.errors import DownlinkError
+from pipeline.profile import LinkProfile
+
+__all__ = [
+    "TARGET_BER",
+    "SweepPoint",
+    "parse_ebn0_spec",
+    "point_seed",
+    "simulate_code_point",
+    "simulate_chain_point",
+    "sweep",
+    "theory_curves",
+    "implementation_losses",
+    "run_sweep",
+]
+
+#: Error rate at which the implementation loss is read (issue 6).
+TARGET_BER = 1e-5
+
+# Information bits per code-stage batch: large enough to amortise the Viterbi call, small enough
+# that a point stops soon after reaching its error target.  Fixed, so results do not depend on it.
+_BATCH_BITS = 1 << 17
+# Frames per chain-stage recording; each is simulated and decoded on its own.
+_CHAIN_SEGMENT_FRAMES = 60
+_CHAIN_IDLE_CADUS = 6  # lead and tail idle frames of pipeline.sim.simulate (3 + 3)
+
+
+@dataclass
+class SweepPoint:
+    """Counts at one Eb/N0 (rates are derived, NaN when nothing was counted)."""
+
+    ebn0_db: float
+    esn0_db: float
+    seed: list[int]
+    stage: str
+    frames: int = 0
+    bits: int = 0
+    bit_errors: int = 0
+    inner_bits: int = 0
+    inner_bit_errors: int = 0
+    frame_errors: int = 0
+    rs_failures: int = 0
+    undetected_frame_errors: int = 0
+    packets: int = 0
+    packet_errors: int = 0
+    spurious_packets: int = 0
+    stopped_early: bool = False
+    elapsed_s: float = 0.0
+    extra: dict = field(default_factory=dict)
+
+    @staticmethod
+    def _rate(num: int, den: int) -> float:
+        return num / den if den else float("nan")
+
+    @property
+    def ber(self) -> float:
+        return self._rate(self.bit_errors, self.bits)
+
+    @property
+    def ber_inner(self) -> float:
+        return self._rate(self.inner_bit_errors, self.inner_bits)
+
+    @property
+    def fer(self) -> float:
+        return self._rate(self.frame_errors, self.frames)
+
+    @property
+    def per(self) -> float:
+        return self._rate(self.packet_errors, self.packets)
+
+    def as_row(self) -> dict:
+        d = asdict(self)
+        d.pop("extra")
+        d["seed"] = ":".join(str(s) for s in self.seed)
+        d.update(ber=self.ber, ber_inner=self.ber_inner, fer=self.fer, per=self.per)
+        return d
+
+
+# ---- Eb/N0 grid and seeds ----------------------------------------------------------------------
+
+def parse_ebn0_spec(spec: str) -> list[float]:
+    """Eb/N0 values from ``"A:B:STEP"`` (A to B inclusive), ``"A,B,C"`` or a single ``"A"`` (dB).
+
+    Raises
+    ------
+    DownlinkError
+        One line naming the option and the rule.
+    """
+    text = str(spec).strip()
+    try:
+        if ":" in text:
+            parts = [float(p) for p in text.split(":")]
+            if len(parts) != 3:
+                raise ValueError
+            a, b, step = parts
+            if not step > 0 or b < a:
+                raise DownlinkError(f"--ebn0 '{spec}' must have STEP > 0 and B >= A")
+            n = int(math.floor((b - a) / step + 1e-9)) + 1
+            values = [round(a + i * step, 10) for i in range(n)]
+        else:
+            values = [float(p) for p in text.split(",")]
+    except ValueError:
+        raise DownlinkError(f"--ebn0 '{spec}' must be A:B:STEP, a comma list or one value in dB") from None
+    if not values or not all(math.isfinite(v) and -10.0 <= v <= 30.0 for v in values):
+        raise DownlinkError(f"--ebn0 '{spec}' values must be finite, -10..30 dB")
+    if len(values) > 200:
+        raise DownlinkError(f"--ebn0 '{spec}' gives {len(values)} points; at most 200")
+    return values
+
+
+def point_seed(seed: int, index: int) -> list[int]:
+    """The entropy of point ``index``'s random stream: ``[seed, index]`` for ``SeedSequence``."""
+    return [int(seed), int(index)]
+
+
+# ---- code stage ---------------------------------------------------------------------------------
+
+def _esn0_db(profile: LinkProfile, ebn0_db: float) -> float:
+    return profile.esn0_from_ebn0(ebn0_db)
+
+
+def simulate_code_point(profile: LinkProfile, ebn0_db: float, *, frames: int, errors: int,
+                        seed: list[int]) -> SweepPoint:
+    """Error counts of the profile's codes alone at one Eb/N0 (see the module docstring, stage ``code``).
+
+    Parameters
+    ----------
+    profile : LinkProfile
+        ``[coding]`` and ``[frames]`` length; BPSK is used whatever ``[link]`` says (QPSK on AWGN
+        has the same bit error rate per Eb/N0).
+    ebn0_db : float
+    frames : int
+        Frames at most.
+    errors : int
+        Stop after the batch in which the delivered bit errors reach this number.
+    seed : list of int
+        Entropy of the point's ``numpy.random.SeedSequence``.
+
+    Notes
+    -----
+    Noise: ``sigma^2 = 1 / (2 Es/N0)`` on +-1 symbols.  Frames are sent back to back as CADUs
+    behind a convolutional encoder started in the zero state; one more ASM closes each batch so
+    the last frame's bits are decoded with the same protection as the others.  Cost per frame:
+    the encoders plus one Viterbi pass (64 states) and the RS decoder.
+    """
+    from pipeline.fec import ASM, conv_encode, pn_sequence, rs_encode, viterbi_decode
+
+    t0 = time.perf_counter()
+    c = profile.coding
+    frame_bytes = profile.frames.length
+    block_bytes = profile.codeblock_bytes
+    esn0 = _esn0_db(profile, ebn0_db)
+    sigma = math.sqrt(1.0 / (2.0 * 10.0 ** (esn0 / 10.0)))
+    rng = np.random.default_rng(np.random.SeedSequence(seed))
+    pn = np.asarray(pn_sequence(block_bytes), dtype=np.uint8) if c.randomizer else np.zeros(block_bytes, np.uint8)
+    asm = np.frombuffer(bytes(ASM), dtype=np.uint8)
+    asm_bits = np.unpackbits(asm)
+    decoder = None
+    if c.reed_solomon:
+        # the receiver's own codeblock path: de-randomize, RS decode, status per codeblock
+        from pipeline.sync import Cadu, CodeblockDecoder
+
+        decoder = CodeblockDecoder(profile=profile)
+    pt = SweepPoint(ebn0_db=float(ebn0_db), esn0_db=float(esn0), seed=list(seed), stage="code")
+    per_batch = max(1, min(frames, _BATCH_BITS // (8 * frame_bytes)))
+    while pt.frames < frames and pt.bit_errors < errors:
+        nb = min(per_batch, frames - pt.frames)
+        info = rng.integers(0, 256, size=(nb, frame_bytes), dtype=np.uint8)
+        blocks = np.empty((nb, block_bytes), dtype=np.uint8)
+        for k in range(nb):
+            blocks[k] = rs_encode(info[k], c.reed_solomon, c.interleave) if c.reed_solomon else info[k]
+        sent = blocks ^ pn[None, :]
+        cadus = np.concatenate([np.broadcast_to(asm, (nb, 4)), sent], axis=1)
+        bits = np.concatenate([np.unpackbits(cadus.reshape(-1)), asm_bits])
+        symbols = conv_encode(bits, c.convolutional) if c.convolutional != "none" else bits
+        soft = (1.0 - 2.0 * symbols.astype(np.float32)) + np.float32(sigma) * rng.standard_normal(
+            symbols.shape[0], dtype=np.float32)
+        if c.convolutional != "none":
+            decoded = np.asarray(viterbi_decode(soft, c.convolutional, initial_state=0), dtype=np.uint8)
+        else:
+            decoded = (soft < 0).astype(np.uint8)
+        decoded = decoded[: 8 * nb * (4 + block_bytes)].reshape(nb, 8 * (4 + block_bytes))[:, 32:]
+        rx = np.packbits(decoded, axis=1)
+        pt.inner_bits += int(sent.size * 8)
+        pt.inner_bit_errors += int(np.unpackbits(rx ^ sent).sum())
+        for k in range(nb):
+            if decoder is not None:
+                out = decoder.process(Cadu(data=rx[k].tobytes(), position=0.0, asm_errors=0, inverted=False,
+                                           flywheel=False, bit_index=0))
+                got, status = np.frombuffer(out.frame, dtype=np.uint8), out.status
+            else:  # no RS: the frame is the de-randomized codeblock
+                got, status = rx[k] ^ pn, "ok"
+            wrong = int(np.unpackbits(got ^ info[k]).sum())
+            pt.bit_errors += wrong
+            if status != "ok":
+                pt.rs_failures += 1
+                pt.frame_errors += 1
+            elif wrong:
+                pt.undetected_frame_errors += 1
+                pt.frame_errors += 1
+        pt.frames += nb
+        pt.bits += nb * 8 * frame_bytes
+    pt.stopped_early = pt.frames < frames
+    pt.elapsed_s = time.perf_counter() - t0
+    return pt
+
+
+# ---- chain stage --------------------------------------------------------------------------------
+
+def _read_jsonl(path: Path) -> list[dict]:
+    if not path.exists():
+        return []
+    return [json.loads(line) for line in path.read_text(encoding="utf-8").splitlines() if line.strip()]
+
+
+def _bit_diff(a_hex: str, b_hex: str) -> int:
+    a, b = bytes.fromhex(a_hex), bytes.fromhex(b_hex)
+    n = min(len(a), len(b))
+    d = int(np.unpackbits(np.frombuffer(a[:n], np.uint8) ^ np.frombuffer(b[:n], np.uint8)).sum())
+    return d + 8 * abs(len(a) - len(b))
+
+
+def simulate_chain_point(profile: LinkProfile, ebn0_db: float, *, frames: int, errors: int,
+                         seed: list[int]) -> SweepPoint:
+    """Error counts through the whole receiver at one Eb/N0 (see the module docstring, stage ``chain``).
+
+    Parameters
+    ----------
+    profile : LinkProfile
+        The whole profile; ``[simulate]`` sets the carrier, clock and traffic.
+    ebn0_db : float
+    frames : int
+        Frames at most, simulated in recordings of up to 60 frames (plus the simulator's idle
+        lead and tail); each recording is decoded from scratch, so acquisition is part of it.
+    errors : int
+        Stop after the recording in which the packet errors reach this number.
+    seed : list of int
+        Entropy of the point's ``SeedSequence``; each recording draws one simulator seed from it.
+
+    Notes
+    -----
+    A truth packet counts as an error when no decoded packet has its (VCID, APID, sequence
+    count), or the one that does differs in content; decoded packets that are in no truth are
+    ``spurious_packets``.  ``bit_errors`` are the differing bits of delivered packets (undetected
+    errors), over the bits of all truth packets.  A truth frame counts as a frame error when no
+    frame with its (VCID, MCFC) was delivered with status ``ok`` at about its position.
+    """
+    from pipeline._chain import decode_to_folder
+    from pipeline.sim import simulate
+
+    t0 = time.perf_counter()
+    esn0 = _esn0_db(profile, ebn0_db)
+    ss = np.random.SeedSequence(seed)
+    pt = SweepPoint(ebn0_db=float(ebn0_db), esn0_db=float(esn0), seed=list(seed), stage="chain")
+    channel_bit_rate = profile.link.symbol_rate_baud * profile.link.bits_per_symbol
+    cadu_channel_bits = profile.cadu_bits / profile.coding.conv_rate
+    segment = 0
+    while pt.frames < frames and pt.packet_errors < errors:
+        n = min(_CHAIN_SEGMENT_FRAMES, frames - pt.frames)
+        seconds = (n + _CHAIN_IDLE_CADUS + 0.5) * cadu_channel_bits / channel_bit_rate
+        sim_seed = int(ss.spawn(1)[0].generate_state(1)[0] & 0x7FFFFFFF)
+        with tempfile.TemporaryDirectory(prefix="downlink-sweep-") as tmp:
+            tmp = Path(tmp)
+            res = simulate(profile, tmp / "sim", seconds=seconds, ebn0_db=ebn0_db, seed=sim_seed)
+            decode_to_folder(str(res.meta_path), profile, str(tmp / "dec"))
+            truth = _read_jsonl(res.truth_path)
+            truth_frames = _read_jsonl(res.truth_frames_path)
+            got = _read_jsonl(tmp / "dec" / "packets.jsonl")
+            got_frames = _read_jsonl(tmp / "dec" / "frames.jsonl")
+        delivered: dict[tuple, list[str]] = {}
+        for p in got:
+            delivered.setdefault((p.get("vcid"), p["apid"], p["seq_count"]), []).append(p["hex"])
+        truth_keys = set()
+        for p in truth:
+            key = (p.get("vcid"), p["apid"], p["seq_count"])
+            truth_keys.add(key)
+            pt.packets += 1
+            pt.bits += 4 * len(p["hex"])
+            cands = delivered.get(key)
+            if not cands:
+                pt.packet_errors += 1
+                continue
+            best = min(_bit_diff(h, p["hex"]) for h in cands)
+            if best:
+                pt.packet_errors += 1
+                pt.bit_errors += best
+        pt.spurious_packets += sum(len(v) for k, v in delivered.items() if k not in truth_keys)
+        ok_frames = {(f.get("vcid"), f.get("mcfc")) for f in got_frames if f.get("status") == "ok"}
+        for f in truth_frames:
+            pt.frames += 1
+            if (f.get("vcid"), f.get("mcfc")) not in ok_frames:
+                pt.frame_errors += 1
+        pt.extra.setdefault("recordings", 0)
+        pt.extra["recordings"] += 1
+        segment += 1
+        if not truth_frames:  # nothing simulated: avoid an endless loop on a degenerate profile
+            break
+    pt.stopped_early = pt.frames < frames
+    pt.elapsed_s = time.perf_counter() - t0
+    return pt
+
+
+# ---- the sweep ----------------------------------------------------------------------------------
+
+def _run_point(args) -> SweepPoint:
+    stage, profile, ebn0_db, frames, errors, seed = args
+    fn = simulate_code_point if stage == "code" else simulate_chain_point
+    return fn(profile, ebn0_db, frames=frames, errors=errors, seed=seed)
+
+
+def sweep(profile: LinkProfile, ebn0_db: list[float], *, frames: int, errors: int, stage: str = "code",
+          seed: int = 1, workers: int | None = None, progress=None) -> list[SweepPoint]:
+    """Simulate every Eb/N0 point, in parallel over ``workers`` processes (None = all cores).
+
+    Parameters
+    ----------
+    profile, frames, errors :
+        See :func:`simulate_code_point` / :func:`simulate_chain_point`.
+    ebn0_db : list of float
+    stage : {"code", "chain"}
+    seed : int
+        Master seed; point ``i`` uses :func:`point_seed` ``(seed, i)``.
+    workers : int or None
+        1 runs in this process.  The result does not depend on it.
+    progress : callable, optional
+        Called with each finished :class:`SweepPoint` (in completion order).
+
+    Returns
+    -------
+    list of SweepPoint, in the order of ``ebn0_db``.
+    """
+    if stage not in ("code", "chain"):
+        raise ValueError(f"Argument 'stage' must be code | chain, not {stage!r}.")
+    for name, value in (("frames", frames), ("errors", errors)):
+        if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+            raise ValueError(f"Argument '{name}' must be an integer >= 1, not {value!r}.")
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 1):
+        raise ValueError(f"Argument 'workers' must be an integer >= 1 or None, not {workers!r}.")
+    jobs = [(stage, profile, float(x), frames, errors, point_seed(seed, i)) for i, x in enumerate(ebn0_db)]
+    n_workers = min(len(jobs), workers or os.cpu_count() or 1)
+    results: list[SweepPoint | None] = [None] * len(jobs)
+    if n_workers <= 1:
+        for i, job in enumerate(jobs):
+            results[i] = _run_point(job)
+            if progress:
+                progress(results[i])
+    else:
+        with ProcessPoolExecutor(max_workers=n_workers) as pool:
+            futures = {pool.submit(_run_point, job): i for i, job in enumerate(jobs)}
+            from concurrent.futures import as_completed
+
+            for fut in as_completed(futures):
+                i = futures[fut]
+                results[i] = fut.result()
+                if progress:
+                    progress(results[i])
+    return [r for r in results if r is not None]
+
+
+# ---- theory and losses --------------------------------------------------------------------------
+
+def theory_curves(profile: LinkProfile, ebn0_db) -> dict[str, np.ndarray]:
+    """Theory beside the measurement, on the grid ``ebn0_db``.
+
+    Returns
+    -------
+    dict
+        ``uncoded_bpsk`` always; ``conv_union_bound`` when the profile has a convolutional code (at its
+        rate); ``rs_bounded_distance`` when it has RS and no convolutional code.
+    """
+    x = np.asarray(ebn0_db, dtype=np.float64)
+    out = {"uncoded_bpsk": np.asarray(_theory.uncoded_bpsk_ber(x), dtype=np.float64).reshape(x.shape)}
+    c = profile.coding
+    if c.convolutional != "none":
+        # the union bound is per information bit of the convolutional code: with RS outside it, that
+        # bit carries Eb of the frame bit times the RS rate, so shift the axis by 10 log10(R_rs)
+        shift = 10 * math.log10(profile.code_rate / c.conv_rate)
+        out["conv_union_bound"] = np.asarray(_theory.conv_union_bound_ber(x + shift, c.convolutional)).reshape(x.shape)
+    elif c.reed_solomon:
+        out["rs_bounded_distance"] = np.asarray(
+            _theory.rs_bounded_distance_ber(x, e=c.reed_solomon, code_rate=profile.code_rate)).reshape(x.shape)
+    return out
+
+
+def implementation_losses(profile: LinkProfile, points: list[SweepPoint], target: float = TARGET_BER) -> dict:
+    """Eb/N0 where measurement and theory cross ``target``, and their difference (dB).
+
+    Returns
+    -------
+    dict
+        ``{"target": ..., "capacity_limit_db": ..., "code_rate": ..., "curves": [{"measured", "theory",
+        "measured_db", "theory_db", "loss_db"}, ...]}``; ``measured_db`` (and so ``loss_db``) is None
+        when the measured curve does not reach ``target`` within the sweep.
+    """
+    x = np.array([p.ebn0_db for p in points], dtype=np.float64)
+    rate = profile.code_rate
+    result = {"target": target, "code_rate": rate,
+              "capacity_limit_db": _theory.capacity_limit_ebn0_db(rate) if rate < 1 else None, "curves": []}
+    fine = np.arange(-2.0, 16.0, 0.005)
+    th = theory_curves(profile, fine)
+    c = profile.coding
+    pairs = []
+    if points and points[0].stage == "code":
+        if c.convolutional != "none":
+            pairs.append(("ber_inner", "conv_union_bound"))
+        elif c.reed_solomon:
+            pairs.append(("ber", "rs_bounded_distance"))
+        else:
+            pairs.append(("ber", "uncoded_bpsk"))
+    if c.convolutional != "none" and c.reed_solomon:
+        pairs.append(("ber", "capacity"))
+    elif points and points[0].stage == "chain":
+        pairs.append(("ber", "capacity" if rate < 1 else "uncoded_bpsk"))
+    for measured, theory in pairs:
+        ys = np.array([getattr(p, measured) for p in points], dtype=np.float64)
+        m_db = _theory.ebn0_at_ber(x, ys, target) if len(x) > 1 else None
+        if theory == "capacity":
+            t_db = result["capacity_limit_db"]
+        else:
+            t_db = _theory.ebn0_at_ber(fine, th[theory], target)
+        loss = None if (m_db is None or t_db is None) else m_db - t_db
+        result["curves"].append({"measured": measured, "theory": theory, "measured_db": m_db, "theory_db": t_db,
+                                 "loss_db": loss})
+    return result
+
+
+def _loss_lines(losses: dict) -> list[str]:
+    names = {"ber_inner": "bit error rate after Viterbi", "ber": "bit error rate delivered",
+             "conv_union_bound": "K=7 union bound", "rs_bounded_distance": "RS bounded-distance",
+             "uncoded_bpsk": "uncoded BPSK", "capacity": "BI-AWGN capacity limit"}
+    lines = []
+    for cv in losses["curves"]:
+        t = f"{cv['theory_db']:.2f} dB" if cv["theory_db"] is not None else "n/a"
+        if cv["measured_db"] is None:
+            lines.append(f"{names[cv['measured']]}: does not reach {losses['target']:g} in the sweep "
+                         f"({names[cv['theory']]}: {t})")
+        else:
+            lines.append(f"{names[cv['measured']]} reaches {losses['target']:g} at {cv['measured_db']:.2f} dB; "
+                         f"{names[cv['theory']]} {t}; implementation loss {cv['loss_db']:+.2f} dB")
+    return lines
+
+
+# ---- files --------------------------------------------------------------------------------------
+
+_CSV_COLUMNS = ["ebn0_db", "esn0_db", "stage", "frames", "bits", "bit_errors", "ber", "inner_bits",
+                "inner_bit_errors", "ber_inner", "frame_errors", "fer", "rs_failures", "undetected_frame_errors",
+                "packets", "packet_errors", "per", "spurious_packets", "stopped_early", "seed", "elapsed_s"]
+
+
+def _json_value(v):
+    if isinstance(v, float) and not math.isfinite(v):
+        return None
+    if isinstance(v, np.floating):
+        return _json_value(float(v))
+    return v
+
+
+def _write_csv(path: Path, points: list[SweepPoint], theory: dict[str, np.ndarray]) -> None:
+    with open(path, "w", newline="", encoding="utf-8") as f:
+        w = csv.writer(f)
+        w.writerow(_CSV_COLUMNS + [f"theory_{k}" for k in theory])
+        for i, p in enumerate(points):
+            row = p.as_row()
+            vals = []
+            for c in _CSV_COLUMNS:
+                v = row[c]
+                vals.append(f"{v:.6g}" if isinstance(v, float) else v)
+            vals += [f"{float(theory[k][i]):.6g}" for k in theory]
+            w.writerow(vals)
+
+
+def _plot(path: Path, profile: LinkProfile, points: list[SweepPoint], losses: dict) -> None:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    x = np.array([p.ebn0_db for p in points])
+    lo, hi = float(x.min()) - 1.0, float(x.max()) + 1.0
+    grid = np.linspace(lo, hi, 400)
+    th = theory_curves(profile, grid)
+    fig, ax = plt.subplots(figsize=(8, 5.5), dpi=110)
+    labels = {"uncoded_bpsk": "uncoded BPSK (theory)", "conv_union_bound": "K=7 union bound (theory)",
+              "rs_bounded_distance": "RS bounded distance (theory)"}
+    for key, y in th.items():
+        ax.semilogy(grid, y, "--", lw=1.2, label=labels[key])
+    if losses.get("capacity_limit_db") is not None:
+        ax.axvline(losses["capacity_limit_db"], color="k", lw=1, ls=":",
+                   label=f"capacity limit R={losses['code_rate']:.3f} ({losses['capacity_limit_db']:.2f} dB)")
+    measured = [("ber", "BER delivered", "o-"), ("ber_inner", "BER after Viterbi", "s-"), ("fer", "FER", "^-"),
+                ("per", "packet error rate", "d-")]
+    for attr, label, style in measured:
+        y = np.array([getattr(p, attr) for p in points], dtype=np.float64)
+        keep = np.isfinite(y) & (y > 0)
+        if keep.any():
+            ax.semilogy(x[keep], y[keep], style, ms=4, label=f"{label} (measured)")
+    ax.axhline(losses["target"], color="grey", lw=0.6)
+    ax.set_ylim(1e-7, 1.0)
+    ax.set_xlim(lo, hi)
+    ax.set_xlabel("Eb/N0 per information bit (dB)")
+    ax.set_ylabel("error rate")
+    c = profile.coding
+    code = " + ".join(s for s in (f"conv {c.convolutional}" if c.convolutional != "none" else "",
+                                   f"RS E={c.reed_solomon} I={c.interleave}" if c.reed_solomon else "") if s)
+    ax.set_title(f"{profile.name}: {code or 'uncoded'}, stage {points[0].stage}")
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(fontsize=8, loc="lower left")
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)
+
+
+def write_outputs(folder: Path, profile: LinkProfile, points: list[SweepPoint], *, seed: int, frames: int,
+                  errors: int) -> dict:
+    """Write sweep.csv, sweep.json and sweep.png into ``folder``; return the JSON document."""
+    x = [p.ebn0_db for p in points]
+    theory = theory_curves(profile, x)
+    losses = implementation_losses(profile, points)
+    _write_csv(folder / "sweep.csv", points, theory)
+    c = profile.coding
+    doc = {
+        "profile": profile.name,
+        "stage": points[0].stage if points else None,
+        "seed": seed, "frames_max": frames, "errors_target": errors,
+        "coding": {"convolutional": c.convolutional, "reed_solomon_e": c.reed_solomon, "interleave": c.interleave,
+                   "randomizer": c.randomizer, "frame_length": profile.frames.length},
+        "code_rate": profile.code_rate,
+        "points": [{k: _json_value(v) for k, v in {**p.as_row(), "extra": p.extra}.items()} for p in points],
+        "theory": {k: [_json_value(float(v)) for v in arr] for k, arr in theory.items()},
+        "implementation_loss": losses,
+    }
+    (folder / "sweep.json").write_text(json.dumps(doc, indent=1) + "\n", encoding="utf-8")
+    _plot(folder / "sweep.png", profile, points, losses)
+    return doc
+
+
+def run_sweep(profile: LinkProfile, ebn0_spec: str, *, frames: int, errors: int, stage: str, seed: int,
+              workers: int | None, out: str, overwrite: bool, quiet: bool) -> int:
+    """``downlink sweep``: simulate, write the three files into ``out``, print the losses; exit code 0."""
+    from pipeline._output import OutputFolder
+
+    values = parse_ebn0_spec(ebn0_spec)
+    if frames < 1 or errors < 1:
+        raise DownlinkError(f"--frames and --errors must be >= 1, not {frames} and {errors}")
+    if workers is not None and workers < 1:
+        raise DownlinkError(f"--workers must be >= 1, not {workers}")
+    t0 = time.perf_counter()
+    n_done = [0]
+
+    def progress(p: SweepPoint) -> None:
+        n_done[0] += 1
+        if not quiet:
+            print(f"[{n_done[0]}/{len(values)}] Eb/N0 {p.ebn0_db:5.2f} dB: {p.frames} frames, BER {p.ber:.3g}, "
+                  f"FER {p.fer:.3g}" + (f", PER {p.per:.3g}" if p.packets else "") + f" ({p.elapsed_s:.1f} s)",
+                  file=sys.stderr, flush=True)
+
+    with OutputFolder(out, overwrite=overwrite) as tmp:
+        points = sweep(profile, values, frames=frames, errors=errors, stage=stage, seed=seed, workers=workers,
+                       progress=progress)
+        doc = write_outputs(Path(tmp), profile, points, seed=seed, frames=frames, errors=errors)
+    for line in _loss_lines(doc["implementation_loss"]):
+        print(line)
+    if not quiet:
+        print(f"swept {len(points)} points in {time.perf_counter() - t0:.1f} s; wrote sweep.csv, sweep.json, "
+              f"sweep.png to {out}", file=sys.stderr)
+    return 0

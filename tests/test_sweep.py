@@ -1,0 +1,156 @@
+"""``downlink sweep``: Monte-Carlo error rates, reproducible by seed, independent of the worker count."""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+
+import numpy as np
+import pytest
+
+from pipeline import _sweep as sw
+from pipeline import _theory as th
+from pipeline.errors import DownlinkError, OutputError
+from pipeline.profile import profile_from_dict
+
+
+def _profile(conv="none", rs=0, interleave=1, length=1115, name="t"):
+    return profile_from_dict({"coding": {"convolutional": conv, "reed_solomon": rs, "interleave": interleave,
+                                         "randomizer": True}, "frames": {"length": length}}, name=name)
+
+
+@pytest.mark.kat
+def test_parse_ebn0_spec():
+    assert sw.parse_ebn0_spec("0:6:0.5") == [i * 0.5 for i in range(13)]
+    assert sw.parse_ebn0_spec("1:2:0.3") == [1.0, 1.3, 1.6, 1.9]
+    assert sw.parse_ebn0_spec("2.5") == [2.5]
+    assert sw.parse_ebn0_spec("1, 3,4") == [1.0, 3.0, 4.0]
+    for bad in ("a:b:c", "0:6", "0:6:0", "6:0:1", "nan", "0:1000:1"):
+        with pytest.raises(DownlinkError, match="--ebn0"):
+            sw.parse_ebn0_spec(bad)
+
+
+def test_uncoded_bpsk_matches_theory():
+    # Pb = 1/2 erfc(sqrt(Eb/N0)) (Proakis, Digital Communications; ../shared/REFERENCES.md sec. 8)
+    pts = sw.sweep(_profile(), [1.0, 4.0], frames=30, errors=10**9, seed=11, workers=1)
+    for p in pts:
+        expect = p.bits * th.uncoded_bpsk_ber(p.ebn0_db)
+        assert p.frames == 30 and p.bits == 30 * 8 * 1115
+        assert abs(p.bit_errors - expect) < 5 * math.sqrt(expect)  # binomial, 5 sigma
+        assert p.ber_inner == p.ber  # no RS: the delivered bits are the channel-decoded bits
+        assert p.rs_failures == 0
+
+
+def test_reproducible_by_seed_and_independent_of_workers():
+    prof = _profile(conv="1/2", length=223)
+    kw = dict(frames=20, errors=10**9, stage="code")
+    one = [p.as_row() for p in sw.sweep(prof, [2.0, 3.0, 4.0], seed=5, workers=1, **kw)]
+    two = [p.as_row() for p in sw.sweep(prof, [2.0, 3.0, 4.0], seed=5, workers=2, **kw)]
+    again = [p.as_row() for p in sw.sweep(prof, [2.0, 3.0, 4.0], seed=5, workers=1, **kw)]
+    other = [p.as_row() for p in sw.sweep(prof, [2.0, 3.0, 4.0], seed=6, workers=1, **kw)]
+    def strip(rows):  # as JSON text, so NaN rates compare equal
+        return json.dumps([{k: v for k, v in r.items() if k != "elapsed_s"} for r in rows])
+
+    assert strip(one) == strip(two) == strip(again)
+    assert [r["bit_errors"] for r in one] != [r["bit_errors"] for r in other]
+    assert one[0]["bit_errors"] > one[2]["bit_errors"]  # fewer errors at higher Eb/N0
+
+
+def test_viterbi_rate_half_at_4db_cheap_point():
+    # The K=7 union bound is 1.87e-5 at 4 dB (../shared/REFERENCES.md sec. 8 spectrum); soft Viterbi stays
+    # within a few tenths of a dB of it, so 2.2e5 bits at 4 dB must show a BER below 1e-4.  The 0.3 dB
+    # figure at 1e-5 is measured by bench/bench_sweep.py.
+    (p,) = sw.sweep(_profile(conv="1/2"), [4.0], frames=25, errors=10**9, seed=2, workers=1)
+    assert p.bits == 25 * 8 * 1115
+    assert p.ber < 1e-4
+    assert th.conv_union_bound_ber(4.0) == pytest.approx(1.87e-5, rel=0.02)
+    # and the code is doing something: uncoded BPSK at 4 dB is 1.25e-2
+    assert p.ber < th.uncoded_bpsk_ber(4.0) / 100
+
+
+def test_early_stop_at_the_error_target():
+    (p,) = sw.sweep(_profile(), [0.0], frames=1000, errors=50, seed=1, workers=1)
+    assert p.stopped_early and p.bit_errors >= 50 and p.frames < 1000
+    (q,) = sw.sweep(_profile(), [0.0], frames=3, errors=10**9, seed=1, workers=1)
+    assert not q.stopped_early and q.frames == 3
+
+
+def _landed(module, name):
+    import importlib
+
+    return hasattr(importlib.import_module(module), name)
+
+
+@pytest.mark.skipif(not (_landed("pipeline.fec", "rs_decode") and _landed("pipeline.sync", "CodeblockDecoder")),
+                    reason="pipeline.fec.rs_decode / pipeline.sync.CodeblockDecoder have not landed")
+def test_rs_only_counts_failures_and_beats_uncoded():
+    prof = _profile(rs=16, interleave=1, length=223)
+    (lo, hi) = sw.sweep(prof, [4.0, 7.0], frames=40, errors=10**9, seed=3, workers=1)
+    # at 4 dB (channel BER ~1.6e-2, ~29 symbol errors per codeword) almost every codeword fails
+    assert lo.rs_failures > 30 and lo.fer > 0.75
+    # at 7 dB the bounded-distance formula predicts ~1e-7 (Sklar sec. 8.1.3, from memory, not confirmed)
+    assert th.rs_bounded_distance_ber(7.0, e=16) < 1e-6
+    assert hi.frame_errors == 0 and hi.bit_errors == 0 and hi.inner_bit_errors > 0
+    assert hi.undetected_frame_errors == 0
+
+
+@pytest.mark.kat
+def test_theory_axis_shift_for_concatenated_code():
+    prof = _profile(conv="1/2", rs=16, interleave=5)
+    x = np.array([3.0, 4.0])
+    t = sw.theory_curves(prof, x)
+    # the inner code's bits are codeblock bits: Eb_inner = Eb R_rs, R_rs = 1115/1275 here
+    np.testing.assert_allclose(t["conv_union_bound"], th.conv_union_bound_ber(x + 10 * np.log10(1115 / 1275)))
+    np.testing.assert_allclose(t["uncoded_bpsk"], th.uncoded_bpsk_ber(x))
+
+
+@pytest.mark.kat
+def test_implementation_loss_reads_the_crossing():
+    prof = _profile(conv="1/2")
+    xs = np.arange(3.0, 6.01, 0.5)
+    pts = []
+    for x in xs:  # a "measured" curve that is the union bound moved 0.4 dB to the right
+        p = sw.SweepPoint(ebn0_db=float(x), esn0_db=0.0, seed=[0, 0], stage="code", bits=10**9, inner_bits=10**9)
+        p.inner_bit_errors = int(round(th.conv_union_bound_ber(x - 0.4) * 1e9))
+        p.bit_errors = p.inner_bit_errors
+        pts.append(p)
+    loss = sw.implementation_losses(prof, pts)
+    (cv,) = loss["curves"]
+    assert cv["theory"] == "conv_union_bound"
+    assert cv["theory_db"] == pytest.approx(4.174, abs=0.01)  # ../shared/REFERENCES.md sec. 8: 4.17 dB
+    assert cv["loss_db"] == pytest.approx(0.4, abs=0.03)  # interpolation in log BER over 0.5 dB steps
+    assert loss["capacity_limit_db"] == pytest.approx(0.187, abs=0.002)
+
+
+def test_run_sweep_writes_csv_json_png(tmp_path, capsys):
+    out = tmp_path / "sw"
+    prof = _profile()
+    assert sw.run_sweep(prof, "6:10:2", frames=300, errors=10**6, stage="code", seed=4, workers=1, out=str(out),
+                        overwrite=False, quiet=True) == 0
+    text = capsys.readouterr().out
+    assert "uncoded BPSK" in text and "implementation loss" in text
+    rows = list(csv.DictReader(open(out / "sweep.csv")))
+    assert [float(r["ebn0_db"]) for r in rows] == [6.0, 8.0, 10.0]
+    assert float(rows[0]["theory_uncoded_bpsk"]) == pytest.approx(th.uncoded_bpsk_ber(6.0), rel=1e-5)
+    doc = json.loads((out / "sweep.json").read_text())
+    assert doc["stage"] == "code" and len(doc["points"]) == 3 and doc["code_rate"] == 1.0
+    (cv,) = doc["implementation_loss"]["curves"]
+    # uncoded BPSK measures the theory itself: the loss is noise only
+    assert cv["measured_db"] is not None and abs(cv["loss_db"]) < 0.3
+    png = (out / "sweep.png").read_bytes()
+    assert png[:8] == b"\x89PNG\r\n\x1a\n" and len(png) > 10_000
+    with pytest.raises(OutputError):
+        sw.run_sweep(prof, "6", frames=1, errors=1, stage="code", seed=4, workers=1, out=str(out), overwrite=False,
+                     quiet=True)
+
+
+@pytest.mark.kat
+def test_argument_errors():
+    prof = _profile()
+    with pytest.raises(ValueError, match="Argument 'stage'"):
+        sw.sweep(prof, [1.0], frames=1, errors=1, stage="air")
+    with pytest.raises(ValueError, match="Argument 'frames'"):
+        sw.sweep(prof, [1.0], frames=0, errors=1)
+    with pytest.raises(ValueError, match="Argument 'workers'"):
+        sw.sweep(prof, [1.0], frames=1, errors=1, workers=0)
