@@ -6,7 +6,8 @@ virtual channel is a continuous octet stream of packets; a frame of that channel
 the frame (0x7FF when none does).  When a channel runs out of real packets part-way through a frame
 the rest is filled with idle packets (APID 0x7FF); when no channel has data at all the builder
 sends an Only-Idle-Data frame (TM: FHP 0x7FE on the idle VC; AOS: a frame of the idle VC 63), or,
-with ``idle="packets"``, a frame of idle packets on ``idle_packets_vcid``.
+with ``idle="packets"``, a frame of idle packets on ``idle_packets_vcid``.  The idle VC carries no
+packets in either mode.
 
 The channel served next is the one whose oldest unsent packet is oldest (first come, first served
 across channels; ties go to the lower VCID).
@@ -240,10 +241,10 @@ class _FrameBuilderBase:
                                  "only on packet (M_PDU) channels.")
             self._stream(p.vcid).append(p.data, p)
 
-    def process(self, packets: Iterable[SimPacket] = ()) -> BuiltFrame:
-        """Queue ``packets`` and build the next frame."""
+    def process(self, packets: Iterable[SimPacket] = (), *, force_idle: bool = False) -> BuiltFrame:
+        """Queue ``packets`` and build the next frame (see :meth:`next_frame`)."""
         self.push(packets)
-        return self.next_frame()
+        return self.next_frame(force_idle=force_idle)
 
     def _stream(self, vcid: int) -> _VcStream:
         s = self.streams.get(vcid)
@@ -252,7 +253,7 @@ class _FrameBuilderBase:
         return s
 
     def _reserved_vcid(self) -> int:
-        return self.idle_vcid if self.idle == "oid" else -1
+        return self.idle_vcid
 
     def _idle_octets(self, n: int) -> bytes:
         out = np.zeros(n, dtype=np.uint8)
@@ -271,10 +272,16 @@ class _FrameBuilderBase:
         return c
 
     # ---- output ------------------------------------------------------------------------------
-    def next_frame(self) -> BuiltFrame:
-        """Build one frame from the queued packets (see the module docstring for the policy)."""
+    def next_frame(self, *, force_idle: bool = False) -> BuiltFrame:
+        """Build one frame from the queued packets (see the module docstring for the policy).
+
+        With ``force_idle`` the frame is an Only-Idle-Data / idle-VC frame whatever is queued (the
+        queues keep their data for later frames).
+        """
         pending = [v for v, s in self.streams.items() if s.pending]
-        if pending:
+        if force_idle:
+            frame = self._idle_frame()
+        elif pending:
             vcid = min(pending, key=lambda v: (self.streams[v].oldest_s(), v))
             frame = self._packet_frame(vcid)
         elif self.idle == "packets":

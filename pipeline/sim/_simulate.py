@@ -2,10 +2,12 @@
 
 Timing of the traffic: the transmitter sends frames back to back.  Before frame ``j`` is built, the
 packets generated before the time its ASM goes out are queued, so the queues follow real time.  The
-first three CADU periods carry no packets (idle frames a receiver can acquire on) and packet
-generation stops three CADU periods (plus the pulse span) before the end, so the recording ends in
-idle frames too.  Only frames whose last channel symbol lies wholly inside the recording are in the
-truth, and only packets whose every octet is in such frames.
+first three CADU periods carry no packets (idle frames a receiver can acquire on), and every frame
+that starts in the last three CADU periods (plus the pulse span) is an idle frame, so the recording
+ends in idle frames too and the last frame with data is followed by enough signal for a receiver to
+finish it.  A packet whose last octets would have gone out in that tail is not complete in the
+recording and is not in the truth.  Only frames whose last channel symbol lies wholly inside the
+recording are in the truth, and only packets whose every octet is in such frames.
 """
 
 from __future__ import annotations
@@ -260,9 +262,9 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
     cadu_s = cadu_channel_bits / bps * T / fs
     span_s = (modulator.half_span + 1) * T / fs
     traffic_start = _LEAD_CADUS * cadu_s
-    traffic_stop = max(seconds - _TAIL_CADUS * cadu_s - span_s, traffic_start + 1e-9)
+    tail_start_s = seconds - _TAIL_CADUS * cadu_s - span_s
     source = PacketSource(traffic=S.traffic, start_ns=start_ns, seed=seed, start_s=traffic_start,
-                          stop_s=traffic_stop)
+                          stop_s=max(tail_start_s, traffic_start + 1e-9))
 
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -337,7 +339,7 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
             for _ in range(chunk_frames):
                 asm_bit = coder.channel_symbol_of_input_bit(coder.input_bits_done + coder.cadu_bits * len(built))
                 now_s = modulator.bit_position(asm_bit) / fs
-                built.append(builder.process(source.process(now_s)))
+                built.append(builder.process(source.process(now_s), force_idle=now_s >= tail_start_s))
             coded = coder.process([b.data for b in built])
             ends = np.append(coded.asm_bits[1:], coded.first_bit + coded.bits.size) - 1
             for b, asm_bit, last_bit in zip(built, coded.asm_bits, ends):
