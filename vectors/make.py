@@ -697,6 +697,18 @@ def main(argv=None) -> int:
                 else:
                     path.parent.mkdir(parents=True, exist_ok=True)
                     path.write_bytes(content)
+    # the fec engineer's vectors (vectors/fec/, not made here) are shipped in the bundle as they are
+    for src in sorted((ROOT / "fec").rglob("*")) if (ROOT / "fec").is_dir() else ():
+        if not src.is_file() or src.name.startswith(".") or "__pycache__" in src.parts:
+            continue
+        dst = BUNDLED / src.relative_to(ROOT)
+        if args.check:
+            if not dst.exists() or dst.read_bytes() != src.read_bytes():
+                print(f"differs: {dst.relative_to(ROOT.parent)}")
+                mismatches += 1
+        else:
+            dst.parent.mkdir(parents=True, exist_ok=True)
+            dst.write_bytes(src.read_bytes())
     print(f"{count} cases {'checked' if args.check else 'written'} to vectors/ and pipeline/data/vectors/")
     return 1 if mismatches else 0
 
