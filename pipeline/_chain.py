@@ -140,7 +140,7 @@ class DecodeChain:
                                flywheel=rx.flywheel_frames)
         self.codeblock = CodeblockDecoder(profile=profile)
         self.parser = FrameParser(frames=profile.frames)
-        self.accounting = ChannelAccounting()
+        self.accounting = ChannelAccounting(spacecraft_id=profile.frames.spacecraft_id)
         self.extractor = PacketExtractor(profile=profile)
         self.sinks: _Sinks | None = None
         # tracks for the report
@@ -280,6 +280,12 @@ class DecodeChain:
             self.sinks.frame(fd)
         for pkt in self.extractor.process(record) or ():
             self._packet(pkt)
+        for sg in self.extractor.take_sequence_gaps():
+            gd = sg.as_dict()
+            gd.setdefault("kind", "apid")
+            if "position" in gd:
+                gd["ert"] = self._ert(float(gd["position"]))
+            self.gaps.append(gd)
 
     def _ert(self, position: float) -> str | None:
         if self.timebase is None:
