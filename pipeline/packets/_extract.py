@@ -15,13 +15,13 @@ memory, not confirmed)
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from typing import Any
 
 from pipeline.link._accounting import count_step
-from pipeline.packets._time import default_leap_seconds
-from pipeline.packets._timecodes import decode_time_code
-from pipeline.profile import LinkProfile
+from pipeline.packets._time import default_leap_seconds, parse_epoch_ns
+from pipeline.packets._timecodes import cds_pfield_layout, cuc_pfield_layout, decode_time_code
+from pipeline.profile import LinkProfile, TimeCodeConfig
 
 __all__ = ["Packet", "PacketExtractor", "PacketStats", "SequenceGap", "IDLE_APID", "DROP_REASONS"]
 
@@ -209,6 +209,40 @@ class _VcState:
     frames: int = 0  # frames the partial spans so far
 
 
+def _checked_time_code(tc: TimeCodeConfig) -> TimeCodeConfig:
+    """Validate one ``[[packets.time_code]]`` entry once; an integral float P-field becomes an int.
+
+    (The TOML loader reads ``pfield = 0x1E`` into a field whose default is None as a float.)
+    """
+    where = f"Argument 'profile' [[packets.time_code]] apid {tc.apid}"
+    pfield = tc.pfield
+    if pfield is not None:
+        if isinstance(pfield, float) and pfield.is_integer():
+            pfield = int(pfield)
+        if isinstance(pfield, bool) or not isinstance(pfield, int):
+            raise ValueError(f"{where}: pfield must be an integer P-field or absent, not {tc.pfield!r}.")
+        try:
+            if tc.code == "cuc":
+                octets = pfield.to_bytes(2 if pfield > 0xFF else 1, "big") if 0 <= pfield <= 0xFFFF else b""
+                if not octets:
+                    raise ValueError(f"0x{pfield:x} is not one or two octets")
+                if cuc_pfield_layout(octets)[3] != len(octets):
+                    raise ValueError(f"0x{pfield:x}: the extension flag disagrees with its length")
+            else:
+                if not 0 <= pfield <= 0xFF:
+                    raise ValueError(f"0x{pfield:x} is not one octet")
+                cds_pfield_layout(pfield)
+        except ValueError as exc:
+            raise ValueError(f"{where}: pfield is not a valid {tc.code.upper()} P-field ({exc}).") from None
+    if isinstance(tc.offset, bool) or not isinstance(tc.offset, int) or not 0 <= tc.offset <= 65535:
+        raise ValueError(f"{where}: offset must be 0..65535 octets, not {tc.offset!r}.")
+    try:
+        parse_epoch_ns(tc.epoch)
+    except (TypeError, ValueError) as exc:
+        raise ValueError(f"{where}: {exc}") from None
+    return replace(tc, pfield=pfield)
+
+
 def _packet_length(head: bytes, encapsulation: bool, max_octets: int) -> int:
     """Whole length of the packet starting at ``head[0]``; _NEED_MORE or a negative code."""
     pvn = head[0] >> 5
@@ -290,7 +324,7 @@ class PacketExtractor:
         self.spacecraft_id = profile.frames.spacecraft_id
         self.encapsulation = bool(profile.packets.encapsulation)
         self.max_packet_octets = max_packet_octets
-        self.time_codes = {tc.apid: tc for tc in profile.packets.time_codes}
+        self.time_codes = {tc.apid: _checked_time_code(tc) for tc in profile.packets.time_codes}
         self._leap = default_leap_seconds() if self.time_codes else None
         self.reset()
 
@@ -314,6 +348,13 @@ class PacketExtractor:
         return []
 
     # ---- frames -----------------------------------------------------------------------------
+    def process_many(self, records) -> list[Packet]:
+        """Packets completed by a batch of frame records (the same as calling :meth:`process` on each)."""
+        out: list[Packet] = []
+        for record in records:
+            out += self.process(record)
+        return out
+
     def process(self, record, gap: bool = False) -> list[Packet]:
         """Packets completed by one frame record, in order.
 
@@ -325,6 +366,9 @@ class PacketExtractor:
             (the extractor also detects it from the counts).
         """
         S = self.stats
+        if record.status == "foreign_scid":
+            S.frames["foreign"] += 1
+            return []
         if record.status not in ("ok", "idle"):
             S.frames["unusable"] += 1
             return []

@@ -1,0 +1,531 @@
+"""Tests of pipeline.packets.PacketExtractor: reassembly across frames, gaps, bad data, time codes."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from test_link_builders import (
+    aos_frame,
+    aos_zone_length,
+    cut_stream,
+    decoded,
+    encap_packet,
+    idle_packet,
+    space_packet,
+    tm_frame,
+    tm_zone_length,
+)
+
+from pipeline.link import FrameParser
+from pipeline.packets import PacketExtractor, encode_cds, encode_cuc, tai_ns_to_utc_ns, utc_ns_to_tai_ns
+from pipeline.profile import FramesSection, LinkProfile, PacketsSection, TimeCodeConfig
+
+NS = 1_000_000_000
+
+
+def _profile(frames: FramesSection, **packets) -> LinkProfile:
+    return LinkProfile(frames=frames, packets=PacketsSection(**packets))
+
+
+TM = FramesSection(kind="tm", length=48, spacecraft_id=499)
+TM_FECF = FramesSection(kind="tm", length=60, spacecraft_id=499, fecf=True, ocf=True)
+AOS = FramesSection(kind="aos", length=56, spacecraft_id=0x5A, insert_zone_length=2)
+
+
+def _frames_for_vc(frames, vcid, zones, first_index=0, first_mc=0, pos0=0.0):
+    out = []
+    for i, z in enumerate(zones):
+        idx = first_index + i
+        if frames.kind == "tm":
+            f = tm_frame(frames, vcid=vcid, mcfc=(first_mc + i) % 256, vcfc=idx % 256, zone=z)
+        else:
+            f = aos_frame(frames, vcid=vcid, vcfc=idx % (1 << 24), zone=z)
+        out.append(decoded(f, position=pos0 + 1000.0 * i, rs=(i % 3,)))
+    return out
+
+
+def _zone_len(frames):
+    return tm_zone_length(frames) if frames.kind == "tm" else aos_zone_length(frames)
+
+
+def _run(frames, decs, **kw):
+    parser = FrameParser(frames=frames)
+    ex = PacketExtractor(profile=_profile(frames), **kw)
+    out = []
+    for d in decs:
+        out += ex.process(parser.process(d))
+    ex.flush()
+    return out, ex
+
+
+# ---- basic reassembly -----------------------------------------------------------------------
+
+@pytest.mark.kat
+def test_packets_within_and_across_frames():
+    pk = [space_packet(100, i, bytes([i]) * n) for i, n in enumerate((10, 3, 100, 1, 250, 21))]
+    zones, spans = cut_stream(pk, _zone_len(TM))
+    out, ex = _run(TM, _frames_for_vc(TM, 2, zones))
+    assert [p.data for p in out] == pk
+    for p, (a, b, _) in zip(out, spans):
+        # provenance: the frame holding the first octet
+        assert (p.vcid, p.vcfc, p.mcfc, p.position, p.rs_corrected, p.frames) == (2, a, a, 1000.0 * a, (a % 3,),
+                                                                                   b - a + 1)
+        assert p.apid == 100 and p.seq_flags == 3 and p.kind == "space" and p.time_ns is None
+    assert [p.seq_count for p in out] == list(range(6))
+    s = ex.stats.as_dict()
+    json.dumps(s)
+    assert s["packets"] == 6 and s["idle_packets"] == 1 and s["dropped_total"] == 0 and s["sequence_gaps"] == 0
+    assert s["apids"][0]["apid"] == 100 and s["apids"][0]["packets"] == 6
+    d = out[0].as_dict()
+    json.dumps(d)
+    assert d["hex"] == pk[0].hex() and d["apid"] == 100 and d["length"] == 16
+
+
+def test_header_split_across_frames():
+    zl = _zone_len(TM)
+    for split in range(1, 7):  # a header of which 1..5 octets are in the first frame
+        first = space_packet(1, 0, bytes(zl - 6 - split))
+        pk = [first, space_packet(1, 1, b"\xaa" * 30), space_packet(1, 2, b"\xbb")]
+        zones, _ = cut_stream(pk, zl)
+        out, ex = _run(TM, _frames_for_vc(TM, 0, zones))
+        assert [p.data for p in out] == pk, split
+
+
+def test_aos_mpdu_with_24_bit_count_wrap():
+    pk = [space_packet(7, i, bytes([i]) * (20 + 7 * i)) for i in range(12)]
+    zones, _ = cut_stream(pk, _zone_len(AOS))
+    decs = _frames_for_vc(AOS, 3, zones, first_index=(1 << 24) - 3)
+    out, ex = _run(AOS, decs)
+    assert [p.data for p in out] == pk and ex.stats.frames["gap"] == 0
+    assert out[0].mcfc is None and out[0].vcfc == (1 << 24) - 3
+
+
+# ---- gaps, duplicates, reordering -----------------------------------------------------------
+
+def test_gap_discards_partial_and_resyncs():
+    zl = _zone_len(TM)
+    pk = [space_packet(5, i, bytes([i]) * 60) for i in range(8)]  # 66 octets each, > one 42-octet zone
+    zones, spans = cut_stream(pk, zl)
+    decs = _frames_for_vc(TM, 0, zones)
+    lost = 4
+    out, ex = _run(TM, decs[:lost] + decs[lost + 1:])
+    whole = [p for p, (a, b, _) in zip(pk, spans) if b < lost or a > lost]
+    assert [p.data for p in out] == whole
+    assert ex.stats.dropped["frame_gap"] == 1 and ex.stats.frames["gap"] == 1
+    assert ex.stats.sequence_gaps >= 1
+    g = ex.take_sequence_gaps()
+    assert g and g[0].apid == 5 and ex.take_sequence_gaps() == []
+
+
+def test_rs_failed_frame_is_a_gap_and_duplicates_are_ignored():
+    zl = _zone_len(TM)
+    pk = [space_packet(5, i, bytes([i]) * 50) for i in range(10)]
+    zones, spans = cut_stream(pk, zl)
+    decs = _frames_for_vc(TM, 0, zones)
+    bad = decoded(b"\x00" * TM.length, position=decs[5].cadu.position, status="rs_uncorrectable")
+    feed = decs[:3] + [decs[2], decs[1]] + decs[3:5] + [bad] + decs[6:]
+    out, ex = _run(TM, feed)
+    assert [p.data for p in out] == [p for p, (a, b, _) in zip(pk, spans) if b < 5 or a > 5]
+    assert ex.stats.frames["duplicate"] == 1 and ex.stats.frames["out_of_order"] == 1
+    assert ex.stats.frames["unusable"] == 1
+
+
+def test_gap_argument_forces_resync():
+    pk = [space_packet(5, i, bytes(60)) for i in range(4)]
+    zones, _ = cut_stream(pk, _zone_len(TM))
+    decs = _frames_for_vc(TM, 0, zones)
+    parser = FrameParser(frames=TM)
+    ex = PacketExtractor(profile=_profile(TM))
+    recs = [parser.process(d) for d in decs]
+    out = ex.process(recs[0]) + ex.process(recs[1], gap=True)
+    assert ex.stats.dropped["frame_gap"] == 1 and pk[0] not in [p.data for p in out]
+
+
+# ---- bad data ------------------------------------------------------------------------------
+
+def test_length_beyond_stream_is_dropped_not_invented():
+    zl = _zone_len(TM)
+    liar = bytearray(space_packet(9, 0, bytes(30)))
+    liar[4:6] = (60000).to_bytes(2, "big")  # claims 60 007 octets
+    pk = [space_packet(9, 1, b"\x11" * 10), bytes(liar)] + [space_packet(9, i, b"\x22" * 50) for i in range(2, 6)]
+    zones, spans = cut_stream(pk, zl)
+    out, ex = _run(TM, _frames_for_vc(TM, 0, zones))
+    got = [p.data for p in out]
+    assert bytes(liar) not in got and pk[0] in got
+    assert all(p in pk for p in got)  # nothing that was not sent
+    assert ex.stats.dropped["fhp_mismatch"] >= 1
+    assert got[-1] == pk[-1]  # resynchronised at a later first header pointer
+
+
+def test_bad_version_and_too_long():
+    zl = _zone_len(TM)
+    bad = bytearray(space_packet(9, 0, bytes(12)))
+    bad[0] |= 0x40  # version 010
+    pk = [space_packet(9, 1, b"\x01" * 5), bytes(bad), space_packet(9, 2, b"\x02" * 5)] + \
+         [space_packet(9, i, b"\x03" * 70) for i in range(3, 6)]
+    zones, spans = cut_stream(pk, zl)
+    out, ex = _run(TM, _frames_for_vc(TM, 0, zones))
+    got = [p.data for p in out]
+    assert pk[0] in got and bytes(bad) not in got and all(p in pk for p in got)
+    assert ex.stats.dropped["bad_version"] == 1 and ex.stats.skipped_octets > 0
+    out, ex = _run(TM, _frames_for_vc(TM, 0, zones), max_packet_octets=40)
+    assert ex.stats.dropped["too_long"] >= 1 and all(len(p.data) <= 40 for p in out)
+
+
+def test_encapsulation_packets_and_idle_octets():
+    zl = _zone_len(TM)
+    pk = [encap_packet(2, b"\x10" * 5), b"\xe0", b"\xe0", encap_packet(3, b"\x20" * 300, lol=2),
+          encap_packet(4, b"\x30" * 9, lol=3), space_packet(8, 0, b"\x40" * 3), encap_packet(0, b"\x00" * 4)]
+    zones, _ = cut_stream(pk, zl, idle_fill=b"\xe0")
+    out, ex = _run(TM, _frames_for_vc(TM, 0, zones))
+    assert [p.data for p in out] == [pk[0], pk[3], pk[4], pk[5]]
+    assert [p.kind for p in out] == ["encapsulation"] * 3 + ["space"]
+    assert [p.protocol_id for p in out[:3]] == [2, 3, 4] and out[0].apid is None
+    assert ex.stats.encapsulation_idle >= 3 and ex.stats.encapsulation_packets == 3
+    # with encapsulation switched off, version 111 is a bad version
+    prof = LinkProfile(frames=TM, packets=PacketsSection(encapsulation=False))
+    ex = PacketExtractor(profile=prof)
+    parser = FrameParser(frames=TM)
+    for d in _frames_for_vc(TM, 0, zones):
+        assert all(p.kind == "space" for p in ex.process(parser.process(d)))
+    assert ex.stats.dropped["bad_version"] >= 1
+
+
+def test_sequence_count_wrap_and_gaps():
+    seqs = [16382, 16383, 0, 1, 4, 4, 3, 5]
+    pk = [space_packet(42, s, bytes(3)) for s in seqs]
+    zones, _ = cut_stream(pk, _zone_len(TM))
+    out, ex = _run(TM, _frames_for_vc(TM, 1, zones))
+    assert [p.seq_count for p in out] == seqs  # every packet is delivered; the counts are only checked
+    s = ex.stats.as_dict()
+    assert s["sequence_gaps"] == 1 and s["sequence_missing"] == 2 and s["sequence_out_of_order"] == 2
+    assert s["sequence_gap_events"][0] == {"apid": 42, "vcid": 1, "expected": 2, "got": 4, "missing": 2,
+                                           "position": 0.0}
+
+
+def test_fhp_mismatch_when_partial_does_not_end_at_pointer():
+    zl = _zone_len(TM)
+    pk = [space_packet(3, 0, bytes(60)), space_packet(3, 1, bytes(10)), space_packet(3, 2, bytes(10))]
+    zones, _ = cut_stream(pk, zl)
+    zones[1].fhp += 1  # the pointer in frame 1 no longer matches where packet 0 ends
+    out, ex = _run(TM, _frames_for_vc(TM, 0, zones))
+    got = [p.data for p in out]
+    assert pk[0] not in got and ex.stats.dropped["fhp_mismatch"] >= 1 and all(p in pk for p in got)
+
+
+def test_flush_counts_incomplete():
+    pk = [space_packet(3, 0, bytes(200))]
+    zones, _ = cut_stream(pk, _zone_len(TM))
+    parser, ex = FrameParser(frames=TM), PacketExtractor(profile=_profile(TM))
+    for d in _frames_for_vc(TM, 0, zones)[:2]:
+        ex.process(parser.process(d))
+    assert ex.flush() == [] and ex.stats.dropped["incomplete_at_end"] == 1
+    ex.reset()
+    assert ex.stats.packets == 0 and ex.channels == {}
+
+
+def test_foreign_idle_and_vca_frames_are_not_used():
+    zl = _zone_len(TM)
+    parser, ex = FrameParser(frames=TM), PacketExtractor(profile=_profile(TM))
+    pk = space_packet(1, 0, bytes(10))
+    foreign = tm_frame(TM, vcid=0, mcfc=0, vcfc=0, zone=pk + idle_packet(zl - len(pk)), fhp=0, scid=12)
+    idle = tm_frame(TM, vcid=0, mcfc=1, vcfc=0, zone=bytes(zl), fhp=0x7FE)
+    vca = tm_frame(TM, vcid=0, mcfc=2, vcfc=1, zone=pk + idle_packet(zl - len(pk)), fhp=0, sync=True)
+    assert ex.process(parser.process(decoded(foreign))) == []
+    assert ex.process(parser.process(decoded(idle))) == []
+    assert ex.process(parser.process(decoded(vca))) == []
+    assert ex.stats.frames["foreign"] == 1 and ex.stats.frames["idle"] == 1 and ex.stats.frames["no_packet_zone"] == 1
+
+
+def test_argument_errors():
+    with pytest.raises(TypeError, match="Argument 'profile' must be a LinkProfile"):
+        PacketExtractor(profile=TM)
+    with pytest.raises(ValueError, match="Argument 'max_packet_octets' must be 7..4294967295"):
+        PacketExtractor(profile=_profile(TM), max_packet_octets=3)
+    bad = LinkProfile(frames=TM, packets=PacketsSection(time_codes=(TimeCodeConfig(apid=5, pfield=0x4E),)))
+    with pytest.raises(ValueError, match="apid 5: pfield is not a valid CUC P-field"):
+        PacketExtractor(profile=bad)
+    bad = LinkProfile(frames=TM, packets=PacketsSection(time_codes=(TimeCodeConfig(apid=5, code="cds",
+                                                                                   pfield=0x1E),)))
+    with pytest.raises(ValueError, match="apid 5: pfield is not a valid CDS P-field"):
+        PacketExtractor(profile=bad)
+    bad = LinkProfile(frames=TM, packets=PacketsSection(time_codes=(TimeCodeConfig(apid=5, epoch="soon"),)))
+    with pytest.raises(ValueError, match="apid 5: Argument 'epoch'"):
+        PacketExtractor(profile=bad)
+
+
+# ---- time codes -----------------------------------------------------------------------------
+
+def test_time_codes_attached():
+    t_utc = 1_773_480_600 * NS + 250_000_000  # 2026-03-14T09:30:00.25Z
+    tai = utc_ns_to_tai_ns(t_utc)
+    codes = (TimeCodeConfig(apid=100, code="cuc", pfield=0x1E),
+             TimeCodeConfig(apid=101, code="cuc", pfield=None),
+             TimeCodeConfig(apid=102, code="cds", pfield=0x41, offset=1))
+    prof = LinkProfile(frames=TM, packets=PacketsSection(time_codes=codes))
+    pk = [space_packet(100, 0, encode_cuc(tai, pfield=0x1E) + b"hk", sec=True),
+          space_packet(101, 0, encode_cuc(tai, pfield=0x1F, explicit=True) + b"x", sec=True),
+          space_packet(102, 0, b"\x99" + encode_cds(tai, pfield=0x41) + b"y", sec=True),
+          space_packet(100, 1, b"\x00\x01", sec=True),  # too short for its time code
+          space_packet(100, 2, encode_cuc(tai, pfield=0x1E), sec=False),  # no secondary header
+          space_packet(200, 0, encode_cuc(tai, pfield=0x1E), sec=True)]  # APID without a time code
+    zones, _ = cut_stream(pk, _zone_len(TM))
+    parser, ex = FrameParser(frames=TM), PacketExtractor(profile=prof)
+    out = []
+    for d in _frames_for_vc(TM, 0, zones):
+        out += ex.process(parser.process(d))
+    assert [p.time_ns for p in out] == [t_utc, t_utc, t_utc, None, None, None]
+    assert out[0].time_tai_ns == tai and tai_ns_to_utc_ns(tai) == t_utc
+    assert ex.stats.time_codes == 3 and ex.stats.time_code_errors == 2
+
+
+def test_demo_profile_round_trip(demo_profile):
+    # Tamarisk: 1115-octet TM frames with OCF, CUC 0x1E on APIDs 100 and 300
+    F = demo_profile.frames
+    zl = tm_zone_length(F)
+    t0 = utc_ns_to_tai_ns(1_773_480_600 * NS)
+    pk = []
+    for i in range(40):
+        apid = (100, 200, 300)[i % 3]
+        body = (encode_cuc(t0 + i * NS // 10, pfield=0x1E) if apid != 200 else b"") + bytes([i]) * (60 + 37 * i)
+        pk.append(space_packet(apid, i // 3, body, sec=apid != 200))
+    zones, _ = cut_stream(pk, zl)
+    decs = [decoded(tm_frame(F, vcid=0, mcfc=i % 256, vcfc=i % 256, zone=z), position=i * 37_500.0)
+            for i, z in enumerate(zones)]
+    parser, ex = FrameParser(frames=F), PacketExtractor(profile=demo_profile)
+    out = [p for d in decs for p in ex.process(parser.process(d))]
+    assert [p.data for p in out] == pk
+    want = [tai_ns_to_utc_ns(t0 + i * NS // 10) for i in range(40) if i % 3 != 1]
+    got = [p.time_ns for p in out if p.apid != 200]
+    assert len(got) == len(want) and all(abs(g - w) <= NS / 2**17 for g, w in zip(got, want))  # half a 2^-16 s LSB
+
+
+# ---- property tests -------------------------------------------------------------------------
+
+def _reference_extract(records, scid, modulus_of):
+    """Slow obvious reference: per VC, join the packet zones of each run of accepted consecutive frames
+    into one string and read packets one after another from the run's first header pointer."""
+    out, last, runs = [], {}, {}
+    for r in records:
+        if r.status not in ("ok", "idle") or r.scid != scid or r.vcid is None:
+            continue
+        m = modulus_of(r)
+        prev = last.get(r.vcid)
+        d = None if prev is None else (r.vcfc - prev) % m
+        if d is not None and (d == 0 or d > m // 2):
+            continue  # duplicate or from the past
+        last[r.vcid] = r.vcfc
+        if d != 1:
+            _flush_run(runs.pop(r.vcid, None), out)
+            runs[r.vcid] = {"data": bytearray(), "starts": [], "origin": []}
+        run = runs[r.vcid]
+        if r.status == "idle" or r.packet_zone is None:
+            continue
+        if r.fhp != 0x7FF:
+            run["starts"].append(len(run["data"]) + r.fhp)
+        run["origin"].append((len(run["data"]), r))
+        run["data"] += r.packet_zone
+    for run in runs.values():
+        _flush_run(run, out)
+    return out
+
+
+def _flush_run(run, out):
+    if not run or not run["starts"]:
+        return
+    data, pos = bytes(run["data"]), run["starts"][0]
+    while pos < len(data):
+        if data[pos] == 0xE0:
+            pos += 1
+            continue
+        if data[pos] >> 5 == 7:
+            lol = data[pos] & 3
+            hl = (1, 2, 4, 8)[lol]
+            if pos + hl > len(data):
+                break
+            n = int.from_bytes(data[pos + {1: 1, 2: 2, 3: 4}[lol]:pos + hl], "big")
+        else:
+            if pos + 6 > len(data):
+                break
+            n = 7 + int.from_bytes(data[pos + 4:pos + 6], "big")
+        if pos + n > len(data):
+            break
+        pkt = data[pos:pos + n]
+        rec = [r for off, r in run["origin"] if off <= pos][-1]
+        idle = (pkt[0] >> 5 == 0 and ((pkt[0] & 7) << 8 | pkt[1]) == 0x7FF) or \
+               (pkt[0] >> 5 == 7 and (pkt[0] >> 2) & 7 == 0)
+        if not idle:
+            out.append((rec.vcid, pkt, rec.vcfc, rec.position))
+        pos += n
+
+
+@st.composite
+def _scenario(draw):
+    kind = draw(st.sampled_from(["tm", "tm_fecf", "aos"]))
+    frames = {"tm": TM, "tm_fecf": TM_FECF, "aos": AOS}[kind]
+    return dict(frames=frames, seed=draw(st.integers(0, 2**32 - 1)), n_vc=draw(st.integers(1, 3)),
+                n_packets=draw(st.integers(1, 30)), loss=draw(st.sampled_from([0.0, 0.05, 0.2])),
+                corrupt=draw(st.sampled_from([0.0, 0.05, 0.15])), dup=draw(st.sampled_from([0.0, 0.05])),
+                swap=draw(st.sampled_from([0.0, 0.05])), encap=draw(st.booleans()))
+
+
+def _build_and_impair(sc):
+    rng = np.random.default_rng(sc["seed"])
+    frames = sc["frames"]
+    zl = _zone_len(frames)
+    per_vc = {}
+    for v in range(sc["n_vc"]):
+        vcid = v * 3 + 1
+        pk = []
+        for i in range(sc["n_packets"]):
+            r = rng.random()
+            n = int(rng.integers(1, 40)) if r < 0.6 else int(rng.integers(40, 400))
+            body = rng.integers(0, 256, n, dtype=np.uint8).tobytes()
+            if sc["encap"] and rng.random() < 0.3:
+                lol = int(rng.integers(1 if n + 2 <= 255 else 2, 4))
+                pk.append(encap_packet(int(rng.integers(1, 8)), body, lol=lol))
+            elif rng.random() < 0.1:
+                pk.append(idle_packet(7 + n))
+            else:
+                pk.append(space_packet(int(rng.integers(0, 5)) * 10 + vcid, i, body))
+        fill = b"\xe0" if sc["encap"] and rng.random() < 0.5 else None
+        zones, spans = cut_stream(pk, zl, idle_fill=fill)
+        per_vc[vcid] = (pk, zones, spans)
+    # interleave the VCs' frames on the master channel, keeping each VC's order
+    order = [v for v, (_, zones, _) in per_vc.items() for _ in zones]
+    rng.shuffle(order)
+    nxt = {v: 0 for v in per_vc}
+    sent = []
+    for mc, v in enumerate(order):
+        i = nxt[v]
+        nxt[v] += 1
+        z = per_vc[v][1][i]
+        if frames.kind == "tm":
+            f = tm_frame(frames, vcid=v, mcfc=mc % 256, vcfc=i % 256, zone=z)
+        else:
+            f = aos_frame(frames, vcid=v, vcfc=(i + 16_777_000) % (1 << 24), zone=z)
+        sent.append({"vcid": v, "index": i, "frame": f, "position": 1000.0 * mc, "rs": (mc % 4,)})
+    # impairments
+    delivered = []
+    for s in sent:
+        r = rng.random()
+        if r < sc["loss"]:
+            continue
+        item = dict(s, good=True, status="ok")
+        if rng.random() < sc["corrupt"]:
+            item["good"] = False
+            if frames.fecf and rng.random() < 0.7:  # undetected by RS, caught by the FECF
+                f = bytearray(s["frame"])
+                f[int(rng.integers(len(f)))] ^= 1 << int(rng.integers(8))
+                item["frame"] = bytes(f)
+            else:
+                item["status"] = "rs_uncorrectable"
+                item["frame"] = rng.integers(0, 256, len(s["frame"]), dtype=np.uint8).tobytes()
+        delivered.append(item)
+        if rng.random() < sc["dup"]:
+            delivered.append(dict(item))
+    for i in range(len(delivered) - 1):
+        if rng.random() < sc["swap"]:
+            delivered[i], delivered[i + 1] = delivered[i + 1], delivered[i]
+    return per_vc, delivered
+
+
+def _expected(per_vc, delivered, modulus):
+    """Ground truth: packets whose frames all arrived good, accepted, in one run of consecutive counts."""
+    accepted = {v: [] for v in per_vc}
+    top = {v: -1 for v in per_vc}
+    for it in delivered:
+        if it["good"] and it["index"] > top[it["vcid"]]:
+            accepted[it["vcid"]].append(it)
+            top[it["vcid"]] = it["index"]
+    exp = {}
+    for v, (pk, zones, spans) in per_vc.items():
+        run_of, pos_of, run = {}, {}, -1
+        prev = None
+        for it in accepted[v]:
+            if prev is None or it["index"] != prev + 1:
+                run += 1
+            run_of[it["index"]] = run
+            pos_of[it["index"]] = it["position"]
+            prev = it["index"]
+        exp[v] = []
+        for p, (a, b, _) in zip(pk, spans):
+            is_idle = (p[0] >> 5 == 0 and ((p[0] & 7) << 8 | p[1]) == 0x7FF) or (p[0] >> 5 == 7 and (p[0] >> 2) & 7 == 0)
+            if is_idle:
+                continue
+            if all(k in run_of for k in range(a, b + 1)) and len({run_of[k] for k in range(a, b + 1)}) == 1:
+                exp[v].append((p, pos_of[a]))
+    return exp
+
+
+@given(_scenario())
+@settings(max_examples=60, deadline=None)
+def test_property_every_whole_packet_once_none_invented(sc):
+    frames = sc["frames"]
+    per_vc, delivered = _build_and_impair(sc)
+    parser, ex = FrameParser(frames=frames), PacketExtractor(profile=_profile(frames))
+    records = [parser.process(decoded(it["frame"], position=it["position"], status=it["status"], rs=it["rs"]))
+               for it in delivered]
+    for it, r in zip(delivered, records):
+        if not it["good"]:
+            assert r.status != "ok"  # corruption is never passed on as good
+    out = ex.process_many(records)
+    ex.flush()
+    exp = _expected(per_vc, delivered, None)
+    for v in per_vc:
+        assert [(p.data, p.position) for p in out if p.vcid == v] == exp[v]
+    # the slow reference reads the same packets from the same records
+    modulus_of = (lambda r: 256) if frames.kind == "tm" else (lambda r: r.vcfc_modulus)
+    ref = _reference_extract(records, frames.spacecraft_id, modulus_of)
+    for v in per_vc:
+        assert [(p.vcid, p.data, p.vcfc, p.position) for p in out if p.vcid == v] == [x for x in ref if x[0] == v]
+
+
+@given(_scenario(), st.lists(st.integers(1, 400), max_size=6))
+@settings(max_examples=25, deadline=None)
+def test_property_batches_give_the_same_packets(sc, cuts):
+    frames = sc["frames"]
+    _, delivered = _build_and_impair(sc)
+    parser = FrameParser(frames=frames)
+    records = [parser.process(decoded(it["frame"], position=it["position"], status=it["status"], rs=it["rs"]))
+               for it in delivered]
+    one = PacketExtractor(profile=_profile(frames))
+    each = [p for r in records for p in one.process(r)]
+    batched = PacketExtractor(profile=_profile(frames))
+    cuts = sorted({c for c in cuts if c < len(records)})
+    got = []
+    for lo, hi in zip([0, *cuts], [*cuts, len(records)]):
+        got += batched.process_many(records[lo:hi])
+    assert got == each and batched.stats.as_dict() == one.stats.as_dict()
+
+
+@given(st.lists(st.tuples(st.binary(min_size=0, max_size=60), st.integers(0, 0x7FF), st.integers(0, 255),
+                          st.sampled_from(["ok", "idle", "bad_header"])), max_size=40),
+       st.booleans())
+@settings(max_examples=300, deadline=None)
+def test_extractor_fuzz_never_crashes(items, encapsulation):
+    from pipeline.link import FrameRecord
+
+    ex = PacketExtractor(profile=LinkProfile(frames=TM, packets=PacketsSection(encapsulation=encapsulation)),
+                         max_packet_octets=300)
+    for i, (zone, fhp, vcfc, status) in enumerate(items):
+        rec = FrameRecord(status=status, kind="tm", position=float(i), scid=499, vcid=vcfc % 2, vcfc=vcfc,
+                          vcfc_modulus=256, mcfc=i % 256, fhp=fhp, packet_zone=zone, data_field=zone)
+        for p in ex.process(rec):
+            assert 1 <= len(p.data) <= 300
+            json.dumps(p.as_dict())
+    ex.flush()
+    json.dumps(ex.stats.as_dict())
+
+
+@given(st.binary(min_size=48, max_size=48), st.binary(min_size=48, max_size=48))
+@settings(max_examples=300, deadline=None)
+def test_parser_and_extractor_on_random_frames(a, b):
+    parser, ex = FrameParser(frames=TM), PacketExtractor(profile=_profile(TM))
+    for f in (a, b, a):
+        ex.process(parser.process(decoded(f)))
+    ex.flush()
