@@ -4,10 +4,14 @@ Decoded (or uncoded) soft bits -> :class:`FrameSync` -> :class:`Cadu` -> :class:
 -> :class:`DecodedFrame`.  :class:`BranchSync` comes first on convolutionally coded links.
 """
 
+from pipeline.sync._branchsync import BranchSync, BranchSyncStats, branch_metric
 from pipeline.sync._framesync import DEFAULT_ASM, FrameSync, FrameSyncStats
 from pipeline.sync._types import Cadu, DecodedFrame, FrameStatus, SyncEvent, SyncEventKind
 
 __all__ = [
+    "BranchSync",
+    "BranchSyncStats",
+    "branch_metric",
     "FrameSync",
     "FrameSyncStats",
     "DEFAULT_ASM",

@@ -10,7 +10,7 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["popcount64", "find_marker", "marker_mismatches", "hard_decisions"]
+__all__ = ["popcount64", "find_marker", "marker_mismatches", "hard_decisions", "reencode_metrics"]
 
 
 @numba.njit(cache=True)
@@ -93,3 +93,52 @@ def hard_decisions(soft, out):  # pragma: no cover - compiled
     """``out[i] = 1`` where ``soft[i] < 0`` (bit 1), else 0 (positive soft value = bit 0, 0.0 = erasure -> 0)."""
     for i in range(soft.shape[0]):
         out[i] = 1 if soft[i] < 0.0 else 0
+
+
+@numba.njit(cache=True)
+def reencode_metrics(bits, state, g1_mask, g2_mask, keep1, keep2, parity, soft, block_bits, metrics, states):
+    """Re-encode decoded bits with the (punctured) convolutional code and score them against soft symbols.
+
+    For block ``j`` (``block_bits`` bits; the last block may be shorter) ``metrics[j] = sum(s (1 - 2 c)) /
+    sum(|s|)`` over its transmitted symbols ``s`` and re-encoded code bits ``c`` (0.0 if all ``s`` are 0),
+    and ``states[j]`` = the encoder memory after it.  The register is ``(state << 1) | bit`` (bit 0 the
+    newest), C1 = parity(reg & g1_mask), C2 = NOT parity(reg & g2_mask), C1 first; ``keep1/keep2`` are
+    the puncturing rows (period = their length), starting at column 0.  ``parity`` is the 128-entry
+    parity table.  Returns the number of soft symbols used.  Cost O(len(bits)), no allocation.
+    """
+    period = keep1.shape[0]
+    n = bits.shape[0]
+    k = 0
+    phase = 0
+    for j in range(metrics.shape[0]):
+        a = j * block_bits
+        b = a + block_bits
+        if b > n:
+            b = n
+        corr = 0.0
+        mag = 0.0
+        for i in range(a, b):
+            reg = ((state << 1) | bits[i]) & 127
+            state = reg & 63
+            if keep1[phase]:
+                s = np.float64(soft[k])
+                k += 1
+                if parity[reg & g1_mask]:
+                    corr -= s
+                else:
+                    corr += s
+                mag += abs(s)
+            if keep2[phase]:
+                s = np.float64(soft[k])
+                k += 1
+                if parity[reg & g2_mask]:
+                    corr += s  # inverted output: parity 1 sends 0
+                else:
+                    corr -= s
+                mag += abs(s)
+            phase += 1
+            if phase == period:
+                phase = 0
+        metrics[j] = corr / mag if mag > 0.0 else 0.0
+        states[j] = state
+    return k

@@ -1,0 +1,437 @@
+"""Branch synchronization: Viterbi decoding with the convolutional branch alignment and the QPSK 90-degree
+ambiguity resolved by the decoder's metric growth."""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from pipeline.fec import (
+    ViterbiDecoder,
+    conv_bit_symbol_index,
+    conv_encode,
+    conv_output_length,
+    puncture_pattern,
+    viterbi_decode,
+)
+from pipeline.profile import CONV_RATES, Modulation
+from pipeline.sync import _kernels
+from pipeline.sync._types import SyncEvent
+
+__all__ = ["BranchSync", "BranchSyncStats", "branch_metric"]
+
+_MODULATIONS = ("bpsk", "qpsk", "oqpsk", "pcm-pm", "pcm-psk-pm")
+# CCSDS 131.0-B-2 sec. 3.3.1: G1 = 1111001 (171 octal), G2 = 1011011 (133 octal), the leftmost bit tapping
+# the input.  The re-encoding register keeps the input in bit 0, so the printed vectors are bit-reversed.
+_G1_MASK = int(f"{0o171:07b}"[::-1], 2)
+_G2_MASK = int(f"{0o133:07b}"[::-1], 2)
+_PARITY = np.array([bin(v).count("1") & 1 for v in range(128)], dtype=np.uint8)
+_SIGNS = np.array([1.0, -1.0], dtype=np.float32)  # bit 0 -> +1.0, bit 1 -> -1.0
+_GUARD_PERIODS = 16  # decoded periods ignored at each end of an evaluation window (no prior state, short traceback)
+
+
+@dataclass
+class BranchSyncStats:
+    """Counters of one :class:`BranchSync` run."""
+
+    channel_bits_in: int = 0
+    bits_out: int = 0
+    evaluations: int = 0  # times all hypotheses were decoded and compared
+    switches: int = 0  # evaluations that changed the hypothesis (the first choice included)
+    monitor_triggers: int = 0  # re-evaluations asked by the metric monitor
+    lost_lock_notices: int = 0  # re-evaluations asked through notify_lost_lock()
+    blocks: int = 0  # monitored blocks of decoded bits
+    blocks_below_threshold: int = 0
+    channel_bits_discarded: int = 0  # channel bits never decoded (before a switch, or too few at the end)
+    last_metric: float = float("nan")  # normalized metric of the last monitored block
+
+    def as_dict(self) -> dict:
+        return asdict(self)
+
+
+def branch_metric(soft: np.ndarray, codeword_bits: np.ndarray) -> float:
+    """Normalized correlation ``sum(soft * (1 - 2 c)) / sum(|soft|)`` of soft symbols with code bits ``c``.
+
+    1.0 when every symbol agrees with the codeword; for the Viterbi decision re-encoded this is the
+    survivor's correlation path metric per unit of soft magnitude, i.e. the decoder's metric growth.
+    Returns 0.0 when all soft values are zero (erasures).
+    """
+    mag = float(np.sum(np.abs(soft), dtype=np.float64))
+    if mag == 0.0:
+        return 0.0
+    return float(np.dot(soft.astype(np.float64), 1.0 - 2.0 * codeword_bits.astype(np.float64)) / mag)
+
+
+class BranchSync:
+    """Viterbi decoding of soft channel bits with the branch alignment and QPSK rotation found and followed.
+
+    Parameters
+    ----------
+    rate : {"none", "1/2", "2/3", "3/4", "5/6", "7/8"}
+        Convolutional code rate of the link; "none" passes the soft channel bits through.
+    modulation : {"bpsk", "qpsk", "oqpsk", "pcm-pm", "pcm-psk-pm"}
+        With QPSK/OQPSK the 90-degree rotation is also resolved: channel bits are taken in pairs
+        (I bit, Q bit) from the first bit of the stream.
+    acquire_bits : int
+        Decoded bits per hypothesis used to choose a hypothesis (256 .. 65536).
+    block_bits : int
+        Decoded bits per monitored block (256 .. 65536).
+    patience : int
+        Consecutive monitored blocks below the threshold that trigger a re-evaluation (1 .. 16).
+    traceback_depth : int, optional
+        Passed to :class:`pipeline.fec.ViterbiDecoder`.
+
+    Attributes
+    ----------
+    hypothesis : tuple of (int, int) or None
+        ``(offset, rotation)``: branches start at channel-bit indices ``= offset (mod P)``, P the
+        channel bits per puncturing period (2 at rate 1/2, 3, 4, 6, 8 at 2/3 .. 7/8); ``rotation``
+        1 means every pair (a, b) of channel bits was replaced by (b, -a) before decoding (undoing
+        a 90-degree carrier phase rotation).
+    threshold : float
+        Current monitor threshold on the normalized metric.
+
+    Notes
+    -----
+    Hypotheses: ``P`` branch offsets, times 2 rotations for QPSK/OQPSK.  The 180-degree rotation
+    (and the BPSK inversion) needs none: the CCSDS code's generators both have odd weight, so the
+    complement of a codeword is the codeword of the complemented bits, and the inverted decoded
+    stream is resolved by the frame synchronizer's inverted ASM.
+
+    Evaluation at channel index ``t``: for each hypothesis, ``acquire_bits`` bits' worth of
+    channel bits from the first index ``>= t`` of its alignment are decoded
+    (:func:`pipeline.fec.viterbi_decode`), re-encoded (:func:`pipeline.fec.conv_encode`) and
+    correlated with the soft input (:func:`branch_metric`, ends excluded).  For the right
+    hypothesis the metric is the channel's own agreement (0.87 at Eb/N0 = 0 dB, 0.95 at 3 dB for
+    rate 1/2); for a wrong one the decoder only finds the nearest codeword to a non-codeword
+    (about 0.84 at rate 1/2, 0.98 at rate 7/8), so the largest metric wins.  The monitor
+    threshold is then set midway between the winner and the best loser.
+
+    Tracking: the chosen hypothesis is decoded by one :class:`pipeline.fec.ViterbiDecoder`; the
+    output is cut into blocks of ``block_bits`` (counted from the segment start), each re-encoded
+    with a running encoder and scored the same way (kernel ``reencode_metrics``).  ``patience``
+    blocks in a row below the threshold (a symbol slip, a 90-degree phase jump) start a
+    re-evaluation at the end of the last block; when another hypothesis wins, decoding restarts
+    at its first aligned index there (the bits of the old hypothesis after that point are
+    dropped); otherwise the running decoder simply continues.  Decisions depend only on the data,
+    so the output is the same for any chunking.  :meth:`notify_lost_lock` asks for a
+    re-evaluation at the next block boundary not yet output (this one depends on when it is
+    called).
+
+    Cost: about (1 + H acquire_bits / interval) Viterbi decodes per bit, H hypotheses, plus one
+    re-encoding; memory: the decoder's block (16384 steps) plus one monitored block.
+
+    References
+    ----------
+    CCSDS 131.0-B-2 sec. 3 (code, puncturing); CCSDS 130.1-G-1 sec. 8.3 (node synchronization);
+    metric-growth node synchronization: common practice, no published source.
+    """
+
+    def __init__(
+        self,
+        *,
+        rate: str,
+        modulation: Modulation,
+        acquire_bits: int = 4096,
+        block_bits: int = 2048,
+        patience: int = 2,
+        traceback_depth: int | None = None,
+    ) -> None:
+        if rate not in CONV_RATES:
+            raise ValueError(f"Argument 'rate' must be one of {' | '.join(CONV_RATES)}, not {rate!r}.")
+        if modulation not in _MODULATIONS:
+            raise ValueError(f"Argument 'modulation' must be one of {' | '.join(_MODULATIONS)}, not {modulation!r}.")
+        _check_int("acquire_bits", acquire_bits, 256, 65536)
+        _check_int("block_bits", block_bits, 256, 65536)
+        _check_int("patience", patience, 1, 16)
+        self.rate = rate
+        self.modulation = modulation
+        self.patience = int(patience)
+        self.traceback_depth = traceback_depth
+        self.coded = rate != "none"
+        self.stats = BranchSyncStats()
+        self.events: list[SyncEvent] = []
+        if self.coded:
+            pat = puncture_pattern(rate)
+            self.period_bits = int(pat.shape[1])  # information bits per puncturing period
+            self.period_symbols = int(pat.sum())  # channel bits per puncturing period
+            kp, P = self.period_bits, self.period_symbols
+            self.block_bits = -(-int(block_bits) // kp) * kp
+            self.acquire_bits = -(-int(acquire_bits) // kp) * kp
+            self._block_symbols = self.block_bits // kp * P
+            self._acquire_periods = self.acquire_bits // kp
+            tbl = conv_bit_symbol_index(kp, rate)
+            k = np.arange(self.block_bits)
+            self._block_index = (k // kp) * P + tbl[k % kp]  # first channel bit of each branch in a block
+            self._keep1 = np.ascontiguousarray(pat[0], dtype=np.uint8)
+            self._keep2 = np.ascontiguousarray(pat[1], dtype=np.uint8)
+            rotations = (0, 1) if modulation in ("qpsk", "oqpsk") else (0,)
+            self.hypotheses = tuple((off, rot) for rot in rotations for off in range(P))
+            ViterbiDecoder(rate=rate, traceback_depth=traceback_depth)  # validates traceback_depth once, here
+        else:
+            self.period_bits = self.period_symbols = 1
+            self.block_bits = self.acquire_bits = 0
+            self.hypotheses = ((0, 0),)
+        self._clear_stream()
+
+    # ---- public -----------------------------------------------------------------------------
+    @property
+    def hypothesis(self) -> tuple[int, int] | None:
+        return self._hyp
+
+    def reset(self) -> None:
+        """Forget the stream, statistics and events."""
+        self.stats = BranchSyncStats()
+        self.events = []
+        self._clear_stream()
+
+    def notify_lost_lock(self) -> None:
+        """The frame synchronizer lost lock: re-evaluate the hypotheses at the next block not yet output."""
+        if not self.coded:
+            return
+        self.stats.lost_lock_notices += 1
+        if self._pending is None and self._hyp is not None:
+            self._pending = self._seg_start + (self._seg_done // self.block_bits) * self._block_symbols
+
+    def process(self, soft: np.ndarray, position: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Take soft channel bits (float, + = 0) and their sample positions; return decoded bits so far.
+
+        Returns
+        -------
+        bits : numpy.ndarray of float32
+            +1.0 for bit 0, -1.0 for bit 1 (uncoded links: the input soft values unchanged).
+        position : numpy.ndarray of float64
+            For each bit, the position of the first channel bit of its branch.
+        """
+        soft, position = _as_inputs(soft, position)
+        self.stats.channel_bits_in += soft.size
+        if not self.coded:
+            self.stats.bits_out += soft.size
+            return soft.copy(), position.copy()
+        if soft.size:
+            self._raw_soft = np.concatenate((self._raw_soft, soft))
+            self._raw_pos = np.concatenate((self._raw_pos, position))
+            self._n_in += soft.size
+        self._run(final=False)
+        return self._take_output()
+
+    def flush(self) -> tuple[np.ndarray, np.ndarray]:
+        """End of stream: decode everything received and return the remaining bits; then start afresh.
+
+        Statistics and events are kept.
+        """
+        if not self.coded:
+            return np.zeros(0, np.float32), np.zeros(0, np.float64)
+        self._run(final=True)
+        out = self._take_output()
+        self._clear_stream()
+        return out
+
+    # ---- internals --------------------------------------------------------------------------------
+    def _clear_stream(self) -> None:
+        self._raw_soft = np.zeros(0, np.float32)
+        self._raw_pos = np.zeros(0, np.float64)
+        self._raw_base = 0  # absolute channel index of _raw_soft[0]
+        self._n_in = 0
+        self._hyp: tuple[int, int] | None = None
+        self._pending: int | None = 0 if self.coded else None  # channel index of the next evaluation
+        self._seg_start = 0
+        self._dec: ViterbiDecoder | None = None
+        self._fed = 0
+        self._flushed = False
+        self._seg_bits = np.zeros(0, np.uint8)  # decoded bits of the segment from _seg_done on
+        self._enc_state = 0  # re-encoder memory at _seg_done (0 at a segment start: its true state is unknown)
+        self._seg_done = 0  # segment bits already scored and output
+        self._bad = 0
+        self.threshold = float("nan")
+        self._out_bits: list[np.ndarray] = []
+        self._out_pos: list[np.ndarray] = []
+
+    def _take_output(self) -> tuple[np.ndarray, np.ndarray]:
+        if self._out_bits:
+            bits = np.concatenate(self._out_bits)
+            pos = np.concatenate(self._out_pos)
+        else:
+            bits, pos = np.zeros(0, np.float32), np.zeros(0, np.float64)
+        self._out_bits, self._out_pos = [], []
+        self._trim()
+        return bits, pos
+
+    def _trim(self) -> None:
+        if self._pending is not None:
+            keep = self._pending
+        else:
+            keep = self._seg_start + (self._seg_done // self.block_bits) * self._block_symbols
+            keep = min(keep, self._fed)
+        keep -= keep % 2  # keep rotation pairs whole
+        drop = keep - self._raw_base
+        if drop > 0:
+            self._raw_soft = self._raw_soft[drop:]
+            self._raw_pos = self._raw_pos[drop:]
+            self._raw_base += drop
+
+    def _view(self, a: int, b: int, rotation: int) -> np.ndarray:
+        """Soft channel bits [a, b) (absolute) with the rotation hypothesis applied."""
+        if not rotation:
+            return self._raw_soft[a - self._raw_base : b - self._raw_base]
+        lo, hi = a - a % 2, b + b % 2
+        pairs = self._raw_soft[lo - self._raw_base : hi - self._raw_base].reshape(-1, 2)
+        rot = np.empty_like(pairs)
+        rot[:, 0] = pairs[:, 1]
+        rot[:, 1] = -pairs[:, 0]
+        return rot.reshape(-1)[a - lo : b - lo]
+
+    def _available(self, rotation: int) -> int:
+        """One past the last channel index usable under a rotation (pairs must be complete)."""
+        return self._n_in - (self._n_in % 2 if rotation else 0)
+
+    def _run(self, final: bool) -> None:
+        while True:
+            if self._pending is not None:
+                if not self._evaluate(self._pending, final):
+                    return
+                continue
+            if not self._track(final):
+                return
+
+    def _evaluate(self, t: int, final: bool) -> bool:
+        """Score every hypothesis on the window starting at channel index t; False if it needs more input."""
+        P = self.period_symbols
+        need = t + (self._acquire_periods + 1) * P + 1
+        if need > self._n_in and not final:
+            return False
+        min_periods = 4 * _GUARD_PERIODS
+        scores = []
+        for off, rot in self.hypotheses:
+            s0 = t + (off - t) % P
+            periods = min(self._acquire_periods, (self._available(rot) - s0) // P)
+            if periods < min_periods:
+                scores.append(-np.inf)
+                continue
+            soft = self._view(s0, s0 + periods * P, rot)
+            code = conv_encode(viterbi_decode(soft, self.rate, traceback_depth=self.traceback_depth), self.rate)
+            g = _GUARD_PERIODS * P
+            scores.append(branch_metric(soft[g : periods * P - g], code[g : periods * P - g]))
+        self._pending = None
+        if not np.isfinite(max(scores)):
+            # only at the end of the stream: too little left to judge.  Keep the current hypothesis;
+            # without one, the remaining channel bits cannot be decoded.
+            if self._dec is None:
+                self.stats.channel_bits_discarded += max(0, self._n_in - t)
+            return True
+        self.stats.evaluations += 1
+        order = np.argsort(-np.asarray(scores), kind="stable")
+        best = int(order[0])
+        runner_up = float(scores[order[1]]) if len(scores) > 1 else float(scores[best]) - 0.1
+        if not np.isfinite(runner_up):
+            runner_up = float(scores[best]) - 0.1
+        self.threshold = 0.5 * (float(scores[best]) + runner_up)
+        hyp = self.hypotheses[best]
+        if hyp == self._hyp and self._dec is not None:
+            return True  # same hypothesis: the running decoder continues without a break
+        # the old segment ends at t: its decoded bits from t on are dropped (t is re-decoded)
+        off, rot = hyp
+        self._hyp = hyp
+        self._seg_start = t + (off - t) % P
+        self.stats.channel_bits_discarded += self._seg_start - t
+        self._dec = ViterbiDecoder(rate=self.rate, traceback_depth=self.traceback_depth)
+        self._enc_state = 0
+        self._fed = self._seg_start
+        self._flushed = False
+        self._seg_bits = np.zeros(0, np.uint8)
+        self._seg_done = 0
+        self._bad = 0
+        self.stats.switches += 1
+        pos = float(self._raw_pos[self._seg_start - self._raw_base]) if self._seg_start < self._n_in else float("nan")
+        self.events.append(
+            SyncEvent(
+                kind="branch_selected",
+                bit_index=self.stats.bits_out,
+                position=pos,
+                detail=f"offset {off}, rotation {90 * rot} deg, metric {scores[best]:.4f} vs {runner_up:.4f}",
+            )
+        )
+        return True
+
+    def _track(self, final: bool) -> bool:
+        """Decode and score; False when nothing more can be done with the input at hand."""
+        if self._dec is None:
+            return False
+        rot = self._hyp[1]
+        end = self._available(rot)
+        if end > self._fed:
+            new = self._dec.process(self._view(self._fed, end, rot))
+            self._fed = end
+            if new.size:
+                self._seg_bits = np.concatenate((self._seg_bits, new))
+        if final and not self._flushed:
+            tail = self._dec.flush()
+            self._flushed = True
+            self.stats.channel_bits_discarded += self._n_in - self._fed
+            if tail.size:
+                self._seg_bits = np.concatenate((self._seg_bits, tail))
+        B, Bs = self.block_bits, self._block_symbols
+        n_blocks = self._seg_bits.size // B
+        partial = final and self._flushed and self._seg_bits.size % B
+        if partial:
+            n_blocks += 1
+        if n_blocks == 0:
+            return False
+        n_bits = min(n_blocks * B, self._seg_bits.size)
+        a = self._seg_start + (self._seg_done // B) * Bs
+        soft = np.ascontiguousarray(self._view(a, a + conv_output_length(n_bits, self.rate), rot))
+        metrics = np.empty(n_blocks, np.float64)
+        states = np.empty(n_blocks, np.int64)
+        _kernels.reencode_metrics(self._seg_bits[:n_bits], self._enc_state, _G1_MASK, _G2_MASK, self._keep1,
+                                  self._keep2, _PARITY, soft, B, metrics, states)
+        used = n_blocks
+        trigger = False
+        for j in range(n_blocks):
+            if partial and j == n_blocks - 1:
+                break  # the last, partial block at the end of the stream: output, not judged
+            self.stats.blocks += 1
+            self.stats.last_metric = float(metrics[j])
+            if metrics[j] < self.threshold:
+                self.stats.blocks_below_threshold += 1
+                self._bad += 1
+            else:
+                self._bad = 0
+            if self._bad >= self.patience:
+                self._bad = 0
+                self.stats.monitor_triggers += 1
+                used = j + 1
+                trigger = True
+                break
+        n_out = min(used * B, n_bits)
+        bits = self._seg_bits[:n_out]
+        idx = (np.arange(used, dtype=np.int64)[:, None] * Bs + self._block_index[None, :]).reshape(-1)[:n_out]
+        self._out_bits.append(_SIGNS[bits])
+        self._out_pos.append(self._raw_pos[a - self._raw_base + idx])
+        self.stats.bits_out += n_out
+        self._seg_bits = self._seg_bits[n_out:]
+        self._enc_state = int(states[used - 1])
+        self._seg_done += n_out
+        if trigger:
+            self._pending = a + used * Bs
+            return True
+        return False
+
+
+def _check_int(name: str, value, lo: int, hi: int) -> None:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+        raise TypeError(f"Argument '{name}' must be an integer, not {type(value).__name__}.")
+    if not lo <= value <= hi:
+        raise ValueError(f"Argument '{name}' must be {lo}..{hi}, not {value}.")
+
+
+def _as_inputs(soft, position) -> tuple[np.ndarray, np.ndarray]:
+    soft = np.asarray(soft)
+    position = np.asarray(position)
+    if soft.ndim != 1:
+        raise ValueError(f"Argument 'soft' must be one-dimensional, not {soft.ndim}-dimensional.")
+    if not (np.issubdtype(soft.dtype, np.floating) or np.issubdtype(soft.dtype, np.integer)):
+        raise TypeError(f"Argument 'soft' must hold real numbers, not {soft.dtype}.")
+    if position.shape != soft.shape:
+        raise ValueError(f"Argument 'position' must have the length of 'soft' ({soft.size}), not {position.size}.")
+    return np.ascontiguousarray(soft, dtype=np.float32), np.ascontiguousarray(position, dtype=np.float64)
