@@ -194,3 +194,34 @@ def esn0_from_ser(ser: float, modulation: str) -> float:
         else:
             hi = mid
     return 0.5 * (lo + hi)
+
+
+def bit_errors_iq(block, wave: Waveform, skip: int = 2000):
+    """Bit errors of a QPSK/OQPSK soft stream (I, Q interleaved) against the transmitted bits.
+
+    The demodulator's ambiguity (a 90-degree rotation maps I to Q and Q to -I; for OQPSK that also
+    moves the symbol boundary by half a symbol) is resolved by trying a lag of -1, 0, +1 channel
+    bits and a sign per channel, keeping the best.  Returns ``(errors, compared)``.
+    """
+    sps = np.median(np.diff(wave.peak_position))
+    pos = block.position[0::2]
+    k0 = int(np.rint((pos[skip] - wave.peak_position[0]) / sps))
+    rx = block.soft[2 * skip:]
+    tx = np.empty(2 * wave.i_bits.size, dtype=np.uint8)
+    tx[0::2] = wave.i_bits
+    tx[1::2] = wave.q_bits
+    best = None
+    for lag in (-1, 0, 1):
+        a = 2 * k0 + lag
+        if a < 0:
+            continue
+        n = min(rx.size, tx.size - a) - 4
+        r = (rx[:n] < 0).astype(np.uint8)
+        t = tx[a:a + n]
+        e = 0
+        for par in (0, 1):
+            d = np.count_nonzero(r[par::2] != t[par::2])
+            e += min(d, r[par::2].size - d)
+        if best is None or e < best[0]:
+            best = (e, n)
+    return best

@@ -7,6 +7,7 @@ lock detection, M2M4 Es/N0 estimation, and NRZ-M line decoding; plus ``inspect_r
 from pipeline.demod._acquire import CarrierEstimate, estimate_carrier_offset
 from pipeline.demod._demodulator import DemodStats, Demodulator, SymbolBlock, TrackPoint
 from pipeline.demod._filters import matched_filter_taps, raised_cosine_pulse, rrc_pulse
+from pipeline.demod._inspect import fit_carrier_track, inspect_recording, write_inspect_plots
 from pipeline.demod._line import LineDecoder
 from pipeline.demod._snr import estimate_esn0_m2m4, m2m4_signal_noise
 
@@ -19,6 +20,9 @@ __all__ = [
     "TrackPoint",
     "estimate_carrier_offset",
     "estimate_esn0_m2m4",
+    "fit_carrier_track",
+    "inspect_recording",
+    "write_inspect_plots",
     "m2m4_signal_noise",
     "matched_filter_taps",
     "raised_cosine_pulse",

@@ -16,6 +16,7 @@ from pipeline.demod._kernels import (
     STATE_I_SIZE,
     derotate,
     fir_interleaved,
+    power_nonzero,
     track_symbols,
 )
 from pipeline.demod._snr import estimate_esn0_m2m4
@@ -190,14 +191,15 @@ class Demodulator:
         r0 = midpoint_energy_ratio(link.pulse, link.rolloff)
         qpsk = self._mod_code != 0
         params = np.zeros(PARAM_SIZE, dtype=np.float64)
-        params[:18] = [
+        params[:19] = [
             sps, 2.0 * _ZETA * wnt, wnt * wnt, kp_c, ki_c, kr_c, min(0.2, 4.0 * kp_c2),
             1.0 / 1024.0,                       # amplitude (M2M4) averaging
-            1.0 / (1024.0 if qpsk else 256.0),  # carrier-lock averaging: r^4 is noisier than r^2
+            1.0 / (2048.0 if qpsk else 256.0),  # carrier-lock averaging: r^4 is noisier than r^2
             1.0 / 1024.0,                       # symbol-lock averaging
-            0.6, 0.3, 0.1,                      # carrier lock on / off (relative), minimum absolute
+            0.6, 0.3, 0.15 if qpsk else 0.25,   # carrier lock on / off (relative), minimum absolute
             0.5, 0.25, 0.04,                    # symbol lock on / off (relative), minimum absolute
             r0, kd,
+            256.0,                              # warm-up symbols before any lock is declared
         ]
         self._params = params
         self.reset()
@@ -292,8 +294,8 @@ class Demodulator:
 
     def _feed_block(self, block: np.ndarray, parts: list, final: bool = False) -> None:
         block = np.array(block, dtype=np.complex64)  # own copy: sanitised in place
-        bad = ~np.isfinite(block)
-        if bad.any():
+        if not np.isfinite(block.view(np.float32).sum()):
+            bad = ~np.isfinite(block)
             nbad = int(bad.sum())
             # Chunk readers normally zero these already; count only the ones that reach us
             self.stats.nonfinite_samples += nbad
@@ -328,9 +330,8 @@ class Demodulator:
         fs = self.sample_rate_hz
         n = block.size
         if not tail:
-            nz = block[block != 0]
-            if nz.size:
-                p = float(np.mean(nz.real.astype(np.float64) ** 2 + nz.imag.astype(np.float64) ** 2))
+            p, cnt = power_nonzero(block)
+            if cnt:
                 self._agc_power = p if self._agc_power == 0.0 else 0.8 * self._agc_power + 0.2 * p
         gain = 1.0 / math.sqrt(self._agc_power) if self._agc_power > 0.0 else 1.0
         y = np.empty(n, dtype=np.complex64)
@@ -358,7 +359,7 @@ class Demodulator:
         pos, sym, amp, flags, theta = pos[:nsym], sym[:nsym], amp[:nsym], flags[:nsym], theta[:nsym]
         # carrier frequency over the block: NCO plus the loop's phase advance between strobes
         sym_period = self.samples_per_symbol * (1.0 - self._sf[1])
-        if nsym >= 2 and pos[-1] > pos[0]:
+        if nsym >= 64 and pos[-1] > pos[0]:
             loop_hz = (theta[-1] - theta[0]) / (2.0 * math.pi) * fs / (pos[-1] - pos[0])
         else:
             loop_hz = self._sf[3] * fs / (2.0 * math.pi * sym_period)

@@ -109,6 +109,8 @@ def matched_filter_taps(pulse: str, rolloff: float, samples_per_symbol: float, s
         lo = np.maximum(k - 0.5, -0.5 * sps)
         hi = np.minimum(k + 0.5, 0.5 * sps)
         h = np.clip(hi - lo, 0.0, None)
+        while h.size > 1 and h[0] == 0.0:  # symmetric, so trim both ends
+            h = h[1:-1]
     h = h / math.sqrt(float(np.sum(h * h)))
     return h.astype(np.float32)
 

@@ -17,6 +17,7 @@ __all__ = [
     "track_symbols",
     "nrzm_decode",
     "moments_m2m4",
+    "power_nonzero",
     "STATE_F_SIZE",
     "STATE_I_SIZE",
     "PARAM_SIZE",
@@ -69,15 +70,19 @@ def fir_interleaved(u2, taps, out2):
     nout = out2.shape[0]
     ntap = taps.shape[0]
     blk = 1024
+    acc = np.empty(blk, dtype=np.float32)
     for j0 in range(0, nout, blk):
-        j1 = min(j0 + blk, nout)
-        for j in range(j0, j1):
-            out2[j] = 0.0
+        m = min(blk, nout - j0)
+        for j in range(m):
+            acc[j] = 0.0
         for k in range(ntap):
             hk = taps[k]
-            off = 2 * k
-            for j in range(j0, j1):
-                out2[j] += hk * u2[j + off]
+            # a slice of the input: the compiler then knows it does not alias the accumulator
+            seg = u2[j0 + 2 * k:j0 + 2 * k + m]
+            for j in range(m):
+                acc[j] += hk * seg[j]
+        for j in range(m):
+            out2[j0 + j] = acc[j]
 
 
 @njit(cache=True)
@@ -95,7 +100,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
         No strobe at or beyond this sample position is taken (end of the recording at flush).
     params : float64 array
         ``[sps, kp_t, ki_t, kp_c, ki_c, kr_c, kp_c_wide, alpha_amp, alpha_lock_c, alpha_lock_s,
-        c_on, c_off, c_min, s_on, s_off, s_min, r0, kd, 0, 0]``.
+        c_on, c_off, c_min, s_on, s_off, s_min, r0, kd, warmup, 0]``; no lock is declared before
+        ``warmup`` symbols have been averaged.
     mod_code : int
         0 BPSK, 1 QPSK, 2 OQPSK.
     third_order : int
@@ -106,7 +112,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
         5-10 the previous three half-strobe values (re, im), 11-12 EMA sums of ``|r|^2`` and
         ``|r|^4``, 13 EMA weight, 14-15 carrier-lock EMAs (numerator, denominator), 16-17 on-time /
         midpoint energy EMAs, 18 amplitude, 19 position of the pending on-time strobe.
-        ``si``: 0 half-strobe parity (0 = next is on-time), 1 carrier lock, 2 symbol lock.
+        ``si``: 0 half-strobe parity (0 = next is on-time), 1 carrier lock, 2 symbol lock,
+        3 symbols seen (saturating at ``warmup``).
     out_pos, out_sym, out_amp, out_flags, out_theta
         Per symbol: position (samples), carrier-corrected symbol, amplitude estimate,
         flags (bit 0 carrier lock, bit 1 symbol lock), carrier phase.
@@ -148,6 +155,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
     s_min = params[15]
     r0 = params[16]
     kd = params[17]
+    warmup = params[18]
 
     t = sf[0]
     v_int = sf[1]
@@ -172,9 +180,16 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
     parity = si[0]
     clock = si[1]
     slock = si[2]
+    seen = si[3]
 
     inv_sqrt2 = 1.0 / math.sqrt(2.0)
     nout = 0
+    # carrier phasor exp(j theta): advanced by small-angle rotations, recomputed exactly every
+    # 64 half-strobes (and at every call), so it never drifts from theta by more than ~1e-7 rad
+    cs = math.cos(theta)
+    sn = math.sin(theta)
+    theta_ph = theta
+    nresync = 0
     while t < t_limit:
         m = int(math.floor(t))
         i = m - base
@@ -205,8 +220,18 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
         c3i = -x0i / 6.0 + 0.5 * x1i - 0.5 * x2i + x3i / 6.0
         vr = x1r + mu * (c1r + mu * (c2r + mu * c3r))
         vi = x1i + mu * (c1i + mu * (c2i + mu * c3i))
-        cs = math.cos(theta)
-        sn = math.sin(theta)
+        d = theta - theta_ph
+        if nresync >= 64 or d > 0.3 or d < -0.3:
+            cs = math.cos(theta)
+            sn = math.sin(theta)
+            nresync = 0
+        else:
+            d2 = d * d
+            cd = 1.0 - d2 * (0.5 - d2 / 24.0)
+            sd = d * (1.0 - d2 / 6.0)
+            cs, sn = cs * cd - sn * sd, sn * cd + cs * sd
+            nresync += 1
+        theta_ph = theta
         wr = vr * cs + vi * sn
         wi = vi * cs - vr * sn
 
@@ -262,8 +287,10 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
             cden = (1.0 - a_lc) * cden + a_lc * qd
             cval = cnum / cden if cden > 0.0 else 0.0
             cnorm = cval / (expect if expect > 0.1 else 0.1)
+            if seen < warmup:
+                seen += 1
             if clock == 0:
-                if cnorm > c_on and cval > c_min:
+                if cnorm > c_on and cval > c_min and seen >= warmup:
                     clock = 1
             else:
                 if cnorm < c_off or cval < 0.5 * c_min:
@@ -276,7 +303,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
             rho = sig / m2 if m2 > 0.0 else 0.0
             dnorm = dval / (r0 * (rho if rho > 0.05 else 0.05))
             if slock == 0:
-                if dnorm > s_on and dval > s_min:
+                if dnorm > s_on and dval > s_min and seen >= warmup:
                     slock = 1
             else:
                 if dnorm < s_off or dval < 0.5 * s_min:
@@ -341,6 +368,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
     si[0] = parity
     si[1] = clock
     si[2] = slock
+    si[3] = seen
     return nout
 
 
@@ -380,3 +408,16 @@ def moments_m2m4(sym, out):
     else:
         out[0] = 0.0
         out[1] = 0.0
+
+
+@njit(cache=True)
+def power_nonzero(x):
+    """Mean ``|x|^2`` over the non-zero samples of ``x`` (zeros are erasures), and their count."""
+    acc = 0.0
+    cnt = 0
+    for i in range(x.shape[0]):
+        p = float(x[i].real) ** 2 + float(x[i].imag) ** 2
+        if p > 0.0:
+            acc += p
+            cnt += 1
+    return (acc / cnt if cnt > 0 else 0.0), cnt
