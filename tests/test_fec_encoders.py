@@ -302,18 +302,21 @@ def test_rs_encode_vs_reedsolo(e, interleave, rng):
             assert bytes(c2d[np.frombuffer(bytes(ref), np.uint8)]) == cw_dual.tobytes()
 
 
-def test_rs_encode_vs_galois(rng):
+def test_rs_codewords_vanish_at_galois_roots(rng):
     import galois
 
-    # galois (PyPI): same field, primitive element a^11, first consecutive root c = 112
+    # galois (PyPI) field arithmetic: every interleaved codeword, read in the conventional basis,
+    # evaluates to zero at the 2E roots (a^11)^j, j = 128-E..127+E (131.0-B sec. 4.3.3)
     gf = galois.GF(2**8, irreducible_poly=0x187, primitive_element=0xAD, verify=False)
-    rs = galois.ReedSolomon(255, 223, field=gf, alpha=gf(0xAD), c=112)
     c2d, d2c = dual_basis_tables()
-    data = rng.integers(0, 256, 223 * 2, dtype=np.uint8)
-    block = rs_encode(data, interleave=2)
-    for c in range(2):
-        ref = rs.encode(gf(d2c[data[c::2]].astype(int)))
-        assert np.array_equal(c2d[np.asarray(ref, dtype=np.uint8)], block[c::2])
+    for e in (16, 8):
+        roots = gf(0xAD) ** np.arange(128 - e, 128 + e)
+        block = rs_encode(rng.integers(0, 256, (255 - 2 * e - 7) * 3, dtype=np.uint8), e=e, interleave=3)
+        for c in range(3):
+            poly = galois.Poly(gf(d2c[block[c::3]].astype(int)))
+            assert not np.any(poly(roots))
+        poly = galois.Poly(gf(d2c[block[0::3]].astype(int) ^ 1))
+        assert np.any(poly(roots))
 
 
 def test_rs_encode_shortened_equals_zero_prefix(rng):

@@ -27,7 +27,7 @@ from pipeline.fec._markers import (
     marker_bits,
 )
 from pipeline.fec._randomizer import pn_sequence
-from pipeline.fec._rs import dual_basis_tables, rs_encode, rs_generator, rs_k
+from pipeline.fec._rs import dual_basis_tables, rs_decode, rs_decode_blocks, rs_encode, rs_generator, rs_k
 from pipeline.fec._viterbi import DEFAULT_TRACEBACK_DEPTH, ViterbiDecoder, viterbi_decode
 
 __all__ = [
@@ -50,6 +50,8 @@ __all__ = [
     "marker_bits",
     "pn_sequence",
     "rs_encode",
+    "rs_decode",
+    "rs_decode_blocks",
     "rs_generator",
     "rs_k",
     "dual_basis_tables",

@@ -17,6 +17,7 @@ __all__ = [
     "pn_bits_kernel",
     "crc16_kernel",
     "rs_remainder_kernel",
+    "rs_decode_kernel",
     "soft_quantize_kernel",
     "depuncture_kernel",
     "decision_pack_kernel",
@@ -275,3 +276,179 @@ def viterbi_traceback_kernel(words, n_rows, state, n_emit, out):
         out[t] = st & one
         st = (st >> one) | (((words[t] >> st) & one) << np.uint64(5))
     return st
+
+
+# ---- Reed-Solomon decoder ----------------------------------------------------------------------
+#
+# Logarithms are to the base b = a^11 (the code-root element), so root j is b^j and the locator of
+# the symbol of polynomial degree d is b^d.  ``b_exp`` has 512 entries: the sum of two logarithms
+# (each < 255) needs no reduction, which keeps ``%`` out of the inner loops.
+
+
+@njit(cache=True)
+def _gf_mul(x, y, b_exp, b_log):
+    if x == 0 or y == 0:
+        return 0
+    return b_exp[b_log[x] + b_log[y]]
+
+
+@njit(cache=True)
+def _rs_correct_codeword(rem, n_par, fcr, max_degree, b_exp, b_log, syn, lam, prev, tmp, omega, err_deg, err_val):
+    """Locate and size the errors of one codeword from its remainder ``rem`` (conventional basis).
+
+    ``rem[i]`` is the coefficient of x^(2E-1-i) of r(x) mod g(x).  Symbols exist for polynomial
+    degrees 0..``max_degree`` (virtual fill above).  Writes the degrees and values of the errors
+    to ``err_deg``/``err_val`` and returns their number, or -1 if the word is uncorrectable.
+    Steps: syndromes S_j = rem(b^(fcr+j)); Berlekamp-Massey; Chien search over the transmitted
+    degrees only; Forney, e = X^(1-fcr) Omega(1/X) / Lambda'(1/X).
+    """
+    e = n_par // 2
+    # syndromes by Horner on the 2E-term remainder (not on the 255-term word)
+    for j in range(n_par):
+        p = fcr + j
+        acc = 0
+        for i in range(n_par):
+            if acc != 0:
+                acc = b_exp[b_log[acc] + p]
+            acc ^= rem[i]
+        syn[j] = acc
+    # Berlekamp-Massey: lam = C(x), prev = B(x), both of length 2E + 1
+    for i in range(n_par + 1):
+        lam[i] = 0
+        prev[i] = 0
+    lam[0] = 1
+    prev[0] = 1
+    big_l = 0
+    m = 1
+    bb = 1
+    for n in range(n_par):
+        d = syn[n]
+        for i in range(1, big_l + 1):
+            if lam[i] != 0 and syn[n - i] != 0:
+                d ^= b_exp[b_log[lam[i]] + b_log[syn[n - i]]]
+        if d == 0:
+            m += 1
+            continue
+        coef_log = b_log[d] + 255 - b_log[bb]
+        if coef_log >= 255:
+            coef_log -= 255
+        if 2 * big_l <= n:
+            for i in range(n_par + 1):
+                tmp[i] = lam[i]
+            for i in range(m, n_par + 1):
+                if prev[i - m] != 0:
+                    lam[i] ^= b_exp[coef_log + b_log[prev[i - m]]]
+            big_l = n + 1 - big_l
+            for i in range(n_par + 1):
+                prev[i] = tmp[i]
+            bb = d
+            m = 1
+        else:
+            for i in range(m, n_par + 1):
+                if prev[i - m] != 0:
+                    lam[i] ^= b_exp[coef_log + b_log[prev[i - m]]]
+            m += 1
+    if big_l > e:
+        return -1
+    for i in range(big_l + 1, n_par + 1):
+        if lam[i] != 0:
+            return -1
+    # Chien search: Lambda(b^-d) for d = 0..max_degree; term i steps by b^-i per degree
+    n_terms = 0
+    for i in range(1, big_l + 1):
+        if lam[i] != 0:
+            tmp[n_terms] = b_log[lam[i]]  # running log of lam_i b^(-i d)
+            prev[n_terms] = 255 - i  # log step per degree
+            n_terms += 1
+    n_found = 0
+    for d in range(max_degree + 1):
+        v = 1  # lam_0
+        for t in range(n_terms):
+            v ^= b_exp[tmp[t]]
+            lt = tmp[t] + prev[t]
+            if lt >= 255:
+                lt -= 255
+            tmp[t] = lt
+        if v == 0:
+            if n_found == big_l:
+                return -1
+            err_deg[n_found] = d
+            n_found += 1
+    if n_found != big_l:
+        return -1
+    # Omega(x) = S(x) Lambda(x) mod x^L (its degree is below L)
+    for i in range(big_l):
+        acc = 0
+        for j in range(i + 1):
+            if lam[j] != 0 and syn[i - j] != 0:
+                acc ^= b_exp[b_log[lam[j]] + b_log[syn[i - j]]]
+        omega[i] = acc
+    # Forney
+    for k in range(n_found):
+        d = err_deg[k]
+        inv_log = (255 - d) % 255  # log of X^-1
+        num = 0
+        for i in range(big_l - 1, -1, -1):  # Horner, Omega(X^-1)
+            if num != 0:
+                num = b_exp[b_log[num] + inv_log]
+            num ^= omega[i]
+        den = 0
+        top = big_l if big_l % 2 == 1 else big_l - 1  # Lambda'(x) = sum of odd i: lam_i x^(i-1)
+        for i in range(top, 0, -2):
+            if den != 0:
+                den = b_exp[b_log[den] + 2 * inv_log - 255 * (2 * inv_log >= 255)]
+            den ^= lam[i]
+        if num == 0 or den == 0:
+            return -1
+        val_log = (b_log[num] + 255 - b_log[den] + d * (256 - fcr)) % 255  # X^(1-fcr) = b^(d (1 - fcr))
+        err_val[k] = b_exp[val_log]
+    return n_found
+
+
+@njit(cache=True)
+def rs_decode_kernel(blocks, n_rows, interleave, n_par, fcr, fill, dual_to_conv, conv_to_dual, gtab,
+                     b_exp, b_log, out, corrected):
+    """Decode ``blocks`` (shape (B, (255 - fill) I), dual basis) into ``out`` (shape (B, n_rows I)).
+
+    ``n_rows = 255 - 2E - fill`` data symbols per codeword.  Per codeword the remainder of r(x)
+    modulo g(x) is computed with the encoder's LFSR (``rs_remainder_kernel``) and XORed with the
+    received check symbols: all zero means a clean codeword (the fast path, about (2E/8 + 1) word
+    operations per octet); otherwise ``_rs_correct_codeword`` runs.  ``corrected[b, c]`` receives
+    the number of symbols corrected in codeword c of block b, or -1 (data left as received).
+    """
+    n_words = gtab.shape[1]
+    rem = np.zeros((interleave, n_words), dtype=np.uint64)
+    r8 = np.zeros(n_par, dtype=np.int64)
+    syn = np.zeros(n_par, dtype=np.int64)
+    lam = np.zeros(n_par + 1, dtype=np.int64)
+    prev = np.zeros(n_par + 1, dtype=np.int64)
+    tmp = np.zeros(n_par + 1, dtype=np.int64)
+    omega = np.zeros(n_par, dtype=np.int64)
+    err_deg = np.zeros(n_par, dtype=np.int64)
+    err_val = np.zeros(n_par, dtype=np.int64)
+    n_data = n_rows * interleave
+    max_degree = 254 - fill
+    for blk in range(blocks.shape[0]):
+        block = blocks[blk]
+        rs_remainder_kernel(block, n_rows, interleave, dual_to_conv, gtab, rem)
+        for i in range(n_data):
+            out[blk, i] = block[i]
+        for c in range(interleave):
+            nonzero = False
+            for i in range(n_par):
+                w = rem[c, i // 8]
+                v = np.int64((w >> np.uint64(56 - 8 * (i % 8))) & np.uint64(0xFF))
+                v ^= np.int64(dual_to_conv[block[n_data + i * interleave + c]])
+                r8[i] = v
+                if v != 0:
+                    nonzero = True
+            if not nonzero:
+                corrected[blk, c] = 0
+                continue
+            n_err = _rs_correct_codeword(r8, n_par, fcr, max_degree, b_exp, b_log, syn, lam, prev, tmp,
+                                         omega, err_deg, err_val)
+            corrected[blk, c] = n_err
+            for k in range(max(n_err, 0)):
+                row = max_degree - err_deg[k]  # index within the transmitted codeword
+                if row < n_rows:
+                    out[blk, row * interleave + c] ^= conv_to_dual[err_val[k]]

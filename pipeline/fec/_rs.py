@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 
 from pipeline.fec._args import as_bytes, check_int
-from pipeline.fec._kernels import rs_remainder_kernel
+from pipeline.fec._kernels import rs_decode_kernel, rs_remainder_kernel
 
 __all__ = [
     "RS_FIELD_POLY",
@@ -20,6 +20,8 @@ __all__ = [
     "dual_basis_tables",
     "rs_encode",
     "rs_fill",
+    "rs_decode",
+    "rs_decode_blocks",
 ]
 
 #: F(x) = x^8 + x^7 + x^2 + x + 1 (131.0-B sec. 4.3.2).
@@ -228,3 +230,95 @@ def rs_encode(data, e: int = 16, interleave: int = 1):
     rs_fill(arr.shape[0], e, interleave)
     out = np.concatenate([arr, _parity_bytes(arr, e, interleave)])
     return out.tobytes() if as_bytes_out else out
+
+
+def _decode(blocks: np.ndarray, e: int, interleave: int) -> tuple[np.ndarray, np.ndarray]:
+    n_par = 2 * e
+    length = blocks.shape[1]
+    k = _N - n_par
+    if length % interleave or not (n_par + 1) * interleave <= length <= _N * interleave:
+        raise ValueError(
+            f"Argument 'codeblock' must have a length that is a multiple of interleave {interleave} in "
+            f"{(n_par + 1) * interleave}..{_N * interleave}, not {length}."
+        )
+    fill = _N - length // interleave
+    n_rows = k - fill
+    out = np.empty((blocks.shape[0], n_rows * interleave), dtype=np.uint8)
+    corrected = np.empty((blocks.shape[0], interleave), dtype=np.int64)
+    rs_decode_kernel(blocks, n_rows, interleave, n_par, 128 - e, fill, DUAL_TO_CONV, CONV_TO_DUAL, _GTAB[e],
+                     B_EXP, B_LOG, out, corrected)
+    return out, corrected
+
+
+def rs_decode(codeblock, e: int = 16, interleave: int = 1):
+    """Correct a CCSDS Reed-Solomon codeblock and return its data octets.
+
+    Parameters
+    ----------
+    codeblock : bytes-like or uint8 array
+        ``(255 - q) I`` octets in transmission order (dual basis, de-randomized, ASM removed): the
+        data followed by the 2 E I check octets, symbol-interleaved.  The virtual fill q per
+        codeword is inferred from the length.
+    e : {16, 8}
+        Correctable symbols per codeword: RS(255,223) or RS(255,239).
+    interleave : int
+        Interleave depth I, 1..8.
+
+    Returns
+    -------
+    data : bytes or numpy.ndarray of uint8
+        The ``(k - q) I`` corrected data octets (same kind as ``codeblock``).  A codeword that
+        cannot be corrected is left exactly as received.
+    corrected : tuple of int
+        Per codeword (c = 0..I-1, codeword c owns octets c, c + I, ...): the number of symbols
+        corrected (0 for a clean codeword), or -1 when it is uncorrectable.  Bad data is reported
+        here, never raised.
+
+    Notes
+    -----
+    Per codeword: the remainder r(x) mod g(x) is computed by the encoder's byte-wise LFSR; if it is
+    zero the codeword is clean (the fast path, one table row per octet).  Otherwise the 2E
+    syndromes are evaluated on the 2E-term remainder, the error locator found by Berlekamp-Massey,
+    its roots by a Chien search restricted to the transmitted positions (a root in the virtual
+    fill means failure), and the values by Forney's formula.  A codeword is declared correctable
+    only when the locator of degree L <= E has exactly L distinct roots there, so a corrected
+    codeword always has zero syndromes.  Cost: O(n) per clean codeword, O(n E) otherwise.
+
+    References
+    ----------
+    CCSDS 131.0-B sec. 4; E. R. Berlekamp, Algebraic Coding Theory (1968); J. L. Massey, "Shift-
+    register synthesis and BCH decoding", IEEE Trans. IT-15, 1969; G. D. Forney, "On decoding BCH
+    codes", IEEE Trans. IT-11, 1965; Lin & Costello, Error Control Coding, 2nd ed., ch. 7.
+    """
+    arr, as_bytes_out = as_bytes("codeblock", codeblock)
+    e = _check_e(e)
+    interleave = _check_interleave(interleave)
+    data, corrected = _decode(arr.reshape(1, -1), e, interleave)
+    counts = tuple(int(v) for v in corrected[0])
+    return (data[0].tobytes() if as_bytes_out else data[0]), counts
+
+
+def rs_decode_blocks(codeblocks, e: int = 16, interleave: int = 1) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`rs_decode` for many codeblocks of one length at once (one compiled call).
+
+    Parameters
+    ----------
+    codeblocks : numpy.ndarray of uint8, shape (B, L)
+        B codeblocks of the same length L, one per row.
+    e, interleave : as :func:`rs_decode`.
+
+    Returns
+    -------
+    data : numpy.ndarray of uint8, shape (B, (k - q) I)
+    corrected : numpy.ndarray of int64, shape (B, I)
+        As in :func:`rs_decode`, -1 for an uncorrectable codeword.
+    """
+    if not isinstance(codeblocks, np.ndarray):
+        raise TypeError(f"Argument 'codeblocks' must be a uint8 array, not {type(codeblocks).__name__}.")
+    if codeblocks.ndim != 2:
+        raise ValueError(f"Argument 'codeblocks' must be 2-D (blocks, octets), not {codeblocks.ndim}-D.")
+    if codeblocks.dtype != np.uint8:
+        raise TypeError(f"Argument 'codeblocks' must be a uint8 array, not dtype {codeblocks.dtype}.")
+    e = _check_e(e)
+    interleave = _check_interleave(interleave)
+    return _decode(np.ascontiguousarray(codeblocks), e, interleave)
