@@ -73,11 +73,14 @@ def scatter_pulses(values, k0, p0, period, shift, table, table_step, half_span, 
         lo = int(math.ceil(p - half_span * period))
         hi = int(math.floor(p + half_span * period))
         v = values[i]
+        # table coordinate of sample lo, then a constant step per sample (saves a division per tap)
+        u0 = ((lo - p) / period + half_span) * table_step
+        du = table_step / period
         for n in range(lo, hi + 1):
             idx = n - base
             if idx < 0 or idx >= n_buf:
                 continue
-            u = ((n - p) / period + half_span) * table_step
+            u = u0 + (n - lo) * du
             j = int(math.floor(u))
             if j < 0 or j >= last_j:
                 continue
