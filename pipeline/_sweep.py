@@ -291,7 +291,8 @@ def simulate_chain_point(profile: LinkProfile, ebn0_db: float, *, frames: int, e
     count), or the one that does differs in content; decoded packets that are in no truth are
     ``spurious_packets``.  ``bit_errors`` are the differing bits of delivered packets (undetected
     errors), over the bits of all truth packets.  A truth frame counts as a frame error when no
-    frame with its (VCID, MCFC) was delivered with status ``ok`` at about its position.
+    frame with its (VCID, VCFC, and MCFC for TM) was delivered with status ``ok`` (``idle`` for an
+    Only-Idle-Data frame).
     """
     from pipeline._chain import decode_to_folder
     from pipeline.sim import simulate
@@ -333,10 +334,16 @@ def simulate_chain_point(profile: LinkProfile, ebn0_db: float, *, frames: int, e
                 pt.packet_errors += 1
                 pt.bit_errors += best
         pt.spurious_packets += sum(len(v) for k, v in delivered.items() if k not in truth_keys)
-        ok_frames = {(f.get("vcid"), f.get("mcfc")) for f in got_frames if f.get("status") == "ok"}
+        tm = profile.frames.kind == "tm"
+
+        def frame_key(f):  # counters wrap at 256 (TM) but a recording holds fewer frames than that
+            return (f.get("vcid"), f.get("vcfc"), f.get("mcfc") if tm else None)
+
+        # an Only-Idle-Data frame is delivered with status "idle" (pipeline.link), a good one with "ok"
+        delivered_frames = {frame_key(f) for f in got_frames if f.get("status") in ("ok", "idle")}
         for f in truth_frames:
             pt.frames += 1
-            if (f.get("vcid"), f.get("mcfc")) not in ok_frames:
+            if frame_key(f) not in delivered_frames:
                 pt.frame_errors += 1
         pt.extra.setdefault("recordings", 0)
         pt.extra["recordings"] += 1
