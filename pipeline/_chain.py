@@ -2,7 +2,7 @@
 
 The chain is the only place that knows the order of the stages (../shared/DESIGN.md, data flow):
 
-    samples -> Demodulator -> LineDecoder -> BranchSync (Viterbi) -> FrameSync -> CodeblockDecoder
+    samples -> Demodulator -> BranchSync (Viterbi) -> LineDecoder (NRZ-M) -> FrameSync -> CodeblockDecoder
             -> FrameParser -> ChannelAccounting -> PacketExtractor -> sinks
 
 Every stage streams with explicit state, so the chain holds constant memory whatever the length of
@@ -237,13 +237,15 @@ class DecodeChain:
 
     def _channel(self, soft: np.ndarray, position: np.ndarray) -> None:
         self.channel_symbols += len(soft)
-        soft = self.line.process(soft)
         bits, pos = self.branch.process(soft, position)
         self._bits(bits, pos)
 
     def _bits(self, bits: np.ndarray, pos: np.ndarray) -> None:
         if len(bits) == 0:
             return
+        # CCSDS 131.0-B-2 sec. 3.3.3: NRZ-M conversion is done at the convolutional encoder input,
+        # so it is undone at the decoder output (uncoded links: the same place, on channel bits).
+        bits = self.line.process(bits)
         was = self.fsync.locked if hasattr(self.fsync, "locked") else None
         for cadu in self.fsync.process(bits, pos):
             self._cadu(cadu)
