@@ -281,3 +281,25 @@ def test_phase_noise_kernel_recursion():
         ref.append(th)
     np.testing.assert_allclose(out, ref, rtol=1e-15)
     assert last == pytest.approx(ref[-1])
+
+
+@pytest.mark.kat
+def test_rect_and_channel_kernels_small():
+    # rect: sample n belongs to the symbol whose rectangle [p0 + (k - 1/2) T, p0 + (k + 1/2) T) holds it
+    bits = np.array([0, 1, 1, 0, 1, 0, 0, 0, 1, 1], np.uint8)
+    mod = Modulator(link=_link("bpsk", "rect"), sample_rate_hz=FS, timing_offset=0.8)
+    s = np.concatenate([mod.process(bits).samples, mod.flush().samples])
+    T = mod.period
+    n = np.arange(s.size)
+    k = np.floor((n - 0.8 * T) / T + 0.5).astype(int)
+    ok = (k >= 0) & (k < bits.size)
+    np.testing.assert_array_equal(s[ok].real, 1.0 - 2.0 * bits[k[ok]])
+    assert np.all(s[~ok] == 0)
+    # channel: closed-form rotation and gain, no noise
+    ch = Channel(sample_rate_hz=FS, carrier_offset_hz=1234.0, doppler_rate_hz_per_s=5e4, phase0_rad=1.0,
+                 fades=[(0.0001, 0.0002, 6.0)])
+    x = np.exp(1j * np.arange(500) * 0.01)
+    y = ch.process(x)
+    t = np.arange(500) / FS
+    g = np.where((t >= 0.0001) & (t < 0.0003), 10 ** (-6 / 20), 1.0)
+    np.testing.assert_allclose(y, x * g * np.exp(1j * (1.0 + 2 * np.pi * (1234.0 * t + 2.5e4 * t * t))), atol=1e-9)

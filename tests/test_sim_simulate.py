@@ -212,8 +212,19 @@ def test_same_seed_same_bytes_and_chunking_invariance(tmp_path):
 
 def test_aos_and_oqpsk_rect(tmp_path):
     prof = _profile(kind="aos", mod="oqpsk", pulse="rect", conv="7/8", rs=8, interleave=2, length=478, fecf=True)
-    res = simulate(prof, tmp_path, seed=4)
+    from pipeline.sim import DopplerPass
+
+    dp = DopplerPass(peak_hz=5000.0, tca_s=0.25, tau_s=0.1)
+    res = simulate(prof, tmp_path, seed=4, carrier_offset_hz=100.0, doppler_rate_hz_per_s=0.0, doppler_pass=dp,
+                   fades=[(0.1, 0.02, 100.0)])
     frames = _jsonl(res.truth_frames_path)
+    for f in frames:
+        t = f["position"] / 1e6
+        want = 100.0 - 5000.0 * (t - 0.25) / math.hypot(0.1, t - 0.25)  # the straight-line pass of DopplerPass
+        assert f["carrier_offset_hz"] == pytest.approx(want, abs=1e-6)
+    meta = json.loads(res.meta_path.read_text())
+    assert [a["core:label"] for a in meta["annotations"]] == ["dropout"]  # depth >= 100 dB is a dropout
+    assert meta["annotations"][0]["core:sample_start"] == 100_000
     assert {f["vcid"] for f in frames} >= {0, 1, 2, 63}
     assert all(f["mcfc"] is None for f in frames)
     pk = _jsonl(res.truth_path)
