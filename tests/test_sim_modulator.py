@@ -301,5 +301,5 @@ def test_rect_and_channel_kernels_small():
     x = np.exp(1j * np.arange(500) * 0.01)
     y = ch.process(x)
     t = np.arange(500) / FS
-    g = np.where((t >= 0.0001) & (t < 0.0003), 10 ** (-6 / 20), 1.0)
+    g = np.where((t >= 0.0001) & (t < 0.0001 + 0.0002), 10 ** (-6 / 20), 1.0)  # [start, start + duration)
     np.testing.assert_allclose(y, x * g * np.exp(1j * (1.0 + 2 * np.pi * (1234.0 * t + 2.5e4 * t * t))), atol=1e-9)
