@@ -262,3 +262,46 @@ def test_kat_reencode_kernel_matches_fec_encoder(rate):
     for b in bits:
         last = ((last << 1) | int(b)) & 63
     assert states[-1] == last
+
+
+# ---- uncoded QPSK: rotation by markers --------------------------------------------------------------------
+def uncoded_cadu_stream(rng, n_frames, frame_bits=2000):
+    from pipeline.fec import ASM
+
+    marker = np.unpackbits(np.frombuffer(ASM, dtype=np.uint8))
+    parts = [rng.integers(0, 2, 100, dtype=np.uint8)]
+    for _ in range(n_frames):
+        parts += [marker, rng.integers(0, 2, frame_bits, dtype=np.uint8)]
+    parts.append(rng.integers(0, 2, 1, dtype=np.uint8))  # an odd length: the last bit has no partner
+    return np.concatenate(parts)
+
+
+@pytest.mark.parametrize("turns", [0, 1, 2, 3])
+def test_uncoded_qpsk_rotation_resolved_by_markers(rng, turns):
+    bits = uncoded_cadu_stream(rng, 40)
+    soft = (1.0 - 2.0 * bits).astype(np.float32)
+    rx = np.concatenate((rotate(soft, turns), soft[-1:]))
+    pos = np.arange(rx.size, dtype=np.float64)
+    bs = BranchSync(rate="none", modulation="qpsk", marker_block_bits=8192)
+    out, opos = run(bs, rx, pos)
+    assert np.array_equal(opos, pos)
+    body = out[:-1]
+    want = soft[:-1] * (-1 if turns in (2, 3) else 1)  # 180 degrees is left to FrameSync's inverted ASM
+    assert np.array_equal(body, want)
+    assert bs.stats.switches == (1 if turns in (1, 3) else 0)
+
+
+def test_uncoded_qpsk_phase_jump_and_chunking(rng):
+    bits = uncoded_cadu_stream(rng, 60)
+    soft = (1.0 - 2.0 * bits).astype(np.float32)[:-1]
+    jump = 70000  # even: a symbol boundary
+    rx = np.concatenate((soft[:jump], rotate(soft[jump:], 1)))
+    pos = np.arange(rx.size, dtype=np.float64)
+    a, _ = run(BranchSync(rate="none", modulation="oqpsk", marker_block_bits=8192), rx, pos)
+    bs = BranchSync(rate="none", modulation="oqpsk", marker_block_bits=8192)
+    b, _ = run(bs, rx, pos, cuts=rng.choice(np.arange(1, rx.size), 30, replace=False))
+    assert np.array_equal(a, b)
+    assert bs.stats.switches == 1
+    k = bs.events[0].bit_index
+    assert jump <= k <= jump + 2 * 8192  # switched within the block after the jump
+    assert np.array_equal(b[: jump], soft[: jump]) and np.array_equal(b[k:], soft[k:])

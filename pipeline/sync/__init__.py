@@ -5,6 +5,7 @@ Decoded (or uncoded) soft bits -> :class:`FrameSync` -> :class:`Cadu` -> :class:
 """
 
 from pipeline.sync._branchsync import BranchSync, BranchSyncStats, branch_metric
+from pipeline.sync._codeblock import CodeblockDecoder, CodeblockStats
 from pipeline.sync._framesync import DEFAULT_ASM, FrameSync, FrameSyncStats
 from pipeline.sync._types import Cadu, DecodedFrame, FrameStatus, SyncEvent, SyncEventKind
 
@@ -13,6 +14,8 @@ __all__ = [
     "BranchSyncStats",
     "branch_metric",
     "FrameSync",
+    "CodeblockDecoder",
+    "CodeblockStats",
     "FrameSyncStats",
     "DEFAULT_ASM",
     "Cadu",

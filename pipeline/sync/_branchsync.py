@@ -8,6 +8,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 from pipeline.fec import (
+    ASM,
     ViterbiDecoder,
     conv_bit_symbol_index,
     conv_encode,
@@ -69,7 +70,8 @@ class BranchSync:
     Parameters
     ----------
     rate : {"none", "1/2", "2/3", "3/4", "5/6", "7/8"}
-        Convolutional code rate of the link; "none" passes the soft channel bits through.
+        Convolutional code rate of the link.  "none": BPSK-like links pass the soft channel bits
+        through; uncoded QPSK/OQPSK resolve the 90-degree rotation by finding markers (see Notes).
     modulation : {"bpsk", "qpsk", "oqpsk", "pcm-pm", "pcm-psk-pm"}
         With QPSK/OQPSK the 90-degree rotation is also resolved: channel bits are taken in pairs
         (I bit, Q bit) from the first bit of the stream.
@@ -81,6 +83,11 @@ class BranchSync:
         Consecutive monitored blocks below the threshold that trigger a re-evaluation (1 .. 16).
     traceback_depth : int, optional
         Passed to :class:`pipeline.fec.ViterbiDecoder`.
+    asm : bytes
+        Marker looked for on uncoded QPSK/OQPSK links (default the 32-bit ASM 1ACFFC1D).
+    marker_block_bits : int
+        Uncoded QPSK/OQPSK: channel bits per rotation decision (1024 .. 2**22); it should hold
+        at least one CADU.
 
     Attributes
     ----------
@@ -119,6 +126,12 @@ class BranchSync:
     re-evaluation at the next block boundary not yet output (this one depends on when it is
     called).
 
+    Uncoded QPSK/OQPSK: the stream is cut into blocks of ``marker_block_bits`` channel bits.  A
+    block is output under the current rotation if the marker (either polarity, at most 2 bit
+    errors: a false match per offset of 2.5e-7, REFERENCES.md sec. 1.7) occurs in it; if it does
+    not, and it does under the other rotation, the rotation switches for this block on.  The
+    output lags the input by one block.
+
     Cost: about (1 + H acquire_bits / interval) Viterbi decodes per bit, H hypotheses, plus one
     re-encoding; memory: the decoder's block (16384 steps) plus one monitored block.
 
@@ -137,6 +150,8 @@ class BranchSync:
         block_bits: int = 2048,
         patience: int = 2,
         traceback_depth: int | None = None,
+        asm: bytes = ASM,
+        marker_block_bits: int = 65536,
     ) -> None:
         if rate not in CONV_RATES:
             raise ValueError(f"Argument 'rate' must be one of {' | '.join(CONV_RATES)}, not {rate!r}.")
@@ -145,11 +160,18 @@ class BranchSync:
         _check_int("acquire_bits", acquire_bits, 256, 65536)
         _check_int("block_bits", block_bits, 256, 65536)
         _check_int("patience", patience, 1, 16)
+        _check_int("marker_block_bits", marker_block_bits, 1024, 1 << 22)
+        if not isinstance(asm, (bytes, bytearray)) or not 2 <= len(asm) <= 32:
+            raise ValueError("Argument 'asm' must be 2..32 octets of bytes.")
         self.rate = rate
         self.modulation = modulation
         self.patience = int(patience)
         self.traceback_depth = traceback_depth
         self.coded = rate != "none"
+        # uncoded QPSK/OQPSK: the 90-degree rotation is resolved by finding markers (no decoder metric)
+        self.marker_rotation = not self.coded and modulation in ("qpsk", "oqpsk")
+        self.marker_block_bits = int(marker_block_bits) + int(marker_block_bits) % 2
+        self._marker = np.unpackbits(np.frombuffer(bytes(asm), dtype=np.uint8))
         self.stats = BranchSyncStats()
         self.events: list[SyncEvent] = []
         if self.coded:
@@ -172,7 +194,7 @@ class BranchSync:
         else:
             self.period_bits = self.period_symbols = 1
             self.block_bits = self.acquire_bits = 0
-            self.hypotheses = ((0, 0),)
+            self.hypotheses = ((0, 0), (0, 1)) if self.marker_rotation else ((0, 0),)
         self._clear_stream()
 
     # ---- public -----------------------------------------------------------------------------
@@ -206,14 +228,17 @@ class BranchSync:
         """
         soft, position = _as_inputs(soft, position)
         self.stats.channel_bits_in += soft.size
-        if not self.coded:
+        if not self.coded and not self.marker_rotation:
             self.stats.bits_out += soft.size
             return soft.copy(), position.copy()
         if soft.size:
             self._raw_soft = np.concatenate((self._raw_soft, soft))
             self._raw_pos = np.concatenate((self._raw_pos, position))
             self._n_in += soft.size
-        self._run(final=False)
+        if self.marker_rotation:
+            self._marker_blocks(final=False)
+        else:
+            self._run(final=False)
         return self._take_output()
 
     def flush(self) -> tuple[np.ndarray, np.ndarray]:
@@ -221,9 +246,12 @@ class BranchSync:
 
         Statistics and events are kept.
         """
-        if not self.coded:
+        if not self.coded and not self.marker_rotation:
             return np.zeros(0, np.float32), np.zeros(0, np.float64)
-        self._run(final=True)
+        if self.marker_rotation:
+            self._marker_blocks(final=True)
+        else:
+            self._run(final=True)
         out = self._take_output()
         self._clear_stream()
         return out
@@ -234,7 +262,7 @@ class BranchSync:
         self._raw_pos = np.zeros(0, np.float64)
         self._raw_base = 0  # absolute channel index of _raw_soft[0]
         self._n_in = 0
-        self._hyp: tuple[int, int] | None = None
+        self._hyp: tuple[int, int] | None = (0, 0) if self.marker_rotation else None
         self._pending: int | None = 0 if self.coded else None  # channel index of the next evaluation
         self._seg_start = 0
         self._dec: ViterbiDecoder | None = None
@@ -259,7 +287,9 @@ class BranchSync:
         return bits, pos
 
     def _trim(self) -> None:
-        if self._pending is not None:
+        if self.marker_rotation:
+            keep = self._fed
+        elif self._pending is not None:
             keep = self._pending
         else:
             keep = self._seg_start + (self._seg_done // self.block_bits) * self._block_symbols
@@ -285,6 +315,58 @@ class BranchSync:
     def _available(self, rotation: int) -> int:
         """One past the last channel index usable under a rotation (pairs must be complete)."""
         return self._n_in - (self._n_in % 2 if rotation else 0)
+
+    def _count_markers(self, soft: np.ndarray) -> int:
+        """Markers (either polarity) within 2 bit errors in a block of soft bits."""
+        hard = np.empty(soft.size, np.uint8)
+        _kernels.hard_decisions(np.ascontiguousarray(soft), hard)
+        m = self._marker.size
+        stop = hard.size - m + 1
+        res = np.zeros(2, np.int64)
+        count, i = 0, 0
+        while i < stop:
+            k = _kernels.find_marker(hard, i, stop, self._marker, 2, res)
+            if k < 0:
+                break
+            count += 1
+            i = k + m
+        return count
+
+    def _marker_blocks(self, final: bool) -> None:
+        """Uncoded QPSK/OQPSK: per block of ``marker_block_bits`` channel bits, keep the rotation while
+        it shows markers; when it shows none and the other rotation does, switch for this block."""
+        Bm = self.marker_block_bits
+        while True:
+            a = self._fed
+            b = min(a + Bm, self._n_in - self._n_in % 2)
+            if b - a < Bm and not (final and b > a):
+                if final and self._n_in > self._fed:  # a last odd channel bit cannot be rotated: pass it
+                    self._out_bits.append(self._raw_soft[self._fed - self._raw_base :].copy())
+                    self._out_pos.append(self._raw_pos[self._fed - self._raw_base :].copy())
+                    self.stats.bits_out += self._n_in - self._fed
+                    self._fed = self._n_in
+                return
+            rot = self._hyp[1]
+            block = self._view(a, b, rot)
+            hits = self._count_markers(block)
+            self.stats.blocks += 1
+            if hits == 0:
+                other = self._view(a, b, 1 - rot)
+                other_hits = self._count_markers(other)
+                self.stats.evaluations += 1
+                if other_hits > 0:
+                    rot = 1 - rot
+                    block = other
+                    self._hyp = (0, rot)
+                    self.stats.switches += 1
+                    self.events.append(SyncEvent(
+                        kind="branch_selected", bit_index=self.stats.bits_out,
+                        position=float(self._raw_pos[a - self._raw_base]),
+                        detail=f"rotation {90 * rot} deg (uncoded: {other_hits} markers against 0)"))
+            self._out_bits.append(np.array(block, dtype=np.float32))
+            self._out_pos.append(self._raw_pos[a - self._raw_base : b - self._raw_base].copy())
+            self.stats.bits_out += b - a
+            self._fed = b
 
     def _run(self, final: bool) -> None:
         while True:
