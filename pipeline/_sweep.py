@@ -268,6 +268,11 @@ def _bit_diff(a_hex: str, b_hex: str) -> int:
     return d + 8 * abs(len(a) - len(b))
 
 
+def _frame_key(f: dict, tm: bool) -> tuple:
+    # counters wrap at 256 (TM) but one recording holds fewer frames than that
+    return (f.get("vcid"), f.get("vcfc"), f.get("mcfc") if tm else None)
+
+
 def simulate_chain_point(profile: LinkProfile, ebn0_db: float, *, frames: int, errors: int,
                          seed: list[int]) -> SweepPoint:
     """Error counts through the whole receiver at one Eb/N0 (see the module docstring, stage ``chain``).
@@ -334,16 +339,12 @@ def simulate_chain_point(profile: LinkProfile, ebn0_db: float, *, frames: int, e
                 pt.packet_errors += 1
                 pt.bit_errors += best
         pt.spurious_packets += sum(len(v) for k, v in delivered.items() if k not in truth_keys)
-        tm = profile.frames.kind == "tm"
-
-        def frame_key(f):  # counters wrap at 256 (TM) but a recording holds fewer frames than that
-            return (f.get("vcid"), f.get("vcfc"), f.get("mcfc") if tm else None)
-
         # an Only-Idle-Data frame is delivered with status "idle" (pipeline.link), a good one with "ok"
-        delivered_frames = {frame_key(f) for f in got_frames if f.get("status") in ("ok", "idle")}
+        tm = profile.frames.kind == "tm"
+        delivered_frames = {_frame_key(f, tm) for f in got_frames if f.get("status") in ("ok", "idle")}
         for f in truth_frames:
             pt.frames += 1
-            if frame_key(f) not in delivered_frames:
+            if _frame_key(f, tm) not in delivered_frames:
                 pt.frame_errors += 1
         pt.extra.setdefault("recordings", 0)
         pt.extra["recordings"] += 1

@@ -346,10 +346,10 @@ def _cmp_packets(got: list[dict], want: list[dict]) -> tuple[bool, str]:
         seen = [(g["apid"], g["seq_count"]) for g in got]
         return False, f"{len(got)} packets, expected {len(want)} (got apid/seq {seen[:8]})"
     for k, (g, w) in enumerate(zip(got, want)):
-        for key in ("apid", "seq_count", "hex", "seq_flags", "packet_time"):
+        for key in ("apid", "seq_count", "hex", "seq_flags", "packet_time", "ert"):
             if key in w and key in g and g[key] != w[key]:
                 return False, f"packet {k}: {key} {g[key]!r} != expected {w[key]!r}"
-            if key in w and key not in g and key in ("apid", "seq_count", "hex"):
+            if key in w and key not in g:
                 return False, f"packet {k}: no {key}"
     return True, f"{len(want)} packets match"
 
@@ -399,6 +399,8 @@ def _run_whole_link(case: VectorCase) -> tuple[bool, str]:
         packets = [json.loads(line) for line in (out / "packets.jsonl").read_text().splitlines() if line.strip()]
         frames = [json.loads(line) for line in (out / "frames.jsonl").read_text().splitlines() if line.strip()]
     statuses = [f.get("status") for f in frames]
+    if "frame_statuses" in want and statuses != want["frame_statuses"]:
+        return False, f"frame statuses {statuses}, expected {want['frame_statuses']}"
     if len(frames) != want["frames"]:
         return False, f"{len(frames)} frames, expected {want['frames']} (statuses {statuses})"
     n_ok, n_idle = statuses.count("ok"), statuses.count("idle")

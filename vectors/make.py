@@ -31,6 +31,7 @@ import hashlib
 import io
 import json
 import sys
+import zlib
 from pathlib import Path
 
 import numpy as np
@@ -522,9 +523,10 @@ def _packet_stream(rng, specs, t0_unix_s=None):
     return pkts
 
 
-def _tm_frames(stream: bytes, *, length, scid, vcid, ocf, fecf, first_header_offsets, mcfc0=0, extra_idle=1):
-    """Cut a packet stream into TM frames with FHPs; pad with an idle packet; add OID idle frames."""
-    dfl = length - 6 - (4 if ocf else 0) - (2 if fecf else 0)
+def _tm_frames(stream: bytes, *, length, scid, vcid, ocf, fecf, first_header_offsets, mcfc0=0, extra_idle=1,
+               kind="tm"):
+    """Cut a packet stream into TM (or AOS M_PDU) frames with FHPs; pad with an idle packet; add idle frames."""
+    dfl = length - 6 - (4 if ocf else 0) - (2 if fecf else 0) - (2 if kind == "aos" else 0)
     stream = bytearray(stream)
     rem = (-len(stream)) % dfl
     if 0 < rem < 7:
@@ -542,8 +544,11 @@ def _tm_frames(stream: bytes, *, length, scid, vcid, ocf, fecf, first_header_off
         else:
             chunk = bytes([0x55]) * dfl
             fhp = 0x7FE
-        hdr = tm_header(scid=scid, vcid=vcid if f < n else 7, ocf=ocf, mcfc=mcfc0 + f, vcfc=f if f < n else 0,
-                        fhp=fhp)
+        if kind == "tm":
+            hdr = tm_header(scid=scid, vcid=vcid if f < n else 7, ocf=ocf, mcfc=mcfc0 + f, vcfc=f if f < n else 0,
+                            fhp=fhp)
+        else:  # AOS: primary header, then the M_PDU header (5 spare bits, 11-bit FHP); idle frames on VC 63
+            hdr = aos_header(scid=scid, vcid=vcid if f < n else 63, vcfc=f if f < n else 0) + fhp.to_bytes(2, "big")
         fr = hdr + chunk + (clcw(vcid=0, report=f) if ocf else b"")
         if fecf:
             fr += crc16_ref(fr).to_bytes(2, "big")
@@ -602,12 +607,20 @@ def timecode_cases():
 
 # ---- whole links: channel bits with the packets they carry ----------------------------------
 
-def _link_bits(profile: dict, frames: list[bytes], rng, *, lead_bits: int, flips: int) -> np.ndarray:
+def _link_bits(profile: dict, frames: list[bytes], rng, *, lead_bits: int, flips: int,
+               corrupt: tuple[int, int] | None = None) -> np.ndarray:
     coding, link = profile["coding"], profile["link"]
     e, interleave = coding["reed_solomon"], coding["interleave"]
     info = [rng.integers(0, 2, lead_bits, dtype=np.uint8)]
-    for fr in frames:
+    for f, fr in enumerate(frames):
         block = rs_codeblock(fr, e, interleave) if e else fr
+        if corrupt is not None and f == corrupt[0]:
+            # more symbol errors in codeword 0 than E: the codeblock must be reported uncorrectable
+            block = bytearray(block)
+            rows = len(block) // interleave
+            for r in rng.choice(rows, corrupt[1], replace=False):
+                block[r * interleave] ^= int(rng.integers(1, 256))
+            block = bytes(block)
         if coding["randomizer"]:
             block = randomize(block)
         info.append(np.unpackbits(np.frombuffer(bytes.fromhex(ASM) + block, np.uint8)))
@@ -644,9 +657,20 @@ def chain_cases():
             "coding": {"convolutional": "3/4", "reed_solomon": 0, "interleave": 1, "randomizer": True},
             "frames": {"kind": "tm", "length": 160, "fecf": True, "ocf": False, "spacecraft_id": 1000},
         }, [(42, 90, 4, False)], 0, 0),
+        ("link_bpsk_conv12_rs16_i2_aos446", {
+            "link": {"modulation": "bpsk", "line_code": "nrz-l", "symbol_rate": 16000.0},
+            "coding": {"convolutional": "1/2", "reed_solomon": 16, "interleave": 2, "randomizer": True},
+            "frames": {"kind": "aos", "length": 446, "fecf": False, "ocf": False, "spacecraft_id": 0xAB},
+        }, [(512, 200, 3, False), (513, 33, 4, False)], 5, 2),
+        ("link_bpsk_uncoded_rs8_i1_tm239_one_uncorrectable", {
+            "link": {"modulation": "bpsk", "line_code": "nrz-l", "symbol_rate": 16000.0},
+            "coding": {"convolutional": "none", "reed_solomon": 8, "interleave": 1, "randomizer": True},
+            "frames": {"kind": "tm", "length": 239, "fecf": False, "ocf": False, "spacecraft_id": 3},
+        }, [(10, 37, 12, False)], 0, 1),
     ]
+    corrupt_frames = {"link_bpsk_uncoded_rs8_i1_tm239_one_uncorrectable": (1, 12)}
     for name, prof, traffic, flips, vcid in specs:
-        seed = 9900 + len(name)
+        seed = 9000 + zlib.crc32(name.encode()) % 1000
         rng = np.random.default_rng(seed)
         t0 = _unix_s("2026-03-14T09:30:00Z")
         pkts = _packet_stream(rng, traffic, t0)
@@ -657,17 +681,49 @@ def chain_cases():
             o += len(p["hex"]) // 2
         fr = prof["frames"]
         frames = _tm_frames(stream, length=fr["length"], scid=fr["spacecraft_id"], vcid=vcid, ocf=fr["ocf"],
-                            fecf=fr["fecf"], first_header_offsets=offsets)
+                            fecf=fr["fecf"], first_header_offsets=offsets, kind=fr["kind"])
         lead = 48 if prof["coding"]["convolutional"] != "3/4" else 45
-        chan = _link_bits(prof, frames, rng, lead_bits=lead, flips=flips)
+        corrupt = corrupt_frames.get(name)
+        chan = _link_bits(prof, frames, rng, lead_bits=lead, flips=flips, corrupt=corrupt)
+        # ERT of a packet = start + (channel symbol index of the first symbol of the ASM of the frame
+        # holding its first octet) / channel bit rate (../shared/DESIGN.md data flow; symbol timebase)
+        rs_e = prof["coding"]["reed_solomon"]
+        block_len = len(rs_codeblock(frames[0], rs_e, prof["coding"]["interleave"])) if rs_e else len(frames[0])
+        cadu_bits = 8 * (4 + block_len)
+        rate = prof["coding"]["convolutional"]
+        dfl = fr["length"] - 6 - (4 if fr["ocf"] else 0) - (2 if fr["fecf"] else 0) - (2 if fr["kind"] == "aos" else 0)
+        for p, off in zip(pkts, offsets):
+            bit = lead + (off // dfl) * cadu_bits
+            if rate == "none":
+                sym = bit
+            else:
+                c1, c2 = PUNCTURE[rate]
+                per_col = [int(a) + int(b) for a, b in zip(c1, c2)]
+                full, rest = divmod(bit, len(c1))
+                sym = full * sum(per_col) + sum(per_col[:rest])
+            p["ert"] = _iso_ns(t0 * 10**9 + (sym * 10**9 + 8000) // 16000)
+        statuses = ["ok"] * (len(frames) - 1) + ["idle"]
+        delivered = pkts
+        if corrupt is not None:
+            # a frame that fails RS is never passed on as good: every packet with an octet in its data
+            # field is lost; the next frame's first header pointer resynchronizes the extractor
+            statuses[corrupt[0]] = "rs_uncorrectable"
+            lo, hi = corrupt[0] * dfl, (corrupt[0] + 1) * dfl
+            delivered = []
+            for p, off in zip(pkts, offsets):
+                end = off + len(p["hex"]) // 2
+                if not (off < hi and end > lo):
+                    delivered.append(p)
         expected = {
-            "packets": [{k: v for k, v in p.items()} for p in pkts],
+            "packets": [dict(p) for p in delivered],
             "frames": len(frames),
-            "frames_ok": len(frames) - 1,
+            "frames_ok": statuses.count("ok"),
             "frames_idle": 1,
+            "frame_statuses": statuses,
         }
         yield _case(name, "chain", "whole_link",
-                    params={"profile": prof, "start": "2026-03-14T09:30:00Z", "channel_bit_errors": flips},
+                    params={"profile": prof, "start": "2026-03-14T09:30:00Z", "channel_bit_errors": flips,
+                            "uncorrectable_frame": None if corrupt is None else corrupt[0]},
                     inp={"channel_bits": int(len(chan))}, expected=expected,
                     source="computed by vectors/make.py: reedsolo (PyPI) RS, scikit-commpy (PyPI) conv code, "
                            "crccheck (PyPI) FECF, REFERENCES.md secs. 1, 3, 5, 6, 10 layouts and tables",
