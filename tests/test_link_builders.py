@@ -236,7 +236,7 @@ def test_cut_stream_pointers():
     pk = [space_packet(1, i, bytes([i]) * (5 + 3 * i)) for i in range(6)]
     zones, spans = cut_stream(pk, 16)
     joined = b"".join(z.data for z in zones)
-    for p, (a, b, off) in zip(pk, spans):
+    for p, (a, _b, off) in zip(pk, spans):
         assert joined[a * 16 + off:a * 16 + off + len(p)] == p
         assert zones[a].fhp <= off
     assert all(len(z.data) == 16 for z in zones)

@@ -366,3 +366,26 @@ def test_accounting_argument_errors():
 
 def test_pack_bits_helper_is_msb_first():
     assert pack_bits((1, 1), (0, 7)) == b"\x80"
+
+
+def test_long_outage_uses_frame_period():
+    # 300 frames lost (more than the 8-bit counts can tell): the positions give the true count.
+    p, acc = FrameParser(frames=TM), ChannelAccounting()
+    period = 37_166.7  # samples per frame, not an integer, as in a real recording
+    gaps = []
+    for i in list(range(10)) + list(range(310, 316)):
+        gaps += acc.process(_rec(p, 0, i, i, 1000.0 + i * period))
+    assert [(g.kind, g.missing, g.ambiguous) for g in gaps] == [("mc", 300, False), ("vc", 300 % 256, True)]
+    d = acc.as_dict()
+    assert d["mc_out_of_order"] == 0 and d["virtual_channels"][0]["out_of_order"] == 0
+    # without positions the same counts read as a short gap (the counter limit)
+    acc2 = ChannelAccounting()
+    g2 = [g for i in list(range(10)) + list(range(310, 316)) for g in acc2.process(_rec(p, 0, i, i, float("nan")))]
+    assert [(g.kind, g.missing) for g in g2] == [("mc", 300 % 256), ("vc", 300 % 256)]
+
+
+def test_count_step_with_elapsed_time():
+    assert count_step(10, 140, 256) == ("behind", 0)
+    assert count_step(10, 140, 256, elapsed_frames=130.0) == ("gap", 129)
+    assert count_step(10, 10, 256, elapsed_frames=256.0) == ("gap", 255)
+    assert count_step(10, 11, 256, elapsed_frames=200.0) == ("next", 0)  # a sparse VC: most likely the next

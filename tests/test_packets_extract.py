@@ -443,7 +443,7 @@ def _expected(per_vc, delivered, modulus):
             accepted[it["vcid"]].append(it)
             top[it["vcid"]] = it["index"]
     exp = {}
-    for v, (pk, zones, spans) in per_vc.items():
+    for v, (pk, _zones, spans) in per_vc.items():
         run_of, pos_of, run = {}, {}, -1
         prev = None
         for it in accepted[v]:
@@ -454,8 +454,8 @@ def _expected(per_vc, delivered, modulus):
             prev = it["index"]
         exp[v] = []
         for p, (a, b, _) in zip(pk, spans):
-            is_idle = (p[0] >> 5 == 0 and ((p[0] & 7) << 8 | p[1]) == 0x7FF) or (p[0] >> 5 == 7 and (p[0] >> 2) & 7 == 0)
-            if is_idle:
+            space_idle = p[0] >> 5 == 0 and ((p[0] & 7) << 8 | p[1]) == 0x7FF
+            if space_idle or (p[0] >> 5 == 7 and (p[0] >> 2) & 7 == 0):
                 continue
             if all(k in run_of for k in range(a, b + 1)) and len({run_of[k] for k in range(a, b + 1)}) == 1:
                 exp[v].append((p, pos_of[a]))
@@ -529,3 +529,35 @@ def test_parser_and_extractor_on_random_frames(a, b):
     for f in (a, b, a):
         ex.process(parser.process(decoded(f)))
     ex.flush()
+
+
+def test_long_outage_resyncs_instead_of_dropping():
+    # 150 VC frames lost: by the counts alone every later frame would look late ("behind").
+    zl = _zone_len(TM)
+    pk = [space_packet(5, i, bytes([i % 256]) * 30) for i in range(300)]
+    zones, spans = cut_stream(pk, zl)
+    decs = _frames_for_vc(TM, 0, zones)
+    keep = list(range(20)) + list(range(170, len(decs)))
+    out, ex = _run(TM, [decs[i] for i in keep])
+    want = [p for p, (a, b, _) in zip(pk, spans) if b < 20 or a >= 170]
+    assert [p.data for p in out] == want
+    assert ex.stats.frames["out_of_order"] == 0 and ex.stats.frames["gap"] == 1
+
+
+def test_sparse_vc_continues_across_long_intervals():
+    # VC 1 sends one frame per 200 physical frames: consecutive counts, far apart in time.
+    zl = _zone_len(TM)
+    pk = [space_packet(6, i, bytes([i]) * 50) for i in range(6)]
+    zones, _ = cut_stream(pk, zl)
+    parser, ex = FrameParser(frames=TM), PacketExtractor(profile=_profile(TM))
+    filler = space_packet(1, 0, bytes(zl - 6 - 7)) + idle_packet(7)
+    out, mc = [], 0
+    for i, z in enumerate(zones):
+        for _ in range(200):
+            f = tm_frame(TM, vcid=0, mcfc=mc % 256, vcfc=mc % 256, zone=filler, fhp=0)
+            ex.process(parser.process(decoded(f, position=100.0 * mc)))
+            mc += 1
+        f = tm_frame(TM, vcid=1, mcfc=mc % 256, vcfc=i, zone=z)
+        out += [p for p in ex.process(parser.process(decoded(f, position=100.0 * mc))) if p.vcid == 1]
+        mc += 1
+    assert [p.data for p in out] == pk

@@ -3,7 +3,7 @@
 See DEVELOPERS.md, stage contracts.
 """
 
-from pipeline.link._accounting import ChannelAccounting, Gap, count_step
+from pipeline.link._accounting import ChannelAccounting, FramePeriod, Gap, count_step, master_missing
 from pipeline.link._fhec import fhec_check, fhec_parity
 from pipeline.link._frames import (
     BDP_ALL_VALID,
@@ -23,6 +23,8 @@ __all__ = [
     "ChannelAccounting",
     "Gap",
     "count_step",
+    "master_missing",
+    "FramePeriod",
     "decode_clcw",
     "fhec_parity",
     "fhec_check",

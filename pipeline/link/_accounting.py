@@ -9,33 +9,105 @@ cycle extension).  Against the last accepted count ``c`` a new count ``g`` is cl
 * ``d > M // 2``: a frame from the past (reordered or replayed), not accepted;
 * otherwise: a gap of ``d - 1`` missing frames, after which ``g`` is accepted.
 
-The classification cannot see losses of a whole multiple of ``M`` frames (256 TM frames): that
-is a limit of the counters themselves.
+When frame positions are known, a running estimate of the frame period (:class:`FramePeriod`)
+tells how many frames passed on the physical channel.  If that is at least ``M / 2`` the counts
+alone are ambiguous (a long outage): a late or repeated frame is then implausible, so ``d == 1``
+is taken as the next frame and anything else as a gap; for the master channel, where every frame
+counts, the number missing is taken from the elapsed time (``d - 1`` plus the whole multiple of
+``M`` nearest to it).  Without positions, losses of a whole multiple of ``M`` frames (256 TM
+frames) cannot be seen: a limit of the counters themselves.
 """
 
 from __future__ import annotations
 
+import math
+from collections import deque
 from dataclasses import asdict, dataclass
 from typing import Any, Literal
 
-__all__ = ["Gap", "ChannelAccounting", "count_step", "CountStep"]
+__all__ = ["Gap", "ChannelAccounting", "FramePeriod", "count_step", "master_missing", "CountStep"]
 
 CountStep = Literal["next", "duplicate", "behind", "gap"]
 
 
-def count_step(last: int, got: int, modulus: int) -> tuple[CountStep, int]:
+def count_step(last: int, got: int, modulus: int, elapsed_frames: float | None = None) -> tuple[CountStep, int]:
     """Classify frame count ``got`` after ``last`` (see the module notes); returns (step, missing).
 
-    ``missing`` is the number of frames skipped (> 0 only for ``"gap"``).
+    Parameters
+    ----------
+    last, got : int
+        The last accepted count and the new one.
+    modulus : int
+        Count modulus (256 TM, 2**24 or 2**28 AOS, 2**14 packet sequence counts).
+    elapsed_frames : float, optional
+        Frame periods on the physical channel since the frame that gave ``last``, when known.
+
+    Returns
+    -------
+    step : {"next", "duplicate", "behind", "gap"}
+    missing : int
+        Frames skipped counted modulo ``modulus`` (> 0 only for ``"gap"``).
     """
     d = (got - last) % modulus
     if d == 1:
         return "next", 0
+    if elapsed_frames is not None and elapsed_frames >= modulus / 2:
+        return "gap", (d - 1) % modulus
     if d == 0:
         return "duplicate", 0
     if d > modulus // 2:
         return "behind", 0
     return "gap", d - 1
+
+
+def master_missing(missing_mod: int, modulus: int, elapsed_frames: float | None) -> int:
+    """Frames missing on a master channel: ``missing_mod`` plus the multiple of ``modulus`` nearest the time.
+
+    ``elapsed_frames`` (frame periods between the two frames, from their positions) is exact
+    up to timing jitter on the master channel, where every frame carries the next count.
+    """
+    if elapsed_frames is None or elapsed_frames < modulus / 2:
+        return missing_mod
+    k = round((elapsed_frames - 1 - missing_mod) / modulus)
+    return missing_mod + modulus * max(k, 0)
+
+
+class FramePeriod:
+    """Running frame period in samples: the median of the last 15 positive position steps.
+
+    Fed with the position of every frame in arrival order (any status); consecutive frames on a
+    physical channel are one frame period apart, and the median ignores the steps that span lost
+    frames.  Needs 3 steps before it gives an estimate.  O(1) memory.
+    """
+
+    def __init__(self) -> None:
+        self.reset()
+
+    def reset(self) -> None:
+        self._steps: deque[float] = deque(maxlen=15)
+        self._last: float | None = None
+
+    def update(self, position: float) -> None:
+        """Record the position of the next frame to arrive (NaN positions are ignored)."""
+        if not math.isfinite(position):
+            return
+        if self._last is not None and position > self._last:
+            self._steps.append(position - self._last)
+        self._last = position
+
+    @property
+    def samples(self) -> float | None:
+        """The estimated period, None until 3 steps are known."""
+        if len(self._steps) < 3:
+            return None
+        return sorted(self._steps)[len(self._steps) // 2]
+
+    def frames_between(self, earlier: float | None, later: float) -> float | None:
+        """Frame periods from position ``earlier`` to ``later`` (None when unknown)."""
+        period = self.samples
+        if period is None or earlier is None or not math.isfinite(earlier) or not math.isfinite(later):
+            return None
+        return (later - earlier) / period
 
 
 @dataclass(frozen=True)
@@ -59,6 +131,9 @@ class Gap:
     unusable_between : int
         Frames received between the two that could not be used (failed RS, FECF or header):
         part of ``missing`` was received but corrupt.
+    ambiguous : bool
+        True for a virtual channel gap longer than half the count range in time: ``missing`` is
+        then only known modulo the count modulus (whole wraps may be missing too).
     """
 
     kind: str
@@ -70,6 +145,7 @@ class Gap:
     position: float
     after_position: float | None = None
     unusable_between: int = 0
+    ambiguous: bool = False
 
     def as_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -101,7 +177,8 @@ class ChannelAccounting:
 
     Notes
     -----
-    Frames with status ``ok`` or ``idle`` take part (idle frames carry real counts).  Frames
+    Frames with status ``ok`` or ``idle`` take part (idle frames carry real counts); every
+    frame's position feeds the frame-period estimate used for long outages (module notes).  Frames
     with another status are counted by status only: their headers cannot be trusted, so they
     show up as the gap that follows them, with ``unusable_between`` telling how many of the
     missing frames were in fact received corrupt.  ``foreign_scid`` frames are counted per
@@ -119,6 +196,7 @@ class ChannelAccounting:
         """Forget every count and counter."""
         self.status_counts: dict[str, int] = {}
         self.foreign: dict[int, int] = {}
+        self.period = FramePeriod()
         self.master: dict[int, _Counter] = {}
         self.virtual: dict[tuple[int, int], _Counter] = {}
         self.frames = 0
@@ -126,6 +204,7 @@ class ChannelAccounting:
     def process(self, record) -> list[Gap]:
         """Account for one :class:`FrameRecord`; returns the gaps it reveals (MC first, then VC)."""
         self.frames += 1
+        self.period.update(float(record.position))
         status = record.status
         self.status_counts[status] = self.status_counts.get(status, 0) + 1
         if status == "foreign_scid":
@@ -152,8 +231,7 @@ class ChannelAccounting:
             gaps.append(g)
         return gaps
 
-    @staticmethod
-    def _step(c: _Counter, got: int, modulus: int, pos: float, status: str, kind: str, scid: int,
+    def _step(self, c: _Counter, got: int, modulus: int, pos: float, status: str, kind: str, scid: int,
               vcid: int | None):
         """Advance one counter; a Gap, None (in sequence / first) or False (duplicate / behind)."""
         c.frames += 1
@@ -164,7 +242,13 @@ class ChannelAccounting:
             if c.first_count is None:
                 c.first_count = got
             return None
-        step, missing = count_step(c.last, got, modulus)
+        elapsed = self.period.frames_between(c.last_position, pos)
+        step, missing = count_step(c.last, got, modulus, elapsed)
+        ambiguous = elapsed is not None and elapsed >= modulus / 2
+        if kind == "mc" and ambiguous:
+            missing = master_missing((got - c.last - 1) % modulus, modulus, elapsed)
+            step = "gap" if missing else "next"
+            ambiguous = False
         if step == "duplicate":
             c.duplicates += 1
             return False
@@ -176,7 +260,8 @@ class ChannelAccounting:
             c.gaps += 1
             c.missing += missing
             gap = Gap(kind=kind, scid=scid, vcid=vcid, expected=(c.last + 1) % modulus, got=got, missing=missing,
-                      position=pos, after_position=c.last_position, unusable_between=min(c.unusable_since, missing))
+                      position=pos, after_position=c.last_position, unusable_between=min(c.unusable_since, missing),
+                      ambiguous=ambiguous)
         c.last, c.last_position, c.unusable_since = got, pos, 0
         return gap
 

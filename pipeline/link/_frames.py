@@ -292,7 +292,8 @@ class FrameParser:
             rec.detail = "codeblock decoder"
         if len(frame) != self.frames.length:
             if rec.status == "ok":
-                rec.status, rec.detail = "bad_header", f"frame of {len(frame)} octets, profile says {self.frames.length}"
+                rec.status = "bad_header"
+                rec.detail = f"frame of {len(frame)} octets, profile says {self.frames.length}"
             self.counts[rec.status] = self.counts.get(rec.status, 0) + 1
             return rec
         if self._crc16 is not None:

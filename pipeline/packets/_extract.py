@@ -18,7 +18,7 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass, field, replace
 from typing import Any
 
-from pipeline.link._accounting import count_step
+from pipeline.link._accounting import FramePeriod, count_step
 from pipeline.packets._time import default_leap_seconds, parse_epoch_ns
 from pipeline.packets._timecodes import cds_pfield_layout, cuc_pfield_layout, decode_time_code
 from pipeline.profile import LinkProfile, TimeCodeConfig
@@ -201,6 +201,7 @@ class _VcState:
     """Reassembly state of one virtual channel."""
 
     last_count: int | None = None
+    last_position: float | None = None
     modulus: int = 0
     synced: bool = False
     partial: bytearray = field(default_factory=bytearray)
@@ -288,6 +289,8 @@ class PacketExtractor:
     The extractor tracks each virtual channel's frame count itself (see
     :func:`pipeline.link.count_step`), so it needs no help from :class:`ChannelAccounting`:
 
+    * frame positions give a running frame period (:class:`pipeline.link.FramePeriod`), so a
+      jump after an outage longer than half the count range is still seen as a gap;
     * a frame with the next count continues the packet in progress;
     * a duplicate or a frame from the past is ignored (counted), so no packet is made twice;
     * a jump, the first frame of a channel, or ``gap=True`` from the caller discards the
@@ -333,6 +336,7 @@ class PacketExtractor:
         self.channels: dict[int, _VcState] = {}
         self.stats = PacketStats()
         self._pending_gaps: list[SequenceGap] = []
+        self.period = FramePeriod()
 
     def take_sequence_gaps(self) -> list[SequenceGap]:
         """The sequence-count gaps found since the last call (and forget them)."""
@@ -366,6 +370,7 @@ class PacketExtractor:
             (the extractor also detects it from the counts).
         """
         S = self.stats
+        self.period.update(float(record.position))
         if record.status == "foreign_scid":
             S.frames["foreign"] += 1
             return []
@@ -385,7 +390,8 @@ class PacketExtractor:
         if st.last_count is None or st.modulus != modulus:
             jump = True
         else:
-            step, _ = count_step(st.last_count, count, modulus)
+            step, _ = count_step(st.last_count, count, modulus,
+                                 self.period.frames_between(st.last_position, float(record.position)))
             if step == "duplicate":
                 S.frames["duplicate"] += 1
                 return []
@@ -395,7 +401,7 @@ class PacketExtractor:
             jump = step == "gap"
             if jump:
                 S.frames["gap"] += 1
-        st.last_count, st.modulus = count, modulus
+        st.last_count, st.modulus, st.last_position = count, modulus, float(record.position)
         if jump or gap:
             self._lose_sync(st, "frame_gap")
         if record.status == "idle":
