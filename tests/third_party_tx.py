@@ -182,7 +182,7 @@ def tm_frames(packets: list[bytes], *, scid: int, vcid: int, length: int, ocf: b
 
 def channel_bits(frames: list[bytes], *, rs_e: int, interleave: int, randomize: bool, conv: bool,
                  nrz_m: bool, lead_bits: int = 317, seed: int = 5) -> np.ndarray:
-    """ASM + codeblocks -> (randomized) -> convolutional code -> NRZ-M; random bits before the first ASM."""
+    """ASM + codeblocks -> (randomized) -> NRZ-M -> convolutional code; random bits before the first ASM."""
     asm = bytes.fromhex("1ACFFC1D")  # CCSDS 131.0-B-2 sec. 8 / REFERENCES.md sec. 1.1
     rng = np.random.default_rng(seed)
     stream = [rng.integers(0, 2, lead_bits, dtype=np.uint8)]
@@ -193,9 +193,10 @@ def channel_bits(frames: list[bytes], *, rs_e: int, interleave: int, randomize: 
         stream.append(np.unpackbits(np.frombuffer(asm + block, dtype=np.uint8)))
     stream.append(rng.integers(0, 2, 200, dtype=np.uint8))
     bits = np.concatenate(stream)
+    if nrz_m:
+        # NRZ-M: a 1 is a change of level; with a convolutional code the conversion is done at the
+        # encoder input (CCSDS 131.0-B-2 sec. 3.3.3)
+        bits = (np.cumsum(bits) & 1).astype(np.uint8)
     if conv:
         bits, _ = conv_encode_r12(bits)
-    if nrz_m:
-        # NRZ-M: a 1 is a change of level (CCSDS 131.0-B-2 sec. 3.3.3)
-        bits = (np.cumsum(bits) & 1).astype(np.uint8)
     return bits
