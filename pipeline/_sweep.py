@@ -340,6 +340,7 @@ def simulate_chain_point(profile: LinkProfile, ebn0_db: float, *, frames: int, e
                 pt.bit_errors += best
         pt.spurious_packets += sum(len(v) for k, v in delivered.items() if k not in truth_keys)
         # an Only-Idle-Data frame is delivered with status "idle" (pipeline.link), a good one with "ok"
+        pt.rs_failures += sum(1 for f in got_frames if f.get("status") == "rs_uncorrectable")
         tm = profile.frames.kind == "tm"
         delivered_frames = {_frame_key(f, tm) for f in got_frames if f.get("status") in ("ok", "idle")}
         for f in truth_frames:

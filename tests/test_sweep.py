@@ -154,3 +154,27 @@ def test_argument_errors():
         sw.sweep(prof, [1.0], frames=0, errors=1)
     with pytest.raises(ValueError, match="Argument 'workers'"):
         sw.sweep(prof, [1.0], frames=1, errors=1, workers=0)
+
+
+def _chain_available():
+    try:
+        from pipeline.sim import simulate  # noqa: F401
+        from pipeline.sync import BranchSync, CodeblockDecoder  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+@pytest.mark.skipif(not _chain_available(), reason="the decode chain has not landed")
+def test_chain_stage_delivers_everything_at_high_ebn0_and_loses_packets_at_low():
+    from pipeline.profile import demo_profile_path, load_profile
+
+    prof = load_profile(demo_profile_path())
+    good = sw.simulate_chain_point(prof, 8.0, frames=8, errors=10**6, seed=[7, 0])
+    assert good.packets > 5 and good.frames >= 8
+    assert good.packet_errors == 0 and good.frame_errors == 0 and good.spurious_packets == 0
+    assert good.per == 0.0 and good.bit_errors == 0
+    # 0 dB is far below the concatenated code's threshold (~2.5 dB): most packets are lost, none invented
+    bad = sw.simulate_chain_point(prof, 0.0, frames=8, errors=10**6, seed=[7, 1])
+    assert bad.per > 0.5 and bad.fer > 0.5
+    assert bad.bit_errors == 0  # RS failures are reported, never delivered as good packets
