@@ -217,6 +217,69 @@ def test_property_encode_corrupt_decode(e, interleave, fill, seed, frac):
     assert np.array_equal(out, data) and corrected == (n_err,) * interleave
 
 
+# ---- erasures ----------------------------------------------------------------------------------
+
+
+def _errata(block, interleave, n_era, n_err, rng, wrong_fraction=0.7):
+    """Erase n_era and corrupt n_err further symbols per codeword; return (received, erasure indices)."""
+    bad = block.copy()
+    n_cw = block.size // interleave
+    erasures = []
+    for c in range(interleave):
+        pos = rng.choice(n_cw, n_era + n_err, replace=False)
+        for p in pos[:n_era]:
+            if rng.random() < wrong_fraction:  # an erased symbol may also have been right
+                bad[p * interleave + c] ^= rng.integers(1, 256)
+        bad[pos[n_era:] * interleave + c] ^= rng.integers(1, 256, n_err, dtype=np.uint8)
+        erasures.extend(int(p) * interleave + c for p in pos[:n_era])
+    return bad, erasures
+
+
+@pytest.mark.parametrize("e", [16, 8])
+def test_errors_and_erasures(e, rng):
+    # errors-and-erasures decoding: v errors and f erasures are correctable when 2 v + f <= 2 E
+    k = 255 - 2 * e
+    for interleave, q in ((1, 0), (5, 3), (8, 100)):
+        data = rng.integers(0, 256, (k - q) * interleave, dtype=np.uint8)
+        block = rs_encode(data, e=e, interleave=interleave)
+        for n_era in (1, e, 2 * e - 3, 2 * e):
+            n_err = (2 * e - n_era) // 2
+            bad, erasures = _errata(block, interleave, n_era, n_err, rng)
+            out, corrected = rs_decode(bad, e=e, interleave=interleave, erasures=erasures)
+            assert np.array_equal(out, data)
+            assert all(0 <= v <= n_era + n_err for v in corrected)
+        # 2E erasures that are all wrong: twice the error-only capability
+        bad, erasures = _errata(block, interleave, 2 * e, 0, rng, wrong_fraction=1.0)
+        out, corrected = rs_decode(bad, e=e, interleave=interleave, erasures=erasures)
+        assert np.array_equal(out, data) and corrected == (2 * e,) * interleave
+        assert rs_decode(bad, e=e, interleave=interleave)[1] == (-1,) * interleave  # without the hint
+
+
+def test_erasures_vs_reedsolo(rng):
+    import reedsolo
+
+    codec = reedsolo.RSCodec(nsym=32, nsize=255, fcr=112, prim=0x187, generator=0xAD, c_exp=8)  # reedsolo (PyPI)
+    data = rng.integers(0, 256, 223, dtype=np.uint8)
+    bad, erasures = _errata(rs_encode(data), 1, 10, 11, rng)
+    ref, _, _ = codec.decode(bytes(D2C[bad]), erase_pos=erasures)
+    out, corrected = rs_decode(bad, erasures=erasures)
+    assert bytes(C2D[np.frombuffer(bytes(ref), np.uint8)]) == out.tobytes() == data.tobytes()
+
+
+def test_beyond_errata_capability_is_flagged(rng):
+    flagged = 0
+    for _ in range(200):
+        data = rng.integers(0, 256, 223, dtype=np.uint8)
+        bad, erasures = _errata(rs_encode(data), 1, 11, 11, rng, wrong_fraction=1.0)  # 2*11 + 11 > 32
+        out, corrected = rs_decode(bad, erasures=erasures)
+        if corrected == (-1,):
+            flagged += 1
+            assert np.array_equal(out, bad[:223])
+        else:
+            assert not np.array_equal(out, data) or corrected[0] > 0
+    assert flagged >= 198
+
+
 # ---- bad input ---------------------------------------------------------------------------------
 
 
@@ -238,3 +301,11 @@ def test_bad_arguments():
         rs_decode(bytes(255), e=16.0)
     with pytest.raises(ValueError, match="Argument 'codeblocks' must be 2-D"):
         rs_decode_blocks(np.zeros(255, np.uint8))
+    with pytest.raises(ValueError, match="Argument 'erasures' must hold octet indices in 0..254"):
+        rs_decode(bytes(255), erasures=[255])
+    with pytest.raises(ValueError, match="Argument 'erasures' must mark at most 2E = 32 octets per codeword"):
+        rs_decode(bytes(255), erasures=range(33))
+    with pytest.raises(ValueError, match="Argument 'erasures' must not repeat"):
+        rs_decode(bytes(255), erasures=[3, 3])
+    with pytest.raises(TypeError, match="Argument 'erasures'"):
+        rs_decode(bytes(255), erasures=[1.5])

@@ -170,26 +170,25 @@ def depuncture_kernel(sym, positions, out):
 def decision_pack_kernel(dec, n_rows, words):
     """Pack 64 decision octets (0/1) per row into one uint64 per row, state s at bit s.
 
-    Eight octets of a row are read as one uint64 whose set bits sit at 8i; three shift-or folds
-    gather them into the low octet (no multiply, so plain Python sees no overflow).
+    Each group of eight octets is read as one uint64 whose set bits sit at 8i; three shift-or
+    folds gather them into its low octet, which is octet k of the row's word (little-endian).
+    Element-wise, so it vectorises.
     """
     d = dec.view(np.uint64)
-    for t in range(n_rows):
-        acc = np.uint64(0)
-        for k in range(8):
-            x = d[t * 8 + k]
-            x |= x >> np.uint64(7)
-            x |= x >> np.uint64(14)
-            x |= x >> np.uint64(28)
-            acc |= (x & np.uint64(0xFF)) << np.uint64(8 * k)
-        words[t] = acc
+    w8 = words.view(np.uint8)
+    for i in range(n_rows * 8):
+        x = d[i]
+        x |= x >> np.uint64(7)
+        x |= x >> np.uint64(14)
+        x |= x >> np.uint64(28)
+        w8[i] = np.uint8(x & np.uint64(0xFF))
 
 
 @njit(cache=True)
-def viterbi_acs_kernel(sym, n_steps, sign1, sign2, pm_a, pm_b, dec):
+def _acs_steps(sym, sym0, n_steps, sign1, sign2, pm_a, pm_b, dec):
     """Add-compare-select over ``n_steps`` trellis steps of the 64-state code.
 
-    ``sym`` holds 2 int8 symbols per step (C1, C2; + = bit 0, 0 = erasure).  Butterfly j joins the
+    ``sym[sym0:]`` holds 2 int8 symbols per step (C1, C2; + = bit 0, 0 = erasure).  Butterfly j joins the
     old states j and j+32 to the new states 2j and 2j+1; with ``m = sign1[j] y1 + sign2[j] y2`` the
     branch metrics are +m (j -> 2j), -m (j+32 -> 2j), -m (j -> 2j+1), +m (j+32 -> 2j+1).
     ``pm_a`` (uint32[32] = int16[64]) holds the metrics before and after; ``pm_b`` is scratch.
@@ -205,8 +204,8 @@ def viterbi_acs_kernel(sym, n_steps, sign1, sign2, pm_a, pm_b, dec):
     t = 0
     while t + 1 < n_steps:
         base = t * 32
-        y1 = np.int16(sym[2 * t])
-        y2 = np.int16(sym[2 * t + 1])
+        y1 = np.int16(sym[sym0 + 2 * t])
+        y2 = np.int16(sym[sym0 + 2 * t + 1])
         for j in range(32):
             m = np.int16(sign1[j] * y1 + sign2[j] * y2)
             a = a16[j]
@@ -220,8 +219,8 @@ def viterbi_acs_kernel(sym, n_steps, sign1, sign2, pm_a, pm_b, dec):
             pm_b[j] = np.uint32(np.uint16(n0)) | (np.uint32(np.uint16(n1)) << np.uint32(16))
             dec16[base + j] = np.uint16(q0 > p0) | (np.uint16(q1 > p1) << np.uint16(8))
         base += 32
-        y1 = np.int16(sym[2 * t + 2])
-        y2 = np.int16(sym[2 * t + 3])
+        y1 = np.int16(sym[sym0 + 2 * t + 2])
+        y2 = np.int16(sym[sym0 + 2 * t + 3])
         for j in range(32):
             m = np.int16(sign1[j] * y1 + sign2[j] * y2)
             a = b16[j]
@@ -240,8 +239,8 @@ def viterbi_acs_kernel(sym, n_steps, sign1, sign2, pm_a, pm_b, dec):
             a16[j] = np.int16(a16[j] - ref)
     if t < n_steps:  # odd step count: one more step A -> B, then copy back
         base = t * 32
-        y1 = np.int16(sym[2 * t])
-        y2 = np.int16(sym[2 * t + 1])
+        y1 = np.int16(sym[sym0 + 2 * t])
+        y2 = np.int16(sym[sym0 + 2 * t + 1])
         for j in range(32):
             m = np.int16(sign1[j] * y1 + sign2[j] * y2)
             a = a16[j]
@@ -257,6 +256,20 @@ def viterbi_acs_kernel(sym, n_steps, sign1, sign2, pm_a, pm_b, dec):
         ref = b16[0]
         for j in range(64):
             a16[j] = np.int16(b16[j] - ref)
+
+
+@njit(cache=True)
+def viterbi_acs_kernel(sym, n_steps, sign1, sign2, pm_a, pm_b, scratch, words):
+    """Run ``n_steps`` trellis steps and write their packed decisions to ``words[:n_steps]``.
+
+    Steps go in sub-blocks of ``scratch.size // 64`` so the 64 decision octets per step are packed
+    (``decision_pack_kernel``) while still in L1 cache.  See ``_acs_steps`` for the trellis.
+    """
+    sub = scratch.shape[0] // 64
+    for s0 in range(0, n_steps, sub):
+        m = min(sub, n_steps - s0)
+        _acs_steps(sym, 2 * s0, m, sign1, sign2, pm_a, pm_b, scratch)
+        decision_pack_kernel(scratch, m, words[s0:])
 
 
 @njit(cache=True)
@@ -293,7 +306,8 @@ def _gf_mul(x, y, b_exp, b_log):
 
 
 @njit(cache=True)
-def _rs_correct_codeword(rem, n_par, fcr, max_degree, b_exp, b_log, syn, lam, prev, tmp, omega, err_deg, err_val):
+def _rs_correct_codeword(rem, n_par, fcr, max_degree, era, n_era, b_exp, b_log, syn, lam, prev, tmp, omega,
+                         err_deg, err_val):
     """Locate and size the errors of one codeword from its remainder ``rem`` (conventional basis).
 
     ``rem[i]`` is the coefficient of x^(2E-1-i) of r(x) mod g(x).  Symbols exist for polynomial
@@ -302,7 +316,6 @@ def _rs_correct_codeword(rem, n_par, fcr, max_degree, b_exp, b_log, syn, lam, pr
     Steps: syndromes S_j = rem(b^(fcr+j)); Berlekamp-Massey; Chien search over the transmitted
     degrees only; Forney, e = X^(1-fcr) Omega(1/X) / Lambda'(1/X).
     """
-    e = n_par // 2
     # syndromes by Horner on the 2E-term remainder (not on the 255-term word)
     for j in range(n_par):
         p = fcr + j
@@ -317,11 +330,18 @@ def _rs_correct_codeword(rem, n_par, fcr, max_degree, b_exp, b_log, syn, lam, pr
         lam[i] = 0
         prev[i] = 0
     lam[0] = 1
-    prev[0] = 1
-    big_l = 0
+    # erasure locator Gamma(x) = prod (1 - Y x), Y = b^deg; it seeds both C(x) and B(x)
+    for r in range(n_era):
+        y_log = era[r]
+        for i in range(r + 1, 0, -1):
+            if lam[i - 1] != 0:
+                lam[i] ^= b_exp[b_log[lam[i - 1]] + y_log]
+    for i in range(n_era + 1):
+        prev[i] = lam[i]
+    big_l = n_era
     m = 1
     bb = 1
-    for n in range(n_par):
+    for n in range(n_era, n_par):
         d = syn[n]
         for i in range(1, big_l + 1):
             if lam[i] != 0 and syn[n - i] != 0:
@@ -332,13 +352,13 @@ def _rs_correct_codeword(rem, n_par, fcr, max_degree, b_exp, b_log, syn, lam, pr
         coef_log = b_log[d] + 255 - b_log[bb]
         if coef_log >= 255:
             coef_log -= 255
-        if 2 * big_l <= n:
+        if 2 * big_l <= n + n_era:
             for i in range(n_par + 1):
                 tmp[i] = lam[i]
             for i in range(m, n_par + 1):
                 if prev[i - m] != 0:
                     lam[i] ^= b_exp[coef_log + b_log[prev[i - m]]]
-            big_l = n + 1 - big_l
+            big_l = n + 1 + n_era - big_l
             for i in range(n_par + 1):
                 prev[i] = tmp[i]
             bb = d
@@ -348,7 +368,7 @@ def _rs_correct_codeword(rem, n_par, fcr, max_degree, b_exp, b_log, syn, lam, pr
                 if prev[i - m] != 0:
                     lam[i] ^= b_exp[coef_log + b_log[prev[i - m]]]
             m += 1
-    if big_l > e:
+    if 2 * (big_l - n_era) + n_era > n_par or big_l > n_par:
         return -1
     for i in range(big_l + 1, n_par + 1):
         if lam[i] != 0:
@@ -398,15 +418,25 @@ def _rs_correct_codeword(rem, n_par, fcr, max_degree, b_exp, b_log, syn, lam, pr
             if den != 0:
                 den = b_exp[b_log[den] + 2 * inv_log - 255 * (2 * inv_log >= 255)]
             den ^= lam[i]
-        if num == 0 or den == 0:
+        if den == 0:
             return -1
+        if num == 0:
+            # a zero value is consistent only at an erased position that happened to be right
+            erased = False
+            for r in range(n_era):
+                if era[r] == d:
+                    erased = True
+            if not erased:
+                return -1
+            err_val[k] = 0
+            continue
         val_log = (b_log[num] + 255 - b_log[den] + d * (256 - fcr)) % 255  # X^(1-fcr) = b^(d (1 - fcr))
         err_val[k] = b_exp[val_log]
     return n_found
 
 
 @njit(cache=True)
-def rs_decode_kernel(blocks, n_rows, interleave, n_par, fcr, fill, dual_to_conv, conv_to_dual, gtab,
+def rs_decode_kernel(blocks, n_rows, interleave, n_par, fcr, fill, era, n_era, dual_to_conv, conv_to_dual, gtab,
                      b_exp, b_log, out, corrected):
     """Decode ``blocks`` (shape (B, (255 - fill) I), dual basis) into ``out`` (shape (B, n_rows I)).
 
@@ -415,6 +445,7 @@ def rs_decode_kernel(blocks, n_rows, interleave, n_par, fcr, fill, dual_to_conv,
     received check symbols: all zero means a clean codeword (the fast path, about (2E/8 + 1) word
     operations per octet); otherwise ``_rs_correct_codeword`` runs.  ``corrected[b, c]`` receives
     the number of symbols corrected in codeword c of block b, or -1 (data left as received).
+    ``era[b, c, :n_era[b, c]]`` are the polynomial degrees of erased symbols of that codeword.
     """
     n_words = gtab.shape[1]
     rem = np.zeros((interleave, n_words), dtype=np.uint64)
@@ -445,10 +476,17 @@ def rs_decode_kernel(blocks, n_rows, interleave, n_par, fcr, fill, dual_to_conv,
             if not nonzero:
                 corrected[blk, c] = 0
                 continue
-            n_err = _rs_correct_codeword(r8, n_par, fcr, max_degree, b_exp, b_log, syn, lam, prev, tmp,
-                                         omega, err_deg, err_val)
-            corrected[blk, c] = n_err
-            for k in range(max(n_err, 0)):
+            n_err = _rs_correct_codeword(r8, n_par, fcr, max_degree, era[blk, c], n_era[blk, c], b_exp, b_log,
+                                         syn, lam, prev, tmp, omega, err_deg, err_val)
+            if n_err < 0:
+                corrected[blk, c] = -1
+                continue
+            n_changed = 0
+            for k in range(n_err):
+                if err_val[k] == 0:
+                    continue
+                n_changed += 1
                 row = max_degree - err_deg[k]  # index within the transmitted codeword
                 if row < n_rows:
                     out[blk, row * interleave + c] ^= conv_to_dual[err_val[k]]
+            corrected[blk, c] = n_changed

@@ -232,7 +232,7 @@ def rs_encode(data, e: int = 16, interleave: int = 1):
     return out.tobytes() if as_bytes_out else out
 
 
-def _decode(blocks: np.ndarray, e: int, interleave: int) -> tuple[np.ndarray, np.ndarray]:
+def _decode(blocks: np.ndarray, e: int, interleave: int, erasures=None) -> tuple[np.ndarray, np.ndarray]:
     n_par = 2 * e
     length = blocks.shape[1]
     k = _N - n_par
@@ -243,14 +243,40 @@ def _decode(blocks: np.ndarray, e: int, interleave: int) -> tuple[np.ndarray, np
         )
     fill = _N - length // interleave
     n_rows = k - fill
+    era = np.zeros((blocks.shape[0], interleave, n_par), dtype=np.int64)
+    n_era = np.zeros((blocks.shape[0], interleave), dtype=np.int64)
+    if erasures is not None:
+        idx = _check_erasures(erasures, length)
+        max_degree = 254 - fill
+        for c in range(interleave):
+            rows = idx[idx % interleave == c] // interleave
+            if rows.size > n_par:
+                raise ValueError(
+                    f"Argument 'erasures' must mark at most 2E = {n_par} octets per codeword, not {rows.size} "
+                    f"in codeword {c}."
+                )
+            n_era[0, c] = rows.size
+            era[0, c, : rows.size] = max_degree - rows
     out = np.empty((blocks.shape[0], n_rows * interleave), dtype=np.uint8)
     corrected = np.empty((blocks.shape[0], interleave), dtype=np.int64)
-    rs_decode_kernel(blocks, n_rows, interleave, n_par, 128 - e, fill, DUAL_TO_CONV, CONV_TO_DUAL, _GTAB[e],
-                     B_EXP, B_LOG, out, corrected)
+    rs_decode_kernel(blocks, n_rows, interleave, n_par, 128 - e, fill, era, n_era, DUAL_TO_CONV, CONV_TO_DUAL,
+                     _GTAB[e], B_EXP, B_LOG, out, corrected)
     return out, corrected
 
 
-def rs_decode(codeblock, e: int = 16, interleave: int = 1):
+def _check_erasures(erasures, length: int) -> np.ndarray:
+    idx = np.asarray(erasures)
+    if idx.ndim != 1 or (idx.size and not np.issubdtype(idx.dtype, np.integer)):
+        raise TypeError("Argument 'erasures' must be a 1-D sequence of integer octet indices.")
+    idx = idx.astype(np.int64)
+    if idx.size and (idx.min() < 0 or idx.max() >= length):
+        raise ValueError(f"Argument 'erasures' must hold octet indices in 0..{length - 1}, not {idx.min()}..{idx.max()}.")
+    if np.unique(idx).size != idx.size:
+        raise ValueError("Argument 'erasures' must not repeat an index.")
+    return idx
+
+
+def rs_decode(codeblock, e: int = 16, interleave: int = 1, *, erasures=None):
     """Correct a CCSDS Reed-Solomon codeblock and return its data octets.
 
     Parameters
@@ -263,6 +289,9 @@ def rs_decode(codeblock, e: int = 16, interleave: int = 1):
         Correctable symbols per codeword: RS(255,223) or RS(255,239).
     interleave : int
         Interleave depth I, 1..8.
+    erasures : sequence of int, optional, keyword-only
+        Indices of octets in ``codeblock`` known to be unreliable (e.g. lost lock).  A codeword
+        with v errors and f erasures is corrected when 2 v + f <= 2 E.
 
     Returns
     -------
@@ -271,14 +300,16 @@ def rs_decode(codeblock, e: int = 16, interleave: int = 1):
         cannot be corrected is left exactly as received.
     corrected : tuple of int
         Per codeword (c = 0..I-1, codeword c owns octets c, c + I, ...): the number of symbols
-        corrected (0 for a clean codeword), or -1 when it is uncorrectable.  Bad data is reported
+        changed (0 for a clean codeword; an erased octet that was right is not counted), or -1
+        when it is uncorrectable.  Bad data is reported
         here, never raised.
 
     Notes
     -----
     Per codeword: the remainder r(x) mod g(x) is computed by the encoder's byte-wise LFSR; if it is
     zero the codeword is clean (the fast path, one table row per octet).  Otherwise the 2E
-    syndromes are evaluated on the 2E-term remainder, the error locator found by Berlekamp-Massey,
+    syndromes are evaluated on the 2E-term remainder, the errata locator found by Berlekamp-Massey
+    (seeded with the erasure locator when erasures are given),
     its roots by a Chien search restricted to the transmitted positions (a root in the virtual
     fill means failure), and the values by Forney's formula.  A codeword is declared correctable
     only when the locator of degree L <= E has exactly L distinct roots there, so a corrected
@@ -293,7 +324,7 @@ def rs_decode(codeblock, e: int = 16, interleave: int = 1):
     arr, as_bytes_out = as_bytes("codeblock", codeblock)
     e = _check_e(e)
     interleave = _check_interleave(interleave)
-    data, corrected = _decode(arr.reshape(1, -1), e, interleave)
+    data, corrected = _decode(arr.reshape(1, -1), e, interleave, erasures)
     counts = tuple(int(v) for v in corrected[0])
     return (data[0].tobytes() if as_bytes_out else data[0]), counts
 

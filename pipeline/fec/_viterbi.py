@@ -7,7 +7,6 @@ import numpy as np
 from pipeline.fec._args import Rate, as_soft, check_int, check_rate
 from pipeline.fec._conv import _G1_MASK, _G2_MASK, puncture_pattern
 from pipeline.fec._kernels import (
-    decision_pack_kernel,
     depuncture_kernel,
     soft_quantize_kernel,
     viterbi_acs_kernel,
@@ -24,9 +23,11 @@ DEFAULT_TRACEBACK_DEPTH: dict[str, int] = {"1/2": 96, "2/3": 128, "3/4": 160, "5
 # negligible and clip only beyond 4x the mean (common practice, no published source).
 _QUANT_LEVEL = 32.0
 # Trellis steps per quantisation/ACS block (about; rounded down to whole puncturing periods): the
-# 64-octet decisions of a block (1 MiB) stay in L2 for the traceback, and per-block Python costs
+# packed decisions of a block (128 KiB) stay in L2 for the traceback, and per-block Python costs
 # are spread over many bits.
 _BLOCK_STEPS = 16384
+# Steps whose decision octets are packed while in L1 (16 KiB of the 48 KiB L1d of current x86).
+_SUB_BLOCK_STEPS = 256
 
 
 def _parity(x: int) -> int:
@@ -115,7 +116,7 @@ class ViterbiDecoder:
         self._punctured = self.rate != "1/2"
         self._quant = np.zeros(self._block_symbols, dtype=np.int8)
         self._mother = np.zeros(2 * self._block_steps, dtype=np.int8)
-        self._dec = np.zeros(self._block_steps * 64, dtype=np.uint8)
+        self._scratch = np.zeros(_SUB_BLOCK_STEPS * 64, dtype=np.uint8)
         self._words = np.zeros(self._block_steps + self.traceback_depth, dtype=np.uint64)
         self._pm_a = np.zeros(32, dtype=np.uint32)
         self._pm_b = np.zeros(32, dtype=np.uint32)
@@ -147,8 +148,8 @@ class ViterbiDecoder:
         else:
             mother[:n_sym] = 0
             soft_quantize_kernel(soft, _QUANT_LEVEL, mother)
-        viterbi_acs_kernel(mother, n_steps, _SIGN1, _SIGN2, self._pm_a, self._pm_b, self._dec)
-        decision_pack_kernel(self._dec, n_steps, self._words[self._rows :])
+        viterbi_acs_kernel(mother, n_steps, _SIGN1, _SIGN2, self._pm_a, self._pm_b, self._scratch,
+                           self._words[self._rows :])
         self._rows += n_steps
         keep = 0 if final else min(self.traceback_depth, self._rows)
         n_emit = self._rows - keep
