@@ -66,7 +66,8 @@ def main() -> None:
     t0 = time.perf_counter()
     fir_interleaved(u.view(np.float32), d.taps, out.view(np.float32))
     dt = time.perf_counter() - t0
-    print(f"{'kernel matched filter (%d taps)' % d.taps.size:<34} {x.size / dt / 1e6:10.1f} {'':>10}")
+    label = f"kernel matched filter ({d.taps.size} taps)"
+    print(f"{label:<34} {x.size / dt / 1e6:10.1f} {'':>10}")
 
 
 if __name__ == "__main__":

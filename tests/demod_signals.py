@@ -46,8 +46,8 @@ def rrc_closed_form(x: np.ndarray, beta: float) -> np.ndarray:
     s = np.abs(np.abs(x) - 1.0 / (4 * beta)) < 1e-9
     r = ~(z | s)
     xr = x[r]
-    out[r] = (4 * beta / math.pi) * (np.cos((1 + beta) * math.pi * xr)
-                                      + np.sin((1 - beta) * math.pi * xr) / (4 * beta * xr)) / (1 - (4 * beta * xr) ** 2)
+    bracket = np.cos((1 + beta) * math.pi * xr) + np.sin((1 - beta) * math.pi * xr) / (4 * beta * xr)
+    out[r] = (4 * beta / math.pi) * bracket / (1 - (4 * beta * xr) ** 2)
     out[z] = 1 + beta * (4 / math.pi - 1)
     a = math.pi / (4 * beta)
     out[s] = (beta / math.sqrt(2)) * ((1 + 2 / math.pi) * math.sin(a) + (1 - 2 / math.pi) * math.cos(a))

@@ -37,6 +37,8 @@ class TrackPoint:
     ``position`` is the sample position of the block's last symbol, ``carrier_offset_hz`` the
     carrier frequency measured over the block (numerically-controlled oscillator plus the loop's
     phase advance), ``esn0_db`` the block's M2M4 estimate (``nan`` if not measurable).
+    ``carrier_phase_rad`` is the receiver's total, unwrapped carrier phase at ``position``
+    (oscillator plus loop), continuous over the whole run, for precise frequency fits.
     """
 
     position: float
@@ -44,6 +46,7 @@ class TrackPoint:
     esn0_db: float
     carrier_locked: bool
     symbol_locked: bool
+    carrier_phase_rad: float = float("nan")
 
 
 def _empty_f64() -> np.ndarray:
@@ -217,6 +220,8 @@ class Demodulator:
         self._agc_power = 0.0
         self._nco_hz = 0.0
         self._nco_phase = 0.0
+        self._nco_phase_unwrapped = 0.0
+        self._run_sample = 0
         self._fir_hist = np.zeros(self.taps.size - 1, dtype=np.complex64)
         self._mf_tail = np.zeros(0, dtype=np.complex64)
         self._mf_tail_base = -self.filter_delay_samples
@@ -243,6 +248,7 @@ class Demodulator:
             self._pending_start = start
             self._mf_tail_base = start - self.filter_delay_samples
             self._sf[0] = float(start)
+            self._run_sample = start
         elif start != self._next_start:
             raise ValueError(f"Argument 'chunk' must continue the stream at sample {self._next_start}, "
                              f"not start at {start}.")
@@ -336,7 +342,11 @@ class Demodulator:
         gain = 1.0 / math.sqrt(self._agc_power) if self._agc_power > 0.0 else 1.0
         y = np.empty(n, dtype=np.complex64)
         dphase = 2.0 * math.pi * self._nco_hz / fs
+        phase_at_block = self._nco_phase_unwrapped
+        block_first = self._run_sample
         self._nco_phase = derotate(block, gain, self._nco_phase, dphase, 256, y)
+        self._nco_phase_unwrapped += dphase * n
+        self._run_sample += n
         u = np.concatenate([self._fir_hist, y])
         mf = np.empty(n, dtype=np.complex64)
         fir_interleaved(u.view(np.float32), self.taps, mf.view(np.float32))
@@ -370,8 +380,10 @@ class Demodulator:
 
         clock = (flags & 1).astype(bool)
         if nsym:
+            # the symbol's matched-filter centre was rotated at about this oscillator phase
+            total_phase = phase_at_block + dphase * (pos[-1] - block_first) + theta[-1]
             track = [TrackPoint(float(pos[-1]), float(freq_hz), estimate_esn0_m2m4(sym),
-                                bool(clock[-1]), bool(flags[-1] & 2))]
+                                bool(clock[-1]), bool(flags[-1] & 2), float(total_phase))]
             run = 0
             if not clock.any():
                 self._unlocked_run += nsym

@@ -24,18 +24,34 @@ def _iso_ns(ns: int) -> str:
 
 
 def fit_carrier_track(track: list[TrackPoint], sample_rate_hz: float) -> tuple[float, float] | None:
-    """Least-squares line through the carrier-locked track points: ``f(t) = f0 + rate t``.
+    """Carrier offset at the recording start (Hz) and its drift (Hz/s) from the track points.
 
-    ``t`` is seconds from recording sample 0, so ``f0`` is the carrier offset at the start of the
-    recording (Hz) and ``rate`` its drift (Hz/s).  Returns ``None`` when no point is locked; the
-    rate is 0 when fewer than three points span the fit.  Cost O(len(track)).
+    ``t`` is seconds from recording sample 0.  When the points carry the total carrier phase, a
+    quadratic ``phi(t) = a + 2 pi (f0 t + rate t^2 / 2)`` is fitted by least squares over the
+    longest run of consecutive carrier-locked points (the phase is continuous there, and a phase
+    fit averages the loop's jitter far better than per-block frequencies); otherwise, and for
+    fewer than four points, a line through the per-block frequencies.  Returns ``None`` when no
+    point is locked.  Cost O(len(track)).
     """
-    pts = [(p.position / sample_rate_hz, p.carrier_offset_hz) for p in track
-           if p.carrier_locked and math.isfinite(p.carrier_offset_hz)]
-    if not pts:
+    best: list[TrackPoint] = []
+    run: list[TrackPoint] = []
+    for p in track:
+        if p.carrier_locked and math.isfinite(p.carrier_offset_hz):
+            run.append(p)
+            if len(run) > len(best):
+                best = list(run)
+        else:
+            run = []
+    if not best:
         return None
-    t = np.array([p[0] for p in pts])
-    f = np.array([p[1] for p in pts])
+    t = np.array([p.position / sample_rate_hz for p in best])
+    phase = np.array([p.carrier_phase_rad for p in best])
+    if t.size >= 4 and np.all(np.isfinite(phase)) and np.ptp(t) > 0:
+        tc = t - t.mean()  # centred for conditioning
+        a = np.vstack([np.ones_like(tc), tc, 0.5 * tc * tc]).T
+        (_, f_mid, rate), *_ = np.linalg.lstsq(a, phase / (2.0 * math.pi), rcond=None)
+        return float(f_mid - rate * t.mean()), float(rate)
+    f = np.array([p.carrier_offset_hz for p in best])
     if t.size < 3 or np.ptp(t) <= 0:
         return float(np.mean(f)), 0.0
     a = np.vstack([np.ones_like(t), t]).T

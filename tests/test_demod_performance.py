@@ -1,0 +1,183 @@
+"""Demodulator against theory: implementation loss, Es/N0 estimate, carrier, Doppler, fades, inspect."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from demod_signals import Chunk, bit_errors_iq, chunked, esn0_from_ser, modulate, symbol_errors, theory_ser
+
+from pipeline.demod import Demodulator, SymbolBlock, inspect_recording, write_inspect_plots
+from pipeline.profile import LinkProfile, LinkSection, ReceiverSection
+
+FS = 1e6
+RS = 240e3
+
+
+def _demodulate(samples, mod="bpsk", cuts=(), **rx) -> tuple[SymbolBlock, Demodulator]:
+    d = Demodulator(link=LinkSection(modulation=mod), receiver=ReceiverSection(**rx), sample_rate_hz=FS)
+    blocks = [d.process(c) for c in chunked(samples, list(cuts))] + [d.flush()]
+    out = SymbolBlock(soft=np.concatenate([b.soft for b in blocks]),
+                      position=np.concatenate([b.position for b in blocks]),
+                      locked=np.concatenate([b.locked for b in blocks]),
+                      track=[t for b in blocks for t in b.track],
+                      symbols=np.concatenate([b.symbols for b in blocks]))
+    return out, d
+
+
+# Symbol counts give about 100 or more errors at each point, so the SER is known to ~ +-0.05 dB.
+_SER_CASES = [("bpsk", 4.0, 40_000), ("bpsk", 6.0, 100_000), ("bpsk", 8.0, 420_000),
+              ("qpsk", 4.0, 20_000), ("qpsk", 6.0, 20_000), ("qpsk", 8.0, 40_000)]
+
+
+@pytest.mark.parametrize("mod,esn0_db,nsym", _SER_CASES)
+def test_implementation_loss_within_0p3_db(rng, mod, esn0_db, nsym):
+    w = modulate(nsym, modulation=mod, esn0_db=esn0_db, carrier_offset_hz=0.01 * RS, phase_rad=rng.uniform(0, 6.28),
+                 timing_offset=0.37, clock_offset_ppm=50.0, rng=rng)
+    blk, d = _demodulate(w.samples, mod)
+    errs, n, perr = symbol_errors(blk, w, mod)
+    ser = errs / n
+    equiv = esn0_from_ser(ser, mod)
+    # theory: BPSK Q(sqrt(2 Es/N0)), QPSK 2Q(sqrt(Es/N0)) - Q^2 (Proakis, Digital Communications, 4th ed.)
+    theory = theory_ser(esn0_db, mod)
+    assert equiv > esn0_db - 0.3, f"SER {ser:.3g} vs theory {theory:.3g}: loss {esn0_db - equiv:.2f} dB"
+    assert equiv < esn0_db + 0.2  # not better than theory beyond the statistical spread
+    assert perr < 0.25
+    assert blk.locked[2000 * (2 if mod == "qpsk" else 1):].all()
+
+
+def test_oqpsk_bit_error_rate():
+    rng = np.random.default_rng(11)
+    w = modulate(40_000, modulation="oqpsk", esn0_db=6.0, carrier_offset_hz=0.01 * RS, phase_rad=2.2,
+                 clock_offset_ppm=50.0, rng=rng)
+    blk, _ = _demodulate(w.samples, "oqpsk")
+    e, n = bit_errors_iq(blk, w)
+    from scipy.special import erfc
+
+    ber_theory = 0.5 * erfc(math.sqrt(10 ** 0.6 / 2))  # Gray QPSK/OQPSK: Q(sqrt(Es/N0)) (Proakis 5.2-59)
+    assert e / n < ber_theory * 10 ** (0.3 / 10 * 4)  # within ~0.3 dB at this slope (about x1.3)
+    assert e / n > ber_theory * 0.8
+
+
+@pytest.mark.parametrize("esn0_db", [0.0, 5.0, 10.0, 15.0])
+def test_esn0_estimate_within_half_db(esn0_db):
+    rng = np.random.default_rng(int(esn0_db) + 3)
+    w = modulate(50_000, esn0_db=esn0_db, carrier_offset_hz=1200.0, clock_offset_ppm=20.0, rng=rng)
+    blk, _ = _demodulate(w.samples)
+    est = [t.esn0_db for t in blk.track[2:-1] if t.carrier_locked]
+    assert len(est) >= 5
+    assert abs(float(np.median(est)) - esn0_db) < 0.5  # Es/N0 as defined in ../shared/DESIGN.md
+
+
+class _FakeRecording:
+    """The parts of pipeline.recording.Recording that inspect_recording uses."""
+
+    datatype = "cf32_le"
+    frequency_hz = None
+
+    def __init__(self, samples, fs):
+        self._x = samples
+        self.sample_rate_hz = fs
+        self.num_samples = samples.size
+        self.start_ns = 1_773_480_600_000_000_000  # 2026-03-14T09:30:00Z
+        self.duration_s = samples.size / fs
+
+    def chunks(self, chunk_samples, start=0, stop=None):
+        stop = self.num_samples if stop is None else stop
+        for a in range(start, stop, chunk_samples):
+            yield Chunk(self._x[a:min(stop, a + chunk_samples)], a, 0)
+
+
+def test_inspect_carrier_offset_within_1_hz(tmp_path):
+    rng = np.random.default_rng(21)
+    w = modulate(120_000, esn0_db=5.0, carrier_offset_hz=3217.3, phase_rad=0.9, clock_offset_ppm=20.0, rng=rng)
+    assert 0.49 < w.samples.size / FS < 0.52  # a 0.5 s recording
+    res = inspect_recording(_FakeRecording(w.samples, FS), profile=LinkProfile())
+    assert res["carrier_found"] is True
+    assert abs(res["carrier_offset_hz"] - 3217.3) < 1.0
+    assert abs(res["carrier_rate_hz_per_s"]) < 10.0
+    assert abs(res["esn0_db"] - 5.0) < 0.5
+    assert res["lock_fraction"] > 0.95
+    assert res["start"] == "2026-03-14T09:30:00.000000000Z"
+    # the RRC spectrum is flat over +-(1 - b) Rs / 2 and zero beyond (1 + b) Rs / 2 (Proakis sec. 9.2)
+    assert abs(res["spectrum_peak_hz"] - 3217.3) < 0.5 * 1.5 * RS
+    for key in ("sample_rate_hz", "duration_s", "datatype", "spectrum_peak_hz", "esn0_db", "lock_fraction"):
+        assert key in res
+    assert {"spectrum_freq_hz", "spectrum_db", "constellation"} <= set(res["plots"])
+    paths = write_inspect_plots(res, tmp_path / "plots")
+    assert [p.name for p in paths] == ["spectrum.png", "constellation.png"]
+    assert all(p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" for p in paths)
+
+
+def test_inspect_no_signal_is_not_an_error(tmp_path):
+    rng = np.random.default_rng(22)
+    x = (rng.standard_normal(400_000) + 1j * rng.standard_normal(400_000)).astype(np.complex64)
+    res = inspect_recording(_FakeRecording(x, FS), profile=LinkProfile(), max_seconds=0.3)
+    assert res["carrier_found"] is False
+    assert "no carrier found" in res["message"]
+    assert res["carrier_offset_hz"] is None and res["esn0_db"] is None
+    assert res["lock_fraction"] < 0.01
+    assert abs(res["analysed_s"] - 0.3) < 1e-9
+    write_inspect_plots(res, tmp_path)
+    bare = inspect_recording(_FakeRecording(x, FS))
+    assert "carrier_found" not in bare and bare["duration_s"] == 0.4
+
+
+def _polarity_runs(blk, w, window=2000, skip=4000):
+    """Sign of the correlation between soft symbols and the transmitted +-1 per window of symbols."""
+    sps = np.median(np.diff(w.peak_position))
+    k = np.rint((blk.position - w.peak_position[0]) / sps).astype(int)
+    ok = (k >= 0) & (k < w.i_bits.size)
+    ok[:skip] = False
+    s = blk.soft[ok]
+    tx = 1.0 - 2.0 * w.i_bits[k[ok]]
+    n = s.size // window
+    return np.sign([np.dot(s[i * window:(i + 1) * window], tx[i * window:(i + 1) * window]) for i in range(n)])
+
+
+@pytest.mark.parametrize("order,esn0_db", [(2, -1.0), (3, 2.4)])
+def test_doppler_rate_500_hz_per_s_without_cycle_slip(order, esn0_db):
+    rng = np.random.default_rng(31 + order)
+    w = modulate(240_000, esn0_db=esn0_db, carrier_offset_hz=-4000.0, doppler_rate_hz_per_s=500.0, phase_rad=0.2,
+                 clock_offset_ppm=100.0, rng=rng)
+    blk, d = _demodulate(w.samples, carrier_loop_order=order)
+    pol = _polarity_runs(blk, w)
+    assert pol.size > 100 and np.all(pol == pol[0])  # a cycle slip would flip the sign of a window
+    assert blk.locked[4000:].mean() > 0.999
+    from pipeline.demod import fit_carrier_track
+
+    f0, rate = fit_carrier_track(blk.track, FS)
+    assert abs(rate - 500.0) < 10.0 and abs(f0 - -4000.0) < 5.0
+
+
+@pytest.mark.parametrize("esn0_db", [-1.0, 2.4])
+def test_lock_regained_within_1000_symbols_after_100_ms_dropout(esn0_db):
+    rng = np.random.default_rng(41)
+    w = modulate(120_000, esn0_db=esn0_db, carrier_offset_hz=2300.0, doppler_rate_hz_per_s=-300.0,
+                 clock_offset_ppm=20.0, dropout=(0.15, 0.25), rng=rng)
+    blk, _ = _demodulate(w.samples, cuts=[123_457, 250_001])
+    t = blk.position / FS
+    assert not blk.locked[(t > 0.2) & (t < 0.25)].any()  # the lock detector saw the fade
+    after = np.flatnonzero(t >= 0.25)
+    first = int(np.argmax(blk.locked[after]))
+    assert blk.locked[after].any() and first < 1000
+    assert blk.locked[after[first]:].mean() > 0.995
+    # after relock the data are right again (up to the 180-degree ambiguity)
+    sub = SymbolBlock(soft=blk.soft[after[first] + 200:], position=blk.position[after[first] + 200:])
+    e, n, _ = symbol_errors(sub, w, "bpsk", skip=0)
+    assert e / n < 2 * theory_ser(esn0_db, "bpsk") + 0.005
+
+
+def test_nan_burst_does_not_poison_the_loops():
+    rng = np.random.default_rng(51)
+    w = modulate(60_000, esn0_db=3.0, carrier_offset_hz=1000.0, rng=rng)
+    x = w.samples.copy()
+    x[120_000:122_000] = np.nan + 1j * np.nan
+    blk, d = _demodulate(x, cuts=[121_000])
+    assert d.stats.nonfinite_samples == 2000
+    assert np.isfinite(blk.soft).all()
+    t = blk.position
+    assert blk.locked[t > 125_000].mean() > 0.99
+    e, n, _ = symbol_errors(SymbolBlock(soft=blk.soft[t > 125_000], position=t[t > 125_000]), w, "bpsk", skip=0)
+    assert e / n < 2 * theory_ser(3.0, "bpsk")
