@@ -40,7 +40,8 @@ def _tm(vcid=5, mcfc=0x45, vcfc=0x67, fhp=0, frames=TM, **kw):
 def _galois_rs():
     import galois
 
-    gf = galois.GF(2**4, irreducible_poly="x^4 + x + 1")
+    # pure-Python arithmetic: GF(16) is tiny and galois' JIT compilation would take seconds
+    gf = galois.GF(2**4, irreducible_poly="x^4 + x + 1", compile="python-calculate")
     return gf, galois.ReedSolomon(15, 11, field=gf, c=6)
 
 
@@ -244,6 +245,9 @@ def test_aos_statuses():
     assert p.process(decoded(_aos(fhp=aos_zone_length(AOS)))).status == "bad_header"
     bpdu = p.process(decoded(_aos(vcid=9, fhp=0x3FFF, bpdu=True)))
     assert bpdu.status == "ok" and bpdu.bdp == 0x3FFF and bpdu.packet_zone is None
+    assert bpdu.bitstream_valid_bits == 8 * aos_zone_length(AOS)
+    part = p.process(decoded(_aos(vcid=9, fhp=100, bpdu=True)))
+    assert part.bitstream_valid_bits == 101 and part.as_dict()["bitstream_valid_bits"] == 101
     assert p.process(decoded(_aos(vcid=9, fhp=0x3FFE, bpdu=True))).status == "idle"
     assert p.process(decoded(_aos(vcid=9, fhp=8 * (aos_zone_length(AOS)), bpdu=True))).status == "bad_header"
 

@@ -183,6 +183,12 @@ class ChannelAccounting:
     show up as the gap that follows them, with ``unusable_between`` telling how many of the
     missing frames were in fact received corrupt.  ``foreign_scid`` frames are counted per
     spacecraft id.  O(1) per frame; state is one small counter per channel.
+
+    References
+    ----------
+    CCSDS 132.0-B sec. 4.1.2.4-4.1.2.5 (TM master / virtual channel frame counts, modulo 256);
+    CCSDS 732.0-B sec. 4.1.2.4 and 4.1.2.5.3 (AOS VC frame count and its cycle extension).
+    Clause numbers from memory, not confirmed.
     """
 
     def __init__(self, *, spacecraft_id: int | None = None) -> None:

@@ -24,7 +24,7 @@ CLCW (OCF type 0; CCSDS 232.0-B sec. 4.2, from memory, not confirmed)
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Literal
 
 from pipeline.link._fhec import fhec_check
@@ -166,7 +166,15 @@ class FrameRecord:
     clcw: dict | None = None
     fecf_ok: bool | None = None
     length: int = 0
-    extra: dict = field(default_factory=dict)
+
+    @property
+    def bitstream_valid_bits(self) -> int | None:
+        """Valid data bits in a B_PDU zone: all of it for pointer 0x3FFF, else pointer + 1; None otherwise."""
+        if self.bdp is None:
+            return None
+        if self.bdp == BDP_ALL_VALID:
+            return 8 * (len(self.data_field) - 2)
+        return self.bdp + 1
 
     def as_dict(self) -> dict[str, Any]:
         """JSON-ready fields (bytes as hex; the data field itself only as its length)."""
@@ -201,6 +209,7 @@ class FrameRecord:
                 d["insert_zone"] = self.insert_zone.hex()
             if self.bdp is not None:
                 d["bdp"] = self.bdp
+                d["bitstream_valid_bits"] = self.bitstream_valid_bits
         d["fhp"] = self.fhp
         d["data_field_length"] = len(self.data_field)
         d["ocf"] = None if self.ocf is None else self.ocf.hex()
