@@ -305,3 +305,21 @@ def test_uncoded_qpsk_phase_jump_and_chunking(rng):
     k = bs.events[0].bit_index
     assert jump <= k <= jump + 2 * 8192  # switched within the block after the jump
     assert np.array_equal(b[: jump], soft[: jump]) and np.array_equal(b[k:], soft[k:])
+
+
+def test_noise_then_signal_is_acquired_when_it_appears(rng):
+    # Pure noise first: every evaluation is undecided (provisional choice), re-evaluated with back-off;
+    # when the coded signal starts, the right alignment is found even if the noise pick was wrong.
+    bits = rng.integers(0, 2, 30000, dtype=np.uint8)
+    noise = rng.normal(0, 1.0, 30001).astype(np.float32)  # odd: the signal starts on the other alignment
+    soft = np.concatenate((noise, channel(rng, bits, "1/2", 4.0)))
+    pos = np.arange(soft.size, dtype=np.float64)
+    bs = BranchSync(rate="1/2", modulation="bpsk")
+    out, opos = run(bs, soft, pos)
+    assert bs.stats.undecided_evaluations >= 2
+    late = opos > noise.size + 40000
+    dec = (out < 0).astype(np.uint8)[late]
+    first = int(opos[late][0]) - noise.size  # channel index, within the signal, of that branch
+    assert first % 2 == 0  # branches start on C1 symbols again
+    k = first // 2
+    assert float(np.mean(dec[:5000] != bits[k: k + 5000])) < 2e-3

@@ -8,6 +8,7 @@ import numpy as np
 
 from pipeline.fec import ASM
 from pipeline.sync import _kernels
+from pipeline.sync._args import as_soft_and_position, check_int
 from pipeline.sync._types import Cadu, SyncEvent
 
 __all__ = ["FrameSync", "FrameSyncStats", "DEFAULT_ASM"]
@@ -114,11 +115,11 @@ class FrameSync:
         if not 2 <= len(asm) <= 32:
             raise ValueError(f"Argument 'asm' must be 2..32 octets long, not {len(asm)}.")
         m = 8 * len(asm)
-        _check_int("frame_bits", frame_bits, 8, 1 << 22)
-        _check_int("max_errors", max_errors, 0, m // 2 - 1)
-        _check_int("check_frames", check_frames, 0, 100)
-        _check_int("flywheel", flywheel, 0, 1000)
-        _check_int("slip_bits", slip_bits, 0, min(64, frame_bits // 2))
+        check_int("frame_bits", frame_bits, 8, 1 << 22)
+        check_int("max_errors", max_errors, 0, m // 2 - 1)
+        check_int("check_frames", check_frames, 0, 100)
+        check_int("flywheel", flywheel, 0, 1000)
+        check_int("slip_bits", slip_bits, 0, min(64, frame_bits // 2))
         self.frame_bits = int(frame_bits)
         self.asm = asm
         self.max_errors = int(max_errors)
@@ -173,7 +174,7 @@ class FrameSync:
             In stream order; a CADU is returned as soon as its last bit has arrived and the marker
             decision for it is final.
         """
-        soft, position = _as_inputs(soft, position)
+        soft, position = as_soft_and_position(soft, position)
         if soft.size:
             hard = np.empty(soft.size, dtype=np.uint8)
             _kernels.hard_decisions(soft, hard)
@@ -371,27 +372,3 @@ class FrameSync:
         r = at - self._base
         pos = float(self._pos[r]) if 0 <= r < self._pos.size else float("nan")
         self.events.append(SyncEvent(kind=kind, bit_index=at, position=pos, offset_bits=offset_bits))
-
-
-def _check_int(name: str, value, lo: int, hi: int) -> None:
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
-        raise TypeError(f"Argument '{name}' must be an integer, not {type(value).__name__}.")
-    if not lo <= value <= hi:
-        raise ValueError(f"Argument '{name}' must be {lo}..{hi}, not {value}.")
-
-
-def _as_inputs(soft, position) -> tuple[np.ndarray, np.ndarray]:
-    soft = np.asarray(soft)
-    position = np.asarray(position)
-    if soft.ndim != 1:
-        raise ValueError(f"Argument 'soft' must be one-dimensional, not {soft.ndim}-dimensional.")
-    if not (np.issubdtype(soft.dtype, np.floating) or np.issubdtype(soft.dtype, np.integer)):
-        raise TypeError(f"Argument 'soft' must hold real numbers, not {soft.dtype}.")
-    if position.shape != soft.shape:
-        raise ValueError(f"Argument 'position' must have the length of 'soft' ({soft.size}), not {position.size}.")
-    if not (np.issubdtype(position.dtype, np.floating) or np.issubdtype(position.dtype, np.integer)):
-        raise TypeError(f"Argument 'position' must hold real numbers, not {position.dtype}.")
-    return (
-        np.ascontiguousarray(soft, dtype=np.float32),
-        np.ascontiguousarray(position, dtype=np.float64),
-    )
