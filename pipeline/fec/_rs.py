@@ -7,6 +7,8 @@ b^j for consecutive j starting at ``fcr = 128 - E``.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 from pipeline.fec._args import as_bytes, check_int
@@ -232,21 +234,32 @@ def rs_encode(data, e: int = 16, interleave: int = 1):
     return out.tobytes() if as_bytes_out else out
 
 
-def _decode(blocks: np.ndarray, e: int, interleave: int, erasures=None) -> tuple[np.ndarray, np.ndarray]:
+@functools.lru_cache(maxsize=64)
+def _layout(e: int, interleave: int, length: int) -> tuple[int, int, np.ndarray, np.ndarray]:
+    """(fill, data rows, no-erasure tables) for one codeblock shape, after checking the length."""
     n_par = 2 * e
-    length = blocks.shape[1]
-    k = _N - n_par
     if length % interleave or not (n_par + 1) * interleave <= length <= _N * interleave:
         raise ValueError(
             f"Argument 'codeblock' must have a length that is a multiple of interleave {interleave} in "
             f"{(n_par + 1) * interleave}..{_N * interleave}, not {length}."
         )
     fill = _N - length // interleave
-    n_rows = k - fill
-    era = np.zeros((blocks.shape[0], interleave, n_par), dtype=np.int64)
-    n_era = np.zeros((blocks.shape[0], interleave), dtype=np.int64)
+    era = np.zeros((1, interleave, n_par), dtype=np.int64)
+    n_era = np.zeros((1, interleave), dtype=np.int64)
+    era.flags.writeable = False
+    n_era.flags.writeable = False
+    return fill, _N - n_par - fill, era, n_era
+
+
+def _decode(blocks: np.ndarray, e: int, interleave: int, erasures=None) -> tuple[np.ndarray, np.ndarray]:
+    n_par = 2 * e
+    length = blocks.shape[1]
+    fill, n_rows, era, n_era = _layout(e, interleave, length)
+    n_blocks = blocks.shape[0]
     if erasures is not None:
         idx = _check_erasures(erasures, length)
+        era = np.zeros((1, interleave, n_par), dtype=np.int64)
+        n_era = np.zeros((1, interleave), dtype=np.int64)
         max_degree = 254 - fill
         for c in range(interleave):
             rows = idx[idx % interleave == c] // interleave
@@ -257,8 +270,11 @@ def _decode(blocks: np.ndarray, e: int, interleave: int, erasures=None) -> tuple
                 )
             n_era[0, c] = rows.size
             era[0, c, : rows.size] = max_degree - rows
-    out = np.empty((blocks.shape[0], n_rows * interleave), dtype=np.uint8)
-    corrected = np.empty((blocks.shape[0], interleave), dtype=np.int64)
+    elif n_blocks != 1:
+        era = np.zeros((n_blocks, interleave, n_par), dtype=np.int64)
+        n_era = np.zeros((n_blocks, interleave), dtype=np.int64)
+    out = np.empty((n_blocks, n_rows * interleave), dtype=np.uint8)
+    corrected = np.empty((n_blocks, interleave), dtype=np.int64)
     rs_decode_kernel(blocks, n_rows, interleave, n_par, 128 - e, fill, era, n_era, DUAL_TO_CONV, CONV_TO_DUAL,
                      _GTAB[e], B_EXP, B_LOG, out, corrected)
     return out, corrected
