@@ -393,3 +393,15 @@ def test_count_step_with_elapsed_time():
     assert count_step(10, 140, 256, elapsed_frames=130.0) == ("gap", 129)
     assert count_step(10, 10, 256, elapsed_frames=256.0) == ("gap", 255)
     assert count_step(10, 11, 256, elapsed_frames=200.0) == ("next", 0)  # a sparse VC: most likely the next
+
+
+def test_parser_is_stateless_across_batches(rng):
+    # Chunking invariance of a per-frame stage: records do not depend on what was parsed before.
+    frames = [_tm(vcid=int(rng.integers(8)), mcfc=i % 256, vcfc=i % 256, fhp=int(rng.integers(0, 54)))
+              for i in range(50)]
+    frames += [bytes(rng.integers(0, 256, 64, dtype=np.uint8)) for _ in range(20)]
+    one = [FrameParser(frames=TM).process(decoded(f, position=float(i))) for i, f in enumerate(frames)]
+    shared = FrameParser(frames=TM)
+    order = rng.permutation(len(frames))
+    again = {int(i): shared.process(decoded(frames[i], position=float(i))) for i in order}
+    assert [again[i] for i in range(len(frames))] == one

@@ -21,7 +21,7 @@ from test_link_builders import (
 )
 
 from pipeline.link import FrameParser
-from pipeline.packets import PacketExtractor, encode_cds, encode_cuc, tai_ns_to_utc_ns, utc_ns_to_tai_ns
+from pipeline.packets import PacketExtractor, decode_cds, encode_cds, encode_cuc, tai_ns_to_utc_ns, utc_ns_to_tai_ns
 from pipeline.profile import FramesSection, LinkProfile, PacketsSection, TimeCodeConfig
 
 NS = 1_000_000_000
@@ -265,22 +265,25 @@ def test_time_codes_attached():
     tai = utc_ns_to_tai_ns(t_utc)
     codes = (TimeCodeConfig(apid=100, code="cuc", pfield=0x1E),
              TimeCodeConfig(apid=101, code="cuc", pfield=None),
-             TimeCodeConfig(apid=102, code="cds", pfield=0x41, offset=1))
+             TimeCodeConfig(apid=102, code="cds", pfield=0x45, offset=1))  # 24-bit day, microseconds
     prof = LinkProfile(frames=TM, packets=PacketsSection(time_codes=codes))
+    far_future = bytes.fromhex("FFFFFF000000000000")
+    assert decode_cds(far_future, pfield=0x45)[1] == 9  # decodes: the extractor must still not report it
     pk = [space_packet(100, 0, encode_cuc(tai, pfield=0x1E) + b"hk", sec=True),
           space_packet(101, 0, encode_cuc(tai, pfield=0x1F, explicit=True) + b"x", sec=True),
-          space_packet(102, 0, b"\x99" + encode_cds(tai, pfield=0x41) + b"y", sec=True),
+          space_packet(102, 0, b"\x99" + encode_cds(tai, pfield=0x45) + b"y", sec=True),
           space_packet(100, 1, b"\x00\x01", sec=True),  # too short for its time code
           space_packet(100, 2, encode_cuc(tai, pfield=0x1E), sec=False),  # no secondary header
-          space_packet(200, 0, encode_cuc(tai, pfield=0x1E), sec=True)]  # APID without a time code
+          space_packet(200, 0, encode_cuc(tai, pfield=0x1E), sec=True),  # APID without a time code
+          space_packet(102, 1, b"\x99" + far_future, sec=True)]  # a valid code, but after the year 9999
     zones, _ = cut_stream(pk, _zone_len(TM))
     parser, ex = FrameParser(frames=TM), PacketExtractor(profile=prof)
     out = []
     for d in _frames_for_vc(TM, 0, zones):
         out += ex.process(parser.process(d))
-    assert [p.time_ns for p in out] == [t_utc, t_utc, t_utc, None, None, None]
+    assert [p.time_ns for p in out] == [t_utc, t_utc, t_utc, None, None, None, None]
     assert out[0].time_tai_ns == tai and tai_ns_to_utc_ns(tai) == t_utc
-    assert ex.stats.time_codes == 3 and ex.stats.time_code_errors == 2
+    assert ex.stats.time_codes == 3 and ex.stats.time_code_errors == 3
 
 
 def test_demo_profile_round_trip(demo_profile):

@@ -32,6 +32,9 @@ _SEQ_MODULUS = 1 << 14
 _MAX_SPACE_PACKET = 65542
 _IDLE_OCTET = 0xE0
 _MAX_GAP_EVENTS = 1000
+# Packet times outside 1958-01-01 .. 9999-12-31 UTC are counted as time-code errors.
+_TIME_MIN_NS = -4383 * 86_400 * 1_000_000_000
+_TIME_MAX_NS = 2_932_897 * 86_400 * 1_000_000_000  # days from 1970-01-01 to 10000-01-01
 
 #: Reasons a (partial) packet is discarded.
 DROP_REASONS = ("frame_gap", "fhp_mismatch", "bad_version", "bad_length", "too_long", "incomplete_at_end")
@@ -65,7 +68,8 @@ class Packet:
         RS symbols corrected per codeword in that frame.
     time_ns : int or None
         UTC ns since 1970 from the secondary-header time code, when the APID has one
-        configured and it decoded; None otherwise.
+        configured and it decoded to a date in 1958..9999; None otherwise (counted in
+        ``stats.time_code_errors``).
     time_tai_ns : int or None
         The same instant as TAI ns since 1958 (exact also inside a leap second).
     kind : {"space", "encapsulation"}
@@ -562,6 +566,10 @@ class PacketExtractor:
             time_tai = self._time_code(pkt, sec_flag, tc)
             if time_tai is not None:
                 time_ns = self._leap.tai_to_utc(time_tai)
+                if not _TIME_MIN_NS <= time_ns < _TIME_MAX_NS:
+                    # e.g. a 24-bit CDS day count far in the future: not a time anyone can print
+                    time_ns = time_tai = None
+            if time_tai is not None:
                 a.time_codes += 1
                 S.time_codes += 1
             else:
