@@ -181,3 +181,33 @@ def test_nan_burst_does_not_poison_the_loops():
     assert blk.locked[t > 125_000].mean() > 0.99
     e, n, _ = symbol_errors(SymbolBlock(soft=blk.soft[t > 125_000], position=t[t > 125_000]), w, "bpsk", skip=0)
     assert e / n < 2 * theory_ser(3.0, "bpsk")
+
+
+def test_reacquisition_after_a_long_fade_with_a_frequency_jump():
+    """After a fade longer than the loops can coast, the carrier is searched again and found."""
+    rng = np.random.default_rng(61)
+    w = modulate(240_000, esn0_db=3.0, carrier_offset_hz=2300.0, clock_offset_ppm=20.0, dropout=(0.2, 0.6), rng=rng)
+    x = w.samples.astype(np.complex128)
+    t = np.arange(x.size) / FS
+    late = t >= 0.6
+    x[late] *= np.exp(2j * math.pi * 4000.0 * t[late])  # far outside the tracking loop's pull-in range
+    blk, d = _demodulate(x.astype(np.complex64))
+    tp = blk.position / FS
+    assert d.stats.carrier_found >= 2 and d.stats.acquisitions >= 3
+    assert not blk.locked[(tp > 0.3) & (tp < 0.6)].any()
+    back = np.flatnonzero(blk.locked & (tp > 0.6))
+    assert back.size and tp[back[0]] < 0.75  # within two acquisition windows (65 ms each)
+    assert blk.locked[back[0]:].mean() > 0.99
+    f_late = [p.carrier_offset_hz for p in blk.track if p.carrier_locked and p.position / FS > 0.8]
+    assert abs(np.median(f_late) - 6300.0) < 5.0
+
+
+def test_recording_starting_before_the_signal():
+    rng = np.random.default_rng(62)
+    w = modulate(120_000, esn0_db=2.0, carrier_offset_hz=-1700.0, dropout=(0.0, 0.25), rng=rng)
+    blk, d = _demodulate(w.samples)
+    tp = blk.position / FS
+    assert not blk.locked[tp < 0.25].any()
+    back = np.flatnonzero(blk.locked)
+    assert back.size and tp[back[0]] < 0.4
+    assert blk.locked[back[0]:].mean() > 0.99

@@ -120,7 +120,8 @@ class Demodulator:
        a nearly centred spectrum even under large Doppler drift.
     5. One :class:`TrackPoint` with the measured frequency and the block's M2M4 Es/N0.
 
-    Acquisition (at start, and when the carrier stayed unlocked for ``reacquire_symbols``):
+    Acquisition (at start, when the carrier stayed unlocked for ``reacquire_symbols``, and
+    again right away after a search that found no line while the loop is still unlocked):
     ``acquisition_samples`` are held, the carrier is estimated from the spectral line of the
     squared / fourth-power matched-filter output over ``+- acquisition_range * symbol_rate``,
     and the held samples are then demodulated with that estimate, so nothing is lost.
@@ -199,10 +200,10 @@ class Demodulator:
             1.0 / 1024.0,                       # amplitude (M2M4) averaging
             1.0 / (2048.0 if qpsk else 256.0),  # carrier-lock averaging: r^4 is noisier than r^2
             1.0 / 1024.0,                       # symbol-lock averaging
-            0.6, 0.3, 0.15 if qpsk else 0.25,   # carrier lock on / off (relative), minimum absolute
+            0.75, 0.3, 0.15 if qpsk else 0.25,  # carrier lock on / off (relative), minimum absolute
             0.5, 0.25, 0.04,                    # symbol lock on / off (relative), minimum absolute
             r0, kd,
-            256.0,                              # warm-up symbols before any lock is declared
+            128.0,                              # warm-up, and symbols in a row meeting the lock condition
         ]
         self._params = params
         self.reset()
@@ -229,6 +230,7 @@ class Demodulator:
         self._si = np.zeros(STATE_I_SIZE, dtype=np.int64)
         self._sf[18] = 1.0
         self._unlocked_run = 0
+        self._retry_acquisition = False
         self._finished = False
         self.stats = DemodStats()
 
@@ -328,9 +330,16 @@ class Demodulator:
                 self._nco_hz = est.offset_hz
                 self._sf[3] = 0.0
                 self._sf[4] = 0.0
+            # nothing found (no signal yet, or a fade): look again as soon as these blocks are
+            # demodulated, unless the loop has locked on its own meanwhile
+            self._retry_acquisition = not est.found
         b = self.block_samples
         for j in range(0, held.size, b):
             self._run_block(held[j:j + b], parts)
+        if self._retry_acquisition and not self._si[1]:
+            self._acquiring = True
+            self._unlocked_run = 0
+        self._retry_acquisition = False
 
     def _run_block(self, block: np.ndarray, parts: list, t_limit: float = math.inf, tail: bool = False) -> None:
         fs = self.sample_rate_hz
@@ -396,7 +405,7 @@ class Demodulator:
         parts.append({"pos": pos, "sym": sym, "amp": amp, "locked": clock, "track": track})
         self.stats.symbols_out += nsym
         self.stats.carrier_locked_symbols += int(clock.sum())
-        if self._unlocked_run >= self.reacquire_symbols and not tail:
+        if not tail and self._unlocked_run >= self.reacquire_symbols:
             self._unlocked_run = 0
             self._acquiring = True
 

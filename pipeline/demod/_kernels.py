@@ -26,7 +26,7 @@ __all__ = [
 #: Length of the float state vector of :func:`track_symbols` (layout documented there).
 STATE_F_SIZE = 24
 #: Length of the integer state vector of :func:`track_symbols`.
-STATE_I_SIZE = 4
+STATE_I_SIZE = 8
 #: Length of the parameter vector of :func:`track_symbols`.
 PARAM_SIZE = 20
 
@@ -111,9 +111,10 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
         unwrapped), 3 carrier frequency integrator (rad/symbol), 4 carrier rate integrator,
         5-10 the previous three half-strobe values (re, im), 11-12 EMA sums of ``|r|^2`` and
         ``|r|^4``, 13 EMA weight, 14-15 carrier-lock EMAs (numerator, denominator), 16-17 on-time /
-        midpoint energy EMAs, 18 amplitude, 19 position of the pending on-time strobe.
+        midpoint energy EMAs, 18 amplitude, 19 position of the pending on-time strobe, 20-22 the
+        M2M4 EMAs (and weight) over the carrier-lock window.
         ``si``: 0 half-strobe parity (0 = next is on-time), 1 carrier lock, 2 symbol lock,
-        3 symbols seen (saturating at ``warmup``).
+        3 symbols seen (saturating at ``warmup``), 4 consecutive symbols meeting the lock condition.
     out_pos, out_sym, out_amp, out_flags, out_theta
         Per symbol: position (samples), carrier-corrected symbol, amplitude estimate,
         flags (bit 0 carrier lock, bit 1 symbol lock), carrier phase.
@@ -177,10 +178,14 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
     emid = sf[17]
     amp = sf[18]
     t_on = sf[19]
+    m2f = sf[20]
+    m4f = sf[21]
+    wf = sf[22]
     parity = si[0]
     clock = si[1]
     slock = si[2]
     seen = si[3]
+    cgood = si[4]
 
     inv_sqrt2 = 1.0 / math.sqrt(2.0)
     nout = 0
@@ -272,17 +277,26 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
             sig = math.sqrt(s2) if s2 > s_floor * s_floor else s_floor
             amp = math.sqrt(sig) if sig > 1e-30 else 1e-15
 
-            # carrier-lock statistic: Re(r^2) (BPSK) or -Re(r^4) (QPSK), relative to its locked value
+            # carrier-lock statistic: Re(r^2) (BPSK) or -Re(r^4) (QPSK), relative to its locked
+            # value, which comes from M2M4 moments averaged over the same window (a longer one
+            # would lag at a signal's onset and make a slipping loop look locked)
+            m2f = (1.0 - a_lc) * m2f + a_lc * r2
+            m4f = (1.0 - a_lc) * m4f + a_lc * r2 * r2
+            wf = (1.0 - a_lc) * wf + a_lc
+            m2w = m2f / wf
+            m4w = m4f / wf
+            s2w = 2.0 * m2w * m2w - m4w
+            sigw = math.sqrt(s2w) if s2w > 0.0 else 0.0
             if mod_code == 0:
                 q = sr * sr - sq * sq
                 qd = r2
-                expect = sig / m2 if m2 > 0.0 else 0.0
+                expect = sigw / m2w if m2w > 0.0 else 0.0
             else:
                 sr2 = sr * sr
                 sq2 = sq * sq
                 q = -(sr2 * sr2 - 6.0 * sr2 * sq2 + sq2 * sq2)
                 qd = r2 * r2
-                expect = sig * sig / m4 if m4 > 0.0 else 0.0
+                expect = sigw * sigw / m4w if m4w > 0.0 else 0.0
             cnum = (1.0 - a_lc) * cnum + a_lc * q
             cden = (1.0 - a_lc) * cden + a_lc * qd
             cval = cnum / cden if cden > 0.0 else 0.0
@@ -290,8 +304,15 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
             if seen < warmup:
                 seen += 1
             if clock == 0:
-                if cnorm > c_on and cval > c_min and seen >= warmup:
+                # the condition must hold for `warmup` symbols in a row: a loop slipping cycles
+                # at a large frequency error can push the statistic up for a moment
+                if cnorm > c_on and cval > c_min:
+                    cgood += 1
+                else:
+                    cgood = 0
+                if cgood >= warmup and seen >= warmup:
                     clock = 1
+                    cgood = 0
             else:
                 if cnorm < c_off or cval < 0.5 * c_min:
                     clock = 0
@@ -365,10 +386,14 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
     sf[17] = emid
     sf[18] = amp
     sf[19] = t_on
+    sf[20] = m2f
+    sf[21] = m4f
+    sf[22] = wf
     si[0] = parity
     si[1] = clock
     si[2] = slock
     si[3] = seen
+    si[4] = cgood
     return nout
 
 
