@@ -454,7 +454,7 @@ def run_case(case: VectorCase) -> CaseResult:
 def run_verify(vectors_dir: str | None, *, as_json: bool) -> int:
     """Run every vector in ``vectors_dir`` (default :func:`default_vectors_dir`); 0 if all pass, else 1.
 
-    Prints a table (name, stage, PASS/FAIL, detail, then the source of each failure) or, with
+    Prints a table (name, stage, PASS/FAIL, what was compared or what differed, source) or, with
     ``as_json``, one JSON object ``{"vectors_dir", "cases": [{name, stage, passed, source,
     detail}], "passed": n, "failed": n}`` on stdout.
     """
@@ -482,14 +482,12 @@ def _print_table(results: list[CaseResult], folder: Path, out=None) -> None:
     out = out or sys.stdout
     wn = max(len(r.name) for r in results)
     ws = max(len(r.stage) for r in results)
+    wd = min(70, max(len(r.detail) for r in results))
     print(f"known-answer vectors in {folder}", file=out)
-    print(f"{'case':<{wn}}  {'stage':<{ws}}  result  detail", file=out)
+    print(f"{'case':<{wn}}  {'stage':<{ws}}  result  {'detail':<{wd}}  source", file=out)
     for r in results:
-        print(f"{r.name:<{wn}}  {r.stage:<{ws}}  {'PASS' if r.passed else 'FAIL':<6}  {r.detail}", file=out)
+        detail = r.detail if len(r.detail) <= wd or not r.passed else r.detail[: wd - 3] + "..."
+        print(f"{r.name:<{wn}}  {r.stage:<{ws}}  {'PASS' if r.passed else 'FAIL':<6}  {detail:<{wd}}  {r.source}",
+              file=out)
     n_pass = sum(r.passed for r in results)
     print(f"{n_pass} of {len(results)} cases passed, {len(results) - n_pass} failed", file=out)
-    failed = [r for r in results if not r.passed]
-    if failed:
-        print("sources of the failed cases:", file=out)
-        for r in failed:
-            print(f"  {r.name}: {r.source}", file=out)

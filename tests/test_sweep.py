@@ -178,3 +178,20 @@ def test_chain_stage_delivers_everything_at_high_ebn0_and_loses_packets_at_low()
     bad = sw.simulate_chain_point(prof, 0.0, frames=8, errors=10**6, seed=[7, 1])
     assert bad.per > 0.5 and bad.fer > 0.5
     assert bad.bit_errors == 0  # RS failures are reported, never delivered as good packets
+
+
+@pytest.mark.kat
+def test_loss_from_a_zero_error_point_uses_the_rule_of_three():
+    prof = _profile(rs=16, length=223)
+    pts = []
+    for x, errs in ((2.0, 500), (2.5, 20), (3.0, 0)):
+        pts.append(sw.SweepPoint(ebn0_db=x, esn0_db=0.0, seed=[0, 0], stage="code", bits=10**6, bit_errors=errs))
+    (cv,) = sw.implementation_losses(prof, pts)["curves"]
+    # 2e-5 at 2.5 dB, then no errors in 1e6 bits: BER < 3e-6 (95 %), crossing 1e-5 between 2.5 and 3.0 dB
+    assert cv["measured_is_upper_bound"]
+    lg = math.log10
+    assert cv["measured_db"] == pytest.approx(2.5 + 0.5 * (lg(2e-5) - lg(1e-5)) / (lg(2e-5) - lg(3e-6)))
+    # without enough bits the zero point resolves nothing
+    pts[2].bits = 10**5
+    (cv,) = sw.implementation_losses(prof, pts)["curves"]
+    assert cv["measured_db"] is None and not cv["measured_is_upper_bound"]

@@ -89,7 +89,7 @@ def test_a_wrong_expected_value_fails_with_exit_code_one(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "FAIL" in out and "PASS" in out and "0x29b1, expected 0x29b2" in out
     assert "1 of 2 cases passed, 1 failed" in out
-    assert "REFERENCES.md sec. 10.4" in out  # the failed case's source is printed
+    assert "REFERENCES.md sec. 10.4" in out  # each case's source is printed
 
 
 @pytest.mark.kat
