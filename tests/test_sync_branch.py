@@ -323,3 +323,33 @@ def test_noise_then_signal_is_acquired_when_it_appears(rng):
     assert first % 2 == 0  # branches start on C1 symbols again
     k = first // 2
     assert float(np.mean(dec[:5000] != bits[k: k + 5000])) < 2e-3
+
+
+def oqpsk_rotated(soft):
+    """An OQPSK stream after a 90-degree rotation once the timing has re-paired Q_k with I_(k+1):
+    received bits -c1, c2, -c3, c4, ... (common practice, no published source)."""
+    rx = soft[1:].copy()
+    rx[0::2] *= -1
+    return rx
+
+
+@pytest.mark.parametrize("rate", ["1/2", "3/4"])
+def test_oqpsk_rotation_with_repairing(rng, rate):
+    bits = rng.integers(0, 2, 20000, dtype=np.uint8)
+    soft = channel(rng, bits, rate, 4.0)
+    rx = oqpsk_rotated(soft)
+    bs = BranchSync(rate=rate, modulation="oqpsk")
+    out, _ = run(bs, rx, np.arange(rx.size, dtype=np.float64))
+    assert "Q inverted" in bs.events[0].detail
+    ber, shift, inv = align((out < 0).astype(np.uint8), bits)
+    assert ber < 2e-3
+
+
+def test_uncoded_oqpsk_rotation_with_repairing(rng):
+    bits = uncoded_cadu_stream(rng, 20)
+    soft = (1.0 - 2.0 * bits).astype(np.float32)
+    rx = oqpsk_rotated(soft)
+    bs = BranchSync(rate="none", modulation="oqpsk", marker_block_bits=8192)
+    out, _ = run(bs, rx, np.arange(rx.size, dtype=np.float64))
+    assert bs.stats.switches == 1 and "Q inverted" in bs.events[0].detail
+    assert np.array_equal(out[: rx.size - 1] * -1, soft[1: rx.size])  # upright up to the 180-degree case

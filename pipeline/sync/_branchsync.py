@@ -24,6 +24,12 @@ from pipeline.sync._types import SyncEvent
 __all__ = ["BranchSync", "BranchSyncStats", "branch_metric"]
 
 _MODULATIONS = ("bpsk", "qpsk", "oqpsk", "pcm-pm", "pcm-psk-pm")
+# Channel-bit transforms tried per modulation: 0 none, 1 (a, b) -> (b, -a), 2 (a, b) -> (a, -b), on pairs
+# (I bit, Q bit).  A 90-degree carrier rotation swaps I and Q with one inverted (1).  With OQPSK the
+# symbol timing then re-pairs each Q with the next I, which is a one-bit shift (a branch offset) with
+# every other bit inverted (2).  The 180- and 270-degree cases are these complemented.
+_ROTATIONS = {"qpsk": (0, 1), "oqpsk": (0, 1, 2)}
+_ROTATION_TEXT = {0: "none", 1: "90 deg (I/Q swapped)", 2: "Q inverted (OQPSK 90 deg)"}
 # CCSDS 131.0-B-2 sec. 3.3.1: G1 = 1111001 (171 octal), G2 = 1011011 (133 octal), the leftmost bit tapping
 # the input.  The re-encoding register keeps the input in bit 0, so the printed vectors are bit-reversed.
 _G1_MASK = int(f"{0o171:07b}"[::-1], 2)
@@ -102,16 +108,18 @@ class BranchSync:
         ``(offset, rotation)``: branches start at channel-bit indices ``= offset (mod P)``, P the
         channel bits per puncturing period (2 at rate 1/2, 3, 4, 6, 8 at 2/3 .. 7/8); ``rotation``
         1 means every pair (a, b) of channel bits was replaced by (b, -a) before decoding (undoing
-        a 90-degree carrier phase rotation).
+        a 90-degree carrier phase rotation), 2 (OQPSK only) by (a, -b).
     threshold : float
         Current monitor threshold on the normalized metric.
 
     Notes
     -----
-    Hypotheses: ``P`` branch offsets, times 2 rotations for QPSK/OQPSK.  The 180-degree rotation
-    (and the BPSK inversion) needs none: the CCSDS code's generators both have odd weight, so the
-    complement of a codeword is the codeword of the complemented bits, and the inverted decoded
-    stream is resolved by the frame synchronizer's inverted ASM.
+    Hypotheses: ``P`` branch offsets, times 2 rotations for QPSK and 3 for OQPSK (whose 90-degree
+    case, once the symbol timing has re-paired I and Q, is a one-bit shift with the Q bits
+    inverted).  The 180-degree rotation (and the BPSK inversion) needs none: the CCSDS code's
+    generators both have odd weight, so the complement of a codeword is the codeword of the
+    complemented bits, and the inverted decoded stream is resolved by the frame synchronizer's
+    inverted ASM.
 
     Evaluation at channel index ``t``: for each hypothesis, ``acquire_bits`` bits' worth of
     channel bits from the first index ``>= t`` of its alignment are decoded
@@ -139,7 +147,7 @@ class BranchSync:
     Uncoded QPSK/OQPSK: the stream is cut into blocks of ``marker_block_bits`` channel bits.  A
     block is output under the current rotation if the marker (either polarity, at most 2 bit
     errors: a false match per offset of 2.5e-7, REFERENCES.md sec. 1.7) occurs in it; if it does
-    not, and it does under the other rotation, the rotation switches for this block on.  The
+    not, and it does under another rotation, the rotation switches for this block on.  The
     output lags the input by one block.
 
     Cost: about (1 + H acquire_bits / interval) Viterbi decodes per bit, H hypotheses, plus one
@@ -180,6 +188,7 @@ class BranchSync:
         self.coded = rate != "none"
         # uncoded QPSK/OQPSK: the 90-degree rotation is resolved by finding markers (no decoder metric)
         self.marker_rotation = not self.coded and modulation in ("qpsk", "oqpsk")
+        self.rotations = _ROTATIONS.get(modulation, (0,))
         self.marker_block_bits = int(marker_block_bits) + int(marker_block_bits) % 2
         self._marker = np.unpackbits(np.frombuffer(bytes(asm), dtype=np.uint8))
         self.stats = BranchSyncStats()
@@ -198,13 +207,12 @@ class BranchSync:
             self._block_index = (k // kp) * P + tbl[k % kp]  # first channel bit of each branch in a block
             self._keep1 = np.ascontiguousarray(pat[0], dtype=np.uint8)
             self._keep2 = np.ascontiguousarray(pat[1], dtype=np.uint8)
-            rotations = (0, 1) if modulation in ("qpsk", "oqpsk") else (0,)
-            self.hypotheses = tuple((off, rot) for rot in rotations for off in range(P))
+            self.hypotheses = tuple((off, rot) for rot in self.rotations for off in range(P))
             ViterbiDecoder(rate=rate, traceback_depth=traceback_depth)  # validates traceback_depth once, here
         else:
             self.period_bits = self.period_symbols = 1
             self.block_bits = self.acquire_bits = 0
-            self.hypotheses = ((0, 0), (0, 1)) if self.marker_rotation else ((0, 0),)
+            self.hypotheses = tuple((0, rot) for rot in self.rotations)
         self._clear_stream()
 
     # ---- public -----------------------------------------------------------------------------
@@ -319,10 +327,14 @@ class BranchSync:
             return self._raw_soft[a - self._raw_base : b - self._raw_base]
         lo, hi = a - a % 2, b + b % 2
         pairs = self._raw_soft[lo - self._raw_base : hi - self._raw_base].reshape(-1, 2)
-        rot = np.empty_like(pairs)
-        rot[:, 0] = pairs[:, 1]
-        rot[:, 1] = -pairs[:, 0]
-        return rot.reshape(-1)[a - lo : b - lo]
+        out = np.empty_like(pairs)
+        if rotation == 1:  # (a, b) -> (b, -a): undoes I + jQ -> j (I + jQ)
+            out[:, 0] = pairs[:, 1]
+            out[:, 1] = -pairs[:, 0]
+        else:  # (a, b) -> (a, -b): OQPSK after a 90-degree rotation, once the timing re-pairs I and Q
+            out[:, 0] = pairs[:, 0]
+            out[:, 1] = -pairs[:, 1]
+        return out.reshape(-1)[a - lo : b - lo]
 
     def _available(self, rotation: int) -> int:
         """One past the last channel index usable under a rotation (pairs must be complete)."""
@@ -346,7 +358,7 @@ class BranchSync:
 
     def _marker_blocks(self, final: bool) -> None:
         """Uncoded QPSK/OQPSK: per block of ``marker_block_bits`` channel bits, keep the rotation while
-        it shows markers; when it shows none and the other rotation does, switch for this block."""
+        it shows markers; when it shows none and another one does, switch for this block."""
         Bm = self.marker_block_bits
         while True:
             a = self._fed
@@ -363,18 +375,22 @@ class BranchSync:
             hits = self._count_markers(block)
             self.stats.blocks += 1
             if hits == 0:
-                other = self._view(a, b, 1 - rot)
-                other_hits = self._count_markers(other)
                 self.stats.evaluations += 1
-                if other_hits > 0:
-                    rot = 1 - rot
-                    block = other
-                    self._hyp = (0, rot)
-                    self.stats.switches += 1
-                    self.events.append(SyncEvent(
-                        kind="branch_selected", bit_index=self.stats.bits_out,
-                        position=float(self._raw_pos[a - self._raw_base]),
-                        detail=f"rotation {90 * rot} deg (uncoded: {other_hits} markers against 0)"))
+                for other in self.rotations:
+                    if other == rot:
+                        continue
+                    candidate = self._view(a, b, other)
+                    other_hits = self._count_markers(candidate)
+                    if other_hits > 0:
+                        rot = other
+                        block = candidate
+                        self._hyp = (0, rot)
+                        self.stats.switches += 1
+                        self.events.append(SyncEvent(
+                            kind="branch_selected", bit_index=self.stats.bits_out,
+                            position=float(self._raw_pos[a - self._raw_base]),
+                            detail=f"rotation {_ROTATION_TEXT[rot]} (uncoded: {other_hits} markers against 0)"))
+                        break
             self._out_bits.append(np.array(block, dtype=np.float32))
             self._out_pos.append(self._raw_pos[a - self._raw_base : b - self._raw_base].copy())
             self.stats.bits_out += b - a
@@ -453,7 +469,7 @@ class BranchSync:
                 kind="branch_selected",
                 bit_index=self.stats.bits_out,
                 position=pos,
-                detail=f"offset {off}, rotation {90 * rot} deg, metric {scores[best]:.4f} vs {runner_up:.4f}",
+                detail=f"offset {off}, rotation {_ROTATION_TEXT[rot]}, metric {scores[best]:.4f} vs {runner_up:.4f}",
             )
         )
         return True
