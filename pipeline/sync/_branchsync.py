@@ -3,6 +3,7 @@ ambiguity resolved by the decoder's metric growth."""
 
 from __future__ import annotations
 
+import math
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -61,7 +62,11 @@ class BranchSyncStats:
     last_metric: float = float("nan")  # normalized metric of the last monitored block
 
     def as_dict(self) -> dict:
-        return asdict(self)
+        """The counters as a dict for JSON (a metric not yet measured is None, not NaN)."""
+        d = asdict(self)
+        if not math.isfinite(d["last_metric"]):
+            d["last_metric"] = None
+        return d
 
 
 def branch_metric(soft: np.ndarray, codeword_bits: np.ndarray) -> float:
@@ -463,7 +468,8 @@ class BranchSync:
         self._seg_done = 0
         self._bad = 0
         self.stats.switches += 1
-        pos = float(self._raw_pos[self._seg_start - self._raw_base]) if self._seg_start < self._n_in else float("nan")
+        # (at the very end of a stream the segment may start after the last bit: use the last position)
+        pos = float(self._raw_pos[min(self._seg_start, self._n_in - 1) - self._raw_base])
         self.events.append(
             SyncEvent(
                 kind="branch_selected",

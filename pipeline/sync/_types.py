@@ -95,7 +95,7 @@ class SyncEvent:
     bit_index : int
         Index in the stage's output bit stream where it happened.
     position : float
-        Sample position of the same place (NaN when not known).
+        Sample position of the same place.
     offset_bits : int
         Slip size in bits for ``bit_slip`` (positive: the marker came late); otherwise 0.
     detail : str
