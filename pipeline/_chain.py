@@ -90,9 +90,11 @@ class _Sinks:
     def packet(self, obj: dict, data: bytes) -> None:
         self.packets.write(json.dumps(obj, separators=(",", ":")) + "\n")
         apid = obj["apid"]
-        f = self.apid_files.get(apid)
+        key = apid if apid is not None else ("encapsulation", obj.get("protocol_id"))
+        f = self.apid_files.get(key)
         if f is None:
-            f = self.apid_files[apid] = open(self.folder / f"apid_{apid:04d}.bin", "wb")
+            name = f"apid_{apid:04d}.bin" if apid is not None else f"encapsulation_pid{obj.get('protocol_id')}.bin"
+            f = self.apid_files[key] = open(self.folder / name, "wb")
         f.write(data)
 
     def close(self) -> None:
@@ -301,8 +303,8 @@ class DecodeChain:
         d = pkt.as_dict()
         obj = {
             "ert": self._ert(pkt.position),
-            "apid": int(pkt.apid),
-            "seq_count": int(pkt.seq_count),
+            "apid": None if pkt.apid is None else int(pkt.apid),  # None: an encapsulation packet
+            "seq_count": None if pkt.seq_count is None else int(pkt.seq_count),
             "hex": bytes(pkt.data).hex(),
             "scid": int(pkt.scid),
             "vcid": int(pkt.vcid),

@@ -330,7 +330,9 @@ def _coerce(value: Any, default: Any, where: str, source: str) -> Any:
         if isinstance(value, bool) or not isinstance(value, int):
             raise ProfileError(f"{source}: {where} must be an integer, not {value!r}")
         return value
-    if isinstance(default, float) or (default is None and isinstance(value, (int, float))):
+    if default is None and isinstance(value, int) and not isinstance(value, bool):
+        return value  # optional integers (pfield) stay integers
+    if isinstance(default, float) or (default is None and isinstance(value, float)):
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise ProfileError(f"{source}: {where} must be a number, not {value!r}")
         value = float(value)
