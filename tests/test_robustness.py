@@ -7,15 +7,15 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+import third_party_tx as tx
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from test_end_to_end import _write_profile, small_profile
 
-import third_party_tx as tx
 from pipeline._chain import decode_to_folder
 from pipeline._demo import compare_with_truth
 from pipeline.cli import ExitCode, main
 from pipeline.profile import profile_from_dict
-from test_end_to_end import _write_profile, small_profile
 
 
 def _one_line_error(capsys) -> str:
@@ -110,7 +110,8 @@ def test_dropout_is_reported_and_decoding_resumes(tmp_path):
     assert cmp["invented"] == 0
     report = json.loads((out / "report.json").read_text())
     truth = [json.loads(x) for x in (sim / "truth.jsonl").read_text().splitlines()]
-    got = {(json.loads(x)["apid"], json.loads(x)["seq_count"]) for x in (out / "packets.jsonl").read_text().splitlines()}
+    decoded = [json.loads(x) for x in (out / "packets.jsonl").read_text().splitlines()]
+    got = {(d["apid"], d["seq_count"]) for d in decoded}
     fs = 200_000.0
     # packets sent well before and well after the dropout all come through: decoding resumed by itself
     clear = [t for t in truth if t["position"] / fs < 1.05 or t["position"] / fs > 1.75]
