@@ -86,7 +86,7 @@ def load_cases(vectors_dir: str | Path) -> list[VectorCase]:
         raise FileNotFoundError(f"{root}: vector folder not found")
     cases: list[VectorCase] = []
     for path in sorted(root.rglob("*.json")):
-        if path.name.startswith("."):
+        if path.name.startswith(".") or path.name.endswith(".sidecar.json"):
             continue
         try:
             data = json.loads(path.read_text(encoding="utf-8"))
@@ -429,9 +429,88 @@ _RUNNERS: dict[str, Callable[[VectorCase], tuple[bool, str]]] = {
 
 
 def _fec_vector_cases(path: Path, data: Any) -> list[VectorCase]:
-    """Cases from a file that is not in the vectors/make.py layout (the fec engineer's vectors)."""
-    return [VectorCase(path.stem, path.parent.name, "unknown_format", str(_attr(data, "source", default="")),
-                       path, data if isinstance(data, dict) else {"value": data})]
+    """Cases from a file in the fec engineer's layout (``vectors/fec/``).
+
+    That layout is one ``NAME.json`` holding ``kind`` (``conv``, ``viterbi``, ``rs``, ``pn``,
+    ``crc16``) and the case's fields at the top level, with ``NAME.sidecar.json`` beside it naming
+    ``generator``, ``seed`` and ``source``.  Anything else is an ``unknown_format`` case (a failure).
+    """
+    meta: dict = {}
+    sidecar = path.with_name(path.stem + ".sidecar.json")
+    if sidecar.is_file():
+        try:
+            meta = json.loads(sidecar.read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            meta = {}
+    kind = data.get("kind") if isinstance(data, dict) else None
+    known = {"conv": "fec_conv", "viterbi": "fec_viterbi", "rs": "fec_rs", "pn": "fec_pn", "crc16": "fec_crc16"}
+    source = str(meta.get("source", ""))
+    if kind in known and source:
+        merged = {**data, "generator": meta.get("generator"), "seed": meta.get("seed"), "kat": True}
+        return [VectorCase(path.stem, "fec", known[kind], source, path, merged)]
+    why = {"value": data, "reason": "no sidecar with a source" if kind in known else "unknown layout"}
+    return [VectorCase(path.stem, path.parent.name, "unknown_format", source, path, why)]
+
+
+def _run_fec_conv(case: VectorCase) -> tuple[bool, str]:
+    from pipeline.fec import conv_encode
+
+    d = case.data
+    bits = np.array([int(ch) for ch in d["bits"]], dtype=np.uint8)
+    want = np.array([int(ch) for ch in d["symbols"]], dtype=np.uint8)
+    return _cmp_bits(conv_encode(bits, d["rate"]), want, f"rate {d['rate']} symbols")
+
+
+def _run_fec_viterbi(case: VectorCase) -> tuple[bool, str]:
+    from pipeline.fec import viterbi_decode
+
+    d = case.data
+    soft = np.asarray(d["soft_int8"], dtype=np.float32)
+    want = np.array([int(ch) for ch in d["bits"]], dtype=np.uint8)
+    got = np.asarray(viterbi_decode(soft, d["rate"], initial_state=d.get("initial_state")), dtype=np.uint8)
+    return _cmp_bits(got[: len(want)], want, f"rate {d['rate']} decoded")
+
+
+def _run_fec_rs(case: VectorCase) -> tuple[bool, str]:
+    from pipeline.fec import rs_decode, rs_encode
+
+    d = case.data
+    data = _hex(d["data_hex"])
+    ok, detail = _cmp_bytes(bytes(rs_encode(data, d["e"], d["interleave"])), _hex(d["codeblock_hex"]), "codeblock")
+    if not ok:
+        return ok, detail
+    got, corrected = rs_decode(_hex(d["received_hex"]), d["e"], d["interleave"])
+    corrected = [int(c) for c in np.asarray(corrected).ravel()]
+    if corrected != list(d["corrected"]):
+        return False, f"corrected = {corrected}, expected {d['corrected']}"
+    ok, detail2 = _cmp_bytes(bytes(got)[: len(data)], data, "decoded frame")
+    return ok, f"{detail}; {detail2}, {sum(corrected)} symbols corrected"
+
+
+def _run_fec_pn(case: VectorCase) -> tuple[bool, str]:
+    from pipeline.fec import pn_sequence
+
+    d = case.data
+    return _cmp_bytes(np.asarray(pn_sequence(int(d["n"])), dtype=np.uint8).tobytes(), _hex(d["hex"]), "pn_sequence")
+
+
+def _run_fec_crc16(case: VectorCase) -> tuple[bool, str]:
+    from pipeline.fec import crc16
+
+    for data_hex, want in case.data["cases"]:
+        got = int(crc16(_hex(data_hex)))
+        if got != int(want):
+            return False, f"crc16 of {len(data_hex) // 2} octets = {got:#06x}, expected {int(want):#06x}"
+    return True, f"{len(case.data['cases'])} CRCs match"
+
+
+_RUNNERS.update({
+    "fec_conv": _run_fec_conv,
+    "fec_viterbi": _run_fec_viterbi,
+    "fec_rs": _run_fec_rs,
+    "fec_pn": _run_fec_pn,
+    "fec_crc16": _run_fec_crc16,
+})
 
 
 def run_case(case: VectorCase) -> CaseResult:

@@ -34,9 +34,9 @@ def test_at_least_twenty_cases_each_naming_source_generator_and_seed():
                  "frame_sync", "tm_frame", "aos_frame", "packets_from_frames", "cuc", "cds", "whole_link"):
         assert kind in kinds
     for c in cases:
-        if c.kind == "unknown_format":
-            continue
-        assert c.source and c.data["generator"] == "vectors/make.py" and "seed" in c.data
+        assert c.kind != "unknown_format", c.path
+        assert c.source and c.data["generator"] and "seed" in c.data
+        assert not c.path.name.endswith(".sidecar.json")
     rs = {(c.data["params"]["e"], c.data["params"]["interleave"], c.data["params"].get("virtual_fill_per_codeword"))
           for c in cases if c.kind == "rs_encode"}
     for e in (16, 8):
@@ -139,3 +139,22 @@ def test_cli_verify_json(tmp_path, capsys):
     _copy_case(tmp_path, "crc16_empty")
     assert main(["verify", str(tmp_path / "v"), "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["cases"][0]["name"] == "crc16_empty"
+
+
+@pytest.mark.kat
+def test_fec_layout_with_sidecar_is_read_and_without_is_a_failure(tmp_path):
+    # the fec engineer's layout: NAME.json with "kind" at the top, NAME.sidecar.json with the source
+    folder = tmp_path / "v" / "fec"
+    folder.mkdir(parents=True)
+    case = {"kind": "crc16", "cases": [["313233343536373839", 0x29B1], ["", 0xFFFF]]}
+    (folder / "crc_a.json").write_text(json.dumps(case))
+    (folder / "crc_a.sidecar.json").write_text(json.dumps({"generator": "g", "seed": None,
+                                                           "source": "REFERENCES.md sec. 10.4"}))
+    (folder / "crc_b.json").write_text(json.dumps({**case, "cases": [["", 0x1234]]}))
+    (folder / "crc_b.sidecar.json").write_text(json.dumps({"generator": "g", "seed": None, "source": "made up"}))
+    (folder / "crc_c.json").write_text(json.dumps(case))  # no sidecar: no source
+    results = {c.name: run_case(c) for c in load_cases(tmp_path / "v")}
+    assert set(results) == {"crc_a", "crc_b", "crc_c"}
+    assert results["crc_a"].passed and results["crc_a"].stage == "fec"
+    assert not results["crc_b"].passed and "expected 0x1234" in results["crc_b"].detail
+    assert not results["crc_c"].passed

@@ -788,7 +788,7 @@ def main(argv=None) -> int:
                     path.write_bytes(content)
     # the fec engineer's vectors (vectors/fec/, not made here) are shipped in the bundle as they are
     for src in sorted((ROOT / "fec").rglob("*")) if (ROOT / "fec").is_dir() else ():
-        if not src.is_file() or src.name.startswith(".") or "__pycache__" in src.parts:
+        if not src.is_file() or src.name.startswith(".") or src.suffix not in (".json", ".npz"):
             continue
         dst = BUNDLED / src.relative_to(ROOT)
         if args.check:
