@@ -6,8 +6,7 @@ import numpy as np
 import pytest
 from scipy.special import erfc
 
-from pipeline.fec import RATES, ConvEncoder, conv_encode, puncture_pattern
-from pipeline.fec import ViterbiDecoder, viterbi_decode
+from pipeline.fec import RATES, ConvEncoder, ViterbiDecoder, conv_encode, puncture_pattern, viterbi_decode
 
 # ---- slow obvious reference --------------------------------------------------------------------
 

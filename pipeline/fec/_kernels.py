@@ -107,7 +107,7 @@ def rs_remainder_kernel(block, n_rows, interleave, dual_to_conv, gtab, rem):
         for w in range(n_words):
             rem[c, w] = np.uint64(0)
     pos = 0
-    for r in range(n_rows):
+    for _ in range(n_rows):
         for c in range(interleave):
             d = np.uint64(dual_to_conv[block[pos]])
             pos += 1
@@ -193,9 +193,10 @@ def _acs_steps(sym, sym0, n_steps, sign1, sign2, pm_a, pm_b, dec):
     branch metrics are +m (j -> 2j), -m (j+32 -> 2j), -m (j -> 2j+1), +m (j+32 -> 2j+1).
     ``pm_a`` (uint32[32] = int16[64]) holds the metrics before and after; ``pm_b`` is scratch.
     ``dec`` (uint8, flat) receives 64 decisions per step, step t at ``dec[64 t : 64 t + 64]``: 1 when
-    the survivor into that state came from the old state j + 32.  (Pass a slice rather than an
-    offset: with a runtime offset LLVM falls back to a slow path, measured 3x slower.)  Metrics are renormalised to state 0 every
-    two steps, so their spread (under 4000 for |y| <= 127) never nears the int16 limit.
+    the survivor into that state came from the old state j + 32.  (The decision index is built
+    from t alone, ``t * 32`` then ``+ 32``: with a runtime offset, or ``(t + 1) * 32``, LLVM
+    vectorised worse, measured 2-3x slower.)  Metrics are renormalised to state 0 every two
+    steps, so their spread (under 4000 for |y| <= 127) never nears the int16 limit.
     Cost: 32 butterflies per step, vectorised.
     """
     a16 = pm_a.view(np.int16)
@@ -296,13 +297,6 @@ def viterbi_traceback_kernel(words, n_rows, state, n_emit, out):
 # Logarithms are to the base b = a^11 (the code-root element), so root j is b^j and the locator of
 # the symbol of polynomial degree d is b^d.  ``b_exp`` has 512 entries: the sum of two logarithms
 # (each < 255) needs no reduction, which keeps ``%`` out of the inner loops.
-
-
-@njit(cache=True)
-def _gf_mul(x, y, b_exp, b_log):
-    if x == 0 or y == 0:
-        return 0
-    return b_exp[b_log[x] + b_log[y]]
 
 
 @njit(cache=True)

@@ -286,7 +286,9 @@ def _check_erasures(erasures, length: int) -> np.ndarray:
         raise TypeError("Argument 'erasures' must be a 1-D sequence of integer octet indices.")
     idx = idx.astype(np.int64)
     if idx.size and (idx.min() < 0 or idx.max() >= length):
-        raise ValueError(f"Argument 'erasures' must hold octet indices in 0..{length - 1}, not {idx.min()}..{idx.max()}.")
+        raise ValueError(
+            f"Argument 'erasures' must hold octet indices in 0..{length - 1}, not {idx.min()}..{idx.max()}."
+        )
     if np.unique(idx).size != idx.size:
         raise ValueError("Argument 'erasures' must not repeat an index.")
     return idx

@@ -1,0 +1,127 @@
+"""Every pipeline.fec kernel gives the same answer compiled and as plain Python (STYLE.md rule 5)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from pipeline.fec import _kernels as K
+from pipeline.fec import conv_encode, rs_encode
+from pipeline.fec._conv import _G1_MASK, _G2_MASK, _rate_tables
+from pipeline.fec._crc import _TABLE as CRC_TABLE
+from pipeline.fec._rs import _GTAB, B_EXP, B_LOG, CONV_TO_DUAL, DUAL_TO_CONV
+from pipeline.fec._viterbi import _SIGN1, _SIGN2
+
+
+def both(kernel):
+    """(compiled, plain Python) versions; equal when numba is disabled."""
+    return kernel, getattr(kernel, "py_func", kernel)
+
+
+def test_conv_encode_kernel(rng):
+    bits = rng.integers(0, 2, 200, dtype=np.uint8)
+    keep1, keep2 = _rate_tables("3/4")
+    res = []
+    for f in both(K.conv_encode_kernel):
+        out = np.zeros(400, np.uint8)
+        n, s, ph = f(bits, 5, 1, _G1_MASK, _G2_MASK, 1, keep1, keep2, out)
+        res.append((int(n), int(s), int(ph), out.copy()))
+    assert res[0][:3] == res[1][:3] and np.array_equal(res[0][3], res[1][3])
+
+
+def test_pn_and_crc_kernels(rng):
+    outs = []
+    for f in both(K.pn_bits_kernel):
+        o = np.zeros(600, np.uint8)
+        f(o)
+        outs.append(o)
+    assert np.array_equal(*outs)
+    data = rng.integers(0, 256, 300, dtype=np.uint8)
+    a, b = (int(f(data, 0xFFFF, CRC_TABLE)) for f in both(K.crc16_kernel))
+    assert a == b
+
+
+def test_rs_kernels(rng):
+    data = rng.integers(0, 256, 220 * 3, dtype=np.uint8)
+    rems = []
+    for f in both(K.rs_remainder_kernel):
+        rem = np.zeros((3, 4), np.uint64)
+        f(data, 220, 3, DUAL_TO_CONV, _GTAB[16], rem)
+        rems.append(rem)
+    assert np.array_equal(*rems)
+    block = rs_encode(data, interleave=3)
+    bad = block.copy()
+    bad[[0, 4, 8, 30, 31, 500, 700]] ^= 0x33
+    era = np.zeros((1, 3, 32), np.int64)
+    n_era = np.zeros((1, 3), np.int64)
+    era[0, 1, :2] = [254 - 3 - 0, 254 - 3 - 2]  # rows 0 and 2 of codeword 1 (octets 1 and 7)
+    n_era[0, 1] = 2
+    results = []
+    for f in both(K.rs_decode_kernel):
+        out = np.zeros((1, 660), np.uint8)
+        corr = np.zeros((1, 3), np.int64)
+        f(bad.reshape(1, -1), 220, 3, 32, 112, 3, era, n_era, DUAL_TO_CONV, CONV_TO_DUAL, _GTAB[16], B_EXP, B_LOG,
+          out, corr)
+        results.append((out, corr))
+    assert np.array_equal(results[0][0], results[1][0]) and np.array_equal(results[0][1], results[1][1])
+    assert np.array_equal(results[0][0][0], data)
+    # the inner corrector on its own
+    r8 = np.zeros(32, np.int64)
+    r8[[0, 5, 17]] = [1, 200, 77]
+    outs = []
+    for f in both(K._rs_correct_codeword):
+        scratch = [np.zeros(n, np.int64) for n in (32, 33, 33, 33, 32, 32, 32)]
+        n = f(r8, 32, 112, 254, np.zeros(32, np.int64), 0, B_EXP, B_LOG, *scratch)
+        outs.append((int(n), scratch[5].copy(), scratch[6].copy()))
+    assert outs[0][0] == outs[1][0]
+    assert np.array_equal(outs[0][1], outs[1][1]) and np.array_equal(outs[0][2], outs[1][2])
+
+
+def test_viterbi_kernels(rng):
+    soft = rng.normal(0, 1, 300).astype(np.float32)
+    soft[::17] = 0.0
+    qs = []
+    for f in both(K.soft_quantize_kernel):
+        q = np.zeros(300, np.int8)
+        scale = f(soft, 32.0, q)
+        qs.append((float(scale), q))
+    assert qs[0][0] == qs[1][0] and np.array_equal(qs[0][1], qs[1][1])
+    sym = np.clip(
+        np.rint(40 * (1 - 2 * conv_encode(rng.integers(0, 2, 75, dtype=np.uint8)).astype(float))
+                + rng.normal(0, 30, 150)), -127, 127
+    ).astype(np.int8)
+    res = []
+    for acs, pack, tb in zip(both(K._acs_steps), both(K.decision_pack_kernel), both(K.viterbi_traceback_kernel)):
+        pm_a = np.zeros(32, np.uint32)
+        pm_b = np.zeros(32, np.uint32)
+        dec = np.zeros(75 * 64, np.uint8)
+        acs(sym, 0, 75, _SIGN1, _SIGN2, pm_a, pm_b, dec)
+        words = np.zeros(75, np.uint64)
+        pack(dec, 75, words)
+        out = np.zeros(75, np.uint8)
+        tb(words, 75, int(np.argmax(pm_a.view(np.int16))), 70, out)
+        res.append((pm_a.copy(), dec, words, out))
+    for a, b in zip(*res):
+        assert np.array_equal(a, b)
+    outs = []
+    for f in both(K.viterbi_acs_kernel):
+        pm_a = np.zeros(32, np.uint32)
+        words = np.zeros(75, np.uint64)
+        f(sym, 75, _SIGN1, _SIGN2, pm_a, np.zeros(32, np.uint32), np.zeros(16 * 64, np.uint8), words)
+        outs.append((pm_a, words))
+    assert np.array_equal(outs[0][0], outs[1][0]) and np.array_equal(outs[0][1], outs[1][1])
+    assert np.array_equal(outs[0][1], res[0][2])  # sub-blocks of 16 steps give the same decisions
+    dp = []
+    for f in both(K.depuncture_kernel):
+        o = np.zeros(20, np.int8)
+        f(np.arange(1, 9, dtype=np.int8), np.array([0, 1, 3, 4, 7, 8, 10, 13]), o)
+        dp.append(o)
+    assert np.array_equal(*dp)
+
+
+@pytest.mark.parametrize("name", K.__all__)
+def test_every_kernel_is_covered(name):
+    covered = {"conv_encode_kernel", "pn_bits_kernel", "crc16_kernel", "rs_remainder_kernel", "rs_decode_kernel",
+               "soft_quantize_kernel", "depuncture_kernel", "decision_pack_kernel", "viterbi_acs_kernel",
+               "viterbi_traceback_kernel"}
+    assert name in covered
