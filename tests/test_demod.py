@@ -311,3 +311,30 @@ def test_bad_arguments():
         d.process(Chunk(np.zeros(100, np.float32), 100))
     with pytest.raises(TypeError, match="must have 'samples' and 'start'"):
         d.process(np.zeros(3))
+
+
+@pytest.mark.kat
+@pytest.mark.parametrize("mod", ["bpsk", "qpsk"])
+def test_small_known_answer_run(mod):
+    """Noise-free, 3000 symbols: every decision after the pull-in equals the transmitted bit.
+
+    Small enough to run as plain Python (NUMBA_DISABLE_JIT=1), which checks that the kernels give
+    the same answer uncompiled.
+    """
+    from demod_signals import symbol_errors
+
+    rng = np.random.default_rng(5)
+    w = modulate(3000, modulation=mod, esn0_db=None, carrier_offset_hz=1500.0, clock_offset_ppm=80.0,
+                 phase_rad=0.7, rng=rng)
+    soft, pos, locked, track = _run(_demod(mod), w.samples, [5000])
+
+    class B:
+        pass
+
+    b = B()
+    b.soft, b.position = soft, pos
+    e, n, perr = symbol_errors(b, w, mod, skip=1000)
+    assert e == 0 and n > 1900 and perr < 0.05
+    bps = 1 if mod == "bpsk" else 2
+    assert locked[1000 * bps:].all()
+    assert abs(track[-2].carrier_offset_hz - 1500.0) < 20.0

@@ -414,10 +414,9 @@ class Demodulator:
             return SymbolBlock()
         pos = np.concatenate([p["pos"] for p in parts])
         sym = np.concatenate([p["sym"] for p in parts])
-        amp = np.concatenate([p["amp"] for p in parts]).astype(np.float64)
         locked = np.concatenate([p["locked"] for p in parts])
         track = [t for p in parts for t in p["track"]]
-        norm = (sym / amp).astype(np.complex64) if sym.size else sym
+        norm = sym  # already divided by the amplitude estimate in the kernel
         if self.bits_per_symbol == 1:
             soft = norm.real.astype(np.float32)
             position = pos

@@ -116,7 +116,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
         ``si``: 0 half-strobe parity (0 = next is on-time), 1 carrier lock, 2 symbol lock,
         3 symbols seen (saturating at ``warmup``), 4 consecutive symbols meeting the lock condition.
     out_pos, out_sym, out_amp, out_flags, out_theta
-        Per symbol: position (samples), carrier-corrected symbol, amplitude estimate,
+        Per symbol: position (samples), carrier-corrected symbol divided by the amplitude
+        estimate (noise-free symbols about unit magnitude), the amplitude estimate,
         flags (bit 0 carrier lock, bit 1 symbol lock), carrier phase.
 
     Returns
@@ -188,6 +189,9 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
     cgood = si[4]
 
     inv_sqrt2 = 1.0 / math.sqrt(2.0)
+    third = 1.0 / 3.0
+    sixth = 1.0 / 6.0
+    inv_kd = 1.0 / kd
     nout = 0
     # carrier phasor exp(j theta): advanced by small-angle rotations, recomputed exactly every
     # 64 half-strobes (and at every call), so it never drifts from theta by more than ~1e-7 rad
@@ -217,12 +221,13 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
         x1i = float(a1.imag)
         x2i = float(a2.imag)
         x3i = float(a3.imag)
-        c1r = -x0r / 3.0 - 0.5 * x1r + x2r - x3r / 6.0
+        # Farrow coefficients of the cubic Lagrange interpolator (multiplications, not divisions)
+        c1r = -third * x0r - 0.5 * x1r + x2r - sixth * x3r
         c2r = 0.5 * x0r - x1r + 0.5 * x2r
-        c3r = -x0r / 6.0 + 0.5 * x1r - 0.5 * x2r + x3r / 6.0
-        c1i = -x0i / 3.0 - 0.5 * x1i + x2i - x3i / 6.0
+        c3r = sixth * (x3r - x0r) + 0.5 * (x1r - x2r)
+        c1i = -third * x0i - 0.5 * x1i + x2i - sixth * x3i
         c2i = 0.5 * x0i - x1i + 0.5 * x2i
-        c3i = -x0i / 6.0 + 0.5 * x1i - 0.5 * x2i + x3i / 6.0
+        c3i = sixth * (x3i - x0i) + 0.5 * (x1i - x2i)
         vr = x1r + mu * (c1r + mu * (c2r + mu * c3r))
         vi = x1i + mu * (c1i + mu * (c2i + mu * c3i))
         d = theta - theta_ph
@@ -270,8 +275,9 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
             m2s = (1.0 - a_amp) * m2s + a_amp * r2
             m4s = (1.0 - a_amp) * m4s + a_amp * r2 * r2
             wsum = (1.0 - a_amp) * wsum + a_amp
-            m2 = m2s / wsum
-            m4 = m4s / wsum
+            inv_w = 1.0 / wsum
+            m2 = m2s * inv_w
+            m4 = m4s * inv_w
             s2 = 2.0 * m2 * m2 - m4
             s_floor = 0.05 * m2
             sig = math.sqrt(s2) if s2 > s_floor * s_floor else s_floor
@@ -279,34 +285,38 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
 
             # carrier-lock statistic: Re(r^2) (BPSK) or -Re(r^4) (QPSK), relative to its locked
             # value, which comes from M2M4 moments averaged over the same window (a longer one
-            # would lag at a signal's onset and make a slipping loop look locked)
+            # would lag at a signal's onset and make a slipping loop look locked).  The ratios
+            # are compared cross-multiplied, so no division is needed.
             m2f = (1.0 - a_lc) * m2f + a_lc * r2
             m4f = (1.0 - a_lc) * m4f + a_lc * r2 * r2
             wf = (1.0 - a_lc) * wf + a_lc
-            m2w = m2f / wf
-            m4w = m4f / wf
-            s2w = 2.0 * m2w * m2w - m4w
-            sigw = math.sqrt(s2w) if s2w > 0.0 else 0.0
+            # the weight cancels in every ratio below, so the unnormalised sums are used
+            s2w = 2.0 * m2f * m2f - m4f * wf
             if mod_code == 0:
                 q = sr * sr - sq * sq
                 qd = r2
-                expect = sigw / m2w if m2w > 0.0 else 0.0
+                # expect = sigw / m2w; floor 0.1
+                sigw = math.sqrt(s2w) if s2w > 0.0 else 0.0
+                ref_num = sigw if sigw > 0.1 * m2f else 0.1 * m2f
+                ref_den = m2f
             else:
                 sr2 = sr * sr
                 sq2 = sq * sq
                 q = -(sr2 * sr2 - 6.0 * sr2 * sq2 + sq2 * sq2)
                 qd = r2 * r2
-                expect = sigw * sigw / m4w if m4w > 0.0 else 0.0
+                # expect = sigw^2 / m4w; floor 0.1
+                ref_num = s2w if s2w > 0.1 * m4f * wf else 0.1 * m4f * wf
+                ref_den = m4f * wf
             cnum = (1.0 - a_lc) * cnum + a_lc * q
             cden = (1.0 - a_lc) * cden + a_lc * qd
-            cval = cnum / cden if cden > 0.0 else 0.0
-            cnorm = cval / (expect if expect > 0.1 else 0.1)
+            # cnorm = (cnum / cden) / (ref_num / ref_den) compared with c_on / c_off
+            lhs = cnum * ref_den
             if seen < warmup:
                 seen += 1
             if clock == 0:
                 # the condition must hold for `warmup` symbols in a row: a loop slipping cycles
                 # at a large frequency error can push the statistic up for a moment
-                if cnorm > c_on and cval > c_min:
+                if lhs > c_on * ref_num * cden and cnum > c_min * cden:
                     cgood += 1
                 else:
                     cgood = 0
@@ -314,31 +324,31 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
                     clock = 1
                     cgood = 0
             else:
-                if cnorm < c_off or cval < 0.5 * c_min:
+                if lhs < c_off * ref_num * cden or cnum < 0.5 * c_min * cden:
                     clock = 0
 
-            # symbol-lock statistic: on-time versus midpoint energy
+            # symbol-lock statistic: on-time versus midpoint energy, relative to r0 S / (S + N)
             eon = (1.0 - a_ls) * eon + a_ls * r2
             emid = (1.0 - a_ls) * emid + a_ls * mid_e
-            dval = (eon - emid) / eon if eon > 0.0 else 0.0
-            rho = sig / m2 if m2 > 0.0 else 0.0
-            dnorm = dval / (r0 * (rho if rho > 0.05 else 0.05))
+            diff = eon - emid
+            rho_num = sig if sig > 0.05 * m2 else 0.05 * m2
             if slock == 0:
-                if dnorm > s_on and dval > s_min and seen >= warmup:
+                if diff * m2 > s_on * r0 * rho_num * eon and diff > s_min * eon and seen >= warmup:
                     slock = 1
             else:
-                if dnorm < s_off or dval < 0.5 * s_min:
+                if diff * m2 < s_off * r0 * rho_num * eon or diff < 0.5 * s_min * eon:
                     slock = 0
 
             out_pos[nout] = t_on
-            out_sym[nout] = complex(sr, sq)
+            inv_amp = 1.0 / amp
+            out_sym[nout] = complex(sr * inv_amp, sq * inv_amp)
             out_amp[nout] = amp
             out_flags[nout] = clock + 2 * slock
             out_theta[nout] = theta
             nout += 1
 
             # carrier loop (phase correction takes effect from the next half-strobe)
-            ec = ec_raw / amp
+            ec = ec_raw * inv_amp
             if clock == 1:
                 if third_order == 1:
                     w_rate += kr_c * ec
@@ -348,7 +358,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
                 theta += kp_c_wide * ec
 
             # timing loop
-            e_t = et / (amp * amp * kd)
+            e_t = et * (inv_amp * inv_amp * inv_kd)
             if e_t > 1.0:
                 e_t = 1.0
             elif e_t < -1.0:
