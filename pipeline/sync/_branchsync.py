@@ -207,9 +207,8 @@ class BranchSync:
             self.acquire_bits = -(-int(acquire_bits) // kp) * kp
             self._block_symbols = self.block_bits // kp * P
             self._acquire_periods = self.acquire_bits // kp
-            tbl = conv_bit_symbol_index(kp, rate)
-            k = np.arange(self.block_bits)
-            self._block_index = (k // kp) * P + tbl[k % kp]  # first channel bit of each branch in a block
+            # first channel bit of each branch within one puncturing period
+            self._period_index = conv_bit_symbol_index(kp, rate)
             self._keep1 = np.ascontiguousarray(pat[0], dtype=np.uint8)
             self._keep2 = np.ascontiguousarray(pat[1], dtype=np.uint8)
             self.hypotheses = tuple((off, rot) for rot in self.rotations for off in range(P))
@@ -344,6 +343,16 @@ class BranchSync:
     def _available(self, rotation: int) -> int:
         """One past the last channel index usable under a rotation (pairs must be complete)."""
         return self._n_in - (self._n_in % 2 if rotation else 0)
+
+    def _branch_positions(self, a: int, n_bits: int) -> np.ndarray:
+        """Positions of the first channel bit of each of ``n_bits`` branches whose period starts at ``a``."""
+        kp, P = self.period_bits, self.period_symbols
+        full, rest = divmod(n_bits, kp)
+        r = a - self._raw_base
+        pos = self._raw_pos[r : r + full * P].reshape(full, P)[:, self._period_index].reshape(-1)
+        if rest:
+            pos = np.concatenate((pos, self._raw_pos[r + full * P + self._period_index[:rest]]))
+        return pos
 
     def _count_markers(self, soft: np.ndarray) -> int:
         """Markers (either polarity) within 2 bit errors in a block of soft bits."""
@@ -531,9 +540,8 @@ class BranchSync:
                 break
         n_out = min(used * B, n_bits)
         bits = self._seg_bits[:n_out]
-        idx = (np.arange(used, dtype=np.int64)[:, None] * Bs + self._block_index[None, :]).reshape(-1)[:n_out]
         self._out_bits.append(_SIGNS[bits])
-        self._out_pos.append(self._raw_pos[a - self._raw_base + idx])
+        self._out_pos.append(self._branch_positions(a, n_out))
         self.stats.bits_out += n_out
         self._seg_bits = self._seg_bits[n_out:]
         self._enc_state = int(states[used - 1])
