@@ -71,3 +71,34 @@ def test_output_folder_appears_only_on_success(tmp_path):
 def test_python_dash_m_works():
     r = subprocess.run([sys.executable, "-m", "pipeline", "--version"], capture_output=True, text=True)
     assert r.returncode == 0 and "downlink" in r.stdout
+
+
+def test_verify_json(capsys):
+    import json
+
+    assert main(["verify", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert len(out["cases"]) >= 20 and out["failed"] == 0
+    assert all({"name", "passed", "source"} <= set(c) for c in out["cases"])
+    assert all(c["source"] for c in out["cases"])
+
+
+def test_inspect_json_and_plots(tmp_path, capsys):
+    import json
+
+    from test_end_to_end import _write_profile, small_profile
+
+    prof = _write_profile(tmp_path, small_profile("bpsk", "concatenated", "nrz-m", seconds=0.8, carrier_hz=900.0))
+    assert main(["simulate", "--profile", str(prof), "--out", str(tmp_path / "sim"), "-q"]) == 0
+    capsys.readouterr()
+    meta = str(tmp_path / "sim" / "recording.sigmf-meta")
+    assert main(["inspect", meta, "--profile", str(prof), "--json", "--plot", str(tmp_path / "plots")]) == 0
+    info = json.loads(capsys.readouterr().out)
+    for key in ("sample_rate_hz", "duration_s", "carrier_offset_hz", "carrier_rate_hz_per_s", "esn0_db",
+                "lock_fraction"):
+        assert key in info
+    assert info["sample_rate_hz"] == 200_000.0
+    assert abs(info["carrier_offset_hz"] - 900.0) < 20.0
+    assert info["lock_fraction"] > 0.9
+    for png in ("spectrum.png", "constellation.png"):
+        assert (tmp_path / "plots" / png).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
