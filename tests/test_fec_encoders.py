@@ -217,6 +217,19 @@ def test_bit_symbol_index():
     # 7/8 order: C1(1) C2(1) C2(2) C2(3) C2(4) C1(5) C2(6) C1(7)
     assert conv_bit_symbol_index(9, "7/8").tolist() == [0, 2, 3, 4, 5, 6, 7, 8, 10]
     assert conv_bit_symbol_index(4, "3/4").tolist() == [0, 2, 3, 4]
+    assert conv_bit_symbol_index(4, "3/4", phase=1).tolist() == [0, 1, 2, 4]
+
+
+def test_bit_symbol_index_matches_encoder(rng):
+    # the symbol index of bit k is where flipping bit k first changes the encoder output
+    for rate in ("1/2", "2/3", "5/6", "7/8"):
+        bits = rng.integers(0, 2, 40, dtype=np.uint8)
+        ref = conv_encode(bits, rate)
+        idx = conv_bit_symbol_index(40, rate)
+        for k in range(40):
+            flipped = bits.copy()
+            flipped[k] ^= 1
+            assert int(np.flatnonzero(conv_encode(flipped, rate) != ref)[0]) == idx[k]
 
 
 @pytest.mark.parametrize("rate", ["1/2", "3/4", "7/8"])

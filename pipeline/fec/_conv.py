@@ -154,14 +154,17 @@ def conv_encode(bits, rate: Rate = "1/2") -> np.ndarray:
     return ConvEncoder(rate=rate).process(bits)
 
 
-def conv_bit_symbol_index(n_bits: int, rate: Rate = "1/2") -> np.ndarray:
+def conv_bit_symbol_index(n_bits: int, rate: Rate = "1/2", *, phase: int = 0) -> np.ndarray:
     """For each information bit k, the index of the first channel symbol of its branch.
 
     Parameters
     ----------
     n_bits : int
-        Number of information bits (from the start of a stream whose first bit used pattern column 0).
+        Number of information bits.
     rate : {"1/2", "2/3", "3/4", "5/6", "7/8"}
+    phase : int, keyword-only
+        Puncturing-pattern column of bit 0 (0 when the stream starts at a period boundary, as for
+        :func:`conv_encode` and :class:`ViterbiDecoder`), 0..P-1.
 
     Returns
     -------
@@ -176,10 +179,11 @@ def conv_bit_symbol_index(n_bits: int, rate: Rate = "1/2") -> np.ndarray:
     rate = check_rate(rate)
     n_bits = check_int("n_bits", n_bits, ">= 0", lambda v: v >= 0)
     pat = puncture_pattern(rate)
+    period = pat.shape[1]
+    phase = check_int("phase", phase, f"0..{period - 1}", lambda v: 0 <= v < period)
     per_col = pat.sum(axis=0).astype(np.int64)
-    counts = np.resize(per_col, n_bits)
+    counts = per_col[(np.arange(n_bits) + phase) % period]
     idx = np.zeros(n_bits, dtype=np.int64)
     if n_bits > 1:
         np.cumsum(counts[:-1], out=idx[1:])
     return idx
-
