@@ -301,15 +301,16 @@ class Demodulator:
         return np.ascontiguousarray(samples, dtype=np.complex64), int(start)
 
     def _feed_block(self, block: np.ndarray, parts: list, final: bool = False) -> None:
-        block = np.array(block, dtype=np.complex64)  # own copy: sanitised in place
+        # the sum is NaN/Inf when any sample is (or, harmlessly, on float32 overflow)
         if not np.isfinite(block.view(np.float32).sum()):
             bad = ~np.isfinite(block)
-            nbad = int(bad.sum())
-            # Chunk readers normally zero these already; count only the ones that reach us
-            self.stats.nonfinite_samples += nbad
-            block[bad] = 0
+            if bad.any():
+                # Chunk readers normally zero these already; count only the ones that reach us
+                self.stats.nonfinite_samples += int(bad.sum())
+                block = block.copy()
+                block[bad] = 0
         if self._acquiring:
-            self._held.append(block)
+            self._held.append(np.array(block, dtype=np.complex64))  # own copy: the caller's buffer may change
             held = sum(h.size for h in self._held)
             if held >= self.acquisition_samples or final:
                 self._acquire_and_release(parts)
