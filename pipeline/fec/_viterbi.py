@@ -141,12 +141,10 @@ class ViterbiDecoder:
         mother = self._mother
         if self._punctured:
             q = self._quant[:n_sym]
-            q[:] = 0
             soft_quantize_kernel(soft, _QUANT_LEVEL, q)
             mother[: 2 * n_steps] = 0
             depuncture_kernel(q, self._positions[:n_sym], mother)
         else:
-            mother[:n_sym] = 0
             soft_quantize_kernel(soft, _QUANT_LEVEL, mother)
         viterbi_acs_kernel(mother, n_steps, _SIGN1, _SIGN2, self._pm_a, self._pm_b, self._scratch,
                            self._words[self._rows :])
