@@ -25,7 +25,7 @@ from pipeline.profile import LinkSection, ReceiverSection
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats"]
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
-_RRC_SPAN_SYMBOLS = 12
+_RRC_SPAN_SYMBOLS = 8
 _AUTO_CARRIER_BANDWIDTH = 0.002  # x symbol rate; see Demodulator Notes
 _ZETA = 1.0 / math.sqrt(2.0)
 
@@ -111,8 +111,9 @@ class Demodulator:
 
     1. NaN/Inf samples become 0 (erasures; counted), block AGC to unit mean power (zeros excluded).
     2. Rotation by the numerically-controlled oscillator (NCO) at the current carrier estimate.
-    3. Matched filter (RRC over 12 symbols, or the exact fractional integrate-and-dump for rect),
-       a blocked FIR of odd length ``2 D + 1`` whose output is re-indexed by ``D`` so that MF
+    3. Matched filter (RRC over 8 symbols, whose truncation leaves the Es/N0 estimate unbiased
+       to 25 dB at roll-off 0.5; or the exact fractional integrate-and-dump for rect), a
+       blocked FIR of odd length ``2 D + 1`` whose output is re-indexed by ``D`` so that MF
        sample ``n`` is centred on recording sample ``n``.
     4. Gardner timing recovery with a cubic Farrow interpolator and a decision-directed Costas
        loop at symbol rate (:func:`pipeline.demod._kernels.track_symbols`).  At the block end
@@ -168,8 +169,8 @@ class Demodulator:
 
         self.taps = matched_filter_taps(link.pulse, link.rolloff, sps, _RRC_SPAN_SYMBOLS)
         self.filter_delay_samples = (self.taps.size - 1) // 2
-        self.block_samples = max(16384, _next_pow2(2048 * sps))
-        self.acquisition_samples = max(4 * self.block_samples, _next_pow2(8192 * sps))
+        self.block_samples = max(32768, _next_pow2(4096 * sps))
+        self.acquisition_samples = max(self.block_samples, _next_pow2(8192 * sps))
         self.reacquire_symbols = 65536
         self.acquisition_search_hz = receiver.acquisition_range * link.symbol_rate_baud
 
