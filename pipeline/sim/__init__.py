@@ -1,7 +1,7 @@
 """pipeline.sim: the transmitter chain and channel model (see DEVELOPERS.md, stage contracts).
 
 packets -> TM / AOS frames -> RS -> randomizer -> ASM -> (NRZ-M) convolutional code -> modulation
--> channel -> SigMF recording plus truth files.
+(suppressed carrier, or residual-carrier PCM/PM and PCM/PSK/PM; NRZ or Bi-phase-L) -> channel -> SigMF recording plus truth files.
 """
 
 from pipeline.sim._channel import Channel, DopplerPass, Fade, noise_variance_per_sample
@@ -16,7 +16,14 @@ from pipeline.sim._frames import (
     clcw_word,
     tm_primary_header,
 )
-from pipeline.sim._modulator import Modulator, ModulatorOutput, rrc_pulse
+from pipeline.sim._modulator import (
+    Modulator,
+    ModulatorOutput,
+    ResidualCarrierModulator,
+    data_power_fraction,
+    make_modulator,
+    rrc_pulse,
+)
 from pipeline.sim._packets import IDLE_APID, PacketSource, SimPacket, idle_packet, space_packet, space_packet_header
 from pipeline.sim._simulate import SOFT_SCALE, SimulationResult, simulate, soft_channel_symbols
 from pipeline.sim._time import cuc_4_2, format_utc_ns, parse_utc_ns, tai_seconds_since_1958
@@ -30,6 +37,9 @@ __all__ = [
     "Fade",
     "Modulator",
     "ModulatorOutput",
+    "ResidualCarrierModulator",
+    "data_power_fraction",
+    "make_modulator",
     "NrzmPosition",
     "SimulationResult",
     "noise_variance_per_sample",

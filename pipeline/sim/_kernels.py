@@ -19,6 +19,7 @@ __all__ = [
     "scatter_rect",
     "ou_phase_noise",
     "apply_channel_kernel",
+    "phase_modulate",
 ]
 
 
@@ -134,3 +135,28 @@ def apply_channel_kernel(x, cycles, theta, gain, noise, out):
         ph = two_pi * (c - math.floor(c)) + theta[n]
         g = gain[n]
         out[n] = x[n] * complex(g * math.cos(ph), g * math.sin(ph)) + noise[n]
+
+
+@njit(cache=True)
+def phase_modulate(levels, n0, index_rad, subcarrier_mode, subcarrier_cycles_per_sample, subcarrier_phase0_cycles,
+                   amplitude, out):
+    """Residual-carrier phase modulation: ``out[i] = amplitude * exp(j index_rad * levels[i] * S(psi_i))``.
+
+    ``psi_i = subcarrier_phase0_cycles + (n0 + i) * subcarrier_cycles_per_sample`` is the subcarrier
+    phase in cycles at absolute sample ``n0 + i``; ``S`` is 1 (``subcarrier_mode`` 0, PCM/PM), the
+    square wave ``+1`` on ``frac(psi) < 1/2`` and ``-1`` after (mode 1), or ``sin(2 pi psi)`` (mode 2).
+    The subcarrier phase is evaluated from the absolute sample index every sample, so any split of
+    the stream gives the same samples.
+    """
+    two_pi = 2.0 * math.pi
+    for i in range(levels.shape[0]):
+        w = levels[i]
+        if subcarrier_mode != 0:
+            psi = subcarrier_phase0_cycles + (n0 + i) * subcarrier_cycles_per_sample
+            f = psi - math.floor(psi)
+            if subcarrier_mode == 1:
+                w = w if f < 0.5 else -w
+            else:
+                w = w * math.sin(two_pi * f)
+        ph = index_rad * w
+        out[i] = complex(amplitude * math.cos(ph), amplitude * math.sin(ph))

@@ -20,6 +20,20 @@ so the rectangles tile the time axis).
 Mapping: a channel bit 0 is +1, a 1 is -1 (the soft-value sign of DEVELOPERS.md).  BPSK sends
 one bit per symbol; QPSK and OQPSK send the I bit then the Q bit of each symbol
 (``(I + jQ) / sqrt(2)``, Gray by construction since I and Q are mapped independently).
+
+Bi-phase-L (Manchester): channel bit ``k`` is two rectangular chips of half a symbol each, the
+level ``+1`` then ``-1`` for a 0 and ``-1`` then ``+1`` for a 1 (CCSDS 401.0-B, from memory, not
+confirmed).  ``symbol_rate_baud`` stays the channel-bit rate; chip ``2k`` is centred at ``p_k - T/4``
+and chip ``2k + 1`` at ``p_k + T/4``, so ``p_k`` is the centre of the data symbol (its mid-bit
+transition).  Bi-phase-L and the residual-carrier modes are rectangular waveforms by definition:
+``[link] pulse`` and ``rolloff`` apply only to NRZ suppressed-carrier links.
+
+Residual carrier (:class:`ResidualCarrierModulator`): the sample is ``A exp(j m w(t))`` with the
+modulation index ``m`` (``[link] modulation_index``) and ``w`` the rectangular NRZ or Bi-phase-L
+waveform (``pcm-pm``) or that waveform times a unit subcarrier ``S(t)`` (``pcm-psk-pm``: a square
+wave of levels +-1 or ``sin``).  The subcarrier is coherent with the symbol clock (the same
+``clock_offset_ppm``) and starts a cycle at the leading edge of symbol 0,
+``psi(n) = (n - p_0 + T/2) f_sc / (R_s T)`` cycles at sample ``n``.
 """
 
 from __future__ import annotations
@@ -30,9 +44,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from pipeline.profile import LinkSection
-from pipeline.sim._kernels import scatter_pulses, scatter_rect
+from pipeline.sim._kernels import phase_modulate, scatter_pulses, scatter_rect
 
-__all__ = ["rrc_pulse", "ModulatorOutput", "Modulator"]
+__all__ = ["rrc_pulse", "ModulatorOutput", "Modulator", "ResidualCarrierModulator", "make_modulator",
+           "data_power_fraction"]
 
 
 def rrc_pulse(x, rolloff: float) -> np.ndarray:
@@ -125,8 +140,9 @@ class Modulator:
         if link.modulation not in ("bpsk", "qpsk", "oqpsk"):
             raise ValueError(f"Argument 'link' modulation must be bpsk, qpsk or oqpsk for the simulator, "
                              f"not {link.modulation!r}.")
-        if link.line_code == "bi-phase-l":
-            raise ValueError("Argument 'link' line_code must be nrz-l or nrz-m for the simulator, not 'bi-phase-l'.")
+        if link.line_code == "bi-phase-l" and link.modulation != "bpsk":
+            raise ValueError(f"Argument 'link' line_code 'bi-phase-l' needs modulation bpsk (or a residual-carrier "
+                             f"mode), not {link.modulation!r}.")
         for name, value in (("sample_rate_hz", sample_rate_hz), ("timing_offset", timing_offset),
                             ("clock_offset_ppm", clock_offset_ppm), ("amplitude", amplitude)):
             if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
@@ -154,7 +170,10 @@ class Modulator:
             raise ValueError(f"Argument 'sample_rate_hz' must give at least 1 sample per symbol, not "
                              f"{self.period:.3f} ({sample_rate_hz:g} Hz for {link.symbol_rate_baud:g} baud).")
         self.p0 = self.timing_offset * self.period
-        self.rect = link.pulse == "rect"
+        # Bi-phase-L is a rectangular waveform by definition (two half-symbol chips), whatever [link] pulse says
+        self.biphase = link.line_code == "bi-phase-l"
+        self.rect = link.pulse == "rect" or self.biphase
+        self.chip_p0, self.chip_period, self.chips_per_symbol = _chip_layout(self.p0, self.period, self.biphase)
         if self.rect:
             self.half_span = 0.5
             self.table = np.zeros(2, dtype=np.float64)
@@ -167,6 +186,7 @@ class Modulator:
         self.table_step = table_step
         # the Q rail of OQPSK is half a symbol late
         self.q_shift = 0.5 * self.period if link.modulation == "oqpsk" else 0.0
+        self.data_power_fraction = 1.0  # suppressed carrier: all the power carries data
         self.reset()
 
     def reset(self) -> None:
@@ -230,7 +250,11 @@ class Modulator:
         buf = np.zeros(max(end - self.base, self.tail.size), dtype=np.complex128)
         buf[:self.tail.size] = self.tail
         amp = self.amplitude
-        if self.rect:
+        if self.biphase:
+            chips = _biphase_chips(main.real) * amp
+            scatter_rect(chips.astype(np.complex128), np.int64(2 * k0), self.chip_p0, self.chip_period, 0.0,
+                         np.int64(self.base), buf)
+        elif self.rect:
             scatter_rect(main * amp, np.int64(k0), self.p0, T, 0.0, np.int64(self.base), buf)
             if q_rail is not None:
                 scatter_rect(q_rail * amp, np.int64(k0), self.p0, T, self.q_shift, np.int64(self.base), buf)
@@ -241,7 +265,9 @@ class Modulator:
                 scatter_pulses(q_rail * amp, np.int64(k0), self.p0, T, self.q_shift, self.table, self.table_step,
                                self.half_span, np.int64(self.base), buf)
         self.symbols_done = k0 + m
-        if self.rect:
+        if self.biphase:
+            final_end = _next_chip_edge(self.chip_p0, self.chip_period, 2 * (k0 + m))
+        elif self.rect:
             # the leading edge of the next symbol, as scatter_rect computes it
             final_end = int(math.ceil(self.p0 + (k0 + m) * T + 0.0 - 0.5 * T))
         else:
@@ -260,3 +286,203 @@ class Modulator:
         self.base += out.size
         self.tail = np.zeros(0, dtype=np.complex128)
         return ModulatorOutput(out, start, self.symbols_done, np.zeros(0, np.float64))
+
+
+def _chip_layout(p0: float, period: float, biphase: bool) -> tuple[float, float, int]:
+    """Centre of chip 0, chip period and chips per symbol (Bi-phase-L: two half-symbol chips)."""
+    if biphase:
+        return p0 - 0.25 * period, 0.5 * period, 2
+    return p0, period, 1
+
+
+def _next_chip_edge(chip_p0: float, chip_period: float, chip_index: int) -> int:
+    """First sample of chip ``chip_index``, computed exactly as :func:`scatter_rect` computes it."""
+    return int(math.ceil(chip_p0 + chip_index * chip_period + 0.0 - 0.5 * chip_period))
+
+
+def _biphase_chips(levels: np.ndarray) -> np.ndarray:
+    """NRZ levels ``d_k`` -> Bi-phase-L chips ``(d_k, -d_k)``: a 0 (+1) is +1 then -1."""
+    chips = np.empty(2 * levels.size, dtype=np.float64)
+    chips[0::2] = levels
+    chips[1::2] = -levels
+    return chips
+
+
+def data_power_fraction(link: LinkSection) -> float:
+    """Fraction of the transmitted power that carries data (the power Eb/N0 and Es/N0 refer to).
+
+    Returns
+    -------
+    float
+        1 for suppressed-carrier modes; ``sin^2(m)`` for ``pcm-pm`` and for ``pcm-psk-pm`` with a
+        square-wave subcarrier; ``2 J1(m)^2`` for a sine-wave subcarrier.
+
+    Notes
+    -----
+    Phase modulation by a +-1 waveform ``w``: ``exp(j m w) = cos m + j w sin m``, so the carrier keeps
+    ``cos^2 m`` of the power and the data ``sin^2 m``.  A sine subcarrier: the Jacobi-Anger expansion
+    ``exp(j m sin x) = sum_n J_n(m) exp(j n x)`` leaves ``J0(m)^2`` in the carrier and ``2 J1(m)^2`` in
+    the two first-harmonic data sidebands; the higher harmonics (the rest) are not counted as data
+    power, since the receiver correlates with the first harmonic only.
+
+    References
+    ----------
+    J. H. Yuen (ed.), *Deep Space Telecommunications Systems Engineering*, JPL/Plenum 1983, ch. 5
+    (residual-carrier power division); M. K. Simon, S. Million, *Residual versus suppressed-carrier
+    coherent communications*, JPL TDA Progress Report 42-127 (1996), sec. II.  Both from memory, not
+    confirmed; the Bessel expansion itself is textbook (Abramowitz & Stegun 9.1.41).
+    """
+    if link.modulation == "pcm-pm" or (link.modulation == "pcm-psk-pm" and link.subcarrier_wave == "square"):
+        return math.sin(link.modulation_index_rad) ** 2
+    if link.modulation == "pcm-psk-pm":
+        from scipy.special import j1
+
+        return 2.0 * float(j1(link.modulation_index_rad)) ** 2
+    return 1.0
+
+
+class ResidualCarrierModulator:
+    """PCM/PM and PCM/PSK/PM (square or sine subcarrier) with NRZ or Bi-phase-L data, streaming.
+
+    Parameters
+    ----------
+    link :
+        ``[link]``: ``modulation`` ``"pcm-pm"`` or ``"pcm-psk-pm"``, symbol rate, line code,
+        ``modulation_index_rad``, ``subcarrier_hz`` and ``subcarrier_wave``.
+    sample_rate_hz, timing_offset, clock_offset_ppm, amplitude :
+        As :class:`Modulator`; the output has constant envelope ``amplitude``.
+
+    Notes
+    -----
+    The data waveform is built as rectangular chips (one per NRZ symbol, two per Bi-phase-L
+    symbol, see the module docstring) by :func:`scatter_rect`, then phase modulated by
+    :func:`phase_modulate`.  A sample is output once no later chip reaches it, so any split of
+    the bit stream gives the same samples.  Cost: O(1) per sample (one sine and cosine).
+    ``data_power_fraction`` is the part of ``amplitude**2`` Eb/N0 refers to
+    (:func:`data_power_fraction`).
+    """
+
+    def __init__(self, *, link: LinkSection, sample_rate_hz: float, timing_offset: float = 0.0,
+                 clock_offset_ppm: float = 0.0, amplitude: float = 1.0):
+        if not isinstance(link, LinkSection):
+            raise TypeError(f"Argument 'link' must be a LinkSection, not {type(link).__name__}.")
+        if link.modulation not in ("pcm-pm", "pcm-psk-pm"):
+            raise ValueError(f"Argument 'link' modulation must be pcm-pm or pcm-psk-pm for the residual-carrier "
+                             f"modulator, not {link.modulation!r}.")
+        for name, value in (("sample_rate_hz", sample_rate_hz), ("timing_offset", timing_offset),
+                            ("clock_offset_ppm", clock_offset_ppm), ("amplitude", amplitude)):
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+                raise TypeError(f"Argument '{name}' must be a finite number, not {value!r}.")
+        if sample_rate_hz <= 0:
+            raise ValueError(f"Argument 'sample_rate_hz' must be > 0, not {sample_rate_hz}.")
+        if timing_offset < 0:
+            raise ValueError(f"Argument 'timing_offset' must be >= 0 symbol periods, not {timing_offset}.")
+        if not -1000.0 <= clock_offset_ppm <= 1000.0:
+            raise ValueError(f"Argument 'clock_offset_ppm' must be -1000..1000, not {clock_offset_ppm}.")
+        if amplitude <= 0:
+            raise ValueError(f"Argument 'amplitude' must be > 0, not {amplitude}.")
+        if not 0.0 < link.modulation_index_rad < math.pi / 2:
+            raise ValueError(f"Argument 'link' modulation_index_rad must be in (0, pi/2), "
+                             f"not {link.modulation_index_rad}.")
+        self.link = link
+        self.sample_rate_hz = float(sample_rate_hz)
+        self.timing_offset = float(timing_offset)
+        self.clock_offset_ppm = float(clock_offset_ppm)
+        self.amplitude = float(amplitude)
+        self.bits_per_symbol = 1
+        self.period = self.sample_rate_hz / (link.symbol_rate_baud * (1.0 + self.clock_offset_ppm * 1e-6))
+        self.biphase = link.line_code == "bi-phase-l"
+        min_samples = 4.0 if self.biphase else 2.0
+        if self.period < min_samples:
+            raise ValueError(f"Argument 'sample_rate_hz' must give at least {min_samples:g} samples per symbol, not "
+                             f"{self.period:.3f} ({sample_rate_hz:g} Hz for {link.symbol_rate_baud:g} baud).")
+        self.p0 = self.timing_offset * self.period
+        self.half_span = 0.5
+        self.rect = True
+        self.q_shift = 0.0
+        self.chip_p0, self.chip_period, self.chips_per_symbol = _chip_layout(self.p0, self.period, self.biphase)
+        self.index_rad = float(link.modulation_index_rad)
+        if link.modulation == "pcm-psk-pm":
+            if not link.subcarrier_hz > 0:
+                raise ValueError(f"Argument 'link' subcarrier_hz must be > 0 for pcm-psk-pm, not {link.subcarrier_hz}.")
+            self.subcarrier_mode = 1 if link.subcarrier_wave == "square" else 2
+            # cycles of subcarrier per sample: coherent with the (clock-offset) symbol clock
+            self.subcarrier_cycles_per_sample = link.subcarrier_hz / (link.symbol_rate_baud * self.period)
+            if self.subcarrier_cycles_per_sample >= 0.25:
+                raise ValueError(f"Argument 'sample_rate_hz' must give at least 4 samples per subcarrier cycle, not "
+                                 f"{1.0 / self.subcarrier_cycles_per_sample:.3f}.")
+            self.subcarrier_phase0_cycles = -(self.p0 - 0.5 * self.period) * self.subcarrier_cycles_per_sample
+        else:
+            self.subcarrier_mode = 0
+            self.subcarrier_cycles_per_sample = 0.0
+            self.subcarrier_phase0_cycles = 0.0
+        self.data_power_fraction = data_power_fraction(link)
+        self.reset()
+
+    def reset(self) -> None:
+        """Back to symbol 0 and sample 0, nothing pending."""
+        self.symbols_done = 0
+        self.base = 0
+        self.tail = np.zeros(0, dtype=np.float64)
+
+    def symbol_position(self, k) -> np.ndarray | float:
+        """Centre ``p_0 + k T`` (samples) of data symbol ``k`` (scalar or array)."""
+        k = np.asarray(k, dtype=np.int64)
+        pos = self.p0 + k.astype(np.float64) * self.period
+        return float(pos) if pos.ndim == 0 else pos
+
+    bit_position = symbol_position
+
+    def process(self, bits) -> ModulatorOutput:
+        """Modulate channel bits (uint8 0/1); see :meth:`Modulator.process`."""
+        bits = np.asarray(bits)
+        if bits.ndim != 1:
+            raise ValueError(f"Argument 'bits' must be 1-D, not {bits.ndim}-D.")
+        if bits.size and (not np.issubdtype(bits.dtype, np.integer) and bits.dtype != np.bool_):
+            raise TypeError(f"Argument 'bits' must hold integer 0/1 values, not dtype {bits.dtype}.")
+        bits = np.ascontiguousarray(bits, dtype=np.uint8)
+        if bits.size and bits.max() > 1:
+            raise ValueError(f"Argument 'bits' must hold only 0 and 1, not values up to {bits.max()}.")
+        m = bits.size
+        k0 = self.symbols_done
+        positions = self.symbol_position(np.arange(k0, k0 + m, dtype=np.int64))
+        if m == 0:
+            return ModulatorOutput(np.zeros(0, np.complex128), self.base, k0, positions)
+        levels = 1.0 - 2.0 * bits.astype(np.float64)
+        chips = _biphase_chips(levels) if self.biphase else levels
+        cps = self.chips_per_symbol
+        T = self.period
+        end = int(math.floor(self.p0 + (k0 + m - 1) * T + 0.5 * T)) + 2
+        buf = np.zeros(max(end - self.base, self.tail.size), dtype=np.float64)
+        buf[:self.tail.size] = self.tail
+        scatter_rect(chips, np.int64(cps * k0), self.chip_p0, self.chip_period, 0.0, np.int64(self.base), buf)
+        self.symbols_done = k0 + m
+        final_end = _next_chip_edge(self.chip_p0, self.chip_period, cps * (k0 + m))
+        n_final = min(max(final_end - self.base, 0), buf.size)
+        start = self.base
+        out = self._modulate(buf[:n_final], start)
+        self.tail = buf[n_final:].copy()
+        self.base += n_final
+        return ModulatorOutput(out, start, k0, positions)
+
+    def _modulate(self, levels: np.ndarray, start: int) -> np.ndarray:
+        out = np.empty(levels.size, dtype=np.complex128)
+        phase_modulate(np.ascontiguousarray(levels), np.int64(start), self.index_rad, self.subcarrier_mode,
+                       self.subcarrier_cycles_per_sample, self.subcarrier_phase0_cycles, self.amplitude, out)
+        return out
+
+    def flush(self) -> ModulatorOutput:
+        """Output the samples still reached by already-modulated chips (the end of the transmission)."""
+        start = self.base
+        out = self._modulate(self.tail, start)
+        self.base += self.tail.size
+        self.tail = np.zeros(0, dtype=np.float64)
+        return ModulatorOutput(out, start, self.symbols_done, np.zeros(0, np.float64))
+
+
+def make_modulator(*, link: LinkSection, sample_rate_hz: float, timing_offset: float = 0.0,
+                   clock_offset_ppm: float = 0.0, amplitude: float = 1.0):
+    """The modulator for ``link.modulation``: :class:`ResidualCarrierModulator` or :class:`Modulator`."""
+    cls = ResidualCarrierModulator if getattr(link, "modulation", None) in ("pcm-pm", "pcm-psk-pm") else Modulator
+    return cls(link=link, sample_rate_hz=sample_rate_hz, timing_offset=timing_offset,
+               clock_offset_ppm=clock_offset_ppm, amplitude=amplitude)

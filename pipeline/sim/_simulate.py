@@ -25,7 +25,7 @@ from pipeline.profile import LinkProfile
 from pipeline.sim._channel import Channel, DopplerPass, Fade, noise_variance_per_sample
 from pipeline.sim._coding import ChannelCoder, NrzmPosition
 from pipeline.sim._frames import AosFrameBuilder, IdleMode, TmFrameBuilder
-from pipeline.sim._modulator import Modulator
+from pipeline.sim._modulator import make_modulator
 from pipeline.sim._packets import PacketSource
 from pipeline.sim._time import format_utc_ns, parse_utc_ns
 
@@ -121,9 +121,17 @@ def _description(profile: LinkProfile, ebn0_db: float, esn0_db: float, seconds: 
     if C.reed_solomon:
         coding.append(f"RS(255,{C.rs_k}) I={C.interleave}")
     coding_text = " + ".join(coding) if coding else "uncoded"
+    if L.modulation in ("pcm-pm", "pcm-psk-pm"):
+        shape = f"index {L.modulation_index_rad:g} rad"
+        if L.modulation == "pcm-psk-pm":
+            shape += f", {L.subcarrier_wave} subcarrier {L.subcarrier_hz:g} Hz"
+    elif L.line_code == "bi-phase-l":
+        shape = "rect"
+    else:
+        shape = f"{L.pulse}{f' {L.rolloff:g}' if L.pulse == 'rrc' else ''}"
     text = (f"SIMULATED recording (not a real reception) of link profile '{profile.name}', made by downlink's "
-            f"simulator: {L.modulation.upper()} {L.symbol_rate_baud:g} baud, {L.pulse}"
-            f"{f' {L.rolloff:g}' if L.pulse == 'rrc' else ''}, {L.line_code.upper()}, {coding_text}, "
+            f"simulator: {L.modulation.upper()} {L.symbol_rate_baud:g} baud, {shape}, "
+            f"{L.line_code.upper()}, {coding_text}, "
             f"{F.kind.upper()} frames of {F.length} octets, SCID {F.spacecraft_id}; {seconds:g} s at "
             f"Eb/N0 {ebn0_db:.2f} dB (Es/N0 {esn0_db:.2f} dB)")
     if extras:
@@ -238,15 +246,18 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
     ch_seed, soft_seed, phase_seed = (int(s.generate_state(1)[0]) for s in rng_master.spawn(3))
 
     # ---- the stages ------------------------------------------------------------------------
-    mod_probe = Modulator(link=profile.link, sample_rate_hz=fs, timing_offset=timing_offset,
-                          clock_offset_ppm=clock_offset_ppm)
+    mod_probe = make_modulator(link=profile.link, sample_rate_hz=fs, timing_offset=timing_offset,
+                               clock_offset_ppm=clock_offset_ppm)
     T = mod_probe.period
-    noise_to_signal = T / esn0 if noise else 0.0
+    # Es/N0 refers to the data power: all of it on suppressed-carrier links, sin^2(m) (or 2 J1(m)^2 for
+    # a sine subcarrier) of the total on residual-carrier links (pipeline.sim.data_power_fraction)
+    data_fraction = mod_probe.data_power_fraction
+    noise_to_signal = data_fraction * T / esn0 if noise else 0.0
     amplitude = _TOTAL_RMS / math.sqrt(1.0 + noise_to_signal)
-    modulator = Modulator(link=profile.link, sample_rate_hz=fs, timing_offset=timing_offset,
-                          clock_offset_ppm=clock_offset_ppm, amplitude=amplitude)
+    modulator = make_modulator(link=profile.link, sample_rate_hz=fs, timing_offset=timing_offset,
+                               clock_offset_ppm=clock_offset_ppm, amplitude=amplitude)
     bps = modulator.bits_per_symbol
-    variance = noise_variance_per_sample(signal_power=amplitude ** 2, symbol_period_samples=T,
+    variance = noise_variance_per_sample(signal_power=data_fraction * amplitude ** 2, symbol_period_samples=T,
                                          esn0_db=esn0_db) if noise else 0.0
     phase0 = float(np.random.default_rng(phase_seed).uniform(0.0, 2.0 * math.pi))
     channel = Channel(sample_rate_hz=fs, noise_variance=variance, carrier_offset_hz=carrier_offset_hz,
@@ -306,6 +317,12 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
         "downlink:first_symbol_position": modulator.p0,
         "downlink:nrzm_at": nrzm_at,
     }
+    if profile.link.modulation in ("pcm-pm", "pcm-psk-pm"):
+        extra_global["downlink:modulation_index_rad"] = profile.link.modulation_index_rad
+        extra_global["downlink:data_power_fraction"] = data_fraction
+        if profile.link.modulation == "pcm-psk-pm":
+            extra_global["downlink:subcarrier_hz"] = profile.link.subcarrier_hz
+            extra_global["downlink:subcarrier_wave"] = profile.link.subcarrier_wave
 
     num_frames = 0
     num_packets = 0
