@@ -118,6 +118,7 @@ class ViterbiDecoder:
         self._mother = np.zeros(2 * self._block_steps, dtype=np.int8)
         self._scratch = np.zeros(_SUB_BLOCK_STEPS * 64, dtype=np.uint8)
         self._words = np.zeros(self._block_steps + self.traceback_depth, dtype=np.uint64)
+        self._pending = np.zeros(self._block_symbols, dtype=np.float32)
         self._pm_a = np.zeros(32, dtype=np.uint32)
         self._pm_b = np.zeros(32, dtype=np.uint32)
         self.reset()
@@ -130,7 +131,7 @@ class ViterbiDecoder:
             pm[:] = -8192  # far below any reachable spread, so only the known state survives
             pm[self.initial_state] = 0
         self._rows = 0
-        self._pending = np.zeros(0, dtype=np.float32)
+        self._fill = 0  # symbols waiting in _pending for the current block
         self.symbols_in = 0
         self.bits_out = 0
 
@@ -166,11 +167,22 @@ class ViterbiDecoder:
         """Feed channel soft symbols; return the information bits (uint8 0/1) now decided."""
         soft = as_soft("soft", soft)
         self.symbols_in += soft.shape[0]
-        buf = np.concatenate([self._pending, soft]) if self._pending.size else soft
         B = self._block_symbols
-        n_blocks = buf.shape[0] // B
-        outs = [self._run_block(buf[i * B : (i + 1) * B], final=False) for i in range(n_blocks)]
-        self._pending = buf[n_blocks * B :].copy()
+        outs = []
+        pos = 0
+        n = soft.shape[0]
+        while pos < n:
+            if self._fill == 0 and n - pos >= B:
+                outs.append(self._run_block(soft[pos : pos + B], final=False))  # whole block: no copy
+                pos += B
+                continue
+            take = min(B - self._fill, n - pos)
+            self._pending[self._fill : self._fill + take] = soft[pos : pos + take]
+            self._fill += take
+            pos += take
+            if self._fill == B:
+                outs.append(self._run_block(self._pending, final=False))
+                self._fill = 0
         out = np.concatenate(outs) if outs else np.zeros(0, dtype=np.uint8)
         self.bits_out += out.shape[0]
         return out
@@ -182,7 +194,7 @@ class ViterbiDecoder:
         counters keep running until :meth:`reset`).  A trailing symbol that does not complete an
         information bit's branch is dropped.
         """
-        out = self._run_block(self._pending, final=True)
+        out = self._run_block(self._pending[: self._fill], final=True)
         bits_out = self.bits_out + out.shape[0]
         symbols_in = self.symbols_in
         self.reset()
