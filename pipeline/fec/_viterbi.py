@@ -82,6 +82,13 @@ class ViterbiDecoder:
     best final state (the code is not terminated).  Cost: O(64) per information bit plus
     O(1 + depth/block) per bit for the traceback; memory O(block + depth).
 
+    Latency: a bit is returned once its block is complete and ``traceback_depth`` later steps
+    have been decoded, so ``process`` may return nothing for up to one block plus the depth.
+    Bit k of the output (counted from the reset) is branch k of the stream, whose first channel
+    symbol is ``conv_bit_symbol_index(k + 1, rate)[k]`` counted from the reset: that is how
+    positions are carried through the decoder.  The first symbol after a reset must be the
+    first symbol of a puncturing period (C1 of column 0); other alignments are found upstream.
+
     References
     ----------
     CCSDS 131.0-B sec. 3 (code, puncturing); A. J. Viterbi, "Error bounds for convolutional codes
