@@ -105,7 +105,7 @@ def c_viterbi():
 
 def bench_viterbi(n_bits, repeat, rng):
     bits = rng.integers(0, 2, n_bits, dtype=np.uint8)
-    for rate in ("1/2", "3/4", "7/8"):
+    for rate in ("1/2", "2/3", "3/4", "5/6", "7/8"):
         num, den = map(int, rate.split("/"))
         sym = conv_encode(bits, rate)
         soft = (1 - 2 * sym.astype(np.float32)) + np.float32(0.6) * rng.standard_normal(sym.size, dtype=np.float32)
@@ -168,6 +168,16 @@ def bench_rs(repeat, rng):
             f"({t / n_blocks * 1e6:.1f} us per call)")
     t = best_of(lambda: [rs_encode(d, interleave=interleave) for d in data], repeat)
     row("rs_encode RS(255,223) I=5 (one call per frame)", data.size * 8, "Mbit/s", t)
+    data8 = rng.integers(0, 256, (n_blocks, 239 * 4), dtype=np.uint8)
+    blocks8 = np.stack([rs_encode(d, e=8, interleave=4) for d in data8])
+    bad8 = blocks8.copy()
+    for b in range(n_blocks):
+        for c in range(4):
+            pos = rng.choice(255, 8, replace=False)
+            bad8[b, pos * 4 + c] ^= rng.integers(1, 256, 8, dtype=np.uint8)
+    for label, arr in (("clean", blocks8), ("8 errors per codeword", bad8)):
+        t = best_of(lambda arr=arr: rs_decode_blocks(arr, e=8, interleave=4), repeat)
+        row(f"rs_decode_blocks RS(255,239) I=4, {label}", arr.size * 8, "Mbit/s", t)
 
 
 def bench_misc(n_bits, repeat, rng):
