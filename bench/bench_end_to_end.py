@@ -1,0 +1,109 @@
+"""End-to-end decode of a long recording: throughput and peak memory (issue 7: at most 300 MB).
+
+Run: ``python bench/bench_end_to_end.py [--gigabytes 1.0] [--modes plain,threads2,segments2]``.
+
+A demo-profile (Tamarisk) pass of ``--gigabytes`` of cf32 samples (8 bytes per sample, 1 Msample/s,
+so 1 GB is 125 s) is simulated with :func:`pipeline.sim.simulate` (fixed seed) into a temporary
+folder.  Each mode then decodes it in a fresh ``python`` process with
+``pipeline._chain.decode_to_folder`` semantics (the chain, its sinks and the report), and the
+child prints its elapsed time and its peak resident memory (``VmHWM`` of ``/proc/self/status``:
+the high-water mark of its own address space, page cache not included).  One untimed run first
+fills the numba cache.
+
+Modes: ``plain`` (the single-threaded loop), ``threads2`` (:class:`pipeline._parallel.PipelinedDecode`,
+2 threads, byte-identical output), ``segments2`` (:class:`pipeline._parallel.SegmentedDecode`,
+2 worker processes; the peak shown is the main process's, and each worker is a streaming chain
+of the same size).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+_CHILD = r"""
+import json, sys, time
+t0 = time.perf_counter()
+from pathlib import Path
+from pipeline.profile import load_profile, demo_profile_path
+from pipeline.recording import open_recording
+from pipeline.report import write_report
+from pipeline._chain import DecodeChain, _Sinks
+from pipeline._parallel import PipelinedDecode, SegmentedDecode
+from pipeline._bench import peak_rss_mb
+mode, meta, out = sys.argv[1], sys.argv[2], Path(sys.argv[3])
+out.mkdir()
+profile = load_profile(demo_profile_path())
+rec = open_recording(meta)
+chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)
+chain.sinks = _Sinks(out)
+t1 = time.perf_counter()
+if mode == "plain":
+    PipelinedDecode(chain, threads=1).run(rec.chunks(profile.receiver.chunk_samples))
+elif mode == "threads2":
+    PipelinedDecode(chain, threads=2).run(rec.chunks(profile.receiver.chunk_samples))
+elif mode == "segments2":
+    SegmentedDecode(profile, threads=2).run(rec, chain)
+else:
+    raise SystemExit(f"unknown mode {mode}")
+chain.sinks.close()
+t2 = time.perf_counter()
+report, plots = chain.report(recording_info={"path": Path(meta).name}, elapsed_s=t2 - t1, duration_s=rec.duration_s)
+write_report(out, report, plots)
+t3 = time.perf_counter()
+print(json.dumps({"decode_s": t2 - t1, "report_s": t3 - t2, "total_s": t3 - t0, "frames": chain.frame_count,
+                  "frames_ok": chain.status_counts.get("ok", 0), "packets": chain.packet_count,
+                  "samples": chain.samples, "peak_rss_mb": peak_rss_mb()}))
+"""
+
+
+def _child(mode: str, meta: Path, out: Path) -> dict:
+    proc = subprocess.run([sys.executable, "-c", _CHILD, mode, str(meta), str(out)], capture_output=True, text=True,
+                          check=False)
+    if proc.returncode != 0:
+        raise SystemExit(f"{mode}: decode process failed:\n{proc.stderr}")
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--gigabytes", type=float, default=1.0, help="size of the cf32 recording (GB, 10^9 bytes)")
+    ap.add_argument("--modes", default="plain,threads2,segments2", help="comma-separated decode modes")
+    ap.add_argument("--keep", default=None, help="folder to keep the recording in (reused when present)")
+    args = ap.parse_args()
+    from pipeline._bench import cpu_model, peak_rss_mb
+    from pipeline.profile import demo_profile_path, load_profile
+    from pipeline.sim import simulate
+
+    profile = load_profile(demo_profile_path())
+    seconds = args.gigabytes * 1e9 / 8 / profile.simulate.sample_rate_hz
+    with tempfile.TemporaryDirectory(prefix="downlink-e2e-") as tmpname:
+        tmp = Path(tmpname)
+        rec_dir = Path(args.keep) if args.keep else tmp / "rec"
+        meta = rec_dir / "recording.sigmf-meta"
+        if not meta.exists():
+            t0 = time.perf_counter()
+            sim = simulate(profile, rec_dir, seconds=seconds, seed=7)
+            print(f"simulated {sim.seconds:.1f} s ({sim.num_samples * 8 / 1e9:.2f} GB cf32, {sim.num_packets} packets) "
+                  f"in {time.perf_counter() - t0:.1f} s; simulator peak RSS {peak_rss_mb():.0f} MiB", flush=True)
+        print(f"CPU: {cpu_model()} ({os.cpu_count()} cores), load average {os.getloadavg()[0]:.2f}")
+        _child("plain", meta, tmp / "warm")  # fills the numba cache
+        print(f"{'mode':<10} {'samples':>11} {'decode s':>9} {'Msample/s':>10} {'x real time':>11} {'report s':>9} "
+              f"{'frames':>7} {'packets':>8} {'peak RSS MiB':>13}")
+        for mode in args.modes.split(","):
+            r = _child(mode, meta, tmp / f"out-{mode}")
+            msps = r["samples"] / r["decode_s"] / 1e6
+            print(f"{mode:<10} {r['samples']:>11} {r['decode_s']:>9.2f} {msps:>10.2f} "
+                  f"{msps * 1e6 / profile.simulate.sample_rate_hz:>11.1f} {r['report_s']:>9.2f} {r['frames']:>7} "
+                  f"{r['packets']:>8} {r['peak_rss_mb']:>13.1f}", flush=True)
+        print(f"load average after: {os.getloadavg()[0]:.2f}")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,492 @@
+"""``downlink bench``: per-stage and end-to-end throughput on the demo link, honestly measured.
+
+Everything runs from the installed package: the test data are made here with :mod:`pipeline.sim`
+(and the codes' own encoders) in a temporary folder, with fixed seeds.  Each figure is the best of
+a few timed repeats after an untimed warm-up run (numba compilation, page cache), measured with
+``time.perf_counter`` around the stage's ``process``/``flush`` calls only.
+
+Figures (all per process; "Mbit/s" = 10^6 bits per second, "Msample/s" = 10^6 complex samples):
+
+==========================  ===============================================================
+``recording_read_msps``     ``Recording.chunks`` over a cf32 SigMF file (conversion included)
+``frontend_msps``           :class:`pipeline.demod.Demodulator` on the demo recording's samples
+``viterbi_mbps``            :class:`pipeline.fec.ViterbiDecoder` r=1/2, decoded bits per second
+``framesync_mbps``          :class:`pipeline.sync.FrameSync`, soft bits in per second
+``rs_clean_mbps``           :func:`pipeline.fec.rs_decode` E=16 I=5, codeblock bits in, no errors
+``rs_16err_mbps``           the same with 16 symbol errors in every codeword (the most it corrects)
+``frames_packets_mbps``     :class:`pipeline.link.FrameParser` + :class:`pipeline.packets.PacketExtractor`
+``end_to_end_msps``         the whole chain with its sinks (``DecodeChain``), one thread
+``end_to_end_msps_2threads``  the same, :class:`pipeline._parallel.PipelinedDecode`, 2 threads
+==========================  ===============================================================
+
+``end_to_end_realtime_factor`` divides by the demo recording's 1 Msample/s.  ``warm_start_s`` and
+``peak_rss_mb`` come from a fresh ``python`` process decoding the demo recording (numba cache
+present): the time from starting the process to the return of the first ``process_chunk`` call,
+and the process's peak resident memory.  The machine is shared, so the load average before and
+after is printed with the figures.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import math
+import os
+import platform
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["cpu_model", "format_table", "measure", "nogil_kernels", "peak_rss_mb", "run_bench"]
+
+_SEED = 20260314
+
+
+def cpu_model() -> str:
+    """CPU model name from ``/proc/cpuinfo`` (Linux), else :func:`platform.processor`."""
+    try:
+        with open("/proc/cpuinfo", encoding="utf-8") as f:
+            for line in f:
+                if line.lower().startswith("model name"):
+                    return line.split(":", 1)[1].strip()
+    except OSError:
+        pass
+    return platform.processor() or platform.machine() or "unknown"
+
+
+def peak_rss_mb() -> float:
+    """Peak resident memory of this process in MiB: ``VmHWM`` of ``/proc/self/status`` (Linux).
+
+    ``VmHWM`` belongs to the process's own address space; ``ru_maxrss`` is not used where
+    ``VmHWM`` exists because Linux carries the parent's high-water mark into a child across
+    ``fork``/``exec``.
+    """
+    try:
+        with open("/proc/self/status", encoding="ascii") as f:
+            for line in f:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) / 1024.0
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # KiB on Linux, bytes on macOS
+
+
+def _best(fn, repeats: int) -> float:
+    """Smallest wall time of ``repeats`` calls of ``fn()`` (each call sets up its own state)."""
+    best = math.inf
+    for _ in range(repeats):
+        t = fn()
+        best = min(best, t)
+    return best
+
+
+@contextlib.contextmanager
+def nogil_kernels():
+    """Swap every pipeline numba kernel for a copy compiled with ``nogil=True`` (bench only).
+
+    The kernels belong to their stages; this lets the bench show what the threaded decode gains
+    once their owners compile them with ``nogil=True``.  The copies are compiled from the same
+    Python source (``py_func``) without the disk cache, so they compute the same values.  Yields
+    the ``module:function`` names swapped; everything is restored on exit.
+    """
+    import numba
+    from numba.core.registry import CPUDispatcher
+
+    copies: dict[int, object] = {}
+    swapped = []
+    for name, mod in list(sys.modules.items()):
+        if mod is None or not (name == "pipeline" or name.startswith("pipeline.")):
+            continue
+        for attr, val in list(vars(mod).items()):
+            if not isinstance(val, CPUDispatcher):
+                continue
+            owner = getattr(val, "__module__", "") or ""
+            if not owner.startswith("pipeline.") or val.targetoptions.get("nogil"):
+                continue
+            copy = copies.get(id(val))
+            if copy is None:
+                copy = copies[id(val)] = numba.njit(nogil=True)(val.py_func)
+            swapped.append((mod, attr, val))
+            setattr(mod, attr, copy)
+    try:
+        yield sorted({f"{v.__module__}:{v.__name__}" for _, _, v in swapped})
+    finally:
+        for mod, attr, val in swapped:
+            setattr(mod, attr, val)
+
+
+# ---- per-stage measurements -----------------------------------------------------------------
+
+
+def _bench_read(rec, chunk: int, repeats: int) -> float:
+    def once():
+        t0 = time.perf_counter()
+        for _c in rec.chunks(chunk):
+            pass
+        return time.perf_counter() - t0
+
+    once()
+    return rec.num_samples / _best(once, repeats) / 1e6
+
+
+def _bench_frontend(profile, chunks, fs: float, repeats: int) -> float:
+    from pipeline.demod import Demodulator
+
+    n = sum(len(c.samples) for c in chunks)
+
+    def once():
+        d = Demodulator(link=profile.link, receiver=profile.receiver, sample_rate_hz=fs)
+        t0 = time.perf_counter()
+        for c in chunks:
+            d.process(c)
+        d.flush()
+        return time.perf_counter() - t0
+
+    once()
+    return n / _best(once, repeats) / 1e6
+
+
+def _bench_viterbi(repeats: int, nbits: int = 1 << 20) -> float:
+    from pipeline.fec import ViterbiDecoder, conv_encode
+
+    rng = np.random.default_rng(_SEED)
+    bits = rng.integers(0, 2, nbits, dtype=np.uint8)
+    coded = conv_encode(bits, "1/2")
+    # BPSK at Es/N0 = 1 dB (Eb/N0 = 4 dB): a realistic operating point, + means bit 0
+    sigma = math.sqrt(1.0 / (2.0 * 10 ** (1.0 / 10)))
+    soft = ((1.0 - 2.0 * coded.astype(np.float32)) + sigma * rng.standard_normal(coded.size)).astype(np.float32)
+    ViterbiDecoder(rate="1/2").process(soft[: 1 << 16])
+
+    def once():
+        v = ViterbiDecoder(rate="1/2")
+        t0 = time.perf_counter()
+        out = v.process(soft)
+        out2 = v.flush()
+        dt = time.perf_counter() - t0
+        if out.size + out2.size != nbits:
+            raise RuntimeError("Viterbi bench: wrong number of decoded bits")
+        return dt
+
+    return nbits / _best(once, repeats) / 1e6
+
+
+def _bench_framesync(profile, repeats: int, ncadus: int = 400) -> float:
+    from pipeline.fec import ASM
+    from pipeline.sync import FrameSync
+
+    rng = np.random.default_rng(_SEED + 1)
+    cb = profile.codeblock_bytes
+    blocks = rng.integers(0, 256, (ncadus, cb), dtype=np.uint8)
+    asm = np.frombuffer(ASM, dtype=np.uint8)
+    stream = np.concatenate([np.concatenate([asm, b]) for b in blocks])
+    bits = np.unpackbits(stream)
+    soft = ((1.0 - 2.0 * bits.astype(np.float32)) + 0.5 * rng.standard_normal(bits.size)).astype(np.float32)
+    pos = np.arange(bits.size, dtype=np.float64)
+    rx = profile.receiver
+
+    def make():
+        return FrameSync(frame_bits=8 * cb, max_errors=rx.asm_max_errors, flywheel=rx.flywheel_frames)
+
+    make().process(soft[:200_000], pos[:200_000])
+
+    def once():
+        fs = make()
+        t0 = time.perf_counter()
+        out = fs.process(soft, pos)
+        out += fs.flush()
+        dt = time.perf_counter() - t0
+        if len(out) < ncadus - 1:
+            raise RuntimeError(f"frame sync bench: {len(out)} CADUs found of {ncadus}")
+        return dt
+
+    return bits.size / _best(once, repeats) / 1e6
+
+
+def _rs_blocks(errors: int, nblocks: int, e: int = 16, interleave: int = 5) -> list[bytes]:
+    from pipeline.fec import rs_encode
+
+    rng = np.random.default_rng(_SEED + 2 + errors)
+    k = 255 - 2 * e
+    out = []
+    for _ in range(nblocks):
+        data = rng.integers(0, 256, k * interleave, dtype=np.uint8).tobytes()
+        cb = np.frombuffer(rs_encode(data, e, interleave), dtype=np.uint8).copy()
+        for c in range(interleave):  # codeword c owns octets c, c + I, ...
+            where = rng.choice(255, size=errors, replace=False)
+            cb[where * interleave + c] ^= rng.integers(1, 256, errors, dtype=np.uint8)
+        out.append(cb.tobytes())
+    return out
+
+
+def _bench_rs(errors: int, repeats: int, nblocks: int = 200) -> float:
+    from pipeline.fec import rs_decode
+
+    blocks = _rs_blocks(errors, nblocks)
+    rs_decode(blocks[0], 16, 5)
+
+    def once():
+        t0 = time.perf_counter()
+        for b in blocks:
+            _, corrected = rs_decode(b, 16, 5)
+        dt = time.perf_counter() - t0
+        if tuple(corrected) != (errors,) * 5:
+            raise RuntimeError(f"RS bench: expected {errors} corrections per codeword, got {corrected}")
+        return dt
+
+    return nblocks * len(blocks[0]) * 8 / _best(once, repeats) / 1e6
+
+
+def _bench_frames_packets(profile, frames: list, repeats: int) -> tuple[float, float]:
+    from pipeline.link import FrameParser
+    from pipeline.packets import PacketExtractor
+
+    if not frames:
+        return float("nan"), float("nan")
+
+    def once():
+        parser = FrameParser(frames=profile.frames)
+        ext = PacketExtractor(profile=profile)
+        t0 = time.perf_counter()
+        for df in frames:
+            ext.process(parser.process(df))
+        return time.perf_counter() - t0
+
+    once()
+    dt = _best(once, repeats)
+    return len(frames) * 8 * profile.frames.length / dt / 1e6, len(frames) / dt
+
+
+# ---- end to end -----------------------------------------------------------------------------
+
+
+def _decode_once(rec, profile, folder: Path | None, threads: int) -> tuple[float, object]:
+    from pipeline._chain import DecodeChain, _Sinks
+    from pipeline._parallel import PipelinedDecode
+
+    chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)
+    if folder is not None:
+        folder.mkdir(parents=True, exist_ok=True)
+        chain.sinks = _Sinks(folder)
+    pd = PipelinedDecode(chain, threads=threads)
+    t0 = time.perf_counter()
+    pd.run(rec.chunks(profile.receiver.chunk_samples))
+    dt = time.perf_counter() - t0
+    if chain.sinks is not None:
+        chain.sinks.close()
+    return dt, pd
+
+
+def _end_to_end(rec, profile, tmp: Path, threads: int, repeats: int) -> tuple[float, dict, int]:
+    _decode_once(rec, profile, tmp / f"warm{threads}", threads)
+    best = math.inf
+    cpu: dict = {}
+    packets = 0
+    for r in range(repeats):
+        dt, pd = _decode_once(rec, profile, tmp / f"t{threads}_{r}", threads)
+        if dt < best:
+            best, cpu, packets = dt, dict(pd.cpu_s), pd.chain.packet_count
+    return rec.num_samples / best / 1e6, cpu, packets
+
+
+def _segmented(rec, profile, threads: int, repeats: int) -> float:
+    from pipeline._parallel import decode_segmented
+
+    def once():
+        t0 = time.perf_counter()
+        decode_segmented(rec, profile, threads=threads)
+        return time.perf_counter() - t0
+
+    return rec.num_samples / _best(once, repeats) / 1e6
+
+
+_CHILD = r"""
+import json, resource, sys, time
+from pipeline.profile import load_profile, demo_profile_path
+from pipeline.recording import open_recording
+from pipeline._chain import DecodeChain, _Sinks
+profile = load_profile(demo_profile_path())
+rec = open_recording(sys.argv[1])
+chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)
+chain.sinks = _Sinks(__import__("pathlib").Path(sys.argv[2]))
+first = None
+for chunk in rec.chunks(profile.receiver.chunk_samples):
+    chain.process_chunk(chunk)
+    if first is None:
+        first = time.monotonic()
+chain.finish()
+chain.sinks.close()
+hwm = [l for l in open("/proc/self/status") if l.startswith("VmHWM:")]
+peak = int(hwm[0].split()[1]) / 1024.0 if hwm else resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+print(json.dumps({"first": first, "end": time.monotonic(), "packets": chain.packet_count, "peak_rss_mb": peak}))
+"""
+
+
+def _fresh_process(meta: Path, tmp: Path, runs: int = 3) -> dict:
+    """Warm start and peak RSS of a fresh interpreter decoding ``meta`` (the first run fills the cache)."""
+    results = []
+    for r in range(runs):
+        out = tmp / f"child{r}"
+        out.mkdir()
+        t0 = time.monotonic()  # CLOCK_MONOTONIC: the same clock in the child on Linux
+        proc = subprocess.run([sys.executable, "-c", _CHILD, str(meta), str(out)], capture_output=True, text=True,
+                              check=False)
+        if proc.returncode != 0:
+            raise RuntimeError(f"bench child process failed: {proc.stderr.strip().splitlines()[-1:]}")
+        d = json.loads(proc.stdout.strip().splitlines()[-1])
+        results.append({"warm_start_s": d["first"] - t0, "process_total_s": d["end"] - t0,
+                        "peak_rss_mb": d["peak_rss_mb"], "packets": d["packets"]})
+    warm = results[1:] or results
+    return {"warm_start_s": min(r["warm_start_s"] for r in warm),
+            "process_total_s": min(r["process_total_s"] for r in warm),
+            "peak_rss_mb": max(r["peak_rss_mb"] for r in warm),
+            "cold_first_run_s": results[0]["warm_start_s"]}
+
+
+def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float = 34.0,
+            progress=None) -> dict:
+    """Run every benchmark and return the figures as a dict (see the module docstring).
+
+    Parameters
+    ----------
+    seconds : float
+        Length of the simulated demo recording for the end-to-end figures (1 Msample/s).
+    repeats : int
+        Timed repeats per figure; the best is kept.
+    segmented_seconds : float
+        Length of the recording for the overlapping-segment figures (0 skips them); it must hold
+        several default segments (2^23 samples) to show a speed-up.
+    progress : callable or None
+        ``progress(str)`` is told which figure is being measured.
+    """
+    from pipeline.profile import demo_profile_path, load_profile
+    from pipeline.recording import open_recording
+    from pipeline.sim import simulate
+
+    if not (isinstance(seconds, (int, float)) and 0.5 <= seconds <= 600):
+        raise ValueError(f"Argument 'seconds' must be 0.5..600, not {seconds!r}.")
+    if isinstance(repeats, bool) or not isinstance(repeats, int) or not 1 <= repeats <= 20:
+        raise ValueError(f"Argument 'repeats' must be 1..20, not {repeats!r}.")
+    say = progress or (lambda s: None)
+    profile = load_profile(demo_profile_path())
+    res: dict = {"cpu": cpu_model(), "cores": os.cpu_count(), "python": platform.python_version(),
+                 "load_average_before": [round(x, 2) for x in os.getloadavg()], "seconds": float(seconds),
+                 "repeats": repeats}
+    with tempfile.TemporaryDirectory(prefix="downlink-bench-") as tmpname:
+        tmp = Path(tmpname)
+        say("simulating the demo recording")
+        sim = simulate(profile, tmp / "demo", seconds=float(seconds), seed=1)
+        rec = open_recording(sim.meta_path)
+        fs = rec.sample_rate_hz
+        res["sample_rate_hz"] = fs
+        say("recording read")
+        res["recording_read_msps"] = _bench_read(rec, profile.receiver.chunk_samples, repeats)
+        say("front end")
+        chunks = list(rec.chunks(profile.receiver.chunk_samples))
+        res["frontend_msps"] = _bench_frontend(profile, chunks, fs, repeats)
+        del chunks
+        say("Viterbi")
+        res["viterbi_mbps"] = _bench_viterbi(repeats)
+        say("frame synchronizer")
+        res["framesync_mbps"] = _bench_framesync(profile, repeats)
+        say("Reed-Solomon")
+        res["rs_clean_mbps"] = _bench_rs(0, repeats)
+        res["rs_16err_mbps"] = _bench_rs(16, repeats)
+        say("frames and packets")
+        from pipeline._parallel import decode_segment
+
+        seg = decode_segment(rec, profile, 0, 0, rec.num_samples, 0, rec.num_samples)
+        res["frames_packets_mbps"], res["frames_packets_per_s"] = _bench_frames_packets(profile, seg.frames,
+                                                                                        repeats)
+        say("end to end, 1 thread")
+        msps1, cpu1, packets = _end_to_end(rec, profile, tmp, 1, repeats)
+        res["end_to_end_msps"] = msps1
+        res["end_to_end_realtime_factor"] = msps1 * 1e6 / fs
+        res["end_to_end_packets"] = packets
+        say("end to end, 2 threads")
+        msps2, cpu2, _ = _end_to_end(rec, profile, tmp, 2, repeats)
+        res["end_to_end_msps_2threads"] = msps2
+        res["parallel_speedup"] = msps2 / msps1
+        say("end to end, 2 threads, kernels recompiled with nogil=True")
+        with nogil_kernels() as swapped:
+            msps1n, _, _ = _end_to_end(rec, profile, tmp, 1, repeats)
+            msps2n, cpu2n, _ = _end_to_end(rec, profile, tmp, 2, repeats)
+        res["nogil_kernels_swapped"] = len(swapped)
+        res["end_to_end_msps_nogil"] = msps1n
+        res["end_to_end_msps_2threads_nogil"] = msps2n
+        res["parallel_speedup_nogil"] = msps2n / msps1n
+        # what the two threads would reach on two idle cores: total work over the longer thread
+        busy = [cpu2n.get("demod", 0.0), cpu2n.get("main", 0.0)]
+        res["thread_cpu_s_nogil"] = {k: round(v, 4) for k, v in cpu2n.items()}
+        res["parallel_speedup_bound"] = sum(busy) / max(busy) if max(busy) > 0 else float("nan")
+        if segmented_seconds:
+            say(f"overlapping segments, {segmented_seconds:g} s recording, 1 and 2 processes")
+            sim_long = simulate(profile, tmp / "long", seconds=float(segmented_seconds), seed=2)
+            rec_long = open_recording(sim_long.meta_path)
+            s1 = _segmented(rec_long, profile, 1, max(1, repeats - 1))
+            s2 = _segmented(rec_long, profile, 2, max(1, repeats - 1))
+            res["segmented_seconds"] = float(segmented_seconds)
+            res["end_to_end_msps_segmented"] = s1
+            res["end_to_end_msps_segmented_2proc"] = s2
+            res["segmented_speedup"] = s2 / s1
+            (tmp / "long" / sim_long.data_path.name).unlink()
+        say("fresh process: warm start and peak memory")
+        res.update(_fresh_process(sim.meta_path, tmp))
+    res["load_average_after"] = [round(x, 2) for x in os.getloadavg()]
+    res["bench_process_peak_rss_mb"] = peak_rss_mb()
+    return {k: (round(v, 3) if isinstance(v, float) else v) for k, v in res.items()}
+
+
+_ROWS = [
+    ("recording_read_msps", "recording read (cf32 SigMF)", "Msample/s"),
+    ("frontend_msps", "front end (Demodulator)", "Msample/s"),
+    ("viterbi_mbps", "Viterbi r=1/2 (decoded bits)", "Mbit/s"),
+    ("framesync_mbps", "frame synchronizer (soft bits in)", "Mbit/s"),
+    ("rs_clean_mbps", "RS E=16 I=5, clean (codeblock bits)", "Mbit/s"),
+    ("rs_16err_mbps", "RS E=16 I=5, 16 errors/codeword", "Mbit/s"),
+    ("frames_packets_mbps", "frames + packets (frame bits)", "Mbit/s"),
+    ("end_to_end_msps", "end to end, 1 thread", "Msample/s"),
+    ("end_to_end_realtime_factor", "  real-time factor (1 Msample/s)", "x"),
+    ("end_to_end_msps_2threads", "end to end, 2 threads (pipelined)", "Msample/s"),
+    ("parallel_speedup", "  speed-up, kernels as shipped", "x"),
+    ("end_to_end_msps_2threads_nogil", "end to end, 2 threads, nogil kernels", "Msample/s"),
+    ("parallel_speedup_nogil", "  speed-up with nogil kernels", "x"),
+    ("parallel_speedup_bound", "  bound on idle cores (thread CPU)", "x"),
+    ("end_to_end_msps_segmented", "segments, 1 process", "Msample/s"),
+    ("end_to_end_msps_segmented_2proc", "segments, 2 processes", "Msample/s"),
+    ("segmented_speedup", "  speed-up", "x"),
+    ("warm_start_s", "warm start to first sample", "s"),
+    ("peak_rss_mb", "peak RSS, fresh decode process", "MiB"),
+]
+
+
+def format_table(res: dict) -> str:
+    """The figures as an aligned text table."""
+    lines = [f"downlink bench: demo profile (Tamarisk), {res['seconds']:g} s recording at "
+             f"{res['sample_rate_hz'] / 1e6:g} Msample/s, best of {res['repeats']}",
+             f"CPU: {res['cpu']} ({res['cores']} cores), Python {res['python']}, load average "
+             f"{res['load_average_before'][0]:.2f} before / {res['load_average_after'][0]:.2f} after", ""]
+    lines.append(f"{'figure':<40} {'value':>10}  unit")
+    for key, label, unit in _ROWS:
+        if key in res:
+            v = res[key]
+            lines.append(f"{label:<40} {v:>10.2f}  {unit}")
+    return "\n".join(lines)
+
+
+def run_bench(as_json: bool = False, seconds: float = 4.0) -> int:
+    """The ``downlink bench`` command: measure, then print a table (or one JSON object) on stdout."""
+    def progress(msg: str) -> None:
+        if sys.stderr.isatty():
+            print(f"  {msg} ...", file=sys.stderr)
+
+    res = measure(seconds=seconds, progress=progress)
+    if as_json:
+        print(json.dumps(res, sort_keys=True))
+    else:
+        print(format_table(res))
+    return 0
