@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy.special import erfc
 
 from pipeline.fec import RATES, ConvEncoder, ViterbiDecoder, conv_encode, puncture_pattern, viterbi_decode
@@ -127,6 +129,16 @@ def test_erasures_and_odd_lengths():
     assert np.array_equal(viterbi_decode(soft), bits)
     assert viterbi_decode(soft[:-1]).size == 99  # a lone trailing symbol completes no branch
     assert viterbi_decode(np.zeros(10, np.float32)).size == 5  # all erased: bits, no exception
+
+
+@settings(max_examples=40, deadline=None)
+@given(rate=st.sampled_from(RATES), n_bits=st.integers(0, 3000), seed=st.integers(0, 2**32 - 1),
+       scale=st.floats(1e-3, 1e3))
+def test_property_encode_decode_identity(rate, n_bits, seed, scale):
+    # STYLE.md rule 11: encode, decode, identity (from the known start state, any scale)
+    bits = np.random.default_rng(seed).integers(0, 2, n_bits, dtype=np.uint8)
+    soft = (1 - 2 * conv_encode(bits, rate).astype(np.float32)) * np.float32(scale)
+    assert np.array_equal(viterbi_decode(soft, rate, initial_state=0), bits)
 
 
 # ---- streaming ---------------------------------------------------------------------------------
