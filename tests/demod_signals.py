@@ -54,10 +54,14 @@ def rrc_closed_form(x: np.ndarray, beta: float) -> np.ndarray:
     return out
 
 
-def _pulse(x: np.ndarray, pulse: str, beta: float) -> np.ndarray:
+def _pulse(x: np.ndarray, pulse: str, beta: float, sps: float) -> np.ndarray:
     if pulse == "rrc":
         return rrc_closed_form(x, beta)
-    return ((x >= -0.5) & (x < 0.5)).astype(np.float64)
+    # rect as seen by an integrating sampler: the share of the sample period [n - 1/2, n + 1/2]
+    # (x = (n - c) / sps) covered by the symbol [-1/2, 1/2) of the pulse
+    lo = np.maximum(x - 0.5 / sps, -0.5)
+    hi = np.minimum(x + 0.5 / sps, 0.5)
+    return np.clip((hi - lo) * sps, 0.0, 1.0)
 
 
 def _add_pulses(n_samples: int, centres: np.ndarray, amps: np.ndarray, sps: float, pulse: str, beta: float,
@@ -66,6 +70,7 @@ def _add_pulses(n_samples: int, centres: np.ndarray, amps: np.ndarray, sps: floa
     width = int(math.ceil(2 * half)) + 2
     out_re = np.zeros(n_samples)
     out_im = np.zeros(n_samples)
+    energy = 0.0
     batch = max(1, 2_000_000 // width)
     offs = np.arange(width)
     for b0 in range(0, centres.size, batch):
@@ -74,15 +79,16 @@ def _add_pulses(n_samples: int, centres: np.ndarray, amps: np.ndarray, sps: floa
         first = np.floor(c - half).astype(np.int64)
         idx = first[:, None] + offs[None, :]
         x = (idx - c[:, None]) / sps
-        g = _pulse(x, pulse, beta)
+        g = _pulse(x, pulse, beta, sps)
         if pulse == "rrc":
             g[np.abs(x) > span / 2] = 0.0
         ok = (idx >= 0) & (idx < n_samples)
         w = g * ok
+        energy += float(np.sum(g * g))
         idc = np.clip(idx, 0, n_samples - 1).ravel()
         out_re += np.bincount(idc, weights=(w * a.real[:, None]).ravel(), minlength=n_samples)
         out_im += np.bincount(idc, weights=(w * a.imag[:, None]).ravel(), minlength=n_samples)
-    return out_re + 1j * out_im
+    return out_re + 1j * out_im, energy / max(1, centres.size)
 
 
 def modulate(n_symbols: int, *, modulation: str = "bpsk", sample_rate_hz: float = 1e6, symbol_rate_baud: float = 240e3,
@@ -96,8 +102,9 @@ def modulate(n_symbols: int, *, modulation: str = "bpsk", sample_rate_hz: float 
     The symbol clock runs ``clock_offset_ppm`` slow relative to the sample clock (samples per
     symbol ``fs / Rs * (1 + ppm 1e-6)``).  Symbol ``k`` peaks at sample
     ``(lead_symbols + k + timing_offset) * sps_tx``.  Noise: complex white Gaussian with
-    ``Es/N0 = sps_tx * E|a|^2 * amplitude^2 / sigma^2`` (unit-energy pulse, so Es is the symbol
-    energy summed over samples).  ``dropout = (t0_s, t1_s)`` switches the signal (not the noise) off.
+    ``Es/N0 = E_pulse * E|a|^2 * amplitude^2 / sigma^2``, ``E_pulse`` the mean of ``sum_n g^2``
+    over the symbols (about ``sps_tx`` for the unit-energy RRC).  ``dropout = (t0_s, t1_s)``
+    switches the signal (not the noise) off.
     """
     sps_tx = sample_rate_hz / symbol_rate_baud * (1.0 + clock_offset_ppm * 1e-6)
     if bits is None:
@@ -110,19 +117,21 @@ def modulate(n_symbols: int, *, modulation: str = "bpsk", sample_rate_hz: float 
     centres = (lead_symbols + np.arange(n_symbols) + timing_offset) * sps_tx
     n_samples = int(math.ceil((lead_symbols * 2 + n_symbols + timing_offset) * sps_tx))
     if modulation == "bpsk":
-        s = _add_pulses(n_samples, centres, ii.astype(np.complex128), sps_tx, pulse, rolloff, span)
+        s, e_pulse = _add_pulses(n_samples, centres, ii.astype(np.complex128), sps_tx, pulse, rolloff, span)
     elif modulation == "qpsk":
-        s = _add_pulses(n_samples, centres, (ii + 1j * qq) / math.sqrt(2), sps_tx, pulse, rolloff, span)
+        s, e_pulse = _add_pulses(n_samples, centres, (ii + 1j * qq) / math.sqrt(2), sps_tx, pulse, rolloff, span)
     else:
-        s = _add_pulses(n_samples, centres, ii / math.sqrt(2) + 0j, sps_tx, pulse, rolloff, span)
-        s = s + _add_pulses(n_samples, centres + 0.5 * sps_tx, 1j * qq / math.sqrt(2), sps_tx, pulse, rolloff, span)
+        s, e_pulse = _add_pulses(n_samples, centres, ii / math.sqrt(2) + 0j, sps_tx, pulse, rolloff, span)
+        s = s + _add_pulses(n_samples, centres + 0.5 * sps_tx, 1j * qq / math.sqrt(2), sps_tx, pulse, rolloff, span)[0]
     t = np.arange(n_samples) / sample_rate_hz
     s = amplitude * s * np.exp(1j * (2 * math.pi * (carrier_offset_hz * t + 0.5 * doppler_rate_hz_per_s * t * t)
                                      + phase_rad))
     if dropout is not None:
         s[(t >= dropout[0]) & (t < dropout[1])] = 0.0
     if esn0_db is not None:
-        sigma2 = sps_tx * amplitude ** 2 / 10 ** (esn0_db / 10)
+        # Es = amplitude^2 E|a|^2 sum_n g(n)^2, the pulse energy over the samples actually produced
+        # (sps_tx for RRC; less for an integrating sampler's rect, whose edge samples are partial)
+        sigma2 = e_pulse * amplitude ** 2 / 10 ** (esn0_db / 10)
         s = s + math.sqrt(sigma2 / 2) * (rng.standard_normal(n_samples) + 1j * rng.standard_normal(n_samples))
     return Waveform(s.astype(np.complex64), centres, bi, bq)
 

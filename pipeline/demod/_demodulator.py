@@ -111,10 +111,11 @@ class Demodulator:
 
     1. NaN/Inf samples become 0 (erasures; counted), block AGC to unit mean power (zeros excluded).
     2. Rotation by the numerically-controlled oscillator (NCO) at the current carrier estimate.
-    3. Matched filter (RRC over 8 symbols, whose truncation leaves the Es/N0 estimate unbiased
-       to 25 dB at roll-off 0.5; or the exact fractional integrate-and-dump for rect), a
-       blocked FIR of odd length ``2 D + 1`` whose output is re-indexed by ``D`` so that MF
-       sample ``n`` is centred on recording sample ``n``.
+    3. RRC: matched filter over 8 symbols (its truncation leaves the Es/N0 estimate unbiased
+       to 25 dB at roll-off 0.5), a blocked FIR of odd length ``2 D + 1`` whose output is
+       re-indexed by ``D`` so that MF sample ``n`` is centred on recording sample ``n``.
+       Rect: no FIR; the tracker integrates the samples over the exact (fractional) symbol
+       window at each strobe, which is the matched filter evaluated where it is needed.
     4. Gardner timing recovery with a cubic Farrow interpolator and a decision-directed Costas
        loop at symbol rate (:func:`pipeline.demod._kernels.track_symbols`).  At the block end
        the loop's frequency integrator is moved into the NCO, so the matched filter always sees
@@ -168,7 +169,11 @@ class Demodulator:
         self._power = 2 if self._mod_code == 0 else 4
 
         self.taps = matched_filter_taps(link.pulse, link.rolloff, sps, _RRC_SPAN_SYMBOLS)
-        self.filter_delay_samples = (self.taps.size - 1) // 2
+        # rect pulses: the tracker integrates the raw samples over the exact symbol window at each
+        # strobe (no FIR, no interpolation error on the triangular matched-filter response)
+        self._box_half = 0.5 * sps if link.pulse == "rect" else 0.0
+        self.filter_delay_samples = 0 if self._box_half else (self.taps.size - 1) // 2
+        self._look = int(self._box_half + 0.5) + 2 if self._box_half else 2
         self.block_samples = max(32768, _next_pow2(4096 * sps))
         self.acquisition_samples = max(self.block_samples, _next_pow2(8192 * sps))
         self.reacquire_symbols = 65536
@@ -196,7 +201,7 @@ class Demodulator:
         r0 = midpoint_energy_ratio(link.pulse, link.rolloff)
         qpsk = self._mod_code != 0
         params = np.zeros(PARAM_SIZE, dtype=np.float64)
-        params[:19] = [
+        params[:20] = [
             sps, 2.0 * _ZETA * wnt, wnt * wnt, kp_c, ki_c, kr_c, min(0.2, 4.0 * kp_c2),
             1.0 / 1024.0,                       # amplitude (M2M4) averaging
             1.0 / (2048.0 if qpsk else 256.0),  # carrier-lock averaging: r^4 is noisier than r^2
@@ -205,6 +210,7 @@ class Demodulator:
             0.5, 0.25, 0.04,                    # symbol lock on / off (relative), minimum absolute
             r0, kd,
             128.0,                              # warm-up, and symbols in a row meeting the lock condition
+            self._box_half,                     # > 0: exact integrate-and-dump (rect pulses)
         ]
         self._params = params
         self.reset()
@@ -280,7 +286,7 @@ class Demodulator:
         elif self._acquiring and self._held:
             self._acquire_and_release(parts)
         # push the matched filter's delay line out with zeros so the last symbols are produced
-        tail = np.zeros(self.filter_delay_samples + 4, dtype=np.complex64)
+        tail = np.zeros(max(self.filter_delay_samples, self._look) + 4, dtype=np.complex64)
         self._run_block(tail, parts, t_limit=end, tail=True)
         self._finished = True
         return self._assemble(parts)
@@ -358,10 +364,13 @@ class Demodulator:
         self._nco_phase = derotate(block, gain, self._nco_phase, dphase, 256, y)
         self._nco_phase_unwrapped += dphase * n
         self._run_sample += n
-        u = np.concatenate([self._fir_hist, y])
-        mf = np.empty(n, dtype=np.complex64)
-        fir_interleaved(u.view(np.float32), self.taps, mf.view(np.float32))
-        self._fir_hist = u[u.size - (self.taps.size - 1):].copy()
+        if self._box_half:
+            mf = y
+        else:
+            u = np.concatenate([self._fir_hist, y])
+            mf = np.empty(n, dtype=np.complex64)
+            fir_interleaved(u.view(np.float32), self.taps, mf.view(np.float32))
+            self._fir_hist = u[u.size - (self.taps.size - 1):].copy()
         mfbuf = np.concatenate([self._mf_tail, mf])
         base = self._mf_tail_base
         cap = int(mfbuf.size / self.samples_per_symbol * 1.1) + 8
@@ -373,7 +382,7 @@ class Demodulator:
         nsym = track_symbols(mfbuf, base, t_limit, self._params, self._mod_code,
                              1 if self.carrier_loop_order == 3 else 0, self._sf, self._si,
                              pos, sym, amp, flags, theta)
-        keep_from = max(0, int(math.floor(self._sf[0])) - 1 - base)
+        keep_from = max(0, int(math.floor(self._sf[0])) - self._look - base)
         self._mf_tail = mfbuf[keep_from:].copy()
         self._mf_tail_base = base + keep_from
 

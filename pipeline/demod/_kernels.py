@@ -93,15 +93,19 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
     Parameters
     ----------
     mf : complex64 array
-        Matched-filter output; ``mf[i]`` is centred on recording sample ``base + i``.
+        Matched-filter output (or, with ``hbox > 0``, the derotated samples); ``mf[i]`` is
+        centred on recording sample ``base + i``.  ``int(hbox + 0.5) + 2`` samples (2 for the
+        cubic) are needed on each side of a strobe.
     base : int
         Absolute sample index of ``mf[0]``.
     t_limit : float
         No strobe at or beyond this sample position is taken (end of the recording at flush).
     params : float64 array
         ``[sps, kp_t, ki_t, kp_c, ki_c, kr_c, kp_c_wide, alpha_amp, alpha_lock_c, alpha_lock_s,
-        c_on, c_off, c_min, s_on, s_off, s_min, r0, kd, warmup, 0]``; no lock is declared before
-        ``warmup`` symbols have been averaged.
+        c_on, c_off, c_min, s_on, s_off, s_min, r0, kd, warmup, hbox]``; no lock is declared before
+        ``warmup`` symbols have been averaged.  ``hbox > 0`` selects the exact integrate-and-dump
+        of half-width ``hbox`` samples over unfiltered samples (rect pulses) instead of the cubic
+        interpolator over matched-filter output.
     mod_code : int
         0 BPSK, 1 QPSK, 2 OQPSK.
     third_order : int
@@ -158,6 +162,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
     r0 = params[16]
     kd = params[17]
     warmup = params[18]
+    hbox = params[19]
+    look = int(hbox + 0.5) + 2 if hbox > 0.0 else 2
 
     t = sf[0]
     v_int = sf[1]
@@ -202,34 +208,51 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
     while t < t_limit:
         m = int(math.floor(t))
         i = m - base
-        if i + 2 >= n_mf:
+        if i + look >= n_mf:
             break
-        if i < 1:
-            # the wrapper always keeps one sample of history; this only guards the first call
+        if i - look < 0:
+            # the wrapper always keeps enough history; this only guards the first call
             t += 0.5 * sps
             continue
-        mu = t - m
-        a0 = mf[i - 1]
-        a1 = mf[i]
-        a2 = mf[i + 1]
-        a3 = mf[i + 2]
-        x0r = float(a0.real)
-        x1r = float(a1.real)
-        x2r = float(a2.real)
-        x3r = float(a3.real)
-        x0i = float(a0.imag)
-        x1i = float(a1.imag)
-        x2i = float(a2.imag)
-        x3i = float(a3.imag)
-        # Farrow coefficients of the cubic Lagrange interpolator (multiplications, not divisions)
-        c1r = -third * x0r - 0.5 * x1r + x2r - sixth * x3r
-        c2r = 0.5 * x0r - x1r + 0.5 * x2r
-        c3r = sixth * (x3r - x0r) + 0.5 * (x1r - x2r)
-        c1i = -third * x0i - 0.5 * x1i + x2i - sixth * x3i
-        c2i = 0.5 * x0i - x1i + 0.5 * x2i
-        c3i = sixth * (x3i - x0i) + 0.5 * (x1i - x2i)
-        vr = x1r + mu * (c1r + mu * (c2r + mu * c3r))
-        vi = x1i + mu * (c1i + mu * (c2i + mu * c3i))
+        if hbox > 0.0:
+            # exact integrate-and-dump over [t - h, t + h] of the piecewise-constant samples:
+            # weight of sample j is the overlap of [j - 1/2, j + 1/2] with the window
+            vr = 0.0
+            vi = 0.0
+            jlo = int(math.floor(t - hbox - 0.5))
+            jhi = int(math.ceil(t + hbox + 0.5))
+            for j in range(jlo, jhi + 1):
+                u = j - t
+                lo_e = u - 0.5 if u - 0.5 > -hbox else -hbox
+                hi_e = u + 0.5 if u + 0.5 < hbox else hbox
+                wgt = hi_e - lo_e
+                if wgt > 0.0:
+                    xs = mf[j - base]
+                    vr += wgt * float(xs.real)
+                    vi += wgt * float(xs.imag)
+        else:
+            mu = t - m
+            a0 = mf[i - 1]
+            a1 = mf[i]
+            a2 = mf[i + 1]
+            a3 = mf[i + 2]
+            x0r = float(a0.real)
+            x1r = float(a1.real)
+            x2r = float(a2.real)
+            x3r = float(a3.real)
+            x0i = float(a0.imag)
+            x1i = float(a1.imag)
+            x2i = float(a2.imag)
+            x3i = float(a3.imag)
+            # Farrow coefficients of the cubic Lagrange interpolator (multiplications, not divisions)
+            c1r = -third * x0r - 0.5 * x1r + x2r - sixth * x3r
+            c2r = 0.5 * x0r - x1r + 0.5 * x2r
+            c3r = sixth * (x3r - x0r) + 0.5 * (x1r - x2r)
+            c1i = -third * x0i - 0.5 * x1i + x2i - sixth * x3i
+            c2i = 0.5 * x0i - x1i + 0.5 * x2i
+            c3i = sixth * (x3i - x0i) + 0.5 * (x1i - x2i)
+            vr = x1r + mu * (c1r + mu * (c2r + mu * c3r))
+            vi = x1i + mu * (c1i + mu * (c2i + mu * c3i))
         d = theta - theta_ph
         if nresync >= 64 or d > 0.3 or d < -0.3:
             cs = math.cos(theta)
