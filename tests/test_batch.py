@@ -1,0 +1,137 @@
+"""``pipeline._batch.run_batch`` (``downlink batch``) on a local Dask cluster with tiny recordings.
+
+Checks: every recording's output is identical to a single ``decode_to_folder`` of it; a failing
+recording is reported in ``index.json`` and does not stop the others; a second run skips the
+finished recordings and retries the failed one.  No timing here.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+pytest.importorskip("dask.distributed")
+
+from pipeline._batch import output_name, run_batch  # noqa: E402
+from pipeline._chain import decode_to_folder  # noqa: E402
+from pipeline.errors import OutputError  # noqa: E402
+from pipeline.profile import demo_profile_path  # noqa: E402
+from pipeline.sim import simulate  # noqa: E402
+
+COMPARED = ("packets.jsonl", "frames.jsonl")
+
+
+def _outputs(folder: Path) -> dict[str, bytes]:
+    names = list(COMPARED) + sorted(p.name for p in folder.glob("apid_*.bin"))
+    return {name: (folder / name).read_bytes() for name in names}
+
+
+@pytest.fixture(scope="module")
+def archive(tmp_path_factory, demo_profile):
+    """Two good tiny passes and one recording whose metadata is not JSON."""
+    folder = tmp_path_factory.mktemp("archive")
+    good = []
+    for name, seed in (("pass_a", 3), ("pass_b", 4)):
+        sim = simulate(demo_profile, folder / name, seconds=1.2, seed=seed, name=name)  # truth files per pass
+        good.append(str(sim.meta_path))
+    bad = folder / "pass_bad.sigmf-meta"
+    bad.write_text("{ this is not json", encoding="utf-8")
+    (folder / "pass_bad.sigmf-data").write_bytes(b"\0" * 800)
+    return good, str(bad)
+
+
+@pytest.fixture(scope="module")
+def single_decodes(tmp_path_factory, archive, demo_profile):
+    # in-process decodes: the reference output (and they fill the numba cache the workers load)
+    ref = tmp_path_factory.mktemp("single")
+    outs = {}
+    for rec in archive[0]:
+        folder = ref / output_name(rec)
+        s = decode_to_folder(rec, demo_profile, str(folder))
+        assert s.packets > 0  # the comparison below is worth something only with packets
+        outs[output_name(rec)] = _outputs(folder)
+    return outs
+
+
+@pytest.fixture(scope="module")
+def batch_runs(tmp_path_factory, archive, demo_profile, single_decodes):
+    out = tmp_path_factory.mktemp("batch") / "out"
+    good, bad = archive
+    recordings = [good[0], bad, good[1]]
+    rc1 = run_batch(recordings, demo_profile, str(demo_profile_path()), str(out), workers=2, quiet=True)
+    index1 = json.loads((out / "index.json").read_text())
+    stamps = {output_name(r): (out / output_name(r) / "packets.jsonl").stat().st_mtime_ns for r in good}
+    rc2 = run_batch(recordings, demo_profile, str(demo_profile_path()), str(out), workers=1, quiet=True)
+    index2 = json.loads((out / "index.json").read_text())
+    return out, recordings, (rc1, index1), (rc2, index2), stamps
+
+
+def test_output_name():
+    assert output_name("/a/b/pass_a.sigmf-meta") == "pass_a"
+    assert output_name("pass.sigmf-data") == "pass"
+    assert output_name("raw.cu8") == "raw"
+    assert output_name("x.tar.bin") == "x.tar"
+
+
+def test_batch_output_identical_to_single_decode(batch_runs, single_decodes):
+    out = batch_runs[0]
+    for name, ref in single_decodes.items():
+        assert _outputs(out / name) == ref  # byte for byte
+        assert (out / name / "report.json").is_file()
+        assert (out / name / "report.html").is_file()
+
+
+def test_failed_recording_reported_and_others_decoded(batch_runs, archive):
+    out, recordings, (rc1, index1), _, _ = batch_runs
+    assert rc1 == 1  # not every recording decoded
+    by_rec = {r["recording"]: r for r in index1["recordings"]}
+    assert [r["recording"] for r in index1["recordings"]] == recordings  # index in the order given
+    good, bad = archive
+    assert by_rec[bad]["status"] == "failed"
+    assert "pass_bad" in by_rec[bad]["error"]
+    assert not (out / "pass_bad").exists()  # no half-written folder
+    for rec in good:
+        assert by_rec[rec]["status"] == "decoded"
+        assert by_rec[rec]["packets"] > 0
+        assert by_rec[rec]["frames"] >= by_rec[rec]["frames_ok"] > 0
+    assert index1["profile"] == str(demo_profile_path())
+
+
+def test_rerun_skips_finished_and_retries_failed(batch_runs, archive):
+    out, _, _, (rc2, index2), stamps = batch_runs
+    good, bad = archive
+    by_rec = {r["recording"]: r for r in index2["recordings"]}
+    assert rc2 == 1
+    for rec in good:
+        assert by_rec[rec]["status"] == "skipped"
+        # the finished folder was not written again
+        assert (out / output_name(rec) / "packets.jsonl").stat().st_mtime_ns == stamps[output_name(rec)]
+    assert by_rec[bad]["status"] == "failed"
+
+
+def test_all_good_returns_zero_and_incomplete_folder_not_skipped(tmp_path, archive, demo_profile, single_decodes):
+    good, _ = archive
+    out = tmp_path / "out"
+    # a folder without its report is not "finished": it is not skipped (the ordinary decode then
+    # refuses to overwrite it, so it is reported as failed rather than silently kept)
+    stale = out / output_name(good[0])
+    stale.mkdir(parents=True)
+    (stale / "packets.jsonl").write_text("")
+    rc = run_batch(good[:1], demo_profile, "p.toml", str(out), workers=1, quiet=True)
+    entry = json.loads((out / "index.json").read_text())["recordings"][0]
+    assert rc == 1 and entry["status"] == "failed"
+    (stale / "packets.jsonl").unlink()
+    stale.rmdir()
+    rc = run_batch(good[:1], demo_profile, "p.toml", str(out), workers=1, quiet=True)
+    assert rc == 0
+    assert json.loads((out / "index.json").read_text())["recordings"][0]["status"] == "decoded"
+    assert _outputs(out / output_name(good[0])) == single_decodes[output_name(good[0])]
+
+
+def test_two_recordings_with_one_output_name_refused(tmp_path, demo_profile):
+    a = tmp_path / "a" / "pass.sigmf-meta"
+    b = tmp_path / "b" / "pass.sigmf-meta"
+    with pytest.raises(OutputError, match="share the output folder"):
+        run_batch([str(a), str(b)], demo_profile, "p.toml", str(tmp_path / "out"), workers=1, quiet=True)
