@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 from pipeline.fec._args import Rate, as_soft, check_int, check_rate
@@ -48,6 +50,30 @@ def _butterfly_signs() -> tuple[np.ndarray, np.ndarray]:
 
 
 _SIGN1, _SIGN2 = _butterfly_signs()
+
+
+@functools.cache
+def _rate_layout(rate: str) -> tuple[int, int, np.ndarray, np.ndarray]:
+    """Block geometry of a rate: (symbols per block, steps per block, mother position of each
+    transmitted symbol of a block, steps completed by the first i symbols for i = 0..block)."""
+    pat = puncture_pattern(rate)
+    period = pat.shape[1]
+    kept = int(pat.sum())
+    # mother-code position (2 * column + row) of each transmitted symbol in one period
+    order = [2 * c + r for c in range(period) for r in range(2) if pat[r, c]]
+    n_periods = _BLOCK_STEPS // period
+    block_symbols = n_periods * kept
+    block_steps = n_periods * period
+    positions = (
+        np.asarray(order, dtype=np.int64)[None, :] + 2 * period * np.arange(n_periods, dtype=np.int64)[:, None]
+    ).reshape(-1)
+    # column c is complete once its last symbol (cumulative count - 1) has arrived
+    per_col = np.resize(pat.sum(axis=0).astype(np.int64), block_steps)
+    last_symbol_of_col = np.cumsum(per_col) - 1
+    steps_after = np.searchsorted(last_symbol_of_col, np.arange(block_symbols + 1), side="left")
+    for arr in (positions, steps_after):
+        arr.flags.writeable = False
+    return block_symbols, block_steps, positions, steps_after
 
 
 class ViterbiDecoder:
@@ -104,28 +130,15 @@ class ViterbiDecoder:
         if initial_state is not None:
             initial_state = check_int("initial_state", initial_state, "0..63 or None", lambda v: 0 <= v <= 63)
         self.initial_state = initial_state
-        pat = puncture_pattern(self.rate)
-        period = pat.shape[1]
-        kept = int(pat.sum())
-        # mother-code position (2 * column + row) of each transmitted symbol in one period
-        order = [2 * c + r for c in range(period) for r in range(2) if pat[r, c]]
-        n_periods = _BLOCK_STEPS // period
-        self._block_symbols = n_periods * kept
-        self._block_steps = n_periods * period
-        self._positions = (
-            np.asarray(order, dtype=np.int64)[None, :] + 2 * period * np.arange(n_periods, dtype=np.int64)[:, None]
-        ).reshape(-1)
-        # steps completed by the first i transmitted symbols of a block (for the partial last block)
-        col_of_symbol = self._positions // 2
-        last_symbol_of_col = np.zeros(self._block_steps, dtype=np.int64)
-        last_symbol_of_col[col_of_symbol] = np.arange(self._block_symbols)  # keeps the last per column
-        self._steps_after = np.searchsorted(last_symbol_of_col, np.arange(self._block_symbols + 1), side="left")
+        layout = _rate_layout(self.rate)
+        self._block_symbols, self._block_steps, self._positions, self._steps_after = layout
         self._punctured = self.rate != "1/2"
-        self._quant = np.zeros(self._block_symbols, dtype=np.int8)
-        self._mother = np.zeros(2 * self._block_steps, dtype=np.int8)
-        self._scratch = np.zeros(_SUB_BLOCK_STEPS * 64, dtype=np.uint8)
-        self._words = np.zeros(self._block_steps + self.traceback_depth, dtype=np.uint64)
-        self._pending = np.zeros(self._block_symbols, dtype=np.float32)
+        # Work buffers; every entry is written before it is read, so np.empty suffices.
+        self._quant = np.empty(self._block_symbols, dtype=np.int8)
+        self._mother = np.empty(2 * self._block_steps, dtype=np.int8)
+        self._scratch = np.empty(_SUB_BLOCK_STEPS * 64, dtype=np.uint8)
+        self._words = np.empty(self._block_steps + self.traceback_depth, dtype=np.uint64)
+        self._pending = np.empty(self._block_symbols, dtype=np.float32)
         self._pm_a = np.zeros(32, dtype=np.uint32)
         self._pm_b = np.zeros(32, dtype=np.uint32)
         self.reset()
