@@ -206,11 +206,12 @@ def esn0_from_ser(ser: float, modulation: str) -> float:
 
 
 def bit_errors_iq(block, wave: Waveform, skip: int = 2000):
-    """Bit errors of a QPSK/OQPSK soft stream (I, Q interleaved) against the transmitted bits.
+    """Bit errors of an OQPSK soft stream (I, Q interleaved) against the transmitted bits.
 
     The demodulator's ambiguity (a 90-degree rotation maps I to Q and Q to -I; for OQPSK that also
     moves the symbol boundary by half a symbol) is resolved by trying a lag of -1, 0, +1 channel
-    bits and a sign per channel, keeping the best.  Returns ``(errors, compared)``.
+    bits and a sign per channel, keeping the best.  Returns ``(errors, compared)``.  (For QPSK,
+    where the rotation swaps I and Q within a symbol, use :func:`symbol_errors`.)
     """
     sps = np.median(np.diff(wave.peak_position))
     pos = block.position[0::2]

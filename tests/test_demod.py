@@ -195,14 +195,19 @@ def test_coarse_acquisition(rng, mod, power):
 
 # ---- the stage ---------------------------------------------------------------------------------------
 
-@pytest.mark.parametrize("mod", ["bpsk", "qpsk", "oqpsk"])
-def test_chunking_invariance(rng, mod):
-    w = modulate(40000, modulation=mod, esn0_db=4.0, carrier_offset_hz=1500.0, clock_offset_ppm=30,
+@pytest.mark.parametrize("mod,pulse", [("bpsk", "rrc"), ("qpsk", "rrc"), ("oqpsk", "rrc"), ("qpsk", "rect")])
+def test_chunking_invariance(rng, mod, pulse):
+    w = modulate(40000, modulation=mod, pulse=pulse, esn0_db=4.0, carrier_offset_hz=1500.0, clock_offset_ppm=30,
                  phase_rad=0.4, rng=rng)
-    ref = _run(_demod(mod), w.samples)
+
+    def make():
+        return Demodulator(link=LinkSection(modulation=mod, pulse=pulse), receiver=ReceiverSection(),
+                           sample_rate_hz=FS)
+
+    ref = _run(make(), w.samples)
     cuts = sorted(int(c) for c in rng.choice(np.arange(1, w.samples.size), 9, replace=False))
     cuts = sorted(set(cuts + [1, 2, 17000, 17001]))  # tiny pieces too
-    got = _run(_demod(mod), w.samples, cuts)
+    got = _run(make(), w.samples, cuts)
     np.testing.assert_allclose(got[0], ref[0], rtol=0, atol=1e-6)
     np.testing.assert_allclose(got[1], ref[1], rtol=0, atol=1e-9)
     np.testing.assert_array_equal(got[2], ref[2])
@@ -337,3 +342,34 @@ def test_small_known_answer_run(mod):
     bps = 1 if mod == "bpsk" else 2
     assert locked[1000 * bps:].all()
     assert abs(track[-2].carrier_offset_hz - 1500.0) < 20.0
+
+
+def test_nrzm_round_trip_property():
+    """Hypothesis: NRZ-M encode, flip the polarity, split anywhere, decode: the bits come back."""
+    from hypothesis import given, settings
+    from hypothesis import strategies as st
+
+    @settings(max_examples=60, deadline=None)
+    @given(st.lists(st.integers(0, 1), min_size=2, max_size=300), st.booleans(), st.data())
+    def check(bits, flip, data):
+        b = np.array(bits, dtype=np.uint8)
+        lev = _nrzm_encode(b).astype(np.float32) * (-1.0 if flip else 1.0)
+        cut = data.draw(st.integers(0, b.size))
+        dec = LineDecoder(line_code="nrz-m")
+        out = np.concatenate([dec.process(lev[:cut]), dec.process(lev[cut:])])
+        np.testing.assert_array_equal((out[1:] < 0).astype(np.uint8), b[1:])
+
+    check()
+
+
+def test_state_stays_bounded_over_a_long_stream(rng):
+    """Constant memory: buffers carried between calls do not grow with the stream."""
+    w = modulate(20000, esn0_db=6.0, carrier_offset_hz=700.0, rng=rng)
+    d = _demod()
+    for rep in range(12):
+        for c in chunked(w.samples, [30000, 61000]):
+            d.process(Chunk(c.samples, c.start + rep * w.samples.size))
+        assert d._pending.size < d.block_samples
+        assert d._mf_tail.size < 64
+        assert sum(h.size for h in d._held) <= d.acquisition_samples
+    assert d.stats.samples_in == 12 * w.samples.size
