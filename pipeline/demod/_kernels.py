@@ -293,6 +293,9 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
                     sg_q = 1.0 if sq >= 0.0 else -1.0
                     ec_raw = (sg_i * sq - sg_q * sr) * inv_sqrt2
             r2 = sr * sr + sq * sq
+            # the loops are normalised by the amplitude of the previous symbol: it changes slowly,
+            # and this keeps the square roots and division off the loops' critical path
+            inv_amp_loop = 1.0 / amp
 
             # amplitude from bias-corrected EMAs of the M2M4 moments
             m2s = (1.0 - a_amp) * m2s + a_amp * r2
@@ -371,7 +374,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
             nout += 1
 
             # carrier loop (phase correction takes effect from the next half-strobe)
-            ec = ec_raw * inv_amp
+            ec = ec_raw * inv_amp_loop
             if clock == 1:
                 if third_order == 1:
                     w_rate += kr_c * ec
@@ -381,7 +384,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
                 theta += kp_c_wide * ec
 
             # timing loop
-            e_t = et * (inv_amp * inv_amp * inv_kd)
+            e_t = et * (inv_amp_loop * inv_amp_loop * inv_kd)
             if e_t > 1.0:
                 e_t = 1.0
             elif e_t < -1.0:
