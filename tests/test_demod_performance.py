@@ -231,3 +231,18 @@ def test_inspect_real_recordings_agree_across_datatypes(tmp_path, datatype):
     # ci8 adds quantisation noise of about -40 dB re full scale, far below the thermal noise here
     assert abs(res["esn0_db"] - 6.0) < 0.5
     assert abs(res["duration_s"] - x.size / FS) < 1e-9
+
+
+@pytest.mark.parametrize("mod,offset_frac", [("bpsk", 0.049), ("qpsk", -0.049)])
+def test_acquisition_over_five_percent_of_the_symbol_rate(mod, offset_frac):
+    rng = np.random.default_rng(81)
+    w = modulate(60_000, modulation=mod, esn0_db=3.0, carrier_offset_hz=offset_frac * RS, phase_rad=1.3,
+                 clock_offset_ppm=-60.0, rng=rng)
+    blk, d = _demodulate(w.samples, mod)
+    assert d.stats.carrier_found == 1
+    bps = 1 if mod == "bpsk" else 2
+    assert blk.locked[2000 * bps:].mean() > 0.99
+    f = [p.carrier_offset_hz for p in blk.track if p.carrier_locked]
+    assert abs(np.median(f) - offset_frac * RS) < 2.0
+    errs, n, _ = symbol_errors(blk, w, mod)
+    assert errs / n < 1.5 * theory_ser(3.0, mod)  # Proakis eqs. 5.2-5, 5.2-59

@@ -62,6 +62,11 @@ class SymbolBlock:
     symbol carrying each bit.  ``locked``: carrier lock per channel bit.  ``track``: one
     :class:`TrackPoint` per processing block completed.  ``symbols``: the normalised complex
     symbols (one per modulation symbol; OQPSK: I and its half-symbol-later Q), for plots.
+
+    The carrier phase ambiguity (180 degrees BPSK, 90 degrees QPSK/OQPSK) is left to the
+    synchronizer.  For OQPSK a 90-degree slip also exchanges the roles of the I and Q strobes:
+    the interleaved bit stream is then shifted by one channel bit (one channel inverted) and
+    positions refer to the other channel's pulse peak, half a symbol later.
     """
 
     soft: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.float32))
