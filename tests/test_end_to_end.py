@@ -146,3 +146,50 @@ def test_input_bits_from_an_independent_transmitter(tmp_path):
     # the last packet may end in the idle-filled last frame; every packet must come out once and unchanged
     assert [bytes.fromhex(g["hex"]) for g in got] == packets
     assert all(g["scid"] == 77 and g["vcid"] == 2 for g in got)
+
+
+@pytest.mark.parametrize("modulation", ["bpsk", "qpsk"])
+def test_iq_from_an_independent_transmitter(tmp_path, modulation):
+    """Channel bits from tests/third_party_tx.py, modulated by tests/demod_signals.py, SigMF metadata written
+    here by hand (SigMF specification: global core:datatype/core:sample_rate/core:version, captures with
+    core:sample_start and core:datetime): nothing of pipeline/ is used to make the recording."""
+    import demod_signals as ds
+    import third_party_tx as tx
+
+    rng = np.random.default_rng(99)
+    packets = [tx.space_packet(100 + (i % 2), i // 2, bytes(rng.integers(0, 256, 25 + 9 * (i % 7), dtype=np.uint8)))
+               for i in range(70)]
+    field_len = 223 - 6 - 4
+    frames = tx.tm_frames(packets, scid=77, vcid=3, length=223, ocf=True, fecf=False)
+    lead = 317
+    bits = tx.channel_bits(frames, rs_e=16, interleave=1, randomize=True, conv=True, nrz_m=True, lead_bits=lead)
+    if modulation == "bpsk":
+        sym_bits = (bits, np.zeros_like(bits))
+    else:
+        bits = bits[: len(bits) // 2 * 2]
+        sym_bits = (bits[0::2], bits[1::2])  # QPSK: the I bit is sent first (Gray mapping, issue 3 contract)
+    wave = ds.modulate(len(sym_bits[0]), modulation=modulation, sample_rate_hz=SAMPLE_RATE,
+                       symbol_rate_baud=SYMBOL_RATE, timing_offset=0.21, clock_offset_ppm=-40.0,
+                       carrier_offset_hz=-650.0, phase_rad=1.0, esn0_db=8.0, rng=rng, bits=sym_bits, lead_symbols=400)
+    base = tmp_path / "indep"
+    (tmp_path / "indep.sigmf-data").write_bytes(wave.samples.astype("<c8").tobytes())
+    meta = {"global": {"core:datatype": "cf32_le", "core:sample_rate": SAMPLE_RATE, "core:version": "1.2.0"},
+            "captures": [{"core:sample_start": 0, "core:datetime": "2026-03-14T09:30:00Z"}], "annotations": []}
+    (tmp_path / "indep.sigmf-meta").write_text(json.dumps(meta))
+    prof = _write_profile(tmp_path, small_profile(modulation, "concatenated", "nrz-m"))
+    out = tmp_path / "out"
+    assert main(["decode", str(base) + ".sigmf-meta", "--profile", str(prof), "--out", str(out), "-q"]) == 0
+    got = [json.loads(x) for x in (out / "packets.jsonl").read_text().splitlines()]
+    assert [bytes.fromhex(g["hex"]) for g in got] == packets
+    # ERT: the centre of the first channel symbol of the ASM of the frame holding the packet's first octet
+    from pipeline.recording._time import parse_iso_ns
+
+    t0 = parse_iso_ns("2026-03-14T09:30:00Z")
+    starts = np.cumsum([0] + [len(p) for p in packets[:-1]])
+    bps = 1 if modulation == "bpsk" else 2
+    for g, s in zip(got, starts):
+        frame = int(s) // field_len
+        channel_bit = 2 * (lead + frame * 8 * (4 + 255))  # r = 1/2: two channel bits per information bit
+        expected_s = wave.peak_position[channel_bit // bps] / SAMPLE_RATE
+        err = abs((parse_iso_ns(g["ert"]) - t0) * 1e-9 - expected_s)
+        assert err < 1.0 / SYMBOL_RATE, (g["ert"], expected_s)
