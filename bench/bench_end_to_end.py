@@ -10,10 +10,11 @@ child prints its elapsed time and its peak resident memory (``VmHWM`` of ``/proc
 the high-water mark of its own address space, page cache not included).  One untimed run first
 fills the numba cache.
 
-Modes: ``plain`` (the single-threaded loop), ``threads2`` (:class:`pipeline._parallel.PipelinedDecode`,
-2 threads, byte-identical output), ``segments2`` (:class:`pipeline._parallel.SegmentedDecode`,
-2 worker processes; the peak shown is the main process's, and each worker is a streaming chain
-of the same size).
+Modes: ``plain`` (the single-threaded loop), ``threadsN`` (:class:`pipeline._parallel.PipelinedDecode`,
+N threads, byte-identical output), ``segmentsN`` (:class:`pipeline._parallel.SegmentedDecode`,
+N worker processes, 1 = in the main process).  "peak RSS" is the main decode process's;
+"worker RSS" the largest ``ru_maxrss`` of its worker processes, an upper bound since a forked
+worker's count starts from the pages it shares with the main process.
 """
 
 from __future__ import annotations
@@ -28,7 +29,7 @@ import time
 from pathlib import Path
 
 _CHILD = r"""
-import json, sys, time
+import json, resource, sys, time
 t0 = time.perf_counter()
 from pathlib import Path
 from pipeline.profile import load_profile, demo_profile_path
@@ -46,10 +47,10 @@ chain.sinks = _Sinks(out)
 t1 = time.perf_counter()
 if mode == "plain":
     PipelinedDecode(chain, threads=1).run(rec.chunks(profile.receiver.chunk_samples))
-elif mode == "threads2":
-    PipelinedDecode(chain, threads=2).run(rec.chunks(profile.receiver.chunk_samples))
-elif mode == "segments2":
-    SegmentedDecode(profile, threads=2).run(rec, chain)
+elif mode.startswith("threads"):
+    PipelinedDecode(chain, threads=int(mode[len("threads"):])).run(rec.chunks(profile.receiver.chunk_samples))
+elif mode.startswith("segments"):
+    SegmentedDecode(profile, threads=int(mode[len("segments"):])).run(rec, chain)
 else:
     raise SystemExit(f"unknown mode {mode}")
 chain.sinks.close()
@@ -59,7 +60,8 @@ write_report(out, report, plots)
 t3 = time.perf_counter()
 print(json.dumps({"decode_s": t2 - t1, "report_s": t3 - t2, "total_s": t3 - t0, "frames": chain.frame_count,
                   "frames_ok": chain.status_counts.get("ok", 0), "packets": chain.packet_count,
-                  "samples": chain.samples, "peak_rss_mb": peak_rss_mb()}))
+                  "samples": chain.samples, "peak_rss_mb": peak_rss_mb(),
+                  "children_max_rss_mb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0}))
 """
 
 
@@ -74,7 +76,8 @@ def _child(mode: str, meta: Path, out: Path) -> dict:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--gigabytes", type=float, default=1.0, help="size of the cf32 recording (GB, 10^9 bytes)")
-    ap.add_argument("--modes", default="plain,threads2,segments2", help="comma-separated decode modes")
+    ap.add_argument("--modes", default="plain,threads2,segments1,segments2",
+                    help="comma-separated decode modes: plain, threadsN, segmentsN")
     ap.add_argument("--keep", default=None, help="folder to keep the recording in (reused when present)")
     args = ap.parse_args()
     from pipeline._bench import cpu_model, peak_rss_mb
@@ -95,13 +98,14 @@ def main() -> None:
         print(f"CPU: {cpu_model()} ({os.cpu_count()} cores), load average {os.getloadavg()[0]:.2f}")
         _child("plain", meta, tmp / "warm")  # fills the numba cache
         print(f"{'mode':<10} {'samples':>11} {'decode s':>9} {'Msample/s':>10} {'x real time':>11} {'report s':>9} "
-              f"{'frames':>7} {'packets':>8} {'peak RSS MiB':>13}")
+              f"{'frames':>7} {'packets':>8} {'peak RSS MiB':>13} {'worker RSS MiB':>15}")
         for mode in args.modes.split(","):
             r = _child(mode, meta, tmp / f"out-{mode}")
             msps = r["samples"] / r["decode_s"] / 1e6
+            worker = f"{r['children_max_rss_mb']:.1f}" if mode.startswith("segments") and mode != "segments1" else "-"
             print(f"{mode:<10} {r['samples']:>11} {r['decode_s']:>9.2f} {msps:>10.2f} "
                   f"{msps * 1e6 / profile.simulate.sample_rate_hz:>11.1f} {r['report_s']:>9.2f} {r['frames']:>7} "
-                  f"{r['packets']:>8} {r['peak_rss_mb']:>13.1f}", flush=True)
+                  f"{r['packets']:>8} {r['peak_rss_mb']:>13.1f} {worker:>15}", flush=True)
         print(f"load average after: {os.getloadavg()[0]:.2f}")
 
 

@@ -374,10 +374,12 @@ class SegmentResult:
         ``{"branch" | "frame_sync" | "codeblock": stats object}`` of the whole segment.
     events : list
         Synchronizer events whose position lies in the owned range.
+    cpu_s : float
+        CPU seconds the worker thread spent on the segment (``time.thread_time``).
     """
 
     __slots__ = ("index", "owned_start", "owned_stop", "frames", "track", "samples", "nonfinite",
-                 "channel_symbols", "locked_symbols", "stats", "events")
+                 "channel_symbols", "locked_symbols", "stats", "events", "cpu_s")
 
     def __init__(self, index: int, owned_start: int, owned_stop: int):
         self.index = index
@@ -391,6 +393,7 @@ class SegmentResult:
         self.locked_symbols = 0
         self.stats: dict = {}
         self.events: list = []
+        self.cpu_s = 0.0
 
     def __getstate__(self):
         return {k: getattr(self, k) for k in self.__slots__}
@@ -451,6 +454,7 @@ def decode_segment(recording, profile, index: int, owned_start: int, owned_stop:
     """
     from pipeline._chain import DecodeChain
 
+    t0 = time.thread_time()
     res = SegmentResult(index, owned_start, owned_stop)
     chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=recording.sample_rate_hz, timebase=None)
     plain_symbols = chain._symbols
@@ -497,6 +501,7 @@ def decode_segment(recording, profile, index: int, owned_start: int, owned_stop:
                 p = ev.get("position")
             if p is None or owned_start <= float(p) < owned_stop:
                 res.events.append(ev)
+    res.cpu_s = time.thread_time() - t0
     return res
 
 
@@ -587,6 +592,8 @@ class SegmentedDecode:
         self.executor = executor
         self.segments_done = 0
         self.frames_dropped_as_duplicates = 0
+        #: CPU seconds of each segment's worker in the last :meth:`run`, in segment order
+        self.segment_cpu_s: list[float] = []
 
     def run(self, recording, chain, on_segment: Callable[[SegmentResult], None] | None = None) -> None:
         """Decode ``recording`` (an open Recording) into ``chain`` (a fresh IQ DecodeChain) and finish it."""
@@ -600,6 +607,7 @@ class SegmentedDecode:
         stand_in = _PrecomputedCodeblocks(None)
         chain.codeblock = stand_in
         merged_stats: dict = {}
+        self.segment_cpu_s = []
         last = -math.inf
         try:
             for res in self._results(recording, plan):
@@ -617,6 +625,7 @@ class SegmentedDecode:
                 for name, st in res.stats.items():
                     merged_stats[name] = _add_stats(merged_stats.get(name), st)
                 self.segments_done += 1
+                self.segment_cpu_s.append(res.cpu_s)
                 if on_segment is not None:
                     on_segment(res)
             flush = getattr(chain.extractor, "flush", None)
@@ -628,6 +637,21 @@ class SegmentedDecode:
         for name, stage in (("branch", chain.branch), ("frame_sync", chain.fsync), ("codeblock", chain.codeblock)):
             if merged_stats.get(name) is not None and hasattr(stage, "stats"):
                 stage.stats = merged_stats[name]
+
+    def speedup_bound(self, workers: int) -> float:
+        """Speed-up ``workers`` idle cores would give over one, from the last run's segment CPU times.
+
+        The segments are handed out in order to the first free worker (as :meth:`run` does); the
+        bound is the total CPU time over the finishing time of that schedule (the merge, a small
+        part, is left out).  Unlike a wall-clock ratio it does not depend on other load.
+        """
+        if not self.segment_cpu_s:
+            return float("nan")
+        free = [0.0] * max(1, int(workers))
+        for t in self.segment_cpu_s:
+            i = free.index(min(free))
+            free[i] += t
+        return sum(self.segment_cpu_s) / max(free)
 
     # ---- internals ------------------------------------------------------------------------
     def _results(self, recording, plan):
