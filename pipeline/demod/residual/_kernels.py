@@ -23,7 +23,7 @@ __all__ = [
 ]
 
 #: Length of the parameter vector of :func:`track_carrier` (layout documented there).
-CARRIER_PARAM_SIZE = 16
+CARRIER_PARAM_SIZE = 17
 #: Length of the state vector of :func:`track_carrier`.
 CARRIER_STATE_SIZE = 24
 #: Length of the parameter vector of :func:`rect_symbols`.
@@ -44,7 +44,7 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
         AGC gain applied to every sample.
     params : float64 array
         ``[carrier_mode, subcarrier_mode, kp_c, ki_c, kr_c, nu0, kp_s, ki_s, a_arm, a_lock, w_sq, raw,
-        lock_on_cos, lock_off_cos, lock_on_snr, lock_off_snr]``.  ``carrier_mode`` 0: PLL on a residual
+        lock_on_cos, lock_off_cos, lock_on_snr, lock_off_snr, a_lock_costas]``.  ``carrier_mode`` 0: PLL on a residual
         carrier, error ``Im(r) / A_c``; 1: BPSK Costas, error ``I Q / P`` on one-pole arm filters.
         ``subcarrier_mode`` 0 none, 1 square wave, 2 sine wave; ``nu0`` the nominal subcarrier
         frequency in cycles per sample; ``kp_s, ki_s`` its loop gains (per cycle of error);
@@ -52,7 +52,8 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
         amplitude and lock averages; ``w_sq`` the half-width in cycles of the windowed quadrature
         reference of a square subcarrier; ``raw`` 1 to output ``Im(r)`` instead of the data signal
         (subcarrier phase acquisition); then the carrier-lock thresholds (cosine of the phase error
-        and SNR of the averaged carrier, on / off).
+        and SNR of the averaged carrier, on / off; for the Costas loop the ratio
+        ``<I^2 - Q^2> / <I^2 + Q^2>`` of the arms, averaged with ``a_lock_costas``).
     sf : float64 array, updated in place
         State: 0 carrier phase (rad, wrapped), 1 frequency (rad/sample), 2 frequency-rate integrator,
         3 total unwrapped carrier phase (rad), 4 carrier amplitude ``A_c`` (average of ``Re r``),
@@ -61,7 +62,7 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
         12-13 carrier (Costas) arms I/Q, 14 carrier arm power, 15 carrier-lock flag,
         16 third-order flag (a parameter kept with the state), 17 sum of ``Re r`` and 18 of
         ``Im(r) * ref`` since the wrapper last cleared them, 19 their sample count,
-        20 Costas lock numerator average (``I^2 - Q^2``).
+        20-21 Costas lock averages of ``I^2 - Q^2`` and ``I^2 + Q^2``.
     out_u : float64 array
         Per sample, the data signal: ``Im(r)`` (PCM/PM), ``Im(r) * ref_I(psi)`` (PCM/PSK/PM, ``ref_I``
         the +-1 square wave or ``sin 2 pi psi``), ``Re(r)`` (Costas).
@@ -102,6 +103,7 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
     off_cos = params[13]
     on_snr = params[14]
     off_snr = params[15]
+    a_lc = params[16]
 
     theta = sf[0]
     omega = sf[1]
@@ -124,6 +126,7 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
     sum_u = sf[18]
     count = sf[19]
     l_num = sf[20]
+    l_den = sf[21]
 
     two_pi = 2.0 * math.pi
     for k in range(n):
@@ -154,9 +157,10 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
             q_c = (1.0 - a_arm) * q_c + a_arm * ri
             pw = i_c * i_c + q_c * q_c
             pw_c = (1.0 - a_lk) * pw_c + a_lk * pw
-            l_num = (1.0 - a_lk) * l_num + a_lk * (i_c * i_c - q_c * q_c)
+            l_num = (1.0 - a_lc) * l_num + a_lc * (i_c * i_c - q_c * q_c)
+            l_den = (1.0 - a_lc) * l_den + a_lc * pw
             e = i_c * q_c / pw_c if pw_c > 1e-30 else 0.0
-            cosv = l_num / pw_c if pw_c > 1e-30 else 0.0
+            cosv = l_num / l_den if l_den > 1e-30 else 0.0
             snr = 1e30
         if locked == 1:
             if cosv < off_cos or snr < off_snr:
@@ -227,6 +231,7 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
     sf[18] = sum_u
     sf[19] = count
     sf[20] = l_num
+    sf[21] = l_den
 
 
 @njit(cache=True)
