@@ -287,6 +287,7 @@ def test_noise_only_reports_no_lock(rng):
     soft, pos, locked, track = _run(d, x)
     assert d.stats.carrier_found == 0
     assert locked.mean() < 0.01
+    assert not any(t.symbol_locked for t in track)
     assert np.all(np.isfinite(soft))
 
 

@@ -145,6 +145,7 @@ def test_doppler_rate_500_hz_per_s_without_cycle_slip(order, esn0_db):
     pol = _polarity_runs(blk, w)
     assert pol.size > 100 and np.all(pol == pol[0])  # a cycle slip would flip the sign of a window
     assert blk.locked[4000:].mean() > 0.999
+    assert all(t.symbol_locked for t in blk.track[1:])
     from pipeline.demod import fit_carrier_track
 
     f0, rate = fit_carrier_track(blk.track, FS)
