@@ -94,9 +94,13 @@ def nogil_kernels():
     Python source (``py_func``) without the disk cache, so they compute the same values.  Yields
     the ``module:function`` names swapped; everything is restored on exit.
     """
+    import importlib
+
     import numba
     from numba.core.registry import CPUDispatcher
 
+    for sub in ("recording", "demod", "fec", "sync", "link", "packets", "_chain"):
+        importlib.import_module(f"pipeline.{sub}")  # every stage on the decode path, loaded now
     copies: dict[int, object] = {}
     swapped = []
     for name, mod in list(sys.modules.items()):
@@ -310,6 +314,22 @@ def _segmented(rec, profile, threads: int, repeats: int) -> tuple[float, float]:
     return rec.num_samples / best / 1e6, bound
 
 
+def _nogil_figures(rec, profile, tmp: Path, repeats: int) -> dict:
+    res: dict = {}
+    with nogil_kernels() as swapped:
+        msps1n, _, _ = _end_to_end(rec, profile, tmp, 1, repeats)
+        msps2n, cpu2n, _ = _end_to_end(rec, profile, tmp, 2, repeats)
+    res["nogil_kernels_swapped"] = len(swapped)
+    res["end_to_end_msps_nogil"] = msps1n
+    res["end_to_end_msps_2threads_nogil"] = msps2n
+    res["parallel_speedup_nogil"] = msps2n / msps1n
+    # what the two threads would reach on two idle cores: total work over the longer thread
+    busy = [cpu2n.get("demod", 0.0), cpu2n.get("main", 0.0)]
+    res["thread_cpu_s_nogil"] = {k: round(v, 4) for k, v in cpu2n.items()}
+    res["parallel_speedup_bound"] = sum(busy) / max(busy) if max(busy) > 0 else float("nan")
+    return res
+
+
 _CHILD = r"""
 import json, resource, sys, time
 from pipeline.profile import load_profile, demo_profile_path
@@ -353,8 +373,8 @@ def _fresh_process(meta: Path, tmp: Path, runs: int = 3) -> dict:
             "cold_first_run_s": results[0]["warm_start_s"]}
 
 
-def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float = 34.0,
-            progress=None) -> dict:
+def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float = 34.0, nogil: bool = True,
+            fresh_runs: int = 3, progress=None) -> dict:
     """Run every benchmark and return the figures as a dict (see the module docstring).
 
     Parameters
@@ -366,6 +386,10 @@ def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float 
     segmented_seconds : float
         Length of the recording for the overlapping-segment figures (0 skips them); it must hold
         several default segments (2^23 samples) to show a speed-up.
+    nogil : bool
+        Also measure with every kernel recompiled ``nogil=True`` (:func:`nogil_kernels`).
+    fresh_runs : int
+        Fresh processes started for the warm-start and memory figures (the first fills the cache).
     progress : callable or None
         ``progress(str)`` is told which figure is being measured.
     """
@@ -417,18 +441,9 @@ def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float 
         msps2, cpu2, _ = _end_to_end(rec, profile, tmp, 2, repeats)
         res["end_to_end_msps_2threads"] = msps2
         res["parallel_speedup"] = msps2 / msps1
-        say("end to end, 2 threads, kernels recompiled with nogil=True")
-        with nogil_kernels() as swapped:
-            msps1n, _, _ = _end_to_end(rec, profile, tmp, 1, repeats)
-            msps2n, cpu2n, _ = _end_to_end(rec, profile, tmp, 2, repeats)
-        res["nogil_kernels_swapped"] = len(swapped)
-        res["end_to_end_msps_nogil"] = msps1n
-        res["end_to_end_msps_2threads_nogil"] = msps2n
-        res["parallel_speedup_nogil"] = msps2n / msps1n
-        # what the two threads would reach on two idle cores: total work over the longer thread
-        busy = [cpu2n.get("demod", 0.0), cpu2n.get("main", 0.0)]
-        res["thread_cpu_s_nogil"] = {k: round(v, 4) for k, v in cpu2n.items()}
-        res["parallel_speedup_bound"] = sum(busy) / max(busy) if max(busy) > 0 else float("nan")
+        if nogil:
+            say("end to end, 2 threads, kernels recompiled with nogil=True")
+            res.update(_nogil_figures(rec, profile, tmp, repeats))
         if segmented_seconds:
             say(f"overlapping segments, {segmented_seconds:g} s recording, 1 and 2 processes")
             sim_long = simulate(profile, tmp / "long", seconds=float(segmented_seconds), seed=2)
@@ -445,7 +460,7 @@ def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float 
             res["segmented_speedup_bound"] = bound
             (tmp / "long" / sim_long.data_path.name).unlink()
         say("fresh process: warm start and peak memory")
-        res.update(_fresh_process(sim.meta_path, tmp))
+        res.update(_fresh_process(sim.meta_path, tmp, runs=fresh_runs))
     res["load_average_after"] = [round(x, 2) for x in os.getloadavg()]
     res["bench_process_peak_rss_mb"] = peak_rss_mb()
     return {k: (round(v, 3) if isinstance(v, float) else v) for k, v in res.items()}

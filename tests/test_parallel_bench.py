@@ -1,0 +1,79 @@
+"""``downlink bench`` plumbing (pipeline._bench): the measurements run and report sane figures.
+
+No figure is compared with a speed (no timed assertions): the checks are that every key exists,
+that the bench's own test data are what they claim (16 RS errors per codeword, Viterbi output
+length), and that the nogil kernel swap changes nothing but the GIL.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+from pipeline import _bench
+from pipeline.fec import rs_decode
+
+REQUIRED = ("viterbi_mbps", "rs_clean_mbps", "rs_16err_mbps", "frontend_msps", "end_to_end_msps",
+            "end_to_end_realtime_factor", "peak_rss_mb", "cpu", "warm_start_s", "end_to_end_msps_2threads",
+            "parallel_speedup")
+
+
+def test_cpu_model_is_named():
+    name = _bench.cpu_model()
+    assert isinstance(name, str) and name.strip() and name != "unknown"
+
+
+def test_peak_rss_is_plausible():
+    big = np.ones(20_000_000, dtype=np.uint8)  # 20 MB touched: the high-water mark is at least that
+    big[::4096] = 2
+    assert _bench.peak_rss_mb() >= 19.0
+    del big
+
+
+def test_rs_bench_blocks_have_the_errors_they_claim():
+    for errors in (0, 16):
+        for block in _bench._rs_blocks(errors, 3):
+            assert len(block) == 1275
+            _, corrected = rs_decode(block, 16, 5)
+            assert tuple(corrected) == (errors,) * 5  # E = 16 per codeword: CCSDS 131.0-B sec. 4
+
+
+def test_nogil_swap_gives_same_answers_and_restores():
+    from pipeline.fec import _viterbi as vit_module
+    from pipeline.fec import viterbi_decode
+
+    rng = np.random.default_rng(3)
+    soft = rng.standard_normal(4000).astype(np.float32)
+    before = {k: v for k, v in vars(vit_module).items()}
+    ref = viterbi_decode(soft, "1/2")
+    with _bench.nogil_kernels() as swapped:
+        assert any(name.startswith("pipeline.fec._kernels:") for name in swapped)
+        assert any(name.startswith("pipeline.demod._kernels:") for name in swapped)
+        np.testing.assert_array_equal(viterbi_decode(soft, "1/2"), ref)
+    after = {k: v for k, v in vars(vit_module).items()}
+    assert all(after[k] is v for k, v in before.items())
+
+
+def test_measure_small_run_has_every_figure(capsys):
+    res = _bench.measure(seconds=0.8, repeats=1, segmented_seconds=0, nogil=False, fresh_runs=2)
+    for key in REQUIRED:
+        assert key in res, key
+    for key, value in res.items():
+        if isinstance(value, float) and key not in ("load_average_before", "load_average_after"):
+            assert math.isfinite(value) and value > 0, (key, value)
+    assert res["end_to_end_realtime_factor"] == pytest.approx(res["end_to_end_msps"], rel=1e-2)  # 1 Msample/s
+    assert res["end_to_end_packets"] > 0
+    assert 20 < res["peak_rss_mb"] < 4000
+    text = _bench.format_table(res)
+    assert "Viterbi r=1/2" in text and res["cpu"] in text
+    json.dumps(res)  # one JSON object
+
+
+def test_measure_bad_arguments():
+    with pytest.raises(ValueError, match=r"Argument 'seconds' must be 0\.5\.\.600, not 0\.1\."):
+        _bench.measure(seconds=0.1)
+    with pytest.raises(ValueError, match=r"Argument 'repeats' must be 1\.\.20, not 0\."):
+        _bench.measure(repeats=0)
