@@ -230,11 +230,10 @@ class DecodeChain:
                 self._was_locked = locked
         if len(block.locked):
             self.locked_symbols += int(np.count_nonzero(block.locked))
-        snap = getattr(self.demod, "constellation", None)
-        if self.constellation is None and callable(snap) and self.locked_symbols > 20_000:
-            pts = snap()
-            if pts is not None and len(pts):
-                self.constellation = np.asarray(pts)[-_CONSTELLATION_POINTS:]
+        syms = getattr(block, "symbols", None)
+        if syms is not None and len(syms) >= 256 and len(block.locked) and bool(block.locked[-1]):
+            # the most recent locked stretch: a snapshot of the constellation as the pass went on
+            self.constellation = np.array(syms[-_CONSTELLATION_POINTS:], dtype=np.complex64)
         self._channel(block.soft, block.position)
 
     def _channel(self, soft: np.ndarray, position: np.ndarray) -> None:
