@@ -16,7 +16,7 @@ import json
 import math
 import os
 from collections.abc import Iterable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -264,7 +264,11 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
                       doppler_rate_hz_per_s=doppler_rate_hz_per_s, doppler_pass=doppler_pass, phase0_rad=phase0,
                       phase_noise_rad=phase_noise_rad, phase_noise_bandwidth_hz=phase_noise_bandwidth_hz,
                       fades=fade_list, seed=ch_seed)
-    coder = ChannelCoder(profile, nrzm_at=nrzm_at)
+    coder_profile = profile
+    if profile.link.line_code == "bi-phase-l":
+        # Bi-phase-L is a waveform, made by the modulator: the channel coder sees NRZ-L bits
+        coder_profile = replace(profile, link=replace(profile.link, line_code="nrz-l"))
+    coder = ChannelCoder(coder_profile, nrzm_at=nrzm_at)
     if profile.frames.kind == "tm":
         builder = TmFrameBuilder(frames=profile.frames, idle=idle)
     else:
