@@ -135,13 +135,15 @@ class PipelinedDecode:
         A fresh chain built for ``input_kind="iq"`` (sinks attached or not).  Its stage objects are
         used as they are; the demodulator is swapped for a stand-in only during :meth:`run`.
     threads : int, keyword-only
-        1: the plain loop on the calling thread.  2: demodulator (and recording reads) in one
-        worker thread, the rest on the calling thread.  3 or more: recording reads in a second
-        worker thread as well (the chain has three pipeline stages, so more threads are not used).
+        1: the plain loop on the calling thread.  2: the demodulator in one worker thread;
+        recording reads and the rest of the chain on the calling thread.  3 or more: recording
+        reads in a second worker thread (the chain has three pipeline stages, so more threads are
+        not used).
     queue_chunks : int, keyword-only
         Chunks allowed in flight between two threads, 1..64.  Memory held is about
-        ``queue_chunks x (8 + 13 / samples per channel bit) x chunk_samples`` bytes per queue,
-        whatever the length of the recording.
+        ``queue_chunks x (8 + 13 / samples per channel bit) x chunk_samples`` bytes per queue
+        (about 2.4 MB per chunk of 2^18 samples on the demo link), whatever the length of the
+        recording.
 
     Notes
     -----
@@ -199,29 +201,48 @@ class PipelinedDecode:
         stop = threading.Event()
         consumed = threading.Event()
         to_main: queue.Queue = queue.Queue(maxsize=self.queue_chunks)
+        to_front: queue.Queue = queue.Queue(maxsize=self.queue_chunks)
         workers = []
-        source: Iterable = chunks
+        # Two stages: this thread reads the recording too (it has the lighter half of the work),
+        # keeping at most queue_chunks chunks in flight so that neither queue can fill up.
+        # Three: a reader thread of its own.
+        feed = None
         if self.stages >= 3:
-            to_front: queue.Queue = queue.Queue(maxsize=self.queue_chunks)
             workers.append(threading.Thread(target=_reader, args=(chunks, to_front, stop, self.cpu_s),
                                             name="downlink-read", daemon=True))
-            source = _drain(to_front, stop)
+        else:
+            feed = iter(chunks)
         wants_snapshots = callable(getattr(real, "constellation", None))
-        workers.append(threading.Thread(target=_front, args=(source, real, to_main, stop, consumed, wants_snapshots,
-                                                                   self.cpu_s),
+        workers.append(threading.Thread(target=_front, args=(_drain(to_front, stop), real, to_main, stop, consumed,
+                                                             wants_snapshots, self.cpu_s),
                                         name="downlink-demod", daemon=True))
         stand_in = _PrecomputedDemod(real, consumed)
         chain.demod = stand_in
         t0 = time.thread_time()
+        in_flight = 0
+
+        def refill() -> None:
+            nonlocal feed, in_flight
+            while feed is not None and in_flight < self.queue_chunks:
+                chunk = next(feed, _END)
+                to_front.put(chunk)  # never blocks: at most queue_chunks items are in flight
+                if chunk is _END:
+                    feed = None
+                else:
+                    in_flight += 1
+
         try:
             for w in workers:
                 w.start()
             while True:
+                refill()
                 msg = to_main.get()
                 if msg.kind == "error":
                     raise msg.error
                 stand_in._set(msg)
                 if msg.kind == "chunk":
+                    in_flight -= 1
+                    refill()  # the demodulator gets its next chunk before this one goes downstream
                     chain.process_chunk(msg.chunk)
                     self.chunks_done += 1
                     if on_chunk is not None:
@@ -233,7 +254,7 @@ class PipelinedDecode:
             self.cpu_s["main"] = time.thread_time() - t0
             stop.set()
             chain.demod = real
-            for q in ([to_main] + ([to_front] if self.stages >= 3 else [])):
+            for q in (to_main, to_front):
                 _empty(q)
             for w in workers:
                 w.join()
@@ -573,7 +594,7 @@ class SegmentedDecode:
     Es/N0 and soft values slightly differently (the recovered frame and packet octets are the
     same when both receivers are locked).  With one segment (recordings up to about
     ``1.25 x segment_samples``) it *is* the plain chain.  Cost: ``(lead_in + lead_out) /
-    segment_samples`` extra work (about 6 % for the demo link at the default length); memory per
+    segment_samples`` extra work (about 8 % for the demo link at the default length); memory per
     worker is that of one streaming chain plus one segment's frames.
     """
 
