@@ -48,18 +48,37 @@ __all__ = [
     "segment_plan",
 ]
 
-#: Kernels (``module:function``) on the decode path of an IQ recording; each must be compiled with
-#: ``@njit(cache=True, nogil=True)`` for the threads to overlap.  The front thread runs the first
-#: group (recording conversion, demodulator), the main thread the rest.
+#: Kernels (``module:function``) called from Python on the decode path of an IQ recording; each
+#: must be compiled with ``@njit(cache=True, nogil=True)`` for the threads to overlap (a kernel
+#: called only from other kernels runs inside its caller's GIL-free region and needs nothing).
+#: The first group is what the demo profile calls (counted by wrapping every dispatcher during a
+#: decode); the second what other profiles and inputs add.  The demodulator thread runs the
+#: ``demod`` kernels, the calling thread the others.
 NOGIL_KERNELS: tuple[str, ...] = (
     "pipeline.recording._kernels:float_iq_to_complex64",
-    "pipeline.recording._kernels:int_iq_to_complex64",
+    "pipeline.demod._kernels:power_nonzero",
     "pipeline.demod._kernels:derotate",
     "pipeline.demod._kernels:fir_interleaved",
     "pipeline.demod._kernels:track_symbols",
-    "pipeline.demod._kernels:power_nonzero",
-    "pipeline.fec._kernels:*  (Viterbi add-compare-select and traceback, RS remainder/BM/Chien/Forney)",
-    "pipeline.sync._kernels:*  (branch metrics, ASM search)",
+    "pipeline.demod._kernels:moments_m2m4",
+    "pipeline.demod._kernels:nrzm_decode",
+    "pipeline.sync._kernels:hard_decisions",
+    "pipeline.sync._kernels:reencode_metrics",
+    "pipeline.sync._kernels:find_marker",
+    "pipeline.fec._kernels:soft_quantize_kernel",
+    "pipeline.fec._kernels:viterbi_acs_kernel",
+    "pipeline.fec._kernels:viterbi_traceback_kernel",
+    "pipeline.fec._kernels:conv_encode_kernel",
+    "pipeline.fec._kernels:rs_decode_kernel",
+    # other profiles and inputs
+    "pipeline.recording._kernels:int_iq_to_complex64",
+    "pipeline.recording._kernels:int8_to_soft",
+    "pipeline.recording._kernels:unpack_bits_to_soft",
+    "pipeline.sync._kernels:marker_mismatches",
+    "pipeline.fec._kernels:depuncture_kernel",
+    "pipeline.fec._kernels:crc16_kernel",
+    "pipeline.fec._kernels:rs_remainder_kernel",
+    "pipeline.fec._kernels:pn_bits_kernel",
 )
 
 _END = object()

@@ -338,3 +338,13 @@ def test_overlap_frames_taken_once(long_recording, demo_profile, segmented_one_t
     # the lead-ins repeat frames of the previous segment; each is dropped exactly once
     assert sd.frames_dropped_as_duplicates > 0
     assert sum(n for _, n in seen) > chain.frame_count == segmented_one_thread[0].frame_count
+
+
+def test_nogil_kernel_list_names_real_kernels():
+    import importlib
+
+    from pipeline._parallel import NOGIL_KERNELS
+
+    for name in NOGIL_KERNELS:
+        module, func = name.split(":")
+        assert callable(getattr(importlib.import_module(module), func)), name
