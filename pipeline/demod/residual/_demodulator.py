@@ -44,7 +44,7 @@ class ResidualTrackPoint(TrackPoint):
     ``position`` is the centre sample of the processing block, the epoch of the mean frequency
     ``carrier_offset_hz`` over the block (the one-way Doppler observable when the recording is
     tuned to the nominal downlink frequency); ``carrier_std_hz`` the standard error of that mean
-    (spread of ``8`` sub-block frequencies over ``sqrt 8``); ``modulation_index_rad`` the index
+    (residual spread of 8 sub-block frequencies about a straight line, over ``sqrt 8``); ``modulation_index_rad`` the index
     estimated from the coherent carrier and data amplitudes of the block (``nan`` without lock
     or for suppressed carrier).
     """
@@ -115,6 +115,29 @@ def _loop_gains(bn: float, order: int) -> tuple[float, float, float]:
         return 2.4 * wn, 1.1 * wn * wn, wn ** 3
     wn = 2.0 * bn / (_ZETA + 1.0 / (4.0 * _ZETA))
     return 2.0 * _ZETA * wn, wn * wn, 0.0
+
+
+def _frequency_std_hz(phase_rad: np.ndarray, sample_rate_hz: float) -> float:
+    """Standard error of a block's mean carrier frequency from 8 sub-block frequencies.
+
+    Each sub-block frequency is its phase advance over its duration; a straight line in time is
+    fitted to them (a Doppler rate moves the frequency within the block and is not noise), and the
+    standard error of the line at the block centre is ``s_r / sqrt(K)`` with the residual standard
+    deviation ``s_r`` (``K - 2`` degrees of freedom).  The sub-block values share their end phases,
+    which makes successive ones negatively correlated, so this errs on the large side.
+    """
+    n = phase_rad.size
+    if n < 4 * _SUB_BLOCKS:
+        return float("nan")
+    edges = np.linspace(0, n - 1, _SUB_BLOCKS + 1).astype(np.int64)
+    e0, e1 = edges[:-1], edges[1:]
+    freq = (phase_rad[e1] - phase_rad[e0]) / (2.0 * math.pi * (e1 - e0)) * sample_rate_hz
+    t = 0.5 * (e0 + e1) - 0.5 * (n - 1)
+    a = np.vstack([np.ones_like(t, dtype=np.float64), t.astype(np.float64)]).T
+    coef, *_ = np.linalg.lstsq(a, freq, rcond=None)
+    resid = freq - a @ coef
+    s_r = math.sqrt(float(np.sum(resid * resid)) / (_SUB_BLOCKS - 2))
+    return s_r / math.sqrt(_SUB_BLOCKS)
 
 
 def _real_m2m4(raw: np.ndarray) -> tuple[float, float]:
@@ -493,9 +516,7 @@ class ResidualCarrierDemodulator:
         # ---- the block's track point -----------------------------------------------------
         fs = self.sample_rate_hz
         freq = (ph[-1] - ph[0]) / (2.0 * math.pi * max(n - 1, 1)) * fs if n > 1 else float("nan")
-        edges = np.linspace(0, n - 1, _SUB_BLOCKS + 1).astype(np.int64)
-        sub = [(ph[e1] - ph[e0]) / (2.0 * math.pi * (e1 - e0)) * fs for e0, e1 in zip(edges[:-1], edges[1:]) if e1 > e0]
-        std = float(np.std(sub, ddof=1) / math.sqrt(len(sub))) if len(sub) > 1 else float("nan")
+        std = _frequency_std_hz(ph, fs)
         s_pow, n_pow = _real_m2m4(raw)
         esn0_db = (10.0 * math.log10(s_pow / (2.0 * n_pow)) if (s_pow > 0 and n_pow > 0) else
                    (float("inf") if s_pow > 0 else float("nan")))
@@ -528,7 +549,7 @@ class ResidualCarrierDemodulator:
         first = max(float(block_start), float(self._ubase)) + 0.5 * T + 1.0
         if self._timing_acquired:
             first = max(first, self._ss[0] - 0.5 * T)
-        n_sym = int((end - first - 0.5 * T - 2.0) // T) - 1
+        n_sym = min(256, int((end - first - 0.5 * T - 2.0) // T) - 1)
         if n_sym < 16:
             return
         energy = np.empty(_TIMING_TRIALS, dtype=np.float64)
