@@ -1,7 +1,8 @@
 """pipeline.sim: the transmitter chain and channel model (see DEVELOPERS.md, stage contracts).
 
 packets -> TM / AOS frames -> RS -> randomizer -> ASM -> (NRZ-M) convolutional code -> modulation
-(suppressed carrier, or residual-carrier PCM/PM and PCM/PSK/PM; NRZ or Bi-phase-L) -> channel -> SigMF recording plus truth files.
+(suppressed carrier, or residual-carrier PCM/PM and PCM/PSK/PM; NRZ or Bi-phase-L)
+-> channel -> SigMF recording plus truth files.
 """
 
 from pipeline.sim._channel import Channel, DopplerPass, Fade, noise_variance_per_sample

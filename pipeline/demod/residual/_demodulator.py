@@ -20,7 +20,8 @@ from pipeline.demod.residual._kernels import (
 )
 from pipeline.profile import LinkSection, ReceiverSection
 
-__all__ = ["ResidualCarrierDemodulator", "ResidualTrackPoint", "make_demodulator", "modulation_index_from_amplitudes"]
+__all__ = ["ResidualCarrierDemodulator", "ResidualTrackPoint", "make_demodulator",
+           "modulation_index_from_amplitudes"]
 
 _ZETA = 1.0 / math.sqrt(2.0)
 #: automatic carrier loop bandwidth, x symbol rate (see ResidualCarrierDemodulator Notes)
@@ -44,9 +45,9 @@ class ResidualTrackPoint(TrackPoint):
     ``position`` is the centre sample of the processing block, the epoch of the mean frequency
     ``carrier_offset_hz`` over the block (the one-way Doppler observable when the recording is
     tuned to the nominal downlink frequency); ``carrier_std_hz`` the standard error of that mean
-    (residual spread of 8 sub-block frequencies about a straight line, over ``sqrt 8``); ``modulation_index_rad`` the index
-    estimated from the coherent carrier and data amplitudes of the block (``nan`` without lock
-    or for suppressed carrier).
+    (residual spread of 8 sub-block frequencies about a straight line, over ``sqrt 8``);
+    ``modulation_index_rad`` the index estimated from the coherent carrier and data amplitudes of
+    the block (``nan`` without lock or for suppressed carrier).
     """
 
     carrier_std_hz: float = float("nan")
@@ -241,7 +242,8 @@ class ResidualCarrierDemodulator:
         sc_mode = 0
         if link.modulation == "pcm-psk-pm":
             if not link.subcarrier_hz > 0:
-                raise ValueError(f"Argument 'link.subcarrier_hz' must be > 0 for pcm-psk-pm, not {link.subcarrier_hz!r}.")
+                raise ValueError(f"Argument 'link.subcarrier_hz' must be > 0 for pcm-psk-pm, "
+                                 f"not {link.subcarrier_hz!r}.")
             chip_rate = link.symbol_rate_baud * (2.0 if self.biphase else 1.0)
             if link.subcarrier_hz < chip_rate:
                 raise ValueError(f"Argument 'link.subcarrier_hz' must be at least the chip rate {chip_rate:g} Hz, "

@@ -27,7 +27,8 @@ def range_rate_from_doppler(doppler_hz: float, downlink_frequency_hz: float) -> 
     """
     f = float(downlink_frequency_hz)
     if not (math.isfinite(f) and f > 0):
-        raise ValueError(f"Argument 'downlink_frequency_hz' must be a positive finite number, not {downlink_frequency_hz!r}.")
+        raise ValueError(f"Argument 'downlink_frequency_hz' must be a positive finite number, "
+                         f"not {downlink_frequency_hz!r}.")
     return -SPEED_OF_LIGHT_M_PER_S * float(doppler_hz) / f
 
 
@@ -35,7 +36,8 @@ def doppler_from_range_rate(range_rate_m_per_s: float, downlink_frequency_hz: fl
     """One-way Doppler ``f_d = -f v / c`` (Hz) of a range rate ``v`` (m/s, positive = receding)."""
     f = float(downlink_frequency_hz)
     if not (math.isfinite(f) and f > 0):
-        raise ValueError(f"Argument 'downlink_frequency_hz' must be a positive finite number, not {downlink_frequency_hz!r}.")
+        raise ValueError(f"Argument 'downlink_frequency_hz' must be a positive finite number, "
+                         f"not {downlink_frequency_hz!r}.")
     return -f * float(range_rate_m_per_s) / SPEED_OF_LIGHT_M_PER_S
 
 
