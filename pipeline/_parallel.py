@@ -45,6 +45,7 @@ __all__ = [
     "decode_segment",
     "decode_segmented",
     "lead_samples",
+    "run_chain",
     "segment_plan",
 ]
 
@@ -786,3 +787,34 @@ def decode_segmented(recording, profile, *, sinks_folder=None, threads: int = 2,
         if chain.sinks is not None:
             chain.sinks.close()
     return chain
+
+
+def run_chain(chain, recording, *, threads: int = 1, mode: str = "pipeline",
+              on_progress: Callable[[int], None] | None = None) -> None:
+    """Feed a whole IQ recording through ``chain`` and finish it: the one call for ``decode_to_folder``.
+
+    Parameters
+    ----------
+    chain : DecodeChain
+        A fresh IQ chain (sinks attached as wanted).
+    recording : Recording
+        The open recording; chunks of ``chain.profile.receiver.chunk_samples``.
+    threads : int, keyword-only
+        1 is the plain loop.  More: see ``mode``.
+    mode : {"pipeline", "segments"}, keyword-only
+        "pipeline": :class:`PipelinedDecode` (output byte-identical to the plain loop for any
+        ``threads``).  "segments": :class:`SegmentedDecode` with worker processes (output the same
+        for any ``threads``, close to but not byte-identical with the plain loop when the recording
+        holds more than one segment).
+    on_progress : callable, optional, keyword-only
+        ``on_progress(samples_done)`` on the calling thread, after each chunk or segment.
+    """
+    if mode not in ("pipeline", "segments"):
+        raise ValueError(f"Argument 'mode' must be pipeline | segments, not {mode!r}.")
+    if mode == "segments":
+        SegmentedDecode(chain.profile, threads=threads).run(
+            recording, chain, on_segment=None if on_progress is None else (lambda res: on_progress(res.owned_stop)))
+        return
+    PipelinedDecode(chain, threads=threads).run(
+        recording.chunks(chain.profile.receiver.chunk_samples),
+        on_chunk=None if on_progress is None else (lambda c: on_progress(c.start + len(c.samples))))

@@ -348,3 +348,25 @@ def test_nogil_kernel_list_names_real_kernels():
     for name in NOGIL_KERNELS:
         module, func = name.split(":")
         assert callable(getattr(importlib.import_module(module), func)), name
+
+
+@pytest.mark.parametrize("mode, threads", [("pipeline", 1), ("pipeline", 2), ("segments", 2)])
+def test_run_chain_one_call(tmp_path, recording, small_profile, reference, mode, threads):
+    from pipeline._parallel import run_chain
+
+    rec = open_recording(recording.meta_path)
+    chain = DecodeChain(small_profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)
+    chain.sinks = _Sinks(tmp_path)
+    done = []
+    run_chain(chain, rec, threads=threads, mode=mode, on_progress=done.append)
+    chain.sinks.close()
+    assert _outputs(tmp_path) == reference[1]  # one segment: the plain chain in every mode
+    assert done == sorted(done) and done[-1] == rec.num_samples
+
+
+def test_run_chain_bad_mode(small_profile):
+    from pipeline._parallel import run_chain
+
+    chain = DecodeChain(small_profile, input_kind="iq", sample_rate_hz=1e6)
+    with pytest.raises(ValueError, match=r"Argument 'mode' must be pipeline \| segments, not 'gpu'\."):
+        run_chain(chain, None, mode="gpu")
