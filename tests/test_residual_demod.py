@@ -200,17 +200,17 @@ def test_whole_demodulator_small_noise_free_case():
 def test_implementation_loss_within_half_a_db_at_esn0_5db(mode):
     esn0_db = 5.0
     link = _link(mode)
-    bits, mod, _, y = _recording(link, nbits=20_000, esn0_db=esn0_db, seed=7)
+    bits, mod, _, y = _recording(link, nbits=30_000, esn0_db=esn0_db, seed=7)
     demod = make_demodulator(link=link, receiver=ReceiverSection(), sample_rate_hz=FS)
     assert isinstance(demod, ResidualCarrierDemodulator)
     soft, pos, _, _ = _demodulate(demod, y)
     errors, n, _, _ = _bit_errors(bits, mod, soft, pos, skip=1000)
-    assert n >= 18_900
+    assert n >= 28_900
     ber = errors / n
     # uncoded antipodal signalling, Pb = Q(sqrt(2 Es/N0)) (Proakis & Salehi, Digital Communications, 5th ed.,
     # eq. 4.2-37 form); Es/N0 on the data power, sin^2 m or 2 J1(m)^2 of the total (pipeline.sim)
     theory_at_loss = 0.5 * erfc(math.sqrt(10 ** ((esn0_db - 0.5) / 10)))
-    # 19000 bits at 0.6 %: ~110 errors, so the 45 % margin of 0.5 dB is ~4 standard deviations
+    # 29000 bits at 0.6 %: ~170 errors, so the 45 % margin of 0.5 dB is ~5 standard deviations of the count
     assert ber < theory_at_loss, (ber, theory_at_loss)
 
 
