@@ -446,8 +446,15 @@ def _validate(p: LinkProfile, source: str) -> None:
     _check(0 <= R.asm_max_errors <= 10, source, f"[receiver] asm_max_errors must be 0..10, not {R.asm_max_errors}")
     _check(0 <= R.flywheel_frames <= 100, source, "[receiver] flywheel_frames must be 0..100")
     _check(1024 <= R.chunk_samples <= 1 << 26, source, "[receiver] chunk_samples must be 1024..67108864")
+    _check(L.downlink_frequency_hz is None or (isinstance(L.downlink_frequency_hz, float)
+                                               and L.downlink_frequency_hz > 0), source,
+           f"[link] downlink_frequency_hz must be a frequency > 0 Hz, not {L.downlink_frequency_hz!r}")
     for tc in p.packets.time_codes:
         _choice(tc.code, TimeCodeKind, "[[packets.time_code]] code", source)
+        _check(tc.pfield is None or (isinstance(tc.pfield, int) and 0 <= tc.pfield <= 0xFFFF), source,
+               f"[[packets.time_code]] pfield must be an integer 0..0xFFFF (one or two P-field octets), "
+               f"not {tc.pfield!r}")
+        _check(0 <= tc.offset <= 64, source, f"[[packets.time_code]] offset must be 0..64 octets, not {tc.offset}")
         _check(0 <= tc.apid <= 0x7FE, source, f"[[packets.time_code]] apid must be 0..2046, not {tc.apid}")
     _check(S.sample_rate_hz > 0, source, f"[simulate] sample_rate_hz must be > 0, not {S.sample_rate_hz:g}")
     _check(S.seconds > 0, source, f"[simulate] seconds must be > 0, not {S.seconds:g}")

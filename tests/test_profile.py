@@ -79,3 +79,36 @@ def test_time_codes_and_traffic_tables():
     assert {t.apid for t in p.simulate.traffic} == {100, 200, 300}
     with pytest.raises(ProfileError, match="needs 'apid', 'length' and 'rate_hz'"):
         profile_from_dict({"simulate": {"traffic": [{"apid": 5}]}})
+
+
+# ---- fuzzing (issue 9): any parsed TOML tree gives a profile or one ProfileError, never anything else ----
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+_scalars = st.one_of(st.booleans(), st.integers(-10**6, 10**6), st.floats(allow_nan=True, allow_infinity=True),
+                     st.text(max_size=8), st.lists(st.integers(-5, 70), max_size=3))
+_keys = st.sampled_from(["modulation", "symbol_rate", "pulse", "rolloff", "line_code", "convolutional",
+                         "reed_solomon", "interleave", "randomizer", "kind", "length", "fecf", "ocf",
+                         "spacecraft_id", "asm_max_errors", "chunk_samples", "seconds", "ebn0_db", "apid",
+                         "code", "pfield", "traffic", "time_code", "bitstream_vcids", "bogus"])
+_tables = st.dictionaries(_keys, st.one_of(_scalars, st.lists(st.dictionaries(_keys, _scalars, max_size=4),
+                                                                 max_size=2)), max_size=5)
+_tree = st.dictionaries(st.sampled_from(["link", "coding", "frames", "packets", "receiver", "simulate", "x"]),
+                        st.one_of(_tables, _scalars), max_size=4)
+
+
+@settings(max_examples=300, deadline=None)
+@given(tree=_tree)
+def test_fuzz_profile_tree(tree):
+    try:
+        prof = profile_from_dict(tree, source="fuzz.toml")
+    except ProfileError as exc:
+        msg = str(exc)
+        assert msg.startswith("fuzz.toml: ") and "\n" not in msg
+    else:
+        assert prof.codeblock_bytes >= prof.frames.length
+        # every stage accepts what the loader accepted
+        from pipeline._chain import DecodeChain
+
+        DecodeChain(prof, input_kind="bits")
