@@ -17,7 +17,16 @@ Figures (all per process; "Mbit/s" = 10^6 bits per second, "Msample/s" = 10^6 co
 ``frames_packets_mbps``     :class:`pipeline.link.FrameParser` + :class:`pipeline.packets.PacketExtractor`
 ``end_to_end_msps``         the whole chain with its sinks (``DecodeChain``), one thread
 ``end_to_end_msps_2threads``  the same, :class:`pipeline._parallel.PipelinedDecode`, 2 threads
+``..._nogil``               the same with every kernel recompiled ``nogil=True`` (:func:`nogil_kernels`)
+``end_to_end_msps_segmented``  :class:`pipeline._parallel.SegmentedDecode` on a longer recording,
+                            1 process; ``..._2proc`` with 2 worker processes
 ==========================  ===============================================================
+
+``parallel_speedup`` is ``end_to_end_msps_2threads / end_to_end_msps``; ``segmented_speedup_vs_plain``
+compares 2 worker processes with the plain chain on the same long recording.  Since the machine
+may be shared, ``parallel_speedup_bound`` and ``segmented_speedup_bound`` give what two idle cores
+would reach, from CPU time per thread or per segment (``time.thread_time``), which other load
+does not change.
 
 ``end_to_end_realtime_factor`` divides by the demo recording's 1 Msample/s.  ``warm_start_s`` and
 ``peak_rss_mb`` come from a fresh ``python`` process decoding the demo recording (numba cache
