@@ -59,8 +59,13 @@ def test_nogil_swap_gives_same_answers_and_restores():
     assert all(after[k] is v for k, v in before.items())
 
 
-def test_measure_small_run_has_every_figure(capsys):
-    res = _bench.measure(seconds=0.8, repeats=1, segmented_seconds=0, nogil=False, fresh_runs=2)
+@pytest.fixture(scope="module")
+def small_run():
+    return _bench.measure(seconds=0.8, repeats=1, segmented_seconds=0, nogil=False, fresh_runs=2)
+
+
+def test_measure_small_run_has_every_figure(small_run):
+    res = small_run
     for key in REQUIRED:
         assert key in res, key
     for key, value in res.items():
@@ -79,3 +84,22 @@ def test_measure_bad_arguments():
         _bench.measure(seconds=0.1)
     with pytest.raises(ValueError, match=r"Argument 'repeats' must be 1\.\.20, not 0\."):
         _bench.measure(repeats=0)
+
+
+@pytest.mark.parametrize("as_json", [True, False])
+def test_run_bench_prints_one_json_object_or_a_table(monkeypatch, capsys, small_run, as_json):
+    seen = {}
+
+    def fake_measure(**kwargs):
+        seen.update(kwargs)
+        return small_run
+
+    monkeypatch.setattr(_bench, "measure", fake_measure)
+    assert _bench.run_bench(as_json=as_json, seconds=2.5) == 0
+    assert seen["seconds"] == 2.5
+    out = capsys.readouterr().out
+    if as_json:
+        assert json.loads(out) == json.loads(json.dumps(small_run))  # the whole of stdout is one object
+    else:
+        assert out.splitlines()[0].startswith("downlink bench: demo profile")
+        assert any(line.startswith("end to end, 1 thread") for line in out.splitlines())
