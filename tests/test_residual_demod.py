@@ -214,6 +214,21 @@ def test_implementation_loss_within_half_a_db_at_esn0_5db(mode):
     assert ber < theory_at_loss, (ber, theory_at_loss)
 
 
+@pytest.mark.parametrize("mode", sorted(MODES))
+def test_coded_link_snr_es_n0_0db(mode):
+    # Es/N0 = 0 dB is Eb/N0 = 3 dB on a rate-1/2 link: the loops must stay locked, one acquisition
+    esn0_db = 0.0
+    link = _link(mode)
+    bits, mod, _, y = _recording(link, nbits=30_000, esn0_db=esn0_db, seed=40)
+    demod = make_demodulator(link=link, receiver=ReceiverSection(), sample_rate_hz=FS)
+    soft, pos, locked, _ = _demodulate(demod, y)
+    errors, n, _, _ = _bit_errors(bits, mod, soft, pos, skip=1000)
+    assert demod.stats.carrier_found == 1
+    assert locked.mean() > 0.98
+    # within 1 dB of Pb = Q(sqrt(2 Es/N0)) (Proakis & Salehi, 5th ed.) at this SNR
+    assert errors / n < 0.5 * erfc(math.sqrt(10 ** ((esn0_db - 1.0) / 10)))
+
+
 def _genie_symbols(link, mod, ch, y):
     """Slow obvious reference: a coherent receiver told the true carrier, subcarrier and symbol intervals."""
     n = np.arange(y.size)

@@ -46,6 +46,7 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
         ``[carrier_mode, subcarrier_mode, kp_c, ki_c, kr_c, nu0, kp_s, ki_s, a_arm, a_lock, w_sq, raw,
         lock_on_cos, lock_off_cos, lock_on_snr, lock_off_snr, a_lock_costas]``.  ``carrier_mode`` 0: PLL on a residual
         carrier, error ``Im(r) / A_c``; 1: BPSK Costas, error ``I Q / P`` on one-pole arm filters.
+        The Costas error is ``I Q / max(<I^2 - Q^2>, <I^2 + Q^2> / 10)``, 1 rad/rad at any SNR once locked.
         ``subcarrier_mode`` 0 none, 1 square wave, 2 sine wave; ``nu0`` the nominal subcarrier
         frequency in cycles per sample; ``kp_s, ki_s`` its loop gains (per cycle of error);
         ``a_arm`` the arm-filter coefficient (about 2 / chip length); ``a_lock`` the coefficient of the
@@ -62,7 +63,8 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
         12-13 carrier (Costas) arms I/Q, 14 carrier arm power, 15 carrier-lock flag,
         16 third-order flag (a parameter kept with the state), 17 sum of ``Re r`` and 18 of
         ``Im(r) * ref`` since the wrapper last cleared them, 19 their sample count,
-        20-21 Costas lock averages of ``I^2 - Q^2`` and ``I^2 + Q^2``.
+        20-21 Costas lock averages of ``I^2 - Q^2`` and ``I^2 + Q^2``, 22 weight of the lock averages
+        since the last acquisition (no lock is declared below 1/2).
     out_u : float64 array
         Per sample, the data signal: ``Im(r)`` (PCM/PM), ``Im(r) * ref_I(psi)`` (PCM/PSK/PM, ``ref_I``
         the +-1 square wave or ``sin 2 pi psi``), ``Re(r)`` (Costas).
@@ -127,6 +129,7 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
     count = sf[19]
     l_num = sf[20]
     l_den = sf[21]
+    warm = sf[22]
 
     two_pi = 2.0 * math.pi
     for k in range(n):
@@ -159,13 +162,18 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
             pw_c = (1.0 - a_lk) * pw_c + a_lk * pw
             l_num = (1.0 - a_lc) * l_num + a_lc * (i_c * i_c - q_c * q_c)
             l_den = (1.0 - a_lc) * l_den + a_lc * pw
-            e = i_c * q_c / pw_c if pw_c > 1e-30 else 0.0
+            # normalise by the arms' signal power <I^2 - Q^2> (their total power holds 2 N_arm of noise too,
+            # which would shrink the loop gain at low SNR), floored at a tenth of the total while unlocked
+            sig = l_num if l_num > 0.1 * l_den else 0.1 * l_den
+            e = i_c * q_c / sig if sig > 1e-30 else 0.0
             cosv = l_num / l_den if l_den > 1e-30 else 0.0
             snr = 1e30
+        # the lock averages start from nothing at an acquisition: no decision before they hold half their weight
+        warm = (1.0 - a_lc) * warm + a_lc
         if locked == 1:
             if cosv < off_cos or snr < off_snr:
                 locked = 0
-        else:
+        elif warm > 0.5:
             if cosv > on_cos and snr > on_snr:
                 locked = 1
         out_lock[k] = locked
@@ -202,9 +210,13 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
         count += 1.0
 
         # ---- carrier loop filter ------------------------------------------------------------
-        if third == 1:
-            rate += kr_c * e
-        omega += ki_c * e + rate
+        if locked == 1 or carrier_mode == 0:
+            if third == 1:
+                rate += kr_c * e
+            omega += ki_c * e + rate
+        # an unlocked Costas loop runs first order: its frequency (from the acquisition) holds, so the
+        # noisy error of a loop not yet pulled in cannot walk it away (the residual-carrier PLL's error is
+        # clean enough to pull in with both integrators running, as under a Doppler rate it must)
         step = omega + kp_c * e
         theta += step
         total += step
@@ -232,6 +244,7 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
     sf[19] = count
     sf[20] = l_num
     sf[21] = l_den
+    sf[22] = warm
 
 
 @njit(cache=True)
