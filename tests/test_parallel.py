@@ -370,3 +370,20 @@ def test_run_chain_bad_mode(small_profile):
     chain = DecodeChain(small_profile, input_kind="iq", sample_rate_hz=1e6)
     with pytest.raises(ValueError, match=r"Argument 'mode' must be pipeline \| segments, not 'gpu'\."):
         run_chain(chain, None, mode="gpu")
+
+
+@pytest.mark.parametrize("threads", [1, 2])
+def test_segment_worker_error_is_raised(tmp_path, long_recording, demo_profile, threads):
+    import shutil
+
+    from pipeline.errors import RecordingError
+
+    meta = tmp_path / "cut.sigmf-meta"
+    shutil.copy(long_recording.meta_path, meta)
+    data = tmp_path / "cut.sigmf-data"
+    shutil.copy(long_recording.data_path, data)
+    rec = open_recording(meta)
+    with open(data, "r+b") as f:  # the file shrinks after opening: a read fails in a worker
+        f.truncate(8 * 1_500_000)
+    with pytest.raises(RecordingError, match="cut.sigmf-data"):
+        decode_segmented(rec, demo_profile, threads=threads, segment_samples=SEG)
