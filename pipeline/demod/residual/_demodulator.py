@@ -580,6 +580,9 @@ class ResidualCarrierDemodulator:
         den = e_m - 2.0 * e_0 + e_p
         frac = 0.5 * (e_m - e_p) / den if den < 0 else 0.0
         tau = first + (j + frac) * T / _TIMING_TRIALS
+        if not self._timing_acquired:
+            # go back to the first symbol whose centre is in the stream (cut by its start, or by the search window)
+            tau -= T * math.floor((tau - (self._ubase - 0.5)) / T)
         self._ss[0] = tau
         self._ss[1] = T
         self._ss[2] = 0.0

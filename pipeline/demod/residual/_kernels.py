@@ -289,8 +289,9 @@ def rect_symbols(u, lock, base, params, sf, out_pos, out_raw, out_soft, out_lock
     Returns
     -------
     int
-        Symbols written.  A symbol is taken only when its whole interval (and timing window) lies
-        in ``u``; the rest waits for the next call.
+        Symbols written.  A symbol is taken once its interval ends inside ``u`` (the rest waits for
+        the next call); one whose centre lies after ``base - 1/2`` but whose start does not is the
+        first symbol of the stream, integrated over the part that exists (no timing update).
 
     Notes
     -----
@@ -320,21 +321,24 @@ def rect_symbols(u, lock, base, params, sf, out_pos, out_raw, out_soft, out_lock
         w = wfrac * period
         a = tau - half
         b = tau + half
-        lo_needed = (a - w) if biphase == 0 else a
-        if math.floor(lo_needed + 0.5) < base:
-            tau += period  # before the first sample of the stream
+        first = base - 0.5  # the start of the first sample's cell
+        if tau < first:
+            tau += period  # centre before the first sample of the stream
             continue
         if int(math.floor(b + 0.5)) - base >= n:
             break
+        # a symbol cut by the start of the stream is integrated over the part that exists
+        a_in = a if a > first else first
         if biphase == 1:
-            s = interval_sum(u, base, a, tau) - interval_sum(u, base, tau, b)
-            iw = interval_sum(u, base, tau - w, tau + w)
+            s = interval_sum(u, base, a_in, tau) - interval_sum(u, base, tau, b)
+            lo_w = tau - w if tau - w > first else first
+            iw = interval_sum(u, base, lo_w, tau + w)
             e = iw * (1.0 if s >= 0.0 else -1.0)
-            have_e = True
+            have_e = tau - w >= first
         else:
-            s = interval_sum(u, base, a, b)
-            iw = interval_sum(u, base, a - w, a + w)
-            if prev != 0.0:
+            s = interval_sum(u, base, a_in, b)
+            iw = interval_sum(u, base, a - w, a + w) if a - w >= first else 0.0
+            if prev != 0.0 and a - w >= first:
                 e = iw * ((1.0 if prev >= 0.0 else -1.0) - (1.0 if s >= 0.0 else -1.0)) * 0.5
                 have_e = True
             else:
