@@ -7,8 +7,10 @@ so 1 GB is 125 s) is simulated with :func:`pipeline.sim.simulate` (fixed seed) i
 folder.  Each mode then decodes it in a fresh ``python`` process with
 ``pipeline._chain.decode_to_folder`` semantics (the chain, its sinks and the report), and the
 child prints its elapsed time and its peak resident memory (``VmHWM`` of ``/proc/self/status``:
-the high-water mark of its own address space, page cache not included).  One untimed run first
-fills the numba cache.
+the high-water mark of its own address space, page cache not included).  One untimed plain run
+first fills the numba cache; every mode's output is then compared with it ("identical": every
+``.jsonl``/``.bin`` file byte for byte; "same packets": APID, sequence count and octets of every
+packet in order).
 
 Modes: ``plain`` (the single-threaded loop), ``threadsN`` (:class:`pipeline._parallel.PipelinedDecode`,
 N threads, byte-identical output), ``segmentsN`` (:class:`pipeline._parallel.SegmentedDecode`,
@@ -73,6 +75,20 @@ def _child(mode: str, meta: Path, out: Path) -> dict:
     return json.loads(proc.stdout.strip().splitlines()[-1])
 
 
+def _compare(a: Path, b: Path) -> str:
+    """'identical' (every output file byte for byte), 'same packets' (apid, count, octets), or 'DIFFERENT'."""
+    names = sorted(p.name for p in a.iterdir() if p.name.endswith((".jsonl", ".bin")))
+    if names == sorted(p.name for p in b.iterdir() if p.name.endswith((".jsonl", ".bin"))) and all(
+            (a / n).read_bytes() == (b / n).read_bytes() for n in names):
+        return "identical"
+
+    def rows(folder: Path):
+        with open(folder / "packets.jsonl", encoding="utf-8") as f:
+            return [(d["apid"], d["seq_count"], d["hex"]) for d in map(json.loads, f)]
+
+    return "same packets" if rows(a) == rows(b) else "DIFFERENT"
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--gigabytes", type=float, default=1.0, help="size of the cf32 recording (GB, 10^9 bytes)")
@@ -98,14 +114,15 @@ def main() -> None:
         print(f"CPU: {cpu_model()} ({os.cpu_count()} cores), load average {os.getloadavg()[0]:.2f}")
         _child("plain", meta, tmp / "warm")  # fills the numba cache
         print(f"{'mode':<10} {'samples':>11} {'decode s':>9} {'Msample/s':>10} {'x real time':>11} {'report s':>9} "
-              f"{'frames':>7} {'packets':>8} {'peak RSS MiB':>13} {'worker RSS MiB':>15}")
+              f"{'frames':>7} {'packets':>8} {'peak RSS MiB':>13} {'worker RSS MiB':>15}  output vs plain")
         for mode in args.modes.split(","):
             r = _child(mode, meta, tmp / f"out-{mode}")
             msps = r["samples"] / r["decode_s"] / 1e6
+            same = _compare(tmp / "warm", tmp / f"out-{mode}")
             worker = f"{r['children_max_rss_mb']:.1f}" if mode.startswith("segments") and mode != "segments1" else "-"
             print(f"{mode:<10} {r['samples']:>11} {r['decode_s']:>9.2f} {msps:>10.2f} "
                   f"{msps * 1e6 / profile.simulate.sample_rate_hz:>11.1f} {r['report_s']:>9.2f} {r['frames']:>7} "
-                  f"{r['packets']:>8} {r['peak_rss_mb']:>13.1f} {worker:>15}", flush=True)
+                  f"{r['packets']:>8} {r['peak_rss_mb']:>13.1f} {worker:>15}  {same}", flush=True)
         print(f"load average after: {os.getloadavg()[0]:.2f}")
 
 
