@@ -10,7 +10,24 @@ from pipeline.fec import conv_encode, rs_encode
 from pipeline.fec._conv import _G1_MASK, _G2_MASK, _rate_tables
 from pipeline.fec._crc import _TABLE as CRC_TABLE
 from pipeline.fec._rs import _GTAB, B_EXP, B_LOG, CONV_TO_DUAL, DUAL_TO_CONV
-from pipeline.fec._viterbi import _SIGN1, _SIGN2
+from pipeline.fec._viterbi import _SIGN1, _SIGN2, _new_work
+
+
+def ref_acs(sym, n_steps):
+    """Textbook radix-2 add-compare-select in int64: final metrics and per-step decisions (state order)."""
+    pm = np.zeros(64, np.int64)
+    dec = np.zeros((n_steps, 64), np.uint8)
+    j = np.arange(32)
+    for t in range(n_steps):
+        m = _SIGN1.astype(np.int64) * int(sym[2 * t]) + _SIGN2.astype(np.int64) * int(sym[2 * t + 1])
+        a, b = pm[:32], pm[32:]
+        new = np.empty(64, np.int64)
+        for r, sgn in ((0, 1), (1, -1)):
+            p, q = a + sgn * m, b - sgn * m
+            new[2 * j + r] = np.maximum(p, q)
+            dec[t, 2 * j + r] = q > p  # ties keep the lower predecessor
+        pm = new
+    return pm, dec
 
 
 def both(kernel):
@@ -86,31 +103,38 @@ def test_viterbi_kernels(rng):
         scale = f(soft, 32.0, q)
         qs.append((float(scale), q))
     assert qs[0][0] == qs[1][0] and np.array_equal(qs[0][1], qs[1][1])
-    sym = np.clip(
-        np.rint(40 * (1 - 2 * conv_encode(rng.integers(0, 2, 75, dtype=np.uint8)).astype(float))
-                + rng.normal(0, 30, 150)), -127, 127
-    ).astype(np.int8)
-    res = []
-    for acs, pack, tb in zip(both(K._acs_steps), both(K.decision_pack_kernel), both(K.viterbi_traceback_kernel)):
-        pm_a = np.zeros(32, np.uint32)
-        pm_b = np.zeros(32, np.uint32)
-        dec = np.zeros(75 * 64, np.uint8)
-        acs(sym, 0, 75, _SIGN1, _SIGN2, pm_a, pm_b, dec)
-        words = np.zeros(75, np.uint64)
-        pack(dec, 75, words)
-        out = np.zeros(75, np.uint8)
-        tb(words, 75, int(np.argmax(pm_a.view(np.int16))), 70, out)
-        res.append((pm_a.copy(), dec, words, out))
-    for a, b in zip(*res):
-        assert np.array_equal(a, b)
-    outs = []
-    for f in both(K.viterbi_acs_kernel):
-        pm_a = np.zeros(32, np.uint32)
-        words = np.zeros(75, np.uint64)
-        f(sym, 75, _SIGN1, _SIGN2, pm_a, np.zeros(32, np.uint32), np.zeros(16 * 64, np.uint8), words)
-        outs.append((pm_a, words))
-    assert np.array_equal(outs[0][0], outs[1][0]) and np.array_equal(outs[0][1], outs[1][1])
-    assert np.array_equal(outs[0][1], res[0][2])  # sub-blocks of 16 steps give the same decisions
+    # the documented rule, computed the slow way (16 float32 partial sums, then float64)
+    part = np.zeros(16, np.float32)
+    for i, v in enumerate(np.abs(soft)):
+        part[i % 16] += v
+    scale = np.float32(32.0 * np.count_nonzero(soft) / part.astype(np.float64).sum())
+    assert qs[0][0] == scale
+    assert np.array_equal(qs[0][1], np.rint(np.clip(soft * scale, -127, 127)).astype(np.int8))
+    rng_sym = np.random.default_rng(5)
+    for n_steps in (75, 300):  # odd count (one radix-2 step at the end); more than one 256-step sub-block
+        bits = rng_sym.integers(0, 2, n_steps, dtype=np.uint8)
+        sym = np.clip(np.rint(40 * (1 - 2 * conv_encode(bits).astype(float)) + rng_sym.normal(0, 30, 2 * n_steps)),
+                      -127, 127).astype(np.int8)
+        ref_pm, ref_dec = ref_acs(sym, n_steps)
+        res = []
+        for acs, tb in zip(both(K.viterbi_acs_kernel), both(K.viterbi_traceback_kernel)):
+            work = _new_work()
+            words = np.zeros(n_steps, np.uint64)
+            acs(sym, n_steps, work, words)
+            out = np.zeros(n_steps, np.uint8)
+            first = tb(words, n_steps, int(np.argmax(work[:64])), n_steps - 5, out)
+            res.append((work.copy(), words, out, int(first)))
+        for a, b in zip(*res):
+            assert np.array_equal(a, b)
+        work, words, out, _ = res[0]
+        # the kernel against the textbook radix-2 recursion: metrics (up to a common offset),
+        # decisions (split order: state s at bit (s >> 1) + 32 (s & 1)) and the traced-back bits
+        assert np.array_equal(work[:64].astype(np.int64), ref_pm - ref_pm[0])
+        assert np.array_equal(work[128:], _new_work()[128:])  # tables untouched
+        s = np.arange(64)
+        got = (words[:, None] >> ((s >> 1) + 32 * (s & 1)).astype(np.uint64)[None, :]) & np.uint64(1)
+        assert np.array_equal(got.astype(np.uint8), ref_dec)
+        assert (out[: n_steps - 10] != bits[: n_steps - 10]).sum() <= 3
     dp = []
     for f in both(K.depuncture_kernel):
         o = np.zeros(20, np.int8)
@@ -122,6 +146,5 @@ def test_viterbi_kernels(rng):
 @pytest.mark.parametrize("name", K.__all__)
 def test_every_kernel_is_covered(name):
     covered = {"conv_encode_kernel", "pn_bits_kernel", "crc16_kernel", "rs_remainder_kernel", "rs_decode_kernel",
-               "soft_quantize_kernel", "depuncture_kernel", "decision_pack_kernel", "viterbi_acs_kernel",
-               "viterbi_traceback_kernel"}
+               "soft_quantize_kernel", "depuncture_kernel", "viterbi_acs_kernel", "viterbi_traceback_kernel"}
     assert name in covered

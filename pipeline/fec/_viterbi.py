@@ -28,8 +28,6 @@ _QUANT_LEVEL = 32.0
 # packed decisions of a block (128 KiB) stay in L2 for the traceback, and per-block Python costs
 # are spread over many bits.
 _BLOCK_STEPS = 16384
-# Steps whose decision octets are packed while in L1 (16 KiB of the 48 KiB L1d of current x86).
-_SUB_BLOCK_STEPS = 256
 
 
 def _parity(x: int) -> int:
@@ -50,6 +48,18 @@ def _butterfly_signs() -> tuple[np.ndarray, np.ndarray]:
 
 
 _SIGN1, _SIGN2 = _butterfly_signs()
+# Entries of the ACS work array (int16): 64 metrics, 64 scratch, then the sign tables in the order
+# viterbi_acs_kernel reads them (both steps of a radix-4 pair).
+_WORK_SIZE = 256
+_SIGN_TABLES = np.concatenate([_SIGN1, _SIGN2, _SIGN1[0::2], _SIGN1[1::2], _SIGN2[0::2], _SIGN2[1::2]])
+_SIGN_TABLES.flags.writeable = False
+
+
+def _new_work() -> np.ndarray:
+    """A zeroed ACS work array with the sign tables in place."""
+    work = np.zeros(_WORK_SIZE, dtype=np.int16)
+    work[128:] = _SIGN_TABLES
+    return work
 
 
 @functools.cache
@@ -136,16 +146,14 @@ class ViterbiDecoder:
         # Work buffers; every entry is written before it is read, so np.empty suffices.
         self._quant = np.empty(self._block_symbols, dtype=np.int8)
         self._mother = np.empty(2 * self._block_steps, dtype=np.int8)
-        self._scratch = np.empty(_SUB_BLOCK_STEPS * 64, dtype=np.uint8)
         self._words = np.empty(self._block_steps + self.traceback_depth, dtype=np.uint64)
         self._pending = np.empty(self._block_symbols, dtype=np.float32)
-        self._pm_a = np.zeros(32, dtype=np.uint32)
-        self._pm_b = np.zeros(32, dtype=np.uint32)
+        self._work = _new_work()  # path metrics in [0:64], see viterbi_acs_kernel
         self.reset()
 
     def reset(self) -> None:
         """Forget the stream: clear metrics, survivors and the pending input."""
-        pm = self._pm_a.view(np.int16)
+        pm = self._work[:64]
         pm[:] = 0
         if self.initial_state is not None:
             pm[:] = -8192  # far below any reachable spread, so only the known state survives
@@ -167,14 +175,13 @@ class ViterbiDecoder:
             depuncture_kernel(q, self._positions[:n_sym], mother)
         else:
             soft_quantize_kernel(soft, _QUANT_LEVEL, mother)
-        viterbi_acs_kernel(mother, n_steps, _SIGN1, _SIGN2, self._pm_a, self._pm_b, self._scratch,
-                           self._words[self._rows :])
+        viterbi_acs_kernel(mother, n_steps, self._work, self._words[self._rows :])
         self._rows += n_steps
         keep = 0 if final else min(self.traceback_depth, self._rows)
         n_emit = self._rows - keep
         if n_emit <= 0:
             return np.zeros(0, dtype=np.uint8)
-        best = int(np.argmax(self._pm_a.view(np.int16)))
+        best = int(np.argmax(self._work[:64]))
         out = np.empty(n_emit, dtype=np.uint8)
         viterbi_traceback_kernel(self._words, self._rows, best, n_emit, out)
         if keep:
