@@ -83,6 +83,20 @@ class _Sinks:
         self.packets = open(folder / "packets.jsonl", "w", encoding="utf-8")
         self.frames = open(folder / "frames.jsonl", "w", encoding="utf-8")
         self.apid_files: dict[int, Any] = {}
+        self.doppler_file = None
+
+    def doppler(self, rows: list[dict]) -> None:
+        """Append rows to doppler.csv (the carrier-frequency track: one-way Doppler and range rate)."""
+        import csv
+
+        from pipeline.demod.residual import DOPPLER_COLUMNS
+
+        if self.doppler_file is None:
+            self.doppler_file = open(self.folder / "doppler.csv", "w", encoding="utf-8", newline="")
+            self._doppler_csv = csv.DictWriter(self.doppler_file, fieldnames=list(DOPPLER_COLUMNS))
+            self._doppler_csv.writeheader()
+        for row in rows:
+            self._doppler_csv.writerow({k: ("" if row.get(k) is None else row.get(k)) for k in DOPPLER_COLUMNS})
 
     def frame(self, obj: dict) -> None:
         self.frames.write(json.dumps(obj, separators=(",", ":")) + "\n")
@@ -102,6 +116,8 @@ class _Sinks:
         self.frames.close()
         for f in self.apid_files.values():
             f.close()
+        if self.doppler_file is not None:
+            self.doppler_file.close()
 
 
 class DecodeChain:
@@ -133,10 +149,15 @@ class DecodeChain:
         rx = profile.receiver
         self.demod = None
         if input_kind == "iq":
-            from pipeline.demod import Demodulator
+            from pipeline.demod.residual import make_demodulator
 
-            self.demod = Demodulator(link=profile.link, receiver=rx, sample_rate_hz=float(sample_rate_hz))
-        self.line = LineDecoder(line_code=profile.link.line_code)
+            try:
+                self.demod = make_demodulator(link=profile.link, receiver=rx, sample_rate_hz=float(sample_rate_hz))
+            except ValueError as exc:  # a link the demodulators cannot serve at this sample rate
+                raise ProfileError(f"{profile.name}: {exc}") from None
+        # Bi-phase-L is removed inside the demodulator (half-symbol integration); what is left is NRZ-L.
+        line_code = "nrz-l" if profile.link.line_code == "bi-phase-l" else profile.link.line_code
+        self.line = LineDecoder(line_code=line_code)
         self.branch = BranchSync(rate=profile.coding.convolutional, modulation=profile.link.modulation)
         self.fsync = FrameSync(frame_bits=8 * profile.codeblock_bytes, max_errors=rx.asm_max_errors,
                                flywheel=rx.flywheel_frames)
@@ -145,12 +166,15 @@ class DecodeChain:
         self.accounting = ChannelAccounting(spacecraft_id=profile.frames.spacecraft_id)
         self.extractor = PacketExtractor(profile=profile)
         self.sinks: _Sinks | None = None
+        self.doppler_frequency_hz: float | None = None  # nominal downlink frequency, for range rate
+        self.doppler_tuning_offset_hz = 0.0
         # tracks for the report
         self.track_position: list[float] = []
         self.track_carrier_hz: list[float] = []
         self.track_esn0_db: list[float] = []
         self.track_carrier_locked: list[bool] = []
         self.track_symbol_locked: list[bool] = []
+        self.track_modulation_index: list[float] = []
         self.status_counts: dict[str, int] = {}
         self.frame_count = 0
         self.packet_count = 0
@@ -217,12 +241,21 @@ class DecodeChain:
         return float(getattr(self.demod, "sample_rate_hz", 1.0))
 
     def _symbols(self, block) -> None:
+        if self.sinks is not None and block.track and self.timebase is not None:
+            from pipeline.demod.residual import doppler_rows
+
+            rows = doppler_rows(block.track, self.timebase, self.doppler_frequency_hz,
+                                tuning_offset_hz=self.doppler_tuning_offset_hz)
+            self.sinks.doppler(rows)
         for tp in block.track:
             self.track_position.append(float(tp.position))
             self.track_carrier_hz.append(float(tp.carrier_offset_hz))
             self.track_esn0_db.append(float(tp.esn0_db))
             self.track_carrier_locked.append(bool(tp.carrier_locked))
             self.track_symbol_locked.append(bool(tp.symbol_locked))
+            m = getattr(tp, "modulation_index_rad", None)
+            if m is not None and math.isfinite(float(m)):
+                self.track_modulation_index.append(float(m))
             locked = bool(tp.carrier_locked and tp.symbol_locked)
             if locked != self._was_locked:
                 self.events.append({"event": "demod lock acquired" if locked else "demod lock lost",
@@ -339,6 +372,12 @@ class DecodeChain:
             "nonfinite_samples": self.nonfinite,
             "channel_symbols": self.channel_symbols,
         }
+        if self.track_modulation_index:
+            demod["modulation_index_rad_median"] = round(float(np.median(self.track_modulation_index)), 4)
+        if self.doppler_frequency_hz:
+            demod["downlink_frequency_hz"] = self.doppler_frequency_hz
+        if self.demod is not None:
+            demod["doppler_file"] = "doppler.csv"
         if self.demod is not None and not locked.any():
             demod["note"] = "no lock was found: no carrier or symbol lock anywhere in the recording"
         sync_stats = {}
@@ -452,6 +491,10 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
     with OutputFolder(out, overwrite=overwrite) as tmp:
         if input_kind == "iq":
             chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)
+            nominal = profile.link.downlink_frequency_hz or rec.frequency_hz
+            chain.doppler_frequency_hz = nominal
+            if nominal and rec.frequency_hz:
+                chain.doppler_tuning_offset_hz = float(rec.frequency_hz) - float(nominal)
         else:
             chain = DecodeChain(profile, input_kind=input_kind, timebase=timebase)
         chain.sinks = _Sinks(tmp)

@@ -57,7 +57,8 @@ def _add_recording_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--format", dest="datatype", choices=["cf32", "ci16", "ci8", "cu8"],
                    help="sample format of a raw recording (little-endian interleaved I/Q)")
     p.add_argument("--sample-rate", dest="sample_rate_hz", type=float, help="sample rate of a raw recording, Hz")
-    p.add_argument("--start", help="UTC time of the first sample of a raw recording (ISO-8601, e.g. 2026-03-14T09:30:00Z)")
+    p.add_argument("--start", help="UTC time of the first sample of a raw recording or symbol file "
+                                   "(ISO-8601, e.g. 2026-03-14T09:30:00Z)")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -245,6 +246,14 @@ def _cmd_inspect(args) -> int:
     rec = open_recording(args.recording, datatype=args.datatype, sample_rate_hz=args.sample_rate_hz,
                          start=args.start)
     result = inspect_recording(rec, profile=profile, max_seconds=args.seconds)
+    nominal = (profile.link.downlink_frequency_hz if profile else None) or rec.frequency_hz
+    if nominal and result.get("carrier_offset_hz") is not None:
+        from pipeline.demod.residual import range_rate_from_doppler
+
+        tuning = float(rec.frequency_hz) - float(nominal) if rec.frequency_hz else 0.0
+        f_d = float(result["carrier_offset_hz"]) + tuning
+        result["downlink_frequency_hz"] = float(nominal)
+        result["range_rate_m_per_s"] = range_rate_from_doppler(f_d, float(nominal))
     if args.plot:
         Path(args.plot).mkdir(parents=True, exist_ok=True)
         write_inspect_plots(result, args.plot)

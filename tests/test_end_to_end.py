@@ -193,3 +193,27 @@ def test_iq_from_an_independent_transmitter(tmp_path, modulation):
         expected_s = wave.peak_position[channel_bit // bps] / SAMPLE_RATE
         err = abs((parse_iso_ns(g["ert"]) - t0) * 1e-9 - expected_s)
         assert err < 1.0 / SYMBOL_RATE, (g["ert"], expected_s)
+
+
+def test_doppler_csv_range_rate(tmp_path):
+    """doppler.csv: carrier offset over time and range rate v = -c f_d / f (first-order one-way Doppler,
+    REFERENCES.md sec. 9), with f the downlink frequency the simulator wrote as SigMF core:frequency."""
+    import csv
+    import dataclasses
+
+    from pipeline._chain import decode_to_folder
+    from pipeline.sim import simulate
+
+    base = small_profile("bpsk", "concatenated", "nrz-m", seconds=1.2, carrier_hz=650.0)
+    profile = base.with_changes(link=dataclasses.replace(base.link, downlink_frequency_hz=2.2e9))
+    sim = simulate(profile, tmp_path / "sim")
+    decode_to_folder(str(sim.meta_path), profile, str(tmp_path / "out"))
+    rows = list(csv.DictReader(open(tmp_path / "out" / "doppler.csv", encoding="utf-8")))
+    locked = [r for r in rows if r["locked"] == "True"]
+    assert len(locked) >= 3
+    c = 299_792_458.0
+    for r in locked[1:]:
+        f_d = float(r["carrier_offset_hz"])
+        assert abs(f_d - 650.0) < 5.0
+        assert float(r["range_rate_m_per_s"]) == pytest.approx(-c * f_d / 2.2e9, rel=1e-6)
+        assert r["utc"].startswith("2026-03-14T09:30:0") and r["utc"].endswith("Z")
