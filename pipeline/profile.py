@@ -417,6 +417,12 @@ def _validate(p: LinkProfile, source: str) -> None:
                f"[link] modulation_index must be in (0, pi/2) rad, not {L.modulation_index_rad:g}")
     if L.modulation == "pcm-psk-pm":
         _check(L.subcarrier_hz > 0, source, f"[link] subcarrier_hz must be > 0 for pcm-psk-pm, not {L.subcarrier_hz:g}")
+        _check(L.subcarrier_hz >= L.symbol_rate_baud, source,
+               f"[link] subcarrier_hz must be at least the symbol rate ({L.symbol_rate_baud:g}), "
+               f"not {L.subcarrier_hz:g}")
+    if L.line_code == "bi-phase-l":
+        _check(L.modulation in ("bpsk", "pcm-pm", "pcm-psk-pm"), source,
+               f"[link] line_code bi-phase-l needs modulation bpsk, pcm-pm or pcm-psk-pm, not {L.modulation!r}")
     _choice(C.convolutional, ConvRate, "[coding] convolutional", source)
     _check(C.reed_solomon in (0, 8, 16), source, f"[coding] reed_solomon must be 0, 8 or 16, not {C.reed_solomon}")
     _check(1 <= C.interleave <= 8, source, f"[coding] interleave must be 1..8, not {C.interleave}")
