@@ -1,9 +1,11 @@
 """Throughput of pipeline.fec on one core: Viterbi, Reed-Solomon, convolutional encoder, randomizer, CRC.
 
-Run: ``python bench/bench_fec.py [--bits N] [--repeat R]``.  Fixed seeds; every kernel is called
-once before timing (JIT compile and cache load stay outside the timed part); each figure is the
-best CPU time of R runs.  Rates are information bits out for decoders (Viterbi: decoded bits; RS:
-codeblock bits in, the CCSDS convention for decoder throughput).
+Run: ``python bench/bench_fec.py [--bits N] [--repeat R] [--viterbi-only]``.  Fixed seeds; every
+kernel is called once before timing (JIT compile and cache load stay outside the timed part); each
+figure is the best CPU time of R runs.  Rates are information bits out for decoders (Viterbi:
+decoded bits; RS: codeblock bits in, the CCSDS convention for decoder throughput).  The Viterbi
+rows end with the kernels of one 16384-step block timed alone (quantiser, add-compare-select,
+traceback), which is where the time of a decode goes.
 
 For scale, the Viterbi rows include a portable scalar C decoder written for this benchmark
 (int32 metrics, one byte per decision, textbook add-compare-select), compiled with ``gcc -O2``
@@ -33,6 +35,7 @@ from pipeline.fec import (
     rs_encode,
     viterbi_decode,
 )
+from pipeline.fec import _kernels as fec_kernels
 
 C_VITERBI = r"""
 #include <stdint.h>
@@ -148,6 +151,30 @@ def bench_viterbi(n_bits, repeat, rng):
                 row("portable scalar C Viterbi r=1/2 (gcc -O2)", n, "Mbit/s", t, "(baseline, see docstring)")
                 agree = np.mean(out_c == viterbi_decode(soft, rate))
                 print(f"{'  C baseline agrees with viterbi_decode on':<60} {100 * agree:10.3f} % of bits")
+            bench_viterbi_kernels(soft, repeat)
+
+
+def bench_viterbi_kernels(soft, repeat):
+    """The three kernels of one r=1/2 block of 16384 steps (inputs in cache), one call each."""
+    from pipeline.fec._viterbi import _QUANT_LEVEL, _new_work
+
+    n_steps = 16384
+    blk = np.ascontiguousarray(soft[: 2 * n_steps])
+    sym = np.empty(2 * n_steps, np.int8)
+    fec_kernels.soft_quantize_kernel(blk, _QUANT_LEVEL, sym)
+    words = np.empty(n_steps, np.uint64)
+    out = np.empty(n_steps, np.uint8)
+    reps = 20  # calls per timed run: one block is ~0.1 ms
+    t = best_of(lambda: [fec_kernels.soft_quantize_kernel(blk, _QUANT_LEVEL, sym) for _ in range(reps)], repeat)
+    row("  soft_quantize_kernel (2 symbols per bit)", reps * n_steps, "Mbit/s", t,
+        f"({t / reps / n_steps * 1e9:.2f} ns/bit)")
+    t = best_of(lambda: [fec_kernels.viterbi_acs_kernel(sym, n_steps, _new_work(), words) for _ in range(reps)],
+                repeat)
+    row("  viterbi_acs_kernel (radix-4 add-compare-select)", reps * n_steps, "Mbit/s", t,
+        f"({t / reps / n_steps * 1e9:.2f} ns/bit)")
+    t = best_of(lambda: [fec_kernels.viterbi_traceback_kernel(words, n_steps, 0, n_steps - 96, out)
+                         for _ in range(reps)], repeat)
+    row("  viterbi_traceback_kernel", reps * n_steps, "Mbit/s", t, f"({t / reps / n_steps * 1e9:.2f} ns/bit)")
 
 
 def bench_rs(repeat, rng):
@@ -196,12 +223,15 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--bits", type=int, default=4_000_000, help="information bits for the Viterbi rows")
     ap.add_argument("--repeat", type=int, default=5)
+    ap.add_argument("--viterbi-only", action="store_true", help="only the Viterbi rows")
     args = ap.parse_args()
     rng = np.random.default_rng(20261201)
     load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
     print(f"# {os.cpu_count()} CPUs, load average {load:.2f}; best CPU time of {args.repeat} runs")
     print(f"{'configuration':<60} {'rate':>10} {'unit':<7}")
     bench_viterbi(args.bits, args.repeat, rng)
+    if args.viterbi_only:
+        return
     bench_rs(args.repeat, rng)
     bench_misc(args.bits, args.repeat, rng)
 

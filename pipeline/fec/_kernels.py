@@ -236,8 +236,12 @@ def viterbi_acs_kernel(sym, n_steps, work, words):
             hb = 16 * t
             for u in range(16):
                 # first step: butterflies u and u + 16 give the states 2u, 2u+1 and 2u+32, 2u+33
-                ml = np.int16(np.int16(w[128 + u] * y1) + np.int16(w[160 + u] * y2))
-                mh = np.int16(np.int16(w[144 + u] * y1) + np.int16(w[176 + u] * y2))
+                # sign1[u + 16] = sign1[u] and sign2[u + 16] = -sign2[u] for this code (the tap
+                # D5 is in G2 only), so both branch metrics come from one pair of products
+                c1 = np.int16(w[128 + u] * y1)
+                c2 = np.int16(w[160 + u] * y2)
+                ml = np.int16(c1 + c2)
+                mh = np.int16(c1 - c2)
                 o0 = w[u]
                 o1 = w[16 + u]
                 o2 = w[32 + u]
@@ -259,8 +263,11 @@ def viterbi_acs_kernel(sym, n_steps, work, words):
                 dec1[base + 32 + u] = qa1 > pa1
                 dec1[base + 48 + u] = qb1 > pb1
                 # second step: butterflies 2u (states a0, b0) and 2u + 1 (a1, b1) give 4u..4u+3
-                me = np.int16(np.int16(w[192 + u] * z1) + np.int16(w[224 + u] * z2))
-                mo = np.int16(np.int16(w[208 + u] * z1) + np.int16(w[240 + u] * z2))
+                # likewise sign1[2u + 1] = -sign1[2u], sign2[2u + 1] = sign2[2u] (D1 is in G1 only)
+                e1 = np.int16(w[192 + u] * z1)
+                e2 = np.int16(w[224 + u] * z2)
+                me = np.int16(e1 + e2)
+                mo = np.int16(e2 - e1)
                 p00 = np.int16(a0 + me)
                 q00 = np.int16(b0 - me)
                 p01 = np.int16(a0 - me)
@@ -339,20 +346,25 @@ def viterbi_traceback_kernel(words, n_rows, state, n_emit, out):
     ``words[t]`` holds the 64 decisions of step t in split order (state s at bit
     ``(s >> 1) + 32 (s & 1)``, see ``viterbi_acs_kernel``).  The bit decided at a step is the
     newest bit of the state it leads to; the predecessor of state s is ``(s >> 1) | (decision << 5)``.
-    The word load does not depend on the state, so only a shift chain is serial.  Returns the state
-    before row 0.  Cost: about 6 integer operations per row.
+    Returns the state before row 0.
+
+    Notes
+    -----
+    The loop carries the bit position ``q = (s >> 1) | ((s & 1) << 5)`` rather than the state:
+    the predecessor's position is ``((q & 1) << 5) | ((q >> 1) & 15) | (decision << 4)``, whose
+    first two terms do not wait for the decision, so the serial chain is four operations per row
+    (shift the word, mask, shift, or), as with state-order words.  The decided bit is ``q >> 5``.
     """
     one = np.uint64(1)
-    five = np.uint64(5)
-    st = np.uint64(state)
+    q = (np.uint64(state) >> one) | ((np.uint64(state) & one) << np.uint64(5))
     for t in range(n_rows - 1, n_emit - 1, -1):
-        pos = ((st & one) << five) | (st >> one)
-        st = (st >> one) | (((words[t] >> pos) & one) << five)
+        rest = ((q & one) << np.uint64(5)) | ((q >> one) & np.uint64(15))
+        q = rest | (((words[t] >> q) & one) << np.uint64(4))
     for t in range(n_emit - 1, -1, -1):
-        out[t] = st & one
-        pos = ((st & one) << five) | (st >> one)
-        st = (st >> one) | (((words[t] >> pos) & one) << five)
-    return st
+        out[t] = q >> np.uint64(5)
+        rest = ((q & one) << np.uint64(5)) | ((q >> one) & np.uint64(15))
+        q = rest | (((words[t] >> q) & one) << np.uint64(4))
+    return ((q & np.uint64(31)) << one) | (q >> np.uint64(5))
 
 
 # ---- Reed-Solomon decoder ----------------------------------------------------------------------

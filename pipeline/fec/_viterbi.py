@@ -164,7 +164,8 @@ class ViterbiDecoder:
         self.bits_out = 0
 
     # ---- internals ---------------------------------------------------------------------------
-    def _run_block(self, soft: np.ndarray, final: bool) -> np.ndarray:
+    def _run_block(self, soft: np.ndarray, final: bool, out: np.ndarray, at: int) -> int:
+        """Decode one block (or the final partial one); write the released bits to ``out[at:]``."""
         n_sym = soft.shape[0]
         n_steps = int(self._steps_after[n_sym]) if n_sym < self._block_symbols else self._block_steps
         mother = self._mother
@@ -180,27 +181,26 @@ class ViterbiDecoder:
         keep = 0 if final else min(self.traceback_depth, self._rows)
         n_emit = self._rows - keep
         if n_emit <= 0:
-            return np.zeros(0, dtype=np.uint8)
+            return 0
         best = int(np.argmax(self._work[:64]))
-        out = np.empty(n_emit, dtype=np.uint8)
-        viterbi_traceback_kernel(self._words, self._rows, best, n_emit, out)
+        viterbi_traceback_kernel(self._words, self._rows, best, n_emit, out[at : at + n_emit])
         if keep:
             self._words[:keep] = self._words[n_emit : self._rows]
         self._rows = keep
-        return out
+        return n_emit
 
-    # ---- public ------------------------------------------------------------------------------
-    def process(self, soft) -> np.ndarray:
-        """Feed channel soft symbols; return the information bits (uint8 0/1) now decided."""
-        soft = as_soft("soft", soft)
-        self.symbols_in += soft.shape[0]
+    def _feed(self, soft: np.ndarray, final: bool) -> np.ndarray:
+        """Decode the blocks ``soft`` completes (and, if ``final``, the rest) into one output array."""
         B = self._block_symbols
-        outs = []
-        pos = 0
         n = soft.shape[0]
+        n_blocks = (self._fill + n) // B
+        # at most: the survivors held back so far, every step of the completed blocks, one partial block
+        out = np.empty(self._rows + (n_blocks + final) * self._block_steps, dtype=np.uint8)
+        n_out = 0
+        pos = 0
         while pos < n:
             if self._fill == 0 and n - pos >= B:
-                outs.append(self._run_block(soft[pos : pos + B], final=False))  # whole block: no copy
+                n_out += self._run_block(soft[pos : pos + B], False, out, n_out)  # whole block: no copy
                 pos += B
                 continue
             take = min(B - self._fill, n - pos)
@@ -208,9 +208,18 @@ class ViterbiDecoder:
             self._fill += take
             pos += take
             if self._fill == B:
-                outs.append(self._run_block(self._pending, final=False))
+                n_out += self._run_block(self._pending, False, out, n_out)
                 self._fill = 0
-        out = np.concatenate(outs) if outs else np.zeros(0, dtype=np.uint8)
+        if final:
+            n_out += self._run_block(self._pending[: self._fill], True, out, n_out)
+        return out[:n_out]
+
+    # ---- public ------------------------------------------------------------------------------
+    def process(self, soft) -> np.ndarray:
+        """Feed channel soft symbols; return the information bits (uint8 0/1) now decided."""
+        soft = as_soft("soft", soft)
+        self.symbols_in += soft.shape[0]
+        out = self._feed(soft, final=False)
         self.bits_out += out.shape[0]
         return out
 
@@ -221,7 +230,7 @@ class ViterbiDecoder:
         counters keep running until :meth:`reset`).  A trailing symbol that does not complete an
         information bit's branch is dropped.
         """
-        out = self._run_block(self._pending[: self._fill], final=True)
+        out = self._feed(self._pending[:0], final=True)
         bits_out = self.bits_out + out.shape[0]
         symbols_in = self.symbols_in
         self.reset()
@@ -246,6 +255,5 @@ def viterbi_decode(soft, rate: Rate = "1/2", *, traceback_depth: int | None = No
         One decoded bit per complete branch: ``len(soft) // 2`` at rate 1/2.
     """
     dec = ViterbiDecoder(rate=rate, traceback_depth=traceback_depth, initial_state=initial_state)
-    a = dec.process(soft)
-    b = dec.flush()
-    return np.concatenate([a, b])
+    # process() then flush() in one pass, so the bits land in one array (no concatenation)
+    return dec._feed(as_soft("soft", soft), final=True)
