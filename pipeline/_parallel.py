@@ -428,10 +428,12 @@ class SegmentResult:
         Synchronizer events whose position lies in the owned range.
     cpu_s : float
         CPU seconds the worker thread spent on the segment (``time.thread_time``).
+    constellation : numpy.ndarray or None
+        The segment chain's last constellation snapshot (for the report's plot).
     """
 
     __slots__ = ("index", "owned_start", "owned_stop", "frames", "track", "samples", "nonfinite",
-                 "channel_symbols", "locked_symbols", "stats", "events", "cpu_s")
+                 "channel_symbols", "locked_symbols", "stats", "events", "cpu_s", "constellation")
 
     def __init__(self, index: int, owned_start: int, owned_stop: int):
         self.index = index
@@ -446,6 +448,7 @@ class SegmentResult:
         self.stats: dict = {}
         self.events: list = []
         self.cpu_s = 0.0
+        self.constellation = None
 
     def __getstate__(self):
         return {k: getattr(self, k) for k in self.__slots__}
@@ -455,8 +458,8 @@ class SegmentResult:
             setattr(self, k, v)
 
 
-def segment_plan(num_samples: int, profile, sample_rate_hz: float, *,
-                 segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> list[tuple[int, int, int, int]]:
+def segment_plan(num_samples: int, profile, sample_rate_hz: float, *, segment_samples: int = DEFAULT_SEGMENT_SAMPLES,
+                 block_samples: int = 1) -> list[tuple[int, int, int, int]]:
     """Cut ``[0, num_samples)`` into owned segments with lead-in and lead-out.
 
     Returns ``(owned_start, owned_stop, read_start, read_stop)`` per segment.  The lead-in lets a
@@ -466,12 +469,17 @@ def segment_plan(num_samples: int, profile, sample_rate_hz: float, *,
 
     * CADU length in samples ``C = cadu_bits / (conv rate x bits per symbol x symbol rate) x fs``;
     * lead-in ``= 4 C + 2^17`` samples (acquisition of 2^16 samples, loop pull-in, one CADU to
-      find a marker, one to check it, margin); lead-out ``= 2 C + 2^16``.
+      find a marker, one to check it, margin), then the read start is moved back to a multiple of
+      ``block_samples`` (the demodulator's processing block), so that a segment's blocks cover
+      the same samples as the plain chain's and its per-block estimates (Es/N0, carrier) match
+      them closely; lead-out ``= 2 C + 2^16``.
     """
     if isinstance(segment_samples, bool) or not isinstance(segment_samples, int):
         raise TypeError(f"Argument 'segment_samples' must be an integer, not {type(segment_samples).__name__}.")
     if segment_samples < 1 << 20:
         raise ValueError(f"Argument 'segment_samples' must be >= 1048576, not {segment_samples}.")
+    if isinstance(block_samples, bool) or not isinstance(block_samples, int) or block_samples < 1:
+        raise ValueError(f"Argument 'block_samples' must be a positive integer, not {block_samples!r}.")
     cadu = lead_samples(profile, sample_rate_hz)
     lead_in, lead_out = 4 * cadu + (1 << 17), 2 * cadu + (1 << 16)
     plan = []
@@ -481,7 +489,8 @@ def segment_plan(num_samples: int, profile, sample_rate_hz: float, *,
         # the last segment takes a short remainder instead of leaving a sliver on its own
         if num_samples - b < segment_samples // 4:
             b = num_samples
-        plan.append((a, b, max(0, a - lead_in), min(num_samples, b + lead_out)))
+        read_start = max(0, (a - lead_in) // block_samples * block_samples)
+        plan.append((a, b, read_start, min(num_samples, b + lead_out)))
         a = b
         if b >= num_samples:
             break
@@ -553,6 +562,7 @@ def decode_segment(recording, profile, index: int, owned_start: int, owned_stop:
                 p = ev.get("position")
             if p is None or owned_start <= float(p) < owned_stop:
                 res.events.append(ev)
+    res.constellation = chain.constellation
     res.cpu_s = time.thread_time() - t0
     return res
 
@@ -652,7 +662,10 @@ class SegmentedDecode:
         if getattr(chain, "demod", None) is None:
             raise ValueError("Argument 'chain' must be an IQ decode chain (input_kind 'iq') with a demodulator.")
         fs = recording.sample_rate_hz
-        plan = segment_plan(recording.num_samples, self.profile, fs, segment_samples=self.segment_samples)
+        block = getattr(chain.demod, "block_samples", 1)
+        block = block if isinstance(block, int) and 1 <= block <= 1 << 20 else 1
+        plan = segment_plan(recording.num_samples, self.profile, fs, segment_samples=self.segment_samples,
+                            block_samples=block)
         half_cadu = 0.5 * lead_samples(self.profile, fs)
         self._spectrum(recording, chain)
         real_codeblock = chain.codeblock
@@ -760,20 +773,28 @@ class SegmentedDecode:
         chain.nonfinite += res.nonfinite
         chain.channel_symbols += res.channel_symbols
         chain.locked_symbols += res.locked_symbols
-        for tp in res.track:
-            chain.track_position.append(float(tp.position))
-            chain.track_carrier_hz.append(float(tp.carrier_offset_hz))
-            chain.track_esn0_db.append(float(tp.esn0_db))
-            chain.track_carrier_locked.append(bool(tp.carrier_locked))
-            chain.track_symbol_locked.append(bool(tp.symbol_locked))
-            locked = bool(tp.carrier_locked and tp.symbol_locked)
-            if locked != chain._was_locked:
-                chain.events.append({"event": "demod lock acquired" if locked else "demod lock lost",
-                                     "position": float(tp.position)})
-                chain._was_locked = locked
-        for stage_events, evs in ((getattr(chain.branch, "events", None), res.events),):
-            if isinstance(stage_events, list):
-                stage_events.extend(evs)
+        # The owned track points go through the chain's own symbol handler (track lists, lock
+        # events, doppler.csv rows...) as a block without symbols, so nothing reaches the decoder.
+        chain._symbols(_TrackOnlyBlock(res.track))
+        if res.constellation is not None:
+            chain.constellation = res.constellation
+        stage_events = getattr(chain.branch, "events", None)
+        if isinstance(stage_events, list):
+            stage_events.extend(res.events)
+
+
+class _TrackOnlyBlock:
+    """A symbol block with track points and no symbols (duck-typed like ``SymbolBlock``)."""
+
+    def __init__(self, track: list):
+        self.track = track
+        self.soft = np.zeros(0, dtype=np.float32)
+        self.position = np.zeros(0, dtype=np.float64)
+        self.locked = np.zeros(0, dtype=bool)
+        self.symbols = np.zeros(0, dtype=np.complex64)
+
+    def __len__(self) -> int:
+        return 0
 
 
 def decode_segmented(recording, profile, *, sinks_folder=None, threads: int = 2,

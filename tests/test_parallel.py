@@ -48,6 +48,7 @@ def _plain_decode(meta_path, profile, folder: Path) -> DecodeChain:
 
 def _outputs(folder: Path) -> dict[str, bytes]:
     names = list(OUTPUT_FILES) + sorted(p.name for p in folder.glob("apid_*.bin"))
+    names += [p.name for p in folder.glob("doppler.csv")]
     return {name: (folder / name).read_bytes() for name in names}
 
 
@@ -65,6 +66,7 @@ def test_reference_decodes_packets(reference, recording):
     assert chain.packet_count >= 10
     assert any(name.startswith("apid_") for name in out)
     assert len(out["packets.jsonl"].splitlines()) == chain.packet_count
+    assert len(out["doppler.csv"].splitlines()) > 10  # the carrier track is an output too
 
 
 @pytest.mark.parametrize("threads", [1, 2, 3, 5])
@@ -246,6 +248,8 @@ def test_segment_plan_covers_recording_once(demo_profile):
     for a, b, ra, rb in plan:
         assert ra == max(0, a - (4 * cadu + (1 << 17)))
         assert rb == min(n, b + 2 * cadu + (1 << 16))
+    for a, _b, ra, _rb in segment_plan(n, demo_profile, 1e6, segment_samples=SEG, block_samples=16384):
+        assert ra % 16384 == 0 and a - (4 * cadu + (1 << 17)) - 16384 < ra <= max(0, a - (4 * cadu + (1 << 17)))
 
 
 def test_segment_plan_short_and_empty(demo_profile):
@@ -288,6 +292,8 @@ def test_segmented_content_same_as_plain(long_recording, long_plain, segmented_o
     assert _rows(out["frames.jsonl"], frame_keys) == _rows(ref["frames.jsonl"], frame_keys)
     assert {k: v for k, v in out.items() if k.startswith("apid_")} == {k: v for k, v in ref.items()
                                                                        if k.startswith("apid_")}
+    # one carrier-track row per demodulator block; blocks in the lead-ins are not repeated
+    assert abs(len(out["doppler.csv"].splitlines()) - len(ref["doppler.csv"].splitlines())) <= 3
     import json
 
     pos = np.array([json.loads(line)["position"] for line in out["frames.jsonl"].splitlines()])
