@@ -298,7 +298,9 @@ def test_segmented_content_same_as_plain(long_recording, long_plain, segmented_o
 
     pos = np.array([json.loads(line)["position"] for line in out["frames.jsonl"].splitlines()])
     pos_ref = np.array([json.loads(line)["position"] for line in ref["frames.jsonl"].splitlines()])
-    np.testing.assert_allclose(pos, pos_ref, rtol=0, atol=0.05)  # samples; common practice, no published source
+        # segments start on the demodulator's block grid, so the loops re-converge to the plain chain's
+    # track: agreement to about 1e-6 samples was measured; 1e-3 leaves room (no published source)
+    np.testing.assert_allclose(pos, pos_ref, rtol=0, atol=1e-3)
 
 
 def test_single_segment_is_the_plain_chain(tmp_path, recording, small_profile, reference):
