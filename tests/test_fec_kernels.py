@@ -135,6 +135,29 @@ def test_viterbi_kernels(rng):
         got = (words[:, None] >> ((s >> 1) + 32 * (s & 1)).astype(np.uint64)[None, :]) & np.uint64(1)
         assert np.array_equal(got.astype(np.uint8), ref_dec)
         assert (out[: n_steps - 10] != bits[: n_steps - 10]).sum() <= 3
+    # the per-block kernel: same as the kernels one by one (rate 3/4: quantise, depuncture, ACS, traceback)
+    from pipeline.fec._viterbi import _QUANT_LEVEL, _rate_layout
+
+    n_sym, n_steps, positions, _ = _rate_layout("3/4")
+    soft34 = rng.normal(0, 1, 400).astype(np.float32)
+    steps34 = 300  # 400 symbols of rate 3/4 complete 300 branches
+    q = np.zeros(n_sym, np.int8)
+    K.soft_quantize_kernel(soft34, _QUANT_LEVEL, q[:400])
+    mother = np.zeros(2 * n_steps, np.int8)
+    K.depuncture_kernel(q[:400], positions[:400], mother)
+    work = _new_work()
+    words = np.zeros(steps34 + 40, np.uint64)
+    K.viterbi_acs_kernel(mother, steps34, work, words)
+    expect = np.zeros(steps34 - 40, np.uint8)
+    K.viterbi_traceback_kernel(words, steps34, int(np.argmax(work[:64])), steps34 - 40, expect)
+    for f in both(K.viterbi_block_kernel):
+        work_b = _new_work()
+        words_b = np.zeros(steps34 + 40, np.uint64)
+        out = np.zeros(steps34, np.uint8)
+        n = f(soft34, _QUANT_LEVEL, np.zeros(n_sym, np.int8), positions, np.full(2 * n_steps, 99, np.int8), steps34,
+              work_b, words_b, 0, 40, out)
+        assert n == steps34 - 40 and np.array_equal(out[:n], expect)
+        assert np.array_equal(work_b, work) and np.array_equal(words_b[:40], words[steps34 - 40 : steps34])
     dp = []
     for f in both(K.depuncture_kernel):
         o = np.zeros(20, np.int8)
@@ -146,5 +169,6 @@ def test_viterbi_kernels(rng):
 @pytest.mark.parametrize("name", K.__all__)
 def test_every_kernel_is_covered(name):
     covered = {"conv_encode_kernel", "pn_bits_kernel", "crc16_kernel", "rs_remainder_kernel", "rs_decode_kernel",
-               "soft_quantize_kernel", "depuncture_kernel", "viterbi_acs_kernel", "viterbi_traceback_kernel"}
+               "soft_quantize_kernel", "depuncture_kernel", "viterbi_acs_kernel", "viterbi_traceback_kernel",
+               "viterbi_block_kernel"}
     assert name in covered

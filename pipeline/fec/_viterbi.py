@@ -8,12 +8,7 @@ import numpy as np
 
 from pipeline.fec._args import Rate, as_soft, check_int, check_rate
 from pipeline.fec._conv import _G1_MASK, _G2_MASK, puncture_pattern
-from pipeline.fec._kernels import (
-    depuncture_kernel,
-    soft_quantize_kernel,
-    viterbi_acs_kernel,
-    viterbi_traceback_kernel,
-)
+from pipeline.fec._kernels import viterbi_block_kernel
 
 __all__ = ["ViterbiDecoder", "viterbi_decode", "DEFAULT_TRACEBACK_DEPTH"]
 
@@ -53,6 +48,9 @@ _SIGN1, _SIGN2 = _butterfly_signs()
 _WORK_SIZE = 256
 _SIGN_TABLES = np.concatenate([_SIGN1, _SIGN2, _SIGN1[0::2], _SIGN1[1::2], _SIGN2[0::2], _SIGN2[1::2]])
 _SIGN_TABLES.flags.writeable = False
+# rate 1/2: nothing to depuncture
+_NO_POSITIONS = np.zeros(0, dtype=np.int64)
+_NO_POSITIONS.flags.writeable = False
 
 
 def _new_work() -> np.ndarray:
@@ -168,26 +166,13 @@ class ViterbiDecoder:
         """Decode one block (or the final partial one); write the released bits to ``out[at:]``."""
         n_sym = soft.shape[0]
         n_steps = int(self._steps_after[n_sym]) if n_sym < self._block_symbols else self._block_steps
-        mother = self._mother
-        if self._punctured:
-            q = self._quant[:n_sym]
-            soft_quantize_kernel(soft, _QUANT_LEVEL, q)
-            mother[: 2 * n_steps] = 0
-            depuncture_kernel(q, self._positions[:n_sym], mother)
-        else:
-            soft_quantize_kernel(soft, _QUANT_LEVEL, mother)
-        viterbi_acs_kernel(mother, n_steps, self._work, self._words[self._rows :])
-        self._rows += n_steps
-        keep = 0 if final else min(self.traceback_depth, self._rows)
-        n_emit = self._rows - keep
-        if n_emit <= 0:
-            return 0
-        best = int(np.argmax(self._work[:64]))
-        viterbi_traceback_kernel(self._words, self._rows, best, n_emit, out[at : at + n_emit])
-        if keep:
-            self._words[:keep] = self._words[n_emit : self._rows]
-        self._rows = keep
-        return n_emit
+        rows = self._rows + n_steps
+        keep = 0 if final else min(self.traceback_depth, rows)
+        positions = self._positions if self._punctured else _NO_POSITIONS
+        n_emit = viterbi_block_kernel(soft, _QUANT_LEVEL, self._quant, positions, self._mother, n_steps, self._work,
+                                      self._words, self._rows, keep, out[at:])
+        self._rows = keep if n_emit > 0 else rows
+        return int(n_emit)
 
     def _feed(self, soft: np.ndarray, final: bool) -> np.ndarray:
         """Decode the blocks ``soft`` completes (and, if ``final``, the rest) into one output array."""
