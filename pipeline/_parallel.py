@@ -91,6 +91,9 @@ NOGIL_KERNELS: tuple[str, ...] = (
     "pipeline.fec._kernels:crc16_kernel",
     "pipeline.fec._kernels:rs_remainder_kernel",
     "pipeline.fec._kernels:pn_bits_kernel",
+    "pipeline.demod.residual._kernels:track_carrier",
+    "pipeline.demod.residual._kernels:timing_search",
+    "pipeline.demod.residual._kernels:rect_symbols",
 )
 
 _END = object()
