@@ -110,11 +110,13 @@ class ViterbiDecoder:
     reset (whole puncturing periods); each block is scaled so its mean magnitude is 32, rounded to
     int8 and depunctured (punctured positions become erasures).  Since the blocks do not depend on
     how the input is chunked, the output is the same for any chunking.  The 64-state trellis is
-    searched with correlation metrics in int16 (add-compare-select, 32 butterflies per step);
+    searched with correlation metrics in int16 (add-compare-select, 32 butterflies per step,
+    computed two steps at a time over 16 vector lanes; ties keep the lower predecessor);
     after each block the survivor of the best state is traced back and all but the last
     ``traceback_depth`` bits are released.  ``flush`` releases the rest by tracing back from the
-    best final state (the code is not terminated).  Cost: O(64) per information bit plus
-    O(1 + depth/block) per bit for the traceback; memory O(block + depth).
+    best final state (the code is not terminated).  Each block is one kernel call that releases
+    the GIL, so decoders in different threads run in parallel.  Cost: O(64) per information bit
+    plus O(1 + depth/block) per bit for the traceback; memory O(block + depth).
 
     Latency: a bit is returned once its block is complete and ``traceback_depth`` later steps
     have been decoded, so ``process`` may return nothing for up to one block plus the depth.
