@@ -172,3 +172,33 @@ def test_every_kernel_is_covered(name):
                "soft_quantize_kernel", "depuncture_kernel", "viterbi_acs_kernel", "viterbi_traceback_kernel",
                "viterbi_block_kernel"}
     assert name in covered
+
+
+def test_viterbi_acs_metrics_stay_exact_at_full_scale():
+    # |y| = 127 everywhere (largest branch metrics), random signs, from a known state (metrics
+    # -8192 elsewhere, as ViterbiDecoder(initial_state=...) sets them): over many renormalisation
+    # periods the int16 metrics must track the int64 textbook recursion exactly (no wrap-around)
+    rng = np.random.default_rng(21)
+    n_steps = 3001
+    sym = (127 * (1 - 2 * rng.integers(0, 2, 2 * n_steps))).astype(np.int8)
+    work = _new_work()
+    work[:64] = -8192
+    work[37] = 0
+    words = np.zeros(n_steps, np.uint64)
+    K.viterbi_acs_kernel(sym, n_steps, work, words)
+    pm = np.full(64, -8192, np.int64)
+    pm[37] = 0
+    j = np.arange(32)
+    bit_of_state = ((np.arange(64) >> 1) + 32 * (np.arange(64) & 1)).astype(np.uint64)
+    for t in range(n_steps):
+        m = _SIGN1.astype(np.int64) * int(sym[2 * t]) + _SIGN2.astype(np.int64) * int(sym[2 * t + 1])
+        new = np.empty(64, np.int64)
+        dec = np.empty(64, np.uint8)
+        for r, sgn in ((0, 1), (1, -1)):
+            p, q = pm[:32] + sgn * m, pm[32:] - sgn * m
+            new[2 * j + r] = np.maximum(p, q)
+            dec[2 * j + r] = q > p
+        pm = new
+        got = (words[t] >> bit_of_state) & np.uint64(1)
+        assert np.array_equal(got.astype(np.uint8), dec), t
+    assert np.array_equal(work[:64].astype(np.int64), pm - pm[0])
