@@ -455,7 +455,7 @@ def _iso_from_ns(ns: int) -> str:
 
 def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrite: bool = False,
                      input_kind: str = "iq", datatype: str | None = None, sample_rate_hz: float | None = None,
-                     start: str | None = None, progress: bool = False) -> DecodeSummary:
+                     start: str | None = None, progress: bool = False, threads: int = 1) -> DecodeSummary:
     """Decode ``recording`` with ``profile`` into the folder ``out`` (see ../shared/DESIGN.md outputs).
 
     The folder appears only when the run completes; an existing folder needs ``overwrite``.
@@ -501,15 +501,17 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
         bar = _Progress(total, enabled=progress)
         try:
             if input_kind == "iq":
-                for chunk in rec.chunks(profile.receiver.chunk_samples):
-                    chain.process_chunk(chunk)
-                    bar.update(chunk.start + len(chunk.samples))
+                from pipeline._parallel import run_chain
+
+                # IQ recordings are decoded in fixed overlapping segments (pipeline/_parallel.py); the
+                # output depends on the segment size only, never on the number of threads.
+                run_chain(chain, rec, threads=threads, mode="segments", on_progress=bar.update)
             else:
                 for chunk in syms.chunks(profile.receiver.chunk_samples):
                     pos = chunk.start + np.arange(len(chunk.soft), dtype=np.float64)
                     chain.process_soft(chunk.soft, pos)
                     bar.update(chunk.start + len(chunk.soft))
-            chain.finish()
+                chain.finish()
         finally:
             bar.close()
             chain.sinks.close()

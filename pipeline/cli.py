@@ -81,6 +81,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--profile", required=True, help="link profile (TOML)")
     p.add_argument("--out", required=True, help="output folder (created; refused if it exists)")
     p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--threads", type=int, default=1, metavar="N",
+                   help="worker processes for an IQ recording (default 1); the output does not depend on N")
     p.add_argument("--input", dest="input_kind", choices=["iq", "soft", "bits"], default="iq",
                    help="iq: complex samples (default); soft: int8 per channel symbol, + means bit 0; "
                         "bits: packed hard channel bits, MSB first")
@@ -175,6 +177,8 @@ def _load_profile(path: str):
 
 def _cmd_decode(args) -> int:
     profile = _load_profile(args.profile)
+    if not 1 <= args.threads <= 64:
+        raise ProfileError(f"--threads must be 1..64, not {args.threads}")
     from pipeline._chain import decode_to_folder
 
     summary = decode_to_folder(
@@ -187,6 +191,7 @@ def _cmd_decode(args) -> int:
         sample_rate_hz=args.sample_rate_hz,
         start=args.start,
         progress=not args.quiet and sys.stderr.isatty(),
+        threads=args.threads,
     )
     if not args.quiet:
         print(summary.line(), file=sys.stderr)

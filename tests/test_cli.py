@@ -102,3 +102,18 @@ def test_inspect_json_and_plots(tmp_path, capsys):
     assert info["lock_fraction"] > 0.9
     for png in ("spectrum.png", "constellation.png"):
         assert (tmp_path / "plots" / png).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_decode_threads_give_the_same_output(tmp_path, capsys):
+    from test_end_to_end import _write_profile, small_profile
+
+    prof = _write_profile(tmp_path, small_profile("bpsk", "concatenated", "nrz-m", seconds=1.0))
+    assert main(["simulate", "--profile", str(prof), "--out", str(tmp_path / "sim"), "-q"]) == 0
+    meta = str(tmp_path / "sim" / "recording.sigmf-meta")
+    for n in (1, 2):
+        assert main(["decode", meta, "--profile", str(prof), "--out", str(tmp_path / f"o{n}"), "--threads", str(n),
+                     "-q"]) == 0
+    for name in ("packets.jsonl", "frames.jsonl", "doppler.csv"):
+        assert (tmp_path / "o1" / name).read_bytes() == (tmp_path / "o2" / name).read_bytes()
+    assert main(["decode", meta, "--profile", str(prof), "--out", str(tmp_path / "o3"), "--threads", "0"]) \
+        == ExitCode.BAD_INPUT
