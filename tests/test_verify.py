@@ -127,8 +127,13 @@ def test_missing_folder_is_one_line_error(tmp_path):
 
 @pytest.mark.kat
 def test_default_dir_is_checkout_or_bundle():
+    import pipeline
+
     d = default_vectors_dir()
-    assert d.is_dir() and d in (REPO / "vectors", REPO / "pipeline" / "data" / "vectors")
+    # a checkout (editable install) uses vectors/; an installed package (pip install ., as in CI) its bundle
+    installed = Path(pipeline.__file__).parent / "data" / "vectors"
+    assert d.is_dir() and d in (REPO / "vectors", REPO / "pipeline" / "data" / "vectors", installed)
+    assert len(list(d.rglob("*.json"))) >= 20
     assert _verify.NOT_AVAILABLE
 
 
