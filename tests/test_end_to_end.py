@@ -126,6 +126,8 @@ def test_nothing_decodes_from_noise(tmp_path):
     assert (out / "packets.jsonl").read_text() == ""
     report = json.loads((out / "report.json").read_text())
     assert report["summary"]["packets"] == 0
+    assert "no lock was found" in report["demod"]["note"]
+    assert "no lock was found" in (out / "report.html").read_text()
 
 
 def test_input_bits_from_an_independent_transmitter(tmp_path):
