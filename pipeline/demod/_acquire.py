@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 
-__all__ = ["CarrierEstimate", "estimate_carrier_offset"]
+__all__ = ["CarrierEstimate", "estimate_carrier_offset", "spectral_line"]
 
 from dataclasses import dataclass
 
@@ -75,15 +75,30 @@ def estimate_carrier_offset(samples: np.ndarray, *, sample_rate_hz: float, power
     if rms == 0.0:
         return CarrierEstimate(0.0, 0.0, False)
     y = (x / rms) ** power
+    f_line, ratio = spectral_line(y, sample_rate_hz=sample_rate_hz, search_hz=power * search_hz)
+    return CarrierEstimate(f_line / power, ratio, ratio >= threshold)
+
+
+def spectral_line(y: np.ndarray, *, sample_rate_hz: float, search_hz: float) -> tuple[float, float]:
+    """Frequency of the strongest spectral line of ``y`` within ``+- search_hz``, and its peak/median ratio.
+
+    Hann window, zero-padded FFT of twice the length (next power of two), peak bin refined by a
+    parabola through the log-power of the peak and its two neighbours.  The ratio is 0 for an
+    all-zero input and infinite when the median of the searched bins is 0 but the peak is not.
+    Cost O(n log n).
+    """
     n = y.size
     nfft = 1 << int(math.ceil(math.log2(2 * n)))
     spec = np.abs(np.fft.fft(y * np.hanning(n), nfft)) ** 2
     freqs = np.fft.fftfreq(nfft, d=1.0 / sample_rate_hz)
-    band = np.abs(freqs) <= min(power * search_hz, 0.5 * sample_rate_hz)
+    band = np.abs(freqs) <= min(search_hz, 0.5 * sample_rate_hz)
     idx = np.flatnonzero(band)
     k = int(idx[np.argmax(spec[idx])])
     med = float(np.median(spec[idx]))
-    ratio = float(spec[k] / med) if med > 0 else float("inf")
+    if med > 0:
+        ratio = float(spec[k] / med)
+    else:
+        ratio = float("inf") if spec[k] > 0 else 0.0
     lo, mid, hi = spec[(k - 1) % nfft], spec[k], spec[(k + 1) % nfft]
     delta = 0.0
     if lo > 0 and mid > 0 and hi > 0:
@@ -94,4 +109,4 @@ def estimate_carrier_offset(samples: np.ndarray, *, sample_rate_hz: float, power
     f_line = (k + delta) * sample_rate_hz / nfft
     if f_line >= 0.5 * sample_rate_hz:
         f_line -= sample_rate_hz
-    return CarrierEstimate(f_line / power, ratio, ratio >= threshold)
+    return f_line, ratio

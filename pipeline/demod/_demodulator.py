@@ -22,7 +22,7 @@ from pipeline.demod._kernels import (
 from pipeline.demod._snr import estimate_esn0_m2m4
 from pipeline.profile import LinkSection, ReceiverSection
 
-__all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats"]
+__all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "check_chunk"]
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
 _RRC_SPAN_SYMBOLS = 8
@@ -94,6 +94,23 @@ class DemodStats:
 
 def _next_pow2(n: float) -> int:
     return 1 << max(0, int(math.ceil(math.log2(max(1.0, n)))))
+
+
+def check_chunk(chunk: Any) -> tuple[np.ndarray, int]:
+    """Validate a chunk (``samples`` complex 1-D, ``start`` int >= 0): contiguous complex64 samples, start."""
+    try:
+        samples = chunk.samples
+        start = chunk.start
+    except AttributeError:
+        raise TypeError(f"Argument 'chunk' must have 'samples' and 'start', not {type(chunk).__name__}.") from None
+    samples = np.asarray(samples)
+    if samples.ndim != 1:
+        raise ValueError(f"Argument 'chunk.samples' must be one-dimensional, not shape {samples.shape}.")
+    if not np.iscomplexobj(samples):
+        raise TypeError(f"Argument 'chunk.samples' must be complex, not {samples.dtype}.")
+    if isinstance(start, bool) or not isinstance(start, (int, np.integer)) or start < 0:
+        raise ValueError(f"Argument 'chunk.start' must be a non-negative integer, not {start!r}.")
+    return np.ascontiguousarray(samples, dtype=np.complex64), int(start)
 
 
 class Demodulator:
@@ -298,19 +315,7 @@ class Demodulator:
 
     # ---- internals ---------------------------------------------------------------------
     def _check_chunk(self, chunk: Any) -> tuple[np.ndarray, int]:
-        try:
-            samples = chunk.samples
-            start = chunk.start
-        except AttributeError:
-            raise TypeError(f"Argument 'chunk' must have 'samples' and 'start', not {type(chunk).__name__}.") from None
-        samples = np.asarray(samples)
-        if samples.ndim != 1:
-            raise ValueError(f"Argument 'chunk.samples' must be one-dimensional, not shape {samples.shape}.")
-        if not np.iscomplexobj(samples):
-            raise TypeError(f"Argument 'chunk.samples' must be complex, not {samples.dtype}.")
-        if isinstance(start, bool) or not isinstance(start, (int, np.integer)) or start < 0:
-            raise ValueError(f"Argument 'chunk.start' must be a non-negative integer, not {start!r}.")
-        return np.ascontiguousarray(samples, dtype=np.complex64), int(start)
+        return check_chunk(chunk)
 
     def _feed_block(self, block: np.ndarray, parts: list, final: bool = False) -> None:
         # the sum is NaN/Inf when any sample is (or, harmlessly, on float32 overflow)

@@ -9,6 +9,8 @@ from typing import Any
 import numpy as np
 
 from pipeline.demod import DemodStats, Demodulator, SymbolBlock, TrackPoint, estimate_carrier_offset
+from pipeline.demod._acquire import spectral_line
+from pipeline.demod._demodulator import check_chunk
 from pipeline.demod.residual._kernels import (
     CARRIER_PARAM_SIZE,
     CARRIER_STATE_SIZE,
@@ -381,19 +383,7 @@ class ResidualCarrierDemodulator:
 
     # ---- internals ---------------------------------------------------------------------
     def _check_chunk(self, chunk: Any) -> tuple[np.ndarray, int]:
-        try:
-            samples = chunk.samples
-            start = chunk.start
-        except AttributeError:
-            raise TypeError(f"Argument 'chunk' must have 'samples' and 'start', not {type(chunk).__name__}.") from None
-        samples = np.asarray(samples)
-        if samples.ndim != 1:
-            raise ValueError(f"Argument 'chunk.samples' must be one-dimensional, not shape {samples.shape}.")
-        if not np.iscomplexobj(samples):
-            raise TypeError(f"Argument 'chunk.samples' must be complex, not {samples.dtype}.")
-        if isinstance(start, bool) or not isinstance(start, (int, np.integer)) or start < 0:
-            raise ValueError(f"Argument 'chunk.start' must be a non-negative integer, not {start!r}.")
-        return np.ascontiguousarray(samples, dtype=np.complex64), int(start)
+        return check_chunk(chunk)
 
     def _acquire(self, block: np.ndarray, gain: float) -> bool:
         """Carrier frequency, phase and amplitude (and subcarrier phase) from one block; True if found."""
@@ -402,23 +392,8 @@ class ResidualCarrierDemodulator:
         n = block.size
         x = block.astype(np.complex128) * gain
         if self.residual:
-            nfft = _next_pow2(2 * n)
-            spec = np.abs(np.fft.fft(x * np.hanning(n), nfft)) ** 2
-            freqs = np.fft.fftfreq(nfft, d=1.0 / fs)
-            idx = np.flatnonzero(np.abs(freqs) <= min(self.acquisition_search_hz, 0.5 * fs))
-            k = int(idx[np.argmax(spec[idx])])
-            med = float(np.median(spec[idx]))
-            ratio = float(spec[k] / med) if med > 0 else 0.0
-            lo, mid, hi = spec[(k - 1) % nfft], spec[k], spec[(k + 1) % nfft]
-            delta = 0.0
-            if lo > 0 and mid > 0 and hi > 0:
-                la, lb, lc = math.log(lo), math.log(mid), math.log(hi)
-                den = la - 2.0 * lb + lc
-                if den < 0:
-                    delta = 0.5 * (la - lc) / den
-            f_hz = (k + delta) * fs / nfft
-            if f_hz >= 0.5 * fs:
-                f_hz -= fs
+            # the residual carrier itself is the line (no mean removal, no squaring)
+            f_hz, ratio = spectral_line(x, sample_rate_hz=fs, search_hz=self.acquisition_search_hz)
             found = ratio >= _ACQ_THRESHOLD
         else:
             taps = np.ones(max(1, int(round(self.chip_samples))), dtype=np.float64)
