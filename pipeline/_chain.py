@@ -258,8 +258,9 @@ class DecodeChain:
                 self.track_modulation_index.append(float(m))
             locked = bool(tp.carrier_locked and tp.symbol_locked)
             if locked != self._was_locked:
-                self.events.append({"event": "demod lock acquired" if locked else "demod lock lost",
-                                    "position": float(tp.position)})
+                self.events.append({"kind": "demod_lock_acquired" if locked else "demod_lock_lost",
+                                    "position": float(tp.position),
+                                    "detail": f"carrier {tp.carrier_offset_hz:.1f} Hz" if locked else ""})
                 self._was_locked = locked
         if len(block.locked):
             self.locked_symbols += int(np.count_nonzero(block.locked))
