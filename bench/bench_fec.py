@@ -4,8 +4,9 @@ Run: ``python bench/bench_fec.py [--bits N] [--repeat R] [--viterbi-only]``.  Fi
 kernel is called once before timing (JIT compile and cache load stay outside the timed part); each
 figure is the best CPU time of R runs.  Rates are information bits out for decoders (Viterbi:
 decoded bits; RS: codeblock bits in, the CCSDS convention for decoder throughput).  The Viterbi
-rows end with the kernels of one 16384-step block timed alone (quantiser, add-compare-select,
-traceback), which is where the time of a decode goes.
+rows end with the kernels of one 16384-step block timed alone (quantiser, the portable and the
+vector add-compare-select, traceback), which is where the time of a decode goes; the decoder uses
+the vector one.
 
 For scale, the Viterbi rows include a portable scalar C decoder written for this benchmark
 (int32 metrics, one byte per decision, textbook add-compare-select), compiled with ``gcc -O2``
@@ -155,7 +156,7 @@ def bench_viterbi(n_bits, repeat, rng):
 
 
 def bench_viterbi_kernels(soft, repeat):
-    """The three kernels of one r=1/2 block of 16384 steps (inputs in cache), one call each."""
+    """The kernels of one r=1/2 block of 16384 steps (inputs in cache), one call each."""
     from pipeline.fec._viterbi import _QUANT_LEVEL, _new_work
 
     n_steps = 16384
@@ -171,6 +172,11 @@ def bench_viterbi_kernels(soft, repeat):
     t = best_of(lambda: [fec_kernels.viterbi_acs_kernel(sym, n_steps, _new_work(), words) for _ in range(reps)],
                 repeat)
     row("  viterbi_acs_kernel (radix-4 add-compare-select)", reps * n_steps, "Mbit/s", t,
+        f"({t / reps / n_steps * 1e9:.2f} ns/bit)")
+    no_ahead = np.zeros(0, np.float32)
+    t = best_of(lambda: [fec_kernels.viterbi_acs_vector_kernel(sym, n_steps, _new_work(), words, no_ahead)
+                         for _ in range(reps)], repeat)
+    row("  viterbi_acs_vector_kernel (LLVM vector IR; the decoder's)", reps * n_steps, "Mbit/s", t,
         f"({t / reps / n_steps * 1e9:.2f} ns/bit)")
     t = best_of(lambda: [fec_kernels.viterbi_traceback_kernel(words, n_steps, 0, n_steps - 96, out)
                          for _ in range(reps)], repeat)

@@ -155,7 +155,7 @@ def test_viterbi_kernels(rng):
         words_b = np.zeros(steps34 + 40, np.uint64)
         out = np.zeros(steps34, np.uint8)
         n = f(soft34, _QUANT_LEVEL, np.zeros(n_sym, np.int8), positions, np.full(2 * n_steps, 99, np.int8), steps34,
-              work_b, words_b, 0, 40, out)
+              work_b, words_b, 0, 40, out, rng.normal(0, 1, 50).astype(np.float32))
         assert n == steps34 - 40 and np.array_equal(out[:n], expect)
         assert np.array_equal(work_b, work) and np.array_equal(words_b[:40], words[steps34 - 40 : steps34])
     dp = []
@@ -170,7 +170,7 @@ def test_viterbi_kernels(rng):
 def test_every_kernel_is_covered(name):
     covered = {"conv_encode_kernel", "pn_bits_kernel", "crc16_kernel", "rs_remainder_kernel", "rs_decode_kernel",
                "soft_quantize_kernel", "depuncture_kernel", "viterbi_acs_kernel", "viterbi_traceback_kernel",
-               "viterbi_block_kernel"}
+               "viterbi_block_kernel", "viterbi_acs_vector_kernel"}
     assert name in covered
 
 
@@ -202,3 +202,47 @@ def test_viterbi_acs_metrics_stay_exact_at_full_scale():
         got = (words[t] >> bit_of_state) & np.uint64(1)
         assert np.array_equal(got.astype(np.uint8), dec), t
     assert np.array_equal(work[:64].astype(np.int64), pm - pm[0])
+
+
+@pytest.mark.parametrize("rate", ["1/2", "2/3", "3/4", "5/6", "7/8"])
+def test_viterbi_acs_vector_kernel_equals_acs_kernel(rate):
+    # The LLVM vector add-compare-select against viterbi_acs_kernel, bit for bit (metrics after
+    # renormalisation and every decision word), on the depunctured streams the decoder feeds it:
+    # noisy codewords of each rate quantised as ViterbiDecoder does (punctured symbols are
+    # erasures), pure noise, full-scale +-127 and -128, from equal, random and known-state
+    # metrics, over step counts around the 32-step renormalisation and 256-step sub-block edges.
+    from pipeline.fec._viterbi import _QUANT_LEVEL, _rate_layout
+
+    rng = np.random.default_rng(77)
+    _, block_steps, positions, steps_after = _rate_layout(rate)
+    for n_steps in (0, 1, 7, 31, 32, 33, 255, 256, 257, 301, 1000):
+        n_sym = int(np.searchsorted(steps_after, n_steps, side="left"))  # symbols completing n_steps branches
+        bits = rng.integers(0, 2, n_steps + 8, dtype=np.uint8)
+        chan = conv_encode(bits, rate)[:n_sym].astype(np.float32)
+        kinds = {
+            "codeword": (1 - 2 * chan) + rng.normal(0, 0.7, n_sym).astype(np.float32),
+            "noise": rng.normal(0, 1, n_sym).astype(np.float32),
+        }
+        for kind, soft in kinds.items():
+            q = np.zeros(n_sym, np.int8)
+            K.soft_quantize_kernel(soft, _QUANT_LEVEL, q)
+            mother = np.zeros(2 * n_steps, np.int8)
+            K.depuncture_kernel(q, positions[:n_sym], mother)
+            streams = [mother]
+            if kind == "noise":
+                streams.append(rng.choice(np.array([-128, -127, 127], np.int8), 2 * n_steps))
+            for sym in streams:
+                for start in ("equal", "random", "known"):
+                    work = _new_work()
+                    if start == "random":
+                        work[:64] = rng.integers(-3000, 3000, 64)
+                    elif start == "known":
+                        work[:64] = -8192
+                        work[int(rng.integers(0, 64))] = 0
+                    ref_work, ref_words = work.copy(), np.full(n_steps + 2, 7, np.uint64)
+                    K.viterbi_acs_kernel(sym, n_steps, ref_work, ref_words[1:])
+                    got_work, got_words = work.copy(), np.full(n_steps + 2, 7, np.uint64)
+                    ahead = rng.normal(0, 1, int(rng.integers(0, 3000))).astype(np.float32)
+                    K.viterbi_acs_vector_kernel(sym, n_steps, got_work, got_words[1:], ahead)
+                    assert np.array_equal(got_work, ref_work), (rate, n_steps, kind, start)
+                    assert np.array_equal(got_words, ref_words), (rate, n_steps, kind, start)  # nothing outside

@@ -51,6 +51,8 @@ _SIGN_TABLES.flags.writeable = False
 # rate 1/2: nothing to depuncture
 _NO_POSITIONS = np.zeros(0, dtype=np.int64)
 _NO_POSITIONS.flags.writeable = False
+_NO_SOFT = np.zeros(0, dtype=np.float32)  # nothing to prefetch
+_NO_SOFT.flags.writeable = False
 
 
 def _new_work() -> np.ndarray:
@@ -110,8 +112,9 @@ class ViterbiDecoder:
     reset (whole puncturing periods); each block is scaled so its mean magnitude is 32, rounded to
     int8 and depunctured (punctured positions become erasures).  Since the blocks do not depend on
     how the input is chunked, the output is the same for any chunking.  The 64-state trellis is
-    searched with correlation metrics in int16 (add-compare-select, 32 butterflies per step,
-    computed two steps at a time over 16 vector lanes; ties keep the lower predecessor);
+    searched with correlation metrics in int16 (add-compare-select, 32 butterflies per step as
+    32-lane vector operations with the metrics in registers, written as LLVM vector IR; ties
+    keep the lower predecessor);
     after each block the survivor of the best state is traced back and all but the last
     ``traceback_depth`` bits are released.  ``flush`` releases the rest by tracing back from the
     best final state (the code is not terminated).  Each block is one kernel call that releases
@@ -164,15 +167,18 @@ class ViterbiDecoder:
         self.bits_out = 0
 
     # ---- internals ---------------------------------------------------------------------------
-    def _run_block(self, soft: np.ndarray, final: bool, out: np.ndarray, at: int) -> int:
-        """Decode one block (or the final partial one); write the released bits to ``out[at:]``."""
+    def _run_block(self, soft: np.ndarray, final: bool, out: np.ndarray, at: int, ahead: np.ndarray = _NO_SOFT) -> int:
+        """Decode one block (or the final partial one); write the released bits to ``out[at:]``.
+
+        ``ahead`` is the input that follows, if already at hand: the kernel prefetches it.
+        """
         n_sym = soft.shape[0]
         n_steps = int(self._steps_after[n_sym]) if n_sym < self._block_symbols else self._block_steps
         rows = self._rows + n_steps
         keep = 0 if final else min(self.traceback_depth, rows)
         positions = self._positions if self._punctured else _NO_POSITIONS
         n_emit = viterbi_block_kernel(soft, _QUANT_LEVEL, self._quant, positions, self._mother, n_steps, self._work,
-                                      self._words, self._rows, keep, out[at:])
+                                      self._words, self._rows, keep, out[at:], ahead)
         self._rows = keep if n_emit > 0 else rows
         return int(n_emit)
 
@@ -187,7 +193,8 @@ class ViterbiDecoder:
         pos = 0
         while pos < n:
             if self._fill == 0 and n - pos >= B:
-                n_out += self._run_block(soft[pos : pos + B], False, out, n_out)  # whole block: no copy
+                ahead = soft[pos + B : pos + 2 * B]
+                n_out += self._run_block(soft[pos : pos + B], False, out, n_out, ahead)  # whole block: no copy
                 pos += B
                 continue
             take = min(B - self._fill, n - pos)
