@@ -202,7 +202,7 @@ class ViterbiDecoder:
             self._fill += take
             pos += take
             if self._fill == B:
-                n_out += self._run_block(self._pending, False, out, n_out)
+                n_out += self._run_block(self._pending, False, out, n_out, soft[pos : pos + B])
                 self._fill = 0
         if final:
             n_out += self._run_block(self._pending[: self._fill], True, out, n_out)
