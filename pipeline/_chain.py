@@ -13,6 +13,7 @@ the recording.  Time stays a sample position until a frame or packet is written;
 from __future__ import annotations
 
 import bisect
+import csv
 import json
 import math
 import sys
@@ -25,6 +26,7 @@ import numpy as np
 
 from pipeline._output import OutputFolder
 from pipeline._version import __version__
+from pipeline.demod.residual import DOPPLER_COLUMNS, doppler_rows
 from pipeline.errors import ProfileError, RecordingError
 from pipeline.profile import LinkProfile
 
@@ -87,10 +89,6 @@ class _Sinks:
 
     def doppler(self, rows: list[dict]) -> None:
         """Append rows to doppler.csv (the carrier-frequency track: one-way Doppler and range rate)."""
-        import csv
-
-        from pipeline.demod.residual import DOPPLER_COLUMNS
-
         if self.doppler_file is None:
             self.doppler_file = open(self.folder / "doppler.csv", "w", encoding="utf-8", newline="")
             self._doppler_csv = csv.DictWriter(self.doppler_file, fieldnames=list(DOPPLER_COLUMNS))
@@ -218,10 +216,8 @@ class DecodeChain:
         self._bits(bits, pos)
         for cadu in self.fsync.flush():
             self._cadu(cadu)
-        flush = getattr(self.extractor, "flush", None)
-        if flush is not None:
-            for pkt in flush() or ():
-                self._packet(pkt)
+        for pkt in self.extractor.flush():
+            self._packet(pkt)
 
     # ---- internals ------------------------------------------------------------------------
     def _make_spectrum(self) -> None:
@@ -242,8 +238,6 @@ class DecodeChain:
 
     def _symbols(self, block) -> None:
         if self.sinks is not None and block.track and self.timebase is not None:
-            from pipeline.demod.residual import doppler_rows
-
             rows = doppler_rows(block.track, self.timebase, self.doppler_frequency_hz,
                                 tuning_offset_hz=self.doppler_tuning_offset_hz)
             self.sinks.doppler(rows)
@@ -281,14 +275,11 @@ class DecodeChain:
         # CCSDS 131.0-B-2 sec. 3.3.3: NRZ-M conversion is done at the convolutional encoder input,
         # so it is undone at the decoder output (uncoded links: the same place, on channel bits).
         bits = self.line.process(bits)
-        was = self.fsync.locked if hasattr(self.fsync, "locked") else None
+        was = self.fsync.locked
         for cadu in self.fsync.process(bits, pos):
             self._cadu(cadu)
-        now = self.fsync.locked if hasattr(self.fsync, "locked") else None
-        if was and not now:
-            notify = getattr(self.branch, "notify_lost_lock", None)
-            if notify is not None:
-                notify()
+        if was and not self.fsync.locked:
+            self.branch.notify_lost_lock()
 
     def _esn0_at(self, position: float) -> float | None:
         i = bisect.bisect_right(self.track_position, position) - 1
@@ -303,9 +294,8 @@ class DecodeChain:
         self.cadu_count += 1
         decoded = self.codeblock.process(cadu)
         record = self.parser.process(decoded)
-        gaps = self.accounting.process(record) or []
-        for g in gaps:
-            gd = g.as_dict() if hasattr(g, "as_dict") else dict(g.__dict__)
+        for g in self.accounting.process(record):
+            gd = g.as_dict()
             gd["ert"] = self._ert(gd.get("position", cadu.position))
             self.gaps.append(gd)
         self.frame_count += 1
@@ -315,7 +305,7 @@ class DecodeChain:
             fd["ert"] = self._ert(record.position)
             fd["esn0_db"] = self._esn0_at(record.position)
             self.sinks.frame(fd)
-        for pkt in self.extractor.process(record) or ():
+        for pkt in self.extractor.process(record):
             self._packet(pkt)
         for sg in self.extractor.take_sequence_gaps():
             gd = sg.as_dict()
@@ -383,22 +373,19 @@ class DecodeChain:
             demod["note"] = "no lock was found: no carrier or symbol lock anywhere in the recording"
         sync_stats = {}
         for stage_name, stage in (("branch", self.branch), ("frame_sync", self.fsync), ("codeblock", self.codeblock)):
-            st = getattr(stage, "stats", None)
-            if st is not None:
-                for k, v in (st.as_dict() if hasattr(st, "as_dict") else dict(st.__dict__)).items():
-                    sync_stats[f"{stage_name}.{k}"] = v
+            for k, v in stage.stats.as_dict().items():
+                sync_stats[f"{stage_name}.{k}"] = v
+        all_events = list(self.events)
         for stage in (self.branch, self.fsync):
-            for ev in getattr(stage, "events", []) or []:
-                e = ev if isinstance(ev, dict) else (ev.as_dict() if hasattr(ev, "as_dict") else dict(ev.__dict__))
-                self.events.append(e)
+            all_events.extend(ev.as_dict() for ev in stage.events)
         events = []
-        for e in sorted(self.events, key=lambda e: float(e.get("position", 0.0))):
+        for e in sorted(all_events, key=lambda e: float(e.get("position", 0.0))):
             e = dict(e)
             if "position" in e and self.timebase is not None:
                 e["ert"] = self._ert(float(e["position"]))
             events.append(e)
-        acc = self.accounting.as_dict() if hasattr(self.accounting, "as_dict") else {}
-        pstats = self.extractor.stats.as_dict() if hasattr(self.extractor, "stats") else {}
+        acc = self.accounting.as_dict()
+        pstats = self.extractor.stats.as_dict()
         report = {
             "summary": {
                 "tool": f"downlink {__version__}",
@@ -448,12 +435,6 @@ class DecodeChain:
         return report, plots
 
 
-def _iso_from_ns(ns: int) -> str:
-    from pipeline.packets import format_ert
-
-    return format_ert(int(ns))
-
-
 def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrite: bool = False,
                      input_kind: str = "iq", datatype: str | None = None, sample_rate_hz: float | None = None,
                      start: str | None = None, progress: bool = False, threads: int = 1) -> DecodeSummary:
@@ -461,6 +442,7 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
 
     The folder appears only when the run completes; an existing folder needs ``overwrite``.
     """
+    from pipeline.packets import format_ert
     from pipeline.report import write_report
 
     summary = DecodeSummary(input_kind=input_kind, out=str(out))
@@ -472,12 +454,11 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
         total = rec.num_samples
         info = {
             "path": Path(rec.path).name, "datatype": rec.datatype, "sample_rate_hz": rec.sample_rate_hz,
-            "samples": rec.num_samples, "duration_s": rec.duration_s, "start": _iso_from_ns(rec.start_ns),
+            "samples": rec.num_samples, "duration_s": rec.duration_s, "start": format_ert(rec.start_ns),
             "frequency_hz": rec.frequency_hz, "captures": len(rec.captures),
         }
     else:
         from pipeline.recording import open_symbols
-        from pipeline.recording._time import parse_iso_ns  # noqa: F401  (validated below)
 
         if sample_rate_hz is not None or datatype is not None:
             raise ProfileError("--format and --sample-rate apply to --input iq only; channel symbols are timed by "
@@ -488,7 +469,7 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
         bps = profile.link.bits_per_symbol
         timebase = SymbolTimebase(start_ns=start_ns, channel_bit_rate=profile.link.symbol_rate_baud * bps)
         info = {"path": Path(recording).name, "input": input_kind, "channel_symbols": total,
-                "duration_s": total / timebase.channel_bit_rate, "start": _iso_from_ns(start_ns)}
+                "duration_s": total / timebase.channel_bit_rate, "start": format_ert(start_ns)}
     with OutputFolder(out, overwrite=overwrite) as tmp:
         if input_kind == "iq":
             chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)

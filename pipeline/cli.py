@@ -264,7 +264,9 @@ def _cmd_inspect(args) -> int:
         write_inspect_plots(result, args.plot)
     shown = {k: v for k, v in result.items() if k != "plots"}
     if args.json:
-        print(json.dumps(_jsonable(shown), indent=None))
+        from pipeline.report import jsonable
+
+        print(json.dumps(jsonable(shown), indent=None))
     else:
         width = max(len(k) for k in shown)
         for key, value in shown.items():
@@ -300,22 +302,6 @@ def _cmd_batch(args) -> int:
     profile = _load_profile(args.profile)
     return run_batch(args.recordings, profile, args.profile, args.out, scheduler=args.scheduler,
                      workers=args.workers, quiet=args.quiet)
-
-
-def _jsonable(value):
-    import numpy as np
-
-    if isinstance(value, dict):
-        return {str(k): _jsonable(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_jsonable(v) for v in value]
-    if isinstance(value, np.generic):
-        return value.item()
-    if isinstance(value, np.ndarray):
-        return value.tolist()
-    if isinstance(value, float) and value != value:
-        return None
-    return value
 
 
 # ---- entry point -------------------------------------------------------------------------

@@ -22,7 +22,7 @@ from pipeline.demod._kernels import (
 from pipeline.demod._snr import estimate_esn0_m2m4
 from pipeline.profile import LinkSection, ReceiverSection
 
-__all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "check_chunk"]
+__all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "check_chunk", "continue_stream", "cut_blocks"]
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
 _RRC_SPAN_SYMBOLS = 8
@@ -111,6 +111,20 @@ def check_chunk(chunk: Any) -> tuple[np.ndarray, int]:
     if isinstance(start, bool) or not isinstance(start, (int, np.integer)) or start < 0:
         raise ValueError(f"Argument 'chunk.start' must be a non-negative integer, not {start!r}.")
     return np.ascontiguousarray(samples, dtype=np.complex64), int(start)
+
+
+def continue_stream(next_start: int | None, start: int) -> None:
+    """Raise unless a chunk starting at ``start`` continues a stream expected at ``next_start``."""
+    if next_start is not None and start != next_start:
+        raise ValueError(f"Argument 'chunk' must continue the stream at sample {next_start}, not start at {start}.")
+
+
+def cut_blocks(pending: np.ndarray, samples: np.ndarray, block_samples: int) -> tuple[list[np.ndarray], np.ndarray]:
+    """``pending`` then ``samples`` cut into full blocks of ``block_samples``, and the rest (an own copy)."""
+    buf = np.concatenate([pending, samples]) if pending.size else samples
+    nfull = buf.size // block_samples
+    blocks = [buf[j * block_samples:(j + 1) * block_samples] for j in range(nfull)]
+    return blocks, np.array(buf[nfull * block_samples:], dtype=np.complex64)
 
 
 class Demodulator:
@@ -273,26 +287,20 @@ class Demodulator:
             raise ValueError("Argument 'chunk' cannot be processed after flush(); call reset() first.")
         samples, start = self._check_chunk(chunk)
         self.stats.nonfinite_samples += int(getattr(chunk, "nonfinite", 0) or 0)
+        continue_stream(self._next_start, start)
         if self._next_start is None:
-            self._next_start = start
             self._stream_start = start
             self._pending_start = start
             self._mf_tail_base = start - self.filter_delay_samples
             self._sf[0] = float(start)
             self._run_sample = start
-        elif start != self._next_start:
-            raise ValueError(f"Argument 'chunk' must continue the stream at sample {self._next_start}, "
-                             f"not start at {start}.")
         self._next_start = start + samples.size
         self.stats.samples_in += samples.size
-        buf = np.concatenate([self._pending, samples]) if self._pending.size else samples
+        blocks, self._pending = cut_blocks(self._pending, samples, self.block_samples)
         parts: list[dict] = []
-        b = self.block_samples
-        nfull = buf.size // b
-        for j in range(nfull):
-            self._feed_block(buf[j * b:(j + 1) * b], parts)
-        self._pending = np.array(buf[nfull * b:], dtype=np.complex64)
-        self._pending_start += nfull * b
+        for block in blocks:
+            self._feed_block(block, parts)
+        self._pending_start += len(blocks) * self.block_samples
         return self._assemble(parts)
 
     def flush(self) -> SymbolBlock:

@@ -82,6 +82,22 @@ def rrc_pulse(x, rolloff: float) -> np.ndarray:
     return out
 
 
+def _check_clock_args(sample_rate_hz, timing_offset, clock_offset_ppm, amplitude) -> None:
+    """The argument checks every modulator shares (one wording for bad calls, STYLE.md rule 6)."""
+    for name, value in (("sample_rate_hz", sample_rate_hz), ("timing_offset", timing_offset),
+                        ("clock_offset_ppm", clock_offset_ppm), ("amplitude", amplitude)):
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+            raise TypeError(f"Argument '{name}' must be a finite number, not {value!r}.")
+    if sample_rate_hz <= 0:
+        raise ValueError(f"Argument 'sample_rate_hz' must be > 0, not {sample_rate_hz}.")
+    if timing_offset < 0:
+        raise ValueError(f"Argument 'timing_offset' must be >= 0 symbol periods, not {timing_offset}.")
+    if not -1000.0 <= clock_offset_ppm <= 1000.0:
+        raise ValueError(f"Argument 'clock_offset_ppm' must be -1000..1000, not {clock_offset_ppm}.")
+    if amplitude <= 0:
+        raise ValueError(f"Argument 'amplitude' must be > 0, not {amplitude}.")
+
+
 @dataclass(frozen=True)
 class ModulatorOutput:
     """Final samples of one :meth:`Modulator.process` call.
@@ -143,18 +159,7 @@ class Modulator:
         if link.line_code == "bi-phase-l" and link.modulation != "bpsk":
             raise ValueError(f"Argument 'link' line_code 'bi-phase-l' needs modulation bpsk (or a residual-carrier "
                              f"mode), not {link.modulation!r}.")
-        for name, value in (("sample_rate_hz", sample_rate_hz), ("timing_offset", timing_offset),
-                            ("clock_offset_ppm", clock_offset_ppm), ("amplitude", amplitude)):
-            if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-                raise TypeError(f"Argument '{name}' must be a finite number, not {value!r}.")
-        if sample_rate_hz <= 0:
-            raise ValueError(f"Argument 'sample_rate_hz' must be > 0, not {sample_rate_hz}.")
-        if timing_offset < 0:
-            raise ValueError(f"Argument 'timing_offset' must be >= 0 symbol periods, not {timing_offset}.")
-        if not -1000.0 <= clock_offset_ppm <= 1000.0:
-            raise ValueError(f"Argument 'clock_offset_ppm' must be -1000..1000, not {clock_offset_ppm}.")
-        if amplitude <= 0:
-            raise ValueError(f"Argument 'amplitude' must be > 0, not {amplitude}.")
+        _check_clock_args(sample_rate_hz, timing_offset, clock_offset_ppm, amplitude)
         if not isinstance(span_symbols, int) or not 2 <= span_symbols <= 64:
             raise ValueError(f"Argument 'span_symbols' must be an integer 2..64, not {span_symbols!r}.")
         if not isinstance(table_step, int) or not 16 <= table_step <= 8192:
@@ -369,18 +374,7 @@ class ResidualCarrierModulator:
         if link.modulation not in ("pcm-pm", "pcm-psk-pm"):
             raise ValueError(f"Argument 'link' modulation must be pcm-pm or pcm-psk-pm for the residual-carrier "
                              f"modulator, not {link.modulation!r}.")
-        for name, value in (("sample_rate_hz", sample_rate_hz), ("timing_offset", timing_offset),
-                            ("clock_offset_ppm", clock_offset_ppm), ("amplitude", amplitude)):
-            if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-                raise TypeError(f"Argument '{name}' must be a finite number, not {value!r}.")
-        if sample_rate_hz <= 0:
-            raise ValueError(f"Argument 'sample_rate_hz' must be > 0, not {sample_rate_hz}.")
-        if timing_offset < 0:
-            raise ValueError(f"Argument 'timing_offset' must be >= 0 symbol periods, not {timing_offset}.")
-        if not -1000.0 <= clock_offset_ppm <= 1000.0:
-            raise ValueError(f"Argument 'clock_offset_ppm' must be -1000..1000, not {clock_offset_ppm}.")
-        if amplitude <= 0:
-            raise ValueError(f"Argument 'amplitude' must be > 0, not {amplitude}.")
+        _check_clock_args(sample_rate_hz, timing_offset, clock_offset_ppm, amplitude)
         if not 0.0 < link.modulation_index_rad < math.pi / 2:
             raise ValueError(f"Argument 'link' modulation_index_rad must be in (0, pi/2), "
                              f"not {link.modulation_index_rad}.")

@@ -10,7 +10,7 @@ import numpy as np
 
 from pipeline.demod import DemodStats, Demodulator, SymbolBlock, TrackPoint, estimate_carrier_offset
 from pipeline.demod._acquire import spectral_line
-from pipeline.demod._demodulator import check_chunk
+from pipeline.demod._demodulator import check_chunk, continue_stream, cut_blocks
 from pipeline.demod.residual._kernels import (
     CARRIER_PARAM_SIZE,
     CARRIER_STATE_SIZE,
@@ -350,23 +350,17 @@ class ResidualCarrierDemodulator:
             raise ValueError("Argument 'chunk' cannot be processed after flush(); call reset() first.")
         samples, start = self._check_chunk(chunk)
         self.stats.nonfinite_samples += int(getattr(chunk, "nonfinite", 0) or 0)
+        continue_stream(self._next_start, start)
         if self._next_start is None:
-            self._next_start = start
             self._pending_start = start
             self._ubase = start
-        elif start != self._next_start:
-            raise ValueError(f"Argument 'chunk' must continue the stream at sample {self._next_start}, "
-                             f"not start at {start}.")
         self._next_start = start + samples.size
         self.stats.samples_in += samples.size
-        buf = np.concatenate([self._pending, samples]) if self._pending.size else samples
+        blocks, self._pending = cut_blocks(self._pending, samples, self.block_samples)
         parts: list[dict] = []
-        b = self.block_samples
-        nfull = buf.size // b
-        for j in range(nfull):
-            self._run_block(buf[j * b:(j + 1) * b], self._pending_start + j * b, parts)
-        self._pending = np.array(buf[nfull * b:], dtype=np.complex64)
-        self._pending_start += nfull * b
+        for block in blocks:
+            self._run_block(block, self._pending_start, parts)
+            self._pending_start += self.block_samples
         return self._assemble(parts)
 
     def flush(self) -> SymbolBlock:
