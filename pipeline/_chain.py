@@ -50,6 +50,7 @@ class DecodeSummary:
     cadus: int = 0
     frames: int = 0
     frames_ok: int = 0
+    frames_idle: int = 0
     packets: int = 0
     out: str = ""
 
@@ -508,6 +509,7 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
     summary.cadus = chain.cadu_count
     summary.frames = chain.frame_count
     summary.frames_ok = chain.status_counts.get("ok", 0)
+    summary.frames_idle = chain.status_counts.get("idle", 0)
     summary.packets = chain.packet_count
     return summary
 
