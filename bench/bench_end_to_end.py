@@ -5,15 +5,15 @@ Run: ``python bench/bench_end_to_end.py [--gigabytes 1.0] [--modes plain,threads
 A demo-profile (Tamarisk) pass of ``--gigabytes`` of cf32 samples (8 bytes per sample, 1 Msample/s,
 so 1 GB is 125 s) is simulated with :func:`pipeline.sim.simulate` (fixed seed) into a temporary
 folder.  Each mode then decodes it in a fresh ``python`` process with
-``pipeline._chain.decode_to_folder`` semantics (the chain, its sinks and the report), and the
+``pipeline.chain._chain.decode_to_folder`` semantics (the chain, its sinks and the report), and the
 child prints its elapsed time and its peak resident memory (``VmHWM`` of ``/proc/self/status``:
 the high-water mark of its own address space, page cache not included).  One untimed plain run
 first fills the numba cache; every mode's output is then compared with it ("identical": every
 ``.jsonl``/``.bin`` file byte for byte; "same packets": APID, sequence count and octets of every
 packet in order).
 
-Modes: ``plain`` (the single-threaded loop), ``threadsN`` (:class:`pipeline._parallel.PipelinedDecode`,
-N threads, byte-identical output), ``segmentsN`` (:class:`pipeline._parallel.SegmentedDecode`,
+Modes: ``plain`` (the single-threaded loop), ``threadsN`` (:class:`pipeline.chain._parallel.PipelinedDecode`,
+N threads, byte-identical output), ``segmentsN`` (:class:`pipeline.chain._parallel.SegmentedDecode`,
 N worker processes, 1 = in the main process).  "peak RSS" is the main decode process's;
 "worker RSS" the largest ``ru_maxrss`` of its worker processes, an upper bound since a forked
 worker's count starts from the pages it shares with the main process.
@@ -37,9 +37,9 @@ from pathlib import Path
 from pipeline.profile import load_profile, demo_profile_path
 from pipeline.recording import open_recording
 from pipeline.report import write_report
-from pipeline._chain import DecodeChain, _Sinks
-from pipeline._parallel import PipelinedDecode, SegmentedDecode
-from pipeline._bench import peak_rss_mb
+from pipeline.chain._chain import DecodeChain, _Sinks
+from pipeline.chain._parallel import PipelinedDecode, SegmentedDecode
+from pipeline.tools._bench import peak_rss_mb
 mode, meta, out = sys.argv[1], sys.argv[2], Path(sys.argv[3])
 out.mkdir()
 profile = load_profile(demo_profile_path())
@@ -96,7 +96,7 @@ def main() -> None:
                     help="comma-separated decode modes: plain, threadsN, segmentsN")
     ap.add_argument("--keep", default=None, help="folder to keep the recording in (reused when present)")
     args = ap.parse_args()
-    from pipeline._bench import cpu_model, peak_rss_mb
+    from pipeline.tools._bench import cpu_model, peak_rss_mb
     from pipeline.profile import demo_profile_path, load_profile
     from pipeline.sim import simulate
 

@@ -2,7 +2,7 @@
 
 Run from the repository root: ``python bench/run_all.py [--quick] [--json FILE]``.
 
-1. ``downlink bench`` (:func:`pipeline._bench.measure`): per-stage and end-to-end figures on the
+1. ``downlink bench`` (:func:`pipeline.tools._bench.measure`): per-stage and end-to-end figures on the
    demo profile, threads and segments, warm start, peak memory.  ``--json FILE`` also writes them
    as one JSON object.
 2. The stage scripts beside this file, each in its own ``python`` process with its defaults:
@@ -43,7 +43,7 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--seconds", type=float, default=4.0, help="demo recording length for downlink bench")
     args = ap.parse_args(argv)
 
-    from pipeline._bench import format_table, measure
+    from pipeline.tools._bench import format_table, measure
 
     failed = []
     print("=" * 100)

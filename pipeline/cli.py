@@ -179,7 +179,7 @@ def _cmd_decode(args) -> int:
     profile = _load_profile(args.profile)
     if not 1 <= args.threads <= 64:
         raise ProfileError(f"--threads must be 1..64, not {args.threads}")
-    from pipeline._chain import decode_to_folder
+    from pipeline.chain._chain import decode_to_folder
 
     summary = decode_to_folder(
         args.recording,
@@ -200,7 +200,7 @@ def _cmd_decode(args) -> int:
 
 
 def _cmd_demo(args) -> int:
-    from pipeline._demo import run_demo
+    from pipeline.tools._demo import run_demo
 
     return run_demo(out=args.out, overwrite=args.overwrite, seconds=args.seconds, ebn0_db=args.ebn0_db,
                     seed=args.seed, quiet=args.quiet)
@@ -225,7 +225,7 @@ def _parse_fades(items: list[str]) -> tuple[tuple[float, float, float], ...]:
 def _cmd_simulate(args) -> int:
     profile = _load_profile(args.profile)
     fades = _parse_fades(args.fade)
-    from pipeline._output import OutputFolder
+    from pipeline.chain._output import OutputFolder
     from pipeline.sim import simulate
 
     with OutputFolder(args.out, overwrite=args.overwrite) as tmp:
@@ -277,13 +277,13 @@ def _cmd_inspect(args) -> int:
 
 
 def _cmd_verify(args) -> int:
-    from pipeline._verify import run_verify
+    from pipeline.tools._verify import run_verify
 
     return run_verify(args.vectors, as_json=args.json)
 
 
 def _cmd_sweep(args) -> int:
-    from pipeline._sweep import run_sweep
+    from pipeline.tools._sweep import run_sweep
 
     profile = _load_profile(args.profile)
     return run_sweep(profile, args.ebn0, frames=args.frames, errors=args.errors, stage=args.stage, seed=args.seed,
@@ -291,13 +291,13 @@ def _cmd_sweep(args) -> int:
 
 
 def _cmd_bench(args) -> int:
-    from pipeline._bench import run_bench
+    from pipeline.tools._bench import run_bench
 
     return run_bench(as_json=args.json, seconds=args.seconds)
 
 
 def _cmd_batch(args) -> int:
-    from pipeline._batch import run_batch
+    from pipeline.tools._batch import run_batch
 
     profile = _load_profile(args.profile)
     return run_batch(args.recordings, profile, args.profile, args.out, scheduler=args.scheduler,

@@ -1,4 +1,4 @@
-"""``pipeline._batch.run_batch`` (``downlink batch``) on a local Dask cluster with tiny recordings.
+"""``pipeline.tools._batch.run_batch`` (``downlink batch``) on a local Dask cluster with tiny recordings.
 
 Checks: every recording's output is identical to a single ``decode_to_folder`` of it; a failing
 recording is reported in ``index.json`` and does not stop the others; a second run skips the
@@ -14,8 +14,8 @@ import pytest
 
 pytest.importorskip("dask.distributed")
 
-from pipeline._batch import output_name, run_batch  # noqa: E402
-from pipeline._chain import decode_to_folder  # noqa: E402
+from pipeline.tools._batch import output_name, run_batch  # noqa: E402
+from pipeline.chain._chain import decode_to_folder  # noqa: E402
 from pipeline.errors import OutputError  # noqa: E402
 from pipeline.profile import demo_profile_path  # noqa: E402
 from pipeline.sim import simulate  # noqa: E402

@@ -7,7 +7,7 @@ import sys
 
 import pytest
 
-from pipeline._output import OutputFolder
+from pipeline.chain._output import OutputFolder
 from pipeline.cli import ExitCode, main
 from pipeline.errors import OutputError
 

@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from pipeline._demo import compare_with_truth
+from pipeline.tools._demo import compare_with_truth
 from pipeline.cli import main
 from pipeline.profile import profile_from_dict
 
@@ -203,7 +203,7 @@ def test_doppler_csv_range_rate(tmp_path):
     import csv
     import dataclasses
 
-    from pipeline._chain import decode_to_folder
+    from pipeline.chain._chain import decode_to_folder
     from pipeline.sim import simulate
 
     base = small_profile("bpsk", "concatenated", "nrz-m", seconds=1.2, carrier_hz=650.0)

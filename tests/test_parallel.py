@@ -1,7 +1,7 @@
 """Parallel decode of one recording: output byte-for-byte identical to the single-threaded chain.
 
 No timing here (speed is measured by ``downlink bench`` and bench/bench_end_to_end.py).  The
-oracle is the plain loop of ``pipeline._chain`` (``process_chunk`` per chunk, then ``finish``),
+oracle is the plain loop of ``pipeline.chain._chain`` (``process_chunk`` per chunk, then ``finish``),
 written out again below so that a change in the parallel code cannot change its own reference.
 """
 
@@ -13,8 +13,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from pipeline._chain import DecodeChain, _Sinks
-from pipeline._parallel import PipelinedDecode, decode_chain_parallel
+from pipeline.chain._chain import DecodeChain, _Sinks
+from pipeline.chain._parallel import PipelinedDecode, decode_chain_parallel
 from pipeline.recording import open_recording
 from pipeline.sim import simulate
 
@@ -203,7 +203,7 @@ def test_chunk_sizes_do_not_change_output(tmp_path, recording, small_profile, re
 
 # ---- overlapping segments -----------------------------------------------------------------------
 
-from pipeline._parallel import (  # noqa: E402
+from pipeline.chain._parallel import (  # noqa: E402
     DEFAULT_SEGMENT_SAMPLES,
     SegmentedDecode,
     decode_segmented,
@@ -334,7 +334,7 @@ def test_segmented_bad_arguments(demo_profile, kwargs, exc, text):
 
 
 def test_overlap_frames_taken_once(long_recording, demo_profile, segmented_one_thread):
-    from pipeline._chain import DecodeChain
+    from pipeline.chain._chain import DecodeChain
 
     rec = open_recording(long_recording.meta_path)
     chain = DecodeChain(demo_profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)
@@ -351,7 +351,7 @@ def test_overlap_frames_taken_once(long_recording, demo_profile, segmented_one_t
 def test_nogil_kernel_list_names_real_kernels():
     import importlib
 
-    from pipeline._parallel import NOGIL_KERNELS
+    from pipeline.chain._parallel import NOGIL_KERNELS
 
     for name in NOGIL_KERNELS:
         module, func = name.split(":")
@@ -360,7 +360,7 @@ def test_nogil_kernel_list_names_real_kernels():
 
 @pytest.mark.parametrize("mode, threads", [("pipeline", 1), ("pipeline", 2), ("segments", 2)])
 def test_run_chain_one_call(tmp_path, recording, small_profile, reference, mode, threads):
-    from pipeline._parallel import run_chain
+    from pipeline.chain._parallel import run_chain
 
     rec = open_recording(recording.meta_path)
     chain = DecodeChain(small_profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)
@@ -373,7 +373,7 @@ def test_run_chain_one_call(tmp_path, recording, small_profile, reference, mode,
 
 
 def test_run_chain_bad_mode(small_profile):
-    from pipeline._parallel import run_chain
+    from pipeline.chain._parallel import run_chain
 
     chain = DecodeChain(small_profile, input_kind="iq", sample_rate_hz=1e6)
     with pytest.raises(ValueError, match=r"Argument 'mode' must be pipeline \| segments, not 'gpu'\."):

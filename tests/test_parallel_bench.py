@@ -1,4 +1,4 @@
-"""``downlink bench`` plumbing (pipeline._bench): the measurements run and report sane figures.
+"""``downlink bench`` plumbing (pipeline.tools._bench): the measurements run and report sane figures.
 
 No figure is compared with a speed (no timed assertions): the checks are that every key exists,
 that the bench's own test data are what they claim (16 RS errors per codeword, Viterbi output
@@ -14,7 +14,7 @@ import os
 import numpy as np
 import pytest
 
-from pipeline import _bench
+from pipeline.tools import _bench
 from pipeline.fec import rs_decode
 
 REQUIRED = ("viterbi_mbps", "rs_clean_mbps", "rs_16err_mbps", "frontend_msps", "end_to_end_msps",

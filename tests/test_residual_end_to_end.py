@@ -1,6 +1,6 @@
 """Residual-carrier recordings decode end to end (issue 8): every packet, ERT within one symbol period.
 
-The simulator writes a PCM/PSK/PM or PCM/PM recording; ``pipeline._chain.decode_to_folder`` decodes
+The simulator writes a PCM/PSK/PM or PCM/PM recording; ``pipeline.chain._chain.decode_to_folder`` decodes
 it with :func:`pipeline.demod.residual.make_demodulator` in place of the suppressed-carrier
 demodulator (patched in here if the chain does not route to it yet) and Bi-phase-L passed through
 the line decoder as NRZ-L (the residual demodulator already removes it).
@@ -13,8 +13,8 @@ import json
 import pytest
 
 import pipeline.demod as demod_pkg
-from pipeline._chain import decode_to_folder
-from pipeline._demo import compare_with_truth
+from pipeline.chain._chain import decode_to_folder
+from pipeline.tools._demo import compare_with_truth
 from pipeline.demod.residual import make_demodulator
 from pipeline.profile import profile_from_dict
 from pipeline.sim import simulate

@@ -12,8 +12,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from test_end_to_end import _write_profile, small_profile
 
-from pipeline._chain import decode_to_folder
-from pipeline._demo import compare_with_truth
+from pipeline.chain._chain import decode_to_folder
+from pipeline.tools._demo import compare_with_truth
 from pipeline.cli import ExitCode, main
 from pipeline.profile import profile_from_dict
 

@@ -9,8 +9,8 @@ import math
 import numpy as np
 import pytest
 
-from pipeline import _sweep as sw
-from pipeline import _theory as th
+from pipeline.tools import _sweep as sw
+from pipeline.tools import _theory as th
 from pipeline.errors import DownlinkError, OutputError
 from pipeline.profile import profile_from_dict
 

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy import optimize
 
-from pipeline import _theory as th
+from pipeline.tools import _theory as th
 
 
 def _crossing(fn, target):

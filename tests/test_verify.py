@@ -10,8 +10,8 @@ from pathlib import Path
 
 import pytest
 
-from pipeline import _verify
-from pipeline._verify import default_vectors_dir, load_cases, run_case, run_verify
+from pipeline.tools import _verify
+from pipeline.tools._verify import default_vectors_dir, load_cases, run_case, run_verify
 
 REPO = Path(__file__).resolve().parents[1]
 

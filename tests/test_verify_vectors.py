@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import pytest
 
-from pipeline._verify import NOT_AVAILABLE, default_vectors_dir, load_cases, run_case
+from pipeline.tools._verify import NOT_AVAILABLE, default_vectors_dir, load_cases, run_case
 
 _CASES = load_cases(default_vectors_dir())
 

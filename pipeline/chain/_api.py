@@ -79,7 +79,7 @@ def decode(recording: str | os.PathLike, profile, out: str | os.PathLike | None 
     >>> result.packets == sim.num_packets
     True
     """
-    from pipeline._chain import decode_to_folder
+    from pipeline.chain._chain import decode_to_folder
     from pipeline.profile import LinkProfile, load_profile
 
     prof = profile if isinstance(profile, LinkProfile) else load_profile(profile)

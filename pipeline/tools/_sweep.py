@@ -13,7 +13,7 @@ Two stages:
 ``chain``
     The whole receiver: ``pipeline.sim.simulate`` makes an IQ recording of the profile (its
     ``[simulate]`` carrier offset, Doppler, clock offset and traffic) at each Eb/N0, and
-    ``pipeline._chain.decode_to_folder`` decodes it with carrier and timing recovery.  The decoded
+    ``pipeline.chain._chain.decode_to_folder`` decodes it with carrier and timing recovery.  The decoded
     packets are compared with the simulator's ``truth.jsonl``: packet error rate (lost or wrong
     packets), frame error rate (truth frames not delivered with status ``ok``), and the bit error
     rate of the delivered packets.
@@ -45,7 +45,7 @@ from pathlib import Path
 
 import numpy as np
 
-from pipeline import _theory
+from pipeline.tools import _theory
 from pipeline.errors import DownlinkError
 from pipeline.profile import LinkProfile
 
@@ -299,7 +299,7 @@ def simulate_chain_point(profile: LinkProfile, ebn0_db: float, *, frames: int, e
     frame with its (VCID, VCFC, and MCFC for TM) was delivered with status ``ok`` (``idle`` for an
     Only-Idle-Data frame).
     """
-    from pipeline._chain import decode_to_folder
+    from pipeline.chain._chain import decode_to_folder
     from pipeline.sim import simulate
 
     t0 = time.perf_counter()
@@ -614,7 +614,7 @@ def write_outputs(folder: Path, profile: LinkProfile, points: list[SweepPoint], 
 def run_sweep(profile: LinkProfile, ebn0_spec: str, *, frames: int, errors: int, stage: str, seed: int,
               workers: int | None, out: str, overwrite: bool, quiet: bool) -> int:
     """``downlink sweep``: simulate, write the three files into ``out``, print the losses; exit code 0."""
-    from pipeline._output import OutputFolder
+    from pipeline.chain._output import OutputFolder
 
     values = parse_ebn0_spec(ebn0_spec)
     if frames < 1 or errors < 1:

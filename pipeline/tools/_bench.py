@@ -16,9 +16,9 @@ Figures (all per process; "Mbit/s" = 10^6 bits per second, "Msample/s" = 10^6 co
 ``rs_16err_mbps``           the same with 16 symbol errors in every codeword (the most it corrects)
 ``frames_packets_mbps``     :class:`pipeline.link.FrameParser` + :class:`pipeline.packets.PacketExtractor`
 ``end_to_end_msps``         the whole chain with its sinks (``DecodeChain``), one thread
-``end_to_end_msps_2threads``  the same, :class:`pipeline._parallel.PipelinedDecode`, 2 threads
+``end_to_end_msps_2threads``  the same, :class:`pipeline.chain._parallel.PipelinedDecode`, 2 threads
 ``..._nogil``               the same with every kernel recompiled ``nogil=True`` (:func:`nogil_kernels`)
-``end_to_end_msps_segmented``  :class:`pipeline._parallel.SegmentedDecode` on a longer recording,
+``end_to_end_msps_segmented``  :class:`pipeline.chain._parallel.SegmentedDecode` on a longer recording,
                             1 process; ``..._2proc`` with 2 worker processes
 ==========================  ===============================================================
 
@@ -108,7 +108,7 @@ def nogil_kernels():
     import numba
     from numba.core.registry import CPUDispatcher
 
-    for sub in ("recording", "demod", "fec", "sync", "link", "packets", "_chain"):
+    for sub in ("recording", "demod", "fec", "sync", "link", "packets", "chain"):
         importlib.import_module(f"pipeline.{sub}")  # every stage on the decode path, loaded now
     copies: dict[int, object] = {}
     swapped = []
@@ -278,8 +278,8 @@ def _bench_frames_packets(profile, frames: list, repeats: int) -> tuple[float, f
 
 
 def _decode_once(rec, profile, folder: Path | None, threads: int) -> tuple[float, object]:
-    from pipeline._chain import DecodeChain, _Sinks
-    from pipeline._parallel import PipelinedDecode
+    from pipeline.chain._chain import DecodeChain, _Sinks
+    from pipeline.chain._parallel import PipelinedDecode
 
     chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)
     if folder is not None:
@@ -308,8 +308,8 @@ def _end_to_end(rec, profile, tmp: Path, threads: int, repeats: int) -> tuple[fl
 
 def _segmented(rec, profile, threads: int, repeats: int) -> tuple[float, float]:
     """Best Msample/s of a segmented decode and the idle-core speed-up bound of its best run."""
-    from pipeline._chain import DecodeChain
-    from pipeline._parallel import SegmentedDecode
+    from pipeline.chain._chain import DecodeChain
+    from pipeline.chain._parallel import SegmentedDecode
 
     best, bound = math.inf, float("nan")
     for _ in range(repeats):
@@ -343,7 +343,7 @@ _CHILD = r"""
 import json, resource, sys, time
 from pipeline.profile import load_profile, demo_profile_path
 from pipeline.recording import open_recording
-from pipeline._chain import DecodeChain, _Sinks
+from pipeline.chain._chain import DecodeChain, _Sinks
 profile = load_profile(demo_profile_path())
 rec = open_recording(sys.argv[1])
 chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)
@@ -436,7 +436,7 @@ def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float 
         res["rs_clean_mbps"] = _bench_rs(0, repeats)
         res["rs_16err_mbps"] = _bench_rs(16, repeats)
         say("frames and packets")
-        from pipeline._parallel import decode_segment
+        from pipeline.chain._parallel import decode_segment
 
         seg = decode_segment(rec, profile, 0, 0, rec.num_samples, 0, rec.num_samples)
         res["frames_packets_mbps"], res["frames_packets_per_s"] = _bench_frames_packets(profile, seg.frames,

@@ -35,7 +35,7 @@ def output_name(recording: str) -> str:
 
 def decode_one(recording: str, profile: LinkProfile, out_dir: str) -> dict:
     """Decode one recording into ``out_dir``; never raises (the error goes into the result)."""
-    from pipeline._chain import decode_to_folder
+    from pipeline.chain._chain import decode_to_folder
     from pipeline.errors import DownlinkError
 
     t0 = time.perf_counter()

@@ -3,7 +3,7 @@
 Two ways, both deterministic, both streaming in constant memory:
 
 :class:`PipelinedDecode` (output byte-for-byte identical to the plain single-threaded chain).
-The decode chain (``pipeline._chain.DecodeChain``) is a sequence of streaming stages with explicit
+The decode chain (``pipeline.chain._chain.DecodeChain``) is a sequence of streaming stages with explicit
 state, and its two halves are independent except for the symbols flowing from the first to the
 second::
 
@@ -161,7 +161,7 @@ class _PrecomputedDemod:
 
 
 class PipelinedDecode:
-    """Feed an IQ :class:`~pipeline._chain.DecodeChain` with its demodulator in a worker thread.
+    """Feed an IQ :class:`~pipeline.chain._chain.DecodeChain` with its demodulator in a worker thread.
 
     Parameters
     ----------
@@ -389,7 +389,7 @@ def decode_chain_parallel(recording, profile, *, sinks_folder=None, threads: int
     """
     from pathlib import Path
 
-    from pipeline._chain import DecodeChain, _Sinks
+    from pipeline.chain._chain import DecodeChain, _Sinks
     from pipeline.recording import open_recording
 
     rec = open_recording(recording) if isinstance(recording, (str, Path)) else recording
@@ -513,10 +513,10 @@ def decode_segment(recording, profile, index: int, owned_start: int, owned_stop:
                    read_stop: int) -> SegmentResult:
     """Run the front half of the chain (demodulator .. Reed-Solomon) over one segment.
 
-    The stages are those of :class:`pipeline._chain.DecodeChain`, wired by it; only the frame
+    The stages are those of :class:`pipeline.chain._chain.DecodeChain`, wired by it; only the frame
     layer onwards (frame parser, accounting, packets, sinks) is left to the merge.
     """
-    from pipeline._chain import DecodeChain
+    from pipeline.chain._chain import DecodeChain
 
     t0 = time.thread_time()
     res = SegmentResult(index, owned_start, owned_stop)
@@ -763,7 +763,7 @@ class SegmentedDecode:
     @staticmethod
     def _spectrum(recording, chain) -> None:
         """The report's spectrum, from the first samples as in the plain chain."""
-        from pipeline._chain import _SPECTRUM_SAMPLES
+        from pipeline.chain._chain import _SPECTRUM_SAMPLES
 
         m = min(_SPECTRUM_SAMPLES, recording.num_samples)
         if m == 0:
@@ -811,7 +811,7 @@ def decode_segmented(recording, profile, *, sinks_folder=None, threads: int = 2,
     """
     from pathlib import Path
 
-    from pipeline._chain import DecodeChain, _Sinks
+    from pipeline.chain._chain import DecodeChain, _Sinks
     from pipeline.recording import open_recording
 
     rec = open_recording(recording) if isinstance(recording, (str, Path)) else recording

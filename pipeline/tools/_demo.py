@@ -11,7 +11,7 @@ import json
 import sys
 from pathlib import Path
 
-from pipeline._output import OutputFolder
+from pipeline.chain._output import OutputFolder
 
 __all__ = ["compare_with_truth", "run_demo"]
 
@@ -52,7 +52,7 @@ def compare_with_truth(truth_path: Path, packets_path: Path) -> dict:
 
 def run_demo(*, out: str = "downlink-demo", overwrite: bool = False, seconds: float | None = None,
              ebn0_db: float | None = None, seed: int | None = None, quiet: bool = False) -> int:
-    from pipeline._chain import CAUTION, decode_to_folder
+    from pipeline.chain._chain import CAUTION, decode_to_folder
     from pipeline.profile import demo_profile_path, load_profile
     from pipeline.sim import simulate
 

@@ -24,7 +24,7 @@ from typing import Any
 
 import numpy as np
 
-from pipeline._output import OutputFolder
+from pipeline.chain._output import OutputFolder
 from pipeline._version import __version__
 from pipeline.demod.residual import DOPPLER_COLUMNS, doppler_rows
 from pipeline.errors import ProfileError, RecordingError
@@ -484,9 +484,9 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
         bar = _Progress(total, enabled=progress)
         try:
             if input_kind == "iq":
-                from pipeline._parallel import run_chain
+                from pipeline.chain._parallel import run_chain
 
-                # IQ recordings are decoded in fixed overlapping segments (pipeline/_parallel.py); the
+                # IQ recordings are decoded in fixed overlapping segments (pipeline/chain/_parallel.py); the
                 # output depends on the segment size only, never on the number of threads.
                 run_chain(chain, rec, threads=threads, mode="segments", on_progress=bar.update)
             else:

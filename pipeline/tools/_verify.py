@@ -384,7 +384,7 @@ def _run_timecode(case: VectorCase) -> tuple[bool, str]:
 
 
 def _run_whole_link(case: VectorCase) -> tuple[bool, str]:
-    from pipeline._chain import decode_to_folder
+    from pipeline.chain._chain import decode_to_folder
     from pipeline.profile import profile_from_dict
 
     p, want = case.data["params"], case.data["expected"]
