@@ -3,7 +3,7 @@
 Run from the repository root: ``python bench/run_all.py [--quick] [--json FILE]``.
 
 1. ``downlink bench`` (:func:`pipeline.tools._bench.measure`): per-stage and end-to-end figures on the
-   demo profile, threads and segments, warm start, peak memory.  ``--json FILE`` also writes them
+   demo profile, segments on 1 and 2 processes, warm start, peak memory.  ``--json FILE`` also writes them
    as one JSON object.
 2. The stage scripts beside this file, each in its own ``python`` process with its defaults:
    ``bench_recording.py``, ``bench_demod.py``, ``bench_fec.py``, ``bench_end_to_end.py`` (a 1 GB

@@ -19,13 +19,12 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from pipeline._version import __version__
-from pipeline.errors import DownlinkError, OutputError, ProfileError, RecordingError
+from pipeline.errors import DownlinkError, OutputError, ProfileError, RecordingError, UsageError
 
 __all__ = ["ExitCode", "build_parser", "main"]
 
 log = logging.getLogger("pipeline")
 
-CAUTION = "Decoded data is no substitute for the mission's validated ground segment."
 
 
 class ExitCode(enum.IntEnum):
@@ -62,6 +61,8 @@ def _add_recording_args(p: argparse.ArgumentParser) -> None:
 
 
 def build_parser() -> argparse.ArgumentParser:
+    from pipeline.report import CAUTION
+
     parser = argparse.ArgumentParser(
         prog="downlink",
         description="CCSDS telemetry decoding: IQ recording -> verified, time-tagged space packets. " + CAUTION,
@@ -81,8 +82,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--profile", required=True, help="link profile (TOML)")
     p.add_argument("--out", required=True, help="output folder (created; refused if it exists)")
     p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
-    p.add_argument("--threads", type=int, default=1, metavar="N",
+    p.add_argument("--workers", type=int, default=None, metavar="N",
                    help="worker processes for an IQ recording (default 1); the output does not depend on N")
+    p.add_argument("--threads", type=int, default=None, metavar="N", help=argparse.SUPPRESS)  # old name of --workers
     p.add_argument("--input", dest="input_kind", choices=["iq", "soft", "bits"], default="iq",
                    help="iq: complex samples (default); soft: int8 per channel symbol, + means bit 0; "
                         "bits: packed hard channel bits, MSB first")
@@ -175,11 +177,22 @@ def _load_profile(path: str):
     return load_profile(path)
 
 
+def _workers(args) -> int:
+    """``--workers`` (or its deprecated alias ``--threads``), checked."""
+    if args.threads is not None:
+        if args.workers is not None:
+            raise UsageError("--threads is the old name of --workers: give one of them")
+        log.warning("--threads is deprecated and will be removed: use --workers (it starts processes)")
+    n = args.workers if args.workers is not None else (args.threads if args.threads is not None else 1)
+    if not 1 <= n <= 64:
+        raise UsageError(f"--workers must be 1..64, not {n}")
+    return n
+
+
 def _cmd_decode(args) -> int:
+    workers = _workers(args)
     profile = _load_profile(args.profile)
-    if not 1 <= args.threads <= 64:
-        raise ProfileError(f"--threads must be 1..64, not {args.threads}")
-    from pipeline.chain._chain import decode_to_folder
+    from pipeline.chain import decode_to_folder
 
     summary = decode_to_folder(
         args.recording,
@@ -190,8 +203,8 @@ def _cmd_decode(args) -> int:
         datatype=args.datatype,
         sample_rate_hz=args.sample_rate_hz,
         start=args.start,
-        progress=not args.quiet and sys.stderr.isatty(),
-        threads=args.threads,
+        progress=not args.quiet,
+        workers=workers,
     )
     if not args.quiet:
         print(summary.line(), file=sys.stderr)
@@ -215,9 +228,9 @@ def _parse_fades(items: list[str]) -> tuple[tuple[float, float, float], ...]:
                 raise ValueError
             start, dur, depth = (float(x) for x in parts)
         except ValueError:
-            raise ProfileError(f"--fade {item!r}: expected START:DURATION:DEPTH_DB, e.g. 3.0:0.1:100") from None
+            raise UsageError(f"--fade {item!r}: expected START:DURATION:DEPTH_DB, e.g. 3.0:0.1:100") from None
         if dur <= 0 or start < 0 or depth < 0:
-            raise ProfileError(f"--fade {item!r}: start and depth must be >= 0 and duration > 0")
+            raise UsageError(f"--fade {item!r}: start and depth must be >= 0 and duration > 0")
         fades.append((start, dur, depth))
     return tuple(fades)
 
@@ -225,7 +238,7 @@ def _parse_fades(items: list[str]) -> tuple[tuple[float, float, float], ...]:
 def _cmd_simulate(args) -> int:
     profile = _load_profile(args.profile)
     fades = _parse_fades(args.fade)
-    from pipeline.chain._output import OutputFolder
+    from pipeline.chain import OutputFolder
     from pipeline.sim import simulate
 
     with OutputFolder(args.out, overwrite=args.overwrite) as tmp:
@@ -323,6 +336,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         pass
     try:
         return int(args.handler(args))
+    except UsageError as exc:
+        return _report(args, exc, ExitCode.USAGE)
     except (RecordingError, ProfileError) as exc:
         return _report(args, exc, ExitCode.BAD_INPUT)
     except OutputError as exc:

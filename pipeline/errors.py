@@ -12,6 +12,7 @@ __all__ = [
     "RecordingError",
     "ProfileError",
     "OutputError",
+    "UsageError",
 ]
 
 
@@ -29,3 +30,8 @@ class ProfileError(DownlinkError):
 
 class OutputError(DownlinkError):
     """The output folder cannot be written, or exists and ``--overwrite`` was not given."""
+
+
+class UsageError(DownlinkError):
+    """The command line asks for something inconsistent (an option out of range, options that exclude
+    each other, a required option missing); the message names the option."""

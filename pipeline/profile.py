@@ -79,6 +79,11 @@ class LinkSection:
         """Channel bits carried by one modulation symbol (2 for QPSK/OQPSK, else 1)."""
         return 2 if self.modulation in ("qpsk", "oqpsk") else 1
 
+    @property
+    def channel_bit_rate(self) -> float:
+        """Channel bits per second: the modulation symbol rate times the bits per modulation symbol."""
+        return self.symbol_rate_baud * self.bits_per_symbol
+
 
 @dataclass(frozen=True)
 class CodingSection:
@@ -218,6 +223,15 @@ class LinkProfile:
     def cadu_bits(self) -> int:
         """Bits of one CADU: 32-bit ASM plus the codeblock."""
         return 32 + 8 * self.codeblock_bytes
+
+    @property
+    def cadu_channel_bits(self) -> float:
+        """Channel bits of one CADU on the link (the CADU's bits over the convolutional code rate)."""
+        return self.cadu_bits / self.coding.conv_rate
+
+    def samples_per_cadu(self, sample_rate_hz: float) -> float:
+        """Samples one CADU spans in a recording at ``sample_rate_hz``."""
+        return self.cadu_channel_bits / self.link.channel_bit_rate * sample_rate_hz
 
     @property
     def code_rate(self) -> float:

@@ -1,6 +1,6 @@
 """``pipeline.tools._batch.run_batch`` (``downlink batch``) on a local Dask cluster with tiny recordings.
 
-Checks: every recording's output is identical to a single ``decode_to_folder`` of it; a failing
+Checks: every recording's output is identical to a single ``pipeline.decode`` of it; a failing
 recording is reported in ``index.json`` and does not stop the others; a second run skips the
 finished recordings and retries the failed one.  No timing here.
 """
@@ -14,11 +14,11 @@ import pytest
 
 pytest.importorskip("dask.distributed")
 
-from pipeline.tools._batch import output_name, run_batch  # noqa: E402
-from pipeline.chain._chain import decode_to_folder  # noqa: E402
+from pipeline import decode  # noqa: E402
 from pipeline.errors import OutputError  # noqa: E402
 from pipeline.profile import demo_profile_path  # noqa: E402
 from pipeline.sim import simulate  # noqa: E402
+from pipeline.tools._batch import output_name, run_batch  # noqa: E402
 
 COMPARED = ("packets.jsonl", "frames.jsonl")
 
@@ -49,7 +49,7 @@ def single_decodes(tmp_path_factory, archive, demo_profile):
     outs = {}
     for rec in archive[0]:
         folder = ref / output_name(rec)
-        s = decode_to_folder(rec, demo_profile, str(folder))
+        s = decode(rec, demo_profile, str(folder))
         assert s.packets > 0  # the comparison below is worth something only with packets
         outs[output_name(rec)] = _outputs(folder)
     return outs

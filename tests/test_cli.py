@@ -104,16 +104,21 @@ def test_inspect_json_and_plots(tmp_path, capsys):
         assert (tmp_path / "plots" / png).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
 
-def test_decode_threads_give_the_same_output(tmp_path, capsys):
+def test_decode_workers_give_the_same_output(tmp_path, capsys):
     from test_end_to_end import _write_profile, small_profile
 
     prof = _write_profile(tmp_path, small_profile("bpsk", "concatenated", "nrz-m", seconds=1.0))
     assert main(["simulate", "--profile", str(prof), "--out", str(tmp_path / "sim"), "-q"]) == 0
     meta = str(tmp_path / "sim" / "recording.sigmf-meta")
     for n in (1, 2):
-        assert main(["decode", meta, "--profile", str(prof), "--out", str(tmp_path / f"o{n}"), "--threads", str(n),
+        assert main(["decode", meta, "--profile", str(prof), "--out", str(tmp_path / f"o{n}"), "--workers", str(n),
                      "-q"]) == 0
     for name in ("packets.jsonl", "frames.jsonl", "doppler.csv"):
         assert (tmp_path / "o1" / name).read_bytes() == (tmp_path / "o2" / name).read_bytes()
-    assert main(["decode", meta, "--profile", str(prof), "--out", str(tmp_path / "o3"), "--threads", "0"]) \
-        == ExitCode.BAD_INPUT
+    assert main(["decode", meta, "--profile", str(prof), "--out", str(tmp_path / "o3"), "--workers", "0"]) \
+        == ExitCode.USAGE  # a command-line value out of range is a usage error
+    # the old name still works for one release, with a warning
+    assert main(["decode", meta, "--profile", str(prof), "--out", str(tmp_path / "o4"), "--threads", "2", "-q"]) == 0
+    assert (tmp_path / "o4" / "packets.jsonl").read_bytes() == (tmp_path / "o1" / "packets.jsonl").read_bytes()
+    assert main(["decode", meta, "--profile", str(prof), "--out", str(tmp_path / "o5"), "--threads", "2",
+                 "--workers", "2"]) == ExitCode.USAGE

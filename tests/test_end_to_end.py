@@ -13,9 +13,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from pipeline.tools._demo import compare_with_truth
 from pipeline.cli import main
 from pipeline.profile import profile_from_dict
+from pipeline.tools._demo import compare_with_truth
 
 SYMBOL_RATE = 48_000.0
 SAMPLE_RATE = 200_000.0
@@ -203,13 +203,13 @@ def test_doppler_csv_range_rate(tmp_path):
     import csv
     import dataclasses
 
-    from pipeline.chain._chain import decode_to_folder
+    from pipeline import decode
     from pipeline.sim import simulate
 
     base = small_profile("bpsk", "concatenated", "nrz-m", seconds=1.2, carrier_hz=650.0)
     profile = base.with_changes(link=dataclasses.replace(base.link, downlink_frequency_hz=2.2e9))
     sim = simulate(profile, tmp_path / "sim")
-    decode_to_folder(str(sim.meta_path), profile, str(tmp_path / "out"))
+    decode(str(sim.meta_path), profile, str(tmp_path / "out"))
     rows = list(csv.DictReader(open(tmp_path / "out" / "doppler.csv", encoding="utf-8")))
     locked = [r for r in rows if r["locked"] == "True"]
     assert len(locked) >= 3

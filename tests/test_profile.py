@@ -109,6 +109,6 @@ def test_fuzz_profile_tree(tree):
     else:
         assert prof.codeblock_bytes >= prof.frames.length
         # every stage accepts what the loader accepted
-        from pipeline.chain._chain import DecodeChain
+        from pipeline.chain import DecodeChain
 
         DecodeChain(prof, input_kind="bits")

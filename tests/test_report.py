@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 from pipeline.report import (
-    CAUTION_TEXT,
+    CAUTION,
     KNOWN_SECTIONS,
     MAX_TABLE_ROWS,
     PlotData,
@@ -145,7 +145,7 @@ def test_full_report_parses_and_embeds_valid_pngs(rng):
         with Image.open(io.BytesIO(data)) as im:
             im.verify()
     text = " ".join(c.text)
-    assert CAUTION_TEXT in text
+    assert CAUTION in text
     # self-contained: no script, no stylesheet link, only in-page anchors
     assert "script" not in c.tags and "link" not in c.tags and "iframe" not in c.tags
     assert all(r.startswith("#") for r in c.refs), c.refs
@@ -203,7 +203,7 @@ def test_empty_report_and_empty_sections_render():
         c = _parse(doc)
         assert c.imgs == []
         text = " ".join(c.text)
-        assert CAUTION_TEXT in text
+        assert CAUTION in text
         assert text.count("not shown:") == 5  # every plot left out with a note
 
 
@@ -302,7 +302,7 @@ def test_report_in_headless_chromium(tmp_path, rng):
     assert dom.returncode == 0, dom.stderr[-500:]
     c = _parse(dom.stdout)  # the DOM as the browser built it
     assert len(_check_images(c)) == 5
-    assert CAUTION_TEXT in " ".join(c.text)
+    assert CAUTION in " ".join(c.text)
     # The screenshot shows the plots: the plot line colour (#1f4e79, not used by the page's CSS) is there.
     import matplotlib.image as mpimg
 

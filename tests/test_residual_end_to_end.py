@@ -1,9 +1,7 @@
 """Residual-carrier recordings decode end to end (issue 8): every packet, ERT within one symbol period.
 
-The simulator writes a PCM/PSK/PM or PCM/PM recording; ``pipeline.chain._chain.decode_to_folder`` decodes
-it with :func:`pipeline.demod.residual.make_demodulator` in place of the suppressed-carrier
-demodulator (patched in here if the chain does not route to it yet) and Bi-phase-L passed through
-the line decoder as NRZ-L (the residual demodulator already removes it).
+The simulator writes a PCM/PSK/PM or PCM/PM recording; ``pipeline.decode`` decodes it (the chain picks
+the residual-carrier demodulator with :func:`pipeline.demod.residual.make_demodulator`).
 """
 
 from __future__ import annotations
@@ -12,12 +10,10 @@ import json
 
 import pytest
 
-import pipeline.demod as demod_pkg
-from pipeline.chain._chain import decode_to_folder
-from pipeline.tools._demo import compare_with_truth
-from pipeline.demod.residual import make_demodulator
+from pipeline import decode
 from pipeline.profile import profile_from_dict
 from pipeline.sim import simulate
+from pipeline.tools._demo import compare_with_truth
 
 SAMPLE_RATE = 200_000.0
 
@@ -41,23 +37,6 @@ def _profile(*, modulation, line_code, symbol_rate, conv, rs, wave="square", sub
     })
 
 
-class _NrzlForBiphase:
-    """The chain's line decoder, with Bi-phase-L treated as NRZ-L (already decoded by the demodulator)."""
-
-    def __new__(cls, *, line_code):
-        return _ORIGINAL_LINE_DECODER(line_code="nrz-l" if line_code == "bi-phase-l" else line_code)
-
-
-_ORIGINAL_LINE_DECODER = demod_pkg.LineDecoder
-
-
-@pytest.fixture
-def residual_chain(monkeypatch):
-    """Route the chain to make_demodulator (the lead's wiring, DEVELOPERS.md) for this test."""
-    monkeypatch.setattr(demod_pkg, "Demodulator", lambda **kw: make_demodulator(**kw))
-    monkeypatch.setattr(demod_pkg, "LineDecoder", _NrzlForBiphase)
-
-
 CASES = {
     # PCM/PSK/PM, square subcarrier, NRZ-L, convolutional r=1/2: 8 ksym/s (channel) on a 32 kHz
     # subcarrier, 6.25 samples per subcarrier cycle
@@ -73,14 +52,14 @@ CASES = {
 
 
 @pytest.mark.parametrize("case", sorted(CASES))
-def test_residual_recording_decodes_every_packet(tmp_path, residual_chain, case):
+def test_residual_recording_decodes_every_packet(tmp_path, case):
     prof = _profile(**CASES[case])
     if CASES[case].get("rate"):
         prof = prof.with_changes(receiver={"carrier_loop_order": 3})
     sim = simulate(prof, tmp_path / "sim")
     assert sim.num_packets >= 10
     out = tmp_path / "out"
-    summary = decode_to_folder(str(sim.meta_path), prof, str(out))
+    summary = decode(str(sim.meta_path), prof, str(out))
     cmp = compare_with_truth(sim.truth_path, out / "packets.jsonl")
     assert cmp["invented"] == 0
     assert cmp["matched"] == cmp["sent"] == sim.num_packets  # every packet, unchanged

@@ -12,10 +12,10 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from test_end_to_end import _write_profile, small_profile
 
-from pipeline.chain._chain import decode_to_folder
-from pipeline.tools._demo import compare_with_truth
+from pipeline import decode
 from pipeline.cli import ExitCode, main
 from pipeline.profile import profile_from_dict
+from pipeline.tools._demo import compare_with_truth
 
 
 def _one_line_error(capsys) -> str:
@@ -181,7 +181,7 @@ def test_same_output_for_any_chunk_size(tmp_path):
     for chunk in (4096, 50_000, 1 << 18):
         p = profile.with_changes(receiver={"chunk_samples": chunk})
         out = tmp_path / f"out{chunk}"
-        decode_to_folder(str(sim / "recording.sigmf-meta"), p, str(out))
+        decode(str(sim / "recording.sigmf-meta"), p, str(out))
         outs.append(out)
     for name in ("packets.jsonl", "frames.jsonl"):
         texts = [(o / name).read_bytes() for o in outs]
@@ -207,7 +207,7 @@ def test_random_bytes_never_crash_or_invent(tmp_path_factory, data, coded):
     path = tmp / "r.bits"
     path.write_bytes(bytes(blob))
     out = tmp / "out"
-    decode_to_folder(str(path), profile, str(out), input_kind="bits")
+    decode(str(path), profile, str(out), input_kind="bits")
     assert (out / "packets.jsonl").read_text() == ""
     Path(out / "report.json").read_text()
 

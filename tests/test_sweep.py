@@ -9,10 +9,10 @@ import math
 import numpy as np
 import pytest
 
-from pipeline.tools import _sweep as sw
-from pipeline.tools import _theory as th
 from pipeline.errors import DownlinkError, OutputError
 from pipeline.profile import profile_from_dict
+from pipeline.tools import _sweep as sw
+from pipeline.tools import _theory as th
 
 
 def _profile(conv="none", rs=0, interleave=1, length=1115, name="t"):
@@ -76,14 +76,6 @@ def test_early_stop_at_the_error_target():
     assert not q.stopped_early and q.frames == 3
 
 
-def _landed(module, name):
-    import importlib
-
-    return hasattr(importlib.import_module(module), name)
-
-
-@pytest.mark.skipif(not (_landed("pipeline.fec", "rs_decode") and _landed("pipeline.sync", "CodeblockDecoder")),
-                    reason="pipeline.fec.rs_decode / pipeline.sync.CodeblockDecoder have not landed")
 def test_rs_only_counts_failures_and_beats_uncoded():
     prof = _profile(rs=16, interleave=1, length=223)
     (lo, hi) = sw.sweep(prof, [4.0, 7.0], frames=40, errors=10**9, seed=3, workers=1)
@@ -156,16 +148,6 @@ def test_argument_errors():
         sw.sweep(prof, [1.0], frames=1, errors=1, workers=0)
 
 
-def _chain_available():
-    try:
-        from pipeline.sim import simulate  # noqa: F401
-        from pipeline.sync import BranchSync, CodeblockDecoder  # noqa: F401
-    except ImportError:
-        return False
-    return True
-
-
-@pytest.mark.skipif(not _chain_available(), reason="the decode chain has not landed")
 def test_chain_stage_delivers_everything_at_high_ebn0_and_loses_packets_at_low():
     from pipeline.profile import demo_profile_path, load_profile
 

@@ -3,11 +3,14 @@
 See DEVELOPERS.md ("pipeline.report") for what the decode chain passes in.
 """
 
-from pipeline.report._html import CAUTION_TEXT, KNOWN_SECTIONS, MAX_TABLE_ROWS, jsonable, render_html, write_report
+from pipeline.report._build import CAUTION, RunFacts, build_report
+from pipeline.report._html import KNOWN_SECTIONS, MAX_TABLE_ROWS, jsonable, render_html, write_report
 from pipeline.report._plots import MAX_CONSTELLATION_POINTS, Figure, PlotData, render_plots
 
 __all__ = [
-    "CAUTION_TEXT",
+    "CAUTION",
+    "RunFacts",
+    "build_report",
     "Figure",
     "KNOWN_SECTIONS",
     "MAX_CONSTELLATION_POINTS",

@@ -14,12 +14,12 @@ from typing import Any
 import numpy as np
 
 from pipeline.errors import OutputError
+from pipeline.report._build import CAUTION
 from pipeline.report._plots import Figure, PlotData, render_plots
 
 __all__ = [
     "KNOWN_SECTIONS",
     "MAX_TABLE_ROWS",
-    "CAUTION_TEXT",
     "jsonable",
     "render_html",
     "write_report",
@@ -32,8 +32,6 @@ KNOWN_SECTIONS = ("summary", "recording", "profile", "demod", "sync", "frames", 
 #: Rows shown of a list section; the rest is counted in a note (report.json keeps them all).
 MAX_TABLE_ROWS = 200
 
-CAUTION_TEXT = ("Caution: data decoded here is no substitute for the mission's validated ground segment; "
-                "check anything that matters against it.")
 
 _MAX_CELL_CHARS = 300
 _MAX_DEPTH = 4
@@ -283,7 +281,7 @@ def render_html(report: dict, plots: PlotData | None = None) -> str:
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
         f"<title>{_esc(title)}</title><style>{_CSS}</style></head><body>",
         f"<header><h1>{_esc(title)}</h1>",
-        f'<p class="caution">{_esc(CAUTION_TEXT)}</p>',
+        f'<p class="caution">Caution: {_esc(CAUTION)}</p>',
         f"<nav><ul>{''.join(nav_items)}</ul></nav></header><main>",
         "".join(body),
         f"</main><footer>Written by {_esc(tool)}. Every number shown here is also in report.json.</footer>",

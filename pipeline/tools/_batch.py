@@ -35,12 +35,12 @@ def output_name(recording: str) -> str:
 
 def decode_one(recording: str, profile: LinkProfile, out_dir: str) -> dict:
     """Decode one recording into ``out_dir``; never raises (the error goes into the result)."""
-    from pipeline.chain._chain import decode_to_folder
+    from pipeline.chain import decode
     from pipeline.errors import DownlinkError
 
     t0 = time.perf_counter()
     try:
-        s = decode_to_folder(recording, profile, out_dir)
+        s = decode(recording, profile, out_dir)
     except DownlinkError as exc:
         return {"recording": recording, "status": "failed", "error": str(exc)}
     except Exception as exc:  # a bug in one recording must not stop the archive

@@ -15,18 +15,14 @@ Figures (all per process; "Mbit/s" = 10^6 bits per second, "Msample/s" = 10^6 co
 ``rs_clean_mbps``           :func:`pipeline.fec.rs_decode` E=16 I=5, codeblock bits in, no errors
 ``rs_16err_mbps``           the same with 16 symbol errors in every codeword (the most it corrects)
 ``frames_packets_mbps``     :class:`pipeline.link.FrameParser` + :class:`pipeline.packets.PacketExtractor`
-``end_to_end_msps``         the whole chain with its sinks (``DecodeChain``), one thread
-``end_to_end_msps_2threads``  the same, :class:`pipeline.chain._parallel.PipelinedDecode`, 2 threads
-``..._nogil``               the same with every kernel recompiled ``nogil=True`` (:func:`nogil_kernels`)
-``end_to_end_msps_segmented``  :class:`pipeline.chain._parallel.SegmentedDecode` on a longer recording,
-                            1 process; ``..._2proc`` with 2 worker processes
+``end_to_end_msps``         the decode path with its sinks (:class:`pipeline.chain.SegmentedDecode` into a
+                            :class:`pipeline.chain.BackEnd`; one segment, one process), report not built
+``end_to_end_msps_segmented``  the same on a longer recording (several segments), 1 process;
+                            ``..._2proc`` with 2 worker processes
 ==========================  ===============================================================
 
-``parallel_speedup`` is ``end_to_end_msps_2threads / end_to_end_msps``; ``segmented_speedup_vs_plain``
-compares 2 worker processes with the plain chain on the same long recording.  Since the machine
-may be shared, ``parallel_speedup_bound`` and ``segmented_speedup_bound`` give what two idle cores
-would reach, from CPU time per thread or per segment (``time.thread_time``), which other load
-does not change.
+Since the machine may be shared, ``segmented_speedup_bound`` gives what two idle cores would reach,
+from the CPU time per segment (``time.thread_time``), which other load does not change.
 
 ``end_to_end_realtime_factor`` divides by the demo recording's 1 Msample/s.  ``warm_start_s`` and
 ``peak_rss_mb`` come from a fresh ``python`` process decoding the demo recording (numba cache
@@ -37,7 +33,6 @@ after is printed with the figures.
 
 from __future__ import annotations
 
-import contextlib
 import json
 import math
 import os
@@ -51,7 +46,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["cpu_model", "format_table", "measure", "nogil_kernels", "peak_rss_mb", "run_bench"]
+__all__ = ["cpu_model", "format_table", "measure", "peak_rss_mb", "run_bench"]
 
 _SEED = 20260314
 
@@ -92,48 +87,6 @@ def _best(fn, repeats: int) -> float:
         t = fn()
         best = min(best, t)
     return best
-
-
-@contextlib.contextmanager
-def nogil_kernels():
-    """Swap every pipeline numba kernel for a copy compiled with ``nogil=True`` (bench only).
-
-    The kernels belong to their stages; this lets the bench show what the threaded decode gains
-    once their owners compile them with ``nogil=True``.  The copies are compiled from the same
-    Python source (``py_func``) without the disk cache, so they compute the same values.  Yields
-    the ``module:function`` names swapped; everything is restored on exit.
-    """
-    import importlib
-
-    import numba
-    from numba.core.registry import CPUDispatcher
-
-    for sub in ("recording", "demod", "fec", "sync", "link", "packets", "chain"):
-        importlib.import_module(f"pipeline.{sub}")  # every stage on the decode path, loaded now
-    copies: dict[int, object] = {}
-    swapped = []
-    for name, mod in list(sys.modules.items()):
-        if mod is None or not (name == "pipeline" or name.startswith("pipeline.")):
-            continue
-        for attr, val in list(vars(mod).items()):
-            if not isinstance(val, CPUDispatcher):
-                continue
-            owner = getattr(val, "__module__", "") or ""
-            if not owner.startswith("pipeline.") or val.targetoptions.get("nogil"):
-                continue
-            copy = copies.get(id(val))
-            if copy is None:
-                copy = copies[id(val)] = numba.njit(nogil=True)(val.py_func)
-            swapped.append((mod, attr, val))
-            setattr(mod, attr, copy)
-    try:
-        yield sorted({f"{v.__module__}:{v.__name__}" for _, _, v in swapped})
-    finally:
-        for mod, attr, val in swapped:
-            setattr(mod, attr, val)
-
-
-# ---- per-stage measurements -----------------------------------------------------------------
 
 
 def _bench_read(rec, chunk: int, repeats: int) -> float:
@@ -277,87 +230,57 @@ def _bench_frames_packets(profile, frames: list, repeats: int) -> tuple[float, f
 # ---- end to end -----------------------------------------------------------------------------
 
 
-def _decode_once(rec, profile, folder: Path | None, threads: int) -> tuple[float, object]:
-    from pipeline.chain._chain import DecodeChain, _Sinks
-    from pipeline.chain._parallel import PipelinedDecode
+def _decode_once(rec, profile, folder: Path | None, workers: int, *, repeats_tag: str = ""):
+    """One decode of ``rec`` by the canonical path (segments into one back end, sinks in ``folder``).
 
-    chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)
+    Returns the wall time of the decode (the report is not built) and the :class:`SegmentedDecode`.
+    """
+    from pipeline.chain import BackEnd, FolderSinks, SegmentedDecode
+
+    sinks = None
     if folder is not None:
         folder.mkdir(parents=True, exist_ok=True)
-        chain.sinks = _Sinks(folder)
-    pd = PipelinedDecode(chain, threads=threads)
+        sinks = FolderSinks(folder)
+    back = BackEnd(profile, timebase=rec, sinks=sinks)
+    sd = SegmentedDecode(profile, workers=workers)
     t0 = time.perf_counter()
-    pd.run(rec.chunks(profile.receiver.chunk_samples))
+    sd.run(rec, back)
     dt = time.perf_counter() - t0
-    if chain.sinks is not None:
-        chain.sinks.close()
-    return dt, pd
+    if sinks is not None:
+        sinks.close()
+    return dt, sd, back
 
 
-def _end_to_end(rec, profile, tmp: Path, threads: int, repeats: int) -> tuple[float, dict, int]:
-    _decode_once(rec, profile, tmp / f"warm{threads}", threads)
-    best = math.inf
-    cpu: dict = {}
-    packets = 0
+def _end_to_end(rec, profile, tmp: Path, workers: int, repeats: int) -> tuple[float, float, int]:
+    """Best Msample/s over ``repeats`` decodes (after one untimed), its idle-core bound and the packets."""
+    _decode_once(rec, profile, tmp / f"warm{workers}", workers)
+    best, bound, packets = math.inf, float("nan"), 0
     for r in range(repeats):
-        dt, pd = _decode_once(rec, profile, tmp / f"t{threads}_{r}", threads)
+        dt, sd, back = _decode_once(rec, profile, tmp / f"w{workers}_{r}", workers)
         if dt < best:
-            best, cpu, packets = dt, dict(pd.cpu_s), pd.chain.packet_count
-    return rec.num_samples / best / 1e6, cpu, packets
-
-
-def _segmented(rec, profile, threads: int, repeats: int) -> tuple[float, float]:
-    """Best Msample/s of a segmented decode and the idle-core speed-up bound of its best run."""
-    from pipeline.chain._chain import DecodeChain
-    from pipeline.chain._parallel import SegmentedDecode
-
-    best, bound = math.inf, float("nan")
-    for _ in range(repeats):
-        chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)
-        sd = SegmentedDecode(profile, threads=threads)
-        t0 = time.perf_counter()
-        sd.run(rec, chain)
-        dt = time.perf_counter() - t0
-        if dt < best:
-            best, bound = dt, sd.speedup_bound(2)
-    return rec.num_samples / best / 1e6, bound
-
-
-def _nogil_figures(rec, profile, tmp: Path, repeats: int) -> dict:
-    res: dict = {}
-    with nogil_kernels() as swapped:
-        msps1n, _, _ = _end_to_end(rec, profile, tmp, 1, repeats)
-        msps2n, cpu2n, _ = _end_to_end(rec, profile, tmp, 2, repeats)
-    res["nogil_kernels_swapped"] = len(swapped)
-    res["end_to_end_msps_nogil"] = msps1n
-    res["end_to_end_msps_2threads_nogil"] = msps2n
-    res["parallel_speedup_nogil"] = msps2n / msps1n
-    # what the two threads would reach on two idle cores: total work over the longer thread
-    busy = [cpu2n.get("demod", 0.0), cpu2n.get("main", 0.0)]
-    res["thread_cpu_s_nogil"] = {k: round(v, 4) for k, v in cpu2n.items()}
-    res["parallel_speedup_bound"] = sum(busy) / max(busy) if max(busy) > 0 else float("nan")
-    return res
+            best, bound, packets = dt, sd.speedup_bound(2), back.packet_count
+    return rec.num_samples / best / 1e6, bound, packets
 
 
 _CHILD = r"""
 import json, resource, sys, time
 from pipeline.profile import load_profile, demo_profile_path
 from pipeline.recording import open_recording
-from pipeline.chain._chain import DecodeChain, _Sinks
+from pipeline.chain import DecodeChain, FolderSinks
 profile = load_profile(demo_profile_path())
 rec = open_recording(sys.argv[1])
-chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec)
-chain.sinks = _Sinks(__import__("pathlib").Path(sys.argv[2]))
+sinks = FolderSinks(__import__("pathlib").Path(sys.argv[2]))
+chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec, sinks=sinks)
 first = None
 for chunk in rec.chunks(profile.receiver.chunk_samples):
     chain.process_chunk(chunk)
     if first is None:
         first = time.monotonic()
 chain.finish()
-chain.sinks.close()
+sinks.close()
 hwm = [l for l in open("/proc/self/status") if l.startswith("VmHWM:")]
 peak = int(hwm[0].split()[1]) / 1024.0 if hwm else resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
-print(json.dumps({"first": first, "end": time.monotonic(), "packets": chain.packet_count, "peak_rss_mb": peak}))
+print(json.dumps({"first": first, "end": time.monotonic(), "packets": chain.back.packet_count, "peak_rss_mb": peak}))
 """
 
 
@@ -382,8 +305,8 @@ def _fresh_process(meta: Path, tmp: Path, runs: int = 3) -> dict:
             "cold_first_run_s": results[0]["warm_start_s"]}
 
 
-def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float = 34.0, nogil: bool = True,
-            fresh_runs: int = 3, progress=None) -> dict:
+def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float = 34.0, fresh_runs: int = 3,
+            progress=None) -> dict:
     """Run every benchmark and return the figures as a dict (see the module docstring).
 
     Parameters
@@ -395,8 +318,6 @@ def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float 
     segmented_seconds : float
         Length of the recording for the overlapping-segment figures (0 skips them); it must hold
         several default segments (2^23 samples) to show a speed-up.
-    nogil : bool
-        Also measure with every kernel recompiled ``nogil=True`` (:func:`nogil_kernels`).
     fresh_runs : int
         Fresh processes started for the warm-start and memory figures (the first fills the cache).
     progress : callable or None
@@ -436,36 +357,26 @@ def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float 
         res["rs_clean_mbps"] = _bench_rs(0, repeats)
         res["rs_16err_mbps"] = _bench_rs(16, repeats)
         say("frames and packets")
-        from pipeline.chain._parallel import decode_segment
+        from pipeline.chain import decode_segment
 
         seg = decode_segment(rec, profile, 0, 0, rec.num_samples, 0, rec.num_samples)
         res["frames_packets_mbps"], res["frames_packets_per_s"] = _bench_frames_packets(profile, seg.frames,
                                                                                         repeats)
-        say("end to end, 1 thread")
-        msps1, cpu1, packets = _end_to_end(rec, profile, tmp, 1, repeats)
+        say("end to end, 1 process")
+        msps1, _, packets = _end_to_end(rec, profile, tmp, 1, repeats)
         res["end_to_end_msps"] = msps1
         res["end_to_end_realtime_factor"] = msps1 * 1e6 / fs
         res["end_to_end_packets"] = packets
-        say("end to end, 2 threads")
-        msps2, cpu2, _ = _end_to_end(rec, profile, tmp, 2, repeats)
-        res["end_to_end_msps_2threads"] = msps2
-        res["parallel_speedup"] = msps2 / msps1
-        if nogil:
-            say("end to end, 2 threads, kernels recompiled with nogil=True")
-            res.update(_nogil_figures(rec, profile, tmp, repeats))
         if segmented_seconds:
-            say(f"overlapping segments, {segmented_seconds:g} s recording, 1 and 2 processes")
+            say(f"overlapping segments, {segmented_seconds:g} s recording, 1 and 2 worker processes")
             sim_long = simulate(profile, tmp / "long", seconds=float(segmented_seconds), seed=2)
             rec_long = open_recording(sim_long.meta_path)
-            plain_long, _, _ = _end_to_end(rec_long, profile, tmp, 1, max(1, repeats - 1))
-            s1, bound = _segmented(rec_long, profile, 1, max(1, repeats - 1))
-            s2, _ = _segmented(rec_long, profile, 2, max(1, repeats - 1))
-            res["end_to_end_msps_long"] = plain_long
+            s1, bound, _ = _end_to_end(rec_long, profile, tmp, 1, max(1, repeats - 1))
+            s2, _, _ = _end_to_end(rec_long, profile, tmp, 2, max(1, repeats - 1))
             res["segmented_seconds"] = float(segmented_seconds)
             res["end_to_end_msps_segmented"] = s1
             res["end_to_end_msps_segmented_2proc"] = s2
             res["segmented_speedup"] = s2 / s1
-            res["segmented_speedup_vs_plain"] = s2 / plain_long
             res["segmented_speedup_bound"] = bound
             (tmp / "long" / sim_long.data_path.name).unlink()
         say("fresh process: warm start and peak memory")
@@ -483,18 +394,11 @@ _ROWS = [
     ("rs_clean_mbps", "RS E=16 I=5, clean (codeblock bits)", "Mbit/s"),
     ("rs_16err_mbps", "RS E=16 I=5, 16 errors/codeword", "Mbit/s"),
     ("frames_packets_mbps", "frames + packets (frame bits)", "Mbit/s"),
-    ("end_to_end_msps", "end to end, 1 thread", "Msample/s"),
+    ("end_to_end_msps", "end to end, 1 process", "Msample/s"),
     ("end_to_end_realtime_factor", "  real-time factor (1 Msample/s)", "x"),
-    ("end_to_end_msps_2threads", "end to end, 2 threads (pipelined)", "Msample/s"),
-    ("parallel_speedup", "  speed-up, kernels as shipped", "x"),
-    ("end_to_end_msps_2threads_nogil", "end to end, 2 threads, nogil kernels", "Msample/s"),
-    ("parallel_speedup_nogil", "  speed-up with nogil kernels", "x"),
-    ("parallel_speedup_bound", "  bound on idle cores (thread CPU)", "x"),
-    ("end_to_end_msps_long", "long recording, plain chain, 1 thread", "Msample/s"),
-    ("end_to_end_msps_segmented", "segments, 1 process", "Msample/s"),
-    ("end_to_end_msps_segmented_2proc", "segments, 2 processes", "Msample/s"),
+    ("end_to_end_msps_segmented", "long recording, 1 process", "Msample/s"),
+    ("end_to_end_msps_segmented_2proc", "long recording, 2 worker processes", "Msample/s"),
     ("segmented_speedup", "  speed-up over 1 process", "x"),
-    ("segmented_speedup_vs_plain", "  speed-up over the plain chain", "x"),
     ("segmented_speedup_bound", "  bound on 2 idle cores (segment CPU)", "x"),
     ("warm_start_s", "warm start to first sample", "s"),
     ("peak_rss_mb", "peak RSS, fresh decode process", "MiB"),

@@ -11,7 +11,7 @@ import json
 import sys
 from pathlib import Path
 
-from pipeline.chain._output import OutputFolder
+from pipeline.chain import OutputFolder
 
 __all__ = ["compare_with_truth", "run_demo"]
 
@@ -52,8 +52,9 @@ def compare_with_truth(truth_path: Path, packets_path: Path) -> dict:
 
 def run_demo(*, out: str = "downlink-demo", overwrite: bool = False, seconds: float | None = None,
              ebn0_db: float | None = None, seed: int | None = None, quiet: bool = False) -> int:
-    from pipeline.chain._chain import CAUTION, decode_to_folder
+    from pipeline.chain import decode
     from pipeline.profile import demo_profile_path, load_profile
+    from pipeline.report import CAUTION
     from pipeline.sim import simulate
 
     profile = load_profile(demo_profile_path())
@@ -67,8 +68,7 @@ def run_demo(*, out: str = "downlink-demo", overwrite: bool = False, seconds: fl
             print(f"  {sim.seconds:g} s, {sim.num_samples} samples, {sim.num_frames} frames, {sim.num_packets} "
                   f"packets, Es/N0 {sim.esn0_db:.2f} dB", file=sys.stderr)
             print("decoding ...", file=sys.stderr)
-        summary = decode_to_folder(str(sim.meta_path), profile, str(tmp / "decoded"),
-                                   progress=not quiet and sys.stderr.isatty())
+        summary = decode(sim.meta_path, profile, tmp / "decoded", progress=not quiet)
         cmp = compare_with_truth(Path(sim.truth_path), tmp / "decoded" / "packets.jsonl")
         (tmp / "decoded" / "truth_comparison.json").write_text(json.dumps(cmp, indent=2) + "\n")
     if not quiet:

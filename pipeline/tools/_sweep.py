@@ -45,9 +45,9 @@ from pathlib import Path
 
 import numpy as np
 
-from pipeline.tools import _theory
-from pipeline.errors import DownlinkError
+from pipeline.errors import UsageError
 from pipeline.profile import LinkProfile
+from pipeline.tools import _theory
 
 __all__ = [
     "TARGET_BER",
@@ -131,7 +131,7 @@ def parse_ebn0_spec(spec: str) -> list[float]:
 
     Raises
     ------
-    DownlinkError
+    UsageError
         One line naming the option and the rule.
     """
     text = str(spec).strip()
@@ -142,17 +142,17 @@ def parse_ebn0_spec(spec: str) -> list[float]:
                 raise ValueError
             a, b, step = parts
             if not step > 0 or b < a:
-                raise DownlinkError(f"--ebn0 '{spec}' must have STEP > 0 and B >= A")
+                raise UsageError(f"--ebn0 '{spec}' must have STEP > 0 and B >= A")
             n = int(math.floor((b - a) / step + 1e-9)) + 1
             values = [round(a + i * step, 10) for i in range(n)]
         else:
             values = [float(p) for p in text.split(",")]
     except ValueError:
-        raise DownlinkError(f"--ebn0 '{spec}' must be A:B:STEP, a comma list or one value in dB") from None
+        raise UsageError(f"--ebn0 '{spec}' must be A:B:STEP, a comma list or one value in dB") from None
     if not values or not all(math.isfinite(v) and -10.0 <= v <= 30.0 for v in values):
-        raise DownlinkError(f"--ebn0 '{spec}' values must be finite, -10..30 dB")
+        raise UsageError(f"--ebn0 '{spec}' values must be finite, -10..30 dB")
     if len(values) > 200:
-        raise DownlinkError(f"--ebn0 '{spec}' gives {len(values)} points; at most 200")
+        raise UsageError(f"--ebn0 '{spec}' gives {len(values)} points; at most 200")
     return values
 
 
@@ -299,28 +299,26 @@ def simulate_chain_point(profile: LinkProfile, ebn0_db: float, *, frames: int, e
     frame with its (VCID, VCFC, and MCFC for TM) was delivered with status ``ok`` (``idle`` for an
     Only-Idle-Data frame).
     """
-    from pipeline.chain._chain import decode_to_folder
+    from pipeline.chain import decode
     from pipeline.sim import simulate
 
     t0 = time.perf_counter()
     esn0 = _esn0_db(profile, ebn0_db)
     ss = np.random.SeedSequence(seed)
     pt = SweepPoint(ebn0_db=float(ebn0_db), esn0_db=float(esn0), seed=list(seed), stage="chain")
-    channel_bit_rate = profile.link.symbol_rate_baud * profile.link.bits_per_symbol
-    cadu_channel_bits = profile.cadu_bits / profile.coding.conv_rate
+    cadu_seconds = profile.cadu_channel_bits / profile.link.channel_bit_rate
     segment = 0
     while pt.frames < frames and pt.packet_errors < errors:
         n = min(_CHAIN_SEGMENT_FRAMES, frames - pt.frames)
-        seconds = (n + _CHAIN_IDLE_CADUS + 0.5) * cadu_channel_bits / channel_bit_rate
+        seconds = (n + _CHAIN_IDLE_CADUS + 0.5) * cadu_seconds
         sim_seed = int(ss.spawn(1)[0].generate_state(1)[0] & 0x7FFFFFFF)
         with tempfile.TemporaryDirectory(prefix="downlink-sweep-") as tmp:
             tmp = Path(tmp)
             res = simulate(profile, tmp / "sim", seconds=seconds, ebn0_db=ebn0_db, seed=sim_seed)
-            decode_to_folder(str(res.meta_path), profile, str(tmp / "dec"))
+            decoded = decode(res.meta_path, profile)
             truth = _read_jsonl(res.truth_path)
             truth_frames = _read_jsonl(res.truth_frames_path)
-            got = _read_jsonl(tmp / "dec" / "packets.jsonl")
-            got_frames = _read_jsonl(tmp / "dec" / "frames.jsonl")
+            got, got_frames = decoded.packets_list, decoded.frames_list
         delivered: dict[tuple, list[str]] = {}
         for p in got:
             delivered.setdefault((p.get("vcid"), p["apid"], p["seq_count"]), []).append(p["hex"])
@@ -614,13 +612,13 @@ def write_outputs(folder: Path, profile: LinkProfile, points: list[SweepPoint], 
 def run_sweep(profile: LinkProfile, ebn0_spec: str, *, frames: int, errors: int, stage: str, seed: int,
               workers: int | None, out: str, overwrite: bool, quiet: bool) -> int:
     """``downlink sweep``: simulate, write the three files into ``out``, print the losses; exit code 0."""
-    from pipeline.chain._output import OutputFolder
+    from pipeline.chain import OutputFolder
 
     values = parse_ebn0_spec(ebn0_spec)
     if frames < 1 or errors < 1:
-        raise DownlinkError(f"--frames and --errors must be >= 1, not {frames} and {errors}")
+        raise UsageError(f"--frames and --errors must be >= 1, not {frames} and {errors}")
     if workers is not None and workers < 1:
-        raise DownlinkError(f"--workers must be >= 1, not {workers}")
+        raise UsageError(f"--workers must be >= 1, not {workers}")
     t0 = time.perf_counter()
     n_done = [0]
 

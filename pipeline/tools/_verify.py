@@ -384,7 +384,7 @@ def _run_timecode(case: VectorCase) -> tuple[bool, str]:
 
 
 def _run_whole_link(case: VectorCase) -> tuple[bool, str]:
-    from pipeline.chain._chain import decode_to_folder
+    from pipeline.chain import decode
     from pipeline.profile import profile_from_dict
 
     p, want = case.data["params"], case.data["expected"]
@@ -394,10 +394,8 @@ def _run_whole_link(case: VectorCase) -> tuple[bool, str]:
     with tempfile.TemporaryDirectory(prefix="downlink-verify-") as tmp:
         bits_path = Path(tmp) / f"{case.name}.bits"
         packed.tofile(bits_path)
-        out = Path(tmp) / "out"
-        decode_to_folder(str(bits_path), prof, str(out), input_kind="bits", start=p["start"])
-        packets = [json.loads(line) for line in (out / "packets.jsonl").read_text().splitlines() if line.strip()]
-        frames = [json.loads(line) for line in (out / "frames.jsonl").read_text().splitlines() if line.strip()]
+        decoded = decode(bits_path, prof, input_kind="bits", start=p["start"])
+    packets, frames = decoded.packets_list, decoded.frames_list
     statuses = [f.get("status") for f in frames]
     if "frame_statuses" in want and statuses != want["frame_statuses"]:
         return False, f"frame statuses {statuses}, expected {want['frame_statuses']}"

@@ -1,0 +1,179 @@
+"""The back end of the decode chain: decoded frames in, frame records, packets and sinks out.
+
+::
+
+    DecodedFrame -> FrameParser -> ChannelAccounting -> PacketExtractor -> sinks
+    TrackPoint   -> track log (report, Es/N0 per frame), lock events, doppler.csv rows
+
+The back end is fed in stream order: by a :class:`~pipeline.chain.FrontEnd` directly, or by the merge
+of a segmented decode.  Time stays a sample position until a record is written; then the time base
+turns it into UTC.
+"""
+
+from __future__ import annotations
+
+import bisect
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from pipeline.profile import LinkProfile
+
+__all__ = ["BackEnd", "TrackLog"]
+
+
+@dataclass
+class TrackLog:
+    """The receiver track of a run, one entry per track point, in stream order."""
+
+    position: list = field(default_factory=list)
+    carrier_hz: list = field(default_factory=list)
+    esn0_db: list = field(default_factory=list)
+    carrier_locked: list = field(default_factory=list)
+    symbol_locked: list = field(default_factory=list)
+    modulation_index_rad: list = field(default_factory=list)
+
+    def append(self, tp) -> None:
+        self.position.append(float(tp.position))
+        self.carrier_hz.append(float(tp.carrier_offset_hz))
+        self.esn0_db.append(float(tp.esn0_db))
+        self.carrier_locked.append(bool(tp.carrier_locked))
+        self.symbol_locked.append(bool(tp.symbol_locked))
+        m = getattr(tp, "modulation_index_rad", None)  # residual-carrier track points only
+        if m is not None and math.isfinite(float(m)):
+            self.modulation_index_rad.append(float(m))
+
+    def esn0_at(self, position: float) -> float | None:
+        """Es/N0 (dB, 2 decimals) of the track point at or before ``position`` (the first one before it)."""
+        if not self.position:
+            return None
+        i = max(bisect.bisect_right(self.position, position) - 1, 0)
+        v = self.esn0_db[i]
+        return round(v, 2) if math.isfinite(v) else None
+
+    def arrays(self) -> dict[str, np.ndarray]:
+        """The track as arrays; ``locked`` is carrier and symbol lock together."""
+        locked = np.asarray(self.carrier_locked, bool) & np.asarray(self.symbol_locked, bool)
+        return {"position": np.asarray(self.position, np.float64), "carrier_hz": np.asarray(self.carrier_hz),
+                "esn0_db": np.asarray(self.esn0_db), "locked": locked}
+
+
+class BackEnd:
+    """Decoded frames -> frame records, channel accounting, packets -> sinks.
+
+    Parameters
+    ----------
+    profile : LinkProfile
+    timebase : object with ``utc_ns(position) -> int``, or None, keyword-only
+        Turns sample positions into UTC for the records; None leaves ERT fields null.
+    sinks : object or None, keyword-only
+        Receives ``frame(obj)``, ``packet(obj, data)`` and ``doppler(rows)`` (see
+        :mod:`pipeline.chain._sinks`); None counts without writing.
+    downlink_frequency_hz : float or None, keyword-only
+        Nominal downlink frequency, for the range rate in ``doppler.csv``.
+    tuning_offset_hz : float, keyword-only
+        Recording centre frequency minus the nominal frequency.
+    """
+
+    def __init__(self, profile: LinkProfile, *, timebase=None, sinks=None, downlink_frequency_hz: float | None = None,
+                 tuning_offset_hz: float = 0.0):
+        from pipeline.link import ChannelAccounting, FrameParser
+        from pipeline.packets import PacketExtractor, format_ert
+
+        self.profile = profile
+        self.timebase = timebase
+        self.sinks = sinks
+        self.downlink_frequency_hz = downlink_frequency_hz
+        self.tuning_offset_hz = float(tuning_offset_hz)
+        self._format_ert = format_ert
+        self.parser = FrameParser(frames=profile.frames)
+        self.accounting = ChannelAccounting(spacecraft_id=profile.frames.spacecraft_id)
+        self.extractor = PacketExtractor(profile=profile)
+        self.track = TrackLog()
+        self.status_counts: dict[str, int] = {}
+        self.frame_count = 0
+        self.packet_count = 0
+        self.gaps: list[dict] = []
+        self.events: list[dict] = []  # receiver lock changes
+        self._was_locked: bool | None = None
+
+    # ---- feeding --------------------------------------------------------------------------
+    def process(self, out) -> None:
+        """Take one :class:`~pipeline.chain.FrontOutput`: its track points, then its frames."""
+        self.process_track(out.track)
+        for decoded in out.frames:
+            self.process_frame(decoded)
+
+    def process_track(self, track: list) -> None:
+        """Receiver track points, in stream order: the track log, lock events and Doppler rows."""
+        if not track:
+            return
+        if self.sinks is not None and self.timebase is not None:
+            from pipeline.demod.residual import doppler_rows
+
+            self.sinks.doppler(doppler_rows(track, self.timebase, self.downlink_frequency_hz,
+                                            tuning_offset_hz=self.tuning_offset_hz))
+        for tp in track:
+            self.track.append(tp)
+            locked = bool(tp.carrier_locked and tp.symbol_locked)
+            if locked != self._was_locked:
+                self.events.append({"kind": "demod_lock_acquired" if locked else "demod_lock_lost",
+                                    "position": float(tp.position),
+                                    "detail": f"carrier {tp.carrier_offset_hz:.1f} Hz" if locked else ""})
+                self._was_locked = locked
+
+    def process_frame(self, decoded) -> None:
+        """One decoded frame (a :class:`~pipeline.sync.DecodedFrame`), in stream order."""
+        record = self.parser.process(decoded)
+        for g in self.accounting.process(record):
+            gd = g.as_dict()
+            gd["ert"] = self.ert(gd.get("position", decoded.position))
+            self.gaps.append(gd)
+        self.frame_count += 1
+        self.status_counts[record.status] = self.status_counts.get(record.status, 0) + 1
+        if self.sinks is not None:
+            fd = record.as_dict()
+            fd["ert"] = self.ert(record.position)
+            fd["esn0_db"] = self.track.esn0_at(record.position)
+            self.sinks.frame(fd)
+        for pkt in self.extractor.process(record):
+            self._packet(pkt)
+        for sg in self.extractor.take_sequence_gaps():
+            gd = sg.as_dict()
+            gd.setdefault("kind", "apid")
+            if "position" in gd:
+                gd["ert"] = self.ert(float(gd["position"]))
+            self.gaps.append(gd)
+
+    def finish(self) -> None:
+        """Flush the packet extractor (a packet still waiting for the next frame's pointer)."""
+        for pkt in self.extractor.flush():
+            self._packet(pkt)
+
+    # ---- helpers --------------------------------------------------------------------------
+    def ert(self, position: float) -> str | None:
+        """The ERT string of a sample position (None without a time base)."""
+        if self.timebase is None:
+            return None
+        return self._format_ert(self.timebase.utc_ns(position))
+
+    def _packet(self, pkt) -> None:
+        self.packet_count += 1
+        if self.sinks is None:
+            return
+        obj = {
+            "ert": self.ert(pkt.position),
+            "apid": None if pkt.apid is None else int(pkt.apid),  # None: an encapsulation packet
+            "seq_count": None if pkt.seq_count is None else int(pkt.seq_count),
+            "hex": bytes(pkt.data).hex(),
+            "scid": int(pkt.scid),
+            "vcid": int(pkt.vcid),
+        }
+        for key, value in pkt.as_dict().items():
+            if key not in obj and key not in ("data", "hex"):
+                obj[key] = value
+        obj["esn0_db"] = self.track.esn0_at(pkt.position)
+        if pkt.time_ns is not None:
+            obj["packet_time"] = self._format_ert(int(pkt.time_ns))
+        self.sinks.packet(obj, bytes(pkt.data))

@@ -1,0 +1,245 @@
+"""The front end of the decode chain: samples or channel symbols in, decoded frames out.
+
+::
+
+    samples -> demodulator -> BranchSync (Viterbi) -> LineDecoder (NRZ-M) -> FrameSync -> CodeblockDecoder
+    channel symbols (--input soft|bits) enter at BranchSync
+
+Every stage streams with explicit state, so the front end holds constant memory whatever the length of
+the input, and its output does not depend on how the input is cut into chunks.  What it hands on is a
+:class:`FrontOutput`: the decoded frames (each with the sample position of its ASM) and the receiver
+track points completed by the call.  Its counters, statistics and events are summed up in a
+:class:`FrontSummary`, which a segmented decode merges over segments.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from pipeline.errors import ProfileError
+from pipeline.profile import LinkProfile
+
+__all__ = ["CONSTELLATION_POINTS", "FrontCounts", "FrontEnd", "FrontOutput", "FrontSummary"]
+
+#: Symbols kept for the report's constellation plot (the most recent locked stretch).
+CONSTELLATION_POINTS = 2000
+
+InputKind = str  # "iq" | "soft" | "bits"
+
+
+@dataclass
+class FrontCounts:
+    """Counts of the front end over the input it owns.
+
+    ``samples`` and ``nonfinite`` count IQ samples (NaN/Inf replaced by 0), ``channel_symbols`` the
+    channel bits out of the demodulator (or read from a symbol file), ``locked_symbols`` those
+    received with carrier lock.
+    """
+
+    samples: int = 0
+    nonfinite: int = 0
+    channel_symbols: int = 0
+    locked_symbols: int = 0
+
+    def add(self, other: FrontCounts) -> None:
+        for f in dataclasses.fields(self):
+            setattr(self, f.name, getattr(self, f.name) + getattr(other, f.name))
+
+
+@dataclass
+class FrontOutput:
+    """What one call of the front end produced: decoded frames and completed track points."""
+
+    frames: list = field(default_factory=list)
+    track: list = field(default_factory=list)
+
+
+@dataclass
+class FrontSummary:
+    """The front end's counters, stage statistics and events, for the report.
+
+    ``stats`` maps ``"branch" | "frame_sync" | "codeblock"`` to the stage's statistics object;
+    ``events`` are the synchronizer events as dicts; ``constellation`` the last locked stretch of
+    normalised symbols (None without a demodulator).
+    """
+
+    counts: FrontCounts = field(default_factory=FrontCounts)
+    stats: dict = field(default_factory=dict)
+    events: list = field(default_factory=list)
+    constellation: np.ndarray | None = None
+
+    def merge(self, other: FrontSummary) -> None:
+        """Add a later segment's summary: counts and numeric statistics summed, events appended."""
+        self.counts.add(other.counts)
+        for name, st in other.stats.items():
+            self.stats[name] = _add_stats(self.stats.get(name), st)
+        self.events.extend(other.events)
+        if other.constellation is not None:
+            self.constellation = other.constellation
+
+
+def _add_stats(total: Any, part: Any) -> Any:
+    """Field-wise sum of two statistics dataclasses (numbers added, anything else from ``part``)."""
+    if total is None:
+        return dataclasses.replace(part)
+    kw = {}
+    for f in dataclasses.fields(total):
+        a, b = getattr(total, f.name), getattr(part, f.name)
+        if isinstance(a, (int, float)) and isinstance(b, (int, float)) and not isinstance(a, bool):
+            kw[f.name] = a + b
+        else:
+            kw[f.name] = b
+    return dataclasses.replace(total, **kw)
+
+
+class FrontEnd:
+    """Samples (or channel symbols) -> decoded frames, with the receiver's track.
+
+    Parameters
+    ----------
+    profile : LinkProfile
+    input_kind : {"iq", "soft", "bits"}, keyword-only
+        "iq" starts at the demodulator; "soft" and "bits" feed channel symbols to
+        :meth:`process_symbols`.
+    sample_rate_hz : float, keyword-only
+        Sample rate of an IQ recording (required for "iq").
+    owned : (float, float) or None, keyword-only
+        Sample range ``[start, stop)`` whose counts, track points and events this front end reports
+        (a segment of a segmented decode); None reports everything.  Frames are never filtered: the
+        merge decides which to take.
+
+    Notes
+    -----
+    The frame synchronizer's lost-lock notice goes back to the branch synchronizer (so it
+    re-decides the branch); nothing else flows backwards.
+    """
+
+    def __init__(self, profile: LinkProfile, *, input_kind: InputKind = "iq", sample_rate_hz: float | None = None,
+                 owned: tuple[float, float] | None = None):
+        from pipeline.demod import LineDecoder
+        from pipeline.sync import BranchSync, CodeblockDecoder, FrameSync
+
+        if input_kind not in ("iq", "soft", "bits"):
+            raise ValueError(f"Argument 'input_kind' must be iq | soft | bits, not {input_kind!r}.")
+        self.profile = profile
+        self.input_kind = input_kind
+        self.owned = owned
+        rx = profile.receiver
+        self.demod = None
+        if input_kind == "iq":
+            from pipeline.demod.residual import make_demodulator
+
+            if sample_rate_hz is None:
+                raise ValueError("Argument 'sample_rate_hz' is required for input_kind 'iq'.")
+            try:
+                self.demod = make_demodulator(link=profile.link, receiver=rx, sample_rate_hz=float(sample_rate_hz))
+            except ValueError as exc:  # a link the demodulators cannot serve at this sample rate
+                raise ProfileError(f"{profile.name}: {exc}") from None
+        # Bi-phase-L is removed inside the demodulator (half-symbol integration); what is left is NRZ-L.
+        line_code = "nrz-l" if profile.link.line_code == "bi-phase-l" else profile.link.line_code
+        self.line = LineDecoder(line_code=line_code)
+        self.branch = BranchSync(rate=profile.coding.convolutional, modulation=profile.link.modulation)
+        self.fsync = FrameSync(frame_bits=8 * profile.codeblock_bytes, max_errors=rx.asm_max_errors,
+                               flywheel=rx.flywheel_frames)
+        self.codeblock = CodeblockDecoder(profile=profile)
+        self.counts = FrontCounts()
+        self.constellation: np.ndarray | None = None
+        self._out = FrontOutput()
+
+    @property
+    def sample_rate_hz(self) -> float | None:
+        """Sample rate of the demodulator (None for channel-symbol input)."""
+        return None if self.demod is None else float(self.demod.sample_rate_hz)
+
+    @property
+    def block_samples(self) -> int:
+        """The demodulator's processing block (a segment's reads start on this grid); 1 without one."""
+        block = getattr(self.demod, "block_samples", 1)
+        return block if isinstance(block, int) and 1 <= block <= 1 << 20 else 1
+
+    # ---- feeding --------------------------------------------------------------------------
+    def process_chunk(self, chunk) -> FrontOutput:
+        """Feed one recording chunk (``samples``, ``start``, ``nonfinite``)."""
+        if self._owns(chunk.start):
+            self.counts.samples += len(chunk.samples)
+            self.counts.nonfinite += int(chunk.nonfinite)
+        self._symbols(self.demod.process(chunk))
+        return self._take()
+
+    def process_symbols(self, soft: np.ndarray, position: np.ndarray) -> FrontOutput:
+        """Feed channel symbols (``--input soft|bits``): soft float32 and their positions."""
+        soft = np.asarray(soft, dtype=np.float32)
+        position = np.asarray(position, dtype=np.float64)
+        self.counts.channel_symbols += self._owned_count(position)
+        self._channel(soft, position)
+        return self._take()
+
+    def finish(self) -> FrontOutput:
+        """Flush every stage in order; the front end is then spent."""
+        if self.demod is not None:
+            self._symbols(self.demod.flush())
+        bits, pos = self.branch.flush()
+        self._bits(bits, pos)
+        for cadu in self.fsync.flush():
+            self._cadu(cadu)
+        return self._take()
+
+    def summary(self) -> FrontSummary:
+        """Counters, stage statistics and events (owned range only) so far."""
+        events = []
+        for stage in (self.branch, self.fsync):
+            for ev in stage.events:
+                if self._owns(ev.position):
+                    events.append(ev.as_dict())
+        stats = {"branch": self.branch.stats, "frame_sync": self.fsync.stats, "codeblock": self.codeblock.stats}
+        return FrontSummary(counts=dataclasses.replace(self.counts), stats=stats, events=events,
+                            constellation=self.constellation)
+
+    # ---- internals ------------------------------------------------------------------------
+    def _owns(self, position: float) -> bool:
+        return self.owned is None or self.owned[0] <= position < self.owned[1]
+
+    def _owned_count(self, position: np.ndarray, mask: np.ndarray | None = None) -> int:
+        sel = np.ones(len(position), dtype=bool) if self.owned is None else (
+            (position >= self.owned[0]) & (position < self.owned[1]))
+        if mask is not None:
+            sel &= mask
+        return int(np.count_nonzero(sel))
+
+    def _take(self) -> FrontOutput:
+        out, self._out = self._out, FrontOutput()
+        return out
+
+    def _symbols(self, block) -> None:
+        self._out.track.extend(tp for tp in block.track if self._owns(tp.position))
+        if len(block.soft):
+            self.counts.channel_symbols += self._owned_count(block.position)
+            self.counts.locked_symbols += self._owned_count(block.position, block.locked)
+        syms = block.symbols
+        if len(syms) >= 256 and len(block.locked) and bool(block.locked[-1]):
+            # the most recent locked stretch: a snapshot of the constellation as the pass went on
+            self.constellation = np.array(syms[-CONSTELLATION_POINTS:], dtype=np.complex64)
+        self._channel(block.soft, block.position)
+
+    def _channel(self, soft: np.ndarray, position: np.ndarray) -> None:
+        bits, pos = self.branch.process(soft, position)
+        self._bits(bits, pos)
+
+    def _bits(self, bits: np.ndarray, pos: np.ndarray) -> None:
+        if len(bits) == 0:
+            return
+        # CCSDS 131.0-B-2 sec. 3.3.3: NRZ-M conversion is done at the convolutional encoder input,
+        # so it is undone at the decoder output (uncoded links: the same place, on channel bits).
+        bits = self.line.process(bits)
+        was = self.fsync.locked
+        for cadu in self.fsync.process(bits, pos):
+            self._cadu(cadu)
+        if was and not self.fsync.locked:
+            self.branch.notify_lost_lock()
+
+    def _cadu(self, cadu) -> None:
+        self._out.frames.append(self.codeblock.process(cadu))

@@ -1,0 +1,254 @@
+"""A whole decode run: open the input, run the chain, build the report, write the output.
+
+:func:`decode_to_folder` is what ``downlink decode`` does; :func:`decode_in_memory` the same with the
+records kept in lists (``pipeline.decode(..., out=None)``).
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from pipeline._version import __version__
+from pipeline.chain._backend import BackEnd
+from pipeline.chain._chain import DecodeChain
+from pipeline.chain._frontend import FrontSummary
+from pipeline.chain._output import OutputFolder
+from pipeline.chain._progress import Progress
+from pipeline.chain._segments import DEFAULT_SEGMENT_SAMPLES, SegmentedDecode
+from pipeline.chain._sinks import FolderSinks, MemorySinks
+from pipeline.errors import ProfileError, RecordingError
+from pipeline.profile import LinkProfile
+
+__all__ = ["DecodeSummary", "SymbolTimebase", "decode_in_memory", "decode_to_folder"]
+
+#: Samples at the start of an IQ recording whose spectrum the report shows.
+SPECTRUM_SAMPLES = 1 << 18
+
+INPUT_KINDS = ("iq", "soft", "bits")
+
+
+@dataclass
+class DecodeSummary:
+    """What a decode run returns: its counts, and the records when it ran in memory.
+
+    Attributes
+    ----------
+    frames, frames_ok, frames_idle, frames_failed : int
+        Frames found (every status); frames that passed their checks and carry data; idle frames;
+        frames that failed a check (any other status).
+    packets : int
+        Packets delivered.
+    duration_s, elapsed_s : float
+        Length of the input and wall time of the decode (the report's plots are drawn after).
+    samples, channel_symbols : int
+        IQ samples read (0 for symbol input) and channel bits decoded.
+    input_kind : {"iq", "soft", "bits"}
+    out : str or None
+        The output folder (None for an in-memory decode).
+    report : dict
+        The report dictionary (what ``report.json`` holds).
+    packets_list, frames_list : list of dict
+        In-memory decodes only: the objects ``packets.jsonl`` and ``frames.jsonl`` would hold.
+    """
+
+    frames: int = 0
+    frames_ok: int = 0
+    frames_idle: int = 0
+    frames_failed: int = 0
+    packets: int = 0
+    duration_s: float = 0.0
+    elapsed_s: float = 0.0
+    samples: int = 0
+    channel_symbols: int = 0
+    input_kind: str = "iq"
+    out: str | None = None
+    report: dict = field(default_factory=dict, repr=False)
+    packets_list: list = field(default_factory=list, repr=False)
+    frames_list: list = field(default_factory=list, repr=False)
+
+    def line(self) -> str:
+        """The one-line summary printed at the end of a run."""
+        rt = self.duration_s / self.elapsed_s if self.elapsed_s > 0 else float("nan")
+        if self.input_kind == "iq":
+            rate = self.samples / self.elapsed_s / 1e6 if self.elapsed_s > 0 else float("nan")
+            what = f"{self.samples} samples"
+            speed = f"{rate:.1f} Msample/s, "
+        else:
+            what, speed = f"{self.channel_symbols} channel symbols", ""
+        return (f"decoded {self.duration_s:.2f} s ({what}) in {self.elapsed_s:.2f} s ({speed}{rt:.1f}x real time): "
+                f"{self.frames} frames ({self.frames_ok} good, {self.frames_idle} idle, {self.frames_failed} failed), "
+                f"{self.packets} packets")
+
+
+class SymbolTimebase:
+    """Time base for channel-symbol input: position = channel symbol index.
+
+    ``utc = start + position / channel_bit_rate`` (the channel bit rate of the profile's link).
+    """
+
+    def __init__(self, *, start_ns: int, channel_bit_rate: float):
+        self.start_ns = int(start_ns)
+        self.channel_bit_rate = float(channel_bit_rate)
+
+    def utc_ns(self, position: float) -> int:
+        return self.start_ns + int(round(float(position) * 1e9 / self.channel_bit_rate))
+
+
+@dataclass
+class _Input:
+    """An opened input: a recording or a symbol file, with its time base and report facts."""
+
+    kind: str
+    source: Any
+    total: int
+    timebase: Any
+    info: dict
+    duration_s: float
+    position_rate_hz: float
+
+
+def _open_input(recording: str, profile: LinkProfile, *, input_kind: str, datatype: str | None,
+                sample_rate_hz: float | None, start: str | None) -> _Input:
+    from pipeline.packets import format_ert
+
+    if input_kind not in INPUT_KINDS:
+        raise ValueError(f"Argument 'input_kind' must be iq | soft | bits, not {input_kind!r}.")
+    if input_kind == "iq":
+        from pipeline.recording import open_recording
+
+        rec = open_recording(recording, datatype=datatype, sample_rate_hz=sample_rate_hz, start=start)
+        info = {
+            "path": Path(rec.path).name, "datatype": rec.datatype, "sample_rate_hz": rec.sample_rate_hz,
+            "samples": rec.num_samples, "duration_s": rec.duration_s, "start": format_ert(rec.start_ns),
+            "frequency_hz": rec.frequency_hz, "captures": len(rec.captures),
+        }
+        return _Input("iq", rec, rec.num_samples, rec, info, rec.duration_s, rec.sample_rate_hz)
+    from pipeline.recording import open_symbols
+
+    if sample_rate_hz is not None or datatype is not None:
+        raise ProfileError("--format and --sample-rate apply to --input iq only; channel symbols are timed by "
+                           "the profile's symbol rate")
+    syms = open_symbols(recording, input_kind)
+    start_ns = _parse_start(start, recording)
+    rate = profile.link.channel_bit_rate
+    timebase = SymbolTimebase(start_ns=start_ns, channel_bit_rate=rate)
+    duration = syms.num_symbols / rate
+    info = {"path": Path(recording).name, "input": input_kind, "channel_symbols": syms.num_symbols,
+            "duration_s": duration, "start": format_ert(start_ns)}
+    return _Input(input_kind, syms, syms.num_symbols, timebase, info, duration, rate)
+
+
+def _parse_start(start: str | None, path: str) -> int:
+    from pipeline.recording._time import parse_iso_ns
+
+    if start is None:
+        return 0
+    try:
+        return parse_iso_ns(start)
+    except ValueError as exc:
+        raise RecordingError(f"{path}: --start {start!r} is not an ISO-8601 UTC time ({exc})") from None
+
+
+def _spectrum(rec) -> tuple[np.ndarray, np.ndarray] | None:
+    """Welch power spectrum (dB, frequency offset sorted) of the first samples of an IQ recording."""
+    from scipy.signal import welch
+
+    m = min(SPECTRUM_SAMPLES, rec.num_samples)
+    if m < 256:
+        return None
+    x = rec.read(0, m).samples
+    f, p = welch(x, fs=rec.sample_rate_hz, nperseg=min(4096, len(x)), return_onesided=False, detrend=False)
+    order = np.argsort(f)
+    return f[order], 10 * np.log10(np.maximum(p[order], 1e-30))
+
+
+def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bool,
+         segment_samples: int = DEFAULT_SEGMENT_SAMPLES):
+    """Decode ``inp`` into ``sinks``; returns the summary, the report dict and the plot data."""
+    from pipeline.report import RunFacts, build_report
+
+    t0 = time.perf_counter()
+    bar = Progress(inp.total, enabled=progress)
+    downlink_hz = tuning = None
+    try:
+        if inp.kind == "iq":
+            rec = inp.source
+            downlink_hz = profile.link.downlink_frequency_hz or rec.frequency_hz
+            tuning = float(rec.frequency_hz) - float(downlink_hz) if (downlink_hz and rec.frequency_hz) else 0.0
+            back = BackEnd(profile, timebase=rec, sinks=sinks, downlink_frequency_hz=downlink_hz,
+                           tuning_offset_hz=tuning)
+            # IQ recordings are decoded in fixed overlapping segments: the output depends on the segment
+            # length only, never on the number of workers.
+            front: FrontSummary = SegmentedDecode(profile, workers=workers, segment_samples=segment_samples).run(
+                rec, back, on_segment=lambda res: bar.update(res.owned_stop))
+        else:
+            chain = DecodeChain(profile, input_kind=inp.kind, timebase=inp.timebase, sinks=sinks)
+            for chunk in inp.source.chunks(profile.receiver.chunk_samples):
+                chain.process_symbols(chunk.soft, chunk.start + np.arange(len(chunk.soft), dtype=np.float64))
+                bar.update(chunk.start + len(chunk.soft))
+            front = chain.finish()
+            back = chain.back
+    finally:
+        bar.close()
+        sinks.close()
+    elapsed = time.perf_counter() - t0
+    status = back.status_counts
+    ok, idle = status.get("ok", 0), status.get("idle", 0)
+    facts = RunFacts(
+        tool=f"downlink {__version__}", profile=profile, input_kind=inp.kind, recording_info=inp.info,
+        duration_s=float(inp.duration_s), elapsed_s=elapsed, samples=front.counts.samples,
+        nonfinite=front.counts.nonfinite, channel_symbols=front.counts.channel_symbols,
+        locked_symbols=front.counts.locked_symbols, stage_stats=front.stats, sync_events=front.events,
+        demod_events=back.events, track=back.track.arrays(), modulation_index_rad=back.track.modulation_index_rad,
+        position_rate_hz=inp.position_rate_hz, frames=back.frame_count, packets=back.packet_count,
+        status_counts=dict(status), accounting=back.accounting.as_dict(),
+        packet_stats=back.extractor.stats.as_dict(), gaps=back.gaps, ert=back.ert if inp.timebase else None,
+        downlink_frequency_hz=downlink_hz, spectrum=_spectrum(inp.source) if inp.kind == "iq" else None,
+        constellation=front.constellation,
+    )
+    report, plots = build_report(facts)
+    summary = DecodeSummary(frames=back.frame_count, frames_ok=ok, frames_idle=idle,
+                            frames_failed=back.frame_count - ok - idle, packets=back.packet_count,
+                            duration_s=float(inp.duration_s), elapsed_s=elapsed, samples=front.counts.samples,
+                            channel_symbols=front.counts.channel_symbols, input_kind=inp.kind, report=report)
+    return summary, plots
+
+
+def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrite: bool = False,
+                     input_kind: str = "iq", datatype: str | None = None, sample_rate_hz: float | None = None,
+                     start: str | None = None, progress: bool = False, workers: int = 1,
+                     segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
+    """Decode ``recording`` with ``profile`` into the folder ``out``.
+
+    Writes ``packets.jsonl``, ``frames.jsonl``, ``apid_NNNN.bin``, ``doppler.csv`` (IQ input),
+    ``report.json`` and ``report.html``.  The folder appears only when the run completes; an existing
+    folder needs ``overwrite``.  The input is opened (and refused) before anything is written.
+    """
+    from pipeline.report import write_report
+
+    inp = _open_input(recording, profile, input_kind=input_kind, datatype=datatype, sample_rate_hz=sample_rate_hz,
+                      start=start)
+    with OutputFolder(out, overwrite=overwrite) as tmp:
+        summary, plots = _run(inp, profile, FolderSinks(tmp), workers=workers, progress=progress,
+                              segment_samples=segment_samples)
+        write_report(tmp, summary.report, plots)
+    summary.out = str(out)
+    return summary
+
+
+def decode_in_memory(recording: str, profile: LinkProfile, *, input_kind: str = "iq", datatype: str | None = None,
+                     sample_rate_hz: float | None = None, start: str | None = None, progress: bool = False,
+                     workers: int = 1, segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
+    """The same decode with the records kept in memory (``packets_list``, ``frames_list``); no files."""
+    inp = _open_input(recording, profile, input_kind=input_kind, datatype=datatype, sample_rate_hz=sample_rate_hz,
+                      start=start)
+    sinks = MemorySinks()
+    summary, _ = _run(inp, profile, sinks, workers=workers, progress=progress, segment_samples=segment_samples)
+    summary.packets_list = sinks.packets
+    summary.frames_list = sinks.frames
+    return summary

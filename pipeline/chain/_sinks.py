@@ -1,0 +1,114 @@
+"""Where the back end's records go: files in the output folder, or lists in memory.
+
+Both sinks take the same calls: ``frame(obj)``, ``packet(obj, data)``, ``doppler(rows)`` and ``close()``.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+from pathlib import Path
+from typing import Any
+
+from pipeline.errors import OutputError
+
+__all__ = ["FolderSinks", "MemorySinks"]
+
+
+def _doppler_columns() -> tuple[str, ...]:
+    from pipeline.demod.residual import DOPPLER_COLUMNS
+
+    return tuple(DOPPLER_COLUMNS)
+
+
+class FolderSinks:
+    """``packets.jsonl``, ``frames.jsonl``, one binary file per APID and ``doppler.csv``, written as items arrive.
+
+    Parameters
+    ----------
+    folder : Path
+        An existing folder (the output folder's temporary name during a run).
+    """
+
+    def __init__(self, folder: Path):
+        self.folder = Path(folder)
+        self._apid_files: dict[Any, Any] = {}
+        self._doppler_file = None
+        self._doppler_csv = None
+        try:
+            self._packets = open(self.folder / "packets.jsonl", "w", encoding="utf-8")
+            self._frames = open(self.folder / "frames.jsonl", "w", encoding="utf-8")
+        except OSError as exc:
+            raise OutputError(f"{self.folder}: cannot write output ({exc.strerror})") from None
+
+    def doppler(self, rows: list[dict]) -> None:
+        """Append rows to ``doppler.csv`` (the carrier-frequency track: one-way Doppler and range rate)."""
+        try:
+            self._doppler(rows)
+        except OSError as exc:
+            raise self._error(exc) from None
+
+    def frame(self, obj: dict) -> None:
+        try:
+            self._frames.write(json.dumps(obj, separators=(",", ":")) + "\n")
+        except OSError as exc:
+            raise self._error(exc) from None
+
+    def packet(self, obj: dict, data: bytes) -> None:
+        try:
+            self._packet(obj, data)
+        except OSError as exc:
+            raise self._error(exc) from None
+
+    def close(self) -> None:
+        try:
+            for f in (self._packets, self._frames, *self._apid_files.values(), self._doppler_file):
+                if f is not None:
+                    f.close()
+        except OSError as exc:
+            raise self._error(exc) from None
+
+    def _error(self, exc: OSError) -> OutputError:
+        # a full disk or a vanished folder is an output problem, not a bug
+        return OutputError(f"{self.folder}: cannot write output ({exc.strerror or exc})")
+
+    def _doppler(self, rows: list[dict]) -> None:
+        if self._doppler_csv is None:
+            columns = _doppler_columns()
+            self._doppler_file = open(self.folder / "doppler.csv", "w", encoding="utf-8", newline="")
+            self._doppler_csv = csv.DictWriter(self._doppler_file, fieldnames=list(columns))
+            self._doppler_csv.writeheader()
+            self._columns = columns
+        for row in rows:
+            self._doppler_csv.writerow({k: ("" if row.get(k) is None else row.get(k)) for k in self._columns})
+
+    def _packet(self, obj: dict, data: bytes) -> None:
+        self._packets.write(json.dumps(obj, separators=(",", ":")) + "\n")
+        apid = obj["apid"]
+        key = apid if apid is not None else ("encapsulation", obj.get("protocol_id"))
+        f = self._apid_files.get(key)
+        if f is None:
+            name = f"apid_{apid:04d}.bin" if apid is not None else f"encapsulation_pid{obj.get('protocol_id')}.bin"
+            f = self._apid_files[key] = open(self.folder / name, "wb")
+        f.write(data)
+
+
+class MemorySinks:
+    """The same records kept in lists (``packets``, ``frames``, ``doppler``), for an in-memory decode."""
+
+    def __init__(self):
+        self.packets: list[dict] = []
+        self.frames: list[dict] = []
+        self.doppler_rows: list[dict] = []
+
+    def doppler(self, rows: list[dict]) -> None:
+        self.doppler_rows.extend(rows)
+
+    def frame(self, obj: dict) -> None:
+        self.frames.append(obj)
+
+    def packet(self, obj: dict, data: bytes) -> None:
+        self.packets.append(obj)
+
+    def close(self) -> None:
+        pass
