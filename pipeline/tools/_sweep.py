@@ -13,7 +13,7 @@ Two stages:
 ``chain``
     The whole receiver: ``pipeline.sim.simulate`` makes an IQ recording of the profile (its
     ``[simulate]`` carrier offset, Doppler, clock offset and traffic) at each Eb/N0, and
-    ``pipeline.chain._chain.decode_to_folder`` decodes it with carrier and timing recovery.  The decoded
+    ``pipeline.decode`` decodes it with carrier and timing recovery.  The decoded
     packets are compared with the simulator's ``truth.jsonl``: packet error rate (lost or wrong
     packets), frame error rate (truth frames not delivered with status ``ok``), and the bit error
     rate of the delivered packets.
