@@ -79,6 +79,8 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Stream a recording through demodulation, decoding, frame sync, transfer frames "
                                    "and packet extraction. " + CAUTION)
     _add_recording_args(p)
+    p.add_argument("--no-time", action="store_true",
+                   help="decode an input that carries no start time without one: every ERT is null")
     p.add_argument("--profile", required=True, help="link profile (TOML)")
     p.add_argument("--out", required=True, help="output folder (created; refused if it exists)")
     p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
@@ -203,6 +205,7 @@ def _cmd_decode(args) -> int:
         datatype=args.datatype,
         sample_rate_hz=args.sample_rate_hz,
         start=args.start,
+        no_time=args.no_time,
         progress=not args.quiet,
         workers=workers,
     )

@@ -122,3 +122,31 @@ def test_decode_workers_give_the_same_output(tmp_path, capsys):
     assert (tmp_path / "o4" / "packets.jsonl").read_bytes() == (tmp_path / "o1" / "packets.jsonl").read_bytes()
     assert main(["decode", meta, "--profile", str(prof), "--out", str(tmp_path / "o5"), "--threads", "2",
                  "--workers", "2"]) == ExitCode.USAGE
+
+
+def test_no_silent_epoch(tmp_path, capsys):
+    # issue 17: an input without a start time is never stamped 1970; --no-time decodes with null ERT
+    from pipeline.profile import demo_profile_path
+    from pipeline.sim import simulate
+
+    prof = demo_profile_path()
+    sim = simulate(__import__("pipeline").load_profile(prof), tmp_path / "sim", seconds=1.5, seed=3)
+    raw = tmp_path / "rec.cf32"
+    raw.write_bytes(sim.data_path.read_bytes())  # cf32 samples, no metadata: no time
+    base = ["decode", str(raw), "--format", "cf32", "--sample-rate", "1e6", "--profile", str(prof)]
+    capsys.readouterr()
+    assert main([*base, "--out", str(tmp_path / "a")]) == ExitCode.USAGE
+    err = capsys.readouterr().err
+    assert err.startswith("Error: ") and "--start" in err and "--no-time" in err and err.count("\n") == 1
+    assert not (tmp_path / "a").exists()
+    assert main([*base, "--out", str(tmp_path / "b"), "--no-time", "--start", "2026-01-01T00:00:00Z"]) \
+        == ExitCode.USAGE
+    assert main([*base, "--out", str(tmp_path / "c"), "--no-time", "-q"]) == ExitCode.OK
+    import json
+
+    packets = [json.loads(line) for line in (tmp_path / "c" / "packets.jsonl").read_text().splitlines()]
+    frames = [json.loads(line) for line in (tmp_path / "c" / "frames.jsonl").read_text().splitlines()]
+    assert len(packets) == sim.num_packets
+    assert all(p["ert"] is None for p in packets) and all(f["ert"] is None for f in frames)
+    report = json.loads((tmp_path / "c" / "report.json").read_text())
+    assert report["recording"]["time_known"] is False and report["recording"]["start"] is None

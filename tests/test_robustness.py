@@ -91,7 +91,7 @@ def test_existing_output_left_untouched(tmp_path, profile_path, capsys):
     (out / "packets.jsonl").write_text("precious\n")
     bits = tmp_path / "c.bits"
     bits.write_bytes(bytes(100))
-    code = _decode([str(bits), "--input", "bits", "--profile", str(profile_path)], out)
+    code = _decode([str(bits), "--input", "bits", "--no-time", "--profile", str(profile_path)], out)
     assert code == ExitCode.BAD_OUTPUT
     assert "--overwrite" in _one_line_error(capsys)
     assert (out / "packets.jsonl").read_text() == "precious\n"
@@ -158,7 +158,7 @@ def test_bit_slips_and_error_bursts(tmp_path):
     path.write_bytes(np.packbits(b).tobytes())
     prof = _write_profile(tmp_path, small_profile("bpsk", "concatenated", "nrz-m"))
     out = tmp_path / "out"
-    assert main(["decode", str(path), "--input", "bits", "--profile", str(prof), "--out", str(out), "-q"]) == 0
+    assert main(["decode", str(path), "--input", "bits", "--no-time", "--profile", str(prof), "--out", str(out), "-q"]) == 0
     got = [bytes.fromhex(json.loads(x)["hex"]) for x in (out / "packets.jsonl").read_text().splitlines()]
     sent = set(packets)
     assert all(g in sent for g in got), "a packet that was never sent"
@@ -207,7 +207,7 @@ def test_random_bytes_never_crash_or_invent(tmp_path_factory, data, coded):
     path = tmp / "r.bits"
     path.write_bytes(bytes(blob))
     out = tmp / "out"
-    decode(str(path), profile, str(out), input_kind="bits")
+    decode(str(path), profile, str(out), input_kind="bits", no_time=True)
     assert (out / "packets.jsonl").read_text() == ""
     Path(out / "report.json").read_text()
 

@@ -21,7 +21,7 @@ from pipeline.chain._output import OutputFolder
 from pipeline.chain._progress import Progress
 from pipeline.chain._segments import DEFAULT_SEGMENT_SAMPLES, SegmentedDecode
 from pipeline.chain._sinks import FolderSinks, MemorySinks
-from pipeline.errors import ProfileError, RecordingError
+from pipeline.errors import ProfileError, RecordingError, UsageError
 from pipeline.profile import LinkProfile
 
 __all__ = ["DecodeSummary", "SymbolTimebase", "decode_in_memory", "decode_to_folder"]
@@ -112,42 +112,54 @@ class _Input:
     position_rate_hz: float
 
 
+def _no_start(path: str) -> UsageError:
+    return UsageError(f"{path}: the input carries no start time: give --start (ISO-8601 UTC of its first sample) "
+                      f"or --no-time (then every ERT is null)")
+
+
 def _open_input(recording: str, profile: LinkProfile, *, input_kind: str, datatype: str | None,
-                sample_rate_hz: float | None, start: str | None) -> _Input:
+                sample_rate_hz: float | None, start: str | None, no_time: bool) -> _Input:
+    """Open the input and its time base; refuse to invent a start time (no silent epoch)."""
     from pipeline.packets import format_ert
 
     if input_kind not in INPUT_KINDS:
         raise ValueError(f"Argument 'input_kind' must be iq | soft | bits, not {input_kind!r}.")
+    if no_time and start is not None:
+        raise UsageError("--start and --no-time exclude each other")
     if input_kind == "iq":
         from pipeline.recording import open_recording
 
         rec = open_recording(recording, datatype=datatype, sample_rate_hz=sample_rate_hz, start=start)
+        if not rec.time_known and not no_time:
+            raise _no_start(recording)
+        timed = rec.time_known and not no_time
         info = {
             "path": Path(rec.path).name, "datatype": rec.datatype, "sample_rate_hz": rec.sample_rate_hz,
-            "samples": rec.num_samples, "duration_s": rec.duration_s, "start": format_ert(rec.start_ns),
+            "samples": rec.num_samples, "duration_s": rec.duration_s,
+            "start": format_ert(rec.start_ns) if timed else None, "time_known": timed,
             "frequency_hz": rec.frequency_hz, "captures": len(rec.captures),
         }
-        return _Input("iq", rec, rec.num_samples, rec, info, rec.duration_s, rec.sample_rate_hz)
+        return _Input("iq", rec, rec.num_samples, rec if timed else None, info, rec.duration_s, rec.sample_rate_hz)
     from pipeline.recording import open_symbols
 
     if sample_rate_hz is not None or datatype is not None:
-        raise ProfileError("--format and --sample-rate apply to --input iq only; channel symbols are timed by "
-                           "the profile's symbol rate")
+        raise UsageError("--format and --sample-rate apply to --input iq only; channel symbols are timed by "
+                         "the profile's symbol rate")
     syms = open_symbols(recording, input_kind)
-    start_ns = _parse_start(start, recording)
+    if start is None and not no_time:
+        raise _no_start(recording)
     rate = profile.link.channel_bit_rate
-    timebase = SymbolTimebase(start_ns=start_ns, channel_bit_rate=rate)
+    timebase = None if no_time else SymbolTimebase(start_ns=_parse_start(start, recording), channel_bit_rate=rate)
     duration = syms.num_symbols / rate
     info = {"path": Path(recording).name, "input": input_kind, "channel_symbols": syms.num_symbols,
-            "duration_s": duration, "start": format_ert(start_ns)}
+            "duration_s": duration, "start": None if timebase is None else format_ert(timebase.start_ns),
+            "time_known": timebase is not None}
     return _Input(input_kind, syms, syms.num_symbols, timebase, info, duration, rate)
 
 
-def _parse_start(start: str | None, path: str) -> int:
+def _parse_start(start: str, path: str) -> int:
     from pipeline.recording._time import parse_iso_ns
 
-    if start is None:
-        return 0
     try:
         return parse_iso_ns(start)
     except ValueError as exc:
@@ -180,7 +192,7 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
             rec = inp.source
             downlink_hz = profile.link.downlink_frequency_hz or rec.frequency_hz
             tuning = float(rec.frequency_hz) - float(downlink_hz) if (downlink_hz and rec.frequency_hz) else 0.0
-            back = BackEnd(profile, timebase=rec, sinks=sinks, downlink_frequency_hz=downlink_hz,
+            back = BackEnd(profile, timebase=inp.timebase, sinks=sinks, downlink_frequency_hz=downlink_hz,
                            tuning_offset_hz=tuning)
             # IQ recordings are decoded in fixed overlapping segments: the output depends on the segment
             # length only, never on the number of workers.
@@ -221,7 +233,7 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
 
 def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrite: bool = False,
                      input_kind: str = "iq", datatype: str | None = None, sample_rate_hz: float | None = None,
-                     start: str | None = None, progress: bool = False, workers: int = 1,
+                     start: str | None = None, no_time: bool = False, progress: bool = False, workers: int = 1,
                      segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
     """Decode ``recording`` with ``profile`` into the folder ``out``.
 
@@ -232,7 +244,7 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
     from pipeline.report import write_report
 
     inp = _open_input(recording, profile, input_kind=input_kind, datatype=datatype, sample_rate_hz=sample_rate_hz,
-                      start=start)
+                      start=start, no_time=no_time)
     with OutputFolder(out, overwrite=overwrite) as tmp:
         summary, plots = _run(inp, profile, FolderSinks(tmp), workers=workers, progress=progress,
                               segment_samples=segment_samples)
@@ -242,11 +254,12 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
 
 
 def decode_in_memory(recording: str, profile: LinkProfile, *, input_kind: str = "iq", datatype: str | None = None,
-                     sample_rate_hz: float | None = None, start: str | None = None, progress: bool = False,
-                     workers: int = 1, segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
+                     sample_rate_hz: float | None = None, start: str | None = None, no_time: bool = False,
+                     progress: bool = False, workers: int = 1,
+                     segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
     """The same decode with the records kept in memory (``packets_list``, ``frames_list``); no files."""
     inp = _open_input(recording, profile, input_kind=input_kind, datatype=datatype, sample_rate_hz=sample_rate_hz,
-                      start=start)
+                      start=start, no_time=no_time)
     sinks = MemorySinks()
     summary, _ = _run(inp, profile, sinks, workers=workers, progress=progress, segment_samples=segment_samples)
     summary.packets_list = sinks.packets
