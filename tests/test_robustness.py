@@ -158,7 +158,8 @@ def test_bit_slips_and_error_bursts(tmp_path):
     path.write_bytes(np.packbits(b).tobytes())
     prof = _write_profile(tmp_path, small_profile("bpsk", "concatenated", "nrz-m"))
     out = tmp_path / "out"
-    assert main(["decode", str(path), "--input", "bits", "--no-time", "--profile", str(prof), "--out", str(out), "-q"]) == 0
+    assert main(["decode", str(path), "--input", "bits", "--no-time", "--profile", str(prof), "--out", str(out),
+                 "-q"]) == 0
     got = [bytes.fromhex(json.loads(x)["hex"]) for x in (out / "packets.jsonl").read_text().splitlines()]
     sent = set(packets)
     assert all(g in sent for g in got), "a packet that was never sent"

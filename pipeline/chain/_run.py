@@ -21,7 +21,7 @@ from pipeline.chain._output import OutputFolder
 from pipeline.chain._progress import Progress
 from pipeline.chain._segments import DEFAULT_SEGMENT_SAMPLES, SegmentedDecode
 from pipeline.chain._sinks import FolderSinks, MemorySinks
-from pipeline.errors import ProfileError, RecordingError, UsageError
+from pipeline.errors import RecordingError, UsageError
 from pipeline.profile import LinkProfile
 
 __all__ = ["DecodeSummary", "SymbolTimebase", "decode_in_memory", "decode_to_folder"]
