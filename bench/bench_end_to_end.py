@@ -92,9 +92,9 @@ def main() -> None:
                     help="comma-separated decode modes: plain, workersN")
     ap.add_argument("--keep", default=None, help="folder to keep the recording in (reused when present)")
     args = ap.parse_args()
-    from pipeline.tools._bench import cpu_model, peak_rss_mb
     from pipeline.profile import demo_profile_path, load_profile
     from pipeline.sim import simulate
+    from pipeline.tools._bench import cpu_model, peak_rss_mb
 
     profile = load_profile(demo_profile_path())
     seconds = args.gigabytes * 1e9 / 8 / profile.simulate.sample_rate_hz

@@ -17,9 +17,9 @@ from __future__ import annotations
 import argparse
 import time
 
+from pipeline.profile import demo_profile_path, load_profile, profile_from_dict
 from pipeline.tools import _sweep as sw
 from pipeline.tools import _theory as th
-from pipeline.profile import demo_profile_path, load_profile, profile_from_dict
 
 _GRIDS = {"1/2": "3.25:5.0:0.25", "2/3": "3.75:5.5:0.25", "3/4": "4.25:6.0:0.25", "5/6": "4.75:6.5:0.25",
           "7/8": "5.25:7.0:0.25"}
