@@ -13,7 +13,7 @@ The public call is :func:`decode` (re-exported as ``pipeline.decode``); ``downli
 """
 
 from pipeline.chain._api import decode
-from pipeline.chain._backend import BackEnd, TrackLog
+from pipeline.chain._backend import BackEnd, FrameLog, TrackLog
 from pipeline.chain._chain import DecodeChain
 from pipeline.chain._frontend import FrontCounts, FrontEnd, FrontOutput, FrontSummary
 from pipeline.chain._output import OutputFolder
@@ -33,6 +33,7 @@ __all__ = [
     "DecodeChain",
     "DecodeSummary",
     "FolderSinks",
+    "FrameLog",
     "FrontCounts",
     "FrontEnd",
     "FrontOutput",

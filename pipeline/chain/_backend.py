@@ -20,7 +20,10 @@ import numpy as np
 
 from pipeline.profile import LinkProfile
 
-__all__ = ["BackEnd", "TrackLog"]
+__all__ = ["BackEnd", "FrameLog", "TrackLog"]
+
+#: Entries above which :class:`FrameLog` keeps every other one (memory stays bounded on endless streams).
+MAX_FRAME_LOG = 1 << 20
 
 
 @dataclass
@@ -59,6 +62,67 @@ class TrackLog:
                 "esn0_db": np.asarray(self.esn0_db), "locked": locked}
 
 
+class FrameLog:
+    """One compact entry per frame, for the report's quality timeline and link-control plot.
+
+    Per frame: ``position`` (samples), ``status`` (index into :attr:`statuses`), ``rs_corrected`` (symbols
+    corrected in the codeblock; -1 when a codeword failed, -2 without Reed-Solomon), ``asm_errors``,
+    ``flywheel``, and the CLCW of a frame that passed its checks (``clcw_report_value``, -1 without one;
+    ``clcw_flags``: bit 0 lockout, 1 wait, 2 retransmit, 3 no RF available, 4 no bit lock).  Stored in
+    growing numpy arrays; past :data:`MAX_FRAME_LOG` entries every other one is dropped and ``stride`` doubles.
+    """
+
+    FIELDS = (("position", np.float64), ("status", np.int8), ("rs_corrected", np.int16), ("asm_errors", np.int8),
+              ("flywheel", np.bool_), ("clcw_report_value", np.int16), ("clcw_flags", np.int8))
+
+    def __init__(self):
+        self.statuses: list[str] = []
+        self.stride = 1
+        self._seen = 0
+        self._n = 0
+        self._cap = 1024
+        self._data = {name: np.zeros(self._cap, dtype) for name, dtype in self.FIELDS}
+
+    def __len__(self) -> int:
+        return self._n
+
+    def append(self, record) -> None:
+        self._seen += 1
+        if (self._seen - 1) % self.stride:
+            return
+        if self._n == self._cap:
+            if self._cap >= MAX_FRAME_LOG:
+                for name in self._data:
+                    self._data[name][: self._n // 2] = self._data[name][: self._n : 2]
+                self._n //= 2
+                self.stride *= 2
+            else:
+                self._cap *= 2
+                for name in self._data:
+                    self._data[name] = np.resize(self._data[name], self._cap)
+        if record.status not in self.statuses:
+            self.statuses.append(record.status)
+        rs = record.rs_corrected
+        clcw = record.clcw if record.status == "ok" else None
+        d, i = self._data, self._n
+        d["position"][i] = record.position
+        d["status"][i] = self.statuses.index(record.status)
+        d["rs_corrected"][i] = -2 if not rs else (-1 if min(rs) < 0 else sum(rs))
+        d["asm_errors"][i] = -1 if record.asm_errors is None else min(int(record.asm_errors), 127)
+        d["flywheel"][i] = bool(record.flywheel)
+        d["clcw_report_value"][i] = -1 if clcw is None else clcw["report_value"]
+        d["clcw_flags"][i] = 0 if clcw is None else (clcw["lockout"] | clcw["wait"] << 1 | clcw["retransmit"] << 2
+                                                      | clcw["no_rf_available"] << 3 | clcw["no_bit_lock"] << 4)
+        self._n += 1
+
+    def arrays(self) -> dict[str, np.ndarray]:
+        """The entries as arrays (views cut to length), plus ``statuses`` and ``stride``."""
+        out: dict = {name: arr[: self._n] for name, arr in self._data.items()}
+        out["statuses"] = list(self.statuses)
+        out["stride"] = self.stride
+        return out
+
+
 class BackEnd:
     """Decoded frames -> frame records, channel accounting, packets -> sinks.
 
@@ -91,6 +155,7 @@ class BackEnd:
         self.accounting = ChannelAccounting(spacecraft_id=profile.frames.spacecraft_id)
         self.extractor = PacketExtractor(profile=profile)
         self.track = TrackLog()
+        self.frame_log = FrameLog()
         self.status_counts: dict[str, int] = {}
         self.frame_count = 0
         self.packet_count = 0
@@ -132,6 +197,7 @@ class BackEnd:
             self.gaps.append(gd)
         self.frame_count += 1
         self.status_counts[record.status] = self.status_counts.get(record.status, 0) + 1
+        self.frame_log.append(record)
         if self.sinks is not None:
             fd = record.as_dict()
             fd["ert"] = self.ert(record.position)

@@ -64,13 +64,15 @@ class FrontSummary:
 
     ``stats`` maps ``"branch" | "frame_sync" | "codeblock"`` to the stage's statistics object;
     ``events`` are the synchronizer events as dicts; ``constellation`` the last locked stretch of
-    normalised symbols (None without a demodulator).
+    normalised symbols (None without a demodulator); ``waterfall`` the recording's
+    :class:`~pipeline.report.Waterfall` (None unless asked for).
     """
 
     counts: FrontCounts = field(default_factory=FrontCounts)
     stats: dict = field(default_factory=dict)
     events: list = field(default_factory=list)
     constellation: np.ndarray | None = None
+    waterfall: Any = None
 
     def merge(self, other: FrontSummary) -> None:
         """Add a later segment's summary: counts and numeric statistics summed, events appended."""
@@ -80,6 +82,11 @@ class FrontSummary:
         self.events.extend(other.events)
         if other.constellation is not None:
             self.constellation = other.constellation
+        if other.waterfall is not None:
+            if self.waterfall is None:
+                self.waterfall = other.waterfall
+            else:
+                self.waterfall.add(other.waterfall)
 
 
 def _add_stats(total: Any, part: Any) -> Any:
@@ -111,6 +118,8 @@ class FrontEnd:
         Sample range ``[start, stop)`` whose counts, track points and events this front end reports
         (a segment of a segmented decode); None reports everything.  Frames are never filtered: the
         merge decides which to take.
+    waterfall_row_samples : int or None, keyword-only
+        Accumulate the recording's waterfall on rows of this many samples (IQ input only).
 
     Notes
     -----
@@ -119,7 +128,7 @@ class FrontEnd:
     """
 
     def __init__(self, profile: LinkProfile, *, input_kind: InputKind = "iq", sample_rate_hz: float | None = None,
-                 owned: tuple[float, float] | None = None):
+                 owned: tuple[float, float] | None = None, waterfall_row_samples: int | None = None):
         from pipeline.demod import LineDecoder
         from pipeline.sync import BranchSync, CodeblockDecoder, FrameSync
 
@@ -148,6 +157,12 @@ class FrontEnd:
         self.codeblock = CodeblockDecoder(profile=profile)
         self.counts = FrontCounts()
         self.constellation: np.ndarray | None = None
+        self.waterfall = None
+        if waterfall_row_samples and self.demod is not None:
+            from pipeline.report import Waterfall
+
+            own = None if owned is None else (int(owned[0]), int(owned[1]))
+            self.waterfall = Waterfall(row_samples=int(waterfall_row_samples), owned=own)
         self._out = FrontOutput()
 
     @property
@@ -167,6 +182,8 @@ class FrontEnd:
         if self._owns(chunk.start):
             self.counts.samples += len(chunk.samples)
             self.counts.nonfinite += int(chunk.nonfinite)
+        if self.waterfall is not None:
+            self.waterfall.feed(chunk.samples, chunk.start)
         self._symbols(self.demod.process(chunk))
         return self._take()
 
@@ -197,7 +214,7 @@ class FrontEnd:
                     events.append(ev.as_dict())
         stats = {"branch": self.branch.stats, "frame_sync": self.fsync.stats, "codeblock": self.codeblock.stats}
         return FrontSummary(counts=dataclasses.replace(self.counts), stats=stats, events=events,
-                            constellation=self.constellation)
+                            constellation=self.constellation, waterfall=self.waterfall)
 
     # ---- internals ------------------------------------------------------------------------
     def _owns(self, position: float) -> bool:

@@ -196,7 +196,11 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
                            tuning_offset_hz=tuning)
             # IQ recordings are decoded in fixed overlapping segments: the output depends on the segment
             # length only, never on the number of workers.
-            front: FrontSummary = SegmentedDecode(profile, workers=workers, segment_samples=segment_samples).run(
+            from pipeline.report import waterfall_row_samples
+
+            row = waterfall_row_samples(rec.num_samples, rec.sample_rate_hz)
+            front: FrontSummary = SegmentedDecode(profile, workers=workers, segment_samples=segment_samples,
+                                                  waterfall_row_samples=row).run(
                 rec, back, on_segment=lambda res: bar.update(res.owned_stop))
         else:
             chain = DecodeChain(profile, input_kind=inp.kind, timebase=inp.timebase, sinks=sinks)
@@ -221,7 +225,7 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         status_counts=dict(status), accounting=back.accounting.as_dict(),
         packet_stats=back.extractor.stats.as_dict(), gaps=back.gaps, ert=back.ert if inp.timebase else None,
         downlink_frequency_hz=downlink_hz, spectrum=_spectrum(inp.source) if inp.kind == "iq" else None,
-        constellation=front.constellation,
+        constellation=front.constellation, waterfall=front.waterfall, frame_log=back.frame_log.arrays(),
     )
     report, plots = build_report(facts)
     summary = DecodeSummary(frames=back.frame_count, frames_ok=ok, frames_idle=idle,

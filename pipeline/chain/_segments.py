@@ -89,11 +89,11 @@ def segment_plan(num_samples: int, profile: LinkProfile, sample_rate_hz: float, 
 
 
 def decode_segment(recording, profile: LinkProfile, index: int, owned_start: int, owned_stop: int, read_start: int,
-                   read_stop: int) -> SegmentResult:
+                   read_stop: int, waterfall_row_samples: int | None = None) -> SegmentResult:
     """Run a front end over one segment of ``recording`` and return what it found."""
     t0 = time.thread_time()
     front = FrontEnd(profile, input_kind="iq", sample_rate_hz=recording.sample_rate_hz,
-                     owned=(owned_start, owned_stop))
+                     owned=(owned_start, owned_stop), waterfall_row_samples=waterfall_row_samples)
     res = SegmentResult(index, owned_start, owned_stop)
     n = profile.receiver.chunk_samples
 
@@ -123,6 +123,8 @@ class SegmentedDecode:
         Segments decoded at the same time in worker processes (1: one after the other in this process).
     segment_samples : int, keyword-only
         Owned length of a segment, >= 2^20 samples; default :data:`DEFAULT_SEGMENT_SAMPLES`.
+    waterfall_row_samples : int or None, keyword-only
+        Also accumulate the recording's waterfall on rows of this many samples (see :class:`FrontEnd`).
 
     Notes
     -----
@@ -141,7 +143,8 @@ class SegmentedDecode:
     segment's frames.
     """
 
-    def __init__(self, profile: LinkProfile, *, workers: int = 1, segment_samples: int = DEFAULT_SEGMENT_SAMPLES):
+    def __init__(self, profile: LinkProfile, *, workers: int = 1, segment_samples: int = DEFAULT_SEGMENT_SAMPLES,
+                 waterfall_row_samples: int | None = None):
         if isinstance(workers, bool) or not isinstance(workers, int):
             raise TypeError(f"Argument 'workers' must be an integer, not {type(workers).__name__}.")
         if not 1 <= workers <= 64:
@@ -150,6 +153,7 @@ class SegmentedDecode:
         self.profile = profile
         self.workers = workers
         self.segment_samples = segment_samples
+        self.waterfall_row_samples = waterfall_row_samples
         self.frames_dropped_as_duplicates = 0
         #: CPU seconds of each segment's worker in the last :meth:`run`, in segment order
         self.segment_cpu_s: list[float] = []
@@ -203,7 +207,7 @@ class SegmentedDecode:
 
     def _results(self, recording, plan) -> Iterator[SegmentResult]:
         """Segment results in plan order; at most ``workers + 1`` segments in flight."""
-        jobs = [(recording, self.profile, i, *seg) for i, seg in enumerate(plan)]
+        jobs = [(recording, self.profile, i, *seg, self.waterfall_row_samples) for i, seg in enumerate(plan)]
         if self.workers == 1 or len(plan) == 1:
             for job in jobs:
                 yield decode_segment(*job)

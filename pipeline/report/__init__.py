@@ -6,8 +6,11 @@ See DEVELOPERS.md ("pipeline.report") for what the decode chain passes in.
 from pipeline.report._build import CAUTION, RunFacts, build_report
 from pipeline.report._html import KNOWN_SECTIONS, MAX_TABLE_ROWS, jsonable, render_html, write_report
 from pipeline.report._plots import MAX_CONSTELLATION_POINTS, Figure, PlotData, render_plots
+from pipeline.report._waterfall import Waterfall, waterfall_row_samples
 
 __all__ = [
+    "Waterfall",
+    "waterfall_row_samples",
     "CAUTION",
     "RunFacts",
     "build_report",

@@ -55,6 +55,11 @@ class RunFacts:
     downlink_frequency_hz : float or None
     spectrum : (freq_hz, power_db) or None
     constellation : array or None
+    waterfall : Waterfall or None
+        The recording's waterfall (rows of ``waterfall.effective_row_samples`` samples).
+    frame_log : dict of arrays
+        One entry per frame (see :class:`pipeline.chain.FrameLog`): ``position``, ``status`` (index into
+        ``statuses``), ``rs_corrected``, ``asm_errors``, ``flywheel``, ``clcw_report_value``, ``clcw_flags``.
     """
 
     tool: str
@@ -83,6 +88,8 @@ class RunFacts:
     downlink_frequency_hz: float | None = None
     spectrum: Any = None
     constellation: Any = None
+    waterfall: Any = None
+    frame_log: dict = field(default_factory=dict)
 
 
 def build_report(f: RunFacts) -> tuple[dict, PlotData]:
