@@ -163,7 +163,8 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Decode many recordings (a mission archive) in parallel with Dask.")
     p.add_argument("recordings", nargs="+", help="SigMF recordings (.sigmf-meta)")
     p.add_argument("--profile", required=True, help="link profile (TOML)")
-    p.add_argument("--out", required=True, help="output folder: one sub-folder per recording plus index.json")
+    p.add_argument("--out", required=True, help="output folder: one sub-folder per recording (its path below the "
+                                                "recordings' common folder) plus index.json")
     p.add_argument("--scheduler", default=None, help="dask.distributed scheduler address (default: a local cluster)")
     p.add_argument("--workers", type=int, default=None, help="local workers (default: cores)")
     p.set_defaults(handler=_cmd_batch)
@@ -317,7 +318,7 @@ def _cmd_batch(args) -> int:
 
     profile = _load_profile(args.profile)
     return run_batch(args.recordings, profile, args.profile, args.out, scheduler=args.scheduler,
-                     workers=args.workers, quiet=args.quiet)
+                     workers=args.workers, quiet=args.quiet, verbose=args.verbose > 0)
 
 
 # ---- entry point -------------------------------------------------------------------------

@@ -18,7 +18,7 @@ from pipeline import decode  # noqa: E402
 from pipeline.errors import OutputError  # noqa: E402
 from pipeline.profile import demo_profile_path  # noqa: E402
 from pipeline.sim import simulate  # noqa: E402
-from pipeline.tools._batch import output_name, run_batch  # noqa: E402
+from pipeline.tools._batch import output_name, output_names, run_batch  # noqa: E402
 
 COMPARED = ("packets.jsonl", "frames.jsonl")
 
@@ -62,10 +62,11 @@ def batch_runs(tmp_path_factory, archive, demo_profile, single_decodes):
     recordings = [good[0], bad, good[1]]
     rc1 = run_batch(recordings, demo_profile, str(demo_profile_path()), str(out), workers=2, quiet=True)
     index1 = json.loads((out / "index.json").read_text())
-    stamps = {output_name(r): (out / output_name(r) / "packets.jsonl").stat().st_mtime_ns for r in good}
+    names = output_names(recordings)
+    stamps = {r: (out / names[r] / "packets.jsonl").stat().st_mtime_ns for r in good}
     rc2 = run_batch(recordings, demo_profile, str(demo_profile_path()), str(out), workers=1, quiet=True)
     index2 = json.loads((out / "index.json").read_text())
-    return out, recordings, (rc1, index1), (rc2, index2), stamps
+    return out, recordings, (rc1, index1), (rc2, index2), stamps, names
 
 
 def test_output_name():
@@ -75,16 +76,17 @@ def test_output_name():
     assert output_name("x.tar.bin") == "x.tar"
 
 
-def test_batch_output_identical_to_single_decode(batch_runs, single_decodes):
-    out = batch_runs[0]
-    for name, ref in single_decodes.items():
-        assert _outputs(out / name) == ref  # byte for byte
-        assert (out / name / "report.json").is_file()
-        assert (out / name / "report.html").is_file()
+def test_batch_output_identical_to_single_decode(batch_runs, single_decodes, archive):
+    out, names = batch_runs[0], batch_runs[5]
+    for rec in archive[0]:
+        folder = out / names[rec]
+        assert _outputs(folder) == single_decodes[output_name(rec)]  # byte for byte
+        assert (folder / "report.json").is_file()
+        assert (folder / "report.html").is_file()
 
 
 def test_failed_recording_reported_and_others_decoded(batch_runs, archive):
-    out, recordings, (rc1, index1), _, _ = batch_runs
+    out, recordings, (rc1, index1), _, _, _ = batch_runs
     assert rc1 == 1  # not every recording decoded
     by_rec = {r["recording"]: r for r in index1["recordings"]}
     assert [r["recording"] for r in index1["recordings"]] == recordings  # index in the order given
@@ -100,14 +102,14 @@ def test_failed_recording_reported_and_others_decoded(batch_runs, archive):
 
 
 def test_rerun_skips_finished_and_retries_failed(batch_runs, archive):
-    out, _, _, (rc2, index2), stamps = batch_runs
+    out, _, _, (rc2, index2), stamps, names = batch_runs
     good, bad = archive
     by_rec = {r["recording"]: r for r in index2["recordings"]}
     assert rc2 == 1
     for rec in good:
         assert by_rec[rec]["status"] == "skipped"
         # the finished folder was not written again
-        assert (out / output_name(rec) / "packets.jsonl").stat().st_mtime_ns == stamps[output_name(rec)]
+        assert (out / names[rec] / "packets.jsonl").stat().st_mtime_ns == stamps[rec]
     assert by_rec[bad]["status"] == "failed"
 
 
@@ -130,8 +132,29 @@ def test_all_good_returns_zero_and_incomplete_folder_not_skipped(tmp_path, archi
     assert _outputs(out / output_name(good[0])) == single_decodes[output_name(good[0])]
 
 
-def test_two_recordings_with_one_output_name_refused(tmp_path, demo_profile):
-    a = tmp_path / "a" / "pass.sigmf-meta"
-    b = tmp_path / "b" / "pass.sigmf-meta"
-    with pytest.raises(OutputError, match="share the output folder"):
-        run_batch([str(a), str(b)], demo_profile, "p.toml", str(tmp_path / "out"), workers=1, quiet=True)
+def test_two_recordings_with_one_file_name_decode_into_two_folders(tmp_path, demo_profile, capfd):
+    # issue 18: `simulate` names every recording "recording"; folders below a common parent keep them apart
+    recs = [str(simulate(demo_profile, tmp_path / "arch" / d, seconds=1.2, seed=s).meta_path)
+            for d, s in (("day1", 5), ("day2", 6))]
+    out = tmp_path / "out"
+    capfd.readouterr()
+    assert run_batch(recs, demo_profile, "p.toml", str(out), workers=2) == 0
+    err = capfd.readouterr().err.strip().splitlines()
+    # one progress line per recording and a summary: no scheduler logging without -v
+    assert len(err) == 3 and err[0].startswith("[1/2]") and err[-1].startswith("batch: 2 decoded"), err
+    for d in ("day1", "day2"):
+        assert (out / d / "recording" / "packets.jsonl").stat().st_size > 0
+    index = json.loads((out / "index.json").read_text())
+    assert [r["out"] for r in index["recordings"]] == [str(out / "day1" / "recording"), str(out / "day2" / "recording")]
+
+
+def test_recordings_that_would_share_a_folder_are_refused_before_anything_is_made(tmp_path, demo_profile):
+    a = tmp_path / "pass.wav"
+    b = tmp_path / "pass.cf32"
+    out = tmp_path / "out"
+    with pytest.raises(OutputError, match="share the output folder pass"):
+        run_batch([str(a), str(b)], demo_profile, "p.toml", str(out), workers=1, quiet=True)
+    assert not out.exists()  # no empty folder left behind
+    # the two files of one SigMF recording are one recording, decoded once
+    names = output_names([str(tmp_path / "x.sigmf-meta"), str(tmp_path / "x.sigmf-data")])
+    assert set(names.values()) == {"x"}
