@@ -12,6 +12,7 @@ import argparse
 import enum
 import json
 import logging
+import os
 import signal
 import sys
 import traceback
@@ -192,10 +193,21 @@ def _workers(args) -> int:
     return n
 
 
+def _compile_notice(args) -> None:
+    """One line on stderr when the kernels will be compiled first (an empty numba cache)."""
+    from pipeline.chain import kernel_cache_cold
+
+    if not args.quiet and kernel_cache_cold():
+        print("compiling kernels (first run only: this takes a minute or less, later runs start at once) ...",
+              file=sys.stderr, flush=True)
+
+
 def _cmd_decode(args) -> int:
     workers = _workers(args)
     profile = _load_profile(args.profile)
     from pipeline.chain import decode_to_folder
+
+    _compile_notice(args)
 
     summary = decode_to_folder(
         args.recording,
@@ -219,6 +231,7 @@ def _cmd_decode(args) -> int:
 def _cmd_demo(args) -> int:
     from pipeline.tools._demo import run_demo
 
+    _compile_notice(args)
     return run_demo(out=args.out, overwrite=args.overwrite, seconds=args.seconds, ebn0_db=args.ebn0_db,
                     seed=args.seed, quiet=args.quiet)
 
@@ -348,6 +361,13 @@ def main(argv: Sequence[str] | None = None) -> int:
         return _report(args, exc, ExitCode.BAD_OUTPUT)
     except DownlinkError as exc:
         return _report(args, exc, ExitCode.FAILED)
+    except BrokenPipeError:  # the reader of stdout went away (`downlink verify --json | head`): stop quietly
+        try:
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, sys.stdout.fileno())  # so the interpreter's final flush cannot fail again
+        except (OSError, ValueError):
+            pass
+        return ExitCode.OK
     except KeyboardInterrupt:
         print("Error: interrupted; no output was completed", file=sys.stderr)
         return ExitCode.INTERRUPTED

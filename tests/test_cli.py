@@ -150,3 +150,24 @@ def test_no_silent_epoch(tmp_path, capsys):
     assert all(p["ert"] is None for p in packets) and all(f["ert"] is None for f in frames)
     report = json.loads((tmp_path / "c" / "report.json").read_text())
     assert report["recording"]["time_known"] is False and report["recording"]["start"] is None
+
+
+def test_cold_kernel_cache_is_detected(tmp_path):
+    # an empty numba cache (NUMBA_CACHE_DIR) means the first decode compiles: the CLI says so in one line
+    import os
+
+    code = "from pipeline.chain import kernel_cache_cold; print(kernel_cache_cold())"
+    env = dict(os.environ, NUMBA_CACHE_DIR=str(tmp_path))
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env)
+    assert r.stdout.strip() == "True", r.stderr
+
+
+def test_closed_pipe_exits_quietly():
+    # `downlink verify --json | head -c 0`: the reader goes away before anything is written; no traceback,
+    # no "internal error" (the pipe is closed at once, so the first write is sure to fail)
+    proc = subprocess.Popen([sys.executable, "-m", "pipeline", "verify", "--json"], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE)
+    proc.stdout.close()
+    err = proc.stderr.read().decode()
+    assert proc.wait(timeout=300) == 0
+    assert "Error" not in err and "Traceback" not in err, err

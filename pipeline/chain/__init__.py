@@ -17,7 +17,7 @@ from pipeline.chain._backend import BackEnd, FrameLog, TrackLog
 from pipeline.chain._chain import DecodeChain
 from pipeline.chain._frontend import FrontCounts, FrontEnd, FrontOutput, FrontSummary
 from pipeline.chain._output import OutputFolder
-from pipeline.chain._run import DecodeSummary, SymbolTimebase, decode_in_memory, decode_to_folder
+from pipeline.chain._run import DecodeSummary, SymbolTimebase, decode_in_memory, decode_to_folder, kernel_cache_cold
 from pipeline.chain._segments import (
     DEFAULT_SEGMENT_SAMPLES,
     SegmentedDecode,
@@ -48,5 +48,6 @@ __all__ = [
     "decode_in_memory",
     "decode_segment",
     "decode_to_folder",
+    "kernel_cache_cold",
     "segment_plan",
 ]

@@ -24,12 +24,33 @@ from pipeline.chain._sinks import FolderSinks, MemorySinks
 from pipeline.errors import RecordingError, UsageError
 from pipeline.profile import LinkProfile
 
-__all__ = ["DecodeSummary", "SymbolTimebase", "decode_in_memory", "decode_to_folder"]
+__all__ = ["DecodeSummary", "SymbolTimebase", "decode_in_memory", "decode_to_folder", "kernel_cache_cold"]
 
 #: Samples at the start of an IQ recording whose spectrum the report shows.
 SPECTRUM_SAMPLES = 1 << 18
 
 INPUT_KINDS = ("iq", "soft", "bits")
+
+
+def kernel_cache_cold() -> bool:
+    """Whether numba's disk cache lacks the main kernels of the decode path (a first run compiles them).
+
+    Looks for the cache index of the demodulator's timing loop, the Viterbi block kernel and the
+    Reed-Solomon decoder; False when it cannot tell (kernels run uncompiled, or numba's cache layout
+    changed), so the worst case is a missing notice.
+    """
+    import os
+
+    try:
+        from pipeline.demod import _kernels as demod_kernels
+        from pipeline.fec import _kernels as fec_kernels
+
+        for kernel in (demod_kernels.track_symbols, fec_kernels.viterbi_block_kernel, fec_kernels.rs_decode_kernel):
+            if not os.path.exists(kernel._cache._cache_file._index_path):
+                return True
+    except Exception:  # numba internals are not an API: never fail a decode over a notice
+        return False
+    return False
 
 
 @dataclass
