@@ -85,6 +85,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--profile", required=True, help="link profile (TOML)")
     p.add_argument("--out", required=True, help="output folder (created; refused if it exists)")
     p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--cadus", action="store_true",
+                   help="also write cadus.bin: every CADU as found (marker + codeblock, hard bits, still randomized)")
     p.add_argument("--workers", type=int, default=None, metavar="N",
                    help="worker processes for an IQ recording (default 1); the output does not depend on N")
     p.add_argument("--threads", type=int, default=None, metavar="N", help=argparse.SUPPRESS)  # old name of --workers
@@ -219,6 +221,7 @@ def _cmd_decode(args) -> int:
         sample_rate_hz=args.sample_rate_hz,
         start=args.start,
         no_time=args.no_time,
+        cadus=args.cadus,
         progress=not args.quiet,
         workers=workers,
     )

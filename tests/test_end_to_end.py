@@ -219,3 +219,40 @@ def test_doppler_csv_range_rate(tmp_path):
         assert abs(f_d - 650.0) < 5.0
         assert float(r["range_rate_m_per_s"]) == pytest.approx(-c * f_d / 2.2e9, rel=1e-6)
         assert r["utc"].startswith("2026-03-14T09:30:0") and r["utc"].endswith("Z")
+
+
+def test_raw_frame_and_cadu_files(tmp_path):
+    # issue 18: frames.bin / frames_vcN.bin hold the frames that passed their checks at the frame length;
+    # cadus.bin every CADU as found: ASM (CCSDS 131.0-B sec. 8, 1ACFFC1D) + the codeblock, still randomized
+    import json
+
+    from pipeline import decode, load_profile, simulate
+    from pipeline.fec import pn_sequence
+    from pipeline.profile import demo_profile_path
+
+    profile = load_profile(demo_profile_path())
+    sim = simulate(profile, tmp_path / "sim", seconds=2.0, seed=9)
+    out = tmp_path / "out"
+    decode(sim.meta_path, profile, out, cadus=True)
+    frames = [json.loads(line) for line in (out / "frames.jsonl").read_text().splitlines()]
+    good = [f for f in frames if f["status"] in ("ok", "idle")]
+    length = profile.frames.length
+    raw = (out / "frames.bin").read_bytes()
+    assert len(raw) == len(good) * length > 0
+    for k, f in enumerate(good):
+        frame = raw[k * length:(k + 1) * length]
+        assert (frame[0] >> 6, ((frame[0] & 0x3F) << 4) | (frame[1] >> 4)) == (0, profile.frames.spacecraft_id)
+        assert frame[2] == f["mcfc"]
+    for vc in {f["vcid"] for f in good}:
+        assert len((out / f"frames_vc{vc}.bin").read_bytes()) == sum(f["vcid"] == vc for f in good) * length
+    cadus = (out / "cadus.bin").read_bytes()
+    size = 4 + profile.codeblock_bytes
+    assert len(cadus) == len(frames) * size
+    pn = pn_sequence(profile.codeblock_bytes).tobytes()
+    first = cadus[:size]
+    assert first[:4] == bytes.fromhex("1ACFFC1D")
+    derandomized = bytes(a ^ b for a, b in zip(first[4:], pn))  # CCSDS 131.0-B sec. 9: XOR with the PN sequence
+    # the information octets of the codeblock are the frame itself (CCSDS 131.0-B sec. 4: systematic code,
+    # symbol interleaving keeps their order); the first frame of this clean recording needed no correction
+    assert frames[0]["status"] in ("ok", "idle") and frames[0]["rs_corrected"] == [0] * 5
+    assert derandomized[:length] == raw[:length]

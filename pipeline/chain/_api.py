@@ -12,7 +12,7 @@ __all__ = ["decode"]
 def decode(recording: str | os.PathLike, profile, out: str | os.PathLike | None = None, *,
            overwrite: bool = False, workers: int = 1, input_kind: str = "iq", format: str | None = None,
            sample_rate_hz: float | None = None, start: str | None = None, no_time: bool = False,
-           progress: bool = False) -> DecodeSummary:
+           cadus: bool = False, progress: bool = False) -> DecodeSummary:
     """Decode a recording into packets, frames and a pass report.
 
     Parameters
@@ -26,11 +26,12 @@ def decode(recording: str | os.PathLike, profile, out: str | os.PathLike | None 
         Output folder (``packets.jsonl``, ``frames.jsonl``, ``report.json``, ...).  None decodes in
         memory and returns the records in ``packets_list`` and ``frames_list`` and the report in
         ``report``: meant for recordings whose packets fit in memory.
-    overwrite, workers, input_kind, format, sample_rate_hz, start, no_time, progress :
+    overwrite, workers, input_kind, format, sample_rate_hz, start, no_time, cadus, progress :
         The ``decode`` command's options: ``--overwrite``, ``--workers``, ``--input`` (iq | soft |
         bits), ``--format`` (cf32 | ci16 | ci8 | cu8), ``--sample-rate``, ``--start`` (ISO-8601 UTC of
         the first sample; required when the input carries no time), ``--no-time`` (decode without a
-        time: every ERT is null) and a progress bar on stderr.
+        time: every ERT is null), ``--cadus`` (also ``cadus.bin``; folder output only) and a progress
+        bar on stderr.
 
     Returns
     -------
@@ -55,4 +56,4 @@ def decode(recording: str | os.PathLike, profile, out: str | os.PathLike | None 
               progress=progress, workers=workers)
     if out is None:
         return decode_in_memory(str(recording), prof, **kw)
-    return decode_to_folder(str(recording), prof, str(out), overwrite=overwrite, **kw)
+    return decode_to_folder(str(recording), prof, str(out), overwrite=overwrite, cadus=cadus, **kw)

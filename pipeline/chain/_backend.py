@@ -151,6 +151,9 @@ class BackEnd:
         self.downlink_frequency_hz = downlink_frequency_hz
         self.tuning_offset_hz = float(tuning_offset_hz)
         self._format_ert = format_ert
+        from pipeline.fec import ASM
+
+        self._marker = bytes(ASM)  # the marker in front of every CADU (cadus.bin)
         self.parser = FrameParser(frames=profile.frames)
         self.accounting = ChannelAccounting(spacecraft_id=profile.frames.spacecraft_id)
         self.extractor = PacketExtractor(profile=profile)
@@ -199,6 +202,9 @@ class BackEnd:
         self.status_counts[record.status] = self.status_counts.get(record.status, 0) + 1
         self.frame_log.append(record)
         if self.sinks is not None:
+            self.sinks.cadu(self._marker + decoded.cadu.data)
+            if record.status in ("ok", "idle"):
+                self.sinks.frame_octets(record.vcid, decoded.frame)
             fd = record.as_dict()
             fd["ert"] = self.ert(record.position)
             fd["esn0_db"] = self.track.esn0_at(record.position)

@@ -259,11 +259,12 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
 def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrite: bool = False,
                      input_kind: str = "iq", datatype: str | None = None, sample_rate_hz: float | None = None,
                      start: str | None = None, no_time: bool = False, progress: bool = False, workers: int = 1,
-                     segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
+                     cadus: bool = False, segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
     """Decode ``recording`` with ``profile`` into the folder ``out``.
 
-    Writes ``packets.jsonl``, ``frames.jsonl``, ``apid_NNNN.bin``, ``doppler.csv`` (IQ input),
-    ``report.json`` and ``report.html``.  The folder appears only when the run completes; an existing
+    Writes ``packets.jsonl``, ``frames.jsonl``, ``apid_NNNN.bin``, ``frames.bin``, ``frames_vcN.bin``,
+    ``doppler.csv`` (IQ input), ``report.json`` and ``report.html``; with ``cadus`` also ``cadus.bin``
+    (see :class:`~pipeline.chain.FolderSinks`).  The folder appears only when the run completes; an existing
     folder needs ``overwrite``.  The input is opened (and refused) before anything is written.
     """
     from pipeline.report import write_report
@@ -271,7 +272,7 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
     inp = _open_input(recording, profile, input_kind=input_kind, datatype=datatype, sample_rate_hz=sample_rate_hz,
                       start=start, no_time=no_time)
     with OutputFolder(out, overwrite=overwrite) as tmp:
-        summary, plots = _run(inp, profile, FolderSinks(tmp), workers=workers, progress=progress,
+        summary, plots = _run(inp, profile, FolderSinks(tmp, cadus=cadus), workers=workers, progress=progress,
                               segment_samples=segment_samples)
         write_report(tmp, summary.report, plots)
     summary.out = str(out)

@@ -1,6 +1,8 @@
 """Where the back end's records go: files in the output folder, or lists in memory.
 
-Both sinks take the same calls: ``frame(obj)``, ``packet(obj, data)``, ``doppler(rows)`` and ``close()``.
+Both sinks take the same calls: ``frame(obj)``, ``packet(obj, data)``, ``doppler(rows)``,
+``frame_octets(vcid, data)`` (a transfer frame that passed its checks), ``cadu(data)`` (every CADU as
+found) and ``close()``.
 """
 
 from __future__ import annotations
@@ -22,24 +24,37 @@ def _doppler_columns() -> tuple[str, ...]:
 
 
 class FolderSinks:
-    """``packets.jsonl``, ``frames.jsonl``, one binary file per APID and ``doppler.csv``, written as items arrive.
+    """The files of the output folder, written as items arrive.
+
+    ``packets.jsonl``, ``frames.jsonl``, ``apid_NNNN.bin`` (the packets of each APID), ``doppler.csv``,
+    ``frames.bin`` and ``frames_vcN.bin`` (the transfer frames that passed their checks, idle ones included,
+    each at the frame length, in reception order), and with ``cadus`` also ``cadus.bin`` (every CADU the
+    frame synchronizer found: marker and codeblock as hard bits, still randomized, before decoding).
 
     Parameters
     ----------
     folder : Path
         An existing folder (the output folder's temporary name during a run).
+    cadus : bool, keyword-only
+        Also write ``cadus.bin``.
     """
 
-    def __init__(self, folder: Path):
+    def __init__(self, folder: Path, *, cadus: bool = False):
         self.folder = Path(folder)
         self._apid_files: dict[Any, Any] = {}
+        self._vc_files: dict[int, Any] = {}
+        self._frames_bin = None
+        self._cadus_bin = None
         self._doppler_file = None
         self._doppler_csv = None
         try:
             self._packets = open(self.folder / "packets.jsonl", "w", encoding="utf-8")
             self._frames = open(self.folder / "frames.jsonl", "w", encoding="utf-8")
+            self._frames_bin = open(self.folder / "frames.bin", "wb")
+            if cadus:
+                self._cadus_bin = open(self.folder / "cadus.bin", "wb")
         except OSError as exc:
-            raise OutputError(f"{self.folder}: cannot write output ({exc.strerror})") from None
+            raise self._error(exc) from None
 
     def doppler(self, rows: list[dict]) -> None:
         """Append rows to ``doppler.csv`` (the carrier-frequency track: one-way Doppler and range rate)."""
@@ -60,9 +75,27 @@ class FolderSinks:
         except OSError as exc:
             raise self._error(exc) from None
 
+    def frame_octets(self, vcid: int, data: bytes) -> None:
+        try:
+            self._frames_bin.write(data)
+            f = self._vc_files.get(vcid)
+            if f is None:
+                f = self._vc_files[vcid] = open(self.folder / f"frames_vc{int(vcid)}.bin", "wb")
+            f.write(data)
+        except OSError as exc:
+            raise self._error(exc) from None
+
+    def cadu(self, data: bytes) -> None:
+        if self._cadus_bin is not None:
+            try:
+                self._cadus_bin.write(data)
+            except OSError as exc:
+                raise self._error(exc) from None
+
     def close(self) -> None:
         try:
-            for f in (self._packets, self._frames, *self._apid_files.values(), self._doppler_file):
+            for f in (self._packets, self._frames, *self._apid_files.values(), self._doppler_file, self._frames_bin,
+                      self._cadus_bin, *self._vc_files.values()):
                 if f is not None:
                     f.close()
         except OSError as exc:
@@ -109,6 +142,12 @@ class MemorySinks:
 
     def packet(self, obj: dict, data: bytes) -> None:
         self.packets.append(obj)
+
+    def frame_octets(self, vcid: int, data: bytes) -> None:
+        pass  # the frame records hold what a caller in memory needs
+
+    def cadu(self, data: bytes) -> None:
+        pass
 
     def close(self) -> None:
         pass
