@@ -19,9 +19,9 @@ from __future__ import annotations
 
 import argparse
 import math
-import time
 
 import numpy as np
+from bench_fec import best_of
 
 from pipeline.fec import crc16
 from pipeline.fec.turbo import TurboCode, TurboDecoder, turbo_encode
@@ -44,17 +44,6 @@ def awgn_llr(rng: np.random.Generator, bits: np.ndarray, ebn0_db: float, code_ra
     sigma = math.sqrt(1.0 / (2.0 * esn0))
     y = (1.0 - 2.0 * bits.astype(np.float32)) + np.float32(sigma) * rng.standard_normal(bits.shape, dtype=np.float32)
     return (np.float32(2.0 / sigma**2) * y).astype(np.float32)
-
-
-def best_of(fn, repeat: int) -> float:
-    """Best CPU time (process_time) of ``repeat`` runs after one warm-up run."""
-    fn()
-    best = math.inf
-    for _ in range(repeat):
-        t0 = time.process_time()
-        fn()
-        best = min(best, time.process_time() - t0)
-    return best
 
 
 def measure(*, frames: int = 128, repeat: int = 3, scalar_frames: int = 8, ebn0_db: float = 1.0,
