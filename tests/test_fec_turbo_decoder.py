@@ -12,6 +12,8 @@ import math
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import stats
 
 import pipeline.fec.turbo._decoder as turbo_decoder_module
@@ -363,6 +365,21 @@ def test_decoder_arguments():
     with pytest.raises(ValueError, match="Argument 'llr' must hold finite values"):
         dec.process(np.full(3576, np.nan, np.float32))
     assert len(dec.process(np.zeros((0, 3576), np.float32))) == 0
+
+
+@settings(max_examples=25, deadline=None)
+@given(exponent=st.integers(-45, 38), zeros=st.floats(0.0, 1.0), seed=st.integers(0, 2**32 - 1),
+       rows=st.integers(1, 3))
+def test_any_finite_input_gives_a_status(exponent, zeros, seed, rows):
+    # the decoder's input boundary: finite float32 LLRs of any size (subnormal to near float32 max,
+    # where the quantiser's product overflows to inf and is clipped) and any share of zeros give a
+    # result, never an exception
+    r = np.random.default_rng(seed)
+    llr = np.clip(r.standard_normal((rows, 3576)) * 10.0**exponent, -3e38, 3e38).astype(np.float32)
+    llr[r.random(llr.shape) < zeros] = 0.0
+    res = TurboDecoder(rate="1/2", k=1784, max_iterations=2).process(llr)
+    assert res.data.shape == (rows, 223) and res.passed.dtype == bool
+    assert np.all((res.iterations >= 1) & (res.iterations <= 2))
 
 
 @pytest.mark.kat
