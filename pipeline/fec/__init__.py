@@ -2,7 +2,8 @@
 
 Encoders and decoders are bit-exact to the standards: the K=7 convolutional code and its
 punctured rates, Reed-Solomon (255,223)/(255,239) in the dual basis with interleaving and virtual
-fill, the TM pseudo-randomizer, the FECF CRC-16 and the attached sync markers.
+fill, the TM pseudo-randomizer, the FECF CRC-16, the attached sync markers and the turbo codes
+(:mod:`pipeline.fec.turbo`).
 See DEVELOPERS.md (stage contracts) for how the other stages use these.
 """
 
@@ -29,6 +30,19 @@ from pipeline.fec._markers import (
 from pipeline.fec._randomizer import pn_sequence
 from pipeline.fec._rs import dual_basis_tables, rs_decode, rs_decode_blocks, rs_encode, rs_generator, rs_k
 from pipeline.fec._viterbi import DEFAULT_TRACEBACK_DEPTH, ViterbiDecoder, viterbi_decode
+from pipeline.fec.turbo import (
+    TURBO_ALGORITHMS,
+    TURBO_BLOCK_SIZES,
+    TURBO_CHECKS,
+    TURBO_RATES,
+    TurboCode,
+    TurboDecoder,
+    TurboRate,
+    TurboResult,
+    turbo_decode,
+    turbo_encode,
+    turbo_interleaver,
+)
 
 __all__ = [
     "RATES",
@@ -58,4 +72,15 @@ __all__ = [
     "ViterbiDecoder",
     "viterbi_decode",
     "DEFAULT_TRACEBACK_DEPTH",
+    "TurboRate",
+    "TURBO_RATES",
+    "TURBO_BLOCK_SIZES",
+    "TURBO_ALGORITHMS",
+    "TURBO_CHECKS",
+    "TurboCode",
+    "TurboDecoder",
+    "TurboResult",
+    "turbo_decode",
+    "turbo_encode",
+    "turbo_interleaver",
 ]
