@@ -90,6 +90,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--workers", type=int, default=None, metavar="N",
                    help="worker processes for an IQ recording (default 1); the output does not depend on N")
     p.add_argument("--threads", type=int, default=None, metavar="N", help=argparse.SUPPRESS)  # old name of --workers
+    p.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="decode the recording's segments as tasks on a Dask cluster: 'local' (a cluster of "
+                        "--workers processes here) or a scheduler address such as tcp://host:8786; the output is "
+                        "the same as without it")
     p.add_argument("--input", dest="input_kind", choices=["iq", "soft", "bits"], default="iq",
                    help="iq: complex samples (default); soft: int8 per channel symbol, + means bit 0; "
                         "bits: packed hard channel bits, MSB first")
@@ -222,6 +226,8 @@ def _cmd_decode(args) -> int:
         start=args.start,
         no_time=args.no_time,
         cadus=args.cadus,
+        scheduler=args.scheduler,
+        verbose=args.verbose > 0,
         progress=not args.quiet,
         workers=workers,
     )

@@ -56,11 +56,12 @@ def _plain_decode(meta_path, profile, folder: Path, chunk_samples: int | None = 
     return back
 
 
-def _segmented(meta_path, profile, folder: Path, *, workers: int = 1, segment_samples: int = SEG):
+def _segmented(meta_path, profile, folder: Path, *, workers: int = 1, segment_samples: int = SEG,
+               scheduler: str | None = None):
     rec = open_recording(meta_path)
     sinks = FolderSinks(folder)
     back = BackEnd(profile, timebase=rec, sinks=sinks)
-    sd = SegmentedDecode(profile, workers=workers, segment_samples=segment_samples)
+    sd = SegmentedDecode(profile, workers=workers, segment_samples=segment_samples, scheduler=scheduler)
     back.front_summary = sd.run(rec, back)
     sinks.close()
     return back, sd
@@ -168,6 +169,15 @@ def test_segmented_output_independent_of_workers(tmp_path, long_recording, demo_
     assert _outputs(tmp_path) == segmented_one_worker[1]  # byte for byte
     assert back.frame_count == segmented_one_worker[0].frame_count
     assert back.track.position == segmented_one_worker[0].track.position
+
+
+def test_segments_on_a_dask_cluster_give_the_same_output(tmp_path, long_recording, demo_profile,
+                                                         segmented_one_worker):
+    # issue 19: the segments as tasks on a (local) Dask cluster, each worker reading its own byte range
+    pytest.importorskip("dask.distributed")
+    back, _ = _segmented(long_recording.meta_path, demo_profile, tmp_path, workers=2, scheduler="local")
+    assert _outputs(tmp_path) == segmented_one_worker[1]  # byte for byte
+    assert back.front_summary.counts == segmented_one_worker[0].front_summary.counts
 
 
 def _rows(blob: bytes, keys):

@@ -171,3 +171,21 @@ def test_closed_pipe_exits_quietly():
     err = proc.stderr.read().decode()
     assert proc.wait(timeout=300) == 0
     assert "Error" not in err and "Traceback" not in err, err
+
+
+def test_decode_on_a_local_dask_cluster(tmp_path):
+    pytest.importorskip("dask.distributed")
+    from test_end_to_end import _write_profile, small_profile
+
+    prof = _write_profile(tmp_path, small_profile("bpsk", "concatenated", "nrz-m", seconds=1.0))
+    assert main(["simulate", "--profile", str(prof), "--out", str(tmp_path / "sim"), "-q"]) == 0
+    meta = str(tmp_path / "sim" / "recording.sigmf-meta")
+    base = ["decode", meta, "--profile", str(prof), "-q"]
+    assert main([*base, "--out", str(tmp_path / "one")]) == 0
+    assert main([*base, "--out", str(tmp_path / "dask"), "--scheduler", "local", "--workers", "2"]) == 0
+    for name in ("packets.jsonl", "frames.jsonl", "doppler.csv"):
+        assert (tmp_path / "one" / name).read_bytes() == (tmp_path / "dask" / name).read_bytes()
+    bits = tmp_path / "c.bits"
+    bits.write_bytes(bytes(100))
+    assert main(["decode", str(bits), "--input", "bits", "--no-time", "--profile", str(prof), "--out",
+                 str(tmp_path / "x"), "--scheduler", "local"]) == ExitCode.USAGE

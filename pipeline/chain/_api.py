@@ -12,7 +12,7 @@ __all__ = ["decode"]
 def decode(recording: str | os.PathLike, profile, out: str | os.PathLike | None = None, *,
            overwrite: bool = False, workers: int = 1, input_kind: str = "iq", format: str | None = None,
            sample_rate_hz: float | None = None, start: str | None = None, no_time: bool = False,
-           cadus: bool = False, progress: bool = False) -> DecodeSummary:
+           cadus: bool = False, scheduler: str | None = None, progress: bool = False) -> DecodeSummary:
     """Decode a recording into packets, frames and a pass report.
 
     Parameters
@@ -26,12 +26,13 @@ def decode(recording: str | os.PathLike, profile, out: str | os.PathLike | None 
         Output folder (``packets.jsonl``, ``frames.jsonl``, ``report.json``, ...).  None decodes in
         memory and returns the records in ``packets_list`` and ``frames_list`` and the report in
         ``report``: meant for recordings whose packets fit in memory.
-    overwrite, workers, input_kind, format, sample_rate_hz, start, no_time, cadus, progress :
+    overwrite, workers, input_kind, format, sample_rate_hz, start, no_time, cadus, scheduler, progress :
         The ``decode`` command's options: ``--overwrite``, ``--workers``, ``--input`` (iq | soft |
         bits), ``--format`` (cf32 | ci16 | ci8 | cu8), ``--sample-rate``, ``--start`` (ISO-8601 UTC of
         the first sample; required when the input carries no time), ``--no-time`` (decode without a
-        time: every ERT is null), ``--cadus`` (also ``cadus.bin``; folder output only) and a progress
-        bar on stderr.
+        time: every ERT is null), ``--cadus`` (also ``cadus.bin``; folder output only),
+        ``--scheduler`` (the segments of an IQ recording as tasks on a Dask cluster: ``"local"`` or a
+        scheduler address) and a progress bar on stderr.
 
     Returns
     -------
@@ -53,7 +54,7 @@ def decode(recording: str | os.PathLike, profile, out: str | os.PathLike | None 
 
     prof = profile if isinstance(profile, LinkProfile) else load_profile(profile)
     kw = dict(input_kind=input_kind, datatype=format, sample_rate_hz=sample_rate_hz, start=start, no_time=no_time,
-              progress=progress, workers=workers)
+              progress=progress, workers=workers, scheduler=scheduler)
     if out is None:
         return decode_in_memory(str(recording), prof, **kw)
     return decode_to_folder(str(recording), prof, str(out), overwrite=overwrite, cadus=cadus, **kw)

@@ -201,10 +201,13 @@ def _spectrum(rec) -> tuple[np.ndarray, np.ndarray] | None:
 
 
 def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bool,
-         segment_samples: int = DEFAULT_SEGMENT_SAMPLES):
+         segment_samples: int = DEFAULT_SEGMENT_SAMPLES, scheduler: str | None = None, verbose: bool = False):
     """Decode ``inp`` into ``sinks``; returns the summary, the report dict and the plot data."""
     from pipeline.report import RunFacts, build_report
 
+    if scheduler is not None and inp.kind != "iq":
+        raise UsageError("--scheduler applies to IQ recordings (their segments run as tasks); symbol files are "
+                         "decoded in one process")
     t0 = time.perf_counter()
     bar = Progress(inp.total, enabled=progress)
     downlink_hz = tuning = None
@@ -221,7 +224,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
 
             row = waterfall_row_samples(rec.num_samples, rec.sample_rate_hz)
             front: FrontSummary = SegmentedDecode(profile, workers=workers, segment_samples=segment_samples,
-                                                  waterfall_row_samples=row).run(
+                                                  waterfall_row_samples=row, scheduler=scheduler,
+                                                  verbose=verbose).run(
                 rec, back, on_segment=lambda res: bar.update(res.owned_stop))
         else:
             chain = DecodeChain(profile, input_kind=inp.kind, timebase=inp.timebase, sinks=sinks)
@@ -259,7 +263,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
 def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrite: bool = False,
                      input_kind: str = "iq", datatype: str | None = None, sample_rate_hz: float | None = None,
                      start: str | None = None, no_time: bool = False, progress: bool = False, workers: int = 1,
-                     cadus: bool = False, segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
+                     cadus: bool = False, scheduler: str | None = None, verbose: bool = False,
+                     segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
     """Decode ``recording`` with ``profile`` into the folder ``out``.
 
     Writes ``packets.jsonl``, ``frames.jsonl``, ``apid_NNNN.bin``, ``frames.bin``, ``frames_vcN.bin``,
@@ -273,7 +278,7 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
                       start=start, no_time=no_time)
     with OutputFolder(out, overwrite=overwrite) as tmp:
         summary, plots = _run(inp, profile, FolderSinks(tmp, cadus=cadus), workers=workers, progress=progress,
-                              segment_samples=segment_samples)
+                              segment_samples=segment_samples, scheduler=scheduler, verbose=verbose)
         write_report(tmp, summary.report, plots)
     summary.out = str(out)
     return summary
@@ -281,13 +286,14 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
 
 def decode_in_memory(recording: str, profile: LinkProfile, *, input_kind: str = "iq", datatype: str | None = None,
                      sample_rate_hz: float | None = None, start: str | None = None, no_time: bool = False,
-                     progress: bool = False, workers: int = 1,
+                     progress: bool = False, workers: int = 1, scheduler: str | None = None,
                      segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
     """The same decode with the records kept in memory (``packets_list``, ``frames_list``); no files."""
     inp = _open_input(recording, profile, input_kind=input_kind, datatype=datatype, sample_rate_hz=sample_rate_hz,
                       start=start, no_time=no_time)
     sinks = MemorySinks()
-    summary, _ = _run(inp, profile, sinks, workers=workers, progress=progress, segment_samples=segment_samples)
+    summary, _ = _run(inp, profile, sinks, workers=workers, progress=progress, segment_samples=segment_samples,
+                      scheduler=scheduler)
     summary.packets_list = sinks.packets
     summary.frames_list = sinks.frames
     return summary

@@ -120,7 +120,13 @@ class SegmentedDecode:
     ----------
     profile : LinkProfile
     workers : int, keyword-only
-        Segments decoded at the same time in worker processes (1: one after the other in this process).
+        Segments decoded at the same time in worker processes (1: one after the other in this process),
+        or the workers of a local Dask cluster (``scheduler="local"``).
+    scheduler : str or None, keyword-only
+        None: worker processes of this machine.  ``"local"``: a Dask cluster started here with ``workers``
+        single-threaded worker processes.  Any other string: the address of a running Dask scheduler
+        (``tcp://host:8786``); its workers read their segments from the recording's path, so the recording
+        must be on storage they all see.  The output is the same in every case.
     segment_samples : int, keyword-only
         Owned length of a segment, >= 2^20 samples; default :data:`DEFAULT_SEGMENT_SAMPLES`.
     waterfall_row_samples : int or None, keyword-only
@@ -144,13 +150,17 @@ class SegmentedDecode:
     """
 
     def __init__(self, profile: LinkProfile, *, workers: int = 1, segment_samples: int = DEFAULT_SEGMENT_SAMPLES,
-                 waterfall_row_samples: int | None = None):
+                 waterfall_row_samples: int | None = None, scheduler: str | None = None, verbose: bool = False):
         if isinstance(workers, bool) or not isinstance(workers, int):
             raise TypeError(f"Argument 'workers' must be an integer, not {type(workers).__name__}.")
         if not 1 <= workers <= 64:
             raise ValueError(f"Argument 'workers' must be 1..64, not {workers}.")
         segment_plan(0, profile, 1.0, segment_samples=segment_samples)  # validates segment_samples
+        if scheduler is not None and (not isinstance(scheduler, str) or not scheduler.strip()):
+            raise ValueError(f"Argument 'scheduler' must be 'local' or a scheduler address, not {scheduler!r}.")
         self.profile = profile
+        self.scheduler = scheduler
+        self.verbose = verbose
         self.workers = workers
         self.segment_samples = segment_samples
         self.waterfall_row_samples = waterfall_row_samples
@@ -208,6 +218,9 @@ class SegmentedDecode:
     def _results(self, recording, plan) -> Iterator[SegmentResult]:
         """Segment results in plan order; at most ``workers + 1`` segments in flight."""
         jobs = [(recording, self.profile, i, *seg, self.waterfall_row_samples) for i, seg in enumerate(plan)]
+        if self.scheduler is not None:
+            yield from self._dask_results(jobs)
+            return
         if self.workers == 1 or len(plan) == 1:
             for job in jobs:
                 yield decode_segment(*job)
@@ -235,3 +248,43 @@ class SegmentedDecode:
             finally:
                 for fut in pending:
                     fut.cancel()
+
+    def _dask_results(self, jobs) -> Iterator[SegmentResult]:
+        """The segments as tasks on a Dask cluster, results in plan order, a bounded number in flight."""
+        import collections
+        import logging
+
+        try:
+            from dask.distributed import Client, LocalCluster
+        except ImportError:
+            from pipeline.errors import UsageError
+
+            raise UsageError('--scheduler needs dask.distributed: pip install ".[dask]"') from None
+        level = logging.INFO if self.verbose else logging.ERROR
+        for name in ("distributed", "dask"):
+            logging.getLogger(name).setLevel(level)
+        cluster = None
+        if self.scheduler == "local":
+            cluster = LocalCluster(n_workers=self.workers, threads_per_worker=1, processes=True,
+                                   dashboard_address=None, silence_logs=level)
+            client = Client(cluster)
+        else:
+            client = Client(self.scheduler)
+        try:
+            slots = max(1, sum(client.nthreads().values()))
+            pending: collections.deque = collections.deque()
+            it = iter(jobs)
+            for job in it:
+                pending.append(client.submit(decode_segment, *job, pure=False))
+                if len(pending) > slots:
+                    break
+            while pending:
+                res = pending.popleft().result()
+                nxt = next(it, None)
+                if nxt is not None:
+                    pending.append(client.submit(decode_segment, *nxt, pure=False))
+                yield res
+        finally:
+            client.close()
+            if cluster is not None:
+                cluster.close()
