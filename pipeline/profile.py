@@ -93,10 +93,26 @@ class CodingSection:
     reed_solomon: int = 16
     interleave: int = 5
     randomizer: bool = True
+    # None: as CCSDS 131.0-B says (G2 inverted at rate 1/2 only); true/false for equipment that differs
+    convolutional_g2_inverted: bool | None = None
 
     @property
     def conv_rate(self) -> float:
         return CONV_RATES[self.convolutional]
+
+    @property
+    def conv_g2_inverted(self) -> bool | None:
+        """Whether the G2 output of the convolutional code is inverted (None on an uncoded link).
+
+        ``convolutional_g2_inverted`` when the profile sets it, else the standard's rule: inverted
+        for the rate-1/2 code (CCSDS 131.0-B sec. 3.3, "Symbol inversion: On output path of G2"),
+        not for the punctured codes (sec. 3.4; CCSDS 130.1-G sec. 4.3, Fig. 4-2 has no inverter).
+        """
+        if self.convolutional == "none":
+            return None
+        if self.convolutional_g2_inverted is None:
+            return self.convolutional == "1/2"
+        return bool(self.convolutional_g2_inverted)
 
     @property
     def rs_k(self) -> int:
@@ -440,6 +456,10 @@ def _validate(p: LinkProfile, source: str) -> None:
     _choice(C.convolutional, ConvRate, "[coding] convolutional", source)
     _check(C.reed_solomon in (0, 8, 16), source, f"[coding] reed_solomon must be 0, 8 or 16, not {C.reed_solomon}")
     _check(1 <= C.interleave <= 8, source, f"[coding] interleave must be 1..8, not {C.interleave}")
+    _check(C.convolutional_g2_inverted is None or isinstance(C.convolutional_g2_inverted, bool), source,
+           f"[coding] convolutional_g2_inverted must be true or false, not {C.convolutional_g2_inverted!r}")
+    _check(C.convolutional_g2_inverted is None or C.convolutional != "none", source,
+           "[coding] convolutional_g2_inverted applies to a convolutional code; convolutional is \"none\"")
     _choice(F.kind, FrameKind, "[frames] kind", source)
     max_scid = 0x3FF if F.kind == "tm" else 0xFF
     _check(0 <= F.spacecraft_id <= max_scid, source,

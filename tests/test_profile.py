@@ -63,6 +63,27 @@ def test_out_of_range_values_name_the_key(data, fragment):
     assert "\n" not in msg
 
 
+def test_convolutional_g2_inverted_key():
+    # default as CCSDS 131.0-B says: G2 inverted at rate 1/2 (sec. 3.3), not on the punctured codes
+    # (sec. 3.4; 130.1-G sec. 4.3, Fig. 4-2); the key overrides it for equipment that differs
+    base = {"link": {}, "frames": {"length": 223}}
+    half = profile_from_dict({**base, "coding": {"convolutional": "1/2", "reed_solomon": 16, "interleave": 1}})
+    assert half.coding.conv_g2_inverted is True
+    for rate in ("2/3", "3/4", "5/6", "7/8"):
+        p = profile_from_dict({**base, "coding": {"convolutional": rate, "reed_solomon": 16, "interleave": 1}})
+        assert p.coding.conv_g2_inverted is False
+        q = profile_from_dict({**base, "coding": {"convolutional": rate, "reed_solomon": 16, "interleave": 1,
+                                                  "convolutional_g2_inverted": True}})
+        assert q.coding.conv_g2_inverted is True
+    off = profile_from_dict({**base, "coding": {"convolutional": "1/2", "reed_solomon": 16, "interleave": 1,
+                                                "convolutional_g2_inverted": False}})
+    assert off.coding.conv_g2_inverted is False
+    with pytest.raises(ProfileError, match="convolutional_g2_inverted must be true or false, not 'yes'"):
+        profile_from_dict({**base, "coding": {"convolutional": "3/4", "convolutional_g2_inverted": "yes"}})
+    with pytest.raises(ProfileError, match="convolutional_g2_inverted applies to a convolutional code"):
+        profile_from_dict({**base, "coding": {"convolutional": "none", "convolutional_g2_inverted": True}})
+
+
 def test_missing_and_malformed_files(tmp_path):
     with pytest.raises(ProfileError, match="profile not found"):
         load_profile(tmp_path / "nope.toml")
