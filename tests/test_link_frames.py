@@ -21,7 +21,16 @@ from test_link_builders import (
     tm_zone_length,
 )
 
-from pipeline.link import ChannelAccounting, FrameParser, Gap, count_step, decode_clcw, fhec_check, fhec_parity
+from pipeline.link import (
+    ChannelAccounting,
+    FrameParser,
+    Gap,
+    count_step,
+    decode_clcw,
+    fhec_check,
+    fhec_decode,
+    fhec_parity,
+)
 from pipeline.link._fhec import fhec_generator
 from pipeline.profile import FramesSection
 
@@ -123,7 +132,8 @@ def test_tm_statuses():
     assert r.status == "bad_header" and "first header pointer 54" in r.detail
     assert p.process(decoded(_tm(fhp=53))).status == "ok"
     foreign = tm_frame(TM, vcid=1, mcfc=0, vcfc=0, zone=bytes(54), fhp=0, scid=0x124)
-    assert p.process(decoded(foreign)).status == "foreign_scid"
+    rec = p.process(decoded(foreign))
+    assert rec.status == "foreign_scid" and rec.verified and rec.scid == 0x124  # RS-verified octets: kept
     v1 = bytearray(_tm())
     v1[0] |= 0x40
     assert p.process(decoded(bytes(v1))).status == "bad_header"
@@ -135,9 +145,43 @@ def test_tm_statuses():
     assert short.status == "bad_header" and short.scid is None
     vca = p.process(decoded(_tm(fhp=0x7FF, sync=True)))
     assert vca.status == "ok" and vca.fhp is None and vca.packet_zone is None
-    assert p.counts["idle"] == 1 and p.counts["foreign_scid"] == 1 and p.counts["rs_uncorrectable"] == 1
+    st = p.stats.statuses
+    assert st["idle"] == 1 and st["foreign_scid"] == 1 and st["rs_uncorrectable"] == 1
     p.reset()
-    assert sum(p.counts.values()) == 0
+    assert sum(p.stats.statuses.values()) == 0 and p.stats.verified == 0
+
+
+def test_verified_and_unverified_headers():
+    # issue 13: a frame is verified when its RS decode or its FECF succeeded; a frame that failed its
+    # checks without verified octets carries no header fields at the top level, only under "unverified"
+    p = FrameParser(frames=TM)
+    ok_rs = p.process(decoded(_tm(), rs=(3,)))
+    assert ok_rs.status == "ok" and ok_rs.verified and ok_rs.as_dict()["verified"] is True
+    plain = p.process(decoded(_tm(), rs=()))  # no RS, no FECF: delivered, not verified
+    assert plain.status == "ok" and not plain.verified and plain.scid == 0x123 and plain.unverified is None
+    failed = p.process(decoded(_tm(), status="rs_uncorrectable", rs=(-1,)))
+    assert not failed.verified and failed.scid is None and failed.vcid is None and failed.fhp is None
+    d = failed.as_dict()
+    assert d["scid"] is None and d["mcfc"] is None and d["ocf"] is None and d["clcw"] is None
+    assert d["unverified"]["scid"] == 0x123 and d["unverified"]["vcfc"] == 0x67
+    json.dumps(d)
+    foreign = tm_frame(TM, vcid=1, mcfc=0, vcfc=0, zone=bytes(54), fhp=0, scid=0x124)
+    unv = p.process(decoded(foreign, rs=()))
+    assert unv.status == "foreign_scid" and unv.scid is None and unv.unverified["scid"] == 0x124
+    pf = FrameParser(frames=TM_FECF)
+    fecf_ok = pf.process(decoded(_tm(frames=TM_FECF, vcid=2), rs=()))
+    assert fecf_ok.verified and fecf_ok.fecf_ok
+    bad = bytearray(_tm(frames=TM_FECF, vcid=2))
+    bad[30] ^= 1
+    fecf_bad = pf.process(decoded(bytes(bad), rs=()))
+    assert fecf_bad.status == "fecf_error" and not fecf_bad.verified and fecf_bad.unverified["vcid"] == 2
+    assert p.stats.verified == 1 and p.stats.unverified == 3
+
+    class LdpcFrame:  # an LDPC / turbo decoder's frame: no RS counts, fec_verified set
+        frame, status, rs_corrected, fec_verified = _tm(), "ok", (), True
+        cadu = decoded(b"").cadu
+
+    assert p.process(LdpcFrame()).verified
 
 
 def test_fecf():
@@ -211,6 +255,139 @@ def test_fhec_detects_every_error_of_up_to_four_symbols(rng):
         assert not fhec_check(h2, (word[6] << 12) | (word[7] << 8) | (word[8] << 4) | word[9])
 
 
+def _fhec_word(hdr6: bytes, fhec: int) -> list[int]:
+    """The ten code symbols: the protected nibbles (octets 0, 1, 5) and the four FHEC nibbles."""
+    return [hdr6[0] >> 4, hdr6[0] & 15, hdr6[1] >> 4, hdr6[1] & 15, hdr6[5] >> 4, hdr6[5] & 15] + \
+        [(fhec >> s) & 15 for s in (12, 8, 4, 0)]
+
+
+def _from_word(word: list[int], hdr6: bytes) -> tuple[bytes, int]:
+    h = bytes([(word[0] << 4) | word[1], (word[2] << 4) | word[3], hdr6[2], hdr6[3], hdr6[4], (word[4] << 4) | word[5]])
+    return h, (word[6] << 12) | (word[7] << 8) | (word[8] << 4) | word[9]
+
+
+@functools.lru_cache(maxsize=1)
+def _ref_generator() -> tuple[int, ...]:
+    """g(x) = (x + a^6)(x + a^7)(x + a^8)(x + a^9) with the slow GF(16) multiply."""
+    alpha = [1]
+    for _ in range(15):
+        alpha.append(_gf16_mul_slow(alpha[-1], 2))
+    g = [1]
+    for k in (6, 7, 8, 9):
+        g = [a ^ _gf16_mul_slow(b, alpha[k]) for a, b in zip(g + [0], [0] + g)]
+    return tuple(g)
+
+
+@functools.cache
+def _ref_parity(info: tuple[int, ...]) -> tuple[int, ...]:
+    """Systematic parity by long division with the slow GF(16) multiply (no tables)."""
+    g = _ref_generator()
+    reg = list(info) + [0, 0, 0, 0]
+    for i in range(6):
+        c = reg[i]
+        for j in range(1, 5):
+            reg[i + j] ^= _gf16_mul_slow(c, g[j])
+    return tuple(reg[6:])
+
+
+@functools.lru_cache(maxsize=1)
+def _error_patterns() -> list[list[tuple[int, int]]]:
+    cands = [[]] + [[(p, v)] for p in range(10) for v in range(1, 16)]
+    cands += [[(p, v), (q, w)] for p in range(10) for q in range(p + 1, 10) for v in range(1, 16)
+              for w in range(1, 16)]
+    return cands
+
+
+def _ref_nearest_codewords(word: list[int]) -> list[list[int]]:
+    """Slow reference decoder: every codeword within distance 2 of ``word``, by brute force over the
+    10,275 error patterns of weight 1 and 2 (and weight 0), each checked with the slow encoder."""
+    found = []
+    for pattern in _error_patterns():
+        c = list(word)
+        for pos, val in pattern:
+            c[pos] ^= val
+        if _ref_parity(tuple(c[:6])) == tuple(c[6:]):
+            found.append(c)
+    return found
+
+
+def test_fhec_corrects_up_to_two_nibbles(rng):
+    # RS(10,6) over GF(16) has minimum distance 5: any one or two symbol errors are corrected
+    # (CCSDS 732.0-B sec. 4.1.2.6, code from memory, not confirmed); galois (PyPI) agrees on each
+    gf, rs = _galois_rs()
+    for n_err in (1, 2):
+        for _ in range(150):
+            hdr = bytes(rng.integers(0, 256, 6, dtype=np.uint8))
+            word = _fhec_word(hdr, fhec_parity(hdr))
+            bad = list(word)
+            for pos in rng.choice(10, n_err, replace=False):
+                bad[pos] ^= int(rng.integers(1, 16))
+            h2, f2 = _from_word(bad, hdr)
+            res = fhec_decode(h2, f2)
+            assert res.corrected == n_err and res.header == hdr and res.fhec == fhec_parity(hdr)
+            dec, nerr = rs.decode(gf(bad), errors=True)
+            assert int(nerr) == n_err and [int(v) for v in dec] == word[:6]
+    assert fhec_decode(hdr, fhec_parity(hdr)) == (hdr, fhec_parity(hdr), 0)
+
+
+def test_fhec_uncorrectable_patterns_confirmed_by_brute_force(rng):
+    # words with 3..5 symbol errors: where the brute-force reference finds no codeword within distance 2,
+    # the decoder must say uncorrectable (and galois too); where it finds one, the decoder returns it
+    gf, rs = _galois_rs()
+    seen_uncorrectable = 0
+    for _ in range(10):
+        hdr = bytes(rng.integers(0, 256, 6, dtype=np.uint8))
+        bad = _fhec_word(hdr, fhec_parity(hdr))
+        for pos in rng.choice(10, int(rng.integers(3, 6)), replace=False):
+            bad[pos] ^= int(rng.integers(1, 16))
+        h2, f2 = _from_word(bad, hdr)
+        res = fhec_decode(h2, f2)
+        near = _ref_nearest_codewords(bad)
+        assert len(near) <= 1  # minimum distance 5
+        if near:
+            assert res.corrected in (1, 2) and _fhec_word(res.header, res.fhec) == near[0]
+        else:
+            seen_uncorrectable += 1
+            assert res.corrected == -1 and res.header == h2 and res.fhec == f2
+            assert int(rs.decode(gf(bad), errors=True)[1]) == -1
+    assert seen_uncorrectable >= 6
+
+
+def test_parser_uses_the_fhec_before_any_header_field(rng):
+    p = FrameParser(frames=AOS)
+    good = _aos()
+    for nibbles in ((0,), (1, 4), (2, 5)):  # version/scid, scid and signalling, vcid and signalling
+        bad = bytearray(good)
+        word = _fhec_word(bytes(bad[:6]), (bad[6] << 8) | bad[7])
+        for n in nibbles:
+            word[n] ^= 0x9
+        h, f = _from_word(word, bytes(bad[:6]))
+        bad[:6], bad[6:8] = h, f.to_bytes(2, "big")
+        rec = p.process(decoded(bytes(bad)))
+        assert rec.status == "ok" and rec.fhec_corrected == len(nibbles) and rec.fecf_ok
+        assert (rec.version, rec.scid, rec.vcid, rec.vcfc) == (1, 0xAB, 0x2A, 0x123456)
+        assert rec.as_dict()["fhec_corrected"] == len(nibbles)
+    assert p.stats.fhec_corrected_frames == 3 and p.stats.fhec_corrected_nibbles == 5
+    # three nibbles of the spacecraft id wrong, confirmed uncorrectable: bad_header, not foreign_scid
+    for _ in range(20):
+        bad = bytearray(good)
+        word = _fhec_word(bytes(bad[:6]), (bad[6] << 8) | bad[7])
+        for n in (1, 2, 3):
+            word[n] ^= int(rng.integers(1, 16))
+        if _ref_nearest_codewords(word):
+            continue
+        h, f = _from_word(word, bytes(bad[:6]))
+        bad[:6], bad[6:8] = h, f.to_bytes(2, "big")
+        bad[-2:] = crc16_ref(bytes(bad[:-2])).to_bytes(2, "big")  # only the FHEC can tell
+        rec = p.process(decoded(bytes(bad)))
+        assert rec.status == "bad_header" and "FHEC" in rec.detail and rec.fhec_corrected == -1
+        assert rec.fhec_ok is False and rec.as_dict()["fhec_ok"] is False
+        break
+    else:
+        raise AssertionError("no uncorrectable pattern drawn")
+    assert p.stats.fhec_uncorrectable == 1 and p.stats.statuses["foreign_scid"] == 0
+
+
 def _aos(vcid=0x2A, vcfc=0x123456, fhp=0, frames=AOS, **kw):
     from test_link_builders import aos_primary
 
@@ -238,10 +415,9 @@ def test_aos_statuses():
     assert p.process(decoded(_aos(vcid=63))).status == "idle"  # idle VC 63 (REFERENCES.md sec. 4)
     assert p.process(decoded(_aos(fhp=0x7FE))).status == "idle"
     bad = bytearray(_aos())
-    bad[5] ^= 0x20  # signalling field, protected by the FHEC; fix the FECF so only the FHEC fails
-    bad[-2:] = crc16_ref(bytes(bad[:-2])).to_bytes(2, "big")
+    bad[5] ^= 0x20  # one nibble of the signalling field, protected by the FHEC: corrected, then the FECF holds
     r = p.process(decoded(bytes(bad)))
-    assert r.status == "bad_header" and r.fhec_ok is False
+    assert r.status == "ok" and r.fhec_ok and r.fhec_corrected == 1 and r.fecf_ok and not r.replay_flag
     assert p.process(decoded(_aos(fhp=aos_zone_length(AOS)))).status == "bad_header"
     bpdu = p.process(decoded(_aos(vcid=9, fhp=0x3FFF, bpdu=True)))
     assert bpdu.status == "ok" and bpdu.bdp == 0x3FFF and bpdu.packet_zone is None

@@ -202,6 +202,7 @@ class ChannelAccounting:
         """Forget every count and counter."""
         self.status_counts: dict[str, int] = {}
         self.foreign: dict[int, int] = {}
+        self.foreign_unverified = 0
         self.period = FramePeriod()
         self.master: dict[int, _Counter] = {}
         self.virtual: dict[tuple[int, int], _Counter] = {}
@@ -214,7 +215,10 @@ class ChannelAccounting:
         status = record.status
         self.status_counts[status] = self.status_counts.get(status, 0) + 1
         if status == "foreign_scid":
-            self.foreign[int(record.scid)] = self.foreign.get(int(record.scid), 0) + 1
+            if record.scid is None:  # its header is not verified (FrameRecord.unverified)
+                self.foreign_unverified += 1
+            else:
+                self.foreign[int(record.scid)] = self.foreign.get(int(record.scid), 0) + 1
             return []
         if status not in ("ok", "idle") or (self.spacecraft_id is not None and record.scid != self.spacecraft_id):
             for c in self.master.values():
@@ -293,5 +297,6 @@ class ChannelAccounting:
             "mc_out_of_order": sum(c.out_of_order for c in self.master.values()),
             "master_channels": mc_list,
             "foreign_scids": {str(k): v for k, v in sorted(self.foreign.items())},
+            "foreign_unverified": self.foreign_unverified,
             "virtual_channels": vc_list,
         }
