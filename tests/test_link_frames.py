@@ -467,14 +467,14 @@ def test_accounting_gaps_wrap_duplicates():
     gaps = []
     seq = [(0, 250, 250), (1, 251, 0), (0, 252, 251), (0, 253, 252), (0, 253, 252),  # duplicate
            (0, 256, 255), (0, 257, 256),  # wrap of both counts; MC lost 254, 255
-           (1, 255, 1)]  # behind on MC: out of order
+           (1, 255, 1)]  # behind on MC: a replay or restart
     for i, (vc, mc, vcc) in enumerate(seq):
         gaps += acc.process(_rec(p, vc, mc, vcc, float(i)))
     assert [(g.kind, g.vcid, g.expected, g.got, g.missing, g.position) for g in gaps] == \
         [("mc", None, 254, 0, 2, 5.0), ("vc", 0, 253, 255, 2, 5.0)]
     d = acc.as_dict()
     json.dumps(d)
-    assert d["mc_duplicates"] == 1 and d["mc_out_of_order"] == 1 and d["mc_gaps"] == 1 and d["mc_missing"] == 2
+    assert d["mc_duplicates"] == 1 and d["mc_backward"] == 1 and d["mc_gaps"] == 1 and d["mc_missing"] == 2
     vc0 = next(v for v in d["virtual_channels"] if v["vcid"] == 0)
     assert vc0["gaps"] == 1 and vc0["missing"] == 2 and vc0["last_count"] == 0
     assert isinstance(gaps[0], Gap) and gaps[0].as_dict()["kind"] == "mc"
@@ -557,7 +557,7 @@ def test_long_outage_uses_frame_period():
         gaps += acc.process(_rec(p, 0, i, i, 1000.0 + i * period))
     assert [(g.kind, g.missing, g.ambiguous) for g in gaps] == [("mc", 300, False), ("vc", 300 % 256, True)]
     d = acc.as_dict()
-    assert d["mc_out_of_order"] == 0 and d["virtual_channels"][0]["out_of_order"] == 0
+    assert d["mc_backward"] == 0 and d["virtual_channels"][0]["backward"] == 0
     # without positions the same counts read as a short gap (the counter limit)
     acc2 = ChannelAccounting()
     g2 = [g for i in list(range(10)) + list(range(310, 316)) for g in acc2.process(_rec(p, 0, i, i, float("nan")))]
@@ -581,3 +581,97 @@ def test_parser_is_stateless_across_batches(rng):
     order = rng.permutation(len(frames))
     again = {int(i): shared.process(decoded(frames[i], position=float(i))) for i in order}
     assert [again[i] for i in range(len(frames))] == one
+
+
+# ---- counters that repeat, restart or replay (issue 13) --------------------------------------
+
+def test_restarting_counters_are_flagged_not_gaps():
+    # a recording of 4 repetitions of a 30-frame pass: the counts restart at every seam.  Nothing is a gap,
+    # the first frame after each seam is "backward" (a restart), every other frame follows its track.
+    p, acc = FrameParser(frames=TM), ChannelAccounting(spacecraft_id=0x123)
+    gaps, flags = [], []
+    for i in range(120):
+        k = i % 30
+        rec = _rec(p, k % 2, k, k // 2, 1000.0 * i)
+        gaps += acc.process(rec)
+        flags.append(rec.count_anomaly)
+    assert gaps == []
+    # the first frame of each virtual channel after a seam
+    assert [i for i, f in enumerate(flags) if f] == [30, 31, 60, 61, 90, 91]
+    assert {f for f in flags if f} == {"backward"}
+    d = acc.as_dict()
+    assert d["mc_backward"] == 3 and d["vc_backward"] == 6 and d["mc_gaps"] == 0
+    assert _rec(p, 0, 0, 0, 0.0).as_dict()["count_anomaly"] is None
+
+
+def test_restart_that_looks_like_a_forward_jump():
+    # 200-frame repetitions with 8-bit counts: 199 -> 0 reads as a jump of 57 counts, but only one frame
+    # period passed, so it is a restart (backward), not 56 missing frames
+    p, acc = FrameParser(frames=TM), ChannelAccounting()
+    gaps = []
+    for i in range(400):
+        k = i % 200
+        rec = _rec(p, 0, k, k, 500.0 * i)
+        gaps += acc.process(rec)
+        assert rec.count_anomaly == ("backward" if i == 200 else None)
+    assert gaps == []
+    # without positions the counts alone cannot tell: that is a gap (the counters' own limit)
+    acc2 = ChannelAccounting()
+    g2 = [g for i in range(201) for g in acc2.process(_rec(p, 0, i % 200, i % 200, float("nan")))]
+    assert [(g.kind, g.missing) for g in g2] == [("mc", 56), ("vc", 56)]
+
+
+def test_replayed_frames_between_newer_ones():
+    # VC 1 plays back its frames 5..9 between newer frames (new master channel counts): the first replayed
+    # frame is behind, the rest follow the replay, the newer stream continues without a gap
+    p, acc = FrameParser(frames=TM), ChannelAccounting()
+    seq = [(i % 2, i // 2) for i in range(30)]  # (vcid, vc count): VC 1 reached 14
+    seq += [(1, 5 + j) for j in range(5)] + [(i % 2, i // 2) for i in range(30, 50)]
+    flags, gaps = [], []
+    for i, (vc, vcc) in enumerate(seq):
+        rec = _rec(p, vc, i, vcc, 10.0 * i)
+        gaps += acc.process(rec)
+        flags.append(rec.count_anomaly)
+    assert gaps == []
+    assert flags[30] == "backward" and flags.count("backward") == 1 and flags.count("duplicate") == 0
+    vc1 = next(v for v in acc.as_dict()["virtual_channels"] if v["vcid"] == 1)
+    assert vc1["backward"] == 1 and vc1["gaps"] == 0 and vc1["frames"] == 30
+
+
+def test_duplicate_frame_is_flagged_and_stream_continues():
+    p, acc = FrameParser(frames=TM), ChannelAccounting()
+    flags = []
+    gaps = []
+    for i, k in enumerate([0, 1, 2, 2, 3, 4]):
+        rec = _rec(p, 0, k, k, 10.0 * i)
+        gaps += acc.process(rec)
+        flags.append(rec.count_anomaly)
+    assert flags == [None, None, None, "duplicate", None, None] and gaps == []
+    assert acc.as_dict()["mc_duplicates"] == 1
+
+
+@pytest.mark.kat
+def test_count_tracker_tracks():
+    from pipeline.link import CountTracker, FramePeriod
+
+    t = CountTracker(modulus=256, max_tracks=2)
+    kinds = [t.step(c).kind for c in (10, 11, 12, 3, 4, 13, 5, 5, 14, 200, 201, 150)]
+    # 3 starts a replay track, 13 continues the first, 5 the replay, 5 again is a duplicate, 200 a third
+    # track (the least recent, the replay at 5, is given up: max_tracks 2); 150 is behind 14 and 201
+    assert kinds == ["first", "next", "next", "backward", "next", "next", "next", "duplicate", "next", "backward",
+                     "next", "backward"]
+    assert [tr.last for tr in t.tracks] == [201, 150]
+    res = t.step(153)
+    assert res.kind == "gap" and res.missing == 2 and res.expected == 151 and t.newest.last == 153
+    # a track silent for half the count range in time is given up
+    period = FramePeriod()
+    for x in (0.0, 1.0, 2.0, 3.0):
+        period.update(x)
+    t2 = CountTracker(modulus=256)
+    t2.step(10, 0.0, period)
+    assert t2.step(50, 1.0, period).kind == "backward"  # 40 counts ahead after one period: a restart
+    assert len(t2.tracks) == 2
+    res = t2.step(51, 200.0, period)
+    assert res.kind == "next" and [tr.last for tr in t2.tracks] == [51] and res.dropped[0].last == 10
+    with pytest.raises(ValueError, match="Argument 'max_tracks' must be 1..64"):
+        CountTracker(modulus=256, max_tracks=0)

@@ -3,7 +3,16 @@
 See DEVELOPERS.md, stage contracts.
 """
 
-from pipeline.link._accounting import ChannelAccounting, FramePeriod, Gap, count_step, master_missing
+from pipeline.link._accounting import (
+    ChannelAccounting,
+    CountTrack,
+    CountTracker,
+    FramePeriod,
+    Gap,
+    TrackStep,
+    count_step,
+    master_missing,
+)
 from pipeline.link._fhec import FhecResult, fhec_check, fhec_decode, fhec_parity
 from pipeline.link._frames import (
     BDP_ALL_VALID,
@@ -27,6 +36,9 @@ __all__ = [
     "HEADER_FIELDS",
     "CountAnomaly",
     "ChannelAccounting",
+    "CountTracker",
+    "CountTrack",
+    "TrackStep",
     "Gap",
     "count_step",
     "master_missing",
