@@ -20,6 +20,8 @@ cannot share one mistake (issue 5):
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 # Conventional -> dual (T_alpha_l) and dual -> conventional, as printed in REFERENCES.md sec. 10.2
@@ -63,6 +65,7 @@ TAL_INV = bytes.fromhex(
 assert all(TAL_INV[TAL[x]] == x for x in range(256))
 
 
+@functools.cache
 def pn_bytes(n: int) -> bytes:
     """CCSDS TM pseudo-randomizer, h(x) = x^8+x^7+x^5+x^3+1, all-ones seed, MSB first."""
     a = [1] * 8
@@ -82,6 +85,7 @@ def pn_bytes(n: int) -> bytes:
     return bytes(out)
 
 
+@functools.lru_cache(maxsize=4096)
 def rs_codeblock(frame: bytes, e: int, interleave: int) -> bytes:
     """Frame + interleaved RS parity (dual basis), with virtual fill if the frame is short."""
     import reedsolo
@@ -107,22 +111,19 @@ def rs_codeblock(frame: bytes, e: int, interleave: int) -> bytes:
 def conv_encode_r12(bits: np.ndarray, state: int = 0, invert_g2: bool = True) -> tuple[np.ndarray, int]:
     """K=7 r=1/2, G1=171, G2=133 octal, C1 first; G2 inverted unless ``invert_g2`` is False.
 
-    ``state`` = the last 6 input bits before ``bits`` (bit 5 the newest).
+    ``state`` = the last 6 input bits before ``bits`` (bit 5 the newest).  Each output is the
+    modulo-2 convolution of the input with the generator's taps (tap 0 = the current input bit), as
+    the shift register of CCSDS 131.0-B Fig. 3-1 computes it.
     """
-    g1 = [1, 1, 1, 1, 0, 0, 1]
-    g2 = [1, 0, 1, 1, 0, 1, 1]
-    reg = [(state >> (5 - i)) & 1 for i in range(6)]  # D1..D6, D1 the newest
-    out = np.empty(2 * len(bits), dtype=np.uint8)
-    for n, b in enumerate(bits):
-        r = [int(b)] + reg
-        c1 = sum(x & g for x, g in zip(r, g1)) & 1
-        c2 = (sum(x & g for x, g in zip(r, g2)) & 1) ^ int(invert_g2)
-        out[2 * n] = c1
-        out[2 * n + 1] = c2
-        reg = r[:6]
-    new_state = 0
-    for x in reg:
-        new_state = (new_state << 1) | x
+    g1 = np.array([1, 1, 1, 1, 0, 0, 1])
+    g2 = np.array([1, 0, 1, 1, 0, 1, 1])
+    prior = [(state >> k) & 1 for k in range(6)]  # oldest first
+    x = np.concatenate([np.array(prior, dtype=np.int64), np.asarray(bits, dtype=np.int64)])
+    n = len(bits)
+    out = np.empty(2 * n, dtype=np.uint8)
+    out[0::2] = (np.convolve(x, g1)[6:6 + n] & 1).astype(np.uint8)
+    out[1::2] = ((np.convolve(x, g2)[6:6 + n] & 1) ^ int(invert_g2)).astype(np.uint8)
+    new_state = sum(int(b) << k for k, b in enumerate(x[-6:]))
     return out, new_state
 
 
