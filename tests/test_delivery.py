@@ -21,11 +21,11 @@ FIELD = 223 - 6 - 4  # TM data field: 223-octet frame, 6-octet header, 4-octet O
 START = "2026-03-14T09:30:00Z"
 
 
-def _profile():
+def _profile(rs: int = 16):
     return profile_from_dict({
         "name": "delivery",
         "link": {"modulation": "bpsk", "symbol_rate": 48_000.0, "line_code": "nrz-m"},
-        "coding": {"convolutional": "1/2", "reed_solomon": 16, "interleave": 1, "randomizer": True},
+        "coding": {"convolutional": "1/2", "reed_solomon": rs, "interleave": 1, "randomizer": True},
         "frames": {"kind": "tm", "length": 223, "fecf": False, "ocf": True, "spacecraft_id": 77},
     })
 
@@ -44,10 +44,23 @@ def _frame_span(packets):
     return out
 
 
-def _decode(tmp_path, bits, name):
+def _decode(tmp_path, bits, name, rs: int = 16):
     path = tmp_path / f"{name}.bits"
     path.write_bytes(np.packbits(bits).tobytes())
-    return decode(path, _profile(), input_kind="bits", start=START)
+    return decode(path, _profile(rs), input_kind="bits", start=START)
+
+
+def test_link_without_rs_or_fecf_delivers_unverified(tmp_path):
+    # neither a Reed-Solomon code nor an FECF: nothing can verify the frames, they and their packets are
+    # delivered all the same, marked "verified": false
+    rng = np.random.default_rng(5)
+    packets = _packets(rng, 100, 40)
+    frames = tx.tm_frames(packets, scid=77, vcid=1, length=223, ocf=True, fecf=False)
+    bits = tx.channel_bits(frames, rs_e=0, interleave=1, randomize=True, conv=True, nrz_m=True)
+    res = _decode(tmp_path, bits, "plain", rs=0)
+    assert [bytes.fromhex(p["hex"]) for p in res.packets_list] == packets
+    assert res.frames_ok == len(frames) and not any(f["verified"] for f in res.frames_list)
+    assert not any(p["verified"] for p in res.packets_list)
 
 
 def test_sixteen_repetitions_give_sixteen_times_the_packets(tmp_path):
