@@ -20,8 +20,8 @@ from dataclasses import asdict, dataclass, field, replace
 from typing import Any
 
 from pipeline.link._accounting import CountTracker, FramePeriod
-from pipeline.packets._time import default_leap_seconds, parse_epoch_ns
-from pipeline.packets._timecodes import cds_pfield_layout, cuc_pfield_layout, decode_time_code
+from pipeline.packets._time import default_leap_seconds
+from pipeline.packets._timecodes import check_time_code_config, decode_time_code
 from pipeline.profile import LinkProfile, TimeCodeConfig
 
 __all__ = ["Packet", "PacketExtractor", "PacketStats", "SequenceGap", "IDLE_APID", "DROP_REASONS"]
@@ -245,36 +245,12 @@ class _Reassembly:
 
 
 def _checked_time_code(tc: TimeCodeConfig) -> TimeCodeConfig:
-    """Validate one ``[[packets.time_code]]`` entry once; an integral float P-field becomes an int.
-
-    (The TOML loader reads ``pfield = 0x1E`` into a field whose default is None as a float.)
-    """
-    where = f"Argument 'profile' [[packets.time_code]] apid {tc.apid}"
-    pfield = tc.pfield
-    if pfield is not None:
-        if isinstance(pfield, float) and pfield.is_integer():
-            pfield = int(pfield)
-        if isinstance(pfield, bool) or not isinstance(pfield, int):
-            raise ValueError(f"{where}: pfield must be an integer P-field or absent, not {tc.pfield!r}.")
-        try:
-            if tc.code == "cuc":
-                octets = pfield.to_bytes(2 if pfield > 0xFF else 1, "big") if 0 <= pfield <= 0xFFFF else b""
-                if not octets:
-                    raise ValueError(f"0x{pfield:x} is not one or two octets")
-                if cuc_pfield_layout(octets)[3] != len(octets):
-                    raise ValueError(f"0x{pfield:x}: the extension flag disagrees with its length")
-            else:
-                if not 0 <= pfield <= 0xFF:
-                    raise ValueError(f"0x{pfield:x} is not one octet")
-                cds_pfield_layout(pfield)
-        except ValueError as exc:
-            raise ValueError(f"{where}: pfield is not a valid {tc.code.upper()} P-field ({exc}).") from None
-    if isinstance(tc.offset, bool) or not isinstance(tc.offset, int) or not 0 <= tc.offset <= 65535:
-        raise ValueError(f"{where}: offset must be 0..65535 octets, not {tc.offset!r}.")
+    """One ``[[packets.time_code]]`` entry checked by the profile's own rule (an integral float P-field
+    becomes an int): :func:`pipeline.packets.check_time_code_config`."""
     try:
-        parse_epoch_ns(tc.epoch)
-    except (TypeError, ValueError) as exc:
-        raise ValueError(f"{where}: {exc}") from None
+        pfield = check_time_code_config(tc.code, tc.pfield, tc.epoch, tc.offset)
+    except ValueError as exc:
+        raise ValueError(f"Argument 'profile' [[packets.time_code]] apid {tc.apid}: {exc}.") from None
     return replace(tc, pfield=pfield)
 
 
