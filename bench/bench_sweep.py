@@ -29,8 +29,9 @@ def viterbi_losses(rates, frames: int, errors: int, workers, seed: int) -> None:
     print(f"{'rate':<5} {'measured 1e-5 (dB)':>19} {'union bound (dB)':>17} {'loss (dB)':>10} {'points':>7} "
           f"{'time (s)':>9}")
     for rate in rates:
-        prof = profile_from_dict({"coding": {"convolutional": rate, "reed_solomon": 0, "interleave": 1,
-                                             "randomizer": True}, "frames": {"length": 1115}}, name=f"viterbi-{rate}")
+        prof = profile_from_dict({"link": {}, "coding": {"convolutional": rate, "reed_solomon": 0, "interleave": 1,
+                                                         "randomizer": True}, "frames": {"length": 1115}},
+                                 name=f"viterbi-{rate}")
         t0 = time.perf_counter()
         pts = sw.sweep(prof, sw.parse_ebn0_spec(_GRIDS[rate]), frames=frames, errors=errors, seed=seed,
                        workers=workers)

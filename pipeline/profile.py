@@ -3,8 +3,10 @@
 A profile is a tree of frozen dataclasses validated once at load time.  Every stage takes the
 parts it needs; nothing downstream re-checks ranges.
 
-The TOML keys follow ../shared/DESIGN.md (``[link]``, ``[coding]``, ``[frames]``) plus the
-optional tables ``[packets]``, ``[receiver]`` and ``[simulate]``.  Attribute names carry units
+The TOML keys follow ../shared/DESIGN.md: the tables ``[link]``, ``[coding]`` and ``[frames]``
+are required (a file without one is refused, never filled in with defaults), ``[packets]``,
+``[receiver]`` and ``[simulate]`` are optional.  The validator's ranges are exactly what the
+stages support, so a profile that loads never makes a stage fail.  Attribute names carry units
 (``symbol_rate_baud``) where the TOML key does not.
 """
 
@@ -26,6 +28,7 @@ from pipeline.errors import ProfileError
 
 __all__ = [
     "CONV_RATES",
+    "REQUIRED_TABLES",
     "ApidTraffic",
     "CodingSection",
     "ConvRate",
@@ -58,6 +61,9 @@ SubcarrierWave = Literal["square", "sine"]
 CONV_RATES: dict[str, float] = {"none": 1.0, "1/2": 0.5, "2/3": 2 / 3, "3/4": 0.75, "5/6": 5 / 6, "7/8": 7 / 8}
 
 _RS_K = {16: 223, 8: 239}
+
+#: Tables every profile file must have.
+REQUIRED_TABLES: tuple[str, ...] = ("link", "coding", "frames")
 
 
 @dataclass(frozen=True)
@@ -93,10 +99,26 @@ class CodingSection:
     reed_solomon: int = 16
     interleave: int = 5
     randomizer: bool = True
+    # None: as CCSDS 131.0-B says (G2 inverted at rate 1/2 only); true/false for equipment that differs
+    convolutional_g2_inverted: bool | None = None
 
     @property
     def conv_rate(self) -> float:
         return CONV_RATES[self.convolutional]
+
+    @property
+    def conv_g2_inverted(self) -> bool | None:
+        """Whether the G2 output of the convolutional code is inverted (None on an uncoded link).
+
+        ``convolutional_g2_inverted`` when the profile sets it, else the standard's rule: inverted
+        for the rate-1/2 code (CCSDS 131.0-B sec. 3.3, "Symbol inversion: On output path of G2"),
+        not for the punctured codes (sec. 3.4; CCSDS 130.1-G sec. 4.3, Fig. 4-2 has no inverter).
+        """
+        if self.convolutional == "none":
+            return None
+        if self.convolutional_g2_inverted is None:
+            return self.convolutional == "1/2"
+        return bool(self.convolutional_g2_inverted)
 
     @property
     def rs_k(self) -> int:
@@ -299,6 +321,9 @@ def profile_from_dict(data: dict, *, source: str = "<dict>", name: str = "profil
     for key in data:
         if key not in known:
             raise ProfileError(f"{source}: unknown table [{key}] (expected one of {', '.join(sorted(known))})")
+    for key in REQUIRED_TABLES:
+        if key not in data:
+            raise ProfileError(f"{source}: missing table [{key}] (a profile needs [link], [coding] and [frames])")
     sections: dict[str, Any] = {}
     for sec_name, cls in (
         ("link", LinkSection),
@@ -418,6 +443,33 @@ def _check(cond: bool, source: str, message: str) -> None:
         raise ProfileError(f"{source}: {message}")
 
 
+def _validate_frames(F: FramesSection, source: str) -> None:
+    """``[frames]``: every range is one the frame parser supports (CCSDS 132.0-B / 732.0-B layouts)."""
+    _choice(F.kind, FrameKind, "[frames] kind", source)
+    tm = F.kind == "tm"
+    max_scid = 0x3FF if tm else 0xFF
+    _check(0 <= F.spacecraft_id <= max_scid, source,
+           f"[frames] spacecraft_id must be 0..{max_scid} for {F.kind.upper()} frames, not {F.spacecraft_id}")
+    _check(0 <= F.secondary_header_length <= 64, source,
+           f"[frames] secondary_header_length must be 0..64, not {F.secondary_header_length}")
+    _check(F.insert_zone_length >= 0, source,
+           f"[frames] insert_zone_length must be 0 or more octets, not {F.insert_zone_length}")
+    if tm:
+        _check(F.insert_zone_length == 0, source, "[frames] insert_zone_length applies to AOS frames, not TM")
+        _check(not F.fhec, source, "[frames] fhec applies to AOS frames, not TM")
+        _check(not F.bitstream_vcids, source, "[frames] bitstream_vcids applies to AOS frames, not TM")
+    else:
+        _check(F.secondary_header_length == 0, source,
+               "[frames] secondary_header_length applies to TM frames, not AOS")
+    _check(all(0 <= v <= 63 for v in F.bitstream_vcids), source, "[frames] bitstream_vcids must be 0..63")
+    _check(0 <= F.idle_vcid <= 63, source, f"[frames] idle_vcid must be 0..63, not {F.idle_vcid}")
+    # header (TM 6 + secondary header; AOS 6 + FHEC 2 + insert zone + M_PDU/B_PDU header 2), at least one
+    # octet of data, then the trailer (OCF 4, FECF 2)
+    head = 6 + F.secondary_header_length if tm else 6 + (2 if F.fhec else 0) + F.insert_zone_length + 2
+    min_len = head + 1 + (4 if F.ocf else 0) + (2 if F.fecf else 0)
+    _check(min_len <= F.length <= 65536, source, f"[frames] length must be {min_len}..65536 octets, not {F.length}")
+
+
 def _validate(p: LinkProfile, source: str) -> None:
     L, C, F, R, S = p.link, p.coding, p.frames, p.receiver, p.simulate
     _choice(L.modulation, Modulation, "[link] modulation", source)
@@ -440,16 +492,11 @@ def _validate(p: LinkProfile, source: str) -> None:
     _choice(C.convolutional, ConvRate, "[coding] convolutional", source)
     _check(C.reed_solomon in (0, 8, 16), source, f"[coding] reed_solomon must be 0, 8 or 16, not {C.reed_solomon}")
     _check(1 <= C.interleave <= 8, source, f"[coding] interleave must be 1..8, not {C.interleave}")
-    _choice(F.kind, FrameKind, "[frames] kind", source)
-    max_scid = 0x3FF if F.kind == "tm" else 0xFF
-    _check(0 <= F.spacecraft_id <= max_scid, source,
-           f"[frames] spacecraft_id must be 0..{max_scid} for {F.kind.upper()} frames, not {F.spacecraft_id}")
-    min_len = 6 + (2 if F.fecf else 0) + (4 if F.ocf else 0) + 2 + F.secondary_header_length + F.insert_zone_length
-    _check(min_len < F.length <= 65536, source, f"[frames] length must be {min_len + 1}..65536 octets, not {F.length}")
-    _check(0 <= F.secondary_header_length <= 64, source,
-           f"[frames] secondary_header_length must be 0..64, not {F.secondary_header_length}")
-    _check(all(0 <= v <= 63 for v in F.bitstream_vcids), source, "[frames] bitstream_vcids must be 0..63")
-    _check(0 <= F.idle_vcid <= 63, source, f"[frames] idle_vcid must be 0..63, not {F.idle_vcid}")
+    _check(C.convolutional_g2_inverted is None or isinstance(C.convolutional_g2_inverted, bool), source,
+           f"[coding] convolutional_g2_inverted must be true or false, not {C.convolutional_g2_inverted!r}")
+    _check(C.convolutional_g2_inverted is None or C.convolutional != "none", source,
+           "[coding] convolutional_g2_inverted applies to a convolutional code; convolutional is \"none\"")
+    _validate_frames(F, source)
     if C.reed_solomon:
         k = C.rs_k
         _check(F.length % C.interleave == 0, source,
@@ -471,11 +518,14 @@ def _validate(p: LinkProfile, source: str) -> None:
            f"[link] downlink_frequency_hz must be a frequency > 0 Hz, not {L.downlink_frequency_hz!r}")
     for tc in p.packets.time_codes:
         _choice(tc.code, TimeCodeKind, "[[packets.time_code]] code", source)
-        _check(tc.pfield is None or (isinstance(tc.pfield, int) and 0 <= tc.pfield <= 0xFFFF), source,
-               f"[[packets.time_code]] pfield must be an integer 0..0xFFFF (one or two P-field octets), "
-               f"not {tc.pfield!r}")
-        _check(0 <= tc.offset <= 64, source, f"[[packets.time_code]] offset must be 0..64 octets, not {tc.offset}")
         _check(0 <= tc.apid <= 0x7FE, source, f"[[packets.time_code]] apid must be 0..2046, not {tc.apid}")
+        # the packet extractor's own check of these values (one rule, shared)
+        from pipeline.packets._timecodes import check_time_code_config
+
+        try:
+            check_time_code_config(tc.code, tc.pfield, tc.epoch, tc.offset)
+        except ValueError as exc:
+            raise ProfileError(f"{source}: [[packets.time_code]] apid {tc.apid}: {exc}") from None
     _check(S.sample_rate_hz > 0, source, f"[simulate] sample_rate_hz must be > 0, not {S.sample_rate_hz:g}")
     _check(S.seconds > 0, source, f"[simulate] seconds must be > 0, not {S.seconds:g}")
     _check(S.datatype in ("cf32_le", "ci16_le", "ci8", "cu8"), source,

@@ -36,7 +36,7 @@ def test_missing_profile_is_one_line(tmp_path, capsys):
 
 def test_profile_out_of_range(tmp_path, capsys):
     prof = tmp_path / "p.toml"
-    prof.write_text("[coding]\ninterleave = 9\n")
+    prof.write_text("[link]\n[coding]\ninterleave = 9\n[frames]\n")
     code = main(["simulate", "--profile", str(prof), "--out", str(tmp_path / "o")])
     err = capsys.readouterr().err
     assert code == ExitCode.BAD_INPUT

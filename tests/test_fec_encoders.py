@@ -20,6 +20,7 @@ from pipeline.fec import (
     conv_output_length,
     crc16,
     dual_basis_tables,
+    g2_inverted_default,
     pn_sequence,
     puncture_pattern,
     rs_encode,
@@ -29,8 +30,13 @@ from pipeline.fec import (
 # ---- slow obvious references -------------------------------------------------------------------
 
 
-def ref_conv_encode(bits, rate="1/2"):
-    """Shift register drawn as in 131.0-B Fig. 3-1: [input, D1..D6], taps read from the printed vectors."""
+def ref_conv_encode(bits, rate="1/2", g2_inverted=None):
+    """Shift register drawn as in 131.0-B Fig. 3-1: [input, D1..D6], taps read from the printed vectors.
+
+    G2 inverted at rate 1/2 only: CCSDS 131.0-B sec. 3.3 ("Symbol inversion: On output path of G2");
+    the punctured codes of sec. 3.4 have no inverter (CCSDS 130.1-G sec. 4.3, Fig. 4-2).
+    """
+    invert = (rate == "1/2") if g2_inverted is None else g2_inverted
     g1 = [int(c) for c in "1111001"]  # 171 octal, leftmost = input
     g2 = [int(c) for c in "1011011"]  # 133 octal
     reg = [0] * 7
@@ -39,7 +45,7 @@ def ref_conv_encode(bits, rate="1/2"):
     for k, b in enumerate(bits):
         reg = [int(b)] + reg[:6]
         c1 = sum(r * g for r, g in zip(reg, g1)) % 2
-        c2 = 1 - sum(r * g for r, g in zip(reg, g2)) % 2
+        c2 = (sum(r * g for r, g in zip(reg, g2)) % 2) ^ int(invert)
         col = k % pat.shape[1]
         if pat[0, col]:
             out.append(c1)
@@ -180,6 +186,29 @@ def test_conv_vs_reference(rate, rng):
     bits = rng.integers(0, 2, 301, dtype=np.uint8)
     assert np.array_equal(conv_encode(bits, rate), ref_conv_encode(bits, rate))
     assert conv_encode(bits, rate).shape[0] == conv_output_length(301, rate)
+    for inverted in (False, True):  # the profile override, either way
+        assert np.array_equal(conv_encode(bits, rate, g2_inverted=inverted),
+                              ref_conv_encode(bits, rate, g2_inverted=inverted))
+
+
+@pytest.mark.kat
+def test_g2_inverted_at_rate_half_only():
+    # CCSDS 131.0-B sec. 3.3: "Symbol inversion: On output path of G2" (the rate-1/2 code); sec. 3.4:
+    # the punctured codes use the same generators, and the punctured encoder of CCSDS 130.1-G sec. 4.3,
+    # Fig. 4-2 has no inverter
+    assert g2_inverted_default("1/2") is True
+    for rate in ("2/3", "3/4", "5/6", "7/8"):
+        assert g2_inverted_default(rate) is False
+        # zero input from the zero state: no inverter, so the channel stays at 0
+        assert not conv_encode(np.zeros(8 * 7 * 5, np.uint8), rate).any()
+        # a punctured code is the plain (non-inverted) mother code with the Table 3-2 pattern applied
+        bits = np.random.default_rng(3).integers(0, 2, 210, dtype=np.uint8)
+        mother = conv_encode(bits, "1/2", g2_inverted=False).reshape(-1, 2)
+        pat = puncture_pattern(rate)
+        keep = np.stack([pat[0][np.arange(210) % pat.shape[1]], pat[1][np.arange(210) % pat.shape[1]]], axis=1)
+        assert np.array_equal(conv_encode(bits, rate), mother[keep.astype(bool)])
+    with pytest.raises(TypeError, match="Argument 'g2_inverted' must be True, False or None"):
+        ConvEncoder(rate="3/4", g2_inverted=1)
 
 
 def test_conv_vs_commpy(rng):

@@ -10,7 +10,10 @@ from pipeline.fec import conv_encode, rs_encode
 from pipeline.fec._conv import _G1_MASK, _G2_MASK, _rate_tables
 from pipeline.fec._crc import _TABLE as CRC_TABLE
 from pipeline.fec._rs import _GTAB, B_EXP, B_LOG, CONV_TO_DUAL, DUAL_TO_CONV
-from pipeline.fec._viterbi import _SIGN1, _SIGN2, _new_work
+from pipeline.fec._viterbi import _butterfly_signs, _new_work
+
+# The rate-1/2 code (G2 inverted, CCSDS 131.0-B sec. 3.3); the tests below run its trellis.
+_SIGN1, _SIGN2 = _butterfly_signs(True)
 
 
 def ref_acs(sym, n_steps):
@@ -233,7 +236,8 @@ def test_viterbi_acs_vector_kernel_equals_acs_kernel(rate):
                 streams.append(rng.choice(np.array([-128, -127, 127], np.int8), 2 * n_steps))
             for sym in streams:
                 for start in ("equal", "random", "known"):
-                    work = _new_work()
+                    # punctured rates: no G2 inversion (131.0-B sec. 3.4; 130.1-G Fig. 4-2)
+                    work = _new_work(rate == "1/2")
                     if start == "random":
                         work[:64] = rng.integers(-3000, 3000, 64)
                     elif start == "known":

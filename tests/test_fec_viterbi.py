@@ -23,12 +23,15 @@ def ref_quantize(soft):
     return np.rint(np.clip(soft * scale, np.float32(-127), np.float32(127))).astype(np.float64)
 
 
-def ref_viterbi(soft, rate="1/2"):
+def ref_viterbi(soft, rate="1/2", g2_inverted=None):
     """Textbook Viterbi over the full trellis with float metrics and a full-length survivor memory.
 
     Ties go to the lower-numbered predecessor and the final state is the first best one, as in the
-    decoder.  Depuncturing inserts 0.0 at the punctured positions.
+    decoder.  Depuncturing inserts 0.0 at the punctured positions.  The G2 output is inverted at
+    rate 1/2 only (CCSDS 131.0-B sec. 3.3 and 3.4; 130.1-G sec. 4.3 Fig. 4-2) unless ``g2_inverted``
+    says otherwise.
     """
+    invert = (rate == "1/2") if g2_inverted is None else g2_inverted
     pat = puncture_pattern(rate)
     period = pat.shape[1]
     pairs, i, col = [], 0, 0
@@ -55,7 +58,7 @@ def ref_viterbi(soft, rate="1/2"):
             for b in range(2):
                 reg = (s << 1) | b
                 c1 = bin(reg & 0b1001111).count("1") & 1  # G1 = 171 octal, bit 0 = input
-                c2 = (bin(reg & 0b1101101).count("1") & 1) ^ 1  # G2 = 133 octal, inverted
+                c2 = (bin(reg & 0b1101101).count("1") & 1) ^ int(invert)  # G2 = 133 octal
                 m = pm[s] + (1 - 2 * c1) * y1 + (1 - 2 * c2) * y2
                 if m > new[reg & 63]:
                     new[reg & 63] = m
@@ -110,6 +113,24 @@ def test_equals_reference_on_noisy_input(rate):
     out = viterbi_decode(soft, rate)
     assert np.array_equal(out, ref)
     assert out.size == bits.size
+
+
+@pytest.mark.kat
+@pytest.mark.parametrize("rate", ["1/2", "5/6"])
+def test_either_g2_convention_equals_reference(rate):
+    # the profile override ([coding] convolutional_g2_inverted) against the textbook decoder of the
+    # same convention; decoding with the other convention is wrong (the punctured codes of CCSDS
+    # 131.0-B sec. 3.4 have no G2 inversion, 130.1-G sec. 4.3 Fig. 4-2; rate 1/2 inverts, sec. 3.3)
+    rng = np.random.default_rng(14)
+    bits = rng.integers(0, 2, 150, dtype=np.uint8)
+    for inverted in (False, True):
+        soft = awgn_soft(conv_encode(bits, rate, g2_inverted=inverted), 2.0, rate_value(rate), rng)
+        out = viterbi_decode(soft, rate, g2_inverted=inverted)
+        assert np.array_equal(out, ref_viterbi(ref_quantize(soft), rate, g2_inverted=inverted))
+        clean = 1 - 2 * conv_encode(bits, rate, g2_inverted=inverted).astype(np.float32)
+        assert np.array_equal(viterbi_decode(clean, rate, g2_inverted=inverted, initial_state=0), bits)
+        wrong = viterbi_decode(clean, rate, g2_inverted=not inverted, initial_state=0)
+        assert (wrong != bits).sum() > 10
 
 
 @pytest.mark.kat

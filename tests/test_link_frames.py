@@ -21,7 +21,16 @@ from test_link_builders import (
     tm_zone_length,
 )
 
-from pipeline.link import ChannelAccounting, FrameParser, Gap, count_step, decode_clcw, fhec_check, fhec_parity
+from pipeline.link import (
+    ChannelAccounting,
+    FrameParser,
+    Gap,
+    count_step,
+    decode_clcw,
+    fhec_check,
+    fhec_decode,
+    fhec_parity,
+)
 from pipeline.link._fhec import fhec_generator
 from pipeline.profile import FramesSection
 
@@ -123,7 +132,8 @@ def test_tm_statuses():
     assert r.status == "bad_header" and "first header pointer 54" in r.detail
     assert p.process(decoded(_tm(fhp=53))).status == "ok"
     foreign = tm_frame(TM, vcid=1, mcfc=0, vcfc=0, zone=bytes(54), fhp=0, scid=0x124)
-    assert p.process(decoded(foreign)).status == "foreign_scid"
+    rec = p.process(decoded(foreign))
+    assert rec.status == "foreign_scid" and rec.verified and rec.scid == 0x124  # RS-verified octets: kept
     v1 = bytearray(_tm())
     v1[0] |= 0x40
     assert p.process(decoded(bytes(v1))).status == "bad_header"
@@ -135,9 +145,43 @@ def test_tm_statuses():
     assert short.status == "bad_header" and short.scid is None
     vca = p.process(decoded(_tm(fhp=0x7FF, sync=True)))
     assert vca.status == "ok" and vca.fhp is None and vca.packet_zone is None
-    assert p.counts["idle"] == 1 and p.counts["foreign_scid"] == 1 and p.counts["rs_uncorrectable"] == 1
+    st = p.stats.statuses
+    assert st["idle"] == 1 and st["foreign_scid"] == 1 and st["rs_uncorrectable"] == 1
     p.reset()
-    assert sum(p.counts.values()) == 0
+    assert sum(p.stats.statuses.values()) == 0 and p.stats.verified == 0
+
+
+def test_verified_and_unverified_headers():
+    # issue 13: a frame is verified when its RS decode or its FECF succeeded; a frame that failed its
+    # checks without verified octets carries no header fields at the top level, only under "unverified"
+    p = FrameParser(frames=TM)
+    ok_rs = p.process(decoded(_tm(), rs=(3,)))
+    assert ok_rs.status == "ok" and ok_rs.verified and ok_rs.as_dict()["verified"] is True
+    plain = p.process(decoded(_tm(), rs=()))  # no RS, no FECF: delivered, not verified
+    assert plain.status == "ok" and not plain.verified and plain.scid == 0x123 and plain.unverified is None
+    failed = p.process(decoded(_tm(), status="rs_uncorrectable", rs=(-1,)))
+    assert not failed.verified and failed.scid is None and failed.vcid is None and failed.fhp is None
+    d = failed.as_dict()
+    assert d["scid"] is None and d["mcfc"] is None and d["ocf"] is None and d["clcw"] is None
+    assert d["unverified"]["scid"] == 0x123 and d["unverified"]["vcfc"] == 0x67
+    json.dumps(d)
+    foreign = tm_frame(TM, vcid=1, mcfc=0, vcfc=0, zone=bytes(54), fhp=0, scid=0x124)
+    unv = p.process(decoded(foreign, rs=()))
+    assert unv.status == "foreign_scid" and unv.scid is None and unv.unverified["scid"] == 0x124
+    pf = FrameParser(frames=TM_FECF)
+    fecf_ok = pf.process(decoded(_tm(frames=TM_FECF, vcid=2), rs=()))
+    assert fecf_ok.verified and fecf_ok.fecf_ok
+    bad = bytearray(_tm(frames=TM_FECF, vcid=2))
+    bad[30] ^= 1
+    fecf_bad = pf.process(decoded(bytes(bad), rs=()))
+    assert fecf_bad.status == "fecf_error" and not fecf_bad.verified and fecf_bad.unverified["vcid"] == 2
+    assert p.stats.verified == 1 and p.stats.unverified == 3
+
+    class LdpcFrame:  # an LDPC / turbo decoder's frame: no RS counts, fec_verified set
+        frame, status, rs_corrected, fec_verified = _tm(), "ok", (), True
+        cadu = decoded(b"").cadu
+
+    assert p.process(LdpcFrame()).verified
 
 
 def test_fecf():
@@ -170,13 +214,8 @@ def _gf16_mul_slow(a: int, b: int) -> int:
 @pytest.mark.kat
 def test_fhec_generator_slow_reference():
     # g(x) = (x + a^6)(x + a^7)(x + a^8)(x + a^9), a = x in GF(16) mod x^4 + x + 1 (from memory, not confirmed)
-    alpha = [1]
-    for _ in range(15):
-        alpha.append(_gf16_mul_slow(alpha[-1], 2))
-    g = [1]
-    for k in (6, 7, 8, 9):
-        g = [a ^ _gf16_mul_slow(b, alpha[k]) for a, b in zip(g + [0], [0] + g)]
-    assert tuple(g) == fhec_generator()
+    g = _ref_generator()
+    assert g == fhec_generator()
     # systematic: header nibbles followed by the parity form a multiple of g(x), so the remainder is 0
     hdr = bytes.fromhex("6AEA12345600")
     par = fhec_parity(hdr)
@@ -211,6 +250,139 @@ def test_fhec_detects_every_error_of_up_to_four_symbols(rng):
         assert not fhec_check(h2, (word[6] << 12) | (word[7] << 8) | (word[8] << 4) | word[9])
 
 
+def _fhec_word(hdr6: bytes, fhec: int) -> list[int]:
+    """The ten code symbols: the protected nibbles (octets 0, 1, 5) and the four FHEC nibbles."""
+    return [hdr6[0] >> 4, hdr6[0] & 15, hdr6[1] >> 4, hdr6[1] & 15, hdr6[5] >> 4, hdr6[5] & 15] + \
+        [(fhec >> s) & 15 for s in (12, 8, 4, 0)]
+
+
+def _from_word(word: list[int], hdr6: bytes) -> tuple[bytes, int]:
+    h = bytes([(word[0] << 4) | word[1], (word[2] << 4) | word[3], hdr6[2], hdr6[3], hdr6[4], (word[4] << 4) | word[5]])
+    return h, (word[6] << 12) | (word[7] << 8) | (word[8] << 4) | word[9]
+
+
+@functools.lru_cache(maxsize=1)
+def _ref_generator() -> tuple[int, ...]:
+    """g(x) = (x + a^6)(x + a^7)(x + a^8)(x + a^9) with the slow GF(16) multiply."""
+    alpha = [1]
+    for _ in range(15):
+        alpha.append(_gf16_mul_slow(alpha[-1], 2))
+    g = [1]
+    for k in (6, 7, 8, 9):
+        g = [a ^ _gf16_mul_slow(b, alpha[k]) for a, b in zip(g + [0], [0] + g)]
+    return tuple(g)
+
+
+@functools.cache
+def _ref_parity(info: tuple[int, ...]) -> tuple[int, ...]:
+    """Systematic parity by long division with the slow GF(16) multiply (no tables)."""
+    g = _ref_generator()
+    reg = list(info) + [0, 0, 0, 0]
+    for i in range(6):
+        c = reg[i]
+        for j in range(1, 5):
+            reg[i + j] ^= _gf16_mul_slow(c, g[j])
+    return tuple(reg[6:])
+
+
+@functools.lru_cache(maxsize=1)
+def _error_patterns() -> list[list[tuple[int, int]]]:
+    cands = [[]] + [[(p, v)] for p in range(10) for v in range(1, 16)]
+    cands += [[(p, v), (q, w)] for p in range(10) for q in range(p + 1, 10) for v in range(1, 16)
+              for w in range(1, 16)]
+    return cands
+
+
+def _ref_nearest_codewords(word: list[int]) -> list[list[int]]:
+    """Slow reference decoder: every codeword within distance 2 of ``word``, by brute force over the
+    10,275 error patterns of weight 1 and 2 (and weight 0), each checked with the slow encoder."""
+    found = []
+    for pattern in _error_patterns():
+        c = list(word)
+        for pos, val in pattern:
+            c[pos] ^= val
+        if _ref_parity(tuple(c[:6])) == tuple(c[6:]):
+            found.append(c)
+    return found
+
+
+def test_fhec_corrects_up_to_two_nibbles(rng):
+    # RS(10,6) over GF(16) has minimum distance 5: any one or two symbol errors are corrected
+    # (CCSDS 732.0-B sec. 4.1.2.6, code from memory, not confirmed); galois (PyPI) agrees on each
+    gf, rs = _galois_rs()
+    for n_err in (1, 2):
+        for _ in range(150):
+            hdr = bytes(rng.integers(0, 256, 6, dtype=np.uint8))
+            word = _fhec_word(hdr, fhec_parity(hdr))
+            bad = list(word)
+            for pos in rng.choice(10, n_err, replace=False):
+                bad[pos] ^= int(rng.integers(1, 16))
+            h2, f2 = _from_word(bad, hdr)
+            res = fhec_decode(h2, f2)
+            assert res.corrected == n_err and res.header == hdr and res.fhec == fhec_parity(hdr)
+            dec, nerr = rs.decode(gf(bad), errors=True)
+            assert int(nerr) == n_err and [int(v) for v in dec] == word[:6]
+    assert fhec_decode(hdr, fhec_parity(hdr)) == (hdr, fhec_parity(hdr), 0)
+
+
+def test_fhec_uncorrectable_patterns_confirmed_by_brute_force(rng):
+    # words with 3..5 symbol errors: where the brute-force reference finds no codeword within distance 2,
+    # the decoder must say uncorrectable (and galois too); where it finds one, the decoder returns it
+    gf, rs = _galois_rs()
+    seen_uncorrectable = 0
+    for _ in range(10):
+        hdr = bytes(rng.integers(0, 256, 6, dtype=np.uint8))
+        bad = _fhec_word(hdr, fhec_parity(hdr))
+        for pos in rng.choice(10, int(rng.integers(3, 6)), replace=False):
+            bad[pos] ^= int(rng.integers(1, 16))
+        h2, f2 = _from_word(bad, hdr)
+        res = fhec_decode(h2, f2)
+        near = _ref_nearest_codewords(bad)
+        assert len(near) <= 1  # minimum distance 5
+        if near:
+            assert res.corrected in (1, 2) and _fhec_word(res.header, res.fhec) == near[0]
+        else:
+            seen_uncorrectable += 1
+            assert res.corrected == -1 and res.header == h2 and res.fhec == f2
+            assert int(rs.decode(gf(bad), errors=True)[1]) == -1
+    assert seen_uncorrectable >= 6
+
+
+def test_parser_uses_the_fhec_before_any_header_field(rng):
+    p = FrameParser(frames=AOS)
+    good = _aos()
+    for nibbles in ((0,), (1, 4), (2, 5)):  # version/scid, scid and signalling, vcid and signalling
+        bad = bytearray(good)
+        word = _fhec_word(bytes(bad[:6]), (bad[6] << 8) | bad[7])
+        for n in nibbles:
+            word[n] ^= 0x9
+        h, f = _from_word(word, bytes(bad[:6]))
+        bad[:6], bad[6:8] = h, f.to_bytes(2, "big")
+        rec = p.process(decoded(bytes(bad)))
+        assert rec.status == "ok" and rec.fhec_corrected == len(nibbles) and rec.fecf_ok
+        assert (rec.version, rec.scid, rec.vcid, rec.vcfc) == (1, 0xAB, 0x2A, 0x123456)
+        assert rec.as_dict()["fhec_corrected"] == len(nibbles)
+    assert p.stats.fhec_corrected_frames == 3 and p.stats.fhec_corrected_nibbles == 5
+    # three nibbles of the spacecraft id wrong, confirmed uncorrectable: bad_header, not foreign_scid
+    for _ in range(20):
+        bad = bytearray(good)
+        word = _fhec_word(bytes(bad[:6]), (bad[6] << 8) | bad[7])
+        for n in (1, 2, 3):
+            word[n] ^= int(rng.integers(1, 16))
+        if _ref_nearest_codewords(word):
+            continue
+        h, f = _from_word(word, bytes(bad[:6]))
+        bad[:6], bad[6:8] = h, f.to_bytes(2, "big")
+        bad[-2:] = crc16_ref(bytes(bad[:-2])).to_bytes(2, "big")  # only the FHEC can tell
+        rec = p.process(decoded(bytes(bad)))
+        assert rec.status == "bad_header" and "FHEC" in rec.detail and rec.fhec_corrected == -1
+        assert rec.fhec_ok is False and rec.as_dict()["fhec_ok"] is False
+        break
+    else:
+        raise AssertionError("no uncorrectable pattern drawn")
+    assert p.stats.fhec_uncorrectable == 1 and p.stats.statuses["foreign_scid"] == 0
+
+
 def _aos(vcid=0x2A, vcfc=0x123456, fhp=0, frames=AOS, **kw):
     from test_link_builders import aos_primary
 
@@ -238,10 +410,9 @@ def test_aos_statuses():
     assert p.process(decoded(_aos(vcid=63))).status == "idle"  # idle VC 63 (REFERENCES.md sec. 4)
     assert p.process(decoded(_aos(fhp=0x7FE))).status == "idle"
     bad = bytearray(_aos())
-    bad[5] ^= 0x20  # signalling field, protected by the FHEC; fix the FECF so only the FHEC fails
-    bad[-2:] = crc16_ref(bytes(bad[:-2])).to_bytes(2, "big")
+    bad[5] ^= 0x20  # one nibble of the signalling field, protected by the FHEC: corrected, then the FECF holds
     r = p.process(decoded(bytes(bad)))
-    assert r.status == "bad_header" and r.fhec_ok is False
+    assert r.status == "ok" and r.fhec_ok and r.fhec_corrected == 1 and r.fecf_ok and not r.replay_flag
     assert p.process(decoded(_aos(fhp=aos_zone_length(AOS)))).status == "bad_header"
     bpdu = p.process(decoded(_aos(vcid=9, fhp=0x3FFF, bpdu=True)))
     assert bpdu.status == "ok" and bpdu.bdp == 0x3FFF and bpdu.packet_zone is None
@@ -291,14 +462,14 @@ def test_accounting_gaps_wrap_duplicates():
     gaps = []
     seq = [(0, 250, 250), (1, 251, 0), (0, 252, 251), (0, 253, 252), (0, 253, 252),  # duplicate
            (0, 256, 255), (0, 257, 256),  # wrap of both counts; MC lost 254, 255
-           (1, 255, 1)]  # behind on MC: out of order
+           (1, 255, 1)]  # behind on MC: a replay or restart
     for i, (vc, mc, vcc) in enumerate(seq):
         gaps += acc.process(_rec(p, vc, mc, vcc, float(i)))
     assert [(g.kind, g.vcid, g.expected, g.got, g.missing, g.position) for g in gaps] == \
         [("mc", None, 254, 0, 2, 5.0), ("vc", 0, 253, 255, 2, 5.0)]
     d = acc.as_dict()
     json.dumps(d)
-    assert d["mc_duplicates"] == 1 and d["mc_out_of_order"] == 1 and d["mc_gaps"] == 1 and d["mc_missing"] == 2
+    assert d["mc_duplicates"] == 1 and d["mc_backward"] == 1 and d["mc_gaps"] == 1 and d["mc_missing"] == 2
     vc0 = next(v for v in d["virtual_channels"] if v["vcid"] == 0)
     assert vc0["gaps"] == 1 and vc0["missing"] == 2 and vc0["last_count"] == 0
     assert isinstance(gaps[0], Gap) and gaps[0].as_dict()["kind"] == "mc"
@@ -381,7 +552,7 @@ def test_long_outage_uses_frame_period():
         gaps += acc.process(_rec(p, 0, i, i, 1000.0 + i * period))
     assert [(g.kind, g.missing, g.ambiguous) for g in gaps] == [("mc", 300, False), ("vc", 300 % 256, True)]
     d = acc.as_dict()
-    assert d["mc_out_of_order"] == 0 and d["virtual_channels"][0]["out_of_order"] == 0
+    assert d["mc_backward"] == 0 and d["virtual_channels"][0]["backward"] == 0
     # without positions the same counts read as a short gap (the counter limit)
     acc2 = ChannelAccounting()
     g2 = [g for i in list(range(10)) + list(range(310, 316)) for g in acc2.process(_rec(p, 0, i, i, float("nan")))]
@@ -405,3 +576,97 @@ def test_parser_is_stateless_across_batches(rng):
     order = rng.permutation(len(frames))
     again = {int(i): shared.process(decoded(frames[i], position=float(i))) for i in order}
     assert [again[i] for i in range(len(frames))] == one
+
+
+# ---- counters that repeat, restart or replay (issue 13) --------------------------------------
+
+def test_restarting_counters_are_flagged_not_gaps():
+    # a recording of 4 repetitions of a 30-frame pass: the counts restart at every seam.  Nothing is a gap,
+    # the first frame after each seam is "backward" (a restart), every other frame follows its track.
+    p, acc = FrameParser(frames=TM), ChannelAccounting(spacecraft_id=0x123)
+    gaps, flags = [], []
+    for i in range(120):
+        k = i % 30
+        rec = _rec(p, k % 2, k, k // 2, 1000.0 * i)
+        gaps += acc.process(rec)
+        flags.append(rec.count_anomaly)
+    assert gaps == []
+    # the first frame of each virtual channel after a seam
+    assert [i for i, f in enumerate(flags) if f] == [30, 31, 60, 61, 90, 91]
+    assert {f for f in flags if f} == {"backward"}
+    d = acc.as_dict()
+    assert d["mc_backward"] == 3 and d["vc_backward"] == 6 and d["mc_gaps"] == 0
+    assert _rec(p, 0, 0, 0, 0.0).as_dict()["count_anomaly"] is None
+
+
+def test_restart_that_looks_like_a_forward_jump():
+    # 200-frame repetitions with 8-bit counts: 199 -> 0 reads as a jump of 57 counts, but only one frame
+    # period passed, so it is a restart (backward), not 56 missing frames
+    p, acc = FrameParser(frames=TM), ChannelAccounting()
+    gaps = []
+    for i in range(400):
+        k = i % 200
+        rec = _rec(p, 0, k, k, 500.0 * i)
+        gaps += acc.process(rec)
+        assert rec.count_anomaly == ("backward" if i == 200 else None)
+    assert gaps == []
+    # without positions the counts alone cannot tell: that is a gap (the counters' own limit)
+    acc2 = ChannelAccounting()
+    g2 = [g for i in range(201) for g in acc2.process(_rec(p, 0, i % 200, i % 200, float("nan")))]
+    assert [(g.kind, g.missing) for g in g2] == [("mc", 56), ("vc", 56)]
+
+
+def test_replayed_frames_between_newer_ones():
+    # VC 1 plays back its frames 5..9 between newer frames (new master channel counts): the first replayed
+    # frame is behind, the rest follow the replay, the newer stream continues without a gap
+    p, acc = FrameParser(frames=TM), ChannelAccounting()
+    seq = [(i % 2, i // 2) for i in range(30)]  # (vcid, vc count): VC 1 reached 14
+    seq += [(1, 5 + j) for j in range(5)] + [(i % 2, i // 2) for i in range(30, 50)]
+    flags, gaps = [], []
+    for i, (vc, vcc) in enumerate(seq):
+        rec = _rec(p, vc, i, vcc, 10.0 * i)
+        gaps += acc.process(rec)
+        flags.append(rec.count_anomaly)
+    assert gaps == []
+    assert flags[30] == "backward" and flags.count("backward") == 1 and flags.count("duplicate") == 0
+    vc1 = next(v for v in acc.as_dict()["virtual_channels"] if v["vcid"] == 1)
+    assert vc1["backward"] == 1 and vc1["gaps"] == 0 and vc1["frames"] == 30
+
+
+def test_duplicate_frame_is_flagged_and_stream_continues():
+    p, acc = FrameParser(frames=TM), ChannelAccounting()
+    flags = []
+    gaps = []
+    for i, k in enumerate([0, 1, 2, 2, 3, 4]):
+        rec = _rec(p, 0, k, k, 10.0 * i)
+        gaps += acc.process(rec)
+        flags.append(rec.count_anomaly)
+    assert flags == [None, None, None, "duplicate", None, None] and gaps == []
+    assert acc.as_dict()["mc_duplicates"] == 1
+
+
+@pytest.mark.kat
+def test_count_tracker_tracks():
+    from pipeline.link import CountTracker, FramePeriod
+
+    t = CountTracker(modulus=256, max_tracks=2)
+    kinds = [t.step(c).kind for c in (10, 11, 12, 3, 4, 13, 5, 5, 14, 200, 201, 150)]
+    # 3 starts a replay track, 13 continues the first, 5 the replay, 5 again is a duplicate, 200 a third
+    # track (the least recent, the replay at 5, is given up: max_tracks 2); 150 is behind 14 and 201
+    assert kinds == ["first", "next", "next", "backward", "next", "next", "next", "duplicate", "next", "backward",
+                     "next", "backward"]
+    assert [tr.last for tr in t.tracks] == [201, 150]
+    res = t.step(153)
+    assert res.kind == "gap" and res.missing == 2 and res.expected == 151 and t.newest.last == 153
+    # a track silent for half the count range in time is given up
+    period = FramePeriod()
+    for x in (0.0, 1.0, 2.0, 3.0):
+        period.update(x)
+    t2 = CountTracker(modulus=256)
+    t2.step(10, 0.0, period)
+    assert t2.step(50, 1.0, period).kind == "backward"  # 40 counts ahead after one period: a restart
+    assert len(t2.tracks) == 2
+    res = t2.step(51, 200.0, period)
+    assert res.kind == "next" and [tr.last for tr in t2.tracks] == [51] and res.dropped[0].last == 10
+    with pytest.raises(ValueError, match="Argument 'max_tracks' must be 1..64"):
+        CountTracker(modulus=256, max_tracks=0)

@@ -121,7 +121,7 @@ def test_gap_discards_partial_and_resyncs():
     assert g and g[0].apid == 5 and ex.take_sequence_gaps() == []
 
 
-def test_rs_failed_frame_is_a_gap_and_duplicates_are_ignored():
+def test_rs_failed_frame_is_a_gap_and_repeated_frames_are_flagged():
     zl = _zone_len(TM)
     pk = [space_packet(5, i, bytes([i]) * 50) for i in range(10)]
     zones, spans = cut_stream(pk, zl)
@@ -129,9 +129,15 @@ def test_rs_failed_frame_is_a_gap_and_duplicates_are_ignored():
     bad = decoded(b"\x00" * TM.length, position=decs[5].cadu.position, status="rs_uncorrectable")
     feed = decs[:3] + [decs[2], decs[1]] + decs[3:5] + [bad] + decs[6:]
     out, ex = _run(TM, feed)
+    # frame 2 repeated restarts reassembly at its first header pointer (the packet it began is taken from
+    # the copy, once); frame 1 replayed starts a track of its own, whose packets run into frames it never
+    # sees; the stream goes on from frame 3.  Nothing is lost to the counters, nothing made twice.
     assert [p.data for p in out] == [p for p, (a, b, _) in zip(pk, spans) if b < 5 or a > 5]
-    assert ex.stats.frames["duplicate"] == 1 and ex.stats.frames["out_of_order"] == 1
-    assert ex.stats.frames["unusable"] == 1
+    assert ex.stats.frames["duplicate"] == 1 and ex.stats.frames["backward"] == 1
+    assert ex.stats.frames["unusable"] == 1 and ex.stats.dropped["superseded"] == 1
+    # the packet whose first frame is the repeated frame 2 is flagged with that fact
+    assert [p.count_anomaly for p in out] == ["duplicate" if a == 2 else None for _, (a, b, _) in
+                                              zip(pk, spans) if b < 5 or a > 5]
 
 
 def test_gap_argument_forces_resync():
@@ -201,8 +207,12 @@ def test_sequence_count_wrap_and_gaps():
     zones, _ = cut_stream(pk, _zone_len(TM))
     out, ex = _run(TM, _frames_for_vc(TM, 1, zones))
     assert [p.seq_count for p in out] == seqs  # every packet is delivered; the counts are only checked
+    # 4 again: a repeat; 3: behind (its own track); 5 follows the first track's 4
+    assert [p.count_anomaly for p in out] == [None] * 5 + ["duplicate", "backward", None]
     s = ex.stats.as_dict()
-    assert s["sequence_gaps"] == 1 and s["sequence_missing"] == 2 and s["sequence_out_of_order"] == 2
+    assert s["sequence_gaps"] == 1 and s["sequence_missing"] == 2
+    assert s["sequence_duplicates"] == 1 and s["sequence_backward"] == 1
+    assert s["count_anomalies"] == {"duplicate": 1, "backward": 1} and s["copies"] == 0
     assert s["sequence_gap_events"][0] == {"apid": 42, "vcid": 1, "expected": 2, "got": 4, "missing": 2,
                                            "position": 0.0}
 
@@ -254,7 +264,7 @@ def test_argument_errors():
     with pytest.raises(ValueError, match="apid 5: pfield is not a valid CDS P-field"):
         PacketExtractor(profile=bad)
     bad = LinkProfile(frames=TM, packets=PacketsSection(time_codes=(TimeCodeConfig(apid=5, epoch="soon"),)))
-    with pytest.raises(ValueError, match="apid 5: Argument 'epoch'"):
+    with pytest.raises(ValueError, match="apid 5: epoch must be an ISO-8601 date and time, not 'soon'[.]$"):
         PacketExtractor(profile=bad)
 
 
@@ -309,30 +319,34 @@ def test_demo_profile_round_trip(demo_profile):
 
 # ---- property tests -------------------------------------------------------------------------
 
-def _reference_extract(records, scid, modulus_of):
-    """Slow obvious reference: per VC, join the packet zones of each run of accepted consecutive frames
-    into one string and read packets one after another from the run's first header pointer."""
-    out, last, runs = [], {}, {}
+def _reference_extract(records, scid):
+    """Slow obvious reference: assign each usable frame to a count track with pipeline.link.CountTracker
+    (tested on its own in test_link_frames.py), join the packet zones of each run of consecutive counts
+    of a track into one string, and read packets one after another from the run's first header pointer."""
+    from pipeline.link import CountTracker, FramePeriod
+
+    out, trackers, runs, period = [], {}, [], FramePeriod()
     for r in records:
+        period.update(r.position)
         if r.status not in ("ok", "idle") or r.scid != scid or r.vcid is None:
             continue
-        m = modulus_of(r)
-        prev = last.get(r.vcid)
-        d = None if prev is None else (r.vcfc - prev) % m
-        if d is not None and (d == 0 or d > m // 2):
-            continue  # duplicate or from the past
-        last[r.vcid] = r.vcfc
-        if d != 1:
-            _flush_run(runs.pop(r.vcid, None), out)
-            runs[r.vcid] = {"data": bytearray(), "starts": [], "origin": []}
-        run = runs[r.vcid]
+        tr = trackers.get(r.vcid)
+        if tr is None or tr.modulus != r.vcfc_modulus:
+            tr = trackers[r.vcid] = CountTracker(modulus=r.vcfc_modulus, max_tracks=4)
+        res = tr.step(r.vcfc, r.position, period)
+        if res.kind != "next" or res.track.payload is None:
+            res.track.payload = {"data": bytearray(), "starts": [], "origin": []}
+            runs.append(res.track.payload)
+        for t in res.dropped:
+            t.payload = None
+        run = res.track.payload
         if r.status == "idle" or r.packet_zone is None:
             continue
         if r.fhp != 0x7FF:
             run["starts"].append(len(run["data"]) + r.fhp)
         run["origin"].append((len(run["data"]), r))
         run["data"] += r.packet_zone
-    for run in runs.values():
+    for run in runs:
         _flush_run(run, out)
     return out
 
@@ -364,6 +378,7 @@ def _flush_run(run, out):
         if not idle:
             out.append((rec.vcid, pkt, rec.vcfc, rec.position))
         pos += n
+
 
 
 @st.composite
@@ -437,40 +452,30 @@ def _build_and_impair(sc):
     return per_vc, delivered
 
 
-def _expected(per_vc, delivered, modulus):
-    """Ground truth: packets whose frames all arrived good, accepted, in one run of consecutive counts."""
-    accepted = {v: [] for v in per_vc}
-    top = {v: -1 for v in per_vc}
-    for it in delivered:
-        if it["good"] and it["index"] > top[it["vcid"]]:
-            accepted[it["vcid"]].append(it)
-            top[it["vcid"]] = it["index"]
-    exp = {}
+def _surely_whole(per_vc, delivered):
+    """Packets that must come out: those whose frames a..b all arrived good, one after another among the
+    good frames of their virtual channel (whatever else was repeated, replayed or lost around them)."""
+    good = {v: [it for it in delivered if it["good"] and it["vcid"] == v] for v in per_vc}
+    must = {}
     for v, (pk, _zones, spans) in per_vc.items():
-        run_of, pos_of, run = {}, {}, -1
-        prev = None
-        for it in accepted[v]:
-            if prev is None or it["index"] != prev + 1:
-                run += 1
-            run_of[it["index"]] = run
-            pos_of[it["index"]] = it["position"]
-            prev = it["index"]
-        exp[v] = []
+        idx = [it["index"] for it in good[v]]
+        must[v] = []
         for p, (a, b, _) in zip(pk, spans):
             space_idle = p[0] >> 5 == 0 and ((p[0] & 7) << 8 | p[1]) == 0x7FF
             if space_idle or (p[0] >> 5 == 7 and (p[0] >> 2) & 7 == 0):
                 continue
-            if all(k in run_of for k in range(a, b + 1)) and len({run_of[k] for k in range(a, b + 1)}) == 1:
-                exp[v].append((p, pos_of[a]))
-    return exp
+            run = list(range(a, b + 1))
+            if any(idx[j:j + len(run)] == run for j in range(len(idx))):
+                must[v].append(p)
+    return must
 
 
-@given(_scenario())
+@given(_scenario(), st.booleans())
 @settings(max_examples=60, deadline=None)
-def test_property_every_whole_packet_once_none_invented(sc):
+def test_property_every_whole_packet_delivered_none_invented(sc, drop):
     frames = sc["frames"]
     per_vc, delivered = _build_and_impair(sc)
-    parser, ex = FrameParser(frames=frames), PacketExtractor(profile=_profile(frames))
+    parser, ex = FrameParser(frames=frames), PacketExtractor(profile=_profile(frames), drop_duplicates=drop)
     records = [parser.process(decoded(it["frame"], position=it["position"], status=it["status"], rs=it["rs"]))
                for it in delivered]
     for it, r in zip(delivered, records):
@@ -478,14 +483,32 @@ def test_property_every_whole_packet_once_none_invented(sc):
             assert r.status != "ok"  # corruption is never passed on as good
     out = ex.process_many(records)
     ex.flush()
-    exp = _expected(per_vc, delivered, None)
+    must = _surely_whole(per_vc, delivered)
+    position_of = {(it["vcid"], it["index"]): it["position"] for it in delivered}
+    seen = set()
+    for p in out:
+        pk, _, spans = per_vc[p.vcid]
+        starts = [a for q, (a, _, _) in zip(pk, spans) if q == p.data]
+        # nothing invented: a packet that was sent, with the count and position of the frame it began in
+        assert starts, "a packet that was never sent"
+        mod = 256 if frames.kind == "tm" else 1 << 24
+        a = next(a for a in starts if p.vcfc == (a + (0 if frames.kind == "tm" else 16_777_000)) % mod)
+        assert p.position == position_of[(p.vcid, a)] and p.verified  # every frame here is RS-verified
+        key = (p.vcid, p.vcfc, p.data)
+        # a byte-identical copy from the same frame count is flagged (and suppressed with drop_duplicates)
+        assert p.copy == (key in seen) and not (drop and p.copy)
+        if p.copy:
+            assert p.count_anomaly == "duplicate"
+        seen.add(key)
     for v in per_vc:
-        assert [(p.data, p.position) for p in out if p.vcid == v] == exp[v]
-    # the slow reference reads the same packets from the same records
-    modulus_of = (lambda r: 256) if frames.kind == "tm" else (lambda r: r.vcfc_modulus)
-    ref = _reference_extract(records, frames.spacecraft_id, modulus_of)
-    for v in per_vc:
-        assert [(p.vcid, p.data, p.vcfc, p.position) for p in out if p.vcid == v] == [x for x in ref if x[0] == v]
+        got = [p.data for p in out if p.vcid == v]
+        assert all(p in got for p in must[v])
+    # the slow reference reads the same packets from the same records (up to the order of the tracks)
+    ref = _reference_extract(records, frames.spacecraft_id)
+    if not drop:
+        assert sorted((p.vcid, p.data, p.vcfc, p.position) for p in out) == sorted(ref)
+    else:
+        assert sorted({(p.vcid, p.data, p.vcfc, p.position) for p in out}) == sorted(set(ref))
 
 
 @given(_scenario(), st.lists(st.integers(1, 400), max_size=6))
@@ -544,7 +567,7 @@ def test_long_outage_resyncs_instead_of_dropping():
     out, ex = _run(TM, [decs[i] for i in keep])
     want = [p for p, (a, b, _) in zip(pk, spans) if b < 20 or a >= 170]
     assert [p.data for p in out] == want
-    assert ex.stats.frames["out_of_order"] == 0 and ex.stats.frames["gap"] == 1
+    assert ex.stats.frames["backward"] == 0 and ex.stats.frames["gap"] == 1
 
 
 def test_sparse_vc_continues_across_long_intervals():
@@ -564,3 +587,84 @@ def test_sparse_vc_continues_across_long_intervals():
         out += [p for p in ex.process(parser.process(decoded(f, position=100.0 * mc))) if p.vcid == 1]
         mc += 1
     assert [p.data for p in out] == pk
+
+
+# ---- delivery rule (issue 13): counters are facts, verified data is never withheld -------------------
+
+def _pass(frames, vcid, n_packets, seed, pos0=0.0, rs=(1,)):
+    rng = np.random.default_rng(seed)
+    pk = [space_packet(300 + vcid, i, rng.integers(0, 256, int(rng.integers(5, 90)), dtype=np.uint8).tobytes())
+          for i in range(n_packets)]
+    zones, spans = cut_stream(pk, _zone_len(frames))
+    decs = [decoded(tm_frame(frames, vcid=vcid, mcfc=i % 256, vcfc=i % 256, zone=z), position=pos0 + 1000.0 * i,
+                    rs=rs) for i, z in enumerate(zones)]
+    return pk, spans, decs
+
+
+def test_restarting_counters_deliver_every_repetition():
+    # one pass repeated 5 times (frame and packet counters restart at every seam): 5 x the packets, the
+    # repetitions flagged as byte-identical copies from the same frame counts; drop_duplicates keeps one
+    pk, spans, decs = _pass(TM, 2, 40, seed=1)
+    whole = pk  # the last packet ends in the last frame (cut_stream fills it with an idle packet)
+    feed = []  # one continuous recording: the positions go on across the seams
+    for r in range(5):
+        feed += [decoded(d.frame, position=1000.0 * len(decs) * r + d.cadu.position, rs=d.rs_corrected)
+                 for d in decs]
+    out, ex = _run(TM, feed)
+    assert [p.data for p in out] == whole * 5
+    n = len(whole)
+    assert [p.count_anomaly for p in out[:n]] == [None] * n
+    assert all(p.count_anomaly == "duplicate" and p.copy for p in out[n:])
+    assert ex.stats.frames["backward"] == 4 and ex.stats.copies == 4 * n and ex.stats.copies_dropped == 0
+    assert ex.stats.count_anomalies == {"duplicate": 4 * n, "backward": 0}
+    out, ex = _run(TM, feed, drop_duplicates=True)
+    assert [p.data for p in out] == whole and ex.stats.copies_dropped == 4 * n
+
+
+def test_two_different_passes_joined_are_flagged_backward():
+    # a restart with new content: nothing is a copy, so the packets after the seam are "backward" where their
+    # counters went behind (the first frame's count, and each APID's sequence count)
+    pk1, _, decs1 = _pass(TM, 2, 30, seed=1)
+    pk2, _, decs2 = _pass(TM, 2, 30, seed=2, pos0=1000.0 * len(decs1))
+    out, ex = _run(TM, decs1 + decs2)
+    assert [p.data for p in out] == pk1 + pk2
+    second = out[len(pk1):]
+    assert second[0].count_anomaly == "backward" and not any(p.copy for p in out)
+    # APID 302's sequence restarts at 0: its first packet starts a new track, the rest follow it
+    assert [p.count_anomaly for p in second[1:]] == [None] * (len(pk2) - 1)
+    assert ex.stats.sequence_backward == 1 and ex.stats.frames["backward"] == 1 and ex.stats.sequence_gaps == 0
+
+
+def test_replay_between_newer_frames_keeps_the_running_packet():
+    # frames 4..8 of a VC played back between frames 12 and 13: the packet running from 12 into 13 is not
+    # lost; the played-back packets are delivered again, flagged as copies
+    pk, spans, decs = _pass(TM, 1, 60, seed=3)
+    replay = [decoded(d.frame, position=12_500.0 + i, rs=d.rs_corrected) for i, d in enumerate(decs[4:9])]
+    out, ex = _run(TM, decs[:13] + replay + decs[13:])
+    again = [p for p, (a, b, _) in zip(pk, spans) if 4 <= a and b <= 8]  # wholly inside the played-back frames
+    assert [p.data for p in out if not p.copy] == pk
+    assert [p.data for p in out if p.copy] == again and len(again) >= 2
+    assert all(p.count_anomaly == "duplicate" for p in out if p.copy)
+    assert ex.stats.frames["backward"] == 1 and ex.stats.frames["gap"] == 0 and ex.stats.dropped["frame_gap"] == 0
+
+
+def test_verified_flag_follows_the_frames():
+    pk, spans, decs = _pass(TM, 0, 30, seed=4, rs=())  # no RS, no FECF: delivered, not verified
+    out, ex = _run(TM, decs)
+    assert [p.data for p in out] == pk and not any(p.verified for p in out)
+    assert ex.stats.unverified_packets == len(pk) and out[0].as_dict()["verified"] is False
+    # a packet is verified only when every frame it spans was
+    mixed = [decoded(d.frame, position=d.cadu.position, rs=(0,) if i != 3 else ()) for i, d in enumerate(decs)]
+    out, _ = _run(TM, mixed)
+    for p, (a, b, _) in zip(out, spans):
+        assert p.verified == (not a <= 3 <= b)
+
+
+def test_duplicate_window_and_arguments():
+    pk, _, decs = _pass(TM, 0, 10, seed=5)
+    out, ex = _run(TM, decs + [decoded(d.frame, position=1e6 + d.cadu.position) for d in decs], duplicate_window=1)
+    assert ex.stats.copies <= 1  # only the last delivered packet is remembered
+    with pytest.raises(TypeError, match="Argument 'drop_duplicates' must be True or False"):
+        PacketExtractor(profile=_profile(TM), drop_duplicates=1)
+    with pytest.raises(ValueError, match="Argument 'duplicate_window' must be 1..4194304, not 0"):
+        PacketExtractor(profile=_profile(TM), duplicate_window=0)

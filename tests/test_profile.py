@@ -28,9 +28,14 @@ def test_esn0_from_ebn0_follows_design_definition(demo_profile):
     assert qpsk.esn0_from_ebn0(6.0) == pytest.approx(6.0 + 10 * math.log10(2 * rate))
 
 
+def _full(data: dict) -> dict:
+    """``data`` with the required tables present (empty ones where it has none)."""
+    return {"link": {}, "coding": {}, "frames": {}, **data}
+
+
 def test_virtual_fill_from_length():
     # CCSDS 130.1-G-1 Fig. 5-3: I = 5 with Q = 15 fill octets (q = 3 per codeword) -> 8800-bit frame
-    p = profile_from_dict({"coding": {"interleave": 5}, "frames": {"length": 1100}})
+    p = profile_from_dict(_full({"coding": {"interleave": 5}, "frames": {"length": 1100}}))
     assert p.virtual_fill_bytes == 15
     assert 8 * p.frames.length == 8800
     assert 8 * p.codeblock_bytes == 10080
@@ -52,15 +57,98 @@ def test_virtual_fill_from_length():
         ({"extra": {}}, "unknown table [extra]"),
         ({"coding": {"interleave": "5"}}, "interleave must be an integer"),
         ({"coding": {"randomizer": 1}}, "randomizer must be true or false"),
+        # issue 13: the validator's ranges are the frame parser's (an AOS header with FHEC, the M_PDU header
+        # and one data octet need 11 octets; length 9 used to pass and crash the parser)
+        ({"frames": {"kind": "aos", "spacecraft_id": 5, "fhec": True, "length": 9}}, "length must be 11..65536"),
+        ({"frames": {"kind": "aos", "spacecraft_id": 5, "fhec": True, "ocf": True, "fecf": True,
+                     "insert_zone_length": 3, "length": 19}}, "length must be 20..65536 octets, not 19"),
+        ({"frames": {"kind": "aos", "spacecraft_id": 5, "insert_zone_length": -2}},
+         "insert_zone_length must be 0 or more octets, not -2"),
+        ({"frames": {"insert_zone_length": 4}}, "insert_zone_length applies to AOS frames"),
+        ({"frames": {"fhec": True}}, "fhec applies to AOS frames"),
+        ({"frames": {"bitstream_vcids": [3]}}, "bitstream_vcids applies to AOS frames"),
+        ({"frames": {"kind": "aos", "spacecraft_id": 5, "secondary_header_length": 8}},
+         "secondary_header_length applies to TM frames"),
+        ({"frames": {"secondary_header_length": 65}}, "secondary_header_length must be 0..64"),
+        ({"frames": {"length": 6, "reed_solomon": 0}}, "unknown key 'reed_solomon' in [frames]"),
+        # time codes: the packet extractor's own check, at load time (issue 13)
+        ({"packets": {"time_code": [{"apid": 5, "pfield": 0x4E}]}}, "apid 5: pfield is not a valid CUC P-field"),
+        ({"packets": {"time_code": [{"apid": 5, "code": "cds", "pfield": 0x1E}]}},
+         "apid 5: pfield is not a valid CDS P-field"),
+        ({"packets": {"time_code": [{"apid": 5, "pfield": 0x9E}]}}, "announces a second octet that is missing"),
+        ({"packets": {"time_code": [{"apid": 5, "pfield": 0x1E04}]}}, "the extension flag disagrees with its length"),
+        ({"packets": {"time_code": [{"apid": 5, "epoch": "soon"}]}},
+         "apid 5: epoch must be an ISO-8601 date and time, not 'soon'"),
+        ({"packets": {"time_code": [{"apid": 5, "offset": 70000}]}}, "offset must be 0..65535 octets, not 70000"),
     ],
 )
 def test_out_of_range_values_name_the_key(data, fragment):
     with pytest.raises(ProfileError) as info:
-        profile_from_dict(data, source="p.toml")
+        profile_from_dict(_full(data), source="p.toml")
     msg = str(info.value)
     assert msg.startswith("p.toml: ")
     assert fragment in msg
     assert "\n" not in msg
+
+
+def test_convolutional_g2_inverted_key():
+    # default as CCSDS 131.0-B says: G2 inverted at rate 1/2 (sec. 3.3), not on the punctured codes
+    # (sec. 3.4; 130.1-G sec. 4.3, Fig. 4-2); the key overrides it for equipment that differs
+    base = {"link": {}, "frames": {"length": 223}}
+    half = profile_from_dict({**base, "coding": {"convolutional": "1/2", "reed_solomon": 16, "interleave": 1}})
+    assert half.coding.conv_g2_inverted is True
+    for rate in ("2/3", "3/4", "5/6", "7/8"):
+        p = profile_from_dict({**base, "coding": {"convolutional": rate, "reed_solomon": 16, "interleave": 1}})
+        assert p.coding.conv_g2_inverted is False
+        q = profile_from_dict({**base, "coding": {"convolutional": rate, "reed_solomon": 16, "interleave": 1,
+                                                  "convolutional_g2_inverted": True}})
+        assert q.coding.conv_g2_inverted is True
+    off = profile_from_dict({**base, "coding": {"convolutional": "1/2", "reed_solomon": 16, "interleave": 1,
+                                                "convolutional_g2_inverted": False}})
+    assert off.coding.conv_g2_inverted is False
+    with pytest.raises(ProfileError, match="convolutional_g2_inverted must be true or false, not 'yes'"):
+        profile_from_dict({**base, "coding": {"convolutional": "3/4", "convolutional_g2_inverted": "yes"}})
+    with pytest.raises(ProfileError, match="convolutional_g2_inverted applies to a convolutional code"):
+        profile_from_dict({**base, "coding": {"convolutional": "none", "convolutional_g2_inverted": True}})
+
+
+@pytest.mark.parametrize("missing", ["link", "coding", "frames"])
+def test_required_tables(tmp_path, missing):
+    # issue 13: a missing [link], [coding] or [frames] is one clear error, never a silent default
+    data = _full({})
+    del data[missing]
+    with pytest.raises(ProfileError, match=rf"^p.toml: missing table \[{missing}\] \(a profile needs \[link\], "):
+        profile_from_dict(data, source="p.toml")
+    text = demo_profile_path().read_text()
+    start = text.index(f"[{missing}]")
+    end = text.index("\n[", start + 1)
+    path = tmp_path / "cut.toml"
+    path.write_text(text[:start] + text[end:])
+    with pytest.raises(ProfileError, match=rf"cut.toml: missing table \[{missing}\]"):
+        load_profile(path)
+
+
+def test_every_profile_the_validator_accepts_the_stages_accept():
+    # the smallest frames of each layout load, and the frame parser and packet extractor take them
+    from pipeline.link import FrameParser
+    from pipeline.packets import PacketExtractor
+    from pipeline.sync import DecodedFrame
+    from pipeline.sync._types import Cadu
+
+    for frames in ({"kind": "aos", "spacecraft_id": 5, "fhec": True, "length": 11},
+                   {"kind": "aos", "spacecraft_id": 5, "fhec": True, "insert_zone_length": 3, "ocf": True,
+                    "fecf": True, "length": 20},
+                   {"kind": "tm", "length": 7}, {"kind": "tm", "secondary_header_length": 64, "length": 71}):
+        p = profile_from_dict({"link": {}, "coding": {"reed_solomon": 0}, "frames": frames,
+                               "packets": {"time_code": [{"apid": 1, "code": "cds", "pfield": 0x4A,
+                                                          "epoch": "2000-01-01T12:00:00"}]}})
+        parser, ex = FrameParser(frames=p.frames), PacketExtractor(profile=p)
+        for fill in (0x00, 0xFF, 0x5A):
+            data = bytes([fill]) * p.frames.length
+            rec = parser.process(DecodedFrame(frame=data, status="ok", rs_corrected=(),
+                                              cadu=Cadu(data=data, position=0.0, asm_errors=0, inverted=False,
+                                                        flywheel=False, bit_index=0)))
+            ex.process(rec)
 
 
 def test_missing_and_malformed_files(tmp_path):
@@ -78,7 +166,7 @@ def test_time_codes_and_traffic_tables():
     assert p.packets.time_codes[0].pfield == 0x1E
     assert {t.apid for t in p.simulate.traffic} == {100, 200, 300}
     with pytest.raises(ProfileError, match="needs 'apid', 'length' and 'rate_hz'"):
-        profile_from_dict({"simulate": {"traffic": [{"apid": 5}]}})
+        profile_from_dict(_full({"simulate": {"traffic": [{"apid": 5}]}}))
 
 
 # ---- fuzzing (issue 9): any parsed TOML tree gives a profile or one ProfileError, never anything else ----
@@ -96,10 +184,13 @@ _tables = st.dictionaries(_keys, st.one_of(_scalars, st.lists(st.dictionaries(_k
                                                                  max_size=2)), max_size=5)
 _tree = st.dictionaries(st.sampled_from(["link", "coding", "frames", "packets", "receiver", "simulate", "x"]),
                         st.one_of(_tables, _scalars), max_size=4)
+# most trees carry the three required tables, so that the fuzz reaches the value checks
+_full_tree = st.fixed_dictionaries({"link": _tables, "coding": _tables, "frames": _tables}).flatmap(
+    lambda base: _tree.map(lambda extra: {**base, **extra}))
 
 
 @settings(max_examples=300, deadline=None)
-@given(tree=_tree)
+@given(tree=st.one_of(_tree, _full_tree))
 def test_fuzz_profile_tree(tree):
     try:
         prof = profile_from_dict(tree, source="fuzz.toml")

@@ -72,9 +72,19 @@ def test_bad_metadata(tmp_path, profile_path, capsys, meta, fragment):
 
 @pytest.mark.parametrize("text, fragment", [
     ("[link\n", "not valid TOML"),
-    ("[coding]\ninterleave = 9\n", "interleave must be 1..8, not 9"),
-    ("[link]\nsymbol_rate = -5.0\n", "symbol_rate must be > 0"),
-    ("[link]\nmodulation = \"fm\"\n", "modulation must be one of"),
+    ("[link]\n[coding]\ninterleave = 9\n[frames]\n", "interleave must be 1..8, not 9"),
+    ("[link]\nsymbol_rate = -5.0\n[coding]\n[frames]\n", "symbol_rate must be > 0"),
+    ("[link]\nmodulation = \"fm\"\n[coding]\n[frames]\n", "modulation must be one of"),
+    # issue 13: a required table that is missing is one clear error, never a default
+    ("[link]\n[coding]\n", "missing table [frames]"),
+    ("[coding]\n[frames]\n", "missing table [link]"),
+    # issue 13: values the validator accepted and the stages then refused (exit 70 before)
+    ("[link]\n[coding]\n[frames]\nkind = \"aos\"\nspacecraft_id = 9\nfhec = true\nlength = 9\n",
+     "length must be 11..65536 octets, not 9"),
+    ("[link]\n[coding]\n[frames]\n[[packets.time_code]]\napid = 100\npfield = 0x7E\n",
+     "apid 100: pfield is not a valid CUC P-field"),
+    ("[link]\n[coding]\n[frames]\n[[packets.time_code]]\napid = 100\nepoch = \"next year\"\n",
+     "apid 100: epoch must be an ISO-8601 date and time"),
 ])
 def test_bad_profile(tmp_path, capsys, text, fragment):
     prof = tmp_path / "bad.toml"
@@ -198,6 +208,7 @@ def test_same_output_for_any_chunk_size(tmp_path):
 def test_random_bytes_never_crash_or_invent(tmp_path_factory, data, coded):
     tmp = tmp_path_factory.mktemp("fuzz")
     profile = profile_from_dict({
+        "link": {},
         "coding": {"convolutional": "1/2" if coded else "none", "reed_solomon": 16, "interleave": 1},
         "frames": {"length": 223, "spacecraft_id": 77},
     })

@@ -14,10 +14,12 @@ ASM = bytes.fromhex("1ACFFC1D")  # CCSDS 131.0-B-2 sec. 8 / REFERENCES.md sec. 1
 PATTERNS = {"2/3": ("10", "11"), "3/4": ("101", "110"), "5/6": ("10101", "11010"), "7/8": ("1000101", "1111010")}
 
 
-def _profile(*, conv="1/2", rs=16, interleave=5, randomizer=True, length=1115, line="nrz-l") -> LinkProfile:
+def _profile(*, conv="1/2", rs=16, interleave=5, randomizer=True, length=1115, line="nrz-l",
+             g2_inverted=None) -> LinkProfile:
     return LinkProfile().with_changes(
         link={"line_code": line},
-        coding={"convolutional": conv, "reed_solomon": rs, "interleave": interleave, "randomizer": randomizer},
+        coding={"convolutional": conv, "reed_solomon": rs, "interleave": interleave, "randomizer": randomizer,
+                "convolutional_g2_inverted": g2_inverted},
         frames={"length": length},
     )
 
@@ -26,14 +28,18 @@ def _frames(rng, n, length):
     return [rng.integers(0, 256, length, dtype=np.uint8).tobytes() for _ in range(n)]
 
 
-def _ref_conv(bits: np.ndarray) -> np.ndarray:
-    """K=7 r=1/2 (171, 133 octal, G2 inverted, C1 first) as a plain shift register (REFERENCES.md sec. 1.2)."""
+def _ref_conv(bits: np.ndarray, invert: bool = True) -> np.ndarray:
+    """K=7 r=1/2 mother code (171, 133 octal, C1 first) as a plain shift register (REFERENCES.md sec. 1.2).
+
+    ``invert``: the G2 output inverted, as the rate-1/2 code does (CCSDS 131.0-B sec. 3.3); the
+    punctured codes puncture the mother code without it (sec. 3.4; 130.1-G sec. 4.3, Fig. 4-2).
+    """
     reg = [0] * 6
     out = np.empty(2 * bits.size, np.uint8)
     for n, b in enumerate(bits.tolist()):
         r = [b] + reg
         out[2 * n] = (r[0] ^ r[1] ^ r[2] ^ r[3] ^ r[6]) & 1  # G1 = 1111001
-        out[2 * n + 1] = (r[0] ^ r[2] ^ r[3] ^ r[5] ^ r[6] ^ 1) & 1  # G2 = 1011011, inverted
+        out[2 * n + 1] = (r[0] ^ r[2] ^ r[3] ^ r[5] ^ r[6] ^ int(invert)) & 1  # G2 = 1011011
         reg = r[:6]
     return out
 
@@ -107,9 +113,14 @@ def test_punctured_rates_against_reference(rng, rate):
     frames = _frames(rng, 3, 223)
     coder = ChannelCoder(prof)
     out = coder.process(frames)
-    full = _ref_conv(_ref_cadus(frames, 16, 1, True))
+    # no G2 inversion on the punctured codes (CCSDS 131.0-B sec. 3.4; 130.1-G sec. 4.3, Fig. 4-2)
+    full = _ref_conv(_ref_cadus(frames, 16, 1, True), invert=False)
     want = _ref_puncture(full, rate)
     assert np.array_equal(out.bits[:want.size], want)
+    # [coding] convolutional_g2_inverted = true: equipment that inverts before puncturing
+    inv = ChannelCoder(_profile(conv=rate, rs=16, interleave=1, length=223, g2_inverted=True)).process(frames)
+    want_inv = _ref_puncture(_ref_conv(_ref_cadus(frames, 16, 1, True), invert=True), rate)
+    assert np.array_equal(inv.bits[:want_inv.size], want_inv)
     # the index of each ASM's first channel symbol = symbols sent for all earlier CADU bits
     p1, p2 = PATTERNS[rate]
     per_col = [int(a) + int(b) for a, b in zip(p1, p2)]
@@ -129,7 +140,7 @@ def test_nrzm(rng, conv, nrzm_at):
     if conv == "none":
         want = diff(cadus)
     elif nrzm_at == "encoder_input":
-        want = _ref_conv(diff(cadus))  # 131.0-B-2 sec. 3.3.3: conversion at the encoder input
+        want = _ref_conv(diff(cadus), invert=conv == "1/2")  # 131.0-B-2 sec. 3.3.3: conversion at the encoder input
         if conv != "1/2":
             want = _ref_puncture(want, conv)
     else:

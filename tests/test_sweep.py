@@ -16,8 +16,9 @@ from pipeline.tools import _theory as th
 
 
 def _profile(conv="none", rs=0, interleave=1, length=1115, name="t"):
-    return profile_from_dict({"coding": {"convolutional": conv, "reed_solomon": rs, "interleave": interleave,
-                                         "randomizer": True}, "frames": {"length": length}}, name=name)
+    return profile_from_dict({"link": {}, "coding": {"convolutional": conv, "reed_solomon": rs,
+                                                     "interleave": interleave, "randomizer": True},
+                              "frames": {"length": length}}, name=name)
 
 
 @pytest.mark.kat

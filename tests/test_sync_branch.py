@@ -11,9 +11,9 @@ from pipeline.sync import BranchSync, branch_metric
 RATES = {"1/2": 0.5, "2/3": 2 / 3, "3/4": 0.75, "5/6": 5 / 6, "7/8": 7 / 8}
 
 
-def channel(rng, bits, rate, ebn0_db):
+def channel(rng, bits, rate, ebn0_db, g2_inverted=None):
     """BPSK +1 = bit 0 over AWGN at the given Eb/N0 per information bit."""
-    sym = conv_encode(bits, rate)
+    sym = conv_encode(bits, rate, g2_inverted=g2_inverted)
     esn0 = 10 ** ((ebn0_db + 10 * np.log10(RATES[rate])) / 10)
     sigma = np.sqrt(1 / (2 * esn0))
     return ((1.0 - 2.0 * sym) + rng.normal(0, sigma, sym.size)).astype(np.float32)
@@ -107,7 +107,8 @@ def test_kat_clean_rate_half_known_positions():
 def test_against_commpy_viterbi(rng):
     # scikit-commpy (PyPI) decodes the chosen alignment to the same bits.  commpy reads generator octals
     # with the opposite bit order (171 -> 117, 133 -> 155) and has no G2 inversion: undo it on the input.
-    commpy = pytest.importorskip("commpy.channelcoding")
+    import commpy.channelcoding as commpy
+
     bits = rng.integers(0, 2, 1200, dtype=np.uint8)
     soft = channel(rng, bits, "1/2", 3.0)[3:]
     bs = BranchSync(rate="1/2", modulation="bpsk", acquire_bits=512, block_bits=256)
@@ -119,6 +120,23 @@ def test_against_commpy_viterbi(rng):
     ref = commpy.viterbi_decode(-s, tr, tb_depth=64, decoding_type="unquantized")[:1100]
     # commpy starts from the zero state, ours from "any state": compare after the first constraint lengths
     assert np.array_equal(ours[20:1000], ref[20:1000])
+
+
+@pytest.mark.parametrize("rate", ["1/2", "3/4"])
+def test_g2_convention_override(rng, rate):
+    # equipment that inverts G2 before puncturing (or not at rate 1/2), against the standard's rule
+    # (CCSDS 131.0-B sec. 3.3/3.4, 130.1-G sec. 4.3 Fig. 4-2): the override decodes it, the default does not
+    other = rate != "1/2"
+    bits = rng.integers(0, 2, 16000, dtype=np.uint8)
+    soft = channel(rng, bits, rate, 6.0, g2_inverted=other)[3:]
+    pos = np.arange(soft.size, dtype=np.float64)
+    bs = BranchSync(rate=rate, modulation="bpsk", g2_inverted=other)
+    assert bs.g2_inverted is other
+    ber, _, _ = align((run(bs, soft, pos)[0] < 0).astype(np.uint8), bits)
+    assert ber < 1e-3
+    wrong = BranchSync(rate=rate, modulation="bpsk")
+    ber_wrong, _, _ = align((run(wrong, soft, pos)[0] < 0).astype(np.uint8), bits)
+    assert ber_wrong > 0.05
 
 
 # ---- tracking: slips and phase jumps ------------------------------------------------------------------------
@@ -236,26 +254,29 @@ def test_bad_process_arguments():
 
 @pytest.mark.kat
 @pytest.mark.parametrize("rate", ["1/2", "2/3", "7/8"])
-def test_kat_reencode_kernel_matches_fec_encoder(rate):
-    # The monitor's own re-encoder (CCSDS 131.0-B-2 sec. 3.3.1 generators) against pipeline.fec.conv_encode.
+@pytest.mark.parametrize("g2_inverted", [None, False, True])
+def test_kat_reencode_kernel_matches_fec_encoder(rate, g2_inverted):
+    # The monitor's own re-encoder (CCSDS 131.0-B-2 sec. 3.3.1 generators; G2 inverted at rate 1/2 only,
+    # sec. 3.3 and 3.4, 130.1-G sec. 4.3 Fig. 4-2, or as overridden) against pipeline.fec.conv_encode.
     from pipeline.sync import _branchsync as B
     from pipeline.sync import _kernels
 
+    invert = int(rate == "1/2") if g2_inverted is None else int(g2_inverted)
     rng = np.random.default_rng(3)
     pat = puncture_pattern(rate)
     bits = rng.integers(0, 2, 14 * pat.shape[1], dtype=np.uint8)
-    code = conv_encode(bits, rate)
+    code = conv_encode(bits, rate, g2_inverted=g2_inverted)
     soft = (1.0 - 2.0 * code).astype(np.float32) * rng.uniform(0.5, 2.0, code.size).astype(np.float32)
     block = 2 * pat.shape[1]
     metrics = np.zeros(7, np.float64)
     states = np.zeros(7, np.int64)
-    used = _kernels.reencode_metrics(bits, 0, B._G1_MASK, B._G2_MASK, np.ascontiguousarray(pat[0]),
+    used = _kernels.reencode_metrics(bits, 0, B._G1_MASK, B._G2_MASK, invert, np.ascontiguousarray(pat[0]),
                                      np.ascontiguousarray(pat[1]), B._PARITY, soft, block, metrics, states)
     assert used == code.size
     assert np.allclose(metrics, 1.0)
     # one flipped symbol lowers exactly its block's metric
     soft[1] = -soft[1]
-    _kernels.reencode_metrics(bits, 0, B._G1_MASK, B._G2_MASK, np.ascontiguousarray(pat[0]),
+    _kernels.reencode_metrics(bits, 0, B._G1_MASK, B._G2_MASK, invert, np.ascontiguousarray(pat[0]),
                               np.ascontiguousarray(pat[1]), B._PARITY, soft, block, metrics, states)
     assert metrics[0] < 1.0 and np.allclose(metrics[1:], 1.0)
     last = 0

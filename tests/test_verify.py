@@ -10,7 +10,6 @@ from pathlib import Path
 
 import pytest
 
-from pipeline.tools import _verify
 from pipeline.tools._verify import default_vectors_dir, load_cases, run_case, run_verify
 
 REPO = Path(__file__).resolve().parents[1]
@@ -47,14 +46,41 @@ def test_at_least_twenty_cases_each_naming_source_generator_and_seed():
 
 
 @pytest.mark.kat
+@pytest.mark.parametrize("folder", ["vectors", "pipeline/data/vectors"])
+def test_every_source_is_self_contained(folder):
+    # issue 18: the installed copy names no file the user does not have; each case says where its values
+    # come from (a standard and section, a library and version, or what they were computed from)
+    cases = load_cases(REPO / folder)
+    assert cases and not any(c.kind in ("unknown_format", "unreadable") for c in cases)
+    for c in cases:
+        assert len(c.source) > 20 and "REFERENCES" not in c.source and ".md" not in c.source, c.name
+        assert any(k in c.source for k in ("CCSDS", "IERS", "(PyPI)")), c.name
+    for lib in ("reedsolo 1.7.0 (PyPI)", "scikit-commpy 0.8.0 (PyPI)", "crccheck 1.3.1 (PyPI)", "galois 0.4.11"):
+        assert any(lib in c.source for c in cases), lib
+    assert not (REPO / folder / "fec").exists()  # one format, one generator: vectors/fec/ is folded in
+
+
+@pytest.mark.kat
+def test_punctured_vectors_follow_the_standard():
+    # CCSDS 131.0-B sec. 3.3: G2 inverted at rate 1/2 only; sec. 3.4 / 130.1-G sec. 4.3 Fig. 4-2: no inverter
+    cases = [c for c in load_cases(default_vectors_dir()) if c.kind in ("conv_encode", "viterbi_decode")]
+    for c in cases:
+        rate = c.data["params"]["rate"]
+        assert c.data["params"]["g2_inverted"] is (rate == "1/2"), c.name
+        if rate != "1/2":
+            assert "no G2 inversion" in c.source and "Fig. 4-2" in c.source, c.name
+    assert {c.data["params"]["rate"] for c in cases if c.kind == "viterbi_decode"} == {"1/2", "2/3", "3/4", "5/6",
+                                                                                        "7/8"}
+
+
+@pytest.mark.kat
 def test_bundled_copy_matches_checkout():
     # the copy shipped in the package must not drift from vectors/ (vectors/make.py writes both)
     bundled = REPO / "pipeline" / "data" / "vectors"
-    for path in sorted((REPO / "vectors").rglob("*.json")):
-        rel = path.relative_to(REPO / "vectors")
-        if rel.parts[0] == "fec":
-            continue
-        assert (bundled / rel).read_bytes() == path.read_bytes(), rel
+    mine = sorted(p.relative_to(REPO / "vectors") for p in (REPO / "vectors").rglob("*.json"))
+    assert mine == sorted(p.relative_to(bundled) for p in bundled.rglob("*.json"))
+    for rel in mine:
+        assert (bundled / rel).read_bytes() == (REPO / "vectors" / rel).read_bytes(), rel
 
 
 def test_make_py_reproduces_the_files():
@@ -89,7 +115,7 @@ def test_a_wrong_expected_value_fails_with_exit_code_one(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "FAIL" in out and "PASS" in out and "0x29b1, expected 0x29b2" in out
     assert "1 of 2 cases passed, 1 failed" in out
-    assert "REFERENCES.md sec. 10.4" in out  # each case's source is printed
+    assert "CCSDS 132.0-B sec. 4.1.6" in out  # each case's source is printed
 
 
 @pytest.mark.kat
@@ -134,7 +160,6 @@ def test_default_dir_is_checkout_or_bundle():
     installed = Path(pipeline.__file__).parent / "data" / "vectors"
     assert d.is_dir() and d in (REPO / "vectors", REPO / "pipeline" / "data" / "vectors", installed)
     assert len(list(d.rglob("*.json"))) >= 20
-    assert _verify.NOT_AVAILABLE
 
 
 @pytest.mark.kat
@@ -147,19 +172,23 @@ def test_cli_verify_json(tmp_path, capsys):
 
 
 @pytest.mark.kat
-def test_fec_layout_with_sidecar_is_read_and_without_is_a_failure(tmp_path):
-    # the fec engineer's layout: NAME.json with "kind" at the top, NAME.sidecar.json with the source
+def test_a_file_without_source_or_in_another_layout_is_a_failure(tmp_path):
+    # one format: a case must carry kind, expected and its source; anything else fails, nothing is skipped
     folder = tmp_path / "v" / "fec"
     folder.mkdir(parents=True)
-    case = {"kind": "crc16", "cases": [["313233343536373839", 0x29B1], ["", 0xFFFF]]}
-    (folder / "crc_a.json").write_text(json.dumps(case))
-    (folder / "crc_a.sidecar.json").write_text(json.dumps({"generator": "g", "seed": None,
-                                                           "source": "REFERENCES.md sec. 10.4"}))
-    (folder / "crc_b.json").write_text(json.dumps({**case, "cases": [["", 0x1234]]}))
-    (folder / "crc_b.sidecar.json").write_text(json.dumps({"generator": "g", "seed": None, "source": "made up"}))
-    (folder / "crc_c.json").write_text(json.dumps(case))  # no sidecar: no source
+    case = {"kind": "crc16", "input": {"hex": ""}, "expected": {"crc": 65535}}
+    (folder / "no_source.json").write_text(json.dumps(case))
+    (folder / "old_layout.json").write_text(json.dumps({"kind": "crc16", "cases": [["", 0xFFFF]]}))
     results = {c.name: run_case(c) for c in load_cases(tmp_path / "v")}
-    assert set(results) == {"crc_a", "crc_b", "crc_c"}
-    assert results["crc_a"].passed and results["crc_a"].stage == "fec"
-    assert not results["crc_b"].passed and "expected 0x1234" in results["crc_b"].detail
-    assert not results["crc_c"].passed
+    assert set(results) == {"no_source", "old_layout"}
+    assert not any(r.passed for r in results.values())
+    assert "not a vector case" in results["no_source"].detail
+
+
+@pytest.mark.kat
+def test_a_case_whose_stage_is_missing_fails(tmp_path, monkeypatch):
+    # the runner does not turn an import that fails into a skip
+    path = _copy_case(tmp_path, "crc16_empty")
+    monkeypatch.setitem(__import__("sys").modules, "pipeline.fec", None)
+    (res,) = [run_case(c) for c in load_cases(path.parent.parent)]
+    assert not res.passed and res.detail.startswith(("ImportError", "ModuleNotFoundError")), res.detail

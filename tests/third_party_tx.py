@@ -8,14 +8,19 @@ cannot share one mistake (issue 5):
   dual-basis conversion tables printed there (CCSDS 131.0-B-2 p. 4-6 matrices, tables computed).
 - Randomizer from the LFSR definition h(x) = x^8 + x^7 + x^5 + x^3 + 1, all-ones seed
   (CCSDS 131.0-B-2 sec. 9 / REFERENCES.md sec. 1.4), written here bit by bit.
-- Convolutional code K = 7, G1 = 171, G2 = 133 (octal), G2 inverted, C1 first
-  (CCSDS 131.0-B-2 sec. 3.3), written here as a plain shift register.
+- Convolutional code K = 7, G1 = 171, G2 = 133 (octal), C1 first (CCSDS 131.0-B-2 sec. 3.3), written
+  here as a plain shift register; G2 inverted for the rate-1/2 code only ("Symbol inversion: On output
+  path of G2", sec. 3.3).  The punctured codes (2/3, 3/4, 5/6, 7/8; sec. 3.4, Table 3-2 patterns) puncture
+  the same register's outputs with no inversion: the punctured encoder of CCSDS 130.1-G sec. 4.3,
+  Fig. 4-2, has no inverter.
 - CRC-16 FECF from ``crccheck`` (PyPI, CRC-16/IBM-3740 = CCSDS 132.0-B sec. 4.1.6).
 - TM frame and space packet headers from the bit layouts in REFERENCES.md sec. 3 and sec. 5
   (from memory, not confirmed there; cross-checked against the worked examples).
 """
 
 from __future__ import annotations
+
+import functools
 
 import numpy as np
 
@@ -60,6 +65,7 @@ TAL_INV = bytes.fromhex(
 assert all(TAL_INV[TAL[x]] == x for x in range(256))
 
 
+@functools.cache
 def pn_bytes(n: int) -> bytes:
     """CCSDS TM pseudo-randomizer, h(x) = x^8+x^7+x^5+x^3+1, all-ones seed, MSB first."""
     a = [1] * 8
@@ -79,6 +85,7 @@ def pn_bytes(n: int) -> bytes:
     return bytes(out)
 
 
+@functools.lru_cache(maxsize=4096)
 def rs_codeblock(frame: bytes, e: int, interleave: int) -> bytes:
     """Frame + interleaved RS parity (dual basis), with virtual fill if the frame is short."""
     import reedsolo
@@ -101,23 +108,51 @@ def rs_codeblock(frame: bytes, e: int, interleave: int) -> bytes:
     return bytes(out)
 
 
-def conv_encode_r12(bits: np.ndarray, state: int = 0) -> tuple[np.ndarray, int]:
-    """K=7 r=1/2, G1=171, G2=133 octal with G2 inverted, C1 first; state = last 6 input bits."""
-    g1 = [1, 1, 1, 1, 0, 0, 1]
-    g2 = [1, 0, 1, 1, 0, 1, 1]
-    reg = [(state >> (5 - i)) & 1 for i in range(6)]  # D1..D6, D1 the newest
-    out = np.empty(2 * len(bits), dtype=np.uint8)
-    for n, b in enumerate(bits):
-        r = [int(b)] + reg
-        c1 = sum(x & g for x, g in zip(r, g1)) & 1
-        c2 = (sum(x & g for x, g in zip(r, g2)) & 1) ^ 1
-        out[2 * n] = c1
-        out[2 * n + 1] = c2
-        reg = r[:6]
-    new_state = 0
-    for x in reg:
-        new_state = (new_state << 1) | x
+def conv_encode_r12(bits: np.ndarray, state: int = 0, invert_g2: bool = True) -> tuple[np.ndarray, int]:
+    """K=7 r=1/2, G1=171, G2=133 octal, C1 first; G2 inverted unless ``invert_g2`` is False.
+
+    ``state`` = the last 6 input bits before ``bits`` (bit 5 the newest).  Each output is the
+    modulo-2 convolution of the input with the generator's taps (tap 0 = the current input bit), as
+    the shift register of CCSDS 131.0-B Fig. 3-1 computes it.
+    """
+    g1 = np.array([1, 1, 1, 1, 0, 0, 1])
+    g2 = np.array([1, 0, 1, 1, 0, 1, 1])
+    prior = [(state >> k) & 1 for k in range(6)]  # oldest first
+    x = np.concatenate([np.array(prior, dtype=np.int64), np.asarray(bits, dtype=np.int64)])
+    n = len(bits)
+    out = np.empty(2 * n, dtype=np.uint8)
+    out[0::2] = (np.convolve(x, g1)[6:6 + n] & 1).astype(np.uint8)
+    out[1::2] = ((np.convolve(x, g2)[6:6 + n] & 1) ^ int(invert_g2)).astype(np.uint8)
+    new_state = sum(int(b) << k for k, b in enumerate(x[-6:]))
     return out, new_state
+
+
+# CCSDS 131.0-B sec. 3.4, Table 3-2: per rate the C1 row and the C2 row of the puncturing matrix
+# (1 = sent); the symbols of one column go out C1 first.  7/8 is 1000101 / 1111010 (not the
+# 1010101 / 1101010 pair some general references print).
+PUNCTURING = {"2/3": ("10", "11"), "3/4": ("101", "110"), "5/6": ("10101", "11010"),
+              "7/8": ("1000101", "1111010")}
+
+
+def conv_encode(bits: np.ndarray, rate: str, g2_inverted: bool | None = None) -> np.ndarray:
+    """CCSDS convolutional code of ``rate`` from the zero state.
+
+    G2 inverted at rate 1/2 only (131.0-B sec. 3.3 and 3.4; 130.1-G Fig. 4-2), unless ``g2_inverted``
+    says otherwise (equipment that differs).
+    """
+    invert = (rate == "1/2") if g2_inverted is None else bool(g2_inverted)
+    mother, _ = conv_encode_r12(bits, 0, invert)
+    if rate == "1/2":
+        return mother
+    c1_row, c2_row = PUNCTURING[rate]
+    out = []
+    for k in range(len(bits)):
+        col = k % len(c1_row)
+        if c1_row[col] == "1":
+            out.append(mother[2 * k])
+        if c2_row[col] == "1":
+            out.append(mother[2 * k + 1])
+    return np.array(out, dtype=np.uint8)
 
 
 def crc16(data: bytes) -> int:
@@ -180,9 +215,12 @@ def tm_frames(packets: list[bytes], *, scid: int, vcid: int, length: int, ocf: b
     return frames
 
 
-def channel_bits(frames: list[bytes], *, rs_e: int, interleave: int, randomize: bool, conv: bool,
-                 nrz_m: bool, lead_bits: int = 317, seed: int = 5) -> np.ndarray:
-    """ASM + codeblocks -> (randomized) -> NRZ-M -> convolutional code; random bits before the first ASM."""
+def channel_bits(frames: list[bytes], *, rs_e: int, interleave: int, randomize: bool, conv: bool | str,
+                 nrz_m: bool, lead_bits: int = 317, seed: int = 5, g2_inverted: bool | None = None) -> np.ndarray:
+    """ASM + codeblocks -> (randomized) -> NRZ-M -> convolutional code; random bits before the first ASM.
+
+    ``conv``: False (uncoded), True (rate 1/2) or a rate "1/2" | "2/3" | "3/4" | "5/6" | "7/8".
+    """
     asm = bytes.fromhex("1ACFFC1D")  # CCSDS 131.0-B-2 sec. 8 / REFERENCES.md sec. 1.1
     rng = np.random.default_rng(seed)
     stream = [rng.integers(0, 2, lead_bits, dtype=np.uint8)]
@@ -198,5 +236,5 @@ def channel_bits(frames: list[bytes], *, rs_e: int, interleave: int, randomize: 
         # encoder input (CCSDS 131.0-B-2 sec. 3.3.3)
         bits = (np.cumsum(bits) & 1).astype(np.uint8)
     if conv:
-        bits, _ = conv_encode_r12(bits)
+        bits = conv_encode(bits, "1/2" if conv is True else conv, g2_inverted)
     return bits

@@ -5,23 +5,27 @@ Run from the repository root::
     python vectors/make.py            # writes vectors/<kind>/ and the bundled copy pipeline/data/vectors/<kind>/
     python vectors/make.py --check    # regenerate in memory and compare with the files on disk
 
-Nothing here imports ``pipeline``: the vectors are an independent check of it.  The references are
+This is the one generator and the one format of the project's vectors.  Nothing here imports
+``pipeline``: the vectors are an independent check of it.  The references are
 
-* ../shared/REFERENCES.md hand tables and worked examples (randomizer first 40 bits and table,
-  RS parities, encoded ASM, CRC check values, TM/AOS/space-packet headers, CUC/CDS examples);
-* ``reedsolo`` (PyPI) for Reed-Solomon parity, configured for CCSDS as in REFERENCES.md sec. 10.2,
-  with the dual-basis tables printed there;
-* ``scikit-commpy`` (PyPI) for the K=7 mother code; the CCSDS puncturing table of REFERENCES.md
-  sec. 1.2 is applied here;
+* the CCSDS books' values as collected in ../shared/REFERENCES.md (randomizer first 40 bits,
+  dual-basis matrices, puncturing patterns, G2 inversion, marker bit strings, worked examples);
+* ``reedsolo`` (PyPI) for Reed-Solomon parity and decoding, configured for the CCSDS code, with the
+  dual-basis tables computed from the printed matrices;
+* ``scikit-commpy`` (PyPI) for the K=7 mother code; the CCSDS puncturing table is applied here;
 * ``crccheck`` (PyPI) ``Crc16CcittFalse`` for the FECF;
-* the bit layouts of REFERENCES.md secs. 3-6 (from memory there, not confirmed) for frames,
-  CLCW, packets and time codes.
+* the frame, CLCW, packet and time-code bit layouts (from memory in REFERENCES.md, not confirmed).
 
 Format: one case per ``.json`` file, parameters in its name.  Fields: ``name``, ``stage`` (the
 pipeline stage under test), ``kind`` (what the runner calls), ``params``, ``input``, ``expected``,
 ``source``, ``generator`` (this script), ``seed`` (null when not random), ``kat`` (small enough
 for plain-Python kernels).  Bytes are hex strings.  Arrays too large for JSON sit in a ``.npz``
 of the same stem (``data_file``), read with ``allow_pickle=False``.
+
+``source`` is self-contained text (issue 18): the standard and its section, the library and the
+version the value was computed with, or "computed from ..." with what it was computed from.  It
+never names a file the user of an installed package does not have; :func:`render` refuses one
+that does.
 """
 
 from __future__ import annotations
@@ -39,6 +43,29 @@ import numpy as np
 GENERATOR = "vectors/make.py"
 ROOT = Path(__file__).resolve().parent
 BUNDLED = ROOT.parent / "pipeline" / "data" / "vectors"
+
+# The reference libraries (PyPI) the vectors were computed with; their versions are written into the
+# sources, and writing new vectors with other versions installed is refused (update these first).
+LIBRARIES = {"reedsolo": "1.7.0", "scikit-commpy": "0.8.0", "crccheck": "1.3.1", "galois": "0.4.11"}
+REEDSOLO = f"reedsolo {LIBRARIES['reedsolo']} (PyPI)"
+COMMPY = f"scikit-commpy {LIBRARIES['scikit-commpy']} (PyPI)"
+CRCCHECK = f"crccheck {LIBRARIES['crccheck']} (PyPI) Crc16CcittFalse"
+
+# Source texts used by several cases.
+SRC_RS_CODE = ("the CCSDS Reed-Solomon code of CCSDS 131.0-B-2 sec. 4.3 (field polynomial x^8+x^7+x^2+x+1, "
+               "generator roots alpha^(11 j), j = 128-E .. 127+E) in the dual basis of sec. 4.3.9 (the two "
+               "matrices printed on p. 4-6)")
+SRC_RS = f"computed with {REEDSOLO} for {SRC_RS_CODE}"
+SRC_PN = ("the TM pseudo-randomizer of CCSDS 131.0-B-2 sec. 9: h(x) = x^8+x^7+x^5+x^3+1, all-ones seed, "
+          "restarted at every ASM; its first 40 bits as printed in CCSDS 130.1-G-1 sec. 8.2")
+SRC_CRC = ("the FECF of CCSDS 132.0-B sec. 4.1.6: G(X) = X^16+X^12+X^5+1, register preset to all ones "
+           "(the catalogue CRC-16/IBM-3740, check value 0x29B1 for '123456789')")
+SRC_CONV_HALF = ("the rate-1/2 code of CCSDS 131.0-B-2 sec. 3.3: K = 7, G1 = 171, G2 = 133 octal, "
+                 "C1 first, G2 output inverted (sec. 3.3.1(5): \"Symbol inversion: On output path of G2\")")
+SRC_CONV_PUNCT = ("the punctured codes of CCSDS 131.0-B sec. 3.4: the same G1 = 171, G2 = 133 octal mother "
+                  "code with no G2 inversion (the punctured encoder of CCSDS 130.1-G sec. 4.3, Fig. 4-2, has "
+                  "no inverter), punctured with the sec. 3.4 Table 3-2 pattern, C1 first in each column")
+SRC_LAYOUT = "bit layouts from memory, not confirmed against the Blue Book"
 
 # ---- outside references ----------------------------------------------------------------------
 
@@ -131,15 +158,22 @@ def _commpy_trellis():
     return Trellis(np.array([6]), np.array([[0o117, 0o155]]))
 
 
+def g2_inverted(rate: str) -> bool:
+    """CCSDS 131.0-B: the G2 output is inverted for the rate-1/2 code (sec. 3.3.1(5)) and not for the
+    punctured codes (sec. 3.4; CCSDS 130.1-G sec. 4.3, Fig. 4-2 has no inverter)."""
+    return rate == "1/2"
+
+
 def conv_encode_ref(bits: np.ndarray, rate: str, prior: np.ndarray | None = None) -> np.ndarray:
-    """CCSDS convolutional encoding: commpy mother code, G2 inverted, then the puncturing table."""
+    """CCSDS convolutional encoding: commpy mother code, G2 inverted at rate 1/2, then the puncturing table."""
     from commpy.channelcoding import conv_encode
 
     bits = np.asarray(bits, dtype=np.int64)
     lead = 0 if prior is None else len(prior)
     full = bits if prior is None else np.concatenate([np.asarray(prior, dtype=np.int64), bits])
     out = conv_encode(full, _commpy_trellis(), "cont").astype(np.uint8)[2 * lead:]
-    out[1::2] ^= 1  # CCSDS 131.0-B sec. 3.3.1(5): the G2 output is inverted
+    if g2_inverted(rate):
+        out[1::2] ^= 1
     c1, c2 = PUNCTURE[rate]
     period = len(c1)
     keep = []
@@ -231,45 +265,46 @@ def _case(name, stage, kind, *, params=None, inp=None, expected=None, source, se
 
 def randomizer_cases():
     yield _case("randomizer_first40bits", "fec", "randomizer", inp={"n": 5}, expected={"hex": PN_FIRST40},
-                source="CCSDS 130.1-G-1 sec. 8.2 (first 40 bits printed); REFERENCES.md sec. 1.4")
+                source="CCSDS 130.1-G-1 sec. 8.2 (the first 40 bits of the sequence, as printed there)")
     yield _case("randomizer_period255", "fec", "randomizer", inp={"n": 255},
                 expected={"hex": _PN_PERIOD.hex().upper(), "sha256": PN_SHA256},
-                source="REFERENCES.md sec. 10.1 table (SHA-256 printed there), LFSR h(x)=x^8+x^7+x^5+x^3+1")
+                source=f"computed from {SRC_PN}")
     yield _case("randomizer_n600_wraps", "fec", "randomizer", inp={"n": 600},
                 expected={"hex": (_PN_PERIOD * 3)[:600].hex().upper()},
-                source="REFERENCES.md sec. 1.4 (period 255 bits, restarts never within a block)")
+                source=f"computed from {SRC_PN}; the sequence repeats every 255 octets")
 
 
 def crc_cases(rng):
     for name, data in (("ascii123456789", b"123456789"), ("empty", b""), ("zeros6", bytes(6))):
         yield _case(f"crc16_{name}", "fec", "crc16", inp={"hex": data.hex()},
                     expected={"crc": crc16_ref(data)},
-                    source="REFERENCES.md sec. 10.4 (0x29B1, 0xFFFF, 0x0E10); crccheck Crc16CcittFalse (PyPI)")
+                    source=f"computed with {CRCCHECK} for {SRC_CRC}")
     seed = 4101
     data = np.random.default_rng(seed).integers(0, 256, 1113, dtype=np.uint8).tobytes()
     crc = crc16_ref(data)
     yield _case("crc16_random_len1113", "fec", "crc16", inp={"hex": data.hex()}, expected={"crc": crc},
-                source="crccheck Crc16CcittFalse (PyPI); CCSDS 132.0-B sec. 4.1.6", seed=seed)
+                source=f"computed with {CRCCHECK} for {SRC_CRC}", seed=seed)
     full = data + crc.to_bytes(2, "big")
     yield _case("crc16_residue_len1115", "fec", "crc16", inp={"hex": full.hex()}, expected={"crc": 0},
-                source="REFERENCES.md sec. 10.4 (message + CRC gives residue 0)", seed=seed)
+                source=f"{SRC_CRC}: the syndrome of a frame with its FECF is zero (132.0-B sec. 4.1.6.3); "
+                       f"FECF computed with {CRCCHECK}", seed=seed)
 
 
 def rs_cases():
     yield _case("rs_encode_e16_i1_ramp", "fec", "rs_encode", params={"e": 16, "interleave": 1},
                 inp={"hex": bytes(range(223)).hex()},
                 expected={"parity": "4FFB92DD557EC67F27FB8982CF58F8FD028AD117FCEF6B2793D0418826578651"},
-                source="REFERENCES.md sec. 10.2 check vector (data 00..DE)")
+                source=f"{SRC_RS}; data 00 01 .. DE")
     yield _case("rs_encode_e16_i1_impulse", "fec", "rs_encode", params={"e": 16, "interleave": 1},
                 inp={"hex": (bytes(222) + b"\x01").hex()},
                 expected={"parity": "660827F283411B8B28E61FAD2759C879C85927AD1FE6288B1B4183F227086601"},
-                source="REFERENCES.md sec. 10.2 check vector (222 x 00, 01)")
+                source=f"{SRC_RS}; 222 octets 00, then 01")
     yield _case("rs_encode_e8_i1_ramp", "fec", "rs_encode", params={"e": 8, "interleave": 1},
                 inp={"hex": bytes(range(239)).hex()}, expected={"parity": "9755133F2714A3FBE0101E8F0E0AC1D2"},
-                source="REFERENCES.md sec. 10.2 check vector (data 00..EE)")
+                source=f"{SRC_RS}; data 00 01 .. EE")
     yield _case("rs_encode_e8_i1_impulse", "fec", "rs_encode", params={"e": 8, "interleave": 1},
                 inp={"hex": (bytes(238) + b"\x01").hex()}, expected={"parity": "286D24C56C532D952D536CC5246D2801"},
-                source="REFERENCES.md sec. 10.2 check vector (238 x 00, 01)")
+                source=f"{SRC_RS}; 238 octets 00, then 01")
     for e in (16, 8):
         for interleave in (1, 2, 4, 5, 8):
             for fill in (0, 3 if interleave != 8 else 40):
@@ -281,8 +316,8 @@ def rs_cases():
                 yield _case(f"rs_encode_e{e}_i{interleave}_fill{fill}", "fec", "rs_encode",
                             params={"e": e, "interleave": interleave, "virtual_fill_per_codeword": fill},
                             inp={"hex": frame.hex()}, expected={"parity": block[n:].hex().upper()},
-                            source="reedsolo (PyPI) with REFERENCES.md sec. 10.2 dual-basis tables; "
-                                   "CCSDS 131.0-B sec. 4.3.7 (virtual fill), 4.4.1 (interleaving)", seed=seed)
+                            source=f"{SRC_RS}; virtual fill per CCSDS 131.0-B-2 sec. 4.3.7, symbol "
+                                   "interleaving per sec. 4.4.1", seed=seed)
     # decoding: E symbol errors in every codeword are corrected; E+1 in one codeword is not
     for e, interleave, fill in ((16, 5, 3), (8, 2, 0)):
         seed = 6000 + e + interleave
@@ -299,7 +334,8 @@ def rs_cases():
                     params={"e": e, "interleave": interleave},
                     inp={"hex": bytes(bad).hex()},
                     expected={"ok": True, "hex": frame.hex(), "corrected": [e] * interleave},
-                    source="reedsolo (PyPI) encoder; CCSDS 131.0-B sec. 4.3.1 (E symbols correctable)", seed=seed)
+                    source=f"{SRC_RS}; E symbol errors per codeword are correctable (CCSDS 131.0-B-2 "
+                           "sec. 4.3.1)", seed=seed)
         worse = bytearray(bad)
         c = 0
         hit = {r for r in range(rows) if bad[r * interleave + c] != block[r * interleave + c]}
@@ -317,19 +353,50 @@ def rs_cases():
                     params={"e": e, "interleave": interleave},
                     inp={"hex": bytes(worse).hex()},
                     expected={"ok": False, "failed_codewords": [0]},
-                    source="reedsolo (PyPI) refuses the same codeword (E+1 errors)", seed=seed)
+                    source=f"{SRC_RS}; E+1 symbol errors in codeword 0, which {REEDSOLO} also refuses to "
+                           "decode", seed=seed)
+
+    # decoding with up to E errors per codeword over the range of interleavings and virtual fills
+    for e, interleave, fill, n_err in ((16, 5, 0, 16), (16, 1, 0, 0), (16, 4, 10, 9), (8, 2, 39, 8), (8, 8, 200, 3)):
+        seed = 6100 + 7 * e + 3 * interleave + fill + n_err
+        rng = np.random.default_rng(seed)
+        n = (RS_K[e] - fill) * interleave
+        frame = rng.integers(0, 256, n, dtype=np.uint8).tobytes()
+        block = bytearray(rs_codeblock(frame, e, interleave))
+        rows = len(block) // interleave
+        for c in range(interleave):
+            for r in rng.choice(rows, n_err, replace=False):
+                block[r * interleave + c] ^= int(rng.integers(1, 256))
+        for c in range(interleave):  # reedsolo corrects the same codewords (known answer, not only ours)
+            conv = bytearray(TAL_INV[b] for b in block[c::interleave])
+            assert bytes(TAL[b] for b in _rs_codec(e).decode(conv)[0]) == frame[c::interleave]
+        yield _case(f"rs_decode_e{e}_i{interleave}_fill{fill}_err{n_err}", "fec", "rs_decode",
+                    params={"e": e, "interleave": interleave, "virtual_fill_per_codeword": fill},
+                    inp={"hex": bytes(block).hex()},
+                    expected={"ok": True, "hex": frame.hex(), "corrected": [n_err] * interleave},
+                    source=f"{SRC_RS}; {n_err} symbol errors at random places in each codeword, corrected by "
+                           f"{REEDSOLO} too", seed=seed)
+
+
+def _conv_source(rate: str) -> str:
+    return SRC_CONV_HALF if rate == "1/2" else SRC_CONV_PUNCT + f" (C1 {PUNCTURE[rate][0]}, C2 {PUNCTURE[rate][1]})"
 
 
 def conv_cases():
-    yield _case("conv_encode_asm_r12_zero_state", "fec", "conv_encode", params={"rate": "1/2", "prior_state": 0},
+    asm_src = (f"computed with the {COMMPY} K=7 encoder for {SRC_CONV_HALF}; the last 52 of the 64 symbols are "
+               "the same for every prior state (the invariant part of CCSDS 130.1-G-1 sec. 8.3)")
+    yield _case("conv_encode_asm_r12_zero_state", "fec", "conv_encode",
+                params={"rate": "1/2", "prior_state": 0, "g2_inverted": True},
                 inp={"hex": ASM, "n_bits": 32}, expected={"hex": "56081C971AA73D3E", "n_bits": 64},
-                source="REFERENCES.md sec. 10.3 (encoded ASM); scikit-commpy (PyPI) agrees")
-    yield _case("conv_encode_asm_r12_ones_state", "fec", "conv_encode", params={"rate": "1/2", "prior_state": 63},
+                source=asm_src + "; ASM 1ACFFC1D, all-zero register before it")
+    yield _case("conv_encode_asm_r12_ones_state", "fec", "conv_encode",
+                params={"rate": "1/2", "prior_state": 63, "g2_inverted": True},
                 inp={"hex": ASM, "n_bits": 32}, expected={"hex": "70B81C971AA73D3E", "n_bits": 64},
-                source="REFERENCES.md sec. 10.3 (encoded ASM after an all-ones register)")
-    yield _case("conv_encode_zeros8_r12", "fec", "conv_encode", params={"rate": "1/2", "prior_state": 0},
+                source=asm_src + "; ASM 1ACFFC1D, all-ones register before it")
+    yield _case("conv_encode_zeros8_r12", "fec", "conv_encode",
+                params={"rate": "1/2", "prior_state": 0, "g2_inverted": True},
                 inp={"hex": "00", "n_bits": 8}, expected={"hex": "5555", "n_bits": 16},
-                source="REFERENCES.md sec. 10.3 (8 zero bits encode to 0101...)")
+                source=f"computed from {SRC_CONV_HALF}: zero input gives C1 = 0 and the inverted G2 = 1")
     for rate in PUNCTURE:
         seed = 7000 + int(rate[0]) * 10 + int(rate[2])
         rng = np.random.default_rng(seed)
@@ -337,11 +404,10 @@ def conv_cases():
         bits = rng.integers(0, 2, n, dtype=np.uint8)
         out = conv_encode_ref(bits, rate)
         yield _case(f"conv_encode_r{rate.replace('/', '')}_n{n}", "fec", "conv_encode",
-                    params={"rate": rate, "prior_state": 0},
+                    params={"rate": rate, "prior_state": 0, "g2_inverted": g2_inverted(rate)},
                     inp={"hex": np.packbits(bits).tobytes().hex(), "n_bits": n},
                     expected={"hex": np.packbits(out).tobytes().hex(), "n_bits": int(len(out))},
-                    source="scikit-commpy (PyPI) K=7 mother code; puncturing per CCSDS 131.0-B Table 3-2 "
-                           "(REFERENCES.md sec. 1.2)", seed=seed)
+                    source=f"computed with the {COMMPY} K=7 mother code for {_conv_source(rate)}", seed=seed)
     # Viterbi: noise on the encoded stream of random bits followed by 6 zero tail bits, at an Es/N0 that
     # leaves several hard symbol errors; the seed is the first one for which the maximum-likelihood path
     # (the plain reference decoder below, and commpy's at rate 1/2) is the transmitted one.
@@ -366,13 +432,38 @@ def conv_cases():
             # commpy 'unquantized' maps +1 to bit 1; our soft values have + = bit 0
             dec = viterbi_decode(-rx, _commpy_trellis(), tb_depth=42, decoding_type="unquantized")
             assert np.array_equal(dec[: n - 6].astype(np.uint8), bits[: n - 6]), "commpy disagrees"
+        ml = "a plain Viterbi decoder in vectors/make.py" + (f" and {COMMPY}'s" if rate == "1/2" else "")
         yield _case(f"viterbi_r{rate.replace('/', '')}_esn0_{esn0_db:g}db_n{n}", "fec", "viterbi_decode",
-                    params={"rate": rate, "esn0_db": esn0_db, "hard_symbol_errors": hard_err},
+                    params={"rate": rate, "esn0_db": esn0_db, "hard_symbol_errors": hard_err,
+                            "g2_inverted": g2_inverted(rate)},
                     inp={"soft": [float(v) for v in soft]},
                     expected={"hex": np.packbits(bits).tobytes().hex(), "n_bits": n},
-                    source="computed by vectors/make.py: scikit-commpy (PyPI) encoder, puncturing per REFERENCES.md "
-                           "sec. 1.2, ML path by a plain Viterbi decoder in make.py (and commpy's at rate 1/2)",
-                    seed=seed)
+                    source=f"computed: {COMMPY} encoder for {_conv_source(rate)}; BPSK in Gaussian noise; the "
+                           f"maximum-likelihood path (found by {ml}) is the transmitted one", seed=seed)
+    # int8 soft symbols (+ = bit 0) from a known start state: the decoder's quantised input range
+    for rate, ebn0_db in (("1/2", 5.0), ("3/4", 7.0), ("7/8", 8.0)):
+        num, den = map(int, rate.split("/"))
+        n = 240
+        for seed in range(7700 + 10 * int(rate[2]), 7800 + 10 * int(rate[2])):
+            rng = np.random.default_rng(seed)
+            bits = rng.integers(0, 2, n, dtype=np.uint8)
+            sym = conv_encode_ref(bits, rate)
+            sigma = np.sqrt(1 / (2 * num / den * 10 ** (ebn0_db / 10)))
+            soft = np.clip(np.rint(40 * ((1 - 2 * sym.astype(float)) + sigma * rng.standard_normal(sym.size))),
+                           -127, 127).astype(np.int64)
+            hard_err = int(np.count_nonzero((soft < 0).astype(np.uint8) != sym))
+            if hard_err >= 2 and np.array_equal(_reference_viterbi(soft.astype(float), rate, n), bits):
+                break
+        else:
+            raise SystemExit(f"no seed decodes at rate {rate}")
+        yield _case(f"viterbi_r{rate.replace('/', '')}_int8_ebn0_{ebn0_db:g}db_n{n}", "fec", "viterbi_decode",
+                    params={"rate": rate, "ebn0_db": ebn0_db, "hard_symbol_errors": hard_err, "initial_state": 0,
+                            "g2_inverted": g2_inverted(rate)},
+                    inp={"soft": [int(v) for v in soft]},
+                    expected={"hex": np.packbits(bits).tobytes().hex(), "n_bits": n},
+                    source=f"computed: {COMMPY} encoder for {_conv_source(rate)}; BPSK in Gaussian noise scaled to "
+                           "int8; the maximum-likelihood path from the zero state (a plain Viterbi decoder in "
+                           "vectors/make.py) is the transmitted one", seed=seed)
 
 
 def _reference_viterbi(soft: np.ndarray, rate: str, n_bits: int) -> np.ndarray:
@@ -386,7 +477,7 @@ def _reference_viterbi(soft: np.ndarray, rate: str, n_bits: int) -> np.ndarray:
             if row[k % period] == "1":
                 full[2 * k + branch] = soft[j]
                 j += 1
-    # branch outputs from commpy's own trellis (generators as given to it), then the G2 inversion
+    # branch outputs from commpy's own trellis (generators as given to it), then the G2 inversion (rate 1/2)
     tr = _commpy_trellis()
     metric = {0: (0.0, [])}
     for k in range(n_bits):
@@ -395,7 +486,7 @@ def _reference_viterbi(soft: np.ndarray, rate: str, n_bits: int) -> np.ndarray:
             for u in (0, 1):
                 ns = int(tr.next_state_table[state, u])
                 out = int(tr.output_table[state, u])
-                b1, b2 = (out >> 1) & 1, (out & 1) ^ 1
+                b1, b2 = (out >> 1) & 1, (out & 1) ^ int(g2_inverted(rate))
                 mm = m + full[2 * k] * (1 - 2 * b1) + full[2 * k + 1] * (1 - 2 * b2)
                 if ns not in new or mm > new[ns][0]:
                     new[ns] = (mm, path + [u])
@@ -409,7 +500,9 @@ def sync_cases():
                           "TURBO_ASM_R1_3": "25D5C0CE8990F6C9461BF79C",
                           "TURBO_ASM_R1_4": "034776C7272895B0FCB88938D8D76A4F",
                           "TURBO_ASM_R1_6": "25D5C0CE8990F6C9461BF79CDA2A3F31766F0936B9E40863"},
-                source="CCSDS 131.0-B-2 sec. 8 and Figs. 8-3 to 8-5 (REFERENCES.md sec. 1.1)")
+                source="CCSDS 131.0-B-2 sec. 8: the 32-bit ASM 1ACFFC1D (the hex value from memory, not confirmed "
+                       "in a stored copy of the book; universal practice); the turbo markers as the bit strings of "
+                       "Figs. 8-3 to 8-5 (rate 1/3, 1/4, 1/6), hex computed from them; the inverted ASM computed")
     # frame sync on hard bits: noise bits, then CADUs with a few ASM errors, one stretch inverted
     seed = 8100
     rng = np.random.default_rng(seed)
@@ -439,8 +532,9 @@ def sync_cases():
                 params={"frame_bits": 8 * frame_bytes, "max_errors": 4, "flywheel": 3},
                 inp={"hex": np.packbits(allbits).tobytes().hex(), "n_bits": int(len(allbits))},
                 expected={"cadus": cadus},
-                source="computed by vectors/make.py (ASM per CCSDS 131.0-B sec. 8; inversion = NRZ-L 180 deg "
-                       "ambiguity, sec. 4.3.10)", seed=seed)
+                source="computed by vectors/make.py: random bits with CADUs of the ASM 1ACFFC1D (CCSDS 131.0-B-2 "
+                       "sec. 8) with chosen bit errors, three of them complemented (the NRZ-L 180-degree ambiguity of "
+                       "sec. 4.3.10)", seed=seed)
 
 
 def link_cases():
@@ -455,12 +549,13 @@ def link_cases():
     frame += crc16_ref(frame).to_bytes(2, "big")
     frames = {"kind": "tm", "length": 100, "fecf": True, "ocf": True, "spacecraft_id": 0x123}
     fields = {"scid": 0x123, "vcid": 5, "mcfc": 0x45, "vcfc": 0x67, "fhp": 0, "ocf_flag": True,
-              "version": 0, "secondary_header_flag": False, "sync_flag": False}
+              "version": 0, "sec_header_flag": False, "sync_flag": False}
     clcw_fields = {"vcid": 7, "status_field": 0, "cop_in_effect": 1, "no_rf_available": False,
                    "no_bit_lock": True, "lockout": False, "wait": True, "retransmit": False,
                    "farm_b_counter": 2, "report_value": 0x9C}
-    src = ("REFERENCES.md sec. 3 worked example (header 12 3B 45 67 18 00) and layouts (from memory, not "
-           "confirmed); FECF by crccheck Crc16CcittFalse (PyPI)")
+    src = ("computed by vectors/make.py: TM primary header, CCSDS 132.0-B sec. 4.1.2 (SCID 0x123, VCID 5, OCF, "
+           "MCFC 0x45, VCFC 0x67, FHP 0 give 12 3B 45 67 18 00), CLCW of CCSDS 232.0-B sec. 4.2, " + SRC_LAYOUT +
+           f"; FECF per CCSDS 132.0-B sec. 4.1.6 by {CRCCHECK}")
     yield _case("tm_frame_header_example_fecf_ocf", "link", "tm_frame", params={"frames": frames},
                 inp={"hex": frame.hex()}, expected={"status": "ok", "fields": fields, "clcw": clcw_fields,
                                                      "data_field": body.hex()}, source=src, seed=seed)
@@ -476,7 +571,8 @@ def link_cases():
     idle += crc16_ref(idle).to_bytes(2, "big")
     yield _case("tm_frame_idle_fhp7fe", "link", "tm_frame", params={"frames": frames}, inp={"hex": idle.hex()},
                 expected={"status": "idle", "fields": {"fhp": 0x7FE, "vcid": 7}},
-                source="REFERENCES.md sec. 3 (FHP 11111111110 = only idle data, [GB2] p. 97)", seed=seed)
+                source="CCSDS 130.1-G-2 (only-idle-data frames: first header pointer 11111111110); TM header per "
+                       "CCSDS 132.0-B sec. 4.1.2, " + SRC_LAYOUT, seed=seed)
     # AOS: REFERENCES.md sec. 4 example header, M_PDU header with FHP, no FHEC, no insert zone
     aos = aos_header(scid=0xAB, vcid=0x2A, vcfc=0x123456)
     mpdu = (0x0005).to_bytes(2, "big")
@@ -486,9 +582,79 @@ def link_cases():
                 params={"frames": {"kind": "aos", "length": 120, "fecf": False, "ocf": False, "spacecraft_id": 0xAB}},
                 inp={"hex": aos_frame.hex()},
                 expected={"status": "ok", "fields": {"version": 1, "scid": 0xAB, "vcid": 0x2A, "vcfc": 0x123456,
-                                                      "replay": False, "fhp": 5}},
-                source="REFERENCES.md sec. 4 worked example (6A EA 12 34 56 00); M_PDU layout from memory, "
-                       "not confirmed", seed=seed)
+                                                      "replay_flag": False, "fhp": 5}},
+                source="computed by vectors/make.py: AOS primary header, CCSDS 732.0-B sec. 4.1.2 (SCID 0xAB, "
+                       "VCID 0x2A, VC count 0x123456 give 6A EA 12 34 56 00), M_PDU header with first header "
+                       "pointer 5, " + SRC_LAYOUT, seed=seed)
+    yield from fhec_cases(rng)
+
+
+def fhec_parity_ref(hdr6: bytes) -> int:
+    """FHEC by galois (PyPI): RS(15,11) over GF(16) shortened to (10,6), roots alpha^6..alpha^9."""
+    gf, rs = _galois_fhec()
+    msg = gf([hdr6[0] >> 4, hdr6[0] & 15, hdr6[1] >> 4, hdr6[1] & 15, hdr6[5] >> 4, hdr6[5] & 15])
+    par = [int(v) for v in rs.encode(msg)[6:]]
+    return (par[0] << 12) | (par[1] << 8) | (par[2] << 4) | par[3]
+
+
+def _galois_fhec():
+    import galois
+
+    gf = galois.GF(2**4, irreducible_poly="x^4 + x + 1", compile="python-calculate")
+    return gf, galois.ReedSolomon(15, 11, field=gf, c=6)
+
+
+def fhec_cases(rng):
+    """AOS frames with a frame header error control field: clean, one and two nibbles corrupted (corrected),
+    and three nibbles corrupted where galois finds no codeword within distance 2 (bad_header)."""
+    gf, rs = _galois_fhec()
+    frames = {"kind": "aos", "length": 64, "fecf": True, "ocf": False, "spacecraft_id": 0x5C, "fhec": True}
+    hdr = aos_header(scid=0x5C, vcid=0x11, vcfc=0x00ABCD, replay=True)
+    fhec = fhec_parity_ref(hdr)
+    body = (0x0000).to_bytes(2, "big") + rng.integers(0, 256, 64 - 8 - 2 - 2, dtype=np.uint8).tobytes()
+    good = hdr + fhec.to_bytes(2, "big") + body
+    good += crc16_ref(good).to_bytes(2, "big")
+    src = ("computed by vectors/make.py: the AOS frame header error control of CCSDS 732.0-B sec. 4.1.2.6, a "
+           "Reed-Solomon (10,6) code over GF(16) (field polynomial x^4+x+1, generator roots alpha^6..alpha^9; "
+           "code definition from memory, not confirmed), computed and decoded with galois "
+           f"{LIBRARIES['galois']} (PyPI); FECF per CCSDS 132.0-B sec. 4.1.6 by {CRCCHECK} over the uncorrupted frame")
+    fields = {"version": 1, "scid": 0x5C, "vcid": 0x11, "vcfc": 0x00ABCD, "replay_flag": True, "fhp": 0}
+
+    def word_of(frame: bytes) -> list[int]:
+        return [frame[0] >> 4, frame[0] & 15, frame[1] >> 4, frame[1] & 15, frame[5] >> 4, frame[5] & 15,
+                frame[6] >> 4, frame[6] & 15, frame[7] >> 4, frame[7] & 15]
+
+    def with_word(frame: bytes, w: list[int]) -> bytes:
+        f = bytearray(frame)
+        f[0], f[1], f[5] = (w[0] << 4) | w[1], (w[2] << 4) | w[3], (w[4] << 4) | w[5]
+        f[6], f[7] = (w[6] << 4) | w[7], (w[8] << 4) | w[9]
+        return bytes(f)
+
+    yield _case("aos_fhec_clean", "link", "aos_frame", params={"frames": frames}, inp={"hex": good.hex()},
+                expected={"status": "ok", "fields": {**fields, "fhec_corrected": 0}}, source=src)
+    for name, flips in (("one_nibble", {1: 0x6}), ("two_nibbles", {3: 0x9, 8: 0x4})):
+        w = word_of(good)
+        for pos, v in flips.items():
+            w[pos] ^= v
+        bad = with_word(good, w)
+        dec, n = rs.decode(gf(w), errors=True)
+        assert int(n) == len(flips) and [int(x) for x in dec] == word_of(good)[:6]
+        yield _case(f"aos_fhec_{name}_corrected", "link", "aos_frame", params={"frames": frames},
+                    inp={"hex": bad.hex()},
+                    expected={"status": "ok", "fields": {**fields, "fhec_corrected": len(flips)}},
+                    source=src + f"; nibbles {sorted(flips)} of the ten code symbols corrupted")
+    for seed in range(9400, 9500):
+        r = np.random.default_rng(seed)
+        w = word_of(good)
+        for pos in r.choice(10, 3, replace=False):
+            w[pos] ^= int(r.integers(1, 16))
+        if int(rs.decode(gf(w), errors=True)[1]) == -1:
+            break
+    else:
+        raise SystemExit("no uncorrectable FHEC pattern found")
+    yield _case("aos_fhec_three_nibbles_uncorrectable", "link", "aos_frame", params={"frames": frames},
+                inp={"hex": with_word(good, w).hex()}, expected={"status": "bad_header"},
+                source=src + "; three nibbles corrupted, galois finds no codeword within distance 2", seed=seed)
 
 
 def _packet_stream(rng, specs, t0_unix_s=None):
@@ -572,8 +738,8 @@ def packet_cases():
                 inp={"frames": [f.hex() for f in frames]},
                 expected={"packets": [{"apid": p["apid"], "seq_count": p["seq_count"], "hex": p["hex"]}
                                       for p in pkts]},
-                source="REFERENCES.md sec. 5 packet layout and sec. 3 FHP (from memory, not confirmed); "
-                       "computed by vectors/make.py", seed=seed)
+                source="computed by vectors/make.py: space packets per CCSDS 133.0-B sec. 4.1 cut into TM frames "
+                       "with first header pointers per CCSDS 132.0-B sec. 4.1.2.7 (" + SRC_LAYOUT + ")", seed=seed)
     pkt = space_packet(apid=0x123, seq_count=0x1234, data=bytes(range(10)), sec_hdr=True)
     frames = _tm_frames(pkt, length=40, scid=499, vcid=0, ocf=False, fecf=False, first_header_offsets=[0],
                         extra_idle=0)
@@ -582,27 +748,33 @@ def packet_cases():
                 inp={"frames": [f.hex() for f in frames]},
                 expected={"packets": [{"apid": 0x123, "seq_count": 0x1234, "seq_flags": 3, "hex": pkt.hex()}],
                           "header": "0923D2340009"},
-                source="REFERENCES.md sec. 5 computed example (header 09 23 D2 34 00 09); the rest of the "
-                       "40-octet frame is one idle packet (APID 0x7FF, from memory, not confirmed)")
+                source="computed by vectors/make.py: space packet primary header of CCSDS 133.0-B sec. 4.1.3 "
+                       "(APID 0x123, telemetry, secondary header, unsegmented, count 0x1234, 10 data octets give "
+                       "09 23 D2 34 00 09); the rest of the 40-octet frame is one idle packet (APID 0x7FF); "
+                       + SRC_LAYOUT)
 
 
 def timecode_cases():
     yield _case("cuc_1e_2000_01_01_tai", "packets", "cuc",
                 params={"pfield": 0x1E}, inp={"hex": "4EFFA2000000"},
                 expected={"tai_ns_1958": 1_325_376_000 * 10**9, "octets": 6},
-                source="REFERENCES.md sec. 6 worked example (coarse 0x4EFFA200 = 2000-01-01T00:00:00 TAI)")
+                source="computed: CCSDS 301.0-B sec. 3.2 CUC with the implicit P-field 0x1E (level 1, 1958 TAI "
+                       "epoch, 4 coarse + 2 fine octets; layout from memory, not confirmed); 2000-01-01T00:00:00 TAI "
+                       "is 15340 days = 1325376000 s = 0x4EFFA200 after 1958-01-01")
     yield _case("cuc_explicit_1e_fine_half", "packets", "cuc",
                 params={"pfield": None}, inp={"hex": "1E" + "4EFFA2008000"},
                 expected={"tai_ns_1958": 1_325_376_000 * 10**9 + 500_000_000, "octets": 7},
-                source="REFERENCES.md sec. 6 (P-field 0x1E: level 1, 4 coarse + 2 fine octets; 0x8000 = 0.5 s)")
+                source="computed: CCSDS 301.0-B sec. 3.2 CUC with an explicit P-field 0x1E (level 1, 4 coarse + 2 "
+                       "fine octets; layout from memory, not confirmed); fine 0x8000 = 0.5 s")
     day = 15340
     for name, tfield, utc_s in (("midnight", "3BEC00000000", 0), ("noon", "3BEC02932E00", 43200)):
         # 2000-01-01: TAI - UTC = 32 s (IERS; REFERENCES.md sec. 6 leap-second table, from memory)
         tai = (day * 86400 + utc_s + 32) * 10**9
         yield _case(f"cds_40_2000_01_01_{name}", "packets", "cds", params={"pfield": 0x40},
                     inp={"hex": tfield}, expected={"tai_ns_1958": tai, "octets": 6},
-                    source="REFERENCES.md sec. 6 worked example (day 15340 = 0x3BEC); TAI-UTC = 32 s in 2000 "
-                           "(IERS Bulletin C, from memory, not confirmed)")
+                    source="computed: CCSDS 301.0-B sec. 3.3 CDS with P-field 0x40 (1958 epoch, 16-bit day, no "
+                           "sub-millisecond field; layout from memory, not confirmed); 2000-01-01 is day 15340 = "
+                           "0x3BEC; TAI-UTC = 32 s in 2000 (IERS Bulletin C; from memory, not confirmed)")
 
 
 # ---- whole links: channel bits with the packets they carry ----------------------------------
@@ -725,8 +897,11 @@ def chain_cases():
                     params={"profile": prof, "start": "2026-03-14T09:30:00Z", "channel_bit_errors": flips,
                             "uncorrectable_frame": None if corrupt is None else corrupt[0]},
                     inp={"channel_bits": int(len(chan))}, expected=expected,
-                    source="computed by vectors/make.py: reedsolo (PyPI) RS, scikit-commpy (PyPI) conv code, "
-                           "crccheck (PyPI) FECF, REFERENCES.md secs. 1, 3, 5, 6, 10 layouts and tables",
+                    source=f"computed by vectors/make.py: RS by {REEDSOLO} for {SRC_RS_CODE}; convolutional code by "
+                           f"{COMMPY} (CCSDS 131.0-B sec. 3.3, G2 inverted at rate 1/2 only; sec. 3.4 puncturing); "
+                           f"randomizer of sec. 9; FECF by {CRCCHECK}; frame, packet and CUC layouts of CCSDS "
+                           f"132.0-B, 133.0-B and 301.0-B ({SRC_LAYOUT}); TAI-UTC = 37 s since 2017 (IERS "
+                           "Bulletin C 54)",
                     seed=seed, kat=False, arrays={"channel_bits_packed": np.packbits(chan)})
 
 
@@ -755,8 +930,15 @@ def _npz_bytes(arrays: dict) -> bytes:
 
 
 def render(case: dict) -> dict[str, bytes]:
-    """File name -> content for one case (the .json and, if any, its .npz)."""
+    """File name -> content for one case (the .json and, if any, its .npz).
+
+    Refuses a case whose source is empty or names a file (a user of the installed package has only the
+    vector files themselves).
+    """
     case = dict(case)
+    src = case["source"]
+    if not src or "REFERENCES" in src or ".md" in src:
+        raise SystemExit(f"{case['name']}: the source must be self-contained text, not {src!r}")
     arrays = case.pop("_arrays")
     files = {}
     if arrays:
@@ -766,12 +948,25 @@ def render(case: dict) -> dict[str, bytes]:
     return files
 
 
+def _check_library_versions() -> None:
+    """Writing vectors with other library versions than the sources name is refused."""
+    from importlib.metadata import version
+
+    wrong = {name: version(name) for name, want in LIBRARIES.items() if version(name) != want}
+    if wrong:
+        raise SystemExit(f"installed {wrong} differ from LIBRARIES {LIBRARIES}: the sources would name the wrong "
+                         "versions; check the new versions and update LIBRARIES")
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--check", action="store_true", help="compare with the files on disk instead of writing")
     args = ap.parse_args(argv)
+    if not args.check:
+        _check_library_versions()
     mismatches = 0
     count = 0
+    written = set()
     for folder, case in all_cases():
         count += 1
         for fname, content in render(case).items():
@@ -786,18 +981,19 @@ def main(argv=None) -> int:
                 else:
                     path.parent.mkdir(parents=True, exist_ok=True)
                     path.write_bytes(content)
-    # the fec engineer's vectors (vectors/fec/, not made here) are shipped in the bundle as they are
-    for src in sorted((ROOT / "fec").rglob("*")) if (ROOT / "fec").is_dir() else ():
-        if not src.is_file() or src.name.startswith(".") or src.suffix not in (".json", ".npz"):
-            continue
-        dst = BUNDLED / src.relative_to(ROOT)
-        if args.check:
-            if not dst.exists() or dst.read_bytes() != src.read_bytes():
-                print(f"differs: {dst.relative_to(ROOT.parent)}")
-                mismatches += 1
-        else:
-            dst.parent.mkdir(parents=True, exist_ok=True)
-            dst.write_bytes(src.read_bytes())
+                written.add(path)
+    # a file no case makes any more is stale (a renamed or removed case): reported, or removed when writing
+    for base in (ROOT, BUNDLED):
+        for path in sorted(base.rglob("*")):
+            if path.suffix in (".json", ".npz") and path.is_file() and path not in written:
+                if args.check:
+                    print(f"not made by vectors/make.py: {path.relative_to(ROOT.parent)}")
+                    mismatches += 1
+                else:
+                    path.unlink()
+        for folder in sorted((d for d in base.rglob("*") if d.is_dir()), reverse=True):
+            if not any(folder.iterdir()):
+                folder.rmdir()  # a kind no case has any more
     print(f"{count} cases {'checked' if args.check else 'written'} to vectors/ and pipeline/data/vectors/")
     return 1 if mismatches else 0
 

@@ -13,6 +13,7 @@ from pipeline.fec._conv import (
     conv_bit_symbol_index,
     conv_encode,
     conv_output_length,
+    g2_inverted_default,
     puncture_pattern,
 )
 from pipeline.fec._crc import crc16
@@ -51,6 +52,7 @@ __all__ = [
     "conv_encode",
     "conv_bit_symbol_index",
     "conv_output_length",
+    "g2_inverted_default",
     "puncture_pattern",
     "crc16",
     "ASM",

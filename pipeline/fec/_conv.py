@@ -1,4 +1,11 @@
-"""CCSDS 131.0-B convolutional code (K=7, r=1/2, G1=171, G2=133 octal, G2 inverted) and its punctured rates."""
+"""CCSDS 131.0-B convolutional code (K=7, G1=171, G2=133 octal) and its punctured rates.
+
+G2 inversion: the rate-1/2 code inverts the G2 output (131.0-B sec. 3.3: "Symbol inversion: On
+output path of G2"); the punctured codes of sec. 3.4 (2/3, 3/4, 5/6, 7/8) use the same two
+generators without inversion (the punctured encoder of CCSDS 130.1-G sec. 4.3, Fig. 4-2, has no
+inverter).  :func:`g2_inverted_default` gives that rule; every encoder and decoder here takes a
+``g2_inverted`` argument that overrides it (None = the standard's rule) for equipment that differs.
+"""
 
 from __future__ import annotations
 
@@ -11,6 +18,8 @@ __all__ = [
     "G1_OCTAL",
     "G2_OCTAL",
     "CONSTRAINT_LENGTH",
+    "g2_inverted_default",
+    "resolve_g2_inverted",
     "puncture_pattern",
     "conv_encode",
     "ConvEncoder",
@@ -63,6 +72,39 @@ def puncture_pattern(rate: Rate) -> np.ndarray:
     return pat
 
 
+def g2_inverted_default(rate: Rate) -> bool:
+    """Whether the CCSDS code of ``rate`` inverts the G2 output: True at rate 1/2 only.
+
+    Parameters
+    ----------
+    rate : {"1/2", "2/3", "3/4", "5/6", "7/8"}
+
+    Returns
+    -------
+    bool
+
+    References
+    ----------
+    CCSDS 131.0-B sec. 3.3 (rate 1/2: "Symbol inversion: On output path of G2"); sec. 3.4 and
+    CCSDS 130.1-G sec. 4.3, Fig. 4-2 (punctured codes: no inverter).
+
+    Examples
+    --------
+    >>> g2_inverted_default("1/2"), g2_inverted_default("7/8")
+    (True, False)
+    """
+    return check_rate(rate) == "1/2"
+
+
+def resolve_g2_inverted(rate: Rate, g2_inverted: bool | None) -> bool:
+    """``g2_inverted`` checked, or the standard's rule for ``rate`` when it is None."""
+    if g2_inverted is None:
+        return g2_inverted_default(rate)
+    if not isinstance(g2_inverted, (bool, np.bool_)):
+        raise TypeError(f"Argument 'g2_inverted' must be True, False or None, not {g2_inverted!r}.")
+    return bool(g2_inverted)
+
+
 def _rate_tables(rate: str) -> tuple[np.ndarray, np.ndarray]:
     pat = puncture_pattern(rate)
     return np.ascontiguousarray(pat[0]), np.ascontiguousarray(pat[1])
@@ -87,6 +129,9 @@ class ConvEncoder:
     rate : {"1/2", "2/3", "3/4", "5/6", "7/8"}, keyword-only
     initial_state : int, keyword-only
         The six register bits before the first input bit (bit 0 = most recent), 0..63; 0 by default.
+    g2_inverted : bool or None, keyword-only
+        Invert the G2 output; None (default) follows the standard: inverted at rate 1/2 only
+        (:func:`g2_inverted_default`).
 
     Attributes
     ----------
@@ -97,17 +142,27 @@ class ConvEncoder:
 
     Notes
     -----
-    Register ``[input, D1..D6]``; C1 = parity of the taps of G1 = 1111001, C2 = NOT parity of the
-    taps of G2 = 1011011; C1 is sent first.  Cost: one table-free parity per output symbol.
+    Register ``[input, D1..D6]``; C1 = parity of the taps of G1 = 1111001, C2 = parity of the
+    taps of G2 = 1011011, complemented when ``g2_inverted``; C1 is sent first.  Cost: one
+    table-free parity per output symbol.
 
     References
     ----------
-    CCSDS 131.0-B sec. 3.3 (Fig. 3-1), sec. 3.4 (puncturing).
+    CCSDS 131.0-B sec. 3.3 (Fig. 3-1, G2 inverted), sec. 3.4 (puncturing, no inversion);
+    CCSDS 130.1-G sec. 4.3, Fig. 4-2.
+
+    Examples
+    --------
+    >>> ConvEncoder(rate="1/2").process([0, 0, 0, 0]).tolist()  # the inverted G2 gives 0101...
+    [0, 1, 0, 1, 0, 1, 0, 1]
+    >>> ConvEncoder(rate="2/3").process([0, 0, 0, 0]).tolist()  # punctured: no inversion
+    [0, 0, 0, 0, 0, 0]
     """
 
-    def __init__(self, *, rate: Rate = "1/2", initial_state: int = 0):
+    def __init__(self, *, rate: Rate = "1/2", initial_state: int = 0, g2_inverted: bool | None = None):
         self.rate = check_rate(rate)
         self.initial_state = check_int("initial_state", initial_state, "0..63", lambda v: 0 <= v <= 63)
+        self.g2_inverted = resolve_g2_inverted(self.rate, g2_inverted)
         self._keep1, self._keep2 = _rate_tables(self.rate)
         self.reset()
 
@@ -121,13 +176,13 @@ class ConvEncoder:
         b = as_bits("bits", bits)
         out = np.empty(2 * b.shape[0], dtype=np.uint8)
         n, state, phase = conv_encode_kernel(
-            b, self.state, self.phase, _G1_MASK, _G2_MASK, 1, self._keep1, self._keep2, out
+            b, self.state, self.phase, _G1_MASK, _G2_MASK, int(self.g2_inverted), self._keep1, self._keep2, out
         )
         self.state, self.phase = int(state), int(phase)
         return out[:n]
 
 
-def conv_encode(bits, rate: Rate = "1/2") -> np.ndarray:
+def conv_encode(bits, rate: Rate = "1/2", *, g2_inverted: bool | None = None) -> np.ndarray:
     """Convolutionally encode ``bits`` with the CCSDS K=7 code from the all-zero state.
 
     Parameters
@@ -136,12 +191,14 @@ def conv_encode(bits, rate: Rate = "1/2") -> np.ndarray:
         Information bits in transmission order.
     rate : {"1/2", "2/3", "3/4", "5/6", "7/8"}
         "1/2" is the basic code; the others puncture it with the CCSDS patterns.
+    g2_inverted : bool or None, keyword-only
+        Invert the G2 output; None (default): at rate 1/2 only, as the standard says.
 
     Returns
     -------
     numpy.ndarray of uint8
-        Channel bits, C1 first, G2 output inverted; ``2 n`` of them at rate 1/2, ``n / r`` for
-        punctured rates when ``n`` is a multiple of the period.  No tail bits are added.
+        Channel bits, C1 first; ``2 n`` of them at rate 1/2, ``n / r`` for punctured rates when
+        ``n`` is a multiple of the period.  No tail bits are added.
 
     See Also
     --------
@@ -149,9 +206,14 @@ def conv_encode(bits, rate: Rate = "1/2") -> np.ndarray:
 
     References
     ----------
-    CCSDS 131.0-B sec. 3.3, sec. 3.4.
+    CCSDS 131.0-B sec. 3.3, sec. 3.4; CCSDS 130.1-G sec. 4.3, Fig. 4-2.
+
+    Examples
+    --------
+    >>> conv_encode([1, 0, 0, 0, 0, 0, 0], "1/2", g2_inverted=False).tolist()  # the impulse response
+    [1, 1, 1, 0, 1, 1, 1, 1, 0, 0, 0, 1, 1, 1]
     """
-    return ConvEncoder(rate=rate).process(bits)
+    return ConvEncoder(rate=rate, g2_inverted=g2_inverted).process(bits)
 
 
 def conv_bit_symbol_index(n_bits: int, rate: Rate = "1/2", *, phase: int = 0) -> np.ndarray:

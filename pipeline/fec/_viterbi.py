@@ -7,7 +7,7 @@ import functools
 import numpy as np
 
 from pipeline.fec._args import Rate, as_soft, check_int, check_rate
-from pipeline.fec._conv import _G1_MASK, _G2_MASK, puncture_pattern
+from pipeline.fec._conv import _G1_MASK, _G2_MASK, puncture_pattern, resolve_g2_inverted
 from pipeline.fec._kernels import viterbi_block_kernel
 
 __all__ = ["ViterbiDecoder", "viterbi_decode", "DEFAULT_TRACEBACK_DEPTH"]
@@ -29,25 +29,30 @@ def _parity(x: int) -> int:
     return bin(x).count("1") & 1
 
 
-def _butterfly_signs() -> tuple[np.ndarray, np.ndarray]:
+def _butterfly_signs(g2_inverted: bool) -> tuple[np.ndarray, np.ndarray]:
     """Expected signs (+1 = bit 0) of C1 and C2 on the branch j -> 2j, register value 2j."""
     s1 = np.empty(32, dtype=np.int16)
     s2 = np.empty(32, dtype=np.int16)
     for j in range(32):
         reg = 2 * j
         c1 = _parity(reg & _G1_MASK)
-        c2 = _parity(reg & _G2_MASK) ^ 1  # G2 output inverted
+        c2 = _parity(reg & _G2_MASK) ^ int(g2_inverted)  # 131.0-B sec. 3.3: inverted at rate 1/2 only
         s1[j] = 1 - 2 * c1
         s2[j] = 1 - 2 * c2
     return s1, s2
 
 
-_SIGN1, _SIGN2 = _butterfly_signs()
-# Entries of the ACS work array (int16): 64 metrics, 64 scratch, then the sign tables in the order
-# viterbi_acs_kernel reads them (both steps of a radix-4 pair).
+def _sign_tables(g2_inverted: bool) -> np.ndarray:
+    """The sign tables in the order viterbi_acs_kernel reads them (both steps of a radix-4 pair)."""
+    s1, s2 = _butterfly_signs(g2_inverted)
+    tables = np.concatenate([s1, s2, s1[0::2], s1[1::2], s2[0::2], s2[1::2]])
+    tables.flags.writeable = False
+    return tables
+
+
+# Entries of the ACS work array (int16): 64 metrics, 64 scratch, then the sign tables.
 _WORK_SIZE = 256
-_SIGN_TABLES = np.concatenate([_SIGN1, _SIGN2, _SIGN1[0::2], _SIGN1[1::2], _SIGN2[0::2], _SIGN2[1::2]])
-_SIGN_TABLES.flags.writeable = False
+_SIGN_TABLES = {inv: _sign_tables(inv) for inv in (False, True)}
 # rate 1/2: nothing to depuncture
 _NO_POSITIONS = np.zeros(0, dtype=np.int64)
 _NO_POSITIONS.flags.writeable = False
@@ -55,10 +60,10 @@ _NO_SOFT = np.zeros(0, dtype=np.float32)  # nothing to prefetch
 _NO_SOFT.flags.writeable = False
 
 
-def _new_work() -> np.ndarray:
-    """A zeroed ACS work array with the sign tables in place."""
+def _new_work(g2_inverted: bool = True) -> np.ndarray:
+    """A zeroed ACS work array with the sign tables of the code (G2 inverted or not) in place."""
     work = np.zeros(_WORK_SIZE, dtype=np.int16)
-    work[128:] = _SIGN_TABLES
+    work[128:] = _SIGN_TABLES[bool(g2_inverted)]
     return work
 
 
@@ -97,6 +102,9 @@ class ViterbiDecoder:
     initial_state : int or None, keyword-only
         The encoder state before the first symbol, if known (0..63, as :class:`ConvEncoder`);
         None (default) starts with all states equally likely, as when joining a stream.
+    g2_inverted : bool or None, keyword-only
+        Whether the transmitter inverts the G2 output; None (default) follows the standard:
+        at rate 1/2 only (:func:`pipeline.fec.g2_inverted_default`).
 
     Attributes
     ----------
@@ -130,13 +138,16 @@ class ViterbiDecoder:
 
     References
     ----------
-    CCSDS 131.0-B sec. 3 (code, puncturing); A. J. Viterbi, "Error bounds for convolutional codes
+    CCSDS 131.0-B sec. 3 (code, puncturing; G2 inverted at rate 1/2 only, sec. 3.3 and 3.4);
+    CCSDS 130.1-G sec. 4.3, Fig. 4-2; A. J. Viterbi, "Error bounds for convolutional codes
     and an asymptotically optimum decoding algorithm", IEEE Trans. IT-13, 1967; Lin & Costello,
     Error Control Coding, 2nd ed., ch. 12.
     """
 
-    def __init__(self, *, rate: Rate = "1/2", traceback_depth: int | None = None, initial_state: int | None = None):
+    def __init__(self, *, rate: Rate = "1/2", traceback_depth: int | None = None, initial_state: int | None = None,
+                 g2_inverted: bool | None = None):
         self.rate = check_rate(rate)
+        self.g2_inverted = resolve_g2_inverted(self.rate, g2_inverted)
         if traceback_depth is None:
             traceback_depth = DEFAULT_TRACEBACK_DEPTH[self.rate]
         self.traceback_depth = check_int("traceback_depth", traceback_depth, "32..4096", lambda v: 32 <= v <= 4096)
@@ -151,7 +162,7 @@ class ViterbiDecoder:
         self._mother = np.empty(2 * self._block_steps, dtype=np.int8)
         self._words = np.empty(self._block_steps + self.traceback_depth, dtype=np.uint64)
         self._pending = np.empty(self._block_symbols, dtype=np.float32)
-        self._work = _new_work()  # path metrics in [0:64], see viterbi_acs_kernel
+        self._work = _new_work(self.g2_inverted)  # path metrics in [0:64], see viterbi_acs_kernel
         self.reset()
 
     def reset(self) -> None:
@@ -233,7 +244,7 @@ class ViterbiDecoder:
 
 
 def viterbi_decode(soft, rate: Rate = "1/2", *, traceback_depth: int | None = None,
-                   initial_state: int | None = None) -> np.ndarray:
+                   initial_state: int | None = None, g2_inverted: bool | None = None) -> np.ndarray:
     """Soft-decision ML decoding of a whole symbol stream (see :class:`ViterbiDecoder`).
 
     Parameters
@@ -241,13 +252,22 @@ def viterbi_decode(soft, rate: Rate = "1/2", *, traceback_depth: int | None = No
     soft : array_like of float, 1-D
         One value per channel symbol in transmission order: positive = bit 0, any scale, 0.0 = erasure.
     rate : {"1/2", "2/3", "3/4", "5/6", "7/8"}
-    traceback_depth, initial_state : see :class:`ViterbiDecoder`.
+    traceback_depth, initial_state, g2_inverted : see :class:`ViterbiDecoder`.
 
     Returns
     -------
     numpy.ndarray of uint8
         One decoded bit per complete branch: ``len(soft) // 2`` at rate 1/2.
+
+    Examples
+    --------
+    >>> from pipeline.fec import conv_encode
+    >>> bits = [1, 0, 1, 1, 0, 0, 1, 0, 1, 1, 1, 0]
+    >>> sym = conv_encode(bits, "3/4")
+    >>> viterbi_decode(1.0 - 2.0 * sym, "3/4", initial_state=0).tolist() == bits
+    True
     """
-    dec = ViterbiDecoder(rate=rate, traceback_depth=traceback_depth, initial_state=initial_state)
+    dec = ViterbiDecoder(rate=rate, traceback_depth=traceback_depth, initial_state=initial_state,
+                         g2_inverted=g2_inverted)
     # process() then flush() in one pass, so the bits land in one array (no concatenation)
     return dec._feed(as_soft("soft", soft), final=True)

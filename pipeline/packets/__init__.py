@@ -18,6 +18,7 @@ from pipeline.packets._time import (
 from pipeline.packets._timecodes import (
     LEVEL1_EPOCH,
     cds_pfield_layout,
+    check_time_code_config,
     cuc_pfield_layout,
     decode_cds,
     decode_cuc,
@@ -48,5 +49,6 @@ __all__ = [
     "decode_time_code",
     "cuc_pfield_layout",
     "cds_pfield_layout",
+    "check_time_code_config",
     "LEVEL1_EPOCH",
 ]

@@ -15,12 +15,13 @@ memory, not confirmed)
 
 from __future__ import annotations
 
+import hashlib
 from dataclasses import asdict, dataclass, field, replace
 from typing import Any
 
-from pipeline.link._accounting import FramePeriod, count_step
-from pipeline.packets._time import default_leap_seconds, parse_epoch_ns
-from pipeline.packets._timecodes import cds_pfield_layout, cuc_pfield_layout, decode_time_code
+from pipeline.link._accounting import CountTracker, FramePeriod
+from pipeline.packets._time import default_leap_seconds
+from pipeline.packets._timecodes import check_time_code_config, decode_time_code
 from pipeline.profile import LinkProfile, TimeCodeConfig
 
 __all__ = ["Packet", "PacketExtractor", "PacketStats", "SequenceGap", "IDLE_APID", "DROP_REASONS"]
@@ -36,8 +37,12 @@ _MAX_GAP_EVENTS = 1000
 _TIME_MIN_NS = -4383 * 86_400 * 1_000_000_000
 _TIME_MAX_NS = 2_932_897 * 86_400 * 1_000_000_000  # days from 1970-01-01 to 10000-01-01
 
-#: Reasons a (partial) packet is discarded.
-DROP_REASONS = ("frame_gap", "fhp_mismatch", "bad_version", "bad_length", "too_long", "incomplete_at_end")
+#: Reasons a (partial) packet is discarded.  ``superseded``: the frames it began in were repeated or
+#: replayed, and reassembly restarted from the copy (or the count track was given up).
+DROP_REASONS = ("frame_gap", "fhp_mismatch", "bad_version", "bad_length", "too_long", "incomplete_at_end",
+                "superseded")
+#: Count streams followed per virtual channel and per APID (see pipeline.link.CountTracker).
+_MAX_TRACKS = 4
 
 # _packet_length results below zero
 _NEED_MORE = 0
@@ -80,6 +85,17 @@ class Packet:
         Encapsulation protocol id.
     frames : int
         Number of transfer frames the packet spans.
+    verified : bool
+        Every frame the packet came from was verified (Reed-Solomon / LDPC / turbo decode or
+        FECF succeeded); False on a link with neither.
+    count_anomaly : {"duplicate", "backward"} or None
+        ``"duplicate"``: a byte-identical copy of a packet already delivered from the same virtual
+        channel frame count, or its APID sequence count repeated the last one, or its first frame
+        repeated the last frame count; ``"backward"``: its first frame's count or its APID sequence
+        count went behind the last (a replay or a restart).  None when both followed.
+    copy : bool
+        A byte-identical copy of a packet already delivered from the same virtual channel frame
+        count (what ``drop_duplicates`` suppresses).
     """
 
     apid: int | None
@@ -99,6 +115,9 @@ class Packet:
     sec_header_flag: bool | None = None
     protocol_id: int | None = None
     frames: int = 1
+    verified: bool = False
+    count_anomaly: str | None = None
+    copy: bool = False
 
     def as_dict(self) -> dict[str, Any]:
         """JSON-ready fields; the packet as ``hex``."""
@@ -116,6 +135,8 @@ class Packet:
             "mcfc": self.mcfc,
             "vcfc": self.vcfc,
             "frames": self.frames,
+            "verified": self.verified,
+            "count_anomaly": self.count_anomaly,
             "position": float(self.position),
             "rs_corrected": list(self.rs_corrected),
             "time_ns": self.time_ns,
@@ -140,12 +161,13 @@ class SequenceGap:
 
 @dataclass
 class _ApidStats:
+    sequence: CountTracker
     packets: int = 0
     octets: int = 0
     sequence_gaps: int = 0
     missing: int = 0
-    out_of_order: int = 0
-    last_seq: int | None = None
+    duplicates: int = 0
+    backward: int = 0
     vcids: set = field(default_factory=set)
     time_codes: int = 0
 
@@ -162,11 +184,16 @@ class PacketStats:
     dropped: dict = field(default_factory=lambda: {r: 0 for r in DROP_REASONS})
     frames: dict = field(default_factory=lambda: {
         "used": 0, "unusable": 0, "foreign": 0, "idle": 0, "no_packet_zone": 0, "duplicate": 0,
-        "out_of_order": 0, "gap": 0})
+        "backward": 0, "gap": 0})
     skipped_octets: int = 0
+    unverified_packets: int = 0  # delivered from frames no RS / LDPC / turbo decode or FECF verified
+    count_anomalies: dict = field(default_factory=lambda: {"duplicate": 0, "backward": 0})  # delivered, flagged
+    copies: int = 0  # byte-identical copies of delivered packets (delivered unless drop_duplicates)
+    copies_dropped: int = 0  # of those, suppressed by drop_duplicates
     sequence_gaps: int = 0
     sequence_missing: int = 0
-    sequence_out_of_order: int = 0
+    sequence_duplicates: int = 0
+    sequence_backward: int = 0
     time_codes: int = 0
     time_code_errors: int = 0
     apids: dict = field(default_factory=dict)
@@ -184,67 +211,46 @@ class PacketStats:
             "dropped_total": sum(self.dropped.values()),
             "frames": dict(self.frames),
             "skipped_octets": self.skipped_octets,
+            "unverified_packets": self.unverified_packets,
+            "count_anomalies": dict(self.count_anomalies),
+            "copies": self.copies,
+            "copies_dropped": self.copies_dropped,
             "sequence_gaps": self.sequence_gaps,
             "sequence_missing": self.sequence_missing,
-            "sequence_out_of_order": self.sequence_out_of_order,
+            "sequence_duplicates": self.sequence_duplicates,
+            "sequence_backward": self.sequence_backward,
             "time_codes": self.time_codes,
             "time_code_errors": self.time_code_errors,
             "sequence_gap_events": [g.as_dict() for g in self.gap_events],
             "sequence_gap_events_not_listed": self.gap_events_dropped,
             "apids": [
                 {"apid": apid, "vcids": sorted(a.vcids), "packets": a.packets, "octets": a.octets,
-                 "sequence_gaps": a.sequence_gaps, "missing": a.missing, "out_of_order": a.out_of_order,
-                 "time_codes": a.time_codes}
+                 "sequence_gaps": a.sequence_gaps, "missing": a.missing, "duplicates": a.duplicates,
+                 "backward": a.backward, "time_codes": a.time_codes}
                 for apid, a in sorted(self.apids.items())
             ],
         }
 
 
 @dataclass
-class _VcState:
-    """Reassembly state of one virtual channel."""
+class _Reassembly:
+    """Reassembly state of one count track of a virtual channel."""
 
-    last_count: int | None = None
-    last_position: float | None = None
-    modulus: int = 0
     synced: bool = False
     partial: bytearray = field(default_factory=bytearray)
     need: int = _NEED_MORE  # whole length of the partial packet once its header is complete
     origin: tuple = ()
     frames: int = 0  # frames the partial spans so far
+    verified: bool = True  # every frame the partial spans so far was verified
 
 
 def _checked_time_code(tc: TimeCodeConfig) -> TimeCodeConfig:
-    """Validate one ``[[packets.time_code]]`` entry once; an integral float P-field becomes an int.
-
-    (The TOML loader reads ``pfield = 0x1E`` into a field whose default is None as a float.)
-    """
-    where = f"Argument 'profile' [[packets.time_code]] apid {tc.apid}"
-    pfield = tc.pfield
-    if pfield is not None:
-        if isinstance(pfield, float) and pfield.is_integer():
-            pfield = int(pfield)
-        if isinstance(pfield, bool) or not isinstance(pfield, int):
-            raise ValueError(f"{where}: pfield must be an integer P-field or absent, not {tc.pfield!r}.")
-        try:
-            if tc.code == "cuc":
-                octets = pfield.to_bytes(2 if pfield > 0xFF else 1, "big") if 0 <= pfield <= 0xFFFF else b""
-                if not octets:
-                    raise ValueError(f"0x{pfield:x} is not one or two octets")
-                if cuc_pfield_layout(octets)[3] != len(octets):
-                    raise ValueError(f"0x{pfield:x}: the extension flag disagrees with its length")
-            else:
-                if not 0 <= pfield <= 0xFF:
-                    raise ValueError(f"0x{pfield:x} is not one octet")
-                cds_pfield_layout(pfield)
-        except ValueError as exc:
-            raise ValueError(f"{where}: pfield is not a valid {tc.code.upper()} P-field ({exc}).") from None
-    if isinstance(tc.offset, bool) or not isinstance(tc.offset, int) or not 0 <= tc.offset <= 65535:
-        raise ValueError(f"{where}: offset must be 0..65535 octets, not {tc.offset!r}.")
+    """One ``[[packets.time_code]]`` entry checked by the profile's own rule (an integral float P-field
+    becomes an int): :func:`pipeline.packets.check_time_code_config`."""
     try:
-        parse_epoch_ns(tc.epoch)
-    except (TypeError, ValueError) as exc:
-        raise ValueError(f"{where}: {exc}") from None
+        pfield = check_time_code_config(tc.code, tc.pfield, tc.epoch, tc.offset)
+    except ValueError as exc:
+        raise ValueError(f"Argument 'profile' [[packets.time_code]] apid {tc.apid}: {exc}.") from None
     return replace(tc, pfield=pfield)
 
 
@@ -287,33 +293,47 @@ class PacketExtractor:
         Longest packet accepted (default 65542, the largest space packet); a header announcing
         more is dropped as ``too_long`` and the channel re-synchronises at the next first header
         pointer.  Also caps the reassembly buffer, so memory stays bounded.
+    drop_duplicates : bool
+        Suppress byte-identical copies of packets already delivered from the same virtual channel
+        frame count (counted in ``stats.copies_dropped``).  Off by default: copies are delivered,
+        flagged ``count_anomaly = "duplicate"``.
+    duplicate_window : int
+        How many delivered packets are remembered to recognise copies (1..2**22; 16 octets each).
 
     Notes
     -----
-    The extractor tracks each virtual channel's frame count itself (see
-    :func:`pipeline.link.count_step`), so it needs no help from :class:`ChannelAccounting`:
+    Delivery rule: every frame with status ``ok`` of the profile's spacecraft feeds reassembly,
+    whatever its counts say, and every packet reassembled from such frames is delivered (with
+    ``verified`` telling whether all its frames were verified); counter anomalies are facts,
+    flagged on the packet, never a reason to withhold it.
 
-    * frame positions give a running frame period (:class:`pipeline.link.FramePeriod`), so a
-      jump after an outage longer than half the count range is still seen as a gap;
-    * a frame with the next count continues the packet in progress;
-    * a duplicate or a frame from the past is ignored (counted), so no packet is made twice;
-    * a jump, the first frame of a channel, or ``gap=True`` from the caller discards the
-      packet in progress (``dropped["frame_gap"]``) and extraction resumes at the first header
-      pointer of the next frame that has one: a packet is never stitched across a gap;
-    * frames whose status is not ``ok`` are never used; idle frames advance the count only.
+    Each virtual channel's frame count is followed by a :class:`pipeline.link.CountTracker`, so
+    no help from :class:`ChannelAccounting` is needed: a frame continues the *track* (stream of
+    consecutive counts) it is next for, with its own packet in progress; a jump in a track, the
+    first frame of a channel, or ``gap=True`` from the caller discards that track's packet in
+    progress (``dropped["frame_gap"]``) and extraction resumes at the first header pointer: a
+    packet is never stitched across a gap.  A frame behind every track (a replay of older frames,
+    or a counter restart) starts a new track from its first header pointer, so the running
+    stream's packet in progress survives a replay between its frames; a repeated frame count
+    restarts its track from the repeated frame's first header pointer.  Frame positions give a
+    running frame period (:class:`pipeline.link.FramePeriod`), so a jump after an outage longer
+    than half the count range is still a gap.  Frames whose status is not ``ok`` are never used;
+    idle frames advance their count only.
 
     Consistency checks guard against data that was never sent: a packet in progress must end
     exactly where the next frame's first header pointer says the next header starts
     (``fhp_mismatch`` otherwise), it must not end inside a frame whose pointer says no header
     starts there, and a header with a version other than 000 (or 111 with encapsulation) or an
     impossible length throws away the rest of that frame (``bad_version``, ``bad_length``,
-    ``too_long``).  After each such drop the channel waits for the next first header pointer.
+    ``too_long``).  After each such drop the track waits for the next first header pointer.
 
     Idle space packets (APID 0x7FF) and idle encapsulation packets (protocol id 000, e.g. the
-    octet ``E0``) are counted and dropped.  Sequence counts are checked per APID modulo 2**14.
+    octet ``E0``) are counted and dropped.  Sequence counts are followed per APID modulo 2**14
+    with a count tracker too (gaps are reported, repeats and steps back flag the packet).
 
-    Cost: O(octets) per frame (slicing), plus O(1) per packet.  State per VC: at most one
-    partial packet (<= ``max_packet_octets``).
+    Cost: O(octets) per frame (slicing), plus O(1) per packet (one 16-octet BLAKE2b digest).
+    State per VC: at most 4 tracks, each with at most one partial packet (<= ``max_packet_octets``);
+    plus ``duplicate_window`` digests.
 
     References
     ----------
@@ -321,26 +341,35 @@ class PacketExtractor:
     CCSDS 132.0-B sec. 4.1.2.7 / 732.0-B sec. 4.1.4.2 (first header pointer).
     """
 
-    def __init__(self, *, profile: LinkProfile, max_packet_octets: int = _MAX_SPACE_PACKET) -> None:
+    def __init__(self, *, profile: LinkProfile, max_packet_octets: int = _MAX_SPACE_PACKET,
+                 drop_duplicates: bool = False, duplicate_window: int = 1 << 16) -> None:
         if not isinstance(profile, LinkProfile):
             raise TypeError(f"Argument 'profile' must be a LinkProfile, not {type(profile).__name__}.")
         if isinstance(max_packet_octets, bool) or not isinstance(max_packet_octets, int) \
                 or not 7 <= max_packet_octets <= (1 << 32) - 1:
             raise ValueError(f"Argument 'max_packet_octets' must be 7..4294967295, not {max_packet_octets!r}.")
+        if not isinstance(drop_duplicates, bool):
+            raise TypeError(f"Argument 'drop_duplicates' must be True or False, not {drop_duplicates!r}.")
+        if isinstance(duplicate_window, bool) or not isinstance(duplicate_window, int) \
+                or not 1 <= duplicate_window <= 1 << 22:
+            raise ValueError(f"Argument 'duplicate_window' must be 1..4194304, not {duplicate_window!r}.")
         self.profile = profile
         self.spacecraft_id = profile.frames.spacecraft_id
         self.encapsulation = bool(profile.packets.encapsulation)
         self.max_packet_octets = max_packet_octets
+        self.drop_duplicates = drop_duplicates
+        self.duplicate_window = duplicate_window
         self.time_codes = {tc.apid: _checked_time_code(tc) for tc in profile.packets.time_codes}
         self._leap = default_leap_seconds() if self.time_codes else None
         self.reset()
 
     def reset(self) -> None:
-        """Forget every partial packet, frame count and counter."""
-        self.channels: dict[int, _VcState] = {}
+        """Forget every partial packet, frame count, remembered packet and counter."""
+        self.channels: dict[int, CountTracker] = {}
         self.stats = PacketStats()
         self._pending_gaps: list[SequenceGap] = []
         self.period = FramePeriod()
+        self._delivered: dict[bytes, None] = {}  # digests of delivered packets, oldest first
 
     def take_sequence_gaps(self) -> list[SequenceGap]:
         """The sequence-count gaps found since the last call (and forget them)."""
@@ -349,10 +378,12 @@ class PacketExtractor:
 
     def flush(self) -> list[Packet]:
         """End of input: packets still in progress are incomplete and dropped (counted)."""
-        for st in self.channels.values():
-            if st.partial:
-                self.stats.dropped["incomplete_at_end"] += 1
-            st.partial, st.need, st.synced = bytearray(), _NEED_MORE, False
+        for tracker in self.channels.values():
+            for track in tracker.tracks:
+                ra = track.payload
+                if ra is not None and ra.partial:
+                    self.stats.dropped["incomplete_at_end"] += 1
+                track.payload = _Reassembly()
         return []
 
     # ---- frames -----------------------------------------------------------------------------
@@ -387,27 +418,29 @@ class PacketExtractor:
         if record.vcid is None or record.vcfc is None:
             S.frames["unusable"] += 1
             return []
-        st = self.channels.get(record.vcid)
-        if st is None:
-            st = self.channels[record.vcid] = _VcState()
         count, modulus = int(record.vcfc), int(record.vcfc_modulus)
-        if st.last_count is None or st.modulus != modulus:
-            jump = True
-        else:
-            step, _ = count_step(st.last_count, count, modulus,
-                                 self.period.frames_between(st.last_position, float(record.position)))
-            if step == "duplicate":
-                S.frames["duplicate"] += 1
-                return []
-            if step == "behind":
-                S.frames["out_of_order"] += 1
-                return []
-            jump = step == "gap"
-            if jump:
-                S.frames["gap"] += 1
-        st.last_count, st.modulus, st.last_position = count, modulus, float(record.position)
-        if jump or gap:
-            self._lose_sync(st, "frame_gap")
+        tracker = self.channels.get(record.vcid)
+        if tracker is None or tracker.modulus != modulus:
+            if tracker is not None:  # (AOS: the VC count cycle extension switched on or off)
+                for t in tracker.tracks:
+                    self._lose_sync(t.payload, "frame_gap")
+            tracker = self.channels[record.vcid] = CountTracker(modulus=modulus, max_tracks=_MAX_TRACKS)
+        res = tracker.step(count, float(record.position), self.period)
+        for t in res.dropped:
+            self._lose_sync(t.payload, "superseded")
+        ra = res.track.payload
+        if ra is None:
+            ra = res.track.payload = _Reassembly()
+        if res.kind == "gap":
+            S.frames["gap"] += 1
+            self._lose_sync(ra, "frame_gap")
+        elif res.kind == "duplicate":
+            S.frames["duplicate"] += 1
+            self._lose_sync(ra, "superseded")
+        elif res.kind == "backward":
+            S.frames["backward"] += 1
+        if gap:
+            self._lose_sync(ra, "frame_gap")
         if record.status == "idle":
             S.frames["idle"] += 1
             return []
@@ -417,76 +450,81 @@ class PacketExtractor:
             return []
         S.frames["used"] += 1
         origin = (int(record.scid), int(record.vcid), record.mcfc, count, float(record.position),
-                  tuple(record.rs_corrected))
+                  tuple(record.rs_corrected), bool(record.verified), res.anomaly)
         out: list[Packet] = []
         fhp = int(record.fhp)
-        if st.synced:
-            self._continue(st, zone, fhp, origin, out)
+        if ra.synced:
+            self._continue(ra, zone, fhp, origin, out)
         elif fhp == _FHP_NO_HEADER:
             S.skipped_octets += len(zone)
         else:
             S.skipped_octets += fhp
-            st.synced = True
-            self._walk(st, zone, fhp, origin, out)
+            ra.synced = True
+            self._walk(ra, zone, fhp, origin, out)
         return out
 
-    def _lose_sync(self, st: _VcState, reason: str) -> None:
-        if st.partial:
+    def _lose_sync(self, ra: _Reassembly | None, reason: str) -> None:
+        if ra is None:
+            return
+        if ra.partial:
             self.stats.dropped[reason] += 1
-        st.partial, st.need, st.synced, st.frames = bytearray(), _NEED_MORE, False, 0
+        ra.partial, ra.need, ra.synced, ra.frames = bytearray(), _NEED_MORE, False, 0
 
-    def _continue(self, st: _VcState, zone: bytes, fhp: int, origin: tuple, out: list[Packet]) -> None:
-        """A frame in sequence on a synchronised channel."""
+    def _continue(self, ra: _Reassembly, zone: bytes, fhp: int, origin: tuple, out: list[Packet]) -> None:
+        """A frame in sequence on a synchronised track."""
+        verified = origin[6]
         if fhp == _FHP_NO_HEADER:
-            if not st.partial:
+            if not ra.partial:
                 # Nothing in progress, yet no header starts here: this data belongs to a packet we
                 # never saw the start of.
                 self.stats.skipped_octets += len(zone)
-                self._lose_sync(st, "fhp_mismatch")
+                self._lose_sync(ra, "fhp_mismatch")
                 return
-            st.partial += zone
-            st.frames += 1
-            length = self._partial_length(st)
+            ra.partial += zone
+            ra.frames += 1
+            ra.verified = ra.verified and verified
+            length = self._partial_length(ra)
             if length < 0:
                 return
-            if length and len(st.partial) >= length:
-                if len(st.partial) == length:
-                    self._emit(bytes(st.partial), st.origin, st.frames, out)
-                    st.partial, st.need, st.frames = bytearray(), _NEED_MORE, 0
+            if length and len(ra.partial) >= length:
+                if len(ra.partial) == length:
+                    self._emit(bytes(ra.partial), ra.origin, ra.frames, ra.verified, out)
+                    ra.partial, ra.need, ra.frames = bytearray(), _NEED_MORE, 0
                 else:  # the packet ends inside a frame whose pointer says no header starts there
-                    self._lose_sync(st, "fhp_mismatch")
+                    self._lose_sync(ra, "fhp_mismatch")
             return
-        if st.partial:
+        if ra.partial:
             if fhp:
-                st.partial += zone[:fhp]
-                st.frames += 1
-            length = self._partial_length(st)
+                ra.partial += zone[:fhp]
+                ra.frames += 1
+                ra.verified = ra.verified and verified
+            length = self._partial_length(ra)
             if length >= 0:
-                if length and len(st.partial) == length:
-                    self._emit(bytes(st.partial), st.origin, st.frames, out)
-                    st.partial, st.need, st.frames = bytearray(), _NEED_MORE, 0
+                if length and len(ra.partial) == length:
+                    self._emit(bytes(ra.partial), ra.origin, ra.frames, ra.verified, out)
+                    ra.partial, ra.need, ra.frames = bytearray(), _NEED_MORE, 0
                 else:
-                    self._lose_sync(st, "fhp_mismatch")
+                    self._lose_sync(ra, "fhp_mismatch")
         elif fhp:
             self.stats.skipped_octets += fhp  # octets of a packet whose start we never had
-        st.partial, st.need, st.synced, st.frames = bytearray(), _NEED_MORE, True, 0
-        self._walk(st, zone, fhp, origin, out)
+        ra.partial, ra.need, ra.synced, ra.frames = bytearray(), _NEED_MORE, True, 0
+        self._walk(ra, zone, fhp, origin, out)
 
-    def _partial_length(self, st: _VcState) -> int:
+    def _partial_length(self, ra: _Reassembly) -> int:
         """Whole length of the packet in progress (0 while its header is incomplete).
 
         A negative result means the header is impossible: the partial has been dropped.
         """
-        if st.need:
-            return st.need
-        length = _packet_length(bytes(st.partial[:8]), self.encapsulation, self.max_packet_octets)
+        if ra.need:
+            return ra.need
+        length = _packet_length(bytes(ra.partial[:8]), self.encapsulation, self.max_packet_octets)
         if length < 0:
-            self._lose_sync(st, _REASON[length])
+            self._lose_sync(ra, _REASON[length])
             return length
-        st.need = length
+        ra.need = length
         return length
 
-    def _walk(self, st: _VcState, zone: bytes, pos: int, origin: tuple, out: list[Packet]) -> None:
+    def _walk(self, ra: _Reassembly, zone: bytes, pos: int, origin: tuple, out: list[Packet]) -> None:
         """Cut packets from ``zone`` starting with a header at ``pos``; keep the unfinished tail."""
         n = len(zone)
         while pos < n:
@@ -499,67 +537,88 @@ class PacketExtractor:
             if length < 0:
                 self.stats.dropped[_REASON[length]] += 1
                 self.stats.skipped_octets += n - pos
-                st.partial, st.need, st.synced, st.frames = bytearray(), _NEED_MORE, False, 0
+                ra.partial, ra.need, ra.synced, ra.frames = bytearray(), _NEED_MORE, False, 0
                 return
             if length and pos + length <= n:
-                self._emit(zone[pos:pos + length], origin, 1, out)
+                self._emit(zone[pos:pos + length], origin, 1, origin[6], out)
                 pos += length
                 continue
-            st.partial, st.need, st.origin, st.frames = bytearray(zone[pos:]), length, origin, 1
+            ra.partial, ra.need, ra.origin, ra.frames = bytearray(zone[pos:]), length, origin, 1
+            ra.verified = origin[6]
             return
-        st.partial, st.need, st.frames = bytearray(), _NEED_MORE, 0
+        ra.partial, ra.need, ra.frames = bytearray(), _NEED_MORE, 0
 
     # ---- packets ----------------------------------------------------------------------------
-    def _emit(self, pkt: bytes, origin: tuple, frames: int, out: list[Packet]) -> None:
+    def _is_copy(self, pkt: bytes, scid: int, vcid: int, vcfc: int) -> bool:
+        """Whether this packet was delivered before from the same VC frame count; remember it if not."""
+        h = hashlib.blake2b(digest_size=16)
+        h.update(scid.to_bytes(2, "big") + vcid.to_bytes(1, "big") + vcfc.to_bytes(4, "big"))
+        h.update(pkt)
+        key = h.digest()
+        if key in self._delivered:
+            return True
+        self._delivered[key] = None
+        if len(self._delivered) > self.duplicate_window:
+            del self._delivered[next(iter(self._delivered))]
+        return False
+
+    def _emit(self, pkt: bytes, origin: tuple, frames: int, verified: bool, out: list[Packet]) -> None:
         S = self.stats
-        scid, vcid, mcfc, vcfc, position, rs = origin
-        if pkt[0] >> 5 == 7:
-            pid = (pkt[0] >> 2) & 0x7
-            if pid == 0:
-                S.encapsulation_idle += 1
-                return
-            S.packets += 1
-            S.encapsulation_packets += 1
-            out.append(Packet(apid=None, seq_count=None, seq_flags=None, data=pkt, scid=scid, vcid=vcid, mcfc=mcfc,
-                              vcfc=vcfc, position=position, rs_corrected=rs, kind="encapsulation", protocol_id=pid,
-                              frames=frames))
-            return
-        apid = ((pkt[0] & 0x07) << 8) | pkt[1]
-        if apid == IDLE_APID:
+        scid, vcid, mcfc, vcfc, position, rs, _, frame_anomaly = origin
+        space = pkt[0] >> 5 != 7
+        if space and ((pkt[0] & 0x07) << 8 | pkt[1]) == IDLE_APID:
             S.idle_packets += 1
             return
+        if not space and (pkt[0] >> 2) & 0x7 == 0:
+            S.encapsulation_idle += 1
+            return
+        copy = self._is_copy(pkt, scid, vcid, vcfc)
+        if copy:
+            S.copies += 1
+            if self.drop_duplicates:
+                S.copies_dropped += 1
+                return
+        if not space:
+            anomaly = "duplicate" if copy else frame_anomaly
+            self._count_delivery(verified, anomaly)
+            S.encapsulation_packets += 1
+            out.append(Packet(apid=None, seq_count=None, seq_flags=None, data=pkt, scid=scid, vcid=vcid, mcfc=mcfc,
+                              vcfc=vcfc, position=position, rs_corrected=rs, kind="encapsulation",
+                              protocol_id=(pkt[0] >> 2) & 0x7, frames=frames, verified=verified,
+                              count_anomaly=anomaly, copy=copy))
+            return
+        apid = ((pkt[0] & 0x07) << 8) | pkt[1]
         seq_flags = pkt[2] >> 6
         seq = ((pkt[2] & 0x3F) << 8) | pkt[3]
         sec_flag = bool(pkt[0] & 0x08)
         a = S.apids.get(apid)
         if a is None:
-            a = S.apids[apid] = _ApidStats()
+            a = S.apids[apid] = _ApidStats(sequence=CountTracker(modulus=_SEQ_MODULUS, max_tracks=_MAX_TRACKS))
         a.packets += 1
         a.octets += len(pkt)
         a.vcids.add(vcid)
-        if a.last_seq is None:
-            a.last_seq = seq
-        else:
-            step, missing = count_step(a.last_seq, seq, _SEQ_MODULUS)
-            if step in ("duplicate", "behind"):
-                a.out_of_order += 1
-                S.sequence_out_of_order += 1
+        step = a.sequence.step(seq)
+        if step.kind == "gap":
+            a.sequence_gaps += 1
+            a.missing += step.missing
+            S.sequence_gaps += 1
+            S.sequence_missing += step.missing
+            g = SequenceGap(apid=apid, vcid=vcid, expected=step.expected, got=seq, missing=step.missing,
+                            position=position)
+            self._pending_gaps.append(g)
+            if len(self._pending_gaps) > 10 * _MAX_GAP_EVENTS:
+                del self._pending_gaps[: _MAX_GAP_EVENTS]
+            if len(S.gap_events) < _MAX_GAP_EVENTS:
+                S.gap_events.append(g)
             else:
-                if step == "gap":
-                    a.sequence_gaps += 1
-                    a.missing += missing
-                    S.sequence_gaps += 1
-                    S.sequence_missing += missing
-                    g = SequenceGap(apid=apid, vcid=vcid, expected=(a.last_seq + 1) % _SEQ_MODULUS, got=seq,
-                                    missing=missing, position=position)
-                    self._pending_gaps.append(g)
-                    if len(self._pending_gaps) > 10 * _MAX_GAP_EVENTS:
-                        del self._pending_gaps[: _MAX_GAP_EVENTS]
-                    if len(S.gap_events) < _MAX_GAP_EVENTS:
-                        S.gap_events.append(g)
-                    else:
-                        S.gap_events_dropped += 1
-                a.last_seq = seq
+                S.gap_events_dropped += 1
+        elif step.kind == "duplicate":
+            a.duplicates += 1
+            S.sequence_duplicates += 1
+        elif step.kind == "backward":
+            a.backward += 1
+            S.sequence_backward += 1
+        anomaly = "duplicate" if copy else (frame_anomaly or step.anomaly)
         time_ns = time_tai = None
         tc = self.time_codes.get(apid)
         if tc is not None:
@@ -574,11 +633,20 @@ class PacketExtractor:
                 S.time_codes += 1
             else:
                 S.time_code_errors += 1
-        S.packets += 1
+        self._count_delivery(verified, anomaly)
         S.space_packets += 1
         out.append(Packet(apid=apid, seq_count=seq, seq_flags=seq_flags, data=pkt, scid=scid, vcid=vcid, mcfc=mcfc,
                           vcfc=vcfc, position=position, rs_corrected=rs, time_ns=time_ns, time_tai_ns=time_tai,
-                          kind="space", packet_type=(pkt[0] >> 4) & 1, sec_header_flag=sec_flag, frames=frames))
+                          kind="space", packet_type=(pkt[0] >> 4) & 1, sec_header_flag=sec_flag, frames=frames,
+                          verified=verified, count_anomaly=anomaly, copy=copy))
+
+    def _count_delivery(self, verified: bool, anomaly: str | None) -> None:
+        S = self.stats
+        S.packets += 1
+        if not verified:
+            S.unverified_packets += 1
+        if anomaly is not None:
+            S.count_anomalies[anomaly] += 1
 
     def _time_code(self, pkt: bytes, sec_flag: bool, tc) -> int | None:
         if not sec_flag:

@@ -39,6 +39,7 @@ __all__ = [
     "decode_time_code",
     "cuc_pfield_layout",
     "cds_pfield_layout",
+    "check_time_code_config",
     "LEVEL1_EPOCH",
 ]
 
@@ -316,3 +317,65 @@ def decode_time_code(data, *, code: str, pfield: int | None = None, epoch: str =
     if code == "cds":
         return decode_cds(data, pfield=pfield, epoch=epoch, table=table)
     raise ValueError(f"Argument 'code' must be cuc | cds, not {code!r}.")
+
+
+def check_time_code_config(code: str, pfield, epoch: str, offset) -> int | None:
+    """Check one configured time code (a profile's ``[[packets.time_code]]`` entry); return its P-field.
+
+    The one check of these values: the profile validator and the packet extractor both call it, so
+    whatever a profile may hold, the extractor decodes (issue 13).
+
+    Parameters
+    ----------
+    code : {"cuc", "cds"}
+    pfield : int, integral float or None
+        The implicit P-field (one or two octets for CUC, one for CDS), or None for an explicit
+        P-field carried in each packet.
+    epoch : str
+        ISO-8601 epoch for agency-defined epochs (:func:`parse_epoch_ns`).
+    offset : int
+        Octets from the start of the packet's secondary header to the time code, 0..65535.
+
+    Returns
+    -------
+    int or None
+        The P-field as an integer.
+
+    Raises
+    ------
+    ValueError
+        One line naming the value and the rule, e.g. ``pfield 0x4e is not a valid CUC P-field
+        (...)``.
+
+    Examples
+    --------
+    >>> check_time_code_config("cuc", 0x1E, "1958-01-01T00:00:00", 0)
+    30
+    """
+    if code not in ("cuc", "cds"):
+        raise ValueError(f"code must be cuc | cds, not {code!r}")
+    if pfield is not None:
+        if isinstance(pfield, float) and pfield.is_integer():
+            pfield = int(pfield)
+        if isinstance(pfield, bool) or not isinstance(pfield, int):
+            raise ValueError(f"pfield must be an integer P-field or absent, not {pfield!r}")
+        try:
+            if code == "cuc":
+                if not 0 <= pfield <= 0xFFFF:
+                    raise ValueError(f"0x{pfield:x} is not one or two octets")
+                octets = pfield.to_bytes(2 if pfield > 0xFF else 1, "big")
+                if cuc_pfield_layout(octets)[3] != len(octets):
+                    raise ValueError(f"0x{pfield:x}: the extension flag disagrees with its length")
+            else:
+                if not 0 <= pfield <= 0xFF:
+                    raise ValueError(f"0x{pfield:x} is not one octet")
+                cds_pfield_layout(pfield)
+        except ValueError as exc:
+            raise ValueError(f"pfield is not a valid {code.upper()} P-field ({exc})") from None
+    if isinstance(offset, bool) or not isinstance(offset, int) or not 0 <= offset <= 65535:
+        raise ValueError(f"offset must be 0..65535 octets, not {offset!r}")
+    try:
+        parse_epoch_ns(epoch)
+    except (TypeError, ValueError) as exc:
+        raise ValueError(str(exc).replace("Argument 'epoch' must", "epoch must").rstrip(".")) from None
+    return pfield

@@ -12,6 +12,10 @@ to inverted bits, which the differential decoding then removes.  That is the def
 (``nrzm_at="encoder_input"``).  ``nrzm_at="channel"`` differentially encodes the channel symbols
 after the encoder instead (not what the standard says; kept for receivers that expect it).  For
 uncoded links the two are the same.
+
+G2 inversion: the rate-1/2 code inverts the G2 output (131.0-B sec. 3.3), the punctured codes of
+sec. 3.4 do not (CCSDS 130.1-G sec. 4.3, Fig. 4-2 has no inverter); the profile's
+``[coding] convolutional_g2_inverted`` overrides that (``CodingSection.conv_g2_inverted``).
 """
 
 from __future__ import annotations
@@ -60,7 +64,7 @@ class ChannelCoder:
     Parameters
     ----------
     profile :
-        The link profile: ``[coding]`` (convolutional rate, RS E, interleave, randomizer),
+        The link profile: ``[coding]`` (convolutional rate and G2 convention, RS E, interleave, randomizer),
         ``[frames]`` length, ``[link]`` line code.
     nrzm_at :
         Where NRZ-M is applied when ``line_code = "nrz-m"`` (see the module docstring).
@@ -104,7 +108,7 @@ class ChannelCoder:
             self._period = int(pat.shape[1])
             self._per_period = int(per_col.sum())
             self._col_offset = np.concatenate([[0], np.cumsum(per_col)[:-1]]).astype(np.int64)
-            self._encoder = ConvEncoder(rate=self.rate)
+            self._encoder = ConvEncoder(rate=self.rate, g2_inverted=profile.coding.conv_g2_inverted)
         else:
             self._period, self._per_period, self._col_offset = 1, 1, np.zeros(1, np.int64)
             self._encoder = None

@@ -106,6 +106,9 @@ class BranchSync:
     marker_block_bits : int
         Uncoded QPSK/OQPSK: channel bits per rotation decision (1024 .. 2**22); it should hold
         at least one CADU.
+    g2_inverted : bool or None
+        Whether the transmitter inverts the G2 output; None follows CCSDS 131.0-B: at rate 1/2
+        only (sec. 3.3; the punctured codes of sec. 3.4 have none, 130.1-G sec. 4.3 Fig. 4-2).
 
     Attributes
     ----------
@@ -175,6 +178,7 @@ class BranchSync:
         traceback_depth: int | None = None,
         asm: bytes = ASM,
         marker_block_bits: int = 65536,
+        g2_inverted: bool | None = None,
     ) -> None:
         if rate not in CONV_RATES:
             raise ValueError(f"Argument 'rate' must be one of {' | '.join(CONV_RATES)}, not {rate!r}.")
@@ -212,7 +216,9 @@ class BranchSync:
             self._keep1 = np.ascontiguousarray(pat[0], dtype=np.uint8)
             self._keep2 = np.ascontiguousarray(pat[1], dtype=np.uint8)
             self.hypotheses = tuple((off, rot) for rot in self.rotations for off in range(P))
-            ViterbiDecoder(rate=rate, traceback_depth=traceback_depth)  # validates traceback_depth once, here
+            # validates traceback_depth and g2_inverted once, here, and resolves the G2 convention
+            self.g2_inverted = ViterbiDecoder(rate=rate, traceback_depth=traceback_depth,
+                                              g2_inverted=g2_inverted).g2_inverted
         else:
             self.period_bits = self.period_symbols = 1
             self.block_bits = self.acquire_bits = 0
@@ -434,7 +440,9 @@ class BranchSync:
                 scores.append(-np.inf)
                 continue
             soft = self._view(s0, s0 + periods * P, rot)
-            code = conv_encode(viterbi_decode(soft, self.rate, traceback_depth=self.traceback_depth), self.rate)
+            inv = self.g2_inverted
+            code = conv_encode(viterbi_decode(soft, self.rate, traceback_depth=self.traceback_depth, g2_inverted=inv),
+                               self.rate, g2_inverted=inv)
             g = _GUARD_PERIODS * P
             scores.append(branch_metric(soft[g : periods * P - g], code[g : periods * P - g]))
         self._pending = None
@@ -469,7 +477,7 @@ class BranchSync:
         self._hyp = hyp
         self._seg_start = t + (off - t) % P
         self.stats.channel_bits_discarded += self._seg_start - t
-        self._dec = ViterbiDecoder(rate=self.rate, traceback_depth=self.traceback_depth)
+        self._dec = ViterbiDecoder(rate=self.rate, traceback_depth=self.traceback_depth, g2_inverted=self.g2_inverted)
         self._enc_state = 0
         self._fed = self._seg_start
         self._flushed = False
@@ -518,8 +526,8 @@ class BranchSync:
         soft = np.ascontiguousarray(self._view(a, a + conv_output_length(n_bits, self.rate), rot))
         metrics = np.empty(n_blocks, np.float64)
         states = np.empty(n_blocks, np.int64)
-        _kernels.reencode_metrics(self._seg_bits[:n_bits], self._enc_state, _G1_MASK, _G2_MASK, self._keep1,
-                                  self._keep2, _PARITY, soft, B, metrics, states)
+        _kernels.reencode_metrics(self._seg_bits[:n_bits], self._enc_state, _G1_MASK, _G2_MASK, int(self.g2_inverted),
+                                  self._keep1, self._keep2, _PARITY, soft, B, metrics, states)
         used = n_blocks
         trigger = False
         for j in range(n_blocks):

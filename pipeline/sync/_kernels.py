@@ -96,13 +96,15 @@ def hard_decisions(soft, out):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True)
-def reencode_metrics(bits, state, g1_mask, g2_mask, keep1, keep2, parity, soft, block_bits, metrics, states):
+def reencode_metrics(bits, state, g1_mask, g2_mask, g2_invert, keep1, keep2, parity, soft, block_bits, metrics,
+                     states):
     """Re-encode decoded bits with the (punctured) convolutional code and score them against soft symbols.
 
     For block ``j`` (``block_bits`` bits; the last block may be shorter) ``metrics[j] = sum(s (1 - 2 c)) /
     sum(|s|)`` over its transmitted symbols ``s`` and re-encoded code bits ``c`` (0.0 if all ``s`` are 0),
     and ``states[j]`` = the encoder memory after it.  The register is ``(state << 1) | bit`` (bit 0 the
-    newest), C1 = parity(reg & g1_mask), C2 = NOT parity(reg & g2_mask), C1 first; ``keep1/keep2`` are
+    newest), C1 = parity(reg & g1_mask), C2 = parity(reg & g2_mask) XOR g2_invert (1 at rate 1/2, 0 for
+    the punctured codes: CCSDS 131.0-B sec. 3.3 and 3.4), C1 first; ``keep1/keep2`` are
     the puncturing rows (period = their length), starting at column 0.  ``parity`` is the 128-entry
     parity table.  Returns the number of soft symbols used.  Cost O(len(bits)), no allocation.
     """
@@ -131,10 +133,10 @@ def reencode_metrics(bits, state, g1_mask, g2_mask, keep1, keep2, parity, soft, 
             if keep2[phase]:
                 s = np.float64(soft[k])
                 k += 1
-                if parity[reg & g2_mask]:
-                    corr += s  # inverted output: parity 1 sends 0
-                else:
+                if parity[reg & g2_mask] ^ g2_invert:
                     corr -= s
+                else:
+                    corr += s
                 mag += abs(s)
             phase += 1
             if phase == period:
