@@ -138,10 +138,13 @@ class BackEnd:
         Nominal downlink frequency, for the range rate in ``doppler.csv``.
     tuning_offset_hz : float, keyword-only
         Recording centre frequency minus the nominal frequency.
+    drop_duplicates : bool, keyword-only
+        Suppress byte-identical copies of packets already delivered from the same frame counts (a replay);
+        by default they are delivered and flagged ``count_anomaly = "duplicate"``.
     """
 
     def __init__(self, profile: LinkProfile, *, timebase=None, sinks=None, downlink_frequency_hz: float | None = None,
-                 tuning_offset_hz: float = 0.0):
+                 tuning_offset_hz: float = 0.0, drop_duplicates: bool = False):
         from pipeline.link import ChannelAccounting, FrameParser
         from pipeline.packets import PacketExtractor, format_ert
 
@@ -156,7 +159,7 @@ class BackEnd:
         self._marker = bytes(ASM)  # the marker in front of every CADU (cadus.bin)
         self.parser = FrameParser(frames=profile.frames)
         self.accounting = ChannelAccounting(spacecraft_id=profile.frames.spacecraft_id)
-        self.extractor = PacketExtractor(profile=profile)
+        self.extractor = PacketExtractor(profile=profile, drop_duplicates=drop_duplicates)
         self.track = TrackLog()
         self.frame_log = FrameLog()
         self.status_counts: dict[str, int] = {}

@@ -151,7 +151,8 @@ class FrontEnd:
         # Bi-phase-L is removed inside the demodulator (half-symbol integration); what is left is NRZ-L.
         line_code = "nrz-l" if profile.link.line_code == "bi-phase-l" else profile.link.line_code
         self.line = LineDecoder(line_code=line_code)
-        self.branch = BranchSync(rate=profile.coding.convolutional, modulation=profile.link.modulation)
+        self.branch = BranchSync(rate=profile.coding.convolutional, modulation=profile.link.modulation,
+                                 g2_inverted=profile.coding.conv_g2_inverted)
         self.fsync = FrameSync(frame_bits=8 * profile.codeblock_bytes, max_errors=rx.asm_max_errors,
                                flywheel=rx.flywheel_frames)
         self.codeblock = CodeblockDecoder(profile=profile)

@@ -220,11 +220,13 @@ def simulate_code_point(profile: LinkProfile, ebn0_db: float, *, frames: int, er
         sent = blocks ^ pn[None, :]
         cadus = np.concatenate([np.broadcast_to(asm, (nb, 4)), sent], axis=1)
         bits = np.concatenate([np.unpackbits(cadus.reshape(-1)), asm_bits])
-        symbols = conv_encode(bits, c.convolutional) if c.convolutional != "none" else bits
+        symbols = conv_encode(bits, c.convolutional, g2_inverted=c.conv_g2_inverted) if c.convolutional != "none" \
+            else bits
         soft = (1.0 - 2.0 * symbols.astype(np.float32)) + np.float32(sigma) * rng.standard_normal(
             symbols.shape[0], dtype=np.float32)
         if c.convolutional != "none":
-            decoded = np.asarray(viterbi_decode(soft, c.convolutional, initial_state=0), dtype=np.uint8)
+            decoded = np.asarray(viterbi_decode(soft, c.convolutional, initial_state=0, g2_inverted=c.conv_g2_inverted),
+                                 dtype=np.uint8)
         else:
             decoded = (soft < 0).astype(np.uint8)
         decoded = decoded[: 8 * nb * (4 + block_bytes)].reshape(nb, 8 * (4 + block_bytes))[:, 32:]
