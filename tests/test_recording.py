@@ -459,7 +459,8 @@ def test_bad_input_messages(tmp_path, rng):
         (json.dumps({"captures": []}), schema + "top level: 'global' is a required property"),
         (json.dumps([1, 2]), schema + "top level: .* is not of type 'object'"),
         (json.dumps(_meta(captures=[{"core:sample_start": 0, "core:datetime": "noon"}])), "core:datetime"),
-        (json.dumps(_meta(captures=[{"core:sample_start": 5}, {"core:sample_start": 2}])), "incorrect sample start"),
+        (json.dumps(_meta(captures=[{"core:sample_start": 5}, {"core:sample_start": 2}])),
+         r"at captures\[1\]: core:sample_start 2 comes before 5"),
         (json.dumps(_meta(captures=[{"core:sample_start": 5}, {"core:sample_start": 5}])), "not after"),
         (json.dumps(_meta(captures=[{"core:sample_start": 99}])), r"holds 16 samples \(128 bytes\) but m.sigmf-meta "
                                                                   r"describes at least 100 .*capture 0 starts at"),
@@ -548,6 +549,35 @@ def test_fuzz_random_json(tmp_path, meta, junk):
     _check_fuzz(tmp_path, meta)
     _check_fuzz(tmp_path, None, text=junk)
     _check_fuzz(tmp_path, None, text="[" * 100_000)  # nesting deeper than the JSON parser's recursion
+
+
+@settings(max_examples=60, deadline=None)
+@given(meta=_mutated_meta())
+def test_schema_verdict_is_the_sigmf_librarys(meta):
+    """Our validation (a validator built once) accepts exactly what sigmf.validate.validate accepts."""
+    import warnings
+
+    from jsonschema.exceptions import ValidationError
+    from sigmf import schema
+    from sigmf import validate as sigmf_validate
+
+    from pipeline.recording._sigmf import validate_metadata
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", DeprecationWarning)
+            sigmf_validate.validate(meta, schema.get_schema())  # sigmf (PyPI)
+        theirs = None
+    except ValidationError as exc:
+        theirs = exc
+    try:
+        validate_metadata(meta, "f.sigmf-meta")
+        ours = None
+    except RecordingError as exc:
+        ours = exc
+    assert (theirs is None) == (ours is None), (theirs, ours)
+    if theirs is not None and theirs.message in str(ours):
+        assert "\n" not in str(ours)
 
 
 @settings(max_examples=100, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])

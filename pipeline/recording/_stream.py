@@ -118,7 +118,31 @@ class _Source:
             self.fh.close()
 
 
-class SampleStream(Recording):
+class _ReadOnce:
+    """What a live stream adds to its reader: it is read once, from its start; it closes what it opened."""
+
+    _source: _Source
+    _started: bool
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def close(self) -> None:
+        """Close the source if this object opened it (standard input and file objects stay open)."""
+        self._source.close()
+
+    def _begin(self, start: Any, stop: Any) -> None:
+        if start != 0 or stop is not None:
+            raise ValueError(f"Argument 'start' must be 0 and 'stop' None for a live stream, not {start!r}, {stop!r}.")
+        if self._started:
+            raise ValueError("Argument 'self' is a live stream that has been read already: it is read once.")
+        self._started = True
+
+
+class SampleStream(_ReadOnce, Recording):
     """IQ samples arriving on a pipe, standard input or a binary file object (see :func:`open_stream`).
 
     A :class:`~pipeline.recording.Recording` that can be read only once, in order, with
@@ -142,16 +166,6 @@ class SampleStream(Recording):
         self.samples_read = 0
         self.trailing_bytes = 0
         self._started = False
-
-    def __enter__(self) -> SampleStream:
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.close()
-
-    def close(self) -> None:
-        """Close the source if this object opened it (standard input stays open)."""
-        self._source.close()
 
     def checksum(self):
         """None: a stream carries no ``core:sha512``."""
@@ -186,11 +200,7 @@ class SampleStream(Recording):
         :attr:`trailing_bytes`.  Memory: O(chunk_samples), however long the stream.
         """
         chunk_samples = _check_count("chunk_samples", chunk_samples)
-        if start != 0 or stop is not None:
-            raise ValueError(f"Argument 'start' must be 0 and 'stop' None for a live stream, not {start!r}, {stop!r}.")
-        if self._started:
-            raise ValueError("Argument 'self' is a live stream that has been read already: it is read once.")
-        self._started = True
+        self._begin(start, stop)
         return self._generate(chunk_samples, fill)
 
     def _generate(self, chunk_samples: int, fill: bool) -> Iterator[Chunk]:
@@ -278,7 +288,7 @@ def open_stream(source: Any = STDIN, *, format: str | None = None, sample_rate_h
     return SampleStream(src, fmt=fmt, sample_rate_hz=rate, capture=Capture(0, t0, freq, start is not None))
 
 
-class SymbolStream:
+class SymbolStream(_ReadOnce):
     """Channel symbols arriving on a stream (see :func:`open_symbol_stream`).
 
     Attributes
@@ -304,16 +314,6 @@ class SymbolStream:
     def __repr__(self) -> str:
         return f"SymbolStream({str(self.path)!r}, {self.kind}, {self.symbols_read} symbols read)"
 
-    def __enter__(self) -> SymbolStream:
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.close()
-
-    def close(self) -> None:
-        """Close the source if this object opened it."""
-        self._source.close()
-
     def chunks(self, chunk_symbols: int, start: int = 0, stop: int | None = None, *,
                fill: bool = True) -> Iterator[SymbolChunk]:
         """Yield :class:`SymbolChunk` objects as the symbols arrive, until the stream ends.
@@ -322,11 +322,7 @@ class SymbolStream:
         ``fill=False`` yields what each read gave.  Memory: O(chunk_symbols).
         """
         chunk_symbols = _check_count("chunk_symbols", chunk_symbols)
-        if start != 0 or stop is not None:
-            raise ValueError(f"Argument 'start' must be 0 and 'stop' None for a live stream, not {start!r}, {stop!r}.")
-        if self._started:
-            raise ValueError("Argument 'self' is a live stream that has been read already: it is read once.")
-        self._started = True
+        self._begin(start, stop)
         return self._generate(chunk_symbols, fill)
 
     def _generate(self, chunk_symbols: int, fill: bool) -> Iterator[SymbolChunk]:
