@@ -30,7 +30,7 @@ from pipeline.recording import SAMPLE_FORMATS, SigmfWriter, open_recording, open
 _START = """
 import time, sys
 t0 = time.perf_counter()
-import pipeline.chain._chain  # what a decode imports before it opens the recording
+import pipeline.chain  # what a decode imports before it opens the recording
 t1 = time.perf_counter()
 from pipeline.recording import open_recording
 rec = open_recording(sys.argv[1]) if sys.argv[2] == "sigmf" else open_recording(
