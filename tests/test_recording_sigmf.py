@@ -72,8 +72,10 @@ def test_recording_written_by_sigmf_reads_back(tmp_path, rng):
     for path, container in ((tmp_path / "lib.sigmf-meta", "sigmf"), (tmp_path / "lib.sigmf", "sigmf-archive")):
         rec = open_recording(path)
         assert rec.container == container and rec.datatype == "cf32_le" and rec.sample_rate_hz == 250e3
+        assert not rec.checksum_verified
         got = np.concatenate([c.samples for c in rec.chunks(777)])  # checks core:sha512 on the way
         np.testing.assert_array_equal(got, x)
+        assert rec.checksum_verified
         _check_captures(rec)
         # sigmf (PyPI) computed core:sha512 over the data file (pair) and the data member (archive)
         assert rec.sha512 == hashing.calculate_sha512(tmp_path / "lib.sigmf-data")
@@ -170,6 +172,7 @@ def test_sha512_mismatch_is_one_error_after_the_last_chunk(tmp_path, rng):
         for c in rec.chunks(1000):
             seen.append(c.stop)
     assert seen == [1000, 2000, 3000, 4000, 5000, 6000]  # every chunk first, the verdict at the end
+    assert not rec.checksum_verified
     _one_line(e.value, "lib.sigmf-data", "does not match core:sha512 in lib.sigmf-meta", "--no-checksum")
     # a partial read concludes nothing; skipping the check reads the same samples
     assert [len(c) for c in rec.chunks(1000, 0, 5999)][-1] == 999

@@ -142,6 +142,9 @@ class Recording:
     verify_checksum : bool
         False when the caller skipped the ``core:sha512`` check (``open_recording(...,
         verify_checksum=False)``).
+    checksum_verified : bool
+        True once :meth:`chunks` has read the whole recording and its octets matched
+        ``core:sha512`` (for the report); False until then and when there is nothing to check.
     """
 
     def __init__(
@@ -175,6 +178,7 @@ class Recording:
             dataset_span = (0, self.data_offset_bytes + self.num_samples * fmt.bytes_per_sample)
         self.dataset_span = dataset_span
         self.verify_checksum = bool(verify_checksum)
+        self.checksum_verified = False
         self._starts = [c.sample_start for c in self.captures]
         # Exact rational rate: utc_ns() is then exact integer arithmetic however long the pass.
         self._rate = Fraction(self.sample_rate_hz)
@@ -376,6 +380,7 @@ class Recording:
         end = check.offset_bytes + check.size_bytes
         self._hash_span(check, first + stop * self.sample_format.bytes_per_sample, end)
         check.finish()
+        self.checksum_verified = True
 
 
 # ---- opening --------------------------------------------------------------------------------
