@@ -169,9 +169,9 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
     seconds, ebn0_db, seed, carrier_offset_hz, doppler_rate_hz_per_s, clock_offset_ppm, timing_offset,
     phase_noise_rad, format :
         Override the ``[simulate]`` values.  ``format`` is the sample format of the recording,
-        ``cf32 | ci16 | ci8 | cu8`` (``--format``; the metadata names it as SigMF does, ``cf32_le``).  ``ebn0_db`` is per information bit of the codeblock (ASM
-        excluded); ``timing_offset`` is the position of symbol 0 in symbol periods;
-        ``phase_noise_rad`` the RMS of the phase noise.
+        ``cf32 | ci16 | ci8 | cu8`` (``--format``; the metadata names it as SigMF does, ``cf32_le``).
+        ``ebn0_db`` is per information bit of the codeblock (ASM excluded); ``timing_offset`` is the
+        position of symbol 0 in symbol periods; ``phase_noise_rad`` the RMS of the phase noise.
     fades :
         ``(start_s, duration_s, depth_db)`` triples; ``depth_db = inf`` (or >= 100) is a dropout.
     noise :
