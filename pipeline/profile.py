@@ -202,7 +202,7 @@ class SimulateSection:
     phase_noise_rad: float = 0.0
     timing_offset: float = 0.37  # fraction of a symbol
     clock_offset_ppm: float = 20.0
-    datatype: str = "cf32_le"
+    datatype: str = "cf32"  # TOML key "format" (or "datatype"): cf32 | ci16 | ci8 | cu8
     seed: int = 1
     traffic: tuple[ApidTraffic, ...] = (
         ApidTraffic(apid=100, length=120, rate_hz=10.0, vcid=0, time_code=True),
@@ -283,7 +283,12 @@ class LinkProfile:
 
 _KEY_MAP = {
     "link": {"symbol_rate": "symbol_rate_baud", "modulation_index": "modulation_index_rad"},
+    "simulate": {"format": "datatype"},  # "datatype" is the former key
 }
+
+
+# [simulate] format: the user's names (pipeline.recording.FORMATS) and the SigMF names of the same types
+_SIMULATE_FORMATS = ("cf32", "ci16", "ci8", "cu8", "cf32_le", "ci16_le")
 
 
 def demo_profile_path() -> Path:
@@ -301,11 +306,17 @@ def load_profile(path: str | Path) -> LinkProfile:
     """
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        raw = path.read_bytes()
     except FileNotFoundError:
         raise ProfileError(f"{path}: profile not found") from None
     except OSError as exc:
         raise ProfileError(f"{path}: cannot read profile ({exc.strerror})") from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = raw.count(b"\n", 0, exc.start) + 1
+        raise ProfileError(f"{path}: profile is not UTF-8 text (byte {exc.start}, line {line}); TOML files are "
+                           f"UTF-8") from None
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -528,8 +539,8 @@ def _validate(p: LinkProfile, source: str) -> None:
             raise ProfileError(f"{source}: [[packets.time_code]] apid {tc.apid}: {exc}") from None
     _check(S.sample_rate_hz > 0, source, f"[simulate] sample_rate_hz must be > 0, not {S.sample_rate_hz:g}")
     _check(S.seconds > 0, source, f"[simulate] seconds must be > 0, not {S.seconds:g}")
-    _check(S.datatype in ("cf32_le", "ci16_le", "ci8", "cu8"), source,
-           f"[simulate] datatype must be cf32_le | ci16_le | ci8 | cu8, not {S.datatype!r}")
+    _check(S.datatype in _SIMULATE_FORMATS, source,
+           f"[simulate] format must be cf32 | ci16 | ci8 | cu8, not {S.datatype!r}")
     for t in S.traffic:
         _check(0 <= t.apid <= 0x7FE, source, f"[[simulate.traffic]] apid must be 0..2046, not {t.apid}")
         _check(1 <= t.length <= 65536, source, f"[[simulate.traffic]] length must be 1..65536, not {t.length}")

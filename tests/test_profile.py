@@ -203,3 +203,24 @@ def test_fuzz_profile_tree(tree):
         from pipeline.chain import DecodeChain
 
         DecodeChain(prof, input_kind="bits")
+
+
+def test_simulate_format_key_uses_the_recording_vocabulary(tmp_path):
+    from pipeline.recording import FORMATS, RAW_FORMAT_ALIASES, sample_format
+    from pipeline.sim import simulate
+
+    for fmt in FORMATS:
+        assert profile_from_dict({"simulate": {"format": fmt}}).simulate.datatype == fmt
+    assert profile_from_dict({"simulate": {"datatype": "ci16_le"}}).simulate.datatype == "ci16_le"  # former key
+    with pytest.raises(ProfileError, match=r"\[simulate\] format must be cf32 \| ci16 \| ci8 \| cu8, not 'cf64'"):
+        profile_from_dict({"simulate": {"format": "cf64"}})
+    # every name the validator accepts is one pipeline.recording reads and the simulator writes
+    from pipeline.profile import _SIMULATE_FORMATS
+
+    assert set(FORMATS) <= set(_SIMULATE_FORMATS) <= set(FORMATS) | set(RAW_FORMAT_ALIASES.values())
+    prof = profile_from_dict({"simulate": {"format": "ci8", "seconds": 0.1}})
+    res = simulate(prof, tmp_path)
+    import json
+
+    # SigMF specification: the metadata spells the datatype as the standard does
+    assert json.loads(res.meta_path.read_text())["global"]["core:datatype"] == sample_format("ci8").name == "ci8"

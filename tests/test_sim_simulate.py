@@ -248,8 +248,10 @@ def test_refuses_to_overwrite_and_bad_arguments(tmp_path):
     simulate(prof, tmp_path)
     with pytest.raises(OutputError, match="exists"):
         simulate(prof, tmp_path)
-    with pytest.raises(ValueError, match="Argument 'datatype'"):
-        simulate(prof, tmp_path / "x", datatype="cu8")
+    with pytest.raises(ValueError, match=r"Argument 'format' must be cf32 \| ci16 \| ci8 \| cu8, not 'cf64'"):
+        simulate(prof, tmp_path / "x", format="cf64")
+    with pytest.raises(ValueError, match="former name of 'format'"):
+        simulate(prof, tmp_path / "x", format="cf32", datatype="ci16_le")
     with pytest.raises(ValueError, match="Argument 'seconds' must be > 0"):
         simulate(prof, tmp_path / "y", seconds=0.0)
     with pytest.raises(TypeError, match="Argument 'fades'"):

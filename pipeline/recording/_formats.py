@@ -9,14 +9,23 @@ import numpy as np
 
 __all__ = [
     "Datatype",
+    "Format",
+    "FORMATS",
+    "FORMAT_CHOICES",
     "SampleFormat",
     "SAMPLE_FORMATS",
     "RAW_FORMAT_ALIASES",
     "sample_format",
 ]
 
-#: Complex datatypes this package reads and writes, by their SigMF names.
+#: Complex datatypes this package reads and writes, by their SigMF names (as metadata spells them).
 Datatype = Literal["cf32_le", "cf32_be", "ci16_le", "ci16_be", "ci8", "cu8"]
+
+#: The sample formats a user names (``--format``, ``[simulate] format``): little-endian interleaved I/Q.
+Format = Literal["cf32", "ci16", "ci8", "cu8"]
+FORMATS: tuple[str, ...] = ("cf32", "ci16", "ci8", "cu8")
+#: How messages list them.
+FORMAT_CHOICES = "|".join(FORMATS)
 
 
 @dataclass(frozen=True)
@@ -44,6 +53,14 @@ class SampleFormat:
     scale: float
     offset: float
     is_float: bool
+
+    @property
+    def short_name(self) -> str:
+        """The user's name (``--format``): ``cf32``, ``ci16``, ``ci8``, ``cu8``; big-endian types keep theirs."""
+        for short, full in RAW_FORMAT_ALIASES.items():
+            if full == self.name:
+                return short
+        return self.name
 
     @property
     def bytes_per_sample(self) -> int:
@@ -75,17 +92,22 @@ SAMPLE_FORMATS: dict[str, SampleFormat] = {
     "cu8": SampleFormat("cu8", np.dtype("u1"), 1.0 / 128.0, 127.5, False),
 }
 
-#: Short names accepted for raw files (``--format cf32|ci16|ci8|cu8``): little-endian.
+#: The user's names (:data:`FORMATS`) and the SigMF datatypes they stand for: little-endian.
 RAW_FORMAT_ALIASES: dict[str, str] = {"cf32": "cf32_le", "ci16": "ci16_le", "ci8": "ci8", "cu8": "cu8"}
 
 
 def sample_format(name: str) -> SampleFormat:
-    """The :class:`SampleFormat` for a SigMF datatype name or raw alias.
+    """The :class:`SampleFormat` for a user's format name (``cf32``) or a SigMF datatype (``cf32_le``).
 
     Raises
     ------
     ValueError
         When the name is not one of :data:`SAMPLE_FORMATS` or :data:`RAW_FORMAT_ALIASES`.
+
+    Examples
+    --------
+    >>> sample_format("ci16").name, sample_format("ci16").bytes_per_sample, sample_format("ci16_le").short_name
+    ('ci16_le', 4, 'ci16')
     """
     if not isinstance(name, str):
         raise TypeError(f"Argument 'datatype' must be a string, not {type(name).__name__}.")

@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import bisect
-import json
-import math
 import os
 import struct
 from collections.abc import Iterator
@@ -16,8 +14,22 @@ from typing import Any
 import numpy as np
 
 from pipeline.errors import RecordingError
-from pipeline.recording._formats import SampleFormat, sample_format
+from pipeline.recording._formats import FORMAT_CHOICES, SampleFormat, sample_format
+from pipeline.recording._integrity import BackgroundFeed, DatasetChecksum
 from pipeline.recording._kernels import float_iq_to_complex64, int_iq_to_complex64
+from pipeline.recording._sigmf import (
+    MAX_META_BYTES,
+    SAMPLE_COUNT_KEY,
+    SIGMF_ARCHIVE_SUFFIX,
+    SIGMF_DATA_SUFFIX,
+    SIGMF_META_SUFFIX,
+    archive_members,
+    check_frequency,
+    check_sample_rate,
+    describe_metadata,
+    parse_metadata,
+    validate_metadata,
+)
 from pipeline.recording._time import NS_PER_S, parse_iso8601_ns
 
 __all__ = [
@@ -25,15 +37,13 @@ __all__ = [
     "Chunk",
     "Recording",
     "open_recording",
+    "RAW_NEEDS",
     "SIGMF_META_SUFFIX",
     "SIGMF_DATA_SUFFIX",
 ]
 
-SIGMF_META_SUFFIX = ".sigmf-meta"
-SIGMF_DATA_SUFFIX = ".sigmf-data"
-
-# Largest metadata file we parse: real ones are kilobytes; a huge one is a mistake, not a recording.
-_MAX_META_BYTES = 64 << 20
+#: What a user is told when a raw recording lacks its description.
+RAW_NEEDS = f"a raw recording needs --format {FORMAT_CHOICES} and --sample-rate"
 
 
 @dataclass(frozen=True)
@@ -107,8 +117,9 @@ class Recording:
         The parsed datatype.
     sample_rate_hz : float
         Samples per second.
-    num_samples : int
-        Complex samples in the file.
+    num_samples : int or None
+        Complex samples in the file (None for a live stream until it has ended, see
+        :class:`~pipeline.recording.SampleStream`).
     captures : tuple of Capture
         Capture segments sorted by ``sample_start``; the first starts at sample 0 or later.
     frequency_hz : float or None
@@ -123,6 +134,17 @@ class Recording:
     data_offset_bytes : int
         Octets before the first sample (a WAV header, SigMF ``core:header_bytes``, the position of
         the data member in an archive).
+    sha512 : str or None
+        SigMF ``core:sha512`` of the dataset (lower case), None when the metadata gives none.
+    dataset_span : tuple of int
+        ``(offset, size)`` in octets of the dataset inside ``path``, the octets ``core:sha512``
+        covers: the whole data file of a pair, the data member of an archive.
+    verify_checksum : bool
+        False when the caller skipped the ``core:sha512`` check (``open_recording(...,
+        verify_checksum=False)``).
+    checksum_verified : bool
+        True once :meth:`chunks` has read the whole recording and its octets matched
+        ``core:sha512`` (for the report); False until then and when there is nothing to check.
     """
 
     def __init__(
@@ -137,6 +159,9 @@ class Recording:
         metadata: dict,
         data_offset_bytes: int = 0,
         meta_path: Path | None = None,
+        sha512: str | None = None,
+        dataset_span: tuple[int, int] | None = None,
+        verify_checksum: bool = True,
     ) -> None:
         self.path = Path(path)
         self.meta_path = meta_path
@@ -144,10 +169,16 @@ class Recording:
         self.sample_format = fmt
         self.datatype = fmt.name
         self.sample_rate_hz = float(sample_rate_hz)
-        self.num_samples = int(num_samples)
+        self.num_samples = None if num_samples is None else int(num_samples)
         self.captures = tuple(captures)
         self.metadata = metadata
         self.data_offset_bytes = int(data_offset_bytes)
+        self.sha512 = sha512
+        if dataset_span is None and self.num_samples is not None:
+            dataset_span = (0, self.data_offset_bytes + self.num_samples * fmt.bytes_per_sample)
+        self.dataset_span = dataset_span
+        self.verify_checksum = bool(verify_checksum)
+        self.checksum_verified = False
         self._starts = [c.sample_start for c in self.captures]
         # Exact rational rate: utc_ns() is then exact integer arithmetic however long the pass.
         self._rate = Fraction(self.sample_rate_hz)
@@ -163,9 +194,9 @@ class Recording:
         return self.utc_ns(0)
 
     @property
-    def duration_s(self) -> float:
-        """``num_samples / sample_rate_hz``."""
-        return self.num_samples / self.sample_rate_hz
+    def duration_s(self) -> float | None:
+        """``num_samples / sample_rate_hz`` (None while a stream's length is unknown)."""
+        return None if self.num_samples is None else self.num_samples / self.sample_rate_hz
 
     @property
     def annotations(self) -> list:
@@ -223,7 +254,39 @@ class Recording:
             raise ValueError(f"Argument 'stop' must be {start}..{self.num_samples}, not {stop}.")
         return start, stop
 
-    def _convert(self, start: int, count: int) -> Chunk:
+    def checksum(self) -> DatasetChecksum | None:
+        """A fresh :class:`DatasetChecksum` for the ``core:sha512`` check, None when there is none to do.
+
+        None when the metadata holds no ``core:sha512`` or the check was skipped
+        (``verify_checksum=False``).  :meth:`chunks` runs the check by itself when it reads the
+        whole recording in order; a caller reading out of order (a segmented decode) runs this
+        object instead, for example ``fut = rec.checksum().verify_in_background()`` while the
+        workers decode and ``fut.result()`` before it marks the output complete.
+        """
+        if self.sha512 is None or not self.verify_checksum or self.dataset_span is None:
+            return None
+        offset, size = self.dataset_span
+        return DatasetChecksum(path=self.path, expected=self.sha512, offset_bytes=offset, size_bytes=size,
+                               meta_name="" if self.meta_path is None else self.meta_path.name)
+
+    def _hash_span(self, check: DatasetChecksum, lo: int, hi: int) -> None:
+        """Feed the octets ``[lo, hi)`` of ``path`` (a header or a trailer) into ``check``."""
+        if hi <= lo:
+            return
+        try:
+            with open(self.path, "rb") as fh:
+                fh.seek(lo)
+                while lo < hi:
+                    block = fh.read(min(hi - lo, 1 << 22))
+                    if not block:
+                        raise RecordingError(f"{self.path}: ends at byte {lo}, before the {hi} bytes its metadata "
+                                             f"describes; it changed during the decode")
+                    check.update(block)
+                    lo += len(block)
+        except OSError as exc:
+            raise RecordingError(f"{self.path}: cannot read ({exc.strerror})") from None
+
+    def _convert(self, start: int, count: int, feed: BackgroundFeed | None = None) -> Chunk:
         fmt = self.sample_format
         out = np.empty(count, dtype=np.complex64)
         if count == 0:
@@ -240,6 +303,8 @@ class Recording:
             raise RecordingError(f"{self.path}: cannot read samples {start}..{start + count} ({exc})") from None
         # A fresh map per chunk (dropped on return) keeps resident memory at one chunk.
         raw = raw.view(np.ndarray)
+        if feed is not None:
+            feed.put(raw)
         comps = raw if fmt.native else raw.astype(fmt.component_dtype.newbyteorder("="))
         if fmt.is_float:
             bad = int(float_iq_to_complex64(comps, out))
@@ -259,7 +324,8 @@ class Recording:
             stop = start + int(count)
         return self._convert(start, stop - start)
 
-    def chunks(self, chunk_samples: int, start: int = 0, stop: int | None = None) -> Iterator[Chunk]:
+    def chunks(self, chunk_samples: int, start: int = 0, stop: int | None = None, *,
+               verify: bool = True) -> Iterator[Chunk]:
         """Yield consecutive :class:`Chunk` objects of ``chunk_samples`` samples (the last may be shorter).
 
         Parameters
@@ -268,11 +334,23 @@ class Recording:
             Samples per chunk, at least 1.
         start, stop : int
             Sample range ``[start, stop)``; ``stop=None`` means the end of the recording.
+        verify : bool, keyword-only
+            When the range is the whole recording, check ``core:sha512`` on the way (see
+            :meth:`checksum`); False leaves the check to the caller.
+
+        Raises
+        ------
+        RecordingError
+            After the last chunk, when the octets read do not match ``core:sha512``: nothing
+            decoded from them may be marked complete.
 
         Notes
         -----
         Each chunk maps just its own bytes read-only, converts them in one pass (numba kernel,
-        O(n)) and unmaps them, so resident memory is O(chunk_samples).
+        O(n)) and unmaps them, so resident memory is O(chunk_samples).  The checksum hashes the
+        same mapped octets, in file order, plus a Non-Conforming Dataset's header and trailer
+        (one SHA-512 pass, about 0.7 GB/s), in a thread of its own (:class:`BackgroundFeed`) so
+        that it overlaps with the caller's work on the next chunk.
         """
         if isinstance(chunk_samples, (bool, np.bool_)) or not isinstance(chunk_samples, (int, np.integer)):
             raise TypeError(f"Argument 'chunk_samples' must be an integer, not {type(chunk_samples).__name__}.")
@@ -280,11 +358,29 @@ class Recording:
             raise ValueError(f"Argument 'chunk_samples' must be >= 1, not {chunk_samples}.")
         start, stop = self._check_range(start, stop)
         chunk_samples = int(chunk_samples)
-        pos = start
-        while pos < stop:
-            n = min(chunk_samples, stop - pos)
-            yield self._convert(pos, n)
-            pos += n
+        check = self.checksum() if verify and start == 0 and stop == self.num_samples else None
+        if check is None:
+            pos = start
+            while pos < stop:
+                n = min(chunk_samples, stop - pos)
+                yield self._convert(pos, n)
+                pos += n
+            return
+        first = self.data_offset_bytes
+        self._hash_span(check, check.offset_bytes, first)
+        feed = BackgroundFeed(check)
+        try:
+            pos = start
+            while pos < stop:
+                n = min(chunk_samples, stop - pos)
+                yield self._convert(pos, n, feed)
+                pos += n
+        finally:
+            feed.join()
+        end = check.offset_bytes + check.size_bytes
+        self._hash_span(check, first + stop * self.sample_format.bytes_per_sample, end)
+        check.finish()
+        self.checksum_verified = True
 
 
 # ---- opening --------------------------------------------------------------------------------
@@ -293,29 +389,39 @@ class Recording:
 def open_recording(
     path: str | os.PathLike,
     *,
-    datatype: str | None = None,
+    format: str | None = None,
     sample_rate_hz: float | None = None,
     start: str | int | None = None,
     frequency_hz: float | None = None,
+    verify_checksum: bool = True,
+    datatype: str | None = None,
 ) -> Recording:
-    """Open an IQ recording: a SigMF pair, a two-channel WAV file or a raw sample file.
+    """Open an IQ recording: a SigMF pair or archive, a two-channel WAV file or a raw sample file.
 
     Parameters
     ----------
     path : str or path-like
         ``x.sigmf-meta`` or ``x.sigmf-data`` (either names the pair; ``x`` also finds it), an
         uncompressed SigMF archive ``x.sigmf`` (read in place, not extracted), ``x.wav``, or any
-        other file, read as raw interleaved I/Q.
-    datatype : str, optional
-        Raw files only (required there): ``cf32 | ci16 | ci8 | cu8`` or a SigMF name
-        (``cf32_be``, ``ci16_be``...).  Refused for SigMF and WAV, which say what they hold.
+        other file, read as raw interleaved I/Q.  Standard input (``-``) and pipes are live
+        streams: :func:`~pipeline.recording.open_stream`.
+    format : {"cf32", "ci16", "ci8", "cu8"}, optional
+        Raw files only (required there; ``--format``): little-endian interleaved I/Q.  The SigMF
+        names (``cf32_be``, ``ci16_be``...) are accepted too.  Refused for SigMF and WAV, which
+        say what they hold.
     sample_rate_hz : float, optional
-        Required for raw files.  For SigMF and WAV it overrides the rate in the file.
+        Required for raw files (``--sample-rate``), 1 .. 1e12 Hz.  For SigMF and WAV it overrides
+        the rate in the file.
     start : str or int, optional
         UTC of sample 0: ISO-8601 with a zone (``2026-03-14T09:30:00.25Z``) or integer
         nanoseconds since 1970.  For SigMF it replaces the time of the first capture segment.
     frequency_hz : float, optional
-        Centre frequency, when the file does not give one.
+        Centre frequency (> 0 Hz), when the file does not give one.
+    verify_checksum : bool
+        Check SigMF ``core:sha512`` while the whole recording is read (see
+        :meth:`Recording.chunks` and :meth:`Recording.checksum`); False skips it.
+    datatype : str, optional
+        Former name of ``format``.
 
     Returns
     -------
@@ -324,37 +430,62 @@ def open_recording(
     Raises
     ------
     RecordingError
-        One line naming the file and the problem: missing file, missing ``.sigmf-data`` or
-        ``.sigmf-meta``, metadata that is not valid JSON, an unknown datatype, a sample rate that
-        is missing, zero or negative, a size that is not a whole number of samples, no samples.
+        One line naming the file and the problem (and the command-line flag that mends it):
+        missing file, missing ``.sigmf-data`` or ``.sigmf-meta``, metadata that is not UTF-8
+        JSON or breaks the SigMF schema, an unknown or real-valued datatype, a sample rate that
+        is missing or outside 1 .. 1e12 Hz, a centre frequency not above 0, a size that is not a
+        whole number of samples, fewer samples than the metadata describes, no samples.
+
+    Notes
+    -----
+    SigMF metadata is validated against the schema of the ``sigmf`` library (PyPI); see
+    :func:`pipeline.recording._sigmf.describe_metadata` for the rules beyond it and for what the
+    metadata is taken to promise about the data file's length.
 
     References
     ----------
-    SigMF specification (Signal Metadata Format), global/captures/annotations objects and the
-    dataset format; Microsoft/IBM RIFF WAVE format (``fmt `` and ``data`` chunks).
+    SigMF specification 1.2.6 (global, captures and annotations objects, dataset format, archive
+    format); Microsoft/IBM RIFF WAVE format (``fmt `` and ``data`` chunks).
+
+    Examples
+    --------
+    >>> import numpy as np, tempfile, os
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     raw = os.path.join(d, "pass.ci16")
+    ...     np.array([1000, -1000, 0, 16384], dtype="<i2").tofile(raw)
+    ...     rec = open_recording(raw, format="ci16", sample_rate_hz=1e6, start="2026-03-14T09:30:00Z")
+    ...     rec.num_samples, rec.datatype, rec.read().samples[1]
+    (2, 'ci16_le', np.complex64(0.5j))
     """
+    if datatype is not None:
+        if format is not None and format != datatype:
+            raise ValueError("Argument 'datatype' is the former name of 'format'; give only 'format'.")
+        format = datatype
+    if os.fspath(path) == "-":
+        raise RecordingError("-: standard input is a live stream: open it with open_stream() "
+                             "(downlink decode - --format ... --sample-rate ...)")
     p = Path(os.fspath(path))
     name = p.name.lower()
+    opts = (format, sample_rate_hz, start, frequency_hz, verify_checksum)
     if name.endswith(SIGMF_META_SUFFIX) or name.endswith(SIGMF_DATA_SUFFIX):
         base = Path(str(p)[: -len(SIGMF_META_SUFFIX)])
         meta, data = base.with_name(base.name + SIGMF_META_SUFFIX), base.with_name(base.name + SIGMF_DATA_SUFFIX)
-        if name.endswith(SIGMF_DATA_SUFFIX) and not meta.exists() and datatype is not None:
-            return _open_raw(p, datatype, sample_rate_hz, start, frequency_hz)
-        return _open_sigmf(meta, data, datatype, sample_rate_hz, start, frequency_hz)
+        if name.endswith(SIGMF_DATA_SUFFIX) and not meta.exists() and format is not None:
+            return _open_raw(p, *opts)
+        return _open_sigmf(meta, data, *opts)
     if not p.exists():
-        stem = Path(str(p)[: -len(".sigmf")]) if name.endswith(".sigmf") else p
+        stem = Path(str(p)[: -len(SIGMF_ARCHIVE_SUFFIX)]) if name.endswith(SIGMF_ARCHIVE_SUFFIX) else p
         meta = stem.with_name(stem.name + SIGMF_META_SUFFIX)
         if meta.exists():
-            return _open_sigmf(meta, stem.with_name(stem.name + SIGMF_DATA_SUFFIX),
-                               datatype, sample_rate_hz, start, frequency_hz)
+            return _open_sigmf(meta, stem.with_name(stem.name + SIGMF_DATA_SUFFIX), *opts)
         raise RecordingError(f"{p}: recording not found")
     if p.is_dir():
         raise RecordingError(f"{p}: is a folder, not a recording")
-    if name.endswith(".sigmf"):
-        return _open_archive(p, datatype, sample_rate_hz, start, frequency_hz)
-    if name.endswith(".wav") or name.endswith(".wave") or (datatype is None and _looks_like_wav(p)):
-        return _open_wav(p, datatype, sample_rate_hz, start, frequency_hz)
-    return _open_raw(p, datatype, sample_rate_hz, start, frequency_hz)
+    if name.endswith(SIGMF_ARCHIVE_SUFFIX):
+        return _open_archive(p, *opts)
+    if name.endswith(".wav") or name.endswith(".wave") or (format is None and _looks_like_wav(p)):
+        return _open_wav(p, *opts)
+    return _open_raw(p, *opts)
 
 
 def _looks_like_wav(p: Path) -> bool:
@@ -366,32 +497,13 @@ def _looks_like_wav(p: Path) -> bool:
     return len(head) == 12 and head[:4] in (b"RIFF", b"RF64") and head[8:12] == b"WAVE"
 
 
-def _check_rate(p: Path, rate: Any, what: str) -> float:
-    if rate is None:
-        raise RecordingError(f"{p}: sample rate missing ({what})")
-    if isinstance(rate, bool) or not isinstance(rate, (int, float, np.integer, np.floating)):
-        raise RecordingError(f"{p}: sample rate must be a number, not {rate!r}")
-    try:
-        rate = float(rate)
-    except OverflowError:
-        rate = math.inf
-    if not math.isfinite(rate) or rate <= 0:
-        raise RecordingError(f"{p}: sample rate must be a positive number of Hz, not {rate:g}")
-    return rate
+def _check_rate(p: Path, rate: Any) -> float:
+    """A ``--sample-rate`` argument in the accepted range (1 .. 1e12 Hz)."""
+    return check_sample_rate(p, rate, " (--sample-rate)")
 
 
 def _check_frequency(p: Path, freq: Any, what: str) -> float | None:
-    if freq is None:
-        return None
-    if isinstance(freq, bool) or not isinstance(freq, (int, float, np.integer, np.floating)):
-        raise RecordingError(f"{p}: {what} must be a number of Hz, not {freq!r}")
-    try:
-        freq = float(freq)
-    except OverflowError:
-        freq = math.inf
-    if not math.isfinite(freq):
-        raise RecordingError(f"{p}: {what} must be finite, not {freq!r}")
-    return freq
+    return check_frequency(p, freq, what)
 
 
 def _start_ns(p: Path, start: Any, what: str) -> int:
@@ -407,18 +519,14 @@ def _start_ns(p: Path, start: Any, what: str) -> int:
         raise RecordingError(f"{p}: {what}: {exc}") from None
 
 
-def _format_or_error(p: Path, datatype: Any, what: str) -> SampleFormat:
-    if not isinstance(datatype, str):
-        raise RecordingError(f"{p}: {what} must be a string, not {datatype!r}")
+def _format_or_error(p: Path, fmt: Any) -> SampleFormat:
+    """A ``--format`` argument."""
+    if not isinstance(fmt, str):
+        raise RecordingError(f"{p}: --format must be {FORMAT_CHOICES}, not {fmt!r}")
     try:
-        return sample_format(datatype)
+        return sample_format(fmt)
     except ValueError:
-        low = datatype.lower()
-        if low.startswith("r") and len(low) > 1 and low[1] in "fiu":
-            raise RecordingError(f"{p}: datatype {datatype!r} is real-valued; an IQ (complex) recording is needed") \
-                from None
-        raise RecordingError(f"{p}: unknown datatype {datatype!r} (known: cf32_le, cf32_be, ci16_le, ci16_be, "
-                             f"ci8, cu8)") from None
+        raise RecordingError(f"{p}: --format must be {FORMAT_CHOICES}, not {fmt!r}") from None
 
 
 def _count_samples(p: Path, size_bytes: int, header_bytes: int, fmt: SampleFormat) -> int:
@@ -444,16 +552,17 @@ def _file_size(p: Path, missing: str) -> int:
     except OSError as exc:
         raise RecordingError(f"{p}: cannot read ({exc.strerror})") from None
     if not p.is_file():
-        raise RecordingError(f"{p}: not a regular file")
+        raise RecordingError(f"{p}: a pipe or device, not a file: read it as a live stream (open_stream(), "
+                             f"or pipe it into 'downlink decode -')")
     return st.st_size
 
 
-def _open_raw(p, datatype, sample_rate_hz, start, frequency_hz) -> Recording:
+def _open_raw(p, fmt_name, sample_rate_hz, start, frequency_hz, verify_checksum) -> Recording:
     size = _file_size(p, "recording not found")
-    if datatype is None:
-        raise RecordingError(f"{p}: raw recording needs a datatype (cf32 | ci16 | ci8 | cu8)")
-    fmt = _format_or_error(p, datatype, "datatype")
-    rate = _check_rate(p, sample_rate_hz, "give the sample rate of a raw recording")
+    if fmt_name is None or sample_rate_hz is None:
+        raise RecordingError(f"{p}: {RAW_NEEDS}")
+    fmt = _format_or_error(p, fmt_name)
+    rate = _check_rate(p, sample_rate_hz)
     freq = _check_frequency(p, frequency_hz, "frequency")
     n = _count_samples(p, size, 0, fmt)
     t0 = 0 if start is None else _start_ns(p, start, "start time")
@@ -481,87 +590,49 @@ def _synth_meta(fmt: SampleFormat, rate: float, cap: Capture, container: str) ->
 # ---- SigMF ------------------------------------------------------------------------------------
 
 
-def _open_sigmf(meta_path: Path, data_path: Path, datatype, sample_rate_hz, start, frequency_hz) -> Recording:
-    if datatype is not None:
-        raise RecordingError(f"{meta_path}: a SigMF recording names its own datatype; do not give one")
+def _open_sigmf(meta_path: Path, data_path: Path, fmt_name, sample_rate_hz, start, frequency_hz,
+                verify_checksum) -> Recording:
+    if fmt_name is not None:
+        raise RecordingError(f"{meta_path}: a SigMF recording names its own sample format (core:datatype); "
+                             f"leave out --format")
     try:
-        meta_size = meta_path.stat().st_size
+        with open(meta_path, "rb") as fh:
+            raw = fh.read(MAX_META_BYTES + 1)
     except FileNotFoundError:
         raise RecordingError(f"{meta_path}: SigMF metadata file not found") from None
     except OSError as exc:
         raise RecordingError(f"{meta_path}: cannot read ({exc.strerror})") from None
-    if meta_size > _MAX_META_BYTES:
-        raise RecordingError(f"{meta_path}: metadata is {meta_size} bytes, more than a SigMF meta file should be")
-    try:
-        text = meta_path.read_text(encoding="utf-8")
-    except UnicodeDecodeError:
-        raise RecordingError(f"{meta_path}: metadata is not UTF-8 text") from None
-    except OSError as exc:
-        raise RecordingError(f"{meta_path}: cannot read ({exc.strerror})") from None
-    try:
-        meta = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise RecordingError(f"{meta_path}: metadata is not valid JSON ({exc.msg} at line {exc.lineno} "
-                             f"column {exc.colno})") from None
-    except RecursionError:
-        raise RecordingError(f"{meta_path}: metadata is nested too deeply") from None
-    return recording_from_sigmf_meta(meta, meta_path=meta_path, data_path=data_path,
-                                     sample_rate_hz=sample_rate_hz, start=start, frequency_hz=frequency_hz)
+    meta = parse_metadata(raw, meta_path)
+    return recording_from_sigmf_meta(meta, meta_path=meta_path, data_path=data_path, sample_rate_hz=sample_rate_hz,
+                                     start=start, frequency_hz=frequency_hz, verify_checksum=verify_checksum)
 
 
 def recording_from_sigmf_meta(meta: Any, *, meta_path: Path, data_path: Path, sample_rate_hz=None, start=None,
                               frequency_hz=None, data_span: tuple[int, int] | None = None,
-                              container: str = "sigmf") -> Recording:
-    """Validate parsed SigMF metadata and build the :class:`Recording` (see :func:`open_recording`)."""
-    mp = meta_path
-    if not isinstance(meta, dict):
-        raise RecordingError(f"{mp}: metadata must be a JSON object with 'global', 'captures', 'annotations'")
-    glob = meta.get("global")
-    if not isinstance(glob, dict):
-        raise RecordingError(f"{mp}: metadata has no 'global' object")
-    if "core:datatype" not in glob:
-        raise RecordingError(f"{mp}: 'global' has no 'core:datatype'")
-    fmt = _format_or_error(mp, glob["core:datatype"], "core:datatype")
-    channels = glob.get("core:num_channels", 1)
-    if isinstance(channels, bool) or not isinstance(channels, int) or channels < 1:
-        raise RecordingError(f"{mp}: core:num_channels must be a positive integer, not {channels!r}")
-    if channels != 1:
-        raise RecordingError(f"{mp}: core:num_channels is {channels}; only single-channel recordings are read")
-    if sample_rate_hz is not None:
-        rate = _check_rate(mp, sample_rate_hz, "sample_rate_hz argument")
-    else:
-        rate = _check_rate(mp, glob.get("core:sample_rate"), "'global' has no 'core:sample_rate'")
-    for key in ("core:version", "core:description", "core:recorder", "core:author"):
-        if key in glob and not isinstance(glob[key], str):
-            raise RecordingError(f"{mp}: {key} must be a string, not {glob[key]!r}")
-    if glob.get("core:dataset") is not None and data_span is None:
-        # Non-conforming dataset named in the metadata (SigMF "core:dataset"): a file beside the meta.
-        ds = glob["core:dataset"]
-        if not isinstance(ds, str) or not ds or "/" in ds or "\\" in ds or ds in (".", ".."):
-            raise RecordingError(f"{mp}: core:dataset must be a file name beside the metadata, not {ds!r}")
-        data_path = mp.with_name(ds)
+                              container: str = "sigmf", verify_checksum: bool = True) -> Recording:
+    """Validate parsed SigMF metadata and build the :class:`Recording` (see :func:`open_recording`).
 
-    caps_in = meta.get("captures", [])
-    if not isinstance(caps_in, list):
-        raise RecordingError(f"{mp}: 'captures' must be a list")
-    header_bytes = 0
+    ``data_span`` is ``(offset, size)`` of the dataset inside ``data_path`` (an archive member);
+    None means the whole file.
+    """
+    mp = meta_path
+    validate_metadata(meta, mp)
+    desc = describe_metadata(meta, mp)
+    fmt = desc.format
+    if sample_rate_hz is not None:
+        rate = _check_rate(mp, sample_rate_hz)
+    elif desc.sample_rate_hz is None:
+        raise RecordingError(f"{mp}: 'global' has no core:sample_rate; give it with --sample-rate")
+    else:
+        rate = desc.sample_rate_hz
+    if desc.dataset is not None and data_span is None:
+        # Non-conforming dataset named in the metadata (SigMF "core:dataset"): a file beside the meta.
+        data_path = mp.with_name(desc.dataset)
+
     parsed: list[tuple[int, int | None, float | None]] = []
-    for i, c in enumerate(caps_in):
-        if not isinstance(c, dict):
-            raise RecordingError(f"{mp}: capture {i} must be an object")
-        s0 = c.get("core:sample_start", 0 if i == 0 else None)
-        if isinstance(s0, bool) or not isinstance(s0, int) or s0 < 0:
-            raise RecordingError(f"{mp}: capture {i} core:sample_start must be a non-negative integer, not {s0!r}")
-        if parsed and s0 <= parsed[-1][0]:
-            raise RecordingError(f"{mp}: capture {i} core:sample_start {s0} is not after the previous one")
-        hb = c.get("core:header_bytes", 0)
-        if isinstance(hb, bool) or not isinstance(hb, int) or hb < 0:
-            raise RecordingError(f"{mp}: capture {i} core:header_bytes must be a non-negative integer, not {hb!r}")
-        if hb and i > 0:
-            raise RecordingError(f"{mp}: core:header_bytes in capture {i}: only a header before the first "
-                                 f"capture is supported")
-        header_bytes += hb
-        dt = c.get("core:datetime")
+    for i, c in enumerate(desc.captures):
+        s0 = c.sample_start
+        dt = c.datetime
         dt_ns = None
         if dt is not None:
             if not isinstance(dt, str):
@@ -570,10 +641,7 @@ def recording_from_sigmf_meta(meta: Any, *, meta_path: Path, data_path: Path, sa
                 dt_ns = parse_iso8601_ns(dt)
             except ValueError as exc:
                 raise RecordingError(f"{mp}: capture {i} core:datetime: {exc}") from None
-        freq = _check_frequency(mp, c.get("core:frequency"), f"capture {i} core:frequency")
-        parsed.append((s0, dt_ns, freq))
-    if not parsed:
-        parsed.append((0, None, None))
+        parsed.append((s0, dt_ns, c.frequency_hz))
     if start is not None:
         s0, _, f0 = parsed[0]
         t = _start_ns(mp, start, "start time")
@@ -583,32 +651,35 @@ def recording_from_sigmf_meta(meta: Any, *, meta_path: Path, data_path: Path, sa
         f = _check_frequency(mp, frequency_hz, "frequency")
         parsed = [(s, t, f if fr is None else fr) for s, t, fr in parsed]
 
-    ann = meta.get("annotations", [])
-    if not isinstance(ann, list):
-        raise RecordingError(f"{mp}: 'annotations' must be a list")
-    for i, a in enumerate(ann):
-        if not isinstance(a, dict):
-            raise RecordingError(f"{mp}: annotation {i} must be an object")
-        s = a.get("core:sample_start")
-        if isinstance(s, bool) or not isinstance(s, int) or s < 0:
-            raise RecordingError(f"{mp}: annotation {i} core:sample_start must be a non-negative integer, not {s!r}")
-        cnt = a.get("core:sample_count", 0)
-        if isinstance(cnt, bool) or not isinstance(cnt, int) or cnt < 0:
-            raise RecordingError(f"{mp}: annotation {i} core:sample_count must be a non-negative integer, "
-                                 f"not {cnt!r}")
-
     if data_span is None:
         base_offset = 0
         size = _file_size(data_path, f"SigMF dataset file missing (expected beside {mp.name})")
     else:  # inside an archive: the data member's offset and size
         base_offset, size = data_span
-    n = _count_samples(data_path, size, header_bytes, fmt)
-    if parsed[-1][0] >= n:
-        raise RecordingError(f"{mp}: capture core:sample_start {parsed[-1][0]} is beyond the {n} samples "
-                             f"of {data_path.name}")
+    if desc.trailing_bytes > size:
+        raise RecordingError(f"{data_path}: file is shorter ({size} bytes) than its {desc.trailing_bytes} "
+                             f"core:trailing_bytes")
+    n = _count_samples(data_path, size - desc.trailing_bytes, desc.header_bytes, fmt)
+    _check_promised_length(mp, data_path, n, fmt, desc)
     captures = _resolve_times(parsed, rate)
     return Recording(path=data_path, container=container, fmt=fmt, sample_rate_hz=rate, num_samples=n,
-                     captures=captures, metadata=meta, data_offset_bytes=base_offset + header_bytes, meta_path=mp)
+                     captures=captures, metadata=meta, data_offset_bytes=base_offset + desc.header_bytes,
+                     meta_path=mp, sha512=desc.sha512, dataset_span=(base_offset, size),
+                     verify_checksum=verify_checksum)
+
+
+def _check_promised_length(mp: Path, data_path: Path, n: int, fmt: SampleFormat, desc) -> None:
+    """The data file holds the samples the metadata describes (see ``describe_metadata``, Notes)."""
+    bps = fmt.bytes_per_sample
+    holds = f"{data_path}: holds {n} samples ({n * bps} bytes)"
+    if desc.exact_samples is not None and n != desc.exact_samples:
+        m = desc.exact_samples
+        why = "; the data file is incomplete" if n < m else ""
+        raise RecordingError(f"{holds} but {mp.name} says {SAMPLE_COUNT_KEY} = {m} ({m * bps} bytes){why}")
+    if n < desc.min_samples:
+        m = desc.min_samples
+        raise RecordingError(f"{holds} but {mp.name} describes at least {m} ({m * bps} bytes; "
+                             f"{desc.min_samples_why}); the data file is incomplete")
 
 
 def _resolve_times(parsed: list[tuple[int, int | None, float | None]], rate: float) -> tuple[Capture, ...]:
@@ -635,64 +706,30 @@ def _resolve_times(parsed: list[tuple[int, int | None, float | None]], rate: flo
     return tuple(caps)
 
 
-def _open_archive(p: Path, datatype, sample_rate_hz, start, frequency_hz) -> Recording:
-    """A SigMF archive: an uncompressed tar holding one ``.sigmf-meta`` and its ``.sigmf-data``.
-
-    A tar member's bytes are contiguous in the archive, so the samples are mapped in place at the
-    member's data offset; nothing is extracted.
-    """
-    import tarfile
-
-    if datatype is not None:
-        raise RecordingError(f"{p}: a SigMF recording names its own datatype; do not give one")
-    try:
-        with open(p, "rb") as fh:
-            magic = fh.read(6)
-        if magic[:2] == b"\x1f\x8b" or magic == b"\xfd7zXZ\x00" or magic[:3] == b"BZh" or magic[:4] == b"PK\x03\x04":
-            raise RecordingError(f"{p}: compressed SigMF archive: decompress it (or extract the pair) first, "
-                                 f"samples are read in place from an uncompressed tar only")
-        with tarfile.open(p, mode="r:") as tar:
-            members = tar.getmembers()
-            metas = [m for m in members if m.isfile() and m.name.lower().endswith(SIGMF_META_SUFFIX)]
-            if len(metas) != 1:
-                raise RecordingError(f"{p}: SigMF archive holds {len(metas)} recordings; exactly one can be opened")
-            meta_m = metas[0]
-            if meta_m.size > _MAX_META_BYTES:
-                raise RecordingError(f"{p}: metadata in the archive is too large ({meta_m.size} bytes)")
-            raw_meta = tar.extractfile(meta_m).read()
-            by_name = {m.name: m for m in members if m.isfile()}
-    except tarfile.TarError as exc:
-        raise RecordingError(f"{p}: not a readable SigMF archive (tar: {exc})") from None
-    except OSError as exc:
-        raise RecordingError(f"{p}: cannot read ({exc.strerror})") from None
-    try:
-        meta = json.loads(raw_meta.decode("utf-8"))
-    except UnicodeDecodeError:
-        raise RecordingError(f"{p}: metadata in the archive is not UTF-8 text") from None
-    except json.JSONDecodeError as exc:
-        raise RecordingError(f"{p}: metadata in the archive is not valid JSON ({exc.msg} at line {exc.lineno} "
-                             f"column {exc.colno})") from None
-    except RecursionError:
-        raise RecordingError(f"{p}: metadata in the archive is nested too deeply") from None
-    data_name = meta_m.name[: -len(SIGMF_META_SUFFIX)] + SIGMF_DATA_SUFFIX
-    data_m = by_name.get(data_name)
-    if data_m is None:
-        raise RecordingError(f"{p}: SigMF archive has no {Path(data_name).name} beside {Path(meta_m.name).name}")
+def _open_archive(p: Path, fmt_name, sample_rate_hz, start, frequency_hz, verify_checksum) -> Recording:
+    """A SigMF archive (uncompressed tar), its samples mapped in place (see ``archive_members``)."""
+    if fmt_name is not None:
+        raise RecordingError(f"{p}: a SigMF recording names its own sample format (core:datatype); leave out --format")
+    raw, offset, size = archive_members(p)
+    meta = parse_metadata(raw, p)
     return recording_from_sigmf_meta(meta, meta_path=p, data_path=p, sample_rate_hz=sample_rate_hz, start=start,
-                                     frequency_hz=frequency_hz, data_span=(data_m.offset_data, data_m.size),
-                                     container="sigmf-archive")
+                                     frequency_hz=frequency_hz, data_span=(offset, size), container="sigmf-archive",
+                                     verify_checksum=verify_checksum)
 
 
 # ---- WAV -------------------------------------------------------------------------------------
 
 
-def _open_wav(p: Path, datatype, sample_rate_hz, start, frequency_hz) -> Recording:
+def _open_wav(p: Path, fmt_given, sample_rate_hz, start, frequency_hz, verify_checksum) -> Recording:
     size = _file_size(p, "recording not found")
-    if datatype is not None:
-        raise RecordingError(f"{p}: a WAV file names its own sample format; do not give a datatype")
+    if fmt_given is not None:
+        raise RecordingError(f"{p}: a WAV file names its own sample format; leave out --format")
     fmt_name, rate_in_file, data_offset, data_bytes = _parse_wav(p, size)
     fmt = sample_format(fmt_name)
-    rate = _check_rate(p, sample_rate_hz if sample_rate_hz is not None else rate_in_file, "WAV header")
+    if sample_rate_hz is not None:
+        rate = _check_rate(p, sample_rate_hz)
+    else:
+        rate = check_sample_rate(p, rate_in_file, " (WAV header; --sample-rate overrides it)")
     freq = _check_frequency(p, frequency_hz, "frequency")
     if data_offset + data_bytes > size:
         raise RecordingError(f"{p}: truncated: the data chunk declares {data_bytes} bytes but only "

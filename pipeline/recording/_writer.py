@@ -14,13 +14,18 @@ import numpy as np
 from pipeline.errors import OutputError
 from pipeline.recording._formats import sample_format
 from pipeline.recording._kernels import complex_to_int_iq
-from pipeline.recording._recording import SIGMF_DATA_SUFFIX, SIGMF_META_SUFFIX
+from pipeline.recording._sigmf import (
+    MAX_FREQUENCY_HZ,
+    MAX_SAMPLE_RATE_HZ,
+    MIN_SAMPLE_RATE_HZ,
+    SAMPLE_COUNT_KEY,
+    SIGMF_DATA_SUFFIX,
+    SIGMF_META_SUFFIX,
+    metadata_text,
+)
 from pipeline.recording._time import format_iso8601_ns
 
-__all__ = ["SigmfWriter", "SIGMF_VERSION"]
-
-#: ``core:version`` written into new metadata (SigMF specification release, from memory, not confirmed).
-SIGMF_VERSION = "1.2.0"
+__all__ = ["SigmfWriter"]
 
 
 class SigmfWriter:
@@ -31,17 +36,20 @@ class SigmfWriter:
     base_path : str or path-like
         Path without suffix (a trailing ``.sigmf-meta`` / ``.sigmf-data`` is removed).
     sample_rate_hz : float
-        ``core:sample_rate``, > 0.
+        ``core:sample_rate``, 1 .. 1e12 Hz (what the reader accepts).
     datatype : str
-        ``cf32_le`` (default), ``cf32_be``, ``ci16_le``, ``ci16_be``, ``ci8`` or ``cu8``.
+        ``cf32`` (default), ``ci16``, ``ci8``, ``cu8`` (little-endian; the user's ``--format``
+        names) or a SigMF name (``cf32_le``, ``cf32_be``, ``ci16_le``, ``ci16_be``).  The metadata
+        holds the SigMF name.
     datetime_ns : int
         UTC of the first sample, nanoseconds since 1970 (``core:datetime`` of the capture).
     frequency_hz : float, optional
-        ``core:frequency`` of the capture.
+        ``core:frequency`` of the capture, above 0 and up to 1e12 Hz.
     description : str
         ``core:description``.
     extra_global : dict, optional
-        More ``global`` fields (names should carry a namespace, ``"tamarisk:pass_id"``).
+        More ``global`` fields.  Names carry a namespace (``"tamarisk:pass_id"``) declared in a
+        ``core:extensions`` entry (``downlink`` is declared by the writer itself).
     scale : float
         Integer datatypes: samples are multiplied by ``scale`` before quantising, and a value of
         1.0 then maps to the full-scale code (32768 for ci16, 128 for ci8/cu8), the inverse of the
@@ -62,13 +70,28 @@ class SigmfWriter:
     Notes
     -----
     The data file is written as it comes (O(chunk) memory); its SHA-512 (``core:sha512``) is
-    updated on the way.  :meth:`close` writes the metadata with one capture segment and the
-    annotations added with :meth:`annotate`.
+    updated on the way.  :meth:`close` writes the metadata with one capture segment, the
+    annotations added with :meth:`annotate` and ``downlink:sample_count`` (the exact number of
+    samples, so a reader can tell a truncated copy at once); the ``sigmf`` library builds,
+    validates against the SigMF schema and serialises it (``core:version`` is the library's).
+    Leaving the ``with`` block by an exception calls :meth:`abort`: no metadata, no data file.
 
     References
     ----------
-    SigMF specification: global object (``core:datatype``, ``core:sample_rate``, ``core:version``,
-    ``core:sha512``, ``core:description``, ``core:recorder``), captures and annotations objects.
+    SigMF specification 1.2.6: global object (``core:datatype``, ``core:sample_rate``,
+    ``core:version``, ``core:sha512``, ``core:description``, ``core:recorder``,
+    ``core:extensions``), captures and annotations objects.
+
+    Examples
+    --------
+    >>> import numpy as np, tempfile, os
+    >>> from pipeline.recording import open_recording
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     with SigmfWriter(os.path.join(d, "pass"), sample_rate_hz=1e6, datatype="ci16", datetime_ns=0) as w:
+    ...         w.write(np.full(1000, 0.25 + 0.5j, dtype=np.complex64))
+    ...     rec = open_recording(os.path.join(d, "pass.sigmf-meta"))
+    ...     rec.datatype, rec.num_samples, rec.metadata["global"]["downlink:sample_count"]
+    ('ci16_le', 1000, 1000)
     """
 
     def __init__(
@@ -76,7 +99,7 @@ class SigmfWriter:
         base_path: str | os.PathLike,
         *,
         sample_rate_hz: float,
-        datatype: str = "cf32_le",
+        datatype: str = "cf32",
         datetime_ns: int,
         frequency_hz: float | None = None,
         description: str = "",
@@ -90,15 +113,17 @@ class SigmfWriter:
             base = base.with_name(base.name[: -len(SIGMF_META_SUFFIX)])
         if isinstance(sample_rate_hz, bool) or not isinstance(sample_rate_hz, (int, float, np.integer, np.floating)):
             raise TypeError(f"Argument 'sample_rate_hz' must be a number, not {type(sample_rate_hz).__name__}.")
-        if not (math.isfinite(sample_rate_hz) and sample_rate_hz > 0):
-            raise ValueError(f"Argument 'sample_rate_hz' must be > 0 and finite, not {sample_rate_hz!r}.")
+        if not (MIN_SAMPLE_RATE_HZ <= sample_rate_hz <= MAX_SAMPLE_RATE_HZ):
+            raise ValueError(f"Argument 'sample_rate_hz' must be {MIN_SAMPLE_RATE_HZ:g} .. {MAX_SAMPLE_RATE_HZ:g} Hz, "
+                             f"not {sample_rate_hz!r}.")
         self.format = sample_format(datatype)
         if isinstance(datetime_ns, bool) or not isinstance(datetime_ns, (int, np.integer)):
             raise TypeError(f"Argument 'datetime_ns' must be an integer, not {type(datetime_ns).__name__}.")
         if frequency_hz is not None and not (
-            isinstance(frequency_hz, (int, float, np.integer, np.floating)) and math.isfinite(frequency_hz)
+            isinstance(frequency_hz, (int, float, np.integer, np.floating)) and 0 < frequency_hz <= MAX_FREQUENCY_HZ
         ):
-            raise ValueError(f"Argument 'frequency_hz' must be a finite number or None, not {frequency_hz!r}.")
+            raise ValueError(f"Argument 'frequency_hz' must be above 0 and up to {MAX_FREQUENCY_HZ:g} Hz, or None, "
+                             f"not {frequency_hz!r}.")
         if not isinstance(description, str):
             raise TypeError(f"Argument 'description' must be a string, not {type(description).__name__}.")
         if extra_global is not None and not isinstance(extra_global, dict):
@@ -123,6 +148,7 @@ class SigmfWriter:
         self.nonfinite = 0
         self._annotations: list[dict[str, Any]] = []
         self._sha = hashlib.sha512()
+        self.metadata_text()  # a bad extra_global fails here, before anything is written
         fmt = self.format
         if not fmt.is_float:
             info = np.iinfo(fmt.component_dtype)
@@ -138,8 +164,22 @@ class SigmfWriter:
     def __enter__(self) -> SigmfWriter:
         return self
 
-    def __exit__(self, *exc) -> None:
-        self.close()
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if exc_type is None:
+            self.close()
+        else:
+            self.abort()
+
+    def abort(self) -> None:
+        """Stop without writing metadata and remove the data file written so far (nothing looks complete)."""
+        if self.closed:
+            return
+        self.closed = True
+        self._fh.close()
+        try:
+            self.data_path.unlink()
+        except OSError:
+            pass
 
     def write(self, samples: np.ndarray) -> None:
         """Append complex samples (any complex or real array, cast to the file's datatype)."""
@@ -188,15 +228,21 @@ class SigmfWriter:
         ann.update(fields)
         self._annotations.append(ann)
 
-    def metadata(self) -> dict:
-        """The metadata :meth:`close` writes (as of now)."""
+    def metadata_text(self) -> str:
+        """The metadata :meth:`close` writes (as of now), as JSON text made by the ``sigmf`` library.
+
+        Raises
+        ------
+        ValueError
+            ``extra_global`` or an annotation field breaks the SigMF schema.
+        """
         glob: dict[str, Any] = {
             "core:datatype": self.format.name,
             "core:sample_rate": self.sample_rate_hz,
-            "core:version": SIGMF_VERSION,
             "core:num_channels": 1,
             "core:sha512": self._sha.hexdigest(),
             "core:recorder": "downlink",
+            SAMPLE_COUNT_KEY: self.num_samples,
         }
         if self.description:
             glob["core:description"] = self.description
@@ -204,17 +250,23 @@ class SigmfWriter:
         capture: dict[str, Any] = {"core:sample_start": 0, "core:datetime": format_iso8601_ns(self.datetime_ns)}
         if self.frequency_hz is not None:
             capture["core:frequency"] = self.frequency_hz
-        # SigMF: annotations sorted by core:sample_start.
-        ann = sorted(self._annotations, key=lambda a: a["core:sample_start"])
-        return {"global": glob, "captures": [capture], "annotations": ann}
+        return metadata_text(glob, [capture], self._annotations)
+
+    def metadata(self) -> dict:
+        """The metadata :meth:`close` writes (as of now), as a dict."""
+        return json.loads(self.metadata_text())
 
     def close(self) -> None:
         """Close the data file and write the metadata.  Calling it again does nothing."""
         if self.closed:
             return
+        try:
+            text = self.metadata_text()
+        except ValueError:
+            self.abort()
+            raise
         self.closed = True
         self._fh.close()
-        text = json.dumps(self.metadata(), indent=2, allow_nan=False)
         try:
             self.meta_path.write_text(text + "\n", encoding="utf-8")
         except OSError as exc:

@@ -102,6 +102,16 @@ def soft_channel_symbols(bits: np.ndarray, gains: np.ndarray, *, esn0_db: float,
     return np.clip(np.rint(levels * SOFT_SCALE), -127, 127).astype(np.int8)
 
 
+def _sample_format_name(name) -> str:
+    """The SigMF datatype for a user's format name (``cf32`` -> ``cf32_le``); SigMF names pass."""
+    from pipeline.recording import FORMAT_CHOICES, sample_format
+
+    try:
+        return sample_format(name).name
+    except (TypeError, ValueError):
+        raise ValueError(f"Argument 'format' must be {FORMAT_CHOICES.replace('|', ' | ')}, not {name!r}.") from None
+
+
 def _pick(value, default):
     return default if value is None else value
 
@@ -143,10 +153,10 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
              seed: int | None = None, carrier_offset_hz: float | None = None,
              doppler_rate_hz_per_s: float | None = None, clock_offset_ppm: float | None = None,
              timing_offset: float | None = None, phase_noise_rad: float | None = None,
-             datatype: str | None = None, fades: Iterable = (), noise: bool = True, write_bits: bool = False,
+             format: str | None = None, fades: Iterable = (), noise: bool = True, write_bits: bool = False,
              write_soft: bool = False, name: str = "recording", doppler_pass: DopplerPass | None = None,
              phase_noise_bandwidth_hz: float = 100.0, nrzm_at: NrzmPosition = "encoder_input",
-             idle: IdleMode = "oid", chunk_frames: int = 4) -> SimulationResult:
+             idle: IdleMode = "oid", chunk_frames: int = 4, datatype: str | None = None) -> SimulationResult:
     """Simulate a pass of a link profile into ``out_dir``.
 
     Parameters
@@ -157,10 +167,11 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
     out_dir :
         Folder to write into (created if missing).  Existing files of the same names are refused.
     seconds, ebn0_db, seed, carrier_offset_hz, doppler_rate_hz_per_s, clock_offset_ppm, timing_offset,
-    phase_noise_rad, datatype :
-        Override the ``[simulate]`` values.  ``ebn0_db`` is per information bit of the codeblock (ASM
-        excluded); ``timing_offset`` is the position of symbol 0 in symbol periods;
-        ``phase_noise_rad`` the RMS of the phase noise.
+    phase_noise_rad, format :
+        Override the ``[simulate]`` values.  ``format`` is the sample format of the recording,
+        ``cf32 | ci16 | ci8 | cu8`` (``--format``; the metadata names it as SigMF does, ``cf32_le``).
+        ``ebn0_db`` is per information bit of the codeblock (ASM excluded); ``timing_offset`` is the
+        position of symbol 0 in symbol periods; ``phase_noise_rad`` the RMS of the phase noise.
     fades :
         ``(start_s, duration_s, depth_db)`` triples; ``depth_db = inf`` (or >= 100) is a dropout.
     noise :
@@ -181,6 +192,8 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
         ``"oid"`` (Only-Idle-Data frames when there is nothing to send) or ``"packets"``.
     chunk_frames :
         Frames per processing step (memory is O(chunk_frames x frame samples)).
+    datatype :
+        Former name of ``format``.
 
     Returns
     -------
@@ -218,9 +231,11 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
     clock_offset_ppm = _check_number("clock_offset_ppm", _pick(clock_offset_ppm, S.clock_offset_ppm))
     timing_offset = _check_number("timing_offset", _pick(timing_offset, S.timing_offset))
     phase_noise_rad = _check_number("phase_noise_rad", _pick(phase_noise_rad, S.phase_noise_rad))
-    datatype = _pick(datatype, S.datatype)
-    if datatype not in ("cf32_le", "ci16_le"):
-        raise ValueError(f"Argument 'datatype' must be 'cf32_le' or 'ci16_le', not {datatype!r}.")
+    if datatype is not None:
+        if format is not None and format != datatype:
+            raise ValueError("Argument 'datatype' is the former name of 'format'; give only 'format'.")
+        format = datatype
+    datatype = _sample_format_name(_pick(format, S.datatype))
     if not isinstance(name, str) or not name or os.sep in name or name.startswith("."):
         raise ValueError(f"Argument 'name' must be a plain file name, not {name!r}.")
     if not isinstance(chunk_frames, int) or chunk_frames < 1:
@@ -311,7 +326,6 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
         extras.append("no noise")
     description = _description(profile, ebn0_db, esn0_db, seconds, extras)
     extra_global = {
-        "core:extensions": [{"name": "downlink", "version": "0.1.0", "optional": True}],
         "downlink:simulated": True,
         "downlink:profile": profile.name,
         "downlink:ebn0_db": ebn0_db,
@@ -415,7 +429,7 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
         for f in files:
             f.close()
         if not writer.closed:
-            writer.close()
+            writer.abort()  # interrupted: leave no recording that looks complete
     return SimulationResult(
         meta_path=writer.meta_path, data_path=writer.data_path, truth_path=truth_path, truth_frames_path=frames_path,
         bits_path=bits_path, soft_path=soft_path, num_samples=num_samples, num_frames=num_frames,
