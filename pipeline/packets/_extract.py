@@ -19,9 +19,9 @@ from dataclasses import asdict, dataclass, field, replace
 from typing import Any
 
 from pipeline.link._accounting import FramePeriod, count_step
-from pipeline.packets._time import default_leap_seconds, parse_epoch_ns
 from pipeline.packets._timecodes import cds_pfield_layout, cuc_pfield_layout, decode_time_code
 from pipeline.profile import LinkProfile, TimeCodeConfig
+from pipeline.timescales import leap_seconds, tai_from_calendar
 
 __all__ = ["Packet", "PacketExtractor", "PacketStats", "SequenceGap", "IDLE_APID", "DROP_REASONS"]
 
@@ -32,8 +32,7 @@ _SEQ_MODULUS = 1 << 14
 _MAX_SPACE_PACKET = 65542
 _IDLE_OCTET = 0xE0
 _MAX_GAP_EVENTS = 1000
-# Packet times outside 1958-01-01 .. 9999-12-31 UTC are counted as time-code errors.
-_TIME_MIN_NS = -4383 * 86_400 * 1_000_000_000
+# Packet times after 9999-12-31 UTC are counted as time-code errors.
 _TIME_MAX_NS = 2_932_897 * 86_400 * 1_000_000_000  # days from 1970-01-01 to 10000-01-01
 
 #: Reasons a (partial) packet is discarded.
@@ -67,11 +66,12 @@ class Packet:
     rs_corrected : tuple of int
         RS symbols corrected per codeword in that frame.
     time_ns : int or None
-        UTC ns since 1970 from the secondary-header time code, when the APID has one
-        configured and it decoded to a date in 1958..9999; None otherwise (counted in
-        ``stats.time_code_errors``).
+        UTC ns since 1970 (POSIX count) from the secondary-header time code, when the APID has one
+        configured and it decoded to a date in 1972..9999; None otherwise.
     time_tai_ns : int or None
-        The same instant as TAI ns since 1958 (exact also inside a leap second).
+        The time code as TAI ns since 1958 (exact also inside a leap second; kept also before 1972,
+        where UTC has no meaning); None when the code could not be decoded or lies beyond 9999
+        (counted in ``stats.time_code_errors``).
     kind : {"space", "encapsulation"}
     packet_type : int or None
         Space packet type bit (0 telemetry, 1 telecommand).
@@ -242,7 +242,7 @@ def _checked_time_code(tc: TimeCodeConfig) -> TimeCodeConfig:
     if isinstance(tc.offset, bool) or not isinstance(tc.offset, int) or not 0 <= tc.offset <= 65535:
         raise ValueError(f"{where}: offset must be 0..65535 octets, not {tc.offset!r}.")
     try:
-        parse_epoch_ns(tc.epoch)
+        tai_from_calendar(tc.epoch)
     except (TypeError, ValueError) as exc:
         raise ValueError(f"{where}: {exc}") from None
     return replace(tc, pfield=pfield)
@@ -332,7 +332,7 @@ class PacketExtractor:
         self.encapsulation = bool(profile.packets.encapsulation)
         self.max_packet_octets = max_packet_octets
         self.time_codes = {tc.apid: _checked_time_code(tc) for tc in profile.packets.time_codes}
-        self._leap = default_leap_seconds() if self.time_codes else None
+        self._leap = leap_seconds() if self.time_codes else None
         self.reset()
 
     def reset(self) -> None:
@@ -565,8 +565,13 @@ class PacketExtractor:
         if tc is not None:
             time_tai = self._time_code(pkt, sec_flag, tc)
             if time_tai is not None:
-                time_ns = self._leap.tai_to_utc(time_tai)
-                if not _TIME_MIN_NS <= time_ns < _TIME_MAX_NS:
+                try:
+                    time_ns = self._leap.tai_to_utc(time_tai)
+                except ValueError:
+                    # before 1972 (e.g. an onboard clock counting from its level-1 epoch): no UTC, the
+                    # TAI count stays (decode --clock turns such onboard time into UTC)
+                    time_ns = None
+                if time_ns is not None and time_ns >= _TIME_MAX_NS:
                     # e.g. a 24-bit CDS day count far in the future: not a time anyone can print
                     time_ns = time_tai = None
             if time_tai is not None:
