@@ -477,6 +477,10 @@ def parse_utc(text: str, *, assume_utc: bool = False, name: str = "time",
         offset_min = (-1 if tz[0] == "-" else 1) * (tz_h * 60 + tz_m)
     day_shift, minute_of_day = divmod(h * 60 + mi - offset_min, 1440)
     d58 += day_shift
+    try:
+        _date_of_day(d58)
+    except ValueError:
+        raise ValueError(f"{name.capitalize()} {text!r} is outside the years 1..9999 in UTC.") from None
     if s == 60 and minute_of_day != 1439:
         raise ValueError(f"{name.capitalize()} {text!r}: second 60 exists only at 23:59:60 UTC.")
     tab = table or leap_seconds()
@@ -592,7 +596,7 @@ def tai_from_calendar(text: str, *, name: str = "epoch") -> int:
 
 
 def _tdb_minus_tt_ns(tt_ns: int) -> int:
-    """TDB - TT (ns), the two largest periodic terms; error below 10 us for 1950..2050.
+    """TDB - TT (ns), the two largest periodic terms; error below 50 us (the planetary terms left out).
 
     ``g = 357.53 + 0.98560028 (JD - 2451545.0)`` deg (mean anomaly of the Earth),
     ``TDB - TT = 0.001657 sin g + 0.000014 sin 2g`` s (Explanatory Supplement to the Astronomical
@@ -610,7 +614,7 @@ def tai_from_scale(text: str, scale: TimeScale, *, name: str = "time") -> int:
 
     UTC goes through :func:`parse_utc` (``Z`` optional, 23:59:60 allowed); TAI, TT and GPS are TAI
     plus a constant (:data:`SCALE_OFFSETS_NS`); TDB is TT plus the periodic terms of
-    ``_tdb_minus_tt_ns`` (about 10 us, solved by one fixed-point step).
+    ``_tdb_minus_tt_ns`` (error below 50 us, solved by fixed-point steps).
 
     Examples
     --------
@@ -665,5 +669,6 @@ def check_expiry(tai_ns: int, *, table: LeapSecondTable | None = None) -> bool:
     if tab.source not in _warned:
         _warned.add(tab.source)
         _log.warning("times after %s (the expiry of the leap-second table %s) may be off by one second: a leap "
-                     "second announced since is not in it", format_utc(exp, digits=0), tab.source or "in use")
+                     "second announced since is not in it", format_utc(exp, digits=0, table=tab),
+                     tab.source or "in use")
     return True

@@ -447,7 +447,9 @@ def _start_tai(p: Path, start: Any, what: str) -> int:
         raise RecordingError(f"{p}: {what} must be an ISO-8601 UTC time, not {start!r}")
     try:
         if isinstance(start, (int, np.integer)):
-            return tai_from_posix_ns(int(start))
+            tai = tai_from_posix_ns(int(start))
+            format_utc(tai)  # within the years 1972..9999
+            return tai
         if not isinstance(start, str):
             raise RecordingError(f"{p}: {what} must be an ISO-8601 UTC time, not {start!r}")
         return parse_utc(start)
