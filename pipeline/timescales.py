@@ -609,10 +609,29 @@ def _tdb_minus_tt_ns(tt_ns: int) -> int:
     return round((0.001657 * math.sin(g) + 0.000014 * math.sin(2 * g)) * NS_PER_S)
 
 
+_ORDINAL = re.compile(r"(\d{4})-(\d{3})([Tt ].*)?")
+
+
+def _calendar_from_ordinal(text: str, name: str) -> str:
+    """``YYYY-DDDThh:mm:ss`` (ISO 8601 ordinal date, CCSDS ASCII time code B) -> ``YYYY-MM-DDThh:mm:ss``."""
+    m = _ORDINAL.fullmatch(text)
+    if m is None:
+        return text
+    year, doy = int(m[1]), int(m[2])
+    try:
+        date = _dt.date(year, 1, 1) + _dt.timedelta(days=doy - 1)
+    except (ValueError, OverflowError):
+        date = None
+    if date is None or doy < 1 or date.year != year:
+        raise ValueError(f"{name.capitalize()} {text!r} has day of year {doy}, outside year {year}.")
+    return date.isoformat() + (m[3] or "")
+
+
 def tai_from_scale(text: str, scale: TimeScale, *, name: str = "time") -> int:
     """TAI ns since 1958 of a calendar instant written on ``scale`` (UTC, TAI, TT, GPS or TDB).
 
-    UTC goes through :func:`parse_utc` (``Z`` optional, 23:59:60 allowed); TAI, TT and GPS are TAI
+    ``text`` is ``YYYY-MM-DDThh:mm:ss[.f]`` or the ordinal form ``YYYY-DDDThh:mm:ss[.f]`` (CCSDS ASCII time
+    code B).  UTC goes through :func:`parse_utc` (``Z`` optional, 23:59:60 allowed); TAI, TT and GPS are TAI
     plus a constant (:data:`SCALE_OFFSETS_NS`); TDB is TT plus the periodic terms of
     ``_tdb_minus_tt_ns`` (error below 50 us, solved by fixed-point steps).
 
@@ -621,6 +640,9 @@ def tai_from_scale(text: str, scale: TimeScale, *, name: str = "time") -> int:
     >>> tai_from_scale("2026-03-14T09:31:09.184", "TT") == parse_utc("2026-03-14T09:30:00Z")
     True
     """
+    if not isinstance(text, str):
+        raise TypeError(f"Argument '{name}' must be a string, not {type(text).__name__}.")
+    text = _calendar_from_ordinal(text.strip(), name)
     key = str(scale).upper()
     if key == "UTC":
         return parse_utc(text, assume_utc=True, name=name)
