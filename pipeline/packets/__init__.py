@@ -1,12 +1,16 @@
 """pipeline.packets: space packets (CCSDS 133.0-B), encapsulation packets (133.1-B) and time codes.
 
-Packet reassembly per virtual channel and CUC / CDS time codes (CCSDS 301.0-B).  Time scales and
-the leap-second table live in :mod:`pipeline.timescales`.  See DEVELOPERS.md, stage contracts.
+Packet reassembly per virtual channel, CUC / CDS time codes (CCSDS 301.0-B) and onboard time to UTC
+through a clock correlation (``clock.json``).  Time scales and the leap-second table live in
+:mod:`pipeline.timescales`; ``format_ert`` (POSIX ns -> text) stays for the decode chain until it writes
+ERT from TAI with :func:`pipeline.timescales.format_utc`.  See DEVELOPERS.md, stage contracts.
 """
 
 from pipeline.packets._extract import DROP_REASONS, IDLE_APID, Packet, PacketExtractor, PacketStats, SequenceGap
+from pipeline.packets._obt import CLOCK_JSON_KEYS, ClockModel, ObtToUtc, read_clock_json
 from pipeline.packets._timecodes import (
     LEVEL1_EPOCH,
+    OnboardTime,
     cds_pfield_layout,
     cuc_pfield_layout,
     decode_cds,
@@ -35,4 +39,9 @@ __all__ = [
     "cuc_pfield_layout",
     "cds_pfield_layout",
     "LEVEL1_EPOCH",
+    "OnboardTime",
+    "CLOCK_JSON_KEYS",
+    "ClockModel",
+    "ObtToUtc",
+    "read_clock_json",
 ]
