@@ -59,7 +59,11 @@ def _obt(i: int) -> Fraction:
 
 @pytest.fixture(scope="module")
 def decoded(tmp_path_factory):
-    tmp = tmp_path_factory.mktemp("clock")
+    return build_decoded_pass(tmp_path_factory.mktemp("clock"))
+
+
+def build_decoded_pass(tmp):
+    """Channel bits of the pass written to ``tmp/pass.bits`` and decoded into ``tmp/decoded``: (profile, folder)."""
     packets = []
     for i in range(N_FRAMES):
         if i % EVERY == 2:  # the time packet of sampled frame i - 2, one packet per frame

@@ -16,7 +16,7 @@ from __future__ import annotations
 import math
 import os
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -71,6 +71,7 @@ class EphemerisSegment:
     v_km_s: np.ndarray
     usable_tai_ns: tuple[int, int]
     points: int
+    _cache: dict = field(default_factory=dict, init=False, repr=False, compare=False)
 
     def state(self, tai_ns: int) -> tuple[np.ndarray, np.ndarray]:
         """Hermite-interpolated position (km) and velocity (km/s) at ``tai_ns`` (inside the usable span).
@@ -78,29 +79,44 @@ class EphemerisSegment:
         Notes
         -----
         The ``m`` states nearest ``t`` (``m = points``) define the polynomial of degree ``2m - 1`` that
-        matches each position and velocity (Hermite interpolation, in Krogh's divided-difference form,
-        ``scipy.interpolate.KroghInterpolator`` with repeated nodes); the velocity is its derivative.
-        Time is scaled to the mean node spacing for conditioning.  Cost O(m^2) per call.  Error for a
-        smooth orbit sampled at step ``h``: of order ``|r^(2m)| h^(2m) / (2m)!``; measured in the tests.
+        matches each position and velocity (Hermite interpolation); the velocity is its derivative.  Time is
+        scaled to the node spacing around the window's centre, the ``2m`` coefficients come from the
+        confluent Vandermonde system (solved once per window and cached, O(m^3)), and each call evaluates
+        the polynomial and its derivative, O(m).  Error for a smooth orbit sampled at step ``h``: of order
+        ``|r^(2m)| h^(2m) / (2m)!``; measured in the tests and ``bench/bench_time.py``.
         """
-        from scipy.interpolate import KroghInterpolator
-
         t = (int(tai_ns) - self.t0_tai_ns) / NS_PER_S
         n = len(self.t_s)
         m = min(self.points, n)
         i = int(np.searchsorted(self.t_s, t))
         lo = min(max(i - m // 2, 0), n - m)
+        tc, h, coef = self._window(lo, m)
+        x = (t - tc) / h
+        powers = x ** np.arange(2 * m)
+        slopes = np.arange(2 * m) * np.concatenate(([0.0], powers[:-1]))
+        return powers @ coef, (slopes @ coef) / h
+
+    def _window(self, lo: int, m: int) -> tuple[float, float, np.ndarray]:
+        cache = self._cache
+        hit = cache.get(lo)
+        if hit is not None:
+            return hit
         ts = self.t_s[lo:lo + m]
         tc = 0.5 * (ts[0] + ts[-1])
         h = (ts[-1] - ts[0]) / max(m - 1, 1)
-        x = np.repeat((ts - tc) / h, 2)
+        xs = (ts - tc) / h
+        k = np.arange(2 * m)
+        a = np.empty((2 * m, 2 * m))
+        a[0::2] = xs[:, None] ** k
+        a[1::2] = k * np.where(k > 0, xs[:, None] ** np.maximum(k - 1, 0), 0.0)
         y = np.empty((2 * m, 3))
         y[0::2] = self.r_km[lo:lo + m]
         y[1::2] = self.v_km_s[lo:lo + m] * h
-        poly = KroghInterpolator(x, y)
-        xt = (t - tc) / h
-        r, dr = poly.derivatives(xt, der=2)
-        return np.asarray(r, dtype=np.float64), np.asarray(dr, dtype=np.float64) / h
+        hit = (tc, h, np.linalg.solve(a, y))
+        if len(cache) > 64:
+            cache.clear()
+        cache[lo] = hit
+        return hit
 
 
 class Ephemeris:
