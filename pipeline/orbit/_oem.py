@@ -23,6 +23,7 @@ import numpy as np
 
 from pipeline.errors import DataFileError
 from pipeline.orbit._earth import EARTH_ROTATION_RAD_S, inertial_to_earth_fixed, working_frame
+from pipeline.orbit._files import bracket_step, keyword_value, read_text_file
 from pipeline.timescales import NS_PER_S, tai_from_scale
 
 __all__ = ["Ephemeris", "EphemerisSegment", "parse_oem", "read_oem", "DEFAULT_HERMITE_POINTS"]
@@ -35,6 +36,9 @@ _REQUIRED = ("OBJECT_NAME", "OBJECT_ID", "CENTER_NAME", "REF_FRAME", "TIME_SYSTE
 _META_KEYS = set(_REQUIRED) | {"REF_FRAME_EPOCH", "USEABLE_START_TIME", "USEABLE_STOP_TIME", "INTERPOLATION",
                                "INTERPOLATION_DEGREE", "COMMENT"}
 _SCALES = ("UTC", "TAI", "TT", "GPS", "TDB")
+_BLOCKS = {"META_STOP": (("meta",), "data", "META_STOP without META_START"),
+           "COVARIANCE_START": (("data",), "covariance", "COVARIANCE_START outside a data block"),
+           "COVARIANCE_STOP": (("covariance",), "data", "COVARIANCE_STOP without COVARIANCE_START")}
 
 
 @dataclass(frozen=True, eq=False)
@@ -297,28 +301,14 @@ def parse_oem(text: str, *, source: str = "<text>", points: int = DEFAULT_HERMIT
                 segments.append(_segment(meta, rows, source, lineno - 1, points))
             meta, rows, state = {}, [], "meta"
             continue
-        if line == "META_STOP":
-            if state != "meta":
-                raise DataFileError(f"{source}: line {lineno}: META_STOP without META_START")
-            state = "data"
-            continue
-        if line == "COVARIANCE_START":
-            if state != "data":
-                raise DataFileError(f"{source}: line {lineno}: COVARIANCE_START outside a data block")
-            state = "covariance"
-            continue
-        if line == "COVARIANCE_STOP":
-            if state != "covariance":
-                raise DataFileError(f"{source}: line {lineno}: COVARIANCE_STOP without COVARIANCE_START")
-            state = "data"
+        new_state = bracket_step(line, state, _BLOCKS, f"{source}: line {lineno}")
+        if new_state is not None:
+            state = new_state
             continue
         if state == "covariance":
             continue
         if state in ("header", "meta"):
-            key, eq, value = line.partition("=")
-            key, value = key.strip(), value.strip()
-            if not eq or not key:
-                raise DataFileError(f"{source}: line {lineno}: expected 'KEYWORD = value', got {line[:60]!r}")
+            key, value = keyword_value(line, f"{source}: line {lineno}")
             if state == "header":
                 if key not in ("CCSDS_OEM_VERS", "CREATION_DATE", "ORIGINATOR", "MESSAGE_ID"):
                     raise DataFileError(f"{source}: line {lineno}: unknown header keyword {key!r}")
@@ -346,16 +336,5 @@ def read_oem(path: str | os.PathLike, *, points: int = DEFAULT_HERMITE_POINTS) -
     DataFileError
         The file is missing, not text, too large, or not a usable OEM.
     """
-    p = Path(os.fspath(path))
-    try:
-        size = p.stat().st_size
-        if size > _MAX_BYTES:
-            raise DataFileError(f"{p}: too large for an ephemeris ({size} bytes)")
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise DataFileError(f"{p}: ephemeris file not found") from None
-    except UnicodeDecodeError:
-        raise DataFileError(f"{p}: ephemeris file is not UTF-8 text") from None
-    except OSError as exc:
-        raise DataFileError(f"{p}: cannot read ({exc.strerror})") from None
+    p, text = read_text_file(path, what="an ephemeris", max_bytes=_MAX_BYTES, encoding="utf-8")
     return parse_oem(text, source=str(p), points=points)

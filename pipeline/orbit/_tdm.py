@@ -35,6 +35,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from pipeline.errors import DataFileError
+from pipeline.orbit._files import bracket_step, keyword_value, read_text_file
 from pipeline.timescales import format_utc, parse_utc, tai_from_scale
 
 __all__ = ["TrackingData", "TrackingSegment", "format_tdm", "write_tdm", "parse_tdm", "read_tdm"]
@@ -50,6 +51,9 @@ _META_KEYS = {"TIME_SYSTEM", "START_TIME", "STOP_TIME", "PARTICIPANT_1", "PARTIC
               "CORRECTION_RANGE", "CORRECTION_RECEIVE", "CORRECTION_TRANSMIT", "CORRECTIONS_APPLIED"}
 _SCALES = ("UTC", "TAI", "TT", "GPS", "TDB")
 _MAX_BYTES = 256 << 20
+_BLOCKS = {"META_STOP": (("meta",), "between", "META_STOP without META_START"),
+           "DATA_START": (("between",), "data", "DATA_START outside a segment"),
+           "DATA_STOP": (("data",), "done", "DATA_STOP without DATA_START")}
 
 
 @dataclass
@@ -214,29 +218,14 @@ def parse_tdm(text: str, *, source: str = "<text>") -> TrackingData:
             segments.append(seg)
             state = "meta"
             continue
-        if line == "META_STOP":
-            if state != "meta":
-                raise DataFileError(f"{where}: META_STOP without META_START")
-            scale = seg.meta.get("TIME_SYSTEM", "").upper()
-            if scale not in _SCALES:
+        new_state = bracket_step(line, state, _BLOCKS, where)
+        if new_state is not None:
+            if line == "META_STOP" and seg.meta.get("TIME_SYSTEM", "").upper() not in _SCALES:
                 raise DataFileError(f"{where}: TIME_SYSTEM must be one of {', '.join(_SCALES)}, "
                                     f"not {seg.meta.get('TIME_SYSTEM')!r}")
-            state = "between"
+            state = new_state
             continue
-        if line == "DATA_START":
-            if state != "between":
-                raise DataFileError(f"{where}: DATA_START outside a segment")
-            state = "data"
-            continue
-        if line == "DATA_STOP":
-            if state != "data":
-                raise DataFileError(f"{where}: DATA_STOP without DATA_START")
-            state = "done"
-            continue
-        key, eq, value = line.partition("=")
-        key, value = key.strip(), value.strip()
-        if not eq or not key:
-            raise DataFileError(f"{where}: expected 'KEYWORD = value', got {line[:60]!r}")
+        key, value = keyword_value(line, where)
         if state == "header":
             if key not in _HEADER_KEYS:
                 raise DataFileError(f"{where}: unknown header keyword {key!r}")
@@ -265,15 +254,5 @@ def parse_tdm(text: str, *, source: str = "<text>") -> TrackingData:
 
 def read_tdm(path: str | os.PathLike) -> TrackingData:
     """Read a Tracking Data Message file (see :func:`parse_tdm`)."""
-    p = Path(os.fspath(path))
-    try:
-        if p.stat().st_size > _MAX_BYTES:
-            raise DataFileError(f"{p}: too large for a tracking data message")
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise DataFileError(f"{p}: tracking data message not found") from None
-    except UnicodeDecodeError:
-        raise DataFileError(f"{p}: tracking data message is not UTF-8 text") from None
-    except OSError as exc:
-        raise DataFileError(f"{p}: cannot read ({exc.strerror})") from None
+    p, text = read_text_file(path, what="a tracking data message", max_bytes=_MAX_BYTES, encoding="utf-8")
     return parse_tdm(text, source=str(p))

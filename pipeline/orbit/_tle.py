@@ -19,6 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from pipeline.errors import DataFileError
+from pipeline.orbit._files import read_text_file
 from pipeline.timescales import NS_PER_DAY, leap_seconds
 
 __all__ = ["ElementSet", "parse_tle", "read_tle"]
@@ -173,15 +174,5 @@ def read_tle(path: str | os.PathLike) -> ElementSet:
     DataFileError
         The file is missing, not text, too large, or not an element set.
     """
-    p = Path(os.fspath(path))
-    try:
-        if p.stat().st_size > _MAX_BYTES:
-            raise DataFileError(f"{p}: too large for an element set ({p.stat().st_size} bytes)")
-        text = p.read_text(encoding="ascii")
-    except FileNotFoundError:
-        raise DataFileError(f"{p}: element set file not found") from None
-    except UnicodeDecodeError:
-        raise DataFileError(f"{p}: element set file is not ASCII text") from None
-    except OSError as exc:
-        raise DataFileError(f"{p}: cannot read ({exc.strerror})") from None
+    p, text = read_text_file(path, what="an element set", max_bytes=_MAX_BYTES, encoding="ascii")
     return parse_tle(text, source=str(p))

@@ -19,8 +19,8 @@ import numpy as np
 from pipeline.errors import RecordingError
 from pipeline.recording._formats import SampleFormat, sample_format
 from pipeline.recording._kernels import float_iq_to_complex64, int_iq_to_complex64
-from pipeline.recording._time import NS_PER_S, elapsed_ns, position_fraction
-from pipeline.timescales import check_expiry, format_utc, parse_utc, posix_ns_from_tai, tai_from_posix_ns
+from pipeline.recording._time import NS_PER_S, check_end_time, elapsed_ns, position_fraction, start_tai_ns
+from pipeline.timescales import format_utc, parse_utc, posix_ns_from_tai
 
 __all__ = [
     "Capture",
@@ -441,22 +441,6 @@ def _check_frequency(p: Path, freq: Any, what: str) -> float | None:
     return freq
 
 
-def _start_tai(p: Path, start: Any, what: str) -> int:
-    """TAI ns of the ``start`` argument (ISO-8601 UTC text, or POSIX ns since 1970 as an integer)."""
-    if isinstance(start, bool):
-        raise RecordingError(f"{p}: {what} must be an ISO-8601 UTC time, not {start!r}")
-    try:
-        if isinstance(start, (int, np.integer)):
-            tai = tai_from_posix_ns(int(start))
-            format_utc(tai)  # within the years 1972..9999
-            return tai
-        if not isinstance(start, str):
-            raise RecordingError(f"{p}: {what} must be an ISO-8601 UTC time, not {start!r}")
-        return parse_utc(start)
-    except ValueError as exc:
-        raise RecordingError(f"{p}: {what}: {exc}") from None
-
-
 def _timed_capture(sample_start: int, tai: int | None, freq: float | None, given: bool,
                    posix_if_unknown: int = 0) -> Capture:
     """A Capture with both time fields filled (the POSIX one derived from TAI when the time is known)."""
@@ -467,14 +451,12 @@ def _timed_capture(sample_start: int, tai: int | None, freq: float | None, given
 
 def _check_time_span(p: Path, recording: Recording) -> Recording:
     """Refuse a recording whose time runs past the year 9999; warn once past the leap-second table's expiry."""
-    if not recording.time_known:
-        return recording
-    try:
-        end = recording.tai_ns(recording.num_samples)
-        format_utc(end)
-    except ValueError:
-        raise RecordingError(f"{p}: the recording's time runs past the year 9999") from None
-    check_expiry(end)
+    if recording.time_known:
+        try:
+            end = recording.tai_ns(recording.num_samples)
+        except ValueError:
+            raise RecordingError(f"{p}: the recording's time runs past the year 9999") from None
+        check_end_time(p, end)
     return recording
 
 
@@ -527,7 +509,7 @@ def _open_raw(p, datatype, sample_rate_hz, start, frequency_hz) -> Recording:
     rate = _check_rate(p, sample_rate_hz, "give the sample rate of a raw recording")
     freq = _check_frequency(p, frequency_hz, "frequency")
     n = _count_samples(p, size, 0, fmt)
-    cap = _timed_capture(0, None if start is None else _start_tai(p, start, "start time"), freq, start is not None)
+    cap = _timed_capture(0, None if start is None else start_tai_ns(p, start), freq, start is not None)
     meta = _synth_meta(fmt, rate, cap, container="raw")
     return _check_time_span(p, Recording(path=p, container="raw", fmt=fmt, sample_rate_hz=rate, num_samples=n,
                                          captures=(cap,), metadata=meta, time_source="--start"))
@@ -645,7 +627,7 @@ def recording_from_sigmf_meta(meta: Any, *, meta_path: Path, data_path: Path, sa
     sources = [f"SigMF core:datetime of capture {i}" for i, (_, t, _) in enumerate(parsed) if t is not None]
     if start is not None:
         s0, own, f0 = parsed[0]
-        t = _start_tai(mp, start, "start time")
+        t = start_tai_ns(mp, start)
         # The argument is the time of sample 0; move it to the first segment's start.
         parsed[0] = (s0, t + round(Fraction(s0) * NS_PER_S / Fraction(rate)), f0)
         if own is not None:
@@ -790,7 +772,7 @@ def _open_wav(p: Path, datatype, sample_rate_hz, start, frequency_hz) -> Recordi
         raise RecordingError(f"{p}: truncated: the data chunk declares {data_bytes} bytes but only "
                              f"{size - data_offset} follow")
     n = _count_samples(p, data_bytes, 0, fmt)
-    cap = _timed_capture(0, None if start is None else _start_tai(p, start, "start time"), freq, start is not None)
+    cap = _timed_capture(0, None if start is None else start_tai_ns(p, start), freq, start is not None)
     meta = _synth_meta(fmt, rate, cap, container="wav")
     return _check_time_span(p, Recording(path=p, container="wav", fmt=fmt, sample_rate_hz=rate, num_samples=n,
                                          captures=(cap,), metadata=meta, data_offset_bytes=data_offset,

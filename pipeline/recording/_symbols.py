@@ -14,8 +14,8 @@ import numpy as np
 
 from pipeline.errors import RecordingError
 from pipeline.recording._kernels import int8_to_soft, unpack_bits_to_soft
-from pipeline.recording._time import elapsed_ns, position_fraction
-from pipeline.timescales import check_expiry, format_utc, parse_utc, posix_ns_from_tai, tai_from_posix_ns
+from pipeline.recording._time import check_end_time, elapsed_ns, position_fraction, start_tai_ns
+from pipeline.timescales import posix_ns_from_tai
 
 __all__ = ["SymbolKind", "SymbolChunk", "SymbolFile", "open_symbols"]
 
@@ -92,6 +92,7 @@ class SymbolFile:
         Examples
         --------
         >>> import os, tempfile
+        >>> from pipeline.timescales import format_utc
         >>> with tempfile.TemporaryDirectory() as d:
         ...     p = os.path.join(d, "ch.bits")
         ...     _ = open(p, "wb").write(bytes(16))
@@ -194,21 +195,8 @@ def open_symbols(path: str | os.PathLike, kind: str, *, start: str | int | None 
         raise RecordingError(f"{p}: not a regular file")
     if st.st_size == 0:
         raise RecordingError(f"{p}: contains no symbols")
-    start_tai = None
-    if start is not None:
-        try:
-            if isinstance(start, bool) or not isinstance(start, (str, int, np.integer)):
-                raise ValueError(f"Time must be ISO-8601 UTC text, not {start!r}.")
-            start_tai = tai_from_posix_ns(int(start)) if not isinstance(start, str) else parse_utc(start)
-            format_utc(start_tai)  # within the years 1972..9999
-        except ValueError as exc:
-            raise RecordingError(f"{p}: --start: {exc}") from None
+    start_tai = None if start is None else start_tai_ns(p, start, "--start")
     f = SymbolFile(p, kind, st.st_size, start_tai_ns=start_tai, symbol_rate_hz=symbol_rate_hz)
     if f.time_known:
-        try:
-            end = f.tai_ns(f.num_symbols)
-            format_utc(end)
-        except ValueError:
-            raise RecordingError(f"{p}: the symbols' time runs past the year 9999") from None
-        check_expiry(end)
+        check_end_time(p, f.tai_ns(f.num_symbols), "channel symbols")
     return f

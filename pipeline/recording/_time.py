@@ -16,9 +16,19 @@ from fractions import Fraction
 
 import numpy as np
 
-from pipeline.timescales import NS_PER_S, format_posix_ns, parse_utc, posix_ns_from_tai
+from pipeline.errors import RecordingError
+from pipeline.timescales import (
+    NS_PER_S,
+    check_expiry,
+    format_posix_ns,
+    format_utc,
+    parse_utc,
+    posix_ns_from_tai,
+    tai_from_posix_ns,
+)
 
-__all__ = ["elapsed_ns", "position_fraction", "parse_iso8601_ns", "parse_iso_ns", "format_iso8601_ns", "NS_PER_S"]
+__all__ = ["elapsed_ns", "position_fraction", "start_tai_ns", "check_end_time", "parse_iso8601_ns", "parse_iso_ns",
+           "format_iso8601_ns", "NS_PER_S"]
 
 
 def position_fraction(position) -> Fraction:
@@ -53,6 +63,40 @@ def elapsed_ns(position, anchor_position: int, rate: Fraction) -> int:
     375000000
     """
     return round((position_fraction(position) - anchor_position) * NS_PER_S / rate)
+
+
+def start_tai_ns(path, start, what: str = "start time") -> int:
+    """TAI ns of a ``start`` argument: ISO-8601 UTC text, or POSIX ns since 1970 as an integer.
+
+    Raises
+    ------
+    RecordingError
+        Naming ``path`` and ``what``: not one of those forms, before 1972 or after the year 9999.
+
+    Examples
+    --------
+    >>> start_tai_ns("x.cf32", "2016-12-31T23:59:60.5Z") - start_tai_ns("x.cf32", 1_483_228_799 * 10**9)
+    1500000000
+    """
+    if isinstance(start, (bool, np.bool_)) or not isinstance(start, (str, int, np.integer)):
+        raise RecordingError(f"{path}: {what} must be an ISO-8601 UTC time, not {start!r}")
+    try:
+        if isinstance(start, str):
+            return parse_utc(start)
+        tai = tai_from_posix_ns(int(start))
+        format_utc(tai)  # within the years 1972..9999
+        return tai
+    except ValueError as exc:
+        raise RecordingError(f"{path}: {what}: {exc}") from None
+
+
+def check_end_time(path, end_tai_ns: int, what: str = "recording") -> None:
+    """Refuse a time that runs past the year 9999 (RecordingError); warn once past the leap-second table's expiry."""
+    try:
+        format_utc(end_tai_ns)
+    except ValueError:
+        raise RecordingError(f"{path}: the {what}'s time runs past the year 9999") from None
+    check_expiry(end_tai_ns)
 
 
 def parse_iso8601_ns(text: str, *, assume_utc: bool = False) -> int:
