@@ -495,7 +495,7 @@ def run_clock(decoded_dirs, profile: LinkProfile, *, light_time_s: float | None 
     result = ClockResult(model=model, pairs=pairs, rejected={r: counts.get(r, 0) for r in REJECT_REASONS})
     if out is None and not plot:
         return result
-    from pipeline.chain._output import OutputFolder
+    from pipeline.chain import OutputFolder
 
     target = Path(os.fspath(out)) if out is not None else folders[0] / "clock"
     with OutputFolder(target, overwrite=overwrite) as tmp:
