@@ -14,6 +14,7 @@ from hypothesis import strategies as st
 from pipeline.errors import DataFileError
 from pipeline.orbit import (
     ConstantLightTime,
+    DopplerComparison,
     GroundStation,
     OrbitPredictor,
     add_doppler_predictions,
@@ -215,6 +216,14 @@ def test_doppler_rows_residuals(leo_pass):
     assert 0.7 < check.residual_rms_hz < 1.3
     assert out[-1]["residual_hz"] is None and out[-1]["predicted_hz"] is not None
     assert set(out[0]) >= {"utc", "carrier_offset_hz", "locked", "predicted_hz", "residual_hz"}
+    # chunking invariance of the streaming form: any split of the rows gives the same rows and summary
+    comp = DopplerComparison(predictor=pred, downlink_frequency_hz=F_S_BAND, tuning_offset_hz=500.0)
+    cuts = sorted(rng.choice(np.arange(1, len(rows)), 4, replace=False))
+    parts = [rows[a:b] for a, b in zip([0, *cuts], [*cuts, len(rows)])]
+    assert [r for part in parts for r in comp.process(part)] == out
+    assert comp.summary().rows == check.rows
+    assert comp.summary().mean_residual_hz == pytest.approx(check.mean_residual_hz, abs=2e-6)
+    assert comp.summary().residual_rms_hz == pytest.approx(check.residual_rms_hz, abs=2e-6)
 
 
 def test_tle_errors(tmp_path):

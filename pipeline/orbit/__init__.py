@@ -8,7 +8,7 @@ against the prediction (:func:`add_doppler_predictions`); the carrier track as a
 Message (503.0-B, :func:`write_tdm`).  See DEVELOPERS.md, "pipeline.orbit".
 """
 
-from pipeline.orbit._doppler import PREDICTION_COLUMNS, DopplerCheck, add_doppler_predictions
+from pipeline.orbit._doppler import PREDICTION_COLUMNS, DopplerCheck, DopplerComparison, add_doppler_predictions
 from pipeline.orbit._earth import GroundStation, geodetic_to_ecef_km, gmst82_rad, inertial_to_earth_fixed
 from pipeline.orbit._oem import Ephemeris, EphemerisSegment, parse_oem, read_oem
 from pipeline.orbit._predict import ConstantLightTime, LightTimeSource, OrbitPredictor, Prediction
@@ -18,6 +18,7 @@ from pipeline.orbit._tle import ElementSet, parse_tle, read_tle
 __all__ = [
     "ConstantLightTime",
     "DopplerCheck",
+    "DopplerComparison",
     "ElementSet",
     "Ephemeris",
     "EphemerisSegment",
