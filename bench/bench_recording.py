@@ -59,7 +59,7 @@ def main() -> None:
         print(f"{'datatype':<10} {'MB on disk':>10} {'Msample/s':>10} {'peak RSS MiB':>13}")
         for name in sorted(SAMPLE_FORMATS):
             base = Path(tmp) / name
-            with SigmfWriter(base, sample_rate_hz=1e6, datatype=name, datetime_ns=0) as w:
+            with SigmfWriter(base, sample_rate_hz=1e6, datatype=name, datetime_ns=1_773_480_600 * 10**9) as w:
                 left = n
                 while left > 0:
                     w.write(block[: min(left, block.size)])

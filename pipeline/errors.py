@@ -13,6 +13,7 @@ __all__ = [
     "ProfileError",
     "OutputError",
     "UsageError",
+    "DataFileError",
 ]
 
 
@@ -35,3 +36,8 @@ class OutputError(DownlinkError):
 class UsageError(DownlinkError):
     """The command line asks for something inconsistent (an option out of range, options that exclude
     each other, a required option missing); the message names the option."""
+
+
+class DataFileError(DownlinkError):
+    """An input file other than a recording or a profile cannot be used: an element set, an ephemeris, a
+    tracking data message, a decoded folder or a clock file; the message names the file and the fault."""

@@ -5,9 +5,9 @@ parts it needs; nothing downstream re-checks ranges.
 
 The TOML keys follow ../shared/DESIGN.md: the tables ``[link]``, ``[coding]`` and ``[frames]``
 are required (a file without one is refused, never filled in with defaults), ``[packets]``,
-``[receiver]`` and ``[simulate]`` are optional.  The validator's ranges are exactly what the
-stages support, so a profile that loads never makes a stage fail.  Attribute names carry units
-(``symbol_rate_baud``) where the TOML key does not.
+``[receiver]``, ``[simulate]``, ``[station]`` and ``[clock]`` are optional.  The validator's ranges are
+exactly what the stages support, so a profile that loads never makes a stage fail.  Attribute names
+carry units (``symbol_rate_baud``) where the TOML key does not.
 """
 
 from __future__ import annotations
@@ -30,6 +30,7 @@ __all__ = [
     "CONV_RATES",
     "REQUIRED_TABLES",
     "ApidTraffic",
+    "ClockSection",
     "CodingSection",
     "ConvRate",
     "FrameKind",
@@ -42,6 +43,7 @@ __all__ = [
     "Pulse",
     "ReceiverSection",
     "SimulateSection",
+    "StationSection",
     "TimeCodeConfig",
     "TimeCodeKind",
     "demo_profile_path",
@@ -212,6 +214,70 @@ class SimulateSection:
 
 
 @dataclass(frozen=True)
+class StationSection:
+    """``[station]``: the receiving station.
+
+    Attributes
+    ----------
+    name : str
+        The station's name (the receiving participant of a Tracking Data Message).
+    latitude_deg, longitude_deg : float or None
+        WGS-84 geodetic latitude (-90..90, north positive) and longitude (-180..360, east positive)
+        of the antenna reference point; needed for predicted Doppler and light time from an orbit.
+    altitude_m : float
+        Height above the WGS-84 ellipsoid (not above the geoid).
+    receive_delay_ns : int
+        Signal delay from the antenna reference point to the digitizer, as the station calibrates it;
+        subtracted from every ERT (0..1e9).
+    """
+
+    name: str = ""
+    latitude_deg: float | None = None
+    longitude_deg: float | None = None
+    altitude_m: float = 0.0
+    receive_delay_ns: int = 0
+
+    @property
+    def has_position(self) -> bool:
+        """True when latitude and longitude are both given."""
+        return self.latitude_deg is not None and self.longitude_deg is not None
+
+
+@dataclass(frozen=True)
+class ClockSection:
+    """``[clock]``: how the spacecraft reports samples of its clock (for ``downlink clock``).
+
+    The spacecraft samples its clock when the leading edge of the ASM of every sampled frame leaves
+    the antenna, and sends that sample in a time packet (common practice, no published source).
+
+    Attributes
+    ----------
+    time_packet_apid : int
+        APID of the packets carrying a sampled onboard time.
+    time_field_offset : int
+        Octet offset of the time code in the packet's data field (after the 6-octet primary header).
+    code : {"cuc", "cds"}
+    pfield : int or None
+        Implicit P-field (one octet, or two as one integer); None = explicit P-field in the packet.
+    sampled_every : int
+        Frames whose count is a multiple of this are the sampled ones.  TM: the 8-bit master-channel
+        count, so it must divide 256; AOS: the virtual-channel count of ``sampled_vcid``.
+    sampled_vcid : int or None
+        AOS only (no master-channel count): the virtual channel whose count is used.
+    onboard_delay_ns : int
+        Spacecraft transmit-path delay from the clock sample to the antenna (>= 0).
+    """
+
+    time_packet_apid: int = -1
+    time_field_offset: int = 0
+    code: TimeCodeKind = "cuc"
+    pfield: int | None = None
+    sampled_every: int = 1
+    sampled_vcid: int | None = None
+    onboard_delay_ns: int = 0
+
+
+@dataclass(frozen=True)
 class LinkProfile:
     """A whole link profile.  Build with :func:`load_profile` or :func:`profile_from_dict`."""
 
@@ -221,6 +287,8 @@ class LinkProfile:
     packets: PacketsSection = field(default_factory=PacketsSection)
     receiver: ReceiverSection = field(default_factory=ReceiverSection)
     simulate: SimulateSection = field(default_factory=SimulateSection)
+    station: StationSection = field(default_factory=StationSection)
+    clock: ClockSection | None = None
     name: str = "profile"
 
     # ---- derived sizes -------------------------------------------------------------------
@@ -328,7 +396,7 @@ def profile_from_dict(data: dict, *, source: str = "<dict>", name: str = "profil
     """Build and validate a profile from the parsed TOML tree (see :func:`load_profile`)."""
     if not isinstance(data, dict):
         raise ProfileError(f"{source}: profile must be a TOML table")
-    known = {"link", "coding", "frames", "packets", "receiver", "simulate", "name"}
+    known = {"link", "coding", "frames", "packets", "receiver", "simulate", "station", "clock", "name"}
     for key in data:
         if key not in known:
             raise ProfileError(f"{source}: unknown table [{key}] (expected one of {', '.join(sorted(known))})")
@@ -341,8 +409,13 @@ def profile_from_dict(data: dict, *, source: str = "<dict>", name: str = "profil
         ("coding", CodingSection),
         ("frames", FramesSection),
         ("receiver", ReceiverSection),
+        ("station", StationSection),
     ):
         sections[sec_name] = _build_section(cls, data.get(sec_name, {}), sec_name, source)
+    if "clock" in data:
+        if not isinstance(data["clock"], dict) or "time_packet_apid" not in data["clock"]:
+            raise ProfileError(f"{source}: [clock] needs 'time_packet_apid'")
+        sections["clock"] = _build_section(ClockSection, data["clock"], "clock", source)
     sections["packets"] = _build_packets(data.get("packets", {}), source)
     sections["simulate"] = _build_simulate(data.get("simulate", {}), source)
     prof = LinkProfile(name=str(data.get("name", name)), **sections)
@@ -537,6 +610,9 @@ def _validate(p: LinkProfile, source: str) -> None:
             check_time_code_config(tc.code, tc.pfield, tc.epoch, tc.offset)
         except ValueError as exc:
             raise ProfileError(f"{source}: [[packets.time_code]] apid {tc.apid}: {exc}") from None
+    _validate_station(p.station, source)
+    if p.clock is not None:
+        _validate_clock(p.clock, F.kind, source)
     _check(S.sample_rate_hz > 0, source, f"[simulate] sample_rate_hz must be > 0, not {S.sample_rate_hz:g}")
     _check(S.seconds > 0, source, f"[simulate] seconds must be > 0, not {S.seconds:g}")
     _check(S.datatype in _SIMULATE_FORMATS, source,
@@ -546,3 +622,43 @@ def _validate(p: LinkProfile, source: str) -> None:
         _check(1 <= t.length <= 65536, source, f"[[simulate.traffic]] length must be 1..65536, not {t.length}")
         _check(t.rate_hz > 0, source, f"[[simulate.traffic]] rate_hz must be > 0, not {t.rate_hz:g}")
         _check(0 <= t.vcid <= 63, source, f"[[simulate.traffic]] vcid must be 0..63, not {t.vcid}")
+
+
+def _validate_station(st: StationSection, source: str) -> None:
+    if (st.latitude_deg is None) != (st.longitude_deg is None):
+        raise ProfileError(f"{source}: [station] needs both latitude_deg and longitude_deg, or neither")
+    if st.latitude_deg is not None:
+        _check(-90.0 <= st.latitude_deg <= 90.0, source,
+               f"[station] latitude_deg must be -90..90, not {st.latitude_deg:g}")
+        _check(-180.0 <= st.longitude_deg <= 360.0, source,
+               f"[station] longitude_deg must be -180..360, not {st.longitude_deg:g}")
+    _check(-500.0 <= st.altitude_m <= 100_000.0, source,
+           f"[station] altitude_m must be -500..100000 m above the WGS-84 ellipsoid, not {st.altitude_m:g}")
+    _check(0 <= st.receive_delay_ns <= 1_000_000_000, source,
+           f"[station] receive_delay_ns must be 0..1000000000, not {st.receive_delay_ns}")
+
+
+def _validate_clock(c: ClockSection, frame_kind: str, source: str) -> None:
+    _check(0 <= c.time_packet_apid <= 0x7FE, source,
+           f"[clock] time_packet_apid must be 0..2046, not {c.time_packet_apid}")
+    _check(0 <= c.time_field_offset <= 65535, source,
+           f"[clock] time_field_offset must be 0..65535 octets, not {c.time_field_offset}")
+    _choice(c.code, TimeCodeKind, "[clock] code", source)
+    _check(c.pfield is None or (isinstance(c.pfield, int) and 0 <= c.pfield <= (0xFFFF if c.code == "cuc" else 0xFF)),
+           source, f"[clock] pfield must be {'0..0xFFFF' if c.code == 'cuc' else 'one octet 0..0xFF'} for "
+                   f"{c.code.upper()}, not {c.pfield!r}")
+    _check(0 <= c.onboard_delay_ns <= 1_000_000_000, source,
+           f"[clock] onboard_delay_ns must be 0..1000000000, not {c.onboard_delay_ns}")
+    if frame_kind == "tm":
+        _check(c.sampled_vcid is None, source, "[clock] sampled_vcid applies to AOS frames only; TM frames use the "
+                                               "master-channel frame count")
+        _check(1 <= c.sampled_every <= 256 and 256 % c.sampled_every == 0, source,
+               f"[clock] sampled_every must divide 256 (the 8-bit master-channel frame count): 1, 2, 4, ..., 256, "
+               f"not {c.sampled_every}")
+    else:
+        _check(c.sampled_vcid is not None and 0 <= c.sampled_vcid <= 63, source,
+               f"[clock] sampled_vcid must be 0..63 on AOS links (the virtual channel whose count is sampled), "
+               f"not {c.sampled_vcid!r}")
+        _check(1 <= c.sampled_every <= 1 << 24 and (1 << 24) % c.sampled_every == 0, source,
+               f"[clock] sampled_every must divide 16777216 (the 24-bit virtual-channel frame count), "
+               f"not {c.sampled_every}")

@@ -117,7 +117,7 @@ def test_nothing_decodes_from_noise(tmp_path):
 
     base = tmp_path / "noise"
     rng = np.random.default_rng(4)
-    with SigmfWriter(base, sample_rate_hz=SAMPLE_RATE, datatype="cf32_le", datetime_ns=0) as w:
+    with SigmfWriter(base, sample_rate_hz=SAMPLE_RATE, datatype="cf32_le", datetime_ns=1_773_480_600 * 10**9) as w:
         for _ in range(4):
             w.write(((rng.standard_normal(50_000) + 1j * rng.standard_normal(50_000)) * 0.1).astype(np.complex64))
     prof = _write_profile(tmp_path, small_profile("bpsk", "concatenated", "nrz-l"))

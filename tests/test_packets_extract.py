@@ -21,8 +21,10 @@ from test_link_builders import (
 )
 
 from pipeline.link import FrameParser
-from pipeline.packets import PacketExtractor, decode_cds, encode_cds, encode_cuc, tai_ns_to_utc_ns, utc_ns_to_tai_ns
+from pipeline.packets import PacketExtractor, decode_cds, encode_cds, encode_cuc
 from pipeline.profile import FramesSection, LinkProfile, PacketsSection, TimeCodeConfig
+from pipeline.timescales import posix_ns_from_tai as tai_ns_to_utc_ns
+from pipeline.timescales import tai_from_posix_ns as utc_ns_to_tai_ns
 
 NS = 1_000_000_000
 
@@ -264,7 +266,8 @@ def test_argument_errors():
     with pytest.raises(ValueError, match="apid 5: pfield is not a valid CDS P-field"):
         PacketExtractor(profile=bad)
     bad = LinkProfile(frames=TM, packets=PacketsSection(time_codes=(TimeCodeConfig(apid=5, epoch="soon"),)))
-    with pytest.raises(ValueError, match="apid 5: epoch must be an ISO-8601 date and time, not 'soon'[.]$"):
+    with pytest.raises(ValueError,
+                       match="apid 5: epoch must be an ISO-8601 date and time without a zone offset, not 'soon'[.]$"):
         PacketExtractor(profile=bad)
 
 

@@ -78,7 +78,7 @@ def test_virtual_fill_from_length():
         ({"packets": {"time_code": [{"apid": 5, "pfield": 0x9E}]}}, "announces a second octet that is missing"),
         ({"packets": {"time_code": [{"apid": 5, "pfield": 0x1E04}]}}, "the extension flag disagrees with its length"),
         ({"packets": {"time_code": [{"apid": 5, "epoch": "soon"}]}},
-         "apid 5: epoch must be an ISO-8601 date and time, not 'soon'"),
+         "apid 5: epoch must be an ISO-8601 date and time without a zone offset, not 'soon'"),
         ({"packets": {"time_code": [{"apid": 5, "offset": 70000}]}}, "offset must be 0..65535 octets, not 70000"),
     ],
 )
@@ -210,17 +210,22 @@ def test_simulate_format_key_uses_the_recording_vocabulary(tmp_path):
     from pipeline.sim import simulate
 
     for fmt in FORMATS:
-        assert profile_from_dict({"simulate": {"format": fmt}}).simulate.datatype == fmt
-    assert profile_from_dict({"simulate": {"datatype": "ci16_le"}}).simulate.datatype == "ci16_le"  # former key
+        assert _tables(simulate={"format": fmt}).simulate.datatype == fmt
+    assert _tables(simulate={"datatype": "ci16_le"}).simulate.datatype == "ci16_le"  # former key
     with pytest.raises(ProfileError, match=r"\[simulate\] format must be cf32 \| ci16 \| ci8 \| cu8, not 'cf64'"):
-        profile_from_dict({"simulate": {"format": "cf64"}})
+        _tables(simulate={"format": "cf64"})
     # every name the validator accepts is one pipeline.recording reads and the simulator writes
     from pipeline.profile import _SIMULATE_FORMATS
 
     assert set(FORMATS) <= set(_SIMULATE_FORMATS) <= set(FORMATS) | set(RAW_FORMAT_ALIASES.values())
-    prof = profile_from_dict({"simulate": {"format": "ci8", "seconds": 0.1}})
+    prof = profile_from_dict({"link": {}, "coding": {}, "frames": {}, "simulate": {"format": "ci8", "seconds": 0.1}})
     res = simulate(prof, tmp_path)
     import json
 
     # SigMF specification: the metadata spells the datatype as the standard does
     assert json.loads(res.meta_path.read_text())["global"]["core:datatype"] == sample_format("ci8").name == "ci8"
+
+
+def _tables(**sections):
+    """``profile_from_dict`` with empty [link], [coding] and [frames] tables and the given ones."""
+    return profile_from_dict({"link": {}, "coding": {}, "frames": {}, **sections})

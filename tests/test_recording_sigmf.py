@@ -141,7 +141,7 @@ def test_short_data_file_names_both_sizes(tmp_path, rng):
 
 
 def test_exact_sample_count_of_our_writer(tmp_path, rng):
-    with SigmfWriter(tmp_path / "s", sample_rate_hz=1e6, datatype="ci16", datetime_ns=0) as w:
+    with SigmfWriter(tmp_path / "s", sample_rate_hz=1e6, datatype="ci16", datetime_ns=1_773_480_600_000_000_000) as w:
         w.write(_iq(rng, 3000))
     data = tmp_path / "s.sigmf-data"
     whole = data.read_bytes()

@@ -1,4 +1,4 @@
-"""Tests of pipeline.packets time handling: leap seconds, ERT text, CUC and CDS time codes."""
+"""Tests of time codes (pipeline.packets) and the leap-second table (pipeline.timescales): CUC, CDS, ERT text."""
 
 from __future__ import annotations
 
@@ -10,20 +10,22 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from pipeline.packets import (
-    LeapSecondTable,
     cuc_pfield_layout,
     decode_cds,
     decode_cuc,
     decode_time_code,
-    default_leap_seconds,
     encode_cds,
     encode_cuc,
     format_ert,
-    format_tai_as_utc,
+)
+from pipeline.timescales import (
+    LeapSecondTable,
+    format_utc,
+    leap_seconds,
     load_leap_seconds,
-    parse_epoch_ns,
-    tai_ns_to_utc_ns,
-    utc_ns_to_tai_ns,
+    posix_ns_from_tai,
+    tai_from_calendar,
+    tai_from_posix_ns,
 )
 
 NS = 1_000_000_000
@@ -82,7 +84,7 @@ def test_format_ert_rejects_bad_input():
 
 @pytest.mark.kat
 def test_leap_table_known_values():
-    tab = default_leap_seconds()
+    tab = leap_seconds()
     # IERS Bulletin C 54: TAI - UTC = 37 s from 2017-01-01 (../shared/REFERENCES.md sec. 6)
     assert tab.tai_minus_utc(1483228800 * NS) == 37
     assert tab.tai_minus_utc(1483228800 * NS - 1) == 36
@@ -103,7 +105,7 @@ def test_leap_table_matches_astropy():
     # once erfa's table has been consulted); 'year', 'month' and 'tai_utc' always are.
     mjd = [(dt.date(int(y), int(m), 1) - dt.date(1858, 11, 17)).days for y, m in zip(ref["year"], ref["month"])]
     theirs = [(d, int(v)) for d, v in zip(mjd, ref["tai_utc"]) if d >= 41317]  # from 1972-01-01 (integer table)
-    tab = default_leap_seconds()
+    tab = leap_seconds()
     mine = [(u // 86400 + 40587, d) for u, d in zip(tab.utc_start_s, tab.tai_minus_utc_s)]  # MJD of 1970 = 40587
     assert mine == theirs
 
@@ -131,14 +133,14 @@ def test_utc_tai_against_astropy_random(rng, astropy_time):
         ns = int(ns) // 1000 * 1000  # whole microseconds, so astropy's text is exact
         t = Time(format_ert(ns)[:-4], scale="utc", format="isot")
         ref = _astropy_tai_ns(t, Time)  # astropy (PyPI) Time, scale conversion utc -> tai
-        assert abs(utc_ns_to_tai_ns(ns) - ref) < 100
-        assert tai_ns_to_utc_ns(ref) == pytest.approx(ns, abs=100)
+        assert abs(tai_from_posix_ns(ns) - ref) < 100
+        assert posix_ns_from_tai(ref) == pytest.approx(ns, abs=100)
 
 
 def test_leap_second_instants_against_astropy(astropy_time):
     # Every positive leap second in the table: just before, inside (23:59:60) and after.
     Time, _ = astropy_time
-    tab = default_leap_seconds()
+    tab = leap_seconds()
     for u in tab.utc_start_s[1:]:
         day = dt.date(1970, 1, 1) + dt.timedelta(days=u // 86400 - 1)
         for text, sec in ((f"{day}T23:59:59.500000", 86399.5), (f"{day}T23:59:60.250000", 86400.25)):
@@ -147,23 +149,23 @@ def test_leap_second_instants_against_astropy(astropy_time):
             cds = (((u // 86400 - 1) + 4383).to_bytes(2, "big") + ms.to_bytes(4, "big"))
             tai, n = decode_cds(cds, pfield=0x40)
             assert n == 6 and abs(tai - ref) < 100
-            assert format_tai_as_utc(tai) == text + "000Z"
+            assert format_utc(tai) == text + "000Z"
             # POSIX time cannot name 23:59:60: held at the last ns of the day
             if sec > 86400:
-                assert format_ert(tai_ns_to_utc_ns(tai)) == f"{day}T23:59:59.999999999Z"
+                assert format_ert(posix_ns_from_tai(tai)) == f"{day}T23:59:59.999999999Z"
         after = Time(f"{day + dt.timedelta(days=1)}T00:00:00.500000", scale="utc")
-        assert abs(utc_ns_to_tai_ns(u * NS + NS // 2) - _astropy_tai_ns(after, Time)) < 100
+        assert abs(tai_from_posix_ns(u * NS + NS // 2) - _astropy_tai_ns(after, Time)) < 100
 
 
 def test_tai_to_utc_never_decreases():
-    tab = default_leap_seconds()
-    start = utc_ns_to_tai_ns(1483228800 * NS) - 3 * NS
+    tab = leap_seconds()
+    start = tai_from_posix_ns(1483228800 * NS) - 3 * NS
     steps = [tab.tai_to_utc(start + k * NS // 4) for k in range(20)]
     assert steps == sorted(steps)
 
 
 def test_utc_day_rejects_time_beyond_day():
-    tab = default_leap_seconds()
+    tab = leap_seconds()
     with pytest.raises(ValueError, match="outside UTC day"):
         tab.utc_day_to_tai(17000, 86400 * NS)  # 2016-07-18: no leap second that day
     tab.utc_day_to_tai(17166, 86400 * NS)  # 2016-12-31 has 23:59:60
@@ -185,7 +187,7 @@ def test_cuc_worked_example():
     assert decode_cuc(bytes.fromhex("1E4EFFA2000000")) == (tai, 7)
     assert decode_cuc(bytes.fromhex("4EFFA2008000"), pfield=0x1E) == (tai + NS // 2, 6)
     # that instant is 1999-12-31T23:59:28 UTC (TAI - UTC = 32 s in 1999, IERS leap-seconds.list)
-    assert format_ert(tai_ns_to_utc_ns(tai)) == "1999-12-31T23:59:28.000000000Z"
+    assert format_ert(posix_ns_from_tai(tai)) == "1999-12-31T23:59:28.000000000Z"
 
 
 @pytest.mark.kat
@@ -213,14 +215,14 @@ def test_cuc_against_astropy_random(rng, astropy_time):
         u.precision = 9
         whole = dt.datetime.fromisoformat(u.isot[:19]) - dt.datetime(1970, 1, 1)
         ref_ns = (whole.days * 86400 + whole.seconds) * NS + int(u.isot[20:29])
-        assert abs(tai_ns_to_utc_ns(tai) - ref_ns) <= 2  # astropy (PyPI) tai -> utc
+        assert abs(posix_ns_from_tai(tai) - ref_ns) <= 2  # astropy (PyPI) tai -> utc
 
 
 def test_cuc_level2_epoch():
     # Level 2 (ID 010): counted from an agency epoch on the TAI scale
     epoch = "2000-01-01T00:00:00"
     tai, _ = decode_cuc(bytes.fromhex("000000100000"), pfield=0x2E, epoch=epoch)
-    assert tai == parse_epoch_ns(epoch) + 16 * NS == 15340 * DAY_NS + 16 * NS  # 15340 days: REFERENCES.md sec. 6
+    assert tai == tai_from_calendar(epoch) + 16 * NS == 15340 * DAY_NS + 16 * NS  # 15340 days: REFERENCES.md sec. 6
     assert encode_cuc(tai, pfield=0x2E, epoch=epoch) == bytes.fromhex("000000100000")
 
 
@@ -247,7 +249,7 @@ def test_cuc_round_trip(tai, pfield):
 @pytest.mark.kat
 def test_cds_worked_examples():
     # ../shared/REFERENCES.md sec. 6, computed there: 2000-01-01 is day 15340 = 0x3BEC
-    t0 = utc_ns_to_tai_ns(10957 * DAY_NS)
+    t0 = tai_from_posix_ns(10957 * DAY_NS)
     assert encode_cds(t0, pfield=0x40) == bytes.fromhex("3BEC00000000")
     assert encode_cds(t0 + 12 * 3600 * NS, pfield=0x40) == bytes.fromhex("3BEC02932E00")
     assert decode_cds(bytes.fromhex("403BEC02932E00")) == (t0 + 12 * 3600 * NS, 7)
@@ -272,14 +274,14 @@ def test_cds_against_astropy_random(rng, astropy_time):
 
 def test_cds_agency_epoch():
     tai, _ = decode_cds(bytes.fromhex("0001" "00000000"), pfield=0x48, epoch="2017-01-01")
-    assert format_tai_as_utc(tai) == "2017-01-02T00:00:00.000000000Z"
+    assert format_utc(tai) == "2017-01-02T00:00:00.000000000Z"
     assert encode_cds(tai, pfield=0x48, epoch="2017-01-01") == bytes.fromhex("000100000000")
 
 
 @given(st.integers(63072000 * NS, 0xFFFF * DAY_NS - OFFSET_1958_NS), st.sampled_from([0x40, 0x41, 0x42, 0x44, 0x45]))
 @settings(max_examples=300, deadline=None)
 def test_cds_round_trip(utc_ns, pfield):
-    tai = utc_ns_to_tai_ns(utc_ns)
+    tai = tai_from_posix_ns(utc_ns)
     enc = encode_cds(tai, pfield=pfield, explicit=True)
     got, n = decode_cds(enc)
     assert n == len(enc)
@@ -310,9 +312,9 @@ def test_argument_errors():
     with pytest.raises(ValueError, match="Argument 'code' must be cuc | cds"):
         decode_time_code(b"", code="ccs")
     with pytest.raises(ValueError, match="Argument 'epoch'"):
-        parse_epoch_ns("yesterday")
-    with pytest.raises(ValueError, match="time-zone offset"):
-        parse_epoch_ns("2000-01-01T00:00:00+01:00")
+        tai_from_calendar("yesterday")
+    with pytest.raises(ValueError, match="without a zone offset"):
+        tai_from_calendar("2000-01-01T00:00:00+01:00")
 
 
 @given(st.binary(max_size=24), st.sampled_from(["cuc", "cds"]))

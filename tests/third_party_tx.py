@@ -238,3 +238,14 @@ def channel_bits(frames: list[bytes], *, rs_e: int, interleave: int, randomize: 
     if conv:
         bits = conv_encode(bits, "1/2" if conv is True else conv, g2_inverted)
     return bits
+
+
+def cuc_field(ticks: int, *, coarse: int = 4, fine: int = 3) -> bytes:
+    """CUC T-field (no P-field) of a count of 2^-(8 fine) s units: coarse whole seconds then the fine octets,
+    big-endian (CCSDS 301.0-B sec. 3.2; layout from memory, REFERENCES.md sec. 6)."""
+    return int(ticks).to_bytes(coarse + fine, "big")
+
+
+def time_packet(apid: int, seq: int, time_field: bytes, length: int) -> bytes:
+    """A space packet of ``length`` octets whose data field starts with ``time_field`` (zero padded)."""
+    return space_packet(apid, seq, time_field + bytes(length - 6 - len(time_field)))

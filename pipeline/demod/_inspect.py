@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import datetime as _dt
 import math
 from pathlib import Path
 from typing import Any
@@ -10,6 +9,7 @@ from typing import Any
 import numpy as np
 
 from pipeline.demod._demodulator import Demodulator, TrackPoint
+from pipeline.timescales import format_posix_ns
 
 __all__ = ["inspect_recording", "write_inspect_plots", "fit_carrier_track"]
 
@@ -17,10 +17,6 @@ _SPECTRUM_FFT = 4096
 _CONSTELLATION_POINTS = 2000
 
 
-def _iso_ns(ns: int) -> str:
-    sec, frac = divmod(int(ns), 1_000_000_000)
-    t = _dt.datetime(1970, 1, 1, tzinfo=_dt.timezone.utc) + _dt.timedelta(seconds=sec)
-    return t.strftime("%Y-%m-%dT%H:%M:%S") + f".{frac:09d}Z"
 
 
 def fit_carrier_track(track: list[TrackPoint], sample_rate_hz: float) -> tuple[float, float] | None:
@@ -160,7 +156,7 @@ def inspect_recording(recording: Any, *, profile: Any = None, max_seconds: float
         "duration_s": total / fs,
         "analysed_s": stop / fs,
         "datatype": str(getattr(recording, "datatype", "unknown")),
-        "start": _iso_ns(start_ns) if start_ns is not None else None,
+        "start": format_posix_ns(int(start_ns)) if start_ns is not None else None,
         "frequency_hz": getattr(recording, "frequency_hz", None),
         "spectrum_peak_hz": peak_hz,
         "nonfinite_samples": nonfinite,

@@ -20,9 +20,9 @@ from dataclasses import asdict, dataclass, field, replace
 from typing import Any
 
 from pipeline.link._accounting import CountTracker, FramePeriod
-from pipeline.packets._time import default_leap_seconds
 from pipeline.packets._timecodes import check_time_code_config, decode_time_code
 from pipeline.profile import LinkProfile, TimeCodeConfig
+from pipeline.timescales import leap_seconds
 
 __all__ = ["Packet", "PacketExtractor", "PacketStats", "SequenceGap", "IDLE_APID", "DROP_REASONS"]
 
@@ -33,8 +33,7 @@ _SEQ_MODULUS = 1 << 14
 _MAX_SPACE_PACKET = 65542
 _IDLE_OCTET = 0xE0
 _MAX_GAP_EVENTS = 1000
-# Packet times outside 1958-01-01 .. 9999-12-31 UTC are counted as time-code errors.
-_TIME_MIN_NS = -4383 * 86_400 * 1_000_000_000
+# Packet times after 9999-12-31 UTC are counted as time-code errors.
 _TIME_MAX_NS = 2_932_897 * 86_400 * 1_000_000_000  # days from 1970-01-01 to 10000-01-01
 
 #: Reasons a (partial) packet is discarded.  ``superseded``: the frames it began in were repeated or
@@ -72,11 +71,12 @@ class Packet:
     rs_corrected : tuple of int
         RS symbols corrected per codeword in that frame.
     time_ns : int or None
-        UTC ns since 1970 from the secondary-header time code, when the APID has one
-        configured and it decoded to a date in 1958..9999; None otherwise (counted in
-        ``stats.time_code_errors``).
+        UTC ns since 1970 (POSIX count) from the secondary-header time code, when the APID has one
+        configured and it decoded to a date in 1972..9999; None otherwise.
     time_tai_ns : int or None
-        The same instant as TAI ns since 1958 (exact also inside a leap second).
+        The time code as TAI ns since 1958 (exact also inside a leap second; kept also before 1972,
+        where UTC has no meaning); None when the code could not be decoded or lies beyond 9999
+        (counted in ``stats.time_code_errors``).
     kind : {"space", "encapsulation"}
     packet_type : int or None
         Space packet type bit (0 telemetry, 1 telecommand).
@@ -360,7 +360,7 @@ class PacketExtractor:
         self.drop_duplicates = drop_duplicates
         self.duplicate_window = duplicate_window
         self.time_codes = {tc.apid: _checked_time_code(tc) for tc in profile.packets.time_codes}
-        self._leap = default_leap_seconds() if self.time_codes else None
+        self._leap = leap_seconds() if self.time_codes else None
         self.reset()
 
     def reset(self) -> None:
@@ -624,8 +624,13 @@ class PacketExtractor:
         if tc is not None:
             time_tai = self._time_code(pkt, sec_flag, tc)
             if time_tai is not None:
-                time_ns = self._leap.tai_to_utc(time_tai)
-                if not _TIME_MIN_NS <= time_ns < _TIME_MAX_NS:
+                try:
+                    time_ns = self._leap.tai_to_utc(time_tai)
+                except ValueError:
+                    # before 1972 (e.g. an onboard clock counting from its level-1 epoch): no UTC, the
+                    # TAI count stays (decode --clock turns such onboard time into UTC)
+                    time_ns = None
+                if time_ns is not None and time_ns >= _TIME_MAX_NS:
                     # e.g. a 24-bit CDS day count far in the future: not a time anyone can print
                     time_ns = time_tai = None
             if time_tai is not None:

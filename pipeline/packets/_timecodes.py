@@ -22,13 +22,14 @@ CDS T-field
 
 from __future__ import annotations
 
-from pipeline.packets._time import (
+from typing import NamedTuple
+
+from pipeline.timescales import (
     NS_PER_DAY,
-    TAI_1958_TO_UNIX_DAYS,
     LeapSecondTable,
     _as_int,
-    default_leap_seconds,
-    parse_epoch_ns,
+    leap_seconds,
+    tai_from_calendar,
 )
 
 __all__ = [
@@ -37,6 +38,8 @@ __all__ = [
     "encode_cuc",
     "encode_cds",
     "decode_time_code",
+    "decode_obt_ns",
+    "OnboardTime",
     "cuc_pfield_layout",
     "cds_pfield_layout",
     "check_time_code_config",
@@ -145,6 +148,13 @@ def decode_cuc(data, *, pfield: int | None = None, epoch: str = LEVEL1_EPOCH) ->
     ----------
     CCSDS 301.0-B-4 sec. 3.2 (layout from memory, not confirmed).
     """
+    code_id, coarse_s, fine_count, fine, end = _cuc_fields(data, pfield)
+    base = 0 if code_id == 1 else tai_from_calendar(epoch)
+    return base + coarse_s * 1_000_000_000 + _fine_ns(fine_count, fine), end
+
+
+def _cuc_fields(data, pfield) -> tuple[int, int, int, int, int]:
+    """``(code_id, coarse count, fine count, fine octets, octets read)`` of a CUC."""
     buf = _buffer("data", data)
     if pfield is None:
         code_id, coarse, fine, n_p = cuc_pfield_layout(buf[:2])
@@ -155,12 +165,14 @@ def decode_cuc(data, *, pfield: int | None = None, epoch: str = LEVEL1_EPOCH) ->
     end = start + coarse + fine
     if len(buf) < end:
         raise ValueError(f"CUC needs {end} octets, only {len(buf)} present")
-    coarse_s = int.from_bytes(buf[start:start + coarse], "big")
-    fine_count = int.from_bytes(buf[start + coarse:end], "big")
-    scale = 1 << (8 * fine)
-    frac_ns = (2 * fine_count * 1_000_000_000 + scale) // (2 * scale)
-    base = 0 if code_id == 1 else parse_epoch_ns(epoch)
-    return base + coarse_s * 1_000_000_000 + frac_ns, end
+    return (code_id, int.from_bytes(buf[start:start + coarse], "big"),
+            int.from_bytes(buf[start + coarse:end], "big"), fine, end)
+
+
+def _fine_ns(fine_count: int, fine_octets: int) -> int:
+    """``fine_count / 256**fine_octets`` s in ns, nearest (half up)."""
+    scale = 1 << (8 * fine_octets)
+    return (2 * fine_count * 1_000_000_000 + scale) // (2 * scale)
 
 
 def encode_cuc(tai_ns: int, *, pfield: int = 0x1E, explicit: bool = False, epoch: str = LEVEL1_EPOCH) -> bytes:
@@ -181,7 +193,7 @@ def encode_cuc(tai_ns: int, *, pfield: int = 0x1E, explicit: bool = False, epoch
         raise ValueError(f"Argument 'pfield' is not a CUC P-field: {exc}.") from None
     if n_p != len(p):
         raise ValueError(f"Argument 'pfield' {pfield:#x} has {len(p)} octets but its extension flag says {n_p}.")
-    rel = tai_ns - (0 if code_id == 1 else parse_epoch_ns(epoch))
+    rel = tai_ns - (0 if code_id == 1 else tai_from_calendar(epoch))
     scale = 1 << (8 * fine)
     ticks = (2 * rel * scale + 1_000_000_000) // 2_000_000_000  # nearest count of 2^-8f s
     if not 0 <= ticks < (1 << (8 * (coarse + fine))):
@@ -191,12 +203,10 @@ def encode_cuc(tai_ns: int, *, pfield: int = 0x1E, explicit: bool = False, epoch
 
 
 def _cds_epoch_day(agency: bool, epoch: str) -> tuple[int, int]:
-    """(unix day, ns into that day) of the CDS epoch."""
+    """(day from 1958-01-01, ns into that day) of the CDS epoch."""
     if not agency:
-        return -TAI_1958_TO_UNIX_DAYS, 0
-    ns = parse_epoch_ns(epoch)
-    day, tod = divmod(ns, NS_PER_DAY)
-    return day - TAI_1958_TO_UNIX_DAYS, tod
+        return 0, 0
+    return divmod(tai_from_calendar(epoch), NS_PER_DAY)
 
 
 def decode_cds(data, *, pfield: int | None = None, epoch: str = LEVEL1_EPOCH,
@@ -237,6 +247,14 @@ def decode_cds(data, *, pfield: int | None = None, epoch: str = LEVEL1_EPOCH,
     ----------
     CCSDS 301.0-B-4 sec. 3.3 (layout from memory, not confirmed).
     """
+    agency, days, ms, sub_ns, _, end = _cds_fields(data, pfield)
+    day0, tod0 = _cds_epoch_day(agency, epoch)
+    tab = table or leap_seconds()
+    return tab.tai_from_day(day0 + days, tod0 + ms * 1_000_000 + sub_ns), end
+
+
+def _cds_fields(data, pfield) -> tuple[bool, int, int, int, int, int]:
+    """``(agency epoch, days, ms of day, sub-ms in ns, resolution in ns, octets read)`` of a CDS."""
     buf = _buffer("data", data)
     if pfield is None:
         if not buf:
@@ -257,17 +275,12 @@ def decode_cds(data, *, pfield: int | None = None, epoch: str = LEVEL1_EPOCH,
     if sub_octets == 2:
         if sub > 999:
             raise ValueError(f"CDS microseconds of millisecond {sub} exceed 999")
-        sub_ns = sub * 1000
-    elif sub_octets == 4:
+        return agency, days, ms, sub * 1000, 1000, end
+    if sub_octets == 4:
         if sub > 999_999_999:
             raise ValueError(f"CDS picoseconds of millisecond {sub} exceed 999999999")
-        sub_ns = (sub + 500) // 1000
-    else:
-        sub_ns = 0
-    day0, tod0 = _cds_epoch_day(agency, epoch)
-    tab = table or default_leap_seconds()
-    ns_of_day = tod0 + ms * 1_000_000 + sub_ns
-    return tab.utc_day_to_tai(day0 + days, ns_of_day), end
+        return agency, days, ms, (sub + 500) // 1000, 1, end
+    return agency, days, ms, 0, 1_000_000, end
 
 
 def encode_cds(tai_ns: int, *, pfield: int = 0x40, explicit: bool = False, epoch: str = LEVEL1_EPOCH,
@@ -289,8 +302,8 @@ def encode_cds(tai_ns: int, *, pfield: int = 0x40, explicit: bool = False, epoch
         agency, day_octets, sub_octets = cds_pfield_layout(p)
     except ValueError as exc:
         raise ValueError(f"Argument 'pfield' is not a CDS P-field: {exc}.") from None
-    tab = table or default_leap_seconds()
-    day, ns_of_day = tab.tai_to_utc_day(tai_ns)
+    tab = table or leap_seconds()
+    day, ns_of_day = tab.day_from_tai(tai_ns)
     day0, tod0 = _cds_epoch_day(agency, epoch)
     days = day - day0
     ns_of_day -= tod0
@@ -332,7 +345,7 @@ def check_time_code_config(code: str, pfield, epoch: str, offset) -> int | None:
         The implicit P-field (one or two octets for CUC, one for CDS), or None for an explicit
         P-field carried in each packet.
     epoch : str
-        ISO-8601 epoch for agency-defined epochs (:func:`parse_epoch_ns`).
+        ISO-8601 epoch for agency-defined epochs (:func:`pipeline.timescales.tai_from_calendar`).
     offset : int
         Octets from the start of the packet's secondary header to the time code, 0..65535.
 
@@ -375,7 +388,58 @@ def check_time_code_config(code: str, pfield, epoch: str, offset) -> int | None:
     if isinstance(offset, bool) or not isinstance(offset, int) or not 0 <= offset <= 65535:
         raise ValueError(f"offset must be 0..65535 octets, not {offset!r}")
     try:
-        parse_epoch_ns(epoch)
+        tai_from_calendar(epoch)
     except (TypeError, ValueError) as exc:
         raise ValueError(str(exc).replace("Argument 'epoch' must", "epoch must").rstrip(".")) from None
     return pfield
+
+
+class OnboardTime(NamedTuple):
+    """A time code read as a plain count (onboard time), without its epoch or any time scale.
+
+    Attributes
+    ----------
+    ns : int
+        The count in ns: CUC ``coarse + fine / 256**f`` s; CDS ``days x 86400 s + ms + sub-ms``.
+    octets : int
+        Octets read (P-field included when explicit).
+    resolution_ns : float
+        One step of the least significant field (CUC ``1e9 / 256**f``, CDS 1 ms, 1 us or 1 ps).
+    """
+
+    ns: int
+    octets: int
+    resolution_ns: float
+
+
+def decode_obt_ns(data, *, code: str, pfield: int | None = None) -> OnboardTime:
+    """Read a CUC or CDS as onboard time: the T-field's count in ns, no epoch and no leap seconds.
+
+    A spacecraft clock that is not kept on UTC runs from an arbitrary origin; correlation
+    (``downlink clock``) relates this count to UTC, so nothing here assumes a scale.
+
+    Raises
+    ------
+    ValueError
+        Bad P-field or short data (as :func:`decode_cuc` / :func:`decode_cds`), or a bad ``code``.
+
+    Notes
+    -----
+    Integer arithmetic; the CUC fine count is rounded to the nearest ns (half up).  O(octets).
+
+    References
+    ----------
+    CCSDS 301.0-B-4 sec. 3.2 and 3.3 (layouts from memory, not confirmed).
+
+    Examples
+    --------
+    >>> decode_obt_ns(bytes.fromhex("0000000A800000"), code="cuc", pfield=0x2F)  # 10.5 s, 3 fine octets
+    OnboardTime(ns=10500000000, octets=7, resolution_ns=59.604644775390625)
+    """
+    if code == "cuc":
+        _, coarse_s, fine_count, fine, end = _cuc_fields(data, pfield)
+        return OnboardTime(coarse_s * 1_000_000_000 + _fine_ns(fine_count, fine), end, 1e9 / (1 << (8 * fine)))
+    if code == "cds":
+        _, days, ms, sub_ns, res, end = _cds_fields(data, pfield)
+        return OnboardTime(days * NS_PER_DAY + ms * 1_000_000 + sub_ns, end, float(res))
+    raise ValueError(f"Argument 'code' must be cuc | cds, not {code!r}.")

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import bisect
+import logging
 import os
 import struct
 from collections.abc import Iterator
@@ -30,7 +31,8 @@ from pipeline.recording._sigmf import (
     parse_metadata,
     validate_metadata,
 )
-from pipeline.recording._time import NS_PER_S, parse_iso8601_ns
+from pipeline.recording._time import NS_PER_S, check_end_time, elapsed_ns, position_fraction, start_tai_ns
+from pipeline.timescales import format_utc, parse_utc, posix_ns_from_tai
 
 __all__ = [
     "Capture",
@@ -44,6 +46,7 @@ __all__ = [
 
 #: What a user is told when a raw recording lacks its description.
 RAW_NEEDS = f"a raw recording needs --format {FORMAT_CHOICES} and --sample-rate"
+_log = logging.getLogger("pipeline.recording")
 
 
 @dataclass(frozen=True)
@@ -55,18 +58,23 @@ class Capture:
     sample_start : int
         Index of the segment's first sample in the recording.
     datetime_ns : int
-        UTC of that sample, nanoseconds since 1970-01-01.  When the metadata gave no time it is
-        carried on from the previous segment at the nominal sample rate (see ``time_given``).
+        UTC of that sample, POSIX nanoseconds since 1970-01-01 (kept for the decode chain until it
+        uses ``tai_ns``).  When the metadata gave no time it is carried on from the previous segment
+        at the nominal sample rate (see ``time_given``); with no time anywhere it counts from 1970.
     frequency_hz : float or None
         Centre frequency of the segment, if known.
     time_given : bool
         True when the time came from the metadata (``core:datetime``) or the ``start`` argument.
+    tai_ns : int or None
+        The same instant on the uniform scale (TAI ns since 1958, :mod:`pipeline.timescales`), exact
+        also inside a leap second; None when the recording has no time.
     """
 
     sample_start: int
     datetime_ns: int
     frequency_hz: float | None = None
     time_given: bool = True
+    tai_ns: int | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -125,9 +133,14 @@ class Recording:
     frequency_hz : float or None
         Centre frequency of the first segment.
     start_ns : int
-        UTC of sample 0, nanoseconds since 1970-01-01 (``utc_ns(0)``).
+        UTC of sample 0, POSIX nanoseconds since 1970-01-01 (``utc_ns(0)``).
     time_known : bool
-        False when no start time was given anywhere (then ``start_ns`` is 0, i.e. 1970).
+        False when no start time was given anywhere (then ``start_ns`` is 0, i.e. 1970, and
+        :meth:`tai_ns` refuses).
+    time_source : str or None
+        Where the time came from: ``"SigMF core:datetime of capture N"`` (``captures 0, 2`` when
+        several segments carry their own), ``"--start"`` (the ``start`` argument); None when unknown.
+        Its accuracy is the recorder's.
     metadata : dict
         The parsed SigMF metadata (``global``, ``captures``, ``annotations``) or, for raw and WAV
         files, an equivalent dict built from the arguments.
@@ -162,6 +175,7 @@ class Recording:
         sha512: str | None = None,
         dataset_span: tuple[int, int] | None = None,
         verify_checksum: bool = True,
+        time_source: str | None = None,
     ) -> None:
         self.path = Path(path)
         self.meta_path = meta_path
@@ -183,6 +197,7 @@ class Recording:
         # Exact rational rate: utc_ns() is then exact integer arithmetic however long the pass.
         self._rate = Fraction(self.sample_rate_hz)
         self.time_known = any(c.time_given for c in self.captures)
+        self.time_source = time_source if self.time_known else None
 
     # ---- derived ---------------------------------------------------------------------------
     @property
@@ -216,27 +231,60 @@ class Recording:
         i = bisect.bisect_right(self._starts, position) - 1
         return self.captures[max(i, 0)]
 
-    def utc_ns(self, position: float) -> int:
-        """UTC of a (fractional) sample position, integer nanoseconds since 1970-01-01.
+    def tai_ns(self, position: float) -> int:
+        """Time of a (fractional) sample position on the uniform scale: TAI ns since 1958-01-01.
+
+        Write it as UTC with :func:`pipeline.timescales.format_utc` (23:59:60.x inside a leap second).
+
+        Raises
+        ------
+        RecordingError
+            The recording has no time (``time_known`` False): give ``start``.
 
         Notes
         -----
-        ``datetime_ns + round((position - sample_start) * 1e9 / sample_rate_hz)`` for the capture
-        segment holding ``position``, evaluated exactly with :class:`fractions.Fraction` (a float64
-        position and rate are exact binary fractions), rounded half to even.
+        ``tai_ns + round((position - sample_start) * 1e9 / sample_rate_hz)`` for the capture segment
+        holding ``position``: elapsed time is SI seconds, so a pass crossing a leap second is labelled
+        right (starting at 2016-12-31T23:59:59.5Z, one second later reads 23:59:60.5).  Exact
+        rational arithmetic, rounded half to even.
 
         References
         ----------
         SigMF specification, captures object: ``core:sample_start`` and ``core:datetime``.
+
+        Examples
+        --------
+        >>> import json, os, tempfile
+        >>> from pipeline.timescales import format_utc
+        >>> with tempfile.TemporaryDirectory() as d:
+        ...     base = os.path.join(d, "pass")
+        ...     _ = open(base + ".sigmf-data", "wb").write(bytes(8 * 4))
+        ...     meta = {"global": {"core:datatype": "cf32_le", "core:sample_rate": 2.0, "core:version": "1.2.0"},
+        ...             "captures": [{"core:sample_start": 0, "core:datetime": "2016-12-31T23:59:59.5Z"}],
+        ...             "annotations": []}
+        ...     _ = open(base + ".sigmf-meta", "w").write(json.dumps(meta))
+        ...     rec = open_recording(base + ".sigmf-meta")
+        ...     print(format_utc(rec.tai_ns(2)), rec.time_source)
+        2016-12-31T23:59:60.500000000Z SigMF core:datetime of capture 0
         """
-        if isinstance(position, (bool, np.bool_)):
-            raise TypeError("Argument 'position' must be a number, not bool.")
-        try:
-            pos = Fraction(int(position)) if isinstance(position, (int, np.integer)) else Fraction(float(position))
-        except (TypeError, ValueError, OverflowError):
-            raise ValueError(f"Argument 'position' must be a finite number, not {position!r}.") from None
+        position_fraction(position)  # the argument check, before the segment lookup
         cap = self.capture_at(position)
-        return cap.datetime_ns + round((pos - cap.sample_start) * NS_PER_S / self._rate)
+        if cap.tai_ns is None:
+            raise RecordingError(f"{self.path}: the recording has no start time; give one (--start)")
+        return cap.tai_ns + elapsed_ns(position, cap.sample_start, self._rate)
+
+    def utc_ns(self, position: float) -> int:
+        """UTC of a (fractional) sample position, POSIX nanoseconds since 1970-01-01.
+
+        Kept for the decode chain, which will switch to :meth:`tai_ns` (POSIX time cannot name
+        23:59:60: inside a leap second this is held at 23:59:59.999999999).  With no time known it
+        counts from 1970-01-01 (``time_known`` says so).
+        """
+        position_fraction(position)
+        cap = self.capture_at(position)
+        if cap.tai_ns is None:
+            return cap.datetime_ns + elapsed_ns(position, cap.sample_start, self._rate)
+        return posix_ns_from_tai(self.tai_ns(position))
 
     # ---- samples ---------------------------------------------------------------------------
     def _check_range(self, start: int, stop: int | None) -> tuple[int, int]:
@@ -506,17 +554,23 @@ def _check_frequency(p: Path, freq: Any, what: str) -> float | None:
     return check_frequency(p, freq, what)
 
 
-def _start_ns(p: Path, start: Any, what: str) -> int:
-    if isinstance(start, bool):
-        raise RecordingError(f"{p}: {what} must be an ISO-8601 UTC time, not {start!r}")
-    if isinstance(start, (int, np.integer)):
-        return int(start)
-    if not isinstance(start, str):
-        raise RecordingError(f"{p}: {what} must be an ISO-8601 UTC time, not {start!r}")
-    try:
-        return parse_iso8601_ns(start)
-    except ValueError as exc:
-        raise RecordingError(f"{p}: {what}: {exc}") from None
+def _timed_capture(sample_start: int, tai: int | None, freq: float | None, given: bool,
+                   posix_if_unknown: int = 0) -> Capture:
+    """A Capture with both time fields filled (the POSIX one derived from TAI when the time is known)."""
+    if tai is None:
+        return Capture(sample_start, posix_if_unknown, freq, given, None)
+    return Capture(sample_start, posix_ns_from_tai(tai), freq, given, tai)
+
+
+def _check_time_span(p: Path, recording: Recording) -> Recording:
+    """Refuse a recording whose time runs past the year 9999; warn once past the leap-second table's expiry."""
+    if recording.time_known:
+        try:
+            end = recording.tai_ns(recording.num_samples)
+        except ValueError:
+            raise RecordingError(f"{p}: the recording's time runs past the year 9999") from None
+        check_end_time(p, end)
+    return recording
 
 
 def _format_or_error(p: Path, fmt: Any) -> SampleFormat:
@@ -565,19 +619,16 @@ def _open_raw(p, fmt_name, sample_rate_hz, start, frequency_hz, verify_checksum)
     rate = _check_rate(p, sample_rate_hz)
     freq = _check_frequency(p, frequency_hz, "frequency")
     n = _count_samples(p, size, 0, fmt)
-    t0 = 0 if start is None else _start_ns(p, start, "start time")
-    cap = Capture(0, t0, freq, start is not None)
+    cap = _timed_capture(0, None if start is None else start_tai_ns(p, start), freq, start is not None)
     meta = _synth_meta(fmt, rate, cap, container="raw")
-    return Recording(path=p, container="raw", fmt=fmt, sample_rate_hz=rate, num_samples=n,
-                     captures=(cap,), metadata=meta)
+    return _check_time_span(p, Recording(path=p, container="raw", fmt=fmt, sample_rate_hz=rate, num_samples=n,
+                                         captures=(cap,), metadata=meta, time_source="--start"))
 
 
 def _synth_meta(fmt: SampleFormat, rate: float, cap: Capture, container: str) -> dict:
-    from pipeline.recording._time import format_iso8601_ns
-
     capture: dict[str, Any] = {"core:sample_start": 0}
     if cap.time_given:
-        capture["core:datetime"] = format_iso8601_ns(cap.datetime_ns)
+        capture["core:datetime"] = format_utc(cap.tai_ns)
     if cap.frequency_hz is not None:
         capture["core:frequency"] = cap.frequency_hz
     return {
@@ -638,15 +689,21 @@ def recording_from_sigmf_meta(meta: Any, *, meta_path: Path, data_path: Path, sa
             if not isinstance(dt, str):
                 raise RecordingError(f"{mp}: capture {i} core:datetime must be a string, not {dt!r}")
             try:
-                dt_ns = parse_iso8601_ns(dt)
+                dt_ns = parse_utc(dt)  # TAI ns since 1958
             except ValueError as exc:
                 raise RecordingError(f"{mp}: capture {i} core:datetime: {exc}") from None
         parsed.append((s0, dt_ns, c.frequency_hz))
+    sources = [f"SigMF core:datetime of capture {i}" for i, (_, t, _) in enumerate(parsed) if t is not None]
     if start is not None:
-        s0, _, f0 = parsed[0]
-        t = _start_ns(mp, start, "start time")
+        s0, own, f0 = parsed[0]
+        t = start_tai_ns(mp, start)
         # The argument is the time of sample 0; move it to the first segment's start.
         parsed[0] = (s0, t + round(Fraction(s0) * NS_PER_S / Fraction(rate)), f0)
+        if own is not None:
+            sources = sources[1:]
+            _log.warning("%s: --start %s replaces the recording's own time %s (SigMF core:datetime of capture 0)",
+                         mp, format_utc(parsed[0][1]), format_utc(own))
+        sources.insert(0, "--start")
     if frequency_hz is not None:
         f = _check_frequency(mp, frequency_hz, "frequency")
         parsed = [(s, t, f if fr is None else fr) for s, t, fr in parsed]
@@ -661,11 +718,12 @@ def recording_from_sigmf_meta(meta: Any, *, meta_path: Path, data_path: Path, sa
                              f"core:trailing_bytes")
     n = _count_samples(data_path, size - desc.trailing_bytes, desc.header_bytes, fmt)
     _check_promised_length(mp, data_path, n, fmt, desc)
-    captures = _resolve_times(parsed, rate)
-    return Recording(path=data_path, container=container, fmt=fmt, sample_rate_hz=rate, num_samples=n,
-                     captures=captures, metadata=meta, data_offset_bytes=base_offset + desc.header_bytes,
-                     meta_path=mp, sha512=desc.sha512, dataset_span=(base_offset, size),
-                     verify_checksum=verify_checksum)
+    captures = _resolve_times(parsed, rate, mp)
+    return _check_time_span(mp, Recording(path=data_path, container=container, fmt=fmt, sample_rate_hz=rate,
+                                          num_samples=n, captures=captures, metadata=meta,
+                                          data_offset_bytes=base_offset + desc.header_bytes, meta_path=mp,
+                                          sha512=desc.sha512, dataset_span=(base_offset, size),
+                                          verify_checksum=verify_checksum, time_source=_join_sources(sources)))
 
 
 def _check_promised_length(mp: Path, data_path: Path, n: int, fmt: SampleFormat, desc) -> None:
@@ -682,27 +740,43 @@ def _check_promised_length(mp: Path, data_path: Path, n: int, fmt: SampleFormat,
                              f"{desc.min_samples_why}); the data file is incomplete")
 
 
-def _resolve_times(parsed: list[tuple[int, int | None, float | None]], rate: float) -> tuple[Capture, ...]:
-    """Fill in segments without ``core:datetime`` by carrying time on at the nominal rate."""
+def _join_sources(sources: list[str]) -> str | None:
+    """``["SigMF core:datetime of capture 0", "... of capture 2"]`` -> ``"SigMF core:datetime of captures 0, 2"``."""
+    prefix = "SigMF core:datetime of capture "
+    caps = [s[len(prefix):] for s in sources if s.startswith(prefix)]
+    parts = [s for s in sources if not s.startswith(prefix)]
+    if len(caps) == 1:
+        parts.append(prefix + caps[0])
+    elif caps:
+        parts.append(prefix.rstrip() + "s " + ", ".join(caps))
+    return "; ".join(parts) or None
+
+
+def _resolve_times(parsed: list[tuple[int, int | None, float | None]], rate: float,
+                   mp: Path) -> tuple[Capture, ...]:
+    """Fill in segments without ``core:datetime`` by carrying time on at the nominal rate (on TAI)."""
     r = Fraction(rate)
-    caps: list[Capture] = []
     known = [i for i, (_, t, _) in enumerate(parsed) if t is not None]
     if not known:
-        # No time anywhere: sample 0 is put at the epoch (Recording.time_known says so).
-        anchor_i, anchor_t = 0, round(Fraction(parsed[0][0]) * NS_PER_S / r)
-    else:
-        anchor_i, anchor_t = known[0], parsed[known[0]][1]
+        # No time anywhere: POSIX counts from 1970 for utc_ns(); tai_ns() refuses (time_known False).
+        return tuple(_timed_capture(s0, None, f, False, round(Fraction(s0) * NS_PER_S / r)) for s0, _, f in parsed)
+    caps: list[Capture] = []
+    anchor_i, anchor_t = known[0], parsed[known[0]][1]
     for s0, t, f in parsed:
         if t is not None:
-            caps.append(Capture(s0, t, f, True))
+            caps.append(_timed_capture(s0, t, f, True))
             continue
         if caps:
             prev = caps[-1]
-            t_new = prev.datetime_ns + round(Fraction(s0 - prev.sample_start) * NS_PER_S / r)
+            t_new = prev.tai_ns + round(Fraction(s0 - prev.sample_start) * NS_PER_S / r)
         else:
             # Before the first segment with a time: count back from it.
             t_new = anchor_t - round(Fraction(parsed[anchor_i][0] - s0) * NS_PER_S / r)
-        caps.append(Capture(s0, t_new, f, False))
+        try:
+            caps.append(_timed_capture(s0, t_new, f, False))
+        except ValueError:
+            raise RecordingError(f"{mp}: capture at sample {s0} would start before 1972 (counted back from capture "
+                                 f"{anchor_i}'s core:datetime)") from None
     return tuple(caps)
 
 
@@ -735,11 +809,11 @@ def _open_wav(p: Path, fmt_given, sample_rate_hz, start, frequency_hz, verify_ch
         raise RecordingError(f"{p}: truncated: the data chunk declares {data_bytes} bytes but only "
                              f"{size - data_offset} follow")
     n = _count_samples(p, data_bytes, 0, fmt)
-    t0 = 0 if start is None else _start_ns(p, start, "start time")
-    cap = Capture(0, t0, freq, start is not None)
+    cap = _timed_capture(0, None if start is None else start_tai_ns(p, start), freq, start is not None)
     meta = _synth_meta(fmt, rate, cap, container="wav")
-    return Recording(path=p, container="wav", fmt=fmt, sample_rate_hz=rate, num_samples=n, captures=(cap,),
-                     metadata=meta, data_offset_bytes=data_offset)
+    return _check_time_span(p, Recording(path=p, container="wav", fmt=fmt, sample_rate_hz=rate, num_samples=n,
+                                         captures=(cap,), metadata=meta, data_offset_bytes=data_offset,
+                                         time_source="--start"))
 
 
 _WAVE_FORMAT_PCM = 0x0001

@@ -28,10 +28,11 @@ from pipeline.recording._recording import (
     _check_frequency,
     _check_rate,
     _format_or_error,
-    _start_ns,
     _synth_meta,
+    _timed_capture,
 )
 from pipeline.recording._symbols import SymbolChunk
+from pipeline.recording._time import start_tai_ns
 
 __all__ = ["SampleStream", "SymbolStream", "open_stream", "open_symbol_stream", "STDIN"]
 
@@ -147,7 +148,7 @@ class SampleStream(_ReadOnce, Recording):
 
     A :class:`~pipeline.recording.Recording` that can be read only once, in order, with
     :meth:`chunks`; ``num_samples`` (and ``duration_s``) are None until the stream has ended.
-    Time works as for a raw file: ``utc_ns(position)`` from the ``start`` given.
+    Time works as for a raw file: ``tai_ns(position)`` from the ``start`` given.
 
     Attributes
     ----------
@@ -161,7 +162,8 @@ class SampleStream(_ReadOnce, Recording):
     def __init__(self, source: _Source, *, fmt, sample_rate_hz: float, capture: Capture) -> None:
         meta = _synth_meta(fmt, sample_rate_hz, capture, container="stream")
         super().__init__(path=Path(source.name), container="stream", fmt=fmt, sample_rate_hz=sample_rate_hz,
-                         num_samples=None, captures=(capture,), metadata=meta)
+                         num_samples=None, captures=(capture,), metadata=meta,
+                         time_source="--start" if capture.time_given else None)
         self._source = source
         self.samples_read = 0
         self.trailing_bytes = 0
@@ -281,11 +283,11 @@ def open_stream(source: Any = STDIN, *, format: str | None = None, sample_rate_h
         fmt = _format_or_error(Path(src.name), format)
         rate = _check_rate(Path(src.name), sample_rate_hz)
         freq = _check_frequency(Path(src.name), frequency_hz, "frequency")
-        t0 = 0 if start is None else _start_ns(Path(src.name), start, "start time")
+        tai0 = None if start is None else start_tai_ns(Path(src.name), start)
     except BaseException:
         src.close()
         raise
-    return SampleStream(src, fmt=fmt, sample_rate_hz=rate, capture=Capture(0, t0, freq, start is not None))
+    return SampleStream(src, fmt=fmt, sample_rate_hz=rate, capture=_timed_capture(0, tai0, freq, start is not None))
 
 
 class SymbolStream(_ReadOnce):

@@ -87,7 +87,8 @@ class SigmfWriter:
     >>> import numpy as np, tempfile, os
     >>> from pipeline.recording import open_recording
     >>> with tempfile.TemporaryDirectory() as d:
-    ...     with SigmfWriter(os.path.join(d, "pass"), sample_rate_hz=1e6, datatype="ci16", datetime_ns=0) as w:
+    ...     with SigmfWriter(os.path.join(d, "pass"), sample_rate_hz=1e6, datatype="ci16",
+    ...                      datetime_ns=1_773_480_600_000_000_000) as w:  # 2026-03-14T09:30:00Z
     ...         w.write(np.full(1000, 0.25 + 0.5j, dtype=np.complex64))
     ...     rec = open_recording(os.path.join(d, "pass.sigmf-meta"))
     ...     rec.datatype, rec.num_samples, rec.metadata["global"]["downlink:sample_count"]

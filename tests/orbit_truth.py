@@ -1,0 +1,103 @@
+"""Invented orbits for the tests and the demo, written here without pipeline/ code.
+
+- The lunar relay orbiter *Tamarisk*: an analytic trajectory in the Earth-centred EME2000 frame, the Moon
+  on a circular orbit about the Earth plus a circular polar orbit about the Moon (two-body, invented
+  elements).  An element set cannot describe it, so the demo's ephemeris is an OEM written from it.
+- An invented low Earth orbiter element set (catalogue number 99999) for the SGP4 tests.
+
+``python tests/orbit_truth.py`` rewrites ``pipeline/data/tamarisk.oem`` (a test checks the two agree).
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+
+GM_EARTH = 398600.4418  # km^3/s^2 (WGS-84)
+GM_MOON = 4902.800066  # km^3/s^2 (lunar gravitational parameter, common practice)
+MOON_DISTANCE_KM = 384_400.0
+MOON_INCLINATION_DEG = 28.58  # of the invented lunar orbit plane to the equator
+LUNAR_ORBIT_RADIUS_KM = 1737.4 + 100.0  # 100 km above the mean lunar radius
+
+#: The demo's reference instant (the [simulate] start of the Tamarisk profile) as POSIX seconds.
+DEMO_EPOCH_TEXT = "2026-03-14T09:30:00"
+DEMO_EPOCH_POSIX_S = 1_773_480_600  # 2026-03-14T09:30:00Z
+
+
+def tamarisk_state(t_s: float) -> tuple[np.ndarray, np.ndarray]:
+    """Position (km) and velocity (km/s) in EME2000 at ``t_s`` seconds after the demo epoch (UTC scale).
+
+    Moon: circular, radius 384 400 km, period from ``GM_earth + GM_moon`` (Kepler's third law), plane
+    inclined 28.58 deg about the x axis, argument 1.05 rad at the epoch (invented: above the Hollow Ridge
+    meridian around the demo time).  Orbiter: circular polar orbit of radius 1837.4 km about the Moon,
+    in the plane spanned by the x and z axes, argument 0.3 rad at the epoch.
+    """
+    n_m = math.sqrt((GM_EARTH + GM_MOON) / MOON_DISTANCE_KM ** 3)
+    u = 1.05 + n_m * t_s
+    inc = math.radians(MOON_INCLINATION_DEG)
+    p_m = np.array([math.cos(u), math.sin(u) * math.cos(inc), math.sin(u) * math.sin(inc)])
+    d_m = np.array([-math.sin(u), math.cos(u) * math.cos(inc), math.cos(u) * math.sin(inc)])
+    n_l = math.sqrt(GM_MOON / LUNAR_ORBIT_RADIUS_KM ** 3)
+    w = 0.3 + n_l * t_s
+    p_l = np.array([math.cos(w), 0.0, math.sin(w)])
+    d_l = np.array([-math.sin(w), 0.0, math.cos(w)])
+    r = MOON_DISTANCE_KM * p_m + LUNAR_ORBIT_RADIUS_KM * p_l
+    v = MOON_DISTANCE_KM * n_m * d_m + LUNAR_ORBIT_RADIUS_KM * n_l * d_l
+    return r, v
+
+
+def _utc_text(posix_s: float) -> str:
+    import datetime as dt
+
+    whole = math.floor(posix_s)
+    frac = posix_s - whole
+    t = dt.datetime(1970, 1, 1) + dt.timedelta(seconds=whole)
+    return t.strftime("%Y-%m-%dT%H:%M:%S") + f".{round(frac * 1e6):06d}"
+
+
+def oem_text(state, *, start_s: float, stop_s: float, step_s: float, object_name: str = "TAMARISK",
+             object_id: str = "2026-999A", ref_frame: str = "EME2000", epoch_posix_s: int = DEMO_EPOCH_POSIX_S,
+             degree: int | None = 7, comment: str = "Invented ephemeris, not a real mission") -> str:
+    """An Orbit Ephemeris Message in key-value notation (CCSDS 502.0-B-2 keywords, from memory, not confirmed)."""
+    n = int(round((stop_s - start_s) / step_s)) + 1
+    times = [start_s + k * step_s for k in range(n)]
+    lines = ["CCSDS_OEM_VERS = 2.0", f"COMMENT {comment}", "CREATION_DATE = 2026-03-01T00:00:00.000",
+             "ORIGINATOR = TESTS", "", "META_START", f"OBJECT_NAME = {object_name}", f"OBJECT_ID = {object_id}",
+             "CENTER_NAME = EARTH", f"REF_FRAME = {ref_frame}", "TIME_SYSTEM = UTC",
+             f"START_TIME = {_utc_text(epoch_posix_s + times[0])}",
+             f"STOP_TIME = {_utc_text(epoch_posix_s + times[-1])}"]
+    if degree is not None:
+        lines += ["INTERPOLATION = HERMITE", f"INTERPOLATION_DEGREE = {degree}"]
+    lines += ["META_STOP", ""]
+    for t in times:
+        r, v = state(t)
+        lines.append(f"{_utc_text(epoch_posix_s + t)} " + " ".join(f"{x:.6f}" for x in r) + " "
+                     + " ".join(f"{x:.9f}" for x in v))
+    return "\n".join(lines) + "\n"
+
+
+def demo_oem_text() -> str:
+    """The bundled demo ephemeris: Tamarisk from 1 h before to 2 h after the demo epoch, one state a minute."""
+    return oem_text(tamarisk_state, start_s=-3600.0, stop_s=7200.0, step_s=60.0,
+                    comment="Invented ephemeris of the invented lunar relay orbiter Tamarisk (tests/orbit_truth.py)")
+
+
+def tle_checksum(line: str) -> str:
+    """Column 69: sum of the digits of columns 1-68, '-' counting 1, modulo 10 (common practice)."""
+    return str(sum(int(c) if c.isdigit() else (1 if c == "-" else 0) for c in line[:68]) % 10)
+
+
+def leo_tle(epoch_yyddd: str = "20167.50000000", raan: str = "305.0000", anomaly: str = "200.0000") -> tuple[str, str]:
+    """An invented sun-synchronous low orbiter (catalogue 99999), two lines with checksums."""
+    l1 = f"1 99999U 20999A   {epoch_yyddd}  .00000100  00000+0  10000-4 0  999"
+    l2 = f"2 99999  97.6000 {raan} 0012000  80.0000 {anomaly} 15.10000000 1000"
+    assert len(l1) == 68 and len(l2) == 68, (len(l1), len(l2))
+    return l1 + tle_checksum(l1), l2 + tle_checksum(l2)
+
+
+if __name__ == "__main__":
+    out = Path(__file__).resolve().parent.parent / "pipeline" / "data" / "tamarisk.oem"
+    out.write_text(demo_oem_text(), encoding="ascii")
+    print(f"wrote {out}")
