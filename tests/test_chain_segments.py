@@ -46,7 +46,7 @@ def _plain_decode(meta_path, profile, folder: Path, chunk_samples: int | None = 
     rec = open_recording(meta_path)
     sinks = FolderSinks(folder)
     front = FrontEnd(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz)
-    back = BackEnd(profile, timebase=rec, sinks=sinks)
+    back = BackEnd(profile, timebase=rec, sample_rate_hz=rec.sample_rate_hz, sinks=sinks)
     for chunk in rec.chunks(chunk_samples or profile.receiver.chunk_samples):
         back.process(front.process_chunk(chunk))
     back.process(front.finish())
@@ -60,7 +60,7 @@ def _segmented(meta_path, profile, folder: Path, *, workers: int = 1, segment_sa
                scheduler: str | None = None):
     rec = open_recording(meta_path)
     sinks = FolderSinks(folder)
-    back = BackEnd(profile, timebase=rec, sinks=sinks)
+    back = BackEnd(profile, timebase=rec, sample_rate_hz=rec.sample_rate_hz, sinks=sinks)
     sd = SegmentedDecode(profile, workers=workers, segment_samples=segment_samples, scheduler=scheduler)
     back.front_summary = sd.run(rec, back)
     sinks.close()
@@ -214,7 +214,7 @@ def test_overlap_frames_taken_once(long_recording, demo_profile, segmented_one_w
     back, _, sd = segmented_one_worker
     rec = open_recording(long_recording.meta_path)
     seen = []
-    other = BackEnd(demo_profile, timebase=rec)
+    other = BackEnd(demo_profile, timebase=rec, sample_rate_hz=rec.sample_rate_hz)
     SegmentedDecode(demo_profile, segment_samples=SEG).run(
         rec, other, on_segment=lambda res: seen.append((res.index, len(res.frames))))
     assert [i for i, _ in seen] == [0, 1, 2]

@@ -183,18 +183,21 @@ def test_iq_from_an_independent_transmitter(tmp_path, modulation):
     assert main(["decode", str(base) + ".sigmf-meta", "--profile", str(prof), "--out", str(out), "-q"]) == 0
     got = [json.loads(x) for x in (out / "packets.jsonl").read_text().splitlines()]
     assert [bytes.fromhex(g["hex"]) for g in got] == packets
-    # ERT: the centre of the first channel symbol of the ASM of the frame holding the packet's first octet
-    from pipeline.recording._time import parse_iso_ns
+    # ERT (issue 17): the leading edge of the first channel symbol of the ASM of the frame holding the
+    # packet's first octet = its pulse peak minus half the transmitted symbol period (common practice, no
+    # published source), within 0.1 symbol
+    from pipeline.timescales import parse_utc
 
-    t0 = parse_iso_ns("2026-03-14T09:30:00Z")
+    t0 = parse_utc("2026-03-14T09:30:00Z")
+    sps_tx = SAMPLE_RATE / SYMBOL_RATE * (1.0 - 40e-6)  # demod_signals: the symbol clock runs -40 ppm
     starts = np.cumsum([0] + [len(p) for p in packets[:-1]])
     bps = 1 if modulation == "bpsk" else 2
     for g, s in zip(got, starts):
         frame = int(s) // field_len
         channel_bit = 2 * (lead + frame * 8 * (4 + 255))  # r = 1/2: two channel bits per information bit
-        expected_s = wave.peak_position[channel_bit // bps] / SAMPLE_RATE
-        err = abs((parse_iso_ns(g["ert"]) - t0) * 1e-9 - expected_s)
-        assert err < 1.0 / SYMBOL_RATE, (g["ert"], expected_s)
+        expected_s = (wave.peak_position[channel_bit // bps] - 0.5 * sps_tx) / SAMPLE_RATE
+        err = abs((parse_utc(g["ert"]) - t0) * 1e-9 - expected_s)
+        assert err < 0.1 / SYMBOL_RATE, (g["ert"], expected_s)
 
 
 def test_doppler_csv_range_rate(tmp_path):

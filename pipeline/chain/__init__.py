@@ -17,7 +17,7 @@ from pipeline.chain._backend import BackEnd, FrameLog, TrackLog
 from pipeline.chain._chain import DecodeChain
 from pipeline.chain._frontend import FrontCounts, FrontEnd, FrontOutput, FrontSummary
 from pipeline.chain._output import OutputFolder
-from pipeline.chain._run import DecodeSummary, SymbolTimebase, decode_in_memory, decode_to_folder, kernel_cache_cold
+from pipeline.chain._run import DecodeSummary, decode_in_memory, decode_to_folder, kernel_cache_cold
 from pipeline.chain._segments import (
     DEFAULT_SEGMENT_SAMPLES,
     SegmentedDecode,
@@ -26,8 +26,11 @@ from pipeline.chain._segments import (
     segment_plan,
 )
 from pipeline.chain._sinks import FolderSinks, MemorySinks
+from pipeline.chain._time import ERT_DEFINITION, ErtClock
 
 __all__ = [
+    "ERT_DEFINITION",
+    "ErtClock",
     "DEFAULT_SEGMENT_SAMPLES",
     "BackEnd",
     "DecodeChain",
@@ -42,7 +45,6 @@ __all__ = [
     "OutputFolder",
     "SegmentResult",
     "SegmentedDecode",
-    "SymbolTimebase",
     "TrackLog",
     "decode",
     "decode_in_memory",

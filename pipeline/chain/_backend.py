@@ -129,8 +129,11 @@ class BackEnd:
     Parameters
     ----------
     profile : LinkProfile
-    timebase : object with ``utc_ns(position) -> int``, or None, keyword-only
-        Turns sample positions into UTC for the records; None leaves ERT fields null.
+    timebase : object with ``tai_ns(position) -> int``, or None, keyword-only
+        The recording (or symbol file) whose positions the frames carry; None leaves ERT fields null.
+    sample_rate_hz : float or None, keyword-only
+        Samples per second when positions are samples of an IQ recording; None when they are channel
+        symbols.  Turning a symbol's centre into its leading edge needs it (see :class:`ErtClock`).
     sinks : object or None, keyword-only
         Receives ``frame(obj)``, ``packet(obj, data)`` and ``doppler(rows)`` (see
         :mod:`pipeline.chain._sinks`); None counts without writing.
@@ -143,17 +146,20 @@ class BackEnd:
         by default they are delivered and flagged ``count_anomaly = "duplicate"``.
     """
 
-    def __init__(self, profile: LinkProfile, *, timebase=None, sinks=None, downlink_frequency_hz: float | None = None,
-                 tuning_offset_hz: float = 0.0, drop_duplicates: bool = False):
+    def __init__(self, profile: LinkProfile, *, timebase=None, sample_rate_hz: float | None = None, sinks=None,
+                 downlink_frequency_hz: float | None = None, tuning_offset_hz: float = 0.0,
+                 drop_duplicates: bool = False):
+        from pipeline.chain._time import ErtClock
         from pipeline.link import ChannelAccounting, FrameParser
-        from pipeline.packets import PacketExtractor, format_ert
+        from pipeline.packets import PacketExtractor
+        from pipeline.timescales import format_utc
 
         self.profile = profile
-        self.timebase = timebase
+        self.clock = None if timebase is None else ErtClock(timebase, profile, sample_rate_hz)
         self.sinks = sinks
         self.downlink_frequency_hz = downlink_frequency_hz
         self.tuning_offset_hz = float(tuning_offset_hz)
-        self._format_ert = format_ert
+        self._format_utc = format_utc
         from pipeline.fec import ASM
 
         self._marker = bytes(ASM)  # the marker in front of every CADU (cadus.bin)
@@ -180,10 +186,10 @@ class BackEnd:
         """Receiver track points, in stream order: the track log, lock events and Doppler rows."""
         if not track:
             return
-        if self.sinks is not None and self.timebase is not None:
+        if self.sinks is not None and self.clock is not None:
             from pipeline.demod.residual import doppler_rows
 
-            self.sinks.doppler(doppler_rows(track, self.timebase, self.downlink_frequency_hz,
+            self.sinks.doppler(doppler_rows(track, self.clock, self.downlink_frequency_hz,
                                             tuning_offset_hz=self.tuning_offset_hz))
         for tp in track:
             self.track.append(tp)
@@ -228,10 +234,10 @@ class BackEnd:
 
     # ---- helpers --------------------------------------------------------------------------
     def ert(self, position: float) -> str | None:
-        """The ERT string of a sample position (None without a time base)."""
-        if self.timebase is None:
+        """The ERT string of a position (the centre of a frame's first ASM symbol); None without a time base."""
+        if self.clock is None:
             return None
-        return self._format_ert(self.timebase.utc_ns(position))
+        return self.clock.ert(position)
 
     def _packet(self, pkt) -> None:
         self.packet_count += 1
@@ -249,6 +255,6 @@ class BackEnd:
             if key not in obj and key not in ("data", "hex"):
                 obj[key] = value
         obj["esn0_db"] = self.track.esn0_at(pkt.position)
-        if pkt.time_ns is not None:
-            obj["packet_time"] = self._format_ert(int(pkt.time_ns))
+        if pkt.time_ns is not None:  # a time code on UTC's scale (None before 1972)
+            obj["packet_time"] = self._format_utc(int(pkt.time_tai_ns))
         self.sinks.packet(obj, bytes(pkt.data))

@@ -48,7 +48,8 @@ class DecodeChain:
                  timebase=None, sinks=None, downlink_frequency_hz: float | None = None, tuning_offset_hz: float = 0.0):
         self.profile = profile
         self.front = FrontEnd(profile, input_kind=input_kind, sample_rate_hz=sample_rate_hz)
-        self.back = BackEnd(profile, timebase=timebase, sinks=sinks, downlink_frequency_hz=downlink_frequency_hz,
+        self.back = BackEnd(profile, timebase=timebase, sample_rate_hz=sample_rate_hz if input_kind == "iq" else None,
+                            sinks=sinks, downlink_frequency_hz=downlink_frequency_hz,
                             tuning_offset_hz=tuning_offset_hz)
 
     def process_chunk(self, chunk) -> None:

@@ -21,10 +21,10 @@ from pipeline.chain._output import OutputFolder
 from pipeline.chain._progress import Progress
 from pipeline.chain._segments import DEFAULT_SEGMENT_SAMPLES, SegmentedDecode
 from pipeline.chain._sinks import FolderSinks, MemorySinks
-from pipeline.errors import RecordingError, UsageError
+from pipeline.errors import UsageError
 from pipeline.profile import LinkProfile
 
-__all__ = ["DecodeSummary", "SymbolTimebase", "decode_in_memory", "decode_to_folder", "kernel_cache_cold"]
+__all__ = ["DecodeSummary", "decode_in_memory", "decode_to_folder", "kernel_cache_cold"]
 
 #: Samples at the start of an IQ recording whose spectrum the report shows.
 SPECTRUM_SAMPLES = 1 << 18
@@ -106,20 +106,6 @@ class DecodeSummary:
                 f"{self.packets} packets")
 
 
-class SymbolTimebase:
-    """Time base for channel-symbol input: position = channel symbol index.
-
-    ``utc = start + position / channel_bit_rate`` (the channel bit rate of the profile's link).
-    """
-
-    def __init__(self, *, start_ns: int, channel_bit_rate: float):
-        self.start_ns = int(start_ns)
-        self.channel_bit_rate = float(channel_bit_rate)
-
-    def utc_ns(self, position: float) -> int:
-        return self.start_ns + int(round(float(position) * 1e9 / self.channel_bit_rate))
-
-
 @dataclass
 class _Input:
     """An opened input: a recording or a symbol file, with its time base and report facts."""
@@ -141,7 +127,8 @@ def _no_start(path: str) -> UsageError:
 def _open_input(recording: str, profile: LinkProfile, *, input_kind: str, datatype: str | None,
                 sample_rate_hz: float | None, start: str | None, no_time: bool) -> _Input:
     """Open the input and its time base; refuse to invent a start time (no silent epoch)."""
-    from pipeline.packets import format_ert
+    from pipeline.chain._time import ERT_DEFINITION
+    from pipeline.timescales import format_utc
 
     if input_kind not in INPUT_KINDS:
         raise ValueError(f"Argument 'input_kind' must be iq | soft | bits, not {input_kind!r}.")
@@ -157,7 +144,10 @@ def _open_input(recording: str, profile: LinkProfile, *, input_kind: str, dataty
         info = {
             "path": Path(rec.path).name, "datatype": rec.datatype, "sample_rate_hz": rec.sample_rate_hz,
             "samples": rec.num_samples, "duration_s": rec.duration_s,
-            "start": format_ert(rec.start_ns) if timed else None, "time_known": timed,
+            "start": format_utc(rec.tai_ns(0)) if timed else None, "time_known": timed,
+            "time_source": rec.time_source if timed else None,
+            "receive_delay_ns": profile.station.receive_delay_ns,
+            "ert_definition": ERT_DEFINITION if timed else None,
             "frequency_hz": rec.frequency_hz, "captures": len(rec.captures),
         }
         return _Input("iq", rec, rec.num_samples, rec if timed else None, info, rec.duration_s, rec.sample_rate_hz)
@@ -166,25 +156,18 @@ def _open_input(recording: str, profile: LinkProfile, *, input_kind: str, dataty
     if sample_rate_hz is not None or datatype is not None:
         raise UsageError("--format and --sample-rate apply to --input iq only; channel symbols are timed by "
                          "the profile's symbol rate")
-    syms = open_symbols(recording, input_kind)
     if start is None and not no_time:
         raise _no_start(recording)
     rate = profile.link.channel_bit_rate
-    timebase = None if no_time else SymbolTimebase(start_ns=_parse_start(start, recording), channel_bit_rate=rate)
+    syms = open_symbols(recording, input_kind, start=start, symbol_rate_hz=rate)
+    timed = syms.time_known
     duration = syms.num_symbols / rate
     info = {"path": Path(recording).name, "input": input_kind, "channel_symbols": syms.num_symbols,
-            "duration_s": duration, "start": None if timebase is None else format_ert(timebase.start_ns),
-            "time_known": timebase is not None}
-    return _Input(input_kind, syms, syms.num_symbols, timebase, info, duration, rate)
-
-
-def _parse_start(start: str, path: str) -> int:
-    from pipeline.recording._time import parse_iso_ns
-
-    try:
-        return parse_iso_ns(start)
-    except ValueError as exc:
-        raise RecordingError(f"{path}: --start {start!r} is not an ISO-8601 UTC time ({exc})") from None
+            "duration_s": duration, "start": format_utc(syms.tai_ns(0)) if timed else None,
+            "time_known": timed, "time_source": syms.time_source,
+            "receive_delay_ns": profile.station.receive_delay_ns,
+            "ert_definition": ERT_DEFINITION if timed else None}
+    return _Input(input_kind, syms, syms.num_symbols, syms if timed else None, info, duration, rate)
 
 
 def _spectrum(rec) -> tuple[np.ndarray, np.ndarray] | None:
@@ -216,7 +199,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
             rec = inp.source
             downlink_hz = profile.link.downlink_frequency_hz or rec.frequency_hz
             tuning = float(rec.frequency_hz) - float(downlink_hz) if (downlink_hz and rec.frequency_hz) else 0.0
-            back = BackEnd(profile, timebase=inp.timebase, sinks=sinks, downlink_frequency_hz=downlink_hz,
+            back = BackEnd(profile, timebase=inp.timebase, sample_rate_hz=rec.sample_rate_hz, sinks=sinks,
+                           downlink_frequency_hz=downlink_hz,
                            tuning_offset_hz=tuning)
             # IQ recordings are decoded in fixed overlapping segments: the output depends on the segment
             # length only, never on the number of workers.

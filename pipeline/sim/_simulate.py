@@ -208,7 +208,8 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
     ``scid``, ``vcid``, ``mcfc``, ``vcfc``, ``fhp``, ``idle``, ``ocf``, ``position``, ``ert``,
     ``channel_bit``, ``carrier_offset_hz``).  ``position`` is the sample position of the first
     channel symbol of the frame's ASM (see :mod:`pipeline.sim._modulator`), ``ert`` =
-    ``start + position / sample_rate`` in integer nanoseconds, ``channel_bit`` the index of that
+    ``start + (position - T / 2) / sample_rate`` in integer nanoseconds (the symbol's leading edge, ``T`` the
+    transmitted modulation symbol period in samples), ``channel_bit`` the index of that
     symbol in ``channel.bits`` / ``channel.soft``.  A packet's ERT is that of the frame holding its
     first octet.  Signal RMS: 0.35 of full scale with the noise included (less without it).
     """
@@ -385,7 +386,8 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
                     done = True  # this frame and all later ones are cut by the end of the recording
                     break
                 pos = modulator.bit_position(int(asm_bit))
-                ert = format_utc_ns(start_ns + int(round(pos * 1e9 / fs)))
+                # ERT: the leading edge of the ASM's first channel symbol (its centre minus half a symbol)
+                ert = format_utc_ns(start_ns + int(round((pos - 0.5 * T) * 1e9 / fs)))
                 rec = {"index": num_frames, "scid": profile.frames.spacecraft_id, "vcid": b.vcid, "mcfc": b.mcfc,
                        "vcfc": b.vcfc, "fhp": b.fhp, "idle": b.idle, "ocf": b.ocf.hex() if b.ocf else None,
                        "position": pos, "ert": ert, "channel_bit": int(asm_bit),

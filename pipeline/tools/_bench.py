@@ -241,7 +241,7 @@ def _decode_once(rec, profile, folder: Path | None, workers: int, *, repeats_tag
     if folder is not None:
         folder.mkdir(parents=True, exist_ok=True)
         sinks = FolderSinks(folder)
-    back = BackEnd(profile, timebase=rec, sinks=sinks)
+    back = BackEnd(profile, timebase=rec, sample_rate_hz=rec.sample_rate_hz, sinks=sinks)
     sd = SegmentedDecode(profile, workers=workers)
     t0 = time.perf_counter()
     sd.run(rec, back)
