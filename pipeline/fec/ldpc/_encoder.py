@@ -7,6 +7,7 @@ import functools
 import numpy as np
 
 from pipeline.fec.ldpc._codes import LdpcCode, qc_generator
+from pipeline.fec.ldpc._gf2 import pack_rows
 from pipeline.fec.ldpc._kernels import qc_encode_kernel
 
 __all__ = ["ldpc_encode", "ldpc_encode_bits"]
@@ -16,7 +17,11 @@ __all__ = ["ldpc_encode", "ldpc_encode_bits"]
 def _doubled_generator(code: LdpcCode, n_seg: int) -> np.ndarray:
     """The first ``n_seg`` generator segments, each stored twice (the layout qc_encode_kernel reads)."""
     gen = qc_generator(code)[:, :n_seg, :]
-    out = np.ascontiguousarray(np.concatenate([gen, gen], axis=2))
+    n_blk, b = gen.shape[0], gen.shape[2]
+    n_words = -(-2 * b // 64) + 1
+    bits = np.zeros((n_blk * n_seg, 64 * n_words), dtype=np.uint8)
+    bits[:, :2 * b] = np.concatenate([gen, gen], axis=2).reshape(n_blk * n_seg, 2 * b)
+    out = pack_rows(bits).reshape(n_blk, n_seg, n_words)
     out.flags.writeable = False
     return out
 
@@ -70,7 +75,8 @@ def ldpc_encode_bits(code: LdpcCode, info_bits, *, full: bool = False) -> np.nda
     n_parity = n_parity_full if full else code.n - code.extension - code.k
     n_seg = -(-n_parity // code.circulant)
     parity = np.empty((n_cw, n_seg * code.circulant), dtype=np.uint8)
-    qc_encode_kernel(u, _doubled_generator(code, n_seg), parity)
+    acc = np.empty((n_seg, -(-code.circulant // 64)), dtype=np.uint64)
+    qc_encode_kernel(u, _doubled_generator(code, n_seg), code.circulant, acc, parity)
     if full:
         out = np.concatenate([u, parity[:, :n_parity]], axis=1)
     else:

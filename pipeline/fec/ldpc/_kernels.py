@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 from numba import njit
+from numba.extending import overload
 
 __all__ = [
     "gf2_rref_kernel",
@@ -58,25 +59,41 @@ def gf2_rref_kernel(a, n_pivot_cols, pivots):
 
 
 @njit(cache=True)
-def qc_encode_kernel(info, gen2, out):
-    """Parity of quasi-cyclic systematic codes: ``out[c] = info[c] . W`` over GF(2).
+def qc_encode_kernel(info, gen_words, b, acc, out):
+    """Parity of a quasi-cyclic systematic code: ``out[c] = info[c] . W`` over GF(2).
 
-    ``info`` (uint8 0/1, shape (codewords, blocks x b)): the information bits, in blocks of
-    ``b`` bits.  ``gen2`` (uint8, shape (blocks, segments, 2 b)): for each block the parity of its
-    first unit vector, ``segments`` circulant segments of ``b`` bits, each stored twice in a row,
-    so that the parity of unit vector ``r`` of the block (every segment rotated right by ``r``)
-    is ``gen2[blk, t, b - r : 2 b - r]``.  ``out`` (uint8, shape (codewords, segments x b)).
-    Cost: (set information bits) x segments x b byte XORs.
+    ``info`` (uint8 0/1, shape (codewords, blocks x b)): the information bits in blocks of ``b``.
+    ``gen_words`` (uint64, shape (blocks, segments, words)): for each block the parity of its first
+    unit vector as ``segments`` circulant segments of ``b`` bits, each segment stored twice in a
+    row (2 b bits, bit j at bit ``j & 63`` of word ``j >> 6``, one spare zero word at the end).
+    The parity of unit vector ``r`` of a block is every segment rotated right by ``r``, i.e. bits
+    ``b - r .. 2 b - r - 1`` of the doubled segment.  ``acc`` (uint64, shape (segments, ceil(b/64)))
+    is work space; ``out`` (uint8 0/1, shape (codewords, segments x b)).
+    Cost: (set information bits) x segments x ceil(b / 64) word operations.
     """
     n_cw = info.shape[0]
-    n_blk, n_seg, b2 = gen2.shape
-    b = b2 // 2
+    n_blk, n_seg, _ = gen_words.shape
+    nw = acc.shape[1]
+    one = np.uint64(1)
     for c in range(n_cw):
-        par = out[c]
-        par[:] = 0
+        acc[:, :] = 0
         for blk in range(n_blk):
             base = blk * b
             for r in range(b):
                 if info[c, base + r]:
+                    off = b - r
+                    q = off >> 6
+                    sh = np.uint64(off & 63)
+                    back = np.uint64(64 - (off & 63))
                     for t in range(n_seg):
-                        par[t * b:(t + 1) * b] ^= gen2[blk, t, b - r:2 * b - r]
+                        g = gen_words[blk, t]
+                        a = acc[t]
+                        if sh == 0:
+                            for w in range(nw):
+                                a[w] ^= g[q + w]
+                        else:
+                            for w in range(nw):
+                                a[w] ^= (g[q + w] >> sh) | (g[q + w + 1] << back)
+        for t in range(n_seg):
+            for j in range(b):
+                out[c, t * b + j] = np.uint8((acc[t, j >> 6] >> np.uint64(j & 63)) & one)
