@@ -136,7 +136,11 @@ _AR4JA_H12 = (
     ((0,), (5, 6), (), (7, 8), (0,)),
 )
 _AR4JA_H23_FRONT = (((), ()), ((9, 10, 11), (0,)), ((0,), (12, 13, 14)))
-_AR4JA_H45_FRONT = (((), (), (), ()), ((21, 22, 23), (0,), (15, 16, 17), (0,)), ((0,), (24, 25, 26), (0,), (18, 19, 20)))
+_AR4JA_H45_FRONT = (
+    ((), (), (), ()),
+    ((21, 22, 23), (0,), (15, 16, 17), (0,)),
+    ((0,), (24, 25, 26), (0,), (18, 19, 20)),
+)
 
 
 @dataclass(frozen=True)
@@ -249,8 +253,8 @@ def ldpc_code(family: str, *, rate: str | None = None, k: int | None = None) -> 
             raise ValueError(f"Argument 'rate' must be None for C2, not {rate!r}.")
         if k not in (None, 7136):
             raise ValueError(f"Argument 'k' must be None for C2, not {k!r}.")
-        return LdpcCode(family="c2", rate="223/255", k=7136, n=8160, n_var=16 * _C2_CIRCULANT, n_check=2 * _C2_CIRCULANT,
-                        head_zeros=_C2_SHORTENED, punctured=0, extension=_C2_EXTENSION, circulant=_C2_CIRCULANT)
+        return LdpcCode(family="c2", rate="223/255", k=7136, n=8160, n_var=16 * _C2_CIRCULANT,
+                        n_check=2 * _C2_CIRCULANT, head_zeros=_C2_SHORTENED, punctured=0, extension=_C2_EXTENSION, circulant=_C2_CIRCULANT)
     if family != "ar4ja":
         raise ValueError(f"Argument 'family' must be one of {', '.join(LDPC_FAMILIES)}, not {family!r}.")
     if rate not in AR4JA_RATES:
@@ -350,7 +354,7 @@ def _ar4ja_layout(rate: str):
     return layout
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def parity_check(code: LdpcCode) -> SparseParityCheck:
     """The parity-check matrix H of ``code`` (all ``n_var`` columns), built once and cached.
 
@@ -400,7 +404,7 @@ def parity_check(code: LdpcCode) -> SparseParityCheck:
     return _csr(np.concatenate(rows), np.concatenate(cols), code.n_check, code.n_var)
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def qc_generator(code: LdpcCode) -> np.ndarray:
     """First rows of the circulants of the systematic generator's parity part, built once and cached.
 

@@ -13,7 +13,7 @@ from pipeline.fec.ldpc._kernels import qc_encode_kernel
 __all__ = ["ldpc_encode", "ldpc_encode_bits"]
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def _doubled_generator(code: LdpcCode, n_seg: int) -> np.ndarray:
     """The first ``n_seg`` generator segments, each stored twice (the layout qc_encode_kernel reads)."""
     gen = qc_generator(code)[:, :n_seg, :]

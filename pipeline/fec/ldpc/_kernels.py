@@ -9,13 +9,27 @@ ints (``int(x)``) with explicit clamps, so numpy's int8 wrap-around never enters
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
-from numba.extending import overload
+from llvmlite import ir
+from numba import njit, types
+from numba.extending import intrinsic, overload
+
+from pipeline.fec._kernels import _IR_I8, _IR_I32, _IR_I64, _ir_i64, _ir_splat, _IrLoop, _is_c_vector
 
 __all__ = [
     "gf2_rref_kernel",
     "qc_encode_kernel",
+    "ldpc_iteration_kernel",
+    "ldpc_syndrome_kernel",
+    "ldpc_decode_scalar_kernel",
+    "ldpc_decode_vector_kernel",
+    "LDPC_LANES",
+    "LDPC_MAX_ROW_WEIGHT",
 ]
+
+#: Codewords decoded side by side by the vector kernel (int8 lanes of one vector).
+LDPC_LANES = (32, 64)
+#: Longest row of H the vector kernel accepts (its per-row buffer; C2 has 32, AR4JA at most 18).
+LDPC_MAX_ROW_WEIGHT = 64
 
 
 # ---- GF(2) elimination --------------------------------------------------------------------------
@@ -97,3 +111,477 @@ def qc_encode_kernel(info, gen_words, b, acc, out):
         for t in range(n_seg):
             for j in range(b):
                 out[c, t * b + j] = np.uint8((acc[t, j >> 6] >> np.uint64(j & 63)) & one)
+
+
+# ---- layered min-sum decoder: the scalar reference ----------------------------------------------
+#
+# Fixed point, int8: posteriors L (one per variable) and check-to-variable messages R (one per
+# edge) are integers in -127..127 (units of 1 / llr_scale).  One iteration visits the rows of H
+# in order; for row m with edges j (variables v_j):
+#     Q_j = clamp(L[v_j] - R_j)                       (variable-to-check, extrinsic)
+#     min1, min2 = the two smallest |Q_j| (min1's edge: the first one reaching it), sign product s
+#     o(x) = max((x * alpha16) >> 4 - beta, 0)      (normalized: beta = 0; offset: alpha16 = 16)
+#     R_j = (s * sign Q_j) * o(min2 if j is min1's edge else min1)
+#     L[v_j] = clamp(Q_j + R_j)
+# with clamp to -127..127; a negative value means bit 1, zero and positive bit 0.  The vector
+# kernel below does exactly this on LDPC_LANES codewords at once (int8 lanes).
+
+
+@njit(cache=True)
+def _quantize_llr(x, scale, clip):
+    """round(x * scale) clipped to -clip..clip (round half to even, in float64)."""
+    q = np.rint(np.float64(x) * scale)
+    if q > clip:
+        return clip
+    if q < -clip:
+        return -clip
+    return int(q)
+
+
+@njit(cache=True)
+def _scale_magnitude(x, alpha16, beta):
+    o = ((x * alpha16) >> 4) - beta
+    return o if o > 0 else 0
+
+
+@njit(cache=True)
+def ldpc_iteration_kernel(post, msg, row_start, cols, alpha16, beta, qbuf):
+    """One layered min-sum iteration on one codeword, in place.
+
+    ``post`` (int8, variables): posteriors; ``msg`` (int8, edges): check-to-variable messages;
+    ``row_start``/``cols`` (int32): H in compressed rows; ``alpha16``, ``beta``: the magnitude
+    correction ``max((x alpha16 >> 4) - beta, 0)``; ``qbuf`` (int64, >= longest row): work space.
+    Cost: about 2 passes over the edges of H.
+    """
+    n_rows = row_start.shape[0] - 1
+    for m in range(n_rows):
+        s = row_start[m]
+        e = row_start[m + 1]
+        m1 = 127
+        m2 = 127
+        idx = 0
+        sgn = 0
+        for j in range(s, e):
+            q = int(post[cols[j]]) - int(msg[j])
+            if q > 127:
+                q = 127
+            elif q < -127:
+                q = -127
+            qbuf[j - s] = q
+            a = q if q >= 0 else -q
+            if q < 0:
+                sgn ^= 1
+            if a < m1:
+                m2 = m1
+                m1 = a
+                idx = j - s
+            elif a < m2:
+                m2 = a
+        o1 = _scale_magnitude(m1, alpha16, beta)
+        o2 = _scale_magnitude(m2, alpha16, beta)
+        for j in range(s, e):
+            q = qbuf[j - s]
+            mag = o2 if j - s == idx else o1
+            neg = sgn ^ (1 if q < 0 else 0)
+            r = -mag if neg else mag
+            msg[j] = r
+            t = q + r
+            if t > 127:
+                t = 127
+            elif t < -127:
+                t = -127
+            post[cols[j]] = t
+
+
+@njit(cache=True)
+def ldpc_syndrome_kernel(post, row_start, cols):
+    """Number of rows of H whose check fails on the hard decisions of ``post`` (negative = 1)."""
+    n_rows = row_start.shape[0] - 1
+    weight = 0
+    for m in range(n_rows):
+        par = 0
+        for j in range(row_start[m], row_start[m + 1]):
+            if post[cols[j]] < 0:
+                par ^= 1
+        weight += par
+    return weight
+
+
+@njit(cache=True)
+def _emit(hard, stride, lane, llr_row, head_zeros, info_start, out_frame):
+    """Pack the information bits of a lane (MSB first) and count the sent bits the decoder flipped."""
+    n_oct = out_frame.shape[0]
+    for i in range(n_oct):
+        acc = 0
+        base = (info_start + 8 * i) * stride + lane
+        for bit in range(8):
+            acc = (acc << 1) | (1 if hard[base + bit * stride] < 0 else 0)
+        out_frame[i] = acc
+    flips = 0
+    for i in range(llr_row.shape[0]):
+        dec = hard[(head_zeros + i) * stride + lane] < 0
+        chan = llr_row[i] < 0
+        if dec != chan:
+            flips += 1
+    return flips
+
+
+@njit(cache=True)
+def _load(post, stride, lane, llr_row, scale, clip, head_zeros, n_var):
+    """Quantised channel values of one codeword into a lane: known zeros, the sent bits, erasures."""
+    n_sent = llr_row.shape[0]
+    for v in range(head_zeros):
+        post[v * stride + lane] = 127
+    for i in range(n_sent):
+        post[(head_zeros + i) * stride + lane] = _quantize_llr(llr_row[i], scale, clip)
+    for v in range(head_zeros + n_sent, n_var):
+        post[v * stride + lane] = 0
+
+
+@njit(cache=True)
+def _finish_scalar(post, msg, row_start, cols, it, max_iter, alpha16, beta, qbuf):
+    """Iterate one codeword until its syndrome is zero or ``max_iter``; returns (iterations, weight)."""
+    weight = -1
+    while it < max_iter:
+        ldpc_iteration_kernel(post, msg, row_start, cols, alpha16, beta, qbuf)
+        it += 1
+        weight = ldpc_syndrome_kernel(post, row_start, cols)
+        if weight == 0:
+            break
+    if weight < 0:
+        weight = ldpc_syndrome_kernel(post, row_start, cols)
+    return it, weight
+
+
+@njit(cache=True)
+def ldpc_decode_scalar_kernel(llr, scale, clip, head_zeros, row_start, cols, max_iter, alpha16, beta, info_start,
+                              post, msg, qbuf, out_frames, out_iters, out_weight, out_flips):
+    """Decode codewords one at a time with :func:`ldpc_iteration_kernel` (the reference kernel).
+
+    ``llr`` (float32, shape (codewords, sent variables)): soft values of the sent bits that are
+    variables of H, + = bit 0; they are quantised as ``round(llr x scale)`` clipped to +-``clip``;
+    the ``head_zeros`` leading variables are set to +127 (known zeros), the variables after the
+    sent ones to 0 (punctured: erasures).  Each codeword starts with all messages 0 and runs
+    iterations until the syndrome of the posteriors is zero (checked after every iteration, so
+    at least one runs) or ``max_iter``.  Outputs per codeword: ``out_frames`` the information bits
+    (variables ``info_start`` on) packed MSB first, ``out_iters`` the iterations run,
+    ``out_weight`` the final syndrome weight (0 = success), ``out_flips`` how many sent bits
+    differ from the signs of ``llr``.  ``post``, ``msg``, ``qbuf``: work space.
+    """
+    n_var = post.shape[0]
+    for c in range(llr.shape[0]):
+        _load(post, 1, 0, llr[c], scale, clip, head_zeros, n_var)
+        msg[:] = 0
+        it, weight = _finish_scalar(post, msg, row_start, cols, 0, max_iter, alpha16, beta, qbuf)
+        out_iters[c] = it
+        out_weight[c] = weight
+        out_flips[c] = _emit(post, 1, 0, llr[c], head_zeros, info_start, out_frames[c])
+
+
+# ---- layered min-sum decoder: codewords side by side as LLVM vector code -----------------------
+#
+# The same arithmetic on W = 32 or 64 codewords at once: variable v of lane l is post[v W + l],
+# the message of edge j of lane l is msg[j W + l], so every load and store of the row update is
+# one <W x i8> vector and the lanes never interact.  numba does not vectorise this by itself
+# (it widens int8 arithmetic to int64), so the row loop is written as generic LLVM IR: saturating
+# add/subtract, smin/smax/abs intrinsics, selects; no target-specific intrinsics.  A lane whose
+# ``fresh`` flag is set reads its old messages as 0 (a new codeword was loaded into it), so each
+# lane is refilled as soon as its codeword is finished and no lane waits for the slowest.
+
+
+def _ir_vec_intrinsic(module, base, vty):
+    """Declare a generic LLVM vector intrinsic: ``llvm.<base>.v<N>i<B>(v, v)``, or ``(v, i1)`` for abs."""
+    name = f"llvm.{base}.v{vty.count}i{vty.element.width}"
+    if name in module.globals:
+        return module.globals[name]
+    second = ir.IntType(1) if base == "abs" else vty
+    return ir.Function(module, ir.FunctionType(vty, [vty, second]), name)
+
+
+def _ir_ldpc_iteration_function(module, lanes):
+    """Define ``void it(i8* post, i8* msg, i8* fresh, i32* row_start, i32* cols_w, i64 n_rows, i32 alpha16,
+    i32 beta)`` for ``lanes`` codewords (cols_w = column x lanes)."""
+    name = f"pipeline_fec_ldpc_iteration_{lanes}"
+    if name in module.globals:
+        return module.globals[name]
+    i8p, i32p = _IR_I8.as_pointer(), _IR_I32.as_pointer()
+    vec = ir.VectorType(_IR_I8, lanes)
+    v16 = ir.VectorType(ir.IntType(16), lanes)
+    fn = ir.Function(module, ir.FunctionType(ir.VoidType(), [i8p, i8p, i8p, i32p, i32p, _IR_I64, _IR_I32, _IR_I32]),
+                     name)
+    fn.linkage = "internal"
+    post, msg, fresh, row_start, cols_w, n_rows, alpha16, beta = fn.args
+    for a in (post, msg, fresh, row_start, cols_w):
+        a.add_attribute("noalias")
+    sadd = _ir_vec_intrinsic(module, "sadd.sat", vec)
+    ssub = _ir_vec_intrinsic(module, "ssub.sat", vec)
+    smin = _ir_vec_intrinsic(module, "smin", vec)
+    smax = _ir_vec_intrinsic(module, "smax", vec)
+    smax16 = _ir_vec_intrinsic(module, "smax", v16)
+    vabs = _ir_vec_intrinsic(module, "abs", vec)
+    b = ir.IRBuilder(fn.append_basic_block("entry"))
+    qbuf = b.alloca(vec, size=LDPC_MAX_ROW_WEIGHT)
+    qbuf.align = 64
+    zero = ir.Constant(vec, None)
+    lo = ir.Constant(vec, [-127] * lanes)
+    top = ir.Constant(vec, [127] * lanes)
+    is_fresh = b.icmp_signed("!=", b.load(b.bitcast(fresh, vec.as_pointer()), align=1), zero)
+    a16 = _ir_splat(b, b.trunc(alpha16, ir.IntType(16)), lanes)
+    b16 = _ir_splat(b, b.trunc(beta, ir.IntType(16)), lanes)
+    z16 = ir.Constant(v16, None)
+    four = ir.Constant(v16, [4] * lanes)
+    w64 = _ir_i64(lanes)
+
+    def at(base, idx):  # <lanes x i8>* at base + idx
+        return b.bitcast(b.gep(base, [idx]), vec.as_pointer())
+
+    def scaled(x):
+        y = b.sub(b.ashr(b.mul(b.sext(x, v16), a16), four), b16)
+        return b.trunc(b.call(smax16, [y, z16]), vec)
+
+    rows = _IrLoop(fn, b, "row", _ir_i64(0))
+    rows.while_below(n_rows)
+    s = b.sext(b.load(b.gep(row_start, [rows.i])), _IR_I64)
+    e = b.sext(b.load(b.gep(row_start, [b.add(rows.i, _ir_i64(1))])), _IR_I64)
+    p1 = _IrLoop(fn, b, "pass1", s, [top, top, zero, zero])
+    p1.while_below(e)
+    m1, m2, idx, sgn = p1.vals
+    k = b.sub(p1.i, s)
+    off = b.sext(b.load(b.gep(cols_w, [p1.i])), _IR_I64)
+    lv = b.load(at(post, off), align=1)
+    rv = b.select(is_fresh, zero, b.load(at(msg, b.mul(p1.i, w64)), align=1))
+    q = b.call(smax, [b.call(ssub, [lv, rv]), lo])
+    b.store(q, b.gep(qbuf, [k]), align=64)
+    a = b.call(vabs, [q, ir.Constant(ir.IntType(1), 0)])
+    lt = b.icmp_signed("<", a, m1)
+    m2n = b.select(lt, m1, b.call(smin, [m2, a]))
+    m1n = b.select(lt, a, m1)
+    idxn = b.select(lt, _ir_splat(b, b.trunc(k, _IR_I8), lanes), idx)
+    p1.next(1, [m1n, m2n, idxn, b.xor(sgn, q)])
+    m1, m2, idx, sgn = p1.vals
+    o1 = scaled(m1)
+    o2 = scaled(m2)
+    p2 = _IrLoop(fn, b, "pass2", s)
+    p2.while_below(e)
+    k = b.sub(p2.i, s)
+    q = b.load(b.gep(qbuf, [k]), align=64)
+    mag = b.select(b.icmp_signed("==", idx, _ir_splat(b, b.trunc(k, _IR_I8), lanes)), o2, o1)
+    neg = b.icmp_signed("<", b.xor(sgn, q), zero)
+    rn = b.select(neg, b.sub(zero, mag), mag)
+    b.store(rn, at(msg, b.mul(p2.i, w64)), align=1)
+    off = b.sext(b.load(b.gep(cols_w, [p2.i])), _IR_I64)
+    b.store(b.call(smax, [b.call(sadd, [q, rn]), lo]), at(post, off), align=1)
+    p2.next(1)
+    rows.next(1)
+    b.ret_void()
+    return fn
+
+
+def _ir_ldpc_syndrome_function(module, lanes):
+    """Define ``void syn(i8* post, i32* row_start, i32* cols_w, i64 n_rows, i32* weight)`` (weight per lane)."""
+    name = f"pipeline_fec_ldpc_syndrome_{lanes}"
+    if name in module.globals:
+        return module.globals[name]
+    i8p, i32p = _IR_I8.as_pointer(), _IR_I32.as_pointer()
+    vec = ir.VectorType(_IR_I8, lanes)
+    v32 = ir.VectorType(_IR_I32, lanes)
+    fn = ir.Function(module, ir.FunctionType(ir.VoidType(), [i8p, i32p, i32p, _IR_I64, i32p]), name)
+    fn.linkage = "internal"
+    post, row_start, cols_w, n_rows, weight = fn.args
+    for a in (post, row_start, cols_w, weight):
+        a.add_attribute("noalias")
+    b = ir.IRBuilder(fn.append_basic_block("entry"))
+    zero = ir.Constant(vec, None)
+    rows = _IrLoop(fn, b, "row", _ir_i64(0), [ir.Constant(v32, None)])
+    rows.while_below(n_rows)
+    s = b.sext(b.load(b.gep(row_start, [rows.i])), _IR_I64)
+    e = b.sext(b.load(b.gep(row_start, [b.add(rows.i, _ir_i64(1))])), _IR_I64)
+    edges = _IrLoop(fn, b, "edge", s, [zero])
+    edges.while_below(e)
+    off = b.sext(b.load(b.gep(cols_w, [edges.i])), _IR_I64)
+    lv = b.load(b.bitcast(b.gep(post, [off]), vec.as_pointer()), align=1)
+    edges.next(1, [b.xor(edges.vals[0], lv)])
+    bad = b.zext(b.icmp_signed("<", edges.vals[0], zero), v32)
+    rows.next(1, [b.add(rows.vals[0], bad)])
+    b.store(rows.vals[0], b.bitcast(weight, v32.as_pointer()), align=4)
+    b.ret_void()
+    return fn
+
+
+def _int_args_ok(*args):
+    return all(isinstance(a, types.Integer) for a in args)
+
+
+def _make_iteration_intrinsic(lanes):
+    @intrinsic
+    def _iteration_ir(typingctx, post, msg, fresh, row_start, cols_w, alpha16, beta):
+        if not (_is_c_vector(post, types.int8) and _is_c_vector(msg, types.int8)
+                and _is_c_vector(fresh, types.int8) and _is_c_vector(row_start, types.int32)
+                and _is_c_vector(cols_w, types.int32) and _int_args_ok(alpha16, beta)):
+            return None
+        sig = types.void(post, msg, fresh, row_start, cols_w, alpha16, beta)
+
+        def codegen(context, builder, signature, args):
+            arrs = [context.make_array(signature.args[k])(context, builder, args[k]) for k in range(5)]
+            n_rows = builder.sub(arrs[3].nitems, _ir_i64(1))
+            a16 = context.cast(builder, args[5], signature.args[5], types.int32)
+            bt = context.cast(builder, args[6], signature.args[6], types.int32)
+            fn = _ir_ldpc_iteration_function(builder.module, lanes)
+            builder.call(fn, [arrs[0].data, arrs[1].data, arrs[2].data, arrs[3].data, arrs[4].data, n_rows, a16, bt])
+            return context.get_dummy_value()
+
+        return sig, codegen
+    return _iteration_ir
+
+
+def _make_syndrome_intrinsic(lanes):
+    @intrinsic
+    def _syndrome_ir(typingctx, post, row_start, cols_w, weight):
+        if not (_is_c_vector(post, types.int8) and _is_c_vector(row_start, types.int32)
+                and _is_c_vector(cols_w, types.int32) and _is_c_vector(weight, types.int32)):
+            return None
+        sig = types.void(post, row_start, cols_w, weight)
+
+        def codegen(context, builder, signature, args):
+            arrs = [context.make_array(signature.args[k])(context, builder, args[k]) for k in range(4)]
+            n_rows = builder.sub(arrs[1].nitems, _ir_i64(1))
+            fn = _ir_ldpc_syndrome_function(builder.module, lanes)
+            builder.call(fn, [arrs[0].data, arrs[1].data, arrs[2].data, n_rows, arrs[3].data])
+            return context.get_dummy_value()
+
+        return sig, codegen
+    return _syndrome_ir
+
+
+_iteration_ir_32 = _make_iteration_intrinsic(32)
+_iteration_ir_64 = _make_iteration_intrinsic(64)
+_syndrome_ir_32 = _make_syndrome_intrinsic(32)
+_syndrome_ir_64 = _make_syndrome_intrinsic(64)
+
+
+def _lanes_iteration(post, msg, fresh, row_start, cols_w, alpha16, beta):
+    """Plain-Python meaning of the vector iteration: :func:`ldpc_iteration_kernel` on each lane.
+
+    Compiled code runs the LLVM vector version instead (overload below).
+    """
+    lanes = fresh.shape[0]
+    cols = (cols_w // lanes).astype(np.int32)
+    qbuf = np.zeros(LDPC_MAX_ROW_WEIGHT, dtype=np.int64)
+    for lane in range(lanes):
+        p = post[lane::lanes].copy()
+        m = msg[lane::lanes].copy()
+        if fresh[lane]:
+            m[:] = 0
+        ldpc_iteration_kernel(p, m, row_start, cols, alpha16, beta, qbuf)
+        post[lane::lanes] = p
+        msg[lane::lanes] = m
+
+
+@overload(_lanes_iteration)
+def _lanes_iteration_jit(post, msg, fresh, row_start, cols_w, alpha16, beta):
+    def impl(post, msg, fresh, row_start, cols_w, alpha16, beta):
+        if fresh.shape[0] == 64:
+            _iteration_ir_64(post, msg, fresh, row_start, cols_w, alpha16, beta)
+        else:
+            _iteration_ir_32(post, msg, fresh, row_start, cols_w, alpha16, beta)
+    return impl
+
+
+def _lanes_syndrome(post, row_start, cols_w, weight):
+    """Plain-Python meaning of the vector syndrome: :func:`ldpc_syndrome_kernel` on each lane."""
+    lanes = weight.shape[0]
+    cols = (cols_w // lanes).astype(np.int32)
+    for lane in range(lanes):
+        weight[lane] = ldpc_syndrome_kernel(post[lane::lanes].copy(), row_start, cols)
+
+
+@overload(_lanes_syndrome)
+def _lanes_syndrome_jit(post, row_start, cols_w, weight):
+    def impl(post, row_start, cols_w, weight):
+        if weight.shape[0] == 64:
+            _syndrome_ir_64(post, row_start, cols_w, weight)
+        else:
+            _syndrome_ir_32(post, row_start, cols_w, weight)
+    return impl
+
+
+@njit(cache=True)
+def _finish_lane(post, msg, fresh, lane, row_start, cols, it, max_iter, alpha16, beta, p1, m1, qbuf):
+    """Move lane ``lane`` out of the vector state and finish it with the scalar kernel."""
+    lanes = fresh.shape[0]
+    for v in range(p1.shape[0]):
+        p1[v] = post[v * lanes + lane]
+    if fresh[lane]:
+        m1[:] = 0
+    else:
+        for j in range(m1.shape[0]):
+            m1[j] = msg[j * lanes + lane]
+    return _finish_scalar(p1, m1, row_start, cols, it, max_iter, alpha16, beta, qbuf)
+
+
+@njit(cache=True)
+def ldpc_decode_vector_kernel(llr, scale, clip, head_zeros, row_start, cols, cols_w, max_iter, alpha16, beta,
+                              info_start, tail_lanes, post, msg, fresh, weight, lane_cw, lane_it, p1, m1, qbuf,
+                              out_frames, out_iters, out_weight, out_flips):
+    """:func:`ldpc_decode_scalar_kernel` with W = ``fresh.shape[0]`` (32 or 64) codewords side by side.
+
+    Same arguments and outputs, bit for bit, plus: ``cols_w`` (int32) = ``cols`` x W; ``post``
+    (int8, variables x W), ``msg`` (int8, edges x W), ``fresh`` (int8, W), ``weight`` (int32, W),
+    ``lane_cw``, ``lane_it`` (int64, W), ``p1`` (int8, variables), ``m1`` (int8, edges): work
+    space.  A lane takes the next codeword as soon as its own is finished (syndrome zero or
+    ``max_iter``); once every codeword is in a lane and at most ``tail_lanes`` lanes are still
+    busy, those are finished one by one by the scalar kernel (also when there are that few
+    codewords to begin with).  Cost per iteration: about 2 passes over the edges with W-lane
+    int8 vector operations, plus one pass for the syndromes.
+    """
+    lanes = fresh.shape[0]
+    n_cw = llr.shape[0]
+    n_var = p1.shape[0]
+    nxt = 0
+    active = 0
+    for lane in range(lanes):
+        fresh[lane] = -1
+        lane_it[lane] = 0
+        if n_cw > tail_lanes and nxt < n_cw:
+            _load(post, lanes, lane, llr[nxt], scale, clip, head_zeros, n_var)
+            lane_cw[lane] = nxt
+            nxt += 1
+            active += 1
+        else:
+            for v in range(n_var):
+                post[v * lanes + lane] = 127
+            lane_cw[lane] = -1
+    while active > tail_lanes or (active > 0 and nxt < n_cw):
+        _lanes_iteration(post, msg, fresh, row_start, cols_w, alpha16, beta)
+        fresh[:] = 0
+        _lanes_syndrome(post, row_start, cols_w, weight)
+        for lane in range(lanes):
+            c = lane_cw[lane]
+            if c < 0:
+                continue
+            lane_it[lane] += 1
+            if weight[lane] == 0 or lane_it[lane] >= max_iter:
+                out_iters[c] = lane_it[lane]
+                out_weight[c] = weight[lane]
+                out_flips[c] = _emit(post, lanes, lane, llr[c], head_zeros, info_start, out_frames[c])
+                if nxt < n_cw:
+                    _load(post, lanes, lane, llr[nxt], scale, clip, head_zeros, n_var)
+                    lane_cw[lane] = nxt
+                    lane_it[lane] = 0
+                    fresh[lane] = -1
+                    nxt += 1
+                else:
+                    lane_cw[lane] = -1
+                    active -= 1
+    for lane in range(lanes):
+        c = lane_cw[lane]
+        if c < 0:
+            continue
+        it, w = _finish_lane(post, msg, fresh, lane, row_start, cols, lane_it[lane], max_iter, alpha16, beta,
+                             p1, m1, qbuf)
+        out_iters[c] = it
+        out_weight[c] = w
+        out_flips[c] = _emit(p1, 1, 0, llr[c], head_zeros, info_start, out_frames[c])
+    if n_cw <= tail_lanes:
+        ldpc_decode_scalar_kernel(llr, scale, clip, head_zeros, row_start, cols, max_iter, alpha16, beta,
+                                  info_start, p1, m1, qbuf, out_frames, out_iters, out_weight, out_flips)
