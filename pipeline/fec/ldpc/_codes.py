@@ -254,7 +254,8 @@ def ldpc_code(family: str, *, rate: str | None = None, k: int | None = None) -> 
         if k not in (None, 7136):
             raise ValueError(f"Argument 'k' must be None for C2, not {k!r}.")
         return LdpcCode(family="c2", rate="223/255", k=7136, n=8160, n_var=16 * _C2_CIRCULANT,
-                        n_check=2 * _C2_CIRCULANT, head_zeros=_C2_SHORTENED, punctured=0, extension=_C2_EXTENSION, circulant=_C2_CIRCULANT)
+                        n_check=2 * _C2_CIRCULANT, head_zeros=_C2_SHORTENED, punctured=0,
+                        extension=_C2_EXTENSION, circulant=_C2_CIRCULANT)
     if family != "ar4ja":
         raise ValueError(f"Argument 'family' must be one of {', '.join(LDPC_FAMILIES)}, not {family!r}.")
     if rate not in AR4JA_RATES:

@@ -82,7 +82,7 @@ def _check_number(name, value, rule, ok):
     return value
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def _lane_columns(code: LdpcCode, lanes: int) -> np.ndarray:
     cols = (parity_check(code).cols.astype(np.int64) * lanes).astype(np.int32)
     cols.flags.writeable = False
@@ -217,7 +217,7 @@ class LdpcDecoder:
                 fresh=np.zeros(lanes, np.int8), weight=np.zeros(lanes, np.int32),
                 lane_cw=np.zeros(lanes, np.int64), lane_it=np.zeros(lanes, np.int64),
                 p1=np.zeros(h.n_cols, np.int8), m1=np.zeros(h.n_edges, np.int8),
-                qbuf=np.zeros(LDPC_MAX_ROW_WEIGHT, np.int64))
+                qbuf=np.zeros(LDPC_MAX_ROW_WEIGHT, np.int64), qtmp=np.zeros(h.n_cols, np.int8))
         return self._work
 
     def _as_llr(self, llr) -> np.ndarray:
@@ -227,11 +227,11 @@ class LdpcDecoder:
                              f"not shape {arr.shape}.")
         if not np.issubdtype(arr.dtype, np.floating):
             raise TypeError(f"Argument 'llr' must be a float array (float32, + = bit 0), not dtype {arr.dtype}.")
-        arr = np.atleast_2d(arr)
-        sent = np.ascontiguousarray(arr[:, :self.code.sent_vars], dtype=np.float32)
-        if sent.size and not np.isfinite(sent).all():
+        arr = np.ascontiguousarray(np.atleast_2d(arr), dtype=np.float32)
+        # a float64 sum of float32 values cannot overflow, so it is finite exactly when they all are
+        if arr.size and not np.isfinite(np.sum(arr, dtype=np.float64)):
             raise ValueError("Argument 'llr' must hold finite values, not NaN or Inf.")
-        return sent
+        return arr
 
     def decode(self, llr) -> LdpcResult:
         """Decode one codeword (shape (n,)) or many (shape (codewords, n)).
@@ -254,15 +254,15 @@ class LdpcDecoder:
         iters = np.zeros(n_cw, np.int32)
         weight = np.zeros(n_cw, np.int32)
         flips = np.zeros(n_cw, np.int32)
-        common = (llr, self.llr_scale, self.llr_clip, code.head_zeros, h.row_start, h.cols)
+        common = (llr, code.sent_vars, self.llr_scale, self.llr_clip, code.head_zeros, h.row_start, h.cols)
         if self.kernel == "vector":
             ldpc_decode_vector_kernel(*common, self._cols_w, self.max_iterations, self._alpha16, self._beta,
-                                      code.info_start, DEFAULT_TAIL_LANES, w["post"], w["msg"], w["fresh"],
-                                      w["weight"], w["lane_cw"], w["lane_it"], w["p1"], w["m1"], w["qbuf"],
-                                      frames, iters, weight, flips)
+                                      DEFAULT_TAIL_LANES, w["post"], w["msg"], w["fresh"], w["weight"], w["lane_cw"],
+                                      w["lane_it"], w["p1"], w["m1"], w["qbuf"], w["qtmp"], frames, iters, weight,
+                                      flips)
         else:
-            ldpc_decode_scalar_kernel(*common, self.max_iterations, self._alpha16, self._beta, code.info_start,
-                                      w["p1"], w["m1"], w["qbuf"], frames, iters, weight, flips)
+            ldpc_decode_scalar_kernel(*common, self.max_iterations, self._alpha16, self._beta, w["p1"], w["m1"],
+                                      w["qbuf"], w["qtmp"], frames, iters, weight, flips)
         ok = weight == 0
         self.codewords += n_cw
         self.failed += int(np.count_nonzero(~ok))

@@ -130,18 +130,12 @@ def qc_encode_kernel(info, gen_words, b, acc, out):
 @njit(cache=True)
 def _quantize_llr(x, scale, clip):
     """round(x * scale) clipped to -clip..clip (round half to even, in float64)."""
-    q = np.rint(np.float64(x) * scale)
-    if q > clip:
-        return clip
-    if q < -clip:
-        return -clip
-    return int(q)
+    return int(min(max(np.rint(np.float64(x) * scale), -clip), clip))
 
 
 @njit(cache=True)
 def _scale_magnitude(x, alpha16, beta):
-    o = ((x * alpha16) >> 4) - beta
-    return o if o > 0 else 0
+    return max(((x * alpha16) >> 4) - beta, 0)
 
 
 @njit(cache=True)
@@ -161,36 +155,25 @@ def ldpc_iteration_kernel(post, msg, row_start, cols, alpha16, beta, qbuf):
         m2 = 127
         idx = 0
         sgn = 0
-        for j in range(s, e):
-            q = int(post[cols[j]]) - int(msg[j])
-            if q > 127:
-                q = 127
-            elif q < -127:
-                q = -127
-            qbuf[j - s] = q
-            a = q if q >= 0 else -q
-            if q < 0:
-                sgn ^= 1
-            if a < m1:
-                m2 = m1
-                m1 = a
-                idx = j - s
-            elif a < m2:
-                m2 = a
+        for j in range(s, e):  # written with min/max/selects: data-dependent branches mispredict
+            k = j - s
+            q = min(max(int(post[cols[j]]) - int(msg[j]), -127), 127)
+            qbuf[k] = q
+            a = abs(q)
+            sgn ^= (q >> 63) & 1
+            lt = a < m1
+            m2 = m1 if lt else min(m2, a)
+            m1 = min(m1, a)
+            idx = k if lt else idx
         o1 = _scale_magnitude(m1, alpha16, beta)
         o2 = _scale_magnitude(m2, alpha16, beta)
         for j in range(s, e):
-            q = qbuf[j - s]
-            mag = o2 if j - s == idx else o1
-            neg = sgn ^ (1 if q < 0 else 0)
-            r = -mag if neg else mag
+            k = j - s
+            q = qbuf[k]
+            mag = o2 if k == idx else o1
+            r = -mag if sgn ^ ((q >> 63) & 1) else mag
             msg[j] = r
-            t = q + r
-            if t > 127:
-                t = 127
-            elif t < -127:
-                t = -127
-            post[cols[j]] = t
+            post[cols[j]] = min(max(q + r, -127), 127)
 
 
 @njit(cache=True)
@@ -201,40 +184,40 @@ def ldpc_syndrome_kernel(post, row_start, cols):
     for m in range(n_rows):
         par = 0
         for j in range(row_start[m], row_start[m + 1]):
-            if post[cols[j]] < 0:
-                par ^= 1
-        weight += par
+            par ^= int(post[cols[j]])
+        weight += 1 if par < 0 else 0
     return weight
 
 
 @njit(cache=True)
-def _emit(hard, stride, lane, llr_row, head_zeros, info_start, out_frame):
-    """Pack the information bits of a lane (MSB first) and count the sent bits the decoder flipped."""
-    n_oct = out_frame.shape[0]
-    for i in range(n_oct):
-        acc = 0
-        base = (info_start + 8 * i) * stride + lane
-        for bit in range(8):
-            acc = (acc << 1) | (1 if hard[base + bit * stride] < 0 else 0)
-        out_frame[i] = acc
+def _emit(hard, stride, lane, llr_row, n_sent, head_zeros, out_frame):
+    """Pack the information bits of a lane (the first 8 x len(out_frame) sent bits, MSB first) and
+    return how many of the ``n_sent`` sent bits the decoder flipped against the signs of ``llr_row``."""
+    n_info = 8 * out_frame.shape[0]
     flips = 0
-    for i in range(llr_row.shape[0]):
-        dec = hard[(head_zeros + i) * stride + lane] < 0
-        chan = llr_row[i] < 0
-        if dec != chan:
-            flips += 1
+    acc = 0
+    for i in range(n_sent):
+        d = 1 if hard[(head_zeros + i) * stride + lane] < 0 else 0
+        flips += d ^ (1 if llr_row[i] < 0 else 0)
+        if i < n_info:
+            acc = (acc << 1) | d
+            if i & 7 == 7:
+                out_frame[i >> 3] = acc
+                acc = 0
     return flips
 
 
 @njit(cache=True)
-def _load(post, stride, lane, llr_row, scale, clip, head_zeros, n_var):
-    """Quantised channel values of one codeword into a lane: known zeros, the sent bits, erasures."""
-    n_sent = llr_row.shape[0]
+def _load(post, stride, lane, llr_row, n_sent, scale, clip, head_zeros, qtmp):
+    """Quantised channel values of one codeword into a lane: known zeros (+127), the ``n_sent``
+    sent bits, then erasures (0) up to the last variable."""
+    for i in range(n_sent):  # contiguous, so LLVM vectorises the rounding
+        qtmp[i] = _quantize_llr(llr_row[i], scale, clip)
     for v in range(head_zeros):
         post[v * stride + lane] = 127
     for i in range(n_sent):
-        post[(head_zeros + i) * stride + lane] = _quantize_llr(llr_row[i], scale, clip)
-    for v in range(head_zeros + n_sent, n_var):
+        post[(head_zeros + i) * stride + lane] = qtmp[i]
+    for v in range(head_zeros + n_sent, qtmp.shape[0]):
         post[v * stride + lane] = 0
 
 
@@ -254,28 +237,28 @@ def _finish_scalar(post, msg, row_start, cols, it, max_iter, alpha16, beta, qbuf
 
 
 @njit(cache=True)
-def ldpc_decode_scalar_kernel(llr, scale, clip, head_zeros, row_start, cols, max_iter, alpha16, beta, info_start,
-                              post, msg, qbuf, out_frames, out_iters, out_weight, out_flips):
+def ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, cols, max_iter, alpha16, beta,
+                              post, msg, qbuf, qtmp, out_frames, out_iters, out_weight, out_flips):
     """Decode codewords one at a time with :func:`ldpc_iteration_kernel` (the reference kernel).
 
-    ``llr`` (float32, shape (codewords, sent variables)): soft values of the sent bits that are
-    variables of H, + = bit 0; they are quantised as ``round(llr x scale)`` clipped to +-``clip``;
-    the ``head_zeros`` leading variables are set to +127 (known zeros), the variables after the
-    sent ones to 0 (punctured: erasures).  Each codeword starts with all messages 0 and runs
+    ``llr`` (float32, shape (codewords, >= n_sent)): soft values of the sent bits, + = bit 0; the
+    first ``n_sent`` of each row are variables ``head_zeros ..`` of H (the rest, C2's extension
+    bits, are not read).  They are quantised as ``round(llr x scale)`` clipped to +-``clip``; the
+    ``head_zeros`` leading variables are set to +127 (known zeros), the variables after the sent
+    ones to 0 (punctured: erasures).  Each codeword starts with all messages 0 and runs
     iterations until the syndrome of the posteriors is zero (checked after every iteration, so
     at least one runs) or ``max_iter``.  Outputs per codeword: ``out_frames`` the information bits
-    (variables ``info_start`` on) packed MSB first, ``out_iters`` the iterations run,
+    (the first sent bits) packed MSB first, ``out_iters`` the iterations run,
     ``out_weight`` the final syndrome weight (0 = success), ``out_flips`` how many sent bits
-    differ from the signs of ``llr``.  ``post``, ``msg``, ``qbuf``: work space.
+    differ from the signs of ``llr``.  ``post``, ``msg``, ``qbuf``, ``qtmp`` (int8, variables): work space.
     """
-    n_var = post.shape[0]
     for c in range(llr.shape[0]):
-        _load(post, 1, 0, llr[c], scale, clip, head_zeros, n_var)
+        _load(post, 1, 0, llr[c], n_sent, scale, clip, head_zeros, qtmp)
         msg[:] = 0
         it, weight = _finish_scalar(post, msg, row_start, cols, 0, max_iter, alpha16, beta, qbuf)
         out_iters[c] = it
         out_weight[c] = weight
-        out_flips[c] = _emit(post, 1, 0, llr[c], head_zeros, info_start, out_frames[c])
+        out_flips[c] = _emit(post, 1, 0, llr[c], n_sent, head_zeros, out_frames[c])
 
 
 # ---- layered min-sum decoder: codewords side by side as LLVM vector code -----------------------
@@ -520,19 +503,19 @@ def _finish_lane(post, msg, fresh, lane, row_start, cols, it, max_iter, alpha16,
 
 
 @njit(cache=True)
-def ldpc_decode_vector_kernel(llr, scale, clip, head_zeros, row_start, cols, cols_w, max_iter, alpha16, beta,
-                              info_start, tail_lanes, post, msg, fresh, weight, lane_cw, lane_it, p1, m1, qbuf,
+def ldpc_decode_vector_kernel(llr, n_sent, scale, clip, head_zeros, row_start, cols, cols_w, max_iter, alpha16,
+                              beta, tail_lanes, post, msg, fresh, weight, lane_cw, lane_it, p1, m1, qbuf, qtmp,
                               out_frames, out_iters, out_weight, out_flips):
     """:func:`ldpc_decode_scalar_kernel` with W = ``fresh.shape[0]`` (32 or 64) codewords side by side.
 
     Same arguments and outputs, bit for bit, plus: ``cols_w`` (int32) = ``cols`` x W; ``post``
     (int8, variables x W), ``msg`` (int8, edges x W), ``fresh`` (int8, W), ``weight`` (int32, W),
     ``lane_cw``, ``lane_it`` (int64, W), ``p1`` (int8, variables), ``m1`` (int8, edges): work
-    space.  A lane takes the next codeword as soon as its own is finished (syndrome zero or
-    ``max_iter``); once every codeword is in a lane and at most ``tail_lanes`` lanes are still
-    busy, those are finished one by one by the scalar kernel (also when there are that few
-    codewords to begin with).  Cost per iteration: about 2 passes over the edges with W-lane
-    int8 vector operations, plus one pass for the syndromes.
+    space (``qbuf``, ``qtmp`` as for the scalar kernel).  A lane takes the next codeword as soon
+    as its own is finished (syndrome zero or ``max_iter``); once every codeword is in a lane and
+    at most ``tail_lanes`` lanes are still busy, those are finished one by one by the scalar
+    kernel (also when there are that few codewords to begin with).  Cost per iteration: about 2
+    passes over the edges with W-lane int8 vector operations, plus one pass for the syndromes.
     """
     lanes = fresh.shape[0]
     n_cw = llr.shape[0]
@@ -543,7 +526,7 @@ def ldpc_decode_vector_kernel(llr, scale, clip, head_zeros, row_start, cols, col
         fresh[lane] = -1
         lane_it[lane] = 0
         if n_cw > tail_lanes and nxt < n_cw:
-            _load(post, lanes, lane, llr[nxt], scale, clip, head_zeros, n_var)
+            _load(post, lanes, lane, llr[nxt], n_sent, scale, clip, head_zeros, qtmp)
             lane_cw[lane] = nxt
             nxt += 1
             active += 1
@@ -563,9 +546,9 @@ def ldpc_decode_vector_kernel(llr, scale, clip, head_zeros, row_start, cols, col
             if weight[lane] == 0 or lane_it[lane] >= max_iter:
                 out_iters[c] = lane_it[lane]
                 out_weight[c] = weight[lane]
-                out_flips[c] = _emit(post, lanes, lane, llr[c], head_zeros, info_start, out_frames[c])
+                out_flips[c] = _emit(post, lanes, lane, llr[c], n_sent, head_zeros, out_frames[c])
                 if nxt < n_cw:
-                    _load(post, lanes, lane, llr[nxt], scale, clip, head_zeros, n_var)
+                    _load(post, lanes, lane, llr[nxt], n_sent, scale, clip, head_zeros, qtmp)
                     lane_cw[lane] = nxt
                     lane_it[lane] = 0
                     fresh[lane] = -1
@@ -581,7 +564,7 @@ def ldpc_decode_vector_kernel(llr, scale, clip, head_zeros, row_start, cols, col
                              p1, m1, qbuf)
         out_iters[c] = it
         out_weight[c] = w
-        out_flips[c] = _emit(p1, 1, 0, llr[c], head_zeros, info_start, out_frames[c])
+        out_flips[c] = _emit(p1, 1, 0, llr[c], n_sent, head_zeros, out_frames[c])
     if n_cw <= tail_lanes:
-        ldpc_decode_scalar_kernel(llr, scale, clip, head_zeros, row_start, cols, max_iter, alpha16, beta,
-                                  info_start, p1, m1, qbuf, out_frames, out_iters, out_weight, out_flips)
+        ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, cols, max_iter, alpha16, beta,
+                                  p1, m1, qbuf, qtmp, out_frames, out_iters, out_weight, out_flips)
