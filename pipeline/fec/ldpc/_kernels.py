@@ -35,7 +35,7 @@ LDPC_MAX_ROW_WEIGHT = 64
 # ---- GF(2) elimination --------------------------------------------------------------------------
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def gf2_rref_kernel(a, n_pivot_cols, pivots):
     """Gauss-Jordan elimination over GF(2) of packed rows ``a`` (uint64, in place); returns the rank.
 
@@ -72,7 +72,7 @@ def gf2_rref_kernel(a, n_pivot_cols, pivots):
 # ---- quasi-cyclic systematic encoder -----------------------------------------------------------
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def qc_encode_kernel(info, gen_words, b, acc, out):
     """Parity of a quasi-cyclic systematic code: ``out[c] = info[c] . W`` over GF(2).
 
@@ -127,18 +127,18 @@ def qc_encode_kernel(info, gen_words, b, acc, out):
 # kernel below does exactly this on LDPC_LANES codewords at once (int8 lanes).
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _quantize_llr(x, scale, clip):
     """round(x * scale) clipped to -clip..clip (round half to even, in float64)."""
     return int(min(max(np.rint(np.float64(x) * scale), -clip), clip))
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _scale_magnitude(x, alpha16, beta):
     return max(((x * alpha16) >> 4) - beta, 0)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def ldpc_iteration_kernel(post, msg, row_start, cols, alpha16, beta, qbuf):
     """One layered min-sum iteration on one codeword, in place.
 
@@ -176,7 +176,7 @@ def ldpc_iteration_kernel(post, msg, row_start, cols, alpha16, beta, qbuf):
             post[cols[j]] = min(max(q + r, -127), 127)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def ldpc_syndrome_kernel(post, row_start, cols):
     """Number of rows of H whose check fails on the hard decisions of ``post`` (negative = 1)."""
     n_rows = row_start.shape[0] - 1
@@ -189,7 +189,7 @@ def ldpc_syndrome_kernel(post, row_start, cols):
     return weight
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _emit(hard, stride, lane, llr_row, n_sent, head_zeros, out_frame):
     """Pack the information bits of a lane (the first 8 x len(out_frame) sent bits, MSB first) and
     return how many of the ``n_sent`` sent bits the decoder flipped against the signs of ``llr_row``."""
@@ -207,7 +207,7 @@ def _emit(hard, stride, lane, llr_row, n_sent, head_zeros, out_frame):
     return flips
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _load(post, stride, lane, llr_row, n_sent, scale, clip, head_zeros, qtmp):
     """Quantised channel values of one codeword into a lane: known zeros (+127), the ``n_sent``
     sent bits, then erasures (0) up to the last variable."""
@@ -221,7 +221,7 @@ def _load(post, stride, lane, llr_row, n_sent, scale, clip, head_zeros, qtmp):
         post[v * stride + lane] = 0
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _finish_scalar(post, msg, row_start, cols, it, max_iter, alpha16, beta, qbuf):
     """Iterate one codeword until its syndrome is zero or ``max_iter``; returns (iterations, weight)."""
     weight = -1
@@ -236,7 +236,7 @@ def _finish_scalar(post, msg, row_start, cols, it, max_iter, alpha16, beta, qbuf
     return it, weight
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, cols, max_iter, alpha16, beta,
                               post, msg, qbuf, qtmp, out_frames, out_iters, out_weight, out_flips):
     """Decode codewords one at a time with :func:`ldpc_iteration_kernel` (the reference kernel).
@@ -460,7 +460,7 @@ def _lanes_iteration(post, msg, fresh, row_start, cols_w, alpha16, beta):
         msg[lane::lanes] = m
 
 
-@overload(_lanes_iteration)
+@overload(_lanes_iteration, jit_options={"nogil": True})
 def _lanes_iteration_jit(post, msg, fresh, row_start, cols_w, alpha16, beta):
     def impl(post, msg, fresh, row_start, cols_w, alpha16, beta):
         if fresh.shape[0] == 64:
@@ -478,7 +478,7 @@ def _lanes_syndrome(post, row_start, cols_w, weight):
         weight[lane] = ldpc_syndrome_kernel(post[lane::lanes].copy(), row_start, cols)
 
 
-@overload(_lanes_syndrome)
+@overload(_lanes_syndrome, jit_options={"nogil": True})
 def _lanes_syndrome_jit(post, row_start, cols_w, weight):
     def impl(post, row_start, cols_w, weight):
         if weight.shape[0] == 64:
@@ -488,7 +488,7 @@ def _lanes_syndrome_jit(post, row_start, cols_w, weight):
     return impl
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _finish_lane(post, msg, fresh, lane, row_start, cols, it, max_iter, alpha16, beta, p1, m1, qbuf):
     """Move lane ``lane`` out of the vector state and finish it with the scalar kernel."""
     lanes = fresh.shape[0]
@@ -502,7 +502,7 @@ def _finish_lane(post, msg, fresh, lane, row_start, cols, it, max_iter, alpha16,
     return _finish_scalar(p1, m1, row_start, cols, it, max_iter, alpha16, beta, qbuf)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def ldpc_decode_vector_kernel(llr, n_sent, scale, clip, head_zeros, row_start, cols, cols_w, max_iter, alpha16,
                               beta, tail_lanes, post, msg, fresh, weight, lane_cw, lane_it, p1, m1, qbuf, qtmp,
                               out_frames, out_iters, out_weight, out_flips):
