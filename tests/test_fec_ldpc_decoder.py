@@ -39,8 +39,9 @@ def same_results(a, b):
 def reference_layered_min_sum(h, start, *, max_iter, alpha16=12, beta=0, exact=True):
     """Layered normalized/offset min-sum, one numpy row update at a time.
 
-    ``exact``: int arithmetic clamped to -127..127, magnitudes ``max((x alpha16 >> 4) - beta, 0)``
-    (the decoder's fixed point); else float with magnitudes ``x alpha16 / 16`` and no clamps.
+    ``exact``: int posteriors clamped to -32767..32767, messages from magnitudes ``min(|Q|, 127)`` as
+    ``max((x alpha16 >> 4) - beta, 0)`` (the decoder's fixed point); else float with magnitudes
+    ``x alpha16 / 16`` and no clamps.
     Returns (posteriors, iterations, final syndrome weight).
     """
     post = np.array(start, dtype=np.int64 if exact else np.float64)
@@ -52,8 +53,8 @@ def reference_layered_min_sum(h, start, *, max_iter, alpha16=12, beta=0, exact=T
             v = h.cols[sl]
             q = post[v] - msg[sl]
             if exact:
-                q = np.clip(q, -127, 127)
-            a = np.abs(q)
+                q = np.clip(q, -32767, 32767)
+            a = np.minimum(np.abs(q), 127) if exact else np.abs(q)
             order = np.argsort(a, kind="stable")  # ties: the first edge holds the minimum
             mag = np.full(a.shape, a[order[0]])
             mag[order[0]] = a[order[1]]
@@ -61,7 +62,7 @@ def reference_layered_min_sum(h, start, *, max_iter, alpha16=12, beta=0, exact=T
             sign = np.where(q < 0, -1, 1)
             r = np.prod(sign) * sign * mag
             msg[sl] = r
-            post[v] = np.clip(q + r, -127, 127) if exact else q + r
+            post[v] = np.clip(q + r, -32767, 32767) if exact else q + r
         weight = int(h.syndrome((post < 0).astype(np.uint8)).sum())
         if weight == 0:
             return post, it, 0
@@ -69,9 +70,9 @@ def reference_layered_min_sum(h, start, *, max_iter, alpha16=12, beta=0, exact=T
 
 
 def quantized_start(code, llr, scale=4.0, clip=63):
-    """The decoder's starting posteriors: +127 for the known zeros, round(llr scale) clipped, 0 for erasures."""
+    """The decoder's starting posteriors: +32767 for the known zeros, round(llr scale) clipped, 0 for erasures."""
     start = np.zeros(code.n_var, dtype=np.int64)
-    start[:code.head_zeros] = 127
+    start[:code.head_zeros] = 32767
     sent = slice(code.head_zeros, code.head_zeros + code.sent_vars)
     start[sent] = np.clip(np.rint(llr[:code.sent_vars] * scale), -clip, clip)
     return start
@@ -92,7 +93,7 @@ def run_kernels(h, llr, *, lanes, max_iter, alpha16=12, beta=0, tail=0):
     for kind in ("scalar", "vector"):
         frames = np.zeros((n_cw, n // 8), np.uint8)
         iters, weight, flips = (np.zeros(n_cw, np.int32) for _ in range(3))
-        p1, m1 = np.zeros(n, np.int8), np.zeros(h.n_edges, np.int8)
+        p1, m1 = np.zeros(n, np.int16), np.zeros(h.n_edges, np.int8)
         qbuf, qtmp = np.zeros(64, np.int64), np.zeros(n, np.int8)
         if kind == "scalar":
             K.ldpc_decode_scalar_kernel(llr, n, 4.0, 63, 0, h.row_start, h.cols, max_iter, alpha16, beta,
@@ -100,7 +101,7 @@ def run_kernels(h, llr, *, lanes, max_iter, alpha16=12, beta=0, tail=0):
         else:
             cols_w = (h.cols * lanes).astype(np.int32)
             K.ldpc_decode_vector_kernel(llr, n, 4.0, 63, 0, h.row_start, h.cols, cols_w, max_iter, alpha16, beta,
-                                        tail, np.zeros(n * lanes, np.int8), np.zeros(h.n_edges * lanes, np.int8),
+                                        tail, np.zeros(n * lanes, np.int16), np.zeros(h.n_edges * lanes, np.int8),
                                         np.zeros(lanes, np.int8), np.zeros(lanes, np.int32),
                                         np.zeros(lanes, np.int64), np.zeros(lanes, np.int64), p1, m1, qbuf, qtmp,
                                         frames, iters, weight, flips)

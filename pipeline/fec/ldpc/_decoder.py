@@ -1,4 +1,4 @@
-"""Layered min-sum decoding of the CCSDS LDPC codes in int8 fixed point."""
+"""Layered min-sum decoding of the CCSDS LDPC codes in fixed point (int16 posteriors, int8 messages)."""
 
 from __future__ import annotations
 
@@ -25,7 +25,7 @@ Kernel = Literal["vector", "scalar"]
 #: Default magnitude correction per variant: normalized min-sum scales by 12/16 = 0.75, offset
 #: min-sum subtracts 0.5 (in LLR units).  Chosen by the measurements in bench/sweep_ldpc.py.
 DEFAULT_CORRECTION = {"normalized": 0.75, "offset": 0.5}
-#: Quantisation steps per LLR unit: int8 posteriors then saturate at 127 / 4 = 31.75.
+#: Quantisation steps per LLR unit: int8 messages then saturate at 127 / 4 = 31.75.
 DEFAULT_LLR_SCALE = 4.0
 #: Channel values are clipped to +-this many steps before decoding (leaves the posteriors room to grow).
 DEFAULT_LLR_CLIP = 63
@@ -90,7 +90,7 @@ def _lane_columns(code: LdpcCode, lanes: int) -> np.ndarray:
 
 
 class LdpcDecoder:
-    """Layered (row-serial) min-sum decoder of one CCSDS LDPC code, int8 fixed point.
+    """Layered (row-serial) min-sum decoder of one CCSDS LDPC code in fixed point.
 
     Parameters
     ----------
@@ -108,7 +108,7 @@ class LdpcDecoder:
     llr_clip : int
         Channel values are clipped to +-``llr_clip`` steps, 1..127.
     kernel : {"vector", "scalar"}
-        "vector": 32 or 64 codewords side by side in int8 SIMD lanes (LLVM vector code);
+        "vector": 32 or 64 codewords side by side in SIMD lanes (LLVM vector code);
         "scalar": the one-codeword-at-a-time reference kernel.  Both give identical results.
     lanes : {32, 64}
         Codewords side by side in the vector kernel.
@@ -117,10 +117,11 @@ class LdpcDecoder:
     -----
     Soft input: one float32 log-likelihood ratio per sent bit, ``ln P(0)/P(1)`` (positive = bit
     0; for BPSK on AWGN ``2 y / sigma^2`` with unit amplitude), 0 = erasure.  The decoder maps
-    it onto the variables of H: C2's 18 shortened bits enter as certain zeros (+127), its two
+    it onto the variables of H: C2's 18 shortened bits enter as certain zeros (+32767), its two
     extension bits (sent bits 8158, 8159) are not in H and are ignored; AR4JA's M punctured
     variables enter as 0 (erasures).  Values are quantised to ``round(llr x llr_scale)``,
-    clipped to +-``llr_clip``; posteriors and messages are int8, saturating at +-127.
+    clipped to +-``llr_clip``; posteriors are int16 (they never saturate: channel value plus at most
+    6 messages), check-to-variable messages int8 (magnitudes from ``min(|Q|, 127)``).
 
     Each iteration updates the rows of H in order (layered belief propagation, min-sum
     check-node rule with the correction above); after every iteration the syndrome of the hard
@@ -212,11 +213,11 @@ class LdpcDecoder:
             h, lanes = self._h, self.lanes
             vec = self.kernel == "vector"
             self._work = dict(
-                post=np.zeros(h.n_cols * lanes if vec else 0, np.int8),
+                post=np.zeros(h.n_cols * lanes if vec else 0, np.int16),
                 msg=np.zeros(h.n_edges * lanes if vec else 0, np.int8),
                 fresh=np.zeros(lanes, np.int8), weight=np.zeros(lanes, np.int32),
                 lane_cw=np.zeros(lanes, np.int64), lane_it=np.zeros(lanes, np.int64),
-                p1=np.zeros(h.n_cols, np.int8), m1=np.zeros(h.n_edges, np.int8),
+                p1=np.zeros(h.n_cols, np.int16), m1=np.zeros(h.n_edges, np.int8),
                 qbuf=np.zeros(LDPC_MAX_ROW_WEIGHT, np.int64), qtmp=np.zeros(h.n_cols, np.int8))
         return self._work
 

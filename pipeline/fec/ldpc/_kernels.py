@@ -115,16 +115,23 @@ def qc_encode_kernel(info, gen_words, b, acc, out):
 
 # ---- layered min-sum decoder: the scalar reference ----------------------------------------------
 #
-# Fixed point, int8: posteriors L (one per variable) and check-to-variable messages R (one per
-# edge) are integers in -127..127 (units of 1 / llr_scale).  One iteration visits the rows of H
-# in order; for row m with edges j (variables v_j):
-#     Q_j = clamp(L[v_j] - R_j)                       (variable-to-check, extrinsic)
-#     min1, min2 = the two smallest |Q_j| (min1's edge: the first one reaching it), sign product s
+# Fixed point, in units of 1 / llr_scale: posteriors L (one per variable) are int16 in
+# -32767..32767, check-to-variable messages R (one per edge) int8 in -127..127.  One iteration
+# visits the rows of H in order; for row m with edges j (variables v_j):
+#     Q_j = clamp16(L[v_j] - R_j)                     (variable-to-check, extrinsic)
+#     a_j = min(|Q_j|, 127)
+#     min1, min2 = the two smallest a_j (min1's edge: the first one reaching it), sign product s of Q
 #     o(x) = max((x * alpha16) >> 4 - beta, 0)      (normalized: beta = 0; offset: alpha16 = 16)
 #     R_j = (s * sign Q_j) * o(min2 if j is min1's edge else min1)
-#     L[v_j] = clamp(Q_j + R_j)
-# with clamp to -127..127; a negative value means bit 1, zero and positive bit 0.  The vector
-# kernel below does exactly this on LDPC_LANES codewords at once (int8 lanes).
+#     L[v_j] = clamp16(Q_j + R_j)
+# with clamp16 to -32767..32767; a negative value means bit 1, zero and positive bit 0.  The
+# posteriors never saturate (channel values are clipped to +-127, a variable has at most 6 checks
+# here), so L stays the channel value plus the current messages: with int8 posteriors that
+# saturate, the channel term is forgotten and the decoder can settle on the complement of the
+# sent codeword (an all-ones difference is a codeword of these codes) with a zero syndrome, an
+# undetected error; measured with offset min-sum at FER ~3e-3, 10 of 54 frame errors were that.
+# Known zeros are +32767.  The vector kernel below does exactly this on LDPC_LANES codewords at
+# once (int16 and int8 lanes).
 
 
 @njit(cache=True, nogil=True)
@@ -142,7 +149,7 @@ def _scale_magnitude(x, alpha16, beta):
 def ldpc_iteration_kernel(post, msg, row_start, cols, alpha16, beta, qbuf):
     """One layered min-sum iteration on one codeword, in place.
 
-    ``post`` (int8, variables): posteriors; ``msg`` (int8, edges): check-to-variable messages;
+    ``post`` (int16, variables): posteriors; ``msg`` (int8, edges): check-to-variable messages;
     ``row_start``/``cols`` (int32): H in compressed rows; ``alpha16``, ``beta``: the magnitude
     correction ``max((x alpha16 >> 4) - beta, 0)``; ``qbuf`` (int64, >= longest row): work space.
     Cost: about 2 passes over the edges of H.
@@ -157,9 +164,9 @@ def ldpc_iteration_kernel(post, msg, row_start, cols, alpha16, beta, qbuf):
         sgn = 0
         for j in range(s, e):  # written with min/max/selects: data-dependent branches mispredict
             k = j - s
-            q = min(max(int(post[cols[j]]) - int(msg[j]), -127), 127)
+            q = min(max(int(post[cols[j]]) - int(msg[j]), -32767), 32767)
             qbuf[k] = q
-            a = abs(q)
+            a = min(abs(q), 127)
             sgn ^= (q >> 63) & 1
             lt = a < m1
             m2 = m1 if lt else min(m2, a)
@@ -173,7 +180,7 @@ def ldpc_iteration_kernel(post, msg, row_start, cols, alpha16, beta, qbuf):
             mag = o2 if k == idx else o1
             r = -mag if sgn ^ ((q >> 63) & 1) else mag
             msg[j] = r
-            post[cols[j]] = min(max(q + r, -127), 127)
+            post[cols[j]] = min(max(q + r, -32767), 32767)
 
 
 @njit(cache=True, nogil=True)
@@ -209,12 +216,12 @@ def _emit(hard, stride, lane, llr_row, n_sent, head_zeros, out_frame):
 
 @njit(cache=True, nogil=True)
 def _load(post, stride, lane, llr_row, n_sent, scale, clip, head_zeros, qtmp):
-    """Quantised channel values of one codeword into a lane: known zeros (+127), the ``n_sent``
+    """Quantised channel values of one codeword into a lane: known zeros (+32767), the ``n_sent``
     sent bits, then erasures (0) up to the last variable."""
     for i in range(n_sent):  # contiguous, so LLVM vectorises the rounding
         qtmp[i] = _quantize_llr(llr_row[i], scale, clip)
     for v in range(head_zeros):
-        post[v * stride + lane] = 127
+        post[v * stride + lane] = 32767
     for i in range(n_sent):
         post[(head_zeros + i) * stride + lane] = qtmp[i]
     for v in range(head_zeros + n_sent, qtmp.shape[0]):
@@ -244,13 +251,14 @@ def ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, c
     ``llr`` (float32, shape (codewords, >= n_sent)): soft values of the sent bits, + = bit 0; the
     first ``n_sent`` of each row are variables ``head_zeros ..`` of H (the rest, C2's extension
     bits, are not read).  They are quantised as ``round(llr x scale)`` clipped to +-``clip``; the
-    ``head_zeros`` leading variables are set to +127 (known zeros), the variables after the sent
+    ``head_zeros`` leading variables are set to +32767 (known zeros), the variables after the sent
     ones to 0 (punctured: erasures).  Each codeword starts with all messages 0 and runs
     iterations until the syndrome of the posteriors is zero (checked after every iteration, so
     at least one runs) or ``max_iter``.  Outputs per codeword: ``out_frames`` the information bits
     (the first sent bits) packed MSB first, ``out_iters`` the iterations run,
     ``out_weight`` the final syndrome weight (0 = success), ``out_flips`` how many sent bits
-    differ from the signs of ``llr``.  ``post``, ``msg``, ``qbuf``, ``qtmp`` (int8, variables): work space.
+    differ from the signs of ``llr``.  ``post`` (int16, variables), ``msg`` (int8, edges), ``qbuf``,
+    ``qtmp`` (int8, variables): work space.
     """
     for c in range(llr.shape[0]):
         _load(post, 1, 0, llr[c], n_sent, scale, clip, head_zeros, qtmp)
@@ -265,9 +273,9 @@ def ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, c
 #
 # The same arithmetic on W = 32 or 64 codewords at once: variable v of lane l is post[v W + l],
 # the message of edge j of lane l is msg[j W + l], so every load and store of the row update is
-# one <W x i8> vector and the lanes never interact.  numba does not vectorise this by itself
-# (it widens int8 arithmetic to int64), so the row loop is written as generic LLVM IR: saturating
-# add/subtract, smin/smax/abs intrinsics, selects; no target-specific intrinsics.  A lane whose
+# one <W x i16> or <W x i8> vector and the lanes never interact.  numba does not vectorise this by
+# itself (it widens the arithmetic to int64), so the row loop is written as generic LLVM IR:
+# saturating add/subtract, smin/smax/abs intrinsics, selects; no target-specific intrinsics.  A lane whose
 # ``fresh`` flag is set reads its old messages as 0 (a new codeword was loaded into it), so each
 # lane is refilled as soon as its codeword is finished and no lane waits for the slowest.
 
@@ -282,41 +290,43 @@ def _ir_vec_intrinsic(module, base, vty):
 
 
 def _ir_ldpc_iteration_function(module, lanes):
-    """Define ``void it(i8* post, i8* msg, i8* fresh, i32* row_start, i32* cols_w, i64 n_rows, i32 alpha16,
-    i32 beta)`` for ``lanes`` codewords (cols_w = column x lanes)."""
+    """Define ``void it(i16* post, i8* msg, i8* fresh, i32* row_start, i32* cols_w, i64 n_rows, i32 alpha16,
+    i32 beta)`` for ``lanes`` codewords (cols_w = column x lanes, an index into post)."""
     name = f"pipeline_fec_ldpc_iteration_{lanes}"
     if name in module.globals:
         return module.globals[name]
-    i8p, i32p = _IR_I8.as_pointer(), _IR_I32.as_pointer()
+    i16 = ir.IntType(16)
+    i8p, i16p, i32p = _IR_I8.as_pointer(), i16.as_pointer(), _IR_I32.as_pointer()
     vec = ir.VectorType(_IR_I8, lanes)
-    v16 = ir.VectorType(ir.IntType(16), lanes)
-    fn = ir.Function(module, ir.FunctionType(ir.VoidType(), [i8p, i8p, i8p, i32p, i32p, _IR_I64, _IR_I32, _IR_I32]),
+    v16 = ir.VectorType(i16, lanes)
+    fn = ir.Function(module, ir.FunctionType(ir.VoidType(), [i16p, i8p, i8p, i32p, i32p, _IR_I64, _IR_I32, _IR_I32]),
                      name)
     fn.linkage = "internal"
     post, msg, fresh, row_start, cols_w, n_rows, alpha16, beta = fn.args
     for a in (post, msg, fresh, row_start, cols_w):
         a.add_attribute("noalias")
-    sadd = _ir_vec_intrinsic(module, "sadd.sat", vec)
-    ssub = _ir_vec_intrinsic(module, "ssub.sat", vec)
-    smin = _ir_vec_intrinsic(module, "smin", vec)
-    smax = _ir_vec_intrinsic(module, "smax", vec)
+    sadd16 = _ir_vec_intrinsic(module, "sadd.sat", v16)
+    ssub16 = _ir_vec_intrinsic(module, "ssub.sat", v16)
     smax16 = _ir_vec_intrinsic(module, "smax", v16)
-    vabs = _ir_vec_intrinsic(module, "abs", vec)
+    smin16 = _ir_vec_intrinsic(module, "smin", v16)
+    abs16 = _ir_vec_intrinsic(module, "abs", v16)
+    smin8 = _ir_vec_intrinsic(module, "smin", vec)
     b = ir.IRBuilder(fn.append_basic_block("entry"))
-    qbuf = b.alloca(vec, size=LDPC_MAX_ROW_WEIGHT)
+    qbuf = b.alloca(v16, size=LDPC_MAX_ROW_WEIGHT)
     qbuf.align = 64
     zero = ir.Constant(vec, None)
-    lo = ir.Constant(vec, [-127] * lanes)
+    z16 = ir.Constant(v16, None)
+    lo16 = ir.Constant(v16, [-32767] * lanes)
+    cap16 = ir.Constant(v16, [127] * lanes)
     top = ir.Constant(vec, [127] * lanes)
     is_fresh = b.icmp_signed("!=", b.load(b.bitcast(fresh, vec.as_pointer()), align=1), zero)
-    a16 = _ir_splat(b, b.trunc(alpha16, ir.IntType(16)), lanes)
-    b16 = _ir_splat(b, b.trunc(beta, ir.IntType(16)), lanes)
-    z16 = ir.Constant(v16, None)
+    a16 = _ir_splat(b, b.trunc(alpha16, i16), lanes)
+    b16 = _ir_splat(b, b.trunc(beta, i16), lanes)
     four = ir.Constant(v16, [4] * lanes)
     w64 = _ir_i64(lanes)
 
-    def at(base, idx):  # <lanes x i8>* at base + idx
-        return b.bitcast(b.gep(base, [idx]), vec.as_pointer())
+    def at(base, idx, ty):  # <lanes x ty>* at base + idx (elements)
+        return b.bitcast(b.gep(base, [idx]), ty.as_pointer())
 
     def scaled(x):
         y = b.sub(b.ashr(b.mul(b.sext(x, v16), a16), four), b16)
@@ -326,18 +336,18 @@ def _ir_ldpc_iteration_function(module, lanes):
     rows.while_below(n_rows)
     s = b.sext(b.load(b.gep(row_start, [rows.i])), _IR_I64)
     e = b.sext(b.load(b.gep(row_start, [b.add(rows.i, _ir_i64(1))])), _IR_I64)
-    p1 = _IrLoop(fn, b, "pass1", s, [top, top, zero, zero])
+    p1 = _IrLoop(fn, b, "pass1", s, [top, top, zero, z16])
     p1.while_below(e)
     m1, m2, idx, sgn = p1.vals
     k = b.sub(p1.i, s)
     off = b.sext(b.load(b.gep(cols_w, [p1.i])), _IR_I64)
-    lv = b.load(at(post, off), align=1)
-    rv = b.select(is_fresh, zero, b.load(at(msg, b.mul(p1.i, w64)), align=1))
-    q = b.call(smax, [b.call(ssub, [lv, rv]), lo])
+    lv = b.load(at(post, off, v16), align=2)
+    rv = b.select(is_fresh, zero, b.load(at(msg, b.mul(p1.i, w64), vec), align=1))
+    q = b.call(smax16, [b.call(ssub16, [lv, b.sext(rv, v16)]), lo16])
     b.store(q, b.gep(qbuf, [k]), align=64)
-    a = b.call(vabs, [q, ir.Constant(ir.IntType(1), 0)])
+    a = b.trunc(b.call(smin16, [b.call(abs16, [q, ir.Constant(ir.IntType(1), 0)]), cap16]), vec)
     lt = b.icmp_signed("<", a, m1)
-    m2n = b.select(lt, m1, b.call(smin, [m2, a]))
+    m2n = b.select(lt, m1, b.call(smin8, [m2, a]))
     m1n = b.select(lt, a, m1)
     idxn = b.select(lt, _ir_splat(b, b.trunc(k, _IR_I8), lanes), idx)
     p1.next(1, [m1n, m2n, idxn, b.xor(sgn, q)])
@@ -349,11 +359,11 @@ def _ir_ldpc_iteration_function(module, lanes):
     k = b.sub(p2.i, s)
     q = b.load(b.gep(qbuf, [k]), align=64)
     mag = b.select(b.icmp_signed("==", idx, _ir_splat(b, b.trunc(k, _IR_I8), lanes)), o2, o1)
-    neg = b.icmp_signed("<", b.xor(sgn, q), zero)
+    neg = b.icmp_signed("<", b.xor(sgn, q), z16)
     rn = b.select(neg, b.sub(zero, mag), mag)
-    b.store(rn, at(msg, b.mul(p2.i, w64)), align=1)
+    b.store(rn, at(msg, b.mul(p2.i, w64), vec), align=1)
     off = b.sext(b.load(b.gep(cols_w, [p2.i])), _IR_I64)
-    b.store(b.call(smax, [b.call(sadd, [q, rn]), lo]), at(post, off), align=1)
+    b.store(b.call(smax16, [b.call(sadd16, [q, b.sext(rn, v16)]), lo16]), at(post, off, v16), align=2)
     p2.next(1)
     rows.next(1)
     b.ret_void()
@@ -361,14 +371,14 @@ def _ir_ldpc_iteration_function(module, lanes):
 
 
 def _ir_ldpc_syndrome_function(module, lanes):
-    """Define ``void syn(i8* post, i32* row_start, i32* cols_w, i64 n_rows, i32* weight)`` (weight per lane)."""
+    """Define ``void syn(i16* post, i32* row_start, i32* cols_w, i64 n_rows, i32* weight)`` (weight per lane)."""
     name = f"pipeline_fec_ldpc_syndrome_{lanes}"
     if name in module.globals:
         return module.globals[name]
-    i8p, i32p = _IR_I8.as_pointer(), _IR_I32.as_pointer()
-    vec = ir.VectorType(_IR_I8, lanes)
+    i16p, i32p = ir.IntType(16).as_pointer(), _IR_I32.as_pointer()
+    vec = ir.VectorType(ir.IntType(16), lanes)
     v32 = ir.VectorType(_IR_I32, lanes)
-    fn = ir.Function(module, ir.FunctionType(ir.VoidType(), [i8p, i32p, i32p, _IR_I64, i32p]), name)
+    fn = ir.Function(module, ir.FunctionType(ir.VoidType(), [i16p, i32p, i32p, _IR_I64, i32p]), name)
     fn.linkage = "internal"
     post, row_start, cols_w, n_rows, weight = fn.args
     for a in (post, row_start, cols_w, weight):
@@ -382,7 +392,7 @@ def _ir_ldpc_syndrome_function(module, lanes):
     edges = _IrLoop(fn, b, "edge", s, [zero])
     edges.while_below(e)
     off = b.sext(b.load(b.gep(cols_w, [edges.i])), _IR_I64)
-    lv = b.load(b.bitcast(b.gep(post, [off]), vec.as_pointer()), align=1)
+    lv = b.load(b.bitcast(b.gep(post, [off]), vec.as_pointer()), align=2)
     edges.next(1, [b.xor(edges.vals[0], lv)])
     bad = b.zext(b.icmp_signed("<", edges.vals[0], zero), v32)
     rows.next(1, [b.add(rows.vals[0], bad)])
@@ -398,7 +408,7 @@ def _int_args_ok(*args):
 def _make_iteration_intrinsic(lanes):
     @intrinsic
     def _iteration_ir(typingctx, post, msg, fresh, row_start, cols_w, alpha16, beta):
-        if not (_is_c_vector(post, types.int8) and _is_c_vector(msg, types.int8)
+        if not (_is_c_vector(post, types.int16) and _is_c_vector(msg, types.int8)
                 and _is_c_vector(fresh, types.int8) and _is_c_vector(row_start, types.int32)
                 and _is_c_vector(cols_w, types.int32) and _int_args_ok(alpha16, beta)):
             return None
@@ -420,7 +430,7 @@ def _make_iteration_intrinsic(lanes):
 def _make_syndrome_intrinsic(lanes):
     @intrinsic
     def _syndrome_ir(typingctx, post, row_start, cols_w, weight):
-        if not (_is_c_vector(post, types.int8) and _is_c_vector(row_start, types.int32)
+        if not (_is_c_vector(post, types.int16) and _is_c_vector(row_start, types.int32)
                 and _is_c_vector(cols_w, types.int32) and _is_c_vector(weight, types.int32)):
             return None
         sig = types.void(post, row_start, cols_w, weight)
@@ -509,13 +519,13 @@ def ldpc_decode_vector_kernel(llr, n_sent, scale, clip, head_zeros, row_start, c
     """:func:`ldpc_decode_scalar_kernel` with W = ``fresh.shape[0]`` (32 or 64) codewords side by side.
 
     Same arguments and outputs, bit for bit, plus: ``cols_w`` (int32) = ``cols`` x W; ``post``
-    (int8, variables x W), ``msg`` (int8, edges x W), ``fresh`` (int8, W), ``weight`` (int32, W),
-    ``lane_cw``, ``lane_it`` (int64, W), ``p1`` (int8, variables), ``m1`` (int8, edges): work
+    (int16, variables x W), ``msg`` (int8, edges x W), ``fresh`` (int8, W), ``weight`` (int32, W),
+    ``lane_cw``, ``lane_it`` (int64, W), ``p1`` (int16, variables), ``m1`` (int8, edges): work
     space (``qbuf``, ``qtmp`` as for the scalar kernel).  A lane takes the next codeword as soon
     as its own is finished (syndrome zero or ``max_iter``); once every codeword is in a lane and
     at most ``tail_lanes`` lanes are still busy, those are finished one by one by the scalar
     kernel (also when there are that few codewords to begin with).  Cost per iteration: about 2
-    passes over the edges with W-lane int8 vector operations, plus one pass for the syndromes.
+    passes over the edges with W-lane int16/int8 vector operations, plus one pass for the syndromes.
     """
     lanes = fresh.shape[0]
     n_cw = llr.shape[0]
@@ -532,7 +542,7 @@ def ldpc_decode_vector_kernel(llr, n_sent, scale, clip, head_zeros, row_start, c
             active += 1
         else:
             for v in range(n_var):
-                post[v * lanes + lane] = 127
+                post[v * lanes + lane] = 32767
             lane_cw[lane] = -1
     while active > tail_lanes or (active > 0 and nxt < n_cw):
         _lanes_iteration(post, msg, fresh, row_start, cols_w, alpha16, beta)
