@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import doctest
 import hashlib
 
 import numpy as np
@@ -12,8 +11,6 @@ from pipeline.fec.ldpc import (
     AR4JA_K,
     AR4JA_RATES,
     _codes,
-    _decoder,
-    _encoder,
     _gf2,
     ar4ja_permutation,
     gf2_rank,
@@ -267,8 +264,3 @@ def test_encoder_argument_errors():
     # two frames at once: one row per codeword
     assert ldpc_encode(code, np.zeros((2, 128), np.uint8)).shape == (2, 160)
 
-
-def test_doctests():
-    for mod in (_codes, _encoder, _decoder, _gf2):
-        result = doctest.testmod(mod, optionflags=doctest.NORMALIZE_WHITESPACE)
-        assert result.failed == 0, mod.__name__
