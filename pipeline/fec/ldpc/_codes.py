@@ -345,14 +345,10 @@ def _csr(rows: np.ndarray, cols: np.ndarray, n_rows: int, n_cols: int) -> Sparse
     return SparseParityCheck(row_start=row_start, cols=c, n_rows=n_rows, n_cols=n_cols)
 
 
-def _ar4ja_layout(rate: str):
-    front = {"1/2": None, "2/3": _AR4JA_H23_FRONT, "4/5": _AR4JA_H45_FRONT}[rate]
-    layout = [list(row) for row in _AR4JA_H12]
-    if rate == "4/5":
-        layout = [list(a) + list(b) + r for a, b, r in zip(_AR4JA_H45_FRONT, _AR4JA_H23_FRONT, layout)]
-    elif front is not None:
-        layout = [list(a) + r for a, r in zip(front, layout)]
-    return layout
+def _ar4ja_layout(rate: str) -> list[list[tuple[int, ...]]]:
+    """Block rows of H for ``rate``: the rate 4/5 and 2/3 front columns, then those of rate 1/2."""
+    fronts = {"1/2": (), "2/3": (_AR4JA_H23_FRONT,), "4/5": (_AR4JA_H45_FRONT, _AR4JA_H23_FRONT)}[rate]
+    return [[blk for f in fronts for blk in f[a]] + list(_AR4JA_H12[a]) for a in range(3)]
 
 
 @functools.cache
