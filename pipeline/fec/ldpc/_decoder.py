@@ -134,7 +134,9 @@ class LdpcDecoder:
     the vector kernel does them for W codewords at once.
 
     State: counters only (``codewords``, ``failed``, ``iterations_total``); codewords are
-    independent, so any split of a batch gives the same results.
+    independent, so any split of a batch gives the same results.  The work space (1-2 MB, made on
+    the first call) belongs to the instance: use one decoder per thread.  Batches of many codewords
+    keep the lanes full; one or two codewords go to the scalar kernel (about 15x slower per bit).
 
     References
     ----------
