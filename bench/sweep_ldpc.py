@@ -25,10 +25,9 @@ import multiprocessing
 import time
 
 import numpy as np
-from scipy import stats
 
 from pipeline.fec.ldpc import LdpcDecoder, ldpc_code, ldpc_encode_bits
-from pipeline.tools._theory import normal_approximation_ebn0_db
+from pipeline.tools._theory import clopper_pearson, normal_approximation_ebn0_db
 
 #: Issue 15 targets (code label, Eb/N0 dB): FER at most 1e-3 at each.
 TARGETS = ("c2:3.9", "ar4ja-1/2-1024:1.8", "ar4ja-1/2-16384:1.2", "ar4ja-4/5-1024:3.6")
@@ -41,14 +40,6 @@ def parse_code(label: str):
         return ldpc_code("c2")
     fam, rate, k = label.split("-")
     return ldpc_code(fam, rate=rate, k=int(k))
-
-
-def clopper_pearson(errors: int, trials: int, confidence: float = 0.95) -> tuple[float, float]:
-    """Two-sided exact binomial interval for ``errors / trials``."""
-    a = (1 - confidence) / 2
-    lo = 0.0 if errors == 0 else float(stats.beta.ppf(a, errors, trials - errors + 1))
-    hi = 1.0 if errors == trials else float(stats.beta.ppf(1 - a, errors + 1, trials - errors))
-    return lo, hi
 
 
 def awgn_batch(code, ebn0_db: float, n_cw: int, rng) -> tuple[np.ndarray, np.ndarray]:

@@ -25,7 +25,7 @@ import math
 from functools import lru_cache
 
 import numpy as np
-from scipy import integrate, optimize, special
+from scipy import integrate, optimize, special, stats
 
 __all__ = [
     "q_function",
@@ -39,6 +39,7 @@ __all__ = [
     "ebn0_at_ber",
     "biawgn_capacity_dispersion",
     "normal_approximation_ebn0_db",
+    "clopper_pearson",
 ]
 
 #: Bit weights B_d of the K=7 r=1/2 code (G1=171, G2=133 octal) for d = 10, 12, ..., 24.
@@ -477,3 +478,32 @@ def normal_approximation_ebn0_db(n: int, k: int, fer: float) -> float:
 
     esn0_db = optimize.brentq(gap, -20.0, 20.0, xtol=1e-9)
     return float(esn0_db + 10.0 * math.log10(n / k))
+
+
+def clopper_pearson(errors: int, trials: int, confidence: float = 0.95) -> tuple[float, float]:
+    """Exact two-sided binomial confidence interval for an error rate ``errors / trials``.
+
+    Returns
+    -------
+    (low, high) : tuple of float
+        ``low = B^-1(a; e, n - e + 1)`` and ``high = B^-1(1 - a; e + 1, n - e)`` with ``a = (1 - confidence) / 2``
+        and B the beta distribution (``low = 0`` when e = 0, ``high = 1`` when e = n).
+
+    References
+    ----------
+    C. J. Clopper, E. S. Pearson, "The use of confidence or fiducial limits illustrated in the case of
+    the binomial", Biometrika 26(4), 1934 (from memory, not confirmed).
+
+    Examples
+    --------
+    >>> lo, hi = clopper_pearson(0, 3000)
+    >>> lo, round(hi, 5)
+    (0.0, 0.00123)
+    """
+    if trials < 1 or not 0 <= errors <= trials:
+        raise ValueError(f"Arguments 'errors' and 'trials' must satisfy 0 <= errors <= trials, trials >= 1, "
+                         f"not {errors} and {trials}.")
+    a = (1.0 - confidence) / 2.0
+    lo = 0.0 if errors == 0 else float(stats.beta.ppf(a, errors, trials - errors + 1))
+    hi = 1.0 if errors == trials else float(stats.beta.ppf(1.0 - a, errors + 1, trials - errors))
+    return lo, hi

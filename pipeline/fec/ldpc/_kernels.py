@@ -293,29 +293,43 @@ def _ir_vec_intrinsic(module, base, vty):
     return ir.Function(module, ir.FunctionType(vty, [vty, second]), name)
 
 
+def _ir_new_function(module, name, arg_types):
+    """``(fn, builder)`` for a new internal ``void name(arg_types)`` whose pointer arguments are
+    ``noalias``, or ``(fn, None)`` when the module has it already."""
+    if name in module.globals:
+        return module.globals[name], None
+    fn = ir.Function(module, ir.FunctionType(ir.VoidType(), arg_types), name)
+    fn.linkage = "internal"
+    for a in fn.args:
+        if isinstance(a.type, ir.PointerType):
+            a.add_attribute("noalias")
+    return fn, ir.IRBuilder(fn.append_basic_block("entry"))
+
+
+def _ir_row_bounds(b, row_start, m):
+    """First and one-past-last edge of row ``m`` (i64) from the int32 ``row_start``."""
+    s = b.sext(b.load(b.gep(row_start, [m])), _IR_I64)
+    return s, b.sext(b.load(b.gep(row_start, [b.add(m, _ir_i64(1))])), _IR_I64)
+
+
 def _ir_ldpc_iteration_function(module, lanes):
     """Define ``void it(i16* post, i8* msg, i8* fresh, i32* row_start, i32* cols_w, i64 n_rows, i32 alpha16,
     i32 beta)`` for ``lanes`` codewords (cols_w = column x lanes, an index into post)."""
-    name = f"pipeline_fec_ldpc_iteration_{lanes}"
-    if name in module.globals:
-        return module.globals[name]
     i16 = ir.IntType(16)
     i8p, i16p, i32p = _IR_I8.as_pointer(), i16.as_pointer(), _IR_I32.as_pointer()
+    fn, b = _ir_new_function(module, f"pipeline_fec_ldpc_iteration_{lanes}",
+                             [i16p, i8p, i8p, i32p, i32p, _IR_I64, _IR_I32, _IR_I32])
+    if b is None:
+        return fn
     vec = ir.VectorType(_IR_I8, lanes)
     v16 = ir.VectorType(i16, lanes)
-    fn = ir.Function(module, ir.FunctionType(ir.VoidType(), [i16p, i8p, i8p, i32p, i32p, _IR_I64, _IR_I32, _IR_I32]),
-                     name)
-    fn.linkage = "internal"
     post, msg, fresh, row_start, cols_w, n_rows, alpha16, beta = fn.args
-    for a in (post, msg, fresh, row_start, cols_w):
-        a.add_attribute("noalias")
     sadd16 = _ir_vec_intrinsic(module, "sadd.sat", v16)
     ssub16 = _ir_vec_intrinsic(module, "ssub.sat", v16)
     smax16 = _ir_vec_intrinsic(module, "smax", v16)
     smin16 = _ir_vec_intrinsic(module, "smin", v16)
     abs16 = _ir_vec_intrinsic(module, "abs", v16)
     smin8 = _ir_vec_intrinsic(module, "smin", vec)
-    b = ir.IRBuilder(fn.append_basic_block("entry"))
     qbuf = b.alloca(v16, size=LDPC_MAX_ROW_WEIGHT)
     qbuf.align = 64
     zero = ir.Constant(vec, None)
@@ -338,8 +352,7 @@ def _ir_ldpc_iteration_function(module, lanes):
 
     rows = _IrLoop(fn, b, "row", _ir_i64(0))
     rows.while_below(n_rows)
-    s = b.sext(b.load(b.gep(row_start, [rows.i])), _IR_I64)
-    e = b.sext(b.load(b.gep(row_start, [b.add(rows.i, _ir_i64(1))])), _IR_I64)
+    s, e = _ir_row_bounds(b, row_start, rows.i)
     p1 = _IrLoop(fn, b, "pass1", s, [top, top, zero, z16])
     p1.while_below(e)
     m1, m2, idx, sgn = p1.vals
@@ -376,23 +389,17 @@ def _ir_ldpc_iteration_function(module, lanes):
 
 def _ir_ldpc_syndrome_function(module, lanes):
     """Define ``void syn(i16* post, i32* row_start, i32* cols_w, i64 n_rows, i32* weight)`` (weight per lane)."""
-    name = f"pipeline_fec_ldpc_syndrome_{lanes}"
-    if name in module.globals:
-        return module.globals[name]
     i16p, i32p = ir.IntType(16).as_pointer(), _IR_I32.as_pointer()
+    fn, b = _ir_new_function(module, f"pipeline_fec_ldpc_syndrome_{lanes}", [i16p, i32p, i32p, _IR_I64, i32p])
+    if b is None:
+        return fn
     vec = ir.VectorType(ir.IntType(16), lanes)
     v32 = ir.VectorType(_IR_I32, lanes)
-    fn = ir.Function(module, ir.FunctionType(ir.VoidType(), [i16p, i32p, i32p, _IR_I64, i32p]), name)
-    fn.linkage = "internal"
     post, row_start, cols_w, n_rows, weight = fn.args
-    for a in (post, row_start, cols_w, weight):
-        a.add_attribute("noalias")
-    b = ir.IRBuilder(fn.append_basic_block("entry"))
     zero = ir.Constant(vec, None)
     rows = _IrLoop(fn, b, "row", _ir_i64(0), [ir.Constant(v32, None)])
     rows.while_below(n_rows)
-    s = b.sext(b.load(b.gep(row_start, [rows.i])), _IR_I64)
-    e = b.sext(b.load(b.gep(row_start, [b.add(rows.i, _ir_i64(1))])), _IR_I64)
+    s, e = _ir_row_bounds(b, row_start, rows.i)
     edges = _IrLoop(fn, b, "edge", s, [zero])
     edges.while_below(e)
     off = b.sext(b.load(b.gep(cols_w, [edges.i])), _IR_I64)
@@ -407,17 +414,12 @@ def _ir_ldpc_syndrome_function(module, lanes):
 
 def _ir_ldpc_signs_function(module, lanes):
     """Define ``void signs(i16* post, i64 n_var, i64* masks)``: bit l of masks[v] = (post[v lanes + l] < 0)."""
-    name = f"pipeline_fec_ldpc_signs_{lanes}"
-    if name in module.globals:
-        return module.globals[name]
+    fn, b = _ir_new_function(module, f"pipeline_fec_ldpc_signs_{lanes}",
+                             [ir.IntType(16).as_pointer(), _IR_I64, _IR_I64.as_pointer()])
+    if b is None:
+        return fn
     v16 = ir.VectorType(ir.IntType(16), lanes)
-    fn = ir.Function(module, ir.FunctionType(ir.VoidType(), [ir.IntType(16).as_pointer(), _IR_I64,
-                                                                 _IR_I64.as_pointer()]), name)
-    fn.linkage = "internal"
     post, n_var, masks = fn.args
-    for a in (post, masks):
-        a.add_attribute("noalias")
-    b = ir.IRBuilder(fn.append_basic_block("entry"))
     loop = _IrLoop(fn, b, "var", _ir_i64(0))
     loop.while_below(n_var)
     x = b.load(b.bitcast(b.gep(post, [b.mul(loop.i, _ir_i64(lanes))]), v16.as_pointer()), align=2)
