@@ -6,10 +6,11 @@ Run from the repository root: ``python bench/run_all.py [--quick] [--json FILE]`
    demo profile, segments on 1 and 2 processes, warm start, peak memory.  ``--json FILE`` also writes them
    as one JSON object.
 2. The stage scripts beside this file, each in its own ``python`` process with its defaults:
-   ``bench_recording.py``, ``bench_demod.py``, ``bench_fec.py``, ``bench_turbo.py``,
-   ``bench_end_to_end.py`` (a 1 GB recording; 0.25 GB with ``--quick``), ``bench_sweep.py`` and
-   ``sweep_turbo.py`` (error-rate Monte-Carlo; left out with ``--quick``).  A script that is
-   missing or fails is reported and the others still run; the exit status is 1 if any failed.
+   ``bench_recording.py``, ``bench_demod.py``, ``bench_fec.py``, ``bench_turbo.py``, ``bench_ldpc.py``,
+   ``bench_end_to_end.py`` (a 1 GB recording; 0.25 GB with ``--quick``), ``bench_sweep.py``,
+   ``sweep_turbo.py`` and ``sweep_ldpc.py`` (error-rate Monte-Carlo; left out with ``--quick``).  A
+   script that is missing or fails is reported and the others still run; the exit status is 1 if any
+   failed.
 """
 
 from __future__ import annotations
@@ -30,11 +31,13 @@ def _scripts(quick: bool) -> list[tuple[str, list[str]]]:
         ("bench_demod.py", ["--seconds", "1"] if quick else []),
         ("bench_fec.py", ["--bits", "1000000", "--repeat", "3"] if quick else []),
         ("bench_turbo.py", ["--frames", "64", "--repeat", "2"] if quick else []),
+        ("bench_ldpc.py", ["--codewords", "256", "--repeat", "3"] if quick else []),
         ("bench_end_to_end.py", ["--gigabytes", "0.25"] if quick else []),
     ]
     if not quick:
         rows.append(("bench_sweep.py", []))
         rows.append(("sweep_turbo.py", []))
+        rows.append(("sweep_ldpc.py", ["--codewords", "3000"]))
     return rows
 
 

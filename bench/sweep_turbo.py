@@ -24,22 +24,14 @@ import time
 
 import numpy as np
 from bench_turbo import awgn_llr, frames_with_fecf
-from scipy import stats
 
 from pipeline.fec.turbo import TurboCode, TurboDecoder, turbo_encode
+from pipeline.tools._theory import clopper_pearson
 
 #: issue 16's code-alone targets: (rate, k, Eb/N0 dB), FER at most 1e-3 each
 TARGETS = (("1/2", 8920, 1.0), ("1/6", 8920, 0.2), ("1/2", 1784, 1.6))
 #: Normal approximation (Polyanskiy-Poor-Verdu 2010) Eb/N0 at FER 1e-4 for these codes, REFERENCES.md sec. 13.5.
 NORMAL_APPROX_FER_1E4_DB = {("1/2", 8920): 0.48, ("1/6", 8920): -0.79, ("1/2", 1784): 0.81}
-
-
-def clopper_pearson(errors: int, trials: int, confidence: float = 0.95) -> tuple[float, float]:
-    """Exact two-sided binomial confidence interval of a rate ``errors / trials``."""
-    a = (1.0 - confidence) / 2.0
-    lo = 0.0 if errors == 0 else float(stats.beta.ppf(a, errors, trials - errors + 1))
-    hi = 1.0 if errors == trials else float(stats.beta.ppf(1.0 - a, errors + 1, trials - errors))
-    return lo, hi
 
 
 def run_point(rate: str, k: int, ebn0_db: float, *, min_frames: int = 3000, min_errors: int = 50,

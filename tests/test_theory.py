@@ -130,3 +130,44 @@ def test_argument_errors():
         th.rs_bounded_distance_ber(3.0, e=4)
     with pytest.raises(ValueError, match="Argument 'max_distance'"):
         th.conv_distance_spectrum("1/2", 0)
+
+
+# ../shared/REFERENCES.md sec. 13.5, normal-approximation table: "computed here" there (Polyanskiy-Poor-Verdu
+# 2010 with 200-point Gauss-Hermite quadrature), so this checks our implementation against that computation.
+NORMAL_APPROX_TABLE = [
+    ((8160, 7136), 2.84, 3.22, 3.32),
+    ((2048, 1024), 0.19, 1.01, 1.24),
+    ((32768, 16384), 0.19, 0.40, 0.46),
+    ((1280, 1024), 2.04, 2.91, 3.14),
+    ((3576, 1784), 0.18, 0.81, 0.99),
+    ((17848, 8920), 0.19, 0.48, 0.56),
+    ((53544, 8920), -1.07, -0.79, -0.71),
+]
+
+
+@pytest.mark.kat
+@pytest.mark.parametrize("nk, capacity, fer4, fer6", NORMAL_APPROX_TABLE)
+def test_normal_approximation_matches_reference_table(nk, capacity, fer4, fer6):
+    n, k = nk
+    assert th.capacity_limit_ebn0_db(k / n) == pytest.approx(capacity, abs=0.006)
+    assert th.normal_approximation_ebn0_db(n, k, 1e-4) == pytest.approx(fer4, abs=0.006)
+    assert th.normal_approximation_ebn0_db(n, k, 1e-6) == pytest.approx(fer6, abs=0.006)
+    # it lies right of the capacity limit of the same rate (sec. 13.5 "capacity Eb/N0" column)
+    assert th.normal_approximation_ebn0_db(n, k, 1e-3) > th.capacity_limit_ebn0_db(k / n)
+
+
+@pytest.mark.kat
+@pytest.mark.parametrize("esn0_db", [-6.0, -1.5, 0.0, 3.0, 8.0])
+def test_gauss_hermite_capacity_agrees_with_adaptive_quadrature(esn0_db):
+    # two numerical methods for the same integral (Cover & Thomas ch. 9 definition)
+    c, v = th.biawgn_capacity_dispersion(esn0_db)
+    assert c == pytest.approx(th.biawgn_capacity(esn0_db), abs=1e-9)
+    assert 0.0 < v < 1.0
+
+
+@pytest.mark.kat
+def test_normal_approximation_argument_errors():
+    with pytest.raises(ValueError, match="Argument 'k' must be an integer in 1..n-1"):
+        th.normal_approximation_ebn0_db(100, 100, 1e-3)
+    with pytest.raises(ValueError, match="Argument 'fer' must be in"):
+        th.normal_approximation_ebn0_db(100, 50, 0.7)

@@ -2,8 +2,8 @@
 
 Encoders and decoders are bit-exact to the standards: the K=7 convolutional code and its
 punctured rates, Reed-Solomon (255,223)/(255,239) in the dual basis with interleaving and virtual
-fill, the TM pseudo-randomizer, the FECF CRC-16, the attached sync markers and the turbo codes
-(:mod:`pipeline.fec.turbo`).
+fill, the TM pseudo-randomizer, the FECF CRC-16, the attached sync markers, the turbo codes
+(:mod:`pipeline.fec.turbo`) and the LDPC codes C2 and AR4JA (:mod:`pipeline.fec.ldpc`).
 See DEVELOPERS.md (stage contracts) for how the other stages use these.
 """
 
@@ -31,6 +31,18 @@ from pipeline.fec._markers import (
 from pipeline.fec._randomizer import pn_sequence
 from pipeline.fec._rs import dual_basis_tables, rs_decode, rs_decode_blocks, rs_encode, rs_generator, rs_k
 from pipeline.fec._viterbi import DEFAULT_TRACEBACK_DEPTH, ViterbiDecoder, viterbi_decode
+from pipeline.fec.ldpc import (
+    AR4JA_K,
+    AR4JA_RATES,
+    LDPC_FAMILIES,
+    LdpcCode,
+    LdpcDecoder,
+    LdpcResult,
+    ldpc_code,
+    ldpc_decode,
+    ldpc_encode,
+    ldpc_encode_bits,
+)
 from pipeline.fec.turbo import (
     TURBO_ALGORITHMS,
     TURBO_BLOCK_SIZES,
@@ -85,4 +97,14 @@ __all__ = [
     "turbo_decode",
     "turbo_encode",
     "turbo_interleaver",
+    "AR4JA_K",
+    "AR4JA_RATES",
+    "LDPC_FAMILIES",
+    "LdpcCode",
+    "LdpcDecoder",
+    "LdpcResult",
+    "ldpc_code",
+    "ldpc_decode",
+    "ldpc_encode",
+    "ldpc_encode_bits",
 ]

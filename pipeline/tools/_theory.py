@@ -10,7 +10,11 @@ Closed forms and numerical limits for the codes of CCSDS 131.0-B on an AWGN chan
 * the binary-input AWGN (BI-AWGN) capacity and the smallest Eb/N0 at which a rate ``R`` code
   can work (Shannon limit for binary antipodal signalling);
 * :func:`ebn0_at_ber`, the Eb/N0 where a curve crosses a target error rate, interpolated in
-  log10(BER), used for the implementation loss.
+  log10(BER), used for the implementation loss;
+* the Polyanskiy-Poor-Verdu normal approximation for a block code of length n and dimension k on
+  BPSK/AWGN (:func:`normal_approximation_ebn0_db`), with the BI-AWGN capacity and dispersion by
+  Gauss-Hermite quadrature (:func:`biawgn_capacity_dispersion`): the reference the LDPC
+  measurements are compared with.
 
 Eb/N0 is per information bit throughout, as in ../shared/DESIGN.md.
 """
@@ -21,7 +25,7 @@ import math
 from functools import lru_cache
 
 import numpy as np
-from scipy import integrate, optimize, special
+from scipy import integrate, optimize, special, stats
 
 __all__ = [
     "q_function",
@@ -33,6 +37,9 @@ __all__ = [
     "biawgn_capacity",
     "capacity_limit_ebn0_db",
     "ebn0_at_ber",
+    "biawgn_capacity_dispersion",
+    "normal_approximation_ebn0_db",
+    "clopper_pearson",
 ]
 
 #: Bit weights B_d of the K=7 r=1/2 code (G1=171, G2=133 octal) for d = 10, 12, ..., 24.
@@ -369,3 +376,134 @@ def ebn0_at_ber(ebn0_db, ber, target: float = 1e-5) -> float | None:
             frac = (ly[i - 1] - lt) / (ly[i - 1] - ly[i])
             return float(x[i - 1] + frac * (x[i] - x[i - 1]))
     return None
+
+
+@lru_cache(maxsize=4)
+def _hermite_nodes(n_points: int) -> tuple[np.ndarray, np.ndarray]:
+    return np.polynomial.hermite.hermgauss(n_points)
+
+
+def biawgn_capacity_dispersion(esn0_db: float, n_points: int = 200) -> tuple[float, float]:
+    """Capacity C (bits per channel use) and dispersion V (bits^2) of BPSK on AWGN with soft output.
+
+    Parameters
+    ----------
+    esn0_db : float
+        Es/N0 per binary channel symbol, dB.
+    n_points : int
+        Gauss-Hermite nodes (200 by default).
+
+    Returns
+    -------
+    (C, V) : tuple of float
+        Mean and variance of the information density ``i = 1 - log2(1 + exp(-2 y / s^2))`` with
+        ``y = 1 + s Z``, ``Z ~ N(0, 1)``, ``s^2 = 1 / (2 Es/N0)`` (input +1; the channel is
+        symmetric).
+
+    Notes
+    -----
+    ``E[g(Z)] = pi^-1/2 sum_i w_i g(sqrt 2 t_i)`` over the Gauss-Hermite nodes ``t_i`` and weights
+    ``w_i``.  Cost O(n_points).
+
+    References
+    ----------
+    Y. Polyanskiy, H. V. Poor, S. Verdu, "Channel coding rate in the finite blocklength regime",
+    IEEE Trans. Inf. Theory 56(5), 2010 (dispersion of the BI-AWGN channel; from memory, not
+    confirmed); ../shared/REFERENCES.md sec. 13.5 (the method: 200-point Gauss-Hermite quadrature).
+
+    Examples
+    --------
+    >>> c, v = biawgn_capacity_dispersion(0.0)
+    >>> round(c, 4)
+    0.7215
+    """
+    es = float(_db(esn0_db))
+    if not (es > 0 and math.isfinite(es)):
+        raise ValueError(f"Argument 'esn0_db' must be finite, not {esn0_db!r}.")
+    t, w = _hermite_nodes(int(n_points))
+    s2 = 1.0 / (2.0 * es)
+    y = 1.0 + math.sqrt(s2) * math.sqrt(2.0) * t
+    dens = 1.0 - np.logaddexp(0.0, -2.0 * y / s2) / math.log(2.0)
+    c = float(np.dot(w, dens) / math.sqrt(math.pi))
+    v = float(np.dot(w, dens * dens) / math.sqrt(math.pi) - c * c)
+    return c, max(v, 0.0)
+
+
+def normal_approximation_ebn0_db(n: int, k: int, fer: float) -> float:
+    """Eb/N0 (dB) at which the best (n, k) binary code reaches frame error rate ``fer`` on BPSK/AWGN,
+    by the normal approximation.
+
+    Parameters
+    ----------
+    n : int
+        Channel bits per codeword (sent bits: punctured bits excluded, fill and tail bits included).
+    k : int
+        Information bits per codeword, 0 < k < n.
+    fer : float
+        Frame error rate, 0 < fer < 0.5.
+
+    Returns
+    -------
+    float
+        The Eb/N0 (per information bit, ``Es/N0 + 10 log10(n / k)``) solving
+        ``k = n C - sqrt(n V) Q^-1(fer) + (1/2) log2 n``.
+
+    Notes
+    -----
+    C and V from :func:`biawgn_capacity_dispersion`; Brent's method on Es/N0 in [-20, 20] dB.
+    It is an estimate of the limit, not a bound: practical decoders land a few tenths of a dB
+    to about 1 dB to the right of it.
+
+    References
+    ----------
+    Polyanskiy, Poor, Verdu 2010 (eq. 296, the normal approximation with the (1/2) log n term;
+    from memory, not confirmed); ../shared/REFERENCES.md sec. 13.5 (table computed there).
+
+    Examples
+    --------
+    >>> round(normal_approximation_ebn0_db(8160, 7136, 1e-4), 2)
+    3.22
+    """
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 2:
+        raise ValueError(f"Argument 'n' must be an integer >= 2, not {n!r}.")
+    if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or not 0 < k < n:
+        raise ValueError(f"Argument 'k' must be an integer in 1..n-1, not {k!r}.")
+    if not 0.0 < float(fer) < 0.5:
+        raise ValueError(f"Argument 'fer' must be in (0, 0.5), not {fer!r}.")
+    q_inv = math.sqrt(2.0) * float(special.erfcinv(2.0 * float(fer)))
+
+    def gap(esn0_db):
+        c, v = biawgn_capacity_dispersion(esn0_db)
+        return n * c - math.sqrt(n * v) * q_inv + 0.5 * math.log2(n) - k
+
+    esn0_db = optimize.brentq(gap, -20.0, 20.0, xtol=1e-9)
+    return float(esn0_db + 10.0 * math.log10(n / k))
+
+
+def clopper_pearson(errors: int, trials: int, confidence: float = 0.95) -> tuple[float, float]:
+    """Exact two-sided binomial confidence interval for an error rate ``errors / trials``.
+
+    Returns
+    -------
+    (low, high) : tuple of float
+        ``low = B^-1(a; e, n - e + 1)`` and ``high = B^-1(1 - a; e + 1, n - e)`` with ``a = (1 - confidence) / 2``
+        and B the beta distribution (``low = 0`` when e = 0, ``high = 1`` when e = n).
+
+    References
+    ----------
+    C. J. Clopper, E. S. Pearson, "The use of confidence or fiducial limits illustrated in the case of
+    the binomial", Biometrika 26(4), 1934 (from memory, not confirmed).
+
+    Examples
+    --------
+    >>> lo, hi = clopper_pearson(0, 3000)
+    >>> lo, round(hi, 5)
+    (0.0, 0.00123)
+    """
+    if trials < 1 or not 0 <= errors <= trials:
+        raise ValueError(f"Arguments 'errors' and 'trials' must satisfy 0 <= errors <= trials, trials >= 1, "
+                         f"not {errors} and {trials}.")
+    a = (1.0 - confidence) / 2.0
+    lo = 0.0 if errors == 0 else float(stats.beta.ppf(a, errors, trials - errors + 1))
+    hi = 1.0 if errors == trials else float(stats.beta.ppf(1.0 - a, errors + 1, trials - errors))
+    return lo, hi
