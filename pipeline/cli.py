@@ -20,7 +20,7 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from pipeline._version import __version__
-from pipeline.errors import DownlinkError, OutputError, ProfileError, RecordingError, UsageError
+from pipeline.errors import DataFileError, DownlinkError, OutputError, ProfileError, RecordingError, UsageError
 
 __all__ = ["ExitCode", "build_parser", "main"]
 
@@ -85,6 +85,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--profile", required=True, help="link profile (TOML)")
     p.add_argument("--out", required=True, help="output folder (created; refused if it exists)")
     p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--drop-duplicates", action="store_true",
+                   help="suppress byte-identical copies of packets already delivered (a replay); by default they "
+                        "are delivered and flagged count_anomaly=duplicate")
+    p.add_argument("--clock", metavar="CLOCK_JSON",
+                   help="a clock.json from 'downlink clock': packets carrying onboard time get utc_from_obt")
+    orbit = p.add_mutually_exclusive_group()
+    orbit.add_argument("--tle", metavar="FILE", help="a two-line element set: predicted Doppler and residuals in "
+                                                     "doppler.csv (needs [station] with a position)")
+    orbit.add_argument("--oem", metavar="FILE", help="a CCSDS Orbit Ephemeris Message (text): as --tle")
+    p.add_argument("--ut1-utc", dest="ut1_minus_utc_s", type=float, default=0.0, metavar="S",
+                   help="UT1 - UTC in seconds for the Earth's rotation in the prediction (default 0)")
     p.add_argument("--cadus", action="store_true",
                    help="also write cadus.bin: every CADU as found (marker + codeblock, hard bits, still randomized)")
     p.add_argument("--workers", type=int, default=None, metavar="N",
@@ -166,6 +177,27 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--seconds", type=float, default=4.0, help="length of the end-to-end test recording")
     p.set_defaults(handler=_cmd_bench)
 
+    p = sub.add_parser("clock", parents=[common], help="correlate the spacecraft clock with UTC from decoded passes",
+                       description="Pair the onboard times in time packets with the ERT of the frames they sampled, "
+                                   "take off the light time and the onboard delay, and fit UTC = a + b * OBT. "
+                                   "Writes clock.json, clock.csv and clock_residuals.png.")
+    p.add_argument("decoded", nargs="+", metavar="DECODED_DIR", help="folders written by 'downlink decode'")
+    p.add_argument("--profile", required=True, help="link profile (TOML) with a [clock] section")
+    light = p.add_mutually_exclusive_group(required=True)
+    light.add_argument("--light-time", dest="light_time_s", type=float, metavar="SECONDS",
+                       help="one-way light time, constant")
+    light.add_argument("--range-km", type=float, metavar="KM", help="range to the spacecraft, constant")
+    light.add_argument("--tle", metavar="FILE", help="a two-line element set (light time from the orbit)")
+    light.add_argument("--oem", metavar="FILE", help="a CCSDS Orbit Ephemeris Message, text form")
+    p.add_argument("--out", default=None, help="output folder (default: DECODED_DIR/clock of the first folder)")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--quadratic", choices=["auto", "yes", "no"], default="auto",
+                   help="fit a quadratic term: when the residuals call for it (auto), always, or never")
+    p.add_argument("--ut1-utc", dest="ut1_minus_utc_s", type=float, default=0.0, metavar="S",
+                   help="UT1 - UTC in seconds for the Earth's rotation (--tle/--oem)")
+    p.add_argument("--json", action="store_true", help="print clock.json on stdout")
+    p.set_defaults(handler=_cmd_clock)
+
     p = sub.add_parser("batch", parents=[common], help="decode many recordings on Dask",
                        description="Decode many recordings (a mission archive) in parallel with Dask.")
     p.add_argument("recordings", nargs="+", help="SigMF recordings (.sigmf-meta)")
@@ -211,7 +243,7 @@ def _compile_notice(args) -> None:
 def _cmd_decode(args) -> int:
     workers = _workers(args)
     profile = _load_profile(args.profile)
-    from pipeline.chain import decode_to_folder
+    from pipeline.chain import TimeProducts, decode_to_folder
 
     _compile_notice(args)
 
@@ -227,6 +259,8 @@ def _cmd_decode(args) -> int:
         no_time=args.no_time,
         cadus=args.cadus,
         scheduler=args.scheduler,
+        drop_duplicates=args.drop_duplicates,
+        products=TimeProducts(clock=args.clock, tle=args.tle, oem=args.oem, ut1_minus_utc_s=args.ut1_minus_utc_s),
         verbose=args.verbose > 0,
         progress=not args.quiet,
         workers=workers,
@@ -335,6 +369,24 @@ def _cmd_bench(args) -> int:
     return run_bench(as_json=args.json, seconds=args.seconds)
 
 
+def _cmd_clock(args) -> int:
+    from pipeline.tools._clock import run_clock
+
+    profile = _load_profile(args.profile)
+    res = run_clock(args.decoded, profile, light_time_s=args.light_time_s, range_km=args.range_km, tle=args.tle,
+                    oem=args.oem, out=args.out, overwrite=args.overwrite,
+                    quadratic={"auto": None, "yes": True, "no": False}[args.quadratic],
+                    ut1_minus_utc_s=args.ut1_minus_utc_s)
+    doc = res.as_json()
+    if args.json:
+        print(json.dumps(doc))
+    if not args.quiet:
+        print(f"clock: {doc['pairs_used']} pairs used, {doc['pairs_rejected']} rejected; onboard clock drift "
+              f"{doc['drift_s_per_s']:.3e} s/s, residual RMS {doc['residual_rms_s'] * 1e6:.3f} us; {res.out}",
+              file=sys.stderr)
+    return ExitCode.OK
+
+
 def _cmd_batch(args) -> int:
     from pipeline.tools._batch import run_batch
 
@@ -364,7 +416,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         return int(args.handler(args))
     except UsageError as exc:
         return _report(args, exc, ExitCode.USAGE)
-    except (RecordingError, ProfileError) as exc:
+    except (RecordingError, ProfileError, DataFileError) as exc:
         return _report(args, exc, ExitCode.BAD_INPUT)
     except OutputError as exc:
         return _report(args, exc, ExitCode.BAD_OUTPUT)

@@ -15,7 +15,7 @@ from pipeline.errors import OutputError
 def test_version_and_help(capsys):
     assert main(["--version"]) == 0
     assert "downlink" in capsys.readouterr().out
-    for cmd in ("decode", "demo", "simulate", "inspect", "verify", "sweep", "bench", "batch"):
+    for cmd in ("decode", "demo", "simulate", "inspect", "verify", "sweep", "bench", "batch", "clock"):
         assert main([cmd, "--help"]) == 0
         assert "usage: downlink " + cmd in capsys.readouterr().out
 

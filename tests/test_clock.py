@@ -47,6 +47,37 @@ PROFILE = {
 }
 
 
+#: PROFILE as a TOML file (for the command line)
+PROFILE_TOML = f"""
+name = "tamarisk-clock"
+[link]
+modulation = "bpsk"
+symbol_rate = {BIT_RATE}
+[coding]
+convolutional = "none"
+reed_solomon = 0
+interleave = 1
+randomizer = true
+[frames]
+kind = "tm"
+length = {FRAME_LEN}
+fecf = true
+ocf = false
+spacecraft_id = 499
+[[packets.time_code]]
+apid = 127
+code = "cuc"
+pfield = 0x2F
+[clock]
+time_packet_apid = 127
+time_field_offset = 0
+code = "cuc"
+pfield = 0x2F
+sampled_every = {EVERY}
+onboard_delay_ns = {DELAY_NS}
+"""
+
+
 def _with_required_tables(data: dict, **kw):
     """``profile_from_dict`` with empty [link], [coding] and [frames] tables where the test gives none."""
     return profile_from_dict({"link": {}, "coding": {}, "frames": {}, **data}, **kw)
@@ -255,3 +286,36 @@ def test_clock_json_reader_errors(tmp_path):
         read_clock_json(p)
     p.write_text(json.dumps(good))
     assert read_clock_json(p) == ClockModel.from_dict(good)
+
+
+def test_clock_and_decode_clock_on_the_command_line(decoded, tmp_path, capsys):
+    # `downlink clock` writes clock.json; `downlink decode --clock clock.json` adds utc_from_obt to the time
+    # packets, within 1 us of the truth (the same bits decoded again, now with the correlation)
+    from pipeline.cli import main
+
+    prof, folder = decoded
+    ptoml = tmp_path / "p.toml"
+    ptoml.write_text(PROFILE_TOML)
+    capsys.readouterr()
+    assert main(["clock", str(folder), "--profile", str(ptoml), "--light-time", str(float(LIGHT_TIME_S)),
+                 "--out", str(tmp_path / "c"), "--json", "-q"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc == json.loads((tmp_path / "c" / "clock.json").read_text())
+    assert main(["decode", str(folder.parent / "pass.bits"), "--input", "bits", "--start", START, "--profile",
+                 str(ptoml), "--out", str(tmp_path / "d"), "--clock", str(tmp_path / "c" / "clock.json"), "-q"]) == 0
+    t0 = parse_utc(START)
+    checked = 0
+    for line in (tmp_path / "d" / "packets.jsonl").read_text().splitlines():
+        p = json.loads(line)
+        if p["apid"] != 127 or p["seq_count"] * EVERY == 400:  # 400: the corrupt sample
+            assert p["apid"] == 127 or "utc_from_obt" not in p
+            continue
+        truth_ns = t0 + round(_departure(p["seq_count"] * EVERY) * NS_PER_S)
+        assert abs(parse_utc(p["utc_from_obt"]) - truth_ns) < 1000
+        checked += 1
+    assert checked == N_FRAMES // EVERY - 1
+    # a clock.json that is not one is one line and exit 3
+    (tmp_path / "bad.json").write_text("{")
+    assert main(["decode", str(folder.parent / "pass.bits"), "--input", "bits", "--start", START, "--profile",
+                 str(ptoml), "--out", str(tmp_path / "e"), "--clock", str(tmp_path / "bad.json")]) == 3
+    assert capsys.readouterr().err.startswith("Error: ")

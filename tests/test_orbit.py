@@ -31,7 +31,7 @@ from pipeline.orbit import (
 from pipeline.timescales import NS_PER_S, format_utc, parse_utc
 
 C_KM_S = 299_792.458  # SI definition of the metre
-STATION = GroundStation("HOLLOW RIDGE", 40.4319, -4.2486, 812.0)  # invented (the demo profile's [station])
+STATION = GroundStation("HOLLOW RIDGE", 44.7261, 3.4117, 1012.0)  # invented (the demo profile's [station])
 F_S_BAND = 2.2e9
 
 
@@ -55,7 +55,7 @@ def _astropy_time(tai_ns: int, Time):
 
 def test_geodetic_against_astropy(astropy):
     _, coords, u = astropy
-    for lat, lon, h in ((40.4319, -4.2486, 812.0), (-33.9, 18.4, 10.0), (89.9, 123.0, -30.0), (0.0, 359.0, 5000.0)):
+    for lat, lon, h in ((44.7261, 3.4117, 1012.0), (-33.9, 18.4, 10.0), (89.9, 123.0, -30.0), (0.0, 359.0, 5000.0)):
         ref = coords.EarthLocation.from_geodetic(lon * u.deg, lat * u.deg, h * u.m, ellipsoid="WGS84")  # astropy
         mine = geodetic_to_ecef_km(lat, lon, h)
         assert np.allclose(mine, [ref.x.to_value(u.km), ref.y.to_value(u.km), ref.z.to_value(u.km)], atol=1e-9)

@@ -39,8 +39,8 @@ reed_solomon = 16
 interleave = 1
 [station]
 name = "HOLLOW RIDGE"
-latitude_deg = 40.4319
-longitude_deg = -4.2486
+latitude_deg = 44.7261
+longitude_deg = 3.4117
 altitude_m = 812.0
 receive_delay_ns = 1250
 [clock]

@@ -104,7 +104,8 @@ def test_truth_matches_an_independent_decode(tmp_path, line, mod):
         # position: symbol (channel_bit // bits per symbol) at p0 + k T; ERT = start + position / fs
         k = fr["channel_bit"] // (2 if mod == "qpsk" else 1)
         assert fr["position"] == pytest.approx(0.37 * T + k * T, abs=1e-6)
-        assert abs(parse_utc_ns(fr["ert"]) - (start + fr["position"] / fs * 1e9)) <= 1
+        # ERT names the leading edge of the ASM's first symbol: its centre minus half a symbol period
+        assert abs(parse_utc_ns(fr["ert"]) - (start + (fr["position"] - 0.5 * T) / fs * 1e9)) <= 1
         if nxt is not None:
             assert nxt["channel_bit"] - fr["channel_bit"] == 8 * (4 + prof.codeblock_bytes)
         if not fr["idle"]:

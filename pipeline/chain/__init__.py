@@ -17,7 +17,7 @@ from pipeline.chain._backend import BackEnd, FrameLog, TrackLog
 from pipeline.chain._chain import DecodeChain
 from pipeline.chain._frontend import FrontCounts, FrontEnd, FrontOutput, FrontSummary
 from pipeline.chain._output import OutputFolder
-from pipeline.chain._run import DecodeSummary, decode_in_memory, decode_to_folder, kernel_cache_cold
+from pipeline.chain._run import DecodeSummary, TimeProducts, decode_in_memory, decode_to_folder, kernel_cache_cold
 from pipeline.chain._segments import (
     DEFAULT_SEGMENT_SAMPLES,
     SegmentedDecode,
@@ -45,6 +45,7 @@ __all__ = [
     "OutputFolder",
     "SegmentResult",
     "SegmentedDecode",
+    "TimeProducts",
     "TrackLog",
     "decode",
     "decode_in_memory",

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import os
 
-from pipeline.chain._run import DecodeSummary, decode_in_memory, decode_to_folder
+from pipeline.chain._run import DecodeSummary, TimeProducts, decode_in_memory, decode_to_folder
 
 __all__ = ["decode"]
 
@@ -12,7 +12,9 @@ __all__ = ["decode"]
 def decode(recording: str | os.PathLike, profile, out: str | os.PathLike | None = None, *,
            overwrite: bool = False, workers: int = 1, input_kind: str = "iq", format: str | None = None,
            sample_rate_hz: float | None = None, start: str | None = None, no_time: bool = False,
-           cadus: bool = False, scheduler: str | None = None, progress: bool = False) -> DecodeSummary:
+           cadus: bool = False, scheduler: str | None = None, drop_duplicates: bool = False,
+           clock: str | os.PathLike | None = None, tle: str | os.PathLike | None = None,
+           oem: str | os.PathLike | None = None, progress: bool = False) -> DecodeSummary:
     """Decode a recording into packets, frames and a pass report.
 
     Parameters
@@ -26,13 +28,17 @@ def decode(recording: str | os.PathLike, profile, out: str | os.PathLike | None 
         Output folder (``packets.jsonl``, ``frames.jsonl``, ``report.json``, ...).  None decodes in
         memory and returns the records in ``packets_list`` and ``frames_list`` and the report in
         ``report``: meant for recordings whose packets fit in memory.
-    overwrite, workers, input_kind, format, sample_rate_hz, start, no_time, cadus, scheduler, progress :
+    overwrite, workers, input_kind, format, sample_rate_hz, start, no_time, cadus, scheduler, drop_duplicates, \
+clock, tle, oem, progress :
         The ``decode`` command's options: ``--overwrite``, ``--workers``, ``--input`` (iq | soft |
         bits), ``--format`` (cf32 | ci16 | ci8 | cu8), ``--sample-rate``, ``--start`` (ISO-8601 UTC of
         the first sample; required when the input carries no time), ``--no-time`` (decode without a
         time: every ERT is null), ``--cadus`` (also ``cadus.bin``; folder output only),
         ``--scheduler`` (the segments of an IQ recording as tasks on a Dask cluster: ``"local"`` or a
-        scheduler address) and a progress bar on stderr.
+        scheduler address), ``--drop-duplicates`` (suppress byte-identical copies of packets already
+        delivered), ``--clock`` (a ``clock.json``: ``utc_from_obt`` on packets carrying onboard time),
+        ``--tle`` / ``--oem`` (an orbit: predicted Doppler and residuals in ``doppler.csv``) and a progress
+        bar on stderr.
 
     Returns
     -------
@@ -53,8 +59,11 @@ def decode(recording: str | os.PathLike, profile, out: str | os.PathLike | None 
     from pipeline.profile import LinkProfile, load_profile
 
     prof = profile if isinstance(profile, LinkProfile) else load_profile(profile)
+    products = TimeProducts(clock=None if clock is None else str(clock), tle=None if tle is None else str(tle),
+                            oem=None if oem is None else str(oem))
     kw = dict(input_kind=input_kind, datatype=format, sample_rate_hz=sample_rate_hz, start=start, no_time=no_time,
-              progress=progress, workers=workers, scheduler=scheduler)
+              progress=progress, workers=workers, scheduler=scheduler, products=products,
+              drop_duplicates=drop_duplicates)
     if out is None:
         return decode_in_memory(str(recording), prof, **kw)
     return decode_to_folder(str(recording), prof, str(out), overwrite=overwrite, cadus=cadus, **kw)

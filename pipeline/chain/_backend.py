@@ -144,11 +144,15 @@ class BackEnd:
     drop_duplicates : bool, keyword-only
         Suppress byte-identical copies of packets already delivered from the same frame counts (a replay);
         by default they are delivered and flagged ``count_anomaly = "duplicate"``.
+    obt_to_utc : pipeline.packets.ObtToUtc or None, keyword-only
+        Adds ``utc_from_obt`` to packets whose time code is onboard time (``decode --clock``).
+    doppler_check : pipeline.orbit.DopplerComparison or None, keyword-only
+        Adds ``predicted_hz`` and ``residual_hz`` to the Doppler rows (``decode --tle`` / ``--oem``).
     """
 
     def __init__(self, profile: LinkProfile, *, timebase=None, sample_rate_hz: float | None = None, sinks=None,
                  downlink_frequency_hz: float | None = None, tuning_offset_hz: float = 0.0,
-                 drop_duplicates: bool = False):
+                 drop_duplicates: bool = False, obt_to_utc=None, doppler_check=None):
         from pipeline.chain._time import ErtClock
         from pipeline.link import ChannelAccounting, FrameParser
         from pipeline.packets import PacketExtractor
@@ -159,6 +163,8 @@ class BackEnd:
         self.sinks = sinks
         self.downlink_frequency_hz = downlink_frequency_hz
         self.tuning_offset_hz = float(tuning_offset_hz)
+        self.obt_to_utc = obt_to_utc
+        self.doppler_check = doppler_check
         self._format_utc = format_utc
         from pipeline.fec import ASM
 
@@ -189,8 +195,10 @@ class BackEnd:
         if self.sinks is not None and self.clock is not None:
             from pipeline.demod.residual import doppler_rows
 
-            self.sinks.doppler(doppler_rows(track, self.clock, self.downlink_frequency_hz,
-                                            tuning_offset_hz=self.tuning_offset_hz))
+            rows = doppler_rows(track, self.clock, self.downlink_frequency_hz, tuning_offset_hz=self.tuning_offset_hz)
+            if self.doppler_check is not None:
+                rows = self.doppler_check.process(rows)
+            self.sinks.doppler(rows)
         for tp in track:
             self.track.append(tp)
             locked = bool(tp.carrier_locked and tp.symbol_locked)
@@ -257,4 +265,6 @@ class BackEnd:
         obj["esn0_db"] = self.track.esn0_at(pkt.position)
         if pkt.time_ns is not None:  # a time code on UTC's scale (None before 1972)
             obj["packet_time"] = self._format_utc(int(pkt.time_tai_ns))
+        if self.obt_to_utc is not None:
+            obj = self.obt_to_utc.process(obj)
         self.sinks.packet(obj, bytes(pkt.data))

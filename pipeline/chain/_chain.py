@@ -30,8 +30,11 @@ class DecodeChain:
         "iq" starts at the demodulator; "soft" and "bits" start at the branch synchronizer.
     sample_rate_hz : float, keyword-only
         Sample rate of an IQ recording (required for "iq").
-    timebase, sinks, downlink_frequency_hz, tuning_offset_hz : keyword-only
+    timebase, sinks : keyword-only
         Passed to the :class:`~pipeline.chain.BackEnd`.
+    **back_options
+        The other keyword arguments of :class:`~pipeline.chain.BackEnd` (``downlink_frequency_hz``,
+        ``tuning_offset_hz``, ``drop_duplicates``, ``obt_to_utc``, ``doppler_check``).
 
     Examples
     --------
@@ -45,12 +48,11 @@ class DecodeChain:
     """
 
     def __init__(self, profile: LinkProfile, *, input_kind: str = "iq", sample_rate_hz: float | None = None,
-                 timebase=None, sinks=None, downlink_frequency_hz: float | None = None, tuning_offset_hz: float = 0.0):
+                 timebase=None, sinks=None, **back_options):
         self.profile = profile
         self.front = FrontEnd(profile, input_kind=input_kind, sample_rate_hz=sample_rate_hz)
         self.back = BackEnd(profile, timebase=timebase, sample_rate_hz=sample_rate_hz if input_kind == "iq" else None,
-                            sinks=sinks, downlink_frequency_hz=downlink_frequency_hz,
-                            tuning_offset_hz=tuning_offset_hz)
+                            sinks=sinks, **back_options)
 
     def process_chunk(self, chunk) -> None:
         """Feed one recording chunk (``samples``, ``start``, ``nonfinite``)."""

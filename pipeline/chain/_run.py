@@ -21,10 +21,13 @@ from pipeline.chain._output import OutputFolder
 from pipeline.chain._progress import Progress
 from pipeline.chain._segments import DEFAULT_SEGMENT_SAMPLES, SegmentedDecode
 from pipeline.chain._sinks import FolderSinks, MemorySinks
-from pipeline.errors import UsageError
+from pipeline.errors import ProfileError, UsageError
 from pipeline.profile import LinkProfile
 
-__all__ = ["DecodeSummary", "decode_in_memory", "decode_to_folder", "kernel_cache_cold"]
+__all__ = ["DecodeSummary", "TimeProducts", "decode_in_memory", "decode_to_folder", "kernel_cache_cold"]
+
+#: Samples each receiver track point (a doppler.csv row) averages: the demodulators' track block.
+TRACK_BLOCK_SAMPLES = 32768
 
 #: Samples at the start of an IQ recording whose spectrum the report shows.
 SPECTRUM_SAMPLES = 1 << 18
@@ -119,6 +122,52 @@ class _Input:
     position_rate_hz: float
 
 
+@dataclass
+class TimeProducts:
+    """What ``--clock``, ``--tle`` and ``--oem`` add to a decode (all optional).
+
+    Attributes
+    ----------
+    clock : path or None
+        A ``clock.json`` from ``downlink clock``: packets whose time code is onboard time get ``utc_from_obt``.
+    tle, oem : path or None
+        An orbit (two-line element set, or a CCSDS OEM ephemeris): ``doppler.csv`` gets ``predicted_hz`` and
+        ``residual_hz`` and the report the mean residual and its RMS.  Needs ``[station]`` with a position.
+    ut1_minus_utc_s : float
+        UT1 - UTC for the Earth's rotation in the prediction.
+    """
+
+    clock: str | None = None
+    tle: str | None = None
+    oem: str | None = None
+    ut1_minus_utc_s: float = 0.0
+
+    def obt_to_utc(self, profile: LinkProfile):
+        if self.clock is None:
+            return None
+        from pipeline.packets import ObtToUtc, read_clock_json
+
+        return ObtToUtc(model=read_clock_json(self.clock), profile=profile)
+
+    def doppler_check(self, profile: LinkProfile, downlink_hz: float | None, tuning_hz: float):
+        if self.tle is None and self.oem is None:
+            return None
+        if self.tle is not None and self.oem is not None:
+            raise UsageError("--tle and --oem exclude each other: give one orbit")
+        if not downlink_hz:
+            raise UsageError("--tle/--oem need the downlink frequency: [link] downlink_frequency_hz in the profile "
+                             "or core:frequency in the recording")
+        from pipeline.orbit import DopplerComparison, GroundStation, OrbitPredictor, read_oem, read_tle
+
+        orbit = read_tle(self.tle) if self.tle is not None else read_oem(self.oem)
+        try:
+            station = GroundStation.from_profile(profile)
+        except ValueError as exc:
+            raise ProfileError(str(exc)) from None
+        predictor = OrbitPredictor(orbit, station, ut1_minus_utc_s=self.ut1_minus_utc_s)
+        return DopplerComparison(predictor=predictor, downlink_frequency_hz=downlink_hz, tuning_offset_hz=tuning_hz)
+
+
 def _no_start(path: str) -> UsageError:
     return UsageError(f"{path}: the input carries no start time: give --start (ISO-8601 UTC of its first sample) "
                       f"or --no-time (then every ERT is null)")
@@ -184,24 +233,28 @@ def _spectrum(rec) -> tuple[np.ndarray, np.ndarray] | None:
 
 
 def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bool,
-         segment_samples: int = DEFAULT_SEGMENT_SAMPLES, scheduler: str | None = None, verbose: bool = False):
+         segment_samples: int = DEFAULT_SEGMENT_SAMPLES, scheduler: str | None = None, verbose: bool = False,
+         products: TimeProducts | None = None, drop_duplicates: bool = False):
     """Decode ``inp`` into ``sinks``; returns the summary, the report dict and the plot data."""
     from pipeline.report import RunFacts, build_report
 
     if scheduler is not None and inp.kind != "iq":
         raise UsageError("--scheduler applies to IQ recordings (their segments run as tasks); symbol files are "
                          "decoded in one process")
+    products = products or TimeProducts()
+    downlink_hz, tuning = _downlink(inp, profile)
+    obt = products.obt_to_utc(profile)
+    check = products.doppler_check(profile, downlink_hz, tuning) if inp.kind == "iq" else None
+    if check is not None and inp.timebase is None:
+        raise UsageError("--tle/--oem compare the Doppler at known times: they need the recording's start time")
     t0 = time.perf_counter()
     bar = Progress(inp.total, enabled=progress)
-    downlink_hz = tuning = None
     try:
         if inp.kind == "iq":
             rec = inp.source
-            downlink_hz = profile.link.downlink_frequency_hz or rec.frequency_hz
-            tuning = float(rec.frequency_hz) - float(downlink_hz) if (downlink_hz and rec.frequency_hz) else 0.0
             back = BackEnd(profile, timebase=inp.timebase, sample_rate_hz=rec.sample_rate_hz, sinks=sinks,
-                           downlink_frequency_hz=downlink_hz,
-                           tuning_offset_hz=tuning)
+                           downlink_frequency_hz=downlink_hz, tuning_offset_hz=tuning,
+                           drop_duplicates=drop_duplicates, obt_to_utc=obt, doppler_check=check)
             # IQ recordings are decoded in fixed overlapping segments: the output depends on the segment
             # length only, never on the number of workers.
             from pipeline.report import waterfall_row_samples
@@ -212,7 +265,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
                                                   verbose=verbose).run(
                 rec, back, on_segment=lambda res: bar.update(res.owned_stop))
         else:
-            chain = DecodeChain(profile, input_kind=inp.kind, timebase=inp.timebase, sinks=sinks)
+            chain = DecodeChain(profile, input_kind=inp.kind, timebase=inp.timebase, sinks=sinks,
+                                downlink_frequency_hz=downlink_hz, drop_duplicates=drop_duplicates, obt_to_utc=obt)
             for chunk in inp.source.chunks(profile.receiver.chunk_samples):
                 chain.process_symbols(chunk.soft, chunk.start + np.arange(len(chunk.soft), dtype=np.float64))
                 bar.update(chunk.start + len(chunk.soft))
@@ -235,6 +289,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         packet_stats=back.extractor.stats.as_dict(), gaps=back.gaps, ert=back.ert if inp.timebase else None,
         downlink_frequency_hz=downlink_hz, spectrum=_spectrum(inp.source) if inp.kind == "iq" else None,
         constellation=front.constellation, waterfall=front.waterfall, frame_log=back.frame_log.arrays(),
+        parser_stats=back.parser.stats.as_dict(),
+        doppler_check=None if check is None else check.summary().as_dict(),
     )
     report, plots = build_report(facts)
     summary = DecodeSummary(frames=back.frame_count, frames_ok=ok, frames_idle=idle,
@@ -244,10 +300,42 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
     return summary, plots
 
 
+def _downlink(inp: _Input, profile: LinkProfile) -> tuple[float | None, float]:
+    """Nominal downlink frequency (profile, else the recording's centre) and the recording's tuning offset."""
+    if inp.kind != "iq":
+        return profile.link.downlink_frequency_hz, 0.0
+    rec = inp.source
+    downlink_hz = profile.link.downlink_frequency_hz or rec.frequency_hz
+    tuning = float(rec.frequency_hz) - float(downlink_hz) if (downlink_hz and rec.frequency_hz) else 0.0
+    return downlink_hz, tuning
+
+
+def _write_tdm(folder: Path, inp: _Input, profile: LinkProfile) -> None:
+    """``doppler.tdm``: the carrier track of ``doppler.csv`` as a CCSDS Tracking Data Message (503.0-B)."""
+    import csv
+
+    from pipeline.orbit import write_tdm
+
+    downlink_hz, tuning = _downlink(inp, profile)
+    src = folder / "doppler.csv"
+    if inp.kind != "iq" or inp.timebase is None or not downlink_hz or not src.exists():
+        return
+    with open(src, encoding="utf-8", newline="") as f:
+        rows = [{"utc": r["utc"], "locked": r["locked"] == "True",
+                 "carrier_offset_hz": float(r["carrier_offset_hz"]) if r["carrier_offset_hz"] else None}
+                for r in csv.DictReader(f)]
+    if not any(r["locked"] for r in rows):
+        return
+    write_tdm(folder / "doppler.tdm", rows, spacecraft=profile.name.upper(),
+              station=(profile.station.name or "STATION"), downlink_frequency_hz=downlink_hz,
+              integration_interval_s=TRACK_BLOCK_SAMPLES / inp.source.sample_rate_hz, tuning_offset_hz=tuning)
+
+
 def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrite: bool = False,
                      input_kind: str = "iq", datatype: str | None = None, sample_rate_hz: float | None = None,
                      start: str | None = None, no_time: bool = False, progress: bool = False, workers: int = 1,
                      cadus: bool = False, scheduler: str | None = None, verbose: bool = False,
+                     products: TimeProducts | None = None, drop_duplicates: bool = False,
                      segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
     """Decode ``recording`` with ``profile`` into the folder ``out``.
 
@@ -260,9 +348,17 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
 
     inp = _open_input(recording, profile, input_kind=input_kind, datatype=datatype, sample_rate_hz=sample_rate_hz,
                       start=start, no_time=no_time)
+    columns = None
+    if products is not None and (products.tle or products.oem):
+        from pipeline.demod.residual import DOPPLER_COLUMNS
+        from pipeline.orbit import PREDICTION_COLUMNS
+
+        columns = (*DOPPLER_COLUMNS, *PREDICTION_COLUMNS)
     with OutputFolder(out, overwrite=overwrite) as tmp:
-        summary, plots = _run(inp, profile, FolderSinks(tmp, cadus=cadus), workers=workers, progress=progress,
-                              segment_samples=segment_samples, scheduler=scheduler, verbose=verbose)
+        summary, plots = _run(inp, profile, FolderSinks(tmp, cadus=cadus, doppler_columns=columns), workers=workers,
+                              progress=progress, segment_samples=segment_samples, scheduler=scheduler,
+                              verbose=verbose, products=products, drop_duplicates=drop_duplicates)
+        _write_tdm(tmp, inp, profile)
         write_report(tmp, summary.report, plots)
     summary.out = str(out)
     return summary
@@ -271,13 +367,14 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
 def decode_in_memory(recording: str, profile: LinkProfile, *, input_kind: str = "iq", datatype: str | None = None,
                      sample_rate_hz: float | None = None, start: str | None = None, no_time: bool = False,
                      progress: bool = False, workers: int = 1, scheduler: str | None = None,
+                     products: TimeProducts | None = None, drop_duplicates: bool = False,
                      segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
     """The same decode with the records kept in memory (``packets_list``, ``frames_list``); no files."""
     inp = _open_input(recording, profile, input_kind=input_kind, datatype=datatype, sample_rate_hz=sample_rate_hz,
                       start=start, no_time=no_time)
     sinks = MemorySinks()
     summary, _ = _run(inp, profile, sinks, workers=workers, progress=progress, segment_samples=segment_samples,
-                      scheduler=scheduler)
+                      scheduler=scheduler, products=products, drop_duplicates=drop_duplicates)
     summary.packets_list = sinks.packets
     summary.frames_list = sinks.frames
     return summary

@@ -37,9 +37,11 @@ class FolderSinks:
         An existing folder (the output folder's temporary name during a run).
     cadus : bool, keyword-only
         Also write ``cadus.bin``.
+    doppler_columns : sequence of str or None, keyword-only
+        Columns of ``doppler.csv`` (default: the demodulator's ``DOPPLER_COLUMNS``).
     """
 
-    def __init__(self, folder: Path, *, cadus: bool = False):
+    def __init__(self, folder: Path, *, cadus: bool = False, doppler_columns=None):
         self.folder = Path(folder)
         self._apid_files: dict[Any, Any] = {}
         self._vc_files: dict[int, Any] = {}
@@ -47,6 +49,7 @@ class FolderSinks:
         self._cadus_bin = None
         self._doppler_file = None
         self._doppler_csv = None
+        self._columns = tuple(doppler_columns) if doppler_columns else None
         try:
             self._packets = open(self.folder / "packets.jsonl", "w", encoding="utf-8")
             self._frames = open(self.folder / "frames.jsonl", "w", encoding="utf-8")
@@ -107,11 +110,10 @@ class FolderSinks:
 
     def _doppler(self, rows: list[dict]) -> None:
         if self._doppler_csv is None:
-            columns = _doppler_columns()
+            self._columns = self._columns or _doppler_columns()
             self._doppler_file = open(self.folder / "doppler.csv", "w", encoding="utf-8", newline="")
-            self._doppler_csv = csv.DictWriter(self._doppler_file, fieldnames=list(columns))
+            self._doppler_csv = csv.DictWriter(self._doppler_file, fieldnames=list(self._columns))
             self._doppler_csv.writeheader()
-            self._columns = columns
         for row in rows:
             self._doppler_csv.writerow({k: ("" if row.get(k) is None else row.get(k)) for k in self._columns})
 

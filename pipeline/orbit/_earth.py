@@ -222,9 +222,9 @@ class GroundStation:
 
     Examples
     --------
-    >>> hr = GroundStation("HOLLOW RIDGE", 40.4319, -4.2486, 812.0)
+    >>> hr = GroundStation("HOLLOW RIDGE", 44.7261, 3.4117, 1012.0)
     >>> round(float(np.linalg.norm(hr.ecef_km)), 3)
-    6369.998
+    6368.604
     """
 
     name: str

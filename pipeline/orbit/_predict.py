@@ -101,7 +101,7 @@ class OrbitPredictor:
     >>> from pipeline.timescales import parse_utc
     >>> tle = parse_tle('''1 99999U 26001A   26073.39583333  .00000000  00000+0  00000+0 0  9997
     ... 2 99999  97.5000 120.0000 0010000  90.0000 270.0000 15.20000000    19''')
-    >>> p = OrbitPredictor(tle, GroundStation("HOLLOW RIDGE", 40.4319, -4.2486, 812.0))
+    >>> p = OrbitPredictor(tle, GroundStation("HOLLOW RIDGE", 44.7261, 3.4117, 1012.0))
     >>> pred = p.predict(parse_utc("2026-03-14T09:30:00Z"))
     >>> 0.002 < pred.light_time_s < 0.05
     True

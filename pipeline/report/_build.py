@@ -57,6 +57,10 @@ class RunFacts:
     constellation : array or None
     waterfall : Waterfall or None
         The recording's waterfall (rows of ``waterfall.effective_row_samples`` samples).
+    parser_stats : dict
+        The frame parser's counters (statuses, verified, header corrections).
+    doppler_check : dict or None
+        Measured against predicted Doppler (``decode --tle`` / ``--oem``): rows, mean residual, its RMS.
     frame_log : dict of arrays
         One entry per frame (see :class:`pipeline.chain.FrameLog`): ``position``, ``status`` (index into
         ``statuses``), ``rs_corrected``, ``asm_errors``, ``flywheel``, ``clcw_report_value``, ``clcw_flags``.
@@ -90,6 +94,8 @@ class RunFacts:
     constellation: Any = None
     waterfall: Any = None
     frame_log: dict = field(default_factory=dict)
+    parser_stats: dict = field(default_factory=dict)
+    doppler_check: dict | None = None
 
 
 def build_report(f: RunFacts) -> tuple[dict, PlotData]:
@@ -161,7 +167,7 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         },
         "demod": demod,
         "sync": sync_stats,
-        "frames": {"status_counts": dict(f.status_counts)},
+        "frames": {"status_counts": dict(f.status_counts), **({"checks": f.parser_stats} if f.parser_stats else {})},
         "virtual_channels": f.accounting.get("virtual_channels", []),
         "master_channel": {k: v for k, v in f.accounting.items() if k != "virtual_channels"},
         "packets": {k: v for k, v in f.packet_stats.items() if k != "apids"},
@@ -169,6 +175,8 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         "gaps": f.gaps,
         "events": events,
     }
+    if f.doppler_check is not None:
+        report["doppler_check"] = f.doppler_check
     t = tpos / f.position_rate_hz
     plots = PlotData(
         spectrum_freq_hz=None if f.spectrum is None else f.spectrum[0],
