@@ -105,7 +105,7 @@ def test_truth_matches_an_independent_decode(tmp_path, line, mod):
         k = fr["channel_bit"] // (2 if mod == "qpsk" else 1)
         assert fr["position"] == pytest.approx(0.37 * T + k * T, abs=1e-6)
         # ERT names the leading edge of the ASM's first symbol: its centre minus half a symbol period
-        assert abs(parse_utc_ns(fr["ert"]) - (start + (fr["position"] - 0.5 * T) / fs * 1e9)) <= 1
+        assert abs(parse_utc_ns(fr["ert"]) - (start + round((fr["position"] - 0.5 * T) / fs * 1e9))) <= 1
         if nxt is not None:
             assert nxt["channel_bit"] - fr["channel_bit"] == 8 * (4 + prof.codeblock_bytes)
         if not fr["idle"]:
