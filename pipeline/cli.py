@@ -96,6 +96,13 @@ def build_parser() -> argparse.ArgumentParser:
     orbit.add_argument("--oem", metavar="FILE", help="a CCSDS Orbit Ephemeris Message (text): as --tle")
     p.add_argument("--ut1-utc", dest="ut1_minus_utc_s", type=float, default=0.0, metavar="S",
                    help="UT1 - UTC in seconds for the Earth's rotation in the prediction (default 0)")
+    p.add_argument("--no-checksum", dest="verify_checksum", action="store_false",
+                   help="do not verify the SigMF core:sha512 of the recording (it is checked while decoding)")
+    p.add_argument("--follow", action="store_true",
+                   help="write packets.jsonl and frames.jsonl into the output folder as they are decoded (a file "
+                        "INCOMPLETE is there until the run ends); for live input from '-' or a pipe")
+    p.add_argument("--packets-to-stdout", action="store_true",
+                   help="also write each packet as a JSON line on standard output as it is decoded")
     p.add_argument("--cadus", action="store_true",
                    help="also write cadus.bin: every CADU as found (marker + codeblock, hard bits, still randomized)")
     p.add_argument("--workers", type=int, default=None, metavar="N",
@@ -134,7 +141,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--clock-offset", dest="clock_offset_ppm", type=float, help="sample-clock offset, ppm")
     p.add_argument("--timing-offset", dest="timing_offset", type=float, help="timing offset, fraction of a symbol")
     p.add_argument("--phase-noise", dest="phase_noise_rad", type=float, help="phase noise, rad rms")
-    p.add_argument("--datatype", choices=["cf32_le", "ci16_le"], help="sample format of the recording")
+    p.add_argument("--format", dest="format", choices=["cf32", "ci16", "ci8", "cu8"],
+                   help="sample format of the recording (default: the profile's [simulate] format)")
+    p.add_argument("--datatype", dest="old_datatype", choices=["cf32_le", "ci16_le"],
+                   help=argparse.SUPPRESS)  # the old name of --format, kept for one release
     p.add_argument("--fade", action="append", default=[], metavar="START:DURATION:DEPTH_DB",
                    help="a fade (seconds, seconds, dB); repeat for several; a depth of 100 is a dropout")
     p.add_argument("--no-noise", dest="noise", action="store_false", help="no AWGN (for debugging)")
@@ -243,9 +253,15 @@ def _compile_notice(args) -> None:
 def _cmd_decode(args) -> int:
     workers = _workers(args)
     profile = _load_profile(args.profile)
-    from pipeline.chain import TimeProducts, decode_to_folder
+    from pipeline.chain import TimeProducts, decode_to_folder, is_stream
 
     _compile_notice(args)
+    if is_stream(args.recording):
+        # a live run ends normally on Ctrl-C or a service manager's SIGTERM: the report is written
+        try:
+            signal.signal(signal.SIGTERM, signal.default_int_handler)
+        except ValueError:  # not the main thread
+            pass
 
     summary = decode_to_folder(
         args.recording,
@@ -260,6 +276,9 @@ def _cmd_decode(args) -> int:
         cadus=args.cadus,
         scheduler=args.scheduler,
         drop_duplicates=args.drop_duplicates,
+        verify_checksum=args.verify_checksum,
+        follow=args.follow,
+        packets_to=sys.stdout if args.packets_to_stdout else None,
         products=TimeProducts(clock=args.clock, tle=args.tle, oem=args.oem, ut1_minus_utc_s=args.ut1_minus_utc_s),
         verbose=args.verbose > 0,
         progress=not args.quiet,
@@ -267,7 +286,8 @@ def _cmd_decode(args) -> int:
     )
     if not args.quiet:
         print(summary.line(), file=sys.stderr)
-    print(str(Path(args.out) / "report.html"))
+    # standard output carries the packets with --packets-to-stdout; the report's path then goes to stderr
+    print(str(Path(args.out) / "report.html"), file=sys.stderr if args.packets_to_stdout else sys.stdout)
     return ExitCode.OK
 
 
@@ -295,6 +315,16 @@ def _parse_fades(items: list[str]) -> tuple[tuple[float, float, float], ...]:
     return tuple(fades)
 
 
+def _simulate_format(args) -> str | None:
+    """``--format`` (or its old name ``--datatype``, with a warning)."""
+    if args.old_datatype is None:
+        return args.format
+    if args.format is not None:
+        raise UsageError("--datatype is the old name of --format: give one of them")
+    log.warning("--datatype is deprecated and will be removed: use --format %s", args.old_datatype[:4])
+    return args.old_datatype[:4]
+
+
 def _cmd_simulate(args) -> int:
     profile = _load_profile(args.profile)
     fades = _parse_fades(args.fade)
@@ -306,7 +336,7 @@ def _cmd_simulate(args) -> int:
             profile, tmp, seconds=args.seconds, ebn0_db=args.ebn0_db, seed=args.seed,
             carrier_offset_hz=args.carrier_offset_hz, doppler_rate_hz_per_s=args.doppler_rate_hz_per_s,
             clock_offset_ppm=args.clock_offset_ppm, timing_offset=args.timing_offset,
-            phase_noise_rad=args.phase_noise_rad, datatype=args.datatype, fades=fades, noise=args.noise,
+            phase_noise_rad=args.phase_noise_rad, format=_simulate_format(args), fades=fades, noise=args.noise,
             write_bits=args.write_bits, write_soft=args.write_soft,
         )
     if not args.quiet:
@@ -321,7 +351,7 @@ def _cmd_inspect(args) -> int:
     from pipeline.recording import open_recording
 
     profile = _load_profile(args.profile) if args.profile else None
-    rec = open_recording(args.recording, datatype=args.datatype, sample_rate_hz=args.sample_rate_hz,
+    rec = open_recording(args.recording, format=args.datatype, sample_rate_hz=args.sample_rate_hz,
                          start=args.start)
     result = inspect_recording(rec, profile=profile, max_seconds=args.seconds)
     nominal = (profile.link.downlink_frequency_hz if profile else None) or rec.frequency_hz

@@ -248,3 +248,30 @@ def test_segment_worker_error_is_raised(tmp_path, long_recording, demo_profile, 
         f.truncate(8 * 1_500_000)
     with pytest.raises(RecordingError, match="cut.sigmf-data"):
         SegmentedDecode(demo_profile, workers=workers, segment_samples=SEG).run(rec, BackEnd(demo_profile))
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_a_recording_that_no_longer_matches_its_sha512_fails_the_segmented_decode(tmp_path, long_recording,
+                                                                                  demo_profile, workers):
+    # issue 13: core:sha512 (SigMF) is checked while the segments decode; a mismatch fails the run before
+    # any output is marked complete; --no-checksum skips the check
+    from pipeline.chain import decode_to_folder
+    from pipeline.errors import RecordingError
+
+    for suffix in (".sigmf-meta", ".sigmf-data"):
+        shutil.copy(long_recording.meta_path.with_suffix(suffix), tmp_path / f"r{suffix}")
+    meta = json.loads((tmp_path / "r.sigmf-meta").read_text())
+    assert "core:sha512" in meta["global"]  # the simulator's writer records it
+    with open(tmp_path / "r.sigmf-data", "r+b") as f:  # one sample changed, deep inside a later segment
+        f.seek(8 * 2_500_000)
+        f.write(b"\x00\x00\x80\x3f")
+    with pytest.raises(RecordingError, match="sha512"):
+        decode_to_folder(str(tmp_path / "r.sigmf-meta"), demo_profile, str(tmp_path / "out"), workers=workers,
+                         segment_samples=SEG)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["r.sigmf-data", "r.sigmf-meta"]
+    s = decode_to_folder(str(tmp_path / "r.sigmf-meta"), demo_profile, str(tmp_path / "out"), workers=workers,
+                         segment_samples=SEG, verify_checksum=False)
+    assert s.packets > 0 and s.report["recording"]["checksum"] == "not checked (--no-checksum)"
+    good = decode_to_folder(str(long_recording.meta_path), demo_profile, str(tmp_path / "good"),
+                            segment_samples=SEG, workers=workers)
+    assert good.report["recording"]["checksum"] == "verified"

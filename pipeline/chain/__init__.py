@@ -17,7 +17,14 @@ from pipeline.chain._backend import BackEnd, FrameLog, TrackLog
 from pipeline.chain._chain import DecodeChain
 from pipeline.chain._frontend import FrontCounts, FrontEnd, FrontOutput, FrontSummary
 from pipeline.chain._output import OutputFolder
-from pipeline.chain._run import DecodeSummary, TimeProducts, decode_in_memory, decode_to_folder, kernel_cache_cold
+from pipeline.chain._run import (
+    DecodeSummary,
+    TimeProducts,
+    decode_in_memory,
+    decode_to_folder,
+    is_stream,
+    kernel_cache_cold,
+)
 from pipeline.chain._segments import (
     DEFAULT_SEGMENT_SAMPLES,
     SegmentedDecode,
@@ -51,6 +58,7 @@ __all__ = [
     "decode_in_memory",
     "decode_segment",
     "decode_to_folder",
+    "is_stream",
     "kernel_cache_cold",
     "segment_plan",
 ]

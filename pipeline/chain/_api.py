@@ -14,7 +14,8 @@ def decode(recording: str | os.PathLike, profile, out: str | os.PathLike | None 
            sample_rate_hz: float | None = None, start: str | None = None, no_time: bool = False,
            cadus: bool = False, scheduler: str | None = None, drop_duplicates: bool = False,
            clock: str | os.PathLike | None = None, tle: str | os.PathLike | None = None,
-           oem: str | os.PathLike | None = None, progress: bool = False) -> DecodeSummary:
+           oem: str | os.PathLike | None = None, verify_checksum: bool = True,
+           progress: bool = False) -> DecodeSummary:
     """Decode a recording into packets, frames and a pass report.
 
     Parameters
@@ -29,7 +30,7 @@ def decode(recording: str | os.PathLike, profile, out: str | os.PathLike | None 
         memory and returns the records in ``packets_list`` and ``frames_list`` and the report in
         ``report``: meant for recordings whose packets fit in memory.
     overwrite, workers, input_kind, format, sample_rate_hz, start, no_time, cadus, scheduler, drop_duplicates, \
-clock, tle, oem, progress :
+clock, tle, oem, verify_checksum, progress :
         The ``decode`` command's options: ``--overwrite``, ``--workers``, ``--input`` (iq | soft |
         bits), ``--format`` (cf32 | ci16 | ci8 | cu8), ``--sample-rate``, ``--start`` (ISO-8601 UTC of
         the first sample; required when the input carries no time), ``--no-time`` (decode without a
@@ -37,7 +38,8 @@ clock, tle, oem, progress :
         ``--scheduler`` (the segments of an IQ recording as tasks on a Dask cluster: ``"local"`` or a
         scheduler address), ``--drop-duplicates`` (suppress byte-identical copies of packets already
         delivered), ``--clock`` (a ``clock.json``: ``utc_from_obt`` on packets carrying onboard time),
-        ``--tle`` / ``--oem`` (an orbit: predicted Doppler and residuals in ``doppler.csv``) and a progress
+        ``--tle`` / ``--oem`` (an orbit: predicted Doppler and residuals in ``doppler.csv``),
+        ``--no-checksum`` (``verify_checksum=False``: skip the SigMF ``core:sha512`` check) and a progress
         bar on stderr.
 
     Returns
@@ -63,7 +65,7 @@ clock, tle, oem, progress :
                             oem=None if oem is None else str(oem))
     kw = dict(input_kind=input_kind, datatype=format, sample_rate_hz=sample_rate_hz, start=start, no_time=no_time,
               progress=progress, workers=workers, scheduler=scheduler, products=products,
-              drop_duplicates=drop_duplicates)
+              drop_duplicates=drop_duplicates, verify_checksum=verify_checksum)
     if out is None:
         return decode_in_memory(str(recording), prof, **kw)
     return decode_to_folder(str(recording), prof, str(out), overwrite=overwrite, cadus=cadus, **kw)

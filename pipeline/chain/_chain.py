@@ -30,6 +30,8 @@ class DecodeChain:
         "iq" starts at the demodulator; "soft" and "bits" start at the branch synchronizer.
     sample_rate_hz : float, keyword-only
         Sample rate of an IQ recording (required for "iq").
+    waterfall_row_samples : int or None, keyword-only
+        Accumulate the recording's waterfall (see :class:`~pipeline.chain.FrontEnd`).
     timebase, sinks : keyword-only
         Passed to the :class:`~pipeline.chain.BackEnd`.
     **back_options
@@ -48,9 +50,10 @@ class DecodeChain:
     """
 
     def __init__(self, profile: LinkProfile, *, input_kind: str = "iq", sample_rate_hz: float | None = None,
-                 timebase=None, sinks=None, **back_options):
+                 waterfall_row_samples: int | None = None, timebase=None, sinks=None, **back_options):
         self.profile = profile
-        self.front = FrontEnd(profile, input_kind=input_kind, sample_rate_hz=sample_rate_hz)
+        self.front = FrontEnd(profile, input_kind=input_kind, sample_rate_hz=sample_rate_hz,
+                              waterfall_row_samples=waterfall_row_samples)
         self.back = BackEnd(profile, timebase=timebase, sample_rate_hz=sample_rate_hz if input_kind == "iq" else None,
                             sinks=sinks, **back_options)
 

@@ -19,7 +19,10 @@ from pathlib import Path
 
 from pipeline.errors import OutputError
 
-__all__ = ["OutputFolder"]
+__all__ = ["INCOMPLETE", "OutputFolder"]
+
+#: The marker file of a live output folder that is still being written.
+INCOMPLETE = "INCOMPLETE"
 
 _PARTIAL = re.compile(r"^\.(?P<name>.+)\.partial-(?P<host>[A-Za-z0-9_.-]+)-(?P<pid>\d+)$")
 
@@ -67,6 +70,10 @@ class OutputFolder:
     overwrite : bool, keyword-only
         Replace ``path`` if it exists.  Without it an existing ``path`` raises
         :class:`~pipeline.errors.OutputError` before anything is written, and is left untouched.
+    live : bool, keyword-only
+        Write straight into ``path`` (a live decode, ``--follow``: readers see the records as they come)
+        with a file :data:`INCOMPLETE` in it while the run lasts; a clean exit removes the marker, a
+        failure or a killed process leaves it.
 
     Examples
     --------
@@ -78,9 +85,10 @@ class OutputFolder:
     ['out']
     """
 
-    def __init__(self, path: str | os.PathLike, *, overwrite: bool = False):
+    def __init__(self, path: str | os.PathLike, *, overwrite: bool = False, live: bool = False):
         self.path = Path(path)
         self.overwrite = bool(overwrite)
+        self.live = bool(live)
         self._check_target()
         parent = self.path.parent
         if not parent.exists():
@@ -104,6 +112,12 @@ class OutputFolder:
         self._acquire()
         try:
             self._check_target()  # another run may have finished this folder while we waited for nothing
+            if self.live:
+                if self.path.exists():
+                    shutil.rmtree(self.path)  # only with overwrite (checked above)
+                self.path.mkdir()
+                (self.path / INCOMPLETE).write_text(f"being written by process {os.getpid()} on {self.host}\n")
+                return self.path
             if self.tmp.exists():
                 shutil.rmtree(self.tmp)
             self.tmp.mkdir()
@@ -117,6 +131,10 @@ class OutputFolder:
 
     def __exit__(self, exc_type, exc, tb) -> bool:
         try:
+            if self.live:
+                if exc_type is None:
+                    (self.path / INCOMPLETE).unlink(missing_ok=True)
+                return False  # a failed live run keeps what it wrote, marked INCOMPLETE
             if exc_type is not None:
                 shutil.rmtree(self.tmp, ignore_errors=True)
                 return False

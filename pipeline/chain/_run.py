@@ -24,7 +24,7 @@ from pipeline.chain._sinks import FolderSinks, MemorySinks
 from pipeline.errors import ProfileError, UsageError
 from pipeline.profile import LinkProfile
 
-__all__ = ["DecodeSummary", "TimeProducts", "decode_in_memory", "decode_to_folder", "kernel_cache_cold"]
+__all__ = ["DecodeSummary", "TimeProducts", "decode_in_memory", "decode_to_folder", "is_stream", "kernel_cache_cold"]
 
 #: Samples each receiver track point (a doppler.csv row) averages: the demodulators' track block.
 TRACK_BLOCK_SAMPLES = 32768
@@ -111,15 +111,33 @@ class DecodeSummary:
 
 @dataclass
 class _Input:
-    """An opened input: a recording or a symbol file, with its time base and report facts."""
+    """An opened input: a recording, a symbol file or a live stream, with its time base and report facts.
+
+    ``total`` and ``duration_s`` are None for a live stream until it has ended.
+    """
 
     kind: str
     source: Any
-    total: int
+    total: int | None
     timebase: Any
     info: dict
-    duration_s: float
+    duration_s: float | None
     position_rate_hz: float
+    live: bool = False
+
+
+def is_stream(path: str) -> bool:
+    """Whether ``path`` names a live stream: ``-`` (standard input), a named pipe or a character device."""
+    import os
+    import stat
+
+    if path == "-":
+        return True
+    try:
+        mode = os.stat(path).st_mode
+    except OSError:
+        return False
+    return stat.S_ISFIFO(mode) or stat.S_ISCHR(mode)
 
 
 @dataclass
@@ -174,7 +192,7 @@ def _no_start(path: str) -> UsageError:
 
 
 def _open_input(recording: str, profile: LinkProfile, *, input_kind: str, datatype: str | None,
-                sample_rate_hz: float | None, start: str | None, no_time: bool) -> _Input:
+                sample_rate_hz: float | None, start: str | None, no_time: bool, verify_checksum: bool = True) -> _Input:
     """Open the input and its time base; refuse to invent a start time (no silent epoch)."""
     from pipeline.chain._time import ERT_DEFINITION
     from pipeline.timescales import format_utc
@@ -183,60 +201,78 @@ def _open_input(recording: str, profile: LinkProfile, *, input_kind: str, dataty
         raise ValueError(f"Argument 'input_kind' must be iq | soft | bits, not {input_kind!r}.")
     if no_time and start is not None:
         raise UsageError("--start and --no-time exclude each other")
+    live = is_stream(recording)
     if input_kind == "iq":
-        from pipeline.recording import open_recording
+        from pipeline.recording import open_recording, open_stream
 
-        rec = open_recording(recording, datatype=datatype, sample_rate_hz=sample_rate_hz, start=start)
-        if not rec.time_known and not no_time:
-            raise _no_start(recording)
-        timed = rec.time_known and not no_time
-        info = {
-            "path": Path(rec.path).name, "datatype": rec.datatype, "sample_rate_hz": rec.sample_rate_hz,
-            "samples": rec.num_samples, "duration_s": rec.duration_s,
-            "start": format_utc(rec.tai_ns(0)) if timed else None, "time_known": timed,
-            "time_source": rec.time_source if timed else None,
-            "receive_delay_ns": profile.station.receive_delay_ns,
-            "ert_definition": ERT_DEFINITION if timed else None,
-            "frequency_hz": rec.frequency_hz, "captures": len(rec.captures),
-        }
-        return _Input("iq", rec, rec.num_samples, rec if timed else None, info, rec.duration_s, rec.sample_rate_hz)
-    from pipeline.recording import open_symbols
+        if live:
+            rec = open_stream(recording, format=datatype, sample_rate_hz=sample_rate_hz, start=start)
+        else:
+            rec = open_recording(recording, format=datatype, sample_rate_hz=sample_rate_hz, start=start,
+                                 verify_checksum=verify_checksum)
+        source, rate, total = rec, rec.sample_rate_hz, rec.num_samples
+        info = {"path": Path(rec.path).name, "datatype": rec.datatype, "sample_rate_hz": rec.sample_rate_hz,
+                "samples": rec.num_samples, "duration_s": rec.duration_s, "frequency_hz": rec.frequency_hz,
+                "captures": len(rec.captures)}
+    else:
+        from pipeline.recording import open_symbol_stream, open_symbols
 
-    if sample_rate_hz is not None or datatype is not None:
-        raise UsageError("--format and --sample-rate apply to --input iq only; channel symbols are timed by "
-                         "the profile's symbol rate")
-    if start is None and not no_time:
+        if sample_rate_hz is not None or datatype is not None:
+            raise UsageError("--format and --sample-rate apply to --input iq only; channel symbols are timed by "
+                             "the profile's symbol rate")
+        rate = profile.link.channel_bit_rate
+        opener = open_symbol_stream if live else open_symbols
+        source = opener(recording, input_kind, start=None if no_time else start, symbol_rate_hz=rate)
+        total = source.num_symbols
+        info = {"path": Path(recording).name, "input": input_kind, "channel_symbols": total,
+                "duration_s": None if total is None else total / rate}
+    if not source.time_known and not no_time:
         raise _no_start(recording)
-    rate = profile.link.channel_bit_rate
-    syms = open_symbols(recording, input_kind, start=start, symbol_rate_hz=rate)
-    timed = syms.time_known
-    duration = syms.num_symbols / rate
-    info = {"path": Path(recording).name, "input": input_kind, "channel_symbols": syms.num_symbols,
-            "duration_s": duration, "start": format_utc(syms.tai_ns(0)) if timed else None,
-            "time_known": timed, "time_source": syms.time_source,
-            "receive_delay_ns": profile.station.receive_delay_ns,
-            "ert_definition": ERT_DEFINITION if timed else None}
-    return _Input(input_kind, syms, syms.num_symbols, syms if timed else None, info, duration, rate)
+    timed = source.time_known and not no_time
+    info.update({"live": live, "start": format_utc(source.tai_ns(0)) if timed else None, "time_known": timed,
+                 "time_source": source.time_source if timed else None,
+                 "receive_delay_ns": profile.station.receive_delay_ns,
+                 "ert_definition": ERT_DEFINITION if timed else None})
+    return _Input(input_kind, source, total, source if timed else None, info, info["duration_s"], rate, live)
 
 
-def _spectrum(rec) -> tuple[np.ndarray, np.ndarray] | None:
+class _SpectrumTap:
+    """The first :data:`SPECTRUM_SAMPLES` samples of a stream, kept for the report's spectrum."""
+
+    def __init__(self):
+        self.parts: list[np.ndarray] = []
+        self.n = 0
+
+    def feed(self, samples: np.ndarray) -> None:
+        if self.n < SPECTRUM_SAMPLES:
+            part = np.array(samples[: SPECTRUM_SAMPLES - self.n], dtype=np.complex64)
+            self.parts.append(part)
+            self.n += len(part)
+
+    def samples(self) -> np.ndarray:
+        return np.concatenate(self.parts) if self.parts else np.zeros(0, np.complex64)
+
+
+def _spectrum(x: np.ndarray, sample_rate_hz: float) -> tuple[np.ndarray, np.ndarray] | None:
     """Welch power spectrum (dB, frequency offset sorted) of the first samples of an IQ recording."""
     from scipy.signal import welch
 
-    m = min(SPECTRUM_SAMPLES, rec.num_samples)
-    if m < 256:
+    if len(x) < 256:
         return None
-    x = rec.read(0, m).samples
-    f, p = welch(x, fs=rec.sample_rate_hz, nperseg=min(4096, len(x)), return_onesided=False, detrend=False)
+    f, p = welch(x, fs=sample_rate_hz, nperseg=min(4096, len(x)), return_onesided=False, detrend=False)
     order = np.argsort(f)
     return f[order], 10 * np.log10(np.maximum(p[order], 1e-30))
 
 
 def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bool,
          segment_samples: int = DEFAULT_SEGMENT_SAMPLES, scheduler: str | None = None, verbose: bool = False,
-         products: TimeProducts | None = None, drop_duplicates: bool = False):
-    """Decode ``inp`` into ``sinks``; returns the summary, the report dict and the plot data."""
-    from pipeline.report import RunFacts, build_report
+         products: TimeProducts | None = None, drop_duplicates: bool = False, live_latency: bool = False):
+    """Decode ``inp`` into ``sinks``; returns the summary, the report dict and the plot data.
+
+    ``live_latency`` hands a live stream's samples on as each read returns them (``--follow``) instead of
+    in whole chunks; the output is the same either way.
+    """
+    from pipeline.report import RunFacts, build_report, waterfall_row_samples
 
     if scheduler is not None and inp.kind != "iq":
         raise UsageError("--scheduler applies to IQ recordings (their segments run as tasks); symbol files are "
@@ -247,35 +283,64 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
     check = products.doppler_check(profile, downlink_hz, tuning) if inp.kind == "iq" else None
     if check is not None and inp.timebase is None:
         raise UsageError("--tle/--oem compare the Doppler at known times: they need the recording's start time")
+    if inp.live and (workers > 1 or scheduler is not None):
+        raise UsageError("a live stream is read once, in order, by one process: leave out --workers and --scheduler")
     t0 = time.perf_counter()
-    bar = Progress(inp.total, enabled=progress)
+    bar = Progress(inp.total, enabled=progress, unit="sample" if inp.kind == "iq" else "symbol")
+    back_options = dict(downlink_frequency_hz=downlink_hz, tuning_offset_hz=tuning, drop_duplicates=drop_duplicates,
+                        obt_to_utc=obt, doppler_check=check)
+    spectrum_tap = _SpectrumTap()
     try:
-        if inp.kind == "iq":
+        if inp.kind == "iq" and not inp.live:
             rec = inp.source
             back = BackEnd(profile, timebase=inp.timebase, sample_rate_hz=rec.sample_rate_hz, sinks=sinks,
-                           downlink_frequency_hz=downlink_hz, tuning_offset_hz=tuning,
-                           drop_duplicates=drop_duplicates, obt_to_utc=obt, doppler_check=check)
+                           **back_options)
             # IQ recordings are decoded in fixed overlapping segments: the output depends on the segment
             # length only, never on the number of workers.
-            from pipeline.report import waterfall_row_samples
-
             row = waterfall_row_samples(rec.num_samples, rec.sample_rate_hz)
             front: FrontSummary = SegmentedDecode(profile, workers=workers, segment_samples=segment_samples,
                                                   waterfall_row_samples=row, scheduler=scheduler,
                                                   verbose=verbose).run(
                 rec, back, on_segment=lambda res: bar.update(res.owned_stop))
+            spectrum_tap.feed(rec.read(0, min(SPECTRUM_SAMPLES, rec.num_samples)).samples)
         else:
-            chain = DecodeChain(profile, input_kind=inp.kind, timebase=inp.timebase, sinks=sinks,
-                                downlink_frequency_hz=downlink_hz, drop_duplicates=drop_duplicates, obt_to_utc=obt)
-            for chunk in inp.source.chunks(profile.receiver.chunk_samples):
-                chain.process_symbols(chunk.soft, chunk.start + np.arange(len(chunk.soft), dtype=np.float64))
-                bar.update(chunk.start + len(chunk.soft))
+            iq = inp.kind == "iq"
+            chain = DecodeChain(profile, input_kind=inp.kind, sample_rate_hz=inp.source.sample_rate_hz if iq else None,
+                                timebase=inp.timebase, sinks=sinks,
+                                waterfall_row_samples=waterfall_row_samples(inp.total, inp.position_rate_hz)
+                                if iq else None, **back_options)
+            try:
+                n = profile.receiver.chunk_samples
+                chunks = inp.source.chunks(n, fill=not live_latency) if inp.live else inp.source.chunks(n)
+                for chunk in chunks:
+                    if iq:
+                        spectrum_tap.feed(chunk.samples)
+                        chain.process_chunk(chunk)
+                        bar.update(chunk.start + len(chunk.samples))
+                    else:
+                        chain.process_symbols(chunk.soft, chunk.start + np.arange(len(chunk.soft), dtype=np.float64))
+                        bar.update(chunk.start + len(chunk.soft))
+            except KeyboardInterrupt:
+                if not inp.live:
+                    raise
+                inp.info["ended_by"] = "interrupt"  # Ctrl-C (or SIGTERM) is the normal end of a live run
             front = chain.finish()
             back = chain.back
     finally:
         bar.close()
         sinks.close()
+    if inp.live:  # the length of a stream is known at its end
+        inp.total = inp.source.num_samples if inp.kind == "iq" else inp.source.num_symbols
+        if inp.total is None:
+            inp.total = inp.source.samples_read if inp.kind == "iq" else inp.source.symbols_read
+        inp.duration_s = inp.total / inp.position_rate_hz
+        inp.info.update({"samples" if inp.kind == "iq" else "channel_symbols": inp.total,
+                         "duration_s": inp.duration_s})
     elapsed = time.perf_counter() - t0
+    if inp.kind == "iq" and not inp.live:
+        rec = inp.source
+        inp.info["checksum"] = ("verified" if rec.checksum_verified else
+                                "none in the metadata" if not rec.sha512 else "not checked (--no-checksum)")
     status = back.status_counts
     ok, idle = status.get("ok", 0), status.get("idle", 0)
     facts = RunFacts(
@@ -287,7 +352,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         position_rate_hz=inp.position_rate_hz, frames=back.frame_count, packets=back.packet_count,
         status_counts=dict(status), accounting=back.accounting.as_dict(),
         packet_stats=back.extractor.stats.as_dict(), gaps=back.gaps, ert=back.ert if inp.timebase else None,
-        downlink_frequency_hz=downlink_hz, spectrum=_spectrum(inp.source) if inp.kind == "iq" else None,
+        downlink_frequency_hz=downlink_hz,
+        spectrum=_spectrum(spectrum_tap.samples(), inp.position_rate_hz) if inp.kind == "iq" else None,
         constellation=front.constellation, waterfall=front.waterfall, frame_log=back.frame_log.arrays(),
         parser_stats=back.parser.stats.as_dict(),
         doppler_check=None if check is None else check.summary().as_dict(),
@@ -336,28 +402,36 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
                      start: str | None = None, no_time: bool = False, progress: bool = False, workers: int = 1,
                      cadus: bool = False, scheduler: str | None = None, verbose: bool = False,
                      products: TimeProducts | None = None, drop_duplicates: bool = False,
+                     verify_checksum: bool = True, follow: bool = False, packets_to=None,
                      segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
     """Decode ``recording`` with ``profile`` into the folder ``out``.
 
     Writes ``packets.jsonl``, ``frames.jsonl``, ``apid_NNNN.bin``, ``frames.bin``, ``frames_vcN.bin``,
     ``doppler.csv`` (IQ input), ``report.json`` and ``report.html``; with ``cadus`` also ``cadus.bin``
-    (see :class:`~pipeline.chain.FolderSinks`).  The folder appears only when the run completes; an existing
-    folder needs ``overwrite``.  The input is opened (and refused) before anything is written.
+    (see :class:`~pipeline.chain.FolderSinks`).
+
+    ``recording`` may be ``-`` (standard input) or a pipe: a live stream, decoded in one process as it
+    comes; its end (or Ctrl-C) is the normal end of the run.  ``follow`` writes the records straight into
+    ``out`` as they are decoded, with a file ``INCOMPLETE`` there until the run has ended; ``packets_to``
+    (a text stream, e.g. standard output) also receives every packet's JSON line at once.  Otherwise the
+    folder appears only when the run completes.  An existing folder needs ``overwrite``.  The input is
+    opened (and refused) before anything is written.
     """
     from pipeline.report import write_report
 
     inp = _open_input(recording, profile, input_kind=input_kind, datatype=datatype, sample_rate_hz=sample_rate_hz,
-                      start=start, no_time=no_time)
+                      start=start, no_time=no_time, verify_checksum=verify_checksum)
     columns = None
     if products is not None and (products.tle or products.oem):
         from pipeline.demod.residual import DOPPLER_COLUMNS
         from pipeline.orbit import PREDICTION_COLUMNS
 
         columns = (*DOPPLER_COLUMNS, *PREDICTION_COLUMNS)
-    with OutputFolder(out, overwrite=overwrite) as tmp:
-        summary, plots = _run(inp, profile, FolderSinks(tmp, cadus=cadus, doppler_columns=columns), workers=workers,
-                              progress=progress, segment_samples=segment_samples, scheduler=scheduler,
-                              verbose=verbose, products=products, drop_duplicates=drop_duplicates)
+    with OutputFolder(out, overwrite=overwrite, live=follow) as tmp:
+        sinks = FolderSinks(tmp, cadus=cadus, doppler_columns=columns, flush=follow, packets_to=packets_to)
+        summary, plots = _run(inp, profile, sinks, workers=workers, progress=progress,
+                              segment_samples=segment_samples, scheduler=scheduler, verbose=verbose,
+                              products=products, drop_duplicates=drop_duplicates, live_latency=follow)
         _write_tdm(tmp, inp, profile)
         write_report(tmp, summary.report, plots)
     summary.out = str(out)
@@ -368,10 +442,10 @@ def decode_in_memory(recording: str, profile: LinkProfile, *, input_kind: str = 
                      sample_rate_hz: float | None = None, start: str | None = None, no_time: bool = False,
                      progress: bool = False, workers: int = 1, scheduler: str | None = None,
                      products: TimeProducts | None = None, drop_duplicates: bool = False,
-                     segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
+                     verify_checksum: bool = True, segment_samples: int = DEFAULT_SEGMENT_SAMPLES) -> DecodeSummary:
     """The same decode with the records kept in memory (``packets_list``, ``frames_list``); no files."""
     inp = _open_input(recording, profile, input_kind=input_kind, datatype=datatype, sample_rate_hz=sample_rate_hz,
-                      start=start, no_time=no_time)
+                      start=start, no_time=no_time, verify_checksum=verify_checksum)
     sinks = MemorySinks()
     summary, _ = _run(inp, profile, sinks, workers=workers, progress=progress, segment_samples=segment_samples,
                       scheduler=scheduler, products=products, drop_duplicates=drop_duplicates)

@@ -167,6 +167,8 @@ class SegmentedDecode:
         self.frames_dropped_as_duplicates = 0
         #: CPU seconds of each segment's worker in the last :meth:`run`, in segment order
         self.segment_cpu_s: list[float] = []
+        self._check = None  # the recording's core:sha512 check of the current run, and its future
+        self._check_future = None
 
     def run(self, recording, back, *, on_segment: Callable[[SegmentResult], None] | None = None) -> FrontSummary:
         """Decode ``recording`` (an open Recording) into ``back`` (a fresh BackEnd) and finish it.
@@ -181,24 +183,46 @@ class SegmentedDecode:
         summary = FrontSummary()
         self.segment_cpu_s = []
         last = -math.inf
-        for res in self._results(recording, plan):
-            back.process_track(res.track)
-            final = res.index == len(plan) - 1
-            for decoded in res.frames:
-                p = float(decoded.position)
-                if p <= last + half_cadu:
-                    self.frames_dropped_as_duplicates += 1
-                    continue
-                if not final and p >= res.owned_stop:
-                    continue
-                back.process_frame(decoded)
-                last = p
-            summary.merge(res.summary)
-            self.segment_cpu_s.append(res.cpu_s)
-            if on_segment is not None:
-                on_segment(res)
+        # core:sha512: the segments read byte ranges out of order, so the recording is hashed once, in order,
+        # in a thread of this process while they decode (started once any worker processes exist)
+        self._check = recording.checksum()
+        self._check_future = None
+        try:
+            for res in self._results(recording, plan):
+                self._start_check()
+                last = self._merge(res, back, final=res.index == len(plan) - 1, last=last, half_cadu=half_cadu)
+                summary.merge(res.summary)
+                self.segment_cpu_s.append(res.cpu_s)
+                if on_segment is not None:
+                    on_segment(res)
+            self._start_check()
+            if self._check_future is not None:
+                self._check_future.result()  # a mismatch raises here, before anything is marked complete
+                recording.checksum_verified = True
+        except BaseException:
+            if self._check is not None:
+                self._check.cancel()
+            raise
         back.finish()
         return summary
+
+    def _start_check(self) -> None:
+        if self._check is not None and self._check_future is None:
+            self._check_future = self._check.verify_in_background()
+
+    def _merge(self, res: SegmentResult, back, *, final: bool, last: float, half_cadu: float) -> float:
+        """Hand a segment's owned track points and new frames to the back end; returns the last ASM position."""
+        back.process_track(res.track)
+        for decoded in res.frames:
+            p = float(decoded.position)
+            if p <= last + half_cadu:
+                self.frames_dropped_as_duplicates += 1
+                continue
+            if not final and p >= res.owned_stop:
+                continue
+            back.process_frame(decoded)
+            last = p
+        return last
 
     def speedup_bound(self, workers: int) -> float:
         """Speed-up ``workers`` idle cores would give over one, from the last run's segment CPU times.

@@ -39,9 +39,16 @@ class FolderSinks:
         Also write ``cadus.bin``.
     doppler_columns : sequence of str or None, keyword-only
         Columns of ``doppler.csv`` (default: the demodulator's ``DOPPLER_COLUMNS``).
+    flush : bool, keyword-only
+        Flush ``packets.jsonl`` and ``frames.jsonl`` after every record (a live decode: readers see each
+        record as soon as it is decoded).
+    packets_to : text stream or None, keyword-only
+        Also write each packet's JSON line to this stream (standard output for ``--packets-to-stdout``),
+        flushed at once.
     """
 
-    def __init__(self, folder: Path, *, cadus: bool = False, doppler_columns=None):
+    def __init__(self, folder: Path, *, cadus: bool = False, doppler_columns=None, flush: bool = False,
+                 packets_to=None):
         self.folder = Path(folder)
         self._apid_files: dict[Any, Any] = {}
         self._vc_files: dict[int, Any] = {}
@@ -50,6 +57,8 @@ class FolderSinks:
         self._doppler_file = None
         self._doppler_csv = None
         self._columns = tuple(doppler_columns) if doppler_columns else None
+        self._flush = bool(flush)
+        self._packets_to = packets_to
         try:
             self._packets = open(self.folder / "packets.jsonl", "w", encoding="utf-8")
             self._frames = open(self.folder / "frames.jsonl", "w", encoding="utf-8")
@@ -69,12 +78,16 @@ class FolderSinks:
     def frame(self, obj: dict) -> None:
         try:
             self._frames.write(json.dumps(obj, separators=(",", ":")) + "\n")
+            if self._flush:
+                self._frames.flush()
         except OSError as exc:
             raise self._error(exc) from None
 
     def packet(self, obj: dict, data: bytes) -> None:
         try:
             self._packet(obj, data)
+        except BrokenPipeError:  # the reader of --packets-to-stdout went away: the command ends quietly
+            raise
         except OSError as exc:
             raise self._error(exc) from None
 
@@ -118,7 +131,13 @@ class FolderSinks:
             self._doppler_csv.writerow({k: ("" if row.get(k) is None else row.get(k)) for k in self._columns})
 
     def _packet(self, obj: dict, data: bytes) -> None:
-        self._packets.write(json.dumps(obj, separators=(",", ":")) + "\n")
+        line = json.dumps(obj, separators=(",", ":")) + "\n"
+        self._packets.write(line)
+        if self._flush:
+            self._packets.flush()
+        if self._packets_to is not None:
+            self._packets_to.write(line)
+            self._packets_to.flush()
         apid = obj["apid"]
         key = apid if apid is not None else ("encapsulation", obj.get("protocol_id"))
         f = self._apid_files.get(key)

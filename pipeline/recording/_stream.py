@@ -31,7 +31,7 @@ from pipeline.recording._recording import (
     _synth_meta,
     _timed_capture,
 )
-from pipeline.recording._symbols import SymbolChunk
+from pipeline.recording._symbols import SymbolChunk, SymbolTime, symbol_rate_or_error
 from pipeline.recording._time import start_tai_ns
 
 __all__ = ["SampleStream", "SymbolStream", "open_stream", "open_symbol_stream", "STDIN"]
@@ -290,7 +290,7 @@ def open_stream(source: Any = STDIN, *, format: str | None = None, sample_rate_h
     return SampleStream(src, fmt=fmt, sample_rate_hz=rate, capture=_timed_capture(0, tai0, freq, start is not None))
 
 
-class SymbolStream(_ReadOnce):
+class SymbolStream(_ReadOnce, SymbolTime):
     """Channel symbols arriving on a stream (see :func:`open_symbol_stream`).
 
     Attributes
@@ -305,9 +305,10 @@ class SymbolStream(_ReadOnce):
         Symbols delivered so far.
     """
 
-    def __init__(self, source: _Source, kind: str) -> None:
+    def __init__(self, source: _Source, kind: str, *, start_tai_ns: int | None = None,
+                 symbol_rate_hz: float | None = None) -> None:
+        SymbolTime.__init__(self, Path(source.name), start_tai_ns=start_tai_ns, symbol_rate_hz=symbol_rate_hz)
         self._source = source
-        self.path = Path(source.name)
         self.kind = kind
         self.num_symbols: int | None = None
         self.symbols_read = 0
@@ -362,7 +363,8 @@ class SymbolStream(_ReadOnce):
         self.num_symbols = self.symbols_read
 
 
-def open_symbol_stream(source: Any = STDIN, kind: str = "soft") -> SymbolStream:
+def open_symbol_stream(source: Any = STDIN, kind: str = "soft", *, start: str | int | None = None,
+                       symbol_rate_hz: float | None = None) -> SymbolStream:
     """Open a live stream of channel symbols (``--input soft|bits`` from ``-``).
 
     Parameters
@@ -372,6 +374,9 @@ def open_symbol_stream(source: Any = STDIN, kind: str = "soft") -> SymbolStream:
     kind : {"soft", "bits"}
         ``soft``: one int8 per channel symbol, positive = bit 0.  ``bits``: packed hard channel
         bits, MSB first; a 0 bit becomes +1.0 and a 1 bit -1.0.
+    start, symbol_rate_hz : optional
+        UTC of the leading edge of channel symbol 0 and the channel symbol rate, for
+        :meth:`SymbolStream.tai_ns` (as :func:`pipeline.recording.open_symbols`).
 
     Returns
     -------
@@ -386,4 +391,11 @@ def open_symbol_stream(source: Any = STDIN, kind: str = "soft") -> SymbolStream:
     """
     if kind not in ("soft", "bits"):
         raise ValueError(f"Argument 'kind' must be 'soft' or 'bits', not {kind!r}.")
-    return SymbolStream(_Source(source, "channel symbols"), kind)
+    rate = symbol_rate_or_error(symbol_rate_hz)
+    src = _Source(source, "channel symbols")
+    try:
+        start_tai = None if start is None else start_tai_ns(Path(src.name), start, "--start")
+    except BaseException:
+        src.close()
+        raise
+    return SymbolStream(src, kind, start_tai_ns=start_tai, symbol_rate_hz=rate)

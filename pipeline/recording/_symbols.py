@@ -45,7 +45,64 @@ class SymbolChunk:
         return int(self.soft.shape[0])
 
 
-class SymbolFile:
+class SymbolTime:
+    """The time of channel symbols: ``start + index / symbol_rate_hz`` on the uniform scale.
+
+    Shared by symbol files and symbol streams.  ``start_tai_ns`` names the leading edge of channel
+    symbol 0 (TAI ns since 1958); ``time_known`` is True when both it and the rate are given.
+    """
+
+    def __init__(self, path: Path, *, start_tai_ns: int | None = None, symbol_rate_hz: float | None = None) -> None:
+        self.path = path
+        self.start_tai_ns = start_tai_ns
+        self.symbol_rate_hz = symbol_rate_hz
+        self._rate = None if symbol_rate_hz is None else Fraction(symbol_rate_hz)
+        self.time_known = start_tai_ns is not None and symbol_rate_hz is not None
+        self.time_source = "--start" if self.time_known else None
+
+    def tai_ns(self, position: float) -> int:
+        """Time of channel symbol ``position`` (its leading edge) on the uniform scale, TAI ns since 1958.
+
+        ``start + position / symbol_rate_hz``, exact rational arithmetic (see
+        :func:`pipeline.recording._time.elapsed_ns`); a leap second in the pass is counted.
+
+        Raises
+        ------
+        RecordingError
+            No start time or no rate was given.
+
+        Examples
+        --------
+        >>> import os, tempfile
+        >>> from pipeline.timescales import format_utc
+        >>> with tempfile.TemporaryDirectory() as d:
+        ...     p = os.path.join(d, "ch.bits")
+        ...     _ = open(p, "wb").write(bytes(16))
+        ...     f = open_symbols(p, "bits", start="2016-12-31T23:59:59.5Z", symbol_rate_hz=64.0)
+        ...     format_utc(f.tai_ns(64))
+        '2016-12-31T23:59:60.500000000Z'
+        """
+        position_fraction(position)
+        if not self.time_known:
+            raise RecordingError(f"{self.path}: channel symbols have no start time; give one (--start)")
+        return self.start_tai_ns + elapsed_ns(position, 0, self._rate)
+
+    def utc_ns(self, position: float) -> int:
+        """POSIX ns (UTC since 1970) of :meth:`tai_ns`."""
+        return posix_ns_from_tai(self.tai_ns(position))
+
+
+def symbol_rate_or_error(symbol_rate_hz) -> float | None:
+    """Check a channel symbol rate argument (None, or a positive finite number)."""
+    if symbol_rate_hz is None:
+        return None
+    if isinstance(symbol_rate_hz, bool) or not isinstance(symbol_rate_hz, (int, float, np.integer, np.floating)) \
+            or not (math.isfinite(float(symbol_rate_hz)) and float(symbol_rate_hz) > 0):
+        raise ValueError(f"Argument 'symbol_rate_hz' must be a positive finite number, not {symbol_rate_hz!r}.")
+    return float(symbol_rate_hz)
+
+
+class SymbolFile(SymbolTime):
     """A file of channel symbols read through read-only memory maps (see :func:`open_symbols`).
 
     Attributes
@@ -68,46 +125,10 @@ class SymbolFile:
 
     def __init__(self, path: Path, kind: str, size_bytes: int, *, start_tai_ns: int | None = None,
                  symbol_rate_hz: float | None = None) -> None:
-        self.path = path
+        super().__init__(path, start_tai_ns=start_tai_ns, symbol_rate_hz=symbol_rate_hz)
         self.kind = kind
         self.size_bytes = int(size_bytes)
         self.num_symbols = self.size_bytes * (8 if kind == "bits" else 1)
-        self.start_tai_ns = start_tai_ns
-        self.symbol_rate_hz = symbol_rate_hz
-        self._rate = None if symbol_rate_hz is None else Fraction(symbol_rate_hz)
-        self.time_known = start_tai_ns is not None and symbol_rate_hz is not None
-        self.time_source = "--start" if self.time_known else None
-
-    def tai_ns(self, position: float) -> int:
-        """Time of channel symbol ``position`` (its leading edge) on the uniform scale, TAI ns since 1958.
-
-        ``start + position / symbol_rate_hz``, exact rational arithmetic (see
-        :func:`pipeline.recording._time.elapsed_ns`); a leap second in the pass is counted.
-
-        Raises
-        ------
-        RecordingError
-            No start time or no rate was given to :func:`open_symbols`.
-
-        Examples
-        --------
-        >>> import os, tempfile
-        >>> from pipeline.timescales import format_utc
-        >>> with tempfile.TemporaryDirectory() as d:
-        ...     p = os.path.join(d, "ch.bits")
-        ...     _ = open(p, "wb").write(bytes(16))
-        ...     f = open_symbols(p, "bits", start="2016-12-31T23:59:59.5Z", symbol_rate_hz=64.0)
-        ...     format_utc(f.tai_ns(64))
-        '2016-12-31T23:59:60.500000000Z'
-        """
-        position_fraction(position)
-        if not self.time_known:
-            raise RecordingError(f"{self.path}: channel symbols have no start time; give one (--start)")
-        return self.start_tai_ns + elapsed_ns(position, 0, self._rate)
-
-    def utc_ns(self, position: float) -> int:
-        """POSIX ns (UTC since 1970) of :meth:`tai_ns`; kept for the decode chain until it uses ``tai_ns``."""
-        return posix_ns_from_tai(self.tai_ns(position))
 
     def __repr__(self) -> str:
         return f"SymbolFile({str(self.path)!r}, {self.kind}, {self.num_symbols} symbols)"
@@ -179,11 +200,7 @@ def open_symbols(path: str | os.PathLike, kind: str, *, start: str | int | None 
     """
     if kind not in ("soft", "bits"):
         raise ValueError(f"Argument 'kind' must be 'soft' or 'bits', not {kind!r}.")
-    if symbol_rate_hz is not None:
-        if isinstance(symbol_rate_hz, bool) or not isinstance(symbol_rate_hz, (int, float, np.integer, np.floating)) \
-                or not (math.isfinite(float(symbol_rate_hz)) and float(symbol_rate_hz) > 0):
-            raise ValueError(f"Argument 'symbol_rate_hz' must be a positive finite number, not {symbol_rate_hz!r}.")
-        symbol_rate_hz = float(symbol_rate_hz)
+    symbol_rate_hz = symbol_rate_or_error(symbol_rate_hz)
     p = Path(os.fspath(path))
     try:
         st = p.stat()
