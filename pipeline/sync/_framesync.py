@@ -103,7 +103,8 @@ class FrameSync:
 
     With ``correlation="soft"`` a match is a score ``|z| >= T``, ``z = sum(s_j y_j) / sqrt(sum(y_j^2))``
     over the m soft values ``y`` at the offset and the marker's signs ``s`` (the sign of ``z`` is the
-    polarity).  On data or noise ``z`` is about N(0, 1), so a false match has probability ``2 Q(T)``
+    polarity); a search takes the best score among the m offsets from the first one that crosses the
+    threshold.  On data or noise ``z`` is about N(0, 1), so a false match has probability ``2 Q(T)``
     per offset (1.4e-5 searching at T = 4.5 ... 2.7e-3 checking at T = 3); on the marker at Es/N0
     ``rho`` per bit ``z`` is about ``sqrt(m) sqrt(2 rho / (1 + 2 rho))`` with standard deviation
     ``1 / sqrt(1 + 2 rho)``: 5.7 for the 64-bit marker at -3 dB, 6.8 for the 192-bit one at -8 dB.
@@ -179,6 +180,7 @@ class FrameSync:
         self._score = np.zeros(1, dtype=np.float64)
         self._window_errors = np.zeros(2 * self.slip_bits + 1, dtype=np.int64)
         self._window_scores = np.zeros(2 * self.slip_bits + 1, dtype=np.float64)
+        self._search_scores = np.zeros(m, dtype=np.float64)
         self.stats = FrameSyncStats()
         self.events: list[SyncEvent] = []
         self._clear_stream(0)
@@ -301,16 +303,31 @@ class FrameSync:
         inv = score < 0.0
         return abs(score) >= self.lock_threshold, self._errors(at, inv), inv
 
-    def _search(self, stop: int) -> int:
-        """First candidate offset in ``[search_at, stop)`` (absolute) or -1; sets ``_inverted``."""
+    def _search(self, stop: int, final: bool) -> int:
+        """Next candidate offset from ``search_at`` (absolute); -1: none before ``stop``; -2: more bits needed.
+
+        Sets ``_inverted``.  Soft correlation: the candidate is the best score among the ``m`` offsets
+        from the first one that crosses the threshold (the CCSDS turbo markers of rates 1/4 and 1/6 are a
+        half followed by its complement, so half a marker away a half-size score appears first).
+        """
         a, b = self._search_at - self._base, stop - self._base
         if self.correlation == "hard":
             rel = _kernels.find_marker(self._hard, a, b, self._marker, self.max_errors, self._result)
             self._inverted = bool(self._result[1])
-        else:
-            rel = _kernels.find_marker_soft(self._soft, a, b, self._sign, self.search_threshold, self._score)
-            self._inverted = bool(self._score[0] < 0.0)
-        return -1 if rel < 0 else self._base + int(rel)
+            return -1 if rel < 0 else self._base + int(rel)
+        rel = _kernels.find_marker_soft(self._soft, a, b, self._sign, self.search_threshold, self._score)
+        if rel < 0:
+            return -1
+        last = rel + self.marker_bits - 1
+        if last >= b and not final:
+            self._search_at = self._base + int(rel)  # decided once the whole window has arrived
+            return -2
+        count = min(last, b - 1) - rel + 1
+        scores = self._search_scores[:count]
+        _kernels.marker_scores(self._soft, rel, count, self._sign, scores)
+        j = int(np.argmax(np.abs(scores)))
+        self._inverted = bool(scores[j] < 0.0)
+        return self._base + int(rel) + j
 
     def _slip(self, p: int, lo: int, hi: int) -> tuple[int, int, bool] | None:
         """Best marker in ``[lo, hi]`` other than ``p``: (offset, hard mismatches, inverted), or None."""
@@ -347,7 +364,9 @@ class FrameSync:
                 stop = end - m + 1  # one past the last offset holding a whole marker
                 if self._search_at >= stop:
                     return
-                c = self._search(stop)
+                c = self._search(stop, final)
+                if c == -2:
+                    return
                 if c < 0:
                     self._search_at = stop
                     return
