@@ -260,10 +260,20 @@ def test_marker_esn0_estimate_window_and_no_signal():
     est.update(np.zeros(64), sign)
     e = est.update(np.zeros(64), sign)
     assert e.llr_scale == 0.0 and e.esn0_db == -40.0  # nothing there: no confidence at all
+    # markers of an acquisition (nothing) followed by good ones: the median follows the good ones
+    big = MarkerEsn0Estimator(window_cadus=8)
+    for _ in range(3):
+        big.update(np.zeros(64), sign)
+    for _ in range(5):
+        e8 = big.update(sign * (1.0 + 0.5 * np.tile([1.0, -1.0], 32)), sign)
+    assert e8.amplitude == pytest.approx(1.0)
     y = sign * (1.0 + 0.5 * np.tile([1.0, -1.0], 32))  # z = s y = 1 +- 0.5
     est.update(y, sign)
     e = est.update(y, sign)  # the zeros have left the window
-    assert e.values == 128 and e.amplitude == pytest.approx(1.0) and e.noise_variance == pytest.approx(0.25 * 128 / 127)
+    # medians of the per-marker mean (1.0) and sample variance (0.25 x 64 / 63), the latter over the median of
+    # chi^2_63 / 63 (scipy.stats.chi2: the median of a Gaussian sample variance over sigma^2)
+    assert e.values == 128 and e.amplitude == pytest.approx(1.0)
+    assert e.noise_variance == pytest.approx(0.25 * 64 / 63 / (stats.chi2.median(63) / 63))
     with pytest.raises(ValueError, match="Argument 'marker_soft'"):
         est.update(np.zeros(3), sign)
 
