@@ -7,7 +7,8 @@ Two stages:
     with real Gaussian noise -> exact channel LLRs -> ``pipeline.fec.TurboDecoder`` (the profile's
     ``turbo_max_iterations``, FECF stopping check); measured: BER and FER of the decoded frames, the
     frames whose FECF still failed (``decoder_failures``) and the wrong frames that passed it
-    (``undetected_frame_errors``).  Other profiles: the codes alone: random frames -> RS (E, I, virtual fill) -> randomizer -> ASM
+    (``undetected_frame_errors``).  Other profiles: the codes alone: random frames -> RS (E, I, virtual
+    fill) -> randomizer -> ASM
     -> convolutional code -> BPSK symbols +-1 with real Gaussian noise, unquantized (float32), ->
     ``pipeline.fec.viterbi_decode`` -> cut at the known CADU boundaries ->
     ``pipeline.sync.CodeblockDecoder`` (de-randomize, RS decode).  No synchronization, carrier or
