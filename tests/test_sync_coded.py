@@ -25,7 +25,8 @@ from pipeline.sync import (
 
 
 def turbo_profile(rate: str = "1/2", k: int = 1784, **coding):
-    return profile_from_dict({"coding": {"convolutional": "none", "reed_solomon": 0, "turbo": rate, "turbo_k": k,
+    return profile_from_dict({"link": {}, "coding": {"convolutional": "none", "reed_solomon": 0, "turbo": rate,
+                                                      "turbo_k": k,
                                          **coding},
                               "frames": {"length": k // 8, "fecf": True, "ocf": False, "spacecraft_id": 499}})
 
@@ -221,7 +222,7 @@ def test_frame_sync_for_each_link():
     fs = frame_sync_for(p)
     assert (fs.correlation, fs.keep_soft, fs.frame_bits, fs.asm) == ("soft", True, 5364, TURBO_ASMS["1/3"])
     assert link_marker(p) == TURBO_ASMS["1/3"]
-    rs = profile_from_dict({})
+    rs = profile_from_dict({"link": {}, "coding": {}, "frames": {}})
     fs = frame_sync_for(rs)
     assert (fs.correlation, fs.keep_soft, fs.frame_bits) == ("hard", False, 8 * rs.codeblock_bytes)
     assert link_marker(rs) == bytes.fromhex("1ACFFC1D")  # CCSDS 131.0-B sec. 8 (REFERENCES.md sec. 1.1)

@@ -112,7 +112,8 @@ class FrameLog:
         d["rs_corrected"][i] = -2 if not rs else (-1 if min(rs) < 0 else sum(rs))
         d["asm_errors"][i] = -1 if record.asm_errors is None else min(int(record.asm_errors), 127)
         d["flywheel"][i] = bool(record.flywheel)
-        d["decoder_iterations"][i] = -1 if record.decoder_iterations is None else record.decoder_iterations
+        iterations = getattr(record, "decoder_iterations", None)  # turbo / LDPC records only
+        d["decoder_iterations"][i] = -1 if iterations is None else iterations
         d["clcw_report_value"][i] = -1 if clcw is None else clcw["report_value"]
         d["clcw_flags"][i] = 0 if clcw is None else (clcw["lockout"] | clcw["wait"] << 1 | clcw["retransmit"] << 2
                                                       | clcw["no_rf_available"] << 3 | clcw["no_bit_lock"] << 4)
