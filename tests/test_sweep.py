@@ -185,8 +185,8 @@ def test_turbo_profile_code_stage_and_normal_approximation(tmp_path):
     from pipeline.profile import profile_from_dict
     from pipeline.tools import _sweep, _theory
 
-    prof = profile_from_dict({"link": {}, "coding": {"convolutional": "none", "reed_solomon": 0, "turbo": "1/2", "turbo_k": 1784},
-                              "frames": {"length": 223, "fecf": True}})
+    coding = {"convolutional": "none", "reed_solomon": 0, "turbo": "1/2", "turbo_k": 1784}
+    prof = profile_from_dict({"link": {}, "coding": coding, "frames": {"length": 223, "fecf": True}})
     # the FER curve is the inverse of the Eb/N0 at a FER: both from the same capacity and dispersion
     for fer in (1e-2, 1e-3, 1e-4):
         x = _theory.normal_approximation_ebn0_db(3576, 1784, fer)
