@@ -29,6 +29,8 @@ from pipeline.errors import ProfileError
 __all__ = [
     "CONV_RATES",
     "REQUIRED_TABLES",
+    "TURBO_CODE_RATES",
+    "TURBO_MARKER_BITS",
     "ApidTraffic",
     "ClockSection",
     "CodingSection",
@@ -37,6 +39,7 @@ __all__ = [
     "FramesSection",
     "LineCode",
     "LinkProfile",
+    "LdpcCode",
     "LinkSection",
     "Modulation",
     "PacketsSection",
@@ -46,6 +49,7 @@ __all__ = [
     "StationSection",
     "TimeCodeConfig",
     "TimeCodeKind",
+    "TurboRate",
     "demo_profile_path",
     "load_profile",
     "profile_from_dict",
@@ -58,6 +62,8 @@ ConvRate = Literal["none", "1/2", "2/3", "3/4", "5/6", "7/8"]
 FrameKind = Literal["tm", "aos"]
 TimeCodeKind = Literal["cuc", "cds"]
 SubcarrierWave = Literal["square", "sine"]
+TurboRate = Literal["none", "1/2", "1/3", "1/4", "1/6"]
+LdpcCode = Literal["none", "c2", "ar4ja"]
 
 #: Convolutional code rate as a fraction, by profile name ("none" = uncoded).
 CONV_RATES: dict[str, float] = {"none": 1.0, "1/2": 0.5, "2/3": 2 / 3, "3/4": 0.75, "5/6": 5 / 6, "7/8": 7 / 8}
@@ -66,6 +72,14 @@ _RS_K = {16: 223, 8: 239}
 
 #: Tables every profile file must have.
 REQUIRED_TABLES: tuple[str, ...] = ("link", "coding", "frames")
+#: Nominal turbo code rate as a fraction, by profile name (CCSDS 131.0-B sec. 6.4).
+TURBO_CODE_RATES: dict[str, float] = {"1/2": 0.5, "1/3": 1 / 3, "1/4": 0.25, "1/6": 1 / 6}
+#: Length of each turbo rate's attached sync marker in bits (CCSDS 131.0-B sec. 8.3, REFERENCES.md 13.4).
+TURBO_MARKER_BITS: dict[str, int] = {"1/2": 64, "1/3": 96, "1/4": 128, "1/6": 192}
+_TURBO_K = (1784, 3568, 7136, 8920)
+_TURBO_TAIL_BITS = 4  # termination bit times per component encoder (131.0-B sec. 6.3)
+_LDPC_RATES = ("1/2", "2/3", "4/5")
+_LDPC_K = (1024, 4096, 16384)
 
 
 @dataclass(frozen=True)
@@ -103,6 +117,13 @@ class CodingSection:
     randomizer: bool = True
     # None: as CCSDS 131.0-B says (G2 inverted at rate 1/2 only); true/false for equipment that differs
     convolutional_g2_inverted: bool | None = None
+    turbo: TurboRate = "none"  # CCSDS 131.0-B sec. 6 turbo code (nominal rate), "none" = no turbo code
+    turbo_k: int = 8920  # turbo information block in bits: 1784 | 3568 | 7136 | 8920
+    turbo_max_iterations: int = 10
+    ldpc: LdpcCode = "none"  # reserved for the LDPC codes of 131.0-B sec. 7 (issue 15), not decoded yet
+    ldpc_rate: str = "1/2"
+    ldpc_k: int = 1024
+    ldpc_max_iterations: int = 50
 
     @property
     def conv_rate(self) -> float:
@@ -121,6 +142,13 @@ class CodingSection:
         if self.convolutional_g2_inverted is None:
             return self.convolutional == "1/2"
         return bool(self.convolutional_g2_inverted)
+
+    @property
+    def turbo_codeword_bits(self) -> int:
+        """Channel bits of one turbo codeword, ``(k + 4) / r`` (4 tail bit times), 0 without a turbo code."""
+        if self.turbo == "none":
+            return 0
+        return int(round((self.turbo_k + _TURBO_TAIL_BITS) / TURBO_CODE_RATES[self.turbo]))
 
     @property
     def rs_k(self) -> int:
@@ -299,9 +327,24 @@ class LinkProfile:
         return 2 * c.reed_solomon * c.interleave if c.reed_solomon else 0
 
     @property
+    def codeblock_bits(self) -> int:
+        """Bits between two sync markers: the turbo codeword (``(k + 4) / r``), else the frame plus RS parity."""
+        if self.coding.turbo != "none":
+            return self.coding.turbo_codeword_bits
+        return 8 * (self.frames.length + self.rs_parity_bytes)
+
+    @property
     def codeblock_bytes(self) -> int:
-        """Octets between two ASMs: the frame plus RS parity (CCSDS 131.0-B)."""
-        return self.frames.length + self.rs_parity_bytes
+        """Octets between two ASMs: the frame plus RS parity (CCSDS 131.0-B); a turbo codeword whose length
+        is not a whole number of octets (rate 1/3) is counted up to the next octet."""
+        return (self.codeblock_bits + 7) // 8
+
+    @property
+    def marker_bits(self) -> int:
+        """Bits of the attached sync marker: the turbo rate's own marker (64 .. 192 bits), else 32."""
+        if self.coding.turbo != "none":
+            return TURBO_MARKER_BITS[self.coding.turbo]
+        return 32
 
     @property
     def virtual_fill_bytes(self) -> int:
@@ -311,8 +354,8 @@ class LinkProfile:
 
     @property
     def cadu_bits(self) -> int:
-        """Bits of one CADU: 32-bit ASM plus the codeblock."""
-        return 32 + 8 * self.codeblock_bytes
+        """Bits of one CADU: the sync marker plus the codeblock."""
+        return self.marker_bits + self.codeblock_bits
 
     @property
     def cadu_channel_bits(self) -> float:
@@ -325,7 +368,10 @@ class LinkProfile:
 
     @property
     def code_rate(self) -> float:
-        """Overall information rate per channel bit (convolutional x RS), ASM excluded."""
+        """Overall information rate per channel bit (convolutional x RS, or turbo k / n with the tail), ASM
+        excluded."""
+        if self.coding.turbo != "none":
+            return self.coding.turbo_k / self.coding.turbo_codeword_bits
         rs = (self.frames.length / self.codeblock_bytes) if self.coding.reed_solomon else 1.0
         return self.coding.conv_rate * rs
 
@@ -581,6 +627,7 @@ def _validate(p: LinkProfile, source: str) -> None:
     _check(C.convolutional_g2_inverted is None or C.convolutional != "none", source,
            "[coding] convolutional_g2_inverted applies to a convolutional code; convolutional is \"none\"")
     _validate_frames(F, source)
+    _validate_block_codes(p, source)
     if C.reed_solomon:
         k = C.rs_k
         _check(F.length % C.interleave == 0, source,
@@ -662,3 +709,42 @@ def _validate_clock(c: ClockSection, frame_kind: str, source: str) -> None:
         _check(1 <= c.sampled_every <= 1 << 24 and (1 << 24) % c.sampled_every == 0, source,
                f"[clock] sampled_every must divide 16777216 (the 24-bit virtual-channel frame count), "
                f"not {c.sampled_every}")
+def _validate_block_codes(p: LinkProfile, source: str) -> None:
+    """The turbo keys (issue 16) and the reserved LDPC keys (issue 15): values, then what they exclude."""
+    L, C, F = p.link, p.coding, p.frames
+    _choice(C.turbo, TurboRate, "[coding] turbo", source)
+    _check(C.turbo_k in _TURBO_K, source,
+           f"[coding] turbo_k must be one of {' | '.join(map(str, _TURBO_K))}, not {C.turbo_k}")
+    _check(1 <= C.turbo_max_iterations <= 100, source,
+           f"[coding] turbo_max_iterations must be 1..100, not {C.turbo_max_iterations}")
+    _choice(C.ldpc, LdpcCode, "[coding] ldpc", source)
+    _check(C.ldpc_rate in _LDPC_RATES, source,
+           f"[coding] ldpc_rate must be one of {' | '.join(_LDPC_RATES)}, not {C.ldpc_rate!r}")
+    _check(C.ldpc_k in _LDPC_K, source,
+           f"[coding] ldpc_k must be one of {' | '.join(map(str, _LDPC_K))}, not {C.ldpc_k}")
+    _check(1 <= C.ldpc_max_iterations <= 1000, source,
+           f"[coding] ldpc_max_iterations must be 1..1000, not {C.ldpc_max_iterations}")
+    _check(C.ldpc == "none", source,
+           f"[coding] ldpc = {C.ldpc!r}: LDPC links cannot be decoded yet (issue 15); the key is reserved")
+    if C.turbo == "none":
+        return
+    k = C.turbo_k
+    # CCSDS 131.0-B sec. 6.2: one transfer frame per codeword, FECF required (sec. 6.2.2); the turbo code
+    # replaces the convolutional and Reed-Solomon codes (sec. 2).  Every rule is checked at once so the one
+    # error names everything that is wrong.
+    wrong = []
+    if C.convolutional != "none":
+        wrong.append(f'[coding] convolutional must be "none", not {C.convolutional!r}')
+    if C.reed_solomon:
+        wrong.append(f"[coding] reed_solomon must be 0, not {C.reed_solomon}")
+    if not F.fecf:
+        wrong.append("[frames] fecf must be true (CCSDS 131.0-B sec. 6.2.2)")
+    if F.length != k // 8:
+        wrong.append(f"[frames] length must be {k // 8} octets (turbo_k / 8), not {F.length}")
+    if L.line_code == "nrz-m":
+        wrong.append('[link] line_code must be "nrz-l" or "bi-phase-l" (soft NRZ-M decoding would cost the '
+                     "turbo decoder several dB)")
+    if L.modulation in ("qpsk", "oqpsk"):
+        wrong.append(f"[link] modulation must be bpsk, pcm-pm or pcm-psk-pm, not {L.modulation!r} (the QPSK "
+                     "rotation search does not use the turbo markers yet)")
+    _check(not wrong, source, f'[coding] turbo = "{C.turbo}" (k = {k}) needs: ' + "; ".join(wrong))

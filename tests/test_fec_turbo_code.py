@@ -1,6 +1,6 @@
 """CCSDS turbo code: interleaver, code description, encoder (against an encoder written here), G0.
 
-The independent encoder below is written from the standard's description (131.0-B-2 sec. 6.3,
+The independent encoder (tests/third_party_tx.py) is written from the standard's description (131.0-B-2 sec. 6.3,
 Figure 6-2 and the note on p. 6-7, as transcribed in REFERENCES.md sec. 1.5 and 13.3): two
 4-cell shift registers, the feedback and forward vectors typed in here as strings, the output
 lines multiplexed per rate by explicit loops.  It shares no code or table with pipeline.fec.turbo.
@@ -14,81 +14,14 @@ import itertools
 import numpy as np
 import pytest
 
+# the shift-register encoder written from the standard lives in the independent test transmitter
+from third_party_tx import G0, G1, G2, G3, ShiftRegisterEncoder, interleaver_from_formula, reference_encode
+
 import pipeline.fec.turbo._code as turbo_code_module
 import pipeline.fec.turbo._encoder as turbo_encoder_module
 from pipeline.fec import TURBO_ASMS, turbo_encode
 from pipeline.fec.turbo import TURBO_BLOCK_SIZES, TURBO_RATES, TurboCode, component_trellis, turbo_interleaver
 from pipeline.fec.turbo import _kernels as K
-
-# REFERENCES.md sec. 13.3: G1..G3 source: [TM-SC] sec. 6.3 h); G0 from memory, not confirmed.
-G0 = "10011"
-G1, G2, G3 = "11011", "10101", "11111"
-PRIMES = (31, 37, 43, 47, 53, 59, 61, 67)  # [TM-SC] sec. 6.3 step 2
-
-
-class ShiftRegisterEncoder:
-    """One component encoder of Figure 6-2: cells D1..D4, feedback G0, outputs out0 (input) and out1..out3."""
-
-    def __init__(self, feedback: str = G0):
-        self.g0 = [int(c) for c in feedback]
-        self.cells = [0, 0, 0, 0]  # D1, D2, D3, D4
-
-    def feedback_sum(self) -> int:
-        return sum(g * d for g, d in zip(self.g0[1:], self.cells)) % 2
-
-    def step(self, u: int) -> list[int]:
-        a = (u + self.feedback_sum()) % 2
-        outs = [u]
-        for g in (G1, G2, G3):
-            taps = [int(c) for c in g]
-            outs.append((taps[0] * a + sum(t * d for t, d in zip(taps[1:], self.cells))) % 2)
-        self.cells = [a] + self.cells[:3]
-        return outs
-
-    def terminate(self) -> list[int]:
-        """One tail bit time: the switch feeds the feedback sum back in, so a = 0."""
-        return self.step(self.feedback_sum())
-
-
-def interleaver_from_formula(k: int) -> list[int]:
-    """pi(s) for s = 1..k (REFERENCES.md sec. 1.5, [TM-SC] sec. 6.3), one s at a time."""
-    k1, k2 = 8, k // 8
-    out = []
-    for s in range(1, k + 1):
-        m = (s - 1) % 2
-        i = (s - 1) // (2 * k2)
-        j = (s - 1) // 2 - i * k2
-        t = (19 * i + 1) % (k1 // 2)
-        q = t % 8 + 1
-        c = (PRIMES[q - 1] * j + 21 * m) % k2
-        out.append(2 * (t + c * k1 // 2 + 1) - m)
-    return out
-
-
-def reference_encode(info_bits: np.ndarray, rate: str) -> tuple[np.ndarray, tuple[list[int], list[int]]]:
-    """Codeword bits and the final cells of encoders a and b."""
-    k = len(info_bits)
-    pi = interleaver_from_formula(k)
-    enc_a, enc_b = ShiftRegisterEncoder(), ShiftRegisterEncoder()
-    out_a, out_b = [], []
-    for s in range(k):
-        out_a.append(enc_a.step(int(info_bits[s])))
-        out_b.append(enc_b.step(int(info_bits[pi[s] - 1])))  # the s-th bit into b is bit pi(s) of the block
-    for _ in range(4):
-        out_a.append(enc_a.terminate())
-        out_b.append(enc_b.terminate())
-    bits = []
-    for t in range(k + 4):
-        a, b = out_a[t], out_b[t]
-        if rate == "1/2":  # (out0a, out1a, out0a, out1b) repeated
-            bits += [a[0], a[1]] if t % 2 == 0 else [a[0], b[1]]
-        elif rate == "1/3":
-            bits += [a[0], a[1], b[1]]
-        elif rate == "1/4":
-            bits += [a[0], a[2], a[3], b[1]]
-        else:
-            bits += [a[0], a[1], a[2], a[3], b[1], b[3]]
-    return np.array(bits, dtype=np.uint8), (enc_a.cells, enc_b.cells)
 
 
 @pytest.mark.kat

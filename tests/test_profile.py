@@ -229,3 +229,80 @@ def test_simulate_format_key_uses_the_recording_vocabulary(tmp_path):
 def _tables(**sections):
     """``profile_from_dict`` with empty [link], [coding] and [frames] tables and the given ones."""
     return profile_from_dict({"link": {}, "coding": {}, "frames": {}, **sections})
+
+
+# ---- turbo keys (issue 16) -------------------------------------------------------------------------------
+def _turbo(rate="1/2", k=1784, **over):
+    coding = {"convolutional": "none", "reed_solomon": 0, "turbo": rate, "turbo_k": k}
+    coding.update(over.pop("coding", {}))
+    frames = {"length": k // 8, "fecf": True}
+    frames.update(over.pop("frames", {}))
+    return profile_from_dict({"link": over.pop("link", {}), "coding": coding, "frames": frames, **over},
+                             source="t.toml")
+
+
+@pytest.mark.parametrize("rate, n_1784, n_8920, marker", [
+    # codeword n = (k + 4) / r: REFERENCES.md sec. 1.5 (computed there from the termination rule, [TM-SC] p. 6-7);
+    # marker lengths: REFERENCES.md sec. 13.4 ([TM-SC] Figs. 8-3 to 8-5; 64 bits from memory, not confirmed)
+    ("1/2", 3576, 17848, 64), ("1/3", 5364, 26772, 96), ("1/4", 7152, 35696, 128), ("1/6", 10728, 53544, 192)])
+def test_turbo_derived_sizes(rate, n_1784, n_8920, marker):
+    for k, n in ((1784, n_1784), (8920, n_8920)):
+        p = _turbo(rate, k)
+        assert p.codeblock_bits == n and p.marker_bits == marker
+        assert p.cadu_bits == marker + n
+        assert p.codeblock_bytes == -(-n // 8)  # rate 1/3 codewords are not whole octets
+        assert p.code_rate == pytest.approx(k / n)  # the tail counted in the rate, as REFERENCES.md sec. 13.5
+        # ../shared/DESIGN.md: Es/N0 = Eb/N0 + 10 log10(code rate x bits per symbol)
+        assert p.esn0_from_ebn0(1.0) == pytest.approx(1.0 + 10 * math.log10(k / n))
+        assert p.samples_per_cadu(1e6) == pytest.approx((marker + n) / p.link.channel_bit_rate * 1e6)
+        assert p.coding.turbo_max_iterations == 10  # issue 16's default
+
+
+def test_turbo_k_and_frame_length_pairs():
+    # issue 16: [frames] length = k/8 octets (223, 446, 892, 1115), k from [TM-SC] Table 6-3
+    for k, length in ((1784, 223), (3568, 446), (7136, 892), (8920, 1115)):
+        assert _turbo("1/4", k).frames.length == length
+
+
+@pytest.mark.parametrize("over, fragments", [
+    ({"coding": {"convolutional": "1/2"}}, ['convolutional must be "none"']),
+    ({"coding": {"reed_solomon": 16}}, ["reed_solomon must be 0"]),
+    ({"frames": {"fecf": False}}, ["fecf must be true"]),
+    ({"frames": {"length": 224}}, ["length must be 223 octets"]),
+    ({"coding": {"convolutional": "1/2", "reed_solomon": 8}, "frames": {"fecf": False}},
+     ['convolutional must be "none"', "reed_solomon must be 0", "fecf must be true"]),
+    ({"link": {"line_code": "nrz-m"}}, ["line_code must be"]),
+    ({"link": {"modulation": "qpsk"}}, ["modulation must be bpsk"]),
+])
+def test_turbo_rules_are_one_error(over, fragments):
+    with pytest.raises(ProfileError) as info:
+        _turbo("1/2", 1784, **over)
+    msg = str(info.value)
+    assert msg.startswith("t.toml: [coding] turbo = \"1/2\" (k = 1784) needs:") and "\n" not in msg
+    for f in fragments:
+        assert f in msg
+
+
+@pytest.mark.parametrize("coding, fragment", [
+    ({"turbo": "1/5"}, "turbo must be one of none | 1/2 | 1/3 | 1/4 | 1/6, not '1/5'"),
+    ({"turbo_k": 1000}, "turbo_k must be one of 1784 | 3568 | 7136 | 8920, not 1000"),
+    ({"turbo_max_iterations": 0}, "turbo_max_iterations must be 1..100, not 0"),
+    ({"ldpc_rate": "3/4"}, "ldpc_rate must be one of 1/2 | 2/3 | 4/5"),
+    ({"ldpc_k": 2048}, "ldpc_k must be one of 1024 | 4096 | 16384"),
+    ({"ldpc": "c2"}, "LDPC links cannot be decoded yet"),
+])
+def test_turbo_and_reserved_ldpc_values(coding, fragment):
+    with pytest.raises(ProfileError, match=None) as info:
+        profile_from_dict({"link": {}, "coding": coding, "frames": {}}, source="t.toml")
+    assert fragment in str(info.value)
+
+
+def test_turbo_sizes_agree_with_the_codec():
+    # the profile derives sizes by arithmetic (it imports nothing of ours); the codec's TurboCode is the other home
+    from pipeline.fec import TURBO_ASMS, TurboCode
+
+    for rate in ("1/2", "1/3", "1/4", "1/6"):
+        for k in (1784, 3568, 7136, 8920):
+            p, code = _turbo(rate, k), TurboCode(rate=rate, k=k)
+            assert (p.codeblock_bits, p.marker_bits, p.frames.length) == (code.n, 8 * len(TURBO_ASMS[rate]),
+                                                                          code.frame_octets)

@@ -174,3 +174,24 @@ def test_coder_argument_errors():
         ChannelCoder(_profile()).process([b"abc"])
     with pytest.raises(TypeError, match="Argument 'profile'"):
         ChannelCoder("tamarisk")
+
+
+@pytest.mark.parametrize("rate, randomizer", [("1/2", True), ("1/3", True), ("1/6", False)])
+def test_turbo_cadus_equal_the_independent_transmitter(rate, randomizer):
+    # tests/third_party_tx.py: the standard's shift registers and interleaver formula, the markers typed in
+    # from REFERENCES.md 13.4, the randomizer restarted per codeword ([TM-SC] sec. 6, 8.3, 9)
+    import third_party_tx as tx
+
+    rng = np.random.default_rng(7)
+    prof = LinkProfile().with_changes(coding={"convolutional": "none", "reed_solomon": 0, "turbo": rate,
+                                              "turbo_k": 1784, "randomizer": randomizer},
+                                      frames={"length": 223, "fecf": True})
+    frames = _frames(rng, 3, 223)
+    coder = ChannelCoder(prof)
+    out = coder.process(frames)
+    ref = tx.turbo_channel_bits(frames, rate=rate, randomize=randomizer, lead_bits=0, tail_bits=0)
+    assert np.array_equal(out.bits, ref)
+    cadu = prof.cadu_bits
+    assert coder.cadu_bits == cadu and out.asm_bits.tolist() == [0, cadu, 2 * cadu]
+    with pytest.raises(ValueError, match="use cadu_bit_rows"):
+        coder.codeblock(frames[0])

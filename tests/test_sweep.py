@@ -178,3 +178,26 @@ def test_loss_from_a_zero_error_point_uses_the_rule_of_three():
     pts[2].bits = 10**5
     (cv,) = sw.implementation_losses(prof, pts)["curves"]
     assert cv["measured_db"] is None and not cv["measured_is_upper_bound"]
+
+
+def test_turbo_profile_code_stage_and_normal_approximation(tmp_path):
+    # issue 16: sweep of a turbo profile beside the normal approximation for its (n, k) (REFERENCES.md 13.5)
+    from pipeline.profile import profile_from_dict
+    from pipeline.tools import _sweep, _theory
+
+    coding = {"convolutional": "none", "reed_solomon": 0, "turbo": "1/2", "turbo_k": 1784}
+    prof = profile_from_dict({"link": {}, "coding": coding, "frames": {"length": 223, "fecf": True}})
+    # the FER curve is the inverse of the Eb/N0 at a FER: both from the same capacity and dispersion
+    for fer in (1e-2, 1e-3, 1e-4):
+        x = _theory.normal_approximation_ebn0_db(3576, 1784, fer)
+        assert _sweep.normal_approximation_fer(3576, 1784, x) == pytest.approx(fer, rel=1e-4)
+    points = _sweep.sweep(prof, [0.6, 1.6], frames=256, errors=20, workers=1)
+    low, high = points
+    assert low.fer > 0.1 and high.fer < 0.02  # FER ~1e-3 crossing near 1.35 dB (bench/README.md)
+    assert low.frame_errors >= 20 or low.frames == 256
+    assert low.decoder_failures >= low.frame_errors - low.undetected_frame_errors
+    doc = _sweep.write_outputs(tmp_path, prof, points, seed=1, frames=256, errors=20)
+    assert doc["implementation_loss"]["curves"][0]["theory"] == "normal_approx_fer"
+    assert doc["implementation_loss"]["curves"][0]["theory_db"] == pytest.approx(
+        _theory.normal_approximation_ebn0_db(3576, 1784, 1e-3))
+    assert "normal_approx_fer" in doc["theory"]

@@ -13,6 +13,10 @@ cannot share one mistake (issue 5):
   path of G2", sec. 3.3).  The punctured codes (2/3, 3/4, 5/6, 7/8; sec. 3.4, Table 3-2 patterns) puncture
   the same register's outputs with no inversion: the punctured encoder of CCSDS 130.1-G sec. 4.3,
   Fig. 4-2, has no inverter.
+- Turbo codes (CCSDS 131.0-B-2 sec. 6, REFERENCES.md sec. 1.5, 13.3, 13.4): two 4-cell shift
+  registers with the feedback and forward vectors typed in as strings, the interleaver formula
+  evaluated one index at a time, the outputs multiplexed per rate by explicit loops, the rate's
+  marker typed in from REFERENCES.md 13.4, the randomizer restarted for every codeword.
 - CRC-16 FECF from ``crccheck`` (PyPI, CRC-16/IBM-3740 = CCSDS 132.0-B sec. 4.1.6).
 - TM frame and space packet headers from the bit layouts in REFERENCES.md sec. 3 and sec. 5
   (from memory, not confirmed there; cross-checked against the worked examples).
@@ -249,3 +253,104 @@ def cuc_field(ticks: int, *, coarse: int = 4, fine: int = 3) -> bytes:
 def time_packet(apid: int, seq: int, time_field: bytes, length: int) -> bytes:
     """A space packet of ``length`` octets whose data field starts with ``time_field`` (zero padded)."""
     return space_packet(apid, seq, time_field + bytes(length - 6 - len(time_field)))
+
+
+# ---- turbo codes -------------------------------------------------------------------------------------------
+# REFERENCES.md sec. 13.3: G1..G3 source: [TM-SC] sec. 6.3 h); G0 from memory, not confirmed.
+G0 = "10011"
+G1, G2, G3 = "11011", "10101", "11111"
+PRIMES = (31, 37, 43, 47, 53, 59, 61, 67)  # [TM-SC] sec. 6.3 step 2
+
+
+class ShiftRegisterEncoder:
+    """One component encoder of Figure 6-2: cells D1..D4, feedback G0, outputs out0 (input) and out1..out3."""
+
+    def __init__(self, feedback: str = G0):
+        self.g0 = [int(c) for c in feedback]
+        self.cells = [0, 0, 0, 0]  # D1, D2, D3, D4
+
+    def feedback_sum(self) -> int:
+        return sum(g * d for g, d in zip(self.g0[1:], self.cells)) % 2
+
+    def step(self, u: int) -> list[int]:
+        a = (u + self.feedback_sum()) % 2
+        outs = [u]
+        for g in (G1, G2, G3):
+            taps = [int(c) for c in g]
+            outs.append((taps[0] * a + sum(t * d for t, d in zip(taps[1:], self.cells))) % 2)
+        self.cells = [a] + self.cells[:3]
+        return outs
+
+    def terminate(self) -> list[int]:
+        """One tail bit time: the switch feeds the feedback sum back in, so a = 0."""
+        return self.step(self.feedback_sum())
+
+
+def interleaver_from_formula(k: int) -> list[int]:
+    """pi(s) for s = 1..k (REFERENCES.md sec. 1.5, [TM-SC] sec. 6.3), one s at a time."""
+    k1, k2 = 8, k // 8
+    out = []
+    for s in range(1, k + 1):
+        m = (s - 1) % 2
+        i = (s - 1) // (2 * k2)
+        j = (s - 1) // 2 - i * k2
+        t = (19 * i + 1) % (k1 // 2)
+        q = t % 8 + 1
+        c = (PRIMES[q - 1] * j + 21 * m) % k2
+        out.append(2 * (t + c * k1 // 2 + 1) - m)
+    return out
+
+
+def reference_encode(info_bits: np.ndarray, rate: str) -> tuple[np.ndarray, tuple[list[int], list[int]]]:
+    """Codeword bits and the final cells of encoders a and b."""
+    k = len(info_bits)
+    pi = interleaver_from_formula(k)
+    enc_a, enc_b = ShiftRegisterEncoder(), ShiftRegisterEncoder()
+    out_a, out_b = [], []
+    for s in range(k):
+        out_a.append(enc_a.step(int(info_bits[s])))
+        out_b.append(enc_b.step(int(info_bits[pi[s] - 1])))  # the s-th bit into b is bit pi(s) of the block
+    for _ in range(4):
+        out_a.append(enc_a.terminate())
+        out_b.append(enc_b.terminate())
+    bits = []
+    for t in range(k + 4):
+        a, b = out_a[t], out_b[t]
+        if rate == "1/2":  # (out0a, out1a, out0a, out1b) repeated
+            bits += [a[0], a[1]] if t % 2 == 0 else [a[0], b[1]]
+        elif rate == "1/3":
+            bits += [a[0], a[1], b[1]]
+        elif rate == "1/4":
+            bits += [a[0], a[2], a[3], b[1]]
+        else:
+            bits += [a[0], a[1], a[2], a[3], b[1], b[3]]
+    return np.array(bits, dtype=np.uint8), (enc_a.cells, enc_b.cells)
+
+
+# REFERENCES.md sec. 13.4: rate 1/3, 1/4, 1/6 from [TM-SC] Figs. 8-3 to 8-5; rate 1/2 from memory, not confirmed
+TURBO_MARKERS = {
+    "1/2": "034776C7272895B0",
+    "1/3": "25D5C0CE8990F6C9461BF79C",
+    "1/4": "034776C7272895B0FCB88938D8D76A4F",
+    "1/6": "25D5C0CE8990F6C9461BF79CDA2A3F31766F0936B9E40863",
+}
+
+
+def turbo_channel_bits(frames: list[bytes], *, rate: str, randomize: bool = True, lead_bits: int = 317,
+                       tail_bits: int = 200, seed: int = 5) -> np.ndarray:
+    """Marker + (randomized) turbo codeword per frame, random bits before the first marker and after the last.
+
+    Order on the send side (REFERENCES.md sec. 13.4, [TM-SC] sec. 9.2): encode, randomize the codeword with
+    the sequence restarted at all ones for each codeword, put the marker (not randomized) in front.
+    """
+    rng = np.random.default_rng(seed)
+    marker = np.unpackbits(np.frombuffer(bytes.fromhex(TURBO_MARKERS[rate]), dtype=np.uint8))
+    stream = [rng.integers(0, 2, lead_bits, dtype=np.uint8)]
+    for f in frames:
+        cw, _ = reference_encode(np.unpackbits(np.frombuffer(bytes(f), dtype=np.uint8)), rate)
+        if randomize:
+            pn = np.unpackbits(np.frombuffer(pn_bytes((cw.size + 7) // 8), dtype=np.uint8))[: cw.size]
+            cw = cw ^ pn
+        stream += [marker, cw]
+    stream.append(rng.integers(0, 2, tail_bits, dtype=np.uint8))
+    return np.concatenate(stream)

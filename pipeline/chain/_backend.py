@@ -67,13 +67,15 @@ class FrameLog:
 
     Per frame: ``position`` (samples), ``status`` (index into :attr:`statuses`), ``rs_corrected`` (symbols
     corrected in the codeblock; -1 when a codeword failed, -2 without Reed-Solomon), ``asm_errors``,
-    ``flywheel``, and the CLCW of a frame that passed its checks (``clcw_report_value``, -1 without one;
-    ``clcw_flags``: bit 0 lockout, 1 wait, 2 retransmit, 3 no RF available, 4 no bit lock).  Stored in
+    ``flywheel``, ``decoder_iterations`` (turbo / LDPC iterations, -1 for other codes), and the CLCW of a frame
+    that passed its checks (``clcw_report_value``, -1 without one; ``clcw_flags``: bit 0 lockout, 1 wait,
+    2 retransmit, 3 no RF available, 4 no bit lock).  Stored in
     growing numpy arrays; past :data:`MAX_FRAME_LOG` entries every other one is dropped and ``stride`` doubles.
     """
 
     FIELDS = (("position", np.float64), ("status", np.int8), ("rs_corrected", np.int16), ("asm_errors", np.int8),
-              ("flywheel", np.bool_), ("clcw_report_value", np.int16), ("clcw_flags", np.int8))
+              ("flywheel", np.bool_), ("decoder_iterations", np.int16), ("clcw_report_value", np.int16),
+              ("clcw_flags", np.int8))
 
     def __init__(self):
         self.statuses: list[str] = []
@@ -110,6 +112,8 @@ class FrameLog:
         d["rs_corrected"][i] = -2 if not rs else (-1 if min(rs) < 0 else sum(rs))
         d["asm_errors"][i] = -1 if record.asm_errors is None else min(int(record.asm_errors), 127)
         d["flywheel"][i] = bool(record.flywheel)
+        iterations = getattr(record, "decoder_iterations", None)  # turbo / LDPC records only
+        d["decoder_iterations"][i] = -1 if iterations is None else iterations
         d["clcw_report_value"][i] = -1 if clcw is None else clcw["report_value"]
         d["clcw_flags"][i] = 0 if clcw is None else (clcw["lockout"] | clcw["wait"] << 1 | clcw["retransmit"] << 2
                                                       | clcw["no_rf_available"] << 3 | clcw["no_bit_lock"] << 4)
@@ -166,9 +170,9 @@ class BackEnd:
         self.obt_to_utc = obt_to_utc
         self.doppler_check = doppler_check
         self._format_utc = format_utc
-        from pipeline.fec import ASM
+        from pipeline.sync import link_marker
 
-        self._marker = bytes(ASM)  # the marker in front of every CADU (cadus.bin)
+        self._marker = link_marker(profile)  # the marker in front of every CADU (cadus.bin)
         self.parser = FrameParser(frames=profile.frames)
         self.accounting = ChannelAccounting(spacecraft_id=profile.frames.spacecraft_id)
         self.extractor = PacketExtractor(profile=profile, drop_duplicates=drop_duplicates)

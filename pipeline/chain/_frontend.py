@@ -130,7 +130,7 @@ class FrontEnd:
     def __init__(self, profile: LinkProfile, *, input_kind: InputKind = "iq", sample_rate_hz: float | None = None,
                  owned: tuple[float, float] | None = None, waterfall_row_samples: int | None = None):
         from pipeline.demod import LineDecoder
-        from pipeline.sync import BranchSync, CodeblockDecoder, FrameSync
+        from pipeline.sync import BranchSync, CodeblockDecoder, frame_sync_for
 
         if input_kind not in ("iq", "soft", "bits"):
             raise ValueError(f"Argument 'input_kind' must be iq | soft | bits, not {input_kind!r}.")
@@ -153,8 +153,7 @@ class FrontEnd:
         self.line = LineDecoder(line_code=line_code)
         self.branch = BranchSync(rate=profile.coding.convolutional, modulation=profile.link.modulation,
                                  g2_inverted=profile.coding.conv_g2_inverted)
-        self.fsync = FrameSync(frame_bits=8 * profile.codeblock_bytes, max_errors=rx.asm_max_errors,
-                               flywheel=rx.flywheel_frames)
+        self.fsync = frame_sync_for(profile)  # the link's marker: the ASM on hard bits, a turbo marker soft
         self.codeblock = CodeblockDecoder(profile=profile)
         self.counts = FrontCounts()
         self.constellation: np.ndarray | None = None
@@ -202,8 +201,8 @@ class FrontEnd:
             self._symbols(self.demod.flush())
         bits, pos = self.branch.flush()
         self._bits(bits, pos)
-        for cadu in self.fsync.flush():
-            self._cadu(cadu)
+        self._out.frames.extend(self.codeblock.process_cadus(self.fsync.flush()))
+        self._out.frames.extend(self.codeblock.flush())  # codewords still waiting for a full decoder batch
         return self._take()
 
     def summary(self) -> FrontSummary:
@@ -254,10 +253,6 @@ class FrontEnd:
         # so it is undone at the decoder output (uncoded links: the same place, on channel bits).
         bits = self.line.process(bits)
         was = self.fsync.locked
-        for cadu in self.fsync.process(bits, pos):
-            self._cadu(cadu)
+        self._out.frames.extend(self.codeblock.process_cadus(self.fsync.process(bits, pos)))
         if was and not self.fsync.locked:
             self.branch.notify_lost_lock()
-
-    def _cadu(self, cadu) -> None:
-        self._out.frames.append(self.codeblock.process(cadu))

@@ -45,8 +45,10 @@ __all__ = [
     "BDP_IDLE",
 ]
 
-FrameStatus = Literal["ok", "rs_uncorrectable", "fecf_error", "idle", "foreign_scid", "bad_header"]
-FRAME_STATUSES: tuple[str, ...] = ("ok", "rs_uncorrectable", "fecf_error", "idle", "foreign_scid", "bad_header")
+FrameStatus = Literal["ok", "rs_uncorrectable", "turbo_failed", "ldpc_failed", "fecf_error", "idle", "foreign_scid",
+                      "bad_header"]
+FRAME_STATUSES: tuple[str, ...] = ("ok", "rs_uncorrectable", "turbo_failed", "ldpc_failed", "fecf_error", "idle",
+                                   "foreign_scid", "bad_header")
 
 #: First header pointer: no packet header starts in this data field.
 FHP_NO_HEADER = 0x7FF
@@ -159,6 +161,10 @@ class FrameRecord:
         Sample position of the first channel symbol of the frame's ASM.
     rs_corrected : tuple of int
         RS symbols corrected per codeword (negative: uncorrectable), from the codeblock decoder.
+    decoder_iterations : int or None
+        Iterations of the turbo (or LDPC) decoder for this frame's codeword; None for other codes.
+    decoder_esn0_db : float or None
+        The Es/N0 estimate (dB) its soft codeword was scaled with; None for other codes.
     """
 
     status: str
@@ -172,6 +178,8 @@ class FrameRecord:
     asm_errors: int | None = None
     inverted: bool | None = None
     flywheel: bool | None = None
+    decoder_iterations: int | None = None
+    decoder_esn0_db: float | None = None
     detail: str = ""
     version: int | None = None
     scid: int | None = None
@@ -237,6 +245,9 @@ class FrameRecord:
         }
         if self.detail:
             d["detail"] = self.detail
+        if self.decoder_iterations is not None:  # turbo / LDPC links only
+            d["decoder_iterations"] = self.decoder_iterations
+            d["decoder_esn0_db"] = self.decoder_esn0_db
         if self.kind == "tm":
             d.update(ocf_flag=self.ocf_flag, sec_header_flag=self.sec_header_flag, sync_flag=self.sync_flag,
                      packet_order=self.packet_order, segment_length_id=self.segment_length_id)
@@ -361,6 +372,8 @@ class FrameParser:
             asm_errors=_opt_int(cadu.asm_errors),
             inverted=_opt_bool(cadu.inverted),
             flywheel=_opt_bool(cadu.flywheel),
+            decoder_iterations=_opt_int(getattr(decoded, "decoder_iterations", None)),
+            decoder_esn0_db=getattr(decoded, "decoder_esn0_db", None),
             length=len(frame),
         )
         in_status = str(decoded.status)

@@ -3,7 +3,9 @@
 Per frame: Reed-Solomon codeblock (dual basis, interleave I, virtual fill when the frame is shorter
 than k I) -> pseudo-randomizer over the codeblock -> ASM 1ACFFC1D in front.  The resulting CADU
 stream is then line-coded and convolutionally encoded as one continuous stream (the encoder state
-carries across CADUs).
+carries across CADUs).  Turbo links (``[coding] turbo``): each frame is turbo encoded
+(``pipeline.fec.turbo_encode``), the codeword randomized with the sequence restarted at all ones,
+and the rate's own marker put in front (CCSDS 131.0-B-2 sec. 6, 8.3 and 9; no other code follows).
 
 NRZ-M placement: CCSDS 131.0-B-2 sec. 3.3.3 says that when NRZ-L -> NRZ-M conversion is used with
 the convolutional code it is done at the *input* of the encoder (and NRZ-M -> NRZ-L at the output
@@ -77,7 +79,7 @@ class ChannelCoder:
     References
     ----------
     CCSDS 131.0-B-2 sec. 3 (convolutional code, NRZ-M sec. 3.3.3), 4 (RS, virtual fill sec. 4.3.7),
-    8 (ASM), 9 (randomizer).
+    6 (turbo codes), 8 (ASM, turbo markers), 9 (randomizer).
     """
 
     def __init__(self, profile: LinkProfile, *, nrzm_at: NrzmPosition = "encoder_input"):
@@ -88,7 +90,7 @@ class ChannelCoder:
         if profile.link.line_code not in ("nrz-l", "nrz-m"):
             raise ValueError(f"Argument 'profile' line_code must be nrz-l or nrz-m for the simulator, "
                              f"not {profile.link.line_code!r}.")
-        from pipeline.fec import ASM, ConvEncoder, puncture_pattern
+        from pipeline.fec import ASM, TURBO_ASMS, ConvEncoder, puncture_pattern
 
         self.profile = profile
         self.nrzm_at = nrzm_at
@@ -99,9 +101,12 @@ class ChannelCoder:
         self.rate = profile.coding.convolutional
         self.coded = self.rate != "none"
         self.nrzm = profile.link.line_code == "nrz-m"
-        self.asm = bytes(ASM)
+        self.turbo = profile.coding.turbo if profile.coding.turbo != "none" else None
+        self.asm = TURBO_ASMS[self.turbo] if self.turbo else bytes(ASM)
         self.codeblock_bytes = profile.codeblock_bytes
-        self.cadu_bits = 8 * (len(self.asm) + self.codeblock_bytes)
+        self.codeblock_bits = profile.codeblock_bits
+        self.cadu_bits = 8 * len(self.asm) + self.codeblock_bits
+        self._asm_bits = np.unpackbits(np.frombuffer(self.asm, dtype=np.uint8))
         if self.coded:
             pat = puncture_pattern(self.rate)
             per_col = pat.sum(axis=0).astype(np.int64)
@@ -115,6 +120,7 @@ class ChannelCoder:
         from pipeline.fec import pn_sequence
 
         self._pn = np.asarray(pn_sequence(self.codeblock_bytes), dtype=np.uint8) if self.randomize else None
+        self._pn_bits = np.unpackbits(self._pn)[: self.codeblock_bits] if self.randomize else None
         self.reset()
 
     def reset(self) -> None:
@@ -134,9 +140,12 @@ class ChannelCoder:
         return int(out) if out.ndim == 0 else out
 
     def codeblock(self, frame: bytes) -> bytes:
-        """The (randomized) codeblock of one frame: frame + RS parity, XOR the PN sequence."""
+        """The (randomized) codeblock of one frame: frame + RS parity, XOR the PN sequence (not for turbo links:
+        see :meth:`cadu_bit_rows`)."""
         from pipeline.fec import rs_encode
 
+        if self.turbo:
+            raise ValueError("Argument 'frame': a turbo codeword is not whole octets; use cadu_bit_rows().")
         if len(frame) != self.frame_bytes:
             raise ValueError(f"Argument 'frames' items must be {self.frame_bytes} octets, not {len(frame)}.")
         block = rs_encode(bytes(frame), self.rs_e, self.interleave) if self.rs_e else bytes(frame)
@@ -148,14 +157,29 @@ class ChannelCoder:
         """ASM + codeblock of one frame (the uncoded CADU)."""
         return self.asm + self.codeblock(frame)
 
+    def cadu_bit_rows(self, frames: list[bytes]) -> np.ndarray:
+        """The uncoded CADUs of ``frames`` as bits, one row each (uint8, shape (len(frames), cadu_bits))."""
+        for f in frames:
+            if len(f) != self.frame_bytes:
+                raise ValueError(f"Argument 'frames' items must be {self.frame_bytes} octets, not {len(f)}.")
+        if not self.turbo:
+            cadus = np.frombuffer(b"".join(self.cadu(bytes(f)) for f in frames), dtype=np.uint8)
+            return np.unpackbits(cadus).reshape(len(frames), self.cadu_bits)
+        from pipeline.fec import turbo_encode
+
+        info = np.frombuffer(b"".join(bytes(f) for f in frames), dtype=np.uint8).reshape(len(frames), -1)
+        code = turbo_encode(info, rate=self.turbo).reshape(len(frames), self.codeblock_bits)
+        if self._pn_bits is not None:
+            code = code ^ self._pn_bits[None, :]
+        return np.concatenate([np.broadcast_to(self._asm_bits, (len(frames), self._asm_bits.size)), code], axis=1)
+
     def process(self, frames: Iterable[bytes]) -> CoderOutput:
         """Encode frames into channel bits."""
         frames = list(frames)
         first_bit = self.channel_bits_done
         if not frames:
             return CoderOutput(np.zeros(0, np.uint8), first_bit, np.zeros(0, np.int64), np.zeros(0, np.int64))
-        cadus = b"".join(self.cadu(bytes(f)) for f in frames)
-        bits = np.unpackbits(np.frombuffer(cadus, dtype=np.uint8))
+        bits = self.cadu_bit_rows([bytes(f) for f in frames]).reshape(-1)
         starts = self.input_bits_done + self.cadu_bits * np.arange(len(frames), dtype=np.int64)
         if self.nrzm and (self.nrzm_at == "encoder_input" or not self.coded):
             coded_in = np.empty_like(bits)

@@ -126,6 +126,8 @@ def _check_number(name: str, value) -> float:
 def _description(profile: LinkProfile, ebn0_db: float, esn0_db: float, seconds: float, extras: list[str]) -> str:
     L, C, F = profile.link, profile.coding, profile.frames
     coding = []
+    if C.turbo != "none":
+        coding.append(f"turbo r={C.turbo} k={C.turbo_k}")
     if C.convolutional != "none":
         coding.append(f"convolutional r={C.convolutional}")
     if C.reed_solomon:

@@ -6,7 +6,16 @@ Decoded (or uncoded) soft bits -> :class:`FrameSync` -> :class:`Cadu` -> :class:
 
 from pipeline.sync._branchsync import BranchSync, BranchSyncStats, branch_metric
 from pipeline.sync._codeblock import CodeblockDecoder, CodeblockStats
-from pipeline.sync._framesync import DEFAULT_ASM, FrameSync, FrameSyncStats
+from pipeline.sync._codes import (
+    CodewordBatch,
+    SoftBlockCode,
+    TurboBlockCode,
+    frame_sync_for,
+    link_marker,
+    soft_block_code,
+)
+from pipeline.sync._esn0 import Esn0Estimate, MarkerEsn0Estimator
+from pipeline.sync._framesync import DEFAULT_ASM, Correlation, FrameSync, FrameSyncStats
 from pipeline.sync._types import Cadu, DecodedFrame, FrameStatus, SyncEvent, SyncEventKind
 
 __all__ = [
@@ -16,6 +25,15 @@ __all__ = [
     "FrameSync",
     "CodeblockDecoder",
     "CodeblockStats",
+    "CodewordBatch",
+    "SoftBlockCode",
+    "TurboBlockCode",
+    "soft_block_code",
+    "link_marker",
+    "frame_sync_for",
+    "Esn0Estimate",
+    "MarkerEsn0Estimator",
+    "Correlation",
     "FrameSyncStats",
     "DEFAULT_ASM",
     "Cadu",

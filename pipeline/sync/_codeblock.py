@@ -1,4 +1,5 @@
-"""Codeblock path: CADU -> de-randomize -> Reed-Solomon decode -> transfer frame with its status."""
+"""Codeblock path: CADU -> de-randomize -> Reed-Solomon decode (or a soft-decoded code: turbo) -> transfer frame
+with its status."""
 
 from __future__ import annotations
 
@@ -8,6 +9,9 @@ import numpy as np
 
 from pipeline.fec import pn_sequence, rs_decode
 from pipeline.profile import LinkProfile
+from pipeline.sync._args import check_int
+from pipeline.sync._codes import soft_block_code
+from pipeline.sync._esn0 import MarkerEsn0Estimator
 from pipeline.sync._types import Cadu, DecodedFrame
 
 __all__ = ["CodeblockDecoder", "CodeblockStats"]
@@ -25,19 +29,27 @@ class CodeblockStats:
     codewords_corrected: int = 0  # codewords with at least one symbol corrected
     codewords_uncorrectable: int = 0
     symbols_corrected: int = 0
+    decoder_failed: int = 0  # soft-decoded codewords whose check failed (turbo_failed / ldpc_failed)
+    decoder_iterations: int = 0  # iterations summed over the soft-decoded codewords
 
     def as_dict(self) -> dict:
         return asdict(self)
 
 
 class CodeblockDecoder:
-    """Turn CADUs into transfer frames: de-randomize, then Reed-Solomon decode (CCSDS 131.0-B).
+    """Turn CADUs into transfer frames: de-randomize, then Reed-Solomon or soft (turbo) decoding (CCSDS 131.0-B).
 
     Parameters
     ----------
     profile : LinkProfile
         Uses ``coding.randomizer``, ``coding.reed_solomon`` (E), ``coding.interleave`` (I) and
-        ``frames.length``; the codeblock is ``profile.codeblock_bytes`` octets.
+        ``frames.length``; the codeblock is ``profile.codeblock_bytes`` octets.  With a soft-decoded
+        code (``coding.turbo``) the code itself (:func:`~pipeline.sync.soft_block_code`).
+    batch_cadus : int or None
+        Soft-decoded codes: CADUs gathered before the decoder runs (1 .. 4096; None = the code's
+        ``batch_cadus``, 32 for turbo).  Any value gives the same frames.
+    esn0_window_cadus : int
+        Soft-decoded codes: markers pooled by the Es/N0 estimate (:class:`MarkerEsn0Estimator`).
 
     Notes
     -----
@@ -51,15 +63,34 @@ class CodeblockDecoder:
        failing codewords are then left exactly as received (de-randomized but uncorrected), those
        of the others are corrected.  Without RS the status is always ``"ok"`` here: the frame's
        FECF, when present, is checked by the frame parser.
+    4. Soft-decoded codes (turbo): the CADU's soft codeword is de-randomized by sign flips (the
+       same sequence restarted at the marker, CCSDS 131.0-B-2 sec. 9), scaled into channel LLRs
+       ``L = 2 A y / sigma^2`` with the estimate of :class:`MarkerEsn0Estimator` after this CADU's
+       marker (pooled over the last ``esn0_window_cadus`` markers), and decoded in batches of
+       ``batch_cadus`` by the code.  A codeword whose check fails gets the code's
+       ``failure_status`` (``turbo_failed``: never ``ok``); the iterations and the Es/N0 estimate
+       travel in the :class:`DecodedFrame`.  The scale depends only on the sequence of CADUs and
+       the decoder keeps no state between codewords, so the frames do not depend on the batching;
+       :meth:`process_cadus` returns them in CADU order once a batch is complete, :meth:`flush` the
+       rest.
 
-    Cost: one XOR pass plus the RS decoder (syndromes only on clean codewords).
+    Cost: one XOR pass plus the RS decoder (syndromes only on clean codewords); for turbo codes the
+    iterative decoder (about 20 Mbit/s of information on one core at k = 8920, rate 1/2).
 
     References
     ----------
-    CCSDS 131.0-B-2 sec. 4 (RS code, interleaving, virtual fill), sec. 9 (pseudo-randomizer).
+    CCSDS 131.0-B-2 sec. 4 (RS code, interleaving, virtual fill), sec. 6 (turbo codes), sec. 9
+    (pseudo-randomizer).
+
+    Examples
+    --------
+    >>> from pipeline.profile import demo_profile_path, load_profile
+    >>> dec = CodeblockDecoder(profile=load_profile(demo_profile_path()))
+    >>> dec.soft_code is None, dec.codeblock_bytes
+    (True, 1275)
     """
 
-    def __init__(self, *, profile: LinkProfile) -> None:
+    def __init__(self, *, profile: LinkProfile, batch_cadus: int | None = None, esn0_window_cadus: int = 32) -> None:
         if not isinstance(profile, LinkProfile):
             raise TypeError(f"Argument 'profile' must be a LinkProfile, not {type(profile).__name__}.")
         self.profile = profile
@@ -70,16 +101,64 @@ class CodeblockDecoder:
         self.interleave = int(c.interleave)
         self.randomizer = bool(c.randomizer)
         self._pn = np.asarray(pn_sequence(self.codeblock_bytes), dtype=np.uint8) if self.randomizer else None
+        self.soft_code = soft_block_code(profile)
+        self.batch_cadus = None
+        if self.soft_code is not None:
+            code = self.soft_code
+            self.batch_cadus = check_int("batch_cadus", code.batch_cadus if batch_cadus is None else batch_cadus,
+                                         1, 4096)
+            n = code.codeword_bits
+            pn_bits = np.unpackbits(self._pn)[:n] if self._pn is not None else np.zeros(n, np.uint8)
+            self._pn_signs = (1.0 - 2.0 * pn_bits.astype(np.float32)).astype(np.float32)
+            self._marker_signs = 1.0 - 2.0 * np.unpackbits(np.frombuffer(code.marker, np.uint8)).astype(np.float64)
+            self.esn0 = MarkerEsn0Estimator(window_cadus=esn0_window_cadus)
+        self._pending: list[tuple[Cadu, np.ndarray, float]] = []
         self.stats = CodeblockStats()
 
     def reset(self) -> None:
-        """Zero the statistics (the decoder keeps no other state between codeblocks)."""
+        """Zero the statistics, drop pending CADUs and forget the Es/N0 estimate."""
         self.stats = CodeblockStats()
+        self._pending = []
+        if self.soft_code is not None:
+            self.esn0.reset()
+
+    @property
+    def pending(self) -> int:
+        """CADUs waiting for their batch (soft-decoded codes)."""
+        return len(self._pending)
+
+    def process_cadus(self, cadus) -> list[DecodedFrame]:
+        """Take CADUs in stream order; return the frames completed, in CADU order.
+
+        RS / uncoded links decode every CADU at once; soft-decoded codes gather CADUs and decode a
+        batch when ``batch_cadus`` are waiting (:meth:`flush` decodes the rest).
+        """
+        if self.soft_code is None:
+            return [self.process(c) for c in cadus]
+        out: list[DecodedFrame] = []
+        for cadu in cadus:
+            self._queue(cadu)
+            if len(self._pending) >= self.batch_cadus:
+                out += self._decode_pending()
+        return out
+
+    def flush(self) -> list[DecodedFrame]:
+        """Decode the CADUs still waiting (end of stream); the decoder stays usable."""
+        return self._decode_pending() if self._pending else []
 
     def process(self, cadu: Cadu) -> DecodedFrame:
-        """Decode one CADU into a :class:`DecodedFrame` (see the class Notes for the status rules)."""
+        """Decode one CADU into a :class:`DecodedFrame` now (see the class Notes for the status rules).
+
+        With a soft-decoded code no CADU may be waiting in :meth:`process_cadus` (flush first).
+        """
         if not isinstance(cadu, Cadu):
             raise TypeError(f"Argument 'cadu' must be a Cadu, not {type(cadu).__name__}.")
+        if self.soft_code is not None:
+            if self._pending:
+                raise ValueError(f"Argument 'cadu' cannot be decoded alone while {len(self._pending)} CADUs wait "
+                                 "in process_cadus(); call flush() first.")
+            self._queue(cadu)
+            return self._decode_pending()[0]
         if len(cadu.data) != self.codeblock_bytes:
             raise ValueError(
                 f"Argument 'cadu' must carry {self.codeblock_bytes} octets (the profile's codeblock), "
@@ -115,3 +194,37 @@ class CodeblockDecoder:
             st.ok += 1
             status = "ok"
         return DecodedFrame(frame=frame.tobytes(), status=status, rs_corrected=corrected, cadu=cadu)
+
+    # ---- soft-decoded codes -----------------------------------------------------------------
+    def _queue(self, cadu: Cadu) -> None:
+        if not isinstance(cadu, Cadu):
+            raise TypeError(f"Argument 'cadu' must be a Cadu, not {type(cadu).__name__}.")
+        n, m = self.soft_code.codeword_bits, self._marker_signs.size
+        if cadu.soft is None or cadu.marker_soft is None or cadu.soft.shape != (n,) or cadu.marker_soft.shape != (m,):
+            raise ValueError(f"Argument 'cadu' must carry the soft codeword ({n} values) and marker ({m} values) of "
+                             f"{self.soft_code.name} (FrameSync keep_soft=True).")
+        est = self.esn0.update(cadu.marker_soft, self._marker_signs)
+        llr = np.asarray(cadu.soft, dtype=np.float32) * self._pn_signs
+        llr *= np.float32(est.llr_scale)
+        self._pending.append((cadu, llr, est.esn0_db))
+
+    def _decode_pending(self) -> list[DecodedFrame]:
+        pending, self._pending = self._pending, []
+        res = self.soft_code.decode(np.stack([llr for _, llr, _ in pending]))
+        st = self.stats
+        out = []
+        for j, (cadu, _, esn0_db) in enumerate(pending):
+            passed = bool(res.passed[j])
+            iterations = int(res.iterations[j])
+            st.codeblocks += 1
+            st.flywheel_codeblocks += int(cadu.flywheel)
+            st.decoder_iterations += iterations
+            if passed:
+                st.ok += 1
+            else:
+                st.decoder_failed += 1
+            out.append(DecodedFrame(frame=res.frames[j].tobytes(), status="ok" if passed else
+                                    self.soft_code.failure_status, rs_corrected=(), cadu=cadu,
+                                    decoder_iterations=iterations, decoder_esn0_db=round(float(esn0_db), 3),
+                                    fec_verified=passed))
+        return out

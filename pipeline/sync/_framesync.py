@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import asdict, dataclass
+from typing import Literal
 
 import numpy as np
 
@@ -11,12 +13,15 @@ from pipeline.sync import _kernels
 from pipeline.sync._args import as_soft_and_position, check_int
 from pipeline.sync._types import Cadu, SyncEvent
 
-__all__ = ["FrameSync", "FrameSyncStats", "DEFAULT_ASM"]
+__all__ = ["FrameSync", "FrameSyncStats", "DEFAULT_ASM", "Correlation"]
 
 #: The 32-bit attached sync marker 1ACFFC1D (CCSDS 131.0-B sec. 8.2), first transmitted bit = MSB.
 DEFAULT_ASM = ASM
 
 _SEARCH, _CHECK, _LOCK = "search", "check", "lock"
+
+#: How the marker is compared: hard decisions against ``max_errors``, or the normalised soft correlation.
+Correlation = Literal["hard", "soft"]
 
 
 @dataclass
@@ -64,12 +69,22 @@ class FrameSync:
         bits either side are tried before the marker is counted as missing: a slip of the bit clock
         of up to ``slip_bits`` bits is followed within the same frame.
     keep_soft : bool
-        Attach the codeblock's soft values to each CADU (for soft-input decoders).
+        Attach the codeblock's soft values (and the marker's) to each CADU (for soft-input decoders).
+    correlation : {"hard", "soft"}
+        "hard": the marker is compared with hard decisions and matches with at most ``max_errors``
+        mismatches.  "soft": it matches where the normalised soft correlation
+        (:func:`~pipeline.sync._kernels.marker_score`) reaches ``search_threshold`` when searching (and
+        for a slip) or ``lock_threshold`` at an expected position (check and lock); ``max_errors`` is
+        then not used.  For the low Es/N0 of turbo and LDPC codes.
+    search_threshold, lock_threshold : float
+        Soft correlation thresholds (in standard deviations of the score on noise), ``0 <
+        lock_threshold <= search_threshold``.
 
     Notes
     -----
-    Input is soft bits (float32, positive = bit 0) with the sample position of each bit; the
-    marker is correlated on hard decisions.  The state machine, with ``L = marker + frame_bits``:
+    Input is soft bits (float32, positive = bit 0) with the sample position of each bit.  With
+    ``correlation="hard"`` the marker is correlated on hard decisions.  The state machine, with
+    ``L = marker + frame_bits``:
 
     * search: the first offset ``c`` (scanning forward) where the marker or its complement
       matches with at most ``max_errors`` mismatches is a candidate; every offset is examined
@@ -86,6 +101,17 @@ class FrameSync:
     * A complemented marker means the codeblock is complemented (180-degree phase ambiguity); the
       data are re-inverted and ``inverted`` is set.  The polarity is followed marker by marker.
 
+    With ``correlation="soft"`` a match is a score ``|z| >= T``, ``z = sum(s_j y_j) / sqrt(sum(y_j^2))``
+    over the m soft values ``y`` at the offset and the marker's signs ``s`` (the sign of ``z`` is the
+    polarity); a search takes the best score among the m offsets from the first one that crosses the
+    threshold.  On data or noise ``z`` is about N(0, 1), so a false match has probability ``2 Q(T)``
+    per offset (1.4e-5 searching at T = 4.5 ... 2.7e-3 checking at T = 3); on the marker at Es/N0
+    ``rho`` per bit ``z`` is about ``sqrt(m) sqrt(2 rho / (1 + 2 rho))`` with standard deviation
+    ``1 / sqrt(1 + 2 rho)``: 5.7 for the 64-bit marker at -3 dB, 6.8 for the 192-bit one at -8 dB.
+    In lock, a marker not at the expected position is looked for in the slip window with the
+    search threshold (a slip is a stronger claim than a confirmation), best score first.  Search
+    cost O(m) per offset (:func:`~pipeline.sync._kernels.find_marker_soft`).
+
     Every decision needs only bits already received and is taken as soon as they are, so the
     output does not depend on how the input is cut into chunks.  Memory is bounded by about
     ``(check_frames + 2) L`` bits plus one input chunk.  Search cost: the kernel
@@ -94,7 +120,9 @@ class FrameSync:
     References
     ----------
     CCSDS 131.0-B-2 sec. 8 (ASM placement, pattern); CCSDS 130.1-G-1 sec. 8.3 (marker search);
-    search/check/lock/flywheel thresholds: common practice, no published source.
+    search/check/lock/flywheel thresholds: common practice, no published source.  Soft correlation:
+    J. L. Massey, "Optimum frame synchronization", IEEE Trans. Commun. 20(2), 1972 (the correlation
+    term of the optimum metric; the normalisation by the window's energy is ours).
     """
 
     def __init__(
@@ -107,6 +135,9 @@ class FrameSync:
         flywheel: int = 3,
         slip_bits: int = 2,
         keep_soft: bool = False,
+        correlation: Correlation = "hard",
+        search_threshold: float = 4.5,
+        lock_threshold: float = 3.0,
     ) -> None:
         if isinstance(asm, (bytearray, memoryview)):
             asm = bytes(asm)
@@ -120,6 +151,20 @@ class FrameSync:
         check_int("check_frames", check_frames, 0, 100)
         check_int("flywheel", flywheel, 0, 1000)
         check_int("slip_bits", slip_bits, 0, min(64, frame_bits // 2))
+        if correlation not in ("hard", "soft"):
+            raise ValueError(f"Argument 'correlation' must be hard | soft, not {correlation!r}.")
+        for name, value in (("search_threshold", search_threshold), ("lock_threshold", lock_threshold)):
+            if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+                raise TypeError(f"Argument '{name}' must be a number, not {type(value).__name__}.")
+            if not 0.0 < float(value) < math.sqrt(m):
+                raise ValueError(f"Argument '{name}' must be in (0, {math.sqrt(m):g}) for a {m}-bit marker, "
+                                 f"not {value}.")
+        if float(lock_threshold) > float(search_threshold):
+            raise ValueError(f"Argument 'lock_threshold' must be at most search_threshold ({search_threshold}), "
+                             f"not {lock_threshold}.")
+        self.correlation = correlation
+        self.search_threshold = float(search_threshold)
+        self.lock_threshold = float(lock_threshold)
         self.frame_bits = int(frame_bits)
         self.asm = asm
         self.max_errors = int(max_errors)
@@ -130,8 +175,12 @@ class FrameSync:
         self.marker_bits = m
         self.cadu_bits = m + self.frame_bits
         self._marker = np.unpackbits(np.frombuffer(asm, dtype=np.uint8)).astype(np.uint8)
+        self._sign = 1.0 - 2.0 * self._marker.astype(np.float64)
         self._result = np.zeros(2, dtype=np.int64)
+        self._score = np.zeros(1, dtype=np.float64)
         self._window_errors = np.zeros(2 * self.slip_bits + 1, dtype=np.int64)
+        self._window_scores = np.zeros(2 * self.slip_bits + 1, dtype=np.float64)
+        self._search_scores = np.zeros(m, dtype=np.float64)
         self.stats = FrameSyncStats()
         self.events: list[SyncEvent] = []
         self._clear_stream(0)
@@ -164,7 +213,8 @@ class FrameSync:
         Parameters
         ----------
         soft : array_like of float
-            Soft bits, positive = bit 0 (any scale; only the sign is used for the marker).
+            Soft bits, positive = bit 0 (any scale; with hard correlation only the sign is used for
+            the marker).
         position : array_like of float
             Sample position of each bit (for decoded bits: of the first channel symbol of its branch).
 
@@ -238,6 +288,74 @@ class FrameSync:
         inv_err = self.marker_bits - err
         return (inv_err, True) if inv_err < err else (err, False)
 
+    def _errors(self, at: int, inverted: bool) -> int:
+        """Hard mismatches of the marker (complemented when ``inverted``) at absolute bit ``at``."""
+        r = at - self._base
+        err = int(np.count_nonzero(self._hard[r : r + self.marker_bits] != self._marker))
+        return self.marker_bits - err if inverted else err
+
+    def _confirm(self, at: int) -> tuple[bool, int, bool]:
+        """(matches at the check/lock threshold, hard mismatches, inverted) of the marker at ``at``."""
+        if self.correlation == "hard":
+            err, inv = self._mismatches(at)
+            return err <= self.max_errors, err, inv
+        score = _kernels.marker_score(self._soft, at - self._base, self._sign)
+        inv = score < 0.0
+        return abs(score) >= self.lock_threshold, self._errors(at, inv), inv
+
+    def _search(self, stop: int, final: bool) -> int:
+        """Next candidate offset from ``search_at`` (absolute); -1: none before ``stop``; -2: more bits needed.
+
+        Sets ``_inverted``.  Soft correlation: the candidate is the best score among the ``m`` offsets
+        from the first one that crosses the threshold (the CCSDS turbo markers of rates 1/4 and 1/6 are a
+        half followed by its complement, so half a marker away a half-size score appears first).
+        """
+        a, b = self._search_at - self._base, stop - self._base
+        if self.correlation == "hard":
+            rel = _kernels.find_marker(self._hard, a, b, self._marker, self.max_errors, self._result)
+            self._inverted = bool(self._result[1])
+            return -1 if rel < 0 else self._base + int(rel)
+        rel = _kernels.find_marker_soft(self._soft, a, b, self._sign, self.search_threshold, self._score)
+        if rel < 0:
+            return -1
+        last = rel + self.marker_bits - 1
+        if last >= b and not final:
+            self._search_at = self._base + int(rel)  # decided once the whole window has arrived
+            return -2
+        count = min(last, b - 1) - rel + 1
+        scores = self._search_scores[:count]
+        _kernels.marker_scores(self._soft, rel, count, self._sign, scores)
+        j = int(np.argmax(np.abs(scores)))
+        self._inverted = bool(scores[j] < 0.0)
+        return self._base + int(rel) + j
+
+    def _slip(self, p: int, lo: int, hi: int) -> tuple[int, int, bool] | None:
+        """Best marker in ``[lo, hi]`` other than ``p``: (offset, hard mismatches, inverted), or None."""
+        count = hi - lo + 1
+        best = None
+        m, e = self.marker_bits, self.max_errors
+        if self.correlation == "hard":
+            errs = self._window_errors[:count]
+            _kernels.marker_mismatches(self._hard, lo - self._base, count, self._marker, errs)
+            for k in range(count):
+                q = lo + k
+                if q == p:
+                    continue
+                ek = int(min(errs[k], m - errs[k]))
+                key = (ek, abs(q - p), q)
+                if ek <= e and (best is None or key < best[0]):
+                    best = (key, q, bool(errs[k] > m - errs[k]))
+            return None if best is None else (best[1], best[0][0], best[2])
+        scores = self._window_scores[:count]
+        _kernels.marker_scores(self._soft, lo - self._base, count, self._sign, scores)
+        for k in range(count):
+            q = lo + k
+            z = float(scores[k])
+            key = (-abs(z), abs(q - p), q)
+            if q != p and abs(z) >= self.search_threshold and (best is None or key < best[0]):
+                best = (key, q, z < 0.0)
+        return None if best is None else (best[1], self._errors(best[1], best[2]), best[2])
+
     def _advance(self, out: list[Cadu], final: bool) -> None:
         m, L, e, w = self.marker_bits, self.cadu_bits, self.max_errors, self.slip_bits
         while True:
@@ -246,18 +364,16 @@ class FrameSync:
                 stop = end - m + 1  # one past the last offset holding a whole marker
                 if self._search_at >= stop:
                     return
-                rel = _kernels.find_marker(
-                    self._hard, self._search_at - self._base, stop - self._base, self._marker, e, self._result
-                )
-                if rel < 0:
+                c = self._search(stop, final)
+                if c == -2:
+                    return
+                if c < 0:
                     self._search_at = stop
                     return
-                c = self._base + int(rel)
                 self.stats.candidates += 1
                 self._candidate = c
                 self._checks_passed = 0
                 self._state = _CHECK
-                self._inverted = bool(self._result[1])
             elif self._state == _CHECK:
                 if self._checks_passed == self.check_frames:
                     self._state = _LOCK
@@ -270,8 +386,7 @@ class FrameSync:
                 q = self._candidate + (self._checks_passed + 1) * L
                 if q + m > end:
                     return
-                err, _ = self._mismatches(q)
-                if err <= e:
+                if self._confirm(q)[0]:
                     self._checks_passed += 1
                 else:
                     self.stats.false_candidates += 1
@@ -289,26 +404,15 @@ class FrameSync:
             return False
         if p + m > end:
             return False
-        err, inv = self._mismatches(p)
-        found = p if err <= e else -1
+        ok, err, inv = self._confirm(p)
+        found = p if ok else -1
         if found < 0 and w > 0:
             lo = max(p - w, self._base, self._last_cadu_start + 1)
             hi = min(p + w, end - m)  # clipped only at the end of the stream
             if hi >= lo:
-                count = hi - lo + 1
-                errs = self._window_errors[:count]
-                _kernels.marker_mismatches(self._hard, lo - self._base, count, self._marker, errs)
-                best = None
-                for k in range(count):
-                    q = lo + k
-                    if q == p:
-                        continue
-                    ek = int(min(errs[k], m - errs[k]))
-                    key = (ek, abs(q - p), q)
-                    if ek <= e and (best is None or key < best[0]):
-                        best = (key, q, bool(errs[k] > m - errs[k]))
+                best = self._slip(p, lo, hi)
                 if best is not None:
-                    (err, _, _), found, inv = best
+                    found, err, inv = best
         if found >= 0:
             if found + L > end:
                 return False  # only at the end of the stream: the last CADU is incomplete
@@ -328,8 +432,7 @@ class FrameSync:
         if self._misses <= self.flywheel:
             if p + L > end:
                 return False
-            upright = int(np.count_nonzero(self._hard[p - self._base : p - self._base + m] != self._marker))
-            self._emit(out, p, m - upright if self._inverted else upright, flywheel=True)
+            self._emit(out, p, self._errors(p, self._inverted), flywheel=True)
             self._expected = p + L
             return True
         self.stats.losses += 1
@@ -344,11 +447,13 @@ class FrameSync:
         bits = self._hard[r + m : r + L]
         if self._inverted:
             bits = bits ^ np.uint8(1)
-        soft = None
+        soft = marker_soft = None
         if self.keep_soft:
             soft = self._soft[r + m : r + L].copy()
+            marker_soft = self._soft[r : r + m].copy()
             if self._inverted:
                 soft = -soft
+                marker_soft = -marker_soft
         out.append(
             Cadu(
                 data=np.packbits(bits).tobytes(),
@@ -358,6 +463,7 @@ class FrameSync:
                 flywheel=flywheel,
                 bit_index=at,
                 soft=soft,
+                marker_soft=marker_soft,
             )
         )
         self._last_cadu_start = at

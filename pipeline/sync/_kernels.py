@@ -10,7 +10,16 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["popcount64", "find_marker", "marker_mismatches", "hard_decisions", "reencode_metrics"]
+__all__ = [
+    "popcount64",
+    "find_marker",
+    "marker_mismatches",
+    "marker_score",
+    "find_marker_soft",
+    "marker_scores",
+    "hard_decisions",
+    "reencode_metrics",
+]
 
 
 @numba.njit(cache=True)
@@ -86,6 +95,50 @@ def marker_mismatches(hard, start, count, marker, out):  # pragma: no cover - co
             if hard[base + j] != marker[j]:
                 err += 1
         out[k] = err
+
+
+@numba.njit(cache=True)
+def marker_score(soft, at, sign):  # pragma: no cover - compiled
+    """Normalised soft correlation of the marker with ``soft[at:at + m]``: ``sum(s_j y_j) / sqrt(sum(y_j^2))``.
+
+    ``sign[j]`` is +1.0 for a marker bit 0 and -1.0 for a bit 1 (positive soft value = bit 0).  The value
+    lies in ``[-sqrt(m), sqrt(m)]``; negative means the complemented marker.  On noise it is about N(0, 1)
+    whatever the scale of ``soft``; on a marker at amplitude A in Gaussian noise of variance sigma^2 per
+    value it is about ``sqrt(m) A / sqrt(A^2 + sigma^2)``.  0.0 when every value is 0 (erasures).  Summed
+    in float64 in index order, so the value at an offset never depends on where a search started.
+    """
+    m = sign.shape[0]
+    c = 0.0
+    e = 0.0
+    for j in range(m):
+        y = np.float64(soft[at + j])
+        c += sign[j] * y
+        e += y * y
+    if e <= 0.0:
+        return 0.0
+    return c / np.sqrt(e)
+
+
+@numba.njit(cache=True)
+def find_marker_soft(soft, start, stop, sign, threshold, result):  # pragma: no cover - compiled
+    """First offset in ``[start, stop)`` whose :func:`marker_score` has ``|score| >= threshold``.
+
+    The caller guarantees ``stop - 1 + m <= len(soft)``.  Returns the offset (or -1) and writes
+    ``result[0]`` = the score.  Cost O(m) per offset.
+    """
+    for i in range(start, stop):
+        sc = marker_score(soft, i, sign)
+        if sc >= threshold or -sc >= threshold:
+            result[0] = sc
+            return i
+    return -1
+
+
+@numba.njit(cache=True)
+def marker_scores(soft, start, count, sign, out):  # pragma: no cover - compiled
+    """``out[k]`` = :func:`marker_score` at offset ``start + k``, ``k = 0 .. count - 1``.  Cost O(count m)."""
+    for k in range(count):
+        out[k] = marker_score(soft, start + k, sign)
 
 
 @numba.njit(cache=True)

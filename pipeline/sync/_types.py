@@ -10,7 +10,7 @@ import numpy as np
 __all__ = ["Cadu", "DecodedFrame", "SyncEvent", "SyncEventKind", "FrameStatus"]
 
 SyncEventKind = Literal["lock_acquired", "lock_lost", "bit_slip", "polarity_change", "branch_selected"]
-FrameStatus = Literal["ok", "rs_uncorrectable"]
+FrameStatus = Literal["ok", "rs_uncorrectable", "turbo_failed", "ldpc_failed"]
 
 
 @dataclass(frozen=True)
@@ -38,6 +38,9 @@ class Cadu:
     soft : numpy.ndarray or None
         The soft values of the codeblock (float32, inversion removed), only when the synchronizer
         was built with ``keep_soft=True`` (for soft-input decoders).  Not compared by ``==``.
+    marker_soft : numpy.ndarray or None
+        The soft values of the marker itself (float32, inversion removed), with ``keep_soft=True``:
+        known bits, from which a decoder can estimate Es/N0.  Not compared by ``==``.
     """
 
     data: bytes
@@ -47,6 +50,7 @@ class Cadu:
     flywheel: bool
     bit_index: int
     soft: np.ndarray | None = field(default=None, compare=False, repr=False)
+    marker_soft: np.ndarray | None = field(default=None, compare=False, repr=False)
 
 
 @dataclass(frozen=True)
@@ -56,21 +60,36 @@ class DecodedFrame:
     Attributes
     ----------
     frame : bytes
-        The transfer frame (codeblock without RS parity, de-randomized).  For an uncorrectable
-        codeblock these are the received, uncorrected octets of the failing codewords.
-    status : {"ok", "rs_uncorrectable"}
-        ``"rs_uncorrectable"`` when any RS codeword of the codeblock failed; never ``"ok"`` then.
+        The transfer frame (codeblock without RS parity, de-randomized; a turbo code's decoded
+        information block).  For an uncorrectable codeblock these are the received, uncorrected
+        octets of the failing codewords; for a failed turbo codeword the decoder's last decisions.
+    status : {"ok", "rs_uncorrectable", "turbo_failed", "ldpc_failed"}
+        ``"rs_uncorrectable"`` when any RS codeword of the codeblock failed, ``"turbo_failed"``
+        when the turbo decoder's FECF check still failed after its last iteration
+        (``"ldpc_failed"`` is reserved for LDPC codewords whose syndrome is not zero); never
+        ``"ok"`` then.
     rs_corrected : tuple of int
         Symbols corrected per RS codeword (interleave order), -1 for an uncorrectable one; empty
         without Reed-Solomon coding.
     cadu : Cadu
         The CADU it came from (position, ASM errors, flywheel flag...).
+    decoder_iterations : int or None
+        Iterations the iterative (turbo, LDPC) decoder ran for this codeword; None for other codes.
+    decoder_esn0_db : float or None
+        The Es/N0 estimate (dB per channel bit) the soft codeword was scaled with into LLRs; None
+        for hard-decision codes.
+    fec_verified : bool
+        The iterative decoder's own check held (turbo: the FECF of the decoded frame; LDPC: a zero
+        syndrome).  False for other codes (their frames are verified by RS or by the frame parser).
     """
 
     frame: bytes
     status: FrameStatus
     rs_corrected: tuple[int, ...]
     cadu: Cadu
+    decoder_iterations: int | None = None
+    decoder_esn0_db: float | None = None
+    fec_verified: bool = False
 
     @property
     def position(self) -> float:
