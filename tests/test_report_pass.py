@@ -2,7 +2,7 @@
 
 The recordings are built by tests/third_party_tx.py (frames, RS, randomizer, convolutional code from reedsolo,
 crccheck and plain shift registers) and modulated by tests/demod_signals.py, with noise before and after the
-signal, a Doppler ramp and five frames left out by the transmitter; the SigMF metadata is written here by hand
+signal, a Doppler ramp and a fade (signal off) over five frames; the SigMF metadata is written here by hand
 (SigMF specification: core:datatype, core:sample_rate, captures with core:sample_start and core:datetime).
 The page itself is opened in a real headless browser (Chromium), screenshot taken and the DOM checked.
 """
@@ -30,7 +30,7 @@ ESN0_DB = 8.0
 CARRIER_HZ, DOPPLER_RATE = -650.0, 30.0
 START = "2026-03-14T09:30:00Z"
 LEAD_S = 0.4  # noise only, before and after the signal
-DROPPED = range(20, 25)  # frames the transmitter leaves out: their counts are missing
+FADED = range(20, 25)  # frames sent while the signal is off (demod_signals' dropout): never received whole
 PASS_KEYS = {"first_lock_utc", "last_lock_utc", "packets", "frames_ok", "frames_failed", "frames_missing",
              "esn0_db_mean", "esn0_db_min", "carrier_offset_hz_min", "carrier_offset_hz_max", "time_known",
              "ert_definition"}  # issue 18
@@ -63,14 +63,19 @@ def recorded_pass(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("pass")
     packets = _packets(160, seed=5)
     frames = tx.tm_frames(packets, scid=77, vcid=3, length=223, ocf=True, fecf=False)
-    sent = [f for i, f in enumerate(frames) if i not in DROPPED]
-    bits = tx.channel_bits(sent, rs_e=16, interleave=1, randomize=True, conv=True, nrz_m=True)
+    lead_bits = 317
+    bits = tx.channel_bits(frames, rs_e=16, interleave=1, randomize=True, conv=True, nrz_m=True, lead_bits=lead_bits)
     rng = np.random.default_rng(11)
-    lead = int(LEAD_S * SYMBOL_RATE)
+    lead, timing, ppm = int(LEAD_S * SYMBOL_RATE), 0.21, -40.0
+    # channel bit k peaks at (lead + k + timing) fs / (Rs (1 + ppm 1e-6)) samples (demod_signals.modulate);
+    # r = 1/2: two channel bits per bit of the 32-bit ASM + 255-octet codeblock
+    frame_bits = 2 * 8 * (4 + 255)
+    sps = SAMPLE_RATE / SYMBOL_RATE * (1 + ppm * 1e-6)
+    fade = [(lead + 2 * lead_bits + i * frame_bits + timing) * sps / SAMPLE_RATE for i in (FADED[0], FADED[-1] + 1)]
     wave = ds.modulate(len(bits), modulation="bpsk", sample_rate_hz=SAMPLE_RATE, symbol_rate_baud=SYMBOL_RATE,
-                       timing_offset=0.21, clock_offset_ppm=-40.0, carrier_offset_hz=CARRIER_HZ,
+                       timing_offset=timing, clock_offset_ppm=ppm, carrier_offset_hz=CARRIER_HZ,
                        doppler_rate_hz_per_s=DOPPLER_RATE, phase_rad=1.0, esn0_db=ESN0_DB, rng=rng,
-                       bits=(bits, np.zeros_like(bits)), lead_symbols=lead)
+                       bits=(bits, np.zeros_like(bits)), lead_symbols=lead, dropout=tuple(fade))
     (tmp / "pass.sigmf-data").write_bytes(wave.samples.astype("<c8").tobytes())
     meta = {"global": {"core:datatype": "cf32_le", "core:sample_rate": SAMPLE_RATE, "core:version": "1.2.0"},
             "captures": [{"core:sample_start": 0, "core:datetime": START}], "annotations": []}
@@ -123,15 +128,26 @@ def test_counts_against_the_decode_and_the_transmitter(recorded_pass):
     assert v["frames_ok"] == statuses.count("ok") > 50
     assert v["frames_idle"] == statuses.count("idle")
     assert v["frames_failed"] == len(statuses) - statuses.count("ok") - statuses.count("idle")
-    assert v["frames_missing"] == len(DROPPED)  # the transmitter left out five frames: their counts are absent
+    # The five frames sent during the fade never arrived whole: the counter skips exactly them, and of those the
+    # ones the synchronizer still emitted (flywheel, failed) are failed frames; the rest is missing by count.
+    ok_counts = [f["mcfc"] for f in frames if f["status"] == "ok"]
+    before = max(c for c in ok_counts if c < FADED[0])
+    after = min(c for c in ok_counts if c > FADED[-1])
+    assert (before, after) == (FADED[0] - 1, FADED[-1] + 1)
+    i0 = next(i for i, f in enumerate(frames) if f.get("mcfc") == before)
+    i1 = next(i for i, f in enumerate(frames) if f.get("mcfc") == after)
+    failed_between = sum(f["status"] not in ("ok", "idle") for f in frames[i0 + 1:i1])
+    assert v["frames_missing"] == len(FADED) - failed_between
+    gaps = [g for g in recorded_pass["report"]["gaps"] if g["kind"] == "mc"]
+    assert [(g["expected"], g["got"], g["missing"]) for g in gaps] == [(FADED[0], FADED[-1] + 1, len(FADED))]
     # the packets those frames carried are missing by their sequence counts
-    assert v["packets_missing"] >= len(DROPPED)
+    assert v["packets_missing"] >= len(FADED)
 
 
 def test_esn0_and_carrier_only_while_locked(recorded_pass):
     v = recorded_pass["report"]["pass"]
-    # M2M4 over a 7800-symbol block reads within a fraction of a dB at 8 dB; an unlocked (noise) block or the
-    # block in which lock was gained would read many dB lower: the minimum shows none was counted
+    # M2M4 over a 7800-symbol block reads within a fraction of a dB at 8 dB; an unlocked (noise or fade) block or
+    # the block in which lock was gained would read many dB lower: the minimum shows none was counted
     assert abs(v["esn0_db_mean"] - ESN0_DB) < 1.0, v
     assert v["esn0_db_min"] > ESN0_DB - 1.5, v
     # the carrier ramps -650 Hz + 30 Hz/s from the first sample (demod_signals.modulate)

@@ -259,10 +259,15 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fl
     return verdict
 
 
-def _lock_window(tpos: np.ndarray, locked: np.ndarray) -> tuple[float, float] | None:
-    if not locked.any():
-        return None
-    return float(tpos[locked][0]), float(tpos[locked][-1])
+def _frames_while_locked(fpos: np.ndarray, tpos: np.ndarray, locked: np.ndarray) -> np.ndarray:
+    """Frames received while the receiver held lock: the first track point at or after a frame is locked.
+
+    Without a receiver track (channel-symbol input) every frame counts.  O(frames log track points).
+    """
+    if tpos.size == 0:
+        return np.ones(fpos.shape, bool)
+    idx = np.minimum(np.searchsorted(tpos, fpos, side="left"), tpos.size - 1)
+    return locked[idx]
 
 
 def build_report(f: RunFacts) -> tuple[dict, PlotData]:
@@ -279,7 +284,7 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
     -----
     Es/N0 and carrier offset are taken only from track points whose whole block was locked (carrier and
     symbols) and that cover a full block (:func:`_track_usable`); the mean Es/N0 is that of the power ratio.
-    The bit error rate counts the frames received between the first and the last lock
+    The bit error rate counts the frames received while the receiver held lock
     (:mod:`pipeline.report._quality` gives the estimators).  Cost: O(track points + frames).
     """
     p = f.profile
@@ -296,12 +301,11 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
     span_hi = max([f.duration_s * f.position_rate_hz, *(x.max() for x in (tpos, fpos) if x.size)])
     clock = _Clock(f, (0.0, float(span_hi)))
 
-    window = _lock_window(tpos, locked)
-    in_window = np.ones(fpos.shape, bool) if window is None or not iq else (fpos >= window[0]) & (fpos <= window[1])
+    counted = _frames_while_locked(fpos, tpos, locked)
     rs_e = p.coding.reed_solomon
     ber_kw = dict(codeblock_octets=p.codeblock_bytes, rs_e=rs_e)
     conv = p.coding.convolutional != "none"
-    ber = bit_error_estimate(rs[in_window], asm[in_window], convolutional=conv, **ber_kw) if fpos.size else None
+    ber = bit_error_estimate(rs[counted], asm[counted], convolutional=conv, **ber_kw) if fpos.size else None
 
     lock_fraction = f.locked_symbols / f.channel_symbols if iq and f.channel_symbols else None
     good_esn0 = esn0[usable & np.isfinite(esn0)]
@@ -345,7 +349,7 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
                           "lies between the estimate and s/N" if ber.method == "reed_solomon" else
                           "ASM: wrong bits among the 32 known bits of each frame's marker; frames whose marker had "
                           "more wrong bits than the synchronizer accepts are missed, so the figure is low"),
-            "frames_counted": "frames received between the first and the last lock",
+            "frames_counted": "frames received while the receiver held lock",
         },
     }
     if clcw is not None:
@@ -388,17 +392,17 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
     if f.doppler_check is not None:
         report["doppler_check"] = f.doppler_check
     return report, _plot_data(f, clock, tpos=tpos, esn0=esn0, carrier=carrier, usable=usable, locked=locked,
-                              flog=flog, in_window=in_window, ber_kw=ber_kw, ocf=clcw is not None)
+                              flog=flog, counted=counted, ber_kw=ber_kw, ocf=clcw is not None)
 
 
-def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locked, flog, in_window, ber_kw,
+def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locked, flog, counted, ber_kw,
                ocf) -> PlotData:
     p = f.profile
     fpos = np.asarray(flog.get("position", ()), dtype=np.float64)
     ft = clock.seconds(fpos)
     rs = np.asarray(flog.get("rs_corrected", ()), dtype=np.int64)
     asm = np.asarray(flog.get("asm_errors", ()), dtype=np.int64)
-    series = bit_error_series(ft[in_window], rs[in_window], asm[in_window], **ber_kw) if fpos.size else None
+    series = bit_error_series(ft[counted], rs[counted], asm[counted], **ber_kw) if fpos.size else None
     wf_t = wf_f = wf_db = None
     if f.waterfall is not None:
         rows, db = f.waterfall.result()

@@ -342,9 +342,9 @@ def _ber_text(ber: dict | None) -> str:
     if not isinstance(ber, dict):
         return "Bit error rate: not estimated (no frames)."
     return (f"Bit error rate of {ber.get('applies_to', '')}, estimated for runs of consecutive frames received "
-            "while locked (how: below the figure). Dots: the estimate, with a bar up to the burst limit; "
-            "triangles down: no error was seen, the rate lies below the mark (95 % confidence); red triangles up: "
-            "a codeblock failed, the rate is at least this.")
+            "while the receiver held lock (how: below the figure). Dots: the estimate, with a bar up to the burst "
+            "limit; triangles down: no error was seen, the rate lies below the mark (95 % confidence); red "
+            "triangles up: a codeblock failed, the rate is at least this.")
 
 
 def _ber_method_html(ber: dict | None) -> str:
