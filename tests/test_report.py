@@ -280,7 +280,7 @@ def test_bad_plot_data_is_a_note_not_a_crash():
     doc = render_html({}, PlotData(track_time_s=np.arange(4.0), track_carrier_hz=np.arange(4.0),
                                    track_esn0_db=np.full(4, np.nan)))
     c = _parse(doc)
-    assert len(_check_images(c)) == 1 and "Es/N0: not shown (no Es/N0 while locked)" in " ".join(c.text)
+    assert len(_check_images(c)) == 1 and "not shown: Es/N0 (no Es/N0 while locked)" in " ".join(c.text)
 
 
 def test_time_axis_utc_or_seconds(rng):

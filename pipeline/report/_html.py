@@ -291,15 +291,20 @@ def _verdict_html(v: dict, ber: dict | None, anchor: str) -> str:
     ber_main, ber_sub = _ber_card(v, ber or {})
     cmin, cmax = v.get("carrier_offset_hz_min"), v.get("carrier_offset_hz_max")
     span = cmax - cmin if isinstance(cmin, (int, float)) and isinstance(cmax, (int, float)) else None
+    esn0 = (f"mean {_num(v.get('esn0_db_mean'), '.1f', 'dB')}",
+            f"worst {_num(v.get('esn0_db_min'), '.1f', 'dB')}, best {_num(v.get('esn0_db_max'), '.1f', 'dB')}")
+    carrier = (f"{_num(cmin, '.1f')} &#8230; {_num(cmax, '.1f', 'Hz')}", f"range {_num(span, '.1f', 'Hz')}")
+    if v.get("esn0_db_mean") is None:
+        why = ("not measured: channel-symbol input has no receiver" if v.get("lock_source") == "frame synchronizer"
+               else "not measured: the receiver was never locked over a whole block")
+        esn0 = carrier = ("&#8212;", why)
     cards = [
         ("Pass window (first to last lock)", window, window_sub),
         ("Packets delivered", _num(packets, "d"), f"{_count(pk_missing)} missing by sequence count"),
         ("Frames good / failed / missing", f"{_num(ok, 'd')} / {_count(failed)} / {_count(missing)}",
          f"missing by frame count; {_num(v.get('frames_idle'), 'd')} idle frames{fly_txt}"),
-        ("Es/N0 while locked", f"mean {_num(v.get('esn0_db_mean'), '.1f', 'dB')}",
-         f"worst {_num(v.get('esn0_db_min'), '.1f', 'dB')}, best {_num(v.get('esn0_db_max'), '.1f', 'dB')}"),
-        ("Carrier offset while locked", f"{_num(cmin, '.1f')} &#8230; {_num(cmax, '.1f', 'Hz')}",
-         f"range {_num(span, '.1f', 'Hz')}"),
+        ("Es/N0 while locked", *esn0),
+        ("Carrier offset while locked", *carrier),
         ("Bit error rate (estimated)", ber_main, ber_sub),
     ]
     body = "".join(f'<div class="{"wide" if i == 0 else "card"}"><dt>{_esc(t)}</dt><dd>{main}<small>{sub}</small>'
@@ -358,7 +363,7 @@ def _ber_method_html(ber: dict | None) -> str:
 
 def _figure_html(fig: Figure, ber: dict | None) -> str:
     if fig.png is None:
-        return f'<h3>{_esc(fig.title)}</h3><p class="note">{_esc(fig.note)}</p>'
+        return f'<p class="note">{_esc(fig.note)}</p>'
     b64 = base64.b64encode(fig.png).decode("ascii")
     items = "".join(f"<li>{_esc(_ber_text(ber) if p == 'bit error rate' else _PANEL_TEXT.get(p, p))}</li>"
                     for p in fig.panels)

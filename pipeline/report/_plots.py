@@ -503,7 +503,7 @@ def _plot_timeline(d: PlotData) -> tuple[bytes, tuple[str, ...], list[str]]:
             names = fn(ax, axis, d)
         except _Missing as why:
             fig.delaxes(ax)
-            notes.append(f"{name}: not shown ({why})")
+            notes.append(f"{name} ({why})")
             continue
         ax.tick_params(labelsize=8)
         ax.yaxis.label.set_size(9)
@@ -512,7 +512,7 @@ def _plot_timeline(d: PlotData) -> tuple[bytes, tuple[str, ...], list[str]]:
     if not axes:
         raise _Missing("; ".join(notes))
     _stack_time_axes(axes, axis, d.span_s)
-    return _png(fig), tuple(drawn), notes
+    return _png(fig), tuple(drawn), [f"not shown: {n}" for n in notes]
 
 
 def _stack_time_axes(axes: list, axis: _Axis, span_s) -> None:
@@ -590,14 +590,14 @@ def _plot_snapshot(d: PlotData) -> tuple[bytes, tuple[str, ...], list[str]]:
             fn(ax, d)
         except _Missing as why:
             fig.delaxes(ax)
-            notes.append(f"{name}: not shown ({why})")
+            notes.append(f"{name} ({why})")
             continue
         ax.grid(True, alpha=0.3)
         ax.tick_params(labelsize=8)
         drawn.append(name)
     if not drawn:
         raise _Missing("; ".join(notes))
-    return _png(fig), tuple(drawn), notes
+    return _png(fig), tuple(drawn), [f"not shown: {n}" for n in notes]
 
 
 # ---- CLCW ---------------------------------------------------------------------------------------
