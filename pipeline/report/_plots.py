@@ -239,6 +239,19 @@ def _worst_per_bin(t: np.ndarray, v: np.ndarray, bins: int = MAX_FRAME_MARKERS) 
     return t[edges], np.maximum.reduceat(v, edges)
 
 
+def _time_bins(t: np.ndarray, v: np.ndarray, width: float,
+               bins: int = MAX_FRAME_MARKERS) -> tuple[np.ndarray, np.ndarray, float]:
+    """Sorted items on at most ``bins`` equal time bins: (start of each non-empty bin, its largest value, the
+    bin width); the items themselves when there are few.  Bounds the rectangles a strip draws.  O(n)."""
+    if t.size <= bins:
+        return t, v, width
+    lo, hi = float(t[0]), float(t[-1]) + width
+    step = (hi - lo) / bins
+    k = np.minimum(((t - lo) / step).astype(np.int64), bins - 1)
+    starts = np.flatnonzero(np.concatenate([[True], np.diff(k) != 0]))
+    return lo + k[starts] * step, np.maximum.reduceat(v, starts), max(step, width)
+
+
 def _block_mean(a: np.ndarray, axis: int, most: int) -> tuple[np.ndarray, int]:
     """Average ``a`` down to at most ``most`` entries along ``axis`` (NaN-aware, runs of ``k``); (array, k)."""
     n = a.shape[axis]
@@ -296,8 +309,9 @@ def _shade_unlocked(ax, axis: _Axis, d: PlotData) -> None:
     lk = np.asarray(d.track_locked, dtype=bool)
     if t.size != lk.size or t.size == 0:
         return
-    step = float(np.median(np.diff(t))) if t.size > 1 else 0.0
-    for start, length in _runs(t - step, ~lk, step if step > 0 else 1.0):
+    step = float(np.median(np.diff(t))) if t.size > 1 else 1.0
+    tb, unlocked, width = _time_bins(t - step, (~lk).astype(np.int8), step)
+    for start, length in _runs(tb, unlocked > 0, width):
         ax.axvspan(axis.x(start), axis.x(start + length), color=_UNLOCKED, lw=0, zorder=0)
 
 
@@ -393,8 +407,11 @@ def _panel_quality(ax, axis: _Axis, d: PlotData) -> tuple[str, ...]:
     y0 = float(len(lanes))
     w = float(d.frame_duration_s) or (float(np.median(np.diff(t))) if t.size > 1 else 1.0)
     rows = ((0, _GOOD, "good"), (1, _IDLE, "idle"), (3, _OTHER, "other spacecraft"), (2, _FAILED, "failed"))
+    rank = np.array([0, 1, 3, 2])  # a time bin shows its worst frame: failed, other spacecraft, idle, good
+    tb, worst, wb = _time_bins(t, rank[np.clip(cat, 0, 3)], w)
+    shown = rank[worst]  # the rank table is its own inverse
     for code, color, _ in rows:
-        spans = _runs(t, cat == code, w)
+        spans = _runs(tb, shown == code, wb)
         if spans:
             ax.broken_barh([(axis.x(a), axis.width(b)) for a, b in spans], (y0 + 0.15, 0.7), color=color, lw=0)
     for a, b in d.missing_spans_s or ():
@@ -618,7 +635,8 @@ def _plot_clcw(d: PlotData) -> tuple[bytes, tuple[str, ...], list[str]]:
     ax = fig.add_subplot(fig.add_gridspec(1, 1, left=0.125, right=0.84, top=0.96, bottom=0.2)[0])
     w = float(np.median(np.diff(t))) if t.size > 1 else (float(d.frame_duration_s) or 1.0)
     for lane, (bit, _) in enumerate(reversed(_CLCW_FLAGS)):
-        spans = _runs(t, (flags >> bit) & 1 == 1, w)
+        tb, on, wb = _time_bins(t, ((flags >> bit) & 1).astype(np.int8), w)
+        spans = _runs(tb, on > 0, wb)
         if spans:
             ax.broken_barh([(axis.x(a), axis.width(b)) for a, b in spans], (lane + 0.2, 0.6), color=_FAILED, lw=0)
     lo, hi = int(value.min()), int(value.max())
