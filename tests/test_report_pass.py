@@ -20,8 +20,8 @@ import numpy as np
 import pytest
 
 from pipeline import decode
-from pipeline.profile import profile_from_dict
 from pipeline.chain import ERT_DEFINITION
+from pipeline.profile import profile_from_dict
 from pipeline.report import SCHEMA_VERSION
 
 SAMPLE_RATE = 200_000.0
@@ -102,7 +102,8 @@ def test_verdict_keys_and_schema(recorded_pass):
 
 
 def test_lock_window_against_the_signal_on_and_off(recorded_pass):
-    from pipeline.recording._time import parse_iso_ns
+    def parse_iso_ns(text: str) -> int:  # numpy's ISO-8601 parser, nanoseconds since 1970 (no leap second here)
+        return int(np.datetime64(text.rstrip("Z"), "ns").astype(np.int64))
 
     v = recorded_pass["report"]["pass"]
     block = v["lock_resolution_s"]
@@ -113,8 +114,9 @@ def test_lock_window_against_the_signal_on_and_off(recorded_pass):
     assert abs(v["last_lock_s"] - recorded_pass["t_off"]) <= block, (v["last_lock_s"], recorded_pass["t_off"])
     t0 = parse_iso_ns(START)
     for key in ("first", "last"):
+        # the UTC string is an ERT: the leading edge of the symbol there, half a symbol before its centre
         utc_s = (parse_iso_ns(v[f"{key}_lock_utc"]) - t0) * 1e-9
-        assert abs(utc_s - v[f"{key}_lock_s"]) < 1e-6
+        assert abs(utc_s - (v[f"{key}_lock_s"] - 0.5 / SYMBOL_RATE)) < 1e-6
 
 
 def test_counts_against_the_decode_and_the_transmitter(recorded_pass):

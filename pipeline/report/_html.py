@@ -274,6 +274,13 @@ def _ber_card(v: dict, ber: dict) -> tuple[str, str]:
     return f"{prefix}{_num(est, '.2g')}", f"{_esc(where)}; see below the timeline"
 
 
+def _sentence(text: Any) -> str:
+    """``ERT: <definition>.`` from the definition string ("" when there is none)."""
+    if not isinstance(text, str) or not text:
+        return ""
+    return f"ERT (Earth-received time): {text}{'' if text.endswith('.') else '.'}"
+
+
 def _verdict_html(v: dict, ber: dict | None, anchor: str) -> str:
     ok, failed, missing = v.get("frames_ok"), v.get("frames_failed"), v.get("frames_missing")
     packets, pk_missing = v.get("packets"), v.get("packets_missing")
@@ -315,7 +322,7 @@ def _verdict_html(v: dict, ber: dict | None, anchor: str) -> str:
                 "from its start. ")
     return (f'<section id="{anchor}" class="verdict {cls}"><h2>Verdict</h2>'
             f'<p class="headline">{headline}</p><dl class="cards">{body}</dl>'
-            f'<p class="time">{_esc(time_txt)}{_esc(v.get("ert_definition", ""))}</p></section>')
+            f'<p class="time">{_esc(time_txt)}{_esc(_sentence(v.get("ert_definition")))}</p></section>')
 
 
 # ---- figures and tables -------------------------------------------------------------------------
