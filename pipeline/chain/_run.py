@@ -352,6 +352,7 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         position_rate_hz=inp.position_rate_hz, frames=back.frame_count, packets=back.packet_count,
         status_counts=dict(status), accounting=back.accounting.as_dict(),
         packet_stats=back.extractor.stats.as_dict(), gaps=back.gaps, ert=back.ert if inp.timebase else None,
+        utc_ns=None if back.clock is None else back.clock.utc_ns,
         downlink_frequency_hz=downlink_hz,
         spectrum=_spectrum(spectrum_tap.samples(), inp.position_rate_hz) if inp.kind == "iq" else None,
         constellation=front.constellation, waterfall=front.waterfall, frame_log=back.frame_log.arrays(),

@@ -6,17 +6,29 @@ result is what ``report.json`` holds and what ``report.html`` renders, plus the 
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
 from pipeline.report._plots import PlotData
+from pipeline.report._quality import bit_error_estimate, bit_error_series
 
-__all__ = ["CAUTION", "RunFacts", "build_report"]
+__all__ = ["CAUTION", "SCHEMA_VERSION", "RunFacts", "build_report"]
 
 #: The caution printed with every decode and in every report (one home for the sentence).
 CAUTION = "Decoded data is no substitute for the mission's validated ground segment."
+
+#: Version of the layout of ``report.json``; raised when a key changes meaning or goes away.
+SCHEMA_VERSION = 1
+
+#: Track points closer than this fraction of the usual spacing to the previous one come from a short
+#: block (the end of a stream) whose Es/N0 and frequency rest on a handful of symbols: left out.
+SHORT_BLOCK_FRACTION = 0.25
+
+#: Statuses that are not failures of a frame (any other status counts as failed).
+_NOT_FAILED = ("ok", "idle")
 
 
 @dataclass
@@ -30,7 +42,7 @@ class RunFacts:
     profile : LinkProfile
     input_kind : {"iq", "soft", "bits"}
     recording_info : dict
-        What the input is (path, format, rate, start, ...).
+        What the input is (path, format, rate, start, ``time_known``, ``ert_definition``, ...).
     duration_s, elapsed_s : float
         Length of the input and wall time of the decode.
     samples, nonfinite, channel_symbols, locked_symbols : int
@@ -52,6 +64,9 @@ class RunFacts:
     gaps : list of dict
     ert : callable or None
         Sample position -> ERT string (None when the time is unknown).
+    utc_ns : callable or None
+        Sample position -> reception time, POSIX nanoseconds (None when the time is unknown); the time
+        axis of the plots.
     downlink_frequency_hz : float or None
     spectrum : (freq_hz, power_db) or None
     constellation : array or None
@@ -89,6 +104,7 @@ class RunFacts:
     packet_stats: dict = field(default_factory=dict)
     gaps: list = field(default_factory=list)
     ert: Any = None
+    utc_ns: Callable[[float], int] | None = None
     downlink_frequency_hz: float | None = None
     spectrum: Any = None
     constellation: Any = None
@@ -98,12 +114,178 @@ class RunFacts:
     doppler_check: dict | None = None
 
 
+# ---- time -----------------------------------------------------------------------------------
+
+
+class _Clock:
+    """Sample positions -> plot time: UTC seconds since 1970 when the time is known, else seconds from start.
+
+    The position -> UTC map is linear within a capture; it is evaluated exactly at 257 anchors over the
+    positions in play and interpolated between them (a capture boundary is blurred over one anchor step,
+    1/256 of the span: plots only).  O(n) per call after 257 exact conversions.
+    """
+
+    def __init__(self, f: RunFacts, span: tuple[float, float]):
+        self.rate = float(f.position_rate_hz) or 1.0
+        self.utc = f.utc_ns is not None
+        lo, hi = span
+        self._anchors = np.linspace(lo, hi, 257) if hi > lo else np.array([lo, lo + 1.0])
+        if self.utc:
+            self._t = np.array([f.utc_ns(float(a)) for a in self._anchors], dtype=np.float64) * 1e-9
+        else:
+            self._t = self._anchors / self.rate
+
+    def seconds(self, positions) -> np.ndarray:
+        pos = np.asarray(positions, dtype=np.float64)
+        if pos.size == 0:
+            return pos
+        a, t = self._anchors, self._t
+        out = np.interp(pos, a, t)
+        slope = (t[-1] - t[0]) / (a[-1] - a[0])  # outside the anchors: the same rate, continued
+        out = np.where(pos < a[0], t[0] + (pos - a[0]) * slope, out)
+        return np.where(pos > a[-1], t[-1] + (pos - a[-1]) * slope, out)
+
+
+# ---- pieces ---------------------------------------------------------------------------------
+
+
+def _track_usable(tpos: np.ndarray, locked: np.ndarray) -> np.ndarray:
+    """Track points whose Es/N0 and carrier offset describe a locked receiver over a whole, full block.
+
+    A point's lock flags hold at its block's end, so the block was locked throughout only when the
+    point before was locked too (the block in which lock was gained is partly noise; the first point of
+    the input counts as locked before).  Points after a short block are dropped (:data:`SHORT_BLOCK_FRACTION`).
+    """
+    if tpos.size == 0:
+        return locked
+    step = np.diff(tpos, prepend=-np.inf)
+    usual = float(np.median(np.diff(tpos))) if tpos.size > 2 else 0.0
+    held_before = np.concatenate([[True], locked[:-1]])
+    return locked & held_before & (step >= SHORT_BLOCK_FRACTION * usual)
+
+
+def _frames_missing(f: RunFacts) -> int:
+    """Frames never received, by the frame counters (TM: master channel; AOS: virtual channels).
+
+    A gap's ``unusable_between`` frames were received but failed their checks: they count as failed, not
+    as missing.
+    """
+    kind = "mc" if f.profile.frames.kind == "tm" else "vc"
+    return int(sum(max(int(g.get("missing", 0)) - int(g.get("unusable_between", 0)), 0)
+                   for g in f.gaps if g.get("kind") == kind))
+
+
+def _round(v, nd):
+    return None if v is None or not np.isfinite(v) else round(float(v), nd)
+
+
+def _frame_categories(log: dict) -> np.ndarray:
+    """Per frame: 0 good, 1 idle, 2 failed, 3 another spacecraft (for the quality strip)."""
+    statuses = list(log.get("statuses", []))
+    table = np.array([0 if s == "ok" else 1 if s == "idle" else 3 if s == "foreign_scid" else 2 for s in statuses]
+                     or [2], dtype=np.int8)
+    idx = np.asarray(log.get("status", np.zeros(0, np.int8)), dtype=np.int64)
+    return table[idx] if idx.size else idx.astype(np.int8)
+
+
+def _clcw_summary(log: dict) -> dict | None:
+    value = np.asarray(log.get("clcw_report_value", ()), dtype=np.int64)
+    have = value >= 0
+    if not have.any():
+        return None
+    flags = np.asarray(log["clcw_flags"], dtype=np.int64)[have]
+    v = value[have]
+    return {
+        "frames_with_clcw": int(have.sum()),
+        "lockout_frames": int(np.count_nonzero(flags & 1)),
+        "wait_frames": int(np.count_nonzero(flags & 2)),
+        "retransmit_frames": int(np.count_nonzero(flags & 4)),
+        "no_rf_available_frames": int(np.count_nonzero(flags & 8)),
+        "no_bit_lock_frames": int(np.count_nonzero(flags & 16)),
+        "report_value_first": int(v[0]),
+        "report_value_last": int(v[-1]),
+        "report_value_changes": int(np.count_nonzero(np.diff(v))),
+        "frames_sampled_every": int(log.get("stride", 1)),
+    }
+
+
+def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, flog, ber) -> dict:
+    """The ``pass`` object: what an operator reads first."""
+    p = f.profile
+    fpos = np.asarray(flog.get("position", ()), dtype=np.float64)
+    if locked.any():
+        source = "receiver"
+        first_pos, last_pos = float(tpos[locked][0]), float(tpos[locked][-1])
+        resolution = float(np.median(np.diff(tpos))) / clock.rate if tpos.size > 1 else None
+    elif f.input_kind != "iq" and fpos.size:
+        # channel-symbol input has no receiver: the frame synchronizer's first and last frame
+        source = "frame synchronizer"
+        first_pos, last_pos = float(fpos[0]), float(fpos[-1] + p.samples_per_cadu(clock.rate))
+        resolution = p.samples_per_cadu(clock.rate) / clock.rate
+    else:
+        source, first_pos, last_pos, resolution = None, None, None, None
+    good = esn0[usable & np.isfinite(esn0)]
+    good_carrier = carrier[usable & np.isfinite(carrier)]
+    status = dict(f.status_counts)
+    ok, idle = status.get("ok", 0), status.get("idle", 0)
+    cats = _frame_categories(flog)
+    flywheel = np.asarray(flog.get("flywheel", np.zeros(cats.size, bool)), dtype=bool)
+    time_known = f.ert is not None
+    verdict = {
+        "first_lock_utc": f.ert(first_pos) if time_known and first_pos is not None else None,
+        "last_lock_utc": f.ert(last_pos) if time_known and last_pos is not None else None,
+        "first_lock_s": _round(None if first_pos is None else first_pos / clock.rate, 6),
+        "last_lock_s": _round(None if last_pos is None else last_pos / clock.rate, 6),
+        "locked_s": _round(None if first_pos is None else (last_pos - first_pos) / clock.rate, 6),
+        "lock_source": source,
+        "lock_resolution_s": _round(resolution, 6),
+        "packets": f.packets,
+        "packets_missing": int(f.packet_stats.get("sequence_missing", 0)),
+        "frames_ok": ok,
+        "frames_failed": f.frames - ok - idle,
+        "frames_failed_flywheel": int(np.count_nonzero((cats == 2) & flywheel)) * int(flog.get("stride", 1)),
+        "frames_missing": _frames_missing(f),
+        "frames_idle": idle,
+        "esn0_db_mean": _round(10 * np.log10(np.mean(10 ** (good / 10))), 2) if good.size else None,
+        "esn0_db_min": _round(np.min(good), 2) if good.size else None,
+        "esn0_db_max": _round(np.max(good), 2) if good.size else None,
+        "carrier_offset_hz_min": _round(np.min(good_carrier), 1) if good_carrier.size else None,
+        "carrier_offset_hz_max": _round(np.max(good_carrier), 1) if good_carrier.size else None,
+        "bit_error_rate": None if ber is None or ber.estimate is None else float(f"{ber.estimate:.3g}"),
+        "bit_error_rate_of": None if ber is None else ber.applies_to,
+        "time_known": time_known,
+        "ert_definition": f.recording_info.get("ert_definition"),
+    }
+    return verdict
+
+
+def _frames_while_locked(fpos: np.ndarray, tpos: np.ndarray, locked: np.ndarray) -> np.ndarray:
+    """Frames received while the receiver held lock: the first track point at or after a frame is locked.
+
+    Without a receiver track (channel-symbol input) every frame counts.  O(frames log track points).
+    """
+    if tpos.size == 0:
+        return np.ones(fpos.shape, bool)
+    idx = np.minimum(np.searchsorted(tpos, fpos, side="left"), tpos.size - 1)
+    return locked[idx]
+
+
 def build_report(f: RunFacts) -> tuple[dict, PlotData]:
     """The report dictionary and the plot data of one run.
 
-    Sections: ``summary``, ``recording``, ``profile``, ``demod``, ``sync`` (stage counters),
-    ``frames``, ``virtual_channels``, ``master_channel``, ``packets``, ``apids``, ``gaps``, ``events``
-    (synchronizer and receiver events in stream order, with their ERT).
+    Sections, in this order: ``schema_version``; ``pass`` (the verdict: lock window, packets and frames
+    delivered, failed and missing, Es/N0 and carrier offset while locked, the bit error rate estimate,
+    the ERT definition); ``bit_error_rate`` (the estimator and its counts); ``clcw`` (when frames carry
+    one); ``virtual_channels``, ``gaps``, ``apids``; then the details: ``summary``, ``recording``,
+    ``profile``, ``demod``, ``sync`` (stage counters), ``frames``, ``master_channel``, ``packets``,
+    ``events`` (synchronizer and receiver events in stream order, with their ERT).
+
+    Notes
+    -----
+    Es/N0 and carrier offset are taken only from track points whose whole block was locked (carrier and
+    symbols) and that cover a full block (:func:`_track_usable`); the mean Es/N0 is that of the power ratio.
+    The bit error rate counts the frames received while the receiver held lock
+    (:mod:`pipeline.report._quality` gives the estimators).  Cost: O(track points + frames).
     """
     p = f.profile
     iq = f.input_kind == "iq"
@@ -111,14 +293,28 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
     esn0 = np.asarray(f.track.get("esn0_db", ()), dtype=np.float64)
     carrier = np.asarray(f.track.get("carrier_hz", ()), dtype=np.float64)
     locked = np.asarray(f.track.get("locked", ()), dtype=bool)
+    usable = _track_usable(tpos, locked)
+    flog = f.frame_log or {}
+    fpos = np.asarray(flog.get("position", ()), dtype=np.float64)
+    rs = np.asarray(flog.get("rs_corrected", ()), dtype=np.int64)
+    asm = np.asarray(flog.get("asm_errors", ()), dtype=np.int64)
+    span_hi = max([f.duration_s * f.position_rate_hz, *(x.max() for x in (tpos, fpos) if x.size)])
+    clock = _Clock(f, (0.0, float(span_hi)))
+
+    counted = _frames_while_locked(fpos, tpos, locked)
+    rs_e = p.coding.reed_solomon
+    ber_kw = dict(codeblock_octets=p.codeblock_bytes, rs_e=rs_e)
+    conv = p.coding.convolutional != "none"
+    ber = bit_error_estimate(rs[counted], asm[counted], convolutional=conv, **ber_kw) if fpos.size else None
+
     lock_fraction = f.locked_symbols / f.channel_symbols if iq and f.channel_symbols else None
-    good_esn0 = esn0[locked & np.isfinite(esn0)] if len(esn0) else esn0
+    good_esn0 = esn0[usable & np.isfinite(esn0)]
     demod = {
         "input": f.input_kind,
         "lock_fraction": None if lock_fraction is None else round(lock_fraction, 4),
         "esn0_db_median": round(float(np.median(good_esn0)), 2) if len(good_esn0) else None,
-        "carrier_offset_hz_first": round(float(carrier[locked][0]), 1) if locked.any() else None,
-        "carrier_offset_hz_last": round(float(carrier[locked][-1]), 1) if locked.any() else None,
+        "carrier_offset_hz_first": round(float(carrier[usable][0]), 1) if usable.any() else None,
+        "carrier_offset_hz_last": round(float(carrier[usable][-1]), 1) if usable.any() else None,
         "nonfinite_samples": f.nonfinite,
         "channel_symbols": f.channel_symbols,
     }
@@ -140,7 +336,28 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         if "position" in e and f.ert is not None:
             e["ert"] = f.ert(float(e["position"]))
         events.append(e)
-    report = {
+    clcw = _clcw_summary(flog) if p.frames.ocf else None
+    report: dict = {
+        "schema_version": SCHEMA_VERSION,
+        "pass": _pass_verdict(f, tpos=tpos, esn0=esn0, carrier=carrier, usable=usable, locked=locked, clock=clock,
+                              flog=flog, ber=ber),
+        "bit_error_rate": None if ber is None else {
+            **ber.as_dict(),
+            "estimator": ("Reed-Solomon: p = 1 - (1 - s/N)^(1/8) from s octets corrected among N received, "
+                          "independent bit errors assumed; a failed codeblock counts E + 1 octets (the figure is "
+                          "then a lower bound); bursts of errors put several wrong bits in one octet, so the rate "
+                          "lies between the estimate and s/N" if ber.method == "reed_solomon" else
+                          "ASM: wrong bits among the 32 known bits of each frame's marker; frames whose marker had "
+                          "more wrong bits than the synchronizer accepts are missed, so the figure is low"),
+            "frames_counted": "frames received while the receiver held lock",
+        },
+    }
+    if clcw is not None:
+        report["clcw"] = clcw
+    report.update({
+        "virtual_channels": f.accounting.get("virtual_channels", []),
+        "gaps": f.gaps,
+        "apids": f.packet_stats.get("apids", []),
         "summary": {
             "tool": f.tool,
             "caution": CAUTION,
@@ -168,24 +385,65 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         "demod": demod,
         "sync": sync_stats,
         "frames": {"status_counts": dict(f.status_counts), **({"checks": f.parser_stats} if f.parser_stats else {})},
-        "virtual_channels": f.accounting.get("virtual_channels", []),
         "master_channel": {k: v for k, v in f.accounting.items() if k != "virtual_channels"},
         "packets": {k: v for k, v in f.packet_stats.items() if k != "apids"},
-        "apids": f.packet_stats.get("apids", []),
-        "gaps": f.gaps,
         "events": events,
-    }
+    })
     if f.doppler_check is not None:
         report["doppler_check"] = f.doppler_check
-    t = tpos / f.position_rate_hz
-    plots = PlotData(
+    return report, _plot_data(f, clock, tpos=tpos, esn0=esn0, carrier=carrier, usable=usable, locked=locked,
+                              flog=flog, counted=counted, ber_kw=ber_kw, ocf=clcw is not None)
+
+
+def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locked, flog, counted, ber_kw,
+               ocf) -> PlotData:
+    p = f.profile
+    fpos = np.asarray(flog.get("position", ()), dtype=np.float64)
+    ft = clock.seconds(fpos)
+    rs = np.asarray(flog.get("rs_corrected", ()), dtype=np.int64)
+    asm = np.asarray(flog.get("asm_errors", ()), dtype=np.int64)
+    series = bit_error_series(ft[counted], rs[counted], asm[counted], **ber_kw) if fpos.size else None
+    wf_t = wf_f = wf_db = None
+    if f.waterfall is not None:
+        rows, db = f.waterfall.result()
+        if rows.size:
+            row = f.waterfall.effective_row_samples
+            dense = np.full((int(rows[-1] - rows[0]) + 1, db.shape[1]), np.nan, dtype=np.float32)
+            dense[rows - rows[0]] = db
+            wf_db = dense
+            wf_t = clock.seconds(np.arange(rows[0], rows[-1] + 2, dtype=np.float64) * row)  # row edges
+            nfft = db.shape[1]
+            wf_f = (np.arange(nfft) - nfft // 2) * (clock.rate / nfft)
+    gap_spans = [(float(g["after_position"]), float(g["position"])) for g in f.gaps
+                 if g.get("kind") == ("mc" if p.frames.kind == "tm" else "vc") and g.get("after_position") is not None
+                 and int(g.get("missing", 0)) > int(g.get("unusable_between", 0))]
+    frame_s = p.samples_per_cadu(clock.rate) / clock.rate
+    clcw_value = np.asarray(flog.get("clcw_report_value", ()), dtype=np.int64)
+    return PlotData(
+        time_is_utc=clock.utc,
+        span_s=(float(clock.seconds([0.0])[0]), float(clock.seconds([f.duration_s * clock.rate])[0])),
         spectrum_freq_hz=None if f.spectrum is None else f.spectrum[0],
         spectrum_db=None if f.spectrum is None else f.spectrum[1],
         constellation=f.constellation,
-        track_time_s=t if len(t) else None,
-        track_esn0_db=esn0 if len(esn0) else None,
-        track_carrier_hz=carrier if len(carrier) else None,
-        track_locked=locked if len(locked) else None,
-        frame_status_counts=dict(f.status_counts),
+        waterfall_time_s=wf_t, waterfall_freq_hz=wf_f, waterfall_db=wf_db,
+        track_time_s=clock.seconds(tpos) if tpos.size else None,
+        track_esn0_db=np.where(usable, esn0, np.nan) if tpos.size else None,
+        track_carrier_hz=np.where(usable, carrier, np.nan) if tpos.size else None,
+        track_locked=locked if tpos.size else None,
+        frame_time_s=ft if fpos.size else None,
+        frame_duration_s=frame_s,
+        frame_category=_frame_categories(flog) if fpos.size else None,
+        frame_rs_corrected=rs if fpos.size and p.coding.reed_solomon else None,
+        frame_rs_max=p.coding.reed_solomon * p.coding.interleave,
+        frame_asm_errors=asm if fpos.size else None,
+        frame_flywheel=np.asarray(flog.get("flywheel", ()), dtype=bool) if fpos.size else None,
+        missing_spans_s=[tuple(clock.seconds(list(s))) for s in gap_spans],
+        ber_time_s=None if series is None else series["time_s"],
+        ber_estimate=None if series is None else series["estimate"],
+        ber_upper=None if series is None else series["upper"],
+        ber_zero=None if series is None else series["zero"],
+        ber_lower_bound=None if series is None else series["lower_bound"],
+        clcw_time_s=ft[clcw_value >= 0] if ocf else None,
+        clcw_report_value=clcw_value[clcw_value >= 0] if ocf else None,
+        clcw_flags=np.asarray(flog["clcw_flags"], dtype=np.int64)[clcw_value >= 0] if ocf else None,
     )
-    return report, plots
