@@ -300,8 +300,10 @@ def test_zero_input_is_handled(rng):
 def test_bad_arguments():
     with pytest.raises(ValueError, match="Argument 'sample_rate_hz' must be a positive"):
         Demodulator(link=LinkSection(), receiver=ReceiverSection(), sample_rate_hz=0.0)
-    with pytest.raises(ValueError, match="at least 2 samples per symbol"):
+    with pytest.raises(ValueError, match="must give 2 to 64 samples per symbol for bpsk, not 1.25"):
         Demodulator(link=LinkSection(), receiver=ReceiverSection(), sample_rate_hz=300e3)
+    with pytest.raises(ValueError, match="must give 2 to 64 samples per symbol for bpsk, not 1e[+]06"):
+        Demodulator(link=LinkSection(symbol_rate_baud=1.0), receiver=ReceiverSection(), sample_rate_hz=1e6)
     with pytest.raises(ValueError, match="Argument 'link.modulation'"):
         Demodulator(link=LinkSection(modulation="pcm-pm"), receiver=ReceiverSection(), sample_rate_hz=FS)
     with pytest.raises(TypeError, match="Argument 'link' must be a LinkSection"):
