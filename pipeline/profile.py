@@ -68,9 +68,11 @@ _RS_K = {16: 223, 8: 239}
 #: Tables every profile file must have.
 REQUIRED_TABLES: tuple[str, ...] = ("link", "coding", "frames")
 
-#: ``[receiver] timing_loop_bandwidth`` (B_L T) the timing loops support: above 0.1 the proportional
-#: step of the Gardner loop (2.67 B_L T of a symbol per symbol) would no longer keep the strobes in order.
-TIMING_LOOP_BANDWIDTH_RANGE = (1e-5, 0.1)
+#: ``[receiver] timing_loop_bandwidth`` (B_L T) the timing loops support.  The loop gains come from the
+#: continuous-time approximation (B_L T << 1); measured on the demo link at Eb/N0 = 40 dB, 0.08 still decoded
+#: every packet and 0.09 lost two thirds of them (the loop no longer settles), so 0.05 is the top of the range.
+#: At Eb/N0 = 7 dB everything up to 0.01 decoded every packet, 0.02 lost 6 of 38 (timing jitter).
+TIMING_LOOP_BANDWIDTH_RANGE = (1e-5, 0.05)
 
 
 @dataclass(frozen=True)

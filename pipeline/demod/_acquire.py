@@ -138,10 +138,10 @@ class CarrierSearch:
     maximum within ``+- search_hz`` (parabolically refined) is the band centre.  Its height over
     the median correlation of the positions whose template does not overlap the band, in units
     of the correlation's standard deviation on noise ``sqrt(sum |H|^4 / K)``, is a band detector:
-    below 8 the line search is not run (on white noise it stays below 5; a BPSK signal at
-    Es/N0 = -3 dB, 240 ksym/s at 1 Msample/s, gives about 50).  Measured accuracy of the centre:
-    2 kHz rms at Es/N0 = -0.3 dB, 0.5 kHz at 10 dB (the data's own spectral fluctuation), so
-    ``fine_hz`` defaults to 5 % of the symbol rate.
+    below 8 the line search is not run (measured on white noise: 2.5 on average, 5.4 the largest
+    of 200 windows; a BPSK signal at Es/N0 = -3 dB, 240 ksym/s at 1 Msample/s: 50 or more).
+    Measured accuracy of the centre: 2 kHz rms at Es/N0 = -0.3 dB, 0.5 kHz at 10 dB (the data's
+    own spectral fluctuation), so ``fine_hz`` is 5 % of the symbol rate in the demodulators.
 
     **Fine**: the window is rotated to the band centre, matched-filtered, normalised and raised to
     the ``M``-th power; the result is summed over blocks of ``D = fs / (2.5 M fine_hz)`` samples
@@ -155,8 +155,9 @@ class CarrierSearch:
     power) nonlinearity turns M-PSK into a line at ``M`` times the carrier offset.
 
     Cost per window of ``N`` samples: one FFT pass of ``N log(16 sps)`` (coarse), the matched
-    filter ``N (2 D_mf + 1)``, and ``R`` FFTs of ``N / D`` points for ``R`` rates (about 2 ms
-    coarse and 6 ms fine for 65536 samples of BPSK at 240 ksym/s, 23 rates).
+    filter ``N (2 D_mf + 1)``, and ``R`` FFTs of ``N / D`` points for ``R`` rates (65536 samples
+    at 240 ksym/s and 1 Msample/s, rates to +-5 kHz/s: about 2 ms coarse, 5 ms fine for BPSK with
+    23 rates, 10-20 ms for QPSK with 45; ``bench/bench_acquisition.py``).
 
     References
     ----------

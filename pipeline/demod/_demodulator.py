@@ -20,7 +20,7 @@ from pipeline.demod._kernels import (
     track_symbols,
 )
 from pipeline.demod._snr import estimate_esn0_m2m4
-from pipeline.profile import LinkSection, ReceiverSection
+from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "check_chunk", "continue_stream",
            "cut_blocks", "no_lock_message", "MIN_SAMPLES_PER_SYMBOL", "MAX_SAMPLES_PER_SYMBOL"]
@@ -37,7 +37,7 @@ MAX_SAMPLES_PER_SYMBOL = 64.0
 #: Symbol-rate offset the timing loop follows (fraction of the nominal rate).
 _TIMING_RATE_LIMIT = 0.02
 #: Doppler rates the acquisition searches, at most (Hz/s); fewer when the carrier loop cannot follow them.
-_MAX_DOPPLER_RATE = 6000.0
+_MAX_DOPPLER_RATE = 5000.0
 #: Band of the line search around the coarse estimate, x symbol rate (the coarse error is about 1 % rms).
 _FINE_SEARCH = 0.05
 
@@ -283,7 +283,7 @@ class Demodulator:
     windows of ``acquisition_samples`` (two blocks) are held and searched with a
     :class:`~pipeline.demod._acquire.CarrierSearch` over ``+- acquisition_search_hz`` (where the
     signal's band lies, then the ``x^2`` / ``x^4`` line of the matched-filter output under Doppler
-    rates up to +-6 kHz/s, fewer when the carrier loop could not follow them).  When a carrier is
+    rates up to +-5 kHz/s, fewer when the carrier loop could not follow them).  When a carrier is
     found the held samples are demodulated from the window start with the frequency the search
     gives for that instant, so nothing is lost; when none is found only the window's first block
     is released (demodulated unlocked) and the search is tried again one block later, so a signal
@@ -381,10 +381,11 @@ class Demodulator:
         pr["v_max"] = _TIMING_RATE_LIMIT
         self._params = params
         # A symbol moves the strobe by at least sps (1 - v_max - kp_t) samples (track_symbols Notes); with
-        # kp_t <= 2.67 x 0.1 (the validator's largest timing bandwidth) that is more than 0.7 sps.
+        # kp_t = 2.67 B_L T <= 0.134 (the validator's largest timing bandwidth, 0.05) that is more than 0.84 sps.
+        lo, hi = TIMING_LOOP_BANDWIDTH_RANGE
+        if not lo <= bn_t <= hi:
+            raise ValueError(f"Argument 'receiver.timing_loop_bandwidth' must be {lo:g}..{hi:g}, not {bn_t!r}.")
         self._min_symbol_advance = sps * (1.0 - _TIMING_RATE_LIMIT - float(pr["kp_t"]))
-        if self._min_symbol_advance < 0.25 * sps:
-            raise ValueError(f"Argument 'receiver.timing_loop_bandwidth' must be at most 0.1, not {bn_t!r}.")
 
         # acquisition: rates the carrier loop can follow with a lag under 0.2 rad (2 pi R / wn^2)
         wn_rad_s = wn2 * link.symbol_rate_baud
@@ -421,6 +422,7 @@ class Demodulator:
         self._mf_tail_base = -self.filter_delay_samples
         self._state = np.zeros(1, dtype=TRACK_STATE)
         self._state[0]["amp"] = 1.0
+        self._state[0]["ph_cos"] = 1.0  # the carrier phasor at theta = 0
         self._unlocked_run = 0
         self._finished = False
         self.stats = DemodStats()

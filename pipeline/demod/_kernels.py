@@ -40,7 +40,8 @@ TRACK_STATE = np.dtype([
     ("p3i", np.float64), ("m2s", np.float64), ("m4s", np.float64), ("wsum", np.float64), ("cnum", np.float64),
     ("cden", np.float64), ("eon", np.float64), ("emid", np.float64), ("amp", np.float64), ("t_on", np.float64),
     ("m2f", np.float64), ("m4f", np.float64), ("wf", np.float64), ("parity", np.int64), ("clock", np.int64),
-    ("slock", np.int64), ("seen", np.int64), ("cgood", np.int64),
+    ("slock", np.int64), ("seen", np.int64), ("cgood", np.int64), ("ph_cos", np.float64), ("ph_sin", np.float64),
+    ("ph_theta", np.float64), ("ph_count", np.int64),
 ])
 
 
@@ -136,7 +137,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
         pending on-time strobe, ``m2f, m4f, wf`` the M2M4 EMAs over the carrier-lock window;
         ``parity`` (0 = the next half-strobe is on-time), ``clock`` / ``slock`` carrier / symbol
         lock, ``seen`` symbols seen (saturating at ``warmup``), ``cgood`` consecutive symbols
-        meeting the lock condition.
+        meeting the lock condition; ``ph_cos, ph_sin`` the carrier phasor at phase ``ph_theta``,
+        ``ph_count`` half-strobes since it was last recomputed exactly.
     out_pos, out_qpos, out_sym, out_amp, out_flags, out_theta
         Per symbol: position of the on-time (I) strobe (samples), position of the strobe the Q
         value was taken at (OQPSK: the midpoint strobe half a symbol later; else ``out_pos``),
@@ -226,12 +228,13 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     sixth = 1.0 / 6.0
     inv_kd = 1.0 / kd
     nout = 0
-    # carrier phasor exp(j theta): advanced by small-angle rotations, recomputed exactly every
-    # 64 half-strobes (and at every call), so it never drifts from theta by more than ~1e-7 rad
-    cs = math.cos(theta)
-    sn = math.sin(theta)
-    theta_ph = theta
-    nresync = 0
+    # carrier phasor exp(j theta_ph): advanced by small-angle rotations and recomputed exactly every 64
+    # half-strobes, so it never drifts from theta by more than ~1e-7 rad; kept in the state, so the
+    # output does not depend on where one call ends and the next begins
+    cs = st["ph_cos"]
+    sn = st["ph_sin"]
+    theta_ph = st["ph_theta"]
+    nresync = st["ph_count"]
     while t < t_limit:
         if parity == 1 and nout >= cap:
             break  # buffers full: the next half-strobe completes a symbol; the caller continues
@@ -464,6 +467,10 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     st["slock"] = slock
     st["seen"] = seen
     st["cgood"] = cgood
+    st["ph_cos"] = cs
+    st["ph_sin"] = sn
+    st["ph_theta"] = theta_ph
+    st["ph_count"] = nresync
     return nout
 
 

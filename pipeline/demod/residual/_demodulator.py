@@ -337,7 +337,7 @@ class ResidualCarrierDemodulator:
             self._search = CarrierSearch(sample_rate_hz=fs, power=2, prefilter=box / math.sqrt(box.size),
                                          template=manchester, occupied_hz=4.0 * link.symbol_rate_baud,
                                          search_hz=self.acquisition_search_hz, fine_hz=0.05 * link.symbol_rate_baud,
-                                         max_rate_hz_per_s=min(6000.0, 0.2 * wn * wn / (2.0 * math.pi)))
+                                         max_rate_hz_per_s=min(5000.0, 0.2 * wn * wn / (2.0 * math.pi)))
         self.reset()
 
     # ---- state -------------------------------------------------------------------------
