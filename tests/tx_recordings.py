@@ -22,10 +22,6 @@ import third_party_tx as tx
 __all__ = ["Pass", "demo_link_pass", "write_sigmf", "START"]
 
 START = "2026-03-14T09:30:00Z"
-#: The demo link's codeblock (CCSDS 131.0-B-2: 1115-octet TM frame + RS(255,223) x 5 parity) and CADU sizes.
-FRAME_OCTETS = 1115
-CADU_BITS = 32 + 8 * (FRAME_OCTETS + 2 * 16 * 5)
-FIELD_OCTETS = FRAME_OCTETS - 6 - 4  # primary header, OCF
 
 
 @dataclass
@@ -61,7 +57,7 @@ def demo_packets(rng: np.random.Generator, n: int) -> list[bytes]:
     out = []
     for i in range(n):
         apid = (100, 200, 300)[i % 3]
-        length = int(rng.integers(100, 400))
+        length = int(rng.integers(60, 400))
         out.append(tx.space_packet(apid, i // 3, bytes(rng.integers(0, 256, length, dtype=np.uint8))))
     return out
 
@@ -69,25 +65,29 @@ def demo_packets(rng: np.random.Generator, n: int) -> list[bytes]:
 def demo_link_pass(folder: Path, name: str, *, seconds: float, ebn0_db: float, modulation: str = "bpsk",
                    sample_rate_hz: float = 1e6, symbol_rate_baud: float = 240e3, offset_hz: float = 0.0,
                    rate_hz_per_s: float = 0.0, lead_s: float = 0.0, dc: complex = 0j, conjugate: bool = False,
-                   swap_iq: bool = False, seed: int = 1, waveform_cache: dict | None = None) -> Pass:
-    """A pass of the demo link (BPSK or QPSK, r=1/2 + RS(255,223) I=5, NRZ-M, TM frames of 1115 octets,
-    spacecraft 499) lasting about ``seconds`` after ``lead_s`` of noise alone.
+                   swap_iq: bool = False, phase_rad: float = 0.7, frame_octets: int = 1115, interleave: int = 5,
+                   seed: int = 1, waveform_cache: dict | None = None) -> Pass:
+    """A pass of the demo link (BPSK, QPSK or OQPSK, r=1/2 + RS(255,223) x ``interleave``, NRZ-M, TM frames of
+    ``frame_octets`` octets with an OCF, spacecraft 499) lasting about ``seconds`` after ``lead_s`` of noise alone.
 
-    ``Es/N0 = Eb/N0 + 10 log10(1/2 x 1115/1275 x bits per symbol)`` (../shared/DESIGN.md).  The carrier
+    ``Es/N0 = Eb/N0 + 10 log10(1/2 x frame / codeblock x bits per symbol)`` (../shared/DESIGN.md).  The carrier
     phase is ``2 pi (offset t + rate t^2 / 2)`` from the first sample.  ``conjugate`` / ``swap_iq`` turn the
     recording into a spectrally inverted one (``swap_iq`` is ``j conj(x)``: inversion and a 90-degree turn).
     ``waveform_cache`` (a dict) keeps noise-free waveforms between calls with the same link and seed.
     """
     rng = np.random.default_rng(seed)
     bps = 1 if modulation == "bpsk" else 2
-    key = (modulation, sample_rate_hz, symbol_rate_baud, seconds, seed)
+    codeblock = frame_octets + 32 * interleave  # CCSDS 131.0-B-2 sec. 4: 2 E I parity octets, E = 16
+    cadu_bits = 32 + 8 * codeblock
+    field_octets = frame_octets - 6 - 4  # primary header, OCF
+    key = (modulation, sample_rate_hz, symbol_rate_baud, seconds, seed, frame_octets, interleave)
     cached = waveform_cache.get(key) if waveform_cache is not None else None
     if cached is None:
-        n_frames = max(2, int(seconds * symbol_rate_baud * bps / (2 * CADU_BITS)))
-        packets = demo_packets(rng, 3 * n_frames * FIELD_OCTETS // 600)  # about n_frames - 1 frames full
-        frames = tx.tm_frames(packets, scid=499, vcid=0, length=FRAME_OCTETS, ocf=True, fecf=False)
+        n_frames = max(2, int(seconds * symbol_rate_baud * bps / (2 * cadu_bits)))
+        packets = demo_packets(rng, max(2, 3 * n_frames * field_octets // 800))  # about n_frames - 1 frames full
+        frames = tx.tm_frames(packets, scid=499, vcid=0, length=frame_octets, ocf=True, fecf=False)
         lead_bits = 317
-        bits = tx.channel_bits(frames, rs_e=16, interleave=5, randomize=True, conv=True, nrz_m=True,
+        bits = tx.channel_bits(frames, rs_e=16, interleave=interleave, randomize=True, conv=True, nrz_m=True,
                                lead_bits=lead_bits, seed=seed)
         bits = bits[: bits.size // 2 * 2]
         sym_bits = (bits, np.zeros_like(bits)) if bps == 1 else (bits[0::2], bits[1::2])  # I first
@@ -95,8 +95,8 @@ def demo_link_pass(folder: Path, name: str, *, seconds: float, ebn0_db: float, m
                            symbol_rate_baud=symbol_rate_baud, timing_offset=0.31, clock_offset_ppm=15.0,
                            esn0_db=None, rng=rng, bits=sym_bits, lead_symbols=64)
         starts = np.cumsum([0] + [len(p) for p in packets[:-1]])
-        packet_frames = [(int(s) // FIELD_OCTETS, int(s + len(p) - 1) // FIELD_OCTETS) for s, p in zip(starts, packets)]
-        asm_bits = 2 * (lead_bits + np.arange(len(frames)) * CADU_BITS)  # r = 1/2: two channel bits per bit
+        packet_frames = [(int(s) // field_octets, int(s + len(p) - 1) // field_octets) for s, p in zip(starts, packets)]
+        asm_bits = 2 * (lead_bits + np.arange(len(frames)) * cadu_bits)  # r = 1/2: two channel bits per bit
         asm_peak = wave.peak_position[asm_bits // bps]
         cached = (wave, packets, packet_frames, asm_peak)
         if waveform_cache is not None:
@@ -105,8 +105,8 @@ def demo_link_pass(folder: Path, name: str, *, seconds: float, ebn0_db: float, m
     onset = int(round(lead_s * sample_rate_hz))
     s = np.concatenate([np.zeros(onset), wave.samples.astype(np.complex128)])
     t = np.arange(s.size) / sample_rate_hz
-    s *= np.exp(2j * math.pi * (offset_hz * t + 0.5 * rate_hz_per_s * t * t) + 0.7j)
-    esn0_db = ebn0_db + 10 * math.log10(0.5 * FRAME_OCTETS / (FRAME_OCTETS + 160) * bps)
+    s *= np.exp(2j * math.pi * (offset_hz * t + 0.5 * rate_hz_per_s * t * t) + 1j * phase_rad)
+    esn0_db = ebn0_db + 10 * math.log10(0.5 * frame_octets / codeblock * bps)
     sigma2 = wave.pulse_energy / 10 ** (esn0_db / 10)  # Es = pulse energy x E|a|^2 (= 1), as demod_signals
     s += math.sqrt(sigma2 / 2) * (rng.standard_normal(s.size) + 1j * rng.standard_normal(s.size))
     s += dc
