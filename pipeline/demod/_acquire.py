@@ -6,6 +6,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.fft
 
 from pipeline.demod._kernels import derotate, fir_interleaved
 
@@ -118,7 +119,8 @@ class CarrierSearch:
         Real pulse whose energy spectrum is the signal's power spectral density shape (default
         ``prefilter``); used by the coarse stage.
     occupied_hz : float
-        Occupied bandwidth of the signal (``R_s (1 + roll-off)`` for RRC).  0 skips the coarse stage.
+        Occupied bandwidth of the signal (``R_s (1 + roll-off)`` for RRC).  0 skips the coarse stage
+        (band detector and band centre).
     search_hz : float or None
         The carrier is searched within ``+- search_hz`` of 0 Hz; None: the whole band ``+- fs / 2``.
     fine_hz : float
@@ -131,17 +133,18 @@ class CarrierSearch:
 
     Notes
     -----
-    **Coarse** (when ``search_hz > fine_hz``): an averaged periodogram of the window (mean removed:
-    a DC offset is never a signal) with ``K >= 32`` Hann-windowed segments of about 16 samples
-    per symbol, normalised to its median (the noise floor, while the signal holds less than half
-    the band), is correlated circularly with the template's energy spectrum ``|H(f)|^2``; the
-    maximum within ``+- search_hz`` (parabolically refined) is the band centre.  Its height over
-    the median correlation of the positions whose template does not overlap the band, in units
-    of the correlation's standard deviation on noise ``sqrt(sum |H|^4 / K)``, is a band detector:
-    below 8 the line search is not run (measured on white noise: 2.5 on average, 5.4 the largest
-    of 200 windows; a BPSK signal at Es/N0 = -3 dB, 240 ksym/s at 1 Msample/s: 50 or more).
-    Measured accuracy of the centre: 2 kHz rms at Es/N0 = -0.3 dB, 0.5 kHz at 10 dB (the data's
-    own spectral fluctuation), so ``fine_hz`` is 5 % of the symbol rate in the demodulators.
+    **Coarse** (the band detector; when ``search_hz > fine_hz`` also the band's centre): an averaged
+    periodogram of the window (mean removed: a DC offset is never a signal) with ``K >= 32``
+    Hann-windowed segments of about 16 samples per symbol, normalised to its median (the noise
+    floor, while the signal holds less than half the band), is correlated circularly with the
+    template's energy spectrum ``|H(f)|^2``; the maximum within ``+- search_hz`` (parabolically
+    refined) is the band centre.  Its height over the median correlation of the positions whose
+    template does not overlap the band, in units of the correlation's standard deviation on noise
+    ``sqrt(sum |H|^4 / K)``, is a band detector: below 8 the line search is not run (measured on
+    white noise: 2.5 on average, 5.4 the largest of 200 windows; a BPSK signal at Es/N0 = -3 dB, 240
+    ksym/s at 1 Msample/s: 50 or more). Measured accuracy of the centre: 2 kHz rms at Es/N0 = -0.3
+    dB, 0.5 kHz at 10 dB (the data's own spectral fluctuation), so ``fine_hz`` is 5 % of the symbol
+    rate in the demodulators.
 
     **Fine**: the window is rotated to the band centre, matched-filtered, normalised and raised to
     the ``M``-th power; the result is summed over blocks of ``D = fs / (2.5 M fine_hz)`` samples
@@ -187,7 +190,8 @@ class CarrierSearch:
         self.prefilter = None if prefilter is None else np.ascontiguousarray(prefilter, dtype=np.float32)
         tpl = template if template is not None else prefilter
         self.occupied_hz = float(occupied_hz)
-        self.coarse = self.search_hz > fine_hz and tpl is not None and 0 < self.occupied_hz < fs
+        self.gate = tpl is not None and 0 < self.occupied_hz < fs  # the band detector can be run
+        self.coarse = self.gate and self.search_hz > fine_hz  # the band's centre steers the line search
         self.fine_hz = float(fine_hz) if self.coarse else min(float(fine_hz), self.search_hz)
         self.max_rate_hz_per_s = float(max_rate_hz_per_s)
         self.threshold = float(threshold)
@@ -205,11 +209,12 @@ class CarrierSearch:
         # a receiver DC offset would otherwise square into a false line at 0 Hz
         x = (x - np.mean(x, dtype=np.complex128)).astype(np.complex64)
         band_hz = 0.0
-        if self.coarse:
-            band_hz, z, excess_db = self._coarse(x)
+        if self.gate:
+            centre, z, excess_db = self._coarse(x)
             if z < _BAND_THRESHOLD_Z:
-                return CarrierAcquisition(False, band_hz, band_hz, 0.0, band_hz,
-                                          SpectralLine(band_hz, excess_db, "band"))
+                return CarrierAcquisition(False, centre, centre, 0.0, centre, SpectralLine(centre, excess_db, "band"))
+            if self.coarse:
+                band_hz = centre
         return self._fine(x, band_hz)
 
     # ---- stages -----------------------------------------------------------------------------
@@ -232,7 +237,8 @@ class CarrierSearch:
         nfft = max(64, min(nfft, _next_pow2(n) // 32))
         k_seg = n // nfft
         seg = x[: k_seg * nfft].reshape(k_seg, nfft)
-        p = np.mean(np.abs(np.fft.fft(seg * np.hanning(nfft), axis=1)) ** 2, axis=0)
+        spec = scipy.fft.fft(seg * np.hanning(nfft).astype(np.float32), axis=1, workers=1)  # single precision
+        p = np.mean(spec.real.astype(np.float64) ** 2 + spec.imag.astype(np.float64) ** 2, axis=0)
         floor = float(np.median(p))
         if floor <= 0:
             return 0.0, 0.0, float("-inf")
@@ -289,8 +295,10 @@ class CarrierSearch:
         best_r = 0.0
         if rates.size > 1:
             best_p = -1.0
+            base32 = base.astype(np.complex64)
             for a in range(0, rates.size, 16):
-                spec = np.fft.fft(chirps[a:a + 16] * base, nfft1, axis=1)
+                # single precision is ample to pick the best rate; the chosen one is transformed again below
+                spec = scipy.fft.fft(chirps[a:a + 16] * base32, nfft1, axis=1, workers=1)
                 p = spec.real ** 2 + spec.imag ** 2
                 p[:, outside] = 0.0
                 peak = p.max(axis=1)
@@ -326,7 +334,9 @@ class CarrierSearch:
             n_d = n // dec
             t = ((np.arange(n_d) * dec + 0.5 * (dec - 1)) - 0.5 * (n - 1)) / fs
             rates = self._rates(n / fs)
-            chirps = np.exp(-1j * math.pi * m * rates[:, None] * (t * t)[None, :]) if rates.size > 1 else None
+            chirps = None
+            if rates.size > 1:
+                chirps = np.exp(-1j * math.pi * m * rates[:, None] * (t * t)[None, :]).astype(np.complex64)
             f1 = np.fft.fftfreq(nfft, d=dec / fs)
             outside = np.abs(f1) > min(m * self.fine_hz, 0.5 * fs)
             got = (chirps, rates, outside)
