@@ -153,3 +153,60 @@ def test_noise_gives_no_packets_and_says_what_it_saw(tmp_path, demo):
     line = d.no_lock_message()
     assert line.startswith("no carrier lock in +-500000 Hz: ") and "above the noise floor" in line
     assert "\n" not in line
+
+
+# ---- longer checks -----------------------------------------------------------------------------------------
+
+@pytest.mark.slow
+def test_wide_search_loses_no_more_than_the_narrow_one(tmp_path, demo):
+    """Short version of bench/bench_acquisition.py: the same recording near threshold (Eb/N0 2.7 dB, 120
+    frames of the demo link), decoded with the whole-band search and with the former +-12 kHz one."""
+    import json
+
+    sim = pipeline.simulate(demo, tmp_path / "sim", seconds=10.5, seed=2027, ebn0_db=2.7)
+    truth = {(r["apid"], r["seq_count"], r["hex"])
+             for r in map(json.loads, (tmp_path / "sim" / "truth.jsonl").read_text().splitlines())}
+
+    def lost(profile):
+        got = {(p["apid"], p["seq_count"], p["hex"]) for p in pipeline.decode(sim.meta_path, profile).packets_list}
+        assert got <= truth
+        return truth - got
+
+    wide = lost(demo)
+    narrow = lost(demo.with_changes(receiver={"acquisition_range_hz": 12000.0}))
+    assert len(wide) <= len(narrow) and len(wide) < 0.05 * len(truth)
+
+
+@pytest.mark.slow
+def test_kernels_within_bounds_under_numba_boundscheck(tmp_path):
+    """With NUMBA_BOUNDSCHECK=1 (every array access checked; a fresh cache so the kernels are compiled so)
+    the demodulators run hostile input at the edges of the accepted ranges without an IndexError."""
+    import os
+    import subprocess
+    import sys
+
+    script = r'''
+import numpy as np
+from types import SimpleNamespace as N
+from pipeline.demod.residual import make_demodulator
+from pipeline.profile import LinkSection, ReceiverSection
+rng = np.random.default_rng(1)
+cases = [(LinkSection(modulation="bpsk", symbol_rate_baud=1e6 / 2.01), 1e6, 0.05),
+         (LinkSection(modulation="oqpsk", symbol_rate_baud=1e6 / 64), 1e6, 1e-5),
+         (LinkSection(modulation="qpsk", pulse="rect", symbol_rate_baud=1e6 / 3.3), 1e6, 0.05),
+         (LinkSection(modulation="pcm-pm", pulse="rect", symbol_rate_baud=2e4 / 4.0), 2e4, 0.05),
+         (LinkSection(modulation="bpsk", pulse="rect", line_code="bi-phase-l", symbol_rate_baud=1e5 / 8), 1e5, 0.05)]
+for link, fs, bw in cases:
+    d = make_demodulator(link=link, receiver=ReceiverSection(timing_loop_bandwidth=bw), sample_rate_hz=fs)
+    x = (rng.standard_normal(300_000) + 1j * rng.standard_normal(300_000)).astype(np.complex64)
+    x[40_000:90_000] = 0
+    x[150_000:150_100] = 1e6
+    x[200_000::991] *= 1e4
+    for a in range(0, x.size, 77_777):
+        d.process(N(samples=x[a:a + 77_777], start=a, nonfinite=0))
+    d.flush()
+print("ok")
+'''
+    env = dict(os.environ, NUMBA_BOUNDSCHECK="1", NUMBA_CACHE_DIR=str(tmp_path / "numba"))
+    done = subprocess.run([sys.executable, "-c", script], env=env, capture_output=True, text=True, timeout=900)
+    assert done.returncode == 0 and done.stdout.strip() == "ok", done.stderr[-2000:]
