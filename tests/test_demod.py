@@ -244,6 +244,23 @@ def test_narrow_search_range_is_the_former_behaviour(rng):
     assert _search("bpsk", search_hz=40e3).search(w.samples[:65536]).found
 
 
+def test_no_lock_line_over_segments():
+    from pipeline.demod import DemodStats, SpectralLine
+
+    a = DemodStats(samples_in=10, acquisitions=2, search_hz=5e5, line_threshold_db=14.4)
+    a.saw(SpectralLine(100.0, 3.0, "band"))
+    b = DemodStats(samples_in=5, acquisitions=1, search_hz=5e5, line_threshold_db=14.4)
+    b.saw(SpectralLine(-2500.25, 11.04, "x^2 line"))
+    b.saw(SpectralLine(700.0, 9.0, "x^2 line"))  # weaker: not kept
+    a.merge(b)
+    assert (a.samples_in, a.acquisitions) == (15, 3)
+    assert a.no_lock_message() == ("no carrier lock in +-500000 Hz: strongest x^2 line at -2500.2 Hz, 11.0 dB above "
+                                   "the noise floor (14.4 dB needed)")
+    b.carrier_locked_symbols = 1
+    a.merge(b)
+    assert a.no_lock_message() is None
+
+
 @pytest.mark.kat
 def test_dc_blocker_known_answer():
     x = np.full(4096, 2.0 - 1.0j, dtype=np.complex64)

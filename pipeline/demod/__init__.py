@@ -11,7 +11,7 @@ from pipeline.demod._acquire import (
     SpectralLine,
     estimate_carrier_offset,
 )
-from pipeline.demod._demodulator import DcBlocker, DemodStats, Demodulator, SymbolBlock, TrackPoint, no_lock_message
+from pipeline.demod._demodulator import DcBlocker, DemodStats, Demodulator, SymbolBlock, TrackPoint
 from pipeline.demod._filters import matched_filter_taps, raised_cosine_pulse, rrc_pulse
 from pipeline.demod._inspect import fit_carrier_track, inspect_recording, write_inspect_plots
 from pipeline.demod._line import LineDecoder
@@ -34,7 +34,6 @@ __all__ = [
     "inspect_recording",
     "write_inspect_plots",
     "m2m4_signal_noise",
-    "no_lock_message",
     "matched_filter_taps",
     "raised_cosine_pulse",
     "rrc_pulse",

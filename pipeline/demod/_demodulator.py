@@ -23,7 +23,7 @@ from pipeline.demod._snr import estimate_esn0_m2m4
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "check_chunk", "continue_stream",
-           "cut_blocks", "no_lock_message", "MIN_SAMPLES_PER_SYMBOL", "MAX_SAMPLES_PER_SYMBOL"]
+           "cut_blocks", "MIN_SAMPLES_PER_SYMBOL", "MAX_SAMPLES_PER_SYMBOL"]
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
 _RRC_SPAN_SYMBOLS = 8
@@ -97,7 +97,13 @@ class SymbolBlock:
 
 @dataclass
 class DemodStats:
-    """Counters of one run (bad data is counted here, never raised)."""
+    """Counters of one run (bad data is counted here, never raised).
+
+    ``strongest_line`` is the strongest spectral line (or signal band) any acquisition saw;
+    ``search_hz`` and ``line_threshold_db`` are the demodulator's searched half-band and the level a
+    line needs, so that :meth:`no_lock_message` needs nothing else.  Picklable; segments of one
+    decode combine with :meth:`merge` (not a field-wise sum).
+    """
 
     samples_in: int = 0
     nonfinite_samples: int = 0
@@ -106,7 +112,9 @@ class DemodStats:
     acquisitions: int = 0
     carrier_found: int = 0
     last_peak_ratio: float = 0.0
-    strongest_line: SpectralLine | None = None  # over every acquisition (see no_lock_message)
+    strongest_line: SpectralLine | None = None
+    search_hz: float = float("nan")
+    line_threshold_db: float = float("nan")
 
     def saw(self, line: SpectralLine) -> None:
         """Keep ``line`` if it is stronger than the strongest seen so far (a line beats a band)."""
@@ -115,42 +123,39 @@ class DemodStats:
         if old is None or rank > (old.kind != "band", old.level_db):
             self.strongest_line = line
 
+    def merge(self, other: DemodStats) -> None:
+        """Add another run's (a later segment's) counters; keep the stronger line."""
+        for name in ("samples_in", "nonfinite_samples", "symbols_out", "carrier_locked_symbols", "acquisitions",
+                     "carrier_found"):
+            setattr(self, name, getattr(self, name) + getattr(other, name))
+        self.last_peak_ratio = other.last_peak_ratio
+        if other.strongest_line is not None:
+            self.saw(other.strongest_line)
+        if not math.isfinite(self.search_hz):
+            self.search_hz, self.line_threshold_db = other.search_hz, other.line_threshold_db
 
-def no_lock_message(stats: list[DemodStats] | DemodStats, *, search_hz: float, threshold_db: float) -> str | None:
-    """The one line to print when no carrier lock was found in a run (None when there was lock).
+    def no_lock_message(self) -> str | None:
+        """The one line to print when no carrier lock was found (None when there was lock).
 
-    Parameters
-    ----------
-    stats : DemodStats or list of DemodStats
-        One run's counters, or those of every segment of a segmented decode.
-    search_hz : float
-        Half-width of the searched band (``Demodulator.acquisition_search_hz``).
-    threshold_db : float
-        Level a line needs (``Demodulator.line_threshold_db``).
-
-    Examples
-    --------
-    >>> from pipeline.demod import DemodStats
-    >>> from pipeline.demod._acquire import SpectralLine
-    >>> s = DemodStats(samples_in=100000)
-    >>> s.saw(SpectralLine(-1234.5, 9.06, "x^2 line"))
-    >>> no_lock_message(s, search_hz=500e3, threshold_db=14.4)
-    'no carrier lock in +-500000 Hz: strongest x^2 line at -1234.5 Hz, 9.1 dB above the noise floor (14.4 dB needed)'
-    """
-    items = [stats] if isinstance(stats, DemodStats) else list(stats)
-    if any(s.carrier_locked_symbols for s in items):
-        return None
-    best = DemodStats()
-    for s in items:
-        if s.strongest_line is not None:
-            best.saw(s.strongest_line)
-    text = f"no carrier lock in +-{search_hz:.0f} Hz"
-    line = best.strongest_line
-    if line is None:
-        return text + ": no acquisition could be tried (recording too short)"
-    if line.kind == "band":
-        return f"{text}: no signal band stood out of the noise ({line.describe()})"
-    return f"{text}: {line.describe()} ({threshold_db:.1f} dB needed)"
+        Examples
+        --------
+        >>> from pipeline.demod import DemodStats, SpectralLine
+        >>> s = DemodStats(samples_in=100000, search_hz=500e3, line_threshold_db=14.4)
+        >>> s.saw(SpectralLine(-1234.5, 9.06, "x^2 line"))
+        >>> s.no_lock_message()[:64]
+        'no carrier lock in +-500000 Hz: strongest x^2 line at -1234.5 Hz'
+        >>> s.no_lock_message()[64:]
+        ', 9.1 dB above the noise floor (14.4 dB needed)'
+        """
+        if self.carrier_locked_symbols:
+            return None
+        text = f"no carrier lock in +-{self.search_hz:.0f} Hz"
+        line = self.strongest_line
+        if line is None:
+            return text + ": no acquisition could be tried (recording too short)"
+        if line.kind == "band":
+            return f"{text}: no signal band stood out of the noise ({line.describe()})"
+        return f"{text}: {line.describe()} ({self.line_threshold_db:.1f} dB needed)"
 
 
 class DcBlocker:
@@ -425,7 +430,7 @@ class Demodulator:
         self._state[0]["ph_cos"] = 1.0  # the carrier phasor at theta = 0
         self._unlocked_run = 0
         self._finished = False
-        self.stats = DemodStats()
+        self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
 
     # ---- public ------------------------------------------------------------------------
     def process(self, chunk: Any) -> SymbolBlock:
@@ -475,10 +480,9 @@ class Demodulator:
         """One line for stderr when no carrier lock was found so far (None when there was lock).
 
         It names the searched band and the strongest spectral line the acquisitions saw, with its
-        level over the noise floor (see :func:`no_lock_message`).
+        level over the noise floor (:meth:`DemodStats.no_lock_message`).
         """
-        return no_lock_message(self.stats, search_hz=self.acquisition_search_hz,
-                               threshold_db=self.line_threshold_db)
+        return self.stats.no_lock_message()
 
     # ---- internals ---------------------------------------------------------------------
     def _check_chunk(self, chunk: Any) -> tuple[np.ndarray, int]:

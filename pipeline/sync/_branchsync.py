@@ -610,7 +610,8 @@ class BranchSync:
             states = np.empty(n_blocks, np.int64)
             r = self._scored - self._seg_done
             _kernels.reencode_metrics(self._seg_bits[r : r + n_bits], self._score_state, _G1_MASK, _G2_MASK,
-                                      int(self.g2_inverted), self._keep1, self._keep2, _PARITY, soft, B, metrics, states)
+                                      int(self.g2_inverted), self._keep1, self._keep2, _PARITY, soft, B, metrics,
+                                      states)
             used = n_blocks
             for j in range(n_blocks):
                 if partial and j == n_blocks - 1:

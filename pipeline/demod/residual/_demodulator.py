@@ -10,7 +10,7 @@ import numpy as np
 
 from pipeline.demod import DemodStats, Demodulator, SymbolBlock, TrackPoint
 from pipeline.demod._acquire import LINE_THRESHOLD, CarrierSearch, SpectralLine, spectral_line
-from pipeline.demod._demodulator import DcBlocker, check_chunk, continue_stream, cut_blocks, no_lock_message
+from pipeline.demod._demodulator import DcBlocker, check_chunk, continue_stream, cut_blocks
 from pipeline.demod.residual._kernels import (
     CARRIER_PARAM_SIZE,
     CARRIER_STATE_SIZE,
@@ -361,7 +361,7 @@ class ResidualCarrierDemodulator:
         self._symbol_locked = False
         self._finished = False
         self.modulation_index_rad = float("nan")
-        self.stats = DemodStats()
+        self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
 
     # ---- public ------------------------------------------------------------------------
     def process(self, chunk: Any) -> SymbolBlock:
@@ -571,8 +571,8 @@ class ResidualCarrierDemodulator:
         return tuple(np.concatenate(col) for col in zip(*outs))
 
     def no_lock_message(self) -> str | None:
-        """One line for stderr when no carrier lock was found so far (see :func:`pipeline.demod.no_lock_message`)."""
-        return no_lock_message(self.stats, search_hz=self.acquisition_search_hz, threshold_db=self.line_threshold_db)
+        """One line for stderr when no carrier lock was found so far (``DemodStats.no_lock_message``)."""
+        return self.stats.no_lock_message()
 
     def _acquire_timing(self, block_start: int) -> None:
         """Symbol timing by the best of 32 trial phases over the symbols of the buffer from ``block_start``."""
