@@ -486,10 +486,11 @@ class BranchSync:
         x = self._raw_soft[a - self._raw_base : b - self._raw_base].astype(np.float64)
         if x.size < 64:
             return True
-        m2 = float(np.mean(x * x))
+        x2 = x * x
+        m2 = float(x2.sum()) / x.size
         if m2 <= 0.0:
             return False
-        m4 = float(np.mean(x ** 4))
+        m4 = float(np.dot(x2, x2)) / x.size
         s = math.sqrt(max(0.0, 0.5 * (3.0 * m2 * m2 - m4)))
         return s >= _PRESENCE_MIN * m2
 
