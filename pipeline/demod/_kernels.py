@@ -17,7 +17,6 @@ __all__ = [
     "track_symbols",
     "nrzm_decode",
     "moments_m2m4",
-    "power_nonzero",
     "mean_power_nonzero",
     "remove_dc",
     "TRACK_PARAMS",
@@ -510,19 +509,6 @@ def moments_m2m4(sym, out):
     else:
         out[0] = 0.0
         out[1] = 0.0
-
-
-@njit(cache=True)
-def power_nonzero(x):
-    """Mean ``|x|^2`` over the non-zero samples of ``x`` (zeros are erasures), and their count."""
-    acc = 0.0
-    cnt = 0
-    for i in range(x.shape[0]):
-        p = float(x[i].real) ** 2 + float(x[i].imag) ** 2
-        if p > 0.0:
-            acc += p
-            cnt += 1
-    return (acc / cnt if cnt > 0 else 0.0), cnt
 
 
 @njit(cache=True)
