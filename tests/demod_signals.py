@@ -31,6 +31,7 @@ class Waveform:
     peak_position: np.ndarray  # float64 sample index where each symbol's (I) pulse peaks
     i_bits: np.ndarray  # uint8, bit of the in-phase channel (BPSK: the only bit)
     q_bits: np.ndarray  # uint8, quadrature bit (zeros for BPSK)
+    pulse_energy: float = float("nan")  # mean sum of g(n)^2 over a symbol's samples (about sps for RRC)
 
 
 def rrc_closed_form(x: np.ndarray, beta: float) -> np.ndarray:
@@ -133,7 +134,7 @@ def modulate(n_symbols: int, *, modulation: str = "bpsk", sample_rate_hz: float 
         # (sps_tx for RRC; less for an integrating sampler's rect, whose edge samples are partial)
         sigma2 = e_pulse * amplitude ** 2 / 10 ** (esn0_db / 10)
         s = s + math.sqrt(sigma2 / 2) * (rng.standard_normal(n_samples) + 1j * rng.standard_normal(n_samples))
-    return Waveform(s.astype(np.complex64), centres, bi, bq)
+    return Waveform(s.astype(np.complex64), centres, bi, bq, float(e_pulse))
 
 
 def chunked(samples: np.ndarray, cuts: list[int], start: int = 0):

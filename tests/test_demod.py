@@ -9,6 +9,8 @@ import pytest
 from demod_signals import Chunk, chunked, modulate, rrc_closed_form
 
 from pipeline.demod import (
+    CarrierSearch,
+    DcBlocker,
     Demodulator,
     LineDecoder,
     estimate_carrier_offset,
@@ -193,6 +195,90 @@ def test_coarse_acquisition(rng, mod, power):
     assert not est.found
 
 
+def _search(mod: str, **kw) -> CarrierSearch:
+    args = dict(sample_rate_hz=FS, power=2 if mod == "bpsk" else 4, occupied_hz=1.5 * RS, fine_hz=0.05 * RS,
+                prefilter=matched_filter_taps("rrc", 0.5, FS / RS, 8), max_rate_hz_per_s=5000.0)
+    args.update(kw)
+    return CarrierSearch(**args)
+
+
+@pytest.mark.parametrize("mod, esn0_db", [("bpsk", -0.3), ("qpsk", 2.0), ("oqpsk", 2.0)])
+def test_wide_search_finds_the_carrier_anywhere_under_doppler_rates(rng, mod, esn0_db):
+    """+-(fs - occupied bandwidth)/2 = +-320 kHz and +-5 kHz/s, at the demo link's threshold Es/N0 (Eb/N0 2.7 dB).
+    Truth: the test transmitter's carrier frequency at the window's first sample."""
+    search = _search(mod)
+    for f0, rate in [(-318e3, 0.0), (-61e3, 5000.0), (123.4e3, -5000.0), (297e3, 2500.0)]:
+        w = modulate(16000, modulation=mod, esn0_db=esn0_db, carrier_offset_hz=f0, doppler_rate_hz_per_s=rate,
+                     phase_rad=rng.uniform(0, 6.28), lead_symbols=0, rng=rng)
+        got = search.search(w.samples[:65536])
+        assert got.found, (f0, rate, got)
+        assert abs(got.offset_hz - f0) < 20.0, (f0, rate, got)  # rate grid 466 (233) Hz/s x 33 ms / 2, and noise
+        assert abs(got.rate_hz_per_s - rate) < 500.0
+
+
+def test_doppler_rate_hypotheses_are_what_finds_a_ramping_qpsk_carrier(rng):
+    # at Es/N0 = 2 dB the x^4 line of a 5 kHz/s ramp spreads over 1.3 kHz in 65 ms; dechirping gathers it
+    w = modulate(16000, modulation="qpsk", esn0_db=2.0, carrier_offset_hz=40e3, doppler_rate_hz_per_s=5000.0,
+                 lead_symbols=0, rng=rng)
+    assert _search("qpsk").search(w.samples[:65536]).found
+    assert not _search("qpsk", max_rate_hz_per_s=0.0).search(w.samples[:65536]).found
+
+
+def test_search_on_noise_and_on_a_dc_spike(rng):
+    search = _search("bpsk")
+    for _ in range(5):
+        noise = (rng.standard_normal(65536) + 1j * rng.standard_normal(65536)).astype(np.complex64)
+        got = search.search(noise)
+        assert not got.found and got.line.kind == "band"
+        assert not search.search(noise + (4.0 - 3.0j)).found  # a DC offset is not a carrier
+    # a weak carrier beside a DC offset 14 dB above the whole signal: the carrier, not the DC
+    w = modulate(16000, esn0_db=2.0, carrier_offset_hz=1500.0, lead_symbols=0, rng=rng)
+    got = search.search(w.samples[:65536] + np.complex64(4.0 - 3.0j))
+    assert got.found and abs(got.offset_hz - 1500.0) < 20.0
+
+
+def test_narrow_search_range_is_the_former_behaviour(rng):
+    # acquisition_range_hz = 12 kHz (5 % of 240 ksym/s) looks only there: a carrier at 30 kHz is not found
+    w = modulate(16000, esn0_db=4.0, carrier_offset_hz=30e3, lead_symbols=0, rng=rng)
+    assert not _search("bpsk", search_hz=12e3).search(w.samples[:65536]).found
+    assert _search("bpsk", search_hz=40e3).search(w.samples[:65536]).found
+
+
+def test_no_lock_line_over_segments():
+    from pipeline.demod import DemodStats, SpectralLine
+
+    a = DemodStats(samples_in=10, acquisitions=2, search_hz=5e5, line_threshold_db=14.4)
+    a.saw(SpectralLine(100.0, 3.0, "band"))
+    b = DemodStats(samples_in=5, acquisitions=1, search_hz=5e5, line_threshold_db=14.4)
+    b.saw(SpectralLine(-2500.25, 11.04, "x^2 line"))
+    b.saw(SpectralLine(700.0, 9.0, "x^2 line"))  # weaker: not kept
+    a.merge(b)
+    assert (a.samples_in, a.acquisitions) == (15, 3)
+    assert a.no_lock_message() == ("no carrier lock in +-500000 Hz: strongest x^2 line at -2500.2 Hz, 11.0 dB above "
+                                   "the noise floor (14.4 dB needed)")
+    b.carrier_locked_symbols = 1
+    a.merge(b)
+    assert a.no_lock_message() is None
+
+
+@pytest.mark.kat
+def test_dc_blocker_known_answer():
+    x = np.full(4096, 2.0 - 1.0j, dtype=np.complex64)
+    x[::2] += 1.0  # a square wave of mean 0.5 on top of the offset
+    x[100:110] = 0  # erasures stay erasures
+    dc = DcBlocker()
+    y, p = dc.process(x)
+    mean = (2.0 - 1.0j) + 0.5 * 4086 / 4086  # the mean of the non-zero samples
+    assert abs(complex(dc.offset) - mean) < 1e-6
+    assert np.all(y[100:110] == 0)
+    nz = np.flatnonzero(x)
+    np.testing.assert_allclose(y[nz], x[nz] - np.complex64(mean), atol=1e-6)
+    assert p == pytest.approx(float(np.mean(np.abs(y[nz]) ** 2)), rel=1e-6)
+    # the next block's estimate moves by 1/8 of the difference
+    dc.process(np.full(1000, 10.0 + 0j, dtype=np.complex64))
+    assert abs(complex(dc.offset) - (mean + (10.0 - mean) / 8)) < 1e-6
+
+
 # ---- the stage ---------------------------------------------------------------------------------------
 
 @pytest.mark.parametrize("mod,pulse", [("bpsk", "rrc"), ("qpsk", "rrc"), ("oqpsk", "rrc"), ("qpsk", "rect")])
@@ -300,8 +386,10 @@ def test_zero_input_is_handled(rng):
 def test_bad_arguments():
     with pytest.raises(ValueError, match="Argument 'sample_rate_hz' must be a positive"):
         Demodulator(link=LinkSection(), receiver=ReceiverSection(), sample_rate_hz=0.0)
-    with pytest.raises(ValueError, match="at least 2 samples per symbol"):
+    with pytest.raises(ValueError, match="must give 2 to 64 samples per symbol for bpsk, not 1.25"):
         Demodulator(link=LinkSection(), receiver=ReceiverSection(), sample_rate_hz=300e3)
+    with pytest.raises(ValueError, match="must give 2 to 64 samples per symbol for bpsk, not 1e[+]06"):
+        Demodulator(link=LinkSection(symbol_rate_baud=1.0), receiver=ReceiverSection(), sample_rate_hz=1e6)
     with pytest.raises(ValueError, match="Argument 'link.modulation'"):
         Demodulator(link=LinkSection(modulation="pcm-pm"), receiver=ReceiverSection(), sample_rate_hz=FS)
     with pytest.raises(TypeError, match="Argument 'link' must be a LinkSection"):
@@ -374,3 +462,103 @@ def test_state_stays_bounded_over_a_long_stream(rng):
         assert d._mf_tail.size < 64
         assert sum(h.size for h in d._held) <= d.acquisition_samples
     assert d.stats.samples_in == 12 * w.samples.size
+
+
+# ---- issue 14 / 13: receiver conditions and kernel bounds ---------------------------------------------
+
+def test_oqpsk_bits_are_timed_by_their_own_rail(rng):
+    """OQPSK: the I bit at its pulse peak, the Q bit at its own, half a symbol later (demod_signals' peaks)."""
+    w = modulate(20000, modulation="oqpsk", esn0_db=None, carrier_offset_hz=700.0, phase_rad=0.2,
+                 clock_offset_ppm=30.0, rng=rng)
+    soft, pos, locked, _ = _run(_demod("oqpsk"), w.samples)
+    sps = FS / RS * (1 + 30e-6)
+    i_pos, q_pos = pos[0::2][4000:], pos[1::2][4000:]
+    k = np.rint((i_pos - w.peak_position[0]) / (0.5 * sps)).astype(int)  # half-symbol grid of both rails
+    assert np.max(np.abs(i_pos - (w.peak_position[0] + 0.5 * sps * k))) < 0.05 * sps
+    np.testing.assert_allclose(q_pos - i_pos, 0.5 * sps, atol=0.05 * sps)
+
+
+def test_spectrum_inverted_true_conjugates_the_input(rng):
+    w = modulate(30000, esn0_db=6.0, carrier_offset_hz=5000.0, phase_rad=0.4, rng=rng)
+    upright = _run(_demod(), w.samples)
+    inverted = _run(_demod(spectrum_inverted=True), np.conj(w.samples))
+    np.testing.assert_array_equal(upright[0], inverted[0])
+    f = [t.carrier_offset_hz for t in inverted[3] if t.carrier_locked]
+    assert abs(np.median(f) - 5000.0) < 2.0  # the Doppler sign of the upright signal
+    f_auto = [t.carrier_offset_hz for t in _run(_demod(), np.conj(w.samples))[3] if t.carrier_locked]
+    assert abs(np.median(f_auto) + 5000.0) < 2.0  # without it, the mirror image's
+
+
+def test_dc_offset_near_the_carrier_is_removed(rng):
+    from demod_signals import symbol_errors, theory_ser
+
+    w = modulate(60000, esn0_db=6.0, carrier_offset_hz=300.0, rng=rng)
+    soft, pos, locked, _ = _run(_demod(), w.samples + np.complex64(2.5 + 1.5j))  # 9 dB above the signal
+
+    class B:
+        pass
+
+    b = B()
+    b.soft, b.position = soft, pos
+    e, n, _ = symbol_errors(b, w, "bpsk", skip=4000)
+    assert e / n < 1.5 * theory_ser(6.0, "bpsk")  # Proakis eq. 5.2-5
+
+
+def test_signal_starting_inside_an_acquisition_window_is_locked_from_its_start(rng):
+    """The search window slides one block at a time while nothing is found: the carrier of a signal that
+    starts at 0.15 s is set from a window that begins before it, and lock follows within 1000 symbols."""
+    w = modulate(60000, esn0_db=2.0, carrier_offset_hz=-37e3, dropout=(0.0, 0.15), rng=rng)
+    soft, pos, locked, _ = _run(_demod(), w.samples)
+    t = pos / FS
+    first = int(np.argmax(locked & (t >= 0.15)))
+    assert locked.any() and t[first] < 0.15 + 1000 / RS
+    assert locked[first:].mean() > 0.99
+
+
+def test_track_points_are_tagged_at_the_middle_of_their_interval(rng):
+    """Under a 5 kHz/s ramp a point tagged at its block's end would read 82 Hz off (16.4 ms late)."""
+    rate = 5000.0
+    w = modulate(240_000, esn0_db=10.0, carrier_offset_hz=-20e3, doppler_rate_hz_per_s=rate, rng=rng)
+    _, _, locked, track = _run(_demod(), w.samples)
+    pts = [p for p in track[3:-1] if p.carrier_locked]
+    assert len(pts) > 20
+    err = [p.carrier_offset_hz - (-20e3 + rate * p.position / FS) for p in pts]
+    assert np.max(np.abs(err)) < 3.0  # truth: the transmitter's instantaneous frequency at the tag
+
+
+@pytest.mark.kat
+def test_kernel_buffers_full_continue_exactly():
+    """track_symbols stops when its buffers are full and a call with new ones continues exactly: the
+    demodulator with buffers of 7 symbols gives the same output as with buffers from the proven bound."""
+    rng = np.random.default_rng(9)
+    w = modulate(1500, esn0_db=8.0, carrier_offset_hz=900.0, rng=rng)
+    ref = _run(_demod(), w.samples)
+    small = _demod()
+    small._min_symbol_advance = small.samples_per_symbol * 1e6  # cap = 2 + size / (huge) -> 2 per call
+    got = _run(small, w.samples)
+    np.testing.assert_array_equal(got[0], ref[0])
+    np.testing.assert_array_equal(got[1], ref[1])
+
+
+def test_kernel_bound_holds_on_hostile_input(rng, monkeypatch):
+    """Clipped spikes, silences and noise at the widest timing loop: no call ever fills its buffers."""
+    import pipeline.demod._demodulator as dm
+
+    calls = []
+    real = dm.track_symbols
+
+    def counting(mf, base, t_limit, params, mod, third, state, out_pos, *rest):
+        n = real(mf, base, t_limit, params, mod, third, state, out_pos, *rest)
+        calls.append((n, out_pos.size))
+        return n
+
+    monkeypatch.setattr(dm, "track_symbols", counting)
+    for mod in ("bpsk", "oqpsk"):
+        x = (rng.standard_normal(400_000) + 1j * rng.standard_normal(400_000)).astype(np.complex64)
+        x[50_000:90_000] = 0
+        x[150_000:150_050] = 1e6
+        x[200_000::997] *= 1e4
+        d = Demodulator(link=LinkSection(modulation=mod, symbol_rate_baud=FS / 2.05),
+                        receiver=ReceiverSection(timing_loop_bandwidth=0.05), sample_rate_hz=FS)
+        _run(d, x)
+    assert calls and all(n < cap for n, cap in calls)

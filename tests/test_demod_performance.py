@@ -152,6 +152,21 @@ def test_doppler_rate_500_hz_per_s_without_cycle_slip(order, esn0_db):
     assert abs(rate - 500.0) < 10.0 and abs(f0 - -4000.0) < 5.0
 
 
+@pytest.mark.parametrize("mod, rate, esn0_db", [("bpsk", 5000.0, 0.0), ("qpsk", -5000.0, 4.0)])
+def test_doppler_rate_5_khz_per_s_from_acquisition_on(mod, rate, esn0_db):
+    """A LEO X-band worst case (issue 14): acquired 40 kHz off under the ramp, then tracked without a slip."""
+    rng = np.random.default_rng(32)
+    w = modulate(120_000, modulation=mod, esn0_db=esn0_db, carrier_offset_hz=-40e3, doppler_rate_hz_per_s=rate,
+                 phase_rad=0.9, clock_offset_ppm=-20.0, rng=rng)
+    blk, d = _demodulate(w.samples, mod)
+    assert d.stats.carrier_found == 1
+    bps = 1 if mod == "bpsk" else 2
+    assert blk.locked[3000 * bps:].mean() > 0.999
+    errs, n, _ = symbol_errors(SymbolBlock(soft=blk.soft[6000 * bps:], position=blk.position[6000 * bps:]), w, mod,
+                               skip=0)
+    assert errs / n < 1.5 * theory_ser(esn0_db, mod)  # no cycle slip (it would flip a stretch); Proakis 5.2-5, -59
+
+
 @pytest.mark.parametrize("esn0_db", [-1.0, 2.4])
 def test_lock_regained_within_1000_symbols_after_100_ms_dropout(esn0_db):
     rng = np.random.default_rng(41)

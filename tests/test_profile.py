@@ -80,6 +80,13 @@ def test_virtual_fill_from_length():
         ({"packets": {"time_code": [{"apid": 5, "epoch": "soon"}]}},
          "apid 5: epoch must be an ISO-8601 date and time without a zone offset, not 'soon'"),
         ({"packets": {"time_code": [{"apid": 5, "offset": 70000}]}}, "offset must be 0..65535 octets, not 70000"),
+        ({"receiver": {"acquisition_range": 0.05}}, "acquisition_range (a fraction of the symbol rate) was replaced "
+                                                    "by acquisition_range_hz"),
+        ({"receiver": {"acquisition_range_hz": -5.0}}, "acquisition_range_hz must be a frequency > 0 Hz, not -5.0"),
+        ({"receiver": {"acquisition_range_hz": "wide"}}, "acquisition_range_hz must be a frequency > 0 Hz"),
+        ({"receiver": {"spectrum_inverted": "yes"}}, 'spectrum_inverted must be true, false or "auto", not \'yes\''),
+        ({"receiver": {"timing_loop_bandwidth": 0.09}}, "timing_loop_bandwidth must be 1e-05..0.05"),
+        ({"receiver": {"timing_loop_bandwidth": 0.0}}, "timing_loop_bandwidth must be 1e-05..0.05"),
     ],
 )
 def test_out_of_range_values_name_the_key(data, fragment):
@@ -149,6 +156,15 @@ def test_every_profile_the_validator_accepts_the_stages_accept():
                                               cadu=Cadu(data=data, position=0.0, asm_errors=0, inverted=False,
                                                         flywheel=False, bit_index=0)))
             ex.process(rec)
+def test_receiver_keys():
+    rx = profile_from_dict(_full({})).receiver
+    assert rx.acquisition_range_hz is None and rx.spectrum_inverted == "auto"  # whole band, both mirror images
+    rx = profile_from_dict(_full({"receiver": {"acquisition_range_hz": 12000, "spectrum_inverted": True}})).receiver
+    assert rx.acquisition_range_hz == 12000.0 and isinstance(rx.acquisition_range_hz, float)
+    assert rx.spectrum_inverted is True
+    assert profile_from_dict(_full({"receiver": {"spectrum_inverted": False}})).receiver.spectrum_inverted is False
+    with pytest.raises(ProfileError, match="known: .*spectrum_inverted"):
+        profile_from_dict(_full({"receiver": {"spectrum_invert": True}}))
 
 
 def test_missing_and_malformed_files(tmp_path):
@@ -179,6 +195,7 @@ _scalars = st.one_of(st.booleans(), st.integers(-10**6, 10**6), st.floats(allow_
 _keys = st.sampled_from(["modulation", "symbol_rate", "pulse", "rolloff", "line_code", "convolutional",
                          "reed_solomon", "interleave", "randomizer", "kind", "length", "fecf", "ocf",
                          "spacecraft_id", "asm_max_errors", "chunk_samples", "seconds", "ebn0_db", "apid",
+                         "acquisition_range_hz", "spectrum_inverted", "timing_loop_bandwidth", "acquisition_range",
                          "code", "pfield", "traffic", "time_code", "bitstream_vcids", "bogus"])
 _tables = st.dictionaries(_keys, st.one_of(_scalars, st.lists(st.dictionaries(_keys, _scalars, max_size=4),
                                                                  max_size=2)), max_size=5)

@@ -374,3 +374,105 @@ def test_uncoded_oqpsk_rotation_with_repairing(rng):
     out, _ = run(bs, rx, np.arange(rx.size, dtype=np.float64))
     assert bs.stats.switches == 1 and "Q inverted" in bs.events[0].detail
     assert np.array_equal(out[: rx.size - 1] * -1, soft[1: rx.size])  # upright up to the 180-degree case
+
+
+# ---- issue 14: mirror images, signal onset, fades, OQPSK time reference -------------------------------------
+
+def mirror(soft, kind):
+    """A spectrally inverted QPSK stream: the conjugate (Q inverted) or I and Q swapped, on (I, Q) pairs."""
+    pr = soft[: soft.size // 2 * 2].reshape(-1, 2).copy()
+    pr = np.stack((pr[:, 0], -pr[:, 1]), axis=1) if kind == "conjugate" else pr[:, ::-1]
+    return pr.ravel()
+
+
+@pytest.mark.parametrize("kind", ["conjugate", "swap"])
+@pytest.mark.parametrize("turns", [0, 1])
+def test_mirrored_qpsk_is_decoded(rng, kind, turns):
+    """Conjugate: I + jQ -> I - jQ; swapped: Q + jI = j conj(I + jQ) (common practice, no published source)."""
+    bits = rng.integers(0, 2, 16000, dtype=np.uint8)
+    soft = rotate(mirror(channel(rng, bits, "1/2", 3.0), kind), turns)
+    pos = np.arange(soft.size, dtype=np.float64)
+    bs = BranchSync(rate="1/2", modulation="qpsk")
+    a, _ = bs.process(soft, pos)
+    assert bs.mirrored is True and "spectrum inverted" in bs.events[0].detail
+    out = np.concatenate((a, bs.flush()[0]))
+    ber, _, _ = align((out < 0).astype(np.uint8), bits)
+    assert ber < 2e-3
+    upright = BranchSync(rate="1/2", modulation="qpsk", mirror=False)
+    out, _ = run(upright, soft, pos)
+    assert align((out < 0).astype(np.uint8), bits)[0] > 0.2  # without the mirror hypotheses: nothing
+    plain = BranchSync(rate="1/2", modulation="qpsk")
+    plain.process(rotate(channel(rng, bits, "1/2", 3.0), turns), pos)
+    assert plain.mirrored is False
+
+
+def test_uncoded_mirrored_qpsk_by_markers(rng):
+    bits = uncoded_cadu_stream(rng, 20)
+    soft = mirror((1.0 - 2.0 * bits).astype(np.float32), "swap")
+    bs = BranchSync(rate="none", modulation="qpsk", marker_block_bits=8192)
+    out, _ = run(bs, soft, np.arange(soft.size, dtype=np.float64))
+    n = soft.size
+    assert np.array_equal(np.abs(out[8192:n]), np.abs(soft[8192:n]))
+    assert np.array_equal(out[8192:n] < 0, bits[8192:n].astype(bool)) or np.array_equal(
+        out[8192:n] >= 0, bits[8192:n].astype(bool))
+
+
+@pytest.mark.parametrize("modulation, noise_bits", [("bpsk", 300_001), ("qpsk", 123_458)])
+def test_signal_onset_decoded_from_its_start(rng, modulation, noise_bits):
+    """After a long stretch of noise the hypothesis is chosen on the signal and the held stretch decoded under
+    it: the decoded bits are right from a few constraint lengths after the onset on."""
+    bits = rng.integers(0, 2, 20000, dtype=np.uint8)
+    signal = channel(rng, bits, "1/2", 3.0)
+    if modulation == "qpsk":
+        signal = rotate(signal, 1)
+    noise = rng.normal(0, 1.2, noise_bits).astype(np.float32)
+    soft = np.concatenate((noise, signal))
+    pos = np.arange(soft.size, dtype=np.float64)
+    bs = BranchSync(rate="1/2", modulation=modulation)
+    out, opos = run(bs, soft, pos)
+    late = opos >= noise_bits
+    first = int(opos[late][0]) - noise_bits
+    assert first < 8  # decoding under the right hypothesis reaches back to the onset
+    k = first // 2
+    dec = (out[late] < 0).astype(np.uint8)[: bits.size - k]
+    assert float(np.mean(dec[40:] != bits[k + 40:k + dec.size])) < 2e-3  # right after the decoder's start-up
+    # one evaluation per block of 4096 channel bits while undecided, and on noise they cost no decoding
+    assert bs.stats.quiet_evaluations >= noise_bits // 4096 - 3 and bs.stats.evaluations <= 6
+
+
+def test_onset_and_fade_chunking_invariance(rng):
+    bits = rng.integers(0, 2, 30000, dtype=np.uint8)
+    sig = rotate(channel(rng, bits, "1/2", 3.0), 3)
+    soft = np.concatenate((rng.normal(0, 1, 40001), sig[:30000], rng.normal(0, 1, 20000),
+                           rotate(sig[30000:], 1))).astype(np.float32)  # a fade with a 90-degree slip
+    pos = np.arange(soft.size, dtype=np.float64)
+    one = BranchSync(rate="1/2", modulation="qpsk")
+    a, pa = run(one, soft, pos)
+    many = BranchSync(rate="1/2", modulation="qpsk")
+    b, pb = run(many, soft, pos, cuts=rng.choice(np.arange(1, soft.size), size=60, replace=False))
+    assert np.array_equal(a, b) and np.array_equal(pa, pb) and one.events == many.events
+    # after the fade the new rotation is decoded from the fade's end on (the held blocks decoded again)
+    end = 40001 + 30000 + 20000
+    after = pa >= end
+    assert int(pa[after][0]) - end < 8 and one.stats.redecoded_bits > 0
+    k = (int(pa[after][0]) - 40001 - 20000) // 2
+    dec = (a[after] < 0).astype(np.uint8)
+    assert float(np.mean(dec[40:4000] != bits[k + 40:k + 4000])) < 2e-3 or float(
+        np.mean(dec[40:4000] == bits[k + 40:k + 4000])) < 2e-3  # upright or complemented (FrameSync's ASM)
+
+
+def test_oqpsk_branches_are_timed_by_the_i_rail():
+    """Rate 3/4 on OQPSK: a branch whose first channel bit is on the Q rail takes the I pulse of its symbol.
+    The demodulator times I bits at k T and Q bits at (k + 1/2) T: every decoded bit comes out at a whole k."""
+    rng = np.random.default_rng(77)
+    bits = rng.integers(0, 2, 12000, dtype=np.uint8)
+    soft = channel(rng, bits, "3/4", 5.0)
+    soft = soft[: soft.size // 2 * 2]
+    pos = np.arange(soft.size) // 2 + 0.5 * (np.arange(soft.size) % 2)  # own-rail pulse peaks
+    bs = BranchSync(rate="3/4", modulation="oqpsk")
+    out, opos = run(bs, soft, pos.astype(np.float64))
+    assert align((out < 0).astype(np.uint8), bits)[0] < 2e-3
+    assert np.all(opos == np.floor(opos))
+    qpsk = BranchSync(rate="3/4", modulation="qpsk")  # QPSK: the positions as given (both bits one symbol)
+    _, qpos = run(qpsk, soft, pos.astype(np.float64))
+    assert np.any(qpos != np.floor(qpos))

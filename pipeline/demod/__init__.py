@@ -1,21 +1,31 @@
 """pipeline.demod: complex IQ samples to soft channel bits (see DEVELOPERS.md, stage contracts).
 
-AGC, coarse carrier acquisition, Costas carrier loop, matched filter, Gardner timing recovery,
+DC removal, AGC, wide carrier acquisition, Costas carrier loop, matched filter, Gardner timing recovery,
 lock detection, M2M4 Es/N0 estimation, and NRZ-M line decoding; plus ``inspect_recording``.
 """
 
-from pipeline.demod._acquire import CarrierEstimate, estimate_carrier_offset
-from pipeline.demod._demodulator import DemodStats, Demodulator, SymbolBlock, TrackPoint
+from pipeline.demod._acquire import (
+    CarrierAcquisition,
+    CarrierEstimate,
+    CarrierSearch,
+    SpectralLine,
+    estimate_carrier_offset,
+)
+from pipeline.demod._demodulator import DcBlocker, DemodStats, Demodulator, SymbolBlock, TrackPoint
 from pipeline.demod._filters import matched_filter_taps, raised_cosine_pulse, rrc_pulse
 from pipeline.demod._inspect import fit_carrier_track, inspect_recording, write_inspect_plots
 from pipeline.demod._line import LineDecoder
 from pipeline.demod._snr import estimate_esn0_m2m4, m2m4_signal_noise
 
 __all__ = [
+    "CarrierAcquisition",
     "CarrierEstimate",
+    "CarrierSearch",
+    "DcBlocker",
     "DemodStats",
     "Demodulator",
     "LineDecoder",
+    "SpectralLine",
     "SymbolBlock",
     "TrackPoint",
     "estimate_carrier_offset",

@@ -8,37 +8,51 @@ from typing import Any
 
 import numpy as np
 
-from pipeline.demod._acquire import estimate_carrier_offset
+from pipeline.demod._acquire import LINE_THRESHOLD, CarrierSearch, SpectralLine
 from pipeline.demod._filters import gardner_detector_gain, matched_filter_taps, midpoint_energy_ratio
 from pipeline.demod._kernels import (
-    PARAM_SIZE,
-    STATE_F_SIZE,
-    STATE_I_SIZE,
+    TRACK_PARAMS,
+    TRACK_STATE,
     derotate,
     fir_interleaved,
-    power_nonzero,
+    mean_power_nonzero,
+    remove_dc,
     track_symbols,
 )
 from pipeline.demod._snr import estimate_esn0_m2m4
-from pipeline.profile import LinkSection, ReceiverSection
+from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
-__all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "check_chunk", "continue_stream", "cut_blocks"]
+__all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "check_chunk", "continue_stream",
+           "cut_blocks", "MIN_SAMPLES_PER_SYMBOL", "MAX_SAMPLES_PER_SYMBOL"]
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
 _RRC_SPAN_SYMBOLS = 8
 _AUTO_CARRIER_BANDWIDTH = 0.002  # x symbol rate; see Demodulator Notes
 _ZETA = 1.0 / math.sqrt(2.0)
+#: Samples per symbol the suppressed-carrier demodulator serves.  Below 2 the Gardner detector has no
+#: midpoint sample; above 64 the matched filter (8 symbols of taps) costs more than 1000 multiply-adds
+#: per sample and one block's filter call would pass a tenth of a second: decimate such recordings first.
+MIN_SAMPLES_PER_SYMBOL = 2.0
+MAX_SAMPLES_PER_SYMBOL = 64.0
+#: Symbol-rate offset the timing loop follows (fraction of the nominal rate).
+_TIMING_RATE_LIMIT = 0.02
+#: Doppler rates the acquisition searches, at most (Hz/s); fewer when the carrier loop cannot follow them.
+_MAX_DOPPLER_RATE = 5000.0
+#: Band of the line search around the coarse estimate, x symbol rate (the coarse error is about 1 % rms).
+_FINE_SEARCH = 0.05
 
 
 @dataclass(frozen=True)
 class TrackPoint:
-    """Receiver state at the end of one processing block.
+    """Receiver state over one processing block.
 
-    ``position`` is the sample position of the block's last symbol, ``carrier_offset_hz`` the
-    carrier frequency measured over the block (numerically-controlled oscillator plus the loop's
-    phase advance), ``esn0_db`` the block's M2M4 estimate (``nan`` if not measurable).
-    ``carrier_phase_rad`` is the receiver's total, unwrapped carrier phase at ``position``
-    (oscillator plus loop), continuous over the whole run, for precise frequency fits.
+    ``carrier_offset_hz`` is the mean carrier frequency over the block's symbols (numerically-
+    controlled oscillator plus the loop's phase advance from the first to the last symbol) and
+    ``esn0_db`` the M2M4 estimate over the same symbols (``nan`` if not measurable); ``position``
+    is the middle of that interval (the instant a mean refers to); ``carrier_locked`` and
+    ``symbol_locked`` are the lock flags at the block's last symbol.  ``carrier_phase_rad`` is the
+    receiver's total, unwrapped carrier phase at ``position`` (oscillator plus loop), continuous
+    over the whole run, for precise frequency fits.
     """
 
     position: float
@@ -58,15 +72,17 @@ class SymbolBlock:
     """Output of :meth:`Demodulator.process` (see DEVELOPERS.md, pipeline.demod).
 
     ``soft``: float32 per channel bit in transmission order (QPSK/OQPSK: I then Q), positive =
-    bit 0, about +-1 when noise-free.  ``position``: float64 sample position of the modulation
-    symbol carrying each bit.  ``locked``: carrier lock per channel bit.  ``track``: one
-    :class:`TrackPoint` per processing block completed.  ``symbols``: the normalised complex
-    symbols (one per modulation symbol; OQPSK: I and its half-symbol-later Q), for plots.
+    bit 0, about +-1 when noise-free.  ``position``: float64 sample position of the pulse peak
+    carrying each bit (BPSK/QPSK: the modulation symbol's; OQPSK: the strobe of the bit's own
+    rail, the Q bit half a symbol after the I bit).  ``locked``: carrier lock per channel bit.
+    ``track``: one :class:`TrackPoint` per processing block completed.  ``symbols``: the
+    normalised complex symbols (one per modulation symbol; OQPSK: I and its half-symbol-later Q),
+    for plots.
 
-    The carrier phase ambiguity (180 degrees BPSK, 90 degrees QPSK/OQPSK) is left to the
-    synchronizer.  For OQPSK a 90-degree slip also exchanges the roles of the I and Q strobes:
-    the interleaved bit stream is then shifted by one channel bit (one channel inverted) and
-    positions refer to the other channel's pulse peak, half a symbol later.
+    The carrier phase ambiguity (180 degrees BPSK, 90 degrees QPSK/OQPSK) and the mirror image of
+    a spectrally inverted recording are left to the synchronizer.  For OQPSK a 90-degree slip
+    also exchanges the roles of the I and Q strobes: the interleaved bit stream is then shifted by
+    one channel bit (one channel inverted); each bit's position stays its own pulse peak.
     """
 
     soft: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.float32))
@@ -81,7 +97,13 @@ class SymbolBlock:
 
 @dataclass
 class DemodStats:
-    """Counters of one run (bad data is counted here, never raised)."""
+    """Counters of one run (bad data is counted here, never raised).
+
+    ``strongest_line`` is the strongest spectral line (or signal band) any acquisition saw;
+    ``search_hz`` and ``line_threshold_db`` are the demodulator's searched half-band and the level a
+    line needs, so that :meth:`no_lock_message` needs nothing else.  Picklable; segments of one
+    decode combine with :meth:`merge` (not a field-wise sum).
+    """
 
     samples_in: int = 0
     nonfinite_samples: int = 0
@@ -90,6 +112,99 @@ class DemodStats:
     acquisitions: int = 0
     carrier_found: int = 0
     last_peak_ratio: float = 0.0
+    strongest_line: SpectralLine | None = None
+    search_hz: float = float("nan")
+    line_threshold_db: float = float("nan")
+
+    def saw(self, line: SpectralLine) -> None:
+        """Keep ``line`` if it is stronger than the strongest seen so far (a line beats a band)."""
+        old = self.strongest_line
+        rank = (line.kind != "band", line.level_db)
+        if old is None or rank > (old.kind != "band", old.level_db):
+            self.strongest_line = line
+
+    def merge(self, other: DemodStats) -> None:
+        """Add another run's (a later segment's) counters; keep the stronger line."""
+        for name in ("samples_in", "nonfinite_samples", "symbols_out", "carrier_locked_symbols", "acquisitions",
+                     "carrier_found"):
+            setattr(self, name, getattr(self, name) + getattr(other, name))
+        self.last_peak_ratio = other.last_peak_ratio
+        if other.strongest_line is not None:
+            self.saw(other.strongest_line)
+        if not math.isfinite(self.search_hz):
+            self.search_hz, self.line_threshold_db = other.search_hz, other.line_threshold_db
+
+    def no_lock_message(self) -> str | None:
+        """The one line to print when no carrier lock was found (None when there was lock).
+
+        Examples
+        --------
+        >>> from pipeline.demod import DemodStats, SpectralLine
+        >>> s = DemodStats(samples_in=100000, search_hz=500e3, line_threshold_db=14.4)
+        >>> s.saw(SpectralLine(-1234.5, 9.06, "x^2 line"))
+        >>> s.no_lock_message()[:64]
+        'no carrier lock in +-500000 Hz: strongest x^2 line at -1234.5 Hz'
+        >>> s.no_lock_message()[64:]
+        ', 9.1 dB above the noise floor (14.4 dB needed)'
+        """
+        if self.carrier_locked_symbols:
+            return None
+        text = f"no carrier lock in +-{self.search_hz:.0f} Hz"
+        line = self.strongest_line
+        if line is None:
+            return text + ": no acquisition could be tried (recording too short)"
+        if line.kind == "band":
+            return f"{text}: no signal band stood out of the noise ({line.describe()})"
+        return f"{text}: {line.describe()} ({self.line_threshold_db:.1f} dB needed)"
+
+
+class DcBlocker:
+    """Removes a receiver's DC offset (a constant added to the samples) block by block.
+
+    The offset estimate is the mean of each block's non-zero samples (zeros are erasures),
+    averaged over blocks with weight ``1/8`` (the first block's mean is taken as it is); the
+    block's samples minus the estimate are returned, erasures kept at zero, with the block's mean
+    power after removal.  A signal whose carrier lies within about ``fs / (8 N)`` of 0 Hz (``N``
+    samples per block: 3.8 Hz at 1 Msample/s and 32768) cannot be told from an offset and is
+    attenuated; a modulated carrier's own block mean is about ``1 / sqrt(symbols per block)`` of
+    its amplitude.  Cost: two passes over the block.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> dc = DcBlocker()
+    >>> x = (np.exp(2j * np.pi * 0.01 * np.arange(1000)) + (3 - 1j)).astype(np.complex64)
+    >>> y, p = dc.process(x)
+    >>> round(abs(complex(dc.offset) - (3 - 1j)), 3), round(p, 2)
+    (0.0, 1.0)
+    """
+
+    def __init__(self, weight: float = 0.125) -> None:
+        self.weight = float(weight)
+        self.reset()
+
+    def reset(self) -> None:
+        """Forget the estimate."""
+        self.offset = 0j
+        self._started = False
+        self._moments = np.zeros(3, dtype=np.float64)
+
+    def process(self, block: np.ndarray) -> tuple[np.ndarray, float]:
+        """``(block - offset, mean power of the non-zero samples after removal)``; power 0.0 for an all-zero block."""
+        cnt = mean_power_nonzero(block, self._moments)
+        if cnt == 0:
+            return block, 0.0
+        mean = complex(self._moments[0], self._moments[1])
+        if self._started:
+            self.offset += self.weight * (mean - self.offset)
+        else:
+            self.offset, self._started = mean, True
+        d = self.offset
+        out = np.empty_like(block)
+        remove_dc(block, d.real, d.imag, out)
+        # mean |x - d|^2 over the non-zero samples = mean |x|^2 - 2 Re(conj(d) mean) + |d|^2
+        power = float(self._moments[2]) - 2.0 * (d.real * mean.real + d.imag * mean.imag) + abs(d) ** 2
+        return out, max(power, 0.0)
 
 
 def _next_pow2(n: float) -> int:
@@ -135,9 +250,18 @@ class Demodulator:
     link : LinkSection
         Modulation, symbol rate, pulse and roll-off.
     receiver : ReceiverSection
-        Loop bandwidths, loop order and acquisition range.
+        Loop bandwidths, loop order, acquisition range and spectrum inversion.
     sample_rate_hz : float
-        Sample rate of the recording; any ratio to the symbol rate of at least 2.
+        Sample rate of the recording: 2 to 64 samples per symbol
+        (:data:`MIN_SAMPLES_PER_SYMBOL`, :data:`MAX_SAMPLES_PER_SYMBOL`).
+
+    Attributes
+    ----------
+    acquisition_search_hz : float
+        Half-width of the band searched for the carrier (``[receiver] acquisition_range_hz``, or
+        ``fs / 2``: everywhere).
+    line_threshold_db : float
+        Level over the noise floor a spectral line needs to count as a carrier (14.4 dB).
 
     Notes
     -----
@@ -145,7 +269,9 @@ class Demodulator:
     the output does not depend on how the input is chunked (a partial block waits for the next
     call or for :meth:`flush`).  Per block:
 
-    1. NaN/Inf samples become 0 (erasures; counted), block AGC to unit mean power (zeros excluded).
+    1. NaN/Inf samples become 0 (erasures; counted).  ``[receiver] spectrum_inverted = true``:
+       the samples are conjugated.  The receiver's DC offset is removed (:class:`DcBlocker`), then
+       block AGC to unit mean power (zeros excluded).
     2. Rotation by the numerically-controlled oscillator (NCO) at the current carrier estimate.
     3. RRC: matched filter over 8 symbols (its truncation leaves the Es/N0 estimate unbiased
        to 25 dB at roll-off 0.5), a blocked FIR of odd length ``2 D + 1`` whose output is
@@ -158,20 +284,27 @@ class Demodulator:
        a nearly centred spectrum even under large Doppler drift.
     5. One :class:`TrackPoint` with the measured frequency and the block's M2M4 Es/N0.
 
-    Acquisition (at start, when the carrier stayed unlocked for ``reacquire_symbols``, and
-    again right away after a search that found no line while the loop is still unlocked):
-    ``acquisition_samples`` are held, the carrier is estimated from the spectral line of the
-    squared / fourth-power matched-filter output over ``+- acquisition_range * symbol_rate``,
-    and the held samples are then demodulated with that estimate, so nothing is lost.
+    Acquisition (at the start, and when the carrier stayed unlocked for ``reacquire_symbols``):
+    windows of ``acquisition_samples`` (two blocks) are held and searched with a
+    :class:`~pipeline.demod._acquire.CarrierSearch` over ``+- acquisition_search_hz`` (where the
+    signal's band lies, then the ``x^2`` / ``x^4`` line of the matched-filter output under Doppler
+    rates up to +-5 kHz/s, fewer when the carrier loop could not follow them).  When a carrier is
+    found the held samples are demodulated from the window start with the frequency the search
+    gives for that instant, so nothing is lost; when none is found only the window's first block
+    is released (demodulated unlocked) and the search is tried again one block later, so a signal
+    that starts anywhere in a window is found in the window that begins before it.  The strongest
+    line of every search is kept (``stats.strongest_line``, :meth:`no_lock_message`).
 
     Carrier loop bandwidth: ``[receiver] carrier_loop_bandwidth_hz``, or automatic
     ``0.002 * symbol_rate`` (480 Hz at 240 ksym/s): at Es/N0 = -1 dB its phase jitter is about
-    4 degrees (squaring loss included), and the second-order loop's lag under a 500 Hz/s
-    Doppler rate ``2 pi R / wn^2`` is 0.004 rad.  Positions are exact strobe times: a symbol's
+    4 degrees (squaring loss included), and the second-order loop's lag under a 5 kHz/s
+    Doppler rate ``2 pi R / wn^2`` is 0.04 rad.  Positions are exact strobe times: a symbol's
     position is the recording sample at which its pulse peaks once the timing loop has locked.
+    The timing rate integrator is held within +-2 % of the nominal symbol rate.
 
     Cost per sample: one complex rotation, ``2 D + 1`` real multiply-adds per I and Q, and
-    per symbol two cubic interpolations and the loop updates.
+    per symbol two cubic interpolations and the loop updates; a search costs about 4 blocks'
+    demodulation (BPSK, 65536 samples: 2 ms coarse, 6 ms fine).
     """
 
     def __init__(self, *, link: LinkSection, receiver: ReceiverSection, sample_rate_hz: float) -> None:
@@ -192,8 +325,9 @@ class Demodulator:
         if not (link.symbol_rate_baud > 0 and math.isfinite(link.symbol_rate_baud)):
             raise ValueError(f"Argument 'link.symbol_rate_baud' must be > 0, not {link.symbol_rate_baud!r}.")
         sps = fs / link.symbol_rate_baud
-        if sps < 2.0:
-            raise ValueError(f"Argument 'sample_rate_hz' must give at least 2 samples per symbol, not {sps:.4g} "
+        if not MIN_SAMPLES_PER_SYMBOL <= sps <= MAX_SAMPLES_PER_SYMBOL:
+            raise ValueError(f"Argument 'sample_rate_hz' must give {MIN_SAMPLES_PER_SYMBOL:g} to "
+                             f"{MAX_SAMPLES_PER_SYMBOL:g} samples per symbol for {link.modulation}, not {sps:.4g} "
                              f"({fs:g} Hz for {link.symbol_rate_baud:g} baud).")
         self.link = link
         self.receiver = receiver
@@ -203,6 +337,7 @@ class Demodulator:
         self.bits_per_symbol = link.bits_per_symbol
         self._mod_code = _MOD_CODES[link.modulation]
         self._power = 2 if self._mod_code == 0 else 4
+        self.conjugate = receiver.spectrum_inverted is True
 
         self.taps = matched_filter_taps(link.pulse, link.rolloff, sps, _RRC_SPAN_SYMBOLS)
         # rect pulses: the tracker integrates the raw samples over the exact symbol window at each
@@ -211,9 +346,8 @@ class Demodulator:
         self.filter_delay_samples = 0 if self._box_half else (self.taps.size - 1) // 2
         self._look = int(self._box_half + 0.5) + 2 if self._box_half else 2
         self.block_samples = max(32768, _next_pow2(4096 * sps))
-        self.acquisition_samples = max(self.block_samples, _next_pow2(8192 * sps))
+        self.acquisition_samples = 2 * self.block_samples
         self.reacquire_symbols = 65536
-        self.acquisition_search_hz = receiver.acquisition_range * link.symbol_rate_baud
 
         bw_hz = receiver.carrier_loop_bandwidth_hz or _AUTO_CARRIER_BANDWIDTH * link.symbol_rate_baud
         self.carrier_loop_bandwidth_hz = float(bw_hz)
@@ -236,19 +370,41 @@ class Demodulator:
         kd = gardner_detector_gain(link.pulse, link.rolloff)
         r0 = midpoint_energy_ratio(link.pulse, link.rolloff)
         qpsk = self._mod_code != 0
-        params = np.zeros(PARAM_SIZE, dtype=np.float64)
-        params[:20] = [
-            sps, 2.0 * _ZETA * wnt, wnt * wnt, kp_c, ki_c, kr_c, min(0.2, 4.0 * kp_c2),
-            1.0 / 1024.0,                       # amplitude (M2M4) averaging
-            1.0 / (2048.0 if qpsk else 256.0),  # carrier-lock averaging: r^4 is noisier than r^2
-            1.0 / 1024.0,                       # symbol-lock averaging
-            0.75, 0.3, 0.15 if qpsk else 0.25,  # carrier lock on / off (relative), minimum absolute
-            0.5, 0.25, 0.04,                    # symbol lock on / off (relative), minimum absolute
-            r0, kd,
-            128.0,                              # warm-up, and symbols in a row meeting the lock condition
-            self._box_half,                     # > 0: exact integrate-and-dump (rect pulses)
-        ]
+        params = np.zeros(1, dtype=TRACK_PARAMS)
+        pr = params[0]
+        pr["sps"] = sps
+        pr["kp_t"], pr["ki_t"] = 2.0 * _ZETA * wnt, wnt * wnt
+        pr["kp_c"], pr["ki_c"], pr["kr_c"], pr["kp_c_wide"] = kp_c, ki_c, kr_c, min(0.2, 4.0 * kp_c2)
+        pr["a_amp"] = 1.0 / 1024.0                              # amplitude (M2M4) averaging
+        pr["a_lock_c"] = 1.0 / (2048.0 if qpsk else 256.0)      # carrier-lock averaging: r^4 is noisier than r^2
+        pr["a_lock_s"] = 1.0 / 1024.0                           # symbol-lock averaging
+        pr["c_on"], pr["c_off"], pr["c_min"] = 0.75, 0.3, 0.15 if qpsk else 0.25
+        pr["s_on"], pr["s_off"], pr["s_min"] = 0.5, 0.25, 0.04
+        pr["r0"], pr["kd"] = r0, kd
+        pr["warmup"] = 128.0  # warm-up, and symbols in a row meeting the lock condition
+        pr["hbox"] = self._box_half  # > 0: exact integrate-and-dump (rect pulses)
+        pr["v_max"] = _TIMING_RATE_LIMIT
         self._params = params
+        # A symbol moves the strobe by at least sps (1 - v_max - kp_t) samples (track_symbols Notes); with
+        # kp_t = 2.67 B_L T <= 0.134 (the validator's largest timing bandwidth, 0.05) that is more than 0.84 sps.
+        lo, hi = TIMING_LOOP_BANDWIDTH_RANGE
+        if not lo <= bn_t <= hi:
+            raise ValueError(f"Argument 'receiver.timing_loop_bandwidth' must be {lo:g}..{hi:g}, not {bn_t!r}.")
+        self._min_symbol_advance = sps * (1.0 - _TIMING_RATE_LIMIT - float(pr["kp_t"]))
+
+        # acquisition: rates the carrier loop can follow with a lag under 0.2 rad (2 pi R / wn^2)
+        wn_rad_s = wn2 * link.symbol_rate_baud
+        max_rate = min(_MAX_DOPPLER_RATE, 0.2 * wn_rad_s * wn_rad_s / (2.0 * math.pi))
+        rng = receiver.acquisition_range_hz
+        self.acquisition_search_hz = 0.5 * fs if rng is None else min(float(rng), 0.5 * fs)
+        if link.pulse == "rrc":
+            occupied = link.symbol_rate_baud * (1.0 + link.rolloff)
+        else:
+            occupied = 2.0 * link.symbol_rate_baud  # the main lobe of sinc^2
+        self._search = CarrierSearch(sample_rate_hz=fs, power=self._power, prefilter=self.taps, occupied_hz=occupied,
+                                     search_hz=self.acquisition_search_hz,
+                                     fine_hz=_FINE_SEARCH * link.symbol_rate_baud, max_rate_hz_per_s=max_rate)
+        self.line_threshold_db = 10.0 * math.log10(LINE_THRESHOLD * math.log(2.0))
         self.reset()
 
     # ---- state -------------------------------------------------------------------------
@@ -259,9 +415,9 @@ class Demodulator:
         self._pending = np.zeros(0, dtype=np.complex64)
         self._pending_start = 0
         self._held: list[np.ndarray] = []
-        self._held_start = 0
         self._acquiring = True
         self._agc_power = 0.0
+        self._dc = DcBlocker()
         self._nco_hz = 0.0
         self._nco_phase = 0.0
         self._nco_phase_unwrapped = 0.0
@@ -269,13 +425,12 @@ class Demodulator:
         self._fir_hist = np.zeros(self.taps.size - 1, dtype=np.complex64)
         self._mf_tail = np.zeros(0, dtype=np.complex64)
         self._mf_tail_base = -self.filter_delay_samples
-        self._sf = np.zeros(STATE_F_SIZE, dtype=np.float64)
-        self._si = np.zeros(STATE_I_SIZE, dtype=np.int64)
-        self._sf[18] = 1.0
+        self._state = np.zeros(1, dtype=TRACK_STATE)
+        self._state[0]["amp"] = 1.0
+        self._state[0]["ph_cos"] = 1.0  # the carrier phasor at theta = 0
         self._unlocked_run = 0
-        self._retry_acquisition = False
         self._finished = False
-        self.stats = DemodStats()
+        self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
 
     # ---- public ------------------------------------------------------------------------
     def process(self, chunk: Any) -> SymbolBlock:
@@ -292,7 +447,7 @@ class Demodulator:
             self._stream_start = start
             self._pending_start = start
             self._mf_tail_base = start - self.filter_delay_samples
-            self._sf[0] = float(start)
+            self._state[0]["t"] = float(start)
             self._run_sample = start
         self._next_start = start + samples.size
         self.stats.samples_in += samples.size
@@ -314,12 +469,20 @@ class Demodulator:
             self._feed_block(self._pending, parts, final=True)
             self._pending = np.zeros(0, dtype=np.complex64)
         elif self._acquiring and self._held:
-            self._acquire_and_release(parts)
+            self._acquire(parts, final=True)
         # push the matched filter's delay line out with zeros so the last symbols are produced
         tail = np.zeros(max(self.filter_delay_samples, self._look) + 4, dtype=np.complex64)
         self._run_block(tail, parts, t_limit=end, tail=True)
         self._finished = True
         return self._assemble(parts)
+
+    def no_lock_message(self) -> str | None:
+        """One line for stderr when no carrier lock was found so far (None when there was lock).
+
+        It names the searched band and the strongest spectral line the acquisitions saw, with its
+        level over the noise floor (:meth:`DemodStats.no_lock_message`).
+        """
+        return self.stats.no_lock_message()
 
     # ---- internals ---------------------------------------------------------------------
     def _check_chunk(self, chunk: Any) -> tuple[np.ndarray, int]:
@@ -334,45 +497,51 @@ class Demodulator:
                 self.stats.nonfinite_samples += int(bad.sum())
                 block = block.copy()
                 block[bad] = 0
+        if self.conjugate:
+            block = np.conj(block)
         if self._acquiring:
             self._held.append(np.array(block, dtype=np.complex64))  # own copy: the caller's buffer may change
-            held = sum(h.size for h in self._held)
-            if held >= self.acquisition_samples or final:
-                self._acquire_and_release(parts)
+            if sum(h.size for h in self._held) >= self.acquisition_samples or final:
+                self._acquire(parts, final=final)
             return
         self._run_block(block, parts)
 
-    def _acquire_and_release(self, parts: list) -> None:
-        held = np.concatenate(self._held)
-        self._held = []
-        self._acquiring = False
+    def _acquire(self, parts: list, final: bool = False) -> None:
+        """Search the held window; release all of it if found (or at the end), else its first block."""
+        held = np.concatenate(self._held) if len(self._held) > 1 else self._held[0]
         self.stats.acquisitions += 1
+        found = False
         if held.size >= 1024:
-            est = estimate_carrier_offset(held, sample_rate_hz=self.sample_rate_hz, power=self._power,
-                                          search_hz=self.acquisition_search_hz, prefilter=self.taps)
-            self.stats.last_peak_ratio = est.peak_ratio
-            if est.found:
+            acq = self._search.search(held)
+            self.stats.last_peak_ratio = 10.0 ** (acq.line.level_db / 10.0) / math.log(2.0)
+            self.stats.saw(acq.line)
+            if acq.found:
+                found = True
                 self.stats.carrier_found += 1
-                self._nco_hz = est.offset_hz
-                self._sf[3] = 0.0
-                self._sf[4] = 0.0
-            # nothing found (no signal yet, or a fade): look again as soon as these blocks are
-            # demodulated, unless the loop has locked on its own meanwhile
-            self._retry_acquisition = not est.found
-        b = self.block_samples
-        for j in range(0, held.size, b):
-            self._run_block(held[j:j + b], parts)
-        if self._retry_acquisition and not self._si[1]:
-            self._acquiring = True
-            self._unlocked_run = 0
-        self._retry_acquisition = False
+                self._nco_hz = acq.offset_hz
+                self._state[0]["w_int"] = 0.0
+                self._state[0]["w_rate"] = 0.0
+        if found or final:
+            blocks, self._held = self._held, []
+            self._acquiring = False
+        else:
+            # slide the window by one block: the oldest is demodulated as it is (no carrier yet)
+            blocks, self._held = self._held[:1], self._held[1:]
+        for b in blocks:
+            self._run_block(b, parts)
+        if self._acquiring and self._state[0]["clock"]:
+            # the loop locked on its own meanwhile: no search needed
+            blocks, self._held = self._held, []
+            self._acquiring = False
+            for b in blocks:
+                self._run_block(b, parts)
 
     def _run_block(self, block: np.ndarray, parts: list, t_limit: float = math.inf, tail: bool = False) -> None:
         fs = self.sample_rate_hz
         n = block.size
         if not tail:
-            p, cnt = power_nonzero(block)
-            if cnt:
+            block, p = self._dc.process(block)
+            if p > 0.0:
                 self._agc_power = p if self._agc_power == 0.0 else 0.8 * self._agc_power + 0.2 * p
         gain = 1.0 / math.sqrt(self._agc_power) if self._agc_power > 0.0 else 1.0
         y = np.empty(n, dtype=np.complex64)
@@ -391,38 +560,38 @@ class Demodulator:
             self._fir_hist = u[u.size - (self.taps.size - 1):].copy()
         mfbuf = np.concatenate([self._mf_tail, mf])
         base = self._mf_tail_base
-        cap = int(mfbuf.size / self.samples_per_symbol * 1.1) + 8
-        pos = np.empty(cap, dtype=np.float64)
-        sym = np.empty(cap, dtype=np.complex64)
-        amp = np.empty(cap, dtype=np.float32)
-        flags = np.empty(cap, dtype=np.int8)
-        theta = np.empty(cap, dtype=np.float64)
-        nsym = track_symbols(mfbuf, base, t_limit, self._params, self._mod_code,
-                             1 if self.carrier_loop_order == 3 else 0, self._sf, self._si,
-                             pos, sym, amp, flags, theta)
-        keep_from = max(0, int(math.floor(self._sf[0])) - self._look - base)
+        pos, qpos, sym, amp, flags, theta = self._track(mfbuf, base, t_limit)
+        nsym = pos.size
+        st = self._state[0]
+        keep_from = max(0, int(math.floor(st["t"])) - self._look - base)
         self._mf_tail = mfbuf[keep_from:].copy()
         self._mf_tail_base = base + keep_from
 
-        pos, sym, amp, flags, theta = pos[:nsym], sym[:nsym], amp[:nsym], flags[:nsym], theta[:nsym]
         # carrier frequency over the block: NCO plus the loop's phase advance between strobes
-        sym_period = self.samples_per_symbol * (1.0 - self._sf[1])
+        sym_period = self.samples_per_symbol * (1.0 - st["v_int"])
         if nsym >= 64 and pos[-1] > pos[0]:
             loop_hz = (theta[-1] - theta[0]) / (2.0 * math.pi) * fs / (pos[-1] - pos[0])
         else:
-            loop_hz = self._sf[3] * fs / (2.0 * math.pi * sym_period)
+            loop_hz = st["w_int"] * fs / (2.0 * math.pi * sym_period)
         freq_hz = self._nco_hz + loop_hz
         # hand the loop's frequency integrator to the NCO (the total correction is unchanged)
-        self._nco_hz += self._sf[3] * fs / (2.0 * math.pi * sym_period)
-        self._sf[3] = 0.0
+        self._nco_hz += st["w_int"] * fs / (2.0 * math.pi * sym_period)
+        st["w_int"] = 0.0
 
         clock = (flags & 1).astype(bool)
         if nsym:
+            # the block's means (frequency, Es/N0) refer to the middle of its symbols' interval;
             # Es/N0 from the symbols before the amplitude normalisation: the running amplitude
             # estimate fluctuates at low SNR and would inflate M4 (-0.35 dB bias at -1 dB)
+            mid = 0.5 * (pos[0] + pos[-1])
+            k = min(max(int(np.searchsorted(pos, mid)) - 1, 0), nsym - 1)
+            if k + 1 < nsym and pos[k + 1] > pos[k]:
+                theta_mid = theta[k] + (theta[k + 1] - theta[k]) * (mid - pos[k]) / (pos[k + 1] - pos[k])
+            else:
+                theta_mid = theta[k]
             # the symbol's matched-filter centre was rotated at about this oscillator phase
-            total_phase = phase_at_block + dphase * (pos[-1] - block_first) + theta[-1]
-            track = [TrackPoint(float(pos[-1]), float(freq_hz), estimate_esn0_m2m4(sym * amp),
+            total_phase = phase_at_block + dphase * (mid - block_first) + theta_mid
+            track = [TrackPoint(float(mid), float(freq_hz), estimate_esn0_m2m4(sym * amp),
                                 bool(clock[-1]), bool(flags[-1] & 2), float(total_phase))]
             run = 0
             if not clock.any():
@@ -433,12 +602,34 @@ class Demodulator:
                 self._unlocked_run = run
         else:
             track = []
-        parts.append({"pos": pos, "sym": sym, "amp": amp, "locked": clock, "track": track})
+        parts.append({"pos": pos, "qpos": qpos, "sym": sym, "amp": amp, "locked": clock, "track": track})
         self.stats.symbols_out += nsym
         self.stats.carrier_locked_symbols += int(clock.sum())
         if not tail and self._unlocked_run >= self.reacquire_symbols:
             self._unlocked_run = 0
             self._acquiring = True
+
+    def _track(self, mfbuf: np.ndarray, base: int, t_limit: float):
+        """:func:`track_symbols` over ``mfbuf``, with buffers sized from its bound (grown if ever full)."""
+        # bound (track_symbols Notes): strobes lie within the buffer, one symbol per min_symbol_advance samples
+        cap = int(mfbuf.size / self._min_symbol_advance) + 2
+        outs = []
+        while True:
+            pos = np.empty(cap, dtype=np.float64)
+            qpos = np.empty(cap, dtype=np.float64)
+            sym = np.empty(cap, dtype=np.complex64)
+            amp = np.empty(cap, dtype=np.float32)
+            flags = np.empty(cap, dtype=np.int8)
+            theta = np.empty(cap, dtype=np.float64)
+            nsym = track_symbols(mfbuf, base, t_limit, self._params, self._mod_code,
+                                 1 if self.carrier_loop_order == 3 else 0, self._state,
+                                 pos, qpos, sym, amp, flags, theta)
+            outs.append((pos[:nsym], qpos[:nsym], sym[:nsym], amp[:nsym], flags[:nsym], theta[:nsym]))
+            if nsym < cap:
+                break
+        if len(outs) == 1:
+            return outs[0]
+        return tuple(np.concatenate(col) for col in zip(*outs))
 
     def _assemble(self, parts: list) -> SymbolBlock:
         if not parts:
@@ -456,6 +647,8 @@ class Demodulator:
             soft = np.empty(2 * sym.size, dtype=np.float32)
             soft[0::2] = math.sqrt(2.0) * norm.real
             soft[1::2] = math.sqrt(2.0) * norm.imag
-            position = np.repeat(pos, 2)
+            position = np.empty(2 * sym.size, dtype=np.float64)
+            position[0::2] = pos
+            position[1::2] = np.concatenate([p["qpos"] for p in parts])  # OQPSK: the Q strobe; else = pos
             lock_bits = np.repeat(locked, 2)
         return SymbolBlock(soft=soft, position=position, locked=lock_bits, track=track, symbols=norm)

@@ -176,8 +176,9 @@ def inspect_recording(recording: Any, *, profile: Any = None, max_seconds: float
             message = (f"carrier locked on {100.0 * nlock / max(nsym, 1):.1f}% of {nsym} symbols "
                        f"({link.modulation}, {link.symbol_rate_baud:g} baud)")
         else:
+            detail = demod.no_lock_message() or f"no carrier lock in +-{demod.acquisition_search_hz:.0f} Hz"
             message = (f"no carrier found: no {link.modulation} signal at {link.symbol_rate_baud:g} baud locked "
-                       f"within +-{profile.receiver.acquisition_range * link.symbol_rate_baud:g} Hz")
+                       f"({detail})")
         result.update({
             "modulation": link.modulation,
             "symbol_rate_baud": link.symbol_rate_baud,

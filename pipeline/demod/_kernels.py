@@ -17,18 +17,31 @@ __all__ = [
     "track_symbols",
     "nrzm_decode",
     "moments_m2m4",
-    "power_nonzero",
-    "STATE_F_SIZE",
-    "STATE_I_SIZE",
-    "PARAM_SIZE",
+    "mean_power_nonzero",
+    "remove_dc",
+    "TRACK_PARAMS",
+    "TRACK_STATE",
 ]
 
-#: Length of the float state vector of :func:`track_symbols` (layout documented there).
-STATE_F_SIZE = 24
-#: Length of the integer state vector of :func:`track_symbols`.
-STATE_I_SIZE = 8
-#: Length of the parameter vector of :func:`track_symbols`.
-PARAM_SIZE = 20
+#: Parameters of :func:`track_symbols` (one record; meanings in its docstring).
+TRACK_PARAMS = np.dtype([
+    ("sps", np.float64), ("kp_t", np.float64), ("ki_t", np.float64), ("kp_c", np.float64), ("ki_c", np.float64),
+    ("kr_c", np.float64), ("kp_c_wide", np.float64), ("a_amp", np.float64), ("a_lock_c", np.float64),
+    ("a_lock_s", np.float64), ("c_on", np.float64), ("c_off", np.float64), ("c_min", np.float64),
+    ("s_on", np.float64), ("s_off", np.float64), ("s_min", np.float64), ("r0", np.float64), ("kd", np.float64),
+    ("warmup", np.float64), ("hbox", np.float64), ("v_max", np.float64),
+])
+
+#: Loop state of :func:`track_symbols` (one record, updated in place; meanings in its docstring).
+TRACK_STATE = np.dtype([
+    ("t", np.float64), ("v_int", np.float64), ("theta", np.float64), ("w_int", np.float64), ("w_rate", np.float64),
+    ("p1r", np.float64), ("p1i", np.float64), ("p2r", np.float64), ("p2i", np.float64), ("p3r", np.float64),
+    ("p3i", np.float64), ("m2s", np.float64), ("m4s", np.float64), ("wsum", np.float64), ("cnum", np.float64),
+    ("cden", np.float64), ("eon", np.float64), ("emid", np.float64), ("amp", np.float64), ("t_on", np.float64),
+    ("m2f", np.float64), ("m4f", np.float64), ("wf", np.float64), ("parity", np.int64), ("clock", np.int64),
+    ("slock", np.int64), ("seen", np.int64), ("cgood", np.int64), ("ph_cos", np.float64), ("ph_sin", np.float64),
+    ("ph_theta", np.float64), ("ph_count", np.int64),
+])
 
 
 @njit(cache=True)
@@ -86,8 +99,8 @@ def fir_interleaved(u2, taps, out2):
 
 
 @njit(cache=True)
-def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
-                  out_pos, out_sym, out_amp, out_flags, out_theta):
+def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
+                  out_pos, out_qpos, out_sym, out_amp, out_flags, out_theta):
     """Gardner timing recovery with a cubic (Farrow) interpolator and a symbol-rate carrier loop.
 
     Parameters
@@ -100,34 +113,43 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
         Absolute sample index of ``mf[0]``.
     t_limit : float
         No strobe at or beyond this sample position is taken (end of the recording at flush).
-    params : float64 array
-        ``[sps, kp_t, ki_t, kp_c, ki_c, kr_c, kp_c_wide, alpha_amp, alpha_lock_c, alpha_lock_s,
-        c_on, c_off, c_min, s_on, s_off, s_min, r0, kd, warmup, hbox]``; no lock is declared before
-        ``warmup`` symbols have been averaged.  ``hbox > 0`` selects the exact integrate-and-dump
+    params : TRACK_PARAMS record array of length 1
+        ``sps``; timing loop gains ``kp_t, ki_t``; carrier loop gains ``kp_c, ki_c, kr_c`` and the
+        first-order gain ``kp_c_wide`` used while unlocked; averaging weights ``a_amp`` (M2M4
+        amplitude), ``a_lock_c``, ``a_lock_s`` (lock detectors); carrier lock ``c_on, c_off``
+        (relative) and ``c_min`` (absolute); symbol lock ``s_on, s_off, s_min``; ``r0`` the
+        noise-free midpoint energy ratio, ``kd`` the Gardner detector gain; ``warmup`` symbols
+        averaged before any lock is declared; ``hbox > 0`` selects the exact integrate-and-dump
         of half-width ``hbox`` samples over unfiltered samples (rect pulses) instead of the cubic
-        interpolator over matched-filter output.
+        interpolator over matched-filter output; ``v_max`` bounds the timing rate integrator
+        (the symbol rate may differ from nominal by at most this fraction).
     mod_code : int
         0 BPSK, 1 QPSK, 2 OQPSK.
     third_order : int
         1 for the third-order carrier loop (rate integrator), else second order.
-    sf, si : float64 / int64 arrays, updated in place
-        State.  ``sf``: 0 t (next half-strobe), 1 timing rate integrator, 2 carrier phase (rad,
-        unwrapped), 3 carrier frequency integrator (rad/symbol), 4 carrier rate integrator,
-        5-10 the previous three half-strobe values (re, im), 11-12 EMA sums of ``|r|^2`` and
-        ``|r|^4``, 13 EMA weight, 14-15 carrier-lock EMAs (numerator, denominator), 16-17 on-time /
-        midpoint energy EMAs, 18 amplitude, 19 position of the pending on-time strobe, 20-22 the
-        M2M4 EMAs (and weight) over the carrier-lock window.
-        ``si``: 0 half-strobe parity (0 = next is on-time), 1 carrier lock, 2 symbol lock,
-        3 symbols seen (saturating at ``warmup``), 4 consecutive symbols meeting the lock condition.
-    out_pos, out_sym, out_amp, out_flags, out_theta
-        Per symbol: position (samples), carrier-corrected symbol divided by the amplitude
-        estimate (noise-free symbols about unit magnitude), the amplitude estimate,
-        flags (bit 0 carrier lock, bit 1 symbol lock), carrier phase.
+    state : TRACK_STATE record array of length 1, updated in place
+        ``t`` next half-strobe (samples), ``v_int`` timing rate integrator, ``theta`` carrier
+        phase (rad, unwrapped), ``w_int`` carrier frequency integrator (rad/symbol), ``w_rate``
+        carrier rate integrator, ``p1r .. p3i`` the previous three half-strobe values, ``m2s, m4s,
+        wsum`` EMA sums of ``|r|^2``, ``|r|^4`` and their weight, ``cnum, cden`` carrier-lock EMAs,
+        ``eon, emid`` on-time / midpoint energy EMAs, ``amp`` amplitude, ``t_on`` position of the
+        pending on-time strobe, ``m2f, m4f, wf`` the M2M4 EMAs over the carrier-lock window;
+        ``parity`` (0 = the next half-strobe is on-time), ``clock`` / ``slock`` carrier / symbol
+        lock, ``seen`` symbols seen (saturating at ``warmup``), ``cgood`` consecutive symbols
+        meeting the lock condition; ``ph_cos, ph_sin`` the carrier phasor at phase ``ph_theta``,
+        ``ph_count`` half-strobes since it was last recomputed exactly.
+    out_pos, out_qpos, out_sym, out_amp, out_flags, out_theta
+        Per symbol: position of the on-time (I) strobe (samples), position of the strobe the Q
+        value was taken at (OQPSK: the midpoint strobe half a symbol later; else ``out_pos``),
+        carrier-corrected symbol divided by the amplitude estimate (noise-free symbols about unit
+        magnitude), the amplitude estimate, flags (bit 0 carrier lock, bit 1 symbol lock), carrier
+        phase.  All of one length ``cap``.
 
     Returns
     -------
     int
-        Number of symbols written.
+        Number of symbols written.  It equals ``cap`` only when the buffers filled up; the state
+        then stands just before the next symbol, and a call with new buffers continues exactly.
 
     Notes
     -----
@@ -135,77 +157,86 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
     interpolator in Farrow form; the strobe advances by ``sps (1 - v) / 2`` per half-strobe with
     the proportional timing correction applied once per symbol.  Timing error (Gardner 1986)
     ``e = Re{m^* (s_k - s_{k-1})}`` (OQPSK: I and Q each with their own midpoint), normalised by
-    ``A^2 K_D``.  Carrier error: decision-directed Costas, ``sgn(I) Q`` (BPSK),
-    ``sgn(I) Q - sgn(Q) I`` over ``sqrt(2) A`` (QPSK; OQPSK takes I and Q at their own strobes),
-    so its slope is 1 rad/rad.  While the carrier is unlocked the loop runs first order with a
-    wider gain and both integrators hold their value (coasting through fades).  Amplitude from
-    the M2M4 moments (``S = sqrt(2 M2^2 - M4)``), which need no carrier or decisions.
+    ``A^2 K_D`` and clipped to +-1; ``|v| <= v_max``.  So a symbol advances the strobe by at least
+    ``sps (1 - v_max - kp_t)`` samples, and a call writes at most ``len(mf) / (sps (1 - v_max - kp_t))
+    + 2`` symbols (the bound the wrapper sizes the buffers by).  Carrier error: decision-directed
+    Costas, ``sgn(I) Q`` (BPSK), ``sgn(I) Q - sgn(Q) I`` over ``sqrt(2) A`` (QPSK; OQPSK takes I and
+    Q at their own strobes), so its slope is 1 rad/rad.  While the carrier is unlocked the loop runs
+    first order with a wider gain and both integrators hold their value (coasting through fades).
+    Amplitude from the M2M4 moments (``S = sqrt(2 M2^2 - M4)``), which need no carrier or decisions.
     Cost: two interpolations and about 80 flops per symbol.
     """
     n_mf = mf.shape[0]
-    sps = params[0]
-    kp_t = params[1]
-    ki_t = params[2]
-    kp_c = params[3]
-    ki_c = params[4]
-    kr_c = params[5]
-    kp_c_wide = params[6]
-    a_amp = params[7]
-    a_lc = params[8]
-    a_ls = params[9]
-    c_on = params[10]
-    c_off = params[11]
-    c_min = params[12]
-    s_on = params[13]
-    s_off = params[14]
-    s_min = params[15]
-    r0 = params[16]
-    kd = params[17]
-    warmup = params[18]
-    hbox = params[19]
+    cap = out_pos.shape[0]
+    pr = params[0]
+    sps = pr["sps"]
+    kp_t = pr["kp_t"]
+    ki_t = pr["ki_t"]
+    kp_c = pr["kp_c"]
+    ki_c = pr["ki_c"]
+    kr_c = pr["kr_c"]
+    kp_c_wide = pr["kp_c_wide"]
+    a_amp = pr["a_amp"]
+    a_lc = pr["a_lock_c"]
+    a_ls = pr["a_lock_s"]
+    c_on = pr["c_on"]
+    c_off = pr["c_off"]
+    c_min = pr["c_min"]
+    s_on = pr["s_on"]
+    s_off = pr["s_off"]
+    s_min = pr["s_min"]
+    r0 = pr["r0"]
+    kd = pr["kd"]
+    warmup = pr["warmup"]
+    hbox = pr["hbox"]
+    v_max = pr["v_max"]
     look = int(hbox + 0.5) + 2 if hbox > 0.0 else 2
 
-    t = sf[0]
-    v_int = sf[1]
-    theta = sf[2]
-    w_int = sf[3]
-    w_rate = sf[4]
-    p1r = sf[5]
-    p1i = sf[6]
-    p2r = sf[7]
-    p2i = sf[8]
-    p3r = sf[9]
-    p3i = sf[10]
-    m2s = sf[11]
-    m4s = sf[12]
-    wsum = sf[13]
-    cnum = sf[14]
-    cden = sf[15]
-    eon = sf[16]
-    emid = sf[17]
-    amp = sf[18]
-    t_on = sf[19]
-    m2f = sf[20]
-    m4f = sf[21]
-    wf = sf[22]
-    parity = si[0]
-    clock = si[1]
-    slock = si[2]
-    seen = si[3]
-    cgood = si[4]
+    st = state[0]
+    t = st["t"]
+    v_int = st["v_int"]
+    theta = st["theta"]
+    w_int = st["w_int"]
+    w_rate = st["w_rate"]
+    p1r = st["p1r"]
+    p1i = st["p1i"]
+    p2r = st["p2r"]
+    p2i = st["p2i"]
+    p3r = st["p3r"]
+    p3i = st["p3i"]
+    m2s = st["m2s"]
+    m4s = st["m4s"]
+    wsum = st["wsum"]
+    cnum = st["cnum"]
+    cden = st["cden"]
+    eon = st["eon"]
+    emid = st["emid"]
+    amp = st["amp"]
+    t_on = st["t_on"]
+    m2f = st["m2f"]
+    m4f = st["m4f"]
+    wf = st["wf"]
+    parity = st["parity"]
+    clock = st["clock"]
+    slock = st["slock"]
+    seen = st["seen"]
+    cgood = st["cgood"]
 
     inv_sqrt2 = 1.0 / math.sqrt(2.0)
     third = 1.0 / 3.0
     sixth = 1.0 / 6.0
     inv_kd = 1.0 / kd
     nout = 0
-    # carrier phasor exp(j theta): advanced by small-angle rotations, recomputed exactly every
-    # 64 half-strobes (and at every call), so it never drifts from theta by more than ~1e-7 rad
-    cs = math.cos(theta)
-    sn = math.sin(theta)
-    theta_ph = theta
-    nresync = 0
+    # carrier phasor exp(j theta_ph): advanced by small-angle rotations and recomputed exactly every 64
+    # half-strobes, so it never drifts from theta by more than ~1e-7 rad; kept in the state, so the
+    # output does not depend on where one call ends and the next begins
+    cs = st["ph_cos"]
+    sn = st["ph_sin"]
+    theta_ph = st["ph_theta"]
+    nresync = st["ph_count"]
     while t < t_limit:
+        if parity == 1 and nout >= cap:
+            break  # buffers full: the next half-strobe completes a symbol; the caller continues
         m = int(math.floor(t))
         i = m - base
         if i + look >= n_mf:
@@ -366,6 +397,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
                     slock = 0
 
             out_pos[nout] = t_on
+            out_qpos[nout] = t if mod_code == 2 else t_on
             inv_amp = 1.0 / amp
             out_sym[nout] = complex(sr * inv_amp, sq * inv_amp)
             out_amp[nout] = amp
@@ -391,6 +423,10 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
                 e_t = -1.0
             if clock == 1:
                 v_int += ki_t * e_t
+                if v_int > v_max:
+                    v_int = v_max
+                elif v_int < -v_max:
+                    v_int = -v_max
             t += 0.5 * sps * (1.0 - v_int) - sps * kp_t * e_t
 
         p3r = p2r
@@ -402,34 +438,38 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, sf, si,
         theta += 0.5 * w_int
         parity = 1 - parity
 
-    sf[0] = t
-    sf[1] = v_int
-    sf[2] = theta
-    sf[3] = w_int
-    sf[4] = w_rate
-    sf[5] = p1r
-    sf[6] = p1i
-    sf[7] = p2r
-    sf[8] = p2i
-    sf[9] = p3r
-    sf[10] = p3i
-    sf[11] = m2s
-    sf[12] = m4s
-    sf[13] = wsum
-    sf[14] = cnum
-    sf[15] = cden
-    sf[16] = eon
-    sf[17] = emid
-    sf[18] = amp
-    sf[19] = t_on
-    sf[20] = m2f
-    sf[21] = m4f
-    sf[22] = wf
-    si[0] = parity
-    si[1] = clock
-    si[2] = slock
-    si[3] = seen
-    si[4] = cgood
+    st["t"] = t
+    st["v_int"] = v_int
+    st["theta"] = theta
+    st["w_int"] = w_int
+    st["w_rate"] = w_rate
+    st["p1r"] = p1r
+    st["p1i"] = p1i
+    st["p2r"] = p2r
+    st["p2i"] = p2i
+    st["p3r"] = p3r
+    st["p3i"] = p3i
+    st["m2s"] = m2s
+    st["m4s"] = m4s
+    st["wsum"] = wsum
+    st["cnum"] = cnum
+    st["cden"] = cden
+    st["eon"] = eon
+    st["emid"] = emid
+    st["amp"] = amp
+    st["t_on"] = t_on
+    st["m2f"] = m2f
+    st["m4f"] = m4f
+    st["wf"] = wf
+    st["parity"] = parity
+    st["clock"] = clock
+    st["slock"] = slock
+    st["seen"] = seen
+    st["cgood"] = cgood
+    st["ph_cos"] = cs
+    st["ph_sin"] = sn
+    st["ph_theta"] = theta_ph
+    st["ph_count"] = nresync
     return nout
 
 
@@ -472,13 +512,42 @@ def moments_m2m4(sym, out):
 
 
 @njit(cache=True)
-def power_nonzero(x):
-    """Mean ``|x|^2`` over the non-zero samples of ``x`` (zeros are erasures), and their count."""
+def mean_power_nonzero(x, out):
+    """Over the non-zero samples of ``x`` (zeros are erasures): ``out = [mean re, mean im, mean |x|^2]``.
+
+    Returns the number of non-zero samples (``out`` is all zero when there is none).
+    """
+    sr = 0.0
+    si = 0.0
     acc = 0.0
     cnt = 0
     for i in range(x.shape[0]):
-        p = float(x[i].real) ** 2 + float(x[i].imag) ** 2
+        re = float(x[i].real)
+        im = float(x[i].imag)
+        p = re * re + im * im
         if p > 0.0:
+            sr += re
+            si += im
             acc += p
             cnt += 1
-    return (acc / cnt if cnt > 0 else 0.0), cnt
+    if cnt > 0:
+        out[0] = sr / cnt
+        out[1] = si / cnt
+        out[2] = acc / cnt
+    else:
+        out[0] = 0.0
+        out[1] = 0.0
+        out[2] = 0.0
+    return cnt
+
+
+@njit(cache=True)
+def remove_dc(x, dc_re, dc_im, out):
+    """``out[n] = x[n] - dc`` for the non-zero samples of ``x``; erasures (zeros) stay zero."""
+    for i in range(x.shape[0]):
+        re = x[i].real
+        im = x[i].imag
+        if re != 0.0 or im != 0.0:
+            out[i] = complex(re - dc_re, im - dc_im)
+        else:
+            out[i] = 0j

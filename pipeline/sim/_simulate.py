@@ -208,8 +208,9 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
     ``seq_count``, ``hex``, ``vcid``, ``scid``, ``mcfc``, ``vcfc``, ``ert``, ``position``,
     ``channel_bit``, ``generation``), ``truth_frames.jsonl`` (one object per frame: ``index``,
     ``scid``, ``vcid``, ``mcfc``, ``vcfc``, ``fhp``, ``idle``, ``ocf``, ``position``, ``ert``,
-    ``channel_bit``, ``carrier_offset_hz``).  ``position`` is the sample position of the first
-    channel symbol of the frame's ASM (see :mod:`pipeline.sim._modulator`), ``ert`` =
+    ``channel_bit``, ``carrier_offset_hz``).  ``position`` is the sample position of the pulse peak of
+    the modulation symbol carrying the first channel bit of the frame's ASM (its I-rail pulse on OQPSK,
+    even when that bit is a Q bit; see :mod:`pipeline.sim._modulator`), ``ert`` =
     ``start + (position - T / 2) / sample_rate`` in integer nanoseconds (the symbol's leading edge, ``T`` the
     transmitted modulation symbol period in samples), ``channel_bit`` the index of that
     symbol in ``channel.bits`` / ``channel.soft``.  A packet's ERT is that of the frame holding its
@@ -387,7 +388,8 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
                 if last_pos + 0.5 * T > num_samples:
                     done = True  # this frame and all later ones are cut by the end of the recording
                     break
-                pos = modulator.bit_position(int(asm_bit))
+                # the instant a frame's time refers to: the (I-rail) peak of the symbol carrying the ASM's first bit
+                pos = modulator.symbol_position(int(asm_bit) // bps)
                 # ERT: the leading edge of the ASM's first channel symbol (its centre minus half a symbol)
                 ert = format_utc_ns(start_ns + int(round((pos - 0.5 * T) * 1e9 / fs)))
                 rec = {"index": num_frames, "scid": profile.frames.spacecraft_id, "vcid": b.vcid, "mcfc": b.mcfc,

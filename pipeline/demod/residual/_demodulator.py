@@ -8,9 +8,9 @@ from typing import Any
 
 import numpy as np
 
-from pipeline.demod import DemodStats, Demodulator, SymbolBlock, TrackPoint, estimate_carrier_offset
-from pipeline.demod._acquire import spectral_line
-from pipeline.demod._demodulator import check_chunk, continue_stream, cut_blocks
+from pipeline.demod import DemodStats, Demodulator, SymbolBlock, TrackPoint
+from pipeline.demod._acquire import LINE_THRESHOLD, CarrierSearch, SpectralLine, spectral_line
+from pipeline.demod._demodulator import DcBlocker, check_chunk, continue_stream, cut_blocks
 from pipeline.demod.residual._kernels import (
     CARRIER_PARAM_SIZE,
     CARRIER_STATE_SIZE,
@@ -23,7 +23,7 @@ from pipeline.demod.residual._kernels import (
 from pipeline.profile import LinkSection, ReceiverSection
 
 __all__ = ["ResidualCarrierDemodulator", "ResidualTrackPoint", "make_demodulator",
-           "modulation_index_from_amplitudes"]
+           "modulation_index_from_amplitudes", "MAX_SAMPLES_PER_SYMBOL"]
 
 _ZETA = 1.0 / math.sqrt(2.0)
 #: automatic carrier loop bandwidth, x symbol rate (see ResidualCarrierDemodulator Notes)
@@ -33,7 +33,11 @@ _AUTO_CARRIER_BW_NRZ_PM = 0.001
 _SUBCARRIER_BW = 0.002
 _SQUARE_WINDOW_CYCLES = 0.125  # half-width of the windowed quadrature reference of a square subcarrier
 _DTTL_WINDOW = 0.125  # half-width of the transition window, x symbol period
-_ACQ_THRESHOLD = 40.0  # spectral line over the median bin
+#: Samples per symbol the residual-carrier demodulator serves at most: its work per sample does not grow
+#: with it, but one processing block (256 symbols or more) must stay a fraction of a second of work.
+MAX_SAMPLES_PER_SYMBOL = 4096.0
+#: Symbol-period offset the transition tracking loop follows (fraction of the nominal period).
+_TIMING_RATE_LIMIT = 0.02
 _TIMING_TRIALS = 32
 _SUB_BLOCKS = 8
 _REACQUIRE_BLOCKS = 3
@@ -171,9 +175,9 @@ class ResidualCarrierDemodulator:
         against the estimate; the waveforms are rectangular (``pulse`` and ``rolloff`` are not used).
     receiver : ReceiverSection
         ``carrier_loop_bandwidth_hz`` (0 = automatic), ``carrier_loop_order`` (2 or 3),
-        ``timing_loop_bandwidth`` (x symbol rate), ``acquisition_range``.
+        ``timing_loop_bandwidth`` (x symbol rate), ``acquisition_range_hz``, ``spectrum_inverted``.
     sample_rate_hz : float
-        At least 4 samples per symbol (8 for Bi-phase-L) and 4 per subcarrier cycle.
+        4 (8 for Bi-phase-L) to 4096 samples per symbol, and at least 4 per subcarrier cycle.
 
     Notes
     -----
@@ -184,12 +188,15 @@ class ResidualCarrierDemodulator:
     ``block_samples`` aligned to the first sample, so the output does not depend on the chunking.
     Per block:
 
-    1. NaN/Inf samples become 0 (counted); AGC to unit mean power.
+    1. NaN/Inf samples become 0 (counted); conjugated when ``[receiver] spectrum_inverted = true``
+       (the data of a residual-carrier link come out inverted otherwise, which the frame
+       synchronizer's inverted marker resolves, but the Doppler sign would be wrong); the DC
+       offset removed (:class:`pipeline.demod.DcBlocker`); AGC to unit mean power.
     2. Acquisition (first block, and after the carrier stayed unlocked for 3 blocks): the
-       residual carrier is the strongest line of the spectrum in ``+- acquisition_range x
-       sample_rate`` (a clean line, so the search is a fraction of the sample rate, not of the
-       symbol rate); its phase and amplitude come from a correlation at that frequency.  BPSK
-       Bi-phase-L: the squared-signal line in ``+- acquisition_range x symbol_rate``.  The
+       residual carrier is the strongest line of the block's spectrum (its mean removed) in
+       ``+- acquisition_range_hz`` (default: the whole band); its phase and amplitude come from a
+       correlation at that frequency.  BPSK Bi-phase-L: a :class:`pipeline.demod.CarrierSearch`
+       (the band of the Manchester spectrum, then the squared signal's line).  The
        subcarrier phase (to a half cycle, the data-sign ambiguity the frame sync resolves) is the
        angle of ``-sum c_j^2`` over chip-long correlations ``c_j`` with ``exp(-j 2 pi psi)``; the
        symbol timing is the best of 32 trial phases by mean ``|s|``.
@@ -245,9 +252,10 @@ class ResidualCarrierDemodulator:
         self.biphase = link.line_code == "bi-phase-l"
         sps = fs / link.symbol_rate_baud
         min_sps = 8.0 if self.biphase else 4.0
-        if sps < min_sps:
-            raise ValueError(f"Argument 'sample_rate_hz' must give at least {min_sps:g} samples per symbol, not "
-                             f"{sps:.4g} ({fs:g} Hz for {link.symbol_rate_baud:g} baud).")
+        if not min_sps <= sps <= MAX_SAMPLES_PER_SYMBOL:
+            kind = f"{link.modulation} with {link.line_code}"
+            raise ValueError(f"Argument 'sample_rate_hz' must give {min_sps:g} to {MAX_SAMPLES_PER_SYMBOL:g} samples "
+                             f"per symbol for {kind}, not {sps:.4g} ({fs:g} Hz for {link.symbol_rate_baud:g} baud).")
         if residual and not 0.0 < link.modulation_index_rad < math.pi / 2:
             raise ValueError(f"Argument 'link.modulation_index_rad' must be in (0, pi/2), "
                              f"not {link.modulation_index_rad!r}.")
@@ -274,8 +282,10 @@ class ResidualCarrierDemodulator:
         self.subcarrier_mode = sc_mode
         self.wave = {0: "nrz", 1: "square", 2: "sine"}[sc_mode]
         self.block_samples = max(32768, _next_pow2(256 * sps))
-        self.acquisition_search_hz = (receiver.acquisition_range * fs if residual
-                                      else receiver.acquisition_range * link.symbol_rate_baud)
+        rng = receiver.acquisition_range_hz
+        self.acquisition_search_hz = 0.5 * fs if rng is None else min(float(rng), 0.5 * fs)
+        self.conjugate = receiver.spectrum_inverted is True
+        self.line_threshold_db = 10.0 * math.log10(LINE_THRESHOLD * math.log(2.0))
         nrz_pm = link.modulation == "pcm-pm" and not self.biphase
         auto = (_AUTO_CARRIER_BW_NRZ_PM if nrz_pm else _AUTO_CARRIER_BW) * link.symbol_rate_baud
         bw = float(receiver.carrier_loop_bandwidth_hz or auto)
@@ -314,8 +324,20 @@ class ResidualCarrierDemodulator:
         bn_t = receiver.timing_loop_bandwidth
         kp_t, ki_t, _ = _loop_gains(bn_t, 2)
         q = np.zeros(SYMBOL_PARAM_SIZE, dtype=np.float64)
-        q[:5] = (1.0 if self.biphase else 0.0, kp_t, ki_t, _DTTL_WINDOW, 1.0 / 256.0)
+        q[:7] = (1.0 if self.biphase else 0.0, kp_t, ki_t, _DTTL_WINDOW, 1.0 / 256.0, sps, _TIMING_RATE_LIMIT)
         self._sparams = q
+        # rect_symbols bound: a symbol moves tau by at least T (1 - limit) (1 - kp W) samples
+        self._min_symbol_advance = sps * (1.0 - _TIMING_RATE_LIMIT) * (1.0 - kp_t * _DTTL_WINDOW)
+        self._search = None
+        if not residual:
+            # Bi-phase-L BPSK: the chip-long box before squaring; the band's shape is the Manchester pulse's
+            box = np.ones(max(1, int(round(chip))), dtype=np.float64)
+            manchester = np.concatenate([box, -box])
+            wn = _loop_gains(bw / fs, 2)[0] / (2.0 * _ZETA) * fs  # natural frequency, rad/s
+            self._search = CarrierSearch(sample_rate_hz=fs, power=2, prefilter=box / math.sqrt(box.size),
+                                         template=manchester, occupied_hz=4.0 * link.symbol_rate_baud,
+                                         search_hz=self.acquisition_search_hz, fine_hz=0.05 * link.symbol_rate_baud,
+                                         max_rate_hz_per_s=min(5000.0, 0.2 * wn * wn / (2.0 * math.pi)))
         self.reset()
 
     # ---- state -------------------------------------------------------------------------
@@ -324,6 +346,7 @@ class ResidualCarrierDemodulator:
         self._next_start: int | None = None
         self._pending = np.zeros(0, dtype=np.complex64)
         self._agc_power = 0.0
+        self._dc = DcBlocker()
         self._cs = np.zeros(CARRIER_STATE_SIZE, dtype=np.float64)
         self._cs[16] = 1.0 if self.carrier_loop_order == 3 else 0.0
         self._cs[8] = self.subcarrier_cycles_per_sample
@@ -338,7 +361,7 @@ class ResidualCarrierDemodulator:
         self._symbol_locked = False
         self._finished = False
         self.modulation_index_rad = float("nan")
-        self.stats = DemodStats()
+        self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
 
     # ---- public ------------------------------------------------------------------------
     def process(self, chunk: Any) -> SymbolBlock:
@@ -386,14 +409,17 @@ class ResidualCarrierDemodulator:
         n = block.size
         x = block.astype(np.complex128) * gain
         if self.residual:
-            # the residual carrier itself is the line (no mean removal, no squaring)
-            f_hz, ratio = spectral_line(x, sample_rate_hz=fs, search_hz=self.acquisition_search_hz)
-            found = ratio >= _ACQ_THRESHOLD
+            # the residual carrier itself is the line (no squaring); the block mean goes first, so that a
+            # receiver DC offset is never taken for it (a carrier within fs / n of 0 Hz goes with it)
+            f_hz, ratio = spectral_line(x - x.mean(), sample_rate_hz=fs, search_hz=self.acquisition_search_hz)
+            found = ratio >= LINE_THRESHOLD
+            level = 10.0 * math.log10(ratio * math.log(2.0)) if ratio > 0 else -math.inf
+            self.stats.saw(SpectralLine(f_hz, level, "carrier line"))
         else:
-            taps = np.ones(max(1, int(round(self.chip_samples))), dtype=np.float64)
-            est = estimate_carrier_offset(x, sample_rate_hz=fs, power=2, search_hz=self.acquisition_search_hz,
-                                          prefilter=taps / math.sqrt(taps.size))
-            f_hz, ratio, found = est.offset_hz, est.peak_ratio, est.found
+            acq = self._search.search(x)
+            f_hz, found = acq.offset_hz, acq.found
+            ratio = 10.0 ** (acq.line.level_db / 10.0) / math.log(2.0)
+            self.stats.saw(acq.line)
         self.stats.last_peak_ratio = ratio
         if not found:
             return False
@@ -456,8 +482,10 @@ class ResidualCarrierDemodulator:
             bad = ~np.isfinite(block)
             self.stats.nonfinite_samples += int(bad.sum())
             block[bad] = 0
+        if self.conjugate:
+            block = np.conj(block)
         n = block.size
-        pw = float(np.mean(np.abs(block[block != 0]) ** 2)) if np.any(block != 0) else 0.0
+        block, pw = self._dc.process(block)
         if pw > 0:
             self._agc_power = pw if self._agc_power == 0.0 else 0.8 * self._agc_power + 0.2 * pw
         gain = 1.0 / math.sqrt(self._agc_power) if self._agc_power > 0 else 1.0
@@ -484,15 +512,12 @@ class ResidualCarrierDemodulator:
         T = self.samples_per_symbol
         if (acquired_now and not self._symbol_locked) or (not self._timing_acquired and not self._need_acq):
             self._acquire_timing(block_start)
-        cap = int(self._ubuf.size / T) + 4
-        pos = np.empty(cap, dtype=np.float64)
-        raw = np.empty(cap, dtype=np.float64)
-        soft = np.empty(cap, dtype=np.float64)
-        slock = np.empty(cap, dtype=np.int8)
         nsym = 0
+        pos = raw = soft = np.zeros(0, dtype=np.float64)
+        slock = np.zeros(0, dtype=np.int8)
         if self._timing_acquired:
-            nsym = rect_symbols(self._ubuf, self._lbuf, np.int64(self._ubase), self._sparams, self._ss,
-                                pos, raw, soft, slock)
+            pos, raw, soft, slock = self._symbols()
+            nsym = pos.size
             keep = int(math.floor(self._ss[0] - (0.5 + 2.0 * _DTTL_WINDOW) * self._ss[1])) - 2 - self._ubase
         else:
             keep = self._ubuf.size - int(math.ceil(2 * T)) - 2  # keep a little for the first symbol
@@ -530,6 +555,24 @@ class ResidualCarrierDemodulator:
             self._unlocked_blocks += 1
             if self._unlocked_blocks >= _REACQUIRE_BLOCKS:
                 self._need_acq = True
+
+    def _symbols(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """:func:`rect_symbols` over the buffer, with outputs sized from its bound (grown if ever full)."""
+        cap = int(self._ubuf.size / self._min_symbol_advance) + 2
+        outs = []
+        while True:
+            out = (np.empty(cap), np.empty(cap), np.empty(cap), np.empty(cap, dtype=np.int8))
+            n = rect_symbols(self._ubuf, self._lbuf, np.int64(self._ubase), self._sparams, self._ss, *out)
+            outs.append(tuple(a[:n] for a in out))
+            if n < cap:
+                break
+        if len(outs) == 1:
+            return outs[0]
+        return tuple(np.concatenate(col) for col in zip(*outs))
+
+    def no_lock_message(self) -> str | None:
+        """One line for stderr when no carrier lock was found so far (``DemodStats.no_lock_message``)."""
+        return self.stats.no_lock_message()
 
     def _acquire_timing(self, block_start: int) -> None:
         """Symbol timing by the best of 32 trial phases over the symbols of the buffer from ``block_start``."""

@@ -278,20 +278,25 @@ def rect_symbols(u, lock, base, params, sf, out_pos, out_raw, out_soft, out_lock
     base : int
         Absolute index of ``u[0]``.
     params : float64 array
-        ``[biphase, kp_t, ki_t, window_half_fraction, a_amp, 0, 0, 0]``: window half-width as a
-        fraction of the symbol period.
+        ``[biphase, kp_t, ki_t, window_half_fraction, a_amp, nominal_period, period_limit, 0]``:
+        window half-width as a fraction of the symbol period; the period estimate is held within
+        ``nominal_period (1 +- period_limit)`` (not bounded when ``nominal_period`` is 0).
     sf : float64 array, updated in place
         0 ``tau`` (centre of the next symbol, absolute samples), 1 symbol period estimate (samples),
         2 previous raw symbol (0 = none yet), 3 amplitude per sample (average of ``|s| / T``).
     out_pos, out_raw, out_soft, out_lock
-        Per symbol: centre (samples), raw integral ``s``, ``s / (A T)`` (about +-1), lock flag.
+        Per symbol: centre (samples), raw integral ``s``, ``s / (A T)`` (about +-1), lock flag;
+        all of one length ``cap``.
 
     Returns
     -------
     int
         Symbols written.  A symbol is taken once its interval ends inside ``u`` (the rest waits for
         the next call); one whose centre lies after ``base - 1/2`` but whose start does not is the
-        first symbol of the stream, integrated over the part that exists (no timing update).
+        first symbol of the stream, integrated over the part that exists (no timing update).  It
+        equals ``cap`` only when the buffers filled up; a call with new buffers then continues.
+        Each symbol advances ``tau`` by at least ``T (1 - kp W)``, ``T >= nominal (1 - limit)``,
+        so a call writes at most ``len(u) / (nominal (1 - limit) (1 - kp W)) + 2`` symbols.
 
     Notes
     -----
@@ -311,12 +316,15 @@ def rect_symbols(u, lock, base, params, sf, out_pos, out_raw, out_soft, out_lock
     ki = params[2]
     wfrac = params[3]
     a_amp = params[4]
+    nominal = params[5]
+    limit = params[6]
     tau = sf[0]
     period = sf[1]
     prev = sf[2]
     amp = sf[3]
+    cap = out_pos.shape[0]
     nout = 0
-    while True:
+    while nout < cap:
         half = 0.5 * period
         w = wfrac * period
         a = tau - half
@@ -364,6 +372,11 @@ def rect_symbols(u, lock, base, params, sf, out_pos, out_raw, out_soft, out_lock
         tau += period - kp * delta
         if lk == 1:
             period -= ki * delta
+            if nominal > 0.0:
+                if period > nominal * (1.0 + limit):
+                    period = nominal * (1.0 + limit)
+                elif period < nominal * (1.0 - limit):
+                    period = nominal * (1.0 - limit)
     sf[0] = tau
     sf[1] = period
     sf[2] = prev
