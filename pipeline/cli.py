@@ -284,6 +284,8 @@ def _cmd_decode(args) -> int:
         progress=not args.quiet,
         workers=workers,
     )
+    if summary.no_lock is not None:  # said even with --quiet: the run found nothing to decode
+        print(f"downlink: {summary.no_lock}", file=sys.stderr)
     if not args.quiet:
         print(summary.line(), file=sys.stderr)
     # standard output carries the packets with --packets-to-stdout; the report's path then goes to stderr

@@ -203,8 +203,8 @@ def test_segmented_content_same_as_plain(long_recording, long_plain, segmented_o
                                                                        if k.startswith("apid_")}
     # one carrier-track row per demodulator block; blocks in the lead-ins are not repeated
     assert abs(len(out["doppler.csv"].splitlines()) - len(ref["doppler.csv"].splitlines())) <= 3
-    pos = np.array([json.loads(line)["position"] for line in out["frames.jsonl"].splitlines()])
-    pos_ref = np.array([json.loads(line)["position"] for line in ref["frames.jsonl"].splitlines()])
+    pos = np.array([json.loads(line)["sample_position"] for line in out["frames.jsonl"].splitlines()])
+    pos_ref = np.array([json.loads(line)["sample_position"] for line in ref["frames.jsonl"].splitlines()])
     # segments start on the demodulator's block grid, so the loops re-converge to the plain chain's
     # track: agreement to about 1e-6 samples was measured; 1e-3 leaves room (no published source)
     np.testing.assert_allclose(pos, pos_ref, rtol=0, atol=1e-3)

@@ -183,13 +183,13 @@ def _frames_tm(count, *, drop=(), fail=(), period=1000.0):
     for k in range(count):
         if k in drop:
             continue
-        out.append({"position": period * k, "status": "fecf_error" if k in fail else "ok", "scid": 499, "vcid": 0,
+        out.append({"sample_position": period * k, "status": "fecf_error" if k in fail else "ok", "scid": 499, "vcid": 0,
                     "mcfc": k % 256, "vcfc": k % 256, "ert": f"2026-03-14T09:{30 + k // 60:02d}:{k % 60:02d}Z"})
     return out
 
 
 def _time_packet(k, obt_s, *, vcid=0, vcfc=None):
-    return {"apid": 127, "position": 1000.0 * k, "mcfc": k % 256, "vcid": vcid, "vcfc": k if vcfc is None else vcfc,
+    return {"apid": 127, "sample_position": 1000.0 * k, "mcfc": k % 256, "vcid": vcid, "vcfc": k if vcfc is None else vcfc,
             "hex": "087fc0000006" + (obt_s << 24).to_bytes(7, "big").hex()}
 
 
@@ -198,7 +198,7 @@ def test_pairing_tm_rules():
                               "clock": {"time_packet_apid": 127, "pfield": 0x2F, "sampled_every": 4}})
     frames = _frames_tm(40, drop=(8,), fail=(16,))
     packets = [_time_packet(k, 100 + k) for k in (1, 9, 17, 27, 39)]
-    packets.append({"apid": 127, "position": 1000.0 * 5, "mcfc": 5, "hex": "087fc0000001ffff"})  # too short
+    packets.append({"apid": 127, "sample_position": 1000.0 * 5, "mcfc": 5, "hex": "087fc0000001ffff"})  # too short
     pairs = pair_time_packets(frames, packets, prof, folder="x")
     assert [p.reason for p in pairs] == [None, "sampled_frame_not_received", "sampled_frame_failed", None, None,
                                          "time_code_unreadable"]
@@ -219,7 +219,7 @@ def test_pairing_aos_rules():
         vcid = 2 if k % 2 == 0 else 5
         if vcid == 2 and k // 2 in (9, 13):  # VC 2 counts 9 and 13 are lost
             continue
-        frames.append({"position": 1000.0 * k, "status": "ok", "scid": 99, "vcid": vcid, "mcfc": None,
+        frames.append({"sample_position": 1000.0 * k, "status": "ok", "scid": 99, "vcid": vcid, "mcfc": None,
                        "vcfc": k // 2, "ert": f"2026-03-14T09:30:{k:02d}Z"})
     # packets on VC 5 at k = 11 (after VC-2 count 5), k = 25 (VC-2 count 12 is sampled but count 13 lost
     # after 12 is no sampled count: fine), k = 29 (VC-2 counts 13..14: count 13 lost, not a multiple of 4)

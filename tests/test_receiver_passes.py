@@ -99,7 +99,7 @@ def test_oqpsk_frame_time_is_the_i_rail(tmp_path, demo, waves, phase_rad):
                             offset_hz=2e3, waveform_cache=waves)
     res = pipeline.decode(ps.meta, profile)
     assert [bytes.fromhex(p["hex"]) for p in res.packets_list] == ps.packets
-    pos = np.array([f["position"] for f in res.frames_list])
+    pos = np.array([f["sample_position"] for f in res.frames_list])
     truth = ps.asm_position[np.argmin(np.abs(pos[:, None] - ps.asm_position[None, :]), axis=1)]
     assert np.max(np.abs(pos - truth)) < 0.1 * FS / RS  # issue 17: within 0.1 symbol
 
@@ -137,7 +137,7 @@ def test_probes_give_one_clear_error(tmp_path, capsys, receiver, symbol_rate, fr
     assert not (tmp_path / "out").exists()
 
 
-def test_noise_gives_no_packets_and_says_what_it_saw(tmp_path, demo):
+def test_noise_gives_no_packets_and_says_what_it_saw(tmp_path, demo, capsys):
     """A recording of noise: 0 packets; the demodulator's no-lock line names the band and the strongest line."""
     meta = _noise_recording(tmp_path, seconds=0.3)
     res = pipeline.decode(meta, demo)
@@ -153,6 +153,13 @@ def test_noise_gives_no_packets_and_says_what_it_saw(tmp_path, demo):
     line = d.no_lock_message()
     assert line.startswith("no carrier lock in +-500000 Hz: ") and "above the noise floor" in line
     assert "\n" not in line
+    # the decode says the same in its summary and in the report, and the command prints it on stderr
+    assert res.no_lock == line and res.report["demod"]["no_lock"] == line
+    from pipeline.cli import main
+
+    assert main(["decode", str(meta), "--profile", str(pipeline.demo_profile_path()), "--out", str(tmp_path / "o"),
+                 "-q"]) == 0
+    assert capsys.readouterr().err == f"downlink: {line}\n"
 
 
 # ---- longer checks -----------------------------------------------------------------------------------------

@@ -76,4 +76,4 @@ def test_doppler_rows(tmp_path):
         doppler_rows(tps, 5)
     with pytest.raises(ValueError, match="Argument 'downlink_frequency_hz'"):
         doppler_rows(tps, _utc, downlink_frequency_hz=-1.0)
-    assert math.isfinite(rows[0]["position"])
+    assert math.isfinite(rows[0]["sample_position"])

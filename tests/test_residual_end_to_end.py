@@ -76,7 +76,7 @@ def test_residual_recording_decodes_every_packet(tmp_path, case):
     # recording: the demodulator integrates the part that exists)
     expected = [(f["mcfc"], f["position"]) for f in truth_frames]
     assert len(expected) == sim.num_frames
-    got = {g["mcfc"]: g["position"] for g in got_frames}
+    got = {g["mcfc"]: g["sample_position"] for g in got_frames}
     for mcfc, position in expected:
         assert mcfc in got, f"frame {mcfc} lost"
         assert abs(got[mcfc] - position) < T

@@ -130,7 +130,7 @@ def test_dropout_is_reported_and_decoding_resumes(tmp_path):
     assert lost and not any((t["apid"], t["seq_count"]) in got for t in lost)
     # the outage is reported with where it happened
     gaps = report["gaps"]
-    assert any(g["kind"] in ("mc", "vc") and 1.1 < g["position"] / fs < 1.9 for g in gaps), gaps
+    assert any(g["kind"] in ("mc", "vc") and 1.1 < g["sample_position"] / fs < 1.9 for g in gaps), gaps
     assert any("lost" in str(e.get("event", e.get("kind", ""))).lower() for e in report["events"]), report["events"]
 
 

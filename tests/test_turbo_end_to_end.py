@@ -120,7 +120,7 @@ def test_bpsk_iq_every_packet_and_a_spoiled_frame_is_turbo_failed(bpsk_pass):
     assert all(1 <= f["decoder_iterations"] <= 10 for f in frames)
     # the first channel symbol of each marker (tests/demod_signals.py pulse peaks)
     for j, f in enumerate(frames):
-        assert abs(f["position"] - P["wave"].peak_position[P["lead"] + j * (64 + 3576)]) < 0.5
+        assert abs(f["sample_position"] - P["wave"].peak_position[P["lead"] + j * (64 + 3576)]) < 0.5
     # the decoder's Es/N0 estimate against the transmitter's truth (the receiver's implementation loss included)
     est = [f["decoder_esn0_db"] for f in frames[4:]]
     assert abs(np.mean(est) - P["esn0_db"]) < 1.0

@@ -20,7 +20,7 @@ import numpy as np
 
 from pipeline.profile import LinkProfile
 
-__all__ = ["BackEnd", "FrameLog", "TrackLog"]
+__all__ = ["BackEnd", "FrameLog", "TrackLog", "sample_keys"]
 
 #: Entries above which :class:`FrameLog` keeps every other one (memory stays bounded on endless streams).
 MAX_FRAME_LOG = 1 << 20
@@ -60,6 +60,14 @@ class TrackLog:
         locked = np.asarray(self.carrier_locked, bool) & np.asarray(self.symbol_locked, bool)
         return {"position": np.asarray(self.position, np.float64), "carrier_hz": np.asarray(self.carrier_hz),
                 "esn0_db": np.asarray(self.esn0_db), "locked": locked}
+
+
+def sample_keys(d: dict) -> dict:
+    """An output record with its positions named by their unit: ``position`` -> ``sample_position`` and
+    ``after_position`` -> ``after_sample_position`` (sample index in the recording; channel-symbol index for
+    symbol input)."""
+    return {("sample_position" if k == "position" else "after_sample_position" if k == "after_position" else k): v
+            for k, v in d.items()}
 
 
 class FrameLog:
@@ -208,7 +216,7 @@ class BackEnd:
             locked = bool(tp.carrier_locked and tp.symbol_locked)
             if locked != self._was_locked:
                 self.events.append({"kind": "demod_lock_acquired" if locked else "demod_lock_lost",
-                                    "position": float(tp.position),
+                                    "sample_position": float(tp.position),
                                     "detail": f"carrier {tp.carrier_offset_hz:.1f} Hz" if locked else ""})
                 self._was_locked = locked
 
@@ -216,8 +224,8 @@ class BackEnd:
         """One decoded frame (a :class:`~pipeline.sync.DecodedFrame`), in stream order."""
         record = self.parser.process(decoded)
         for g in self.accounting.process(record):
-            gd = g.as_dict()
-            gd["ert"] = self.ert(gd.get("position", decoded.position))
+            gd = sample_keys(g.as_dict())
+            gd["ert"] = self.ert(gd.get("sample_position", decoded.position))
             self.gaps.append(gd)
         self.frame_count += 1
         self.status_counts[record.status] = self.status_counts.get(record.status, 0) + 1
@@ -233,10 +241,10 @@ class BackEnd:
         for pkt in self.extractor.process(record):
             self._packet(pkt)
         for sg in self.extractor.take_sequence_gaps():
-            gd = sg.as_dict()
+            gd = sample_keys(sg.as_dict())
             gd.setdefault("kind", "apid")
-            if "position" in gd:
-                gd["ert"] = self.ert(float(gd["position"]))
+            if "sample_position" in gd:
+                gd["ert"] = self.ert(float(gd["sample_position"]))
             self.gaps.append(gd)
 
     def finish(self) -> None:

@@ -20,6 +20,7 @@ from typing import Any
 
 import numpy as np
 
+from pipeline.chain._backend import sample_keys
 from pipeline.errors import ProfileError
 from pipeline.profile import LinkProfile
 
@@ -65,7 +66,9 @@ class FrontSummary:
     ``stats`` maps ``"branch" | "frame_sync" | "codeblock"`` to the stage's statistics object;
     ``events`` are the synchronizer events as dicts; ``constellation`` the last locked stretch of
     normalised symbols (None without a demodulator); ``waterfall`` the recording's
-    :class:`~pipeline.report.Waterfall` (None unless asked for).
+    :class:`~pipeline.report.Waterfall` (None unless asked for); ``demod`` the demodulator's
+    :class:`~pipeline.demod.DemodStats` (None for symbol input), whose ``no_lock_message()`` says why
+    nothing locked.
     """
 
     counts: FrontCounts = field(default_factory=FrontCounts)
@@ -73,6 +76,7 @@ class FrontSummary:
     events: list = field(default_factory=list)
     constellation: np.ndarray | None = None
     waterfall: Any = None
+    demod: Any = None
 
     def merge(self, other: FrontSummary) -> None:
         """Add a later segment's summary: counts and numeric statistics summed, events appended."""
@@ -87,6 +91,11 @@ class FrontSummary:
                 self.waterfall = other.waterfall
             else:
                 self.waterfall.add(other.waterfall)
+        if other.demod is not None:  # DemodStats merge by their own rule (the strongest line, one search span)
+            if self.demod is None:
+                self.demod = dataclasses.replace(other.demod)
+            else:
+                self.demod.merge(other.demod)
 
 
 def _add_stats(total: Any, part: Any) -> Any:
@@ -152,7 +161,8 @@ class FrontEnd:
         line_code = "nrz-l" if profile.link.line_code == "bi-phase-l" else profile.link.line_code
         self.line = LineDecoder(line_code=line_code)
         self.branch = BranchSync(rate=profile.coding.convolutional, modulation=profile.link.modulation,
-                                 g2_inverted=profile.coding.conv_g2_inverted)
+                                 g2_inverted=profile.coding.conv_g2_inverted,
+                                 mirror=rx.spectrum_inverted == "auto")
         self.fsync = frame_sync_for(profile)  # the link's marker: the ASM on hard bits, a turbo marker soft
         self.codeblock = CodeblockDecoder(profile=profile)
         self.counts = FrontCounts()
@@ -211,10 +221,11 @@ class FrontEnd:
         for stage in (self.branch, self.fsync):
             for ev in stage.events:
                 if self._owns(ev.position):
-                    events.append(ev.as_dict())
+                    events.append(sample_keys(ev.as_dict()))
         stats = {"branch": self.branch.stats, "frame_sync": self.fsync.stats, "codeblock": self.codeblock.stats}
         return FrontSummary(counts=dataclasses.replace(self.counts), stats=stats, events=events,
-                            constellation=self.constellation, waterfall=self.waterfall)
+                            constellation=self.constellation, waterfall=self.waterfall,
+                            demod=None if self.demod is None else dataclasses.replace(self.demod.stats))
 
     # ---- internals ------------------------------------------------------------------------
     def _owns(self, position: float) -> bool:

@@ -78,6 +78,8 @@ class DecodeSummary:
         The report dictionary (what ``report.json`` holds).
     packets_list, frames_list : list of dict
         In-memory decodes only: the objects ``packets.jsonl`` and ``frames.jsonl`` would hold.
+    no_lock : str or None
+        When the receiver never locked: one line saying what it searched and the strongest line it saw.
     """
 
     frames: int = 0
@@ -94,6 +96,7 @@ class DecodeSummary:
     report: dict = field(default_factory=dict, repr=False)
     packets_list: list = field(default_factory=list, repr=False)
     frames_list: list = field(default_factory=list, repr=False)
+    no_lock: str | None = None
 
     def line(self) -> str:
         """The one-line summary printed at the end of a run."""
@@ -360,10 +363,14 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         doppler_check=None if check is None else check.summary().as_dict(),
     )
     report, plots = build_report(facts)
+    no_lock = None if front.demod is None else front.demod.no_lock_message()
+    if no_lock is not None:
+        report["demod"]["no_lock"] = no_lock
     summary = DecodeSummary(frames=back.frame_count, frames_ok=ok, frames_idle=idle,
                             frames_failed=back.frame_count - ok - idle, packets=back.packet_count,
                             duration_s=float(inp.duration_s), elapsed_s=elapsed, samples=front.counts.samples,
-                            channel_symbols=front.counts.channel_symbols, input_kind=inp.kind, report=report)
+                            channel_symbols=front.counts.channel_symbols, input_kind=inp.kind, report=report,
+                            no_lock=no_lock)
     return summary, plots
 
 

@@ -231,7 +231,7 @@ class FrameRecord:
             "verified": self.verified,
             "count_anomaly": self.count_anomaly,
             "kind": self.kind,
-            "position": float(self.position),
+            "sample_position": float(self.position),
             "rs_corrected": list(self.rs_corrected),
             "asm_errors": self.asm_errors,
             "inverted": self.inverted,

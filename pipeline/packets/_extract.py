@@ -120,7 +120,13 @@ class Packet:
     copy: bool = False
 
     def as_dict(self) -> dict[str, Any]:
-        """JSON-ready fields; the packet as ``hex``."""
+        """JSON-ready fields; the packet as ``hex``.
+
+        ``length`` is the whole packet in octets (primary header included); ``data_length`` the space
+        packet's Packet Data Length field as sent: octets of the packet data field minus one (CCSDS
+        133.0-B, primary header; the clause number from memory, not confirmed), None for an
+        encapsulation packet.
+        """
         return {
             "kind": self.kind,
             "apid": self.apid,
@@ -130,6 +136,7 @@ class Packet:
             "sec_header_flag": self.sec_header_flag,
             "protocol_id": self.protocol_id,
             "length": len(self.data),
+            "data_length": int.from_bytes(self.data[4:6], "big") if self.kind == "space" else None,
             "scid": self.scid,
             "vcid": self.vcid,
             "mcfc": self.mcfc,
@@ -137,7 +144,7 @@ class Packet:
             "frames": self.frames,
             "verified": self.verified,
             "count_anomaly": self.count_anomaly,
-            "position": float(self.position),
+            "sample_position": float(self.position),
             "rs_corrected": list(self.rs_corrected),
             "time_ns": self.time_ns,
             "hex": self.data.hex(),

@@ -331,10 +331,10 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         for k, v in stats.as_dict().items():
             sync_stats[f"{stage_name}.{k}"] = v
     events = []
-    for e in sorted([*f.demod_events, *f.sync_events], key=lambda e: float(e.get("position", 0.0))):
+    for e in sorted([*f.demod_events, *f.sync_events], key=lambda e: float(e.get("sample_position", 0.0))):
         e = dict(e)
-        if "position" in e and f.ert is not None:
-            e["ert"] = f.ert(float(e["position"]))
+        if "sample_position" in e and f.ert is not None:
+            e["ert"] = f.ert(float(e["sample_position"]))
         events.append(e)
     clcw = _clcw_summary(flog) if p.frames.ocf else None
     report: dict = {
@@ -414,7 +414,7 @@ def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locke
             wf_t = clock.seconds(np.arange(rows[0], rows[-1] + 2, dtype=np.float64) * row)  # row edges
             nfft = db.shape[1]
             wf_f = (np.arange(nfft) - nfft // 2) * (clock.rate / nfft)
-    gap_spans = [(float(g["after_position"]), float(g["position"])) for g in f.gaps
+    gap_spans = [(float(g["after_sample_position"]), float(g["sample_position"])) for g in f.gaps
                  if g.get("kind") == ("mc" if p.frames.kind == "tm" else "vc") and g.get("after_position") is not None
                  and int(g.get("missing", 0)) > int(g.get("unusable_between", 0))]
     frame_s = p.samples_per_cadu(clock.rate) / clock.rate

@@ -147,7 +147,7 @@ def _frame_period(frames: list[dict]) -> float | None:
                 and isinstance(b.get("mcfc"), int):
             d = (b["mcfc"] - a["mcfc"]) % 256
             if 1 <= d <= 4:
-                steps.append((b["position"] - a["position"]) / d)
+                steps.append((b["sample_position"] - a["sample_position"]) / d)
     return float(np.median(steps)) if steps else None
 
 
@@ -184,15 +184,15 @@ def pair_time_packets(frames: list[dict], packets: list[dict], profile: LinkProf
                            f"sampled frames)")
     scid = profile.frames.spacecraft_id
     frames = sorted((f for f in frames if f.get("scid") in (None, scid) or f.get("status") not in _GOOD),
-                    key=lambda f: float(f.get("position", 0.0)))
+                    key=lambda f: float(f.get("sample_position", 0.0)))
     for i, f in enumerate(frames):
-        _field(f, "position", float, f"{folder}/frames.jsonl frame {i}")
-    positions = [float(f["position"]) for f in frames]
+        _field(f, "sample_position", float, f"{folder}/frames.jsonl frame {i}")
+    positions = [float(f["sample_position"]) for f in frames]
     n = c.sampled_every
     period = _frame_period(frames) if profile.frames.kind == "tm" else None
     vc = [f for f in frames if f.get("vcid") == c.sampled_vcid and f.get("status") in _GOOD] \
         if profile.frames.kind == "aos" else []
-    vc_pos = [float(f["position"]) for f in vc]
+    vc_pos = [float(f["sample_position"]) for f in vc]
     out = []
     for i, p in enumerate(packets):
         if p.get("apid") != c.time_packet_apid:
@@ -205,7 +205,7 @@ def pair_time_packets(frames: list[dict], packets: list[dict], profile: LinkProf
             out.append(ClockPair(folder, 0, 0.0, reason="time_code_unreadable"))
             continue
         pair = ClockPair(folder, obt.ns, obt.resolution_ns)
-        pos = _field(p, "position", float, where)
+        pos = _field(p, "sample_position", float, where)
         if profile.frames.kind == "tm":
             frame, pair.reason = _tm_sampled_frame(frames, positions, pos, _field(p, "mcfc", int, where), n, period)
         else:
@@ -448,11 +448,11 @@ def run_clock(decoded_dirs, profile: LinkProfile, *, light_time_s: float | None 
     ...                           "clock": {"time_packet_apid": 127, "pfield": 0x2F, "sampled_every": 4}})
     >>> frames, packets = [], []
     >>> for k in range(16):   # one frame a second; a time packet in frame 4j + 1 names frame 4j
-    ...     frames.append({"position": 1000.0 * k, "status": "ok", "scid": 499, "vcid": 0, "mcfc": k,
+    ...     frames.append({"sample_position": 1000.0 * k, "status": "ok", "scid": 499, "vcid": 0, "mcfc": k,
     ...                    "vcfc": k, "ert": f"2026-03-14T09:30:{k + 1:02d}.281700000Z"})
     ...     if k % 4 == 1:
     ...         obt = (10 + k - 1) * 2**24   # the onboard clock reads 10 s at the first sampled frame
-    ...         packets.append({"apid": 127, "position": 1000.0 * k, "mcfc": k, "vcfc": k,
+    ...         packets.append({"apid": 127, "sample_position": 1000.0 * k, "mcfc": k, "vcfc": k,
     ...                         "hex": "087fc0000006" + obt.to_bytes(7, "big").hex()})
     >>> with tempfile.TemporaryDirectory() as d:
     ...     for name, rows in (("frames.jsonl", frames), ("packets.jsonl", packets)):

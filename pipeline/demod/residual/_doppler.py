@@ -15,7 +15,7 @@ __all__ = ["DOPPLER_COLUMNS", "SPEED_OF_LIGHT_M_PER_S", "doppler_rows", "range_r
 SPEED_OF_LIGHT_M_PER_S = 299_792_458.0
 
 #: Column names of :func:`doppler_rows` / ``doppler.csv``, in order.
-DOPPLER_COLUMNS = ("utc", "position", "carrier_offset_hz", "carrier_std_hz", "locked", "range_rate_m_per_s",
+DOPPLER_COLUMNS = ("utc", "sample_position", "carrier_offset_hz", "carrier_std_hz", "locked", "range_rate_m_per_s",
                    "range_rate_std_m_per_s")
 
 
@@ -90,7 +90,7 @@ def doppler_rows(track_points: Iterable[Any], utc_ns: Callable[[float], int] | A
         std = float(std) if std is not None and math.isfinite(float(std)) else None
         row = {
             "utc": format_ert(int(to_ns(pos))),
-            "position": round(pos, 3),
+            "sample_position": round(pos, 3),
             "carrier_offset_hz": round(off, 6) if math.isfinite(off) else None,
             "carrier_std_hz": None if std is None else round(std, 6),
             "locked": bool(tp.carrier_locked),
