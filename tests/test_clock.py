@@ -183,14 +183,14 @@ def _frames_tm(count, *, drop=(), fail=(), period=1000.0):
     for k in range(count):
         if k in drop:
             continue
-        out.append({"sample_position": period * k, "status": "fecf_error" if k in fail else "ok", "scid": 499, "vcid": 0,
-                    "mcfc": k % 256, "vcfc": k % 256, "ert": f"2026-03-14T09:{30 + k // 60:02d}:{k % 60:02d}Z"})
+        out.append({"sample_position": period * k, "status": "fecf_error" if k in fail else "ok", "scid": 499,
+                    "vcid": 0, "mcfc": k % 256, "vcfc": k % 256, "ert": f"2026-03-14T09:{30 + k // 60:02d}:{k % 60:02d}Z"})
     return out
 
 
 def _time_packet(k, obt_s, *, vcid=0, vcfc=None):
-    return {"apid": 127, "sample_position": 1000.0 * k, "mcfc": k % 256, "vcid": vcid, "vcfc": k if vcfc is None else vcfc,
-            "hex": "087fc0000006" + (obt_s << 24).to_bytes(7, "big").hex()}
+    return {"apid": 127, "sample_position": 1000.0 * k, "mcfc": k % 256, "vcid": vcid,
+            "vcfc": k if vcfc is None else vcfc, "hex": "087fc0000006" + (obt_s << 24).to_bytes(7, "big").hex()}
 
 
 def test_pairing_tm_rules():
