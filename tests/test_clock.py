@@ -184,7 +184,8 @@ def _frames_tm(count, *, drop=(), fail=(), period=1000.0):
         if k in drop:
             continue
         out.append({"sample_position": period * k, "status": "fecf_error" if k in fail else "ok", "scid": 499,
-                    "vcid": 0, "mcfc": k % 256, "vcfc": k % 256, "ert": f"2026-03-14T09:{30 + k // 60:02d}:{k % 60:02d}Z"})
+                    "vcid": 0, "mcfc": k % 256, "vcfc": k % 256,
+                    "ert": f"2026-03-14T09:{30 + k // 60:02d}:{k % 60:02d}Z"})
     return out
 
 
