@@ -1,0 +1,153 @@
+"""Measured Doppler against the orbit's prediction (issue 17): ``decode --tle`` on a pass whose carrier the
+transmitter moves by the Doppler of an invented element set, plus a constant oscillator offset.
+
+The transmitter's Doppler comes from sgp4 (PyPI) and erfa's GMST (via astropy's dependency pyerfa), light
+time iterated and differentiated numerically, never from pipeline.orbit; the signal from
+tests/demod_signals.py.  The physics check is that the residual is flat: its RMS under 5 Hz and its mean
+within 5 Hz of the oscillator offset.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+pytest.importorskip("sgp4")
+erfa = pytest.importorskip("erfa")
+
+import demod_signals as ds  # noqa: E402
+import orbit_truth  # noqa: E402
+
+from pipeline.timescales import format_utc, tai_from_posix_ns  # noqa: E402
+
+F_CARRIER = 2.2455e9  # Hz: the demo's invented S-band assignment
+OSC_OFFSET_HZ = 850.0  # the spacecraft oscillator's offset from nominal (the mean residual to find)
+FS = 250e3
+RS = 60e3
+SECONDS = 4.0
+C_KM_S = 299_792.458
+LAT, LON, ALT_M = 44.7261, 3.4117, 1012.0  # the invented Hollow Ridge station (the demo profile's)
+
+
+def _station_ecef_km() -> np.ndarray:
+    # WGS-84 geodetic -> Earth-fixed (the textbook formula; a = 6378.137 km, f = 1/298.257223563)
+    a, f = 6378.137, 1 / 298.257223563
+    e2 = f * (2 - f)
+    lat, lon = math.radians(LAT), math.radians(LON)
+    n = a / math.sqrt(1 - e2 * math.sin(lat) ** 2)
+    h = ALT_M / 1000.0
+    return np.array([(n + h) * math.cos(lat) * math.cos(lon), (n + h) * math.cos(lat) * math.sin(lon),
+                     (n * (1 - e2) + h) * math.sin(lat)])
+
+
+def _jd(posix_s: float) -> tuple[float, float]:
+    return 2440587.5 + math.floor(posix_s / 86400.0), (posix_s % 86400.0) / 86400.0
+
+
+def _light_time_s(sat, posix_r: float, station: np.ndarray) -> float:
+    """One-way light time of reception at ``posix_r`` (UTC seconds; UT1 = UTC): sgp4 position at emission,
+    the station rotated into TEME by erfa's GMST 1982."""
+    gmst = erfa.gmst82(*_jd(posix_r))
+    c, s = math.cos(gmst), math.sin(gmst)
+    r_st = np.array([c * station[0] - s * station[1], s * station[0] + c * station[1], station[2]])
+    tau = 0.0
+    for _ in range(8):
+        e, r, _ = sat.sgp4(*_jd(posix_r - tau))
+        assert e == 0
+        tau = float(np.linalg.norm(np.array(r) - r_st)) / C_KM_S
+    return tau
+
+
+def _doppler_hz(sat, posix_r: float, station: np.ndarray, h: float = 0.01) -> float:
+    """One-way Doppler f (1 - d tau / d t_r) - f at reception, by a central difference of the light time."""
+    return -F_CARRIER * (_light_time_s(sat, posix_r + h, station) - _light_time_s(sat, posix_r - h, station)) / (2 * h)
+
+
+def _start_near_culmination(sat, station) -> float:
+    """POSIX time (UTC) of the highest point of the first pass of the day, less SECONDS / 2."""
+    epoch = (sat.jdsatepoch - 2440587.5 + sat.jdsatepochF) * 86400.0
+    best, best_t = -1.0, epoch
+    up = station / np.linalg.norm(station)
+    for k in range(0, 86400, 20):
+        t = epoch + k
+        gmst = erfa.gmst82(*_jd(t))
+        c, s = math.cos(gmst), math.sin(gmst)
+        r_st = np.array([c * station[0] - s * station[1], s * station[0] + c * station[1], station[2]])
+        u = np.array([c * up[0] - s * up[1], s * up[0] + c * up[1], up[2]])
+        _, r, _ = sat.sgp4(*_jd(t))
+        d = np.array(r) - r_st
+        elev = math.degrees(math.asin(float(np.dot(d, u)) / float(np.linalg.norm(d))))
+        if elev > best:
+            best, best_t = elev, t
+        elif best > 30 and elev < 0:
+            break
+    assert best > 30, "the invented element set must rise well above the station within a day"
+    return round(best_t - SECONDS / 2)
+
+
+def test_doppler_residuals_are_flat_and_show_the_oscillator_offset(tmp_path):
+    from sgp4.api import WGS72, Satrec
+
+    from pipeline import decode, load_profile
+
+    l1, l2 = orbit_truth.leo_tle()
+    (tmp_path / "leo.tle").write_text(f"TEST LEO\n{l1}\n{l2}\n")
+    sat = Satrec.twoline2rv(l1, l2, WGS72)
+    station = _station_ecef_km()
+    t0 = _start_near_culmination(sat, station)
+    # the transmitter: BPSK, its carrier moved by the Doppler (10 ms grid, cubic in between) plus the offset
+    rng = np.random.default_rng(17)
+    n_sym = int(SECONDS * RS) - 40
+    wave = ds.modulate(n_sym, modulation="bpsk", sample_rate_hz=FS, symbol_rate_baud=RS, esn0_db=12.0, rng=rng,
+                       lead_symbols=20)
+    n = len(wave.samples)
+    grid = np.arange(0.0, n / FS + 0.02, 0.01)
+    f_grid = np.array([_doppler_hz(sat, t0 + g, station) for g in grid]) + OSC_OFFSET_HZ
+    from scipy.interpolate import CubicSpline
+
+    f_t = CubicSpline(grid, f_grid)(np.arange(n) / FS)
+    phase = 2 * np.pi * np.cumsum(f_t) / FS
+    samples = (wave.samples * np.exp(1j * phase)).astype("<c8")
+    (tmp_path / "pass.sigmf-data").write_bytes(samples.tobytes())
+    start = format_utc(tai_from_posix_ns(int(t0) * 1_000_000_000))
+    meta = {"global": {"core:datatype": "cf32_le", "core:sample_rate": FS, "core:version": "1.2.0"},
+            "captures": [{"core:sample_start": 0, "core:datetime": start, "core:frequency": F_CARRIER}],
+            "annotations": []}
+    (tmp_path / "pass.sigmf-meta").write_text(json.dumps(meta))
+    (tmp_path / "p.toml").write_text(f"""
+name = "leo-test"
+[link]
+modulation = "bpsk"
+symbol_rate = {RS}
+line_code = "nrz-l"
+[coding]
+convolutional = "none"
+reed_solomon = 0
+randomizer = true
+[frames]
+kind = "tm"
+length = 223
+spacecraft_id = 77
+[station]
+name = "HOLLOW RIDGE"
+latitude_deg = {LAT}
+longitude_deg = {LON}
+altitude_m = {ALT_M}
+""")
+    prof = load_profile(tmp_path / "p.toml")
+    out = tmp_path / "out"
+    summary = decode(tmp_path / "pass.sigmf-meta", prof, out, tle=tmp_path / "leo.tle")
+    import csv
+
+    with open(out / "doppler.csv", newline="") as f:
+        rows = [r for r in csv.DictReader(f) if r["locked"] == "True" and r["residual_hz"]]
+    assert len(rows) >= 20
+    residual = np.array([float(r["residual_hz"]) for r in rows[2:]])  # the loop's pull-in left out
+    assert float(np.std(residual)) < 5.0, residual
+    assert abs(float(np.mean(residual)) - OSC_OFFSET_HZ) < 5.0, np.mean(residual)
+    check = summary.report["doppler_check"]
+    assert abs(check["mean_residual_hz"] - OSC_OFFSET_HZ) < 5.0 and check["residual_rms_hz"] < 10.0
+    assert (out / "doppler.tdm").read_text().count("RECEIVE_FREQ_1") == sum(1 for _ in open(out / "doppler.csv")) - 1
