@@ -109,3 +109,30 @@ def test_frames_missing_counts_only_frames_never_received(demo_profile):
                                                                             "rs_uncorrectable": 2}, frames=14))
     v = report["pass"]
     assert v["frames_missing"] == 6 and v["frames_failed"] == 2 and v["frames_ok"] == 10 and v["frames_idle"] == 2
+
+
+def _frame_log(n: int, **fields) -> dict:
+    log = {"position": np.arange(n) * 100.0, "status": np.zeros(n, np.int8), "rs_corrected": np.full(n, -2),
+           "asm_errors": np.zeros(n, np.int8), "flywheel": np.zeros(n, bool), "decoder_iterations": np.full(n, -1),
+           "clcw_report_value": np.full(n, -1), "clcw_flags": np.zeros(n, np.int8), "statuses": ["ok"],
+           "stride": 1}
+    log.update(fields)
+    return log
+
+
+def test_decoder_iterations_lane_and_missing_spans(demo_profile):
+    # a turbo link: the quality strip carries the iterations per frame; a master-channel gap of 3 frames is
+    # drawn where it happened (the gap records use the output names after_sample_position / sample_position)
+    turbo = demo_profile.with_changes(coding={"convolutional": "none", "reed_solomon": 0, "turbo": "1/2",
+                                              "turbo_k": 1784}, frames={"length": 223, "fecf": True},
+                                      link={"line_code": "nrz-l"})
+    its = np.array([3, 4, 10, 2, 5], dtype=np.int64)
+    gap = {"kind": "mc", "after_sample_position": 200.0, "sample_position": 600.0, "missing": 3,
+           "unusable_between": 0}
+    _, plots = build_report(_facts(turbo, frame_log=_frame_log(5, decoder_iterations=its), gaps=[gap]))
+    np.testing.assert_array_equal(plots.frame_iterations, its)
+    assert plots.frame_iterations_max == 10
+    assert plots.missing_spans_s == [(0.2, 0.6)]
+    # no iterative decoder on the demo link: no lane
+    _, plain = build_report(_facts(demo_profile, frame_log=_frame_log(5)))
+    assert plain.frame_iterations is None

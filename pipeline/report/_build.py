@@ -395,6 +395,23 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
                               flog=flog, counted=counted, ber_kw=ber_kw, ocf=clcw is not None)
 
 
+def _max_iterations(p) -> int:
+    """The iteration limit of the link's iterative decoder (LDPC or turbo); 0 without one."""
+    c = p.coding
+    if c.turbo != "none":
+        return int(c.turbo_max_iterations)
+    if c.ldpc != "none":
+        return int(c.ldpc_max_iterations)
+    return 0
+
+
+def _iterations(flog: dict, p) -> np.ndarray | None:
+    """Decoder iterations per frame (-1 where none ran), or None on links without an iterative decoder."""
+    if not _max_iterations(p) or "decoder_iterations" not in flog:
+        return None
+    return np.asarray(flog["decoder_iterations"], dtype=np.int64)
+
+
 def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locked, flog, counted, ber_kw,
                ocf) -> PlotData:
     p = f.profile
@@ -414,8 +431,9 @@ def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locke
             wf_t = clock.seconds(np.arange(rows[0], rows[-1] + 2, dtype=np.float64) * row)  # row edges
             nfft = db.shape[1]
             wf_f = (np.arange(nfft) - nfft // 2) * (clock.rate / nfft)
+    counter = "mc" if p.frames.kind == "tm" else "vc"
     gap_spans = [(float(g["after_sample_position"]), float(g["sample_position"])) for g in f.gaps
-                 if g.get("kind") == ("mc" if p.frames.kind == "tm" else "vc") and g.get("after_position") is not None
+                 if g.get("kind") == counter and g.get("after_sample_position") is not None
                  and int(g.get("missing", 0)) > int(g.get("unusable_between", 0))]
     frame_s = p.samples_per_cadu(clock.rate) / clock.rate
     clcw_value = np.asarray(flog.get("clcw_report_value", ()), dtype=np.int64)
@@ -436,6 +454,8 @@ def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locke
         frame_rs_corrected=rs if fpos.size and p.coding.reed_solomon else None,
         frame_rs_max=p.coding.reed_solomon * p.coding.interleave,
         frame_asm_errors=asm if fpos.size else None,
+        frame_iterations=_iterations(flog, p) if fpos.size else None,
+        frame_iterations_max=_max_iterations(p),
         frame_flywheel=np.asarray(flog.get("flywheel", ()), dtype=bool) if fpos.size else None,
         missing_spans_s=[tuple(clock.seconds(list(s))) for s in gap_spans],
         ber_time_s=None if series is None else series["time_s"],

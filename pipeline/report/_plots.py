@@ -72,6 +72,8 @@ class PlotData:
         0 good, 1 idle, 2 failed, 3 another spacecraft.
     frame_rs_corrected : array_like of int
         Reed-Solomon symbols corrected per codeblock, -1 failed (None without Reed-Solomon).
+    frame_iterations, frame_iterations_max : array_like of int, int
+        Iterations the LDPC or turbo decoder used per frame (-1: none ran) and its limit.
     frame_rs_max : int
         Symbols a codeblock can correct (E x interleave).
     frame_asm_errors : array_like of int
@@ -107,6 +109,8 @@ class PlotData:
     frame_rs_corrected: Any = None
     frame_rs_max: int = 0
     frame_asm_errors: Any = None
+    frame_iterations: Any = None
+    frame_iterations_max: int = 0
     frame_flywheel: Any = None
     missing_spans_s: list = field(default_factory=list)
     ber_time_s: Any = None
@@ -368,7 +372,8 @@ def _legend_patches(items):
 
 
 def _panel_quality(ax, axis: _Axis, d: PlotData) -> tuple[str, ...]:
-    """Frame quality in lanes of one panel, top to bottom: status, RS symbols corrected, ASM bits wrong.
+    """Frame quality in lanes of one panel, top to bottom: status, RS symbols corrected or decoder iterations,
+    ASM bits wrong.
 
     One axes instead of three (each axes costs matplotlib about 20 ms to build); each lane is labelled
     with its scale, markers sit at ``lane + 0.05 + 0.75 value / top``.
@@ -393,6 +398,14 @@ def _panel_quality(ax, axis: _Axis, d: PlotData) -> tuple[str, ...]:
                 tt, vv = _worst_per_bin(t[sel], asm[sel])
                 ax.plot(axis.x(tt), y0 + 0.05 + 0.75 * vv / top, "o", ms=2.5, **style)
         lanes.append(("ASM errors", f"ASM wrong\n0 to {top}"))
+    its = _optional(d.frame_iterations, "decoder iterations", t, np.int64)
+    if its is not None and (its >= 0).any():
+        its = its[order]
+        y0, top = float(len(lanes)), max(int(d.frame_iterations_max), 1)
+        ran = its >= 0
+        tt, vv = _worst_per_bin(t[ran], its[ran])
+        ax.plot(axis.x(tt), y0 + 0.05 + 0.75 * np.minimum(vv, top) / top, ".", ms=3, color=_INK)
+        lanes.append(("decoder iterations", f"iterations\n0 to {top}"))
     if rs is not None:
         rs = rs[order]
         y0, top = float(len(lanes)), max(int(d.frame_rs_max), 1)
