@@ -197,20 +197,25 @@ def ldpc_syndrome_kernel(post, row_start, cols):
 
 
 @njit(cache=True, nogil=True)
-def _emit(hard, stride, lane, llr_row, n_sent, head_zeros, out_frame):
-    """Pack the information bits of a lane (the first 8 x len(out_frame) sent bits, MSB first) and
-    return how many of the ``n_sent`` sent bits the decoder flipped against the signs of ``llr_row``."""
-    n_info = 8 * out_frame.shape[0]
+def _emit(hard, stride, lane, llr_row, n_sent, head_zeros, out_word):
+    """Pack the decided sent bits of a lane (the first ``min(n_sent, 8 x len(out_word))``, MSB first, the
+    rest of ``out_word`` zero) and return how many of the ``n_sent`` sent bits the decoder flipped against
+    the signs of ``llr_row``."""
+    n_out = 8 * out_word.shape[0]
     flips = 0
     acc = 0
     for i in range(n_sent):
         d = 1 if hard[(head_zeros + i) * stride + lane] < 0 else 0
         flips += d ^ (1 if llr_row[i] < 0 else 0)
-        if i < n_info:
+        if i < n_out:
             acc = (acc << 1) | d
             if i & 7 == 7:
-                out_frame[i >> 3] = acc
+                out_word[i >> 3] = acc
                 acc = 0
+    if n_sent < n_out and n_sent & 7:
+        out_word[n_sent >> 3] = acc << (8 - (n_sent & 7))
+    for j in range((n_sent + 7) >> 3, out_word.shape[0]):
+        out_word[j] = 0
     return flips
 
 
@@ -245,7 +250,7 @@ def _finish_scalar(post, msg, row_start, cols, it, max_iter, alpha16, beta, qbuf
 
 @njit(cache=True, nogil=True)
 def ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, cols, max_iter, alpha16, beta,
-                              post, msg, qbuf, qtmp, out_frames, out_iters, out_weight, out_flips):
+                              post, msg, qbuf, qtmp, out_words, out_iters, out_weight, out_flips):
     """Decode codewords one at a time with :func:`ldpc_iteration_kernel` (the reference kernel).
 
     ``llr`` (float32, shape (codewords, >= n_sent)): soft values of the sent bits, + = bit 0; the
@@ -254,8 +259,9 @@ def ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, c
     ``head_zeros`` leading variables are set to +32767 (known zeros), the variables after the sent
     ones to 0 (punctured: erasures).  Each codeword starts with all messages 0 and runs
     iterations until the syndrome of the posteriors is zero (checked after every iteration, so
-    at least one runs) or ``max_iter``.  Outputs per codeword: ``out_frames`` the information bits
-    (the first sent bits) packed MSB first, ``out_iters`` the iterations run,
+    at least one runs) or ``max_iter``.  Outputs per codeword: ``out_words`` the decided sent bits
+    packed MSB first (as many as it holds; the information bits come first, bits past ``n_sent`` are 0),
+    ``out_iters`` the iterations run,
     ``out_weight`` the final syndrome weight (0 = success), ``out_flips`` how many sent bits
     differ from the signs of ``llr``.  ``post`` (int16, variables), ``msg`` (int8, edges), ``qbuf``,
     ``qtmp`` (int8, variables): work space.
@@ -266,7 +272,7 @@ def ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, c
         it, weight = _finish_scalar(post, msg, row_start, cols, 0, max_iter, alpha16, beta, qbuf)
         out_iters[c] = it
         out_weight[c] = weight
-        out_flips[c] = _emit(post, 1, 0, llr[c], n_sent, head_zeros, out_frames[c])
+        out_flips[c] = _emit(post, 1, 0, llr[c], n_sent, head_zeros, out_words[c])
 
 
 # ---- layered min-sum decoder: codewords side by side as LLVM vector code -----------------------
@@ -597,22 +603,24 @@ def _load_lanes(post, lanes_in, n_in, lane_cw, llr, n_sent, scale, clip, head_ze
 
 
 @njit(cache=True, nogil=True)
-def _emit_lanes(post, lanes_out, n_out, lane_cw, llr, n_sent, head_zeros, masks, out_frames, out_flips):
+def _emit_lanes(post, lanes_out, n_out, lane_cw, llr, n_sent, head_zeros, masks, out_words, out_flips):
     """:func:`_emit` for the codewords in lanes ``lanes_out[t]``, t < ``n_out``, at once: the sign bits
     of all lanes are gathered into one word per variable (``masks``), then read per lane."""
     _lanes_signs(post, masks)
-    n_oct = out_frames.shape[1]
+    n_oct = out_words.shape[1]
     one = np.uint64(1)
+    zero = np.uint64(0)
     for t in range(n_out):
         lane = np.uint64(lanes_out[t])
         c = lane_cw[lanes_out[t]]
-        frame = out_frames[c]
+        word = out_words[c]
         for j in range(n_oct):
             acc = np.uint64(0)
             base = head_zeros + 8 * j
             for b in range(8):
-                acc = (acc << one) | ((masks[base + b] >> lane) & one)
-            frame[j] = np.uint8(acc)
+                bit = (masks[base + b] >> lane) & one if 8 * j + b < n_sent else zero
+                acc = (acc << one) | bit
+            word[j] = np.uint8(acc)
         row = llr[c]
         flips = 0
         for i in range(n_sent):
@@ -637,7 +645,7 @@ def _finish_lane(post, msg, fresh, lane, row_start, cols, it, max_iter, alpha16,
 @njit(cache=True, nogil=True)
 def ldpc_decode_vector_kernel(llr, n_sent, scale, clip, head_zeros, row_start, cols, cols_w, max_iter, alpha16,
                               beta, tail_lanes, post, msg, fresh, weight, lane_cw, lane_it, p1, m1, qbuf, qtmp,
-                              out_frames, out_iters, out_weight, out_flips):
+                              out_words, out_iters, out_weight, out_flips):
     """:func:`ldpc_decode_scalar_kernel` with W = ``fresh.shape[0]`` (32 or 64) codewords side by side.
 
     Same arguments and outputs, bit for bit, plus: ``cols_w`` (int32) = ``cols`` x W; ``post``
@@ -689,7 +697,7 @@ def ldpc_decode_vector_kernel(llr, n_sent, scale, clip, head_zeros, row_start, c
                 n_done += 1
         if n_done == 0:
             continue
-        _emit_lanes(post, moved, n_done, lane_cw, llr, n_sent, head_zeros, masks, out_frames, out_flips)
+        _emit_lanes(post, moved, n_done, lane_cw, llr, n_sent, head_zeros, masks, out_words, out_flips)
         n_new = 0
         for t in range(n_done):
             lane = moved[t]
@@ -712,7 +720,7 @@ def ldpc_decode_vector_kernel(llr, n_sent, scale, clip, head_zeros, row_start, c
                              p1, m1, qbuf)
         out_iters[c] = it
         out_weight[c] = w
-        out_flips[c] = _emit(p1, 1, 0, llr[c], n_sent, head_zeros, out_frames[c])
+        out_flips[c] = _emit(p1, 1, 0, llr[c], n_sent, head_zeros, out_words[c])
     if n_cw <= tail_lanes:
         ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, cols, max_iter, alpha16, beta,
-                                  p1, m1, qbuf, qtmp, out_frames, out_iters, out_weight, out_flips)
+                                  p1, m1, qbuf, qtmp, out_words, out_iters, out_weight, out_flips)
