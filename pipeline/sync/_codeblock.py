@@ -66,13 +66,13 @@ class CodeblockDecoder:
        FECF, when present, is checked by the frame parser.
     4. Soft-decoded codes (turbo, LDPC): the CADU's soft codeword is de-randomized by sign flips (the
        same sequence restarted at the marker, CCSDS 131.0-B-2 sec. 9; for C2 it covers the two
-       extension bits too), scaled into channel LLRs
-       ``L = 2 A y / sigma^2`` with the estimate of :class:`MarkerEsn0Estimator` after this CADU's
-       marker (pooled over the last ``esn0_window_cadus`` markers), and decoded in batches of
-       ``batch_cadus`` by the code.  A codeword whose check fails gets the code's
-       ``failure_status`` (``turbo_failed``, ``ldpc_failed``: never ``ok``); the iterations, the Es/N0
-       estimate and (LDPC) the final syndrome weight travel in the :class:`DecodedFrame`.  The scale depends only on the sequence of CADUs and
-       the decoder keeps no state between codewords, so the frames do not depend on the batching;
+       extension bits too), scaled into channel LLRs ``L = 2 A y / sigma^2`` with the estimate of
+       :class:`MarkerEsn0Estimator` after this CADU's marker (pooled over the last
+       ``esn0_window_cadus`` markers), and decoded in batches of ``batch_cadus`` by the code.  A
+       codeword whose check fails gets the code's ``failure_status`` (``turbo_failed``,
+       ``ldpc_failed``: never ``ok``); the iterations, the Es/N0 estimate and (LDPC) the final
+       syndrome weight travel in the :class:`DecodedFrame`.  The scale depends only on the sequence
+       of CADUs and the decoder keeps no state between codewords, so the frames do not depend on the batching;
        :meth:`process_cadus` returns them in CADU order once a batch is complete, :meth:`flush` the
        rest.
 
