@@ -800,24 +800,32 @@ def _validate_block_codes(p: LinkProfile, source: str) -> None:
         _validate_ldpc(p, source)
 
 
+def _block_code_rules(p: LinkProfile, decoder: str, k: int, length_rule: str) -> list[str]:
+    """What a turbo or LDPC link breaks of the rules both share: no convolutional or RS code, one frame of k bits
+    per codeword, no NRZ-M (each broken rule one text, in a fixed order)."""
+    L, C, F = p.link, p.coding, p.frames
+    wrong = []
+    if C.convolutional != "none":
+        wrong.append(f'[coding] convolutional must be "none", not {C.convolutional!r}')
+    if C.reed_solomon:
+        wrong.append(f"[coding] reed_solomon must be 0, not {C.reed_solomon}")
+    if F.length != k // 8:
+        wrong.append(f"[frames] length must be {k // 8} octets ({length_rule}), not {F.length}")
+    if L.line_code == "nrz-m":
+        wrong.append('[link] line_code must be "nrz-l" or "bi-phase-l" (soft NRZ-M decoding would cost the '
+                     f"{decoder} decoder several dB)")
+    return wrong
+
+
 def _validate_turbo(p: LinkProfile, source: str) -> None:
     L, C, F = p.link, p.coding, p.frames
     k = C.turbo_k
     # CCSDS 131.0-B sec. 6.2: one transfer frame per codeword, FECF required (sec. 6.2.2); the turbo code
     # replaces the convolutional and Reed-Solomon codes (sec. 2).  Every rule is checked at once so the one
     # error names everything that is wrong.
-    wrong = []
-    if C.convolutional != "none":
-        wrong.append(f'[coding] convolutional must be "none", not {C.convolutional!r}')
-    if C.reed_solomon:
-        wrong.append(f"[coding] reed_solomon must be 0, not {C.reed_solomon}")
+    wrong = _block_code_rules(p, "turbo", k, "turbo_k / 8")
     if not F.fecf:
         wrong.append("[frames] fecf must be true (CCSDS 131.0-B sec. 6.2.2)")
-    if F.length != k // 8:
-        wrong.append(f"[frames] length must be {k // 8} octets (turbo_k / 8), not {F.length}")
-    if L.line_code == "nrz-m":
-        wrong.append('[link] line_code must be "nrz-l" or "bi-phase-l" (soft NRZ-M decoding would cost the '
-                     "turbo decoder several dB)")
     if L.modulation in ("qpsk", "oqpsk"):
         wrong.append(f"[link] modulation must be bpsk, pcm-pm or pcm-psk-pm, not {L.modulation!r} (the QPSK "
                      "rotation search does not use the turbo markers yet)")
@@ -825,21 +833,11 @@ def _validate_turbo(p: LinkProfile, source: str) -> None:
 
 
 def _validate_ldpc(p: LinkProfile, source: str) -> None:
-    L, C, F = p.link, p.coding, p.frames
+    C = p.coding
     k = C.ldpc_info_bits
     # CCSDS 131.0-B sec. 7.2-7.4: one transfer frame of exactly k bits per codeword (sec. 7.3.1, 7.4.3.1); the LDPC
     # code replaces the convolutional and Reed-Solomon codes; the FECF is optional (sec. 7.2.3).  The 32-bit ASM
     # precedes each codeword, so the uncoded QPSK / OQPSK rotation search (on that ASM) serves LDPC links.
-    wrong = []
-    if C.convolutional != "none":
-        wrong.append(f'[coding] convolutional must be "none", not {C.convolutional!r}')
-    if C.reed_solomon:
-        wrong.append(f"[coding] reed_solomon must be 0, not {C.reed_solomon}")
-    if F.length != k // 8:
-        what = "the C2 information block" if C.ldpc == "c2" else "ldpc_k / 8"
-        wrong.append(f"[frames] length must be {k // 8} octets ({what}), not {F.length}")
-    if L.line_code == "nrz-m":
-        wrong.append('[link] line_code must be "nrz-l" or "bi-phase-l" (soft NRZ-M decoding would cost the '
-                     "LDPC decoder several dB)")
+    wrong = _block_code_rules(p, "LDPC", k, "the C2 information block" if C.ldpc == "c2" else "ldpc_k / 8")
     name = '"c2"' if C.ldpc == "c2" else f'"ar4ja" (rate {C.ldpc_rate}, k = {k})'
     _check(not wrong, source, f"[coding] ldpc = {name} needs: " + "; ".join(wrong))

@@ -10,13 +10,22 @@ restarted per codeword), the BPSK / QPSK waveform from ``tests/demod_signals.py`
 from __future__ import annotations
 
 import hashlib
-import math
+import json
 
 import demod_signals as ds
 import numpy as np
 import pytest
 import third_party_tx as tx
-from test_turbo_end_to_end import SAMPLE_RATE, START, SYMBOL_RATE, frames_of_packets, read_jsonl, write_sigmf
+from test_turbo_end_to_end import (
+    SAMPLE_RATE,
+    START,
+    SYMBOL_RATE,
+    frames_of_packets,
+    read_jsonl,
+    transmitter_frames,
+    write_sigmf,
+    write_symbol_files,
+)
 
 from pipeline import decode
 from pipeline.profile import profile_from_dict
@@ -39,17 +48,10 @@ def ldpc_profile(code: str, *, modulation: str = "bpsk", fecf: bool = False):
 
 
 def packets_and_frames(rng, count: int, length: int, fecf: bool):
-    """Packets of APIDs 100 and 200 cut into ``count`` TM frames of ``length`` octets with OCF."""
-    field = length - 6 - 4 - (2 if fecf else 0)
-    packets, total = [], 0
-    while total < field * count - 80:
-        i = len(packets)
-        p = tx.space_packet(100 + 100 * (i % 2), i // 2, bytes(rng.integers(0, 256, 20 + 37 * (i % 5), dtype=np.uint8)))
-        packets.append(p)
-        total += len(p)
-    frames = tx.tm_frames(packets, scid=77, vcid=1, length=length, ocf=True, fecf=fecf)
+    """Packets of APIDs 100 and 200 cut into ``count`` TM frames of ``length`` octets with OCF; the data field size."""
+    packets, frames = transmitter_frames(rng, count, 8 * length, fecf=fecf, size_step=37, size_cycle=5)
     assert len(frames) == count
-    return packets, frames, field
+    return packets, frames, length - 6 - 4 - (2 if fecf else 0)
 
 
 # ---- the encoders -------------------------------------------------------------------------------------------
@@ -181,8 +183,6 @@ def test_iq_every_packet_and_a_spoiled_codeword_is_ldpc_failed(which, request):
     # the marker Es/N0 estimate against the transmitter's truth (the receiver's implementation loss included)
     est = [f["decoder_esn0_db"] for f in frames[2:]]
     assert abs(np.mean(est) - P["esn0_db"]) < 1.0
-    import json
-
     report = json.loads((out / "report.json").read_text())
     assert report["frames"]["status_counts"].get("ldpc_failed") == 1
 
@@ -196,13 +196,7 @@ def test_c2_qpsk_iq_every_packet(tmp_path_factory):
 
 def test_soft_and_bits_symbol_files(ar4ja_bpsk, tmp_path):
     P = ar4ja_bpsk
-    rng = np.random.default_rng(153)
-    bits = P["bits"]
-    # soft: int8 per channel symbol, + = bit 0 (DEVELOPERS.md, pipeline.recording), at the same Es/N0
-    sigma = 1.0 / math.sqrt(2 * 10 ** (P["esn0_db"] / 10))
-    soft = np.clip(np.rint(20.0 * ((1.0 - 2.0 * bits) + sigma * rng.standard_normal(bits.size))), -127, 127)
-    (tmp_path / "ch.soft").write_bytes(soft.astype(np.int8).tobytes())
-    (tmp_path / "ch.bits").write_bytes(np.packbits(bits).tobytes())
+    write_symbol_files(tmp_path, P["bits"], P["esn0_db"], np.random.default_rng(153), scale=20.0)
     res = decode(tmp_path / "ch.soft", P["prof"], input_kind="soft", start=START)
     # acquisition needs one marker at the search threshold (soft score 4.5; the 32-bit ASM at Es/N0 -0.2 dB scores
     # about 4.6 +- 0.6, FrameSync docstring) and the next at the lock threshold: here the first marker fell short,

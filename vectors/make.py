@@ -16,8 +16,9 @@ This is the one generator and the one format of the project's vectors.  Nothing 
 * ``crccheck`` (PyPI) ``Crc16CcittFalse`` for the FECF;
 * the frame, CLCW, packet and time-code bit layouts (from memory in REFERENCES.md, not confirmed);
 * the LDPC encoder check values of REFERENCES.md sec. 13.1 and 13.2 (first parity octets and SHA-256 of the
-  sent codeword) and the turbo interleaver values of sec. 13.3, transcribed; turbo codewords from a plain
-  shift-register encoder written here from the sec. 6.3 description.
+  sent codeword) and the turbo interleaver values of sec. 13.3, transcribed; turbo codewords from the plain
+  shift-register encoder of the test suite's independent transmitter (``tests/third_party_tx.py``, which
+  shares no code with ``pipeline`` either).
 
 Format: one case per ``.json`` file, parameters in its name.  Fields: ``name``, ``stage`` (the
 pipeline stage under test), ``kind`` (what the runner calls), ``params``, ``input``, ``expected``,
@@ -942,10 +943,6 @@ LDPC_CHECK_VALUES = (
 INFO_TEXT = {"ones": "every information bit 1", "first_bit": "the first information bit 1, the others 0",
              "ramp": "information octets 00 01 02 ... (i mod 256)"}
 
-# Turbo code (CCSDS 131.0-B-2 sec. 6.3): forward vectors G1..G3 (sec. 6.3 h), feedback G0 (from memory, not
-# confirmed), interleaver primes p1..p8 (sec. 6.3 step 2).
-TURBO_G0, TURBO_G1, TURBO_G2, TURBO_G3 = "10011", "11011", "10101", "11111"
-TURBO_PRIMES = (31, 37, 43, 47, 53, 59, 61, 67)
 # pi(1..12) for every k and pi(k): computed from the sec. 6.3 formula in the project's research notes
 TURBO_PI_FIRST = (4, 171, 300, 467, 596, 763, 892, 1059, 1188, 1355, 1484, 1651)
 TURBO_PI_LAST = {1784: 1613, 3568: 3397, 7136: 6965, 8920: 8749}
@@ -956,53 +953,15 @@ SRC_TURBO = ("the turbo code of CCSDS 131.0-B-2 sec. 6.3: forward vectors G1 = 1
              "out0a out1a out1b; 1/4: out0a out2a out3a out1b; 1/6: out0a out1a out2a out3a out1b out3b)")
 
 
-def turbo_pi(k: int) -> list[int]:
-    """pi(s), s = 1..k (1-based), CCSDS 131.0-B-2 sec. 6.3 step 2, one s at a time."""
-    k1, k2 = 8, k // 8
-    out = []
-    for s in range(1, k + 1):
-        m = (s - 1) % 2
-        i = (s - 1) // (2 * k2)
-        j = (s - 1) // 2 - i * k2
-        t = (19 * i + 1) % (k1 // 2)
-        q = t % 8 + 1
-        c = (TURBO_PRIMES[q - 1] * j + 21 * m) % k2
-        out.append(2 * (t + c * k1 // 2 + 1) - m)
-    return out
-
-
-def turbo_encode_ref(info: np.ndarray, rate: str) -> np.ndarray:
-    """Plain shift-register turbo encoder: two 4-cell recursive encoders, tail, multiplexing by rate."""
-    k = len(info)
-    pi = turbo_pi(k)
-    g0 = [int(c) for c in TURBO_G0]
-    fwd = [[int(c) for c in g] for g in (TURBO_G1, TURBO_G2, TURBO_G3)]
-
-    def run(bits):
-        cells = [0, 0, 0, 0]
-        outs = []
-        for t in range(k + 4):
-            fb = sum(g * d for g, d in zip(g0[1:], cells)) % 2
-            u = int(bits[t]) if t < k else fb  # tail: the feedback fed back in empties the register
-            a = (u + fb) % 2
-            outs.append([u] + [(g[0] * a + sum(x * d for x, d in zip(g[1:], cells))) % 2 for g in fwd])
-            cells = [a] + cells[:3]
-        return outs
-
-    oa = run(info)
-    ob = run([info[p - 1] for p in pi])
-    bits = []
-    for t in range(k + 4):
-        a, b = oa[t], ob[t]
-        if rate == "1/2":
-            bits += [a[0], a[1]] if t % 2 == 0 else [a[0], b[1]]
-        elif rate == "1/3":
-            bits += [a[0], a[1], b[1]]
-        elif rate == "1/4":
-            bits += [a[0], a[2], a[3], b[1]]
-        else:
-            bits += [a[0], a[1], a[2], a[3], b[1], b[3]]
-    return np.array(bits, dtype=np.uint8)
+def _independent_transmitter():
+    """The test suite's independent transmitter (tests/third_party_tx.py: plain shift registers and the interleaver
+    formula typed in from the standard, no pipeline code): the one outside reference for the turbo encoder."""
+    sys.path.insert(0, str(ROOT.parent / "tests"))
+    try:
+        import third_party_tx
+    finally:
+        sys.path.pop(0)
+    return third_party_tx
 
 
 def block_code_cases():
@@ -1014,24 +973,26 @@ def block_code_cases():
                     source=f"{src}; information: {INFO_TEXT[what]}; the first 16 octets of the sent parity and the "
                            "SHA-256 of the sent codeword octets, computed (numpy, GF(2)) from those tables in the "
                            "project's research notes and checked there against H")
+    tx = _independent_transmitter()
     for k, last in TURBO_PI_LAST.items():
-        pi = turbo_pi(k)
+        pi = tx.interleaver_from_formula(k)
         assert tuple(pi[:12]) == TURBO_PI_FIRST and pi[-1] == last and sorted(pi) == list(range(1, k + 1))
         yield _case(f"turbo_interleaver_k{k}", "fec", "turbo_interleaver", params={"k": k},
                     expected={"first_1_based": list(TURBO_PI_FIRST), "last_1_based": last},
                     source="the interleaver formula of CCSDS 131.0-B-2 sec. 6.3 step 2 (k1 = 8, k2 = k/8, primes "
                            "31 37 43 47 53 59 61 67), s and pi(s) counted from 1, encoder b reading bit pi(s) at "
                            "time s: pi(1..12) and pi(k) computed from it in the project's research notes (and "
-                           "recomputed one index at a time by vectors/make.py); a permutation of 1..k")
+                           "recomputed one index at a time by the independent test transmitter); a permutation of "
+                           "1..k")
     seed = 6300
     info = np.unpackbits(np.random.default_rng(seed).integers(0, 256, 223, dtype=np.uint8))
     for rate in ("1/2", "1/3", "1/4", "1/6"):
-        cw = turbo_encode_ref(info, rate)
+        cw, _ = tx.reference_encode(info, rate)
         yield _case(f"turbo_encode_r{rate.replace('/', '')}_k1784", "fec", "turbo_encode", params={"rate": rate},
                     inp={"hex": np.packbits(info).tobytes().hex()},
                     expected={"hex": np.packbits(cw).tobytes().hex(), "n_bits": int(cw.size)},
-                    source=f"computed by a plain shift-register encoder in vectors/make.py from {SRC_TURBO}; random "
-                           "information of 223 octets", seed=seed)
+                    source=f"computed by a plain shift-register encoder (the test suite's independent transmitter) "
+                           f"from {SRC_TURBO}; random information of 223 octets", seed=seed)
 
 
 def all_cases():
