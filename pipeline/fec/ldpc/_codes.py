@@ -65,6 +65,8 @@ _C2_EXTENSION = 2
 # 511-blocks flagged here (block 0 first): ../shared/REFERENCES.md sec. 13.1, "expurgation, seen as checks"
 # (principle: CCSDS 130.1-G-2 sec. 8; the vectors computed there, the only ones orthogonal to the subcode).
 _C2_EXPURGATION_BLOCKS = ("0000110101111101", "0000011011100110")
+_C2_EXPURGATION_FLAGS = np.array([[int(f) for f in row] for row in _C2_EXPURGATION_BLOCKS], np.int32).T
+_BYTE_PARITY = np.array([bin(v).count("1") & 1 for v in range(256)], np.uint8)
 
 # AR4JA theta_k and phi_k(j, M), k = 1..26 (CCSDS 131.0-B-5 Tables 7-3, 7-4 as carried by a
 # general-purpose LDPC design library; 60 phi values confirmed in 131.0-B-2 p. 7-10: see
@@ -328,7 +330,8 @@ def expurgation_failures(code: LdpcCode, words: np.ndarray) -> np.ndarray:
     code is its (8176,7154) subcode, which two more checks select, each constant on the 511-blocks:
     the sum of the bits of the blocks flagged ``0000110101111101`` and of those flagged
     ``0000011011100110`` must be even.  A word with a zero syndrome on H may still fail them (a word
-    of the basic code outside the subcode).  Cost: one pass over the unpacked bits.
+    of the basic code outside the subcode).  Cost: one pass over the packed octets
+    (:func:`~pipeline.fec.ldpc._kernels.block_parity_kernel`), about 1 us per codeword.
 
     References
     ----------
@@ -345,16 +348,15 @@ def expurgation_failures(code: LdpcCode, words: np.ndarray) -> np.ndarray:
     >>> int(expurgation_failures(c2, word)[0])
     1
     """
-    words = np.atleast_2d(np.asarray(words, dtype=np.uint8))
+    from pipeline.fec.ldpc._kernels import block_parity_kernel
+
+    words = np.ascontiguousarray(np.atleast_2d(np.asarray(words, dtype=np.uint8)))
     if code.family != "c2":
         return np.zeros(words.shape[0], np.int32)
     b = code.circulant
-    bits = np.unpackbits(words, axis=1)[:, :code.sent_vars]
-    blocks = np.zeros((words.shape[0], code.n_var), np.uint8)
-    blocks[:, code.head_zeros:] = bits
-    parity = blocks.reshape(words.shape[0], -1, b).sum(axis=2, dtype=np.int64) & 1
-    flags = np.array([[int(f) for f in row] for row in _C2_EXPURGATION_BLOCKS], np.int64).T
-    return ((parity @ flags) & 1).sum(axis=1).astype(np.int32)
+    parity = np.zeros((words.shape[0], code.n_var // b), np.uint8)
+    block_parity_kernel(words, code.sent_vars, code.head_zeros, b, _BYTE_PARITY, parity)
+    return ((parity.astype(np.int32) @ _C2_EXPURGATION_FLAGS) & 1).sum(axis=1).astype(np.int32)
 
 
 def ar4ja_permutation(index: int, m: int) -> np.ndarray:

@@ -22,6 +22,7 @@ __all__ = [
     "ldpc_syndrome_kernel",
     "ldpc_decode_scalar_kernel",
     "ldpc_decode_vector_kernel",
+    "block_parity_kernel",
     "LDPC_LANES",
     "LDPC_MAX_ROW_WEIGHT",
 ]
@@ -30,6 +31,48 @@ __all__ = [
 LDPC_LANES = (32, 64)
 #: Longest row of H the vector kernel accepts (its per-row buffer; C2 has 32, AR4JA at most 18).
 LDPC_MAX_ROW_WEIGHT = 64
+
+
+# ---- block parities of packed codewords (C2 expurgation checks) ------------------------------------
+
+
+@njit(cache=True, nogil=True)
+def block_parity_kernel(words, n_bits, offset, block_bits, byte_parity, parity):
+    """``parity[c, b]`` ^= the parity of the bits of block ``b`` in codeword ``c``.
+
+    Bit ``i`` of ``words[c]`` (uint8, packed MSB first; the first ``n_bits`` count) is variable
+    ``offset + i``, which lies in block ``(offset + i) // block_bits``.  ``byte_parity`` (uint8, 256) is
+    the parity of each octet value; ``parity`` (uint8, (codewords, blocks), zeroed by the caller) is
+    the output.  Octets inside one block cost one table look-up (the block boundary is followed
+    incrementally, no division), the few that straddle a boundary (or end the word) are taken bit
+    by bit.  Cost: one pass over the octets, about 1 ns each.
+    """
+    n_oct = min(words.shape[1], (n_bits + 7) // 8)
+    for c in range(words.shape[0]):
+        b = offset // block_bits
+        edge = (b + 1) * block_bits  # first variable of the next block
+        acc = 0
+        for j in range(n_oct):
+            v0 = offset + 8 * j
+            last = min(8, n_bits - 8 * j)
+            byte = int(words[c, j])
+            if last == 8 and v0 + 8 <= edge:
+                acc ^= int(byte_parity[byte])
+                if v0 + 8 == edge:
+                    parity[c, b] ^= acc
+                    acc = 0
+                    b += 1
+                    edge += block_bits
+            else:
+                for t in range(last):
+                    if v0 + t >= edge:
+                        parity[c, b] ^= acc
+                        acc = 0
+                        b += 1
+                        edge += block_bits
+                    acc ^= (byte >> (7 - t)) & 1
+        if acc:  # (b may be one past the last block when the word ends on a block boundary; acc is 0 then)
+            parity[c, b] ^= acc
 
 
 # ---- GF(2) elimination --------------------------------------------------------------------------
@@ -608,19 +651,26 @@ def _emit_lanes(post, lanes_out, n_out, lane_cw, llr, n_sent, head_zeros, masks,
     of all lanes are gathered into one word per variable (``masks``), then read per lane."""
     _lanes_signs(post, masks)
     n_oct = out_words.shape[1]
+    n_full = min(n_oct, n_sent // 8)  # octets of 8 sent bits; a last partial one is padded with zeros
     one = np.uint64(1)
-    zero = np.uint64(0)
     for t in range(n_out):
         lane = np.uint64(lanes_out[t])
         c = lane_cw[lanes_out[t]]
         word = out_words[c]
-        for j in range(n_oct):
+        for j in range(n_full):
             acc = np.uint64(0)
             base = head_zeros + 8 * j
             for b in range(8):
-                bit = (masks[base + b] >> lane) & one if 8 * j + b < n_sent else zero
-                acc = (acc << one) | bit
+                acc = (acc << one) | ((masks[base + b] >> lane) & one)
             word[j] = np.uint8(acc)
+        if n_full < n_oct and n_sent % 8:
+            acc = np.uint64(0)
+            base = head_zeros + 8 * n_full
+            for b in range(8):
+                acc = acc << one
+                if b < n_sent % 8:
+                    acc = acc | ((masks[base + b] >> lane) & one)
+            word[n_full] = np.uint8(acc)
         row = llr[c]
         flips = 0
         for i in range(n_sent):
