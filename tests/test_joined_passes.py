@@ -42,5 +42,5 @@ def test_sixteen_joined_repetitions_give_sixteen_times_the_packets(tmp_path):
     assert got == packets * 16  # every packet of every repetition, in order
     ok = [f for f in res.frames_list if f["status"] == "ok"]
     assert len(ok) == 16 * len(frames)
-    positions = [f["position"] for f in res.frames_list]
+    positions = [f["sample_position"] for f in res.frames_list]
     assert positions == sorted(positions)  # frames in stream order: withdrawn flywheel CADUs never overlap

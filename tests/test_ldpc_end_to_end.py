@@ -177,7 +177,7 @@ def test_iq_every_packet_and_a_spoiled_codeword_is_ldpc_failed(which, request):
     check_pass(P, frames, [bytes.fromhex(g["hex"]) for g in read_jsonl(out / "packets.jsonl")])
     # the first channel symbol of each ASM (tests/demod_signals.py pulse peaks): unbiased, each within a quarter
     # symbol (timing jitter at Es/N0 -0.2 dB is about 0.06 symbol rms)
-    err = np.array([f["position"] - P["wave"].peak_position[P["lead"] + j * (32 + P["n"])]
+    err = np.array([f["sample_position"] - P["wave"].peak_position[P["lead"] + j * (32 + P["n"])]
                     for j, f in enumerate(frames)])
     assert abs(err.mean()) < 0.15 and np.abs(err).max() < 0.25 * SAMPLE_RATE / SYMBOL_RATE
     # the marker Es/N0 estimate against the transmitter's truth (the receiver's implementation loss included)
@@ -201,7 +201,7 @@ def test_soft_and_bits_symbol_files(ar4ja_bpsk, tmp_path):
     # acquisition needs one marker at the search threshold (soft score 4.5; the 32-bit ASM at Es/N0 -0.2 dB scores
     # about 4.6 +- 0.6, FrameSync docstring) and the next at the lock threshold: here the first marker fell short,
     # so the pass starts at frame 1; everything after it is decoded
-    first = round((res.frames_list[0]["position"] - P["lead"]) / (32 + P["n"]))
+    first = round((res.frames_list[0]["sample_position"] - P["lead"]) / (32 + P["n"]))
     assert first in (0, 1)
     check_pass(P, res.frames_list, [bytes.fromhex(g["hex"]) for g in res.packets_list], first)
     # hard channel bits at Es/N0 -0.2 dB would be 8 % wrong: here the file holds the sent bits, which decode at
