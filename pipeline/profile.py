@@ -81,6 +81,10 @@ _TURBO_K = (1784, 3568, 7136, 8920)
 _TURBO_TAIL_BITS = 4  # termination bit times per component encoder (131.0-B sec. 6.3)
 _LDPC_RATES = ("1/2", "2/3", "4/5")
 _LDPC_K = (1024, 4096, 16384)
+# CCSDS 131.0-B-2 sec. 7.3.1: C2 is (8160, 7136); sec. 7.4.3.2 note and Table 7-5: AR4JA rate K/(K+2) sends
+# M (K + 2) bits for k = M K information bits.
+_C2_N, _C2_K = 8160, 7136
+_AR4JA_KK = {"1/2": 2, "2/3": 4, "4/5": 8}
 
 #: ``[receiver] timing_loop_bandwidth`` (B_L T) the timing loops support.  The loop gains come from the
 #: continuous-time approximation (B_L T << 1); measured on the demo link at Eb/N0 = 40 dB, 0.08 still decoded
@@ -127,9 +131,9 @@ class CodingSection:
     turbo: TurboRate = "none"  # CCSDS 131.0-B sec. 6 turbo code (nominal rate), "none" = no turbo code
     turbo_k: int = 8920  # turbo information block in bits: 1784 | 3568 | 7136 | 8920
     turbo_max_iterations: int = 10
-    ldpc: LdpcCode = "none"  # reserved for the LDPC codes of 131.0-B sec. 7 (issue 15), not decoded yet
-    ldpc_rate: str = "1/2"
-    ldpc_k: int = 1024
+    ldpc: LdpcCode = "none"  # CCSDS 131.0-B sec. 7 LDPC code: C2 (8160,7136) or the AR4JA family, "none" = none
+    ldpc_rate: str = "1/2"  # AR4JA rate: 1/2 | 2/3 | 4/5 (C2 takes neither rate nor k)
+    ldpc_k: int = 1024  # AR4JA information block in bits: 1024 | 4096 | 16384
     ldpc_max_iterations: int = 50
 
     @property
@@ -156,6 +160,29 @@ class CodingSection:
         if self.turbo == "none":
             return 0
         return int(round((self.turbo_k + _TURBO_TAIL_BITS) / TURBO_CODE_RATES[self.turbo]))
+
+    @property
+    def ldpc_info_bits(self) -> int:
+        """Information bits of one LDPC codeword (C2: 7136; AR4JA: ``ldpc_k``), 0 without an LDPC code."""
+        if self.ldpc == "none":
+            return 0
+        return _C2_K if self.ldpc == "c2" else self.ldpc_k
+
+    @property
+    def ldpc_codeword_bits(self) -> int:
+        """Channel bits of one LDPC codeword: C2 8160; AR4JA ``k (K + 2) / K`` for rate K/(K+2) (the punctured
+        columns not sent), 0 without an LDPC code."""
+        if self.ldpc == "none":
+            return 0
+        if self.ldpc == "c2":
+            return _C2_N
+        kk = _AR4JA_KK[self.ldpc_rate]
+        return self.ldpc_k * (kk + 2) // kk
+
+    @property
+    def block_code_info_bits(self) -> int:
+        """Information bits per codeword of a soft-decoded block code (turbo ``turbo_k``, LDPC), 0 for others."""
+        return self.turbo_k if self.turbo != "none" else self.ldpc_info_bits
 
     @property
     def rs_k(self) -> int:
@@ -336,9 +363,12 @@ class LinkProfile:
 
     @property
     def codeblock_bits(self) -> int:
-        """Bits between two sync markers: the turbo codeword (``(k + 4) / r``), else the frame plus RS parity."""
+        """Bits between two sync markers: the turbo codeword (``(k + 4) / r``), the LDPC codeword (C2 8160, AR4JA
+        ``n``), else the frame plus RS parity."""
         if self.coding.turbo != "none":
             return self.coding.turbo_codeword_bits
+        if self.coding.ldpc != "none":
+            return self.coding.ldpc_codeword_bits
         return 8 * (self.frames.length + self.rs_parity_bytes)
 
     @property
@@ -349,7 +379,8 @@ class LinkProfile:
 
     @property
     def marker_bits(self) -> int:
-        """Bits of the attached sync marker: the turbo rate's own marker (64 .. 192 bits), else 32."""
+        """Bits of the attached sync marker: the turbo rate's own marker (64 .. 192 bits), else 32 (the ASM, also in
+        front of LDPC codewords)."""
         if self.coding.turbo != "none":
             return TURBO_MARKER_BITS[self.coding.turbo]
         return 32
@@ -376,10 +407,10 @@ class LinkProfile:
 
     @property
     def code_rate(self) -> float:
-        """Overall information rate per channel bit (convolutional x RS, or turbo k / n with the tail), ASM
-        excluded."""
-        if self.coding.turbo != "none":
-            return self.coding.turbo_k / self.coding.turbo_codeword_bits
+        """Overall information rate per channel bit (convolutional x RS, turbo k / n with the tail, LDPC k / n),
+        ASM excluded."""
+        if self.coding.turbo != "none" or self.coding.ldpc != "none":
+            return self.coding.block_code_info_bits / self.codeblock_bits
         rs = (self.frames.length / self.codeblock_bytes) if self.coding.reed_solomon else 1.0
         return self.coding.conv_rate * rs
 
@@ -747,8 +778,8 @@ def _validate_clock(c: ClockSection, frame_kind: str, source: str) -> None:
                f"[clock] sampled_every must divide 16777216 (the 24-bit virtual-channel frame count), "
                f"not {c.sampled_every}")
 def _validate_block_codes(p: LinkProfile, source: str) -> None:
-    """The turbo keys (issue 16) and the reserved LDPC keys (issue 15): values, then what they exclude."""
-    L, C, F = p.link, p.coding, p.frames
+    """The turbo keys (issue 16) and the LDPC keys (issue 15): values, then what they exclude."""
+    C = p.coding
     _choice(C.turbo, TurboRate, "[coding] turbo", source)
     _check(C.turbo_k in _TURBO_K, source,
            f"[coding] turbo_k must be one of {' | '.join(map(str, _TURBO_K))}, not {C.turbo_k}")
@@ -761,27 +792,52 @@ def _validate_block_codes(p: LinkProfile, source: str) -> None:
            f"[coding] ldpc_k must be one of {' | '.join(map(str, _LDPC_K))}, not {C.ldpc_k}")
     _check(1 <= C.ldpc_max_iterations <= 1000, source,
            f"[coding] ldpc_max_iterations must be 1..1000, not {C.ldpc_max_iterations}")
-    _check(C.ldpc == "none", source,
-           f"[coding] ldpc = {C.ldpc!r}: LDPC links cannot be decoded yet (issue 15); the key is reserved")
-    if C.turbo == "none":
-        return
-    k = C.turbo_k
-    # CCSDS 131.0-B sec. 6.2: one transfer frame per codeword, FECF required (sec. 6.2.2); the turbo code
-    # replaces the convolutional and Reed-Solomon codes (sec. 2).  Every rule is checked at once so the one
-    # error names everything that is wrong.
+    _check(C.turbo == "none" or C.ldpc == "none", source,
+           f'[coding] turbo = "{C.turbo}" and ldpc = "{C.ldpc}": a link has one of them, set the other to "none"')
+    if C.turbo != "none":
+        _validate_turbo(p, source)
+    elif C.ldpc != "none":
+        _validate_ldpc(p, source)
+
+
+def _block_code_rules(p: LinkProfile, decoder: str, k: int, length_rule: str) -> list[str]:
+    """What a turbo or LDPC link breaks of the rules both share: no convolutional or RS code, one frame of k bits
+    per codeword, no NRZ-M (each broken rule one text, in a fixed order)."""
+    L, C, F = p.link, p.coding, p.frames
     wrong = []
     if C.convolutional != "none":
         wrong.append(f'[coding] convolutional must be "none", not {C.convolutional!r}')
     if C.reed_solomon:
         wrong.append(f"[coding] reed_solomon must be 0, not {C.reed_solomon}")
-    if not F.fecf:
-        wrong.append("[frames] fecf must be true (CCSDS 131.0-B sec. 6.2.2)")
     if F.length != k // 8:
-        wrong.append(f"[frames] length must be {k // 8} octets (turbo_k / 8), not {F.length}")
+        wrong.append(f"[frames] length must be {k // 8} octets ({length_rule}), not {F.length}")
     if L.line_code == "nrz-m":
         wrong.append('[link] line_code must be "nrz-l" or "bi-phase-l" (soft NRZ-M decoding would cost the '
-                     "turbo decoder several dB)")
+                     f"{decoder} decoder several dB)")
+    return wrong
+
+
+def _validate_turbo(p: LinkProfile, source: str) -> None:
+    L, C, F = p.link, p.coding, p.frames
+    k = C.turbo_k
+    # CCSDS 131.0-B sec. 6.2: one transfer frame per codeword, FECF required (sec. 6.2.2); the turbo code
+    # replaces the convolutional and Reed-Solomon codes (sec. 2).  Every rule is checked at once so the one
+    # error names everything that is wrong.
+    wrong = _block_code_rules(p, "turbo", k, "turbo_k / 8")
+    if not F.fecf:
+        wrong.append("[frames] fecf must be true (CCSDS 131.0-B sec. 6.2.2)")
     if L.modulation in ("qpsk", "oqpsk"):
         wrong.append(f"[link] modulation must be bpsk, pcm-pm or pcm-psk-pm, not {L.modulation!r} (the QPSK "
                      "rotation search does not use the turbo markers yet)")
     _check(not wrong, source, f'[coding] turbo = "{C.turbo}" (k = {k}) needs: ' + "; ".join(wrong))
+
+
+def _validate_ldpc(p: LinkProfile, source: str) -> None:
+    C = p.coding
+    k = C.ldpc_info_bits
+    # CCSDS 131.0-B sec. 7.2-7.4: one transfer frame of exactly k bits per codeword (sec. 7.3.1, 7.4.3.1); the LDPC
+    # code replaces the convolutional and Reed-Solomon codes; the FECF is optional (sec. 7.2.3).  The 32-bit ASM
+    # precedes each codeword, so the uncoded QPSK / OQPSK rotation search (on that ASM) serves LDPC links.
+    wrong = _block_code_rules(p, "LDPC", k, "the C2 information block" if C.ldpc == "c2" else "ldpc_k / 8")
+    name = '"c2"' if C.ldpc == "c2" else f'"ar4ja" (rate {C.ldpc_rate}, k = {k})'
+    _check(not wrong, source, f"[coding] ldpc = {name} needs: " + "; ".join(wrong))

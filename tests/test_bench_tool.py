@@ -17,6 +17,7 @@ from pipeline.fec import rs_decode
 from pipeline.tools import _bench
 
 REQUIRED = ("viterbi_mbps", "rs_clean_mbps", "rs_16err_mbps", "turbo_r12_k8920_mbps", "turbo_r12_k8920_scalar_mbps",
+            "ldpc_c2_mbps", "ldpc_c2_scalar_mbps", "ldpc_ar4ja_r12_k1024_mbps", "ldpc_ar4ja_r12_k1024_scalar_mbps",
             "frontend_msps", "end_to_end_msps", "end_to_end_realtime_factor", "peak_rss_mb", "cpu", "warm_start_s")
 
 

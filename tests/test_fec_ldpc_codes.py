@@ -264,3 +264,20 @@ def test_encoder_argument_errors():
     # two frames at once: one row per codeword
     assert ldpc_encode(code, np.zeros((2, 128), np.uint8)).shape == (2, 160)
 
+
+
+@pytest.mark.kat
+def test_block_parity_kernel_equals_the_obvious_sum():
+    # the per-block parity of packed words (C2 expurgation checks) against unpack-and-sum, odd offsets and lengths
+    from pipeline.fec.ldpc._codes import _BYTE_PARITY
+    from pipeline.fec.ldpc._kernels import block_parity_kernel
+
+    rng = np.random.default_rng(81)
+    for n_bits, offset, block in ((8158, 18, 511), (101, 3, 7), (64, 0, 8)):
+        words = rng.integers(0, 256, (5, (n_bits + 7) // 8 + 1), dtype=np.uint8)
+        n_blocks = (offset + n_bits + block - 1) // block
+        got = np.zeros((5, n_blocks), np.uint8)
+        block_parity_kernel(words, n_bits, offset, block, _BYTE_PARITY, got)
+        bits = np.zeros((5, n_blocks * block), np.int64)
+        bits[:, offset:offset + n_bits] = np.unpackbits(words, axis=1)[:, :n_bits]
+        assert np.array_equal(got, bits.reshape(5, n_blocks, block).sum(axis=2) % 2)

@@ -31,7 +31,7 @@ def awgn(code, ebn0_db, n_cw, seed):
 
 
 def same_results(a, b):
-    for field in ("frames", "ok", "iterations", "syndrome_weight", "corrected_bits"):
+    for field in ("frames", "ok", "iterations", "syndrome_weight", "corrected_bits", "codewords"):
         assert np.array_equal(getattr(a, field), getattr(b, field)), field
 
 
@@ -241,6 +241,36 @@ def test_c2_extension_bits_are_ignored():
     a = ldpc_decode(C2, llr)
     llr[:, -2:] = -50.0
     same_results(a, ldpc_decode(C2, llr))
+
+
+def test_decoded_codewords_are_the_sent_words():
+    # the decided sent bits (information first, C2's two extension zeros last) equal the encoder's codewords
+    for code, ebn0 in ((C2, 4.3), (R12, 2.5)):
+        info, word, llr = awgn(code, ebn0, 6, seed=71)
+        res = ldpc_decode(code, llr)
+        assert res.ok.all() and res.codewords.shape == (6, code.n // 8)
+        assert np.array_equal(np.unpackbits(res.codewords, axis=1), word)
+        assert np.array_equal(res.frames, res.codewords[:, :code.frame_octets])
+
+
+def test_c2_word_of_the_basic_code_outside_the_subcode_is_failed():
+    # CCSDS 131.0-B-2 sec. 7.3.4: the sent code is the (8176,7154) subcode of the basic (8176,7156) code whose
+    # H (rank 1020) the decoder iterates on.  The basic code's words with zero information part are the null
+    # space of H's parity columns (computed with galois, PyPI); the three nonzero ones satisfy H but not the
+    # expurgation checks (../shared/REFERENCES.md sec. 13.1, computed there), so they must be failed codewords.
+    import galois
+
+    h = parity_check(C2).to_dense()
+    null = np.asarray(galois.GF2(np.ascontiguousarray(h[:, 7154:])).null_space(), dtype=np.uint8)
+    assert null.shape == (2, 1022)
+    words = np.zeros((3, C2.n_var), np.uint8)
+    words[:, 7154:] = [null[0], null[1], null[0] ^ null[1]]
+    assert not (h @ words.T % 2).any()
+    sent = np.concatenate([words[:, 18:], np.zeros((3, 2), np.uint8)], axis=1)
+    for kernel in ("vector", "scalar"):
+        res = LdpcDecoder(code=C2, kernel=kernel).decode(np.where(sent == 0, 5.0, -5.0).astype(np.float32))
+        assert not res.ok.any() and (res.iterations == 1).all()
+        assert set(res.syndrome_weight.tolist()) <= {1, 2}
 
 
 @pytest.mark.kat

@@ -306,12 +306,79 @@ def test_turbo_rules_are_one_error(over, fragments):
     ({"turbo_max_iterations": 0}, "turbo_max_iterations must be 1..100, not 0"),
     ({"ldpc_rate": "3/4"}, "ldpc_rate must be one of 1/2 | 2/3 | 4/5"),
     ({"ldpc_k": 2048}, "ldpc_k must be one of 1024 | 4096 | 16384"),
-    ({"ldpc": "c2"}, "LDPC links cannot be decoded yet"),
+    ({"ldpc": "ldpc2"}, "ldpc must be one of none | c2 | ar4ja"),
+    ({"ldpc_max_iterations": 0}, "ldpc_max_iterations must be 1..1000, not 0"),
+    ({"ldpc": "c2", "turbo": "1/2"}, 'turbo = "1/2" and ldpc = "c2": a link has one of them'),
 ])
 def test_turbo_and_reserved_ldpc_values(coding, fragment):
     with pytest.raises(ProfileError, match=None) as info:
         profile_from_dict({"link": {}, "coding": coding, "frames": {}}, source="t.toml")
     assert fragment in str(info.value)
+
+
+# ---- LDPC keys (issue 15) --------------------------------------------------------------------------------
+def _ldpc(code="c2", rate="1/2", k=1024, **over):
+    coding = {"convolutional": "none", "reed_solomon": 0, "ldpc": code, "ldpc_rate": rate, "ldpc_k": k}
+    coding.update(over.pop("coding", {}))
+    frames = {"length": 892 if code == "c2" else k // 8}
+    frames.update(over.pop("frames", {}))
+    return profile_from_dict({"link": over.pop("link", {}), "coding": coding, "frames": frames, **over},
+                             source="t.toml")
+
+
+@pytest.mark.parametrize("code, rate, k, n", [
+    # CCSDS 131.0-B-2 sec. 7.3.1 (C2 (8160,7136)) and Table 7-5 (AR4JA n for each k and rate), as in
+    # ../shared/REFERENCES.md sec. 13.1 and 13.2
+    ("c2", "1/2", 1024, 8160), ("ar4ja", "1/2", 1024, 2048), ("ar4ja", "2/3", 1024, 1536),
+    ("ar4ja", "4/5", 1024, 1280), ("ar4ja", "1/2", 4096, 8192), ("ar4ja", "2/3", 4096, 6144),
+    ("ar4ja", "4/5", 4096, 5120), ("ar4ja", "1/2", 16384, 32768), ("ar4ja", "2/3", 16384, 24576),
+    ("ar4ja", "4/5", 16384, 20480)])
+def test_ldpc_derived_sizes(code, rate, k, n):
+    p = _ldpc(code, rate, k)
+    info = 7136 if code == "c2" else k
+    assert p.codeblock_bits == n and p.codeblock_bytes == n // 8
+    assert p.marker_bits == 32 and p.cadu_bits == 32 + n  # the 32-bit ASM (REFERENCES.md 13.4, from memory)
+    assert p.code_rate == pytest.approx(info / n)
+    assert p.frames.length == info // 8  # 892 for C2; 128, 512, 2048 (issue 15)
+    # ../shared/DESIGN.md: Es/N0 = Eb/N0 + 10 log10(code rate x bits per symbol)
+    assert p.esn0_from_ebn0(2.0) == pytest.approx(2.0 + 10 * math.log10(info / n))
+    assert p.coding.ldpc_max_iterations == 50  # issue 15's default
+
+
+@pytest.mark.parametrize("code, over, fragments", [
+    ("c2", {"coding": {"convolutional": "1/2"}}, ['convolutional must be "none"']),
+    ("c2", {"coding": {"reed_solomon": 16}}, ["reed_solomon must be 0"]),
+    ("c2", {"frames": {"length": 1115}}, ["length must be 892 octets"]),
+    ("ar4ja", {"frames": {"length": 892}}, ["length must be 128 octets (ldpc_k / 8)"]),
+    ("ar4ja", {"coding": {"convolutional": "1/2", "reed_solomon": 8}, "link": {"line_code": "nrz-m"}},
+     ['convolutional must be "none"', "reed_solomon must be 0", "line_code must be"]),
+])
+def test_ldpc_rules_are_one_error(code, over, fragments):
+    with pytest.raises(ProfileError) as info:
+        _ldpc(code, **over)
+    msg = str(info.value)
+    head = '[coding] ldpc = "c2" needs:' if code == "c2" else '[coding] ldpc = "ar4ja" (rate 1/2, k = 1024) needs:'
+    assert msg.startswith("t.toml: " + head) and "\n" not in msg
+    for f in fragments:
+        assert f in msg
+
+
+def test_ldpc_links_on_qpsk_and_with_fecf_are_accepted():
+    # the ASM precedes LDPC codewords, so the uncoded QPSK rotation search serves them; FECF optional (131.0-B
+    # sec. 7.2.3)
+    assert _ldpc("c2", link={"modulation": "qpsk"}).link.modulation == "qpsk"
+    assert _ldpc("ar4ja", frames={"fecf": True}).frames.fecf
+
+
+def test_ldpc_sizes_agree_with_the_codec():
+    # the profile derives sizes by arithmetic (it imports nothing of ours); the codec's LdpcCode is the other home
+    from pipeline.fec.ldpc import ldpc_code
+
+    for family, rate, k in [("c2", "1/2", 1024)] + [("ar4ja", r, k) for r in ("1/2", "2/3", "4/5")
+                                                    for k in (1024, 4096, 16384)]:
+        p = _ldpc(family, rate, k)
+        code = ldpc_code(family) if family == "c2" else ldpc_code(family, rate=rate, k=k)
+        assert (p.codeblock_bits, p.frames.length, p.coding.ldpc_info_bits) == (code.n, code.frame_octets, code.k)
 
 
 def test_turbo_sizes_agree_with_the_codec():

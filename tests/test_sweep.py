@@ -201,3 +201,30 @@ def test_turbo_profile_code_stage_and_normal_approximation(tmp_path):
     assert doc["implementation_loss"]["curves"][0]["theory_db"] == pytest.approx(
         _theory.normal_approximation_ebn0_db(3576, 1784, 1e-3))
     assert "normal_approx_fer" in doc["theory"]
+
+
+@pytest.mark.parametrize("coding, frame, n, k, low_db, high_db", [
+    ({"ldpc": "ar4ja", "ldpc_rate": "1/2", "ldpc_k": 1024}, 128, 2048, 1024, 1.0, 2.4),
+    ({"ldpc": "c2"}, 892, 8160, 7136, 3.3, 4.3),
+])
+def test_ldpc_profile_code_stage_and_normal_approximation(tmp_path, coding, frame, n, k, low_db, high_db):
+    # issue 15: sweep of an LDPC profile beside the normal approximation for its (n, k) (REFERENCES.md 13.5: the
+    # code's FER 1e-3 target 1.8 dB (AR4JA r=1/2 k=1024) and 3.9 dB (C2) lie between the two points)
+    from pipeline.profile import profile_from_dict
+    from pipeline.tools import _sweep, _theory
+
+    prof = profile_from_dict({"link": {}, "coding": {"convolutional": "none", "reed_solomon": 0, **coding},
+                              "frames": {"length": frame}})
+    points = _sweep.sweep(prof, [low_db, high_db], frames=128, errors=20, workers=1)
+    low, high = points
+    assert low.fer > 0.1 and high.frame_errors == 0
+    assert low.decoder_failures >= low.frame_errors - low.undetected_frame_errors
+    lo, hi = low.extra["fer_ci95"]
+    assert lo < low.fer < hi
+    assert high.extra["fer_ci95"] == [0.0, pytest.approx(1 - 0.025 ** (1 / high.frames))]  # Clopper-Pearson, e = 0
+    assert 1 <= high.extra["mean_iterations"] < low.extra["mean_iterations"] <= 50
+    doc = _sweep.write_outputs(tmp_path, prof, points, seed=1, frames=128, errors=20)
+    (cv,) = doc["implementation_loss"]["curves"]
+    assert cv["theory"] == "normal_approx_fer" and cv["theory_db"] == pytest.approx(
+        _theory.normal_approximation_ebn0_db(n, k, 1e-3))
+    assert doc["coding"]["ldpc"] == coding["ldpc"] and "normal_approx_fer" in doc["theory"]

@@ -71,7 +71,11 @@ def reference_sync(bits, frame_bits, marker, e, check_frames, flywheel, slip):
         b = bits[q + m: q + L].copy()
         return np.packbits(b ^ 1 if inverted else b).tobytes()
 
-    out = []
+    out, held = [], []  # flywheel CADUs are held until a marker decides about them
+
+    def done():
+        return out + held
+
     s = 0
     while True:
         c = None
@@ -81,21 +85,24 @@ def reference_sync(bits, frame_bits, marker, e, check_frames, flywheel, slip):
                 c = q
                 break
         if c is None:
-            return out
+            return done()
         ok = True
         for k in range(1, check_frames + 1):
             if c + k * L + m > n:
-                return out
+                return done()
             if errs(c + k * L)[0] > e:
                 ok = False
                 break
         if not ok:
             s = c + 1
             continue
-        p, misses, inverted, last = c, 0, inv, c - 1
+        # locked at c: the held flywheel CADUs that overlap the frame at c were on a grid that no longer holds
+        out += [h for h in held if h[0] + L <= c]
+        held = []
+        p, misses, inverted, last, found_last = c, 0, inv, c - 1, c - 1
         while True:
             if p + m > n:
-                return out
+                return done()
             er, inv2 = errs(p)
             found = None
             if er <= e:
@@ -113,19 +120,21 @@ def reference_sync(bits, frame_bits, marker, e, check_frames, flywheel, slip):
             if found is not None:
                 q, er2, inv3 = found
                 if q + L > n:
-                    return out
+                    return done()
                 inverted, misses = inv3, 0
+                out += held
+                held = []
                 out.append((q, er2, inverted, False, data(q, inverted)))
-                last, p = q, q + L
+                last, found_last, p = q, q, q + L
             else:
                 misses += 1
                 if misses > flywheel:
-                    s = last + 1
+                    s = found_last + 1  # the search restarts after the last marker found
                     break
                 if p + L > n:
-                    return out
+                    return done()
                 up = sum(int(bits[p + j]) != int(marker[j]) for j in range(m))
-                out.append((p, m - up if inverted else up, inverted, True, data(p, inverted)))
+                held.append((p, m - up if inverted else up, inverted, True, data(p, inverted)))
                 last, p = p, p + L
 
 

@@ -53,18 +53,29 @@ def write_sigmf(base: Path, samples: np.ndarray) -> Path:
     return path
 
 
-def transmitter_frames(rng, count: int, k: int):
-    """Packets of APIDs 100 and 200 cut into ``count`` TM frames of k/8 octets with OCF and FECF."""
+def transmitter_frames(rng, count: int, k: int, *, fecf: bool = True, size_step: int = 13, size_cycle: int = 6):
+    """Packets of APIDs 100 and 200 (data of ``20 + size_step (i mod size_cycle)`` octets) cut into ``count`` TM
+    frames of k/8 octets with OCF (and FECF)."""
     length = k // 8
-    field = length - 6 - 4 - 2
+    field = length - 6 - 4 - (2 if fecf else 0)
     packets, total = [], 0
     while total < field * count - 80:
         i = len(packets)
-        p = tx.space_packet(100 + 100 * (i % 2), i // 2, bytes(rng.integers(0, 256, 20 + 13 * (i % 6), dtype=np.uint8)))
+        size = 20 + size_step * (i % size_cycle)
+        p = tx.space_packet(100 + 100 * (i % 2), i // 2, bytes(rng.integers(0, 256, size, dtype=np.uint8)))
         packets.append(p)
         total += len(p)
-    frames = tx.tm_frames(packets, scid=77, vcid=1, length=length, ocf=True, fecf=True)
+    frames = tx.tm_frames(packets, scid=77, vcid=1, length=length, ocf=True, fecf=fecf)
     return packets, frames
+
+
+def write_symbol_files(folder: Path, bits: np.ndarray, esn0_db: float, rng, *, scale: float) -> None:
+    """``ch.soft``: int8 per channel symbol, + = bit 0 (DEVELOPERS.md, pipeline.recording), BPSK in white Gaussian
+    noise at ``esn0_db`` scaled by ``scale``; ``ch.bits``: the sent bits packed MSB first."""
+    sigma = 1.0 / math.sqrt(2 * 10 ** (esn0_db / 10))
+    soft = np.clip(np.rint(scale * ((1.0 - 2.0 * bits) + sigma * rng.standard_normal(bits.size))), -127, 127)
+    (folder / "ch.soft").write_bytes(soft.astype(np.int8).tobytes())
+    (folder / "ch.bits").write_bytes(np.packbits(bits).tobytes())
 
 
 def frames_of_packets(packets: list[bytes], field: int) -> list[tuple[int, int]]:
@@ -130,13 +141,7 @@ def test_bpsk_iq_every_packet_and_a_spoiled_frame_is_turbo_failed(bpsk_pass):
 
 def test_soft_and_bits_symbol_files(bpsk_pass, tmp_path):
     P = bpsk_pass
-    rng = np.random.default_rng(17)
-    bits = P["bits"]
-    # soft: int8 per channel symbol, + = bit 0 (DEVELOPERS.md, pipeline.recording), at the same Es/N0
-    sigma = 1.0 / math.sqrt(2 * 10 ** (P["esn0_db"] / 10))
-    soft = np.clip(np.rint(24.0 * ((1.0 - 2.0 * bits) + sigma * rng.standard_normal(bits.size))), -127, 127)
-    (tmp_path / "ch.soft").write_bytes(soft.astype(np.int8).tobytes())
-    (tmp_path / "ch.bits").write_bytes(np.packbits(bits).tobytes())
+    write_symbol_files(tmp_path, P["bits"], P["esn0_db"], np.random.default_rng(17), scale=24.0)
     field = 223 - 12
     expected = [p for p, (a, b) in zip(P["packets"], frames_of_packets(P["packets"], field))
                 if not a <= P["spoiled"] <= b]

@@ -17,6 +17,11 @@ cannot share one mistake (issue 5):
   registers with the feedback and forward vectors typed in as strings, the interleaver formula
   evaluated one index at a time, the outputs multiplexed per rate by explicit loops, the rate's
   marker typed in from REFERENCES.md 13.4, the randomizer restarted for every codeword.
+- LDPC codes (CCSDS 131.0-B-2 sec. 7, REFERENCES.md sec. 13.1, 13.2): the parity-check matrices built here
+  from the tables typed in (C2 Table 7-1 and its two expurgation checks; the AR4JA rate-1/2 block layout with
+  theta and phi for M = 512), and a systematic encoder found by plain Gauss-Jordan elimination over GF(2) on
+  the parity columns (not the generator recipe of sec. 7.3.4 / 7.4.3 the pipeline uses); the ASM in front
+  and the randomizer restarted for every codeword (REFERENCES.md sec. 13.4).
 - CRC-16 FECF from ``crccheck`` (PyPI, CRC-16/IBM-3740 = CCSDS 132.0-B sec. 4.1.6).
 - TM frame and space packet headers from the bit layouts in REFERENCES.md sec. 3 and sec. 5
   (from memory, not confirmed there; cross-checked against the worked examples).
@@ -352,5 +357,119 @@ def turbo_channel_bits(frames: list[bytes], *, rate: str, randomize: bool = True
             pn = np.unpackbits(np.frombuffer(pn_bytes((cw.size + 7) // 8), dtype=np.uint8))[: cw.size]
             cw = cw ^ pn
         stream += [marker, cw]
+    stream.append(rng.integers(0, 2, tail_bits, dtype=np.uint8))
+    return np.concatenate(stream)
+
+
+# ---- LDPC codes ----------------------------------------------------------------------------------------------
+# C2: first-row positions of the 2 x 16 circulants A_i,j of size 511 ([TM-SC] Table 7-1, REFERENCES.md sec. 13.1)
+C2_TABLE_7_1 = (
+    ((0, 176), (12, 239), (0, 352), (24, 431), (0, 392), (151, 409), (0, 351), (9, 359),
+     (0, 307), (53, 329), (0, 207), (18, 281), (0, 399), (202, 457), (0, 247), (36, 261)),
+    ((99, 471), (130, 473), (198, 435), (260, 478), (215, 420), (282, 481), (48, 396), (193, 445),
+     (273, 430), (302, 451), (96, 379), (191, 386), (244, 467), (364, 470), (51, 382), (192, 414)),
+)
+# the expurgation to the (8176,7154) subcode as two checks constant on the 511-blocks (REFERENCES.md sec. 13.1,
+# computed there; principle [GB2] p. 8-x)
+C2_EXPURGATION = ("0000110101111101", "0000011011100110")
+# AR4JA rate 1/2, M = 512 (k = 1024): theta_k and phi_k(j, 512) for k = 1..8 (REFERENCES.md sec. 13.2, from a
+# general-purpose LDPC design library citing 131.0-B-5 Tables 7-3 and 7-4)
+AR4JA_THETA_1_8 = (3, 0, 1, 2, 2, 3, 0, 1)
+AR4JA_PHI_512_1_8 = ((16, 103, 105, 0, 50, 29, 115, 30), (0, 53, 74, 45, 47, 0, 59, 102),
+                     (0, 8, 119, 89, 31, 122, 1, 69), (0, 35, 97, 112, 64, 93, 99, 94))
+
+
+def c2_parity_check() -> np.ndarray:
+    """H of the basic (8176,7156) code from Table 7-1 (1022 x 8176, 0/1) plus the two expurgation rows."""
+    b = 511
+    h = np.zeros((2 * b + 2, 16 * b), dtype=np.uint8)
+    for i, row in enumerate(C2_TABLE_7_1):
+        for j, positions in enumerate(row):
+            for r in range(b):  # each row of a circulant is the one above it shifted right by one ([TM-SC] 7.3.3)
+                for pos in positions:
+                    h[i * b + r, j * b + (pos + r) % b] = 1
+    for t, flags in enumerate(C2_EXPURGATION):
+        for j, f in enumerate(flags):
+            if f == "1":
+                h[2 * b + t, j * b:(j + 1) * b] = 1
+    return h
+
+
+def ar4ja_r12_k1024_parity_check() -> np.ndarray:
+    """H_1/2 for M = 512: 3 x 5 blocks (the last block column punctured), from the layout of REFERENCES.md 13.2."""
+    m = 512
+
+    def perm(k: int) -> np.ndarray:
+        out = np.zeros((m, m), dtype=np.uint8)
+        for i in range(m):
+            j = 4 * i // m
+            out[i, (m // 4) * ((AR4JA_THETA_1_8[k - 1] + j) % 4) + (AR4JA_PHI_512_1_8[j][k - 1] + i) % (m // 4)] = 1
+        return out
+
+    eye, zero = np.eye(m, dtype=np.uint8), np.zeros((m, m), dtype=np.uint8)
+    blocks = [[zero, zero, eye, zero, eye ^ perm(1)],
+              [eye, eye, zero, eye, perm(2) ^ perm(3) ^ perm(4)],
+              [eye, perm(5) ^ perm(6), zero, perm(7) ^ perm(8), eye]]
+    return np.block(blocks)
+
+
+def gf2_parity_map(h: np.ndarray, n_info: int) -> np.ndarray:
+    """R (0/1) with parity = R info (mod 2) for every word [info | parity] whose product with ``h`` is zero.
+
+    Plain Gauss-Jordan elimination over GF(2) on the parity columns (the last columns of ``h``), with the rows
+    packed into octets; the rows left over must be all zero (dependent checks).
+    """
+    n_par = h.shape[1] - n_info
+    a = np.concatenate([h[:, n_info:], h[:, :n_info]], axis=1)
+    rows = np.packbits(a, axis=1)
+    for c in range(n_par):
+        octet, shift = c >> 3, 7 - (c & 7)
+        below = np.flatnonzero((rows[c:, octet] >> shift) & 1)
+        if below.size == 0:
+            raise ValueError(f"the parity columns of H are dependent (column {c})")
+        p = c + int(below[0])
+        rows[[c, p]] = rows[[p, c]]
+        hit = ((rows[:, octet] >> shift) & 1).astype(bool)
+        hit[c] = False
+        rows[hit] ^= rows[c]
+    assert not rows[n_par:].any()
+    return np.unpackbits(rows[:n_par], axis=1)[:, n_par:n_par + n_info]
+
+
+@functools.cache
+def _ldpc_encoder(code: str) -> tuple[np.ndarray, int, int]:
+    """(R restricted to the sent information bits, sent parity bits, zero bits appended)."""
+    if code == "c2":
+        # 18 shortened zeros in front of the 7136 information bits, 1022 parity bits, 2 zeros appended
+        return np.ascontiguousarray(gf2_parity_map(c2_parity_check(), 7154)[:, 18:]), 1022, 2
+    if code == "ar4ja-1/2-1024":
+        # 1024 information bits, the first 2M = 1024 of the 3M parity bits sent (the last M punctured)
+        return np.ascontiguousarray(gf2_parity_map(ar4ja_r12_k1024_parity_check(), 1024)[:1024]), 1024, 0
+    raise ValueError(f"no LDPC code {code!r} in the test transmitter")
+
+
+def ldpc_encode_frame(frame: bytes, code: str) -> np.ndarray:
+    """The sent codeword bits of one frame: information bits (MSB first), parity, appended zeros."""
+    r, _, extra = _ldpc_encoder(code)
+    info = np.unpackbits(np.frombuffer(bytes(frame), dtype=np.uint8))
+    parity = (r.astype(np.int32) @ info.astype(np.int32)) & 1
+    return np.concatenate([info, parity.astype(np.uint8), np.zeros(extra, np.uint8)])
+
+
+def ldpc_channel_bits(frames: list[bytes], *, code: str, randomize: bool = True, lead_bits: int = 317,
+                      tail_bits: int = 200, seed: int = 5) -> np.ndarray:
+    """ASM + (randomized) LDPC codeword per frame, random bits before the first ASM and after the last.
+
+    Order on the send side (REFERENCES.md sec. 13.4): encode, randomize the whole codeword (C2's appended zeros
+    included) with the sequence restarted at all ones, put the ASM 1ACFFC1D (from memory, not confirmed) in front.
+    """
+    rng = np.random.default_rng(seed)
+    asm = np.unpackbits(np.frombuffer(bytes.fromhex("1ACFFC1D"), dtype=np.uint8))
+    stream = [rng.integers(0, 2, lead_bits, dtype=np.uint8)]
+    for f in frames:
+        cw = ldpc_encode_frame(f, code)
+        if randomize:
+            cw = cw ^ np.unpackbits(np.frombuffer(pn_bytes(cw.size // 8), dtype=np.uint8))
+        stream += [asm, cw]
     stream.append(rng.integers(0, 2, tail_bits, dtype=np.uint8))
     return np.concatenate(stream)

@@ -14,7 +14,11 @@ This is the one generator and the one format of the project's vectors.  Nothing 
   dual-basis tables computed from the printed matrices;
 * ``scikit-commpy`` (PyPI) for the K=7 mother code; the CCSDS puncturing table is applied here;
 * ``crccheck`` (PyPI) ``Crc16CcittFalse`` for the FECF;
-* the frame, CLCW, packet and time-code bit layouts (from memory in REFERENCES.md, not confirmed).
+* the frame, CLCW, packet and time-code bit layouts (from memory in REFERENCES.md, not confirmed);
+* the LDPC encoder check values of REFERENCES.md sec. 13.1 and 13.2 (first parity octets and SHA-256 of the
+  sent codeword) and the turbo interleaver values of sec. 13.3, transcribed; turbo codewords from the plain
+  shift-register encoder of the test suite's independent transmitter (``tests/third_party_tx.py``, which
+  shares no code with ``pipeline`` either).
 
 Format: one case per ``.json`` file, parameters in its name.  Fields: ``name``, ``stage`` (the
 pipeline stage under test), ``kind`` (what the runner calls), ``params``, ``input``, ``expected``,
@@ -905,6 +909,92 @@ def chain_cases():
                     seed=seed, kat=False, arrays={"channel_bits_packed": np.packbits(chan)})
 
 
+# ---- LDPC and turbo encoders (CCSDS 131.0-B-2 sec. 6 and 7) ----------------------------------------------------
+
+SRC_C2 = ("the (8160,7136) LDPC code of CCSDS 131.0-B-2 sec. 7.3: the circulants of Table 7-1, the systematic "
+          "(8176,7154) subcode of sec. 7.3.4, shortened by its first 18 information bits and extended by two zero "
+          "bits (CCSDS 130.1-G-2 sec. 8); the sent codeword is the 7136 information bits, the 1022 parity bits and "
+          "the two zeros (1020 octets)")
+SRC_AR4JA = ("the AR4JA (2048,1024), (1536,1024) and (1280,1024) codes of CCSDS 131.0-B-2 sec. 7.4: H from the "
+             "theta and phi tables (131.0-B-5 Tables 7-3 and 7-4 as carried by a general-purpose LDPC design "
+             "library; the 60 values printed on 131.0-B-2 p. 7-10 agree), G by the recipe of sec. 7.4.3, the "
+             "last M codeword bits punctured (sec. 7.4.3.5)")
+# (code params, info description, info octets, first 16 octets of the sent parity, SHA-256 of the sent codeword)
+LDPC_CHECK_VALUES = (
+    ({"code": "c2"}, "ones", b"\xff" * 892, "A4110585FE2461B17E33B4B72F8AD799",
+     "1306abced50272d1b90caee85d95b197fa3b9263e387f531b9d089df85adf0fd"),
+    ({"code": "c2"}, "first_bit", b"\x80" + bytes(891), "DD672ADFAB662A941EFF77F546467F82",
+     "ffc70301fa99bde8b42c56ecfcf59d29893393a48cbf85c5fc7c871a57bc27d3"),
+    ({"code": "c2"}, "ramp", bytes(i % 256 for i in range(892)), "7E4D270EFA46FC16ACEE8A556F935672",
+     "728a37d9deb3b9926d415b3812c21932c95be4598f4dd177cbb7ad455feb9518"),
+    ({"code": "ar4ja", "rate": "1/2", "k": 1024}, "first_bit", b"\x80" + bytes(127),
+     "CFA794F49FA5A0D88BB31D8FCA7EA8BB", "609cdbd430248e229047f3572802799f791593b1e7912a63a0f2512cc7a64d60"),
+    ({"code": "ar4ja", "rate": "1/2", "k": 1024}, "ramp", bytes(range(128)),
+     "EEA9AAAF98D916CE6C2B282D1A5B944C", "7c5e6c22b8ec032effe5873b7e7786b968f10fd61d96131d6812e3be5f9705eb"),
+    ({"code": "ar4ja", "rate": "2/3", "k": 1024}, "first_bit", b"\x80" + bytes(127),
+     "51236781781D416AB0C8419FA21559A8", "ce6fbf5510aeceee8ea3ef43168cb072db6c9e78ba95a00d02c91daec543d721"),
+    ({"code": "ar4ja", "rate": "2/3", "k": 1024}, "ramp", bytes(range(128)),
+     "994D02175387C8DD422E4629066A026D", "345b48d3e8fd72b94cae5565022cdee0efd3257d54d54f80debe3c53619e5a20"),
+    ({"code": "ar4ja", "rate": "4/5", "k": 1024}, "first_bit", b"\x80" + bytes(127),
+     "678ECB51FE821D5CFA5F424BF55927AA", "788cdc40e3c1096c4080eed97467760874f1098056cdcde50dda96a13a4a45d6"),
+    ({"code": "ar4ja", "rate": "4/5", "k": 1024}, "ramp", bytes(range(128)),
+     "F168E07945E308AEEFD16856600A90FA", "002961b4d4e1e053e72323867c3c051c3a5142816ddcf4fd0dffaf2d0e371b3f"),
+)
+INFO_TEXT = {"ones": "every information bit 1", "first_bit": "the first information bit 1, the others 0",
+             "ramp": "information octets 00 01 02 ... (i mod 256)"}
+
+# pi(1..12) for every k and pi(k): computed from the sec. 6.3 formula in the project's research notes
+TURBO_PI_FIRST = (4, 171, 300, 467, 596, 763, 892, 1059, 1188, 1355, 1484, 1651)
+TURBO_PI_LAST = {1784: 1613, 3568: 3397, 7136: 6965, 8920: 8749}
+SRC_TURBO = ("the turbo code of CCSDS 131.0-B-2 sec. 6.3: forward vectors G1 = 11011, G2 = 10101, G3 = 11111 (sec. "
+             "6.3 h), feedback G0 = 10011 (from memory, not confirmed: the digits were not in the stored pages), the "
+             "interleaver formula of sec. 6.3 step 2 (encoder b reads bit pi(s) at time s), four tail bit times with "
+             "the feedback fed back in, the rate's multiplexing (rate 1/2: out0a out1a / out0a out1b alternately; 1/3: "
+             "out0a out1a out1b; 1/4: out0a out2a out3a out1b; 1/6: out0a out1a out2a out3a out1b out3b)")
+
+
+def _independent_transmitter():
+    """The test suite's independent transmitter (tests/third_party_tx.py: plain shift registers and the interleaver
+    formula typed in from the standard, no pipeline code): the one outside reference for the turbo encoder."""
+    sys.path.insert(0, str(ROOT.parent / "tests"))
+    try:
+        import third_party_tx
+    finally:
+        sys.path.pop(0)
+    return third_party_tx
+
+
+def block_code_cases():
+    for params, what, info, parity16, sha in LDPC_CHECK_VALUES:
+        code = params["code"] if params["code"] == "c2" else f"ar4ja_r{params['rate'].replace('/', '')}_k1024"
+        src = SRC_C2 if params["code"] == "c2" else SRC_AR4JA
+        yield _case(f"ldpc_encode_{code}_{what}", "fec", "ldpc_encode", params=params,
+                    inp={"hex": info.hex()}, expected={"parity_first16": parity16, "sha256": sha},
+                    source=f"{src}; information: {INFO_TEXT[what]}; the first 16 octets of the sent parity and the "
+                           "SHA-256 of the sent codeword octets, computed (numpy, GF(2)) from those tables in the "
+                           "project's research notes and checked there against H")
+    tx = _independent_transmitter()
+    for k, last in TURBO_PI_LAST.items():
+        pi = tx.interleaver_from_formula(k)
+        assert tuple(pi[:12]) == TURBO_PI_FIRST and pi[-1] == last and sorted(pi) == list(range(1, k + 1))
+        yield _case(f"turbo_interleaver_k{k}", "fec", "turbo_interleaver", params={"k": k},
+                    expected={"first_1_based": list(TURBO_PI_FIRST), "last_1_based": last},
+                    source="the interleaver formula of CCSDS 131.0-B-2 sec. 6.3 step 2 (k1 = 8, k2 = k/8, primes "
+                           "31 37 43 47 53 59 61 67), s and pi(s) counted from 1, encoder b reading bit pi(s) at "
+                           "time s: pi(1..12) and pi(k) computed from it in the project's research notes (and "
+                           "recomputed one index at a time by the independent test transmitter); a permutation of "
+                           "1..k")
+    seed = 6300
+    info = np.unpackbits(np.random.default_rng(seed).integers(0, 256, 223, dtype=np.uint8))
+    for rate in ("1/2", "1/3", "1/4", "1/6"):
+        cw, _ = tx.reference_encode(info, rate)
+        yield _case(f"turbo_encode_r{rate.replace('/', '')}_k1784", "fec", "turbo_encode", params={"rate": rate},
+                    inp={"hex": np.packbits(info).tobytes().hex()},
+                    expected={"hex": np.packbits(cw).tobytes().hex(), "n_bits": int(cw.size)},
+                    source=f"computed by a plain shift-register encoder (the test suite's independent transmitter) "
+                           f"from {SRC_TURBO}; random information of 223 octets", seed=seed)
+
+
 def all_cases():
     rng = np.random.default_rng(0)
     groups = {
@@ -917,6 +1007,7 @@ def all_cases():
         "packets": packet_cases(),
         "timecodes": timecode_cases(),
         "chain": chain_cases(),
+        "block_codes": block_code_cases(),
     }
     for folder, cases in groups.items():
         for case in cases:

@@ -75,15 +75,16 @@ class FrameLog:
 
     Per frame: ``position`` (samples), ``status`` (index into :attr:`statuses`), ``rs_corrected`` (symbols
     corrected in the codeblock; -1 when a codeword failed, -2 without Reed-Solomon), ``asm_errors``,
-    ``flywheel``, ``decoder_iterations`` (turbo / LDPC iterations, -1 for other codes), and the CLCW of a frame
+    ``flywheel``, ``decoder_iterations`` (turbo / LDPC iterations, -1 for other codes),
+    ``decoder_syndrome_weight`` (LDPC final syndrome weight, -1 for other codes), and the CLCW of a frame
     that passed its checks (``clcw_report_value``, -1 without one; ``clcw_flags``: bit 0 lockout, 1 wait,
     2 retransmit, 3 no RF available, 4 no bit lock).  Stored in
     growing numpy arrays; past :data:`MAX_FRAME_LOG` entries every other one is dropped and ``stride`` doubles.
     """
 
     FIELDS = (("position", np.float64), ("status", np.int8), ("rs_corrected", np.int16), ("asm_errors", np.int8),
-              ("flywheel", np.bool_), ("decoder_iterations", np.int16), ("clcw_report_value", np.int16),
-              ("clcw_flags", np.int8))
+              ("flywheel", np.bool_), ("decoder_iterations", np.int16), ("decoder_syndrome_weight", np.int16),
+              ("clcw_report_value", np.int16), ("clcw_flags", np.int8))
 
     def __init__(self):
         self.statuses: list[str] = []
@@ -122,6 +123,8 @@ class FrameLog:
         d["flywheel"][i] = bool(record.flywheel)
         iterations = getattr(record, "decoder_iterations", None)  # turbo / LDPC records only
         d["decoder_iterations"][i] = -1 if iterations is None else iterations
+        syndrome = getattr(record, "decoder_syndrome_weight", None)  # LDPC records only
+        d["decoder_syndrome_weight"][i] = -1 if syndrome is None else min(int(syndrome), 32767)
         d["clcw_report_value"][i] = -1 if clcw is None else clcw["report_value"]
         d["clcw_flags"][i] = 0 if clcw is None else (clcw["lockout"] | clcw["wait"] << 1 | clcw["retransmit"] << 2
                                                       | clcw["no_rf_available"] << 3 | clcw["no_bit_lock"] << 4)

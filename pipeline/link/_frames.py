@@ -165,6 +165,9 @@ class FrameRecord:
         Iterations of the turbo (or LDPC) decoder for this frame's codeword; None for other codes.
     decoder_esn0_db : float or None
         The Es/N0 estimate (dB) its soft codeword was scaled with; None for other codes.
+    decoder_syndrome_weight : int or None
+        LDPC: unsatisfied parity checks after the decoder's last iteration (0 on success); None for
+        other codes.
     """
 
     status: str
@@ -180,6 +183,7 @@ class FrameRecord:
     flywheel: bool | None = None
     decoder_iterations: int | None = None
     decoder_esn0_db: float | None = None
+    decoder_syndrome_weight: int | None = None
     detail: str = ""
     version: int | None = None
     scid: int | None = None
@@ -248,6 +252,8 @@ class FrameRecord:
         if self.decoder_iterations is not None:  # turbo / LDPC links only
             d["decoder_iterations"] = self.decoder_iterations
             d["decoder_esn0_db"] = self.decoder_esn0_db
+        if self.decoder_syndrome_weight is not None:  # LDPC links only
+            d["decoder_syndrome_weight"] = self.decoder_syndrome_weight
         if self.kind == "tm":
             d.update(ocf_flag=self.ocf_flag, sec_header_flag=self.sec_header_flag, sync_flag=self.sync_flag,
                      packet_order=self.packet_order, segment_length_id=self.segment_length_id)
@@ -374,6 +380,7 @@ class FrameParser:
             flywheel=_opt_bool(cadu.flywheel),
             decoder_iterations=_opt_int(getattr(decoded, "decoder_iterations", None)),
             decoder_esn0_db=getattr(decoded, "decoder_esn0_db", None),
+            decoder_syndrome_weight=_opt_int(getattr(decoded, "decoder_syndrome_weight", None)),
             length=len(frame),
         )
         in_status = str(decoded.status)

@@ -5,7 +5,10 @@ than k I) -> pseudo-randomizer over the codeblock -> ASM 1ACFFC1D in front.  The
 stream is then line-coded and convolutionally encoded as one continuous stream (the encoder state
 carries across CADUs).  Turbo links (``[coding] turbo``): each frame is turbo encoded
 (``pipeline.fec.turbo_encode``), the codeword randomized with the sequence restarted at all ones,
-and the rate's own marker put in front (CCSDS 131.0-B-2 sec. 6, 8.3 and 9; no other code follows).
+and the rate's own marker put in front (CCSDS 131.0-B-2 sec. 6, 8.3 and 9; no other code follows).  LDPC
+links (``[coding] ldpc``): each frame is LDPC encoded (``pipeline.fec.ldpc.ldpc_encode``: C2 with its two
+extension zeros, AR4JA with the punctured bits left out), the codeword randomized with the sequence restarted at
+all ones (over C2's extension bits too), and the ASM 1ACFFC1D put in front (sec. 7, 8.4 and 9).
 
 NRZ-M placement: CCSDS 131.0-B-2 sec. 3.3.3 says that when NRZ-L -> NRZ-M conversion is used with
 the convolutional code it is done at the *input* of the encoder (and NRZ-M -> NRZ-L at the output
@@ -66,7 +69,8 @@ class ChannelCoder:
     Parameters
     ----------
     profile :
-        The link profile: ``[coding]`` (convolutional rate and G2 convention, RS E, interleave, randomizer),
+        The link profile: ``[coding]`` (convolutional rate and G2 convention, RS E, interleave, randomizer, turbo,
+        LDPC),
         ``[frames]`` length, ``[link]`` line code.
     nrzm_at :
         Where NRZ-M is applied when ``line_code = "nrz-m"`` (see the module docstring).
@@ -79,7 +83,7 @@ class ChannelCoder:
     References
     ----------
     CCSDS 131.0-B-2 sec. 3 (convolutional code, NRZ-M sec. 3.3.3), 4 (RS, virtual fill sec. 4.3.7),
-    6 (turbo codes), 8 (ASM, turbo markers), 9 (randomizer).
+    6 (turbo codes), 7 (LDPC codes), 8 (ASM, turbo markers), 9 (randomizer).
     """
 
     def __init__(self, profile: LinkProfile, *, nrzm_at: NrzmPosition = "encoder_input"):
@@ -103,6 +107,12 @@ class ChannelCoder:
         self.nrzm = profile.link.line_code == "nrz-m"
         self.turbo = profile.coding.turbo if profile.coding.turbo != "none" else None
         self.asm = TURBO_ASMS[self.turbo] if self.turbo else bytes(ASM)
+        self.ldpc = None
+        if profile.coding.ldpc != "none":
+            from pipeline.fec.ldpc import ldpc_code
+
+            c = profile.coding
+            self.ldpc = ldpc_code(c.ldpc) if c.ldpc == "c2" else ldpc_code(c.ldpc, rate=c.ldpc_rate, k=c.ldpc_k)
         self.codeblock_bytes = profile.codeblock_bytes
         self.codeblock_bits = profile.codeblock_bits
         self.cadu_bits = 8 * len(self.asm) + self.codeblock_bits
@@ -140,15 +150,22 @@ class ChannelCoder:
         return int(out) if out.ndim == 0 else out
 
     def codeblock(self, frame: bytes) -> bytes:
-        """The (randomized) codeblock of one frame: frame + RS parity, XOR the PN sequence (not for turbo links:
-        see :meth:`cadu_bit_rows`)."""
+        """The (randomized) codeblock of one frame: frame + RS parity (or its LDPC codeword), XOR the PN sequence
+        (not for turbo links: see :meth:`cadu_bit_rows`)."""
         from pipeline.fec import rs_encode
 
         if self.turbo:
             raise ValueError("Argument 'frame': a turbo codeword is not whole octets; use cadu_bit_rows().")
         if len(frame) != self.frame_bytes:
             raise ValueError(f"Argument 'frames' items must be {self.frame_bytes} octets, not {len(frame)}.")
-        block = rs_encode(bytes(frame), self.rs_e, self.interleave) if self.rs_e else bytes(frame)
+        if self.ldpc is not None:
+            from pipeline.fec.ldpc import ldpc_encode
+
+            block = ldpc_encode(self.ldpc, bytes(frame)).tobytes()
+        elif self.rs_e:
+            block = rs_encode(bytes(frame), self.rs_e, self.interleave)
+        else:
+            block = bytes(frame)
         if self._pn is not None:
             block = (np.frombuffer(block, dtype=np.uint8) ^ self._pn).tobytes()
         return block
@@ -162,6 +179,15 @@ class ChannelCoder:
         for f in frames:
             if len(f) != self.frame_bytes:
                 raise ValueError(f"Argument 'frames' items must be {self.frame_bytes} octets, not {len(f)}.")
+        if self.ldpc is not None and frames:  # one batch through the quasi-cyclic encoder
+            from pipeline.fec.ldpc import ldpc_encode
+
+            info = np.frombuffer(b"".join(bytes(f) for f in frames), dtype=np.uint8).reshape(len(frames), -1)
+            words = ldpc_encode(self.ldpc, info).reshape(len(frames), -1)
+            if self._pn is not None:
+                words = words ^ self._pn[None, :]
+            asm = np.broadcast_to(np.frombuffer(self.asm, np.uint8), (len(frames), len(self.asm)))
+            return np.unpackbits(np.concatenate([asm, words], axis=1), axis=1)
         if not self.turbo:
             cadus = np.frombuffer(b"".join(self.cadu(bytes(f)) for f in frames), dtype=np.uint8)
             return np.unpackbits(cadus).reshape(len(frames), self.cadu_bits)

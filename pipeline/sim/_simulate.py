@@ -128,6 +128,8 @@ def _description(profile: LinkProfile, ebn0_db: float, esn0_db: float, seconds: 
     coding = []
     if C.turbo != "none":
         coding.append(f"turbo r={C.turbo} k={C.turbo_k}")
+    if C.ldpc != "none":
+        coding.append("LDPC C2" if C.ldpc == "c2" else f"LDPC AR4JA r={C.ldpc_rate} k={C.ldpc_k}")
     if C.convolutional != "none":
         coding.append(f"convolutional r={C.convolutional}")
     if C.reed_solomon:

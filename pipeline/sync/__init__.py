@@ -8,6 +8,7 @@ from pipeline.sync._branchsync import BranchSync, BranchSyncStats, branch_metric
 from pipeline.sync._codeblock import CodeblockDecoder, CodeblockStats
 from pipeline.sync._codes import (
     CodewordBatch,
+    LdpcBlockCode,
     SoftBlockCode,
     TurboBlockCode,
     frame_sync_for,
@@ -28,6 +29,7 @@ __all__ = [
     "CodewordBatch",
     "SoftBlockCode",
     "TurboBlockCode",
+    "LdpcBlockCode",
     "soft_block_code",
     "link_marker",
     "frame_sync_for",

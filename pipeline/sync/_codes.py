@@ -1,4 +1,4 @@
-"""Codes decoded from soft codewords found by their own marker (turbo now, LDPC next): what the chain asks of them.
+"""Codes decoded from soft codewords found by their marker (turbo, LDPC): what the chain asks of them.
 
 A link whose codewords are decoded from soft values (CCSDS 131.0-B sec. 6 turbo codes, sec. 7 LDPC
 codes) differs from the RS/convolutional links in four facts, which a :class:`SoftBlockCode`
@@ -16,10 +16,12 @@ from typing import Protocol
 import numpy as np
 
 from pipeline.fec import ASM, TurboCode, TurboDecoder
+from pipeline.fec.ldpc import LdpcDecoder, ldpc_code
 from pipeline.profile import LinkProfile
 from pipeline.sync._framesync import FrameSync
 
-__all__ = ["CodewordBatch", "SoftBlockCode", "TurboBlockCode", "soft_block_code", "link_marker", "frame_sync_for"]
+__all__ = ["CodewordBatch", "SoftBlockCode", "TurboBlockCode", "LdpcBlockCode", "soft_block_code", "link_marker",
+           "frame_sync_for"]
 
 
 @dataclass(frozen=True)
@@ -34,11 +36,15 @@ class CodewordBatch:
         The decoder's own check held (turbo: FECF; LDPC: zero syndrome).
     iterations : numpy.ndarray of int32, shape (B,)
         Decoder iterations run per codeword.
+    syndrome_weight : numpy.ndarray of int32, shape (B,), or None
+        LDPC: unsatisfied parity checks of the code after the last iteration (0 where ``passed``);
+        None for codes without a syndrome (turbo).
     """
 
     frames: np.ndarray
     passed: np.ndarray
     iterations: np.ndarray
+    syndrome_weight: np.ndarray | None = None
 
 
 class SoftBlockCode(Protocol):
@@ -113,8 +119,60 @@ class TurboBlockCode:
         return CodewordBatch(frames=res.data, passed=res.passed, iterations=res.iterations)
 
 
+class LdpcBlockCode:
+    """A CCSDS LDPC code of a profile as a :class:`SoftBlockCode` (``pipeline.fec.ldpc``).
+
+    Parameters
+    ----------
+    family : {"c2", "ar4ja"}
+    rate : {"1/2", "2/3", "4/5"} or None
+        AR4JA only (the profile's ``ldpc_rate``).
+    k : {1024, 4096, 16384} or None
+        AR4JA only (the profile's ``ldpc_k``).
+    max_iterations : int
+        The profile's ``ldpc_max_iterations``.
+
+    Notes
+    -----
+    The 32-bit ASM ``1ACFFC1D`` precedes every codeword (CCSDS 131.0-B-2 sec. 8.4.1 says an ASM
+    precedes each LDPC codeword; the pattern is from memory, not confirmed: ../shared/REFERENCES.md
+    sec. 13.4).  :class:`pipeline.fec.ldpc.LdpcDecoder` (layered normalized min-sum, 32 codewords in
+    SIMD lanes, hence ``batch_cadus = 32``) stops when the syndrome is zero; a codeword whose final
+    syndrome is not zero, or (C2) whose word fails the subcode's two expurgation checks, is
+    ``ldpc_failed`` and never passed on (131.0-B-2 sec. 7.2.3: the decoder validates the frame by
+    itself, the FECF being optional).  The codeword is the ``code.n`` bits after the marker, C2's two
+    extension bits included (their soft values are not used).
+
+    Examples
+    --------
+    >>> code = LdpcBlockCode(family="ar4ja", rate="1/2", k=1024, max_iterations=50)
+    >>> code.codeword_bits, code.frame_octets, code.marker.hex().upper(), code.failure_status
+    (2048, 128, '1ACFFC1D', 'ldpc_failed')
+    >>> LdpcBlockCode(family="c2").name
+    'LDPC C2 (8160,7136)'
+    """
+
+    failure_status = "ldpc_failed"
+    batch_cadus = 32
+
+    def __init__(self, *, family: str, rate: str | None = None, k: int | None = None,
+                 max_iterations: int = 50) -> None:
+        self.code = ldpc_code(family) if family == "c2" else ldpc_code(family, rate=rate, k=k)
+        self.decoder = LdpcDecoder(code=self.code, max_iterations=max_iterations)
+        self.name = f"LDPC {self.code.name}"
+        self.marker = bytes(ASM)
+        self.codeword_bits = self.code.n
+        self.frame_octets = self.code.frame_octets
+
+    def decode(self, llr: np.ndarray) -> CodewordBatch:
+        """Decode a batch (see :class:`SoftBlockCode`)."""
+        res = self.decoder.decode(np.ascontiguousarray(llr, dtype=np.float32).reshape(-1, self.codeword_bits))
+        return CodewordBatch(frames=res.frames, passed=res.ok, iterations=res.iterations,
+                             syndrome_weight=res.syndrome_weight)
+
+
 def soft_block_code(profile: LinkProfile) -> SoftBlockCode | None:
-    """The profile's soft-decoded block code, or None for RS / convolutional / uncoded links.
+    """The profile's soft-decoded block code (turbo or LDPC), or None for RS / convolutional / uncoded links.
 
     Raises
     ------
@@ -122,9 +180,12 @@ def soft_block_code(profile: LinkProfile) -> SoftBlockCode | None:
         If the code's sizes disagree with the profile's derived sizes (a defect, not bad input).
     """
     c = profile.coding
-    if c.turbo == "none":
+    if c.turbo != "none":
+        code = TurboBlockCode(rate=c.turbo, k=c.turbo_k, max_iterations=c.turbo_max_iterations)
+    elif c.ldpc != "none":
+        code = LdpcBlockCode(family=c.ldpc, rate=c.ldpc_rate, k=c.ldpc_k, max_iterations=c.ldpc_max_iterations)
+    else:
         return None
-    code = TurboBlockCode(rate=c.turbo, k=c.turbo_k, max_iterations=c.turbo_max_iterations)
     if (code.codeword_bits, 8 * len(code.marker), code.frame_octets) != (
             profile.codeblock_bits, profile.marker_bits, profile.frames.length):
         raise ValueError(f"profile '{profile.name}': {code.name} has {code.codeword_bits} bits, a "
@@ -134,7 +195,8 @@ def soft_block_code(profile: LinkProfile) -> SoftBlockCode | None:
 
 
 def link_marker(profile: LinkProfile) -> bytes:
-    """The sync marker in front of every codeblock of the profile's link (the turbo rate's own, else the ASM)."""
+    """The sync marker in front of every codeblock of the profile's link (the turbo rate's own, else the ASM:
+    also in front of LDPC codewords)."""
     code = soft_block_code(profile)
     return bytes(ASM) if code is None else code.marker
 
@@ -143,7 +205,7 @@ def frame_sync_for(profile: LinkProfile) -> FrameSync:
     """The frame synchronizer of a profile's link.
 
     RS / convolutional / uncoded links: the 32-bit ASM on hard decisions with ``[receiver]
-    asm_max_errors``.  Soft-decoded codes: the code's marker by soft correlation
+    asm_max_errors``.  Soft-decoded codes (turbo, LDPC): the code's marker by soft correlation
     (``correlation="soft"``, default thresholds) and the soft codeword kept for the decoder.  Both
     flywheel ``[receiver] flywheel_frames`` CADUs.
     """

@@ -39,6 +39,7 @@ class FrameSyncStats:
     bit_slips: int = 0
     polarity_changes: int = 0
     asm_errors: int = 0  # marker bit errors summed over the CADUs whose marker was found
+    flywheel_dropped: int = 0  # flywheel CADUs withdrawn: after the loss of lock a marker was found inside them
     bits_discarded: int = 0  # bits received after the last CADU when the stream was flushed
 
     def as_dict(self) -> dict:
@@ -96,8 +97,15 @@ class FrameSync:
       ``p - slip_bits .. p + slip_bits`` are tried (best match, nearest first); if one matches,
       the lock moves there (a ``bit_slip`` event).  Otherwise the CADU at ``p`` is emitted as a
       flywheel CADU, up to ``flywheel`` in a row; the next miss is a loss of lock and the search
-      resumes one bit after the start of the last CADU emitted, so a marker displaced by a large
-      slip is found again in the following frame.
+      resumes one bit after the start of the last CADU whose marker was found (not after the
+      flywheel CADUs), so neither a marker displaced by a large slip nor the first frames of a new
+      frame grid (two recordings joined, a recorder restart) are skipped.
+    * Flywheel CADUs are held back until their fate is known: a marker found again in lock
+      delivers them (in order, before the CADU found); after a loss of lock, those that end at or
+      before the position where the synchronizer locks again (or that the search has passed
+      without a candidate) are delivered, and those overlapping the newly found frame were cut on
+      a grid that no longer holds: they are withdrawn (``flywheel_dropped``).  So CADUs always
+      come out in stream order and never overlap a CADU whose marker was found after them.
     * A complemented marker means the codeblock is complemented (180-degree phase ambiguity); the
       data are re-inverted and ``inverted`` is set.  The polarity is followed marker by marker.
 
@@ -114,7 +122,7 @@ class FrameSync:
 
     Every decision needs only bits already received and is taken as soon as they are, so the
     output does not depend on how the input is cut into chunks.  Memory is bounded by about
-    ``(check_frames + 2) L`` bits plus one input chunk.  Search cost: the kernel
+    ``(max(check_frames, flywheel) + 2) L`` bits plus one input chunk.  Search cost: the kernel
     :func:`~pipeline.sync._kernels.find_marker`, O(max_errors) per offset on random data.
 
     References
@@ -246,6 +254,7 @@ class FrameSync:
         """
         out: list[Cadu] = []
         self._advance(out, final=True)
+        self._release(out, None)  # no marker can follow: the held flywheel CADUs stand
         self.stats.bits_discarded += max(0, self._end - self._last_cadu_end)
         self._clear_stream(self._end)
         return out
@@ -266,14 +275,16 @@ class FrameSync:
         self._inverted = False
         self._last_cadu_start = end - 1
         self._last_cadu_end = end
+        self._last_found = end - 1  # start of the last CADU whose marker was found (the search restarts after it)
+        self._held: list[Cadu] = []  # flywheel CADUs not yet delivered
 
     def _trim(self) -> None:
         if self._state == _SEARCH:
             keep = self._search_at
         elif self._state == _CHECK:
             keep = self._candidate
-        else:  # a loss re-searches from one bit after the last CADU start; the slip window looks back
-            keep = min(self._last_cadu_start + 1, self._expected - self.slip_bits)
+        else:  # a loss re-searches from one bit after the last marker found; the slip window looks back
+            keep = min(self._last_found + 1, self._expected - self.slip_bits)
         drop = min(keep, self._end) - self._base
         if drop > 0:
             self._hard = self._hard[drop:]
@@ -357,6 +368,27 @@ class FrameSync:
         return None if best is None else (best[1], self._errors(best[1], best[2]), best[2])
 
     def _advance(self, out: list[Cadu], final: bool) -> None:
+        self._step(out, final)
+        if self._state == _SEARCH:  # no lock can start before these: the held CADUs ending there stand
+            self._release(out, self._search_at)
+        elif self._state == _CHECK:
+            self._release(out, self._candidate)
+
+    def _release(self, out: list[Cadu], limit: int | None, *, drop_rest: bool = False) -> None:
+        """Deliver the held flywheel CADUs that end at or before bit ``limit`` (all for None); with
+        ``drop_rest`` withdraw the others (they overlap a frame found at ``limit``)."""
+        if not self._held:
+            return
+        L = self.cadu_bits
+        keep = [c for c in self._held if limit is not None and c.bit_index + L > limit]
+        for c in self._held[: len(self._held) - len(keep)]:
+            self._deliver(out, c)
+        if drop_rest:
+            self.stats.flywheel_dropped += len(keep)
+            keep = []
+        self._held = keep
+
+    def _step(self, out: list[Cadu], final: bool) -> None:
         m, L, e, w = self.marker_bits, self.cadu_bits, self.max_errors, self.slip_bits
         while True:
             end = self._end
@@ -380,6 +412,8 @@ class FrameSync:
                     self._expected = self._candidate
                     self._misses = 0
                     self._last_cadu_start = self._candidate - 1
+                    self._last_found = self._candidate - 1
+                    self._release(out, self._candidate, drop_rest=True)
                     self.stats.locks += 1
                     self._event("lock_acquired", self._candidate)
                     continue
@@ -425,23 +459,33 @@ class FrameSync:
             self._inverted = inv
             self._misses = 0
             self.stats.asm_errors += err
-            self._emit(out, found, err, flywheel=False)
+            self._release(out, None)  # the flywheel CADUs before it were on the grid
+            self._deliver(out, self._cut(found, err, flywheel=False))
+            self._last_found = found
             self._expected = found + L
             return True
         self._misses += 1
         if self._misses <= self.flywheel:
             if p + L > end:
                 return False
-            self._emit(out, p, self._errors(p, self._inverted), flywheel=True)
+            self._held.append(self._cut(p, self._errors(p, self._inverted), flywheel=True))
             self._expected = p + L
             return True
         self.stats.losses += 1
         self._event("lock_lost", p)
         self._state = _SEARCH
-        self._search_at = self._last_cadu_start + 1
+        self._search_at = self._last_found + 1
         return True
 
-    def _emit(self, out: list[Cadu], at: int, asm_errors: int, *, flywheel: bool) -> None:
+    def _deliver(self, out: list[Cadu], cadu: Cadu) -> None:
+        out.append(cadu)
+        self.stats.cadus += 1
+        if cadu.flywheel:
+            self.stats.flywheel_cadus += 1
+        if cadu.inverted:
+            self.stats.inverted_cadus += 1
+
+    def _cut(self, at: int, asm_errors: int, *, flywheel: bool) -> Cadu:
         m, L = self.marker_bits, self.cadu_bits
         r = at - self._base
         bits = self._hard[r + m : r + L]
@@ -454,25 +498,18 @@ class FrameSync:
             if self._inverted:
                 soft = -soft
                 marker_soft = -marker_soft
-        out.append(
-            Cadu(
-                data=np.packbits(bits).tobytes(),
-                position=float(self._pos[r]),
-                asm_errors=int(asm_errors),
-                inverted=self._inverted,
-                flywheel=flywheel,
-                bit_index=at,
-                soft=soft,
-                marker_soft=marker_soft,
-            )
-        )
         self._last_cadu_start = at
         self._last_cadu_end = at + L
-        self.stats.cadus += 1
-        if flywheel:
-            self.stats.flywheel_cadus += 1
-        if self._inverted:
-            self.stats.inverted_cadus += 1
+        return Cadu(
+            data=np.packbits(bits).tobytes(),
+            position=float(self._pos[r]),
+            asm_errors=int(asm_errors),
+            inverted=self._inverted,
+            flywheel=flywheel,
+            bit_index=at,
+            soft=soft,
+            marker_soft=marker_soft,
+        )
 
     def _event(self, kind: str, at: int, offset_bits: int = 0) -> None:
         r = at - self._base

@@ -60,14 +60,15 @@ class DecodedFrame:
     Attributes
     ----------
     frame : bytes
-        The transfer frame (codeblock without RS parity, de-randomized; a turbo code's decoded
-        information block).  For an uncorrectable codeblock these are the received, uncorrected
-        octets of the failing codewords; for a failed turbo codeword the decoder's last decisions.
+        The transfer frame (codeblock without RS parity, de-randomized; a turbo or LDPC code's
+        decoded information block).  For an uncorrectable codeblock these are the received,
+        uncorrected octets of the failing codewords; for a failed turbo or LDPC codeword the
+        decoder's last decisions.
     status : {"ok", "rs_uncorrectable", "turbo_failed", "ldpc_failed"}
         ``"rs_uncorrectable"`` when any RS codeword of the codeblock failed, ``"turbo_failed"``
-        when the turbo decoder's FECF check still failed after its last iteration
-        (``"ldpc_failed"`` is reserved for LDPC codewords whose syndrome is not zero); never
-        ``"ok"`` then.
+        when the turbo decoder's FECF check still failed after its last iteration,
+        ``"ldpc_failed"`` when an LDPC codeword's final syndrome is not zero (C2: or the word
+        fails the subcode's expurgation checks); never ``"ok"`` then.
     rs_corrected : tuple of int
         Symbols corrected per RS codeword (interleave order), -1 for an uncorrectable one; empty
         without Reed-Solomon coding.
@@ -81,6 +82,9 @@ class DecodedFrame:
     fec_verified : bool
         The iterative decoder's own check held (turbo: the FECF of the decoded frame; LDPC: a zero
         syndrome).  False for other codes (their frames are verified by RS or by the frame parser).
+    decoder_syndrome_weight : int or None
+        LDPC: unsatisfied parity checks of the code after the decoder's last iteration (0 on
+        success); None for other codes.
     """
 
     frame: bytes
@@ -90,6 +94,7 @@ class DecodedFrame:
     decoder_iterations: int | None = None
     decoder_esn0_db: float | None = None
     fec_verified: bool = False
+    decoder_syndrome_weight: int | None = None
 
     @property
     def position(self) -> float:

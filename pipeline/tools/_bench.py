@@ -18,6 +18,11 @@ Figures (all per process; "Mbit/s" = 10^6 bits per second, "Msample/s" = 10^6 co
                             Eb/N0 1.0 dB, at most 10 iterations, information bits per second, CPU time of one
                             core (:func:`pipeline.tools._turbo.turbo_speed`); ``..._scalar_mbps`` the plain
                             scalar kernel on the same codewords in the same run
+``ldpc_c2_mbps``            :class:`pipeline.fec.ldpc.LdpcDecoder` (layered normalized min-sum, 32-lane vector
+                            kernel, at most 50 iterations) on C2 at Eb/N0 4.0 dB, information bits per second, CPU
+                            time of one core (:func:`pipeline.tools._ldpc.ldpc_speed`); ``..._scalar_mbps`` the
+                            scalar reference kernel on the same codewords in the same run
+``ldpc_ar4ja_r12_k1024_mbps``  the same for AR4JA rate 1/2, k = 1024, at Eb/N0 2.0 dB
 ``frames_packets_mbps``     :class:`pipeline.link.FrameParser` + :class:`pipeline.packets.PacketExtractor`
 ``end_to_end_msps``         the decode path with its sinks (:class:`pipeline.chain.SegmentedDecode` into a
                             :class:`pipeline.chain.BackEnd`; one segment, one process), report not built
@@ -367,6 +372,13 @@ def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float 
         for key in ("turbo_r12_k8920_mbps", "turbo_r12_k8920_mean_iterations", "turbo_r12_k8920_scalar_mbps",
                     "turbo_vector_over_scalar_per_iteration"):
             res[key] = turbo[key]
+        say("LDPC decoder")
+        from pipeline.tools._ldpc import LDPC_SPEED_POINTS, ldpc_speed
+
+        ldpc = ldpc_speed(codewords=256, repeat=repeats, lanes64=False, encoder=False)
+        for key, _, _ in LDPC_SPEED_POINTS:
+            for tail in ("_mbps", "_iterations", "_scalar_mbps", "_speedup_vs_scalar"):
+                res[key + tail] = ldpc[key + tail]
         say("frames and packets")
         from pipeline.chain import decode_segment
 
@@ -406,6 +418,10 @@ _ROWS = [
     ("rs_16err_mbps", "RS E=16 I=5, 16 errors/codeword", "Mbit/s"),
     ("turbo_r12_k8920_mbps", "turbo r=1/2 k=8920 1 dB (info bits)", "Mbit/s"),
     ("turbo_r12_k8920_scalar_mbps", "  the same, scalar kernel", "Mbit/s"),
+    ("ldpc_c2_mbps", "LDPC C2 4 dB (info bits)", "Mbit/s"),
+    ("ldpc_c2_scalar_mbps", "  the same, scalar kernel", "Mbit/s"),
+    ("ldpc_ar4ja_r12_k1024_mbps", "LDPC AR4JA r=1/2 k=1024 2 dB (info bits)", "Mbit/s"),
+    ("ldpc_ar4ja_r12_k1024_scalar_mbps", "  the same, scalar kernel", "Mbit/s"),
     ("frames_packets_mbps", "frames + packets (frame bits)", "Mbit/s"),
     ("end_to_end_msps", "end to end, 1 process", "Msample/s"),
     ("end_to_end_realtime_factor", "  real-time factor (1 Msample/s)", "x"),

@@ -7,7 +7,10 @@ Two stages:
     with real Gaussian noise -> exact channel LLRs -> ``pipeline.fec.TurboDecoder`` (the profile's
     ``turbo_max_iterations``, FECF stopping check); measured: BER and FER of the decoded frames, the
     frames whose FECF still failed (``decoder_failures``) and the wrong frames that passed it
-    (``undetected_frame_errors``).  Other profiles: the codes alone: random frames -> RS (E, I, virtual
+    (``undetected_frame_errors``).  LDPC profiles (``[coding] ldpc``): random frames -> the LDPC encoder
+    -> BPSK, real Gaussian noise -> exact channel LLRs -> ``pipeline.fec.ldpc.LdpcDecoder`` (the profile's
+    ``ldpc_max_iterations``); ``decoder_failures`` are the codewords whose final syndrome was not zero.
+    Other profiles: the codes alone: random frames -> RS (E, I, virtual
     fill) -> randomizer -> ASM
     -> convolutional code -> BPSK symbols +-1 with real Gaussian noise, unquantized (float32), ->
     ``pipeline.fec.viterbi_decode`` -> cut at the known CADU boundaries ->
@@ -32,9 +35,9 @@ on the seed only, not on the number of worker processes.
 
 Outputs in ``out``: ``sweep.csv`` (one row per point), ``sweep.json`` (points, theory, losses) and
 ``sweep.png`` (curves beside uncoded BPSK, the K=7 union bound, the RS bounded-distance curve and
-the BI-AWGN capacity limit of the overall rate; for turbo profiles the frame error rate of the
-normal approximation for that (n, k), ../shared/REFERENCES.md sec. 13.5, and the losses are read
-at FER 1e-3 against it).
+the BI-AWGN capacity limit of the overall rate; for turbo and LDPC profiles the frame error rate of
+the normal approximation for that (n, k), ../shared/REFERENCES.md sec. 13.5, and the losses are read
+at FER 1e-3 against it; each point's ``extra`` holds the FER's 95 % Clopper-Pearson interval).
 """
 
 from __future__ import annotations
@@ -72,8 +75,9 @@ __all__ = [
 
 #: Error rate at which the implementation loss is read (issue 6).
 TARGET_BER = 1e-5
-#: Frame error rate at which turbo links are compared with the normal approximation (issue 16's targets).
-TARGET_FER_TURBO = 1e-3
+#: Frame error rate at which turbo and LDPC links are compared with the normal approximation (issue 15 and 16's
+#: targets).
+TARGET_FER_BLOCK = 1e-3
 
 # Information bits per code-stage batch: large enough to amortise the Viterbi call, small enough
 # that a point stops soon after reaching its error target.  Fixed, so results do not depend on it.
@@ -202,8 +206,8 @@ def simulate_code_point(profile: LinkProfile, ebn0_db: float, *, frames: int, er
     the last frame's bits are decoded with the same protection as the others.  Cost per frame:
     the encoders plus one Viterbi pass (64 states) and the RS decoder.
     """
-    if profile.coding.turbo != "none":
-        return _turbo_code_point(profile, ebn0_db, frames=frames, errors=errors, seed=seed)
+    if profile.coding.turbo != "none" or profile.coding.ldpc != "none":
+        return _block_code_point(profile, ebn0_db, frames=frames, errors=errors, seed=seed)
     from pipeline.fec import ASM, conv_encode, pn_sequence, rs_encode, viterbi_decode
 
     t0 = time.perf_counter()
@@ -268,22 +272,31 @@ def simulate_code_point(profile: LinkProfile, ebn0_db: float, *, frames: int, er
     return pt
 
 
-def _turbo_code_point(profile: LinkProfile, ebn0_db: float, *, frames: int, errors: int,
+def _block_code_point(profile: LinkProfile, ebn0_db: float, *, frames: int, errors: int,
                       seed: list[int]) -> SweepPoint:
-    """The code stage of a turbo profile (see the module docstring): batches of 128 frames until ``frames``
-    frames or ``errors`` *frame* errors (a turbo frame error holds hundreds of bit errors; issue 16 asks for
-    3000 frames or 50 frame errors a point)."""
-    from pipeline.tools._turbo import turbo_code_errors
-
+    """The code stage of a turbo or LDPC profile (see the module docstring): batches of 128 frames until
+    ``frames`` frames or ``errors`` *frame* errors (a frame error holds hundreds of bit errors; issues 15 and 16
+    ask for 3000 frames or 50 frame errors a point)."""
     t0 = time.perf_counter()
     c = profile.coding
     rng = np.random.default_rng(np.random.SeedSequence(seed))
     pt = SweepPoint(ebn0_db=float(ebn0_db), esn0_db=float(_esn0_db(profile, ebn0_db)), seed=list(seed), stage="code")
+    if c.turbo != "none":
+        from pipeline.tools._turbo import turbo_code_errors
+
+        def batch(nb: int) -> dict:
+            return turbo_code_errors(rng, rate=c.turbo, k=c.turbo_k, ebn0_db=ebn0_db, frames=nb,
+                                     max_iterations=c.turbo_max_iterations)
+    else:
+        from pipeline.tools._ldpc import ldpc_code_errors
+
+        def batch(nb: int) -> dict:
+            return ldpc_code_errors(rng, family=c.ldpc, rate=c.ldpc_rate, k=c.ldpc_k, ebn0_db=ebn0_db, frames=nb,
+                                    max_iterations=c.ldpc_max_iterations)
     iterations = 0
     while pt.frames < frames and pt.frame_errors < errors:
         nb = min(128, frames - pt.frames)
-        got = turbo_code_errors(rng, rate=c.turbo, k=c.turbo_k, ebn0_db=ebn0_db, frames=nb,
-                                max_iterations=c.turbo_max_iterations)
+        got = batch(nb)
         wrong = got["bit_errors"]
         pt.frames += nb
         pt.bits += got["bits"]
@@ -293,6 +306,7 @@ def _turbo_code_point(profile: LinkProfile, ebn0_db: float, *, frames: int, erro
         pt.undetected_frame_errors += got["undetected"]
         iterations += got["iterations"]
     pt.extra["mean_iterations"] = iterations / max(pt.frames, 1)
+    pt.extra["fer_ci95"] = list(_theory.clopper_pearson(pt.frame_errors, pt.frames)) if pt.frames else None
     pt.stopped_early = pt.frames < frames
     pt.elapsed_s = time.perf_counter() - t0
     return pt
@@ -468,14 +482,14 @@ def theory_curves(profile: LinkProfile, ebn0_db) -> dict[str, np.ndarray]:
     dict
         ``uncoded_bpsk`` always; ``conv_union_bound`` when the profile has a convolutional code (at its
         rate); ``rs_bounded_distance`` when it has RS and no convolutional code; ``normal_approx_fer``
-        (a frame error rate) for a turbo code: the normal approximation for its (n, k)
+        (a frame error rate) for a turbo or LDPC code: the normal approximation for its (n, k)
         (:func:`normal_approximation_fer`).
     """
     x = np.asarray(ebn0_db, dtype=np.float64)
     out = {"uncoded_bpsk": np.asarray(_theory.uncoded_bpsk_ber(x), dtype=np.float64).reshape(x.shape)}
     c = profile.coding
-    if c.turbo != "none":
-        n, k = profile.codeblock_bits, c.turbo_k
+    if c.turbo != "none" or c.ldpc != "none":
+        n, k = profile.codeblock_bits, c.block_code_info_bits
         out["normal_approx_fer"] = np.array([normal_approximation_fer(n, k, v) for v in x.ravel()]).reshape(x.shape)
     elif c.convolutional != "none":
         # the union bound is per information bit of the convolutional code: with RS outside it, that
@@ -519,8 +533,8 @@ def implementation_losses(profile: LinkProfile, points: list[SweepPoint], target
     """
     x = np.array([p.ebn0_db for p in points], dtype=np.float64)
     rate = profile.code_rate
-    if profile.coding.turbo != "none":
-        return _turbo_losses(profile, points, x, rate)
+    if profile.coding.turbo != "none" or profile.coding.ldpc != "none":
+        return _block_code_losses(profile, points, x, rate)
     result = {"target": target, "code_rate": rate,
               "capacity_limit_db": _theory.capacity_limit_ebn0_db(rate) if rate < 1 else None, "curves": []}
     fine = np.arange(-2.0, 16.0, 0.005)
@@ -561,10 +575,10 @@ def implementation_losses(profile: LinkProfile, points: list[SweepPoint], target
     return result
 
 
-def _turbo_losses(profile: LinkProfile, points: list[SweepPoint], x: np.ndarray, rate: float) -> dict:
-    """Turbo profiles: where the measured FER crosses 1e-3, against the normal approximation for (n, k)."""
-    target = TARGET_FER_TURBO
-    n, k = profile.codeblock_bits, profile.coding.turbo_k
+def _block_code_losses(profile: LinkProfile, points: list[SweepPoint], x: np.ndarray, rate: float) -> dict:
+    """Turbo and LDPC profiles: where the measured FER crosses 1e-3, against the normal approximation for (n, k)."""
+    target = TARGET_FER_BLOCK
+    n, k = profile.codeblock_bits, profile.coding.block_code_info_bits
     result = {"target": target, "code_rate": rate, "capacity_limit_db": _theory.capacity_limit_ebn0_db(rate),
               "curves": []}
     ys = np.array([p.fer for p in points], dtype=np.float64)
@@ -672,13 +686,20 @@ def _plot(path: Path, profile: LinkProfile, points: list[SweepPoint], losses: di
     c = profile.coding
     code = " + ".join(s for s in (f"conv {c.convolutional}" if c.convolutional != "none" else "",
                                    f"RS E={c.reed_solomon} I={c.interleave}" if c.reed_solomon else "",
-                                   f"turbo r={c.turbo} k={c.turbo_k}" if c.turbo != "none" else "") if s)
+                                   f"turbo r={c.turbo} k={c.turbo_k}" if c.turbo != "none" else "",
+                                   _ldpc_label(c)) if s)
     ax.set_title(f"{profile.name}: {code or 'uncoded'}, stage {points[0].stage}")
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=8, loc="lower left")
     fig.tight_layout()
     fig.savefig(path)
     plt.close(fig)
+
+
+def _ldpc_label(c) -> str:
+    if c.ldpc == "none":
+        return ""
+    return "LDPC C2 (8160,7136)" if c.ldpc == "c2" else f"LDPC AR4JA r={c.ldpc_rate} k={c.ldpc_k}"
 
 
 def write_outputs(folder: Path, profile: LinkProfile, points: list[SweepPoint], *, seed: int, frames: int,
@@ -695,7 +716,7 @@ def write_outputs(folder: Path, profile: LinkProfile, points: list[SweepPoint], 
         "seed": seed, "frames_max": frames, "errors_target": errors,
         "coding": {"convolutional": c.convolutional, "reed_solomon_e": c.reed_solomon, "interleave": c.interleave,
                    "randomizer": c.randomizer, "frame_length": profile.frames.length, "turbo": c.turbo,
-                   "turbo_k": c.turbo_k},
+                   "turbo_k": c.turbo_k, "ldpc": c.ldpc, "ldpc_rate": c.ldpc_rate, "ldpc_k": c.ldpc_k},
         "code_rate": profile.code_rate,
         "points": [{k: _json_value(v) for k, v in {**p.as_row(), "extra": p.extra}.items()} for p in points],
         "theory": {k: [_json_value(float(v)) for v in arr] for k, arr in theory.items()},

@@ -340,6 +340,50 @@ def _run_timecode(case: VectorCase) -> tuple[bool, str]:
     return ok, f"TAI {tai_ns} ns since 1958 in {octets} octets, expected {want['tai_ns_1958']} in {want['octets']}"
 
 
+def _run_ldpc_encode(case: VectorCase) -> tuple[bool, str]:
+    import hashlib
+
+    from pipeline.fec.ldpc import ldpc_code, ldpc_encode
+
+    p, want = case.data["params"], case.data["expected"]
+    code = ldpc_code(p["code"]) if p["code"] == "c2" else ldpc_code(p["code"], rate=p["rate"], k=p["k"])
+    info = _hex(case.data["input"]["hex"])
+    word = ldpc_encode(code, info).tobytes()
+    ok, detail = _cmp_bytes(word[: len(info)], info, f"{code.name} systematic part")
+    if not ok:
+        return ok, detail
+    ok, detail = _cmp_bytes(word[len(info): len(info) + 16], _hex(want["parity_first16"]), "first parity octets")
+    if not ok:
+        return ok, detail
+    digest = hashlib.sha256(word).hexdigest()
+    if digest != want["sha256"]:
+        return False, (f"{code.name}: SHA-256 of the {len(word)}-octet codeword {digest[:16]}.., expected "
+                       f"{want['sha256'][:16]}..")
+    return True, f"{code.name}: {len(word)}-octet codeword, parity and SHA-256 match"
+
+
+def _run_turbo_interleaver(case: VectorCase) -> tuple[bool, str]:
+    from pipeline.fec import turbo_interleaver
+
+    k, want = case.data["params"]["k"], case.data["expected"]
+    perm = np.asarray(turbo_interleaver(k), dtype=np.int64)
+    if perm.shape != (k,) or not np.array_equal(np.sort(perm), np.arange(k)):
+        return False, f"k = {k}: not a permutation of 0..{k - 1}"
+    first = [int(v) + 1 for v in perm[: len(want["first_1_based"])]]
+    if first != list(want["first_1_based"]) or int(perm[-1]) + 1 != want["last_1_based"]:
+        return False, f"k = {k}: pi(1..) = {first}, pi(k) = {int(perm[-1]) + 1}; expected {want['first_1_based']}, " \
+                      f"{want['last_1_based']}"
+    return True, f"k = {k}: a permutation; pi(1..{len(first)}) and pi(k) match"
+
+
+def _run_turbo_encode(case: VectorCase) -> tuple[bool, str]:
+    from pipeline.fec import turbo_encode
+
+    rate, want = case.data["params"]["rate"], case.data["expected"]
+    got = turbo_encode(_hex(case.data["input"]["hex"]), rate=rate)
+    return _cmp_bits(got, _bits(want["hex"], want["n_bits"]), f"rate {rate} codeword")
+
+
 def _run_whole_link(case: VectorCase) -> tuple[bool, str]:
     from pipeline.chain import decode
     from pipeline.profile import profile_from_dict
@@ -380,6 +424,9 @@ _RUNNERS: dict[str, Callable[[VectorCase], tuple[bool, str]]] = {
     "cuc": _run_timecode,
     "cds": _run_timecode,
     "whole_link": _run_whole_link,
+    "ldpc_encode": _run_ldpc_encode,
+    "turbo_interleaver": _run_turbo_interleaver,
+    "turbo_encode": _run_turbo_encode,
 }
 
 

@@ -41,6 +41,7 @@ __all__ = [
     "parity_check",
     "qc_generator",
     "ar4ja_permutation",
+    "expurgation_failures",
 ]
 
 LdpcFamily = Literal["c2", "ar4ja"]
@@ -60,6 +61,12 @@ _C2_A = (
 )
 _C2_SHORTENED = 18
 _C2_EXTENSION = 2
+# The two checks that expurgate the basic (8176,7156) code to the (8176,7154) subcode, each the sum of the
+# 511-blocks flagged here (block 0 first): ../shared/REFERENCES.md sec. 13.1, "expurgation, seen as checks"
+# (principle: CCSDS 130.1-G-2 sec. 8; the vectors computed there, the only ones orthogonal to the subcode).
+_C2_EXPURGATION_BLOCKS = ("0000110101111101", "0000011011100110")
+_C2_EXPURGATION_FLAGS = np.array([[int(f) for f in row] for row in _C2_EXPURGATION_BLOCKS], np.int32).T
+_BYTE_PARITY = np.array([bin(v).count("1") & 1 for v in range(256)], np.uint8)
 
 # AR4JA theta_k and phi_k(j, M), k = 1..26 (CCSDS 131.0-B-5 Tables 7-3, 7-4 as carried by a
 # general-purpose LDPC design library; 60 phi values confirmed in 131.0-B-2 p. 7-10: see
@@ -302,6 +309,54 @@ class SparseParityCheck:
         rows = np.repeat(np.arange(self.n_rows), np.diff(self.row_start))
         h[rows, self.cols] = 1
         return h
+
+
+def expurgation_failures(code: LdpcCode, words: np.ndarray) -> np.ndarray:
+    """Unsatisfied expurgation checks of decoded codewords (C2: 0, 1 or 2 each; AR4JA: always 0).
+
+    Parameters
+    ----------
+    code : LdpcCode
+    words : numpy.ndarray of uint8, shape (codewords, n / 8)
+        The sent codewords packed MSB first (:attr:`LdpcResult.codewords`).
+
+    Returns
+    -------
+    numpy.ndarray of int32, shape (codewords,)
+
+    Notes
+    -----
+    C2's H (1022 rows, rank 1020) is the parity-check matrix of the basic (8176,7156) code; the sent
+    code is its (8176,7154) subcode, which two more checks select, each constant on the 511-blocks:
+    the sum of the bits of the blocks flagged ``0000110101111101`` and of those flagged
+    ``0000011011100110`` must be even.  A word with a zero syndrome on H may still fail them (a word
+    of the basic code outside the subcode).  Cost: one pass over the packed octets
+    (:func:`~pipeline.fec.ldpc._kernels.block_parity_kernel`), about 1 us per codeword.
+
+    References
+    ----------
+    CCSDS 131.0-B-2 sec. 7.3.4 (the subcode); CCSDS 130.1-G-2 sec. 8 (expurgation as added checks).
+
+    Examples
+    --------
+    >>> from pipeline.fec.ldpc import ldpc_encode
+    >>> c2 = ldpc_code("c2")
+    >>> word = ldpc_encode(c2, bytes(892))[None].copy()
+    >>> int(expurgation_failures(c2, word)[0])
+    0
+    >>> word[0, 1000] ^= 0x80                 # one parity bit of block 15 (in the first check only)
+    >>> int(expurgation_failures(c2, word)[0])
+    1
+    """
+    from pipeline.fec.ldpc._kernels import block_parity_kernel
+
+    words = np.ascontiguousarray(np.atleast_2d(np.asarray(words, dtype=np.uint8)))
+    if code.family != "c2":
+        return np.zeros(words.shape[0], np.int32)
+    b = code.circulant
+    parity = np.zeros((words.shape[0], code.n_var // b), np.uint8)
+    block_parity_kernel(words, code.sent_vars, code.head_zeros, b, _BYTE_PARITY, parity)
+    return ((parity.astype(np.int32) @ _C2_EXPURGATION_FLAGS) & 1).sum(axis=1).astype(np.int32)
 
 
 def ar4ja_permutation(index: int, m: int) -> np.ndarray:

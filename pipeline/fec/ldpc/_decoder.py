@@ -8,7 +8,7 @@ from typing import Literal, get_args
 
 import numpy as np
 
-from pipeline.fec.ldpc._codes import LdpcCode, parity_check
+from pipeline.fec.ldpc._codes import LdpcCode, expurgation_failures, parity_check
 from pipeline.fec.ldpc._kernels import (
     LDPC_LANES,
     LDPC_MAX_ROW_WEIGHT,
@@ -48,10 +48,15 @@ class LdpcResult:
     iterations : numpy.ndarray of int32
         Iterations run (1..max_iterations; the syndrome is checked after each).
     syndrome_weight : numpy.ndarray of int32
-        Unsatisfied parity checks after the last iteration (0 where ``ok``).
+        Unsatisfied parity checks of the code after the last iteration (0 where ``ok``): the rows of H,
+        and for C2 also the two expurgation checks of the (8176,7154) subcode
+        (:func:`~pipeline.fec.ldpc.expurgation_failures`), which H alone does not hold.
     corrected_bits : numpy.ndarray of int32
         Sent bits whose decoded value differs from the sign of the soft input (an estimate of the
         channel bit errors where ``ok``).
+    codewords : numpy.ndarray of uint8, shape (codewords, n / 8)
+        The decided sent bits packed MSB first (``frames`` is its first k / 8 octets; C2's two
+        extension bits are 0).
     """
 
     frames: np.ndarray
@@ -59,6 +64,7 @@ class LdpcResult:
     iterations: np.ndarray
     syndrome_weight: np.ndarray
     corrected_bits: np.ndarray
+    codewords: np.ndarray | None = None
 
     def __len__(self) -> int:
         return int(self.ok.shape[0])
@@ -128,7 +134,10 @@ class LdpcDecoder:
     check-node rule with the correction above); after every iteration the syndrome of the hard
     decisions is computed and the codeword stops when it is zero (early termination) or after
     ``max_iterations``.  A codeword whose final syndrome is not zero is reported failed in
-    :class:`LdpcResult` (never raised).  Normalized is the default: it is invariant to the scale
+    :class:`LdpcResult` (never raised).  C2: H holds the basic (8176,7156) code, so a decoded word
+    is also checked against the two expurgation checks of the sent subcode (a per-block parity
+    test, :func:`~pipeline.fec.ldpc.expurgation_failures`); one that fails them counts in the
+    syndrome weight and is a failed codeword.  Normalized is the default: it is invariant to the scale
     of the soft input (up to quantisation), so an Es/N0 estimate that is off by a factor costs
     little, whereas the offset variant's subtraction assumes calibrated LLRs; bench/sweep_ldpc.py
     measures both.  Cost: about 3 passes over the edges of H per iteration (32704 edges for C2);
@@ -254,7 +263,7 @@ class LdpcDecoder:
         llr = self._as_llr(llr)
         n_cw = llr.shape[0]
         code, h, w = self.code, self._h, self._buffers()
-        frames = np.zeros((n_cw, code.frame_octets), np.uint8)
+        words = np.zeros((n_cw, (code.n + 7) // 8), np.uint8)
         iters = np.zeros(n_cw, np.int32)
         weight = np.zeros(n_cw, np.int32)
         flips = np.zeros(n_cw, np.int32)
@@ -262,16 +271,18 @@ class LdpcDecoder:
         if self.kernel == "vector":
             ldpc_decode_vector_kernel(*common, self._cols_w, self.max_iterations, self._alpha16, self._beta,
                                       DEFAULT_TAIL_LANES, w["post"], w["msg"], w["fresh"], w["weight"], w["lane_cw"],
-                                      w["lane_it"], w["p1"], w["m1"], w["qbuf"], w["qtmp"], frames, iters, weight,
+                                      w["lane_it"], w["p1"], w["m1"], w["qbuf"], w["qtmp"], words, iters, weight,
                                       flips)
         else:
             ldpc_decode_scalar_kernel(*common, self.max_iterations, self._alpha16, self._beta, w["p1"], w["m1"],
-                                      w["qbuf"], w["qtmp"], frames, iters, weight, flips)
+                                      w["qbuf"], w["qtmp"], words, iters, weight, flips)
+        weight += expurgation_failures(code, words)
         ok = weight == 0
         self.codewords += n_cw
         self.failed += int(np.count_nonzero(~ok))
         self.iterations_total += int(iters.sum())
-        return LdpcResult(frames=frames, ok=ok, iterations=iters, syndrome_weight=weight, corrected_bits=flips)
+        return LdpcResult(frames=np.ascontiguousarray(words[:, :code.frame_octets]), ok=ok, iterations=iters,
+                          syndrome_weight=weight, corrected_bits=flips, codewords=words)
 
     process = decode
 

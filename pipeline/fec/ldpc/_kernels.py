@@ -22,6 +22,7 @@ __all__ = [
     "ldpc_syndrome_kernel",
     "ldpc_decode_scalar_kernel",
     "ldpc_decode_vector_kernel",
+    "block_parity_kernel",
     "LDPC_LANES",
     "LDPC_MAX_ROW_WEIGHT",
 ]
@@ -30,6 +31,48 @@ __all__ = [
 LDPC_LANES = (32, 64)
 #: Longest row of H the vector kernel accepts (its per-row buffer; C2 has 32, AR4JA at most 18).
 LDPC_MAX_ROW_WEIGHT = 64
+
+
+# ---- block parities of packed codewords (C2 expurgation checks) ------------------------------------
+
+
+@njit(cache=True, nogil=True)
+def block_parity_kernel(words, n_bits, offset, block_bits, byte_parity, parity):
+    """``parity[c, b]`` ^= the parity of the bits of block ``b`` in codeword ``c``.
+
+    Bit ``i`` of ``words[c]`` (uint8, packed MSB first; the first ``n_bits`` count) is variable
+    ``offset + i``, which lies in block ``(offset + i) // block_bits``.  ``byte_parity`` (uint8, 256) is
+    the parity of each octet value; ``parity`` (uint8, (codewords, blocks), zeroed by the caller) is
+    the output.  Octets inside one block cost one table look-up (the block boundary is followed
+    incrementally, no division), the few that straddle a boundary (or end the word) are taken bit
+    by bit.  Cost: one pass over the octets, about 1 ns each.
+    """
+    n_oct = min(words.shape[1], (n_bits + 7) // 8)
+    for c in range(words.shape[0]):
+        b = offset // block_bits
+        edge = (b + 1) * block_bits  # first variable of the next block
+        acc = 0
+        for j in range(n_oct):
+            v0 = offset + 8 * j
+            last = min(8, n_bits - 8 * j)
+            byte = int(words[c, j])
+            if last == 8 and v0 + 8 <= edge:
+                acc ^= int(byte_parity[byte])
+                if v0 + 8 == edge:
+                    parity[c, b] ^= acc
+                    acc = 0
+                    b += 1
+                    edge += block_bits
+            else:
+                for t in range(last):
+                    if v0 + t >= edge:
+                        parity[c, b] ^= acc
+                        acc = 0
+                        b += 1
+                        edge += block_bits
+                    acc ^= (byte >> (7 - t)) & 1
+        if acc:  # (b may be one past the last block when the word ends on a block boundary; acc is 0 then)
+            parity[c, b] ^= acc
 
 
 # ---- GF(2) elimination --------------------------------------------------------------------------
@@ -197,20 +240,25 @@ def ldpc_syndrome_kernel(post, row_start, cols):
 
 
 @njit(cache=True, nogil=True)
-def _emit(hard, stride, lane, llr_row, n_sent, head_zeros, out_frame):
-    """Pack the information bits of a lane (the first 8 x len(out_frame) sent bits, MSB first) and
-    return how many of the ``n_sent`` sent bits the decoder flipped against the signs of ``llr_row``."""
-    n_info = 8 * out_frame.shape[0]
+def _emit(hard, stride, lane, llr_row, n_sent, head_zeros, out_word):
+    """Pack the decided sent bits of a lane (the first ``min(n_sent, 8 x len(out_word))``, MSB first, the
+    rest of ``out_word`` zero) and return how many of the ``n_sent`` sent bits the decoder flipped against
+    the signs of ``llr_row``."""
+    n_out = 8 * out_word.shape[0]
     flips = 0
     acc = 0
     for i in range(n_sent):
         d = 1 if hard[(head_zeros + i) * stride + lane] < 0 else 0
         flips += d ^ (1 if llr_row[i] < 0 else 0)
-        if i < n_info:
+        if i < n_out:
             acc = (acc << 1) | d
             if i & 7 == 7:
-                out_frame[i >> 3] = acc
+                out_word[i >> 3] = acc
                 acc = 0
+    if n_sent < n_out and n_sent & 7:
+        out_word[n_sent >> 3] = acc << (8 - (n_sent & 7))
+    for j in range((n_sent + 7) >> 3, out_word.shape[0]):
+        out_word[j] = 0
     return flips
 
 
@@ -245,7 +293,7 @@ def _finish_scalar(post, msg, row_start, cols, it, max_iter, alpha16, beta, qbuf
 
 @njit(cache=True, nogil=True)
 def ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, cols, max_iter, alpha16, beta,
-                              post, msg, qbuf, qtmp, out_frames, out_iters, out_weight, out_flips):
+                              post, msg, qbuf, qtmp, out_words, out_iters, out_weight, out_flips):
     """Decode codewords one at a time with :func:`ldpc_iteration_kernel` (the reference kernel).
 
     ``llr`` (float32, shape (codewords, >= n_sent)): soft values of the sent bits, + = bit 0; the
@@ -254,8 +302,9 @@ def ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, c
     ``head_zeros`` leading variables are set to +32767 (known zeros), the variables after the sent
     ones to 0 (punctured: erasures).  Each codeword starts with all messages 0 and runs
     iterations until the syndrome of the posteriors is zero (checked after every iteration, so
-    at least one runs) or ``max_iter``.  Outputs per codeword: ``out_frames`` the information bits
-    (the first sent bits) packed MSB first, ``out_iters`` the iterations run,
+    at least one runs) or ``max_iter``.  Outputs per codeword: ``out_words`` the decided sent bits
+    packed MSB first (as many as it holds; the information bits come first, bits past ``n_sent`` are 0),
+    ``out_iters`` the iterations run,
     ``out_weight`` the final syndrome weight (0 = success), ``out_flips`` how many sent bits
     differ from the signs of ``llr``.  ``post`` (int16, variables), ``msg`` (int8, edges), ``qbuf``,
     ``qtmp`` (int8, variables): work space.
@@ -266,7 +315,7 @@ def ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, c
         it, weight = _finish_scalar(post, msg, row_start, cols, 0, max_iter, alpha16, beta, qbuf)
         out_iters[c] = it
         out_weight[c] = weight
-        out_flips[c] = _emit(post, 1, 0, llr[c], n_sent, head_zeros, out_frames[c])
+        out_flips[c] = _emit(post, 1, 0, llr[c], n_sent, head_zeros, out_words[c])
 
 
 # ---- layered min-sum decoder: codewords side by side as LLVM vector code -----------------------
@@ -597,22 +646,31 @@ def _load_lanes(post, lanes_in, n_in, lane_cw, llr, n_sent, scale, clip, head_ze
 
 
 @njit(cache=True, nogil=True)
-def _emit_lanes(post, lanes_out, n_out, lane_cw, llr, n_sent, head_zeros, masks, out_frames, out_flips):
+def _emit_lanes(post, lanes_out, n_out, lane_cw, llr, n_sent, head_zeros, masks, out_words, out_flips):
     """:func:`_emit` for the codewords in lanes ``lanes_out[t]``, t < ``n_out``, at once: the sign bits
     of all lanes are gathered into one word per variable (``masks``), then read per lane."""
     _lanes_signs(post, masks)
-    n_oct = out_frames.shape[1]
+    n_oct = out_words.shape[1]
+    n_full = min(n_oct, n_sent // 8)  # octets of 8 sent bits; a last partial one is padded with zeros
     one = np.uint64(1)
     for t in range(n_out):
         lane = np.uint64(lanes_out[t])
         c = lane_cw[lanes_out[t]]
-        frame = out_frames[c]
-        for j in range(n_oct):
+        word = out_words[c]
+        for j in range(n_full):
             acc = np.uint64(0)
             base = head_zeros + 8 * j
             for b in range(8):
                 acc = (acc << one) | ((masks[base + b] >> lane) & one)
-            frame[j] = np.uint8(acc)
+            word[j] = np.uint8(acc)
+        if n_full < n_oct and n_sent % 8:
+            acc = np.uint64(0)
+            base = head_zeros + 8 * n_full
+            for b in range(8):
+                acc = acc << one
+                if b < n_sent % 8:
+                    acc = acc | ((masks[base + b] >> lane) & one)
+            word[n_full] = np.uint8(acc)
         row = llr[c]
         flips = 0
         for i in range(n_sent):
@@ -637,7 +695,7 @@ def _finish_lane(post, msg, fresh, lane, row_start, cols, it, max_iter, alpha16,
 @njit(cache=True, nogil=True)
 def ldpc_decode_vector_kernel(llr, n_sent, scale, clip, head_zeros, row_start, cols, cols_w, max_iter, alpha16,
                               beta, tail_lanes, post, msg, fresh, weight, lane_cw, lane_it, p1, m1, qbuf, qtmp,
-                              out_frames, out_iters, out_weight, out_flips):
+                              out_words, out_iters, out_weight, out_flips):
     """:func:`ldpc_decode_scalar_kernel` with W = ``fresh.shape[0]`` (32 or 64) codewords side by side.
 
     Same arguments and outputs, bit for bit, plus: ``cols_w`` (int32) = ``cols`` x W; ``post``
@@ -689,7 +747,7 @@ def ldpc_decode_vector_kernel(llr, n_sent, scale, clip, head_zeros, row_start, c
                 n_done += 1
         if n_done == 0:
             continue
-        _emit_lanes(post, moved, n_done, lane_cw, llr, n_sent, head_zeros, masks, out_frames, out_flips)
+        _emit_lanes(post, moved, n_done, lane_cw, llr, n_sent, head_zeros, masks, out_words, out_flips)
         n_new = 0
         for t in range(n_done):
             lane = moved[t]
@@ -712,7 +770,7 @@ def ldpc_decode_vector_kernel(llr, n_sent, scale, clip, head_zeros, row_start, c
                              p1, m1, qbuf)
         out_iters[c] = it
         out_weight[c] = w
-        out_flips[c] = _emit(p1, 1, 0, llr[c], n_sent, head_zeros, out_frames[c])
+        out_flips[c] = _emit(p1, 1, 0, llr[c], n_sent, head_zeros, out_words[c])
     if n_cw <= tail_lanes:
         ldpc_decode_scalar_kernel(llr, n_sent, scale, clip, head_zeros, row_start, cols, max_iter, alpha16, beta,
-                                  p1, m1, qbuf, qtmp, out_frames, out_iters, out_weight, out_flips)
+                                  p1, m1, qbuf, qtmp, out_words, out_iters, out_weight, out_flips)
