@@ -172,7 +172,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--profile", required=True, help="link profile (TOML)")
     p.add_argument("--ebn0", required=True, metavar="A:B:STEP", help="Eb/N0 range in dB, e.g. 0:6:0.5")
     p.add_argument("--frames", type=int, default=200, help="frames per point at most (default 200)")
-    p.add_argument("--errors", type=int, default=100, help="stop a point after this many bit errors")
+    p.add_argument("--errors", type=int, default=100,
+                   help="stop a point after this many errors: bit errors, frame errors for turbo and LDPC links")
     p.add_argument("--stage", choices=["code", "chain"], default="code",
                    help="code: the codes alone on AWGN; chain: the full chain with carrier and timing recovery")
     p.add_argument("--seed", type=int, default=1, help="random seed")

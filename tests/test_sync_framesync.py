@@ -491,7 +491,7 @@ def test_miss_rate_while_locked(e, ber):
         (dict(frame_bits=800, max_errors=16), ValueError, "Argument 'max_errors' must be 0..15, not 16."),
         (dict(frame_bits=800, flywheel=-1), ValueError, "Argument 'flywheel' must be 0..1000, not -1."),
         (dict(frame_bits=800, asm="1ACF"), TypeError, "Argument 'asm' must be bytes, not str."),
-        (dict(frame_bits=800.0), TypeError, "Argument 'frame_bits' must be an integer, not float."),
+        (dict(frame_bits=800.0), TypeError, "Argument 'frame_bits' must be an integer 8..4194304, not float."),
         (dict(frame_bits=800, check_frames=True), TypeError, "Argument 'check_frames' must be an integer"),
     ],
 )

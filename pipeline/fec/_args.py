@@ -20,13 +20,40 @@ def check_rate(rate) -> str:
     return rate
 
 
-def check_int(name: str, value, allowed_text: str, ok) -> int:
-    """Check an integer argument: not bool, integral, and ``ok(value)`` true."""
+def check_int(name: str, value, lo: int | None = None, hi: int | None = None, *, allowed: tuple = (),
+              or_none: bool = False) -> int:
+    """``value`` as int if it is an integer in ``lo..hi`` (either end may be open) or one of ``allowed``.
+
+    ``or_none`` only adds "or None" to the message, for parameters whose caller accepts None itself.
+
+    The one integer-argument check of the stages (STYLE.md rule 6): TypeError when ``value`` is not an
+    integer (bool is not), ValueError naming the parameter, the rule and the value otherwise.
+
+    Examples
+    --------
+    >>> check_int("interleave", 5, 1, 8)
+    5
+    >>> check_int("e", 12, allowed=(16, 8))
+    Traceback (most recent call last):
+    ...
+    ValueError: Argument 'e' must be 16 or 8, not 12.
+    """
+    if allowed:
+        rule = " or ".join(str(v) for v in allowed)
+    elif hi is None:
+        rule = f">= {lo}"
+    elif lo is None:
+        rule = f"<= {hi}"
+    else:
+        rule = f"{lo}..{hi}"
+    if or_none:
+        rule += " or None"
     if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer)):
-        raise TypeError(f"Argument '{name}' must be an integer {allowed_text}, not {value!r}.")
+        raise TypeError(f"Argument '{name}' must be an integer {rule}, not {type(value).__name__}.")
     value = int(value)
-    if not ok(value):
-        raise ValueError(f"Argument '{name}' must be {allowed_text}, not {value}.")
+    ok = value in allowed if allowed else (lo is None or value >= lo) and (hi is None or value <= hi)
+    if not ok:
+        raise ValueError(f"Argument '{name}' must be {rule}, not {value}.")
     return value
 
 

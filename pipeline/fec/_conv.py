@@ -161,7 +161,7 @@ class ConvEncoder:
 
     def __init__(self, *, rate: Rate = "1/2", initial_state: int = 0, g2_inverted: bool | None = None):
         self.rate = check_rate(rate)
-        self.initial_state = check_int("initial_state", initial_state, "0..63", lambda v: 0 <= v <= 63)
+        self.initial_state = check_int("initial_state", initial_state, 0, 63)
         self.g2_inverted = resolve_g2_inverted(self.rate, g2_inverted)
         self._keep1, self._keep2 = _rate_tables(self.rate)
         self.reset()
@@ -239,10 +239,10 @@ def conv_bit_symbol_index(n_bits: int, rate: Rate = "1/2", *, phase: int = 0) ->
     An exclusive cumulative sum of the symbols sent per pattern column.  Cost O(n_bits).
     """
     rate = check_rate(rate)
-    n_bits = check_int("n_bits", n_bits, ">= 0", lambda v: v >= 0)
+    n_bits = check_int("n_bits", n_bits, 0)
     pat = puncture_pattern(rate)
     period = pat.shape[1]
-    phase = check_int("phase", phase, f"0..{period - 1}", lambda v: 0 <= v < period)
+    phase = check_int("phase", phase, 0, period - 1)
     per_col = pat.sum(axis=0).astype(np.int64)
     counts = per_col[(np.arange(n_bits) + phase) % period]
     idx = np.zeros(n_bits, dtype=np.int64)

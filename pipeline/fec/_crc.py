@@ -55,5 +55,5 @@ def crc16(data, init: int = CRC16_INIT) -> int:
     CCSDS 132.0-B sec. 4.1.6.
     """
     arr, _ = as_bytes("data", data)
-    init = check_int("init", init, "0..0xFFFF", lambda v: 0 <= v <= 0xFFFF)
+    init = check_int("init", init, 0, 0xFFFF)
     return int(crc16_kernel(arr, init, _TABLE))

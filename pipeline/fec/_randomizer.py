@@ -48,6 +48,6 @@ def pn_sequence(n: int) -> np.ndarray:
     ----------
     CCSDS 131.0-B sec. 9 (sec. 10 in later issues); CCSDS 130.1-G-1 sec. 8.2.
     """
-    n = check_int("n", n, ">= 0", lambda v: v >= 0)
+    n = check_int("n", n, 0)
     reps = -(-n // PN_PERIOD_BITS)
     return np.tile(_PERIOD_BYTES, reps)[:n]

@@ -133,11 +133,11 @@ def rs_k(e: int) -> int:
 
 
 def _check_e(e) -> int:
-    return check_int("e", e, "16 or 8", lambda v: v in (16, 8))
+    return check_int("e", e, allowed=(16, 8))
 
 
 def _check_interleave(interleave) -> int:
-    return check_int("interleave", interleave, "1..8", lambda v: 1 <= v <= 8)
+    return check_int("interleave", interleave, 1, 8)
 
 
 def rs_generator(e: int) -> np.ndarray:

@@ -150,9 +150,9 @@ class ViterbiDecoder:
         self.g2_inverted = resolve_g2_inverted(self.rate, g2_inverted)
         if traceback_depth is None:
             traceback_depth = DEFAULT_TRACEBACK_DEPTH[self.rate]
-        self.traceback_depth = check_int("traceback_depth", traceback_depth, "32..4096", lambda v: 32 <= v <= 4096)
+        self.traceback_depth = check_int("traceback_depth", traceback_depth, 32, 4096)
         if initial_state is not None:
-            initial_state = check_int("initial_state", initial_state, "0..63 or None", lambda v: 0 <= v <= 63)
+            initial_state = check_int("initial_state", initial_state, 0, 63, or_none=True)
         self.initial_state = initial_state
         layout = _rate_layout(self.rate)
         self._block_symbols, self._block_steps, self._positions, self._steps_after = layout

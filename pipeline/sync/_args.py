@@ -4,16 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 
+from pipeline.fec._args import check_int  # the one integer-argument check of the stages
+
 __all__ = ["check_int", "as_soft_and_position"]
-
-
-def check_int(name: str, value, lo: int, hi: int) -> int:
-    """``value`` as int if it is an integer in ``lo..hi``; TypeError / ValueError naming ``name`` otherwise."""
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
-        raise TypeError(f"Argument '{name}' must be an integer, not {type(value).__name__}.")
-    if not lo <= value <= hi:
-        raise ValueError(f"Argument '{name}' must be {lo}..{hi}, not {value}.")
-    return int(value)
 
 
 def as_soft_and_position(soft, position) -> tuple[np.ndarray, np.ndarray]:

@@ -220,7 +220,7 @@ class TurboDecoder:
                  algorithm: TurboAlgorithm = "log-map", kernel: Literal["vector", "scalar"] = "vector"):
         code = TurboCode(rate=rate, k=k)  # validates rate and k
         self.code, self._tables = _tables(code.rate, code.k)
-        self.max_iterations = check_int("max_iterations", max_iterations, "1..100", lambda v: 1 <= v <= 100)
+        self.max_iterations = check_int("max_iterations", max_iterations, 1, 100)
         self.check = _check_choice("check", check, TURBO_CHECKS)
         self.algorithm = _check_choice("algorithm", algorithm, TURBO_ALGORITHMS)
         self.kernel = _check_choice("kernel", kernel, ("vector", "scalar"))
