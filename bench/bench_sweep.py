@@ -36,7 +36,9 @@ def viterbi_losses(rates, frames: int, errors: int, workers, seed: int) -> None:
         pts = sw.sweep(prof, sw.parse_ebn0_spec(_GRIDS[rate]), frames=frames, errors=errors, seed=seed,
                        workers=workers)
         loss = sw.implementation_losses(prof, pts)["curves"][0]
-        m = f"{loss['measured_db']:.3f}" if loss["measured_db"] is not None else "not reached"
+        lo, hi = loss["measured_low_db"], loss["measured_high_db"]
+        span = f" [{lo:.2f}, {hi:.2f}]" if lo is not None and hi is not None else ""
+        m = (f"{loss['measured_db']:.3f}" if loss["measured_db"] is not None else "no value") + span
         d = f"{loss['loss_db']:+.3f}" if loss["loss_db"] is not None else "n/a"
         print(f"{rate:<5} {m:>19} {loss['theory_db']:>17.3f} {d:>10} {len(pts):>7} {time.perf_counter() - t0:>9.1f}")
         for p in pts:

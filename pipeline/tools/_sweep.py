@@ -521,20 +521,80 @@ def normal_approximation_fer(n: int, k: int, ebn0_db: float) -> float:
     return float(_theory.q_function((n * c - k + 0.5 * math.log2(n)) / math.sqrt(n * v)))
 
 
+#: Errors a point needs before its rate is used as a value (fewer: only its 95 % interval is used).
+MIN_ERRORS_FOR_VALUE = 20
+
+#: What each comparison is called: a gap to a limit no code of that rate (or size) can pass is not an
+#: implementation loss; the distance from the same code's own theory is.
+_GAP_NAMES = {"capacity": "gap to capacity", "normal_approx_fer": "gap to the normal approximation",
+              "conv_union_bound": "implementation loss", "rs_bounded_distance": "implementation loss",
+              "uncoded_bpsk": "implementation loss"}
+
+_COUNTS = {"ber": ("bit_errors", "bits"), "ber_inner": ("inner_bit_errors", "inner_bits"),
+           "fer": ("frame_errors", "frames")}
+
+
+def measured_crossing(points: list[SweepPoint], measured: str, target: float) -> dict:
+    """Where a measured error-rate curve crosses ``target``, as a value and a 95 % interval (dB).
+
+    Each point's rate has a Clopper-Pearson interval (:func:`pipeline.tools._theory.clopper_pearson`); the
+    curve of the upper ends crosses ``target`` at ``high_db`` and that of the lower ends at ``low_db`` (zero
+    errors: lower end 0, the curve has passed).  ``value_db`` interpolates the measured rates themselves, and
+    is given only when both points around the crossing have at least :data:`MIN_ERRORS_FOR_VALUE` errors; a
+    point with a handful of errors, or none, bounds the crossing but does not place it.
+
+    Returns
+    -------
+    dict
+        ``value_db``, ``low_db``, ``high_db`` (None where the curve does not cross within the sweep) and
+        ``errors_near`` (the errors of the two points around the crossing).
+    """
+    x = np.array([p.ebn0_db for p in points], dtype=np.float64)
+    err_key, n_key = _COUNTS[measured]
+    errors = np.array([getattr(p, err_key) for p in points], dtype=np.int64)
+    trials = np.array([getattr(p, n_key) for p in points], dtype=np.int64)
+    out = {"value_db": None, "low_db": None, "high_db": None, "errors_near": None}
+    if len(x) < 2 or (trials <= 0).any():
+        return out
+    bounds = np.array([_theory.clopper_pearson(int(e), int(n)) for e, n in zip(errors, trials)])
+    rates = errors / trials
+    out["high_db"] = _theory.ebn0_at_ber(x, bounds[:, 1], target)
+    lower = np.where(bounds[:, 0] > 0, bounds[:, 0], target * 1e-3)  # no error: the lower end has passed
+    out["low_db"] = _theory.ebn0_at_ber(x, lower, target)
+    value = _theory.ebn0_at_ber(x, rates, target)
+    where = next((v for v in (value, out["high_db"], out["low_db"]) if v is not None), None)
+    if where is not None:
+        i = max(int(np.searchsorted(x, where)), 1)  # the points at i - 1 and i bracket the crossing
+        near = errors[i - 1: i + 1]
+        out["errors_near"] = [int(v) for v in near]
+        if value is not None and near.size == 2 and near.min() >= MIN_ERRORS_FOR_VALUE:
+            out["value_db"] = value
+    return out
+
+
 def implementation_losses(profile: LinkProfile, points: list[SweepPoint], target: float = TARGET_BER) -> dict:
-    """Eb/N0 where measurement and theory cross ``target``, and their difference (dB).
+    """Eb/N0 where measurement and theory cross ``target``, and their distance (dB), with 95 % intervals.
 
     Returns
     -------
     dict
         ``{"target": ..., "capacity_limit_db": ..., "code_rate": ..., "curves": [{"measured", "theory",
-        "measured_db", "theory_db", "loss_db"}, ...]}``; ``measured_db`` (and so ``loss_db``) is None
-        when the measured curve does not reach ``target`` within the sweep.
+        "name", "measured_db", "measured_low_db", "measured_high_db", "theory_db", "loss_db",
+        "loss_low_db", "loss_high_db"}, ...]}``.  ``name`` says what the distance is: an implementation
+        loss against the same code's theory, or a gap to capacity / to the normal approximation (limits no
+        real code reaches).  ``measured_db`` (and ``loss_db``) is None unless the points around the
+        crossing carry at least :data:`MIN_ERRORS_FOR_VALUE` errors; the interval ends are None where the
+        sweep does not reach them.
     """
-    x = np.array([p.ebn0_db for p in points], dtype=np.float64)
     rate = profile.code_rate
     if profile.coding.turbo != "none" or profile.coding.ldpc != "none":
-        return _block_code_losses(profile, points, x, rate)
+        target = TARGET_FER_BLOCK
+        n, k = profile.codeblock_bits, profile.coding.block_code_info_bits
+        result = {"target": target, "code_rate": rate, "capacity_limit_db": _theory.capacity_limit_ebn0_db(rate),
+                  "curves": []}
+        result["curves"].append(_curve(points, "fer", "normal_approx_fer", target,
+                                       _theory.normal_approximation_ebn0_db(n, k, target)))
+        return result
     result = {"target": target, "code_rate": rate,
               "capacity_limit_db": _theory.capacity_limit_ebn0_db(rate) if rate < 1 else None, "curves": []}
     fine = np.arange(-2.0, 16.0, 0.005)
@@ -553,46 +613,21 @@ def implementation_losses(profile: LinkProfile, points: list[SweepPoint], target
     elif points and points[0].stage == "chain":
         pairs.append(("ber", "capacity" if rate < 1 else "uncoded_bpsk"))
     for measured, theory in pairs:
-        ys = np.array([getattr(p, measured) for p in points], dtype=np.float64)
-        m_db = _theory.ebn0_at_ber(x, ys, target) if len(x) > 1 else None
-        from_bound = False
-        if m_db is None and len(x) > 1:
-            # A point with no errors says only BER < 3 / bits (95 % upper limit, the "rule of three":
-            # Hanley and Lippman-Hand, JAMA 249(13), 1983).  When that limit is below the target, the
-            # curve crossed it before that point: interpolating to the limit gives an Eb/N0 at or
-            # above the true crossing, i.e. a loss that is not understated.
-            n = np.array([getattr(p, "bits" if measured == "ber" else "inner_bits") for p in points], float)
-            upper = np.where((ys == 0) & (n > 0), 3.0 / np.maximum(n, 1.0), ys)
-            m_db = _theory.ebn0_at_ber(x, upper, target)
-            from_bound = m_db is not None
-        if theory == "capacity":
-            t_db = result["capacity_limit_db"]
-        else:
-            t_db = _theory.ebn0_at_ber(fine, th[theory], target)
-        loss = None if (m_db is None or t_db is None) else m_db - t_db
-        result["curves"].append({"measured": measured, "theory": theory, "measured_db": m_db, "theory_db": t_db,
-                                 "loss_db": loss, "measured_is_upper_bound": from_bound})
+        t_db = result["capacity_limit_db"] if theory == "capacity" else _theory.ebn0_at_ber(fine, th[theory], target)
+        result["curves"].append(_curve(points, measured, theory, target, t_db))
     return result
 
 
-def _block_code_losses(profile: LinkProfile, points: list[SweepPoint], x: np.ndarray, rate: float) -> dict:
-    """Turbo and LDPC profiles: where the measured FER crosses 1e-3, against the normal approximation for (n, k)."""
-    target = TARGET_FER_BLOCK
-    n, k = profile.codeblock_bits, profile.coding.block_code_info_bits
-    result = {"target": target, "code_rate": rate, "capacity_limit_db": _theory.capacity_limit_ebn0_db(rate),
-              "curves": []}
-    ys = np.array([p.fer for p in points], dtype=np.float64)
-    m_db = _theory.ebn0_at_ber(x, ys, target) if len(x) > 1 else None
-    from_bound = False
-    if m_db is None and len(x) > 1:  # a point without frame errors: its 95 % upper limit 3 / frames (see above)
-        frames = np.array([p.frames for p in points], dtype=np.float64)
-        m_db = _theory.ebn0_at_ber(x, np.where((ys == 0) & (frames > 0), 3.0 / np.maximum(frames, 1.0), ys), target)
-        from_bound = m_db is not None
-    t_db = _theory.normal_approximation_ebn0_db(n, k, target)
-    result["curves"].append({"measured": "fer", "theory": "normal_approx_fer", "measured_db": m_db, "theory_db": t_db,
-                             "loss_db": None if m_db is None else m_db - t_db,
-                             "measured_is_upper_bound": from_bound})
-    return result
+def _curve(points, measured: str, theory: str, target: float, t_db: float | None) -> dict:
+    m = measured_crossing(points, measured, target)
+
+    def minus(v):
+        return None if (v is None or t_db is None) else v - t_db
+
+    return {"measured": measured, "theory": theory, "name": _GAP_NAMES[theory], "measured_db": m["value_db"],
+            "measured_low_db": m["low_db"], "measured_high_db": m["high_db"], "errors_near": m["errors_near"],
+            "theory_db": t_db, "loss_db": minus(m["value_db"]), "loss_low_db": minus(m["low_db"]),
+            "loss_high_db": minus(m["high_db"])}
 
 
 def _loss_lines(losses: dict) -> list[str]:
@@ -600,17 +635,30 @@ def _loss_lines(losses: dict) -> list[str]:
              "conv_union_bound": "K=7 union bound", "rs_bounded_distance": "RS bounded-distance",
              "uncoded_bpsk": "uncoded BPSK", "capacity": "BI-AWGN capacity limit", "fer": "frame error rate",
              "normal_approx_fer": "normal approximation for (n, k)"}
+
+    def db(v):
+        return "?" if v is None else f"{v:.2f}"
+
     lines = []
     for cv in losses["curves"]:
         t = f"{cv['theory_db']:.2f} dB" if cv["theory_db"] is not None else "n/a"
-        if cv["measured_db"] is None:
+        lo, hi = cv["measured_low_db"], cv["measured_high_db"]
+        if lo is None and hi is None and cv["measured_db"] is None:
             lines.append(f"{names[cv['measured']]}: does not reach {losses['target']:g} in the sweep "
                          f"({names[cv['theory']]}: {t})")
+            continue
+        where = f"between {db(lo)} and {db(hi)} dB (95 %)"
+        if cv["measured_db"] is not None:
+            gap = (f"{cv['name']} {cv['loss_db']:+.2f} dB [{db(cv['loss_low_db'])}, {db(cv['loss_high_db'])}]")
+            lines.append(f"{names[cv['measured']]} reaches {losses['target']:g} at {cv['measured_db']:.2f} dB, "
+                         f"{where}; {names[cv['theory']]} {t}; {gap}")
         else:
-            at_most = "<= " if cv.get("measured_is_upper_bound") else ""
-            note = " (from a point with no errors, 95 % upper limit)" if at_most else ""
-            lines.append(f"{names[cv['measured']]} reaches {losses['target']:g} at {at_most}{cv['measured_db']:.2f} dB"
-                         f"{note}; {names[cv['theory']]} {t}; implementation loss {at_most}{cv['loss_db']:+.2f} dB")
+            near = cv.get("errors_near")
+            why = (f"fewer than {MIN_ERRORS_FOR_VALUE} errors at the points around it ({near})" if near
+                   else "no point places it")
+            lines.append(f"{names[cv['measured']]} reaches {losses['target']:g} {where}; no single value: {why}; "
+                         f"{names[cv['theory']]} {t}; {cv['name']} between {db(cv['loss_low_db'])} and "
+                         f"{db(cv['loss_high_db'])} dB")
     return lines
 
 
