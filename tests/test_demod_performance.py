@@ -100,9 +100,11 @@ def test_inspect_carrier_offset_within_1_hz(tmp_path):
     assert abs(res["esn0_db"] - 5.0) < 0.5
     assert res["lock_fraction"] > 0.95
     assert res["start"] == "2026-03-14T09:30:00.000000000Z"
-    # the RRC spectrum is flat over +-(1 - b) Rs / 2 and zero beyond (1 + b) Rs / 2 (Proakis sec. 9.2)
-    assert abs(res["spectrum_peak_hz"] - 3217.3) < 0.5 * 1.5 * RS
-    for key in ("sample_rate_hz", "duration_s", "datatype", "spectrum_peak_hz", "esn0_db", "lock_fraction"):
+    # the RRC spectrum is flat over +-(1 - b) Rs / 2 and zero beyond (1 + b) Rs / 2 (Proakis sec. 9.2): the
+    # band holding 99 % of the signal power is centred on the carrier and between those two widths
+    assert abs(res["band_centre_hz"] - 3217.3) < 0.05 * RS
+    assert (1 - 0.5) * RS <= res["occupied_bandwidth_hz"] <= (1 + 0.5) * RS
+    for key in ("sample_rate_hz", "duration_s", "datatype", "band_centre_hz", "esn0_db", "lock_fraction"):
         assert key in res
     assert {"spectrum_freq_hz", "spectrum_db", "constellation"} <= set(res["plots"])
     paths = write_inspect_plots(res, tmp_path / "plots")
