@@ -107,7 +107,8 @@ def inspect_recording(recording: Any, *, profile: Any = None, max_seconds: float
     -------
     dict
         ``sample_rate_hz``, ``num_samples``, ``duration_s``, ``analysed_s``, ``datatype``,
-        ``start`` (ISO-8601 UTC), ``frequency_hz``, ``band_centre_hz``, ``occupied_bandwidth_hz``, ``band_above_noise_db`` (the signal band, :func:`occupied_band`), ``nonfinite_samples``;
+        ``start`` (ISO-8601 UTC), ``frequency_hz``, ``band_centre_hz``, ``occupied_bandwidth_hz``,
+        ``band_above_noise_db`` (the signal band, :func:`occupied_band`), ``nonfinite_samples``;
         with a profile also ``modulation``, ``symbol_rate_baud``, ``carrier_found``, ``message``,
         ``carrier_offset_hz`` (at the recording start), ``carrier_rate_hz_per_s``, ``esn0_db``
         (per modulation symbol, median of the locked blocks' M2M4 estimates), ``ebn0_db``,
