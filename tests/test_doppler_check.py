@@ -151,3 +151,6 @@ altitude_m = {ALT_M}
     check = summary.report["doppler_check"]
     assert abs(check["mean_residual_hz"] - OSC_OFFSET_HZ) < 5.0 and check["residual_rms_hz"] < 10.0
     assert (out / "doppler.tdm").read_text().count("RECEIVE_FREQ_1") == sum(1 for _ in open(out / "doppler.csv")) - 1
+    # the report draws the residual over the pass and explains it
+    page = (out / "report.html").read_text()
+    assert "Doppler residual: the measured carrier frequency minus" in page

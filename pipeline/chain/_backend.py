@@ -36,6 +36,7 @@ class TrackLog:
     carrier_locked: list = field(default_factory=list)
     symbol_locked: list = field(default_factory=list)
     modulation_index_rad: list = field(default_factory=list)
+    residual_hz: list = field(default_factory=list)  # measured - predicted Doppler (--tle/--oem), NaN where none
 
     def append(self, tp) -> None:
         self.position.append(float(tp.position))
@@ -58,8 +59,11 @@ class TrackLog:
     def arrays(self) -> dict[str, np.ndarray]:
         """The track as arrays; ``locked`` is carrier and symbol lock together."""
         locked = np.asarray(self.carrier_locked, bool) & np.asarray(self.symbol_locked, bool)
-        return {"position": np.asarray(self.position, np.float64), "carrier_hz": np.asarray(self.carrier_hz),
-                "esn0_db": np.asarray(self.esn0_db), "locked": locked}
+        out = {"position": np.asarray(self.position, np.float64), "carrier_hz": np.asarray(self.carrier_hz),
+               "esn0_db": np.asarray(self.esn0_db), "locked": locked}
+        if self.residual_hz:
+            out["residual_hz"] = np.asarray(self.residual_hz, np.float64)
+        return out
 
 
 def sample_keys(d: dict) -> dict:
@@ -213,6 +217,8 @@ class BackEnd:
             rows = doppler_rows(track, self.clock, self.downlink_frequency_hz, tuning_offset_hz=self.tuning_offset_hz)
             if self.doppler_check is not None:
                 rows = self.doppler_check.process(rows)
+                self.track.residual_hz.extend(math.nan if r["residual_hz"] is None else float(r["residual_hz"])
+                                              for r in rows)
             self.sinks.doppler(rows)
         for tp in track:
             self.track.append(tp)

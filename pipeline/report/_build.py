@@ -448,6 +448,8 @@ def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locke
         track_esn0_db=np.where(usable, esn0, np.nan) if tpos.size else None,
         track_carrier_hz=np.where(usable, carrier, np.nan) if tpos.size else None,
         track_locked=locked if tpos.size else None,
+        track_doppler_residual_hz=(np.where(usable, np.asarray(f.track["residual_hz"], np.float64), np.nan)
+                                   if tpos.size and "residual_hz" in f.track else None),
         frame_time_s=ft if fpos.size else None,
         frame_duration_s=frame_s,
         frame_category=_frame_categories(flog) if fpos.size else None,

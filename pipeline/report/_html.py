@@ -334,6 +334,11 @@ _PANEL_TEXT = {
              "processing block, drawn only while carrier and symbols were locked (grey background: no lock).",
     "carrier offset": "Carrier offset: the received carrier's frequency minus the recording's centre "
                       "frequency (Doppler plus oscillator offsets), while locked.",
+    "Doppler residual": "Doppler residual: the measured carrier frequency minus the one predicted from the orbit "
+                        "given with --tle or --oem (light time included), while locked. Flat means the orbit and "
+                        "the measurement agree; its level is the spacecraft oscillator's offset.",
+    "decoder iterations": "Iterations lane: how many iterations the LDPC or turbo decoder used on each frame, on "
+                          "the scale given at the left (its limit); a frame at the limit was hard to decode.",
     "frame status": "Frame quality, top lane: each frame where it was received; green good, grey idle, red "
                     "failed a check (Reed-Solomon, FECF or header), purple another spacecraft, orange missing by the "
                     "frame count.",

@@ -72,6 +72,8 @@ class PlotData:
         0 good, 1 idle, 2 failed, 3 another spacecraft.
     frame_rs_corrected : array_like of int
         Reed-Solomon symbols corrected per codeblock, -1 failed (None without Reed-Solomon).
+    track_doppler_residual_hz : array_like of float
+        Measured minus predicted Doppler at each track point (``decode --tle`` / ``--oem``), NaN where none.
     frame_iterations, frame_iterations_max : array_like of int, int
         Iterations the LDPC or turbo decoder used per frame (-1: none ran) and its limit.
     frame_rs_max : int
@@ -111,6 +113,7 @@ class PlotData:
     frame_asm_errors: Any = None
     frame_iterations: Any = None
     frame_iterations_max: int = 0
+    track_doppler_residual_hz: Any = None
     frame_flywheel: Any = None
     missing_spans_s: list = field(default_factory=list)
     ber_time_s: Any = None
@@ -499,6 +502,8 @@ _TIMELINE: tuple[tuple[str, float, Callable], ...] = (
     ("Es/N0", 1.1, lambda ax, axis, d: _panel_line(ax, axis, d, d.track_esn0_db, "Es/N0", "Es/N0 (dB)")),
     ("carrier offset", 1.1, lambda ax, axis, d: _panel_line(ax, axis, d, d.track_carrier_hz, "carrier offset",
                                                             "carrier\noffset (Hz)")),
+    ("Doppler residual", 1.0, lambda ax, axis, d: _panel_line(ax, axis, d, d.track_doppler_residual_hz,
+                                                              "Doppler residual", "Doppler\nresidual (Hz)")),
     ("frame quality", 1.7, _panel_quality),
     ("bit error rate", 1.1, _panel_ber),
 )
@@ -510,6 +515,7 @@ def _usable_panels(d: PlotData) -> list[tuple[str, float, Callable]]:
         "waterfall": d.waterfall_db is not None,
         "Es/N0": d.track_esn0_db is not None and d.track_time_s is not None,
         "carrier offset": d.track_carrier_hz is not None and d.track_time_s is not None,
+        "Doppler residual": d.track_doppler_residual_hz is not None and d.track_time_s is not None,
         "frame quality": d.frame_time_s is not None and d.frame_category is not None,
         "bit error rate": d.ber_time_s is not None and len(d.ber_time_s) > 0,
     }
