@@ -109,3 +109,26 @@ def test_a_killed_decode_leaves_nothing_that_looks_complete_and_the_next_run_cle
     assert any(name.startswith(".out.partial") for name in left)  # SIGKILL cannot clean up
     assert subprocess.run(cmd, capture_output=True).returncode == 0
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out", "sim"]
+
+
+def test_a_full_disk_is_an_output_error(tmp_path, demo_profile, monkeypatch, capsys):
+    # issue 13: writing fails with ENOSPC part-way: one Error line, exit 4, nothing left that looks complete
+    import errno
+
+    from pipeline.chain import _sinks
+    from pipeline.cli import main
+    from pipeline.sim import simulate
+
+    sim = simulate(demo_profile, tmp_path / "sim", seconds=1.5, seed=6)
+
+    def full(self, obj, data):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(_sinks.FolderSinks, "_packet", full)
+    capsys.readouterr()
+    code = main(["decode", str(sim.meta_path), "--profile", str(demo_profile_path()), "--out", str(tmp_path / "o"),
+                 "-q"])
+    err = capsys.readouterr().err
+    assert code == ExitCode.BAD_OUTPUT
+    assert err.startswith("Error: ") and "No space left on device" in err and err.count("\n") == 1
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["sim"]
