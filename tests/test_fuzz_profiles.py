@@ -33,7 +33,8 @@ _coding = st.one_of(
                            "turbo": st.sampled_from(["1/2", "1/3", "1/4", "1/6"]),
                            "turbo_k": st.sampled_from([1784, 3568]), "turbo_max_iterations": st.integers(1, 12)}),
     st.fixed_dictionaries({"convolutional": st.just("none"), "reed_solomon": st.just(0),
-                           "ldpc": st.sampled_from(["c2", "ar4ja"]), "ldpc_rate": st.sampled_from(["1/2", "2/3", "4/5"]),
+                           "ldpc": st.sampled_from(["c2", "ar4ja"]),
+                           "ldpc_rate": st.sampled_from(["1/2", "2/3", "4/5"]),
                            "ldpc_k": st.just(1024), "ldpc_max_iterations": st.integers(1, 30)}),
 )
 _frames = st.fixed_dictionaries({
