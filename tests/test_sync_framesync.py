@@ -57,7 +57,7 @@ def run(fs, soft, pos, cuts=None):
     return out + fs.flush()
 
 
-def reference_sync(bits, frame_bits, marker, e, check_frames, flywheel, slip):
+def reference_sync(bits, frame_bits, marker, e, check_frames, flywheel, slip, lookback=0):
     """Slow, obvious synchronizer over the whole stream at once (same rules as FrameSync's docstring)."""
     m = len(marker)
     L = m + frame_bits
@@ -77,6 +77,7 @@ def reference_sync(bits, frame_bits, marker, e, check_frames, flywheel, slip):
         return out + held
 
     s = 0
+    floor = 0  # end of the last CADU whose marker was found: the look-back stays at or after it
     while True:
         c = None
         for q in range(s, n - m + 1):
@@ -96,10 +97,34 @@ def reference_sync(bits, frame_bits, marker, e, check_frames, flywheel, slip):
         if not ok:
             s = c + 1
             continue
-        # locked at c: the held flywheel CADUs that overlap the frame at c were on a grid that no longer holds
-        out += [h for h in held if h[0] + L <= c]
+        # locked at c: look back over up to `lookback` periods (never before `floor`); after a miss only a
+        # marker the search would take counts (with hard decisions that is the same test); stop after
+        # flywheel + 1 misses in a row
+        back, misses, q = [], 0, c - L
+        while q >= max(floor, c - lookback * L):
+            er, inv_q = errs(q)
+            if er <= e:
+                back.append((q, er, inv_q))
+                misses = 0
+            else:
+                misses += 1
+                if misses > flywheel:
+                    break
+            q -= L
+        first = back[-1][0] if back else c
+        # the held flywheel CADUs that overlap the lock's first frame were on a grid that no longer holds
+        out += [h for h in held if h[0] + L <= first]
         held = []
-        p, misses, inverted, last, found_last = c, 0, inv, c - 1, c - 1
+        found_back = {q: (er, inv_q) for q, er, inv_q in back}
+        inverted = back[-1][2] if back else inv
+        for q in range(first, c, L):
+            if q in found_back:
+                er, inverted = found_back[q]
+                out.append((q, er, inverted, False, data(q, inverted)))
+            else:
+                up = sum(int(bits[q + j]) != int(marker[j]) for j in range(m))
+                out.append((q, m - up if inverted else up, inverted, True, data(q, inverted)))
+        p, misses, last, found_last = c, 0, c - 1, c - 1
         while True:
             if p + m > n:
                 return done()
@@ -125,7 +150,7 @@ def reference_sync(bits, frame_bits, marker, e, check_frames, flywheel, slip):
                 out += held
                 held = []
                 out.append((q, er2, inverted, False, data(q, inverted)))
-                last, found_last, p = q, q, q + L
+                last, found_last, p, floor = q, q, q + L, q + L
             else:
                 misses += 1
                 if misses > flywheel:
@@ -360,11 +385,12 @@ def test_matches_slow_reference(seed):
     rng = np.random.default_rng(1000 + seed)
     bits, fb = noisy_scenario(rng)
     params = dict(max_errors=int(rng.integers(2, 7)), check_frames=int(rng.integers(0, 3)),
-                  flywheel=int(rng.integers(0, 4)), slip_bits=int(rng.integers(0, 4)))
+                  flywheel=int(rng.integers(0, 4)), slip_bits=int(rng.integers(0, 4)),
+                  lookback_frames=[0, 0, 3, 8][seed])
     fs = FrameSync(frame_bits=fb, **params)
     got = as_tuples(run(fs, to_soft(bits), np.arange(bits.size, dtype=np.float64)))
     want = reference_sync(bits, fb, ASM_BITS, params["max_errors"], params["check_frames"], params["flywheel"],
-                          params["slip_bits"])
+                          params["slip_bits"], params["lookback_frames"])
     assert got == want
     assert len(got) > 10
 
@@ -564,6 +590,30 @@ def test_turbo_marker_stream(rng):
     assert all(c.data == np.packbits(f).tobytes() for c, f in zip(out, frames))
 
 
+def test_look_back_on_hard_decisions_equals_the_reference():
+    # with hard correlation the look-back (off by default there) finds what a rejected candidate left behind:
+    # a marker found, the next one spoiled, so the check fails and the search locks on a later pair
+    total = 0
+    for seed in range(30):
+        rng = np.random.default_rng(3000 + seed)
+        fb = int(rng.integers(60, 300))
+        frames = [rng.integers(0, 2, fb, dtype=np.uint8) for _ in range(int(rng.integers(4, 14)))]
+        errs = rng.choice([0, 0, 1, 3, 9, 12], size=len(frames))
+        bits, _ = build_stream(rng, frames, prefix_bits=int(rng.integers(0, 600)), marker_errors=errs,
+                               invert=rng.random(len(frames)) < 0.2, suffix_bits=int(rng.integers(0, 200)))
+        bits = bits ^ (rng.random(bits.size) < 0.01).astype(np.uint8)
+        kw = dict(max_errors=int(rng.integers(2, 6)), check_frames=int(rng.integers(1, 3)),
+                  flywheel=int(rng.integers(0, 4)), slip_bits=int(rng.integers(0, 3)),
+                  lookback_frames=int(rng.integers(1, 9)))
+        fs = FrameSync(frame_bits=fb, **kw)
+        cuts = rng.choice(np.arange(1, bits.size), size=int(rng.integers(0, 20)), replace=False)
+        got = as_tuples(run(fs, to_soft(bits), np.arange(bits.size, dtype=np.float64), cuts=cuts))
+        assert got == reference_sync(bits, fb, ASM_BITS, kw["max_errors"], kw["check_frames"], kw["flywheel"],
+                                     kw["slip_bits"], kw["lookback_frames"])
+        total += fs.stats.lookback_cadus
+    assert total >= 10
+
+
 # ---- property: any scenario, any chunking: the stage equals the slow reference -------------------------------
 @settings(max_examples=40, deadline=None)
 @given(
@@ -575,15 +625,19 @@ def test_turbo_marker_stream(rng):
     flywheel=st.integers(0, 3),
     slip_bits=st.integers(0, 3),
     n_cuts=st.integers(0, 12),
+    lookback=st.integers(0, 4),
+    slips=st.booleans(),
 )
 def test_property_equals_reference_for_any_chunking(seed, n_frames, frame_bits, max_errors, check_frames, flywheel,
-                                                    slip_bits, n_cuts):
+                                                    slip_bits, n_cuts, lookback, slips):
+    # without slips the frame grid holds, so the look-back (which has no slip search) finds markers that a
+    # rejected candidate or a loss of lock left behind
     rng = np.random.default_rng(seed)
     slip_bits = min(slip_bits, frame_bits // 2)
     frames = []
     for _ in range(n_frames):
         f = rng.integers(0, 2, frame_bits, dtype=np.uint8)
-        d = int(rng.choice([0, 0, 0, -1, 1, 2, -5, 9]))
+        d = int(rng.choice([0, 0, 0, -1, 1, 2, -5, 9])) if slips else 0
         if d > 0:
             f = np.concatenate((f, rng.integers(0, 2, d, dtype=np.uint8)))
         elif d < 0:
@@ -596,8 +650,8 @@ def test_property_equals_reference_for_any_chunking(seed, n_frames, frame_bits, 
     bits = bits ^ (rng.random(bits.size) < 0.02).astype(np.uint8)
     cuts = rng.choice(np.arange(1, bits.size), size=min(n_cuts, bits.size - 1), replace=False) if bits.size > 1 else []
     fs = FrameSync(frame_bits=frame_bits, max_errors=max_errors, check_frames=check_frames, flywheel=flywheel,
-                   slip_bits=slip_bits)
+                   slip_bits=slip_bits, lookback_frames=lookback)
     got = as_tuples(run(fs, to_soft(bits), np.arange(bits.size, dtype=np.float64), cuts=cuts))
-    assert got == reference_sync(bits, frame_bits, ASM_BITS, max_errors, check_frames, flywheel, slip_bits)
+    assert got == reference_sync(bits, frame_bits, ASM_BITS, max_errors, check_frames, flywheel, slip_bits, lookback)
     assert fs.stats.cadus == len(got)
     assert all(b[0] > a[0] for a, b in zip(got, got[1:]))  # strictly in stream order

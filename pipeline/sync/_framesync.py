@@ -13,12 +13,18 @@ from pipeline.sync import _kernels
 from pipeline.sync._args import as_soft_and_position, check_int
 from pipeline.sync._types import Cadu, SyncEvent
 
-__all__ = ["FrameSync", "FrameSyncStats", "DEFAULT_ASM", "Correlation"]
+__all__ = ["FrameSync", "FrameSyncStats", "DEFAULT_ASM", "DEFAULT_LOOKBACK_FRAMES", "Correlation"]
 
 #: The 32-bit attached sync marker 1ACFFC1D (CCSDS 131.0-B sec. 8.2), first transmitted bit = MSB.
 DEFAULT_ASM = ASM
 
+#: Frame periods a soft-correlation synchronizer looks back when it locks (``lookback_frames=None``).
+DEFAULT_LOOKBACK_FRAMES = 8
+
 _SEARCH, _CHECK, _LOCK = "search", "check", "lock"
+
+#: Smallest capacity of the bit buffer (bits); it doubles as needed.
+_MIN_BUFFER_BITS = 1 << 14
 
 #: How the marker is compared: hard decisions against ``max_errors``, or the normalised soft correlation.
 Correlation = Literal["hard", "soft"]
@@ -40,6 +46,7 @@ class FrameSyncStats:
     polarity_changes: int = 0
     asm_errors: int = 0  # marker bit errors summed over the CADUs whose marker was found
     flywheel_dropped: int = 0  # flywheel CADUs withdrawn: after the loss of lock a marker was found inside them
+    lookback_cadus: int = 0  # CADUs before the marker a lock started on, recovered by the look-back (in cadus too)
     bits_discarded: int = 0  # bits received after the last CADU when the stream was flushed
 
     def as_dict(self) -> dict:
@@ -80,6 +87,12 @@ class FrameSync:
     search_threshold, lock_threshold : float
         Soft correlation thresholds (in standard deviations of the score on noise), ``0 <
         lock_threshold <= search_threshold``.
+    lookback_frames : int or None
+        When a lock is confirmed, the expected marker positions up to this many frame periods before
+        the marker it started on are checked as in lock, and the CADUs found there are emitted first
+        (0 .. 1000; 0 = no look-back).  None: ``DEFAULT_LOOKBACK_FRAMES`` (8) with soft correlation,
+        0 with hard (whose search and lock tests are the same).  The soft values of that many
+        periods are held while searching.
 
     Notes
     -----
@@ -106,6 +119,20 @@ class FrameSync:
       without a candidate) are delivered, and those overlapping the newly found frame were cut on
       a grid that no longer holds: they are withdrawn (``flywheel_dropped``).  So CADUs always
       come out in stream order and never overlap a CADU whose marker was found after them.
+    * Look-back (``lookback_frames = K > 0``): when the check confirms a candidate ``c``, the
+      positions ``c - L, c - 2L, ...`` are examined, newest first, down to ``max(f, c - K L)``, where
+      ``f`` is the end of the last CADU whose marker was found (the stream's start before any): each
+      with the lock threshold while every position after it passed, and with the search threshold
+      after a miss (a gap is bridged only by a marker the search itself would have taken); the walk
+      stops after ``flywheel + 1`` misses in a row.  From the oldest marker found on, the CADUs at
+      those positions are emitted before ``c``'s, in stream order: the markers found, and the misses
+      between them as flywheel CADUs (polarity of the marker before).  No bit-slip search there.  So
+      markers that the search passed over for want of the search threshold (at the Es/N0 of LDPC and
+      turbo codes the 32-bit ASM reaches 4.5 only about one time in two) are recovered once the lock
+      shows where the frame grid is: the lower threshold is used only behind a confirmed lock,
+      which is what keeps false markers on noise as rare as before.  Held flywheel CADUs (below)
+      count the oldest CADU emitted as the position of the new lock, and while searching only those
+      ending at least ``K L`` bits before the search position are delivered.
     * A complemented marker means the codeblock is complemented (180-degree phase ambiguity); the
       data are re-inverted and ``inverted`` is set.  The polarity is followed marker by marker.
 
@@ -122,8 +149,11 @@ class FrameSync:
 
     Every decision needs only bits already received and is taken as soon as they are, so the
     output does not depend on how the input is cut into chunks.  Memory is bounded by about
-    ``(max(check_frames, flywheel) + 2) L`` bits plus one input chunk.  Search cost: the kernel
-    :func:`~pipeline.sync._kernels.find_marker`, O(max_errors) per offset on random data.
+    ``(max(check_frames, flywheel, lookback_frames) + 2) L`` bits plus one input chunk (13 octets a
+    bit: soft value, hard decision, position), in a buffer that grows by doubling and is compacted in
+    place, so a chunk costs O(chunk) and not O(buffer).  Search cost: the kernel
+    :func:`~pipeline.sync._kernels.find_marker`, O(max_errors) per offset on random data; the
+    look-back O(K m) per lock.
 
     References
     ----------
@@ -146,6 +176,7 @@ class FrameSync:
         correlation: Correlation = "hard",
         search_threshold: float = 4.5,
         lock_threshold: float = 3.0,
+        lookback_frames: int | None = None,
     ) -> None:
         if isinstance(asm, (bytearray, memoryview)):
             asm = bytes(asm)
@@ -170,6 +201,9 @@ class FrameSync:
         if float(lock_threshold) > float(search_threshold):
             raise ValueError(f"Argument 'lock_threshold' must be at most search_threshold ({search_threshold}), "
                              f"not {lock_threshold}.")
+        if lookback_frames is None:
+            lookback_frames = DEFAULT_LOOKBACK_FRAMES if correlation == "soft" else 0
+        self.lookback_frames = check_int("lookback_frames", lookback_frames, 0, 1000, or_none=True)
         self.correlation = correlation
         self.search_threshold = float(search_threshold)
         self.lock_threshold = float(lock_threshold)
@@ -234,11 +268,7 @@ class FrameSync:
         """
         soft, position = as_soft_and_position(soft, position)
         if soft.size:
-            hard = np.empty(soft.size, dtype=np.uint8)
-            _kernels.hard_decisions(soft, hard)
-            self._hard = np.concatenate((self._hard, hard))
-            self._soft = np.concatenate((self._soft, soft))
-            self._pos = np.concatenate((self._pos, position))
+            self._append(soft, position)
             self._end += soft.size
             self.stats.bits_in += soft.size
         out: list[Cadu] = []
@@ -259,11 +289,59 @@ class FrameSync:
         self._clear_stream(self._end)
         return out
 
+    # ---- the bit buffer -------------------------------------------------------------------------
+    # ``_hard``, ``_soft``, ``_pos`` are views of the bits held, ``_hard[0]`` being absolute bit ``_base``;
+    # they live at ``_off`` in arrays of capacity ``_cap`` that double when full and are compacted in place.
+    def _views(self) -> None:
+        a, b = self._off, self._off + self._held_bits
+        self._hard, self._soft, self._pos = self._hard_buf[a:b], self._soft_buf[a:b], self._pos_buf[a:b]
+
+    def _new_buffer(self, capacity: int) -> None:
+        self._cap = capacity
+        self._hard_buf = np.zeros(capacity, dtype=np.uint8)
+        self._soft_buf = np.zeros(capacity, dtype=np.float32)
+        self._pos_buf = np.zeros(capacity, dtype=np.float64)
+        self._off = 0
+
+    def _append(self, soft: np.ndarray, position: np.ndarray) -> None:
+        n, held = soft.size, self._held_bits
+        self._last_chunk = n
+        if self._off + held + n > self._cap:
+            old = (self._hard, self._soft, self._pos)
+            if held + n > self._cap // 2:  # grow: the copy costs at most as much as the appends since the last
+                self._new_buffer(max(2 * self._cap, 2 * (held + n)))
+            else:  # compact in place: the live part (at most half) moves to the front
+                self._off = 0
+            for buf, src in zip((self._hard_buf, self._soft_buf, self._pos_buf), old):
+                buf[:held] = src
+        a = self._off + held
+        self._soft_buf[a : a + n] = soft
+        self._pos_buf[a : a + n] = position
+        _kernels.hard_decisions(soft, self._hard_buf[a : a + n])
+        self._held_bits = held + n
+        self._views()
+
+    def _drop(self, count: int) -> None:
+        self._off += count
+        self._held_bits -= count
+        self._base += count
+        if self._held_bits == 0:
+            self._off = 0
+        self._views()
+        held = self._held_bits
+        if self._cap > 4 * max(_MIN_BUFFER_BITS, held + self._last_chunk):  # after a large chunk or a long search
+            old = (self._hard[:held], self._soft[:held], self._pos[:held])
+            self._new_buffer(max(_MIN_BUFFER_BITS, 2 * (held + self._last_chunk)))
+            for buf, src in zip((self._hard_buf, self._soft_buf, self._pos_buf), old):
+                buf[:held] = src
+        self._views()
+
     # ---- state machine ------------------------------------------------------------------------
     def _clear_stream(self, end: int) -> None:
-        self._hard = np.zeros(0, dtype=np.uint8)
-        self._soft = np.zeros(0, dtype=np.float32)
-        self._pos = np.zeros(0, dtype=np.float64)
+        self._new_buffer(_MIN_BUFFER_BITS)
+        self._held_bits = 0
+        self._last_chunk = 0
+        self._views()
         self._base = end  # absolute bit index of self._hard[0]
         self._end = end  # absolute index one past the last bit received
         self._state = _SEARCH
@@ -276,21 +354,23 @@ class FrameSync:
         self._last_cadu_start = end - 1
         self._last_cadu_end = end
         self._last_found = end - 1  # start of the last CADU whose marker was found (the search restarts after it)
+        self._floor = end  # end of the last CADU whose marker was found: the look-back stays at or after it
         self._held: list[Cadu] = []  # flywheel CADUs not yet delivered
+
+    def _reach(self, at: int) -> int:
+        """The oldest bit a lock confirmed at ``at`` or later can look back to (``at`` without look-back)."""
+        return min(at, max(self._floor, at - self.lookback_frames * self.cadu_bits))
 
     def _trim(self) -> None:
         if self._state == _SEARCH:
-            keep = self._search_at
+            keep = self._reach(self._search_at)
         elif self._state == _CHECK:
-            keep = self._candidate
+            keep = self._reach(self._candidate)
         else:  # a loss re-searches from one bit after the last marker found; the slip window looks back
             keep = min(self._last_found + 1, self._expected - self.slip_bits)
         drop = min(keep, self._end) - self._base
         if drop > 0:
-            self._hard = self._hard[drop:]
-            self._soft = self._soft[drop:]
-            self._pos = self._pos[drop:]
-            self._base += drop
+            self._drop(drop)
 
     def _mismatches(self, at: int) -> tuple[int, bool]:
         """(mismatches, inverted) of the better polarity of the marker at absolute bit ``at``."""
@@ -305,14 +385,16 @@ class FrameSync:
         err = int(np.count_nonzero(self._hard[r : r + self.marker_bits] != self._marker))
         return self.marker_bits - err if inverted else err
 
-    def _confirm(self, at: int) -> tuple[bool, int, bool]:
-        """(matches at the check/lock threshold, hard mismatches, inverted) of the marker at ``at``."""
+    def _confirm(self, at: int, strict: bool = False) -> tuple[bool, int, bool]:
+        """(matches, hard mismatches, inverted) of the marker at ``at``: at the check/lock threshold, or
+        with ``strict`` at the search threshold (the same test with hard correlation)."""
         if self.correlation == "hard":
             err, inv = self._mismatches(at)
             return err <= self.max_errors, err, inv
         score = _kernels.marker_score(self._soft, at - self._base, self._sign)
         inv = score < 0.0
-        return abs(score) >= self.lock_threshold, self._errors(at, inv), inv
+        threshold = self.search_threshold if strict else self.lock_threshold
+        return abs(score) >= threshold, self._errors(at, inv), inv
 
     def _search(self, stop: int, final: bool) -> int:
         """Next candidate offset from ``search_at`` (absolute); -1: none before ``stop``; -2: more bits needed.
@@ -369,10 +451,11 @@ class FrameSync:
 
     def _advance(self, out: list[Cadu], final: bool) -> None:
         self._step(out, final)
-        if self._state == _SEARCH:  # no lock can start before these: the held CADUs ending there stand
-            self._release(out, self._search_at)
+        # no lock (nor its look-back) can reach back before these: the held CADUs ending there stand
+        if self._state == _SEARCH:
+            self._release(out, self._reach(self._search_at))
         elif self._state == _CHECK:
-            self._release(out, self._candidate)
+            self._release(out, self._reach(self._candidate))
 
     def _release(self, out: list[Cadu], limit: int | None, *, drop_rest: bool = False) -> None:
         """Deliver the held flywheel CADUs that end at or before bit ``limit`` (all for None); with
@@ -408,14 +491,17 @@ class FrameSync:
                 self._state = _CHECK
             elif self._state == _CHECK:
                 if self._checks_passed == self.check_frames:
+                    c = self._candidate
                     self._state = _LOCK
-                    self._expected = self._candidate
+                    self._expected = c
                     self._misses = 0
-                    self._last_cadu_start = self._candidate - 1
-                    self._last_found = self._candidate - 1
-                    self._release(out, self._candidate, drop_rest=True)
                     self.stats.locks += 1
-                    self._event("lock_acquired", self._candidate)
+                    found = self._look_back(c)
+                    self._event("lock_acquired", c, detail="" if not found else
+                                f"look-back: {(c - found[-1][0]) // L} CADUs before it, from bit {found[-1][0]}")
+                    self._emit_look_back(out, c, found)
+                    self._last_cadu_start = c - 1
+                    self._last_found = c - 1
                     continue
                 q = self._candidate + (self._checks_passed + 1) * L
                 if q + m > end:
@@ -429,6 +515,50 @@ class FrameSync:
             else:
                 if not self._lock_step(out, final, m, L, e, w):
                     return
+
+    def _look_back(self, c: int) -> list[tuple[int, int, bool]]:
+        """The markers the look-back finds behind a lock confirmed at ``c`` (class Notes), newest first:
+        (position, hard mismatches, inverted)."""
+        L = self.cadu_bits
+        lo = self._reach(c)
+        found: list[tuple[int, int, bool]] = []
+        misses = 0
+        q = c - L
+        while q >= lo:
+            ok, err, inv = self._confirm(q, strict=misses > 0)
+            if ok:
+                found.append((q, err, inv))
+                misses = 0
+            else:
+                misses += 1
+                if misses > self.flywheel:
+                    break
+            q -= L
+        return found
+
+    def _emit_look_back(self, out: list[Cadu], c: int, found: list[tuple[int, int, bool]]) -> None:
+        """Deliver the held flywheel CADUs before the lock's first CADU (withdraw the others), then the
+        look-back's CADUs from its oldest marker up to ``c`` (exclusive), the misses as flywheel CADUs."""
+        L = self.cadu_bits
+        if not found:
+            self._release(out, c, drop_rest=True)
+            return
+        first = found[-1][0]
+        self._release(out, first, drop_rest=True)
+        markers = {q: (err, inv) for q, err, inv in found}
+        for q in range(first, c, L):
+            if q in markers:
+                err, inv = markers[q]
+                if q != first and inv != self._inverted:
+                    self.stats.polarity_changes += 1
+                    self._event("polarity_change", q)
+                self._inverted = inv
+                self.stats.asm_errors += err
+                cadu = self._cut(q, err, flywheel=False)
+            else:
+                cadu = self._cut(q, self._errors(q, self._inverted), flywheel=True)
+            self._deliver(out, cadu)
+            self.stats.lookback_cadus += 1
 
     def _lock_step(self, out: list[Cadu], final: bool, m: int, L: int, e: int, w: int) -> bool:
         """One marker decision while locked; False when more bits are needed first."""
@@ -462,6 +592,7 @@ class FrameSync:
             self._release(out, None)  # the flywheel CADUs before it were on the grid
             self._deliver(out, self._cut(found, err, flywheel=False))
             self._last_found = found
+            self._floor = found + L
             self._expected = found + L
             return True
         self._misses += 1
@@ -511,7 +642,7 @@ class FrameSync:
             marker_soft=marker_soft,
         )
 
-    def _event(self, kind: str, at: int, offset_bits: int = 0) -> None:
+    def _event(self, kind: str, at: int, offset_bits: int = 0, detail: str = "") -> None:
         r = at - self._base
         pos = float(self._pos[r]) if 0 <= r < self._pos.size else float("nan")
-        self.events.append(SyncEvent(kind=kind, bit_index=at, position=pos, offset_bits=offset_bits))
+        self.events.append(SyncEvent(kind=kind, bit_index=at, position=pos, offset_bits=offset_bits, detail=detail))
