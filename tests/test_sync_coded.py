@@ -116,8 +116,8 @@ def reference_soft_sync(y, marker: np.ndarray, frame_bits: int, ts: float, tl: f
 
     The rules of FrameSync's docstring written out plainly: flywheel CADUs are held until a marker decides; the
     look-back at a lock walks back from the candidate, at the lock threshold while nothing has been missed and at
-    the search threshold after a miss, never into the last CADU whose marker was found; a loss searches again
-    from one bit after the last marker found.  Returns (bit index, inverted, flywheel) per CADU.
+    the search threshold after a miss (and with the lock's slip window), never behind the last marker found (one
+    bit after it is where a search after a loss of lock starts).  Returns (bit index, inverted, flywheel) per CADU.
     """
     m = marker.size
     L = m + frame_bits
@@ -139,24 +139,33 @@ def reference_soft_sync(y, marker: np.ndarray, frame_bits: int, ts: float, tl: f
         if abs(z(c + L)) < tl:
             s = c + 1
             continue
-        back, misses, q = [], 0, c - L
-        while q >= max(floor, c - lookback * L):
-            if abs(z(q)) >= (ts if misses else tl):
-                back.append(q)
-                misses = 0
+        lo = max(floor, c - lookback * L)
+        back, misses, newer = [], 0, c
+        while newer - L >= lo:
+            p = newer - L
+            q = p if abs(z(p)) >= (ts if misses else tl) else None
+            if q is None:
+                window = range(max(p - slip, lo), min(p + slip, newer - 1) + 1)
+                cands = [r for r in window if r != p and abs(z(r)) >= ts]
+                q = min(cands, key=lambda r: (-abs(z(r)), abs(r - p), r)) if cands else None
+            if q is not None:
+                back.append((q, True))
+                misses, newer = 0, q
             else:
-                misses += 1
+                back.append((p, False))
+                misses, newer = misses + 1, p
                 if misses > flywheel:
                     break
-            q -= L
-        first = back[-1] if back else c
+        while back and not back[-1][1]:
+            back.pop()
+        back.reverse()
+        first = back[0][0] if back else c
         out += [h for h in held if h[0] + L <= first]
         held = []
-        inv = z(first) < 0
-        for q in range(first, c, L):
-            if q in back:
+        for q, found in back:
+            if found:
                 inv = z(q) < 0
-            out.append((q, inv, q not in back))
+            out.append((q, inv, not found))
         p, misses, last, found_last = c, 0, c - 1, c - 1
         while True:
             if p + m > n:
@@ -179,7 +188,7 @@ def reference_soft_sync(y, marker: np.ndarray, frame_bits: int, ts: float, tl: f
                 held = []
                 out.append((q, inv, False))
                 last = found_last = q
-                p, misses, floor = q + L, 0, q + L
+                p, misses, floor = q + L, 0, q + 1
                 continue
             misses += 1
             if misses <= flywheel:
@@ -219,8 +228,11 @@ def test_soft_sync_equals_the_reference_and_any_chunking(rate, esn0_db):
     # FCB88938D8D76A4F), so at a good Es/N0 half a marker early already scores above the search threshold
     rng = np.random.default_rng(int(5 - esn0_db))
     y, starts, marker, n = coded_stream(rng, rate, 8, esn0_db, invert_from=5, slip_at=3)
-    ref = reference_soft_sync(y, marker, n, 4.5, 3.0, 3, 2)
     fs = FrameSync(frame_bits=n, asm=TURBO_ASMS[rate], correlation="soft", keep_soft=True)
+    # the default search threshold keeps the false-candidate rate of the ASM at 4.5 (Beta law, see below)
+    assert fs.search_threshold == pytest.approx(
+        math.sqrt(marker.size * stats.beta.isf(stats.beta.sf(4.5 ** 2 / 32, 0.5, 15.5), 0.5, (marker.size - 1) / 2)))
+    ref = reference_soft_sync(y, marker, n, fs.search_threshold, 3.0, 3, 2, fs.lookback_frames)
     got = run_sync(fs, y)
     assert [(c.bit_index, c.inverted, c.flywheel) for c in got] == ref
     # every marker found where it was sent, the one after the lost bit too (a bit slip followed in lock)
@@ -337,6 +349,31 @@ def test_look_back_stays_behind_the_last_marker_found():
     assert fs.events[-1].detail == f"look-back: 1 CADUs before it, from bit {starts[11]}"
     without = run_sync(FrameSync(frame_bits=400, correlation="soft", flywheel=3, lookback_frames=0), y)
     assert [c.bit_index for c in without] == starts[:8] + starts[12:]
+
+
+@pytest.mark.parametrize("slip", [-2, -1, 1, 2])
+def test_look_back_follows_a_bit_slip(slip):
+    # a symbol clock still pulling in gains or loses a bit between the first two markers after the onset (seen
+    # on simulated IQ onsets): the first marker is a candidate whose check one period on fails; the lock starts
+    # on the second, and the look-back finds the first with the lock's slip window
+    rng = np.random.default_rng(40 + slip)
+    y, starts = onset_stream(rng, frame_bits=500, n_frames=8, esn0_db=3.0, lead_bits=300, slips=False, weak=0.0,
+                             invert_from=None)
+    if slip > 0:
+        y = np.concatenate([y[:starts[0] + 200], rng.normal(0, 0.2, slip).astype(np.float32), y[starts[0] + 200:]])
+    else:
+        y = np.delete(y, np.arange(starts[0] + 200, starts[0] + 200 - slip))
+    want = [starts[0]] + [s + slip for s in starts[1:]]
+    fs = FrameSync(frame_bits=500, correlation="soft")
+    got = run_sync(fs, y, (1000, 2000))
+    assert [c.bit_index for c in got] == want and not any(c.flywheel for c in got)
+    assert fs.stats.false_candidates == 1 and fs.stats.lookback_cadus == 1 and fs.stats.bit_slips == 1
+    slip_event = [e for e in fs.events if e.kind == "bit_slip"]
+    assert len(slip_event) == 1 and (slip_event[0].bit_index, slip_event[0].offset_bits) == (want[1], slip)
+    assert [(c.bit_index, c.inverted, c.flywheel) for c in got] == reference_soft_sync(
+        y, ASM_BITS, 500, 4.5, 3.0, 3, 2, 8)
+    without = run_sync(FrameSync(frame_bits=500, correlation="soft", lookback_frames=0), y)
+    assert [c.bit_index for c in without] == want[1:]
 
 
 def test_soft_sync_arguments():

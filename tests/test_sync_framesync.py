@@ -77,7 +77,7 @@ def reference_sync(bits, frame_bits, marker, e, check_frames, flywheel, slip, lo
         return out + held
 
     s = 0
-    floor = 0  # end of the last CADU whose marker was found: the look-back stays at or after it
+    floor = 0  # one bit after the last marker found (where a search after a loss starts): the look-back stays there
     while True:
         c = None
         for q in range(s, n - m + 1):
@@ -97,29 +97,40 @@ def reference_sync(bits, frame_bits, marker, e, check_frames, flywheel, slip, lo
         if not ok:
             s = c + 1
             continue
-        # locked at c: look back over up to `lookback` periods (never before `floor`); after a miss only a
-        # marker the search would take counts (with hard decisions that is the same test); stop after
-        # flywheel + 1 misses in a row
-        back, misses, q = [], 0, c - L
-        while q >= max(floor, c - lookback * L):
-            er, inv_q = errs(q)
-            if er <= e:
-                back.append((q, er, inv_q))
-                misses = 0
+        # locked at c: look back over up to `lookback` periods (never before `floor`), with the lock's slip
+        # window; after a miss only a marker the search would take counts (with hard decisions that is the same
+        # test); stop after flywheel + 1 misses in a row; nothing before the oldest marker found
+        lo = max(floor, c - lookback * L)
+        back, misses, newer = [], 0, c
+        while newer - L >= lo:
+            p = newer - L
+            er, inv_q = errs(p)
+            q = p if er <= e else None
+            if q is None:
+                cands = [(errs(r)[0], abs(r - p), r) for r in range(max(p - slip, lo), min(p + slip, newer - 1) + 1)
+                         if r != p and errs(r)[0] <= e]
+                if cands:
+                    q = min(cands)[2]
+                    er, inv_q = errs(q)
+            if q is not None:
+                back.append((q, er, inv_q, True))
+                misses, newer = 0, q
             else:
-                misses += 1
+                back.append((p, None, None, False))
+                misses, newer = misses + 1, p
                 if misses > flywheel:
                     break
-            q -= L
-        first = back[-1][0] if back else c
+        while back and not back[-1][3]:
+            back.pop()
+        back.reverse()
+        first = back[0][0] if back else c
         # the held flywheel CADUs that overlap the lock's first frame were on a grid that no longer holds
         out += [h for h in held if h[0] + L <= first]
         held = []
-        found_back = {q: (er, inv_q) for q, er, inv_q in back}
-        inverted = back[-1][2] if back else inv
-        for q in range(first, c, L):
-            if q in found_back:
-                er, inverted = found_back[q]
+        inverted = inv
+        for q, er, inv_q, found in back:
+            if found:
+                inverted = inv_q
                 out.append((q, er, inverted, False, data(q, inverted)))
             else:
                 up = sum(int(bits[q + j]) != int(marker[j]) for j in range(m))
@@ -150,7 +161,7 @@ def reference_sync(bits, frame_bits, marker, e, check_frames, flywheel, slip, lo
                 out += held
                 held = []
                 out.append((q, er2, inverted, False, data(q, inverted)))
-                last, found_last, p, floor = q, q, q + L, q + L
+                last, found_last, p, floor = q, q, q + L, q + 1
             else:
                 misses += 1
                 if misses > flywheel:

@@ -7,21 +7,73 @@ from dataclasses import asdict, dataclass
 from typing import Literal
 
 import numpy as np
+from scipy import special
 
 from pipeline.fec import ASM
 from pipeline.sync import _kernels
 from pipeline.sync._args import as_soft_and_position, check_int
 from pipeline.sync._types import Cadu, SyncEvent
 
-__all__ = ["FrameSync", "FrameSyncStats", "DEFAULT_ASM", "DEFAULT_LOOKBACK_FRAMES", "Correlation"]
+__all__ = ["FrameSync", "FrameSyncStats", "DEFAULT_ASM", "DEFAULT_LOOKBACK_FRAMES", "DEFAULT_LOOKBACK_BITS",
+           "ASM_SEARCH_THRESHOLD", "soft_search_threshold", "Correlation"]
 
 #: The 32-bit attached sync marker 1ACFFC1D (CCSDS 131.0-B sec. 8.2), first transmitted bit = MSB.
 DEFAULT_ASM = ASM
 
-#: Frame periods a soft-correlation synchronizer looks back when it locks (``lookback_frames=None``).
+#: A soft-correlation synchronizer looks back at least this many frame periods when it locks
+#: (``lookback_frames=None``) ...
 DEFAULT_LOOKBACK_FRAMES = 8
+#: ... and at least this many bits: short codewords behind the 32-bit ASM are where the search misses most.
+DEFAULT_LOOKBACK_BITS = 1 << 16
 
 _SEARCH, _CHECK, _LOCK = "search", "check", "lock"
+
+#: Soft search threshold of the 32-bit ASM; other markers get the one with its false-candidate rate on noise.
+ASM_SEARCH_THRESHOLD = 4.5
+
+
+def soft_search_threshold(marker_bits: int) -> float:
+    """The soft search threshold of an ``m``-bit marker: as rare a false candidate on noise as the ASM's at 4.5.
+
+    Parameters
+    ----------
+    marker_bits : int
+        Length of the marker, 16 .. 256 bits.
+
+    Returns
+    -------
+    float
+        ``T(m) = sqrt(m x)`` with ``x`` the upper ``p`` quantile of Beta(1/2, (m - 1)/2), ``p = I_c(20.25 /
+        32; 1/2, 31/2) = 3.17e-8``: the probability per bit that the score of the 32-bit ASM reaches 4.5 on
+        noise.
+
+    Notes
+    -----
+    On Gaussian noise the window of m soft values points in a direction uniform on the sphere, so
+    ``z^2 / m`` (the squared cosine of its angle with the marker) is Beta(1/2, (m - 1)/2) whatever the
+    noise power; the tail is far lighter than the Gaussian ``2 Q(T)`` for short markers (3.2e-8 against
+    6.8e-6 at 4.5 for m = 32) and approaches it as m grows (4.1e-6 for m = 192).  One threshold for
+    every marker would thus give the 192-bit turbo marker 130 times the false candidates (and false
+    locks) per bit of the ASM.  ``T(m)``: 4.5 (32 bits), 4.98 (64), 5.15 (96), 5.24 (128), 5.34 (192).
+    At the Es/N0 where each code works (ASM at -1.2 dB for AR4JA rate 1/2; 64 bits at -3 dB, 192 bits
+    at -8 dB) a marker then misses the search threshold with probability 0.58, 0.07 and 0.03, and the
+    look-back recovers the frames the search passed over (``bench/bench_sync_onset.py``).  Cost: one
+    inverse incomplete beta function.
+
+    References
+    ----------
+    The distribution of the squared cosine of a uniform direction: standard result (common practice, no
+    published source named here); ``scipy.special.betainccinv``.
+
+    Examples
+    --------
+    >>> [round(soft_search_threshold(m), 2) for m in (32, 64, 96, 128, 192)]
+    [4.5, 4.98, 5.15, 5.24, 5.34]
+    """
+    m = check_int("marker_bits", marker_bits, 16, 256)
+    p = special.betaincc(0.5, 15.5, ASM_SEARCH_THRESHOLD**2 / 32.0)
+    return float(math.sqrt(m * special.betainccinv(0.5, (m - 1) / 2.0, p)))
+
 
 #: Smallest capacity of the bit buffer (bits); it doubles as needed.
 _MIN_BUFFER_BITS = 1 << 14
@@ -85,14 +137,17 @@ class FrameSync:
         for a slip) or ``lock_threshold`` at an expected position (check and lock); ``max_errors`` is
         then not used.  For the low Es/N0 of turbo and LDPC codes.
     search_threshold, lock_threshold : float
-        Soft correlation thresholds (in standard deviations of the score on noise), ``0 <
-        lock_threshold <= search_threshold``.
+        Soft correlation thresholds (the score on noise has unit variance), ``0 < lock_threshold <=
+        search_threshold``.  ``search_threshold=None``: :func:`soft_search_threshold` of the marker
+        (4.5 for the 32-bit ASM, up to 5.34 for the 192-bit turbo marker).
     lookback_frames : int or None
         When a lock is confirmed, the expected marker positions up to this many frame periods before
         the marker it started on are checked as in lock, and the CADUs found there are emitted first
-        (0 .. 1000; 0 = no look-back).  None: ``DEFAULT_LOOKBACK_FRAMES`` (8) with soft correlation,
-        0 with hard (whose search and lock tests are the same).  The soft values of that many
-        periods are held while searching.
+        (0 .. 1000; 0 = no look-back).  None: with soft correlation ``DEFAULT_LOOKBACK_FRAMES`` (8)
+        periods or ``DEFAULT_LOOKBACK_BITS`` (65536) bits, whichever is more (32 periods of AR4JA
+        k = 1024 behind the ASM, 19 of turbo k = 1784 rate 1/2, 8 of anything longer than 8192
+        bits); 0 with hard correlation (whose search and lock tests are the same).  The soft values
+        of that many periods are held while searching.
 
     Notes
     -----
@@ -119,28 +174,34 @@ class FrameSync:
       without a candidate) are delivered, and those overlapping the newly found frame were cut on
       a grid that no longer holds: they are withdrawn (``flywheel_dropped``).  So CADUs always
       come out in stream order and never overlap a CADU whose marker was found after them.
-    * Look-back (``lookback_frames = K > 0``): when the check confirms a candidate ``c``, the
-      positions ``c - L, c - 2L, ...`` are examined, newest first, down to ``max(f, c - K L)``, where
-      ``f`` is the end of the last CADU whose marker was found (the stream's start before any): each
-      with the lock threshold while every position after it passed, and with the search threshold
-      after a miss (a gap is bridged only by a marker the search itself would have taken); the walk
-      stops after ``flywheel + 1`` misses in a row.  From the oldest marker found on, the CADUs at
-      those positions are emitted before ``c``'s, in stream order: the markers found, and the misses
-      between them as flywheel CADUs (polarity of the marker before).  No bit-slip search there.  So
-      markers that the search passed over for want of the search threshold (at the Es/N0 of LDPC and
-      turbo codes the 32-bit ASM reaches 4.5 only about one time in two) are recovered once the lock
-      shows where the frame grid is: the lower threshold is used only behind a confirmed lock,
-      which is what keeps false markers on noise as rare as before.  Held flywheel CADUs (below)
-      count the oldest CADU emitted as the position of the new lock, and while searching only those
-      ending at least ``K L`` bits before the search position are delivered.
+    * Look-back (``lookback_frames = K > 0``): when the check confirms a candidate ``c``, the frame
+      grid is walked back from it, newest first, down to ``max(f, c - K L)``, where ``f`` is one bit
+      after the last marker found (the stream's start before any; the search after a loss of lock
+      starts there too, so a marker displaced by a slip may overlap that CADU).  The marker is
+      expected ``L`` bits before the CADU after it and tested as in lock: at the lock threshold
+      while nothing has been missed since ``c``, at the search threshold after a miss (a gap is
+      bridged only by a marker the search itself would have taken), then in the slip window
+      (``slip_bits`` either side, search threshold, best score first); the walk stops after
+      ``flywheel + 1`` misses in a row.  From the oldest marker found on, the CADUs are emitted
+      before ``c``'s, in stream order: the markers found, and the misses between them as flywheel
+      CADUs (polarity of the marker before).  So markers that the search passed over for want of
+      the search threshold (at Es/N0 -1.2 dB, AR4JA rate 1/2 near its threshold, the 32-bit ASM
+      reaches 4.5 only four times in ten) or left behind with a rejected candidate are recovered
+      once the lock shows where the frame grid is; the lower threshold is used only behind a
+      confirmed lock, which is what keeps false markers on noise as rare as before (a false lock
+      on noise gains a look-back CADU with probability about ``P_fa(3.0)``, 1.5e-3).  Held flywheel
+      CADUs (below) count the oldest CADU emitted as the position of the new lock, and while
+      searching only those ending ``K L`` bits before the search position are delivered.
     * A complemented marker means the codeblock is complemented (180-degree phase ambiguity); the
       data are re-inverted and ``inverted`` is set.  The polarity is followed marker by marker.
 
     With ``correlation="soft"`` a match is a score ``|z| >= T``, ``z = sum(s_j y_j) / sqrt(sum(y_j^2))``
     over the m soft values ``y`` at the offset and the marker's signs ``s`` (the sign of ``z`` is the
     polarity); a search takes the best score among the m offsets from the first one that crosses the
-    threshold.  On data or noise ``z`` is about N(0, 1), so a false match has probability ``2 Q(T)``
-    per offset (1.4e-5 searching at T = 4.5 ... 2.7e-3 checking at T = 3); on the marker at Es/N0
+    threshold.  On noise ``z`` has unit variance and ``z^2 / m`` is Beta(1/2, (m - 1)/2), so a false
+    match has probability 3.2e-8 per offset searching the ASM at 4.5 (the same for every marker at
+    its default threshold, :func:`soft_search_threshold`) and 1.5e-3 (32 bits) to 2.5e-3 (192 bits)
+    checking at 3.0; on the marker at Es/N0
     ``rho`` per bit ``z`` is about ``sqrt(m) sqrt(2 rho / (1 + 2 rho))`` with standard deviation
     ``1 / sqrt(1 + 2 rho)``: 5.7 for the 64-bit marker at -3 dB, 6.8 for the 192-bit one at -8 dB.
     In lock, a marker not at the expected position is looked for in the slip window with the
@@ -174,7 +235,7 @@ class FrameSync:
         slip_bits: int = 2,
         keep_soft: bool = False,
         correlation: Correlation = "hard",
-        search_threshold: float = 4.5,
+        search_threshold: float | None = None,
         lock_threshold: float = 3.0,
         lookback_frames: int | None = None,
     ) -> None:
@@ -192,6 +253,8 @@ class FrameSync:
         check_int("slip_bits", slip_bits, 0, min(64, frame_bits // 2))
         if correlation not in ("hard", "soft"):
             raise ValueError(f"Argument 'correlation' must be hard | soft, not {correlation!r}.")
+        if search_threshold is None:
+            search_threshold = soft_search_threshold(m)
         for name, value in (("search_threshold", search_threshold), ("lock_threshold", lock_threshold)):
             if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
                 raise TypeError(f"Argument '{name}' must be a number, not {type(value).__name__}.")
@@ -202,7 +265,8 @@ class FrameSync:
             raise ValueError(f"Argument 'lock_threshold' must be at most search_threshold ({search_threshold}), "
                              f"not {lock_threshold}.")
         if lookback_frames is None:
-            lookback_frames = DEFAULT_LOOKBACK_FRAMES if correlation == "soft" else 0
+            lookback_frames = 0 if correlation == "hard" else min(1000, max(
+                DEFAULT_LOOKBACK_FRAMES, -(-DEFAULT_LOOKBACK_BITS // (m + int(frame_bits)))))
         self.lookback_frames = check_int("lookback_frames", lookback_frames, 0, 1000, or_none=True)
         self.correlation = correlation
         self.search_threshold = float(search_threshold)
@@ -354,12 +418,11 @@ class FrameSync:
         self._last_cadu_start = end - 1
         self._last_cadu_end = end
         self._last_found = end - 1  # start of the last CADU whose marker was found (the search restarts after it)
-        self._floor = end  # end of the last CADU whose marker was found: the look-back stays at or after it
         self._held: list[Cadu] = []  # flywheel CADUs not yet delivered
 
     def _reach(self, at: int) -> int:
         """The oldest bit a lock confirmed at ``at`` or later can look back to (``at`` without look-back)."""
-        return min(at, max(self._floor, at - self.lookback_frames * self.cadu_bits))
+        return min(at, max(self._last_found + 1, at - self.lookback_frames * self.cadu_bits))
 
     def _trim(self) -> None:
         if self._state == _SEARCH:
@@ -496,10 +559,10 @@ class FrameSync:
                     self._expected = c
                     self._misses = 0
                     self.stats.locks += 1
-                    found = self._look_back(c)
-                    self._event("lock_acquired", c, detail="" if not found else
-                                f"look-back: {(c - found[-1][0]) // L} CADUs before it, from bit {found[-1][0]}")
-                    self._emit_look_back(out, c, found)
+                    walk = self._look_back(c)
+                    self._event("lock_acquired", c, detail="" if not walk else
+                                f"look-back: {len(walk)} CADUs before it, from bit {walk[0][0]}")
+                    self._emit_look_back(out, c, walk)
                     self._last_cadu_start = c - 1
                     self._last_found = c - 1
                     continue
@@ -516,40 +579,49 @@ class FrameSync:
                 if not self._lock_step(out, final, m, L, e, w):
                     return
 
-    def _look_back(self, c: int) -> list[tuple[int, int, bool]]:
-        """The markers the look-back finds behind a lock confirmed at ``c`` (class Notes), newest first:
-        (position, hard mismatches, inverted)."""
-        L = self.cadu_bits
+    def _look_back(self, c: int) -> list[tuple[int, int, bool, bool, int]]:
+        """The CADUs the look-back finds behind a lock confirmed at ``c`` (class Notes), oldest first:
+        (position, hard mismatches, inverted, marker found, slip in bits before the next CADU)."""
+        L, w = self.cadu_bits, self.slip_bits
         lo = self._reach(c)
-        found: list[tuple[int, int, bool]] = []
+        walk: list[tuple[int, int, bool, bool, int]] = []  # newest first
         misses = 0
-        q = c - L
-        while q >= lo:
-            ok, err, inv = self._confirm(q, strict=misses > 0)
-            if ok:
-                found.append((q, err, inv))
+        newer = c  # start of the CADU after the position examined
+        p = newer - L
+        while p >= lo:
+            ok, err, inv = self._confirm(p, strict=misses > 0)
+            q = p if ok else -1
+            if not ok and w > 0:
+                hi = min(p + w, newer - 1)
+                best = self._slip(p, max(p - w, lo), hi) if hi >= max(p - w, lo) else None
+                if best is not None:
+                    q, err, inv = best
+            if q >= 0:
+                walk.append((q, err, inv, True, newer - L - q))
                 misses = 0
+                newer = q
             else:
+                walk.append((p, 0, False, False, 0))
                 misses += 1
                 if misses > self.flywheel:
                     break
-            q -= L
-        return found
+                newer = p
+            p = newer - L
+        while walk and not walk[-1][3]:  # nothing before the oldest marker found
+            walk.pop()
+        return walk[::-1]
 
-    def _emit_look_back(self, out: list[Cadu], c: int, found: list[tuple[int, int, bool]]) -> None:
+    def _emit_look_back(self, out: list[Cadu], c: int, walk: list[tuple[int, int, bool, bool, int]]) -> None:
         """Deliver the held flywheel CADUs before the lock's first CADU (withdraw the others), then the
-        look-back's CADUs from its oldest marker up to ``c`` (exclusive), the misses as flywheel CADUs."""
-        L = self.cadu_bits
-        if not found:
+        look-back's CADUs (oldest first; the misses between markers as flywheel CADUs)."""
+        if not walk:
             self._release(out, c, drop_rest=True)
             return
-        first = found[-1][0]
-        self._release(out, first, drop_rest=True)
-        markers = {q: (err, inv) for q, err, inv in found}
-        for q in range(first, c, L):
-            if q in markers:
-                err, inv = markers[q]
-                if q != first and inv != self._inverted:
+        self._release(out, walk[0][0], drop_rest=True)
+        L = self.cadu_bits
+        for k, (q, err, inv, found, slip) in enumerate(walk):
+            if found:
+                if k and inv != self._inverted:
                     self.stats.polarity_changes += 1
                     self._event("polarity_change", q)
                 self._inverted = inv
@@ -557,6 +629,10 @@ class FrameSync:
                 cadu = self._cut(q, err, flywheel=False)
             else:
                 cadu = self._cut(q, self._errors(q, self._inverted), flywheel=True)
+            if slip:  # the next CADU's marker came ``slip`` bits off this one's grid
+                after = walk[k + 1][0] if k + 1 < len(walk) else c
+                self.stats.bit_slips += 1
+                self._event("bit_slip", after, offset_bits=after - (q + L))
             self._deliver(out, cadu)
             self.stats.lookback_cadus += 1
 
@@ -592,7 +668,6 @@ class FrameSync:
             self._release(out, None)  # the flywheel CADUs before it were on the grid
             self._deliver(out, self._cut(found, err, flywheel=False))
             self._last_found = found
-            self._floor = found + L
             self._expected = found + L
             return True
         self._misses += 1
