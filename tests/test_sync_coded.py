@@ -480,6 +480,33 @@ def test_turbo_frames_from_the_independent_transmitter_any_batching():
                [(a.frame, a.status, a.decoder_iterations, a.decoder_esn0_db, a.cadu) for a in out]
 
 
+def test_esn0_look_ahead_scales_the_first_codewords_with_later_markers():
+    # the first CADU cut while the receiver's gain was still settling (values x 3, noise too): with the look-ahead
+    # every codeword is scaled by the estimate after the marker 8 CADUs later (the last 8 by the final one), so
+    # the next codewords are not scaled by a median of that marker and one other
+    rng = np.random.default_rng(23)
+    p = turbo_profile("1/2", 1784)
+    frames = frames_with_fecf(rng, 20, 1784)
+    bits = tx.turbo_channel_bits(frames, rate="1/2")
+    y = bpsk(bits, p.esn0_from_ebn0(2.6), rng)
+    first = 317  # tests/third_party_tx.py: lead_bits
+    y[first:first + 3640] *= 3.0
+    cadus = run_sync(frame_sync_for(p), y)
+    assert [c.bit_index for c in cadus] == [first + 3640 * j for j in range(20)]
+    signs = 1.0 - 2.0 * np.unpackbits(np.frombuffer(TURBO_ASMS["1/2"], np.uint8)).astype(np.float64)
+    running, est = [], MarkerEsn0Estimator(window_cadus=32)
+    for c in cadus:
+        running.append(round(est.update(c.marker_soft, signs).esn0_db, 3))
+    for lookahead in (8, 0, 3):
+        dec = CodeblockDecoder(profile=p, esn0_lookahead_cadus=lookahead, batch_cadus=5)
+        out = dec.process_cadus(cadus[:13]) + dec.process_cadus(cadus[13:]) + dec.flush()
+        assert [o.decoder_esn0_db for o in out] == [running[min(j + lookahead, 19)] for j in range(20)]
+        if lookahead == 8:
+            assert [o.frame for o in out] == frames and all(o.status == "ok" for o in out)
+    with pytest.raises(ValueError, match="Argument 'esn0_lookahead_cadus' must be 0..4096, not -1."):
+        CodeblockDecoder(profile=p, esn0_lookahead_cadus=-1)
+
+
 def test_a_codeword_with_too_many_errors_is_turbo_failed():
     rng = np.random.default_rng(22)
     p = turbo_profile("1/2", 1784)

@@ -3,6 +3,7 @@ frame with its status."""
 
 from __future__ import annotations
 
+from collections import deque
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -11,7 +12,7 @@ from pipeline.fec import pn_sequence, rs_decode
 from pipeline.profile import LinkProfile
 from pipeline.sync._args import check_int
 from pipeline.sync._codes import soft_block_code
-from pipeline.sync._esn0 import MarkerEsn0Estimator
+from pipeline.sync._esn0 import Esn0Estimate, MarkerEsn0Estimator
 from pipeline.sync._types import Cadu, DecodedFrame
 
 __all__ = ["CodeblockDecoder", "CodeblockStats"]
@@ -51,6 +52,10 @@ class CodeblockDecoder:
         ``batch_cadus``, 32 for turbo and LDPC).  Any value gives the same frames.
     esn0_window_cadus : int
         Soft-decoded codes: markers pooled by the Es/N0 estimate (:class:`MarkerEsn0Estimator`).
+    esn0_lookahead_cadus : int
+        Soft-decoded codes: a CADU is scaled with the estimate after the marker this many CADUs
+        later (0 .. 4096; fewer at the end of the stream), so that the first codewords of a lock are
+        not scaled by one or two markers alone.
 
     Notes
     -----
@@ -67,14 +72,21 @@ class CodeblockDecoder:
     4. Soft-decoded codes (turbo, LDPC): the CADU's soft codeword is de-randomized by sign flips (the
        same sequence restarted at the marker, CCSDS 131.0-B-2 sec. 9; for C2 it covers the two
        extension bits too), scaled into channel LLRs ``L = 2 A y / sigma^2`` with the estimate of
-       :class:`MarkerEsn0Estimator` after this CADU's marker (pooled over the last
-       ``esn0_window_cadus`` markers), and decoded in batches of ``batch_cadus`` by the code.  A
+       :class:`MarkerEsn0Estimator` after the marker ``esn0_lookahead_cadus`` (8) CADUs later
+       (pooled over the last ``esn0_window_cadus`` markers, so the window runs from 23 CADUs before
+       to 8 after; at the end of the stream the last estimate), and decoded in batches of
+       ``batch_cadus`` by the code.  The look-ahead matters at the start of a lock: the frame
+       synchronizer's look-back delivers the first CADUs together, the first of them often cut
+       while the receiver's gain and loops were still settling, and a median of one or two
+       markers scaled the next codewords by a third of their LLRs (simulated onsets,
+       ``bench/bench_sync_onset.py``; the decoders quantise small LLRs coarsely).  A
        codeword whose check fails gets the code's ``failure_status`` (``turbo_failed``,
        ``ldpc_failed``: never ``ok``); the iterations, the Es/N0 estimate and (LDPC) the final
        syndrome weight travel in the :class:`DecodedFrame`.  The scale depends only on the sequence
        of CADUs and the decoder keeps no state between codewords, so the frames do not depend on the batching;
-       :meth:`process_cadus` returns them in CADU order once a batch is complete, :meth:`flush` the
-       rest.
+       :meth:`process_cadus` returns them in CADU order once a batch is complete (and its last CADU's
+       look-ahead has arrived), :meth:`flush` the rest.  :meth:`process` decodes at once, with the
+       estimate after its own marker.
 
     Cost: one XOR pass plus the RS decoder (syndromes only on clean codewords); for turbo codes the
     iterative decoder (about 20 Mbit/s of information on one core at k = 8920, rate 1/2; LDPC C2
@@ -93,7 +105,8 @@ class CodeblockDecoder:
     (True, 1275)
     """
 
-    def __init__(self, *, profile: LinkProfile, batch_cadus: int | None = None, esn0_window_cadus: int = 32) -> None:
+    def __init__(self, *, profile: LinkProfile, batch_cadus: int | None = None, esn0_window_cadus: int = 32,
+                 esn0_lookahead_cadus: int = 8) -> None:
         if not isinstance(profile, LinkProfile):
             raise TypeError(f"Argument 'profile' must be a LinkProfile, not {type(profile).__name__}.")
         self.profile = profile
@@ -115,6 +128,8 @@ class CodeblockDecoder:
             self._pn_signs = (1.0 - 2.0 * pn_bits.astype(np.float32)).astype(np.float32)
             self._marker_signs = 1.0 - 2.0 * np.unpackbits(np.frombuffer(code.marker, np.uint8)).astype(np.float64)
             self.esn0 = MarkerEsn0Estimator(window_cadus=esn0_window_cadus)
+        self.esn0_lookahead_cadus = check_int("esn0_lookahead_cadus", esn0_lookahead_cadus, 0, 4096)
+        self._waiting: deque[Cadu] = deque()  # marker in the estimate, scale waiting for the look-ahead
         self._pending: list[tuple[Cadu, np.ndarray, float]] = []
         self.stats = CodeblockStats()
 
@@ -122,13 +137,14 @@ class CodeblockDecoder:
         """Zero the statistics, drop pending CADUs and forget the Es/N0 estimate."""
         self.stats = CodeblockStats()
         self._pending = []
+        self._waiting = deque()
         if self.soft_code is not None:
             self.esn0.reset()
 
     @property
     def pending(self) -> int:
-        """CADUs waiting for their batch (soft-decoded codes)."""
-        return len(self._pending)
+        """CADUs waiting for their look-ahead markers or their batch (soft-decoded codes)."""
+        return len(self._waiting) + len(self._pending)
 
     def process_cadus(self, cadus) -> list[DecodedFrame]:
         """Take CADUs in stream order; return the frames completed, in CADU order.
@@ -140,13 +156,18 @@ class CodeblockDecoder:
             return [self.process(c) for c in cadus]
         out: list[DecodedFrame] = []
         for cadu in cadus:
-            self._queue(cadu)
+            self._queue(cadu, self.esn0_lookahead_cadus)
             if len(self._pending) >= self.batch_cadus:
                 out += self._decode_pending()
         return out
 
     def flush(self) -> list[DecodedFrame]:
-        """Decode the CADUs still waiting (end of stream); the decoder stays usable."""
+        """Decode the CADUs still waiting (end of stream: those still waiting for look-ahead markers take the
+        estimate after the last marker); the decoder stays usable."""
+        if self._waiting:
+            est = self.esn0.estimate()
+            while self._waiting:
+                self._scale(self._waiting.popleft(), est)
         return self._decode_pending() if self._pending else []
 
     def process(self, cadu: Cadu) -> DecodedFrame:
@@ -157,10 +178,10 @@ class CodeblockDecoder:
         if not isinstance(cadu, Cadu):
             raise TypeError(f"Argument 'cadu' must be a Cadu, not {type(cadu).__name__}.")
         if self.soft_code is not None:
-            if self._pending:
-                raise ValueError(f"Argument 'cadu' cannot be decoded alone while {len(self._pending)} CADUs wait "
+            if self.pending:
+                raise ValueError(f"Argument 'cadu' cannot be decoded alone while {self.pending} CADUs wait "
                                  "in process_cadus(); call flush() first.")
-            self._queue(cadu)
+            self._queue(cadu, 0)
             return self._decode_pending()[0]
         if len(cadu.data) != self.codeblock_bytes:
             raise ValueError(
@@ -199,7 +220,8 @@ class CodeblockDecoder:
         return DecodedFrame(frame=frame.tobytes(), status=status, rs_corrected=corrected, cadu=cadu)
 
     # ---- soft-decoded codes -----------------------------------------------------------------
-    def _queue(self, cadu: Cadu) -> None:
+    def _queue(self, cadu: Cadu, lookahead: int) -> None:
+        """Add the CADU's marker to the estimate; scale the CADU ``lookahead`` markers back with it."""
         if not isinstance(cadu, Cadu):
             raise TypeError(f"Argument 'cadu' must be a Cadu, not {type(cadu).__name__}.")
         n, m = self.soft_code.codeword_bits, self._marker_signs.size
@@ -207,6 +229,12 @@ class CodeblockDecoder:
             raise ValueError(f"Argument 'cadu' must carry the soft codeword ({n} values) and marker ({m} values) of "
                              f"{self.soft_code.name} (FrameSync keep_soft=True).")
         est = self.esn0.update(cadu.marker_soft, self._marker_signs)
+        self._waiting.append(cadu)
+        if len(self._waiting) > lookahead:
+            self._scale(self._waiting.popleft(), est)
+
+    def _scale(self, cadu: Cadu, est: Esn0Estimate) -> None:
+        """De-randomize the CADU's soft codeword, scale it into LLRs with ``est`` and add it to the batch."""
         llr = np.asarray(cadu.soft, dtype=np.float32) * self._pn_signs
         llr *= np.float32(est.llr_scale)
         self._pending.append((cadu, llr, est.esn0_db))
