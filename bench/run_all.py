@@ -9,7 +9,7 @@ Run from the repository root: ``python bench/run_all.py [--quick] [--json FILE]`
    ``bench_recording.py``, ``bench_demod.py``, ``bench_acquisition.py`` (its sensitivity part left out
    with ``--quick``), ``bench_fec.py``, ``bench_turbo.py``, ``bench_ldpc.py``,
    ``bench_end_to_end.py`` (a 1 GB recording; 0.25 GB with ``--quick``), ``bench_sweep.py``,
-   ``sweep_turbo.py`` and ``sweep_ldpc.py`` (error-rate Monte-Carlo; left out with ``--quick``).  A
+   ``sweep_turbo.py``, ``sweep_ldpc.py`` and ``bench_sync_onset.py`` (Monte-Carlo; left out with ``--quick``).  A
    script that is missing or fails is reported and the others still run; the exit status is 1 if any
    failed.
 """
@@ -40,6 +40,7 @@ def _scripts(quick: bool) -> list[tuple[str, list[str]]]:
         rows.append(("bench_sweep.py", []))
         rows.append(("sweep_turbo.py", []))
         rows.append(("sweep_ldpc.py", ["--codewords", "3000"]))
+        rows.append(("bench_sync_onset.py", []))
     return rows
 
 

@@ -16,7 +16,7 @@ from pipeline.sync._codes import (
     soft_block_code,
 )
 from pipeline.sync._esn0 import Esn0Estimate, MarkerEsn0Estimator
-from pipeline.sync._framesync import DEFAULT_ASM, Correlation, FrameSync, FrameSyncStats
+from pipeline.sync._framesync import DEFAULT_ASM, Correlation, FrameSync, FrameSyncStats, soft_search_threshold
 from pipeline.sync._types import Cadu, DecodedFrame, FrameStatus, SyncEvent, SyncEventKind
 
 __all__ = [
@@ -37,6 +37,7 @@ __all__ = [
     "MarkerEsn0Estimator",
     "Correlation",
     "FrameSyncStats",
+    "soft_search_threshold",
     "DEFAULT_ASM",
     "Cadu",
     "DecodedFrame",
