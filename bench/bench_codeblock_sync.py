@@ -3,11 +3,12 @@
 Run from the repository root: ``python bench/bench_codeblock_sync.py [--cadus N] [--noise-bits N] [--chain]``.
 
 1. Frame synchronizer (``pipeline.sync.frame_sync_for`` of a turbo profile: soft correlation, default
-   thresholds 4.5 / 3.0, flywheel 3): random codewords behind the rate's marker, BPSK over AWGN at the
-   Es/N0 where the code works near threshold (rate 1/2: -3 dB, 1/3: -5 dB, 1/4: -6 dB, 1/6: -8 dB per
-   channel bit).  ``miss`` = markers not found where they were sent (their CADU is lost or cut by the
-   flywheel), ``flywheel`` = CADUs cut by the flywheel, ``wrong`` = CADUs emitted anywhere else.  False
-   locks: locks acquired on Gaussian noise alone, per 10^6 bits.
+   thresholds (search: ``soft_search_threshold`` of the marker, 4.98 ... 5.34; lock 3.0), flywheel 3,
+   look-back): random codewords behind the rate's marker, BPSK over AWGN at the Es/N0 where the code works
+   near threshold (rate 1/2: -3 dB, 1/3: -5 dB, 1/4: -6 dB, 1/6: -8 dB per channel bit).  ``miss`` =
+   markers not found where they were sent (their CADU is lost or cut by the flywheel), ``flywheel`` = CADUs
+   cut by the flywheel, ``wrong`` = CADUs emitted anywhere else.  False locks: locks acquired on Gaussian
+   noise alone, per 10^6 bits.
 2. Es/N0 estimate (``MarkerEsn0Estimator``, 32 markers of 64 bits): mean of the dB estimates and of the
    linear ones against the truth, -5 .. +10 dB.  With ``--chain`` also through the whole receiver: the
    simulator's k = 1784 rate-1/2 BPSK recordings (its Es/N0 is the truth) decoded by ``pipeline.decode``,
@@ -107,7 +108,7 @@ def main(argv=None) -> int:
     ap.add_argument("--noise-bits", type=int, default=4_000_000)
     ap.add_argument("--chain", action="store_true")
     args = ap.parse_args(argv)
-    print("frame sync (soft, thresholds 4.5 / 3.0)")
+    print("frame sync (soft; search threshold per marker, lock 3.0; look-back)")
     print(f"{'rate':<5} {'Es/N0':>6} {'CADUs':>6} {'miss':>8} {'flywheel':>8} {'wrong':>6} {'locks':>5} | "
           f"noise: {'bits':>8} {'locks':>5} {'/1e6 bits':>9} {'CADUs':>6}")
     for rate, esn0 in POINTS:
