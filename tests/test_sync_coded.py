@@ -459,14 +459,18 @@ def decode_stream(p, y, *, batch_cadus=None, cuts=()):
     return out + dec.process_cadus(fs.flush()) + dec.flush(), dec
 
 
-def test_turbo_frames_from_the_independent_transmitter_any_batching():
-    # frames encoded, randomized and marked by tests/third_party_tx.py (the standard's shift registers, its own
-    # interleaver and randomizer), BPSK at Eb/N0 2.6 dB (issue 16: k = 1784 rate 1/2 target 1.6 dB + 1 dB)
-    rng = np.random.default_rng(21)
+def transmitter_stream(seed: int, count: int):
+    """k = 1784 rate-1/2 frames with FECF encoded, randomized and marked by tests/third_party_tx.py (the standard's
+    shift registers, its own interleaver and randomizer), BPSK at Eb/N0 2.6 dB (issue 16: target 1.6 dB + 1 dB)."""
+    rng = np.random.default_rng(seed)
     p = turbo_profile("1/2", 1784)
-    frames = frames_with_fecf(rng, 40, 1784)
+    frames = frames_with_fecf(rng, count, 1784)
     bits = tx.turbo_channel_bits(frames, rate="1/2")
-    y = bpsk(bits, p.esn0_from_ebn0(2.6), rng)
+    return p, frames, bpsk(bits, p.esn0_from_ebn0(2.6), rng)
+
+
+def test_turbo_frames_from_the_independent_transmitter_any_batching():
+    p, frames, y = transmitter_stream(21, 40)
     out, dec = decode_stream(p, y)
     assert [o.frame for o in out] == frames
     assert all(o.status == "ok" and o.fec_verified and 1 <= o.decoder_iterations <= 10 for o in out)
@@ -484,11 +488,7 @@ def test_esn0_look_ahead_scales_the_first_codewords_with_later_markers():
     # the first CADU cut while the receiver's gain was still settling (values x 3, noise too): with the look-ahead
     # every codeword is scaled by the estimate after the marker 8 CADUs later (the last 8 by the final one), so
     # the next codewords are not scaled by a median of that marker and one other
-    rng = np.random.default_rng(23)
-    p = turbo_profile("1/2", 1784)
-    frames = frames_with_fecf(rng, 20, 1784)
-    bits = tx.turbo_channel_bits(frames, rate="1/2")
-    y = bpsk(bits, p.esn0_from_ebn0(2.6), rng)
+    p, frames, y = transmitter_stream(23, 20)
     first = 317  # tests/third_party_tx.py: lead_bits
     y[first:first + 3640] *= 3.0
     cadus = run_sync(frame_sync_for(p), y)
