@@ -4,34 +4,33 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 
 from pipeline.demod import DemodStats, Demodulator, SymbolBlock, TrackPoint
-from pipeline.demod._acquire import LINE_THRESHOLD, CarrierSearch, SpectralLine, spectral_line
+from pipeline.demod._acquire import CarrierSearch, SpectralLine
 from pipeline.demod._demodulator import DcBlocker, check_chunk, continue_stream, cut_blocks
 from pipeline.demod.residual._kernels import (
-    CARRIER_PARAM_SIZE,
-    CARRIER_STATE_SIZE,
-    SYMBOL_PARAM_SIZE,
-    SYMBOL_STATE_SIZE,
+    CARRIER_PARAMS,
+    CARRIER_STATE,
+    SYMBOL_PARAMS,
+    SYMBOL_STATE,
+    phasor_table,
     rect_symbols,
-    timing_search,
+    timing_energy,
     track_carrier,
 )
+from pipeline.demod.residual._lock import HeldDecision, MeanStatistic
+from pipeline.demod.residual._loops import LoopPlan, loop_gains, plan_loops
+from pipeline.demod.residual._search import CarrierFix, ResidualCarrierSearch
 from pipeline.profile import LinkSection, ReceiverSection
 
 __all__ = ["ResidualCarrierDemodulator", "ResidualTrackPoint", "make_demodulator",
            "modulation_index_from_amplitudes", "MAX_SAMPLES_PER_SYMBOL"]
 
 _ZETA = 1.0 / math.sqrt(2.0)
-#: automatic carrier loop bandwidth, x symbol rate (see ResidualCarrierDemodulator Notes)
-_AUTO_CARRIER_BW = 0.005
-_AUTO_CARRIER_BW_NRZ_PM = 0.001
-#: subcarrier loop bandwidth, x symbol rate
-_SUBCARRIER_BW = 0.002
-_SQUARE_WINDOW_CYCLES = 0.125  # half-width of the windowed quadrature reference of a square subcarrier
+_SQUARE_WINDOW_CYCLES = 0.0625  # half-width of the windowed quadrature reference of a square subcarrier
 _DTTL_WINDOW = 0.125  # half-width of the transition window, x symbol period
 #: Samples per symbol the residual-carrier demodulator serves at most: its work per sample does not grow
 #: with it, but one processing block (256 symbols or more) must stay a fraction of a second of work.
@@ -39,9 +38,28 @@ MAX_SAMPLES_PER_SYMBOL = 4096.0
 #: Symbol-period offset the transition tracking loop follows (fraction of the nominal period).
 _TIMING_RATE_LIMIT = 0.02
 _TIMING_TRIALS = 32
+#: Symbol and subcarrier clock offsets the acquisition searches (fraction of nominal).
+_CLOCK_SEARCH = 200e-6
+_TIMING_MAX_SYMBOLS = 8192
 _SUB_BLOCKS = 8
 _REACQUIRE_BLOCKS = 3
-_SYMBOL_LOCK_ESN0_DB = -3.0
+#: The carrier search accumulates up to this many symbols (at most 32 blocks) before it starts again.
+_DWELL_SYMBOLS = 8192
+_MAX_DWELL_BLOCKS = 32
+#: Samples held back while searching (so that the window the carrier was found in is demodulated): at most
+#: this many (complex64: 32 MB), and at most one dwell.
+_HOLD_SAMPLES = 1 << 22
+#: Doppler rates hypothesised by the carrier search (Hz/s).
+_MAX_DOPPLER_RATE = 10.0
+#: Carrier lock: t statistic of the coherent carrier amplitude, on above 5 (two decisions in a row), off below 3.
+_CARRIER_Z_ON, _CARRIER_Z_OFF, _CARRIER_HOLD = 5.0, 3.0, 2
+#: Symbol and subcarrier lock: t statistics over about this many symbols, on above 5 / off below 3 for two blocks.
+_LOCK_MEMORY_SYMBOLS = 8192.0
+_SYMBOL_Z_ON, _SYMBOL_Z_OFF, _SYMBOL_HOLD = 5.0, 3.0, 2
+#: Es/N0 and modulation-index estimates average over about this many symbols.
+_ESN0_MEMORY_SYMBOLS = 2048.0
+#: Bi-phase-L BPSK (Costas loop): symbol lock from the block's M2M4 Es/N0 above this.
+_COSTAS_SYMBOL_LOCK_ESN0_DB = -3.0
 
 
 @dataclass(frozen=True)
@@ -52,12 +70,20 @@ class ResidualTrackPoint(TrackPoint):
     ``carrier_offset_hz`` over the block (the one-way Doppler observable when the recording is
     tuned to the nominal downlink frequency); ``carrier_std_hz`` the standard error of that mean
     (residual spread of 8 sub-block frequencies about a straight line, over ``sqrt 8``);
-    ``modulation_index_rad`` the index estimated from the coherent carrier and data amplitudes of
-    the block (``nan`` without lock or for suppressed carrier).
+    ``modulation_index_rad`` the index estimated from the coherent carrier and data amplitudes
+    (``nan`` without lock or for suppressed carrier); ``cn0_dbhz`` the residual carrier's power
+    over the noise density measured in the block (dB-Hz); ``subcarrier_locked`` the subcarrier lock
+    (None without a subcarrier); the three lock statistics (t statistics: about N(0, 1) on noise)
+    at the block's end.  A block passed while the carrier was being searched has ``nan`` values.
     """
 
     carrier_std_hz: float = float("nan")
     modulation_index_rad: float = float("nan")
+    cn0_dbhz: float = float("nan")
+    subcarrier_locked: bool | None = None
+    carrier_lock_statistic: float = float("nan")
+    symbol_lock_statistic: float = float("nan")
+    subcarrier_lock_statistic: float = float("nan")
 
 
 def modulation_index_from_amplitudes(carrier_amplitude: float, data_amplitude: float, *, wave: str) -> float:
@@ -83,6 +109,11 @@ def modulation_index_from_amplitudes(carrier_amplitude: float, data_amplitude: f
     References
     ----------
     Jacobi-Anger expansion ``exp(j m sin x) = sum_n J_n(m) exp(j n x)``, Abramowitz & Stegun 9.1.41-9.1.43.
+
+    Examples
+    --------
+    >>> round(modulation_index_from_amplitudes(math.cos(1.2), math.sin(1.2), wave="square"), 6)
+    1.2
     """
     ac = float(carrier_amplitude)
     ad = float(data_amplitude)
@@ -107,39 +138,34 @@ def modulation_index_from_amplitudes(carrier_amplitude: float, data_amplitude: f
     return 0.5 * (lo + hi)
 
 
+def _power_split(wave: str, index_rad: float) -> tuple[float, float]:
+    """Fractions of the power in the residual carrier and in the data (first-harmonic sidebands for a sine)."""
+    if wave == "sine":
+        from scipy.special import j0, j1
+
+        return float(j0(index_rad)) ** 2, 2.0 * float(j1(index_rad)) ** 2
+    return math.cos(index_rad) ** 2, math.sin(index_rad) ** 2
+
+
 def _next_pow2(n: float) -> int:
     return 1 << max(0, int(math.ceil(math.log2(max(1.0, n)))))
 
 
-def _loop_gains(bn: float, order: int) -> tuple[float, float, float]:
-    """Proportional, integral and rate gains of a loop of noise bandwidth ``bn`` (per update), B_L T << 1.
-
-    Second order, damping 1/sqrt 2; third order with Kaplan's coefficients (E. D. Kaplan,
-    *Understanding GPS*, 2nd ed., table 5.6; F. M. Gardner, *Phaselock Techniques*, 3rd ed., ch. 2-3).
-    """
-    if order == 3:
-        wn = bn / 0.7845
-        return 2.4 * wn, 1.1 * wn * wn, wn ** 3
-    wn = 2.0 * bn / (_ZETA + 1.0 / (4.0 * _ZETA))
-    return 2.0 * _ZETA * wn, wn * wn, 0.0
-
-
-def _frequency_std_hz(phase_rad: np.ndarray, sample_rate_hz: float) -> float:
+def _frequency_std_hz(phase_rad: np.ndarray, edges: np.ndarray, sample_rate_hz: float) -> float:
     """Standard error of a block's mean carrier frequency from 8 sub-block frequencies.
 
-    Each sub-block frequency is its phase advance over its duration; a straight line in time is
-    fitted to them (a Doppler rate moves the frequency within the block and is not noise), and the
-    standard error of the line at the block centre is ``s_r / sqrt(K)`` with the residual standard
-    deviation ``s_r`` (``K - 2`` degrees of freedom).  The sub-block values share their end phases,
-    which makes successive ones negatively correlated, so this errs on the large side.
+    ``phase_rad`` holds the carrier phase at the sub-block ``edges`` (sample indices).  Each sub-block
+    frequency is its phase advance over its duration; a straight line in time is fitted to them (a
+    Doppler rate moves the frequency within the block and is not noise), and the standard error of
+    the line at the block centre is ``s_r / sqrt(K)`` with the residual standard deviation ``s_r``
+    (``K - 2`` degrees of freedom).  The sub-block values share their end phases, which makes
+    successive ones negatively correlated, so this errs on the large side.
     """
-    n = phase_rad.size
-    if n < 4 * _SUB_BLOCKS:
+    if edges.size != _SUB_BLOCKS + 1 or edges[-1] < 4 * _SUB_BLOCKS:
         return float("nan")
-    edges = np.linspace(0, n - 1, _SUB_BLOCKS + 1).astype(np.int64)
     e0, e1 = edges[:-1], edges[1:]
-    freq = (phase_rad[e1] - phase_rad[e0]) / (2.0 * math.pi * (e1 - e0)) * sample_rate_hz
-    t = 0.5 * (e0 + e1) - 0.5 * (n - 1)
+    freq = (phase_rad[1:] - phase_rad[:-1]) / (2.0 * math.pi * (e1 - e0)) * sample_rate_hz
+    t = 0.5 * (e0 + e1) - 0.5 * edges[-1]
     a = np.vstack([np.ones_like(t, dtype=np.float64), t.astype(np.float64)]).T
     coef, *_ = np.linalg.lstsq(a, freq, rcond=None)
     resid = freq - a @ coef
@@ -163,6 +189,23 @@ def _real_m2m4(raw: np.ndarray) -> tuple[float, float]:
     return s, m2 - s
 
 
+class _Ew:
+    """Exponentially weighted sums per symbol (weights fall by e over ``memory`` symbols)."""
+
+    def __init__(self, memory: float, size: int) -> None:
+        self.memory = memory
+        self.sums = np.zeros(size)
+        self.weight = 0.0
+
+    def add(self, n: int, values) -> None:
+        lam = math.exp(-n / self.memory)
+        self.sums = lam * self.sums + np.asarray(values, dtype=np.float64)
+        self.weight = lam * self.weight + n
+
+    def mean(self) -> np.ndarray:
+        return self.sums / self.weight if self.weight > 0 else np.full(self.sums.size, np.nan)
+
+
 class ResidualCarrierDemodulator:
     """Residual-carrier PCM/PM and PCM/PSK/PM, and Bi-phase-L on suppressed-carrier BPSK, streaming.
 
@@ -171,13 +214,18 @@ class ResidualCarrierDemodulator:
     link : LinkSection
         ``modulation`` ``"pcm-pm"`` (NRZ-L, NRZ-M or Bi-phase-L data directly on the carrier),
         ``"pcm-psk-pm"`` (data BPSK on a ``subcarrier_hz`` square or sine subcarrier), or ``"bpsk"``
-        with ``line_code = "bi-phase-l"`` (no carrier left).  ``modulation_index_rad`` is reported
-        against the estimate; the waveforms are rectangular (``pulse`` and ``rolloff`` are not used).
+        with ``line_code = "bi-phase-l"`` (no carrier left).  ``modulation_index_rad`` sets the
+        power split the loop bandwidths assume and is reported against the estimate; the
+        waveforms are rectangular (``pulse`` and ``rolloff`` are not used).
     receiver : ReceiverSection
         ``carrier_loop_bandwidth_hz`` (0 = automatic), ``carrier_loop_order`` (2 or 3),
-        ``timing_loop_bandwidth`` (x symbol rate), ``acquisition_range_hz``, ``spectrum_inverted``.
+        ``timing_loop_bandwidth`` (x symbol rate: the widest transition loop),
+        ``acquisition_range_hz``, ``spectrum_inverted``.
     sample_rate_hz : float
         4 (8 for Bi-phase-L) to 4096 samples per symbol, and at least 4 per subcarrier cycle.
+    phasor : {"table", "exact"}
+        How the carrier loop rotates each sample: a 4096-entry phasor table (default) or ``cos`` and
+        ``sin`` of the exact phase (the reference the table is measured against).
 
     Notes
     -----
@@ -185,46 +233,59 @@ class ResidualCarrierDemodulator:
     channel bit, positive = bit 0, about +-1; positions are the centre of each data symbol (for
     Bi-phase-L its mid-bit transition); line decoding (NRZ-M) is left to the chain, and Bi-phase-L
     is fully decoded here (the soft values are NRZ-L levels).  Samples are processed in blocks of
-    ``block_samples`` aligned to the first sample, so the output does not depend on the chunking.
-    Per block:
+    ``block_samples`` (at least 256 symbols) aligned to the first sample, so the output does not
+    depend on the chunking.  Per block:
 
-    1. NaN/Inf samples become 0 (counted); conjugated when ``[receiver] spectrum_inverted = true``
-       (the data of a residual-carrier link come out inverted otherwise, which the frame
-       synchronizer's inverted marker resolves, but the Doppler sign would be wrong); the DC
-       offset removed (:class:`pipeline.demod.DcBlocker`); AGC to unit mean power.
-    2. Acquisition (first block, and after the carrier stayed unlocked for 3 blocks): the
-       residual carrier is the strongest line of the block's spectrum (its mean removed) in
-       ``+- acquisition_range_hz`` (default: the whole band); its phase and amplitude come from a
-       correlation at that frequency.  BPSK Bi-phase-L: a :class:`pipeline.demod.CarrierSearch`
-       (the band of the Manchester spectrum, then the squared signal's line).  The
-       subcarrier phase (to a half cycle, the data-sign ambiguity the frame sync resolves) is the
-       angle of ``-sum c_j^2`` over chip-long correlations ``c_j`` with ``exp(-j 2 pi psi)``; the
-       symbol timing is the best of 32 trial phases by mean ``|s|``.
+    1. NaN/Inf samples become 0 (counted); conjugated when ``[receiver] spectrum_inverted = true``;
+       the DC offset removed (:class:`pipeline.demod.DcBlocker`); AGC to unit mean power.
+    2. While no carrier is held, the block goes to the search and is held back
+       (:class:`~pipeline.demod.residual._search.ResidualCarrierSearch`: periodograms accumulated over
+       up to ``dwell_blocks`` blocks, about 8192 symbols, then the line refined coherently over the
+       held window, which gives frequency, Doppler rate, phase, amplitude and ``P_c / N0``).  When
+       the line is found, the held window is demodulated from its start (from the first block that
+       carries the signal); blocks that leave the hold unfound pass with no symbols and a track
+       point with ``nan`` values.  Bi-phase-L BPSK uses a :class:`pipeline.demod.CarrierSearch` per
+       block instead.  The subcarrier's frequency offset (+-200 ppm) and phase come from the
+       squared chip correlations of a first carrier pass over the window (a line at twice the
+       offset; half-cycle ambiguity, resolved by the frame synchronizer as a data inversion), the
+       symbol period (+-200 ppm) and timing from the largest mean symbol energy over 32 timings per
+       trial period and up to 8192 symbols (trial periods around the one the subcarrier's frequency implies,
+       when it was measured: a subcarrier coherent with the symbol clock).
     3. :func:`~pipeline.demod.residual._kernels.track_carrier`: a second- or third-order PLL at the
-       sample rate on the residual carrier (a Costas loop for BPSK), and a Costas loop on the
-       subcarrier; the data signal is the carrier's quadrature times the subcarrier reference.
+       sample rate on the residual carrier (a Costas loop for BPSK), started from the acquired
+       frequency, phase and Doppler rate (a second-order loop keeps the rate as aiding), and a
+       Costas loop on the subcarrier; the data signal is the carrier's quadrature times the
+       subcarrier reference.
     4. :func:`~pipeline.demod.residual._kernels.rect_symbols`: integrate-and-dump matched filter
        (``+`` then ``-`` half for Bi-phase-L) and a data-transition tracking loop.
     5. One :class:`ResidualTrackPoint`: mean carrier frequency over the block with its standard
-       error, Es/N0 (real M2M4 on the symbols), modulation index, lock flags.
+       error, ``P_c / N0``, Es/N0, modulation index, lock flags and statistics.
 
-    Loop bandwidths: carrier automatic ``0.005 x symbol rate`` (10 Hz at 2 ksym/s), ``0.001 x``
-    for NRZ PCM/PM, whose data spectrum peaks at the carrier: the data then adds a phase
-    variance of about ``2 B_L T tan^2 m`` rad^2 (0.008 rad^2 at m = 1.1, from the NRZ spectrum
-    ``T sinc^2 f T`` at 0 Hz).  Thermal phase variance ``B_L / (P_c / N0)`` =
-    ``(B_L T) tan^2 m / (Es/N0)`` (0.006 rad^2 at Es/N0 = 5 dB, m = 1.1; Gardner, *Phaselock
-    Techniques*, ch. 4).  Subcarrier ``0.002 x symbol rate``: a square subcarrier loses
-    ``1 - 4 |delta|`` of its amplitude to a phase error of ``delta`` cycles (about 0.006 cycles
-    rms at Es/N0 = 5 dB, 0.15 dB), so its jitter matters more than a sine's.  Timing
-    ``timing_loop_bandwidth``.
+    Loop bandwidths (:func:`~pipeline.demod.residual._loops.plan_loops`, per block) come from the
+    symbol rate and the measured ``P_c / N0`` (smoothed over blocks): carrier ``B_L = (P_c /
+    N0) / 50`` within ``[2e-4, 5e-3] R_s`` (``1e-3`` for NRZ PCM/PM), or the profile's value;
+    subcarrier and transition loops from ``Es/N0 = (P_c / N0) (P_d / P_c) / R_s`` with the
+    squaring loss, wide after an acquisition and narrowing as ``2 / t``.
 
-    Lock: the residual carrier is locked when its averaged in-phase amplitude makes a phase-error
-    cosine above 0.9 and stands 4 standard deviations (SNR 16) above the noise of its average
-    (lost below 0.7 or SNR 4); the BPSK Costas loop when ``<I^2 - Q^2> / <I^2 + Q^2>`` of its arms
-    exceeds 0.1 (lost below 0.05; noise alone stays within +-0.045).  No lock is declared before the
-    averages have half their weight after an acquisition.  A symbol's ``locked`` flag is the
-    carrier lock at its centre; ``symbol_locked`` adds the block's Es/N0 estimate above -3 dB.
-    Cost per sample: one complex rotation and about 40 flops; per symbol O(samples per symbol).
+    Es/N0 (per symbol, data power): ``(<s^2> - N_s) / (2 N_s)`` averaged over about 2048 symbols,
+    with the symbol noise ``N_s = sigma^2 (T - 1/3) g`` known from the carrier stage (``sigma^2``
+    the variance of ``Re r`` per sample, ``T - 1/3`` the integrate-and-dump's weight energy at a
+    random sample phase, ``g`` = 1, or 1/2 for a sine subcarrier); the soft values are ``s / (A T)``
+    with the data amplitude ``A`` from the same estimate.  Bi-phase-L BPSK: M2M4 per block.
+
+    Lock (each a statistic above its threshold for a stated time; on noise alone each statistic is
+    about N(0, 1)): carrier, the coherent carrier amplitude ``sum(Re r)`` over its standard error
+    per decision interval ``1 / B_L``, locked after two intervals above 5, lost after two below 3;
+    symbol, the mean of ``s_k^2 - h_k^2`` over its standard error (``h_k`` the integral from the
+    centre of symbol ``k`` to that of ``k + 1``: on time it holds half the symbol energy of ``s_k``;
+    on noise the two are alike), over about 8192 symbols, locked after two blocks above 5, lost
+    after two below 3; subcarrier, the same with ``s_k^2 - q_k^2`` (``q_k`` the integral with the
+    quadrature reference).  ``TrackPoint.symbol_locked`` is all three; a symbol's ``locked`` flag
+    is the carrier lock at its centre.  After three unlocked blocks (once the carrier detector has
+    decided) the carrier is searched again.  Bi-phase-L BPSK: the Costas ratio
+    ``<I^2 - Q^2> / <I^2 + Q^2>`` above 0.1 (off below 0.05), symbol lock from Es/N0 above -3 dB.
+    Cost per sample: one complex rotation (a table read) and about 40 flops; per symbol O(samples
+    per symbol); per searched block one FFT of the block.
 
     References
     ----------
@@ -233,13 +294,16 @@ class ResidualCarrierDemodulator:
     PCM/PSK/PM, Bi-phase-L), from memory, not confirmed.
     """
 
-    def __init__(self, *, link: LinkSection, receiver: ReceiverSection, sample_rate_hz: float) -> None:
+    def __init__(self, *, link: LinkSection, receiver: ReceiverSection, sample_rate_hz: float,
+                 phasor: Literal["table", "exact"] = "table") -> None:
         if not isinstance(link, LinkSection):
             raise TypeError(f"Argument 'link' must be a LinkSection, not {type(link).__name__}.")
         if not isinstance(receiver, ReceiverSection):
             raise TypeError(f"Argument 'receiver' must be a ReceiverSection, not {type(receiver).__name__}.")
         if isinstance(sample_rate_hz, bool) or not isinstance(sample_rate_hz, (int, float)):
             raise TypeError(f"Argument 'sample_rate_hz' must be a number, not {type(sample_rate_hz).__name__}.")
+        if phasor not in ("table", "exact"):
+            raise ValueError(f"Argument 'phasor' must be table | exact, not {phasor!r}.")
         fs = float(sample_rate_hz)
         if not (math.isfinite(fs) and fs > 0):
             raise ValueError(f"Argument 'sample_rate_hz' must be a positive finite number, not {sample_rate_hz!r}.")
@@ -276,68 +340,94 @@ class ResidualCarrierDemodulator:
         self.receiver = receiver
         self.sample_rate_hz = fs
         self.samples_per_symbol = sps
+        self.symbol_rate_baud = float(link.symbol_rate_baud)
         self.modulation = link.modulation
         self.bits_per_symbol = 1
         self.residual = residual
         self.subcarrier_mode = sc_mode
+        self.phasor = phasor
         self.wave = {0: "nrz", 1: "square", 2: "sine"}[sc_mode]
         self.block_samples = max(32768, _next_pow2(256 * sps))
         rng = receiver.acquisition_range_hz
         self.acquisition_search_hz = 0.5 * fs if rng is None else min(float(rng), 0.5 * fs)
         self.conjugate = receiver.spectrum_inverted is True
-        self.line_threshold_db = 10.0 * math.log10(LINE_THRESHOLD * math.log(2.0))
-        nrz_pm = link.modulation == "pcm-pm" and not self.biphase
-        auto = (_AUTO_CARRIER_BW_NRZ_PM if nrz_pm else _AUTO_CARRIER_BW) * link.symbol_rate_baud
-        bw = float(receiver.carrier_loop_bandwidth_hz or auto)
-        if bw >= 0.05 * link.symbol_rate_baud:
+        self.nrz_pm = link.modulation == "pcm-pm" and not self.biphase
+        fixed = float(receiver.carrier_loop_bandwidth_hz or 0.0)
+        if fixed >= 0.05 * link.symbol_rate_baud:
             raise ValueError(f"Argument 'receiver.carrier_loop_bandwidth_hz' must be below 5% of the symbol rate, "
-                             f"not {bw:g} Hz.")
-        self.carrier_loop_bandwidth_hz = bw
+                             f"not {fixed:g} Hz.")
+        self.fixed_carrier_hz = fixed or None
         self.carrier_loop_order = int(receiver.carrier_loop_order)
-        self.subcarrier_loop_bandwidth_hz = _SUBCARRIER_BW * link.symbol_rate_baud if sc_mode else 0.0
-        chip = sps / (2.0 if self.biphase else 1.0)
-        self.chip_samples = chip
-
-        kp_c, ki_c, kr_c = _loop_gains(bw / fs, self.carrier_loop_order)
-        p = np.zeros(CARRIER_PARAM_SIZE, dtype=np.float64)
-        p[0] = 0.0 if residual else 1.0
-        p[1] = float(sc_mode)
-        p[2:5] = (kp_c, ki_c, kr_c)
-        if sc_mode:
-            self.subcarrier_cycles_per_sample = link.subcarrier_hz / fs
-            kp_s, ki_s, _ = _loop_gains(self.subcarrier_loop_bandwidth_hz / fs, 2)
-            slope = 4.0 if sc_mode == 1 else 2.0 * math.pi  # error per cycle of subcarrier phase (kernel Notes)
-            p[5] = self.subcarrier_cycles_per_sample
-            p[6] = kp_s / slope
-            p[7] = ki_s / slope
+        self.timing_bt_max = float(receiver.timing_loop_bandwidth)
+        self.chip_samples = sps / (2.0 if self.biphase else 1.0)
+        self.subcarrier_cycles_per_sample = link.subcarrier_hz / fs if sc_mode else 0.0
+        if residual:
+            pc, pd = _power_split(self.wave, link.modulation_index_rad)
+            self.data_to_carrier = pd / pc
         else:
-            self.subcarrier_cycles_per_sample = 0.0
-        p[8] = min(1.0, 2.0 / chip)
-        p[9] = min(0.01, 4.0 * bw / fs)  # amplitude / lock averages: a few loop time constants
-        p[10] = _SQUARE_WINDOW_CYCLES
+            self.data_to_carrier = math.inf
+        # the integrated symbol noise per unit sample variance: the reference's mean square
+        self._ref_power = 0.5 if sc_mode == 2 else 1.0
+        # mean square of the one-pole arm filter's output for a +-1 chip stream of unit amplitude:
+        # E[y^2] = a / (2 - a) sum_k (1 - a)^|k| R(k), R(k) = max(0, 1 - |k| / L) (the chips' autocorrelation)
+        a_arm = min(1.0, 2.0 / self.chip_samples)
+        lag = np.arange(-int(self.chip_samples), int(self.chip_samples) + 1)
+        corr = np.maximum(0.0, 1.0 - np.abs(lag) / self.chip_samples)
+        self._arm_power = float(a_arm / (2.0 - a_arm) * np.sum((1.0 - a_arm) ** np.abs(lag) * corr))
+        self._cos, self._sin = phasor_table()
+
+        p = np.zeros(1, dtype=CARRIER_PARAMS)
+        p["carrier_mode"] = 0 if residual else 1
+        p["subcarrier_mode"] = sc_mode
+        p["third_order"] = 1 if self.carrier_loop_order == 3 else 0
+        p["table_phasor"] = 1 if phasor == "table" else 0
+        p["a_arm"] = a_arm
+        p["w_sq"] = _SQUARE_WINDOW_CYCLES
+        p["z_on"], p["z_off"] = _CARRIER_Z_ON, _CARRIER_Z_OFF
+        p["on_count"], p["off_count"] = _CARRIER_HOLD, _CARRIER_HOLD
         # Costas lock: <I^2 - Q^2> / <I^2 + Q^2> of the chip-long arms is about S / (S + 2 N_arm) when locked,
         # measured 0.37 at Es/N0 = 5 dB, 0.15 at 0 dB and 0.10 at -2 dB (20 samples per symbol), and within
-        # +-0.045 on noise alone; a lock lost for 3 blocks means a new acquisition (and a possible data inversion)
-        p[12:16] = (0.9, 0.7, 16.0, 4.0) if residual else (0.1, 0.05, 0.0, -1.0)
-        p[16] = 0.25 * p[9] if not residual else p[9]
+        # +-0.045 on noise alone
+        p["costas_on"], p["costas_off"] = 0.1, 0.05
         self._cparams = p
-        bn_t = receiver.timing_loop_bandwidth
-        kp_t, ki_t, _ = _loop_gains(bn_t, 2)
-        q = np.zeros(SYMBOL_PARAM_SIZE, dtype=np.float64)
-        q[:7] = (1.0 if self.biphase else 0.0, kp_t, ki_t, _DTTL_WINDOW, 1.0 / 256.0, sps, _TIMING_RATE_LIMIT)
+        q = np.zeros(1, dtype=SYMBOL_PARAMS)
+        q["biphase"] = 1 if self.biphase else 0
+        q["quadrature"] = 1 if sc_mode else 0
+        q["window"] = _DTTL_WINDOW
+        q["nominal"] = sps
+        q["limit"] = _TIMING_RATE_LIMIT
+        q["a_amp"] = 0.0 if residual else 1.0 / 256.0  # residual: the amplitude comes from the Es/N0 estimate
         self._sparams = q
-        # rect_symbols bound: a symbol moves tau by at least T (1 - limit) (1 - kp W) samples
-        self._min_symbol_advance = sps * (1.0 - _TIMING_RATE_LIMIT) * (1.0 - kp_t * _DTTL_WINDOW)
-        self._search = None
-        if not residual:
+        # rect_symbols bound: a symbol moves tau by at least T (1 - limit) (1 - kp / 2) samples; kp <= 2.67 B_L T / 0.05
+        # (the largest transition-loop bandwidth, over the smallest error slope of _plan)
+        self._min_symbol_advance = sps * (1.0 - _TIMING_RATE_LIMIT) * (1.0 - 0.5 * min(53.4 * self.timing_bt_max, 1.0))
+        symbols_per_block = self.block_samples / sps
+        self.symbols_per_block = symbols_per_block
+        self.dwell_blocks = 1
+        self.hold_blocks = 1
+        self._search: ResidualCarrierSearch | CarrierSearch
+        if residual:
+            self.dwell_blocks = int(min(_MAX_DWELL_BLOCKS, max(1, math.ceil(_DWELL_SYMBOLS / symbols_per_block))))
+            self.hold_blocks = int(max(1, min(self.dwell_blocks, _HOLD_SAMPLES // self.block_samples)))
+            self._search = ResidualCarrierSearch(sample_rate_hz=fs, block_samples=self.block_samples,
+                                                 search_hz=self.acquisition_search_hz, max_blocks=self.dwell_blocks,
+                                                 max_rate_hz_per_s=_MAX_DOPPLER_RATE)
+            t = self._search.threshold(self.dwell_blocks) / self.dwell_blocks
+            self.line_threshold_db = 10.0 * math.log10(t)
+        else:
             # Bi-phase-L BPSK: the chip-long box before squaring; the band's shape is the Manchester pulse's
-            box = np.ones(max(1, int(round(chip))), dtype=np.float64)
+            box = np.ones(max(1, int(round(self.chip_samples))), dtype=np.float64)
             manchester = np.concatenate([box, -box])
-            wn = _loop_gains(bw / fs, 2)[0] / (2.0 * _ZETA) * fs  # natural frequency, rad/s
+            bw = plan_loops(symbol_rate_baud=self.symbol_rate_baud, cn0_hz=float("nan"), data_to_carrier=1.0,
+                            nrz_pm=False, since_s=0.0, fixed_carrier_hz=self.fixed_carrier_hz).carrier_hz
+            wn = loop_gains(bw / fs, 2)[0] / (2.0 * _ZETA) * fs  # natural frequency, rad/s
             self._search = CarrierSearch(sample_rate_hz=fs, power=2, prefilter=box / math.sqrt(box.size),
                                          template=manchester, occupied_hz=4.0 * link.symbol_rate_baud,
                                          search_hz=self.acquisition_search_hz, fine_hz=0.05 * link.symbol_rate_baud,
                                          max_rate_hz_per_s=min(5000.0, 0.2 * wn * wn / (2.0 * math.pi)))
+            from pipeline.demod._acquire import LINE_THRESHOLD
+
+            self.line_threshold_db = 10.0 * math.log10(LINE_THRESHOLD * math.log(2.0))
         self.reset()
 
     # ---- state -------------------------------------------------------------------------
@@ -345,33 +435,57 @@ class ResidualCarrierDemodulator:
         """Forget all state: the next :meth:`process` starts a new stream."""
         self._next_start: int | None = None
         self._pending = np.zeros(0, dtype=np.complex64)
+        self._pending_start = 0
         self._agc_power = 0.0
         self._dc = DcBlocker()
-        self._cs = np.zeros(CARRIER_STATE_SIZE, dtype=np.float64)
-        self._cs[16] = 1.0 if self.carrier_loop_order == 3 else 0.0
-        self._cs[8] = self.subcarrier_cycles_per_sample
-        self._ss = np.zeros(SYMBOL_STATE_SIZE, dtype=np.float64)
-        self._ss[1] = self.samples_per_symbol
-        self._ubuf = np.zeros(0, dtype=np.float64)
-        self._lbuf = np.zeros(0, dtype=np.int8)
-        self._ubase = 0
-        self._need_acq = True
-        self._timing_acquired = False
+        self._cs = np.zeros(1, dtype=CARRIER_STATE)
+        self._cs[0]["sc_frequency"] = self.subcarrier_cycles_per_sample
+        self._ss = np.zeros(1, dtype=SYMBOL_STATE)
+        self._ss[0]["period"] = self.samples_per_symbol
+        self._clear_symbol_stage(0)
+        self._tracking = False
+        self._held: list[tuple[np.ndarray, float, int]] = []
+        self._found = None  # the detection whose window is still growing
+        self._dwell_start = 0
+        self._acq_start = 0
+        self._amp_floor = 0.0
+        self._carrier_amp = float("nan")
+        self._cn0_hz = float("nan")
+        self._noise_var = float("nan")
+        self._clock_ratio = 1.0
         self._unlocked_blocks = 0
-        self._symbol_locked = False
         self._finished = False
+        self.loop_plan: LoopPlan | None = None
         self.modulation_index_rad = float("nan")
         self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
+        if self.residual:
+            self._search.restart()
+
+    def _clear_symbol_stage(self, base: int) -> None:
+        """Empty the symbol buffers (the next symbols start a new timing acquisition at ``base``)."""
+        self._ubuf = np.zeros(0, dtype=np.float32)
+        self._uqbuf = np.zeros(0, dtype=np.float32)
+        self._lbuf = np.zeros(0, dtype=np.int8)
+        self._ubase = int(base)
+        self._timing_acquired = False
+        self._symbol_lock = MeanStatistic(memory_symbols=_LOCK_MEMORY_SYMBOLS)
+        self._subcarrier_lock = MeanStatistic(memory_symbols=_LOCK_MEMORY_SYMBOLS)
+        self._symbol_decision = HeldDecision(on=_SYMBOL_Z_ON, off=_SYMBOL_Z_OFF, hold=_SYMBOL_HOLD)
+        self._subcarrier_decision = HeldDecision(on=_SYMBOL_Z_ON, off=_SYMBOL_Z_OFF, hold=_SYMBOL_HOLD)
+        # sums of s^2, the symbol noise N_s and the carrier amplitude, per symbol
+        self._esn0_ew = _Ew(_ESN0_MEMORY_SYMBOLS, 3)
+        self._data_amp = float("nan")
 
     # ---- public ------------------------------------------------------------------------
     def process(self, chunk: Any) -> SymbolBlock:
         """Demodulate one chunk (an object with ``samples``, ``start`` and ``nonfinite``).
 
-        Returns the symbols of every block completed so far; a partial block waits.
+        Returns the symbols of every block completed so far; a partial block waits (and so do the
+        blocks held back while the carrier is searched).
         """
         if self._finished:
             raise ValueError("Argument 'chunk' cannot be processed after flush(); call reset() first.")
-        samples, start = self._check_chunk(chunk)
+        samples, start = check_chunk(chunk)
         self.stats.nonfinite_samples += int(getattr(chunk, "nonfinite", 0) or 0)
         continue_stream(self._next_start, start)
         if self._next_start is None:
@@ -382,101 +496,36 @@ class ResidualCarrierDemodulator:
         blocks, self._pending = cut_blocks(self._pending, samples, self.block_samples)
         parts: list[dict] = []
         for block in blocks:
-            self._run_block(block, self._pending_start, parts)
+            self._feed(block, self._pending_start, parts)
             self._pending_start += self.block_samples
         return self._assemble(parts)
 
     def flush(self) -> SymbolBlock:
-        """Demodulate the last partial block; symbols whose interval ends past the last sample are dropped."""
+        """Demodulate the last partial block and what the search still holds; symbols whose interval ends past
+        the last sample are dropped."""
         if self._finished or self._next_start is None:
             self._finished = True
             return SymbolBlock()
         parts: list[dict] = []
         if self._pending.size:
-            self._run_block(self._pending, self._pending_start, parts)
+            self._feed(self._pending, self._pending_start, parts)
             self._pending = np.zeros(0, dtype=np.complex64)
+        if self._found is not None:
+            self._complete_acquisition(parts)
+        if not self._tracking and self.residual and self._search.blocks:
+            self._saw(self._search.detect())
+        while self._held:
+            self._skip(self._held.pop(0), parts)
         self._finished = True
         return self._assemble(parts)
 
-    # ---- internals ---------------------------------------------------------------------
-    def _check_chunk(self, chunk: Any) -> tuple[np.ndarray, int]:
-        return check_chunk(chunk)
+    def no_lock_message(self) -> str | None:
+        """One line for stderr when no carrier lock was found so far (``DemodStats.no_lock_message``)."""
+        return self.stats.no_lock_message()
 
-    def _acquire(self, block: np.ndarray, gain: float) -> bool:
-        """Carrier frequency, phase and amplitude (and subcarrier phase) from one block; True if found."""
-        self.stats.acquisitions += 1
-        fs = self.sample_rate_hz
-        n = block.size
-        x = block.astype(np.complex128) * gain
-        if self.residual:
-            # the residual carrier itself is the line (no squaring); the block mean goes first, so that a
-            # receiver DC offset is never taken for it (a carrier within fs / n of 0 Hz goes with it)
-            f_hz, ratio = spectral_line(x - x.mean(), sample_rate_hz=fs, search_hz=self.acquisition_search_hz)
-            found = ratio >= LINE_THRESHOLD
-            level = 10.0 * math.log10(ratio * math.log(2.0)) if ratio > 0 else -math.inf
-            self.stats.saw(SpectralLine(f_hz, level, "carrier line"))
-        else:
-            acq = self._search.search(x)
-            f_hz, found = acq.offset_hz, acq.found
-            ratio = 10.0 ** (acq.line.level_db / 10.0) / math.log(2.0)
-            self.stats.saw(acq.line)
-        self.stats.last_peak_ratio = ratio
-        if not found:
-            return False
-        self.stats.carrier_found += 1
-        m = max(64, n // 4)
-        rot = x[:m] * np.exp(-2j * math.pi * f_hz / fs * np.arange(m))
-        if self.residual:
-            c = complex(np.mean(rot))
-            phase0 = math.atan2(c.imag, c.real)
-            self._cs[4] = abs(c)
-        else:
-            c2 = complex(np.mean(rot * rot))
-            phase0 = 0.5 * math.atan2(c2.imag, c2.real)
-        cs = self._cs
-        jump = (phase0 - cs[0] + math.pi) % (2.0 * math.pi) - math.pi
-        cs[0] = phase0
-        cs[3] += jump  # the total phase stays continuous across a re-acquisition
-        cs[1] = 2.0 * math.pi * f_hz / fs
-        cs[2] = 0.0
-        cs[5] = 0.0
-        cs[6] = cs[4] ** 2
-        cs[8] = self.subcarrier_cycles_per_sample  # whatever the subcarrier loop did before, start nominal
-        cs[9:15] = 0.0
-        cs[15] = 0.0
-        cs[20] = 0.0
-        cs[21] = 0.0
-        cs[22] = 0.0
-        if self.subcarrier_mode:
-            self._acquire_subcarrier(block, gain)
-        return True
-
-    def _acquire_subcarrier(self, block: np.ndarray, gain: float) -> None:
-        """Subcarrier phase: run the carrier loop over the block with ``Im r`` out, then ``arg(-sum c_j^2) / 4 pi``."""
-        n = block.size
-        trial = self._cs.copy()
-        params = self._cparams.copy()
-        params[6] = 0.0
-        params[7] = 0.0
-        params[11] = 1.0
-        q = np.empty(n, dtype=np.float64)
-        lk = np.empty(n, dtype=np.int8)
-        ph = np.empty(n, dtype=np.float64)
-        track_carrier(block, gain, params, trial, q, lk, ph)
-        nu = self._cs[8]
-        psi = self._cs[7] + nu * np.arange(n)
-        ref = q * np.exp(-2j * math.pi * psi)
-        chip = max(1, int(round(self.chip_samples)))
-        half = n // 2  # the carrier loop has settled in the second half
-        nwin = (n - half) // chip
-        if nwin < 4:
-            return
-        cj = ref[half:half + nwin * chip].reshape(nwin, chip).sum(axis=1)
-        acc = -complex(np.sum(cj * cj))
-        delta = math.atan2(acc.imag, acc.real) / (4.0 * math.pi)
-        self._cs[7] = (self._cs[7] + delta) % 1.0
-
-    def _run_block(self, block: np.ndarray, block_start: int, parts: list) -> None:
+    # ---- blocks ------------------------------------------------------------------------
+    def _condition(self, block: np.ndarray) -> tuple[np.ndarray, float]:
+        """NaN/Inf to zero, conjugation, DC removal; the block and its AGC gain."""
         block = np.array(block, dtype=np.complex64)
         if not np.isfinite(block.view(np.float32).sum()):
             bad = ~np.isfinite(block)
@@ -484,129 +533,496 @@ class ResidualCarrierDemodulator:
             block[bad] = 0
         if self.conjugate:
             block = np.conj(block)
-        n = block.size
         block, pw = self._dc.process(block)
         if pw > 0:
             self._agc_power = pw if self._agc_power == 0.0 else 0.8 * self._agc_power + 0.2 * pw
         gain = 1.0 / math.sqrt(self._agc_power) if self._agc_power > 0 else 1.0
-        acquired_now = False
-        if self._need_acq and n >= 1024:
-            acquired_now = self._acquire(block, gain)
-            self._need_acq = not acquired_now
-            self._unlocked_blocks = 0
-        u = np.empty(n, dtype=np.float64)
-        lk = np.empty(n, dtype=np.int8)
-        ph = np.empty(n, dtype=np.float64)
-        self._cs[17:20] = 0.0
-        params = self._cparams
-        if self._need_acq and self.subcarrier_mode and not self.stats.carrier_found:
-            # no carrier yet: the subcarrier loop would only wander on noise, so it holds
-            params = params.copy()
-            params[6:8] = 0.0
-        track_carrier(block, gain, params, self._cs, u, lk, ph)
-        carrier_amp = self._cs[17] / self._cs[19] if self._cs[19] > 0 else float("nan")
+        return block, gain
 
-        # symbol stage on the carried-over tail plus this block
-        self._ubuf = np.concatenate([self._ubuf, u])
-        self._lbuf = np.concatenate([self._lbuf, lk])
-        T = self.samples_per_symbol
-        if (acquired_now and not self._symbol_locked) or (not self._timing_acquired and not self._need_acq):
-            self._acquire_timing(block_start)
-        nsym = 0
-        pos = raw = soft = np.zeros(0, dtype=np.float64)
-        slock = np.zeros(0, dtype=np.int8)
-        if self._timing_acquired:
-            pos, raw, soft, slock = self._symbols()
-            nsym = pos.size
-            keep = int(math.floor(self._ss[0] - (0.5 + 2.0 * _DTTL_WINDOW) * self._ss[1])) - 2 - self._ubase
-        else:
-            keep = self._ubuf.size - int(math.ceil(2 * T)) - 2  # keep a little for the first symbol
-        keep = min(max(keep, 0), self._ubuf.size)
-        self._ubuf = self._ubuf[keep:].copy()
-        self._lbuf = self._lbuf[keep:].copy()
-        self._ubase += keep
-        pos, raw, soft, slock = pos[:nsym], raw[:nsym], soft[:nsym], slock[:nsym].astype(bool)
+    def _feed(self, block: np.ndarray, start: int, parts: list) -> None:
+        block, gain = self._condition(block)
+        item = (block, gain, start)
+        if self._tracking:
+            self._track([item], parts)
+            return
+        if not self.residual:
+            self._feed_costas(item, parts)
+            return
+        search = self._search
+        if self._found is not None:
+            self._held.append(item)
+            if self._window_ready(self._found[1]) or len(self._held) >= self.hold_blocks \
+                    or block.size < self.block_samples:
+                self._complete_acquisition(parts)
+            return
+        if block.size == self.block_samples:
+            if search.blocks >= search.max_blocks:
+                self._saw(search.detect())  # the dwell ends unfound: what it saw, then a new one
+                search.restart()
+            search.add(block, gain)
+            if search.blocks == 1:
+                self._dwell_start = start
+                while self._held:  # blocks of an earlier dwell
+                    self._skip(self._held.pop(0), parts)
+            self.stats.acquisitions += 1
+        self._held.append(item)
+        if search.blocks and block.size == self.block_samples:
+            det = search.detect()
+            self.stats.last_peak_ratio = 10.0 ** (det.level_db / 10.0) + 1.0
+            if det.found:
+                self._saw(det)
+                fix = self._refine(det)
+                if fix is not None:
+                    while self._held and self._held[0][2] < fix.start:
+                        self._skip(self._held.pop(0), parts)
+                    need = self._window_needed(fix.cn0_hz)
+                    self._found = (det, need)
+                    if self._window_ready(need) or len(self._held) >= self.hold_blocks:
+                        self._complete_acquisition(parts, fix)
+                    return
+        while len(self._held) > self.hold_blocks:
+            self._skip(self._held.pop(0), parts)
 
-        # ---- the block's track point -----------------------------------------------------
+    def _refine(self, det) -> CarrierFix | None:
+        return self._search.refine([b for b, _, _ in self._held], [g for _, g, _ in self._held],
+                                   [s for _, _, s in self._held], det, self._dwell_start)
+
+    def _window_ready(self, need_symbols: float) -> bool:
+        return sum(b.size for b, _, _ in self._held) / self.samples_per_symbol >= need_symbols
+
+    def _window_needed(self, cn0_hz: float) -> float:
+        """Symbols the acquisition window should hold at this ``P_c / N0`` (at most the hold).
+
+        Timing: the energy search places the symbol within ``sqrt((2 N^2 + 4 N S) / n) / (2 S)`` symbols
+        (``S / N = 2 Es/N0``: the mean energy falls by ``2 S x`` at ``x`` symbols off), 0.03 wanted.
+        Subcarrier: the line of the squared chip correlations has an SNR of ``(2/3) rho^2 / (4 rho + 2)``
+        per chip (``rho`` the chip correlation's SNR, ``(8 / pi^2) 2 E_chip`` for a square wave's
+        fundamental, ``2 E_chip`` for a sine; 2/3 for chips that straddle a data transition), 30 wanted.
+        """
+        e = cn0_hz * self.data_to_carrier / self.symbol_rate_baud
+        if not (e > 0 and math.isfinite(e)):
+            return 0.0
+        need = (2.0 + 8.0 * e) / (16.0 * 0.03 ** 2 * e * e)
+        if self.subcarrier_mode:
+            chips = 2.0 if self.biphase else 1.0
+            e_chip = e / chips
+            rho = (8.0 / math.pi ** 2 if self.subcarrier_mode == 1 else 1.0) * 2.0 * e_chip
+            need = max(need, 30.0 * (4.0 * rho + 2.0) / (2.0 / 3.0 * rho * rho) / chips)
+        return min(max(need, 256.0), self.hold_blocks * self.symbols_per_block)
+
+    def _complete_acquisition(self, parts: list, fix: CarrierFix | None = None) -> None:
+        """Refine the carrier over the whole held window and start tracking from it."""
+        det, _ = self._found
+        self._found = None
+        if fix is None or len(self._held) > 1:
+            fix = self._refine(det)
+        self._search.restart()
+        if fix is None:  # the line did not hold over the longer window: search again
+            while self._held:
+                self._skip(self._held.pop(0), parts)
+            return
+        while self._held and self._held[0][2] < fix.start:
+            self._skip(self._held.pop(0), parts)
+        items, self._held = self._held, []
+        self._start_tracking(fix, items, parts)
+
+    def _saw(self, det) -> None:
+        if det.blocks:
+            level = 10.0 * math.log10(max(10.0 ** (det.level_db / 10.0) + 1.0, 1e-12))
+            self.stats.saw(SpectralLine(det.frequency_hz, level, "carrier line"))
+
+    def _feed_costas(self, item, parts: list) -> None:
+        """Bi-phase-L BPSK: a :class:`CarrierSearch` on the block; found, the block is tracked from it."""
+        block, gain, start = item
+        if block.size < 1024:
+            self._skip(item, parts)
+            return
+        self.stats.acquisitions += 1
+        acq = self._search.search(block.astype(np.complex128) * gain)
+        self.stats.saw(acq.line)
+        self.stats.last_peak_ratio = 10.0 ** (acq.line.level_db / 10.0) / math.log(2.0)
+        if not acq.found:
+            self._skip(item, parts)
+            return
+        self.stats.carrier_found += 1
         fs = self.sample_rate_hz
-        freq = (ph[-1] - ph[0]) / (2.0 * math.pi * max(n - 1, 1)) * fs if n > 1 else float("nan")
-        std = _frequency_std_hz(ph, fs)
-        s_pow, n_pow = _real_m2m4(raw)
-        esn0_db = (10.0 * math.log10(s_pow / (2.0 * n_pow)) if (s_pow > 0 and n_pow > 0) else
-                   (float("inf") if s_pow > 0 else float("nan")))
-        carrier_locked = bool(lk[-1]) if n else False
-        symbol_locked = bool(carrier_locked and esn0_db > _SYMBOL_LOCK_ESN0_DB)
-        self._symbol_locked = symbol_locked
+        m = max(64, block.size // 4)
+        rot = block[:m].astype(np.complex128) * gain * np.exp(-2j * math.pi * acq.offset_hz / fs * np.arange(m))
+        c2 = complex(np.mean(rot * rot))
+        phase0 = 0.5 * math.atan2(c2.imag, c2.real)
+        st = self._cs[0]
+        self._reset_carrier(phase0, 2.0 * math.pi * acq.offset_hz / fs, 0.0, 0.0)
+        st["costas_warm"] = 0.0
+        self._acq_start = start
+        self._tracking = True
+        self._clear_symbol_stage(start)
+        self._track([item], parts)
+
+    def _skip(self, item, parts: list) -> None:
+        """A block passed without demodulation (searched, not found): a track point of ``nan`` values."""
+        block, _, start = item
+        n = block.size
+        self._clear_symbol_stage(start + n)
+        track = [ResidualTrackPoint(position=float(start + 0.5 * (n - 1)), carrier_offset_hz=float("nan"),
+                                    esn0_db=float("nan"), carrier_locked=False, symbol_locked=False,
+                                    subcarrier_locked=False if self.subcarrier_mode else None)]
+        parts.append({"pos": np.zeros(0), "soft": np.zeros(0, np.float32), "locked": np.zeros(0, bool),
+                      "track": track})
+
+    def _reset_carrier(self, phase: float, omega: float, rate: float, amplitude: float) -> None:
+        st = self._cs[0]
+        jump = (phase - st["phase"] + math.pi) % (2.0 * math.pi) - math.pi
+        st["total"] += jump  # the total phase stays continuous across a re-acquisition
+        st["phase"] = phase % (2.0 * math.pi)
+        st["frequency"] = omega
+        st["rate"] = rate
+        st["amplitude"] = amplitude
+        for name in ("sc_i", "sc_q", "costas_i", "costas_q", "costas_num", "costas_den", "costas_warm",
+                     "lk_sum", "lk_sum2", "lock_z"):
+            st[name] = 0.0
+        for name in ("locked", "above", "below", "decisions", "lk_count"):
+            st[name] = 0
+        st["sc_frequency"] = self.subcarrier_cycles_per_sample
+        st["sc_phase"] = 0.0
+
+    def _start_tracking(self, fix: CarrierFix, items: list, parts: list) -> None:
+        """Start the loops from the fine acquisition and demodulate the held window ``items``."""
+        fs = self.sample_rate_hz
+        self.stats.carrier_found += 1
+        self._reset_carrier(fix.phase_rad, 2.0 * math.pi * fix.frequency_hz / fs,
+                            2.0 * math.pi * fix.rate_hz_per_s / (fs * fs), fix.amplitude)
+        self._amp_floor = 0.25 * fix.amplitude
+        self._carrier_amp = fix.amplitude
+        self._cn0_hz = fix.cn0_hz
+        self._acq_start = fix.start
+        self._unlocked_blocks = 0
+        self._tracking = True
+        self._clear_symbol_stage(items[0][2])
+        self._clock_ratio = 1.0
+        if self.subcarrier_mode:
+            self._acquire_subcarrier(items)
+        self._track(items, parts)
+
+    def _plan(self, start: int) -> LoopPlan:
+        """Loop bandwidths for the block starting at ``start``, written into the kernels' parameters."""
+        fs = self.sample_rate_hz
+        since = (start - self._acq_start) / fs
+        plan = plan_loops(symbol_rate_baud=self.symbol_rate_baud, cn0_hz=self._cn0_hz,
+                          data_to_carrier=self.data_to_carrier, nrz_pm=self.nrz_pm, since_s=since,
+                          fixed_carrier_hz=self.fixed_carrier_hz, timing_bt_max=self.timing_bt_max)
+        self.loop_plan = plan
+        p = self._cparams[0]
+        kp, ki, kr = loop_gains(plan.carrier_hz / fs, self.carrier_loop_order)
+        p["kp_c"], p["ki_c"], p["kr_c"] = kp, ki, kr
+        p["a_amp"] = min(0.01, 4.0 * plan.carrier_hz / fs)
+        p["amp_floor"] = self._amp_floor
+        p["lock_interval"] = max(64, int(round(plan.lock_interval_s * fs)))
+        p["a_costas"] = 0.25 * p["a_amp"]
+        if self.subcarrier_mode:
+            # the in-phase arm's data power: A_d = A_c sqrt(P_d / P_c x the reference's mean square)
+            a_d = self._carrier_amp * math.sqrt(self.data_to_carrier * self._ref_power)
+            p["sc_norm"] = self._arm_power * a_d * a_d if math.isfinite(a_d) and a_d > 0 else 1e-30
+            kp_s, ki_s, _ = loop_gains(plan.subcarrier_hz / fs, 2)
+            slope = 4.0 if self.subcarrier_mode == 1 else 2.0 * math.pi  # error per cycle of subcarrier phase
+            p["kp_s"], p["ki_s"] = kp_s / slope, ki_s / slope
+        # the transition loop's mean error per symbol: half the NRZ symbols have a transition (every Bi-phase-L
+        # symbol has one), and it is detected with probability about (1 + erf(sqrt(Es/N0))) / 2, so the mean
+        # error is erf(sqrt(Es/N0)) of its noise-free value (Yuen (ed.), ch. 5: the DTTL's S-curve slope)
+        esn0 = self._cn0_hz * self.data_to_carrier / self.symbol_rate_baud if self.residual else math.inf
+        slope_t = max(math.erf(math.sqrt(esn0)), 0.1) if math.isfinite(esn0) and esn0 > 0 else 1.0
+        if not self.biphase:
+            slope_t *= 0.5
+        kp_t, ki_t, _ = loop_gains(plan.timing_bt, 2)
+        q = self._sparams[0]
+        q["kp_t"], q["ki_t"] = kp_t / slope_t, ki_t / slope_t
+        return plan
+
+    # ---- acquisition of subcarrier and timing ---------------------------------------------
+    def _acquire_subcarrier(self, items: list) -> None:
+        """Subcarrier frequency offset and phase from a carrier pass over the held window (see the class Notes)."""
+        state = self._cs.copy()
+        self._plan(items[0][2])
+        params = self._cparams.copy()
+        params[0]["kp_s"] = 0.0
+        params[0]["ki_s"] = 0.0
+        params[0]["raw"] = 1
+        qs = []
+        for block, gain, _ in items:
+            n = block.size
+            q = np.empty(n, dtype=np.float32)
+            qq = np.empty(n, dtype=np.float32)
+            lk = np.empty(n, dtype=np.int8)
+            ph = np.empty(0, dtype=np.float64)
+            track_carrier(block, gain, params, state, self._cos, self._sin, np.zeros(0, np.int64), q, qq, lk, ph)
+            qs.append(q)
+        q = np.concatenate(qs).astype(np.float64)
+        n = q.size
+        nu = self.subcarrier_cycles_per_sample
+        psi = nu * np.arange(n)
+        ref = q * np.exp(-2j * math.pi * psi)
+        chip = max(1, int(round(self.chip_samples)))
+        nwin = n // chip
+        if nwin < 16:
+            return
+        cj = ref[:nwin * chip].reshape(nwin, chip).sum(axis=1)
+        zj = -(cj * cj)  # the data sign removed: exp(j 4 pi delta) for a reference delta cycles behind
+        # a subcarrier offset dnu (cycles/sample) turns zj at 2 dnu chip cycles per chip
+        span = 2.0 * _CLOCK_SEARCH * nu * chip
+        nfft = 8 * _next_pow2(nwin)
+        spec = np.fft.fft(zj * np.hanning(nwin), nfft)
+        pw = spec.real ** 2 + spec.imag ** 2
+        f = np.fft.fftfreq(nfft)
+        band = np.flatnonzero(np.abs(f) <= span + 1.0 / nwin)
+        k = int(band[np.argmax(pw[band])])
+        lo, mid, hi = pw[(k - 1) % nfft], pw[k], pw[(k + 1) % nfft]
+        den = lo - 2.0 * mid + hi
+        frac = 0.5 * (lo - hi) / den if den < 0 else 0.0
+        rot = (k + frac) / nfft
+        if rot >= 0.5:
+            rot -= 1.0
+        # an offset only when its line stands out of the noise (exponential bins, the floor from the spectrum
+        # outside the band: one of the band's about band / 8 independent noise bins passes ln(independent /
+        # 1e-3) times the mean with probability 1e-3)
+        independent = max(band.size / 8.0, 1.0)
+        outside = np.ones(nfft, dtype=bool)
+        outside[band] = False
+        floor = float(np.median(pw[outside])) / math.log(2.0)
+        found = floor > 0 and pw[k] > math.log(independent / 1e-3) * floor
+        dnu = rot / (2.0 * chip) if found else 0.0
+        # the symbol clock's rate relative to nominal, if the subcarrier is coherent with it (the usual
+        # design: an integer number of subcarrier cycles per symbol; CCSDS 401.0-B sec. 2.4, from memory,
+        # not confirmed): the centre of the timing search's trial periods
+        self._clock_ratio = (nu + dnu) / nu if found else 1.0
+        centres = (np.arange(nwin) + 0.5) * chip
+        acc = complex(np.sum(zj * np.exp(-2j * math.pi * 2.0 * dnu * centres)))
+        delta = math.atan2(acc.imag, acc.real) / (4.0 * math.pi)
+        st = self._cs[0]
+        st["sc_frequency"] = nu + dnu
+        st["sc_phase"] = delta % 1.0
+
+    def _acquire_timing(self) -> None:
+        """Symbol period and timing: the largest mean symbol energy over trial periods and 32 timings each."""
+        T = self.samples_per_symbol
+        u = self._ubuf
+        base = self._ubase
+        end = base + u.size
+        first = base + 0.5 * T
+        n_sym = min(_TIMING_MAX_SYMBOLS, int((end - first - 0.5 * T - 2.0) / (T * (1.0 + _CLOCK_SEARCH))) - 1)
+        if n_sym < 16:
+            return
+        # trial periods 1 / (8 n_sym) apart (an eighth of a symbol of drift over the window) within +-200 ppm, when
+        # the window can tell them apart (at least 1024 symbols); the transition loop, wide at first, takes
+        # the rest
+        step = 1.0 / (8.0 * n_sym)
+        half = int(math.ceil(_CLOCK_SEARCH / step)) if self.residual and n_sym >= 1024 else 0
+        periods = T / self._clock_ratio * (1.0 + step * np.arange(-half, half + 1))
+        cum = np.zeros(u.size + 1, dtype=np.float64)
+        np.cumsum(u, dtype=np.float64, out=cum[1:])
+        energy = np.empty((periods.size, _TIMING_TRIALS), dtype=np.float64)
+        timing_energy(cum, u, np.int64(base), first, periods, _TIMING_TRIALS, n_sym, 1 if self.biphase else 0,
+                      energy)
+        i = half
+        if half:
+            # another period only when its best timing beats the nominal period's by 3 standard errors of a
+            # difference of two mean energies (var s^2 = 2 N^2 + 4 N S for Gaussian noise N and signal S)
+            best = energy.max(axis=1)
+            n_s = self._symbol_noise(T)
+            s_est = max(float(best.max()) - n_s, 0.0) if math.isfinite(n_s) else 0.0
+            se = math.sqrt(2.0 * (2.0 * n_s * n_s + 4.0 * n_s * s_est) / n_sym) if math.isfinite(n_s) else 0.0
+            cand = int(np.argmax(best))
+            if best[cand] - best[half] > 3.0 * se:
+                i = cand
+        j = int(np.argmax(energy[i]))
+        row = energy[i]
+        e_m, e_0, e_p = row[(j - 1) % _TIMING_TRIALS], row[j], row[(j + 1) % _TIMING_TRIALS]
+        den = e_m - 2.0 * e_0 + e_p
+        frac = 0.5 * (e_m - e_p) / den if den < 0 else 0.0
+        period = float(periods[i])
+        tau = first + (j + frac) * period / _TIMING_TRIALS
+        # go back to the first symbol whose centre is in the buffer (cut by its start)
+        tau -= period * math.floor((tau - (base - 0.5)) / period)
+        ss = self._ss[0]
+        ss["tau"] = tau
+        ss["period"] = period
+        ss["prev"] = 0.0
+        if self.residual:
+            n_s = self._symbol_noise(period)
+            s = float(e_0) - n_s if math.isfinite(n_s) else float(e_0)
+            s = max(s, 0.05 * n_s if math.isfinite(n_s) else 0.0, 1e-30)
+            ss["amp"] = math.sqrt(s) / period
+            self._data_amp = ss["amp"]
+        else:
+            ss["amp"] = math.sqrt(float(e_0)) / period
+        self._timing_acquired = True
+
+    def _symbol_noise(self, period: float) -> float:
+        """Noise variance of one integrated symbol, ``sigma^2 (T - 1/3) g``, from the carrier stage's last block."""
+        return self._noise_var * (period - 1.0 / 3.0) * self._ref_power
+
+    # ---- tracking ------------------------------------------------------------------------
+    def _track(self, items: list, parts: list) -> None:
+        """Carrier stage over the blocks ``items``, then their symbols, lock statistics and track points."""
+        fs = self.sample_rate_hz
+        infos = []
+        for block, gain, start in items:
+            plan = self._plan(start)
+            n = block.size
+            u = np.empty(n, dtype=np.float32)
+            uq = np.empty(n if self.subcarrier_mode else 0, dtype=np.float32)
+            lk = np.empty(n, dtype=np.int8)
+            edges = np.linspace(0, n - 1, _SUB_BLOCKS + 1).astype(np.int64) if n >= 4 * _SUB_BLOCKS else \
+                np.zeros(0, np.int64)
+            at = np.unique(np.concatenate([edges, [0, (n - 1) // 2, n - 1]])).astype(np.int64)
+            ph = np.empty(at.size, dtype=np.float64)
+            st = self._cs[0]
+            for name in ("sum_re", "sum_re2", "sum_u", "count"):
+                st[name] = 0.0
+            track_carrier(block, gain, self._cparams, self._cs, self._cos, self._sin, at, u, uq, lk, ph)
+            st = self._cs[0]
+            cnt = max(st["count"], 1.0)
+            mean_re = st["sum_re"] / cnt
+            var_re = max(st["sum_re2"] / cnt - mean_re * mean_re, 1e-30)
+            info = {"start": start, "n": n, "at": at, "ph": ph, "edges": edges, "mean_re": mean_re,
+                    "var_re": var_re, "locked": bool(st["locked"]), "lock_z": float(st["lock_z"]), "plan": plan,
+                    "cn0": mean_re * mean_re * fs / (2.0 * var_re) if mean_re > 0 else 0.0}
+            if self.residual and st["locked"]:
+                # P_c / N0 for the loop plan, smoothed over about four blocks
+                c = info["cn0"]
+                self._cn0_hz = c if not math.isfinite(self._cn0_hz) else 0.75 * self._cn0_hz + 0.25 * c
+                a = mean_re
+                self._carrier_amp = a if not math.isfinite(self._carrier_amp) else 0.75 * self._carrier_amp + 0.25 * a
+            self._noise_var = var_re
+            infos.append(info)
+            self._ubuf = np.concatenate([self._ubuf, u])
+            self._uqbuf = np.concatenate([self._uqbuf, uq])
+            self._lbuf = np.concatenate([self._lbuf, lk])
+        if not self._timing_acquired:
+            self._noise_var = infos[0]["var_re"]
+            self._acquire_timing()
+        for info in infos:
+            self._block_symbols(info, parts)
+        # keep the samples the next symbol needs
+        if self._timing_acquired:
+            keep = int(math.floor(self._ss[0]["tau"] - (0.5 + 2.0 * _DTTL_WINDOW) * self._ss[0]["period"])) - 2
+            keep -= self._ubase
+        else:
+            keep = self._ubuf.size - self.block_samples  # wait for more samples to acquire the timing on
+        keep = min(max(keep, 0), self._ubuf.size)
+        if keep:
+            self._ubuf = self._ubuf[keep:].copy()
+            self._uqbuf = self._uqbuf[keep:].copy() if self._uqbuf.size else self._uqbuf
+            self._lbuf = self._lbuf[keep:].copy()
+            self._ubase += keep
+
+    def _block_symbols(self, info: dict, parts: list) -> None:
+        fs = self.sample_rate_hz
+        start, n = info["start"], info["n"]
+        self._noise_var = info["var_re"]
+        pos = raw = soft = h1 = h2 = sq = np.zeros(0)
+        slock = np.zeros(0, dtype=bool)
+        if self._timing_acquired:
+            upto = start + n - self._ubase
+            ss = self._ss[0]
+            if self.residual and math.isfinite(self._data_amp) and self._data_amp > 0:
+                ss["amp"] = self._data_amp
+            pos, raw, soft, slock, h1, h2, sq = self._symbols(upto)
+        nsym = pos.size
+        # ---- statistics ----------------------------------------------------------------------
+        carrier_locked = info["locked"]
+        esn0_db = float("nan")
+        sym_z = sc_z = float("nan")
+        sc_locked = None
         mod_index = float("nan")
-        if self.residual and carrier_locked and nsym >= 32 and s_pow > 0:
-            mod_index = modulation_index_from_amplitudes(carrier_amp, math.sqrt(s_pow) / self._ss[1], wave=self.wave)
-            self.modulation_index_rad = mod_index
-        centre = block_start + 0.5 * (n - 1)
+        if self.residual:
+            period = float(self._ss[0]["period"])
+            n_s = self._symbol_noise(period)
+            if nsym:
+                self._esn0_ew.add(nsym, (float(np.dot(raw, raw)), nsym * n_s, nsym * info["mean_re"]))
+                m2, noise, a_c = self._esn0_ew.mean()
+                sig = m2 - noise
+                if sig > 0:
+                    self._data_amp = math.sqrt(sig) / period
+                if nsym >= 32:
+                    esn0_db = 10.0 * math.log10(sig / (2.0 * noise)) if sig > 0 else -math.inf
+                if carrier_locked and sig > 0:
+                    mod_index = modulation_index_from_amplitudes(a_c, math.sqrt(sig) / period, wave=self.wave)
+                    self.modulation_index_rad = mod_index
+                sign = -1.0 if self.biphase else 1.0
+                if nsym >= 2:
+                    h = h2[:-1] + sign * h1[1:]
+                    self._symbol_lock.add((raw[:-1] ** 2 - h * h) / n_s)
+                if self.subcarrier_mode:
+                    self._subcarrier_lock.add((raw * raw - sq * sq) / n_s)
+            sym_z = self._symbol_lock.z
+            symbol_ok = self._symbol_decision.update(sym_z) if nsym else self._symbol_decision.locked
+            if self.subcarrier_mode:
+                sc_z = self._subcarrier_lock.z
+                sc_locked = bool(carrier_locked and (self._subcarrier_decision.update(sc_z) if nsym
+                                                     else self._subcarrier_decision.locked))
+            symbol_locked = bool(carrier_locked and symbol_ok and (sc_locked if self.subcarrier_mode else True))
+        else:
+            s_pow, n_pow = _real_m2m4(raw)
+            esn0_db = (10.0 * math.log10(s_pow / (2.0 * n_pow)) if (s_pow > 0 and n_pow > 0) else
+                       (float("inf") if s_pow > 0 else float("nan")))
+            symbol_locked = bool(carrier_locked and esn0_db > _COSTAS_SYMBOL_LOCK_ESN0_DB)
+        # ---- the block's track point ----------------------------------------------------------
+        at, ph = info["at"], info["ph"]
+        ph_of = dict(zip(at.tolist(), ph.tolist()))
+        freq = (ph_of[n - 1] - ph_of[0]) / (2.0 * math.pi * max(n - 1, 1)) * fs if n > 1 else float("nan")
+        edges = info["edges"]
+        std = _frequency_std_hz(np.array([ph_of[int(e)] for e in edges]), edges, fs) if edges.size else float("nan")
+        cn0 = info["cn0"]
+        centre = start + 0.5 * (n - 1)
         track = [ResidualTrackPoint(position=float(centre), carrier_offset_hz=float(freq), esn0_db=float(esn0_db),
                                     carrier_locked=carrier_locked, symbol_locked=symbol_locked,
-                                    carrier_phase_rad=float(ph[(n - 1) // 2]), carrier_std_hz=std,
-                                    modulation_index_rad=mod_index)]
+                                    carrier_phase_rad=float(ph_of[(n - 1) // 2]), carrier_std_hz=std,
+                                    modulation_index_rad=mod_index,
+                                    cn0_dbhz=10.0 * math.log10(cn0) if cn0 > 0 else float("nan"),
+                                    subcarrier_locked=sc_locked, carrier_lock_statistic=info["lock_z"],
+                                    symbol_lock_statistic=sym_z, subcarrier_lock_statistic=sc_z)]
         parts.append({"pos": pos, "soft": soft.astype(np.float32), "locked": slock, "track": track})
         self.stats.symbols_out += nsym
         self.stats.carrier_locked_symbols += int(slock.sum())
+        self._after_block(carrier_locked)
+
+    def _after_block(self, carrier_locked: bool) -> None:
+        """Count unlocked blocks; after three (once the lock detector has decided) search for the carrier again."""
         if carrier_locked:
             self._unlocked_blocks = 0
-        else:
-            self._unlocked_blocks += 1
-            if self._unlocked_blocks >= _REACQUIRE_BLOCKS:
-                self._need_acq = True
+            return
+        if self.residual and self._cs[0]["decisions"] < _CARRIER_HOLD + 2:
+            return  # the detector has not had its say since the acquisition
+        self._unlocked_blocks += 1
+        if self._unlocked_blocks >= _REACQUIRE_BLOCKS:
+            self._tracking = False
+            self._unlocked_blocks = 0
+            if self.residual:
+                self._search.restart()
 
-    def _symbols(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """:func:`rect_symbols` over the buffer, with outputs sized from its bound (grown if ever full)."""
-        cap = int(self._ubuf.size / self._min_symbol_advance) + 2
+    def _symbols(self, upto: int):
+        """:func:`rect_symbols` over the buffer's first ``upto`` samples, outputs sized from its bound."""
+        u = self._ubuf[:upto]
+        uq = self._uqbuf[:upto] if self._uqbuf.size else self._uqbuf
+        lk = self._lbuf[:upto]
+        cap = int(u.size / self._min_symbol_advance) + 2
         outs = []
         while True:
-            out = (np.empty(cap), np.empty(cap), np.empty(cap), np.empty(cap, dtype=np.int8))
-            n = rect_symbols(self._ubuf, self._lbuf, np.int64(self._ubase), self._sparams, self._ss, *out)
-            outs.append(tuple(a[:n] for a in out))
-            if n < cap:
+            out = (np.empty(cap), np.empty(cap), np.empty(cap), np.empty(cap, dtype=np.int8), np.empty(cap),
+                   np.empty(cap), np.empty(cap))
+            k = rect_symbols(u, uq, lk, np.int64(self._ubase), self._sparams, self._ss, *out)
+            outs.append(tuple(a[:k] for a in out))
+            if k < cap:
                 break
-        if len(outs) == 1:
-            return outs[0]
-        return tuple(np.concatenate(col) for col in zip(*outs))
-
-    def no_lock_message(self) -> str | None:
-        """One line for stderr when no carrier lock was found so far (``DemodStats.no_lock_message``)."""
-        return self.stats.no_lock_message()
-
-    def _acquire_timing(self, block_start: int) -> None:
-        """Symbol timing by the best of 32 trial phases over the symbols of the buffer from ``block_start``."""
-        T = self.samples_per_symbol
-        end = self._ubase + self._ubuf.size
-        first = max(float(block_start), float(self._ubase)) + 0.5 * T + 1.0
-        if self._timing_acquired:
-            first = max(first, self._ss[0] - 0.5 * T)
-        n_sym = min(256, int((end - first - 0.5 * T - 2.0) // T) - 1)
-        if n_sym < 16:
-            return
-        energy = np.empty(_TIMING_TRIALS, dtype=np.float64)
-        timing_search(self._ubuf, np.int64(self._ubase), first, T, 1 if self.biphase else 0, _TIMING_TRIALS,
-                      n_sym, energy)
-        j = int(np.argmax(energy))
-        e_m, e_0, e_p = energy[(j - 1) % _TIMING_TRIALS], energy[j], energy[(j + 1) % _TIMING_TRIALS]
-        den = e_m - 2.0 * e_0 + e_p
-        frac = 0.5 * (e_m - e_p) / den if den < 0 else 0.0
-        tau = first + (j + frac) * T / _TIMING_TRIALS
-        if not self._timing_acquired:
-            # go back to the first symbol whose centre is in the stream (cut by its start, or by the search window)
-            tau -= T * math.floor((tau - (self._ubase - 0.5)) / T)
-        self._ss[0] = tau
-        self._ss[1] = T
-        self._ss[2] = 0.0
-        self._ss[3] = float(e_0) / T
-        self._timing_acquired = True
+        cols = outs[0] if len(outs) == 1 else tuple(np.concatenate(c) for c in zip(*outs))
+        pos, raw, soft, lock, h1, h2, sq = cols
+        return pos, raw, soft, lock.astype(bool), h1, h2, sq
 
     def _assemble(self, parts: list) -> SymbolBlock:
         if not parts:
             return SymbolBlock()
-        pos = np.concatenate([p["pos"] for p in parts])
+        pos = np.concatenate([p["pos"] for p in parts]).astype(np.float64)
         soft = np.concatenate([p["soft"] for p in parts]).astype(np.float32)
-        locked = np.concatenate([p["locked"] for p in parts])
+        locked = np.concatenate([p["locked"] for p in parts]).astype(bool)
         track = [t for p in parts for t in p["track"]]
         return SymbolBlock(soft=soft, position=pos, locked=locked, track=track, symbols=soft.astype(np.complex64))
 
@@ -624,6 +1040,13 @@ def make_demodulator(*, link: LinkSection, receiver: ReceiverSection, sample_rat
     ------
     ValueError
         QPSK / OQPSK with Bi-phase-L (not a CCSDS combination, and not supported).
+
+    Examples
+    --------
+    >>> from pipeline.profile import LinkSection, ReceiverSection
+    >>> link = LinkSection(modulation="pcm-psk-pm", symbol_rate_baud=2000.0, subcarrier_hz=16000.0)
+    >>> type(make_demodulator(link=link, receiver=ReceiverSection(), sample_rate_hz=200e3)).__name__
+    'ResidualCarrierDemodulator'
     """
     if not isinstance(link, LinkSection):
         raise TypeError(f"Argument 'link' must be a LinkSection, not {type(link).__name__}.")

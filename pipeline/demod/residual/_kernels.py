@@ -2,38 +2,87 @@
 
 The wrappers in ``_demodulator.py`` validate, cast and allocate.  Every function here is a
 module-level ``@njit(cache=True)`` with all parameters as arguments, and gives the same answer with
-``NUMBA_DISABLE_JIT=1``.
+``NUMBA_DISABLE_JIT=1``.  Loop parameters and state are numpy structured records (one element),
+read and written by field name.
 """
 
 from __future__ import annotations
 
 import math
 
+import numpy as np
 from numba import njit
 
 __all__ = [
-    "CARRIER_PARAM_SIZE",
-    "CARRIER_STATE_SIZE",
-    "SYMBOL_PARAM_SIZE",
-    "SYMBOL_STATE_SIZE",
+    "CARRIER_PARAMS",
+    "CARRIER_STATE",
+    "PHASOR_TABLE_SIZE",
+    "SYMBOL_PARAMS",
+    "SYMBOL_STATE",
     "interval_sum",
-    "track_carrier",
+    "phasor_table",
     "rect_symbols",
-    "timing_search",
+    "timing_energy",
+    "track_carrier",
 ]
 
-#: Length of the parameter vector of :func:`track_carrier` (layout documented there).
-CARRIER_PARAM_SIZE = 17
-#: Length of the state vector of :func:`track_carrier`.
-CARRIER_STATE_SIZE = 24
-#: Length of the parameter vector of :func:`rect_symbols`.
-SYMBOL_PARAM_SIZE = 8
-#: Length of the state vector of :func:`rect_symbols`.
-SYMBOL_STATE_SIZE = 8
+#: Entries of the phasor table (phase resolution 2 pi / 4096: at most 7.7e-4 rad from the exact phasor).
+PHASOR_TABLE_SIZE = 4096
+
+#: Parameters of :func:`track_carrier` (one record; meanings in its docstring).
+CARRIER_PARAMS = np.dtype([
+    ("carrier_mode", np.int64), ("subcarrier_mode", np.int64), ("third_order", np.int64),
+    ("table_phasor", np.int64), ("raw", np.int64),
+    ("kp_c", np.float64), ("ki_c", np.float64), ("kr_c", np.float64),
+    ("kp_s", np.float64), ("ki_s", np.float64), ("a_arm", np.float64), ("w_sq", np.float64), ("sc_norm", np.float64),
+    ("a_amp", np.float64), ("amp_floor", np.float64),
+    ("lock_interval", np.int64), ("z_on", np.float64), ("z_off", np.float64),
+    ("on_count", np.int64), ("off_count", np.int64),
+    ("a_costas", np.float64), ("costas_on", np.float64), ("costas_off", np.float64),
+])
+
+#: State of :func:`track_carrier` (one record; meanings in its docstring).
+CARRIER_STATE = np.dtype([
+    ("phase", np.float64), ("frequency", np.float64), ("rate", np.float64), ("total", np.float64),
+    ("amplitude", np.float64),
+    ("sc_phase", np.float64), ("sc_frequency", np.float64), ("sc_i", np.float64), ("sc_q", np.float64),
+    ("costas_i", np.float64), ("costas_q", np.float64), ("costas_num", np.float64), ("costas_den", np.float64),
+    ("costas_warm", np.float64),
+    ("locked", np.int64), ("above", np.int64), ("below", np.int64), ("decisions", np.int64),
+    ("lk_count", np.int64), ("lk_sum", np.float64), ("lk_sum2", np.float64), ("lock_z", np.float64),
+    ("sum_re", np.float64), ("sum_re2", np.float64), ("sum_u", np.float64), ("count", np.float64),
+])
+
+#: Parameters of :func:`rect_symbols`.
+SYMBOL_PARAMS = np.dtype([
+    ("biphase", np.int64), ("quadrature", np.int64), ("kp_t", np.float64), ("ki_t", np.float64),
+    ("window", np.float64), ("a_amp", np.float64), ("nominal", np.float64), ("limit", np.float64),
+])
+
+#: State of :func:`rect_symbols`.
+SYMBOL_STATE = np.dtype([
+    ("tau", np.float64), ("period", np.float64), ("prev", np.float64), ("amp", np.float64),
+])
+
+
+def phasor_table(size: int = PHASOR_TABLE_SIZE) -> tuple[np.ndarray, np.ndarray]:
+    """``cos`` and ``sin`` of ``2 pi k / size`` for ``k = 0 .. size - 1`` (float64, contiguous).
+
+    :func:`track_carrier` reads the carrier phasor (and a sine subcarrier's references) from it at
+    the nearest entry: a phase error of at most ``pi / size`` rad.
+
+    Examples
+    --------
+    >>> c, s = phasor_table(8)
+    >>> [round(float(v), 3) for v in c[:3]], [round(float(v), 3) for v in s[:3]]
+    ([1.0, 0.707, 0.0], [0.0, 0.707, 1.0])
+    """
+    k = np.arange(int(size), dtype=np.float64) * (2.0 * math.pi / int(size))
+    return np.ascontiguousarray(np.cos(k)), np.ascontiguousarray(np.sin(k))
 
 
 @njit(cache=True)
-def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
+def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u, out_uq, out_lock, out_phase):
     """Carrier loop (residual-carrier PLL or BPSK Costas) and subcarrier Costas loop, per sample.
 
     Parameters
@@ -42,36 +91,48 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
         Baseband samples of one block (NaN/Inf already replaced by 0).
     gain : float
         AGC gain applied to every sample.
-    params : float64 array
-        ``[carrier_mode, subcarrier_mode, kp_c, ki_c, kr_c, nu0, kp_s, ki_s, a_arm, a_lock, w_sq, raw,
-        lock_on_cos, lock_off_cos, lock_on_snr, lock_off_snr, a_lock_costas]``.  ``carrier_mode`` 0: PLL on a residual
-        carrier, error ``Im(r) / A_c``; 1: BPSK Costas, error ``I Q / P`` on one-pole arm filters.
-        The Costas error is ``I Q / max(<I^2 - Q^2>, <I^2 + Q^2> / 10)``, 1 rad/rad at any SNR once locked.
-        ``subcarrier_mode`` 0 none, 1 square wave, 2 sine wave; ``nu0`` the nominal subcarrier
-        frequency in cycles per sample; ``kp_s, ki_s`` its loop gains (per cycle of error);
-        ``a_arm`` the arm-filter coefficient (about 2 / chip length); ``a_lock`` the coefficient of the
-        amplitude and lock averages; ``w_sq`` the half-width in cycles of the windowed quadrature
-        reference of a square subcarrier; ``raw`` 1 to output ``Im(r)`` instead of the data signal
-        (subcarrier phase acquisition); then the carrier-lock thresholds (cosine of the phase error
-        and SNR of the averaged carrier, on / off; for the Costas loop the ratio
-        ``<I^2 - Q^2> / <I^2 + Q^2>`` of the arms, averaged with ``a_lock_costas``).
-    sf : float64 array, updated in place
-        State: 0 carrier phase (rad, wrapped), 1 frequency (rad/sample), 2 frequency-rate integrator,
-        3 total unwrapped carrier phase (rad), 4 carrier amplitude ``A_c`` (average of ``Re r``),
-        5 average of ``Im r``, 6 average of ``(Re r)^2``, 7 subcarrier phase (cycles, wrapped),
-        8 subcarrier frequency (cycles/sample), 9-10 subcarrier arms I/Q, 11 subcarrier arm power,
-        12-13 carrier (Costas) arms I/Q, 14 carrier arm power, 15 carrier-lock flag,
-        16 third-order flag (a parameter kept with the state), 17 sum of ``Re r`` and 18 of
-        ``Im(r) * ref`` since the wrapper last cleared them, 19 their sample count,
-        20-21 Costas lock averages of ``I^2 - Q^2`` and ``I^2 + Q^2``, 22 weight of the lock averages
-        since the last acquisition (no lock is declared below 1/2).
-    out_u : float64 array
-        Per sample, the data signal: ``Im(r)`` (PCM/PM), ``Im(r) * ref_I(psi)`` (PCM/PSK/PM, ``ref_I``
+    params : CARRIER_PARAMS record array of length 1
+        ``carrier_mode`` 0: PLL on a residual carrier, error ``Im(r) / A_c``; 1: BPSK Costas, error
+        ``I Q / max(<I^2 - Q^2>, <I^2 + Q^2> / 10)`` on one-pole arm filters (1 rad/rad once locked).
+        ``subcarrier_mode`` 0 none, 1 square wave, 2 sine wave.  ``third_order`` 1: the rate
+        integrator adapts (gain ``kr_c``); 0: ``state.rate`` is a fixed frequency ramp (rate aiding).
+        ``table_phasor`` 1: the phasor ``exp(-j theta)`` and a sine subcarrier's references are read
+        from ``cos_table`` / ``sin_table`` at the nearest of their ``T`` entries (``T`` a power of
+        two); 0: ``cos`` and ``sin`` of the exact phase.  ``raw`` 1: output ``Im(r)`` instead of the
+        data signal (subcarrier acquisition).  ``kp_c, ki_c, kr_c``: carrier loop gains per sample
+        (rad per unit error).  ``kp_s, ki_s``: subcarrier loop gains (cycles per unit error);
+        ``a_arm`` the arm-filter coefficient (about 2 / chip length); ``w_sq`` the half-width in
+        cycles of the windowed quadrature reference of a square subcarrier; ``sc_norm`` the data
+        signal's power in the in-phase arm (the error is divided by it).  ``a_amp`` the
+        coefficient of the carrier amplitude average, ``amp_floor`` the smallest amplitude the PLL
+        error is divided by.  Carrier lock (residual carrier): one decision per ``lock_interval``
+        samples on ``z = sum(Re r) / sqrt(n var(Re r))``; lock after ``on_count`` decisions in a row
+        with ``z > z_on``, lost after ``off_count`` in a row with ``z < z_off``.  Costas lock:
+        ``<I^2 - Q^2> / <I^2 + Q^2>`` of the arms averaged with ``a_costas``, on above
+        ``costas_on``, off below ``costas_off``.
+    state : CARRIER_STATE record array of length 1, updated in place
+        ``phase`` (rad, in [0, 2 pi)), ``frequency`` (rad/sample), ``rate`` (rad/sample^2),
+        ``total`` (unwrapped carrier phase, rad), ``amplitude`` (average of ``Re r``); subcarrier
+        ``sc_phase`` (cycles, in [0, 1)), ``sc_frequency`` (cycles/sample), arms ``sc_i, sc_q``;
+        Costas arms ``costas_i, costas_q``, lock averages ``costas_num, costas_den`` and their
+        weight ``costas_warm`` (no Costas decision below 1/2);
+        lock ``locked``, the run counters ``above, below``, ``decisions`` made, the open interval's
+        ``lk_count, lk_sum, lk_sum2`` and the last statistic ``lock_z``; ``sum_re, sum_re2, sum_u,
+        count``: sums of ``Re r``, ``(Re r)^2`` and the data signal since the wrapper cleared them.
+    cos_table, sin_table : float64 arrays
+        :func:`phasor_table`.
+    phase_at : int64 array
+        Increasing sample indices of this block at which ``total`` is recorded.
+    out_u : float32 array
+        Per sample, the data signal: ``Im(r)`` (PCM/PM), ``Im(r) ref_I(psi)`` (PCM/PSK/PM, ``ref_I``
         the +-1 square wave or ``sin 2 pi psi``), ``Re(r)`` (Costas).
+    out_uq : float32 array
+        Per sample (subcarrier modes; else length 0), ``Im(r) ref_Q(psi)`` with the full quadrature
+        reference (square wave a quarter cycle ahead, or ``cos 2 pi psi``): the subcarrier lock arm.
     out_lock : int8 array
         Per sample, the carrier-lock flag.
     out_phase : float64 array
-        Per sample, the total unwrapped carrier phase (rad) the sample was rotated by.
+        ``total`` at the samples ``phase_at`` (the phase the sample was rotated by).
 
     Notes
     -----
@@ -85,106 +146,146 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
     for a square wave, +1 / -1 in windows of +-``w_sq`` cycles around the reference's rising /
     falling edges (the windowed quadrature reference: less noise, same slope).  The error
     ``I Q / P`` is ``-2 pi delta`` (sine) or ``-4 delta`` (square) for a reference ``delta`` cycles
-    ahead; the wrapper's gains include that slope.  Carrier lock: the averaged carrier ``A_c``
-    against the averaged quadrature (cosine of the phase error) and against its own noise.
-    Cost: one complex rotation, two subcarrier references and about 40 flops per sample.
+    ahead; the wrapper's gains include that slope.  Carrier lock: the coherent carrier amplitude in
+    units of its own standard error, a t statistic that is about N(0, 1) without a carrier and
+    ``sqrt(2 P_c T_d / N0)`` with one (``T_d`` the decision interval).
+    Cost per sample: one complex rotation (a table read with ``table_phasor``, else ``cos`` and
+    ``sin``), two subcarrier references and about 40 flops.
     """
     n = x.shape[0]
-    carrier_mode = int(params[0])
-    sc_mode = int(params[1])
-    kp_c = params[2]
-    ki_c = params[3]
-    kr_c = params[4]
-    kp_s = params[6]
-    ki_s = params[7]
-    a_arm = params[8]
-    a_lk = params[9]
-    w_sq = params[10]
-    raw = int(params[11])
-    on_cos = params[12]
-    off_cos = params[13]
-    on_snr = params[14]
-    off_snr = params[15]
-    a_lc = params[16]
+    p = params[0]
+    carrier_mode = p["carrier_mode"]
+    sc_mode = p["subcarrier_mode"]
+    third = p["third_order"]
+    use_table = p["table_phasor"]
+    raw = p["raw"]
+    kp_c = p["kp_c"]
+    ki_c = p["ki_c"]
+    kr_c = p["kr_c"]
+    kp_s = p["kp_s"]
+    ki_s = p["ki_s"]
+    a_arm = p["a_arm"]
+    w_sq = p["w_sq"]
+    sc_norm = p["sc_norm"]
+    a_amp = p["a_amp"]
+    amp_floor = p["amp_floor"]
+    lock_interval = p["lock_interval"]
+    z_on = p["z_on"]
+    z_off = p["z_off"]
+    on_count = p["on_count"]
+    off_count = p["off_count"]
+    a_lc = p["a_costas"]
+    costas_on = p["costas_on"]
+    costas_off = p["costas_off"]
 
-    theta = sf[0]
-    omega = sf[1]
-    rate = sf[2]
-    total = sf[3]
-    a_c = sf[4]
-    b_c = sf[5]
-    p_c = sf[6]
-    psi = sf[7]
-    nu = sf[8]
-    i_s = sf[9]
-    q_s = sf[10]
-    p_s = sf[11]
-    i_c = sf[12]
-    q_c = sf[13]
-    pw_c = sf[14]
-    locked = int(sf[15])
-    third = int(sf[16])
-    sum_re = sf[17]
-    sum_u = sf[18]
-    count = sf[19]
-    l_num = sf[20]
-    l_den = sf[21]
-    warm = sf[22]
+    st = state[0]
+    theta = st["phase"]
+    omega = st["frequency"]
+    rate = st["rate"]
+    total = st["total"]
+    amp = st["amplitude"]
+    psi = st["sc_phase"]
+    nu = st["sc_frequency"]
+    i_s = st["sc_i"]
+    q_s = st["sc_q"]
+    i_c = st["costas_i"]
+    q_c = st["costas_q"]
+    l_num = st["costas_num"]
+    l_den = st["costas_den"]
+    warm = st["costas_warm"]
+    locked = st["locked"]
+    above = st["above"]
+    below = st["below"]
+    decisions = st["decisions"]
+    lk_count = st["lk_count"]
+    lk_sum = st["lk_sum"]
+    lk_sum2 = st["lk_sum2"]
+    lock_z = st["lock_z"]
+    sum_re = st["sum_re"]
+    sum_re2 = st["sum_re2"]
+    sum_u = st["sum_u"]
+    count = st["count"]
 
     two_pi = 2.0 * math.pi
+    size = cos_table.shape[0]
+    mask = size - 1
+    per_rad = size / two_pi
+    n_at = phase_at.shape[0]
+    j_at = 0
     for k in range(n):
-        c = math.cos(theta)
-        s = math.sin(theta)
+        if use_table == 1:
+            idx = int(theta * per_rad + 0.5) & mask
+            c = cos_table[idx]
+            s = sin_table[idx]
+        else:
+            c = math.cos(theta)
+            s = math.sin(theta)
         xr = gain * float(x[k].real)
         xi = gain * float(x[k].imag)
         rr = xr * c + xi * s
         ri = xi * c - xr * s
-        out_phase[k] = total
+        while j_at < n_at and phase_at[j_at] == k:
+            out_phase[j_at] = total
+            j_at += 1
 
-        # ---- carrier phase detector ---------------------------------------------------------
+        # ---- carrier phase detector and lock ----------------------------------------------------
         if carrier_mode == 0:
-            a_c = (1.0 - a_lk) * a_c + a_lk * rr
-            b_c = (1.0 - a_lk) * b_c + a_lk * ri
-            p_c = (1.0 - a_lk) * p_c + a_lk * rr * rr
-            norm = a_c if a_c > 0.05 else 0.05
+            amp += a_amp * (rr - amp)
+            norm = amp if amp > amp_floor else amp_floor
             e = ri / norm
-            # lock: phase error cosine of the averaged carrier, and its SNR against the noise of the average
-            mag = math.sqrt(a_c * a_c + b_c * b_c)
-            cosv = a_c / mag if mag > 0.0 else 0.0
-            var_avg = (p_c - a_c * a_c) * a_lk / (2.0 - a_lk)
-            snr = a_c * a_c / var_avg if var_avg > 1e-30 else 1e30
-            if a_c <= 0.0:
-                snr = 0.0
+            lk_sum += rr
+            lk_sum2 += rr * rr
+            lk_count += 1
+            if lk_count >= lock_interval:
+                mean = lk_sum / lk_count
+                var = lk_sum2 / lk_count - mean * mean
+                if var > 0.0:
+                    lock_z = mean / math.sqrt(var / lk_count)
+                else:
+                    lock_z = 1e30 if mean > 0.0 else 0.0
+                decisions += 1
+                if locked == 1:
+                    below = below + 1 if lock_z < z_off else 0
+                    if below >= off_count:
+                        locked = 0
+                        below = 0
+                else:
+                    above = above + 1 if lock_z > z_on else 0
+                    if above >= on_count:
+                        locked = 1
+                        above = 0
+                lk_count = 0
+                lk_sum = 0.0
+                lk_sum2 = 0.0
         else:
             i_c = (1.0 - a_arm) * i_c + a_arm * rr
             q_c = (1.0 - a_arm) * q_c + a_arm * ri
             pw = i_c * i_c + q_c * q_c
-            pw_c = (1.0 - a_lk) * pw_c + a_lk * pw
             l_num = (1.0 - a_lc) * l_num + a_lc * (i_c * i_c - q_c * q_c)
             l_den = (1.0 - a_lc) * l_den + a_lc * pw
             # normalise by the arms' signal power <I^2 - Q^2> (their total power holds 2 N_arm of noise too,
             # which would shrink the loop gain at low SNR), floored at a tenth of the total while unlocked
             sig = l_num if l_num > 0.1 * l_den else 0.1 * l_den
             e = i_c * q_c / sig if sig > 1e-30 else 0.0
-            cosv = l_num / l_den if l_den > 1e-30 else 0.0
-            snr = 1e30
-        # the lock averages start from nothing at an acquisition: no decision before they hold half their weight
-        warm = (1.0 - a_lc) * warm + a_lc
-        if locked == 1:
-            if cosv < off_cos or snr < off_snr:
-                locked = 0
-        elif warm > 0.5:
-            if cosv > on_cos and snr > on_snr:
+            ratio = l_num / l_den if l_den > 1e-30 else 0.0
+            # the lock averages start from nothing at an acquisition: no decision before they hold half their weight
+            warm = (1.0 - a_lc) * warm + a_lc
+            if locked == 1:
+                if ratio < costas_off:
+                    locked = 0
+            elif warm > 0.5 and ratio > costas_on:
                 locked = 1
+            lock_z = ratio
         out_lock[k] = locked
 
         # ---- subcarrier ---------------------------------------------------------------------
         if sc_mode == 0:
             u = rr if carrier_mode == 1 else ri
         else:
-            f = psi - math.floor(psi)
+            f = psi
             if sc_mode == 1:
                 ref_i = 1.0 if f < 0.5 else -1.0
+                ref_qf = 1.0 if (f < 0.25 or f >= 0.75) else -1.0
                 if f < w_sq or f > 1.0 - w_sq:
                     ref_q = 1.0
                 elif f > 0.5 - w_sq and f < 0.5 + w_sq:
@@ -192,13 +293,19 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
                 else:
                     ref_q = 0.0
             else:
-                ref_i = math.sin(two_pi * f)
-                ref_q = math.cos(two_pi * f)
+                if use_table == 1:
+                    jf = int(f * size + 0.5) & mask
+                    ref_i = sin_table[jf]
+                    ref_q = cos_table[jf]
+                else:
+                    ref_i = math.sin(two_pi * f)
+                    ref_q = math.cos(two_pi * f)
+                ref_qf = ref_q
             u = ri * ref_i
+            out_uq[k] = ri * ref_qf
             i_s = (1.0 - a_arm) * i_s + a_arm * u
             q_s = (1.0 - a_arm) * q_s + a_arm * ri * ref_q
-            p_s = (1.0 - a_lk) * p_s + a_lk * (i_s * i_s + q_s * q_s)
-            e_s = i_s * q_s / p_s if p_s > 1e-30 else 0.0
+            e_s = i_s * q_s / sc_norm if sc_norm > 1e-30 else 0.0
             nu += ki_s * e_s
             psi += nu + kp_s * e_s
             psi -= math.floor(psi)
@@ -206,6 +313,7 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
                 u = ri
         out_u[k] = u
         sum_re += rr
+        sum_re2 += rr * rr
         sum_u += u
         count += 1.0
 
@@ -220,31 +328,40 @@ def track_carrier(x, gain, params, sf, out_u, out_lock, out_phase):
         step = omega + kp_c * e
         theta += step
         total += step
-        if theta > math.pi or theta < -math.pi:
-            theta -= two_pi * math.floor((theta + math.pi) / two_pi)
+        if theta >= two_pi:
+            theta -= two_pi * math.floor(theta / two_pi)
+        elif theta < 0.0:
+            theta -= two_pi * math.floor(theta / two_pi)
 
-    sf[0] = theta
-    sf[1] = omega
-    sf[2] = rate
-    sf[3] = total
-    sf[4] = a_c
-    sf[5] = b_c
-    sf[6] = p_c
-    sf[7] = psi
-    sf[8] = nu
-    sf[9] = i_s
-    sf[10] = q_s
-    sf[11] = p_s
-    sf[12] = i_c
-    sf[13] = q_c
-    sf[14] = pw_c
-    sf[15] = float(locked)
-    sf[17] = sum_re
-    sf[18] = sum_u
-    sf[19] = count
-    sf[20] = l_num
-    sf[21] = l_den
-    sf[22] = warm
+    while j_at < n_at:  # indices past the block end (not used by the wrapper): the phase after the last sample
+        out_phase[j_at] = total
+        j_at += 1
+    st["phase"] = theta
+    st["frequency"] = omega
+    st["rate"] = rate
+    st["total"] = total
+    st["amplitude"] = amp
+    st["sc_phase"] = psi
+    st["sc_frequency"] = nu
+    st["sc_i"] = i_s
+    st["sc_q"] = q_s
+    st["costas_i"] = i_c
+    st["costas_q"] = q_c
+    st["costas_num"] = l_num
+    st["costas_den"] = l_den
+    st["costas_warm"] = warm
+    st["locked"] = locked
+    st["above"] = above
+    st["below"] = below
+    st["decisions"] = decisions
+    st["lk_count"] = lk_count
+    st["lk_sum"] = lk_sum
+    st["lk_sum2"] = lk_sum2
+    st["lock_z"] = lock_z
+    st["sum_re"] = sum_re
+    st["sum_re2"] = sum_re2
+    st["sum_u"] = sum_u
+    st["count"] = count
 
 
 @njit(cache=True)
@@ -261,32 +378,38 @@ def interval_sum(u, base, a, b):
         lo = m - 0.5 if m - 0.5 > a else a
         hi = m + 0.5 if m + 0.5 < b else b
         if hi > lo:
-            acc += (hi - lo) * u[m - base]
+            acc += (hi - lo) * float(u[m - base])
     return acc
 
 
 @njit(cache=True)
-def rect_symbols(u, lock, base, params, sf, out_pos, out_raw, out_soft, out_lock):
+def rect_symbols(u, uq, lock, base, params, state, out_pos, out_raw, out_soft, out_lock, out_half1, out_half2,
+                 out_quad):
     """Integrate-and-dump matched filter and data-transition tracking loop for NRZ or Bi-phase-L.
 
     Parameters
     ----------
-    u : float64 array
+    u : float32 or float64 array
         Data signal; ``u[i]`` is recording sample ``base + i``.
+    uq : float32 or float64 array
+        Quadrature data signal (same indexing), integrated like ``u`` into ``out_quad`` when
+        ``params.quadrature`` is 1 (else not read; may be empty).
     lock : int8 array
         Carrier-lock flag per sample (same indexing).
     base : int
         Absolute index of ``u[0]``.
-    params : float64 array
-        ``[biphase, kp_t, ki_t, window_half_fraction, a_amp, nominal_period, period_limit, 0]``:
-        window half-width as a fraction of the symbol period; the period estimate is held within
-        ``nominal_period (1 +- period_limit)`` (not bounded when ``nominal_period`` is 0).
-    sf : float64 array, updated in place
-        0 ``tau`` (centre of the next symbol, absolute samples), 1 symbol period estimate (samples),
-        2 previous raw symbol (0 = none yet), 3 amplitude per sample (average of ``|s| / T``).
-    out_pos, out_raw, out_soft, out_lock
-        Per symbol: centre (samples), raw integral ``s``, ``s / (A T)`` (about +-1), lock flag;
-        all of one length ``cap``.
+    params : SYMBOL_PARAMS record array of length 1
+        ``biphase`` (0 NRZ, 1 Bi-phase-L), ``quadrature``, timing loop gains ``kp_t, ki_t``,
+        ``window`` (half-width of the transition window as a fraction of the symbol period),
+        ``a_amp`` (amplitude average coefficient), the period estimate held within ``nominal (1 +-
+        limit)`` (not bounded when ``nominal`` is 0).
+    state : SYMBOL_STATE record array of length 1, updated in place
+        ``tau`` (centre of the next symbol, absolute samples), ``period`` (samples), ``prev`` (previous
+        raw symbol, 0 = none yet), ``amp`` (average of ``|s| / T``).
+    out_pos, out_raw, out_soft, out_lock, out_half1, out_half2, out_quad
+        Per symbol: centre (samples), raw integral ``s``, ``s / (A T)`` (about +-1), lock flag, the
+        integrals over the first and the second half of the symbol, the quadrature integral; all of
+        one length ``cap``.
 
     Returns
     -------
@@ -295,8 +418,8 @@ def rect_symbols(u, lock, base, params, sf, out_pos, out_raw, out_soft, out_lock
         the next call); one whose centre lies after ``base - 1/2`` but whose start does not is the
         first symbol of the stream, integrated over the part that exists (no timing update).  It
         equals ``cap`` only when the buffers filled up; a call with new buffers then continues.
-        Each symbol advances ``tau`` by at least ``T (1 - kp W)``, ``T >= nominal (1 - limit)``,
-        so a call writes at most ``len(u) / (nominal (1 - limit) (1 - kp W)) + 2`` symbols.
+        Each symbol advances ``tau`` by at least ``T (1 - kp / 2)``, ``T >= nominal (1 - limit)``,
+        so a call writes at most ``len(u) / (nominal (1 - limit) (1 - kp / 2)) + 2`` symbols.
 
     Notes
     -----
@@ -307,21 +430,26 @@ def rect_symbols(u, lock, base, params, sf, out_pos, out_raw, out_soft, out_lock
     transition, the symbol boundary before symbol ``k`` for NRZ (weighted by ``(sgn s_{k-1} - sgn
     s_k) / 2``) or the mid-symbol transition for Bi-phase-L (weighted by ``sgn s_k``).  A timing
     ``delta`` samples late gives ``I_w = -2 A delta`` per transition, so ``delta = -e / (2 A)``,
-    clipped to the window.  Second-order loop per symbol: ``tau += T - kp delta``,
-    ``T -= ki delta`` (the integrator held while the carrier is unlocked).  Cost O(T) per symbol.
+    clipped to half a symbol (not to the window: at low SNR the noise of ``delta`` is several window widths,
+    and clipping it there would shrink the loop's gain).  Second-order loop per symbol: ``tau += T - kp delta``,
+    ``T -= ki delta`` (the integrator held while the carrier is unlocked).  Cost O(T) per symbol
+    (twice that with the quadrature integral).
     """
     n = u.shape[0]
-    biphase = int(params[0])
-    kp = params[1]
-    ki = params[2]
-    wfrac = params[3]
-    a_amp = params[4]
-    nominal = params[5]
-    limit = params[6]
-    tau = sf[0]
-    period = sf[1]
-    prev = sf[2]
-    amp = sf[3]
+    p = params[0]
+    biphase = p["biphase"]
+    quad = p["quadrature"]
+    kp = p["kp_t"]
+    ki = p["ki_t"]
+    wfrac = p["window"]
+    a_amp = p["a_amp"]
+    nominal = p["nominal"]
+    limit = p["limit"]
+    st = state[0]
+    tau = st["tau"]
+    period = st["period"]
+    prev = st["prev"]
+    amp = st["amp"]
     cap = out_pos.shape[0]
     nout = 0
     while nout < cap:
@@ -337,14 +465,16 @@ def rect_symbols(u, lock, base, params, sf, out_pos, out_raw, out_soft, out_lock
             break
         # a symbol cut by the start of the stream is integrated over the part that exists
         a_in = a if a > first else first
+        h1 = interval_sum(u, base, a_in, tau)
+        h2 = interval_sum(u, base, tau, b)
         if biphase == 1:
-            s = interval_sum(u, base, a_in, tau) - interval_sum(u, base, tau, b)
+            s = h1 - h2
             lo_w = tau - w if tau - w > first else first
             iw = interval_sum(u, base, lo_w, tau + w)
             e = iw * (1.0 if s >= 0.0 else -1.0)
             have_e = tau - w >= first
         else:
-            s = interval_sum(u, base, a_in, b)
+            s = h1 + h2
             iw = interval_sum(u, base, a - w, a + w) if a - w >= first else 0.0
             if prev != 0.0 and a - w >= first:
                 e = iw * ((1.0 if prev >= 0.0 else -1.0) - (1.0 if s >= 0.0 else -1.0)) * 0.5
@@ -352,6 +482,12 @@ def rect_symbols(u, lock, base, params, sf, out_pos, out_raw, out_soft, out_lock
             else:
                 e = 0.0
                 have_e = False
+        sq = 0.0
+        if quad == 1:
+            if biphase == 1:
+                sq = interval_sum(uq, base, a_in, tau) - interval_sum(uq, base, tau, b)
+            else:
+                sq = interval_sum(uq, base, a_in, b)
         mag = abs(s) / period
         amp = (1.0 - a_amp) * amp + a_amp * mag if amp > 0.0 else mag
         centre = int(math.floor(tau + 0.5)) - base
@@ -360,14 +496,17 @@ def rect_symbols(u, lock, base, params, sf, out_pos, out_raw, out_soft, out_lock
         out_raw[nout] = s
         out_soft[nout] = s / (amp * period) if amp > 0.0 else 0.0
         out_lock[nout] = lk
+        out_half1[nout] = h1
+        out_half2[nout] = h2
+        out_quad[nout] = sq
         nout += 1
         delta = 0.0
         if have_e and amp > 0.0:
             delta = -e / (2.0 * amp)
-            if delta > w:
-                delta = w
-            elif delta < -w:
-                delta = -w
+            if delta > half:
+                delta = half
+            elif delta < -half:
+                delta = -half
         prev = s if s != 0.0 else 1e-30
         tau += period - kp * delta
         if lk == 1:
@@ -377,31 +516,48 @@ def rect_symbols(u, lock, base, params, sf, out_pos, out_raw, out_soft, out_lock
                     period = nominal * (1.0 + limit)
                 elif period < nominal * (1.0 - limit):
                     period = nominal * (1.0 - limit)
-    sf[0] = tau
-    sf[1] = period
-    sf[2] = prev
-    sf[3] = amp
+    st["tau"] = tau
+    st["period"] = period
+    st["prev"] = prev
+    st["amp"] = amp
     return nout
 
 
 @njit(cache=True)
-def timing_search(u, base, first_centre, period, biphase, n_phase, n_sym, out_energy):
-    """Mean ``|s|`` of ``n_sym`` symbols for ``n_phase`` trial timings ``first_centre + j T / n_phase``.
+def _held_integral(cum, u, base, t):
+    """Integral of the sample-and-hold signal from the start of ``u``'s first cell to ``t`` (prefix sums)."""
+    m = int(math.floor(t + 0.5)) - base
+    if m <= 0:
+        return 0.0
+    if m >= u.shape[0]:
+        return cum[u.shape[0]]
+    return cum[m] + (t + 0.5 - (m + base)) * float(u[m])
 
-    ``s`` is the matched-filter output of :func:`rect_symbols` for each trial; the trial with the
-    largest mean magnitude is the symbol timing (non-data-aided maximum-energy search).
-    Cost O(n_phase n_sym T).
+
+@njit(cache=True)
+def timing_energy(cum, u, base, first_centre, periods, n_phase, n_sym, biphase, out_energy):
+    """Mean ``s^2`` of ``n_sym`` symbols for trial periods and ``n_phase`` trial timings per period.
+
+    Trial ``(i, j)``: symbol ``k`` centred at ``first_centre + j P_i / n_phase + k P_i`` with period
+    ``P_i = periods[i]``; ``s`` is the matched-filter output of :func:`rect_symbols` (NRZ: the
+    integral over the symbol; Bi-phase-L: first half minus second half).  ``cum`` is the prefix sum
+    of ``u`` (``cum[m] = sum u[:m]``, length ``len(u) + 1``), so each integral costs O(1); the trial
+    with the largest mean energy is the symbol timing (non-data-aided, square law).  Cost
+    O(len(periods) n_phase n_sym).
     """
-    for j in range(n_phase):
-        t0 = first_centre + j * period / n_phase
-        acc = 0.0
-        for k in range(n_sym):
-            tau = t0 + k * period
-            a = tau - 0.5 * period
-            b = tau + 0.5 * period
-            if biphase == 1:
-                s = interval_sum(u, base, a, tau) - interval_sum(u, base, tau, b)
-            else:
-                s = interval_sum(u, base, a, b)
-            acc += abs(s)
-        out_energy[j] = acc / n_sym if n_sym > 0 else 0.0
+    for i in range(periods.shape[0]):
+        period = periods[i]
+        for j in range(n_phase):
+            t0 = first_centre + j * period / n_phase
+            acc = 0.0
+            for k in range(n_sym):
+                tau = t0 + k * period
+                fa = _held_integral(cum, u, base, tau - 0.5 * period)
+                fm = _held_integral(cum, u, base, tau)
+                fb = _held_integral(cum, u, base, tau + 0.5 * period)
+                if biphase == 1:
+                    s = (fm - fa) - (fb - fm)
+                else:
+                    s = fb - fa
+                acc += s * s
+            out_energy[i, j] = acc / n_sym if n_sym > 0 else 0.0
