@@ -192,15 +192,17 @@ def pcm_psk_pm(bits: np.ndarray, *, rng, symbol_rate: float, subcarrier_hz: floa
 @pytest.mark.slow
 def test_rate_sixth_on_pcm_psk_pm_square_subcarrier(tmp_path):
     # issue 16's other whole-chain check: turbo rate 1/6, k = 1784, PCM/PSK/PM, square subcarrier, 2 ksym/s,
-    # modulation index 1.2 rad.  Its point (code-alone target + 1 dB, about Eb/N0 1.6 dB, Es/N0 -6.2 dB) needs the
-    # low-Es/N0 residual-carrier receiver that is still to come; today's receiver holds lock down to about
-    # Es/N0 -3 dB at 2 ksym/s, so this decodes at Eb/N0 5 dB (Es/N0 -2.8 dB).  Lower it when the receiver can.
+    # modulation index 1.2 rad (13 % of the power left in the carrier), every packet at Eb/N0 1 dB above the
+    # code-alone target (0.2 dB): 1.2 dB, Es/N0 -6.6 dB per channel symbol.  The receiver acquires within the
+    # 4 s of lead bits (the residual-carrier search accumulates about 2 s at this Es/N0, and the window it
+    # held is demodulated from its start).
     rng = np.random.default_rng(61)
     packets, frames = transmitter_frames(rng, 5, 1784)
     bits = tx.turbo_channel_bits(frames, rate="1/6", lead_bits=8000, seed=9)  # 4 s for the receiver to acquire
     prof = turbo_profile("1/6", 1784, modulation="pcm-psk-pm", symbol_rate=2000.0, pulse="rect",
                          subcarrier_hz=16000.0, subcarrier_wave="square", modulation_index=1.2)
-    esn0_db = prof.esn0_from_ebn0(5.0)
+    esn0_db = prof.esn0_from_ebn0(1.2)
+    assert esn0_db == pytest.approx(-6.6, abs=0.05)  # rate 1784 / 10728 (CCSDS 131.0-B sec. 6: k + 4 steps x 6)
     samples, starts = pcm_psk_pm(bits, rng=rng, symbol_rate=2000.0, subcarrier_hz=16000.0, index_rad=1.2,
                                  esn0_db=esn0_db, carrier_hz=350.0)
     meta = write_sigmf(tmp_path / "psk", samples.astype(np.complex64))

@@ -576,7 +576,7 @@ class ResidualCarrierDemodulator:
                     while self._held and self._held[0][2] < fix.start:
                         self._skip(self._held.pop(0), parts)
                     need = self._window_needed(fix.cn0_hz)
-                    self._found = (det, need)
+                    self._found = (det, need, fix)
                     if self._window_ready(need) or len(self._held) >= self.hold_blocks:
                         self._complete_acquisition(parts, fix)
                     return
@@ -612,10 +612,11 @@ class ResidualCarrierDemodulator:
 
     def _complete_acquisition(self, parts: list, fix: CarrierFix | None = None) -> None:
         """Refine the carrier over the whole held window and start tracking from it."""
-        det, _ = self._found
+        det, _, first_fix = self._found
         self._found = None
-        if fix is None or len(self._held) > 1:
-            fix = self._refine(det)
+        if fix is None:
+            # over the grown window (a line too weak to hold over it: the fix from the detection window)
+            fix = self._refine(det) or first_fix
         self._search.restart()
         if fix is None:  # the line did not hold over the longer window: search again
             while self._held:
@@ -884,6 +885,7 @@ class ResidualCarrierDemodulator:
             var_re = max(st["sum_re2"] / cnt - mean_re * mean_re, 1e-30)
             info = {"start": start, "n": n, "at": at, "ph": ph, "edges": edges, "mean_re": mean_re,
                     "var_re": var_re, "locked": bool(st["locked"]), "lock_z": float(st["lock_z"]), "plan": plan,
+                    "decisions": int(st["decisions"]),
                     "cn0": mean_re * mean_re * fs / (2.0 * var_re) if mean_re > 0 else 0.0}
             if self.residual and st["locked"]:
                 # P_c / N0 for the loop plan, smoothed over about four blocks
@@ -901,6 +903,11 @@ class ResidualCarrierDemodulator:
             self._acquire_timing()
         for info in infos:
             self._block_symbols(info, parts)
+        if self._unlocked_blocks >= _REACQUIRE_BLOCKS:  # search for the carrier again
+            self._tracking = False
+            self._unlocked_blocks = 0
+            if self.residual:
+                self._search.restart()
         # keep the samples the next symbol needs
         if self._timing_acquired:
             keep = int(math.floor(self._ss[0]["tau"] - (0.5 + 2.0 * _DTTL_WINDOW) * self._ss[0]["period"])) - 2
@@ -983,21 +990,14 @@ class ResidualCarrierDemodulator:
         parts.append({"pos": pos, "soft": soft.astype(np.float32), "locked": slock, "track": track})
         self.stats.symbols_out += nsym
         self.stats.carrier_locked_symbols += int(slock.sum())
-        self._after_block(carrier_locked)
+        self._after_block(info)
 
-    def _after_block(self, carrier_locked: bool) -> None:
-        """Count unlocked blocks; after three (once the lock detector has decided) search for the carrier again."""
-        if carrier_locked:
+    def _after_block(self, info: dict) -> None:
+        """Count the blocks that end unlocked once the lock detector has decided since the acquisition."""
+        if info["locked"]:
             self._unlocked_blocks = 0
-            return
-        if self.residual and self._cs[0]["decisions"] < _CARRIER_HOLD + 2:
-            return  # the detector has not had its say since the acquisition
-        self._unlocked_blocks += 1
-        if self._unlocked_blocks >= _REACQUIRE_BLOCKS:
-            self._tracking = False
-            self._unlocked_blocks = 0
-            if self.residual:
-                self._search.restart()
+        elif not self.residual or info["decisions"] >= _CARRIER_HOLD + 2:
+            self._unlocked_blocks += 1
 
     def _symbols(self, upto: int):
         """:func:`rect_symbols` over the buffer's first ``upto`` samples, outputs sized from its bound."""

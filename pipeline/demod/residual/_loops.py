@@ -26,7 +26,7 @@ SUBCARRIER_BW_MAX = 0.002
 SUBCARRIER_BW_MIN = 1e-5
 #: Transition tracking loop: (Es/N0) S_L / (B_L T) aimed at, the lowest while wide, and the smallest B_L T.
 TIMING_LOOP_SNR = 4000.0
-TIMING_LOOP_SNR_MIN = 200.0
+TIMING_LOOP_SNR_MIN = 2000.0
 TIMING_BT_MIN = 1e-5
 #: Gear shifting after an acquisition: a loop starts wide and narrows as ``GEAR / t`` (t in its own units:
 #: seconds for the subcarrier loop, symbols for the transition loop) until it reaches its aim.  A

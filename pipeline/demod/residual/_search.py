@@ -213,9 +213,14 @@ class ResidualCarrierSearch:
         if k == 0:
             return LineDetection(False, float("nan"), 0.0, -math.inf, math.inf, 0)
         sub = self._acc[:, self._searched]
-        flat = int(np.argmax(sub))
-        i, j = divmod(flat, sub.shape[1])
         floor = self.floor()
+        i, j = divmod(int(np.argmax(sub)), sub.shape[1])
+        if i:
+            # a Doppler rate only when it beats the rate-0 accumulator's peak by 3 standard deviations of a
+            # sum of k noise bins (sqrt(k) floors): with few blocks the hypotheses differ by noise alone
+            j0 = int(np.argmax(sub[0]))
+            if float(sub[i, j]) - float(sub[0, j0]) <= 3.0 * math.sqrt(k) * floor:
+                i, j = 0, j0
         peak = float(sub[i, j])
         t = self.threshold(k)
         bin_k = int(self._searched[j])
