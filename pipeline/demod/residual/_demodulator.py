@@ -49,6 +49,9 @@ _MAX_DWELL_BLOCKS = 32
 #: Samples held back while searching (so that the window the carrier was found in is demodulated): at most
 #: this many (complex64: 32 MB), and at most one dwell.
 _HOLD_SAMPLES = 1 << 22
+#: Per block, this fraction of the rate the second-order carrier loop's frequency integrator followed goes
+#: into the rate aiding.
+_RATE_AIDING_GAIN = 0.25
 #: Doppler rates hypothesised by the carrier search (Hz/s).
 _MAX_DOPPLER_RATE = 10.0
 #: Carrier lock: t statistic of the coherent carrier amplitude, on above 5 (two decisions in a row), off below 3.
@@ -382,7 +385,8 @@ class ResidualCarrierDemodulator:
         p["third_order"] = 1 if self.carrier_loop_order == 3 else 0
         p["table_phasor"] = 1 if phasor == "table" else 0
         p["a_arm"] = a_arm
-        p["w_sq"] = _SQUARE_WINDOW_CYCLES
+        # the window holds at least a sample on each side of an edge (0.0625 cycles at 16 or more samples per cycle)
+        p["w_sq"] = max(_SQUARE_WINDOW_CYCLES, self.subcarrier_cycles_per_sample)
         p["z_on"], p["z_off"] = _CARRIER_Z_ON, _CARRIER_Z_OFF
         p["on_count"], p["off_count"] = _CARRIER_HOLD, _CARRIER_HOLD
         # Costas lock: <I^2 - Q^2> / <I^2 + Q^2> of the chip-long arms is about S / (S + 2 N_arm) when locked,
@@ -878,8 +882,13 @@ class ResidualCarrierDemodulator:
             st = self._cs[0]
             for name in ("sum_re", "sum_re2", "sum_u", "count"):
                 st[name] = 0.0
+            omega0, rate0 = float(st["frequency"]), float(st["rate"])
             track_carrier(block, gain, self._cparams, self._cs, self._cos, self._sin, at, u, uq, lk, ph)
             st = self._cs[0]
+            if self.residual and self.carrier_loop_order == 2 and st["locked"]:
+                # rate aiding follows the Doppler rate: the frequency's drift over the block beyond the aiding's
+                # own is the rate the aiding misses (a slow third integrator, one update per block)
+                st["rate"] = rate0 + _RATE_AIDING_GAIN * ((float(st["frequency"]) - omega0) / n - rate0)
             cnt = max(st["count"], 1.0)
             mean_re = st["sum_re"] / cnt
             var_re = max(st["sum_re2"] / cnt - mean_re * mean_re, 1e-30)

@@ -18,6 +18,7 @@ _FINE_PER_BLOCK = 64
 _FINE_PAD = 8
 #: At most this many Doppler-rate hypotheses in the coarse accumulation, and in the fine stage.
 _MAX_RATES = 65
+_MAX_FINE_RATES = 2049
 #: Memory bound of the coarse accumulators (float32 values: rates x bins).
 _MAX_ACCUMULATOR_VALUES = 1 << 23
 #: Coherent line SNR over the window (power over the noise of one bin) the fine stage must confirm.
@@ -164,6 +165,7 @@ class ResidualCarrierSearch:
         # ordered by |r| (0, +s, -s, +2s, ...): a tie goes to the smallest rate (with one block they all tie)
         order = sorted(range(-half, half + 1), key=lambda i: (abs(i), -i))
         self.rates_hz_per_s = np.array(order, dtype=np.float64) * step if half else np.zeros(1)
+        self.max_rate_hz_per_s = float(max_rate_hz_per_s)
         self.rate_step_hz_per_s = step if half else 0.0
         self._thresholds: dict[int, float] = {}
         self.restart()
@@ -237,10 +239,16 @@ class ResidualCarrierSearch:
 
         ``blocks`` are the held blocks in stream order (the last ``len(blocks)`` of the dwell), with their
         gains and absolute start samples; ``dwell_start`` is the first sample of the dwell's first block.
+        A short last block (the end of a stream) is left out of the estimate.
         """
         fs = self.sample_rate_hz
-        nb = len(blocks)
         n_blk = self.block_samples
+        nb = len(blocks)
+        while nb and blocks[nb - 1].shape[0] != n_blk:
+            nb -= 1
+        if nb == 0:
+            return None
+        blocks, gains, starts = blocks[:nb], gains[:nb], starts[:nb]
         dec = n_blk // _FINE_PER_BLOCK
         f_c, r_c = detection.frequency_hz, detection.rate_hz_per_s
         # the coarse model's phase (cycles) at absolute sample t: f_c at the dwell's first block centre
@@ -314,32 +322,39 @@ class ResidualCarrierSearch:
         span = n * dec / fs
         tc = times - 0.5 * (times[0] + times[-1])
         if rates is None:
-            # fine rates within the coarse spacing: pi r (T/2)^2 <= pi / 4 apart
+            # fine rates pi r (T/2)^2 <= pi / 4 apart (1 / T^2) over the whole searched range (the coarse
+            # accumulation tells rates apart only over many blocks), at most _MAX_FINE_RATES
             step = 1.0 / (span * span)
-            half = int(math.ceil(0.5 * self.rate_step_hz_per_s / step)) if self.rate_step_hz_per_s else 0
-            half = min(half, (_MAX_RATES - 1) // 2)
-            rates = np.arange(-half, half + 1) * (0.5 * self.rate_step_hz_per_s / half) if half else np.zeros(1)
+            half = min(int(math.ceil(self.max_rate_hz_per_s / step)), (_MAX_FINE_RATES - 1) // 2)
+            if half and half * step < self.max_rate_hz_per_s:
+                step = self.max_rate_hz_per_s / half
+            rates = np.arange(-half, half + 1) * step - r_coarse  # total rates around 0
         nfft = _FINE_PAD * (1 << int(math.ceil(math.log2(n))))
         fd = fs / dec
         freqs = np.fft.fftfreq(nfft, d=1.0 / fd)
         band = np.flatnonzero(np.abs(freqs) <= 2.0 * self.bin_hz + 0.5 * self.rate_step_hz_per_s * span)
         win = np.hanning(n)
         peaks = np.empty(rates.size)
-        bins = np.empty(rates.size, dtype=np.int64)
-        for i, r in enumerate(rates):
-            y = z * win * (np.exp(-1j * np.pi * r * tc * tc) if r else 1.0)
-            spec = np.fft.fft(y, nfft)
-            pw = spec.real ** 2 + spec.imag ** 2
-            bins[i] = int(band[np.argmax(pw[band])])
-            peaks[i] = pw[bins[i]]
-        i = int(np.argmax(peaks))
+        zw = z * win
+        tt = tc * tc
+        for a in range(0, rates.size, 64):  # 64 hypotheses per transform call
+            r = rates[a:a + 64]
+            spec = np.fft.fft(zw[None, :] * np.exp(-1j * np.pi * r[:, None] * tt[None, :]), nfft, axis=1)
+            pw = spec.real[:, band] ** 2 + spec.imag[:, band] ** 2
+            peaks[a:a + r.size] = pw.max(axis=1)
+        best = float(peaks.max())
+        tied = np.flatnonzero(peaks >= best)
+        pick = int(tied[np.argmin(np.abs(rates[tied] + r_coarse))])  # a tie goes to the smallest total rate
+        order = np.argsort(rates)
+        rates, peaks = rates[order], peaks[order]
+        i = int(np.flatnonzero(order == pick)[0])
         r_res = float(rates[i])
         if 0 < i < rates.size - 1:
             # the rate between the grid points: a parabola through the three peak powers (log)
             la, lb, lc = (math.log(max(v, 1e-300)) for v in peaks[i - 1:i + 2])
             den = la - 2.0 * lb + lc
             if den < 0:
-                r_res += 0.5 * (la - lc) / den * float(rates[1] - rates[0])
+                r_res += 0.5 * (la - lc) / den * float(rates[i + 1] - rates[i])
         y = z * win * (np.exp(-1j * np.pi * r_res * tc * tc) if r_res else 1.0)
         spec = np.fft.fft(y, nfft)
         pw = spec.real ** 2 + spec.imag ** 2
