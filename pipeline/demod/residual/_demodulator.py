@@ -714,7 +714,8 @@ class ResidualCarrierDemodulator:
         since = (start - self._acq_start) / fs
         plan = plan_loops(symbol_rate_baud=self.symbol_rate_baud, cn0_hz=self._cn0_hz,
                           data_to_carrier=self.data_to_carrier, nrz_pm=self.nrz_pm, since_s=since,
-                          fixed_carrier_hz=self.fixed_carrier_hz, timing_bt_max=self.timing_bt_max)
+                          fixed_carrier_hz=self.fixed_carrier_hz, timing_bt_max=self.timing_bt_max,
+                          period_aided=self._clock_ratio != 1.0)
         self.loop_plan = plan
         p = self._cparams[0]
         kp, ki, kr = loop_gains(plan.carrier_hz / fs, self.carrier_loop_order)

@@ -167,6 +167,7 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
     a_arm = p["a_arm"]
     w_sq = p["w_sq"]
     sc_norm = p["sc_norm"]
+    inv_sc_norm = 1.0 / sc_norm if sc_norm > 1e-30 else 0.0
     a_amp = p["a_amp"]
     amp_floor = p["amp_floor"]
     lock_interval = p["lock_interval"]
@@ -232,7 +233,7 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
         if carrier_mode == 0:
             amp += a_amp * (rr - amp)
             norm = amp if amp > amp_floor else amp_floor
-            e = ri / norm
+            e = ri / norm if norm > 0.0 else 0.0
             lk_sum += rr
             lk_sum2 += rr * rr
             lk_count += 1
@@ -305,10 +306,11 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
             out_uq[k] = ri * ref_qf
             i_s = (1.0 - a_arm) * i_s + a_arm * u
             q_s = (1.0 - a_arm) * q_s + a_arm * ri * ref_q
-            e_s = i_s * q_s / sc_norm if sc_norm > 1e-30 else 0.0
+            e_s = i_s * q_s * inv_sc_norm
             nu += ki_s * e_s
             psi += nu + kp_s * e_s
-            psi -= math.floor(psi)
+            if psi >= 1.0 or psi < 0.0:
+                psi -= math.floor(psi)
             if raw == 1:
                 u = ri
         out_u[k] = u
@@ -328,9 +330,7 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
         step = omega + kp_c * e
         theta += step
         total += step
-        if theta >= two_pi:
-            theta -= two_pi * math.floor(theta / two_pi)
-        elif theta < 0.0:
+        if theta >= two_pi or theta < 0.0:
             theta -= two_pi * math.floor(theta / two_pi)
 
     while j_at < n_at:  # indices past the block end (not used by the wrapper): the phase after the last sample

@@ -24,9 +24,12 @@ SUBCARRIER_LOOP_SNR = 2000.0
 SUBCARRIER_LOOP_SNR_MIN = 200.0
 SUBCARRIER_BW_MAX = 0.002
 SUBCARRIER_BW_MIN = 1e-5
-#: Transition tracking loop: (Es/N0) S_L / (B_L T) aimed at, the lowest while wide, and the smallest B_L T.
+#: Transition tracking loop: (Es/N0) S_L / (B_L T) aimed at, the lowest while wide (when the symbol period came
+#: from a coherent subcarrier's frequency, and when it did not: then the loop must first take up the clock's
+#: offset), and the smallest B_L T.
 TIMING_LOOP_SNR = 4000.0
 TIMING_LOOP_SNR_MIN = 2000.0
+TIMING_LOOP_SNR_MIN_UNAIDED = 200.0
 TIMING_BT_MIN = 1e-5
 #: Gear shifting after an acquisition: a loop starts wide and narrows as ``GEAR / t`` (t in its own units:
 #: seconds for the subcarrier loop, symbols for the transition loop) until it reaches its aim.  A
@@ -73,7 +76,8 @@ def squaring_loss(esn0: float) -> float:
 
 
 def plan_loops(*, symbol_rate_baud: float, cn0_hz: float, data_to_carrier: float, nrz_pm: bool,
-               since_s: float, fixed_carrier_hz: float | None = None, timing_bt_max: float = 0.005) -> LoopPlan:
+               since_s: float, fixed_carrier_hz: float | None = None, timing_bt_max: float = 0.005,
+               period_aided: bool = False) -> LoopPlan:
     """Loop bandwidths from the symbol rate and the carrier-to-noise density ``P_c / N0`` (Hz).
 
     Parameters
@@ -91,6 +95,9 @@ def plan_loops(*, symbol_rate_baud: float, cn0_hz: float, data_to_carrier: float
         ``[receiver] carrier_loop_bandwidth_hz`` when set (not 0): used as it is.
     timing_bt_max : float
         ``[receiver] timing_loop_bandwidth``: the widest transition loop.
+    period_aided : bool
+        The symbol period came from the subcarrier's measured frequency (a coherent subcarrier): the
+        transition loop may start narrower.
 
     Returns
     -------
@@ -101,9 +108,9 @@ def plan_loops(*, symbol_rate_baud: float, cn0_hz: float, data_to_carrier: float
     With ``E = Es/N0 = (P_c / N0) (P_d / P_c) / R_s``: carrier ``B_L = (P_c / N0) / 50`` within
     ``[2e-4, 5e-3] R_s`` (``1e-3`` for NRZ PCM/PM); subcarrier ``B_sc = (P_d / N0) S_L / 2000``
     within ``[1e-5, 2e-3] R_s``; transition loop ``B_L T = E S_L / 4000`` within ``[1e-5,
-    timing_loop_bandwidth]``; the last two start wide (at most ten times their aim, a loop SNR of
-    200, and the upper bound) and narrow as ``2 / t`` (``t`` in seconds, and in symbols for
-    ``B_L T``) after an acquisition.  The carrier-lock decision
+    timing_loop_bandwidth]``; the last two start wide (at a loop SNR of 200, twice the aim for a
+    transition loop whose period came from a coherent subcarrier, within the upper bounds) and narrow
+    as ``2 / t`` (``t`` in seconds, and in symbols for ``B_L T``) after an acquisition.  The carrier-lock decision
     interval is ``1 / B_L``: with the loop's aim its statistic is ``sqrt(2 x 50) = 10`` standard
     errors when locked.  At Es/N0 = -8 dB and m = 1.2 rad: ``B_L = 4.8e-4 R_s``, ``B_sc = 1.9e-5
     R_s``, ``B_L T = 9.5e-6`` (so ``1e-5``).  The aims come from the jitter formulas of Yuen (ed.),
@@ -129,7 +136,8 @@ def plan_loops(*, symbol_rate_baud: float, cn0_hz: float, data_to_carrier: float
         sc_aim = min(max(pd_n0 * sl / SUBCARRIER_LOOP_SNR, SUBCARRIER_BW_MIN * rs), sc_max)
         sc_wide = min(max(pd_n0 * sl / SUBCARRIER_LOOP_SNR_MIN, sc_aim), sc_max)
         bt_aim = min(max(esn0 * sl / TIMING_LOOP_SNR, TIMING_BT_MIN), timing_bt_max)
-        bt_wide = min(max(esn0 * sl / TIMING_LOOP_SNR_MIN, bt_aim), timing_bt_max)
+        snr_min = TIMING_LOOP_SNR_MIN if period_aided else TIMING_LOOP_SNR_MIN_UNAIDED
+        bt_wide = min(max(esn0 * sl / snr_min, bt_aim), timing_bt_max)
     else:
         sc_aim = sc_wide = sc_max
         bt_aim = bt_wide = timing_bt_max
