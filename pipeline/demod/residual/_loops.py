@@ -28,7 +28,7 @@ SUBCARRIER_BW_MIN = 1e-5
 #: from a coherent subcarrier's frequency, and when it did not: then the loop must first take up the clock's
 #: offset), and the smallest B_L T.
 TIMING_LOOP_SNR = 4000.0
-TIMING_LOOP_SNR_MIN = 2000.0
+TIMING_LOOP_SNR_MIN = 500.0
 TIMING_LOOP_SNR_MIN_UNAIDED = 200.0
 TIMING_BT_MIN = 1e-5
 #: Gear shifting after an acquisition: a loop starts wide and narrows as ``GEAR / t`` (t in its own units:

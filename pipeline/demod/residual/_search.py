@@ -93,8 +93,8 @@ class ResidualCarrierSearch:
     per Doppler-rate hypothesis ``r`` (block ``b``'s periodogram shifted by ``round(r b T_b^2)``
     bins, ``T_b`` the block duration; spacing one bin of drift over the whole dwell, at most 65
     hypotheses and ``2^23`` accumulated values).  After ``K`` blocks a bin's sum of noise alone is
-    ``Gamma(K)`` times the floor, estimated as the median of the searched bins over the median of
-    ``Gamma(K)``; the line is found when the peak exceeds ``gammainccinv(K, p / M)`` floors (``M``
+    ``Gamma(K)`` times the floor, estimated as the median of (at most 65536 of) the searched bins over
+    the median of ``Gamma(K)``; the line is found when the peak exceeds ``gammainccinv(K, p / M)`` floors (``M``
     searched bins, ``p`` = ``false_alarm``, so every test on noise passes with probability at most
     ``p``).  The per-block line SNR is ``(2/3) P_c T_b / N0`` on a bin centre (Hann), so at 256
     symbols per block and ``P_c / N0 = 0.024 R_s`` (Es/N0 = -8 dB, m = 1.2 rad) the line needs 16
@@ -153,6 +153,8 @@ class ResidualCarrierSearch:
         searched = (np.abs(freqs) <= self.search_hz) & (np.abs(np.arange(self.bins) - 0.0) > 1) \
             & (np.abs(np.arange(self.bins) - self.bins) > 1)
         self._searched = np.flatnonzero(searched)
+        self._outside = np.flatnonzero(~searched)  # zeroed in every periodogram: never a peak
+        self._floor_bins = self._searched[::max(1, self._searched.size // 65536)]  # the floor from <= 2^16 bins
         self._freqs = freqs
         self._window = np.hanning(self.bins).astype(np.float32)
         self.window_power = float(np.sum(self._window.astype(np.float64) ** 2))
@@ -197,6 +199,7 @@ class ResidualCarrierSearch:
         y = y - y.mean(dtype=np.complex128).astype(np.complex64)
         spec = scipy.fft.fft(y * self._window, workers=1)
         p = spec.real * spec.real + spec.imag * spec.imag
+        p[self._outside] = 0.0
         b = self.blocks
         for i, r in enumerate(self.rates_hz_per_s):
             shift = int(round(r * b * self.block_s / self.bin_hz))  # the line's drift since the first block, bins
@@ -206,7 +209,7 @@ class ResidualCarrierSearch:
     def floor(self) -> float:
         """Mean noise floor of one accumulated bin per block (median of the searched bins over Gamma's median)."""
         k = max(self.blocks, 1)
-        med = float(np.median(self._acc[0, self._searched]))  # the rate-0 accumulator
+        med = float(np.median(self._acc[0, self._floor_bins]))  # the rate-0 accumulator
         return med / float(gammaincinv(k, 0.5))
 
     def detect(self) -> LineDetection:
@@ -214,18 +217,18 @@ class ResidualCarrierSearch:
         k = self.blocks
         if k == 0:
             return LineDetection(False, float("nan"), 0.0, -math.inf, math.inf, 0)
-        sub = self._acc[:, self._searched]
+        acc = self._acc  # bins outside the searched band hold 0
         floor = self.floor()
-        i, j = divmod(int(np.argmax(sub)), sub.shape[1])
+        i, j = divmod(int(np.argmax(acc)), acc.shape[1])
         if i:
             # a Doppler rate only when it beats the rate-0 accumulator's peak by 3 standard deviations of a
             # sum of k noise bins (sqrt(k) floors): with few blocks the hypotheses differ by noise alone
-            j0 = int(np.argmax(sub[0]))
-            if float(sub[i, j]) - float(sub[0, j0]) <= 3.0 * math.sqrt(k) * floor:
+            j0 = int(np.argmax(acc[0]))
+            if float(acc[i, j]) - float(acc[0, j0]) <= 3.0 * math.sqrt(k) * floor:
                 i, j = 0, j0
-        peak = float(sub[i, j])
+        peak = float(acc[i, j])
         t = self.threshold(k)
-        bin_k = int(self._searched[j])
+        bin_k = j
         f = float(self._freqs[bin_k])
         level = 10.0 * math.log10(max(peak / (k * floor) - 1.0, 1e-12)) if floor > 0 else math.inf
         need = 10.0 * math.log10(max(t / k - 1.0, 1e-12))
