@@ -243,17 +243,19 @@ class ResidualCarrierDemodulator:
        the DC offset removed (:class:`pipeline.demod.DcBlocker`); AGC to unit mean power.
     2. While no carrier is held, the block goes to the search and is held back
        (:class:`~pipeline.demod.residual._search.ResidualCarrierSearch`: periodograms accumulated over
-       up to ``dwell_blocks`` blocks, about 8192 symbols, then the line refined coherently over the
-       held window, which gives frequency, Doppler rate, phase, amplitude and ``P_c / N0``).  When
-       the line is found, the held window is demodulated from its start (from the first block that
-       carries the signal); blocks that leave the hold unfound pass with no symbols and a track
-       point with ``nan`` values.  Bi-phase-L BPSK uses a :class:`pipeline.demod.CarrierSearch` per
-       block instead.  The subcarrier's frequency offset (+-200 ppm) and phase come from the
-       squared chip correlations of a first carrier pass over the window (a line at twice the
-       offset; half-cycle ambiguity, resolved by the frame synchronizer as a data inversion), the
-       symbol period (+-200 ppm) and timing from the largest mean symbol energy over 32 timings per
-       trial period and up to 8192 symbols (trial periods around the one the subcarrier's frequency implies,
-       when it was measured: a subcarrier coherent with the symbol clock).
+       up to ``dwell_blocks`` blocks, about 8192 symbols).  When the line is found the window grows
+       until it holds the symbols the subcarrier and timing estimates need at the measured ``P_c /
+       N0`` (``_window_needed``, at most ``hold_blocks``), the line is refined coherently over it
+       (frequency, Doppler rate, phase, amplitude, ``P_c / N0``), and it is demodulated from its start
+       (from the first block that carries the signal); blocks that leave the hold unfound pass with no
+       symbols and a track point with ``nan`` values.  Bi-phase-L BPSK uses a
+       :class:`pipeline.demod.CarrierSearch` per block instead.  The subcarrier's frequency offset
+       (+-200 ppm) and phase come from the squared chip correlations of a first carrier pass over the
+       window (a line at twice the offset; half-cycle ambiguity, resolved by the frame synchronizer as
+       a data inversion), the symbol period (+-200 ppm) and timing from the largest mean symbol energy
+       over 32 timings per trial period and up to 8192 symbols (trial periods around the one the
+       subcarrier's frequency implies, when it was measured: a subcarrier coherent with the symbol
+       clock).
     3. :func:`~pipeline.demod.residual._kernels.track_carrier`: a second- or third-order PLL at the
        sample rate on the residual carrier (a Costas loop for BPSK), started from the acquired
        frequency, phase and Doppler rate (a second-order loop keeps the rate as aiding), and a
@@ -268,7 +270,9 @@ class ResidualCarrierDemodulator:
     symbol rate and the measured ``P_c / N0`` (smoothed over blocks): carrier ``B_L = (P_c /
     N0) / 50`` within ``[2e-4, 5e-3] R_s`` (``1e-3`` for NRZ PCM/PM), or the profile's value;
     subcarrier and transition loops from ``Es/N0 = (P_c / N0) (P_d / P_c) / R_s`` with the
-    squaring loss, wide after an acquisition and narrowing as ``2 / t``.
+    squaring loss, wide after an acquisition and narrowing as ``2 / t``.  A second-order carrier
+    loop is rate-aided: the acquired Doppler rate, then per block a quarter of the rate its
+    frequency integrator drifted by (a slow third integrator).
 
     Es/N0 (per symbol, data power): ``(<s^2> - N_s) / (2 N_s)`` averaged over about 2048 symbols,
     with the symbol noise ``N_s = sigma^2 (T - 1/3) g`` known from the carrier stage (``sigma^2``

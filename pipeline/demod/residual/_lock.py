@@ -32,7 +32,7 @@ class MeanStatistic:
     >>> s = MeanStatistic(memory_symbols=4096)
     >>> s.add(np.random.default_rng(1).standard_normal(4000) + 0.2)
     >>> round(s.z)
-    13
+    12
     """
 
     def __init__(self, *, memory_symbols: float) -> None:
