@@ -31,6 +31,7 @@ def _scripts(quick: bool) -> list[tuple[str, list[str]]]:
         ("bench_recording.py", ["--msamples", "4"] if quick else []),
         ("bench_demod.py", ["--seconds", "1"] if quick else []),
         ("bench_acquisition.py", ["--cost-seconds", "5", "--skip-sensitivity"] if quick else []),
+        ("bench_residual.py", ["--seconds", "2", "--repeat", "2"] if quick else []),
         ("bench_fec.py", ["--bits", "1000000", "--repeat", "3"] if quick else []),
         ("bench_turbo.py", ["--frames", "64", "--repeat", "2"] if quick else []),
         ("bench_ldpc.py", ["--codewords", "256", "--repeat", "3"] if quick else []),
@@ -41,6 +42,7 @@ def _scripts(quick: bool) -> list[tuple[str, list[str]]]:
         rows.append(("sweep_turbo.py", []))
         rows.append(("sweep_ldpc.py", ["--codewords", "3000"]))
         rows.append(("bench_sync_onset.py", []))
+        rows.append(("bench_residual_loss.py", []))
     return rows
 
 
