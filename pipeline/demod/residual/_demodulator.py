@@ -765,16 +765,21 @@ class ResidualCarrierDemodulator:
             ph = np.empty(0, dtype=np.float64)
             track_carrier(block, gain, params, state, self._cos, self._sin, np.zeros(0, np.int64), q, qq, lk, ph)
             qs.append(q)
-        q = np.concatenate(qs).astype(np.float64)
+        q = np.concatenate(qs)
         n = q.size
         nu = self.subcarrier_cycles_per_sample
-        psi = nu * np.arange(n)
-        ref = q * np.exp(-2j * math.pi * psi)
         chip = max(1, int(round(self.chip_samples)))
         nwin = n // chip
         if nwin < 16:
             return
-        cj = ref[:nwin * chip].reshape(nwin, chip).sum(axis=1)
+        # chip correlations with exp(-j 2 pi nu n), a few thousand chips at a time (bounded temporaries)
+        cj = np.empty(nwin, dtype=np.complex128)
+        step = max(1, (1 << 18) // chip)
+        for a in range(0, nwin, step):
+            b = min(nwin, a + step)
+            idx = np.arange(a * chip, b * chip, dtype=np.float64)
+            ref = q[a * chip:b * chip].astype(np.float64) * np.exp(-2j * math.pi * ((nu * idx) % 1.0))
+            cj[a:b] = ref.reshape(b - a, chip).sum(axis=1)
         zj = -(cj * cj)  # the data sign removed: exp(j 4 pi delta) for a reference delta cycles behind
         # a subcarrier offset dnu (cycles/sample) turns zj at 2 dnu chip cycles per chip
         span = 2.0 * _CLOCK_SEARCH * nu * chip
