@@ -53,16 +53,17 @@ class SegmentResult:
 
 
 def segment_plan(num_samples: int, profile: LinkProfile, sample_rate_hz: float, *,
-                 segment_samples: int = DEFAULT_SEGMENT_SAMPLES,
-                 block_samples: int = 1) -> list[tuple[int, int, int, int]]:
+                 segment_samples: int = DEFAULT_SEGMENT_SAMPLES, block_samples: int = 1,
+                 acquisition_samples: int = 1 << 16) -> list[tuple[int, int, int, int]]:
     """Cut ``[0, num_samples)`` into owned segments with lead-in and lead-out.
 
     Returns ``(owned_start, owned_stop, read_start, read_stop)`` per segment.  The lead-in lets a fresh
     receiver acquire, lock its loops, resolve the branch and lock the frame synchronizer before the
     owned range starts; the lead-out completes the CADU whose marker lies just before ``owned_stop``.
-    With ``C`` the CADU length in samples (:meth:`LinkProfile.samples_per_cadu`), the lead-in is
-    ``4 C + 2^17`` samples (acquisition of 2^16 samples, loop pull-in, one CADU to find a marker, one to
-    check it, margin), then the read start moves back to a multiple of ``block_samples`` (the
+    With ``C`` the CADU length in samples (:meth:`LinkProfile.samples_per_cadu`) and ``A`` the samples the
+    demodulator may hold while it acquires (``acquisition_samples``: 2^16 on the demo link; residual-carrier
+    links at low Es/N0 hold more), the lead-in is ``4 C + 2 A`` samples (acquisition, loop pull-in, one CADU
+    to find a marker, one to check it, margin), then the read start moves back to a multiple of ``block_samples`` (the
     demodulator's processing block) so that a segment's blocks cover the same samples as the unbroken
     chain's; the lead-out is ``2 C + 2^16``.  A last remainder shorter than a quarter segment joins the
     segment before it.
@@ -74,7 +75,7 @@ def segment_plan(num_samples: int, profile: LinkProfile, sample_rate_hz: float, 
     if isinstance(block_samples, bool) or not isinstance(block_samples, int) or block_samples < 1:
         raise ValueError(f"Argument 'block_samples' must be a positive integer, not {block_samples!r}.")
     cadu = math.ceil(profile.samples_per_cadu(sample_rate_hz))
-    lead_in, lead_out = 4 * cadu + (1 << 17), 2 * cadu + (1 << 16)
+    lead_in, lead_out = 4 * cadu + 2 * int(acquisition_samples), 2 * cadu + (1 << 16)
     plan = []
     a = 0
     while True:
@@ -176,9 +177,9 @@ class SegmentedDecode:
         Returns the front-end summary merged over the segments.
         """
         fs = recording.sample_rate_hz
-        block = FrontEnd(self.profile, input_kind="iq", sample_rate_hz=fs).block_samples
+        probe = FrontEnd(self.profile, input_kind="iq", sample_rate_hz=fs)
         plan = segment_plan(recording.num_samples, self.profile, fs, segment_samples=self.segment_samples,
-                            block_samples=block)
+                            block_samples=probe.block_samples, acquisition_samples=probe.demod.acquisition_samples)
         half_cadu = 0.5 * math.ceil(self.profile.samples_per_cadu(fs))
         summary = FrontSummary()
         self.segment_cpu_s = []

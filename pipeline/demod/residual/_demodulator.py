@@ -436,6 +436,9 @@ class ResidualCarrierDemodulator:
             from pipeline.demod._acquire import LINE_THRESHOLD
 
             self.line_threshold_db = 10.0 * math.log10(LINE_THRESHOLD * math.log(2.0))
+        #: samples a fresh demodulator may hold while it searches and grows its window (a segmented decode's
+        #: lead-in covers twice this, so a segment is locked before its own samples begin)
+        self.acquisition_samples = int(min(_HOLD_SAMPLES, 2 * self.dwell_blocks * self.block_samples))
         self.reset()
 
     # ---- state -------------------------------------------------------------------------
