@@ -11,15 +11,16 @@ import numpy as np
 from pipeline.demod._acquire import LINE_THRESHOLD, CarrierSearch, SpectralLine
 from pipeline.demod._filters import gardner_detector_gain, matched_filter_taps, midpoint_energy_ratio
 from pipeline.demod._kernels import (
+    BLOCK_SUMMARY,
     TRACK_PARAMS,
     TRACK_STATE,
-    derotate,
-    fir_interleaved,
+    block_summary,
+    condition_block,
     mean_power_nonzero,
+    phasor_table,
     remove_dc,
     track_symbols,
 )
-from pipeline.demod._snr import estimate_esn0_m2m4
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "check_chunk", "continue_stream",
@@ -40,6 +41,10 @@ _TIMING_RATE_LIMIT = 0.02
 _MAX_DOPPLER_RATE = 5000.0
 #: Band of the line search around the coarse estimate, x symbol rate (the coarse error is about 1 % rms).
 _FINE_SEARCH = 0.05
+#: Symbols per update of the amplitude, lock and Es/N0 statistics inside the timing loop.
+_STAT_SYMBOLS = 64
+#: Sub-intervals of a block whose mean frequencies give a track point's ``carrier_std_hz``.
+_FREQ_SUBINTERVALS = 8
 
 
 @dataclass(frozen=True)
@@ -48,11 +53,15 @@ class TrackPoint:
 
     ``carrier_offset_hz`` is the mean carrier frequency over the block's symbols (numerically-
     controlled oscillator plus the loop's phase advance from the first to the last symbol) and
-    ``esn0_db`` the M2M4 estimate over the same symbols (``nan`` if not measurable); ``position``
-    is the middle of that interval (the instant a mean refers to); ``carrier_locked`` and
-    ``symbol_locked`` are the lock flags at the block's last symbol.  ``carrier_phase_rad`` is the
-    receiver's total, unwrapped carrier phase at ``position`` (oscillator plus loop), continuous
-    over the whole run, for precise frequency fits.
+    ``esn0_db`` the M2M4 estimate over the same symbols (``nan`` if not measurable, or when the
+    block holds fewer than a quarter of a full block's symbols: the short block at the end of a
+    stream); ``position`` is the middle of that interval (the instant a mean refers to);
+    ``carrier_locked`` and ``symbol_locked`` are the lock flags at the block's last symbol.
+    ``carrier_phase_rad`` is the receiver's total, unwrapped carrier phase at ``position``
+    (oscillator plus loop), continuous over the whole run, for precise frequency fits.
+    ``carrier_std_hz`` is the standard deviation of the measured carrier frequency over the
+    interval: the mean frequencies of 8 equal sub-intervals about a straight line fitted to them
+    (a Doppler rate is not spread), ``K - 2 = 6`` degrees of freedom; ``nan`` below 64 symbols.
     """
 
     position: float
@@ -61,6 +70,7 @@ class TrackPoint:
     carrier_locked: bool
     symbol_locked: bool
     carrier_phase_rad: float = float("nan")
+    carrier_std_hz: float = float("nan")
 
 
 def _empty_f64() -> np.ndarray:
@@ -192,19 +202,29 @@ class DcBlocker:
     def process(self, block: np.ndarray) -> tuple[np.ndarray, float]:
         """``(block - offset, mean power of the non-zero samples after removal)``; power 0.0 for an all-zero block."""
         cnt = mean_power_nonzero(block, self._moments)
+        power = self.update(cnt, self._moments)
         if cnt == 0:
             return block, 0.0
-        mean = complex(self._moments[0], self._moments[1])
+        d = self.offset
+        out = np.empty_like(block)
+        remove_dc(block, d.real, d.imag, out)
+        return out, power
+
+    def update(self, count: int, moments: np.ndarray) -> float:
+        """Take a block's ``count`` non-zero samples and their ``moments`` (``mean_power_nonzero``: mean re,
+        mean im, mean power): update :attr:`offset`, return the block's mean power after removal (0.0 if empty).
+        """
+        if count == 0:
+            return 0.0
+        mean = complex(moments[0], moments[1])
         if self._started:
             self.offset += self.weight * (mean - self.offset)
         else:
             self.offset, self._started = mean, True
         d = self.offset
-        out = np.empty_like(block)
-        remove_dc(block, d.real, d.imag, out)
         # mean |x - d|^2 over the non-zero samples = mean |x|^2 - 2 Re(conj(d) mean) + |d|^2
-        power = float(self._moments[2]) - 2.0 * (d.real * mean.real + d.imag * mean.imag) + abs(d) ** 2
-        return out, max(power, 0.0)
+        power = float(moments[2]) - 2.0 * (d.real * mean.real + d.imag * mean.imag) + abs(d) ** 2
+        return max(power, 0.0)
 
 
 def _next_pow2(n: float) -> int:
@@ -375,9 +395,12 @@ class Demodulator:
         pr["sps"] = sps
         pr["kp_t"], pr["ki_t"] = 2.0 * _ZETA * wnt, wnt * wnt
         pr["kp_c"], pr["ki_c"], pr["kr_c"], pr["kp_c_wide"] = kp_c, ki_c, kr_c, min(0.2, 4.0 * kp_c2)
-        pr["a_amp"] = 1.0 / 1024.0                              # amplitude (M2M4) averaging
-        pr["a_lock_c"] = 1.0 / (2048.0 if qpsk else 256.0)      # carrier-lock averaging: r^4 is noisier than r^2
-        pr["a_lock_s"] = 1.0 / 1024.0                           # symbol-lock averaging
+        # averages of weight a per symbol, updated every _STAT_SYMBOLS symbols with the decay (1 - a)^n
+        pr["stat_symbols"] = _STAT_SYMBOLS
+        pr["d_amp"] = (1.0 - 1.0 / 1024.0) ** _STAT_SYMBOLS                        # amplitude (M2M4)
+        pr["d_lock_c"] = (1.0 - 1.0 / (2048.0 if qpsk else 256.0)) ** _STAT_SYMBOLS  # r^4 is noisier than r^2
+        pr["d_lock_s"] = (1.0 - 1.0 / 1024.0) ** _STAT_SYMBOLS                     # symbol lock
+        pr["dd_gain"] = 1.0
         pr["c_on"], pr["c_off"], pr["c_min"] = 0.75, 0.3, 0.15 if qpsk else 0.25
         pr["s_on"], pr["s_off"], pr["s_min"] = 0.5, 0.25, 0.04
         pr["r0"], pr["kd"] = r0, kd
@@ -391,6 +414,15 @@ class Demodulator:
         if not lo <= bn_t <= hi:
             raise ValueError(f"Argument 'receiver.timing_loop_bandwidth' must be {lo:g}..{hi:g}, not {bn_t!r}.")
         self._min_symbol_advance = sps * (1.0 - _TIMING_RATE_LIMIT - float(pr["kp_t"]))
+        # Es/N0 of a block is measured from a quarter of a full block's symbols up
+        self.min_esn0_symbols = max(64, int(self.block_samples / sps) // 4)
+        # the matched-filter output buffer: the tail the tracker still needs, then one block
+        # (a strobe stops at most 2 look + 1 samples before the end: track_symbols)
+        self._mf_head = 2 * self._look + 64
+        self._taps_run = np.zeros(0, dtype=np.float32) if self._box_half else self.taps
+        if self._taps_run.size and (self._taps_run.size % 2 == 0
+                                    or not np.array_equal(self._taps_run, self._taps_run[::-1])):
+            raise ValueError("Argument 'link.pulse' gives matched-filter taps that are not symmetric.")  # never
 
         # acquisition: rates the carrier loop can follow with a lag under 0.2 rad (2 pi R / wn^2)
         wn_rad_s = wn2 * link.symbol_rate_baud
@@ -422,12 +454,18 @@ class Demodulator:
         self._nco_phase = 0.0
         self._nco_phase_unwrapped = 0.0
         self._run_sample = 0
-        self._fir_hist = np.zeros(self.taps.size - 1, dtype=np.complex64)
-        self._mf_tail = np.zeros(0, dtype=np.complex64)
+        self._fir_hist2 = np.zeros(2 * max(self._taps_run.size - 1, 0), dtype=np.float32)
+        self._table2 = np.zeros(512, dtype=np.float32)
+        self._table_dphase = math.nan
+        self._mf_buf = np.zeros(self._mf_head + self.block_samples, dtype=np.complex64)
+        self._mf_tail_len = 0
         self._mf_tail_base = -self.filter_delay_samples
         self._state = np.zeros(1, dtype=TRACK_STATE)
         self._state[0]["amp"] = 1.0
+        self._state[0]["inv_amp"] = 1.0
+        self._state[0]["kdc"] = 1.0
         self._state[0]["ph_cos"] = 1.0  # the carrier phasor at theta = 0
+        self._summary = np.zeros(1, dtype=BLOCK_SUMMARY)
         self._unlocked_run = 0
         self._finished = False
         self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
@@ -472,7 +510,7 @@ class Demodulator:
             self._acquire(parts, final=True)
         # push the matched filter's delay line out with zeros so the last symbols are produced
         tail = np.zeros(max(self.filter_delay_samples, self._look) + 4, dtype=np.complex64)
-        self._run_block(tail, parts, t_limit=end, tail=True)
+        self._run_block(tail, None, parts, t_limit=end)
         self._finished = True
         return self._assemble(parts)
 
@@ -489,26 +527,30 @@ class Demodulator:
         return check_chunk(chunk)
 
     def _feed_block(self, block: np.ndarray, parts: list, final: bool = False) -> None:
-        # the sum is NaN/Inf when any sample is (or, harmlessly, on float32 overflow)
-        if not np.isfinite(block.view(np.float32).sum()):
+        if self.conjugate:
+            block = np.conj(block)
+        # one pass gives the DC blocker's moments, and NaN/Inf shows in them
+        mom = np.empty(3, dtype=np.float64)
+        cnt = mean_power_nonzero(block, mom)
+        if not (math.isfinite(mom[0]) and math.isfinite(mom[1]) and math.isfinite(mom[2])):
             bad = ~np.isfinite(block)
             if bad.any():
                 # Chunk readers normally zero these already; count only the ones that reach us
                 self.stats.nonfinite_samples += int(bad.sum())
                 block = block.copy()
                 block[bad] = 0
-        if self.conjugate:
-            block = np.conj(block)
+            cnt = mean_power_nonzero(block, mom)
         if self._acquiring:
-            self._held.append(np.array(block, dtype=np.complex64))  # own copy: the caller's buffer may change
-            if sum(h.size for h in self._held) >= self.acquisition_samples or final:
+            # own copy: the caller's buffer may change
+            self._held.append((np.array(block, dtype=np.complex64), cnt, mom))
+            if sum(h[0].size for h in self._held) >= self.acquisition_samples or final:
                 self._acquire(parts, final=final)
             return
-        self._run_block(block, parts)
+        self._run_block(block, (cnt, mom), parts)
 
     def _acquire(self, parts: list, final: bool = False) -> None:
         """Search the held window; release all of it if found (or at the end), else its first block."""
-        held = np.concatenate(self._held) if len(self._held) > 1 else self._held[0]
+        held = np.concatenate([h[0] for h in self._held]) if len(self._held) > 1 else self._held[0][0]
         self.stats.acquisitions += 1
         found = False
         if held.size >= 1024:
@@ -527,87 +569,102 @@ class Demodulator:
         else:
             # slide the window by one block: the oldest is demodulated as it is (no carrier yet)
             blocks, self._held = self._held[:1], self._held[1:]
-        for b in blocks:
-            self._run_block(b, parts)
+        for b, cnt, mom in blocks:
+            self._run_block(b, (cnt, mom), parts)
         if self._acquiring and self._state[0]["clock"]:
             # the loop locked on its own meanwhile: no search needed
             blocks, self._held = self._held, []
             self._acquiring = False
-            for b in blocks:
-                self._run_block(b, parts)
+            for b, cnt, mom in blocks:
+                self._run_block(b, (cnt, mom), parts)
 
-    def _run_block(self, block: np.ndarray, parts: list, t_limit: float = math.inf, tail: bool = False) -> None:
+    def _run_block(self, block: np.ndarray, moments: tuple | None, parts: list, t_limit: float = math.inf) -> None:
+        """Demodulate one block; ``moments`` = ``(count, [mean re, mean im, power])`` of its non-zero samples,
+        None for the zeros that push the matched filter's delay line out at the end."""
         fs = self.sample_rate_hz
         n = block.size
-        if not tail:
-            block, p = self._dc.process(block)
+        dc = 0j
+        if moments is not None:
+            p = self._dc.update(moments[0], moments[1])
+            dc = self._dc.offset
             if p > 0.0:
                 self._agc_power = p if self._agc_power == 0.0 else 0.8 * self._agc_power + 0.2 * p
         gain = 1.0 / math.sqrt(self._agc_power) if self._agc_power > 0.0 else 1.0
-        y = np.empty(n, dtype=np.complex64)
         dphase = 2.0 * math.pi * self._nco_hz / fs
+        if dphase != self._table_dphase:
+            phasor_table(dphase, self._table2)
+            self._table_dphase = dphase
         phase_at_block = self._nco_phase_unwrapped
         block_first = self._run_sample
-        self._nco_phase = derotate(block, gain, self._nco_phase, dphase, 256, y)
+        head, tl = self._mf_head, self._mf_tail_len
+        buf = self._mf_buf
+        if head + n > buf.size:  # never for a block; kept for any caller
+            buf = self._mf_buf = np.concatenate([buf, np.zeros(head + n - buf.size, dtype=np.complex64)])
+        self._nco_phase = condition_block(block.view(np.float32), dc.real, dc.imag, gain, self._nco_phase, dphase,
+                                          self._table2, self._taps_run, self._fir_hist2,
+                                          buf[head:head + n].view(np.float32))
         self._nco_phase_unwrapped += dphase * n
         self._run_sample += n
-        if self._box_half:
-            mf = y
-        else:
-            u = np.concatenate([self._fir_hist, y])
-            mf = np.empty(n, dtype=np.complex64)
-            fir_interleaved(u.view(np.float32), self.taps, mf.view(np.float32))
-            self._fir_hist = u[u.size - (self.taps.size - 1):].copy()
-        mfbuf = np.concatenate([self._mf_tail, mf])
+        mfbuf = buf[head - tl:head + n]
         base = self._mf_tail_base
-        pos, qpos, sym, amp, flags, theta = self._track(mfbuf, base, t_limit)
-        nsym = pos.size
         st = self._state[0]
-        keep_from = max(0, int(math.floor(st["t"])) - self._look - base)
-        self._mf_tail = mfbuf[keep_from:].copy()
+        st["blk_n"], st["blk_m2"], st["blk_m4"] = 0, 0.0, 0.0
+        pos, qpos, sym, flags, theta = self._track(mfbuf, base, t_limit)
+        nsym = pos.size
+        # keep what the next strobes need (a strobe can stand past the buffer's end: keep nothing then)
+        keep_from = min(max(0, int(math.floor(st["t"])) - self._look - base), mfbuf.size)
+        tail = mfbuf.size - keep_from
+        if tail > head:  # only after the last strobe at flush; nothing follows then
+            tail, keep_from = 0, mfbuf.size
+        buf[head - tail:head] = mfbuf[keep_from:]
+        self._mf_tail_len = tail
         self._mf_tail_base = base + keep_from
 
         # carrier frequency over the block: NCO plus the loop's phase advance between strobes
+        summ = self._summary
+        block_summary(pos, theta, flags, _FREQ_SUBINTERVALS, summ)
+        sm = summ[0]
         sym_period = self.samples_per_symbol * (1.0 - st["v_int"])
-        if nsym >= 64 and pos[-1] > pos[0]:
-            loop_hz = (theta[-1] - theta[0]) / (2.0 * math.pi) * fs / (pos[-1] - pos[0])
-        else:
+        loop_hz = float(sm["loop_hz_per_fs"]) * fs
+        if not math.isfinite(loop_hz):
             loop_hz = st["w_int"] * fs / (2.0 * math.pi * sym_period)
         freq_hz = self._nco_hz + loop_hz
         # hand the loop's frequency integrator to the NCO (the total correction is unchanged)
         self._nco_hz += st["w_int"] * fs / (2.0 * math.pi * sym_period)
         st["w_int"] = 0.0
 
-        clock = (flags & 1).astype(bool)
+        clock = (flags & 1).view(bool)
+        track = []
+        locked = int(sm["locked"])
         if nsym:
             # the block's means (frequency, Es/N0) refer to the middle of its symbols' interval;
-            # Es/N0 from the symbols before the amplitude normalisation: the running amplitude
-            # estimate fluctuates at low SNR and would inflate M4 (-0.35 dB bias at -1 dB)
-            mid = 0.5 * (pos[0] + pos[-1])
-            k = min(max(int(np.searchsorted(pos, mid)) - 1, 0), nsym - 1)
-            if k + 1 < nsym and pos[k + 1] > pos[k]:
-                theta_mid = theta[k] + (theta[k + 1] - theta[k]) * (mid - pos[k]) / (pos[k + 1] - pos[k])
-            else:
-                theta_mid = theta[k]
             # the symbol's matched-filter centre was rotated at about this oscillator phase
-            total_phase = phase_at_block + dphase * (mid - block_first) + theta_mid
-            track = [TrackPoint(float(mid), float(freq_hz), estimate_esn0_m2m4(sym * amp),
-                                bool(clock[-1]), bool(flags[-1] & 2), float(total_phase))]
-            run = 0
-            if not clock.any():
-                self._unlocked_run += nsym
-            else:
-                last_locked = int(np.flatnonzero(clock)[-1])
-                run = nsym - 1 - last_locked
-                self._unlocked_run = run
-        else:
-            track = []
-        parts.append({"pos": pos, "qpos": qpos, "sym": sym, "amp": amp, "locked": clock, "track": track})
+            mid = float(sm["mid"])
+            total_phase = phase_at_block + dphase * (mid - block_first) + float(sm["theta_mid"])
+            track.append(TrackPoint(mid, float(freq_hz), self._block_esn0_db(st), bool(flags[-1] & 1),
+                                    bool(flags[-1] & 2), float(total_phase), float(sm["spread_per_fs"]) * fs))
+            self._unlocked_run = (self._unlocked_run + nsym) if locked == 0 else nsym - 1 - int(sm["last_locked"])
+        parts.append({"pos": pos, "qpos": qpos, "sym": sym, "locked": clock, "track": track})
         self.stats.symbols_out += nsym
-        self.stats.carrier_locked_symbols += int(clock.sum())
-        if not tail and self._unlocked_run >= self.reacquire_symbols:
+        self.stats.carrier_locked_symbols += locked
+        if moments is not None and self._unlocked_run >= self.reacquire_symbols:
             self._unlocked_run = 0
             self._acquiring = True
+
+    def _block_esn0_db(self, st) -> float:
+        """Es/N0 (dB) by M2M4 from the block's symbol moments; nan for a block too short to tell."""
+        n = int(st["blk_n"])
+        if n < self.min_esn0_symbols:
+            return float("nan")
+        m2 = float(st["blk_m2"]) / n
+        m4 = float(st["blk_m4"]) / n
+        s2 = 2.0 * m2 * m2 - m4
+        if s2 <= 0.0:
+            return float("nan")
+        sig = math.sqrt(s2)
+        if m2 - sig <= 0.0:
+            return float("inf")
+        return 10.0 * math.log10(sig / (m2 - sig))
 
     def _track(self, mfbuf: np.ndarray, base: int, t_limit: float):
         """:func:`track_symbols` over ``mfbuf``, with buffers sized from its bound (grown if ever full)."""
@@ -618,13 +675,12 @@ class Demodulator:
             pos = np.empty(cap, dtype=np.float64)
             qpos = np.empty(cap, dtype=np.float64)
             sym = np.empty(cap, dtype=np.complex64)
-            amp = np.empty(cap, dtype=np.float32)
             flags = np.empty(cap, dtype=np.int8)
             theta = np.empty(cap, dtype=np.float64)
             nsym = track_symbols(mfbuf, base, t_limit, self._params, self._mod_code,
                                  1 if self.carrier_loop_order == 3 else 0, self._state,
-                                 pos, qpos, sym, amp, flags, theta)
-            outs.append((pos[:nsym], qpos[:nsym], sym[:nsym], amp[:nsym], flags[:nsym], theta[:nsym]))
+                                 pos, qpos, sym, flags, theta)
+            outs.append((pos[:nsym], qpos[:nsym], sym[:nsym], flags[:nsym], theta[:nsym]))
             if nsym < cap:
                 break
         if len(outs) == 1:
