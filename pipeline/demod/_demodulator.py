@@ -43,6 +43,12 @@ _MAX_DOPPLER_RATE = 5000.0
 _FINE_SEARCH = 0.05
 #: Symbols per update of the amplitude, lock and Es/N0 statistics inside the timing loop.
 _STAT_SYMBOLS = 64
+#: Below this Es/N0 (dB) the locked timing loop's bandwidth is narrowed in proportion to Es/N0 ...
+_TIMING_REFERENCE_ESN0_DB = 6.0
+#: ... to at most this fraction of ``[receiver] timing_loop_bandwidth``.
+_TIMING_MIN_SCALE = 0.125
+#: Loop SNR (1 / phase variance) the locked carrier loop keeps by narrowing its bandwidth at low Es/N0.
+_CARRIER_LOOP_SNR = 100.0
 #: Sub-intervals of a block whose mean frequencies give a track point's ``carrier_std_hz``.
 _FREQ_SUBINTERVALS = 8
 
@@ -395,12 +401,16 @@ class Demodulator:
         pr["sps"] = sps
         pr["kp_t"], pr["ki_t"] = 2.0 * _ZETA * wnt, wnt * wnt
         pr["kp_c"], pr["ki_c"], pr["kr_c"], pr["kp_c_wide"] = kp_c, ki_c, kr_c, min(0.2, 4.0 * kp_c2)
-        # averages of weight a per symbol, updated every _STAT_SYMBOLS symbols with the decay (1 - a)^n
+        # averages of weight a per symbol, updated every _STAT_SYMBOLS symbol periods with the decay (1 - a)^n
         pr["stat_symbols"] = _STAT_SYMBOLS
-        pr["d_amp"] = (1.0 - 1.0 / 1024.0) ** _STAT_SYMBOLS                        # amplitude (M2M4)
-        pr["d_lock_c"] = (1.0 - 1.0 / (2048.0 if qpsk else 256.0)) ** _STAT_SYMBOLS  # r^4 is noisier than r^2
-        pr["d_lock_s"] = (1.0 - 1.0 / 1024.0) ** _STAT_SYMBOLS                     # symbol lock
+        pr["l_amp"] = math.log1p(-1.0 / 1024.0)                        # amplitude (M2M4)
+        pr["l_lock_c"] = math.log1p(-1.0 / (2048.0 if qpsk else 256.0))  # carrier lock: r^4 is noisier than r^2
+        pr["l_lock_s"] = math.log1p(-1.0 / 1024.0)                     # symbol lock
         pr["dd_gain"] = 1.0
+        pr["t_ref_esn0"] = 10.0 ** (_TIMING_REFERENCE_ESN0_DB / 10.0)
+        pr["t_min_scale"] = _TIMING_MIN_SCALE
+        pr["c_bn"] = bn_c
+        pr["c_loop_snr"] = _CARRIER_LOOP_SNR
         pr["c_on"], pr["c_off"], pr["c_min"] = 0.75, 0.3, 0.15 if qpsk else 0.25
         pr["s_on"], pr["s_off"], pr["s_min"] = 0.5, 0.25, 0.04
         pr["r0"], pr["kd"] = r0, kd
@@ -464,6 +474,8 @@ class Demodulator:
         self._state[0]["amp"] = 1.0
         self._state[0]["inv_amp"] = 1.0
         self._state[0]["kdc"] = 1.0
+        self._state[0]["t_scale"] = 1.0
+        self._state[0]["c_scale"] = 1.0
         self._state[0]["ph_cos"] = 1.0  # the carrier phasor at theta = 0
         self._summary = np.zeros(1, dtype=BLOCK_SUMMARY)
         self._unlocked_run = 0
@@ -609,7 +621,7 @@ class Demodulator:
         base = self._mf_tail_base
         st = self._state[0]
         st["blk_n"], st["blk_m2"], st["blk_m4"] = 0, 0.0, 0.0
-        pos, qpos, sym, flags, theta = self._track(mfbuf, base, t_limit)
+        pos, sym, flags, theta, bitpos, soft = self._track(mfbuf, base, t_limit)
         nsym = pos.size
         # keep what the next strobes need (a strobe can stand past the buffer's end: keep nothing then)
         keep_from = min(max(0, int(math.floor(st["t"])) - self._look - base), mfbuf.size)
@@ -644,7 +656,7 @@ class Demodulator:
             track.append(TrackPoint(mid, float(freq_hz), self._block_esn0_db(st), bool(flags[-1] & 1),
                                     bool(flags[-1] & 2), float(total_phase), float(sm["spread_per_fs"]) * fs))
             self._unlocked_run = (self._unlocked_run + nsym) if locked == 0 else nsym - 1 - int(sm["last_locked"])
-        parts.append({"pos": pos, "qpos": qpos, "sym": sym, "locked": clock, "track": track})
+        parts.append({"bitpos": bitpos, "soft": soft, "sym": sym, "locked": clock, "track": track})
         self.stats.symbols_out += nsym
         self.stats.carrier_locked_symbols += locked
         if moments is not None and self._unlocked_run >= self.reacquire_symbols:
@@ -667,20 +679,27 @@ class Demodulator:
         return 10.0 * math.log10(sig / (m2 - sig))
 
     def _track(self, mfbuf: np.ndarray, base: int, t_limit: float):
-        """:func:`track_symbols` over ``mfbuf``, with buffers sized from its bound (grown if ever full)."""
+        """:func:`track_symbols` over ``mfbuf``, with buffers sized from its bound (grown if ever full).
+
+        Returns per symbol the position, normalised symbol, flags and carrier phase, and per channel bit
+        the position and soft value.
+        """
         # bound (track_symbols Notes): strobes lie within the buffer, one symbol per min_symbol_advance samples
         cap = int(mfbuf.size / self._min_symbol_advance) + 2
+        bps = self.bits_per_symbol
         outs = []
         while True:
             pos = np.empty(cap, dtype=np.float64)
-            qpos = np.empty(cap, dtype=np.float64)
+            bitpos = pos if bps == 1 else np.empty(bps * cap, dtype=np.float64)
+            soft = np.empty(bps * cap, dtype=np.float32)
             sym = np.empty(cap, dtype=np.complex64)
             flags = np.empty(cap, dtype=np.int8)
             theta = np.empty(cap, dtype=np.float64)
             nsym = track_symbols(mfbuf, base, t_limit, self._params, self._mod_code,
                                  1 if self.carrier_loop_order == 3 else 0, self._state,
-                                 pos, qpos, sym, flags, theta)
-            outs.append((pos[:nsym], qpos[:nsym], sym[:nsym], flags[:nsym], theta[:nsym]))
+                                 pos, bitpos, soft, sym, flags, theta)
+            outs.append((pos[:nsym], sym[:nsym], flags[:nsym], theta[:nsym], bitpos[:bps * nsym],
+                         soft[:bps * nsym]))
             if nsym < cap:
                 break
         if len(outs) == 1:
@@ -690,21 +709,11 @@ class Demodulator:
     def _assemble(self, parts: list) -> SymbolBlock:
         if not parts:
             return SymbolBlock()
-        pos = np.concatenate([p["pos"] for p in parts])
-        sym = np.concatenate([p["sym"] for p in parts])
-        locked = np.concatenate([p["locked"] for p in parts])
-        track = [t for p in parts for t in p["track"]]
-        norm = sym  # already divided by the amplitude estimate in the kernel
-        if self.bits_per_symbol == 1:
-            soft = norm.real.astype(np.float32)
-            position = pos
-            lock_bits = locked
-        else:
-            soft = np.empty(2 * sym.size, dtype=np.float32)
-            soft[0::2] = math.sqrt(2.0) * norm.real
-            soft[1::2] = math.sqrt(2.0) * norm.imag
-            position = np.empty(2 * sym.size, dtype=np.float64)
-            position[0::2] = pos
-            position[1::2] = np.concatenate([p["qpos"] for p in parts])  # OQPSK: the Q strobe; else = pos
-            lock_bits = np.repeat(locked, 2)
-        return SymbolBlock(soft=soft, position=position, locked=lock_bits, track=track, symbols=norm)
+
+        def cat(key):
+            return parts[0][key] if len(parts) == 1 else np.concatenate([p[key] for p in parts])
+
+        locked = cat("locked")
+        return SymbolBlock(soft=cat("soft"), position=cat("bitpos"),
+                           locked=locked if self.bits_per_symbol == 1 else np.repeat(locked, 2),
+                           track=[t for p in parts for t in p["track"]], symbols=cat("sym"))

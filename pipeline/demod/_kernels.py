@@ -30,10 +30,11 @@ __all__ = [
 #: Parameters of :func:`track_symbols` (one record; meanings in its docstring).
 TRACK_PARAMS = np.dtype([
     ("sps", np.float64), ("kp_t", np.float64), ("ki_t", np.float64), ("kp_c", np.float64), ("ki_c", np.float64),
-    ("kr_c", np.float64), ("kp_c_wide", np.float64), ("stat_symbols", np.float64), ("d_amp", np.float64),
-    ("d_lock_c", np.float64), ("d_lock_s", np.float64), ("c_on", np.float64), ("c_off", np.float64),
+    ("kr_c", np.float64), ("kp_c_wide", np.float64), ("stat_symbols", np.float64), ("l_amp", np.float64),
+    ("l_lock_c", np.float64), ("l_lock_s", np.float64), ("c_on", np.float64), ("c_off", np.float64),
     ("c_min", np.float64), ("s_on", np.float64), ("s_off", np.float64), ("s_min", np.float64), ("r0", np.float64),
     ("kd", np.float64), ("warmup", np.float64), ("hbox", np.float64), ("v_max", np.float64), ("dd_gain", np.float64),
+    ("t_ref_esn0", np.float64), ("t_min_scale", np.float64), ("c_bn", np.float64), ("c_loop_snr", np.float64),
 ])
 
 #: Loop state of :func:`track_symbols` (one record, updated in place; meanings in its docstring).
@@ -44,9 +45,11 @@ TRACK_STATE = np.dtype([
     ("t_on", np.float64), ("parity", np.int64), ("pend_ec", np.float64), ("pend_et", np.float64),
     ("m2s", np.float64), ("m4s", np.float64), ("wsum", np.float64), ("cnum", np.float64), ("cden", np.float64),
     ("m2f", np.float64), ("m4f", np.float64), ("wf", np.float64), ("eon", np.float64), ("emid", np.float64),
-    ("amp", np.float64), ("inv_amp", np.float64), ("kdc", np.float64), ("clock", np.int64), ("slock", np.int64),
+    ("amp", np.float64), ("inv_amp", np.float64), ("kdc", np.float64), ("t_scale", np.float64),
+    ("c_scale", np.float64), ("clock", np.int64), ("slock", np.int64),
     ("seen", np.int64), ("cgood", np.int64),
-    ("acc_n", np.int64), ("acc_r2", np.float64), ("acc_r4", np.float64), ("acc_q", np.float64),
+    ("acc_n", np.int64), ("stat_epoch", np.int64), ("acc_r2", np.float64), ("acc_r4", np.float64),
+    ("acc_q", np.float64),
     ("acc_mid", np.float64), ("blk_n", np.int64), ("blk_m2", np.float64), ("blk_m4", np.float64),
     ("ph_cos", np.float64), ("ph_sin", np.float64), ("ph_theta", np.float64), ("ph_count", np.int64),
 ])
@@ -214,7 +217,7 @@ def phasor_table(dphase_rad, out2):
 
 @njit(cache=True, nogil=True)
 def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
-                  out_pos, out_qpos, out_sym, out_flags, out_theta):
+                  out_pos, out_bitpos, out_soft, out_sym, out_flags, out_theta):
     """Gardner timing recovery with a cubic (Farrow) interpolator and a symbol-rate carrier loop.
 
     Parameters
@@ -229,9 +232,9 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
         No strobe at or beyond this sample position is taken (end of the recording at flush).
     params : TRACK_PARAMS record array of length 1
         ``sps``; timing loop gains ``kp_t, ki_t``; carrier loop gains ``kp_c, ki_c, kr_c`` and the
-        first-order gain ``kp_c_wide`` used while unlocked; ``stat_symbols`` symbols per statistics
-        update and the decays over them ``d_amp`` (M2M4 amplitude), ``d_lock_c``, ``d_lock_s`` (lock
-        detectors; ``(1 - a)^stat_symbols`` of a per-symbol average of weight ``a``); carrier lock
+        first-order gain ``kp_c_wide`` used while unlocked; ``stat_symbols`` the statistics interval
+        in nominal symbol periods, and ``l_amp`` (M2M4 amplitude), ``l_lock_c``, ``l_lock_s`` (lock
+        detectors) the logarithms ``log(1 - a)`` of per-symbol averages of weight ``a``; carrier lock
         ``c_on, c_off`` (relative) and ``c_min`` (absolute); symbol lock ``s_on, s_off, s_min``;
         ``r0`` the noise-free midpoint energy ratio, ``kd`` the Gardner detector gain; ``warmup``
         symbols averaged before any lock is declared (and symbols in a row meeting the carrier
@@ -239,7 +242,11 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
         samples over unfiltered samples (rect pulses) instead of the cubic interpolator over
         matched-filter output; ``v_max`` bounds the timing rate integrator (the symbol rate may
         differ from nominal by at most this fraction); ``dd_gain`` 1 scales the carrier
-        detector by the decision-directed slope at the measured Es/N0 (see Notes), 0 leaves it.
+        detector by the decision-directed slope at the measured Es/N0 (see Notes), 0 leaves it;
+        ``t_ref_esn0`` (linear) and ``t_min_scale``: in lock, the timing loop's bandwidth is scaled by
+        ``Es/N0 / t_ref_esn0`` when below 1, never below ``t_min_scale``; ``c_bn`` the carrier loop's
+        ``B_L T`` and ``c_loop_snr`` the loop SNR it keeps in lock (its bandwidth scaled down to
+        ``(Es/N0) S_L / c_loop_snr``, never below ``t_min_scale``: see Notes).
     mod_code : int
         0 BPSK, 1 QPSK, 2 OQPSK.
     third_order : int
@@ -263,12 +270,14 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
         Es/N0 estimate ``blk_n, blk_m2, blk_m4`` (of ``|r|^2`` and ``|r|^4``, reset by the caller);
         ``ph_cos, ph_sin`` the carrier phasor at phase ``ph_theta``, ``ph_count`` half-strobes
         since it was last recomputed exactly.
-    out_pos, out_qpos, out_sym, out_flags, out_theta
-        Per symbol: position of the on-time (I) strobe (samples), position of the strobe the Q
-        value was taken at (OQPSK: the midpoint strobe half a symbol later; else ``out_pos``),
-        carrier-corrected symbol divided by the amplitude estimate (noise-free symbols about unit
-        magnitude), flags (bit 0 carrier lock, bit 1 symbol lock), carrier phase.  All of one
-        length ``cap``.
+    out_pos, out_bitpos, out_soft, out_sym, out_flags, out_theta
+        Per symbol (length ``cap``): position of the on-time (I) strobe (samples); per channel bit
+        (length ``cap`` for BPSK, ``2 cap`` for QPSK/OQPSK, I then Q): the position of the strobe it
+        was taken at (OQPSK: the Q bit's midpoint strobe half a symbol later; BPSK may pass
+        ``out_pos`` itself) and the soft value (the normalised symbol's real part, QPSK/OQPSK its
+        real and imaginary parts times ``sqrt 2``); per symbol the carrier-corrected symbol divided by
+        the amplitude estimate (noise-free symbols about unit magnitude), flags (bit 0 carrier lock,
+        bit 1 symbol lock) and the carrier phase.
 
     Returns
     -------
@@ -293,19 +302,32 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     its bandwidth, hold at low Es/N0.  While the carrier is unlocked the loop runs first order with
     a wider gain and both integrators hold their value (coasting through fades).
 
-    Amplitude, lock detectors and their averages are updated once per ``stat_symbols`` symbols
-    from sums the loop accumulates (an average of weight ``a`` per symbol becomes one of weight
-    ``1 - (1 - a)^n`` per ``n`` symbols); the symbols of an interval are normalised by, and
-    flagged with, what the previous intervals gave.  Amplitude from the M2M4 moments
+    Amplitude, lock detectors and their averages are updated from sums the loop accumulates, once
+    per interval of ``stat_symbols`` nominal symbol periods on the recording's sample grid (a
+    symbol whose on-time strobe enters a new interval closes the last one; every 8 symbols during
+    the warm-up), so that two receivers that have converged on the same signal (the segments of a
+    recording) update at the same symbols.  An average of weight ``a`` per symbol becomes one of
+    weight ``1 - (1 - a)^n`` over ``n`` symbols; the symbols of an interval are normalised by, and
+    flagged with, what the intervals before gave.  Amplitude from the M2M4 moments
     (``S = sqrt(2 M2^2 - M4)``), which need no carrier or decisions.  The decision-directed slope
     at ``Es/N0 = S / (M2 - S)``: ``erf(sqrt(Es/N0))`` (BPSK) and ``erf(sqrt(Es/2N0))`` (QPSK).
-    Cost: two interpolations and about 60 flops per symbol, plus about 80 flops per interval.
+
+    Loop bandwidths from Es/N0 (in lock; the full ones during pull-in): the timing loop's noise
+    grows as ``1 / (Es/N0)`` at low Es/N0, so its bandwidth is scaled by ``Es/N0 / t_ref_esn0``
+    below ``t_ref_esn0``; the carrier loop keeps a loop SNR of at least ``c_loop_snr`` where the
+    configured bandwidth would not, ``B_L T <= (Es/N0) S_L / rho`` with the Costas squaring loss
+    ``S_L = 1 / (1 + 1 / (2 Es/N0))`` (BPSK) and ``1 / (1 + 9 / (2 x) + 6 / x^2 + 3 / (2 x^3))``,
+    ``x = Es/N0`` (QPSK; from memory, not confirmed).  Gains scale as ``kp ~ s``, ``ki ~ s^2``,
+    ``kr ~ s^3`` (the damping stays).
+    Cost: two interpolations and about 60 flops per symbol, plus about 100 flops per interval.
 
     References
     ----------
     F. M. Gardner, "A BPSK/QPSK timing-error detector for sampled receivers", IEEE Trans. Commun.
     COM-34 (1986) 423-429; U. Mengali, A. N. D'Andrea, *Synchronization Techniques for Digital
-    Receivers* (1997), sec. 5.7 (decision-directed phase detectors, their S-curve slope).
+    Receivers* (1997), sec. 5.7 (decision-directed phase detectors, their S-curve slope);
+    W. C. Lindsey, M. K. Simon, *Telecommunication Systems Engineering* (1973), ch. 2 (Costas loop
+    squaring loss).
     """
     n_mf = mf.shape[0]
     cap = out_pos.shape[0]
@@ -317,10 +339,10 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     ki_c = pr["ki_c"]
     kr_c = pr["kr_c"]
     kp_c_wide = pr["kp_c_wide"]
-    stat_n = int(pr["stat_symbols"])
-    d_amp = pr["d_amp"]
-    d_lc = pr["d_lock_c"]
-    d_ls = pr["d_lock_s"]
+    inv_span = 1.0 / (pr["stat_symbols"] * sps)
+    l_amp = pr["l_amp"]
+    l_lc = pr["l_lock_c"]
+    l_ls = pr["l_lock_s"]
     c_on = pr["c_on"]
     c_off = pr["c_off"]
     c_min = pr["c_min"]
@@ -333,6 +355,10 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     hbox = pr["hbox"]
     v_max = pr["v_max"]
     dd_gain = pr["dd_gain"]
+    t_ref = pr["t_ref_esn0"]
+    t_min = pr["t_min_scale"]
+    c_bn = pr["c_bn"]
+    c_rho = pr["c_loop_snr"]
     look = int(hbox + 0.5) + 2 if hbox > 0.0 else 2
 
     st = state[0]
@@ -356,6 +382,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     clock = st["clock"]
     slock = st["slock"]
     acc_n = st["acc_n"]
+    cur_epoch = st["stat_epoch"]
     acc_r2 = st["acc_r2"]
     acc_r4 = st["acc_r4"]
     acc_q = st["acc_q"]
@@ -369,15 +396,24 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     q3r = st["q3r"]
     q3i = st["q3i"]
     inv_sqrt2 = 1.0 / math.sqrt(2.0)
+    sqrt2 = math.sqrt(2.0)
     sixth = 1.0 / 6.0
     u1 = np.uint64(1)
     u2 = np.uint64(2)
     u3 = np.uint64(3)
     inv_kd = 1.0 / kd
     flags = clock + 2 * slock
-    # the loops' normalisation: carrier error / (A kdc), timing error / (A^2 K_D)
+    # the loops' normalisation: carrier error / (A kdc), timing error / (A^2 K_D); the timing loop's
+    # bandwidth scale and its gains
     g_c = inv_amp / kdc
     g_t = inv_amp * inv_amp * inv_kd
+    t_scale = st["t_scale"]
+    kp_tl = kp_t * t_scale
+    ki_tl = ki_t * t_scale * t_scale
+    c_scale = st["c_scale"]
+    kp_cl = kp_c * c_scale
+    ki_cl = ki_c * c_scale * c_scale
+    kr_cl = kr_c * c_scale * c_scale * c_scale
     nout = 0
     # carrier phasor exp(j theta_ph): advanced by small-angle rotations and recomputed exactly every 64
     # half-strobes, so it never drifts from theta by more than ~1e-7 rad; kept in the state, so the
@@ -487,58 +523,15 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
             sq2 = sq * sq
             r2 = sr2 + sq2
             r4 = r2 * r2
-            # carrier-lock statistic: Re(r^2) (BPSK) or -Re(r^4) (QPSK)
-            if mod_code == 0:
-                acc_q += sr2 - sq2
-            else:
-                acc_q -= sr2 * sr2 - 6.0 * sr2 * sq2 + sq2 * sq2
-            acc_r2 += r2
-            acc_r4 += r4
-            acc_mid += mid_e
-            acc_n += 1
-            blk_m2 += r2
-            blk_m4 += r4
-            blk_n += 1
-
-            out_pos[nout] = t_on
-            out_qpos[nout] = t if mod_code == 2 else t_on
-            out_sym[nout] = complex(sr * inv_amp, sq * inv_amp)
-            out_flags[nout] = flags
-            out_theta[nout] = theta
-            nout += 1
-
-            # The loops act on the previous symbol's errors: one symbol of delay (negligible at loop
-            # bandwidths of a few thousandths of the symbol rate) takes the detectors off the strobe's
-            # and the phase's critical path, so consecutive symbols overlap in the processor.
-            ec = pend_ec
-            pend_ec = ec_raw * g_c
-            e_t = pend_et
-            pend_et = et * g_t
-            if pend_et > 1.0:
-                pend_et = 1.0
-            elif pend_et < -1.0:
-                pend_et = -1.0
-            # carrier loop (phase correction takes effect from the next half-strobe)
-            if clock == 1:
-                if third_order == 1:
-                    w_rate += kr_c * ec
-                w_int += ki_c * ec + w_rate
-                theta += kp_c * ec
-            else:
-                theta += kp_c_wide * ec
-
-            # timing loop
-            if clock == 1:
-                v_int += ki_t * e_t
-                if v_int > v_max:
-                    v_int = v_max
-                elif v_int < -v_max:
-                    v_int = -v_max
-            t += 0.5 * sps * (1.0 - v_int) - sps * kp_t * e_t
-
-            if acc_n >= stat_n:
-                # ---- the statistics over the last stat_n symbols (off the loops' critical path) ----
+            # ---- the statistics: when the symbol enters a new interval of stat_symbols symbol periods on
+            # the recording's sample grid (so that segments of a recording update at the same symbols), and
+            # every 8 symbols during the warm-up; off the loops' critical path ----
+            epoch = int(math.floor(t_on * inv_span))
+            if acc_n > 0 and (epoch != cur_epoch or (acc_n >= 8 and st["seen"] + acc_n < warmup)):
                 inv_n = 1.0 / acc_n
+                d_amp = math.exp(acc_n * l_amp)
+                d_lc = math.exp(acc_n * l_lc)
+                d_ls = math.exp(acc_n * l_ls)
                 mr2 = acc_r2 * inv_n
                 mr4 = acc_r4 * inv_n
                 # amplitude from the M2M4 moments
@@ -556,12 +549,10 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 amp = math.sqrt(sig) if sig > 1e-30 else 1e-15
                 inv_amp = 1.0 / amp
                 st["amp"] = amp
+                esn0 = sig / (m2 - sig) if m2 > sig else 1e3
                 if dd_gain > 0.0:
                     # decision-directed slope at the measured Es/N0 (never below 0.3)
-                    snr = sig / (m2 - sig) if m2 > sig else 1e3
-                    if mod_code != 0:
-                        snr *= 0.5
-                    kdc = math.erf(math.sqrt(snr))
+                    kdc = math.erf(math.sqrt(esn0 if mod_code == 0 else 0.5 * esn0))
                     if kdc < 0.3:
                         kdc = 0.3
                 g_c = inv_amp / kdc
@@ -623,11 +614,94 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                     if diff * m2 < s_off * r0 * rho_num * eon or diff < 0.5 * s_min * eon:
                         slock = 0
                 flags = clock + 2 * slock
+                # the timing loop: its full bandwidth while the carrier is unlocked (pull-in), and in
+                # lock narrowed in proportion to Es/N0 below t_ref (the detector's noise grows as
+                # 1 / (Es/N0)), to at most t_min of it
+                t_scale = 1.0
+                if clock == 1 and esn0 < t_ref:
+                    t_scale = esn0 / t_ref if esn0 > t_min * t_ref else t_min
+                st["t_scale"] = t_scale
+                kp_tl = kp_t * t_scale
+                ki_tl = ki_t * t_scale * t_scale
+                # the carrier loop in lock: narrowed where the configured bandwidth would leave a loop
+                # SNR below c_loop_snr, B_L T <= (Es/N0) S_L / rho with the Costas squaring loss S_L
+                c_scale = 1.0
+                if clock == 1:
+                    if mod_code == 0:
+                        s_l = 1.0 / (1.0 + 0.5 / esn0)
+                    else:
+                        s_l = 1.0 / (1.0 + 4.5 / esn0 + 6.0 / (esn0 * esn0) + 1.5 / (esn0 * esn0 * esn0))
+                    bn_ok = esn0 * s_l / c_rho
+                    if bn_ok < c_bn:
+                        c_scale = bn_ok / c_bn if bn_ok > t_min * c_bn else t_min
+                st["c_scale"] = c_scale
+                kp_cl = kp_c * c_scale
+                ki_cl = ki_c * c_scale * c_scale
+                kr_cl = kr_c * c_scale * c_scale * c_scale
                 acc_n = 0
                 acc_r2 = 0.0
                 acc_r4 = 0.0
                 acc_q = 0.0
                 acc_mid = 0.0
+            cur_epoch = epoch
+
+            # carrier-lock statistic: Re(r^2) (BPSK) or -Re(r^4) (QPSK)
+            if mod_code == 0:
+                acc_q += sr2 - sq2
+            else:
+                acc_q -= sr2 * sr2 - 6.0 * sr2 * sq2 + sq2 * sq2
+            acc_r2 += r2
+            acc_r4 += r4
+            acc_mid += mid_e
+            acc_n += 1
+            blk_m2 += r2
+            blk_m4 += r4
+            blk_n += 1
+
+            out_pos[nout] = t_on
+            yr = sr * inv_amp
+            yi = sq * inv_amp
+            if mod_code == 0:
+                out_bitpos[nout] = t_on
+                out_soft[nout] = yr
+            else:
+                out_bitpos[2 * nout] = t_on
+                out_bitpos[2 * nout + 1] = t if mod_code == 2 else t_on
+                out_soft[2 * nout] = sqrt2 * yr
+                out_soft[2 * nout + 1] = sqrt2 * yi
+            out_sym[nout] = complex(yr, yi)
+            out_flags[nout] = flags
+            out_theta[nout] = theta
+            nout += 1
+
+            # The loops act on the previous symbol's errors: one symbol of delay (negligible at loop
+            # bandwidths of a few thousandths of the symbol rate) takes the detectors off the strobe's
+            # and the phase's critical path, so consecutive symbols overlap in the processor.
+            ec = pend_ec
+            pend_ec = ec_raw * g_c
+            e_t = pend_et
+            pend_et = et * g_t
+            if pend_et > 1.0:
+                pend_et = 1.0
+            elif pend_et < -1.0:
+                pend_et = -1.0
+            # carrier loop (phase correction takes effect from the next half-strobe)
+            if clock == 1:
+                if third_order == 1:
+                    w_rate += kr_cl * ec
+                w_int += ki_cl * ec + w_rate
+                theta += kp_cl * ec
+            else:
+                theta += kp_c_wide * ec
+
+            # timing loop
+            if clock == 1:
+                v_int += ki_tl * e_t
+                if v_int > v_max:
+                    v_int = v_max
+                elif v_int < -v_max:
+                    v_int = -v_max
+            t += 0.5 * sps * (1.0 - v_int) - sps * kp_tl * e_t
 
         p3r = p2r
         p3i = p2i
@@ -662,6 +736,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     st["clock"] = clock
     st["slock"] = slock
     st["acc_n"] = acc_n
+    st["stat_epoch"] = cur_epoch
     st["acc_r2"] = acc_r2
     st["acc_r4"] = acc_r4
     st["acc_q"] = acc_q
