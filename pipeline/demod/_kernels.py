@@ -546,9 +546,11 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 s2 = 2.0 * m2 * m2 - m4
                 s_floor = 0.05 * m2
                 sig = math.sqrt(s2) if s2 > s_floor * s_floor else s_floor
-                amp = math.sqrt(sig) if sig > 1e-30 else 1e-15
-                inv_amp = 1.0 / amp
-                st["amp"] = amp
+                if sig > 1e-30:
+                    # nothing but zeros so far (erasures, a silent start): the amplitude is kept
+                    amp = math.sqrt(sig)
+                    inv_amp = 1.0 / amp
+                    st["amp"] = amp
                 esn0 = sig / (m2 - sig) if m2 > sig else 1e3
                 if dd_gain > 0.0:
                     # decision-directed slope at the measured Es/N0 (never below 0.3)
@@ -679,6 +681,12 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
             # and the phase's critical path, so consecutive symbols overlap in the processor.
             ec = pend_ec
             pend_ec = ec_raw * g_c
+            # a bound far outside the detector's range (4 noise deviations at Es/N0 = -3 dB): an
+            # amplitude estimate that lags a sudden rise (after silence) cannot throw the phase
+            if pend_ec > 4.0:
+                pend_ec = 4.0
+            elif pend_ec < -4.0:
+                pend_ec = -4.0
             e_t = pend_et
             pend_et = et * g_t
             if pend_et > 1.0:
