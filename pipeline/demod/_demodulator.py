@@ -47,6 +47,8 @@ _STAT_SYMBOLS = 64
 _TIMING_REFERENCE_ESN0_DB = 6.0
 #: ... to at most this fraction of ``[receiver] timing_loop_bandwidth``.
 _TIMING_MIN_SCALE = 0.125
+#: Symbols of carrier lock after which the loop bandwidths follow Es/N0 (pull-in at the full ones).
+_GEAR_SYMBOLS = 1024
 #: Loop SNR (1 / phase variance) the locked carrier loop keeps by narrowing its bandwidth at low Es/N0.
 _CARRIER_LOOP_SNR = 100.0
 #: Sub-intervals of a block whose mean frequencies give a track point's ``carrier_std_hz``.
@@ -411,6 +413,7 @@ class Demodulator:
         pr["t_min_scale"] = _TIMING_MIN_SCALE
         pr["c_bn"] = bn_c
         pr["c_loop_snr"] = _CARRIER_LOOP_SNR
+        pr["gear_symbols"] = _GEAR_SYMBOLS
         pr["c_on"], pr["c_off"], pr["c_min"] = 0.75, 0.3, 0.15 if qpsk else 0.25
         pr["s_on"], pr["s_off"], pr["s_min"] = 0.5, 0.25, 0.04
         pr["r0"], pr["kd"] = r0, kd

@@ -35,6 +35,7 @@ TRACK_PARAMS = np.dtype([
     ("c_min", np.float64), ("s_on", np.float64), ("s_off", np.float64), ("s_min", np.float64), ("r0", np.float64),
     ("kd", np.float64), ("warmup", np.float64), ("hbox", np.float64), ("v_max", np.float64), ("dd_gain", np.float64),
     ("t_ref_esn0", np.float64), ("t_min_scale", np.float64), ("c_bn", np.float64), ("c_loop_snr", np.float64),
+    ("gear_symbols", np.float64),
 ])
 
 #: Loop state of :func:`track_symbols` (one record, updated in place; meanings in its docstring).
@@ -46,7 +47,7 @@ TRACK_STATE = np.dtype([
     ("m2s", np.float64), ("m4s", np.float64), ("wsum", np.float64), ("cnum", np.float64), ("cden", np.float64),
     ("m2f", np.float64), ("m4f", np.float64), ("wf", np.float64), ("eon", np.float64), ("emid", np.float64),
     ("amp", np.float64), ("inv_amp", np.float64), ("kdc", np.float64), ("t_scale", np.float64),
-    ("c_scale", np.float64), ("clock", np.int64), ("slock", np.int64),
+    ("c_scale", np.float64), ("lock_age", np.int64), ("clock", np.int64), ("slock", np.int64),
     ("seen", np.int64), ("cgood", np.int64),
     ("acc_n", np.int64), ("stat_epoch", np.int64), ("acc_r2", np.float64), ("acc_r4", np.float64),
     ("acc_q", np.float64),
@@ -246,7 +247,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
         ``t_ref_esn0`` (linear) and ``t_min_scale``: in lock, the timing loop's bandwidth is scaled by
         ``Es/N0 / t_ref_esn0`` when below 1, never below ``t_min_scale``; ``c_bn`` the carrier loop's
         ``B_L T`` and ``c_loop_snr`` the loop SNR it keeps in lock (its bandwidth scaled down to
-        ``(Es/N0) S_L / c_loop_snr``, never below ``t_min_scale``: see Notes).
+        ``(Es/N0) S_L / c_loop_snr``, never below ``t_min_scale``: see Notes); ``gear_symbols`` the
+        symbols of lock after which they apply.
     mod_code : int
         0 BPSK, 1 QPSK, 2 OQPSK.
     third_order : int
@@ -312,7 +314,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     (``S = sqrt(2 M2^2 - M4)``), which need no carrier or decisions.  The decision-directed slope
     at ``Es/N0 = S / (M2 - S)``: ``erf(sqrt(Es/N0))`` (BPSK) and ``erf(sqrt(Es/2N0))`` (QPSK).
 
-    Loop bandwidths from Es/N0 (in lock; the full ones during pull-in): the timing loop's noise
+    Loop bandwidths from Es/N0 (once lock has been held for ``gear_symbols``; the full ones before,
+    so that the loops pull in): the timing loop's noise
     grows as ``1 / (Es/N0)`` at low Es/N0, so its bandwidth is scaled by ``Es/N0 / t_ref_esn0``
     below ``t_ref_esn0``; the carrier loop keeps a loop SNR of at least ``c_loop_snr`` where the
     configured bandwidth would not, ``B_L T <= (Es/N0) S_L / rho`` with the Costas squaring loss
@@ -359,6 +362,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     t_min = pr["t_min_scale"]
     c_bn = pr["c_bn"]
     c_rho = pr["c_loop_snr"]
+    gear = pr["gear_symbols"]
     look = int(hbox + 0.5) + 2 if hbox > 0.0 else 2
 
     st = state[0]
@@ -619,8 +623,22 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 # the timing loop: its full bandwidth while the carrier is unlocked (pull-in), and in
                 # lock narrowed in proportion to Es/N0 below t_ref (the detector's noise grows as
                 # 1 / (Es/N0)), to at most t_min of it
+                # (only once lock has been held for gear_symbols: the loops pull in at full bandwidth), from
+                # the Es/N0 of the lock window's moments, which follows a signal's onset sooner
+                sw = math.sqrt(s2w / (wf * wf)) if s2w > 0.0 else 0.0
+                m2w = m2f / wf if wf > 0.0 else 0.0
+                esn0 = sw / (m2w - sw) if m2w > sw else (1e3 if sw > 0.0 else 1e-3)
+                if esn0 < 1e-3:
+                    esn0 = 1e-3
+                if clock == 1:
+                    lock_age = st["lock_age"] + acc_n
+                    st["lock_age"] = lock_age
+                else:
+                    lock_age = 0
+                    st["lock_age"] = 0
+                geared = lock_age >= gear
                 t_scale = 1.0
-                if clock == 1 and esn0 < t_ref:
+                if geared and esn0 < t_ref:
                     t_scale = esn0 / t_ref if esn0 > t_min * t_ref else t_min
                 st["t_scale"] = t_scale
                 kp_tl = kp_t * t_scale
@@ -628,7 +646,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 # the carrier loop in lock: narrowed where the configured bandwidth would leave a loop
                 # SNR below c_loop_snr, B_L T <= (Es/N0) S_L / rho with the Costas squaring loss S_L
                 c_scale = 1.0
-                if clock == 1:
+                if geared:
                     if mod_code == 0:
                         s_l = 1.0 / (1.0 + 0.5 / esn0)
                     else:
