@@ -414,6 +414,9 @@ class Demodulator:
         pr["c_bn"] = bn_c
         pr["c_loop_snr"] = _CARRIER_LOOP_SNR
         pr["gear_symbols"] = _GEAR_SYMBOLS
+        # the carrier lock condition must hold this long: 128 symbols (BPSK), 768 (QPSK/OQPSK, whose
+        # fourth-power statistic is averaged over 2048 symbols and rose on noise for a few hundred)
+        pr["c_hold"] = 384.0 if qpsk else 128.0
         pr["c_on"], pr["c_off"], pr["c_min"] = 0.75, 0.3, 0.15 if qpsk else 0.25
         pr["s_on"], pr["s_off"], pr["s_min"] = 0.5, 0.25, 0.04
         pr["r0"], pr["kd"] = r0, kd

@@ -35,7 +35,7 @@ TRACK_PARAMS = np.dtype([
     ("c_min", np.float64), ("s_on", np.float64), ("s_off", np.float64), ("s_min", np.float64), ("r0", np.float64),
     ("kd", np.float64), ("warmup", np.float64), ("hbox", np.float64), ("v_max", np.float64), ("dd_gain", np.float64),
     ("t_ref_esn0", np.float64), ("t_min_scale", np.float64), ("c_bn", np.float64), ("c_loop_snr", np.float64),
-    ("gear_symbols", np.float64),
+    ("gear_symbols", np.float64), ("c_hold", np.float64),
 ])
 
 #: Loop state of :func:`track_symbols` (one record, updated in place; meanings in its docstring).
@@ -250,8 +250,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
         detectors) the logarithms ``log(1 - a)`` of per-symbol averages of weight ``a``; carrier lock
         ``c_on, c_off`` (relative) and ``c_min`` (absolute); symbol lock ``s_on, s_off, s_min``;
         ``r0`` the noise-free midpoint energy ratio, ``kd`` the Gardner detector gain; ``warmup``
-        symbols averaged before any lock is declared (and symbols in a row meeting the carrier
-        lock condition); ``hbox > 0`` selects the exact integrate-and-dump of half-width ``hbox``
+        symbols averaged before any lock is declared; ``hbox > 0`` selects the exact integrate-and-dump of half-width ``hbox``
         samples over unfiltered samples (rect pulses) instead of the cubic interpolator over
         matched-filter output; ``v_max`` bounds the timing rate integrator (the symbol rate may
         differ from nominal by at most this fraction); ``dd_gain`` 1 scales the carrier
@@ -260,7 +259,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
         ``Es/N0 / t_ref_esn0`` when below 1, never below ``t_min_scale``; ``c_bn`` the carrier loop's
         ``B_L T`` and ``c_loop_snr`` the loop SNR it keeps in lock (its bandwidth scaled down to
         ``(Es/N0) S_L / c_loop_snr``, never below ``t_min_scale``: see Notes); ``gear_symbols`` the
-        symbols of lock after which they apply.
+        symbols of lock after which they apply; ``c_hold`` the symbols in a row the carrier lock
+        condition must hold before lock is declared.
     mod_code : int
         0 BPSK, 1 QPSK, 2 OQPSK.
     third_order : int
@@ -375,6 +375,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     c_bn = pr["c_bn"]
     c_rho = pr["c_loop_snr"]
     gear = pr["gear_symbols"]
+    c_hold = pr["c_hold"]
     look = int(hbox + 0.5) + 2 if hbox > 0.0 else 2
 
     st = state[0]
@@ -611,7 +612,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                         st["cgood"] += acc_n
                     else:
                         st["cgood"] = 0
-                    if st["cgood"] >= warmup and seen >= warmup:
+                    if st["cgood"] >= c_hold and seen >= warmup:
                         clock = 1
                         st["cgood"] = 0
                 else:
@@ -650,7 +651,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                     st["lock_age"] = 0
                 geared = lock_age >= gear
                 t_scale = 1.0
-                if geared and esn0 < t_ref:
+                if geared and slock == 1 and esn0 < t_ref:  # never narrowed while the timing is not locked
                     t_scale = esn0 / t_ref if esn0 > t_min * t_ref else t_min
                 st["t_scale"] = t_scale
                 kp_tl = kp_t * t_scale
