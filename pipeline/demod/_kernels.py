@@ -250,9 +250,9 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
         detectors) the logarithms ``log(1 - a)`` of per-symbol averages of weight ``a``; carrier lock
         ``c_on, c_off`` (relative) and ``c_min`` (absolute); symbol lock ``s_on, s_off, s_min``;
         ``r0`` the noise-free midpoint energy ratio, ``kd`` the Gardner detector gain; ``warmup``
-        symbols averaged before any lock is declared; ``hbox > 0`` selects the exact integrate-and-dump of half-width ``hbox``
-        samples over unfiltered samples (rect pulses) instead of the cubic interpolator over
-        matched-filter output; ``v_max`` bounds the timing rate integrator (the symbol rate may
+        symbols averaged before any lock is declared; ``hbox > 0`` selects the exact
+        integrate-and-dump of half-width ``hbox`` samples over unfiltered samples (rect pulses)
+        instead of the cubic interpolator over matched-filter output; ``v_max`` bounds the timing rate integrator (the symbol rate may
         differ from nominal by at most this fraction); ``dd_gain`` 1 scales the carrier
         detector by the decision-directed slope at the measured Es/N0 (see Notes), 0 leaves it;
         ``t_ref_esn0`` (linear) and ``t_min_scale``: in lock, the timing loop's bandwidth is scaled by
@@ -606,7 +606,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                     seen = int(warmup)
                 st["seen"] = seen
                 if clock == 0:
-                    # the condition must hold for `warmup` symbols in a row: a loop slipping cycles
+                    # the condition must hold for `c_hold` symbols in a row: a loop slipping cycles
                     # at a large frequency error can push the statistic up for a moment
                     if lhs > c_on * ref_num * cden and cnum > c_min * cden:
                         st["cgood"] += acc_n
