@@ -252,8 +252,9 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
         ``r0`` the noise-free midpoint energy ratio, ``kd`` the Gardner detector gain; ``warmup``
         symbols averaged before any lock is declared; ``hbox > 0`` selects the exact
         integrate-and-dump of half-width ``hbox`` samples over unfiltered samples (rect pulses)
-        instead of the cubic interpolator over matched-filter output; ``v_max`` bounds the timing rate integrator (the symbol rate may
-        differ from nominal by at most this fraction); ``dd_gain`` 1 scales the carrier
+        instead of the cubic interpolator over matched-filter output; ``v_max`` bounds the timing
+        rate integrator (the symbol rate may differ from nominal by at most this fraction);
+        ``dd_gain`` 1 scales the carrier
         detector by the decision-directed slope at the measured Es/N0 (see Notes), 0 leaves it;
         ``t_ref_esn0`` (linear) and ``t_min_scale``: in lock, the timing loop's bandwidth is scaled by
         ``Es/N0 / t_ref_esn0`` when below 1, never below ``t_min_scale``; ``c_bn`` the carrier loop's
