@@ -13,8 +13,8 @@ demo profile's recording simulated once per process with a fixed seed):
 - ``end_to_end_msps``: the decode path with its sinks (segments into one back end, 1 process), 4 s;
 - ``end_to_end_qpsk_5msps_realtime``: the same on the 2 Msym/s QPSK link of ``downlink bench``, 1 s at
   5 Msample/s, real-time factor;
-- ``warm_start_s``: a fresh process decoding the demo recording, start to the first chunk decoded (cache
-  present);
+- ``warm_start_s``: a fresh process decoding the demo recording (``downlink bench``'s child script), start to
+  the first chunk decoded (cache present);
 - ``cold_start_s``: the same with ``NUMBA_CACHE_DIR`` an empty folder: start to the end of the decode.
 """
 
@@ -80,31 +80,15 @@ out["demo_meta"] = str(rec.meta_path)
 print(json.dumps(out))
 """
 
-_START = r"""
-import sys, time
-from pathlib import Path
-from pipeline.profile import load_profile, demo_profile_path
-from pipeline.recording import open_recording
-from pipeline.chain import DecodeChain, FolderSinks
-profile = load_profile(demo_profile_path())
-rec = open_recording(sys.argv[1])
-sinks = FolderSinks(Path(sys.argv[2]))
-chain = DecodeChain(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz, timebase=rec, sinks=sinks)
-first = None
-for chunk in rec.chunks(profile.receiver.chunk_samples):
-    chain.process_chunk(chunk)
-    if first is None:
-        first = time.monotonic()
-chain.finish()
-sinks.close()
-print(first, time.monotonic())
-"""
+
 
 
 def _run(code: str, root: Path, args: list[str], env_extra: dict | None = None) -> tuple[float, str]:
     env = dict(os.environ, PYTHONPATH=str(root), **(env_extra or {}))
     t0 = time.monotonic()  # CLOCK_MONOTONIC: the same clock in the child on Linux
-    proc = subprocess.run([sys.executable, "-c", code, *args], capture_output=True, text=True, env=env, check=False)
+    # cwd: the checkout itself (``python -c`` puts the working folder first on sys.path)
+    proc = subprocess.run([sys.executable, "-c", code, *args], capture_output=True, text=True, env=env, check=False,
+                          cwd=root)
     if proc.returncode != 0:
         raise RuntimeError(f"{root}: {proc.stderr.strip().splitlines()[-3:]}")
     return t0, proc.stdout.strip().splitlines()[-1]
@@ -112,7 +96,8 @@ def _run(code: str, root: Path, args: list[str], env_extra: dict | None = None) 
 
 def measure(root: Path, tmp: Path, tag: str) -> dict:
     sys.path.insert(0, str(HERE))
-    from pipeline.tools._bench import QPSK_LINK  # this checkout's definition of the link, for both
+    # this checkout's definitions, for both: the link, and the fresh-process decode of downlink bench
+    from pipeline.tools._bench import _CHILD, QPSK_LINK
 
     tmp.mkdir(parents=True)
     _, line = _run(_SPEED, root, [json.dumps(QPSK_LINK), str(tmp / "speed")])
@@ -120,13 +105,14 @@ def measure(root: Path, tmp: Path, tag: str) -> dict:
     meta = res.pop("demo_meta")
     cache = tmp / f"cache_{tag}"
     cache.mkdir()
-    t0, line = _run(_START, root, [meta, str(tmp / f"cold_{tag}")], {"NUMBA_CACHE_DIR": str(cache)})
-    first, end = (float(v) for v in line.split())
-    res["cold_start_s"] = end - t0
+    (tmp / f"cold_{tag}").mkdir()
+    t0, line = _run(_CHILD, root, [meta, str(tmp / f"cold_{tag}")], {"NUMBA_CACHE_DIR": str(cache)})
+    res["cold_start_s"] = json.loads(line)["end"] - t0
     warm = []
     for r in range(3):
-        t0, line = _run(_START, root, [meta, str(tmp / f"warm_{tag}{r}")])
-        warm.append(float(line.split()[0]) - t0)
+        (tmp / f"warm_{tag}{r}").mkdir()
+        t0, line = _run(_CHILD, root, [meta, str(tmp / f"warm_{tag}{r}")])
+        warm.append(json.loads(line)["first"] - t0)
     res["warm_start_s"] = min(warm)
     return res
 

@@ -712,19 +712,12 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
             # bandwidths of a few thousandths of the symbol rate) takes the detectors off the strobe's
             # and the phase's critical path, so consecutive symbols overlap in the processor.
             ec = pend_ec
-            pend_ec = ec_raw * g_c
-            # a bound far outside the detector's range (4 noise deviations at Es/N0 = -3 dB): an
-            # amplitude estimate that lags a sudden rise (after silence) cannot throw the phase
-            if pend_ec > 4.0:
-                pend_ec = 4.0
-            elif pend_ec < -4.0:
-                pend_ec = -4.0
+            # the carrier error bounded far outside the detector's range (4 noise deviations at Es/N0 =
+            # -3 dB: an amplitude estimate that lags a sudden rise after silence cannot throw the
+            # phase), the timing error at +-1
+            pend_ec = min(max(ec_raw * g_c, -4.0), 4.0)
             e_t = pend_et
-            pend_et = et * g_t
-            if pend_et > 1.0:
-                pend_et = 1.0
-            elif pend_et < -1.0:
-                pend_et = -1.0
+            pend_et = min(max(et * g_t, -1.0), 1.0)
             # carrier loop (phase correction takes effect from the next half-strobe)
             if clock == 1:
                 if third_order == 1:
