@@ -218,6 +218,11 @@ class DcBlocker:
         remove_dc(block, d.real, d.imag, out)
         return out, power
 
+    @property
+    def started(self) -> bool:
+        """Whether an offset has been estimated (a block with a non-zero sample was taken)."""
+        return self._started
+
     def update(self, count: int, moments: np.ndarray) -> float:
         """Take a block's ``count`` non-zero samples and their ``moments`` (``mean_power_nonzero``: mean re,
         mean im, mean power): update :attr:`offset`, return the block's mean power after removal (0.0 if empty).
@@ -484,6 +489,7 @@ class Demodulator:
         self._state[0]["c_scale"] = 1.0
         self._state[0]["ph_cos"] = 1.0  # the carrier phasor at theta = 0
         self._summary = np.zeros(1, dtype=BLOCK_SUMMARY)
+        self._mom4 = np.zeros(4, dtype=np.float64)
         self._unlocked_run = 0
         self._finished = False
         self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
@@ -528,7 +534,7 @@ class Demodulator:
             self._acquire(parts, final=True)
         # push the matched filter's delay line out with zeros so the last symbols are produced
         tail = np.zeros(max(self.filter_delay_samples, self._look) + 4, dtype=np.complex64)
-        self._run_block(tail, None, parts, t_limit=end)
+        self._run_block(tail, None, parts, t_limit=end, tail=True)
         self._finished = True
         return self._assemble(parts)
 
@@ -547,7 +553,17 @@ class Demodulator:
     def _feed_block(self, block: np.ndarray, parts: list, final: bool = False) -> None:
         if self.conjugate:
             block = np.conj(block)
-        # one pass gives the DC blocker's moments, and NaN/Inf shows in them
+        if self._acquiring:
+            block, cnt, mom = self._moments(block)
+            # own copy: the caller's buffer may change
+            self._held.append((np.array(block, dtype=np.complex64), cnt, mom))
+            if sum(h[0].size for h in self._held) >= self.acquisition_samples or final:
+                self._acquire(parts, final=final)
+            return
+        self._run_block(block, None, parts)
+
+    def _moments(self, block: np.ndarray) -> tuple[np.ndarray, int, np.ndarray]:
+        """The block (NaN/Inf replaced by 0 and counted), its non-zero count and moments (one pass)."""
         mom = np.empty(3, dtype=np.float64)
         cnt = mean_power_nonzero(block, mom)
         if not (math.isfinite(mom[0]) and math.isfinite(mom[1]) and math.isfinite(mom[2])):
@@ -558,13 +574,13 @@ class Demodulator:
                 block = block.copy()
                 block[bad] = 0
             cnt = mean_power_nonzero(block, mom)
-        if self._acquiring:
-            # own copy: the caller's buffer may change
-            self._held.append((np.array(block, dtype=np.complex64), cnt, mom))
-            if sum(h[0].size for h in self._held) >= self.acquisition_samples or final:
-                self._acquire(parts, final=final)
-            return
-        self._run_block(block, (cnt, mom), parts)
+        return block, cnt, mom
+
+    def _take_moments(self, count: int, moments: np.ndarray) -> None:
+        """DC offset and AGC power from a block's moments."""
+        p = self._dc.update(count, moments)
+        if p > 0.0:
+            self._agc_power = p if self._agc_power == 0.0 else 0.8 * self._agc_power + 0.2 * p
 
     def _acquire(self, parts: list, final: bool = False) -> None:
         """Search the held window; release all of it if found (or at the end), else its first block."""
@@ -596,17 +612,26 @@ class Demodulator:
             for b, cnt, mom in blocks:
                 self._run_block(b, (cnt, mom), parts)
 
-    def _run_block(self, block: np.ndarray, moments: tuple | None, parts: list, t_limit: float = math.inf) -> None:
-        """Demodulate one block; ``moments`` = ``(count, [mean re, mean im, power])`` of its non-zero samples,
-        None for the zeros that push the matched filter's delay line out at the end."""
+    def _run_block(self, block: np.ndarray, moments: tuple | None, parts: list, t_limit: float = math.inf,
+                   tail: bool = False) -> None:
+        """Demodulate one block.
+
+        ``moments`` = ``(count, [mean re, mean im, power])`` of its non-zero samples (blocks held for
+        acquisition, whose NaN/Inf are already gone): the DC offset and gain take them first.  None: the
+        block's own moments come out of :func:`condition_block` and apply from the next block on, the
+        offset and gain of the blocks before applying to this one (the first block of a stream takes its
+        own, in a pass of its own; a block with NaN/Inf is cleaned and run again with its own).
+        ``tail``: the zeros that push the matched filter's delay line out at the end (nothing taken).
+        """
         fs = self.sample_rate_hz
         n = block.size
-        dc = 0j
+        lagged = moments is None and not tail
+        if lagged and not self._dc.started:
+            block, cnt, mom = self._moments(block)
+            moments, lagged = (cnt, mom), False
         if moments is not None:
-            p = self._dc.update(moments[0], moments[1])
-            dc = self._dc.offset
-            if p > 0.0:
-                self._agc_power = p if self._agc_power == 0.0 else 0.8 * self._agc_power + 0.2 * p
+            self._take_moments(moments[0], moments[1])
+        dc = 0j if tail else self._dc.offset
         gain = 1.0 / math.sqrt(self._agc_power) if self._agc_power > 0.0 else 1.0
         dphase = 2.0 * math.pi * self._nco_hz / fs
         if dphase != self._table_dphase:
@@ -618,9 +643,20 @@ class Demodulator:
         buf = self._mf_buf
         if head + n > buf.size:  # never for a block; kept for any caller
             buf = self._mf_buf = np.concatenate([buf, np.zeros(head + n - buf.size, dtype=np.complex64)])
+        hist_before, phase_before = (self._fir_hist2.copy(), self._nco_phase) if lagged else (None, 0.0)
+        mom = self._mom4
         self._nco_phase = condition_block(block.view(np.float32), dc.real, dc.imag, gain, self._nco_phase, dphase,
                                           self._table2, self._taps_run, self._fir_hist2,
-                                          buf[head:head + n].view(np.float32))
+                                          buf[head:head + n].view(np.float32), mom)
+        if lagged:
+            if not (math.isfinite(mom[0]) and math.isfinite(mom[1]) and math.isfinite(mom[2])):
+                # NaN/Inf in the block: undo, clean, and run it with its own moments
+                self._fir_hist2[:] = hist_before
+                self._nco_phase = phase_before
+                block, cnt, m3 = self._moments(block)
+                self._run_block(block, (cnt, m3), parts, t_limit)
+                return
+            self._take_moments(int(mom[3]), mom)
         self._nco_phase_unwrapped += dphase * n
         self._run_sample += n
         mfbuf = buf[head - tl:head + n]
@@ -631,11 +667,11 @@ class Demodulator:
         nsym = pos.size
         # keep what the next strobes need (a strobe can stand past the buffer's end: keep nothing then)
         keep_from = min(max(0, int(math.floor(st["t"])) - self._look - base), mfbuf.size)
-        tail = mfbuf.size - keep_from
-        if tail > head:  # only after the last strobe at flush; nothing follows then
-            tail, keep_from = 0, mfbuf.size
-        buf[head - tail:head] = mfbuf[keep_from:]
-        self._mf_tail_len = tail
+        kept = mfbuf.size - keep_from
+        if kept > head:  # only after the last strobe at flush; nothing follows then
+            kept, keep_from = 0, mfbuf.size
+        buf[head - kept:head] = mfbuf[keep_from:]
+        self._mf_tail_len = kept
         self._mf_tail_base = base + keep_from
 
         # carrier frequency over the block: NCO plus the loop's phase advance between strobes
@@ -665,7 +701,7 @@ class Demodulator:
         parts.append({"bitpos": bitpos, "soft": soft, "sym": sym, "locked": clock, "track": track})
         self.stats.symbols_out += nsym
         self.stats.carrier_locked_symbols += locked
-        if moments is not None and self._unlocked_run >= self.reacquire_symbols:
+        if not tail and self._unlocked_run >= self.reacquire_symbols:
             self._unlocked_run = 0
             self._acquiring = True
 

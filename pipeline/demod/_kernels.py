@@ -111,7 +111,7 @@ def fir_interleaved(u2, taps, out2):
 
 
 @njit(cache=True, nogil=True)
-def condition_block(x2, dc_re, dc_im, gain, phase0_rad, dphase_rad, table2, taps, hist2, out2):
+def condition_block(x2, dc_re, dc_im, gain, phase0_rad, dphase_rad, table2, taps, hist2, out2, mom):
     """DC removal, gain, derotation and the matched filter of one block in one pass.
 
     Parameters
@@ -132,6 +132,10 @@ def condition_block(x2, dc_re, dc_im, gain, phase0_rad, dphase_rad, table2, taps
     out2 : float32 array
         ``n`` complex outputs, interleaved: ``out[m] = sum_k taps[k] y[m + k - ntap + 1]`` with
         ``y[m] = gain (x[m] - dc) exp(-j (phase0 + m dphase))`` (``y`` before the block from ``hist2``).
+    mom : float64 array of 4
+        Set to the block's input moments as :func:`mean_power_nonzero` gives them (mean re, mean im,
+        mean power over the non-zero samples; non-finite when a sample is NaN or Inf) and, in
+        ``mom[3]``, the count of non-zero samples: the caller's DC and gain for the next block.
 
     Returns
     -------
@@ -161,6 +165,9 @@ def condition_block(x2, dc_re, dc_im, gain, phase0_rad, dphase_rad, table2, taps
     dcr = np.float32(dc_re)
     dci = np.float32(dc_im)
     zero = np.float32(0.0)
+    lanes = 16
+    macc = np.zeros((3, lanes), dtype=np.float64)
+    mcnt = np.zeros(lanes, dtype=np.int64)
     for s0 in range(0, n, seg):
         m = min(seg, n - s0)
         dst = out2[2 * s0:2 * (s0 + m)] if ntap == 0 else work[nh:nh + 2 * m]
@@ -171,6 +178,25 @@ def condition_block(x2, dc_re, dc_im, gain, phase0_rad, dphase_rad, table2, taps
             mb = min(256, m - b0)
             src = x2[2 * (s0 + b0):2 * (s0 + b0 + mb)]
             d = dst[2 * b0:2 * (b0 + mb)]
+            # the input's moments on the way (16 partial sums, as mean_power_nonzero)
+            mfull = mb - mb % lanes
+            for i0 in range(0, 2 * mfull, 2 * lanes):
+                for j in range(lanes):
+                    re = np.float64(src[i0 + 2 * j])
+                    im = np.float64(src[i0 + 2 * j + 1])
+                    pw = re * re + im * im
+                    macc[0, j] += re
+                    macc[1, j] += im
+                    macc[2, j] += pw
+                    mcnt[j] += 1 if pw > 0.0 else 0
+            for i in range(mfull, mb):
+                re = np.float64(src[2 * i])
+                im = np.float64(src[2 * i + 1])
+                pw = re * re + im * im
+                macc[0, 0] += re
+                macc[1, 0] += im
+                macc[2, 0] += pw
+                mcnt[0] += 1 if pw > 0.0 else 0
             for k in range(mb):
                 xr = src[2 * k]
                 xi = src[2 * k + 1]
@@ -203,6 +229,15 @@ def condition_block(x2, dc_re, dc_im, gain, phase0_rad, dphase_rad, table2, taps
                 work[j] = work[mm + j]
     for j in range(nh):
         hist2[j] = work[j]
+    total = 0
+    for j in range(lanes):
+        total += mcnt[j]
+    for c in range(3):
+        v = 0.0
+        for j in range(lanes):
+            v += macc[c, j]
+        mom[c] = v / total if total > 0 else v
+    mom[3] = total
     ph_end = phase0_rad + dphase_rad * n
     two_pi = 2.0 * math.pi
     return ph_end - two_pi * math.floor(ph_end / two_pi)
