@@ -304,18 +304,25 @@ class Demodulator:
 
     1. NaN/Inf samples become 0 (erasures; counted).  ``[receiver] spectrum_inverted = true``:
        the samples are conjugated.  The receiver's DC offset is removed (:class:`DcBlocker`), then
-       block AGC to unit mean power (zeros excluded).
-    2. Rotation by the numerically-controlled oscillator (NCO) at the current carrier estimate.
+       block AGC to unit mean power (zeros excluded): with the offset and power of the blocks
+       before (a block's own moments are taken in the same pass and apply from the next block;
+       the first block of a stream, held acquisition windows and a block with NaN/Inf take their
+       own first).
+    2. Rotation by the numerically-controlled oscillator (NCO) at the current carrier estimate
+       (a 256-entry phasor table times an exact phasor every 256 samples).
     3. RRC: matched filter over 8 symbols (its truncation leaves the Es/N0 estimate unbiased
        to 25 dB at roll-off 0.5), a blocked FIR of odd length ``2 D + 1`` whose output is
        re-indexed by ``D`` so that MF sample ``n`` is centred on recording sample ``n``.
        Rect: no FIR; the tracker integrates the samples over the exact (fractional) symbol
        window at each strobe, which is the matched filter evaluated where it is needed.
-    4. Gardner timing recovery with a cubic Farrow interpolator and a decision-directed Costas
-       loop at symbol rate (:func:`pipeline.demod._kernels.track_symbols`).  At the block end
-       the loop's frequency integrator is moved into the NCO, so the matched filter always sees
-       a nearly centred spectrum even under large Doppler drift.
-    5. One :class:`TrackPoint` with the measured frequency and the block's M2M4 Es/N0.
+       Steps 1-3 are one kernel pass (:func:`pipeline.demod._kernels.condition_block`).
+    4. Gardner timing recovery with a cubic interpolator and a decision-directed Costas loop at
+       symbol rate, with loop bandwidths that follow Es/N0 in lock
+       (:func:`pipeline.demod._kernels.track_symbols`).  At the block end the loop's frequency
+       integrator is moved into the NCO, so the matched filter always sees a nearly centred
+       spectrum even under large Doppler drift.
+    5. One :class:`TrackPoint` with the measured frequency, its spread and the block's M2M4
+       Es/N0 (``nan`` below a quarter of a full block's symbols).
 
     Acquisition (at the start, and when the carrier stayed unlocked for ``reacquire_symbols``):
     windows of ``acquisition_samples`` (two blocks) are held and searched with a
@@ -335,9 +342,10 @@ class Demodulator:
     position is the recording sample at which its pulse peaks once the timing loop has locked.
     The timing rate integrator is held within +-2 % of the nominal symbol rate.
 
-    Cost per sample: one complex rotation, ``2 D + 1`` real multiply-adds per I and Q, and
-    per symbol two cubic interpolations and the loop updates; a search costs about 4 blocks'
-    demodulation (BPSK, 65536 samples: 2 ms coarse, 6 ms fine).
+    Cost per sample: one complex rotation, ``D + 1`` real multiplies and ``2 D + 1`` adds per I
+    and Q, and per symbol two cubic interpolations and the loop updates (about 16 ns a sample at
+    4.17 samples per symbol on the development machine, ``python bench/bench_demod.py``); a search
+    costs about 4 blocks' demodulation (BPSK, 65536 samples: 2 ms coarse, 6 ms fine).
     """
 
     def __init__(self, *, link: LinkSection, receiver: ReceiverSection, sample_rate_hz: float) -> None:
