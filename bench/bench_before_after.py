@@ -32,44 +32,26 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent.parent
 
 _SPEED = r"""
-import json, sys, time
+import json, sys
 from pathlib import Path
 from pipeline.profile import load_profile, demo_profile_path, profile_from_dict
 from pipeline.recording import open_recording
 from pipeline.sim import simulate
-from pipeline.demod.residual import make_demodulator
-from pipeline.chain import BackEnd, FolderSinks, SegmentedDecode
+from pipeline.tools._bench import _bench_frontend as bench_frontend, _decode_once as decode_once
 qpsk_link = json.loads(sys.argv[1])
 tmp = Path(sys.argv[2])
 
-def decode_once(rec, prof, folder):
-    folder.mkdir(parents=True)
-    sinks = FolderSinks(folder)
-    back = BackEnd(prof, timebase=rec, sample_rate_hz=rec.sample_rate_hz, sinks=sinks)
-    t0 = time.perf_counter()
-    SegmentedDecode(prof, workers=1).run(rec, back)
-    dt = time.perf_counter() - t0
-    sinks.close()
-    return dt, back.packet_count
-
 def best_decode(rec, prof, name, repeats=3):
-    decode_once(rec, prof, tmp / (name + "_warm"))
-    runs = [decode_once(rec, prof, tmp / f"{name}{r}") for r in range(repeats)]
+    # the checkout's own downlink bench decode (segments into one back end with its sinks, 1 process)
+    decode_once(rec, prof, tmp / (name + "_warm"), 1)
+    runs = [decode_once(rec, prof, tmp / f"{name}{r}", 1) for r in range(repeats)]
     dt = min(r[0] for r in runs)
-    return rec.num_samples / dt / 1e6, runs[0][1]
+    return rec.num_samples / dt / 1e6, runs[0][2].packet_count
 
 prof = load_profile(demo_profile_path())
 rec = open_recording(simulate(prof, tmp / "demo", seconds=4.0, seed=1).meta_path)
 chunks = list(rec.chunks(prof.receiver.chunk_samples, verify=False))
-def front():
-    d = make_demodulator(link=prof.link, receiver=prof.receiver, sample_rate_hz=rec.sample_rate_hz)
-    t0 = time.perf_counter()
-    for c in chunks:
-        d.process(c)
-    d.flush()
-    return time.perf_counter() - t0
-front()
-out = {"frontend_msps": rec.num_samples / min(front() for _ in range(3)) / 1e6}
+out = {"frontend_msps": bench_frontend(prof, chunks, rec.sample_rate_hz, 3)}  # the checkout's own, best of 3
 del chunks
 out["end_to_end_msps"], out["end_to_end_packets"] = best_decode(rec, prof, "demo")
 qprof = profile_from_dict(qpsk_link)

@@ -20,6 +20,8 @@ __all__ = [
     "nrzm_decode",
     "moments_m2m4",
     "mean_power_nonzero",
+    "moment_sums",
+    "moment_means",
     "remove_dc",
     "block_summary",
     "BLOCK_SUMMARY",
@@ -165,9 +167,8 @@ def condition_block(x2, dc_re, dc_im, gain, phase0_rad, dphase_rad, table2, taps
     dcr = np.float32(dc_re)
     dci = np.float32(dc_im)
     zero = np.float32(0.0)
-    lanes = 16
-    macc = np.zeros((3, lanes), dtype=np.float64)
-    mcnt = np.zeros(lanes, dtype=np.int64)
+    macc = np.zeros((3, 16), dtype=np.float64)
+    mcnt = np.zeros(16, dtype=np.int64)
     for s0 in range(0, n, seg):
         m = min(seg, n - s0)
         dst = out2[2 * s0:2 * (s0 + m)] if ntap == 0 else work[nh:nh + 2 * m]
@@ -178,25 +179,8 @@ def condition_block(x2, dc_re, dc_im, gain, phase0_rad, dphase_rad, table2, taps
             mb = min(256, m - b0)
             src = x2[2 * (s0 + b0):2 * (s0 + b0 + mb)]
             d = dst[2 * b0:2 * (b0 + mb)]
-            # the input's moments on the way (16 partial sums, as mean_power_nonzero)
-            mfull = mb - mb % lanes
-            for i0 in range(0, 2 * mfull, 2 * lanes):
-                for j in range(lanes):
-                    re = np.float64(src[i0 + 2 * j])
-                    im = np.float64(src[i0 + 2 * j + 1])
-                    pw = re * re + im * im
-                    macc[0, j] += re
-                    macc[1, j] += im
-                    macc[2, j] += pw
-                    mcnt[j] += 1 if pw > 0.0 else 0
-            for i in range(mfull, mb):
-                re = np.float64(src[2 * i])
-                im = np.float64(src[2 * i + 1])
-                pw = re * re + im * im
-                macc[0, 0] += re
-                macc[1, 0] += im
-                macc[2, 0] += pw
-                mcnt[0] += 1 if pw > 0.0 else 0
+            # the input's moments on the way (as mean_power_nonzero)
+            moment_sums(src, macc, mcnt)
             for k in range(mb):
                 xr = src[2 * k]
                 xi = src[2 * k + 1]
@@ -229,15 +213,7 @@ def condition_block(x2, dc_re, dc_im, gain, phase0_rad, dphase_rad, table2, taps
                 work[j] = work[mm + j]
     for j in range(nh):
         hist2[j] = work[j]
-    total = 0
-    for j in range(lanes):
-        total += mcnt[j]
-    for c in range(3):
-        v = 0.0
-        for j in range(lanes):
-            v += macc[c, j]
-        mom[c] = v / total if total > 0 else v
-    mom[3] = total
+    mom[3] = moment_means(macc, mcnt, mom)
     ph_end = phase0_rad + dphase_rad * n
     two_pi = 2.0 * math.pi
     return ph_end - two_pi * math.floor(ph_end / two_pi)
@@ -939,19 +915,15 @@ def moments_m2m4(sym, out):
 
 
 @njit(cache=True, nogil=True)
-def mean_power_nonzero(x, out):
-    """Over the non-zero samples of ``x`` (zeros are erasures): ``out = [mean re, mean im, mean |x|^2]``.
+def moment_sums(x2, acc, cnt):
+    """Add the samples of ``x2`` (complex, as interleaved float32) to 16 partial sums of re, im and
+    ``|x|^2`` (``acc``, shape (3, 16), float64) and of the non-zero count (``cnt``, 16 int64).
 
-    Returns the number of non-zero samples (``out`` is all zero when there is none).  A NaN or Inf
-    sample makes the means non-finite (every sample enters the sums), which is how a caller sees it.
-    Sums in double precision over 16 interleaved partial sums (added in order at the end), so the
-    loop vectorises and gives the same result compiled or not; about 1 ns per sample.
-    """
+    Sample ``i`` goes to lane ``i % 16`` (the tail of a length not a multiple of 16 to lane 0), so the
+    loop vectorises and gives the same sums compiled or not; every sample enters the sums (a NaN or
+    Inf makes them non-finite)."""
     lanes = 16
-    x2 = x.view(np.float32)
-    acc = np.zeros((3, lanes), dtype=np.float64)
-    cnt = np.zeros(lanes, dtype=np.int64)
-    n = x.shape[0]
+    n = x2.shape[0] // 2
     nb = n - n % lanes
     for i0 in range(0, 2 * nb, 2 * lanes):
         for j in range(lanes):
@@ -970,15 +942,36 @@ def mean_power_nonzero(x, out):
         acc[1, 0] += im
         acc[2, 0] += p
         cnt[0] += 1 if p > 0.0 else 0
+
+
+@njit(cache=True, nogil=True)
+def moment_means(acc, cnt, out):
+    """``out[:3]`` = the partial sums of :func:`moment_sums` added in lane order, divided by the count
+    (left as sums when it is 0); returns the count."""
     total = 0
-    for j in range(lanes):
+    for j in range(cnt.shape[0]):
         total += cnt[j]
     for c in range(3):
         v = 0.0
-        for j in range(lanes):
+        for j in range(cnt.shape[0]):
             v += acc[c, j]
         out[c] = v / total if total > 0 else v
     return total
+
+
+@njit(cache=True, nogil=True)
+def mean_power_nonzero(x, out):
+    """Over the non-zero samples of ``x`` (zeros are erasures): ``out = [mean re, mean im, mean |x|^2]``.
+
+    Returns the number of non-zero samples (``out`` is all zero when there is none).  A NaN or Inf
+    sample makes the means non-finite (every sample enters the sums), which is how a caller sees it.
+    Sums in double precision over 16 interleaved partial sums (:func:`moment_sums`), so the loop
+    vectorises and gives the same result compiled or not; about 1 ns per sample.
+    """
+    acc = np.zeros((3, 16), dtype=np.float64)
+    cnt = np.zeros(16, dtype=np.int64)
+    moment_sums(x.view(np.float32), acc, cnt)
+    return moment_means(acc, cnt, out)
 
 
 @njit(cache=True, nogil=True)
