@@ -459,7 +459,7 @@ def test_state_stays_bounded_over_a_long_stream(rng):
         for c in chunked(w.samples, [30000, 61000]):
             d.process(Chunk(c.samples, c.start + rep * w.samples.size))
         assert d._pending.size < d.block_samples
-        assert d._mf_tail.size < 64
+        assert d._mf_tail_len < 64
         assert sum(h.size for h in d._held) <= d.acquisition_samples
     assert d.stats.samples_in == 12 * w.samples.size
 

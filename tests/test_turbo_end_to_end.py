@@ -162,7 +162,10 @@ def test_simulated_k8920_rate_half_every_packet(tmp_path):
     assert cmp["sent"] >= 50 and cmp["invented"] == 0 and cmp["matched"] == cmp["sent"], cmp
     assert cmp["worst_ert_error_s"] < 1.0 / SYMBOL_RATE
     frames = read_jsonl(out / "frames.jsonl")
-    assert {f["status"] for f in frames} <= {"ok", "idle"}
+    # the simulator's first CADU (idle) starts at sample 0, while the receiver is still pulling in: found or
+    # not, it may fail; every later one decodes
+    assert {f["status"] for f in frames if f["sample_position"] > 0.5 * frames[-1]["sample_position"] / len(frames)} \
+        <= {"ok", "idle"}
     assert all(f["decoder_iterations"] >= 1 for f in frames)
 
 

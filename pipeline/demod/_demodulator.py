@@ -11,15 +11,16 @@ import numpy as np
 from pipeline.demod._acquire import LINE_THRESHOLD, CarrierSearch, SpectralLine
 from pipeline.demod._filters import gardner_detector_gain, matched_filter_taps, midpoint_energy_ratio
 from pipeline.demod._kernels import (
+    BLOCK_SUMMARY,
     TRACK_PARAMS,
     TRACK_STATE,
-    derotate,
-    fir_interleaved,
+    block_summary,
+    condition_block,
     mean_power_nonzero,
+    phasor_table,
     remove_dc,
     track_symbols,
 )
-from pipeline.demod._snr import estimate_esn0_m2m4
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "check_chunk", "continue_stream",
@@ -40,6 +41,18 @@ _TIMING_RATE_LIMIT = 0.02
 _MAX_DOPPLER_RATE = 5000.0
 #: Band of the line search around the coarse estimate, x symbol rate (the coarse error is about 1 % rms).
 _FINE_SEARCH = 0.05
+#: Symbols per update of the amplitude, lock and Es/N0 statistics inside the timing loop.
+_STAT_SYMBOLS = 64
+#: Below this Es/N0 (dB) the locked timing loop's bandwidth is narrowed in proportion to Es/N0 ...
+_TIMING_REFERENCE_ESN0_DB = 6.0
+#: ... to at most this fraction of ``[receiver] timing_loop_bandwidth``.
+_TIMING_MIN_SCALE = 0.125
+#: Symbols of carrier lock after which the loop bandwidths follow Es/N0 (pull-in at the full ones).
+_GEAR_SYMBOLS = 1024
+#: Loop SNR (1 / phase variance) the locked carrier loop keeps by narrowing its bandwidth at low Es/N0.
+_CARRIER_LOOP_SNR = 100.0
+#: Sub-intervals of a block whose mean frequencies give a track point's ``carrier_std_hz``.
+_FREQ_SUBINTERVALS = 8
 
 
 @dataclass(frozen=True)
@@ -48,11 +61,15 @@ class TrackPoint:
 
     ``carrier_offset_hz`` is the mean carrier frequency over the block's symbols (numerically-
     controlled oscillator plus the loop's phase advance from the first to the last symbol) and
-    ``esn0_db`` the M2M4 estimate over the same symbols (``nan`` if not measurable); ``position``
-    is the middle of that interval (the instant a mean refers to); ``carrier_locked`` and
-    ``symbol_locked`` are the lock flags at the block's last symbol.  ``carrier_phase_rad`` is the
-    receiver's total, unwrapped carrier phase at ``position`` (oscillator plus loop), continuous
-    over the whole run, for precise frequency fits.
+    ``esn0_db`` the M2M4 estimate over the same symbols (``nan`` if not measurable, or when the
+    block holds fewer than a quarter of a full block's symbols: the short block at the end of a
+    stream); ``position`` is the middle of that interval (the instant a mean refers to);
+    ``carrier_locked`` and ``symbol_locked`` are the lock flags at the block's last symbol.
+    ``carrier_phase_rad`` is the receiver's total, unwrapped carrier phase at ``position``
+    (oscillator plus loop), continuous over the whole run, for precise frequency fits.
+    ``carrier_std_hz`` is the standard deviation of the measured carrier frequency over the
+    interval: the mean frequencies of 8 equal sub-intervals about a straight line fitted to them
+    (a Doppler rate is not spread), ``K - 2 = 6`` degrees of freedom; ``nan`` below 64 symbols.
     """
 
     position: float
@@ -61,6 +78,7 @@ class TrackPoint:
     carrier_locked: bool
     symbol_locked: bool
     carrier_phase_rad: float = float("nan")
+    carrier_std_hz: float = float("nan")
 
 
 def _empty_f64() -> np.ndarray:
@@ -192,19 +210,34 @@ class DcBlocker:
     def process(self, block: np.ndarray) -> tuple[np.ndarray, float]:
         """``(block - offset, mean power of the non-zero samples after removal)``; power 0.0 for an all-zero block."""
         cnt = mean_power_nonzero(block, self._moments)
+        power = self.update(cnt, self._moments)
         if cnt == 0:
             return block, 0.0
-        mean = complex(self._moments[0], self._moments[1])
+        d = self.offset
+        out = np.empty_like(block)
+        remove_dc(block, d.real, d.imag, out)
+        return out, power
+
+    @property
+    def started(self) -> bool:
+        """Whether an offset has been estimated (a block with a non-zero sample was taken)."""
+        return self._started
+
+    def update(self, count: int, moments: np.ndarray) -> float:
+        """Take a block's ``count`` non-zero samples and their ``moments`` (``mean_power_nonzero``: mean re,
+        mean im, mean power): update :attr:`offset`, return the block's mean power after removal (0.0 if empty).
+        """
+        if count == 0:
+            return 0.0
+        mean = complex(moments[0], moments[1])
         if self._started:
             self.offset += self.weight * (mean - self.offset)
         else:
             self.offset, self._started = mean, True
         d = self.offset
-        out = np.empty_like(block)
-        remove_dc(block, d.real, d.imag, out)
         # mean |x - d|^2 over the non-zero samples = mean |x|^2 - 2 Re(conj(d) mean) + |d|^2
-        power = float(self._moments[2]) - 2.0 * (d.real * mean.real + d.imag * mean.imag) + abs(d) ** 2
-        return out, max(power, 0.0)
+        power = float(moments[2]) - 2.0 * (d.real * mean.real + d.imag * mean.imag) + abs(d) ** 2
+        return max(power, 0.0)
 
 
 def _next_pow2(n: float) -> int:
@@ -271,18 +304,25 @@ class Demodulator:
 
     1. NaN/Inf samples become 0 (erasures; counted).  ``[receiver] spectrum_inverted = true``:
        the samples are conjugated.  The receiver's DC offset is removed (:class:`DcBlocker`), then
-       block AGC to unit mean power (zeros excluded).
-    2. Rotation by the numerically-controlled oscillator (NCO) at the current carrier estimate.
+       block AGC to unit mean power (zeros excluded): with the offset and power of the blocks
+       before (a block's own moments are taken in the same pass and apply from the next block;
+       the first block of a stream, held acquisition windows and a block with NaN/Inf take their
+       own first).
+    2. Rotation by the numerically-controlled oscillator (NCO) at the current carrier estimate
+       (a 256-entry phasor table times an exact phasor every 256 samples).
     3. RRC: matched filter over 8 symbols (its truncation leaves the Es/N0 estimate unbiased
        to 25 dB at roll-off 0.5), a blocked FIR of odd length ``2 D + 1`` whose output is
        re-indexed by ``D`` so that MF sample ``n`` is centred on recording sample ``n``.
        Rect: no FIR; the tracker integrates the samples over the exact (fractional) symbol
        window at each strobe, which is the matched filter evaluated where it is needed.
-    4. Gardner timing recovery with a cubic Farrow interpolator and a decision-directed Costas
-       loop at symbol rate (:func:`pipeline.demod._kernels.track_symbols`).  At the block end
-       the loop's frequency integrator is moved into the NCO, so the matched filter always sees
-       a nearly centred spectrum even under large Doppler drift.
-    5. One :class:`TrackPoint` with the measured frequency and the block's M2M4 Es/N0.
+       Steps 1-3 are one kernel pass (:func:`pipeline.demod._kernels.condition_block`).
+    4. Gardner timing recovery with a cubic interpolator and a decision-directed Costas loop at
+       symbol rate, with loop bandwidths that follow Es/N0 in lock
+       (:func:`pipeline.demod._kernels.track_symbols`).  At the block end the loop's frequency
+       integrator is moved into the NCO, so the matched filter always sees a nearly centred
+       spectrum even under large Doppler drift.
+    5. One :class:`TrackPoint` with the measured frequency, its spread and the block's M2M4
+       Es/N0 (``nan`` below a quarter of a full block's symbols).
 
     Acquisition (at the start, and when the carrier stayed unlocked for ``reacquire_symbols``):
     windows of ``acquisition_samples`` (two blocks) are held and searched with a
@@ -302,9 +342,10 @@ class Demodulator:
     position is the recording sample at which its pulse peaks once the timing loop has locked.
     The timing rate integrator is held within +-2 % of the nominal symbol rate.
 
-    Cost per sample: one complex rotation, ``2 D + 1`` real multiply-adds per I and Q, and
-    per symbol two cubic interpolations and the loop updates; a search costs about 4 blocks'
-    demodulation (BPSK, 65536 samples: 2 ms coarse, 6 ms fine).
+    Cost per sample: one complex rotation, ``D + 1`` real multiplies and ``2 D + 1`` adds per I
+    and Q, and per symbol two cubic interpolations and the loop updates (about 16 ns a sample at
+    4.17 samples per symbol on the development machine, ``python bench/bench_demod.py``); a search
+    costs about 4 blocks' demodulation (BPSK, 65536 samples: 2 ms coarse, 6 ms fine).
     """
 
     def __init__(self, *, link: LinkSection, receiver: ReceiverSection, sample_rate_hz: float) -> None:
@@ -375,9 +416,20 @@ class Demodulator:
         pr["sps"] = sps
         pr["kp_t"], pr["ki_t"] = 2.0 * _ZETA * wnt, wnt * wnt
         pr["kp_c"], pr["ki_c"], pr["kr_c"], pr["kp_c_wide"] = kp_c, ki_c, kr_c, min(0.2, 4.0 * kp_c2)
-        pr["a_amp"] = 1.0 / 1024.0                              # amplitude (M2M4) averaging
-        pr["a_lock_c"] = 1.0 / (2048.0 if qpsk else 256.0)      # carrier-lock averaging: r^4 is noisier than r^2
-        pr["a_lock_s"] = 1.0 / 1024.0                           # symbol-lock averaging
+        # averages of weight a per symbol, updated every _STAT_SYMBOLS symbol periods with the decay (1 - a)^n
+        pr["stat_symbols"] = _STAT_SYMBOLS
+        pr["l_amp"] = math.log1p(-1.0 / 1024.0)                        # amplitude (M2M4)
+        pr["l_lock_c"] = math.log1p(-1.0 / (2048.0 if qpsk else 256.0))  # carrier lock: r^4 is noisier than r^2
+        pr["l_lock_s"] = math.log1p(-1.0 / 1024.0)                     # symbol lock
+        pr["dd_gain"] = 1.0
+        pr["t_ref_esn0"] = 10.0 ** (_TIMING_REFERENCE_ESN0_DB / 10.0)
+        pr["t_min_scale"] = _TIMING_MIN_SCALE
+        pr["c_bn"] = bn_c
+        pr["c_loop_snr"] = _CARRIER_LOOP_SNR
+        pr["gear_symbols"] = _GEAR_SYMBOLS
+        # the carrier lock condition must hold this long: 128 symbols (BPSK), 768 (QPSK/OQPSK, whose
+        # fourth-power statistic is averaged over 2048 symbols and rose on noise for a few hundred)
+        pr["c_hold"] = 384.0 if qpsk else 128.0
         pr["c_on"], pr["c_off"], pr["c_min"] = 0.75, 0.3, 0.15 if qpsk else 0.25
         pr["s_on"], pr["s_off"], pr["s_min"] = 0.5, 0.25, 0.04
         pr["r0"], pr["kd"] = r0, kd
@@ -391,6 +443,15 @@ class Demodulator:
         if not lo <= bn_t <= hi:
             raise ValueError(f"Argument 'receiver.timing_loop_bandwidth' must be {lo:g}..{hi:g}, not {bn_t!r}.")
         self._min_symbol_advance = sps * (1.0 - _TIMING_RATE_LIMIT - float(pr["kp_t"]))
+        # Es/N0 of a block is measured from a quarter of a full block's symbols up
+        self.min_esn0_symbols = max(64, int(self.block_samples / sps) // 4)
+        # the matched-filter output buffer: the tail the tracker still needs, then one block
+        # (a strobe stops at most 2 look + 1 samples before the end: track_symbols)
+        self._mf_head = 2 * self._look + 64
+        self._taps_run = np.zeros(0, dtype=np.float32) if self._box_half else self.taps
+        if self._taps_run.size and (self._taps_run.size % 2 == 0
+                                    or not np.array_equal(self._taps_run, self._taps_run[::-1])):
+            raise ValueError("Argument 'link.pulse' gives matched-filter taps that are not symmetric.")  # never
 
         # acquisition: rates the carrier loop can follow with a lag under 0.2 rad (2 pi R / wn^2)
         wn_rad_s = wn2 * link.symbol_rate_baud
@@ -422,12 +483,21 @@ class Demodulator:
         self._nco_phase = 0.0
         self._nco_phase_unwrapped = 0.0
         self._run_sample = 0
-        self._fir_hist = np.zeros(self.taps.size - 1, dtype=np.complex64)
-        self._mf_tail = np.zeros(0, dtype=np.complex64)
+        self._fir_hist2 = np.zeros(2 * max(self._taps_run.size - 1, 0), dtype=np.float32)
+        self._table2 = np.zeros(512, dtype=np.float32)
+        self._table_dphase = math.nan
+        self._mf_buf = np.zeros(self._mf_head + self.block_samples, dtype=np.complex64)
+        self._mf_tail_len = 0
         self._mf_tail_base = -self.filter_delay_samples
         self._state = np.zeros(1, dtype=TRACK_STATE)
         self._state[0]["amp"] = 1.0
+        self._state[0]["inv_amp"] = 1.0
+        self._state[0]["kdc"] = 1.0
+        self._state[0]["t_scale"] = 1.0
+        self._state[0]["c_scale"] = 1.0
         self._state[0]["ph_cos"] = 1.0  # the carrier phasor at theta = 0
+        self._summary = np.zeros(1, dtype=BLOCK_SUMMARY)
+        self._mom4 = np.zeros(4, dtype=np.float64)
         self._unlocked_run = 0
         self._finished = False
         self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
@@ -472,7 +542,7 @@ class Demodulator:
             self._acquire(parts, final=True)
         # push the matched filter's delay line out with zeros so the last symbols are produced
         tail = np.zeros(max(self.filter_delay_samples, self._look) + 4, dtype=np.complex64)
-        self._run_block(tail, parts, t_limit=end, tail=True)
+        self._run_block(tail, None, parts, t_limit=end, tail=True)
         self._finished = True
         return self._assemble(parts)
 
@@ -489,26 +559,40 @@ class Demodulator:
         return check_chunk(chunk)
 
     def _feed_block(self, block: np.ndarray, parts: list, final: bool = False) -> None:
-        # the sum is NaN/Inf when any sample is (or, harmlessly, on float32 overflow)
-        if not np.isfinite(block.view(np.float32).sum()):
+        if self.conjugate:
+            block = np.conj(block)
+        if self._acquiring:
+            block, cnt, mom = self._moments(block)
+            # own copy: the caller's buffer may change
+            self._held.append((np.array(block, dtype=np.complex64), cnt, mom))
+            if sum(h[0].size for h in self._held) >= self.acquisition_samples or final:
+                self._acquire(parts, final=final)
+            return
+        self._run_block(block, None, parts)
+
+    def _moments(self, block: np.ndarray) -> tuple[np.ndarray, int, np.ndarray]:
+        """The block (NaN/Inf replaced by 0 and counted), its non-zero count and moments (one pass)."""
+        mom = np.empty(3, dtype=np.float64)
+        cnt = mean_power_nonzero(block, mom)
+        if not (math.isfinite(mom[0]) and math.isfinite(mom[1]) and math.isfinite(mom[2])):
             bad = ~np.isfinite(block)
             if bad.any():
                 # Chunk readers normally zero these already; count only the ones that reach us
                 self.stats.nonfinite_samples += int(bad.sum())
                 block = block.copy()
                 block[bad] = 0
-        if self.conjugate:
-            block = np.conj(block)
-        if self._acquiring:
-            self._held.append(np.array(block, dtype=np.complex64))  # own copy: the caller's buffer may change
-            if sum(h.size for h in self._held) >= self.acquisition_samples or final:
-                self._acquire(parts, final=final)
-            return
-        self._run_block(block, parts)
+            cnt = mean_power_nonzero(block, mom)
+        return block, cnt, mom
+
+    def _take_moments(self, count: int, moments: np.ndarray) -> None:
+        """DC offset and AGC power from a block's moments."""
+        p = self._dc.update(count, moments)
+        if p > 0.0:
+            self._agc_power = p if self._agc_power == 0.0 else 0.8 * self._agc_power + 0.2 * p
 
     def _acquire(self, parts: list, final: bool = False) -> None:
         """Search the held window; release all of it if found (or at the end), else its first block."""
-        held = np.concatenate(self._held) if len(self._held) > 1 else self._held[0]
+        held = np.concatenate([h[0] for h in self._held]) if len(self._held) > 1 else self._held[0][0]
         self.stats.acquisitions += 1
         found = False
         if held.size >= 1024:
@@ -527,104 +611,145 @@ class Demodulator:
         else:
             # slide the window by one block: the oldest is demodulated as it is (no carrier yet)
             blocks, self._held = self._held[:1], self._held[1:]
-        for b in blocks:
-            self._run_block(b, parts)
+        for b, cnt, mom in blocks:
+            self._run_block(b, (cnt, mom), parts)
         if self._acquiring and self._state[0]["clock"]:
             # the loop locked on its own meanwhile: no search needed
             blocks, self._held = self._held, []
             self._acquiring = False
-            for b in blocks:
-                self._run_block(b, parts)
+            for b, cnt, mom in blocks:
+                self._run_block(b, (cnt, mom), parts)
 
-    def _run_block(self, block: np.ndarray, parts: list, t_limit: float = math.inf, tail: bool = False) -> None:
+    def _run_block(self, block: np.ndarray, moments: tuple | None, parts: list, t_limit: float = math.inf,
+                   tail: bool = False) -> None:
+        """Demodulate one block.
+
+        ``moments`` = ``(count, [mean re, mean im, power])`` of its non-zero samples (blocks held for
+        acquisition, whose NaN/Inf are already gone): the DC offset and gain take them first.  None: the
+        block's own moments come out of :func:`condition_block` and apply from the next block on, the
+        offset and gain of the blocks before applying to this one (the first block of a stream takes its
+        own, in a pass of its own; a block with NaN/Inf is cleaned and run again with its own).
+        ``tail``: the zeros that push the matched filter's delay line out at the end (nothing taken).
+        """
         fs = self.sample_rate_hz
         n = block.size
-        if not tail:
-            block, p = self._dc.process(block)
-            if p > 0.0:
-                self._agc_power = p if self._agc_power == 0.0 else 0.8 * self._agc_power + 0.2 * p
+        lagged = moments is None and not tail
+        if lagged and not self._dc.started:
+            block, cnt, mom = self._moments(block)
+            moments, lagged = (cnt, mom), False
+        if moments is not None:
+            self._take_moments(moments[0], moments[1])
+        dc = 0j if tail else self._dc.offset
         gain = 1.0 / math.sqrt(self._agc_power) if self._agc_power > 0.0 else 1.0
-        y = np.empty(n, dtype=np.complex64)
         dphase = 2.0 * math.pi * self._nco_hz / fs
+        if dphase != self._table_dphase:
+            phasor_table(dphase, self._table2)
+            self._table_dphase = dphase
         phase_at_block = self._nco_phase_unwrapped
         block_first = self._run_sample
-        self._nco_phase = derotate(block, gain, self._nco_phase, dphase, 256, y)
+        head, tl = self._mf_head, self._mf_tail_len
+        buf = self._mf_buf
+        if head + n > buf.size:  # never for a block; kept for any caller
+            buf = self._mf_buf = np.concatenate([buf, np.zeros(head + n - buf.size, dtype=np.complex64)])
+        hist_before, phase_before = (self._fir_hist2.copy(), self._nco_phase) if lagged else (None, 0.0)
+        mom = self._mom4
+        self._nco_phase = condition_block(block.view(np.float32), dc.real, dc.imag, gain, self._nco_phase, dphase,
+                                          self._table2, self._taps_run, self._fir_hist2,
+                                          buf[head:head + n].view(np.float32), mom)
+        if lagged:
+            if not (math.isfinite(mom[0]) and math.isfinite(mom[1]) and math.isfinite(mom[2])):
+                # NaN/Inf in the block: undo, clean, and run it with its own moments
+                self._fir_hist2[:] = hist_before
+                self._nco_phase = phase_before
+                block, cnt, m3 = self._moments(block)
+                self._run_block(block, (cnt, m3), parts, t_limit)
+                return
+            self._take_moments(int(mom[3]), mom)
         self._nco_phase_unwrapped += dphase * n
         self._run_sample += n
-        if self._box_half:
-            mf = y
-        else:
-            u = np.concatenate([self._fir_hist, y])
-            mf = np.empty(n, dtype=np.complex64)
-            fir_interleaved(u.view(np.float32), self.taps, mf.view(np.float32))
-            self._fir_hist = u[u.size - (self.taps.size - 1):].copy()
-        mfbuf = np.concatenate([self._mf_tail, mf])
+        mfbuf = buf[head - tl:head + n]
         base = self._mf_tail_base
-        pos, qpos, sym, amp, flags, theta = self._track(mfbuf, base, t_limit)
-        nsym = pos.size
         st = self._state[0]
-        keep_from = max(0, int(math.floor(st["t"])) - self._look - base)
-        self._mf_tail = mfbuf[keep_from:].copy()
+        st["blk_n"], st["blk_m2"], st["blk_m4"] = 0, 0.0, 0.0
+        pos, sym, flags, theta, bitpos, soft = self._track(mfbuf, base, t_limit)
+        nsym = pos.size
+        # keep what the next strobes need (a strobe can stand past the buffer's end: keep nothing then)
+        keep_from = min(max(0, int(math.floor(st["t"])) - self._look - base), mfbuf.size)
+        kept = mfbuf.size - keep_from
+        if kept > head:  # only after the last strobe at flush; nothing follows then
+            kept, keep_from = 0, mfbuf.size
+        buf[head - kept:head] = mfbuf[keep_from:]
+        self._mf_tail_len = kept
         self._mf_tail_base = base + keep_from
 
         # carrier frequency over the block: NCO plus the loop's phase advance between strobes
+        summ = self._summary
+        block_summary(pos, theta, flags, _FREQ_SUBINTERVALS, summ)
+        sm = summ[0]
         sym_period = self.samples_per_symbol * (1.0 - st["v_int"])
-        if nsym >= 64 and pos[-1] > pos[0]:
-            loop_hz = (theta[-1] - theta[0]) / (2.0 * math.pi) * fs / (pos[-1] - pos[0])
-        else:
+        loop_hz = float(sm["loop_hz_per_fs"]) * fs
+        if not math.isfinite(loop_hz):
             loop_hz = st["w_int"] * fs / (2.0 * math.pi * sym_period)
         freq_hz = self._nco_hz + loop_hz
         # hand the loop's frequency integrator to the NCO (the total correction is unchanged)
         self._nco_hz += st["w_int"] * fs / (2.0 * math.pi * sym_period)
         st["w_int"] = 0.0
 
-        clock = (flags & 1).astype(bool)
+        clock = (flags & 1).view(bool)
+        track = []
+        locked = int(sm["locked"])
         if nsym:
             # the block's means (frequency, Es/N0) refer to the middle of its symbols' interval;
-            # Es/N0 from the symbols before the amplitude normalisation: the running amplitude
-            # estimate fluctuates at low SNR and would inflate M4 (-0.35 dB bias at -1 dB)
-            mid = 0.5 * (pos[0] + pos[-1])
-            k = min(max(int(np.searchsorted(pos, mid)) - 1, 0), nsym - 1)
-            if k + 1 < nsym and pos[k + 1] > pos[k]:
-                theta_mid = theta[k] + (theta[k + 1] - theta[k]) * (mid - pos[k]) / (pos[k + 1] - pos[k])
-            else:
-                theta_mid = theta[k]
             # the symbol's matched-filter centre was rotated at about this oscillator phase
-            total_phase = phase_at_block + dphase * (mid - block_first) + theta_mid
-            track = [TrackPoint(float(mid), float(freq_hz), estimate_esn0_m2m4(sym * amp),
-                                bool(clock[-1]), bool(flags[-1] & 2), float(total_phase))]
-            run = 0
-            if not clock.any():
-                self._unlocked_run += nsym
-            else:
-                last_locked = int(np.flatnonzero(clock)[-1])
-                run = nsym - 1 - last_locked
-                self._unlocked_run = run
-        else:
-            track = []
-        parts.append({"pos": pos, "qpos": qpos, "sym": sym, "amp": amp, "locked": clock, "track": track})
+            mid = float(sm["mid"])
+            total_phase = phase_at_block + dphase * (mid - block_first) + float(sm["theta_mid"])
+            track.append(TrackPoint(mid, float(freq_hz), self._block_esn0_db(st), bool(flags[-1] & 1),
+                                    bool(flags[-1] & 2), float(total_phase), float(sm["spread_per_fs"]) * fs))
+            self._unlocked_run = (self._unlocked_run + nsym) if locked == 0 else nsym - 1 - int(sm["last_locked"])
+        parts.append({"bitpos": bitpos, "soft": soft, "sym": sym, "locked": clock, "track": track})
         self.stats.symbols_out += nsym
-        self.stats.carrier_locked_symbols += int(clock.sum())
+        self.stats.carrier_locked_symbols += locked
         if not tail and self._unlocked_run >= self.reacquire_symbols:
             self._unlocked_run = 0
             self._acquiring = True
 
+    def _block_esn0_db(self, st) -> float:
+        """Es/N0 (dB) by M2M4 from the block's symbol moments; nan for a block too short to tell."""
+        n = int(st["blk_n"])
+        if n < self.min_esn0_symbols:
+            return float("nan")
+        m2 = float(st["blk_m2"]) / n
+        m4 = float(st["blk_m4"]) / n
+        s2 = 2.0 * m2 * m2 - m4
+        if s2 <= 0.0:
+            return float("nan")
+        sig = math.sqrt(s2)
+        if m2 - sig <= 0.0:
+            return float("inf")
+        return 10.0 * math.log10(sig / (m2 - sig))
+
     def _track(self, mfbuf: np.ndarray, base: int, t_limit: float):
-        """:func:`track_symbols` over ``mfbuf``, with buffers sized from its bound (grown if ever full)."""
+        """:func:`track_symbols` over ``mfbuf``, with buffers sized from its bound (grown if ever full).
+
+        Returns per symbol the position, normalised symbol, flags and carrier phase, and per channel bit
+        the position and soft value.
+        """
         # bound (track_symbols Notes): strobes lie within the buffer, one symbol per min_symbol_advance samples
         cap = int(mfbuf.size / self._min_symbol_advance) + 2
+        bps = self.bits_per_symbol
         outs = []
         while True:
             pos = np.empty(cap, dtype=np.float64)
-            qpos = np.empty(cap, dtype=np.float64)
+            bitpos = pos if bps == 1 else np.empty(bps * cap, dtype=np.float64)
+            soft = np.empty(bps * cap, dtype=np.float32)
             sym = np.empty(cap, dtype=np.complex64)
-            amp = np.empty(cap, dtype=np.float32)
             flags = np.empty(cap, dtype=np.int8)
             theta = np.empty(cap, dtype=np.float64)
             nsym = track_symbols(mfbuf, base, t_limit, self._params, self._mod_code,
                                  1 if self.carrier_loop_order == 3 else 0, self._state,
-                                 pos, qpos, sym, amp, flags, theta)
-            outs.append((pos[:nsym], qpos[:nsym], sym[:nsym], amp[:nsym], flags[:nsym], theta[:nsym]))
+                                 pos, bitpos, soft, sym, flags, theta)
+            outs.append((pos[:nsym], sym[:nsym], flags[:nsym], theta[:nsym], bitpos[:bps * nsym],
+                         soft[:bps * nsym]))
             if nsym < cap:
                 break
         if len(outs) == 1:
@@ -634,21 +759,11 @@ class Demodulator:
     def _assemble(self, parts: list) -> SymbolBlock:
         if not parts:
             return SymbolBlock()
-        pos = np.concatenate([p["pos"] for p in parts])
-        sym = np.concatenate([p["sym"] for p in parts])
-        locked = np.concatenate([p["locked"] for p in parts])
-        track = [t for p in parts for t in p["track"]]
-        norm = sym  # already divided by the amplitude estimate in the kernel
-        if self.bits_per_symbol == 1:
-            soft = norm.real.astype(np.float32)
-            position = pos
-            lock_bits = locked
-        else:
-            soft = np.empty(2 * sym.size, dtype=np.float32)
-            soft[0::2] = math.sqrt(2.0) * norm.real
-            soft[1::2] = math.sqrt(2.0) * norm.imag
-            position = np.empty(2 * sym.size, dtype=np.float64)
-            position[0::2] = pos
-            position[1::2] = np.concatenate([p["qpos"] for p in parts])  # OQPSK: the Q strobe; else = pos
-            lock_bits = np.repeat(locked, 2)
-        return SymbolBlock(soft=soft, position=position, locked=lock_bits, track=track, symbols=norm)
+
+        def cat(key):
+            return parts[0][key] if len(parts) == 1 else np.concatenate([p[key] for p in parts])
+
+        locked = cat("locked")
+        return SymbolBlock(soft=cat("soft"), position=cat("bitpos"),
+                           locked=locked if self.bits_per_symbol == 1 else np.repeat(locked, 2),
+                           track=[t for p in parts for t in p["track"]], symbols=cat("sym"))

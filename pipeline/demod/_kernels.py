@@ -12,13 +12,19 @@ import numpy as np
 from numba import njit
 
 __all__ = [
+    "condition_block",
+    "phasor_table",
     "derotate",
     "fir_interleaved",
     "track_symbols",
     "nrzm_decode",
     "moments_m2m4",
     "mean_power_nonzero",
+    "moment_sums",
+    "moment_means",
     "remove_dc",
+    "block_summary",
+    "BLOCK_SUMMARY",
     "TRACK_PARAMS",
     "TRACK_STATE",
 ]
@@ -26,25 +32,33 @@ __all__ = [
 #: Parameters of :func:`track_symbols` (one record; meanings in its docstring).
 TRACK_PARAMS = np.dtype([
     ("sps", np.float64), ("kp_t", np.float64), ("ki_t", np.float64), ("kp_c", np.float64), ("ki_c", np.float64),
-    ("kr_c", np.float64), ("kp_c_wide", np.float64), ("a_amp", np.float64), ("a_lock_c", np.float64),
-    ("a_lock_s", np.float64), ("c_on", np.float64), ("c_off", np.float64), ("c_min", np.float64),
-    ("s_on", np.float64), ("s_off", np.float64), ("s_min", np.float64), ("r0", np.float64), ("kd", np.float64),
-    ("warmup", np.float64), ("hbox", np.float64), ("v_max", np.float64),
+    ("kr_c", np.float64), ("kp_c_wide", np.float64), ("stat_symbols", np.float64), ("l_amp", np.float64),
+    ("l_lock_c", np.float64), ("l_lock_s", np.float64), ("c_on", np.float64), ("c_off", np.float64),
+    ("c_min", np.float64), ("s_on", np.float64), ("s_off", np.float64), ("s_min", np.float64), ("r0", np.float64),
+    ("kd", np.float64), ("warmup", np.float64), ("hbox", np.float64), ("v_max", np.float64), ("dd_gain", np.float64),
+    ("t_ref_esn0", np.float64), ("t_min_scale", np.float64), ("c_bn", np.float64), ("c_loop_snr", np.float64),
+    ("gear_symbols", np.float64), ("c_hold", np.float64),
 ])
 
 #: Loop state of :func:`track_symbols` (one record, updated in place; meanings in its docstring).
 TRACK_STATE = np.dtype([
     ("t", np.float64), ("v_int", np.float64), ("theta", np.float64), ("w_int", np.float64), ("w_rate", np.float64),
     ("p1r", np.float64), ("p1i", np.float64), ("p2r", np.float64), ("p2i", np.float64), ("p3r", np.float64),
-    ("p3i", np.float64), ("m2s", np.float64), ("m4s", np.float64), ("wsum", np.float64), ("cnum", np.float64),
-    ("cden", np.float64), ("eon", np.float64), ("emid", np.float64), ("amp", np.float64), ("t_on", np.float64),
-    ("m2f", np.float64), ("m4f", np.float64), ("wf", np.float64), ("parity", np.int64), ("clock", np.int64),
-    ("slock", np.int64), ("seen", np.int64), ("cgood", np.int64), ("ph_cos", np.float64), ("ph_sin", np.float64),
-    ("ph_theta", np.float64), ("ph_count", np.int64),
+    ("p3i", np.float64), ("q1r", np.float64), ("q1i", np.float64), ("q3r", np.float64), ("q3i", np.float64),
+    ("t_on", np.float64), ("parity", np.int64), ("pend_ec", np.float64), ("pend_et", np.float64),
+    ("m2s", np.float64), ("m4s", np.float64), ("wsum", np.float64), ("cnum", np.float64), ("cden", np.float64),
+    ("m2f", np.float64), ("m4f", np.float64), ("wf", np.float64), ("eon", np.float64), ("emid", np.float64),
+    ("amp", np.float64), ("inv_amp", np.float64), ("kdc", np.float64), ("t_scale", np.float64),
+    ("c_scale", np.float64), ("lock_age", np.int64), ("clock", np.int64), ("slock", np.int64),
+    ("seen", np.int64), ("cgood", np.int64),
+    ("acc_n", np.int64), ("stat_epoch", np.int64), ("acc_r2", np.float64), ("acc_r4", np.float64),
+    ("acc_q", np.float64),
+    ("acc_mid", np.float64), ("blk_n", np.int64), ("blk_m2", np.float64), ("blk_m4", np.float64),
+    ("ph_cos", np.float64), ("ph_sin", np.float64), ("ph_theta", np.float64), ("ph_count", np.int64),
 ])
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def derotate(x, gain, phase0_rad, dphase_rad, resync_every, out):
     """``out[n] = gain * x[n] * exp(-j (phase0 + n dphase))``; returns the phase after the last sample.
 
@@ -71,7 +85,7 @@ def derotate(x, gain, phase0_rad, dphase_rad, resync_every, out):
     return ph_end - two_pi * math.floor(ph_end / two_pi)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def fir_interleaved(u2, taps, out2):
     """Real-tap FIR on interleaved I/Q floats: ``out2[j] = sum_k taps[k] u2[j + 2 k]``.
 
@@ -98,9 +112,136 @@ def fir_interleaved(u2, taps, out2):
             out2[j0 + j] = acc[j]
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
+def condition_block(x2, dc_re, dc_im, gain, phase0_rad, dphase_rad, table2, taps, hist2, out2, mom):
+    """DC removal, gain, derotation and the matched filter of one block in one pass.
+
+    Parameters
+    ----------
+    x2 : float32 array
+        The block's complex samples viewed as interleaved floats (re, im, ...), ``n`` samples.
+    dc_re, dc_im, gain : float
+        DC offset removed from every non-zero sample (zeros are erasures and stay zero), then the gain.
+    phase0_rad, dphase_rad : float
+        Oscillator phase at the block's first sample and its advance per sample.
+    table2 : float32 array
+        ``exp(-j k dphase)`` for ``k = 0 .. 255`` as interleaved floats (:func:`phasor_table`).
+    taps : float32 array
+        Real, symmetric matched-filter taps (odd ``ntap``: ``taps[k] == taps[ntap - 1 - k]``), or
+        empty: no filter, ``out`` is the derotated block.
+    hist2 : float32 array
+        The derotated block's predecessor's last ``ntap - 1`` samples (interleaved), updated in place.
+    out2 : float32 array
+        ``n`` complex outputs, interleaved: ``out[m] = sum_k taps[k] y[m + k - ntap + 1]`` with
+        ``y[m] = gain (x[m] - dc) exp(-j (phase0 + m dphase))`` (``y`` before the block from ``hist2``).
+    mom : float64 array of 4
+        Set to the block's input moments as :func:`mean_power_nonzero` gives them (mean re, mean im,
+        mean power over the non-zero samples; non-finite when a sample is NaN or Inf) and, in
+        ``mom[3]``, the count of non-zero samples: the caller's DC and gain for the next block.
+
+    Returns
+    -------
+    float
+        The oscillator phase after the last sample, in ``[0, 2 pi)``.
+
+    Notes
+    -----
+    The phasor of sample ``m = 256 s + k`` is the exact ``exp(-j (phase0 + 256 s dphase))``
+    (cos and sin once per 256 samples, in double precision) times the table entry ``k``: no
+    recursion, so rounding cannot accumulate, the result depends only on the block, and the
+    per-sample loop has no dependency between samples (it vectorises).  The samples are
+    derotated 1024 at a time into a small buffer behind the filter's history, and the FIR runs on
+    it at once: the tap loop outside, the accumulators in L1, and the symmetric taps folded
+    (``(ntap + 1) / 2`` multiplies and ``ntap`` adds per float, half the passes over the
+    accumulators).  Cost per sample: about 12 flops for the rotation and ``3 ntap`` for the filter.
+    """
+    n = x2.shape[0] // 2
+    ntap = taps.shape[0]
+    nh = 2 * (ntap - 1) if ntap > 0 else 0
+    half = ntap // 2
+    seg = 1024
+    work = np.empty(nh + 2 * seg, dtype=np.float32)
+    for j in range(nh):
+        work[j] = hist2[j]
+    acc = np.empty(2 * seg, dtype=np.float32)
+    dcr = np.float32(dc_re)
+    dci = np.float32(dc_im)
+    zero = np.float32(0.0)
+    macc = np.zeros((3, 16), dtype=np.float64)
+    mcnt = np.zeros(16, dtype=np.int64)
+    for s0 in range(0, n, seg):
+        m = min(seg, n - s0)
+        dst = out2[2 * s0:2 * (s0 + m)] if ntap == 0 else work[nh:nh + 2 * m]
+        for b0 in range(0, m, 256):
+            ph = phase0_rad + dphase_rad * (s0 + b0)
+            pr = np.float32(gain * math.cos(ph))
+            pi_ = np.float32(-gain * math.sin(ph))
+            mb = min(256, m - b0)
+            src = x2[2 * (s0 + b0):2 * (s0 + b0 + mb)]
+            d = dst[2 * b0:2 * (b0 + mb)]
+            # the input's moments on the way (as mean_power_nonzero)
+            moment_sums(src, macc, mcnt)
+            for k in range(mb):
+                xr = src[2 * k]
+                xi = src[2 * k + 1]
+                live = (xr != zero) | (xi != zero)
+                xr = xr - dcr if live else zero
+                xi = xi - dci if live else zero
+                tr = table2[2 * k]
+                ti = table2[2 * k + 1]
+                cr = pr * tr - pi_ * ti
+                ci = pr * ti + pi_ * tr
+                d[2 * k] = xr * cr - xi * ci
+                d[2 * k + 1] = xr * ci + xi * cr
+        if ntap > 0:
+            # symmetric taps: h[k] (y[j + k] + y[j + ntap - 1 - k]) pairs halve the passes over acc
+            mm = 2 * m
+            hc = taps[half]
+            src = work[2 * half:2 * half + mm]
+            for j in range(mm):
+                acc[j] = hc * src[j]
+            for k in range(half):
+                hk = taps[k]
+                sa = work[2 * k:2 * k + mm]
+                sb = work[2 * (ntap - 1 - k):2 * (ntap - 1 - k) + mm]
+                for j in range(mm):
+                    acc[j] += hk * (sa[j] + sb[j])
+            o = out2[2 * s0:2 * s0 + mm]
+            for j in range(mm):
+                o[j] = acc[j]
+            for j in range(nh):
+                work[j] = work[mm + j]
+    for j in range(nh):
+        hist2[j] = work[j]
+    mom[3] = moment_means(macc, mcnt, mom)
+    ph_end = phase0_rad + dphase_rad * n
+    two_pi = 2.0 * math.pi
+    return ph_end - two_pi * math.floor(ph_end / two_pi)
+
+
+@njit(cache=True, nogil=True)
+def phasor_table(dphase_rad, out2):
+    """``out2`` (interleaved float32, ``len // 2`` entries) = ``exp(-j k dphase)``, ``k = 0, 1, ...``.
+
+    Exact cos and sin every 32 entries, a double-precision rotation by ``exp(-j dphase)`` between
+    them (error below 1e-14, far under float32's resolution).
+    """
+    wc = math.cos(dphase_rad)
+    ws = -math.sin(dphase_rad)
+    c = 1.0
+    s = 0.0
+    for k in range(out2.shape[0] // 2):
+        if k % 32 == 0:
+            c = math.cos(k * dphase_rad)
+            s = -math.sin(k * dphase_rad)
+        out2[2 * k] = c
+        out2[2 * k + 1] = s
+        c, s = c * wc - s * ws, s * wc + c * ws
+
+
+@njit(cache=True, nogil=True)
 def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
-                  out_pos, out_qpos, out_sym, out_amp, out_flags, out_theta):
+                  out_pos, out_bitpos, out_soft, out_sym, out_flags, out_theta):
     """Gardner timing recovery with a cubic (Farrow) interpolator and a symbol-rate carrier loop.
 
     Parameters
@@ -115,14 +256,23 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
         No strobe at or beyond this sample position is taken (end of the recording at flush).
     params : TRACK_PARAMS record array of length 1
         ``sps``; timing loop gains ``kp_t, ki_t``; carrier loop gains ``kp_c, ki_c, kr_c`` and the
-        first-order gain ``kp_c_wide`` used while unlocked; averaging weights ``a_amp`` (M2M4
-        amplitude), ``a_lock_c``, ``a_lock_s`` (lock detectors); carrier lock ``c_on, c_off``
-        (relative) and ``c_min`` (absolute); symbol lock ``s_on, s_off, s_min``; ``r0`` the
-        noise-free midpoint energy ratio, ``kd`` the Gardner detector gain; ``warmup`` symbols
-        averaged before any lock is declared; ``hbox > 0`` selects the exact integrate-and-dump
-        of half-width ``hbox`` samples over unfiltered samples (rect pulses) instead of the cubic
-        interpolator over matched-filter output; ``v_max`` bounds the timing rate integrator
-        (the symbol rate may differ from nominal by at most this fraction).
+        first-order gain ``kp_c_wide`` used while unlocked; ``stat_symbols`` the statistics interval
+        in nominal symbol periods, and ``l_amp`` (M2M4 amplitude), ``l_lock_c``, ``l_lock_s`` (lock
+        detectors) the logarithms ``log(1 - a)`` of per-symbol averages of weight ``a``; carrier lock
+        ``c_on, c_off`` (relative) and ``c_min`` (absolute); symbol lock ``s_on, s_off, s_min``;
+        ``r0`` the noise-free midpoint energy ratio, ``kd`` the Gardner detector gain; ``warmup``
+        symbols averaged before any lock is declared; ``hbox > 0`` selects the exact
+        integrate-and-dump of half-width ``hbox`` samples over unfiltered samples (rect pulses)
+        instead of the cubic interpolator over matched-filter output; ``v_max`` bounds the timing
+        rate integrator (the symbol rate may differ from nominal by at most this fraction);
+        ``dd_gain`` 1 scales the carrier
+        detector by the decision-directed slope at the measured Es/N0 (see Notes), 0 leaves it;
+        ``t_ref_esn0`` (linear) and ``t_min_scale``: in lock, the timing loop's bandwidth is scaled by
+        ``Es/N0 / t_ref_esn0`` when below 1, never below ``t_min_scale``; ``c_bn`` the carrier loop's
+        ``B_L T`` and ``c_loop_snr`` the loop SNR it keeps in lock (its bandwidth scaled down to
+        ``(Es/N0) S_L / c_loop_snr``, never below ``t_min_scale``: see Notes); ``gear_symbols`` the
+        symbols of lock after which they apply; ``c_hold`` the symbols in a row the carrier lock
+        condition must hold before lock is declared.
     mod_code : int
         0 BPSK, 1 QPSK, 2 OQPSK.
     third_order : int
@@ -130,20 +280,30 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     state : TRACK_STATE record array of length 1, updated in place
         ``t`` next half-strobe (samples), ``v_int`` timing rate integrator, ``theta`` carrier
         phase (rad, unwrapped), ``w_int`` carrier frequency integrator (rad/symbol), ``w_rate``
-        carrier rate integrator, ``p1r .. p3i`` the previous three half-strobe values, ``m2s, m4s,
-        wsum`` EMA sums of ``|r|^2``, ``|r|^4`` and their weight, ``cnum, cden`` carrier-lock EMAs,
-        ``eon, emid`` on-time / midpoint energy EMAs, ``amp`` amplitude, ``t_on`` position of the
-        pending on-time strobe, ``m2f, m4f, wf`` the M2M4 EMAs over the carrier-lock window;
-        ``parity`` (0 = the next half-strobe is on-time), ``clock`` / ``slock`` carrier / symbol
-        lock, ``seen`` symbols seen (saturating at ``warmup``), ``cgood`` consecutive symbols
-        meeting the lock condition; ``ph_cos, ph_sin`` the carrier phasor at phase ``ph_theta``,
-        ``ph_count`` half-strobes since it was last recomputed exactly.
-    out_pos, out_qpos, out_sym, out_amp, out_flags, out_theta
-        Per symbol: position of the on-time (I) strobe (samples), position of the strobe the Q
-        value was taken at (OQPSK: the midpoint strobe half a symbol later; else ``out_pos``),
-        carrier-corrected symbol divided by the amplitude estimate (noise-free symbols about unit
-        magnitude), the amplitude estimate, flags (bit 0 carrier lock, bit 1 symbol lock), carrier
-        phase.  All of one length ``cap``.
+        carrier rate integrator, ``p1r .. p3i`` the previous three half-strobe values (carrier-corrected;
+        BPSK/QPSK midpoints as interpolated), ``q1r .. q3i`` the last two on-time values as
+        interpolated (BPSK/QPSK timing detector), ``t_on``
+        position of the pending on-time strobe, ``parity`` (0 = the next half-strobe is on-time),
+        ``pend_ec, pend_et`` the normalised carrier and timing errors of the last symbol, which the
+        loops take at the next one;
+        the statistics: ``m2s, m4s, wsum`` averages of ``|r|^2``, ``|r|^4`` and their weight,
+        ``cnum, cden`` carrier-lock averages, ``m2f, m4f, wf`` the M2M4 averages over the
+        carrier-lock window, ``eon, emid`` on-time / midpoint energy averages, ``amp`` the
+        amplitude, ``inv_amp`` its inverse, ``kdc`` the carrier detector's slope, ``clock`` /
+        ``slock`` carrier / symbol lock, ``seen`` symbols seen (saturating at ``warmup``),
+        ``cgood`` symbols in a row meeting the lock condition; the sums of the statistics
+        interval in progress ``acc_n, acc_r2, acc_r4, acc_q, acc_mid``; the block sums for the
+        Es/N0 estimate ``blk_n, blk_m2, blk_m4`` (of ``|r|^2`` and ``|r|^4``, reset by the caller);
+        ``ph_cos, ph_sin`` the carrier phasor at phase ``ph_theta``, ``ph_count`` half-strobes
+        since it was last recomputed exactly.
+    out_pos, out_bitpos, out_soft, out_sym, out_flags, out_theta
+        Per symbol (length ``cap``): position of the on-time (I) strobe (samples); per channel bit
+        (length ``cap`` for BPSK, ``2 cap`` for QPSK/OQPSK, I then Q): the position of the strobe it
+        was taken at (OQPSK: the Q bit's midpoint strobe half a symbol later; BPSK may pass
+        ``out_pos`` itself) and the soft value (the normalised symbol's real part, QPSK/OQPSK its
+        real and imaginary parts times ``sqrt 2``); per symbol the carrier-corrected symbol divided by
+        the amplitude estimate (noise-free symbols about unit magnitude), flags (bit 0 carrier lock,
+        bit 1 symbol lock) and the carrier phase.
 
     Returns
     -------
@@ -153,18 +313,48 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
 
     Notes
     -----
-    Two interpolants per symbol (on-time and midpoint) are taken at ``t`` by a cubic Lagrange
-    interpolator in Farrow form; the strobe advances by ``sps (1 - v) / 2`` per half-strobe with
-    the proportional timing correction applied once per symbol.  Timing error (Gardner 1986)
-    ``e = Re{m^* (s_k - s_{k-1})}`` (OQPSK: I and Q each with their own midpoint), normalised by
+    The serial loop holds only the interpolator, the two detectors and the loop filters.  Two
+    interpolants per symbol (on-time and midpoint) are taken at ``t`` by a cubic Lagrange
+    interpolator (four weights from ``mu``, shared by I and Q); the strobe advances by
+    ``sps (1 - v) / 2`` per half-strobe with the proportional timing correction applied once per
+    symbol.  Timing error (Gardner 1986) ``e = Re{m^* (s_k - s_{k-1})}``, which does not depend on
+    a common phase, so BPSK/QPSK take it on the values as interpolated and only the on-time value
+    is carrier-corrected (OQPSK: I and Q each with their own midpoint, all corrected), normalised by
     ``A^2 K_D`` and clipped to +-1; ``|v| <= v_max``.  So a symbol advances the strobe by at least
     ``sps (1 - v_max - kp_t)`` samples, and a call writes at most ``len(mf) / (sps (1 - v_max - kp_t))
     + 2`` symbols (the bound the wrapper sizes the buffers by).  Carrier error: decision-directed
     Costas, ``sgn(I) Q`` (BPSK), ``sgn(I) Q - sgn(Q) I`` over ``sqrt(2) A`` (QPSK; OQPSK takes I and
-    Q at their own strobes), so its slope is 1 rad/rad.  While the carrier is unlocked the loop runs
-    first order with a wider gain and both integrators hold their value (coasting through fades).
-    Amplitude from the M2M4 moments (``S = sqrt(2 M2^2 - M4)``), which need no carrier or decisions.
-    Cost: two interpolations and about 80 flops per symbol.
+    Q at their own strobes), divided by the detector's slope ``kdc`` so that the loop's gain, and
+    its bandwidth, hold at low Es/N0.  While the carrier is unlocked the loop runs first order with
+    a wider gain and both integrators hold their value (coasting through fades).
+
+    Amplitude, lock detectors and their averages are updated from sums the loop accumulates, once
+    per interval of ``stat_symbols`` nominal symbol periods on the recording's sample grid (a
+    symbol whose on-time strobe enters a new interval closes the last one; every 8 symbols during
+    the warm-up), so that two receivers that have converged on the same signal (the segments of a
+    recording) update at the same symbols.  An average of weight ``a`` per symbol becomes one of
+    weight ``1 - (1 - a)^n`` over ``n`` symbols; the symbols of an interval are normalised by, and
+    flagged with, what the intervals before gave.  Amplitude from the M2M4 moments
+    (``S = sqrt(2 M2^2 - M4)``), which need no carrier or decisions.  The decision-directed slope
+    at ``Es/N0 = S / (M2 - S)``: ``erf(sqrt(Es/N0))`` (BPSK) and ``erf(sqrt(Es/2N0))`` (QPSK).
+
+    Loop bandwidths from Es/N0 (once lock has been held for ``gear_symbols``; the full ones before,
+    so that the loops pull in): the timing loop's noise
+    grows as ``1 / (Es/N0)`` at low Es/N0, so its bandwidth is scaled by ``Es/N0 / t_ref_esn0``
+    below ``t_ref_esn0``; the carrier loop keeps a loop SNR of at least ``c_loop_snr`` where the
+    configured bandwidth would not, ``B_L T <= (Es/N0) S_L / rho`` with the Costas squaring loss
+    ``S_L = 1 / (1 + 1 / (2 Es/N0))`` (BPSK) and ``1 / (1 + 9 / (2 x) + 6 / x^2 + 3 / (2 x^3))``,
+    ``x = Es/N0`` (QPSK; from memory, not confirmed).  Gains scale as ``kp ~ s``, ``ki ~ s^2``,
+    ``kr ~ s^3`` (the damping stays).
+    Cost: two interpolations and about 60 flops per symbol, plus about 100 flops per interval.
+
+    References
+    ----------
+    F. M. Gardner, "A BPSK/QPSK timing-error detector for sampled receivers", IEEE Trans. Commun.
+    COM-34 (1986) 423-429; U. Mengali, A. N. D'Andrea, *Synchronization Techniques for Digital
+    Receivers* (1997), sec. 5.7 (decision-directed phase detectors, their S-curve slope);
+    W. C. Lindsey, M. K. Simon, *Telecommunication Systems Engineering* (1973), ch. 2 (Costas loop
+    squaring loss).
     """
     n_mf = mf.shape[0]
     cap = out_pos.shape[0]
@@ -176,9 +366,10 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     ki_c = pr["ki_c"]
     kr_c = pr["kr_c"]
     kp_c_wide = pr["kp_c_wide"]
-    a_amp = pr["a_amp"]
-    a_lc = pr["a_lock_c"]
-    a_ls = pr["a_lock_s"]
+    inv_span = 1.0 / (pr["stat_symbols"] * sps)
+    l_amp = pr["l_amp"]
+    l_lc = pr["l_lock_c"]
+    l_ls = pr["l_lock_s"]
     c_on = pr["c_on"]
     c_off = pr["c_off"]
     c_min = pr["c_min"]
@@ -190,6 +381,13 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     warmup = pr["warmup"]
     hbox = pr["hbox"]
     v_max = pr["v_max"]
+    dd_gain = pr["dd_gain"]
+    t_ref = pr["t_ref_esn0"]
+    t_min = pr["t_min_scale"]
+    c_bn = pr["c_bn"]
+    c_rho = pr["c_loop_snr"]
+    gear = pr["gear_symbols"]
+    c_hold = pr["c_hold"]
     look = int(hbox + 0.5) + 2 if hbox > 0.0 else 2
 
     st = state[0]
@@ -204,28 +402,47 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     p2i = st["p2i"]
     p3r = st["p3r"]
     p3i = st["p3i"]
-    m2s = st["m2s"]
-    m4s = st["m4s"]
-    wsum = st["wsum"]
-    cnum = st["cnum"]
-    cden = st["cden"]
-    eon = st["eon"]
-    emid = st["emid"]
-    amp = st["amp"]
     t_on = st["t_on"]
-    m2f = st["m2f"]
-    m4f = st["m4f"]
-    wf = st["wf"]
     parity = st["parity"]
+    pend_ec = st["pend_ec"]
+    pend_et = st["pend_et"]
+    inv_amp = st["inv_amp"]
+    kdc = st["kdc"]
     clock = st["clock"]
     slock = st["slock"]
-    seen = st["seen"]
-    cgood = st["cgood"]
+    acc_n = st["acc_n"]
+    cur_epoch = st["stat_epoch"]
+    acc_r2 = st["acc_r2"]
+    acc_r4 = st["acc_r4"]
+    acc_q = st["acc_q"]
+    acc_mid = st["acc_mid"]
+    blk_n = st["blk_n"]
+    blk_m2 = st["blk_m2"]
+    blk_m4 = st["blk_m4"]
 
+    q1r = st["q1r"]
+    q1i = st["q1i"]
+    q3r = st["q3r"]
+    q3i = st["q3i"]
     inv_sqrt2 = 1.0 / math.sqrt(2.0)
-    third = 1.0 / 3.0
+    sqrt2 = math.sqrt(2.0)
     sixth = 1.0 / 6.0
+    u1 = np.uint64(1)
+    u2 = np.uint64(2)
+    u3 = np.uint64(3)
     inv_kd = 1.0 / kd
+    flags = clock + 2 * slock
+    # the loops' normalisation: carrier error / (A kdc), timing error / (A^2 K_D); the timing loop's
+    # bandwidth scale and its gains
+    g_c = inv_amp / kdc
+    g_t = inv_amp * inv_amp * inv_kd
+    t_scale = st["t_scale"]
+    kp_tl = kp_t * t_scale
+    ki_tl = ki_t * t_scale * t_scale
+    c_scale = st["c_scale"]
+    kp_cl = kp_c * c_scale
+    ki_cl = ki_c * c_scale * c_scale
+    kr_cl = kr_c * c_scale * c_scale * c_scale
     nout = 0
     # carrier phasor exp(j theta_ph): advanced by small-angle rotations and recomputed exactly every 64
     # half-strobes, so it never drifts from theta by more than ~1e-7 rad; kept in the state, so the
@@ -262,45 +479,53 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                     vr += wgt * float(xs.real)
                     vi += wgt * float(xs.imag)
         else:
+            # cubic Lagrange interpolator through samples -1, 0, 1, 2: weights from mu in double
+            # precision, shared by I and Q, and the sums in single precision, the samples' own (an
+            # unsigned index: i - 1 >= look - 1 > 0 here, and no negative-index wrap is compiled)
             mu = t - m
-            a0 = mf[i - 1]
-            a1 = mf[i]
-            a2 = mf[i + 1]
-            a3 = mf[i + 2]
-            x0r = float(a0.real)
-            x1r = float(a1.real)
-            x2r = float(a2.real)
-            x3r = float(a3.real)
-            x0i = float(a0.imag)
-            x1i = float(a1.imag)
-            x2i = float(a2.imag)
-            x3i = float(a3.imag)
-            # Farrow coefficients of the cubic Lagrange interpolator (multiplications, not divisions)
-            c1r = -third * x0r - 0.5 * x1r + x2r - sixth * x3r
-            c2r = 0.5 * x0r - x1r + 0.5 * x2r
-            c3r = sixth * (x3r - x0r) + 0.5 * (x1r - x2r)
-            c1i = -third * x0i - 0.5 * x1i + x2i - sixth * x3i
-            c2i = 0.5 * x0i - x1i + 0.5 * x2i
-            c3i = sixth * (x3i - x0i) + 0.5 * (x1i - x2i)
-            vr = x1r + mu * (c1r + mu * (c2r + mu * c3r))
-            vi = x1i + mu * (c1i + mu * (c2i + mu * c3i))
-        d = theta - theta_ph
-        if nresync >= 64 or d > 0.3 or d < -0.3:
-            cs = math.cos(theta)
-            sn = math.sin(theta)
-            nresync = 0
+            iu = np.uint64(i - 1)
+            a0 = mf[iu]
+            a1 = mf[iu + u1]
+            a2 = mf[iu + u2]
+            a3 = mf[iu + u3]
+            mp1 = mu + 1.0
+            mm1 = mu - 1.0
+            mm2 = mu - 2.0
+            b_c = mu * mm1
+            a_d = mp1 * mm2
+            h0 = np.float32(-sixth * b_c * mm2)
+            h1 = np.float32(0.5 * a_d * mm1)
+            h2 = np.float32(-0.5 * a_d * mu)
+            h3 = np.float32(sixth * mp1 * b_c)
+            vr = float(h0 * a0.real + h1 * a1.real + h2 * a2.real + h3 * a3.real)
+            vi = float(h0 * a0.imag + h1 * a1.imag + h2 * a2.imag + h3 * a3.imag)
+        if parity == 0 or mod_code == 2:
+            d = theta - theta_ph
+            if nresync >= 64 or d > 0.3 or d < -0.3:
+                cs = math.cos(theta)
+                sn = math.sin(theta)
+                nresync = 0
+            else:
+                d2 = d * d
+                cd = 1.0 - d2 * (0.5 - d2 / 24.0)
+                sd = d * (1.0 - d2 / 6.0)
+                cs, sn = cs * cd - sn * sd, sn * cd + cs * sd
+                nresync += 1
+            theta_ph = theta
+            wr = vr * cs + vi * sn
+            wi = vi * cs - vr * sn
         else:
-            d2 = d * d
-            cd = 1.0 - d2 * (0.5 - d2 / 24.0)
-            sd = d * (1.0 - d2 / 6.0)
-            cs, sn = cs * cd - sn * sd, sn * cd + cs * sd
-            nresync += 1
-        theta_ph = theta
-        wr = vr * cs + vi * sn
-        wi = vi * cs - vr * sn
+            # BPSK/QPSK midpoint: the Gardner detector and the midpoint energy do not depend on a
+            # common phase, so it is taken as interpolated (with the on-time values as interpolated)
+            wr = vr
+            wi = vi
 
         if parity == 0:
             t_on = t
+            q3r = q1r
+            q3i = q1i
+            q1r = vr
+            q1i = vi
             t += 0.5 * sps * (1.0 - v_int)
         else:
             # symbol k complete: w[2k] = p1, w[2k-1] = p2, w[2k-2] = p3, w[2k+1] = (wr, wi)
@@ -315,7 +540,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
             else:
                 sr = p1r
                 sq = p1i
-                et = p2r * (p1r - p3r) + p2i * (p1i - p3i)
+                et = p2r * (q1r - q3r) + p2i * (q1i - q3i)
                 mid_e = p2r * p2r + p2i * p2i
                 sg_i = 1.0 if sr >= 0.0 else -1.0
                 if mod_code == 0:
@@ -323,111 +548,204 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 else:
                     sg_q = 1.0 if sq >= 0.0 else -1.0
                     ec_raw = (sg_i * sq - sg_q * sr) * inv_sqrt2
-            r2 = sr * sr + sq * sq
-            # the loops are normalised by the amplitude of the previous symbol: it changes slowly,
-            # and this keeps the square roots and division off the loops' critical path
-            inv_amp_loop = 1.0 / amp
+            sr2 = sr * sr
+            sq2 = sq * sq
+            r2 = sr2 + sq2
+            r4 = r2 * r2
+            # ---- the statistics: when the symbol enters a new interval of stat_symbols symbol periods on
+            # the recording's sample grid (so that segments of a recording update at the same symbols), and
+            # every 8 symbols during the warm-up; off the loops' critical path ----
+            epoch = int(math.floor(t_on * inv_span))
+            if acc_n > 0 and (epoch != cur_epoch or (acc_n >= 8 and st["seen"] + acc_n < warmup)):
+                inv_n = 1.0 / acc_n
+                d_amp = math.exp(acc_n * l_amp)
+                d_lc = math.exp(acc_n * l_lc)
+                d_ls = math.exp(acc_n * l_ls)
+                mr2 = acc_r2 * inv_n
+                mr4 = acc_r4 * inv_n
+                # amplitude from the M2M4 moments
+                m2s = d_amp * st["m2s"] + (1.0 - d_amp) * mr2
+                m4s = d_amp * st["m4s"] + (1.0 - d_amp) * mr4
+                wsum = d_amp * st["wsum"] + (1.0 - d_amp)
+                st["m2s"] = m2s
+                st["m4s"] = m4s
+                st["wsum"] = wsum
+                m2 = m2s / wsum
+                m4 = m4s / wsum
+                s2 = 2.0 * m2 * m2 - m4
+                s_floor = 0.05 * m2
+                sig = math.sqrt(s2) if s2 > s_floor * s_floor else s_floor
+                if sig > 1e-30:
+                    # nothing but zeros so far (erasures, a silent start): the amplitude is kept
+                    amp = math.sqrt(sig)
+                    inv_amp = 1.0 / amp
+                    st["amp"] = amp
+                esn0 = sig / (m2 - sig) if m2 > sig else 1e3
+                if dd_gain > 0.0:
+                    # decision-directed slope at the measured Es/N0 (never below 0.3)
+                    kdc = math.erf(math.sqrt(esn0 if mod_code == 0 else 0.5 * esn0))
+                    if kdc < 0.3:
+                        kdc = 0.3
+                g_c = inv_amp / kdc
+                g_t = inv_amp * inv_amp * inv_kd
 
-            # amplitude from bias-corrected EMAs of the M2M4 moments
-            m2s = (1.0 - a_amp) * m2s + a_amp * r2
-            m4s = (1.0 - a_amp) * m4s + a_amp * r2 * r2
-            wsum = (1.0 - a_amp) * wsum + a_amp
-            inv_w = 1.0 / wsum
-            m2 = m2s * inv_w
-            m4 = m4s * inv_w
-            s2 = 2.0 * m2 * m2 - m4
-            s_floor = 0.05 * m2
-            sig = math.sqrt(s2) if s2 > s_floor * s_floor else s_floor
-            amp = math.sqrt(sig) if sig > 1e-30 else 1e-15
-
-            # carrier-lock statistic: Re(r^2) (BPSK) or -Re(r^4) (QPSK), relative to its locked
-            # value, which comes from M2M4 moments averaged over the same window (a longer one
-            # would lag at a signal's onset and make a slipping loop look locked).  The ratios
-            # are compared cross-multiplied, so no division is needed.
-            m2f = (1.0 - a_lc) * m2f + a_lc * r2
-            m4f = (1.0 - a_lc) * m4f + a_lc * r2 * r2
-            wf = (1.0 - a_lc) * wf + a_lc
-            # the weight cancels in every ratio below, so the unnormalised sums are used
-            s2w = 2.0 * m2f * m2f - m4f * wf
-            if mod_code == 0:
-                q = sr * sr - sq * sq
-                qd = r2
-                # expect = sigw / m2w; floor 0.1
-                sigw = math.sqrt(s2w) if s2w > 0.0 else 0.0
-                ref_num = sigw if sigw > 0.1 * m2f else 0.1 * m2f
-                ref_den = m2f
-            else:
-                sr2 = sr * sr
-                sq2 = sq * sq
-                q = -(sr2 * sr2 - 6.0 * sr2 * sq2 + sq2 * sq2)
-                qd = r2 * r2
-                # expect = sigw^2 / m4w; floor 0.1
-                ref_num = s2w if s2w > 0.1 * m4f * wf else 0.1 * m4f * wf
-                ref_den = m4f * wf
-            cnum = (1.0 - a_lc) * cnum + a_lc * q
-            cden = (1.0 - a_lc) * cden + a_lc * qd
-            # cnorm = (cnum / cden) / (ref_num / ref_den) compared with c_on / c_off
-            lhs = cnum * ref_den
-            if seen < warmup:
-                seen += 1
-            if clock == 0:
-                # the condition must hold for `warmup` symbols in a row: a loop slipping cycles
-                # at a large frequency error can push the statistic up for a moment
-                if lhs > c_on * ref_num * cden and cnum > c_min * cden:
-                    cgood += 1
+                # carrier-lock statistic relative to its locked value, which comes from M2M4 moments
+                # averaged over the same window (a longer one would lag at a signal's onset and make a
+                # slipping loop look locked).  The ratios are compared cross-multiplied.
+                m2f = d_lc * st["m2f"] + (1.0 - d_lc) * mr2
+                m4f = d_lc * st["m4f"] + (1.0 - d_lc) * mr4
+                wf = d_lc * st["wf"] + (1.0 - d_lc)
+                cnum = d_lc * st["cnum"] + (1.0 - d_lc) * acc_q * inv_n
+                st["m2f"] = m2f
+                st["m4f"] = m4f
+                st["wf"] = wf
+                st["cnum"] = cnum
+                # the weight cancels in every ratio below, so the unnormalised sums are used
+                s2w = 2.0 * m2f * m2f - m4f * wf
+                if mod_code == 0:
+                    cden = d_lc * st["cden"] + (1.0 - d_lc) * mr2
+                    sigw = math.sqrt(s2w) if s2w > 0.0 else 0.0
+                    ref_num = sigw if sigw > 0.1 * m2f else 0.1 * m2f
+                    ref_den = m2f
                 else:
-                    cgood = 0
-                if cgood >= warmup and seen >= warmup:
-                    clock = 1
-                    cgood = 0
-            else:
-                if lhs < c_off * ref_num * cden or cnum < 0.5 * c_min * cden:
-                    clock = 0
+                    cden = d_lc * st["cden"] + (1.0 - d_lc) * mr4
+                    ref_num = s2w if s2w > 0.1 * m4f * wf else 0.1 * m4f * wf
+                    ref_den = m4f * wf
+                st["cden"] = cden
+                lhs = cnum * ref_den
+                seen = st["seen"] + acc_n
+                if seen > warmup:
+                    seen = int(warmup)
+                st["seen"] = seen
+                if clock == 0:
+                    # the condition must hold for `c_hold` symbols in a row: a loop slipping cycles
+                    # at a large frequency error can push the statistic up for a moment
+                    if lhs > c_on * ref_num * cden and cnum > c_min * cden:
+                        st["cgood"] += acc_n
+                    else:
+                        st["cgood"] = 0
+                    if st["cgood"] >= c_hold and seen >= warmup:
+                        clock = 1
+                        st["cgood"] = 0
+                else:
+                    if lhs < c_off * ref_num * cden or cnum < 0.5 * c_min * cden:
+                        clock = 0
 
-            # symbol-lock statistic: on-time versus midpoint energy, relative to r0 S / (S + N)
-            eon = (1.0 - a_ls) * eon + a_ls * r2
-            emid = (1.0 - a_ls) * emid + a_ls * mid_e
-            diff = eon - emid
-            rho_num = sig if sig > 0.05 * m2 else 0.05 * m2
-            if slock == 0:
-                if diff * m2 > s_on * r0 * rho_num * eon and diff > s_min * eon and seen >= warmup:
-                    slock = 1
+                # symbol-lock statistic: on-time versus midpoint energy, relative to r0 S / (S + N)
+                eon = d_ls * st["eon"] + (1.0 - d_ls) * mr2
+                emid = d_ls * st["emid"] + (1.0 - d_ls) * acc_mid * inv_n
+                st["eon"] = eon
+                st["emid"] = emid
+                diff = eon - emid
+                rho_num = sig if sig > 0.05 * m2 else 0.05 * m2
+                if slock == 0:
+                    if diff * m2 > s_on * r0 * rho_num * eon and diff > s_min * eon and seen >= warmup:
+                        slock = 1
+                else:
+                    if diff * m2 < s_off * r0 * rho_num * eon or diff < 0.5 * s_min * eon:
+                        slock = 0
+                flags = clock + 2 * slock
+                # the timing loop: its full bandwidth while the carrier is unlocked (pull-in), and in
+                # lock narrowed in proportion to Es/N0 below t_ref (the detector's noise grows as
+                # 1 / (Es/N0)), to at most t_min of it
+                # (only once lock has been held for gear_symbols: the loops pull in at full bandwidth), from
+                # the Es/N0 of the lock window's moments, which follows a signal's onset sooner
+                sw = math.sqrt(s2w / (wf * wf)) if s2w > 0.0 else 0.0
+                m2w = m2f / wf if wf > 0.0 else 0.0
+                esn0 = sw / (m2w - sw) if m2w > sw else (1e3 if sw > 0.0 else 1e-3)
+                if esn0 < 1e-3:
+                    esn0 = 1e-3
+                if clock == 1:
+                    lock_age = st["lock_age"] + acc_n
+                    st["lock_age"] = lock_age
+                else:
+                    lock_age = 0
+                    st["lock_age"] = 0
+                geared = lock_age >= gear
+                t_scale = 1.0
+                if geared and slock == 1 and esn0 < t_ref:  # never narrowed while the timing is not locked
+                    t_scale = esn0 / t_ref if esn0 > t_min * t_ref else t_min
+                st["t_scale"] = t_scale
+                kp_tl = kp_t * t_scale
+                ki_tl = ki_t * t_scale * t_scale
+                # the carrier loop in lock: narrowed where the configured bandwidth would leave a loop
+                # SNR below c_loop_snr, B_L T <= (Es/N0) S_L / rho with the Costas squaring loss S_L
+                c_scale = 1.0
+                if geared:
+                    if mod_code == 0:
+                        s_l = 1.0 / (1.0 + 0.5 / esn0)
+                    else:
+                        s_l = 1.0 / (1.0 + 4.5 / esn0 + 6.0 / (esn0 * esn0) + 1.5 / (esn0 * esn0 * esn0))
+                    bn_ok = esn0 * s_l / c_rho
+                    if bn_ok < c_bn:
+                        c_scale = bn_ok / c_bn if bn_ok > t_min * c_bn else t_min
+                st["c_scale"] = c_scale
+                kp_cl = kp_c * c_scale
+                ki_cl = ki_c * c_scale * c_scale
+                kr_cl = kr_c * c_scale * c_scale * c_scale
+                acc_n = 0
+                acc_r2 = 0.0
+                acc_r4 = 0.0
+                acc_q = 0.0
+                acc_mid = 0.0
+            cur_epoch = epoch
+
+            # carrier-lock statistic: Re(r^2) (BPSK) or -Re(r^4) (QPSK)
+            if mod_code == 0:
+                acc_q += sr2 - sq2
             else:
-                if diff * m2 < s_off * r0 * rho_num * eon or diff < 0.5 * s_min * eon:
-                    slock = 0
+                acc_q -= sr2 * sr2 - 6.0 * sr2 * sq2 + sq2 * sq2
+            acc_r2 += r2
+            acc_r4 += r4
+            acc_mid += mid_e
+            acc_n += 1
+            blk_m2 += r2
+            blk_m4 += r4
+            blk_n += 1
 
             out_pos[nout] = t_on
-            out_qpos[nout] = t if mod_code == 2 else t_on
-            inv_amp = 1.0 / amp
-            out_sym[nout] = complex(sr * inv_amp, sq * inv_amp)
-            out_amp[nout] = amp
-            out_flags[nout] = clock + 2 * slock
+            yr = sr * inv_amp
+            yi = sq * inv_amp
+            if mod_code == 0:
+                out_bitpos[nout] = t_on
+                out_soft[nout] = yr
+            else:
+                out_bitpos[2 * nout] = t_on
+                out_bitpos[2 * nout + 1] = t if mod_code == 2 else t_on
+                out_soft[2 * nout] = sqrt2 * yr
+                out_soft[2 * nout + 1] = sqrt2 * yi
+            out_sym[nout] = complex(yr, yi)
+            out_flags[nout] = flags
             out_theta[nout] = theta
             nout += 1
 
+            # The loops act on the previous symbol's errors: one symbol of delay (negligible at loop
+            # bandwidths of a few thousandths of the symbol rate) takes the detectors off the strobe's
+            # and the phase's critical path, so consecutive symbols overlap in the processor.
+            ec = pend_ec
+            # the carrier error bounded far outside the detector's range (4 noise deviations at Es/N0 =
+            # -3 dB: an amplitude estimate that lags a sudden rise after silence cannot throw the
+            # phase), the timing error at +-1
+            pend_ec = min(max(ec_raw * g_c, -4.0), 4.0)
+            e_t = pend_et
+            pend_et = min(max(et * g_t, -1.0), 1.0)
             # carrier loop (phase correction takes effect from the next half-strobe)
-            ec = ec_raw * inv_amp_loop
             if clock == 1:
                 if third_order == 1:
-                    w_rate += kr_c * ec
-                w_int += ki_c * ec + w_rate
-                theta += kp_c * ec
+                    w_rate += kr_cl * ec
+                w_int += ki_cl * ec + w_rate
+                theta += kp_cl * ec
             else:
                 theta += kp_c_wide * ec
 
             # timing loop
-            e_t = et * (inv_amp_loop * inv_amp_loop * inv_kd)
-            if e_t > 1.0:
-                e_t = 1.0
-            elif e_t < -1.0:
-                e_t = -1.0
             if clock == 1:
-                v_int += ki_t * e_t
+                v_int += ki_tl * e_t
                 if v_int > v_max:
                     v_int = v_max
                 elif v_int < -v_max:
                     v_int = -v_max
-            t += 0.5 * sps * (1.0 - v_int) - sps * kp_t * e_t
+            t += 0.5 * sps * (1.0 - v_int) - sps * kp_tl * e_t
 
         p3r = p2r
         p3i = p2i
@@ -449,23 +767,27 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     st["p2i"] = p2i
     st["p3r"] = p3r
     st["p3i"] = p3i
-    st["m2s"] = m2s
-    st["m4s"] = m4s
-    st["wsum"] = wsum
-    st["cnum"] = cnum
-    st["cden"] = cden
-    st["eon"] = eon
-    st["emid"] = emid
-    st["amp"] = amp
+    st["q1r"] = q1r
+    st["q1i"] = q1i
+    st["q3r"] = q3r
+    st["q3i"] = q3i
     st["t_on"] = t_on
-    st["m2f"] = m2f
-    st["m4f"] = m4f
-    st["wf"] = wf
     st["parity"] = parity
+    st["pend_ec"] = pend_ec
+    st["pend_et"] = pend_et
+    st["inv_amp"] = inv_amp
+    st["kdc"] = kdc
     st["clock"] = clock
     st["slock"] = slock
-    st["seen"] = seen
-    st["cgood"] = cgood
+    st["acc_n"] = acc_n
+    st["stat_epoch"] = cur_epoch
+    st["acc_r2"] = acc_r2
+    st["acc_r4"] = acc_r4
+    st["acc_q"] = acc_q
+    st["acc_mid"] = acc_mid
+    st["blk_n"] = blk_n
+    st["blk_m2"] = blk_m2
+    st["blk_m4"] = blk_m4
     st["ph_cos"] = cs
     st["ph_sin"] = sn
     st["ph_theta"] = theta_ph
@@ -473,7 +795,88 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     return nout
 
 
-@njit(cache=True)
+#: Fields of :func:`block_summary`'s output record.
+BLOCK_SUMMARY = np.dtype([
+    ("mid", np.float64), ("theta_mid", np.float64), ("loop_hz_per_fs", np.float64), ("spread_per_fs", np.float64),
+    ("locked", np.int64), ("last_locked", np.int64),
+])
+
+
+@njit(cache=True, nogil=True)
+def block_summary(pos, theta, flags, n_sub, out):
+    """What a block's track point needs from its symbols, in one pass; ``out`` a BLOCK_SUMMARY record array.
+
+    ``mid`` = middle of the symbols' interval ``(pos[0] + pos[-1]) / 2`` and ``theta_mid`` the carrier
+    phase there (linear between the two symbols around it); ``loop_hz_per_fs`` the loop's mean
+    frequency ``(theta[-1] - theta[0]) / (2 pi (pos[-1] - pos[0]))`` in cycles per sample (nan below
+    64 symbols); ``spread_per_fs`` the standard deviation of the mean frequencies of ``n_sub`` equal
+    sub-intervals about a straight line fitted to them, ``n_sub - 2`` degrees of freedom (cycles
+    per sample; nan below 64 symbols); ``locked`` the symbols with carrier lock (flag bit 0) and
+    ``last_locked`` the index of the last one (-1: none).  Cost O(n).
+    """
+    n = pos.shape[0]
+    o = out[0]
+    cnt = 0
+    last = -1
+    for i in range(n):
+        if flags[i] & 1:
+            cnt += 1
+            last = i
+    o["locked"] = cnt
+    o["last_locked"] = last
+    nan = math.nan
+    o["mid"] = nan
+    o["theta_mid"] = nan
+    o["loop_hz_per_fs"] = nan
+    o["spread_per_fs"] = nan
+    if n == 0:
+        return
+    mid = 0.5 * (pos[0] + pos[n - 1])
+    k = 0
+    while k + 1 < n and pos[k + 1] < mid:
+        k += 1
+    if k + 1 < n and pos[k + 1] > pos[k]:
+        theta_mid = theta[k] + (theta[k + 1] - theta[k]) * (mid - pos[k]) / (pos[k + 1] - pos[k])
+    else:
+        theta_mid = theta[k]
+    o["mid"] = mid
+    o["theta_mid"] = theta_mid
+    if n < 64 or not pos[n - 1] > pos[0]:
+        return
+    two_pi = 2.0 * math.pi
+    o["loop_hz_per_fs"] = (theta[n - 1] - theta[0]) / (two_pi * (pos[n - 1] - pos[0]))
+    # sub-interval frequencies f_j at times t_j (two passes: centred sums, no cancellation)
+    fj = np.empty(n_sub, dtype=np.float64)
+    tj = np.empty(n_sub, dtype=np.float64)
+    for j in range(n_sub):
+        e0 = (j * (n - 1)) // n_sub
+        e1 = ((j + 1) * (n - 1)) // n_sub
+        dt = pos[e1] - pos[e0]
+        if not dt > 0.0:
+            return
+        fj[j] = (theta[e1] - theta[e0]) / (two_pi * dt)
+        tj[j] = 0.5 * (pos[e0] + pos[e1]) - mid
+    mf = 0.0
+    mt = 0.0
+    for j in range(n_sub):
+        mf += fj[j]
+        mt += tj[j]
+    mf /= n_sub
+    mt /= n_sub
+    stt = 0.0
+    stf = 0.0
+    for j in range(n_sub):
+        stt += (tj[j] - mt) * (tj[j] - mt)
+        stf += (tj[j] - mt) * (fj[j] - mf)
+    slope = stf / stt if stt > 0.0 else 0.0
+    rss = 0.0
+    for j in range(n_sub):
+        r = fj[j] - mf - slope * (tj[j] - mt)
+        rss += r * r
+    o["spread_per_fs"] = math.sqrt(rss / (n_sub - 2))
+
+
+@njit(cache=True, nogil=True)
 def nrzm_decode(soft, prev, out):
     """Soft NRZ-M to NRZ-L: ``out[i] = sgn(a) sgn(b) min(|a|, |b|)`` of successive values.
 
@@ -493,7 +896,7 @@ def nrzm_decode(soft, prev, out):
     return p
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def moments_m2m4(sym, out):
     """``out[0] = mean |r|^2``, ``out[1] = mean |r|^4`` over complex symbols (float64 sums)."""
     s2 = 0.0
@@ -511,37 +914,67 @@ def moments_m2m4(sym, out):
         out[1] = 0.0
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
+def moment_sums(x2, acc, cnt):
+    """Add the samples of ``x2`` (complex, as interleaved float32) to 16 partial sums of re, im and
+    ``|x|^2`` (``acc``, shape (3, 16), float64) and of the non-zero count (``cnt``, 16 int64).
+
+    Sample ``i`` goes to lane ``i % 16`` (the tail of a length not a multiple of 16 to lane 0), so the
+    loop vectorises and gives the same sums compiled or not; every sample enters the sums (a NaN or
+    Inf makes them non-finite)."""
+    lanes = 16
+    n = x2.shape[0] // 2
+    nb = n - n % lanes
+    for i0 in range(0, 2 * nb, 2 * lanes):
+        for j in range(lanes):
+            re = np.float64(x2[i0 + 2 * j])
+            im = np.float64(x2[i0 + 2 * j + 1])
+            p = re * re + im * im
+            acc[0, j] += re
+            acc[1, j] += im
+            acc[2, j] += p
+            cnt[j] += 1 if p > 0.0 else 0
+    for i in range(nb, n):
+        re = np.float64(x2[2 * i])
+        im = np.float64(x2[2 * i + 1])
+        p = re * re + im * im
+        acc[0, 0] += re
+        acc[1, 0] += im
+        acc[2, 0] += p
+        cnt[0] += 1 if p > 0.0 else 0
+
+
+@njit(cache=True, nogil=True)
+def moment_means(acc, cnt, out):
+    """``out[:3]`` = the partial sums of :func:`moment_sums` added in lane order, divided by the count
+    (left as sums when it is 0); returns the count."""
+    total = 0
+    for j in range(cnt.shape[0]):
+        total += cnt[j]
+    for c in range(3):
+        v = 0.0
+        for j in range(cnt.shape[0]):
+            v += acc[c, j]
+        out[c] = v / total if total > 0 else v
+    return total
+
+
+@njit(cache=True, nogil=True)
 def mean_power_nonzero(x, out):
     """Over the non-zero samples of ``x`` (zeros are erasures): ``out = [mean re, mean im, mean |x|^2]``.
 
-    Returns the number of non-zero samples (``out`` is all zero when there is none).
+    Returns the number of non-zero samples (``out`` is all zero when there is none).  A NaN or Inf
+    sample makes the means non-finite (every sample enters the sums), which is how a caller sees it.
+    Sums in double precision over 16 interleaved partial sums (:func:`moment_sums`), so the loop
+    vectorises and gives the same result compiled or not; about 1 ns per sample.
     """
-    sr = 0.0
-    si = 0.0
-    acc = 0.0
-    cnt = 0
-    for i in range(x.shape[0]):
-        re = float(x[i].real)
-        im = float(x[i].imag)
-        p = re * re + im * im
-        if p > 0.0:
-            sr += re
-            si += im
-            acc += p
-            cnt += 1
-    if cnt > 0:
-        out[0] = sr / cnt
-        out[1] = si / cnt
-        out[2] = acc / cnt
-    else:
-        out[0] = 0.0
-        out[1] = 0.0
-        out[2] = 0.0
-    return cnt
+    acc = np.zeros((3, 16), dtype=np.float64)
+    cnt = np.zeros(16, dtype=np.int64)
+    moment_sums(x.view(np.float32), acc, cnt)
+    return moment_means(acc, cnt, out)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def remove_dc(x, dc_re, dc_im, out):
     """``out[n] = x[n] - dc`` for the non-zero samples of ``x``; erasures (zeros) stay zero."""
     for i in range(x.shape[0]):

@@ -56,8 +56,8 @@ _SIGN_TABLES = {inv: _sign_tables(inv) for inv in (False, True)}
 # rate 1/2: nothing to depuncture
 _NO_POSITIONS = np.zeros(0, dtype=np.int64)
 _NO_POSITIONS.flags.writeable = False
-_NO_SOFT = np.zeros(0, dtype=np.float32)  # nothing to prefetch
-_NO_SOFT.flags.writeable = False
+# nothing to prefetch; writable like the slices passed otherwise, so the kernel has one signature
+_NO_SOFT = np.zeros(0, dtype=np.float32)
 
 
 def _new_work(g2_inverted: bool = True) -> np.ndarray:

@@ -23,10 +23,6 @@ CAUTION = "Decoded data is no substitute for the mission's validated ground segm
 #: Version of the layout of ``report.json``; raised when a key changes meaning or goes away.
 SCHEMA_VERSION = 1
 
-#: Track points closer than this fraction of the usual spacing to the previous one come from a short
-#: block (the end of a stream) whose Es/N0 and frequency rest on a handful of symbols: left out.
-SHORT_BLOCK_FRACTION = 0.25
-
 #: Statuses that are not failures of a frame (any other status counts as failed).
 _NOT_FAILED = ("ok", "idle")
 
@@ -154,14 +150,13 @@ def _track_usable(tpos: np.ndarray, locked: np.ndarray) -> np.ndarray:
 
     A point's lock flags hold at its block's end, so the block was locked throughout only when the
     point before was locked too (the block in which lock was gained is partly noise; the first point of
-    the input counts as locked before).  Points after a short block are dropped (:data:`SHORT_BLOCK_FRACTION`).
+    the input counts as locked before).  A block too short to measure (the end of a stream) has an Es/N0 of
+    nan from the demodulator itself and is left out where Es/N0 is used.
     """
     if tpos.size == 0:
         return locked
-    step = np.diff(tpos, prepend=-np.inf)
-    usual = float(np.median(np.diff(tpos))) if tpos.size > 2 else 0.0
     held_before = np.concatenate([[True], locked[:-1]])
-    return locked & held_before & (step >= SHORT_BLOCK_FRACTION * usual)
+    return locked & held_before
 
 
 def _frames_missing(f: RunFacts) -> int:

@@ -28,6 +28,14 @@ Figures (all per process; "Mbit/s" = 10^6 bits per second, "Msample/s" = 10^6 co
                             :class:`pipeline.chain.BackEnd`; one segment, one process), report not built
 ``end_to_end_msps_segmented``  the same on a longer recording (several segments), 1 process;
                             ``..._2proc`` with 2 worker processes
+``end_to_end_qpsk_5msps_realtime``  real-time factor of the same decode path (1 process) on a 2 Msym/s QPSK link:
+                            r=1/2 + RS(255,223) I=5, 1115-octet TM frames, RRC 0.5, 5 Msample/s (2.5 samples
+                            per symbol), a 1 s recording at Eb/N0 6 dB; ``..._msps`` the same in Msample/s
+``warm_start_s``            a fresh ``python`` process with the numba cache present: start to the return of the
+                            first ``process_chunk`` (imports, cached kernels loaded, first chunk decoded)
+``cold_start_s``            the first decode of the demo recording in a fresh process with an empty kernel cache
+                            (``NUMBA_CACHE_DIR`` set to an empty folder): process start to the end of the decode,
+                            every kernel compiled on the way; ``cold_first_chunk_s`` to its first chunk
 ==========================  ===============================================================
 
 Since the machine may be shared, ``segmented_speedup_bound`` gives what two idle cores would reach,
@@ -37,7 +45,9 @@ from the CPU time per segment (``time.thread_time``), which other load does not 
 ``peak_rss_mb`` come from a fresh ``python`` process decoding the demo recording (numba cache
 present): the time from starting the process to the return of the first ``process_chunk`` call,
 and the process's peak resident memory.  The machine is shared, so the load average before and
-after is printed with the figures.
+after is printed with the figures.  The long-recording figures give the scaling of 1 and 2 worker
+processes (``segmented_speedup``) and its bound from per-segment CPU time (``segmented_speedup_bound``;
+``segmented_speedup_of_bound`` their ratio).
 """
 
 from __future__ import annotations
@@ -293,6 +303,26 @@ print(json.dumps({"first": first, "end": time.monotonic(), "packets": chain.back
 """
 
 
+def _child(meta: Path, out: Path, env: dict | None = None) -> tuple[float, dict]:
+    """Run the bench child decoding ``meta`` into ``out``; its start time and its JSON line."""
+    out.mkdir()
+    t0 = time.monotonic()  # CLOCK_MONOTONIC: the same clock in the child on Linux
+    proc = subprocess.run([sys.executable, "-c", _CHILD, str(meta), str(out)], capture_output=True, text=True,
+                          check=False, env=env)
+    if proc.returncode != 0:
+        raise RuntimeError(f"bench child process failed: {proc.stderr.strip().splitlines()[-1:]}")
+    return t0, json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def _cold_start(meta: Path, tmp: Path) -> dict:
+    """First decode of ``meta`` in a fresh process whose numba cache folder is empty (every kernel compiled)."""
+    cache = tmp / "empty_numba_cache"
+    cache.mkdir()
+    env = dict(os.environ, NUMBA_CACHE_DIR=str(cache))
+    t0, d = _child(meta, tmp / "cold", env)
+    return {"cold_start_s": d["end"] - t0, "cold_first_chunk_s": d["first"] - t0}
+
+
 def _fresh_process(meta: Path, tmp: Path, runs: int = 3) -> dict:
     """Warm start and peak RSS of a fresh interpreter decoding ``meta`` (the first run fills the cache)."""
     results = []
@@ -312,6 +342,32 @@ def _fresh_process(meta: Path, tmp: Path, runs: int = 3) -> dict:
             "process_total_s": min(r["process_total_s"] for r in warm),
             "peak_rss_mb": max(r["peak_rss_mb"] for r in warm),
             "cold_first_run_s": results[0]["warm_start_s"]}
+
+
+#: The 2 Msym/s QPSK link of ``end_to_end_qpsk_5msps_realtime`` (issue 19).
+QPSK_LINK = {
+    "name": "qpsk-2msym",
+    "link": {"modulation": "qpsk", "symbol_rate": 2.0e6, "pulse": "rrc", "rolloff": 0.5, "line_code": "nrz-l"},
+    "coding": {"convolutional": "1/2", "reed_solomon": 16, "interleave": 5, "randomizer": True},
+    "frames": {"kind": "tm", "length": 1115, "fecf": False, "ocf": False, "spacecraft_id": 499},
+    "simulate": {"sample_rate_hz": 5.0e6, "seconds": 1.0, "ebn0_db": 6.0, "carrier_offset_hz": 12e3,
+                 "clock_offset_ppm": 10.0, "timing_offset": 0.3,
+                 "traffic": [{"apid": 200, "length": 2000, "rate_hz": 400.0, "vcid": 1}]},
+}
+
+
+def _qpsk_link(tmp: Path, repeats: int) -> tuple[float, float, int]:
+    """Msample/s, real-time factor and packets of the QPSK link's decode (1 process)."""
+    from pipeline.profile import profile_from_dict
+    from pipeline.recording import open_recording
+    from pipeline.sim import simulate
+
+    profile = profile_from_dict(QPSK_LINK)
+    sim = simulate(profile, tmp / "qpsk", seed=3)
+    rec = open_recording(sim.meta_path)
+    msps, _, packets = _end_to_end(rec, profile, tmp / "qpsk_out", 1, repeats)
+    (tmp / "qpsk" / sim.data_path.name).unlink()
+    return msps, msps * 1e6 / rec.sample_rate_hz, packets
 
 
 def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float = 34.0, fresh_runs: int = 3,
@@ -390,6 +446,11 @@ def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float 
         res["end_to_end_msps"] = msps1
         res["end_to_end_realtime_factor"] = msps1 * 1e6 / fs
         res["end_to_end_packets"] = packets
+        say("end to end, QPSK 2 Msym/s at 5 Msample/s, 1 process")
+        q_msps, q_rt, q_packets = _qpsk_link(tmp, repeats)
+        res["end_to_end_qpsk_5msps_msps"] = q_msps
+        res["end_to_end_qpsk_5msps_realtime"] = q_rt
+        res["end_to_end_qpsk_5msps_packets"] = q_packets
         if segmented_seconds:
             say(f"overlapping segments, {segmented_seconds:g} s recording, 1 and 2 worker processes")
             sim_long = simulate(profile, tmp / "long", seconds=float(segmented_seconds), seed=2)
@@ -401,7 +462,10 @@ def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float 
             res["end_to_end_msps_segmented_2proc"] = s2
             res["segmented_speedup"] = s2 / s1
             res["segmented_speedup_bound"] = bound
+            res["segmented_speedup_of_bound"] = (s2 / s1) / bound if bound and bound == bound else float("nan")
             (tmp / "long" / sim_long.data_path.name).unlink()
+        say("fresh process: cold start (empty kernel cache)")
+        res.update(_cold_start(sim.meta_path, tmp))
         say("fresh process: warm start and peak memory")
         res.update(_fresh_process(sim.meta_path, tmp, runs=fresh_runs))
     res["load_average_after"] = [round(x, 2) for x in os.getloadavg()]
@@ -425,11 +489,15 @@ _ROWS = [
     ("frames_packets_mbps", "frames + packets (frame bits)", "Mbit/s"),
     ("end_to_end_msps", "end to end, 1 process", "Msample/s"),
     ("end_to_end_realtime_factor", "  real-time factor (1 Msample/s)", "x"),
+    ("end_to_end_qpsk_5msps_msps", "QPSK 2 Msym/s link, 5 Msample/s, 1 process", "Msample/s"),
+    ("end_to_end_qpsk_5msps_realtime", "  real-time factor", "x"),
     ("end_to_end_msps_segmented", "long recording, 1 process", "Msample/s"),
     ("end_to_end_msps_segmented_2proc", "long recording, 2 worker processes", "Msample/s"),
     ("segmented_speedup", "  speed-up over 1 process", "x"),
     ("segmented_speedup_bound", "  bound on 2 idle cores (segment CPU)", "x"),
+    ("segmented_speedup_of_bound", "  speed-up / bound", "x"),
     ("warm_start_s", "warm start to first sample", "s"),
+    ("cold_start_s", "cold start: first decode, empty kernel cache", "s"),
     ("peak_rss_mb", "peak RSS, fresh decode process", "MiB"),
 ]
 
