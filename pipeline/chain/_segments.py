@@ -185,7 +185,8 @@ class SegmentedDecode:
         self.segment_cpu_s = []
         last = -math.inf
         # core:sha512: the segments read byte ranges out of order, so the recording is hashed once, in order,
-        # in a thread of this process while they decode (started once any worker processes exist)
+        # in a thread of this process while they decode (started before the first segment in one process;
+        # with a process pool once its workers have been forked, never before a fork)
         self._check = recording.checksum()
         self._check_future = None
         try:
@@ -247,6 +248,7 @@ class SegmentedDecode:
             yield from self._dask_results(jobs)
             return
         if self.workers == 1 or len(plan) == 1:
+            self._start_check()
             for job in jobs:
                 yield decode_segment(*job)
             return
@@ -264,6 +266,7 @@ class SegmentedDecode:
                     pending.append(pool.submit(decode_segment, *job))
                     if len(pending) > workers:
                         break
+                self._start_check()  # the fork context has started every worker at the first submit
                 while pending:
                     res = pending.popleft().result()
                     nxt = next(it, None)
@@ -303,6 +306,7 @@ class SegmentedDecode:
                 pending.append(client.submit(decode_segment, *job, pure=False))
                 if len(pending) > slots:
                     break
+            self._start_check()  # the cluster's workers are processes of their own (or other machines)
             while pending:
                 res = pending.popleft().result()
                 nxt = next(it, None)

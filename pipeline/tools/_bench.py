@@ -26,11 +26,15 @@ Figures (all per process; "Mbit/s" = 10^6 bits per second, "Msample/s" = 10^6 co
 ``frames_packets_mbps``     :class:`pipeline.link.FrameParser` + :class:`pipeline.packets.PacketExtractor`
 ``end_to_end_msps``         the decode path with its sinks (:class:`pipeline.chain.SegmentedDecode` into a
                             :class:`pipeline.chain.BackEnd`; one segment, one process), report not built
+``end_to_end_msps_no_checksum``  the same with the SigMF ``core:sha512`` check off (``--no-checksum``); with
+                            it on, the check hashes the data file in a thread of its own while the decode
+                            runs (on a second core if there is one); ``sha512_msps`` that hash alone
 ``end_to_end_msps_segmented``  the same on a longer recording (several segments), 1 process;
                             ``..._2proc`` with 2 worker processes
 ``end_to_end_qpsk_5msps_realtime``  real-time factor of the same decode path (1 process) on a 2 Msym/s QPSK link:
                             r=1/2 + RS(255,223) I=5, 1115-octet TM frames, RRC 0.5, 5 Msample/s (2.5 samples
-                            per symbol), a 1 s recording at Eb/N0 6 dB; ``..._msps`` the same in Msample/s
+                            per symbol), a 1 s recording at Eb/N0 6 dB; ``..._msps`` the same in Msample/s,
+                            ``..._realtime_no_checksum`` without the sha512 check
 ``warm_start_s``            a fresh ``python`` process with the numba cache present: start to the return of the
                             first ``process_chunk`` (imports, cached kernels loaded, first chunk decoded)
 ``cold_start_s``            the first decode of the demo recording in a fresh process with an empty kernel cache
@@ -134,6 +138,22 @@ def _bench_frontend(profile, chunks, fs: float, repeats: int) -> float:
 
     once()
     return n / _best(once, repeats) / 1e6
+
+
+def _bench_sha512(path: Path, bytes_per_sample: int, repeats: int) -> float:
+    """Msample/s of the SigMF ``core:sha512`` check alone (hashlib over the data file, 4 MiB reads)."""
+    import hashlib
+
+    def once():
+        t0 = time.perf_counter()
+        h = hashlib.sha512()
+        with open(path, "rb") as fh:
+            while block := fh.read(1 << 22):
+                h.update(block)
+        h.hexdigest()
+        return time.perf_counter() - t0
+
+    return path.stat().st_size / bytes_per_sample / _best(once, repeats) / 1e6
 
 
 def _bench_viterbi(repeats: int, nbits: int = 1 << 20) -> float:
@@ -356,8 +376,9 @@ QPSK_LINK = {
 }
 
 
-def _qpsk_link(tmp: Path, repeats: int) -> tuple[float, float, int]:
-    """Msample/s, real-time factor and packets of the QPSK link's decode (1 process)."""
+def _qpsk_link(tmp: Path, repeats: int) -> tuple[float, float, int, float]:
+    """Msample/s, real-time factor and packets of the QPSK link's decode (1 process); its real-time factor
+    without the checksum."""
     from pipeline.profile import profile_from_dict
     from pipeline.recording import open_recording
     from pipeline.sim import simulate
@@ -366,8 +387,10 @@ def _qpsk_link(tmp: Path, repeats: int) -> tuple[float, float, int]:
     sim = simulate(profile, tmp / "qpsk", seed=3)
     rec = open_recording(sim.meta_path)
     msps, _, packets = _end_to_end(rec, profile, tmp / "qpsk_out", 1, repeats)
+    rec_nc = open_recording(sim.meta_path, verify_checksum=False)
+    msps_nc = _end_to_end(rec_nc, profile, tmp / "qpsk_out_nc", 1, repeats)[0]
     (tmp / "qpsk" / sim.data_path.name).unlink()
-    return msps, msps * 1e6 / rec.sample_rate_hz, packets
+    return msps, msps * 1e6 / rec.sample_rate_hz, packets, msps_nc * 1e6 / rec.sample_rate_hz
 
 
 def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float = 34.0, fresh_runs: int = 3,
@@ -444,10 +467,14 @@ def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float 
         say("end to end, 1 process")
         msps1, _, packets = _end_to_end(rec, profile, tmp, 1, repeats)
         res["end_to_end_msps"] = msps1
+        rec_nc = open_recording(sim.meta_path, verify_checksum=False)
+        res["end_to_end_msps_no_checksum"] = _end_to_end(rec_nc, profile, tmp / "nc", 1, repeats)[0]
+        res["sha512_msps"] = _bench_sha512(sim.data_path, rec.sample_format.bytes_per_sample, repeats)
         res["end_to_end_realtime_factor"] = msps1 * 1e6 / fs
         res["end_to_end_packets"] = packets
         say("end to end, QPSK 2 Msym/s at 5 Msample/s, 1 process")
-        q_msps, q_rt, q_packets = _qpsk_link(tmp, repeats)
+        q_msps, q_rt, q_packets, q_rt_nc = _qpsk_link(tmp, repeats)
+        res["end_to_end_qpsk_5msps_realtime_no_checksum"] = q_rt_nc
         res["end_to_end_qpsk_5msps_msps"] = q_msps
         res["end_to_end_qpsk_5msps_realtime"] = q_rt
         res["end_to_end_qpsk_5msps_packets"] = q_packets
@@ -489,8 +516,11 @@ _ROWS = [
     ("frames_packets_mbps", "frames + packets (frame bits)", "Mbit/s"),
     ("end_to_end_msps", "end to end, 1 process", "Msample/s"),
     ("end_to_end_realtime_factor", "  real-time factor (1 Msample/s)", "x"),
+    ("end_to_end_msps_no_checksum", "  the same without the sha512 check", "Msample/s"),
+    ("sha512_msps", "sha512 check alone (its own thread)", "Msample/s"),
     ("end_to_end_qpsk_5msps_msps", "QPSK 2 Msym/s link, 5 Msample/s, 1 process", "Msample/s"),
     ("end_to_end_qpsk_5msps_realtime", "  real-time factor", "x"),
+    ("end_to_end_qpsk_5msps_realtime_no_checksum", "  the same without the sha512 check", "x"),
     ("end_to_end_msps_segmented", "long recording, 1 process", "Msample/s"),
     ("end_to_end_msps_segmented_2proc", "long recording, 2 worker processes", "Msample/s"),
     ("segmented_speedup", "  speed-up over 1 process", "x"),
