@@ -287,6 +287,9 @@ def _cmd_decode(args) -> int:
     )
     if summary.no_lock is not None:  # said even with --quiet: the run found nothing to decode
         print(f"downlink: {summary.no_lock}", file=sys.stderr)
+    doppler_note = (summary.report.get("doppler_check") or {}).get("note")
+    if doppler_note:  # said even with --quiet: every Doppler figure of the run has the wrong sign
+        print(f"downlink: Doppler check: {doppler_note}", file=sys.stderr)
     if not args.quiet:
         print(summary.line(), file=sys.stderr)
     # standard output carries the packets with --packets-to-stdout; the report's path then goes to stderr

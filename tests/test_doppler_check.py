@@ -88,7 +88,9 @@ def _start_near_culmination(sat, station) -> float:
     return round(best_t - SECONDS / 2)
 
 
-def test_doppler_residuals_are_flat_and_show_the_oscillator_offset(tmp_path):
+def _decode_pass(tmp_path, *, conjugate: bool = False, receiver: str = ""):
+    """Simulate the pass (its samples conjugated: a spectrally inverted recording) and decode it with --tle."""
+    tmp_path.mkdir(parents=True, exist_ok=True)
     from sgp4.api import WGS72, Satrec
 
     from pipeline import decode, load_profile
@@ -111,6 +113,8 @@ def test_doppler_residuals_are_flat_and_show_the_oscillator_offset(tmp_path):
     f_t = CubicSpline(grid, f_grid)(np.arange(n) / FS)
     phase = 2 * np.pi * np.cumsum(f_t) / FS
     samples = (wave.samples * np.exp(1j * phase)).astype("<c8")
+    if conjugate:
+        samples = np.conj(samples)
     (tmp_path / "pass.sigmf-data").write_bytes(samples.tobytes())
     start = format_utc(tai_from_posix_ns(int(t0) * 1_000_000_000))
     meta = {"global": {"core:datatype": "cf32_le", "core:sample_rate": FS, "core:version": "1.2.0"},
@@ -136,6 +140,7 @@ name = "HOLLOW RIDGE"
 latitude_deg = {LAT}
 longitude_deg = {LON}
 altitude_m = {ALT_M}
+{receiver}
 """)
     prof = load_profile(tmp_path / "p.toml")
     out = tmp_path / "out"
@@ -144,13 +149,39 @@ altitude_m = {ALT_M}
 
     with open(out / "doppler.csv", newline="") as f:
         rows = [r for r in csv.DictReader(f) if r["locked"] == "True" and r["residual_hz"]]
+    return rows, summary, out
+
+
+def test_doppler_residuals_are_flat_and_show_the_oscillator_offset(tmp_path):
+    rows, summary, out = _decode_pass(tmp_path)
     assert len(rows) >= 20
     residual = np.array([float(r["residual_hz"]) for r in rows[2:]])  # the loop's pull-in left out
     assert float(np.std(residual)) < 5.0, residual
     assert abs(float(np.mean(residual)) - OSC_OFFSET_HZ) < 5.0, np.mean(residual)
     check = summary.report["doppler_check"]
     assert abs(check["mean_residual_hz"] - OSC_OFFSET_HZ) < 5.0 and check["residual_rms_hz"] < 10.0
+    assert "note" not in check and "doppler_note" not in summary.report["pass"]
     assert (out / "doppler.tdm").read_text().count("RECEIVE_FREQ_1") == sum(1 for _ in open(out / "doppler.csv")) - 1
     # the report draws the residual over the pass and explains it
     page = (out / "report.html").read_text()
     assert "Doppler residual: the measured carrier frequency minus" in page
+
+
+def test_an_inverted_spectrum_read_upright_is_named_and_declared_inversion_restores_the_doppler(tmp_path):
+    # the transmitter's samples conjugated (the receiver's I and Q swapped): BPSK decodes either way, but
+    # the measured Doppler has the wrong sign, so its residual follows twice the Doppler's change
+    rows, summary, out = _decode_pass(tmp_path / "auto", conjugate=True)
+    check = summary.report["doppler_check"]
+    assert check["rows"] >= 20
+    assert check["residual_rms_hz"] > 40.0, check
+    assert check["inverted_residual_rms_hz"] < 10.0, check
+    # flipped, the mean is the oscillator offset again: -(D + f_osc) -> D + f_osc
+    assert "spectrum_inverted = true" in check["note"] and summary.report["pass"]["doppler_note"] == check["note"]
+    assert "Doppler check:" in (out / "report.html").read_text()
+    # declared in the profile, the receiver conjugates the input and the residuals are flat as upright
+    rows, summary, out = _decode_pass(tmp_path / "declared", conjugate=True,
+                                      receiver="[receiver]\nspectrum_inverted = true")
+    check = summary.report["doppler_check"]
+    residual = np.array([float(r["residual_hz"]) for r in rows[2:]])
+    assert float(np.std(residual)) < 5.0 and abs(float(np.mean(residual)) - OSC_OFFSET_HZ) < 5.0
+    assert "note" not in check

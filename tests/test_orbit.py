@@ -224,6 +224,14 @@ def test_doppler_rows_residuals(leo_pass):
     assert comp.summary().rows == check.rows
     assert comp.summary().mean_residual_hz == pytest.approx(check.mean_residual_hz, abs=2e-6)
     assert comp.summary().residual_rms_hz == pytest.approx(check.residual_rms_hz, abs=2e-6)
+    assert comp.summary().inverted_residual_rms_hz == pytest.approx(check.inverted_residual_rms_hz, abs=2e-6)
+    # upright rows: the flipped residuals follow twice the Doppler's change, so no inversion is suggested
+    assert check.note is None and check.inverted_residual_rms_hz > 10 * check.residual_rms_hz
+    # the same pass as an inverted recording read upright measures -offset: named, and flat when flipped
+    flipped = [dict(r, carrier_offset_hz=-r["carrier_offset_hz"]) for r in rows]
+    _, inv = add_doppler_predictions(flipped, pred, downlink_frequency_hz=F_S_BAND, tuning_offset_hz=500.0)
+    assert inv.note is not None and "spectrum_inverted = true" in inv.note
+    assert inv.inverted_residual_rms_hz == pytest.approx(check.residual_rms_hz, abs=1e-6)
 
 
 def test_tle_errors(tmp_path):

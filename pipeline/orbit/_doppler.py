@@ -29,16 +29,40 @@ class DopplerCheck:
         RMS of the residuals about their mean (what is left once the constant offset is removed).
     prediction : str
         What the prediction came from (orbit file, method, station).
+    inverted_residual_rms_hz : float or None
+        The RMS about the mean had the carrier offsets' sign been flipped (a spectrally inverted recording
+        read upright measures ``-d`` for an offset ``d``).
+    note : str or None
+        Set when the flipped residuals are the flat ones (:data:`INVERSION_RATIO`): the recording's
+        spectrum is then most likely inverted and the profile should say ``spectrum_inverted = true``.
     """
 
     rows: int
     mean_residual_hz: float | None
     residual_rms_hz: float | None
     prediction: str
+    inverted_residual_rms_hz: float | None = None
+    note: str | None = None
 
     def as_dict(self) -> dict:
-        return {"rows": self.rows, "mean_residual_hz": self.mean_residual_hz,
-                "residual_rms_hz": self.residual_rms_hz, "prediction": self.prediction}
+        d = {"rows": self.rows, "mean_residual_hz": self.mean_residual_hz,
+             "residual_rms_hz": self.residual_rms_hz, "prediction": self.prediction,
+             "inverted_residual_rms_hz": self.inverted_residual_rms_hz}
+        if self.note is not None:
+            d["note"] = self.note
+        return d
+
+
+#: The flipped-sign residuals must be this many times flatter (RMS), over at least :data:`INVERSION_ROWS`
+#: rows and with the upright RMS above :data:`INVERSION_MIN_RMS_HZ`, before the check says the spectrum
+#: looks inverted (a Doppler that barely changes over the rows cannot tell the two apart).
+INVERSION_RATIO = 4.0
+INVERSION_ROWS = 10
+INVERSION_MIN_RMS_HZ = 20.0
+
+INVERSION_NOTE = ("the residuals are flat only with the measured carrier offsets' sign flipped: the recording's "
+                  "spectrum is most likely inverted; decode it again with [receiver] spectrum_inverted = true "
+                  "(the Doppler and range-rate columns are of the wrong sign until then)")
 
 
 class DopplerComparison:
@@ -58,7 +82,11 @@ class DopplerComparison:
     Notes
     -----
     The mean and the RMS about the mean are kept as running sums (Welford's update), so memory is
-    constant however long the pass; any split of the rows into calls gives the same summary.
+    constant however long the pass; any split of the rows into calls gives the same summary.  The same
+    sums are kept for the residuals with the carrier offset's sign flipped, ``-c + t - p``: a recording
+    whose spectrum is inverted (the receiver's I and Q swapped, or conjugated) but read upright shows a
+    Doppler of the wrong sign, whose residual follows twice the Doppler's change; flipped, it is flat.
+    BPSK and residual-carrier signals are their own mirror images, so nothing else in the chain can see it.
     """
 
     def __init__(self, *, predictor, downlink_frequency_hz: float, tuning_offset_hz: float = 0.0) -> None:
@@ -76,6 +104,8 @@ class DopplerComparison:
         self._n = 0
         self._mean = 0.0
         self._m2 = 0.0
+        self._mean_inv = 0.0
+        self._m2_inv = 0.0
 
     def process(self, rows: Iterable[dict]) -> list[dict]:
         """Copies of ``rows`` with ``predicted_hz`` and ``residual_hz`` (see :func:`add_doppler_predictions`)."""
@@ -93,6 +123,10 @@ class DopplerComparison:
                 delta = residual - self._mean
                 self._mean += delta / self._n
                 self._m2 += delta * (residual - self._mean)
+                flipped = -float(off) + self.tuning_offset_hz - predicted
+                delta = flipped - self._mean_inv
+                self._mean_inv += delta / self._n
+                self._m2_inv += delta * (flipped - self._mean_inv)
             new["residual_hz"] = None if residual is None else round(residual, 6)
             out.append(new)
         return out
@@ -101,8 +135,11 @@ class DopplerComparison:
         """Mean residual and RMS about it over every row with a residual."""
         if not self._n:
             return DopplerCheck(0, None, None, self.predictor.description)
-        return DopplerCheck(self._n, round(self._mean, 6), round(math.sqrt(self._m2 / self._n), 6),
-                            self.predictor.description)
+        rms = math.sqrt(self._m2 / self._n)
+        rms_inv = math.sqrt(self._m2_inv / self._n)
+        inverted = (self._n >= INVERSION_ROWS and rms > INVERSION_MIN_RMS_HZ and rms_inv * INVERSION_RATIO < rms)
+        return DopplerCheck(self._n, round(self._mean, 6), round(rms, 6), self.predictor.description,
+                            round(rms_inv, 6), INVERSION_NOTE if inverted else None)
 
 
 def add_doppler_predictions(rows: Iterable[dict], predictor, *, downlink_frequency_hz: float,

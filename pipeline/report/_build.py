@@ -251,6 +251,8 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fl
         "time_known": time_known,
         "ert_definition": f.recording_info.get("ert_definition"),
     }
+    if f.doppler_check and f.doppler_check.get("note"):
+        verdict["doppler_note"] = f.doppler_check["note"]
     return verdict
 
 

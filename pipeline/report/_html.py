@@ -320,9 +320,13 @@ def _verdict_html(v: dict, ber: dict | None, anchor: str) -> str:
     time_txt = ("Time is known: ERT and the times above are UTC. " if known else
                 "Time is unknown: the recording carries no start time, so no ERT is given and times are seconds "
                 "from its start. ")
+    note = v.get("doppler_note")
+    if note and cls == "":
+        cls = "warn"
+    note_html = f'<p class="time"><strong>Doppler check:</strong> {_esc(note)}.</p>' if note else ""
     return (f'<section id="{anchor}" class="verdict {cls}"><h2>Verdict</h2>'
             f'<p class="headline">{headline}</p><dl class="cards">{body}</dl>'
-            f'<p class="time">{_esc(time_txt)}{_esc(_sentence(v.get("ert_definition")))}</p></section>')
+            f'<p class="time">{_esc(time_txt)}{_esc(_sentence(v.get("ert_definition")))}</p>{note_html}</section>')
 
 
 # ---- figures and tables -------------------------------------------------------------------------
