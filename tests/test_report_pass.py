@@ -152,6 +152,7 @@ def test_esn0_and_carrier_only_while_locked(recorded_pass):
     # the block in which lock was gained would read many dB lower: the minimum shows none was counted
     assert abs(v["esn0_db_mean"] - ESN0_DB) < 1.0, v
     assert v["esn0_db_min"] > ESN0_DB - 1.5, v
+    assert "carrier_cn0_dbhz_mean" not in v  # a suppressed carrier has no residual carrier to measure
     # the carrier ramps -650 Hz + 30 Hz/s from the first sample (demod_signals.modulate)
     lo = CARRIER_HZ + DOPPLER_RATE * v["first_lock_s"]
     hi = CARRIER_HZ + DOPPLER_RATE * v["last_lock_s"]

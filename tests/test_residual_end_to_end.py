@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 
+import numpy as np
 import pytest
 
 from pipeline import decode
@@ -88,6 +89,19 @@ def test_residual_recording_decodes_every_packet(tmp_path, case):
     ends = (2500.0, 2500.0 + rate * prof.simulate.seconds)
     for key in ("carrier_offset_hz_first", "carrier_offset_hz_last"):
         assert min(ends) - 5.0 < report["demod"][key] < max(ends) + 5.0
+    # the verdict's residual-carrier Pc/N0 against the power split of phase modulation: a +-1 waveform
+    # leaves cos^2(m) in the carrier and sin^2(m) in the data; a sine subcarrier J0(m)^2 and 2 J1(m)^2
+    # (Jacobi-Anger expansion, Abramowitz & Stegun 9.1.42: section number from memory, not confirmed), so
+    # Pc/N0 = Es/N0 Rs Pc/Pd with Es/N0 the simulator's (it refers to the data power)
+    from scipy.special import j0, j1
+
+    m = prof.link.modulation_index_rad
+    split = j0(m) ** 2 / (2 * j1(m) ** 2) if CASES[case].get("wave") == "sine" else (np.cos(m) / np.sin(m)) ** 2
+    want_cn0 = sim.esn0_db + 10 * np.log10(prof.link.symbol_rate_baud * split)
+    verdict = report["pass"]
+    assert verdict["carrier_cn0_dbhz_mean"] == pytest.approx(want_cn0, abs=0.5)
+    assert verdict["carrier_cn0_dbhz_min"] <= verdict["carrier_cn0_dbhz_mean"]
+    assert "Residual carrier Pc/N0 while locked" in (out / "report.html").read_text()
     # the SigMF core:frequency carries the profile's downlink frequency
     meta = json.loads(sim.meta_path.read_text())
     assert meta["captures"][0]["core:frequency"] == pytest.approx(8.42e9)

@@ -37,6 +37,7 @@ class TrackLog:
     symbol_locked: list = field(default_factory=list)
     modulation_index_rad: list = field(default_factory=list)
     residual_hz: list = field(default_factory=list)  # measured - predicted Doppler (--tle/--oem), NaN where none
+    cn0_dbhz: list = field(default_factory=list)  # residual carrier's Pc/N0 (dB-Hz), NaN where none
 
     def append(self, tp) -> None:
         self.position.append(float(tp.position))
@@ -44,7 +45,9 @@ class TrackLog:
         self.esn0_db.append(float(tp.esn0_db))
         self.carrier_locked.append(bool(tp.carrier_locked))
         self.symbol_locked.append(bool(tp.symbol_locked))
-        m = getattr(tp, "modulation_index_rad", None)  # residual-carrier track points only
+        c = getattr(tp, "cn0_dbhz", None)  # residual-carrier track points only
+        self.cn0_dbhz.append(float(c) if c is not None else math.nan)
+        m = getattr(tp, "modulation_index_rad", None)
         if m is not None and math.isfinite(float(m)):
             self.modulation_index_rad.append(float(m))
 
@@ -63,6 +66,9 @@ class TrackLog:
                "esn0_db": np.asarray(self.esn0_db), "locked": locked}
         if self.residual_hz:
             out["residual_hz"] = np.asarray(self.residual_hz, np.float64)
+        cn0 = np.asarray(self.cn0_dbhz, np.float64)
+        if np.isfinite(cn0).any():
+            out["cn0_dbhz"] = cn0
         return out
 
 

@@ -48,7 +48,8 @@ class RunFacts:
     sync_events, demod_events : list of dict
         Synchronizer events and receiver lock changes, each with a ``position``.
     track : dict of arrays
-        ``position`` (samples), ``carrier_hz``, ``esn0_db``, ``locked`` per track point.
+        ``position`` (samples), ``carrier_hz``, ``esn0_db``, ``locked`` per track point; ``cn0_dbhz``
+        (residual carrier's Pc/N0, NaN where none) when the receiver measures it, ``residual_hz`` with an orbit.
     modulation_index_rad : list of float
         Residual-carrier modulation-index estimates.
     position_rate_hz : float
@@ -251,6 +252,13 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fl
         "time_known": time_known,
         "ert_definition": f.recording_info.get("ert_definition"),
     }
+    cn0 = np.asarray(f.track.get("cn0_dbhz", ()), dtype=np.float64)
+    if cn0.size == usable.size and cn0.size:
+        # residual carrier: Pc/N0 over the blocks used for Es/N0 (mean of the power ratio)
+        good_cn0 = cn0[usable & np.isfinite(cn0)]
+        verdict["carrier_cn0_dbhz_mean"] = (_round(10 * np.log10(np.mean(10 ** (good_cn0 / 10))), 2)
+                                            if good_cn0.size else None)
+        verdict["carrier_cn0_dbhz_min"] = _round(np.min(good_cn0), 2) if good_cn0.size else None
     if f.doppler_check and f.doppler_check.get("note"):
         verdict["doppler_note"] = f.doppler_check["note"]
     return verdict

@@ -314,6 +314,10 @@ def _verdict_html(v: dict, ber: dict | None, anchor: str) -> str:
         ("Carrier offset while locked", *carrier),
         ("Bit error rate (estimated)", ber_main, ber_sub),
     ]
+    if "carrier_cn0_dbhz_mean" in v:  # residual carrier only
+        cn0_mean, cn0_min = v.get("carrier_cn0_dbhz_mean"), v.get("carrier_cn0_dbhz_min")
+        cards.append(("Residual carrier Pc/N0 while locked", f"mean {_num(cn0_mean, '.1f', 'dB-Hz')}",
+                      f"worst {_num(cn0_min, '.1f', 'dB-Hz')}" if cn0_mean is not None else "not measured"))
     body = "".join(f'<div class="{"wide" if i == 0 else "card"}"><dt>{_esc(t)}</dt><dd>{main}<small>{sub}</small>'
                    "</dd></div>" for i, (t, main, sub) in enumerate(cards))
     known = v.get("time_known")
