@@ -818,7 +818,7 @@ def _block_code_rules(p: LinkProfile, decoder: str, k: int, length_rule: str) ->
 
 
 def _validate_turbo(p: LinkProfile, source: str) -> None:
-    L, C, F = p.link, p.coding, p.frames
+    C, F = p.coding, p.frames
     k = C.turbo_k
     # CCSDS 131.0-B sec. 6.2: one transfer frame per codeword, FECF required (sec. 6.2.2); the turbo code
     # replaces the convolutional and Reed-Solomon codes (sec. 2).  Every rule is checked at once so the one
@@ -826,9 +826,6 @@ def _validate_turbo(p: LinkProfile, source: str) -> None:
     wrong = _block_code_rules(p, "turbo", k, "turbo_k / 8")
     if not F.fecf:
         wrong.append("[frames] fecf must be true (CCSDS 131.0-B sec. 6.2.2)")
-    if L.modulation in ("qpsk", "oqpsk"):
-        wrong.append(f"[link] modulation must be bpsk, pcm-pm or pcm-psk-pm, not {L.modulation!r} (the QPSK "
-                     "rotation search does not use the turbo markers yet)")
     _check(not wrong, source, f'[coding] turbo = "{C.turbo}" (k = {k}) needs: ' + "; ".join(wrong))
 
 

@@ -289,7 +289,6 @@ def test_turbo_k_and_frame_length_pairs():
     ({"coding": {"convolutional": "1/2", "reed_solomon": 8}, "frames": {"fecf": False}},
      ['convolutional must be "none"', "reed_solomon must be 0", "fecf must be true"]),
     ({"link": {"line_code": "nrz-m"}}, ["line_code must be"]),
-    ({"link": {"modulation": "qpsk"}}, ["modulation must be bpsk"]),
 ])
 def test_turbo_rules_are_one_error(over, fragments):
     with pytest.raises(ProfileError) as info:
@@ -361,6 +360,12 @@ def test_ldpc_rules_are_one_error(code, over, fragments):
     assert msg.startswith("t.toml: " + head) and "\n" not in msg
     for f in fragments:
         assert f in msg
+
+
+def test_turbo_links_on_qpsk_and_oqpsk_are_accepted():
+    # the rotation search finds the turbo marker by soft correlation (pipeline.sync.BranchSync, correlation="soft")
+    assert _turbo("1/2", 1784, link={"modulation": "qpsk"}).link.modulation == "qpsk"
+    assert _turbo("1/6", 8920, link={"modulation": "oqpsk"}).link.modulation == "oqpsk"
 
 
 def test_ldpc_links_on_qpsk_and_with_fecf_are_accepted():

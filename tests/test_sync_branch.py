@@ -328,6 +328,77 @@ def test_uncoded_qpsk_phase_jump_and_chunking(rng):
     assert np.array_equal(b[: jump], soft[: jump]) and np.array_equal(b[k:], soft[k:])
 
 
+# ---- turbo / LDPC on QPSK: rotation by soft markers ----------------------------------------------------------
+# CCSDS 131.0-B sec. 6.4 (from memory, REFERENCES.md 13.4): the 64-bit marker of the rate-1/2 turbo code
+TURBO_R12_MARKER = bytes.fromhex("034776C7272895B0")
+
+
+def turbo_cadu_stream(rng, n_frames, codeword_bits=3576):
+    marker = np.unpackbits(np.frombuffer(TURBO_R12_MARKER, dtype=np.uint8))
+    parts = [rng.integers(0, 2, 40, dtype=np.uint8)]
+    for _ in range(n_frames):
+        parts += [marker, rng.integers(0, 2, codeword_bits, dtype=np.uint8)]
+    return np.concatenate(parts)
+
+
+def test_turbo_marker_rotated_by_90_degrees_resembles_itself():
+    # why found markers alone cannot pick the rotation: rotated, the 64-bit marker correlates with itself one bit
+    # off at 41 of 64, a normalised score of 5.125 against the search threshold of 4.98 (a plain computation)
+    from pipeline.sync import soft_search_threshold
+
+    s = 1.0 - 2.0 * np.unpackbits(np.frombuffer(TURBO_R12_MARKER, dtype=np.uint8)).astype(np.float64)
+    r = rotate(s.astype(np.float32), 1).astype(np.float64)
+    best = np.max(np.abs(np.correlate(np.concatenate((np.zeros(64), r, np.zeros(64))), s, "valid"))) / 8.0
+    assert best == pytest.approx(5.125) and best > soft_search_threshold(64)
+
+
+@pytest.mark.parametrize("transform", ["turn1", "turn2", "turn3", "mirror", "mirror_turn1"])
+@pytest.mark.parametrize("esn0_db", [20.0, -1.4])
+def test_soft_markers_resolve_the_rotation_of_a_turbo_link(rng, transform, esn0_db):
+    # strong signal (the rotated marker scores above the threshold) and the k = 1784 rate-1/2 code's operating
+    # point near 1.6 dB Eb/N0 (Es/N0 -1.4 dB per channel bit): the rotation is the one that explains the markers
+    bits = turbo_cadu_stream(rng, 60)
+    sigma = np.sqrt(1.0 / (2.0 * 10.0 ** (esn0_db / 10.0)))
+    soft = (1.0 - 2.0 * bits + rng.normal(0.0, sigma, bits.size)).astype(np.float32)
+    if soft.size % 2:
+        soft = soft[:-1]
+    rx = {"turn1": rotate(soft, 1), "turn2": rotate(soft, 2), "turn3": rotate(soft, 3),
+          "mirror": mirror(soft, "swap"), "mirror_turn1": rotate(mirror(soft, "conjugate"), 1)}[transform]
+    pos = np.arange(rx.size, dtype=np.float64)
+    bs = BranchSync(rate="none", modulation="qpsk", marker_block_bits=16384, asm=TURBO_R12_MARKER,
+                    correlation="soft")
+    out, opos = run(bs, rx, pos)
+    assert np.array_equal(opos, pos)
+    # 180 degrees is left to the frame synchronizer (either polarity): the output is the stream or its complement
+    assert np.array_equal(np.abs(out), np.abs(soft)) and abs(float(np.mean(np.sign(out) == np.sign(soft))) - 0.5) > 0.49
+    # chunking invariance
+    out2, _ = run(BranchSync(rate="none", modulation="qpsk", marker_block_bits=16384, asm=TURBO_R12_MARKER,
+                             correlation="soft"), rx, pos, cuts=rng.choice(np.arange(1, rx.size), 20, replace=False))
+    assert np.array_equal(out, out2)
+
+
+def test_a_wrong_rotation_showing_markers_is_still_left(rng):
+    # noise-free, rotated by 90 degrees: the wrong rotation (the one the receiver starts with) shows soft markers
+    # above the threshold, so "keep the rotation while it shows markers" would keep it; the comparison switches
+    bits = turbo_cadu_stream(rng, 30)
+    soft = (1.0 - 2.0 * bits).astype(np.float32)[: bits.size - bits.size % 2]
+    rx = rotate(soft, 1)
+    pos = np.arange(rx.size, dtype=np.float64)
+    bs = BranchSync(rate="none", modulation="qpsk", marker_block_bits=16384, asm=TURBO_R12_MARKER,
+                    correlation="soft")
+    assert len(bs._soft_hits(rx[:16384], 8)) > 0  # the wrong rotation's own markers
+    out, _ = run(bs, rx, pos)
+    assert np.all((out == soft) | (out == -soft)) and abs(float(np.mean(out == soft)) - 0.5) == 0.5
+    assert bs.stats.switches == 1
+
+
+def test_soft_marker_arguments():
+    with pytest.raises(ValueError, match="'correlation' must be 'hard' or 'soft'"):
+        BranchSync(rate="none", modulation="qpsk", correlation="fuzzy")
+    with pytest.raises(ValueError, match="'marker_threshold' must be in"):
+        BranchSync(rate="none", modulation="qpsk", correlation="soft", marker_threshold=9.0)
+
+
 def test_noise_then_signal_is_acquired_when_it_appears(rng):
     # Pure noise first: every evaluation is undecided (provisional choice), re-evaluated with back-off;
     # when the coded signal starts, the right alignment is found even if the noise pick was wrong.

@@ -139,7 +139,7 @@ class FrontEnd:
     def __init__(self, profile: LinkProfile, *, input_kind: InputKind = "iq", sample_rate_hz: float | None = None,
                  owned: tuple[float, float] | None = None, waterfall_row_samples: int | None = None):
         from pipeline.demod import LineDecoder
-        from pipeline.sync import BranchSync, CodeblockDecoder, frame_sync_for
+        from pipeline.sync import BranchSync, CodeblockDecoder, frame_sync_for, soft_block_code
 
         if input_kind not in ("iq", "soft", "bits"):
             raise ValueError(f"Argument 'input_kind' must be iq | soft | bits, not {input_kind!r}.")
@@ -160,9 +160,11 @@ class FrontEnd:
         # Bi-phase-L is removed inside the demodulator (half-symbol integration); what is left is NRZ-L.
         line_code = "nrz-l" if profile.link.line_code == "bi-phase-l" else profile.link.line_code
         self.line = LineDecoder(line_code=line_code)
+        soft_code = soft_block_code(profile)  # turbo and LDPC: their own marker, found by soft correlation
         self.branch = BranchSync(rate=profile.coding.convolutional, modulation=profile.link.modulation,
                                  g2_inverted=profile.coding.conv_g2_inverted,
-                                 mirror=rx.spectrum_inverted == "auto")
+                                 mirror=rx.spectrum_inverted == "auto",
+                                 **({} if soft_code is None else {"asm": soft_code.marker, "correlation": "soft"}))
         self.fsync = frame_sync_for(profile)  # the link's marker: the ASM on hard bits, a turbo marker soft
         self.codeblock = CodeblockDecoder(profile=profile)
         self.counts = FrontCounts()

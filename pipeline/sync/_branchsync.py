@@ -20,6 +20,7 @@ from pipeline.fec import (
 from pipeline.profile import CONV_RATES, Modulation
 from pipeline.sync import _kernels
 from pipeline.sync._args import as_soft_and_position, check_int
+from pipeline.sync._framesync import soft_search_threshold
 from pipeline.sync._types import SyncEvent
 
 __all__ = ["BranchSync", "BranchSyncStats", "branch_metric"]
@@ -33,6 +34,11 @@ _MODULATIONS = ("bpsk", "qpsk", "oqpsk", "pcm-pm", "pcm-psk-pm")
 # constellation: Q inverted (2) or I and Q swapped (3), times the same rotations (DEVELOPERS.md).
 _ROTATIONS = {"qpsk": (0, 1), "oqpsk": (0, 1, 2)}
 _MIRRORED = {"qpsk": (2, 3), "oqpsk": (3,)}
+#: Soft markers (uncoded QPSK/OQPSK, turbo and LDPC links): markers a rotation decision is judged on, and the
+#: bits either side of each where every rotation's best score is taken.
+_SOFT_MARKERS = 8
+_NEAR = 3
+
 _ROTATION_TEXT = {
     "qpsk": {0: "none", 1: "90 deg (I/Q swapped)", 2: "mirrored: Q inverted (spectrum inverted)",
              3: "mirrored: I/Q swapped (spectrum inverted)"},
@@ -117,7 +123,17 @@ class BranchSync:
     traceback_depth : int, optional
         Passed to :class:`pipeline.fec.ViterbiDecoder`.
     asm : bytes
-        Marker looked for on uncoded QPSK/OQPSK links (default the 32-bit ASM 1ACFFC1D).
+        Marker looked for on uncoded QPSK/OQPSK links (default the 32-bit ASM 1ACFFC1D; a turbo
+        link's own 64 to 192-bit marker).
+    correlation : {"hard", "soft"}
+        How the marker is found on uncoded QPSK/OQPSK links: "hard", within 2 bit errors of the
+        hard decisions; "soft", a normalised soft correlation
+        (:func:`~pipeline.sync._kernels.marker_score`) of at least ``marker_threshold``, for the
+        soft-decoded codes (turbo, LDPC), whose channel bits run at Es/N0 below 0 dB where a 64-bit
+        turbo marker is rarely within 2 errors.
+    marker_threshold : float or None
+        The soft correlation's threshold; None: :func:`~pipeline.sync.soft_search_threshold` of the
+        marker (4.5 for the 32-bit ASM, 4.98 for 64 bits, 5.34 for 192), the frame synchronizer's own.
     marker_block_bits : int
         Uncoded QPSK/OQPSK: channel bits per rotation decision (1024 .. 2**22); it should hold
         at least one CADU.
@@ -185,9 +201,12 @@ class BranchSync:
 
     Uncoded QPSK/OQPSK: the stream is cut into blocks of ``marker_block_bits`` channel bits.  A
     block is output under the current rotation if the marker (either polarity, at most 2 bit
-    errors: a false match per offset of 2.5e-7, REFERENCES.md sec. 1.7) occurs in it; if it does
-    not, and it does under another rotation, the rotation switches for this block on.  The
-    output lags the input by one block.
+    errors: a false match per offset of 2.5e-7, REFERENCES.md sec. 1.7; or, with
+    ``correlation="soft"``, a soft score of at least the threshold: 3.2e-8 per offset on noise)
+    occurs in it; if it does not, and it does under another rotation, the rotation switches for
+    this block on.  The output lags the input by one block.  A 65536-bit block holds 18 CADUs of
+    the k = 1784 rate-1/2 turbo code, each of whose 64-bit markers scores above 4.98 about half the
+    time at Es/N0 -1.4 dB per channel bit, so a block without one is rare (about 4e-6).
 
     Cost: about (1 + H acquire_bits / interval) Viterbi decodes per bit, H hypotheses, plus one
     re-encoding; memory: the decoder's block (16384 steps) plus one monitored block.
@@ -211,6 +230,8 @@ class BranchSync:
         marker_block_bits: int = 65536,
         g2_inverted: bool | None = None,
         mirror: bool = True,
+        correlation: str = "hard",
+        marker_threshold: float | None = None,
     ) -> None:
         if rate not in CONV_RATES:
             raise ValueError(f"Argument 'rate' must be one of {' | '.join(CONV_RATES)}, not {rate!r}.")
@@ -235,6 +256,18 @@ class BranchSync:
         self.rotations = _ROTATIONS.get(modulation, (0,)) + (_MIRRORED.get(modulation, ()) if mirror else ())
         self.marker_block_bits = int(marker_block_bits) + int(marker_block_bits) % 2
         self._marker = np.unpackbits(np.frombuffer(bytes(asm), dtype=np.uint8))
+        if correlation not in ("hard", "soft"):
+            raise ValueError(f"Argument 'correlation' must be 'hard' or 'soft', not {correlation!r}.")
+        self.correlation = correlation
+        if marker_threshold is None:
+            marker_threshold = soft_search_threshold(int(self._marker.size))
+        marker_threshold = float(marker_threshold)
+        if not (math.isfinite(marker_threshold) and 0.0 < marker_threshold <= math.sqrt(self._marker.size)):
+            raise ValueError(f"Argument 'marker_threshold' must be in (0, {math.sqrt(self._marker.size):.3g}], "
+                             f"not {marker_threshold!r}.")
+        self.marker_threshold = marker_threshold
+        # +1.0 for a marker bit 0, -1.0 for a bit 1 (positive soft value = bit 0), for marker_score
+        self._marker_sign = 1.0 - 2.0 * self._marker.astype(np.float64)
         self.stats = BranchSyncStats()
         self.events: list[SyncEvent] = []
         if self.coded:
@@ -413,11 +446,12 @@ class BranchSync:
             pos = np.concatenate((pos, self._raw_pos[r + full * P + self._period_index[:rest]]))
         return pos
 
-    def _count_markers(self, soft: np.ndarray) -> int:
-        """Markers (either polarity) within 2 bit errors in a block of soft bits."""
+    def _count_markers(self, soft: np.ndarray, first_only: bool = False) -> int:
+        """Markers (either polarity) within 2 bit errors in a block of hard-decided soft bits; with
+        ``first_only`` 1 as soon as one is found."""
+        m = self._marker.size
         hard = np.empty(soft.size, np.uint8)
         _kernels.hard_decisions(np.ascontiguousarray(soft), hard)
-        m = self._marker.size
         stop = hard.size - m + 1
         res = np.zeros(2, np.int64)
         count, i = 0, 0
@@ -426,12 +460,76 @@ class BranchSync:
             if k < 0:
                 break
             count += 1
+            if first_only:
+                break
             i = k + m
         return count
 
+    def _soft_hits(self, soft: np.ndarray, most: int) -> list[int]:
+        """Offsets of the first ``most`` markers (either polarity) scoring at least ``marker_threshold``."""
+        m = self._marker.size
+        stop = soft.size - m + 1
+        res = np.zeros(1, np.float64)
+        hits: list[int] = []
+        i = 0
+        while i < stop and len(hits) < most:
+            k = _kernels.find_marker_soft(soft, i, stop, self._marker_sign, self.marker_threshold, res)
+            if k < 0:
+                break
+            hits.append(k)
+            i = k + m
+        return hits
+
+    def _score_near(self, soft: np.ndarray, hits: list[int]) -> float:
+        """Sum over ``hits`` of the largest ``|marker score|`` within ``_NEAR`` bits of each."""
+        m = self._marker.size
+        total = 0.0
+        out = np.empty(2 * _NEAR + 1, np.float64)
+        for h in hits:
+            lo = max(h - _NEAR, 0)
+            hi = min(h + _NEAR, soft.size - m)
+            if hi < lo:
+                continue
+            _kernels.marker_scores(soft, lo, hi - lo + 1, self._marker_sign, out)
+            total += float(np.max(np.abs(out[: hi - lo + 1])))
+        return total
+
+    def _soft_rotation(self, a: int, b: int, rot: int) -> tuple[int, np.ndarray, int]:
+        """Soft markers: the rotation for block ``[a, b)``, its rotated soft bits and the markers it was judged on.
+
+        The first :data:`_SOFT_MARKERS` markers under the current rotation (or, with none, the first of
+        those every other rotation shows) are scored under every rotation within ``_NEAR`` bits of where they
+        were found, and the rotation with the largest sum wins (the current one on a tie).  Found markers
+        alone cannot decide: rotated by 90 degrees, the turbo markers correlate with themselves one bit
+        off at up to 0.64 of their own score (5.1 of 8.0 for the 64-bit marker, above its threshold of
+        4.98 when the signal is strong), so the rotation is chosen by how well it explains the markers.
+        """
+        views: dict[int, np.ndarray] = {}
+
+        def view(r: int) -> np.ndarray:
+            if r not in views:
+                views[r] = np.ascontiguousarray(self._view(a, b, r), dtype=np.float32)
+            return views[r]
+
+        hits = self._soft_hits(view(rot), _SOFT_MARKERS)
+        if not hits:  # none under the current rotation: the markers every other rotation shows
+            found = sorted({h for other in self.rotations if other != rot
+                            for h in self._soft_hits(view(other), _SOFT_MARKERS)})
+            hits = found[:_SOFT_MARKERS]
+        if not hits:
+            return rot, view(rot), 0
+        best, best_score = rot, self._score_near(view(rot), hits)
+        for other in self.rotations:
+            if other != rot:
+                sc = self._score_near(view(other), hits)
+                if sc > best_score:
+                    best, best_score = other, sc
+        return best, view(best), len(hits)
+
     def _marker_blocks(self, final: bool) -> None:
         """Uncoded QPSK/OQPSK: per block of ``marker_block_bits`` channel bits, keep the rotation while
-        it shows markers; when it shows none and another one does, switch for this block."""
+        it shows markers; when it shows none and another one does, switch for this block (soft markers:
+        :meth:`_soft_rotation`)."""
         Bm = self.marker_block_bits
         while True:
             a = self._fed
@@ -444,30 +542,39 @@ class BranchSync:
                     self._fed = self._n_in
                 return
             rot = self._hyp[1]
-            block = self._view(a, b, rot)
-            hits = self._count_markers(block)
             self.stats.blocks += 1
-            if hits == 0:
+            if self.correlation == "soft":
+                new_rot, block, hits = self._soft_rotation(a, b, rot)
                 self.stats.evaluations += 1
-                for other in self.rotations:
-                    if other == rot:
-                        continue
-                    candidate = self._view(a, b, other)
-                    other_hits = self._count_markers(candidate)
-                    if other_hits > 0:
-                        rot = other
-                        block = candidate
-                        self._hyp = (0, rot)
-                        self.stats.switches += 1
-                        self.events.append(SyncEvent(
-                            kind="branch_selected", bit_index=self.stats.bits_out,
-                            position=float(self._raw_pos[a - self._raw_base]),
-                            detail=f"rotation {self._rotation_text(rot)} (uncoded: {other_hits} markers against 0)"))
-                        break
-            self._out_bits.append(np.array(block, dtype=np.float32))
+                if new_rot != rot:
+                    self._switch(a, new_rot, f"soft: judged on {hits} markers")
+                block = np.array(block, dtype=np.float32)
+            else:
+                block = self._view(a, b, rot)
+                if self._count_markers(block, first_only=True) == 0:
+                    self.stats.evaluations += 1
+                    for other in self.rotations:
+                        if other == rot:
+                            continue
+                        candidate = self._view(a, b, other)
+                        other_hits = self._count_markers(candidate)
+                        if other_hits > 0:
+                            block = candidate
+                            self._switch(a, other, f"uncoded: {other_hits} markers against 0")
+                            break
+                block = np.array(block, dtype=np.float32)
+            self._out_bits.append(block)
             self._out_pos.append(self._raw_pos[a - self._raw_base : b - self._raw_base].copy())
             self.stats.bits_out += b - a
             self._fed = b
+
+    def _switch(self, a: int, rot: int, why: str) -> None:
+        """Take rotation ``rot`` from channel bit ``a`` on (uncoded QPSK/OQPSK), with its event."""
+        self._hyp = (0, rot)
+        self.stats.switches += 1
+        self.events.append(SyncEvent(kind="branch_selected", bit_index=self.stats.bits_out,
+                                     position=float(self._raw_pos[a - self._raw_base]),
+                                     detail=f"rotation {self._rotation_text(rot)} ({why})"))
 
     def _run(self, final: bool) -> None:
         while True:
