@@ -31,7 +31,7 @@ from pipeline.recording._sigmf import (
     parse_metadata,
     validate_metadata,
 )
-from pipeline.recording._time import NS_PER_S, check_end_time, elapsed_ns, position_fraction, start_tai_ns
+from pipeline.recording._time import NS_PER_S, check_end_time, elapsed_ns, position_ratio, start_tai_ns
 from pipeline.timescales import format_utc, parse_utc, posix_ns_from_tai
 
 __all__ = [
@@ -267,7 +267,7 @@ class Recording:
         ...     print(format_utc(rec.tai_ns(2)), rec.time_source)
         2016-12-31T23:59:60.500000000Z SigMF core:datetime of capture 0
         """
-        position_fraction(position)  # the argument check, before the segment lookup
+        position_ratio(position)  # the argument check, before the segment lookup
         cap = self.capture_at(position)
         if cap.tai_ns is None:
             raise RecordingError(f"{self.path}: the recording has no start time; give one (--start)")
@@ -280,7 +280,7 @@ class Recording:
         23:59:60: inside a leap second this is held at 23:59:59.999999999).  With no time known it
         counts from 1970-01-01 (``time_known`` says so).
         """
-        position_fraction(position)
+        position_ratio(position)
         cap = self.capture_at(position)
         if cap.tai_ns is None:
             return cap.datetime_ns + elapsed_ns(position, cap.sample_start, self._rate)
