@@ -547,3 +547,24 @@ def test_oqpsk_branches_are_timed_by_the_i_rail():
     qpsk = BranchSync(rate="3/4", modulation="qpsk")  # QPSK: the positions as given (both bits one symbol)
     _, qpos = run(qpsk, soft, pos.astype(np.float64))
     assert np.any(qpos != np.floor(qpos))
+
+
+@pytest.mark.kat
+@pytest.mark.parametrize("rate", ["1/2", "2/3", "3/4", "7/8"])
+def test_kat_branch_output_kernel_matches_the_branch_index(rate):
+    """branch_output: each bit's position is that of the first channel symbol of its branch, as counted by
+    the puncturing pattern (CCSDS 131.0-B-2 sec. 3.4, Table 3-1; pipeline.fec.conv_bit_symbol_index), and
+    its value +1.0 for bit 0 / -1.0 for bit 1."""
+    from pipeline.sync import _kernels
+
+    pat = puncture_pattern(rate)
+    kp, P = pat.shape[1], int(pat.sum())
+    period_index = np.ascontiguousarray(conv_bit_symbol_index(kp, rate), dtype=np.int64)
+    bits = np.array([0, 1, 1, 0, 1, 0, 0, 0, 1, 1, 1], dtype=np.uint8)  # not a whole number of periods
+    raw_pos = np.arange(100, dtype=np.float64) * 0.5 + 7.0
+    first = 3
+    signs, pos = np.empty(bits.size, np.float32), np.empty(bits.size, np.float64)
+    _kernels.branch_output(bits, raw_pos, first, period_index, P, signs, pos)
+    want_pos = raw_pos[first + conv_bit_symbol_index(bits.size, rate)]
+    assert np.array_equal(pos, want_pos)
+    assert signs.tolist() == [1.0 - 2.0 * b for b in bits.tolist()]
