@@ -272,6 +272,14 @@ class CountTracker:
             track = CountTrack(count, pos)
             self.tracks.append(track)
             return TrackStep("first", track)
+        if len(self.tracks) == 1 and (count - self.tracks[0].last) % M == 1:
+            # the usual case, decided as the loop below decides it: one track, the next count (which a
+            # master channel turns into a gap only after half the count range in time)
+            t = self.tracks[0]
+            elapsed = None if period is None or pos is None else period.frames_between(t.last_position, pos)
+            if not (self.master and elapsed is not None and elapsed >= M / 2):
+                t.last, t.last_position = count, pos
+                return TrackStep("next", t)
         dropped = []
         best_next = best_gap = best_dup = None
         newest = self.tracks[-1]
