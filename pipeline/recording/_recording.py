@@ -416,8 +416,8 @@ class Recording:
         Each chunk maps just its own bytes read-only, converts them in one pass (numba kernel,
         O(n)) and unmaps them, so resident memory is O(chunk_samples).  Without the checksum, native
         ``cf32`` chunks are instead read (one open file) straight into their complex64 arrays and
-        cleaned of NaN/Inf in place (:func:`zero_nonfinite_complex64`): the same chunks, one copy less.  The checksum hashes the
-        same mapped octets, in file order, plus a Non-Conforming Dataset's header and trailer
+        cleaned of NaN/Inf in place (:func:`zero_nonfinite_complex64`): the same chunks, one copy less.
+        The checksum hashes the same mapped octets, in file order, plus a Non-Conforming Dataset's header and trailer
         (one SHA-512 pass, about 0.7 GB/s), in a thread of its own (:class:`BackgroundFeed`) so
         that it overlaps with the caller's work on the next chunk.
         """
