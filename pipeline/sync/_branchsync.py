@@ -422,11 +422,12 @@ class BranchSync:
             self._raw_pos = self._buf_pos[self._head : self._tail]
 
     def _append_raw(self, soft: np.ndarray, position: np.ndarray) -> None:
-        """Append channel bits to the live window; the buffers are compacted (live part to the front) or grown
-        only when the new input does not fit behind it, so memory stays at about two calls' input."""
+        """Append channel bits to the live window; the buffers are compacted (live part to the front), grown or
+        shrunk only when the new input does not fit behind it, so memory stays at 2 to 8 times what is held."""
         n, live = soft.size, self._tail - self._head
         if self._tail + n > self._buf_soft.size:
-            if live + n > self._buf_soft.size:  # grow (to twice what is needed: later calls fit)
+            if not 2 * (live + n) <= self._buf_soft.size <= 8 * (live + n):
+                # grow (to twice what is needed: later calls fit), or shrink after a much larger call
                 cap = 2 * (live + n)
                 soft_buf, pos_buf = np.empty(cap, np.float32), np.empty(cap, np.float64)
             else:
