@@ -568,3 +568,21 @@ def test_kat_branch_output_kernel_matches_the_branch_index(rate):
     want_pos = raw_pos[first + conv_bit_symbol_index(bits.size, rate)]
     assert np.array_equal(pos, want_pos)
     assert signs.tolist() == [1.0 - 2.0 * b for b in bits.tolist()]
+
+
+def test_memory_follows_the_calls_not_the_stream(rng):
+    """Constant memory on a stream: after one large call the raw buffers shrink back to a few small calls'
+    worth, and the output equals one decode of the whole (common practice, no published source)."""
+    bits = rng.integers(0, 2, 300000, dtype=np.uint8)
+    soft = channel(rng, bits, "1/2", 5.0)
+    pos = np.arange(soft.size, dtype=np.float64)
+    whole, whole_pos = run(BranchSync(rate="1/2", modulation="bpsk"), soft, pos)
+    bs = BranchSync(rate="1/2", modulation="bpsk")
+    outs = [bs.process(soft[:240000], pos[:240000])]
+    big = bs._buf_soft.size
+    for a in range(240000, soft.size, 500):
+        outs.append(bs.process(soft[a : a + 500], pos[a : a + 500]))
+    assert big >= 240000 and bs._buf_soft.size <= big // 4
+    outs.append(bs.flush())
+    assert np.array_equal(np.concatenate([o[0] for o in outs]), whole)
+    assert np.array_equal(np.concatenate([o[1] for o in outs]), whole_pos)
