@@ -134,6 +134,24 @@ def test_conversion_matches_slow_reference(tmp_path, rng, name):
     assert chunk.nonfinite == (3 if name.startswith("cf32") else 0)
 
 
+@pytest.mark.kat
+def test_native_float_chunks_match_slow_reference(tmp_path, rng):
+    """cf32_le chunks (read into complex64, NaN/Inf zeroed in place) against the slow reference and read()."""
+    x = _iq(rng, 301)
+    comps = _quantise(x, "cf32_le")
+    comps[[4, 5, 77, 200, 601]] = [np.nan, np.inf, -np.inf, np.nan, np.nan]  # samples 2, 38, 100, 300
+    path = tmp_path / "x.raw"
+    comps.tofile(path)
+    rec = open_recording(path, datatype="cf32_le", sample_rate_hz=48_000.0, start=T0)
+    parts = list(rec.chunks(64, verify=False))
+    joined = np.concatenate([c.samples for c in parts])
+    ref = _slow_reference(comps, "cf32_le")
+    assert joined.dtype == np.complex64
+    np.testing.assert_array_equal(joined, ref)
+    assert joined.view(np.uint32).tobytes() == rec.read().samples.view(np.uint32).tobytes()
+    assert [c.nonfinite for c in parts] == [2, 1, 0, 0, 1]  # samples 2 and 38, 100, 300
+
+
 def test_same_samples_from_every_datatype(tmp_path, rng):
     """One recording in cf32, ci16, ci8 and cu8: the same samples within each quantisation step."""
     x = _iq(rng, 5000, amp=0.25)
@@ -174,7 +192,7 @@ def test_reader_matches_sigmf_library(tmp_path, rng):
 
 def test_chunking_invariance(tmp_path, rng):
     x = _iq(rng, 20_011)
-    for name in ("ci16_le", "cf32_be", "cu8"):
+    for name in ("ci16_le", "cf32_be", "cu8", "cf32_le"):  # cf32_le: chunks() reads it straight into its arrays
         p = tmp_path / f"c.{name}"
         comps = _quantise(x, name)
         if name.startswith("cf32"):

@@ -152,3 +152,33 @@ def test_channel_symbol_file_time(tmp_path, Time):
         open_symbols(p, "bits", start="1970-01-01T00:00:00Z", symbol_rate_hz=1000.0)
     with pytest.raises(ValueError, match="Argument 'symbol_rate_hz'"):
         open_symbols(p, "bits", start="2026-01-01T00:00:00Z", symbol_rate_hz=0.0)
+
+
+def test_elapsed_ns_integer_arithmetic_matches_python_fractions():
+    """elapsed_ns (integer divmod, half to even) against the obvious reference: Python's own exact
+    ``round(Fraction)`` (Python standard library, fractions.Fraction.__round__: round half to even)."""
+    import random
+    from fractions import Fraction
+
+    from pipeline.recording._time import elapsed_ns, position_fraction, position_ratio
+
+    rng = random.Random(19)
+    rates = [Fraction(5e6), Fraction(1e6), Fraction(4), Fraction(7, 3), Fraction(2.048e6), Fraction(1234567.891), 1000]
+    cases = [(rng.uniform(-1e6, 1e9), 0), (rng.randint(-10**6, 10**10) * 0.5 ** rng.randint(0, 9), 5),
+             (rng.randint(-10**6, 10**10), 1000)]
+    cases += [(rng.uniform(0, 3e7), rng.choice((0, 7, -3))) for _ in range(3000)]
+    cases += [(p, 0) for p in (0.125, 0.375, -0.125, -0.375, 1.5, 2.5, -2.5, np.float64(3.5), np.int64(9))]
+    for p, anchor in cases:
+        for rate in rates:
+            want = round((Fraction(float(p)) - anchor) * 10**9 / Fraction(rate))
+            assert elapsed_ns(p, anchor, rate) == want, (p, anchor, rate)
+    # exact ties at 1e9 .. 8e9 samples/s land on the even ns either way
+    for p in (0.5, 1.5, 2.5, -0.5, -1.5):
+        for rate in (Fraction(10**9), Fraction(2 * 10**9), Fraction(4 * 10**9)):
+            assert elapsed_ns(p, 0, rate) == round(Fraction(p) * 10**9 / rate)
+    assert position_ratio(2.75) == (11, 4) and position_fraction(-0.5) == Fraction(-1, 2)
+    for bad in (float("nan"), float("inf"), "x"):
+        with pytest.raises(ValueError, match="position"):
+            elapsed_ns(bad, 0, Fraction(1))
+    with pytest.raises(TypeError, match="position"):
+        elapsed_ns(True, 0, Fraction(1))

@@ -547,3 +547,42 @@ def test_oqpsk_branches_are_timed_by_the_i_rail():
     qpsk = BranchSync(rate="3/4", modulation="qpsk")  # QPSK: the positions as given (both bits one symbol)
     _, qpos = run(qpsk, soft, pos.astype(np.float64))
     assert np.any(qpos != np.floor(qpos))
+
+
+@pytest.mark.kat
+@pytest.mark.parametrize("rate", ["1/2", "2/3", "3/4", "7/8"])
+def test_kat_branch_output_kernel_matches_the_branch_index(rate):
+    """branch_output: each bit's position is that of the first channel symbol of its branch, as counted by
+    the puncturing pattern (CCSDS 131.0-B-2 sec. 3.4, Table 3-1; pipeline.fec.conv_bit_symbol_index), and
+    its value +1.0 for bit 0 / -1.0 for bit 1."""
+    from pipeline.sync import _kernels
+
+    pat = puncture_pattern(rate)
+    kp, P = pat.shape[1], int(pat.sum())
+    period_index = np.ascontiguousarray(conv_bit_symbol_index(kp, rate), dtype=np.int64)
+    bits = np.array([0, 1, 1, 0, 1, 0, 0, 0, 1, 1, 1], dtype=np.uint8)  # not a whole number of periods
+    raw_pos = np.arange(100, dtype=np.float64) * 0.5 + 7.0
+    first = 3
+    signs, pos = np.empty(bits.size, np.float32), np.empty(bits.size, np.float64)
+    _kernels.branch_output(bits, raw_pos, first, period_index, P, signs, pos)
+    want_pos = raw_pos[first + conv_bit_symbol_index(bits.size, rate)]
+    assert np.array_equal(pos, want_pos)
+    assert signs.tolist() == [1.0 - 2.0 * b for b in bits.tolist()]
+
+
+def test_memory_follows_the_calls_not_the_stream(rng):
+    """Constant memory on a stream: after one large call the raw buffers shrink back to a few small calls'
+    worth, and the output equals one decode of the whole (common practice, no published source)."""
+    bits = rng.integers(0, 2, 300000, dtype=np.uint8)
+    soft = channel(rng, bits, "1/2", 5.0)
+    pos = np.arange(soft.size, dtype=np.float64)
+    whole, whole_pos = run(BranchSync(rate="1/2", modulation="bpsk"), soft, pos)
+    bs = BranchSync(rate="1/2", modulation="bpsk")
+    outs = [bs.process(soft[:240000], pos[:240000])]
+    big = bs._buf_soft.size
+    for a in range(240000, soft.size, 500):
+        outs.append(bs.process(soft[a : a + 500], pos[a : a + 500]))
+    assert big >= 240000 and bs._buf_soft.size <= big // 4
+    outs.append(bs.flush())
+    assert np.array_equal(np.concatenate([o[0] for o in outs]), whole)
+    assert np.array_equal(np.concatenate([o[1] for o in outs]), whole_pos)

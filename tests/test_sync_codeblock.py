@@ -259,3 +259,22 @@ def test_chain_branch_frame_codeblock(rng):
     # position = first channel symbol of the ASM's first bit (bit 333 + k * 10232 -> symbol 2 * that - 3)
     want = [10.0 + 4.2 * (2 * (333 + k * 8 * (4 + 1275)) - 3) for k in range(6)]
     assert np.allclose([o.position for o in out], want)
+
+
+@pytest.mark.parametrize("e,interleave,length,randomizer", [(16, 5, 1115, True), (8, 2, 300, False)])
+def test_batch_of_cadus_equals_one_at_a_time(rng, e, interleave, length, randomizer):
+    """process_cadus (one decoder call for the batch) gives the frames and statistics of process() per CADU:
+    clean, corrected (E symbols, CCSDS 131.0-B-2 sec. 4.3.1) and uncorrectable codeblocks (reedsolo-built)."""
+    prof = make_profile(e, interleave, length, randomizer)
+    cadus = []
+    for k, per in enumerate(([0] * interleave, [e] * interleave, [3, 60] + [0] * (interleave - 2))):
+        frame = rng.integers(0, 256, length, dtype=np.uint8).tobytes()
+        block = corrupt(build_codeblock(frame, e, interleave), rng, per, interleave, length, e)
+        cadus.append(cadu_of(randomize(block) if randomizer else block, flywheel=k == 2, position=100.0 * k))
+    one, batch = CodeblockDecoder(profile=prof), CodeblockDecoder(profile=prof)
+    want = [one.process(c) for c in cadus]
+    got = batch.process_cadus(cadus)
+    assert [g.status for g in got] == ["ok", "ok", "rs_uncorrectable"]
+    assert got == want and batch.stats == one.stats
+    with pytest.raises(ValueError, match="octets"):  # a bad CADU in a batch: the same error as process()
+        batch.process_cadus([cadus[0], cadu_of(b"\x00" * 10)])

@@ -93,6 +93,7 @@ class FramePeriod:
     def reset(self) -> None:
         self._steps: deque[float] = deque(maxlen=15)
         self._last: float | None = None
+        self._median: float | None = None
 
     def update(self, position: float) -> None:
         """Record the position of the next frame to arrive (NaN positions are ignored)."""
@@ -100,14 +101,14 @@ class FramePeriod:
             return
         if self._last is not None and position > self._last:
             self._steps.append(position - self._last)
+            if len(self._steps) >= 3:  # kept here: read once per count track and frame, changed once per frame
+                self._median = sorted(self._steps)[len(self._steps) // 2]
         self._last = position
 
     @property
     def samples(self) -> float | None:
-        """The estimated period, None until 3 steps are known."""
-        if len(self._steps) < 3:
-            return None
-        return sorted(self._steps)[len(self._steps) // 2]
+        """The estimated period (the median of the last 15 steps), None until 3 steps are known."""
+        return self._median
 
     def frames_between(self, earlier: float | None, later: float) -> float | None:
         """Frame periods from position ``earlier`` to ``later`` (None when unknown)."""
@@ -271,6 +272,14 @@ class CountTracker:
             track = CountTrack(count, pos)
             self.tracks.append(track)
             return TrackStep("first", track)
+        if len(self.tracks) == 1 and (count - self.tracks[0].last) % M == 1:
+            # the usual case, decided as the loop below decides it: one track, the next count (which a
+            # master channel turns into a gap only after half the count range in time)
+            t = self.tracks[0]
+            elapsed = None if period is None or pos is None else period.frames_between(t.last_position, pos)
+            if not (self.master and elapsed is not None and elapsed >= M / 2):
+                t.last, t.last_position = count, pos
+                return TrackStep("next", t)
         dropped = []
         best_next = best_gap = best_dup = None
         newest = self.tracks[-1]

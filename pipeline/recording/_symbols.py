@@ -14,7 +14,7 @@ import numpy as np
 
 from pipeline.errors import RecordingError
 from pipeline.recording._kernels import int8_to_soft, unpack_bits_to_soft
-from pipeline.recording._time import check_end_time, elapsed_ns, position_fraction, start_tai_ns
+from pipeline.recording._time import check_end_time, elapsed_ns, position_ratio, start_tai_ns
 from pipeline.timescales import posix_ns_from_tai
 
 __all__ = ["SymbolKind", "SymbolChunk", "SymbolFile", "open_symbols"]
@@ -82,7 +82,7 @@ class SymbolTime:
         ...     format_utc(f.tai_ns(64))
         '2016-12-31T23:59:60.500000000Z'
         """
-        position_fraction(position)
+        position_ratio(position)
         if not self.time_known:
             raise RecordingError(f"{self.path}: channel symbols have no start time; give one (--start)")
         return self.start_tai_ns + elapsed_ns(position, 0, self._rate)

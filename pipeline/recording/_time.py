@@ -27,8 +27,34 @@ from pipeline.timescales import (
     tai_from_posix_ns,
 )
 
-__all__ = ["elapsed_ns", "position_fraction", "start_tai_ns", "check_end_time", "parse_iso8601_ns", "parse_iso_ns",
-           "format_iso8601_ns", "NS_PER_S"]
+__all__ = ["elapsed_ns", "position_fraction", "position_ratio", "start_tai_ns", "check_end_time", "parse_iso8601_ns",
+           "parse_iso_ns", "format_iso8601_ns", "NS_PER_S"]
+
+
+def position_ratio(position) -> tuple[int, int]:
+    """A sample position as an exact ratio ``(numerator, denominator)`` of integers, denominator a power of two.
+
+    The same value as :func:`position_fraction` without building a :class:`fractions.Fraction` (not reduced:
+    ``float.as_integer_ratio`` is already in lowest terms, an integer has denominator 1).
+
+    Raises
+    ------
+    TypeError, ValueError
+        A bool, a non-number or a non-finite value, naming the argument ``position``.
+
+    Examples
+    --------
+    >>> position_ratio(2.75), position_ratio(7)
+    ((11, 4), (7, 1))
+    """
+    if isinstance(position, (bool, np.bool_)):
+        raise TypeError("Argument 'position' must be a number, not bool.")
+    try:
+        if isinstance(position, (int, np.integer)):
+            return int(position), 1
+        return float(position).as_integer_ratio()
+    except (TypeError, ValueError, OverflowError):
+        raise ValueError(f"Argument 'position' must be a finite number, not {position!r}.") from None
 
 
 def position_fraction(position) -> Fraction:
@@ -39,22 +65,19 @@ def position_fraction(position) -> Fraction:
     TypeError, ValueError
         A bool, a non-number or a non-finite value, naming the argument ``position``.
     """
-    if isinstance(position, (bool, np.bool_)):
-        raise TypeError("Argument 'position' must be a number, not bool.")
-    try:
-        if isinstance(position, (int, np.integer)):
-            return Fraction(int(position))
-        return Fraction(float(position))
-    except (TypeError, ValueError, OverflowError):
-        raise ValueError(f"Argument 'position' must be a finite number, not {position!r}.") from None
+    return Fraction(*position_ratio(position))
 
 
-def elapsed_ns(position, anchor_position: int, rate: Fraction) -> int:
+def elapsed_ns(position, anchor_position: int, rate: Fraction | int) -> int:
     """``round((position - anchor_position) * 1e9 / rate)``: ns from the anchor to ``position``.
 
     Notes
     -----
-    Exact :class:`fractions.Fraction` arithmetic, rounded half to even; the result does not drift
+    Exact rational arithmetic on Python integers, rounded half to even (as ``round`` of the
+    :class:`fractions.Fraction`): with ``position = n / d`` (:func:`position_ratio`) and
+    ``rate = p / q``, the value is ``N / D`` with ``N = (n - anchor d) 1e9 q`` and ``D = d p``;
+    ``divmod(N, D)`` gives the floor and the remainder that decides the rounding.  No
+    normalization (gcd) is needed, so it costs a few integer products; the result does not drift
     however long the recording (a float64 product would lose ns after about 100 days at 1 GHz).
 
     Examples
@@ -62,7 +85,16 @@ def elapsed_ns(position, anchor_position: int, rate: Fraction) -> int:
     >>> elapsed_ns(1.5, 0, Fraction(4))   # 1.5 samples at 4 samples/s
     375000000
     """
-    return round((position_fraction(position) - anchor_position) * NS_PER_S / rate)
+    n, d = position_ratio(position)
+    num = (n - int(anchor_position) * d) * NS_PER_S * rate.denominator
+    den = d * rate.numerator
+    if den < 0:
+        num, den = -num, -den
+    floor, rem = divmod(num, den)
+    twice = 2 * rem
+    if twice > den or (twice == den and floor & 1):
+        floor += 1
+    return floor
 
 
 def start_tai_ns(path, start, what: str = "start time") -> int:

@@ -50,7 +50,6 @@ _ROTATION_TEXT = {
 _G1_MASK = int(f"{0o171:07b}"[::-1], 2)
 _G2_MASK = int(f"{0o133:07b}"[::-1], 2)
 _PARITY = np.array([bin(v).count("1") & 1 for v in range(128)], dtype=np.uint8)
-_SIGNS = np.array([1.0, -1.0], dtype=np.float32)  # bit 0 -> +1.0, bit 1 -> -1.0
 # Smallest winning margin of the normalized metric that counts as a decision, per rate.  Measured here
 # on Gaussian noise with acquire_bits = 4096, BPSK and QPSK hypotheses: the largest margin seen in 30
 # trials was 0.0046 (1/2), 0.0030 (2/3), 0.0016 (3/4), 0.0012 (5/6), 0.0011 (7/8); these are about
@@ -285,6 +284,7 @@ class BranchSync:
                 # a branch starting on the Q rail is timed by the I pulse of its symbol, the channel bit
                 # before it (a puncturing period starts on the I rail; DEVELOPERS.md, OQPSK time reference)
                 self._period_index = self._period_index - self._period_index % 2
+            self._period_index = np.ascontiguousarray(self._period_index, dtype=np.int64)
             self._keep1 = np.ascontiguousarray(pat[0], dtype=np.uint8)
             self._keep2 = np.ascontiguousarray(pat[1], dtype=np.uint8)
             self.hypotheses = tuple((off, rot) for rot in self.rotations for off in range(P))
@@ -338,8 +338,7 @@ class BranchSync:
             self.stats.bits_out += soft.size
             return soft.copy(), position.copy()
         if soft.size:
-            self._raw_soft = np.concatenate((self._raw_soft, soft))
-            self._raw_pos = np.concatenate((self._raw_pos, position))
+            self._append_raw(soft, position)
             self._n_in += soft.size
         if self.marker_rotation:
             self._marker_blocks(final=False)
@@ -364,8 +363,13 @@ class BranchSync:
 
     # ---- internals --------------------------------------------------------------------------------
     def _clear_stream(self) -> None:
-        self._raw_soft = np.zeros(0, np.float32)
-        self._raw_pos = np.zeros(0, np.float64)
+        # the channel bits still needed live in [_head, _tail) of two reused buffers; _raw_soft / _raw_pos are
+        # views of that window (appending copies the new input once, trimming only moves _head)
+        self._buf_soft = np.zeros(0, np.float32)
+        self._buf_pos = np.zeros(0, np.float64)
+        self._head = self._tail = 0
+        self._raw_soft = self._buf_soft[:0]
+        self._raw_pos = self._buf_pos[:0]
         self._raw_base = 0  # absolute channel index of _raw_soft[0]
         self._n_in = 0
         self._hyp: tuple[int, int] | None = (0, 0) if self.marker_rotation else None
@@ -385,7 +389,9 @@ class BranchSync:
         self._out_pos: list[np.ndarray] = []
 
     def _take_output(self) -> tuple[np.ndarray, np.ndarray]:
-        if self._out_bits:
+        if len(self._out_bits) == 1:  # the usual case: one piece, handed on as it is
+            bits, pos = self._out_bits[0], self._out_pos[0]
+        elif self._out_bits:
             bits = np.concatenate(self._out_bits)
             pos = np.concatenate(self._out_pos)
         else:
@@ -410,9 +416,31 @@ class BranchSync:
         keep -= keep % 2  # keep rotation pairs whole
         drop = keep - self._raw_base
         if drop > 0:
-            self._raw_soft = self._raw_soft[drop:]
-            self._raw_pos = self._raw_pos[drop:]
+            self._head += drop
             self._raw_base += drop
+            self._raw_soft = self._buf_soft[self._head : self._tail]
+            self._raw_pos = self._buf_pos[self._head : self._tail]
+
+    def _append_raw(self, soft: np.ndarray, position: np.ndarray) -> None:
+        """Append channel bits to the live window; the buffers are compacted (live part to the front), grown or
+        shrunk only when the new input does not fit behind it, so memory stays at 2 to 8 times what is held."""
+        n, live = soft.size, self._tail - self._head
+        if self._tail + n > self._buf_soft.size:
+            if not 2 * (live + n) <= self._buf_soft.size <= 8 * (live + n):
+                # grow (to twice what is needed: later calls fit), or shrink after a much larger call
+                cap = 2 * (live + n)
+                soft_buf, pos_buf = np.empty(cap, np.float32), np.empty(cap, np.float64)
+            else:
+                soft_buf, pos_buf = self._buf_soft, self._buf_pos
+            soft_buf[:live] = self._buf_soft[self._head : self._tail]  # (overlapping moves are safe in numpy)
+            pos_buf[:live] = self._buf_pos[self._head : self._tail]
+            self._buf_soft, self._buf_pos = soft_buf, pos_buf
+            self._head, self._tail = 0, live
+        self._buf_soft[self._tail : self._tail + n] = soft
+        self._buf_pos[self._tail : self._tail + n] = position
+        self._tail += n
+        self._raw_soft = self._buf_soft[self._head : self._tail]
+        self._raw_pos = self._buf_pos[self._head : self._tail]
 
     def _view(self, a: int, b: int, rotation: int) -> np.ndarray:
         """Soft channel bits [a, b) (absolute) with the rotation hypothesis applied."""
@@ -435,16 +463,6 @@ class BranchSync:
     def _available(self, rotation: int) -> int:
         """One past the last channel index usable under a rotation (pairs must be complete)."""
         return self._n_in - (self._n_in % 2 if rotation else 0)
-
-    def _branch_positions(self, a: int, n_bits: int) -> np.ndarray:
-        """Positions of the first channel bit of each of ``n_bits`` branches whose period starts at ``a``."""
-        kp, P = self.period_bits, self.period_symbols
-        full, rest = divmod(n_bits, kp)
-        r = a - self._raw_base
-        pos = self._raw_pos[r : r + full * P].reshape(full, P)[:, self._period_index].reshape(-1)
-        if rest:
-            pos = np.concatenate((pos, self._raw_pos[r + full * P + self._period_index[:rest]]))
-        return pos
 
     def _count_markers(self, soft: np.ndarray, first_only: bool = False) -> int:
         """Markers (either polarity) within 2 bit errors in a block of hard-decided soft bits; with
@@ -695,7 +713,7 @@ class BranchSync:
             new = self._dec.process(self._view(self._fed, end, rot))
             self._fed = end
             if new.size:
-                self._seg_bits = np.concatenate((self._seg_bits, new))
+                self._seg_bits = np.concatenate((self._seg_bits, new)) if self._seg_bits.size else new
         if final and not self._flushed:
             tail = self._dec.flush()
             self._flushed = True
@@ -753,9 +771,11 @@ class BranchSync:
         n_out = out_to - self._seg_done
         if n_out > 0:
             a = self._frontier()
-            bits = self._seg_bits[:n_out]
-            self._out_bits.append(_SIGNS[bits])
-            self._out_pos.append(self._branch_positions(a, n_out))
+            signs, pos = np.empty(n_out, np.float32), np.empty(n_out, np.float64)
+            _kernels.branch_output(self._seg_bits[:n_out], self._raw_pos, a - self._raw_base, self._period_index,
+                                   self.period_symbols, signs, pos)
+            self._out_bits.append(signs)
+            self._out_pos.append(pos)
             self.stats.bits_out += n_out
             self._seg_bits = self._seg_bits[n_out:]
             self._seg_done += n_out

@@ -8,7 +8,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from pipeline.fec import pn_sequence, rs_decode
+from pipeline.fec import pn_sequence, rs_decode, rs_decode_blocks
 from pipeline.profile import LinkProfile
 from pipeline.sync._args import check_int
 from pipeline.sync._codes import soft_block_code
@@ -153,7 +153,11 @@ class CodeblockDecoder:
         batch when ``batch_cadus`` are waiting (:meth:`flush` decodes the rest).
         """
         if self.soft_code is None:
-            return [self.process(c) for c in cadus]
+            cadus = list(cadus)
+            if self.reed_solomon and len(cadus) > 1 and all(
+                    isinstance(c, Cadu) and len(c.data) == self.codeblock_bytes for c in cadus):
+                return self._rs_batch(cadus)
+            return [self.process(c) for c in cadus]  # (one at a time: a bad CADU raises where process() would)
         out: list[DecodedFrame] = []
         for cadu in cadus:
             self._queue(cadu, self.esn0_lookahead_cadus)
@@ -199,6 +203,27 @@ class CodeblockDecoder:
             st.ok += 1
             return DecodedFrame(frame=block.tobytes(), status="ok", rs_corrected=(), cadu=cadu)
         data, corrected = rs_decode(block, e=self.reed_solomon, interleave=self.interleave)
+        return self._rs_frame(cadu, block, data, corrected)
+
+    def _rs_batch(self, cadus: list) -> list[DecodedFrame]:
+        """:meth:`process` for several valid CADUs of a Reed-Solomon link: one decoder call for all of them
+        (:func:`pipeline.fec.rs_decode_blocks`, the same kernel), then each frame as :meth:`process` makes it."""
+        blocks = np.frombuffer(b"".join(c.data for c in cadus), dtype=np.uint8).reshape(len(cadus), -1)
+        if self._pn is not None:
+            blocks = blocks ^ self._pn
+        data, corrected = rs_decode_blocks(blocks, e=self.reed_solomon, interleave=self.interleave)
+        st = self.stats
+        out = []
+        for j, cadu in enumerate(cadus):
+            st.codeblocks += 1
+            if cadu.flywheel:
+                st.flywheel_codeblocks += 1
+            out.append(self._rs_frame(cadu, blocks[j], data[j], corrected[j]))
+        return out
+
+    def _rs_frame(self, cadu: Cadu, block: np.ndarray, data: np.ndarray, corrected) -> DecodedFrame:
+        """The frame of one de-randomized codeblock from its decoder output, with the statistics."""
+        st = self.stats
         frame = np.array(data[: self.frame_bytes], dtype=np.uint8)
         corrected = tuple(int(v) for v in corrected)
         failed = [j for j, v in enumerate(corrected) if v < 0]

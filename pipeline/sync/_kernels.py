@@ -19,6 +19,7 @@ __all__ = [
     "marker_scores",
     "hard_decisions",
     "reencode_metrics",
+    "branch_output",
 ]
 
 
@@ -197,3 +198,32 @@ def reencode_metrics(bits, state, g1_mask, g2_mask, g2_invert, keep1, keep2, par
         metrics[j] = corr / mag if mag > 0.0 else 0.0
         states[j] = state
     return k
+
+
+@numba.njit(cache=True)
+def branch_output(bits, raw_pos, first, period_index, period_symbols, signs, positions):  # pragma: no cover
+    """Decoded bits -> output values and positions (two simple loops, which compile to vector code).
+
+    ``signs[i] = 1 - 2 bits[i]`` (float32: +1.0 for bit 0, -1.0 for bit 1) and ``positions[i] =
+    raw_pos[first + (i // kp) * period_symbols + period_index[i % kp]]``, ``kp = len(period_index)``
+    information bits per puncturing period: the position of the first channel bit of bit i's branch
+    when the periods start at ``raw_pos[first]``.  Cost O(len(bits)), no allocation.
+    """
+    kp = period_index.shape[0]
+    n = bits.shape[0]
+    for i in range(n):
+        signs[i] = np.float32(1 - 2 * np.int64(bits[i]))
+    if kp == 1:  # rate 1/2: a strided copy
+        at = first + period_index[0]
+        for i in range(n):
+            positions[i] = raw_pos[at + i * period_symbols]
+        return
+    i = 0
+    at = first
+    while i < n:  # one puncturing period per pass (no integer division per bit)
+        for r in range(kp):
+            if i == n:
+                break
+            positions[i] = raw_pos[at + period_index[r]]
+            i += 1
+        at += period_symbols
