@@ -224,6 +224,22 @@ def test_overlap_frames_taken_once(long_recording, demo_profile, segmented_one_w
     assert len(sd.segment_cpu_s) == 3 and sd.speedup_bound(2) > 1.0
 
 
+def test_stage_statistics_count_each_owned_range_once(long_plain, segmented_one_worker):
+    # the lead-ins repeat the previous segment's last frames: the report's stage counters are the owned
+    # ranges' (snapshots at both ends of each owned run), so they add up to the unbroken chain's to within
+    # the stages' latency at each of the two boundaries, not the lead-ins' frames over again
+    ref_back, _ = long_plain
+    back, _, sd = segmented_one_worker
+    ref, seg = ref_back.front_summary.stats, back.front_summary.stats
+    assert sd.frames_dropped_as_duplicates > 2
+    assert ref["frame_sync"].cadus == ref_back.frame_count
+    assert abs(seg["frame_sync"].cadus - ref["frame_sync"].cadus) <= 2
+    assert abs(seg["codeblock"].codewords - ref["codeblock"].codewords) <= 2 * 5
+    assert abs(seg["branch"].bits_out - ref["branch"].bits_out) < 0.02 * ref["branch"].bits_out
+    # a last value is the last segment's, never a sum
+    assert 0.5 < seg["branch"].last_metric <= 1.0
+
+
 @pytest.mark.parametrize("kwargs, exc, text", [
     ({"workers": 0}, ValueError, "Argument 'workers' must be 1..64, not 0."),
     ({"workers": 2.0}, TypeError, "Argument 'workers' must be an integer, not float."),

@@ -98,18 +98,43 @@ class FrontSummary:
                 self.demod.merge(other.demod)
 
 
+def _is_count(v: Any) -> bool:
+    return isinstance(v, (int, np.integer)) and not isinstance(v, bool)
+
+
 def _add_stats(total: Any, part: Any) -> Any:
-    """Field-wise sum of two statistics dataclasses (numbers added, anything else from ``part``)."""
+    """Field-wise sum of two statistics dataclasses (counts added; anything else, such as a last metric, from
+    ``part``)."""
     if total is None:
         return dataclasses.replace(part)
     kw = {}
     for f in dataclasses.fields(total):
         a, b = getattr(total, f.name), getattr(part, f.name)
-        if isinstance(a, (int, float)) and isinstance(b, (int, float)) and not isinstance(a, bool):
-            kw[f.name] = a + b
-        else:
-            kw[f.name] = b
+        kw[f.name] = a + b if _is_count(a) and _is_count(b) else b
     return dataclasses.replace(total, **kw)
+
+
+def _sub_stats(later: Any, earlier: Any) -> Any:
+    """Field-wise difference of two snapshots of one statistics dataclass (counts subtracted; anything else
+    from ``later``): what a stage counted between them."""
+    kw = {}
+    for f in dataclasses.fields(later):
+        a, b = getattr(later, f.name), getattr(earlier, f.name)
+        kw[f.name] = a - b if _is_count(a) and _is_count(b) else a
+    return dataclasses.replace(later, **kw)
+
+
+def owned_stats(after_owned: dict, before_owned: dict | None) -> dict:
+    """The stage statistics a segment counted over its owned range: the snapshot taken once its owned samples
+    were fed (or at its end, for the last segment) less the one taken when its lead-in had been fed.
+
+    A stage counts a bit, a marker or a codeblock some samples after it was fed (its own latency), the same at
+    both snapshots, so over a decode the owned parts add up to what one unbroken chain would count: the work
+    the lead-ins repeat is not counted twice.
+    """
+    if before_owned is None:
+        return {k: dataclasses.replace(v) for k, v in after_owned.items()}
+    return {k: _sub_stats(v, before_owned[k]) for k, v in after_owned.items()}
 
 
 class FrontEnd:
@@ -217,6 +242,11 @@ class FrontEnd:
         self._out.frames.extend(self.codeblock.flush())  # codewords still waiting for a full decoder batch
         return self._take()
 
+    def stats_snapshot(self) -> dict:
+        """Copies of the stages' statistics as they stand (see :func:`owned_stats`)."""
+        return {"branch": dataclasses.replace(self.branch.stats), "frame_sync": dataclasses.replace(self.fsync.stats),
+                "codeblock": dataclasses.replace(self.codeblock.stats)}
+
     def summary(self) -> FrontSummary:
         """Counters, stage statistics and events (owned range only) so far."""
         events = []
@@ -224,7 +254,7 @@ class FrontEnd:
             for ev in stage.events:
                 if self._owns(ev.position):
                     events.append(sample_keys(ev.as_dict()))
-        stats = {"branch": self.branch.stats, "frame_sync": self.fsync.stats, "codeblock": self.codeblock.stats}
+        stats = self.stats_snapshot()
         return FrontSummary(counts=dataclasses.replace(self.counts), stats=stats, events=events,
                             constellation=self.constellation, waterfall=self.waterfall,
                             demod=None if self.demod is None else dataclasses.replace(self.demod.stats))

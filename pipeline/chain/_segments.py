@@ -15,7 +15,7 @@ import time
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 
-from pipeline.chain._frontend import FrontEnd, FrontSummary
+from pipeline.chain._frontend import FrontEnd, FrontSummary, owned_stats
 from pipeline.profile import LinkProfile
 
 __all__ = ["DEFAULT_SEGMENT_SAMPLES", "SegmentResult", "SegmentedDecode", "decode_segment", "segment_plan"]
@@ -103,13 +103,19 @@ def decode_segment(recording, profile: LinkProfile, index: int, owned_start: int
         res.track.extend(out.track)
 
     # three runs of chunks, so that the owned range starts and ends on chunk boundaries (the stages do
-    # not depend on the chunking) and the sample counts of the owned range are exact
+    # not depend on the chunking) and the sample counts of the owned range are exact; the stage statistics
+    # are snapshot at both ends of the owned run, so that the lead-in's repeated work is not counted twice
+    snaps = []
     for lo, hi in ((read_start, owned_start), (owned_start, owned_stop), (owned_stop, read_stop)):
         if hi > lo:
             for chunk in recording.chunks(n, start=lo, stop=hi):
                 take(front.process_chunk(chunk))
+        snaps.append(front.stats_snapshot())
     take(front.finish())
     res.summary = front.summary()
+    last = read_stop <= owned_stop  # no lead-out: the flushed end belongs to this segment
+    res.summary.stats = owned_stats(res.summary.stats if last else snaps[1],
+                                    snaps[0] if read_start < owned_start else None)
     res.cpu_s = time.thread_time() - t0
     return res
 
