@@ -112,3 +112,21 @@ def test_a_pass_across_the_2016_leap_second(tmp_path):
         inside += f["ert"].startswith("2016-12-31T23:59:60")
     assert inside >= 2  # some frames were received during the leap second itself
     assert all(p["ert"] >= start[:19] for p in result.packets_list)
+
+
+def test_the_simulators_pass_across_the_leap_second_matches_its_truth(tmp_path, demo_profile):
+    # the simulator's truth (its own leap-second table, checked against astropy in tests/test_sim_packets.py)
+    # and the decoder's ERT agree to well under a symbol through 23:59:60 and after it
+    from pipeline import simulate
+    from pipeline.tools._demo import compare_with_truth
+
+    prof = demo_profile.with_changes(simulate={"start": "2016-12-31T23:59:58.6Z"})
+    sim = simulate(prof, tmp_path / "sim", seconds=3.0, seed=3)
+    truth = [json.loads(line) for line in sim.truth_path.read_text().splitlines() if line.strip()]
+    assert any(t["ert"].startswith("2016-12-31T23:59:60") for t in truth)
+    assert any(t["ert"].startswith("2017-01-01T00:00:00") for t in truth)
+    out = tmp_path / "out"
+    decode(sim.meta_path, prof, out)
+    cmp = compare_with_truth(sim.truth_path, out / "packets.jsonl")
+    assert cmp["matched"] == cmp["sent"] == sim.num_packets
+    assert cmp["worst_ert_error_s"] < 0.1 / prof.link.symbol_rate_baud

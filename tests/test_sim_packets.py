@@ -18,10 +18,13 @@ from pipeline.sim import (
     aos_primary_header,
     clcw_word,
     cuc_4_2,
+    cuc_4_2_tai,
+    format_tai_ns_as_utc,
     format_utc_ns,
     idle_packet,
     parse_utc_ns,
     space_packet_header,
+    tai_ns_from_utc_ns,
     tai_seconds_since_1958,
     tm_primary_header,
 )
@@ -117,6 +120,25 @@ def test_leap_table_against_astropy():
     t = astropy_time.Time("2026-03-14T09:30:00", scale="utc")
     secs, ns = tai_seconds_since_1958(parse_utc_ns(START))
     assert secs + ns * 1e-9 == pytest.approx((t.tai - epoch).to_value("s"), abs=1e-6)  # astropy (PyPI)
+
+
+@pytest.mark.parametrize("start", ["2016-12-31T23:59:58.25Z", "2015-06-30T23:59:59.9Z", "2026-03-14T09:30:00Z"])
+def test_time_after_a_start_across_a_leap_second_against_astropy(start):
+    # UTC + elapsed SI seconds: astropy (PyPI) counts leap seconds and prints 23:59:60.x inside one; the CUC
+    # coarse count runs on uniformly (TAI since 1958)
+    import astropy.time as astropy_time
+    from astropy.utils import iers
+
+    iers.conf.auto_download = False
+    t0 = astropy_time.Time(start[:-1], scale="utc", precision=9)
+    epoch = astropy_time.Time("1958-01-01T00:00:00", scale="tai")
+    tai0 = tai_ns_from_utc_ns(parse_utc_ns(start))
+    for e in (0.0, 0.5, 1.0, 1.25, 1.5, 1.75, 2.0, 2.5, 3.0):
+        ns = int(round(e * 1e9))
+        want = (t0 + astropy_time.TimeDelta(e, format="sec")).isot + "Z"
+        assert format_tai_ns_as_utc(tai0 + ns) == want, (start, e)
+        secs = int.from_bytes(cuc_4_2_tai(tai0 + ns)[:4], "big")
+        assert secs == int(np.floor(((t0 + astropy_time.TimeDelta(e, format="sec")).tai - epoch).to_value("s") + 1e-7))
 
 
 # ---- packet source ----------------------------------------------------------------------------

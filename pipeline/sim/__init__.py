@@ -27,7 +27,15 @@ from pipeline.sim._modulator import (
 )
 from pipeline.sim._packets import IDLE_APID, PacketSource, SimPacket, idle_packet, space_packet, space_packet_header
 from pipeline.sim._simulate import SOFT_SCALE, SimulationResult, simulate, soft_channel_symbols
-from pipeline.sim._time import cuc_4_2, format_utc_ns, parse_utc_ns, tai_seconds_since_1958
+from pipeline.sim._time import (
+    cuc_4_2,
+    cuc_4_2_tai,
+    format_tai_ns_as_utc,
+    format_utc_ns,
+    parse_utc_ns,
+    tai_ns_from_utc_ns,
+    tai_seconds_since_1958,
+)
 
 __all__ = [
     "SOFT_SCALE",
@@ -58,6 +66,9 @@ __all__ = [
     "aos_primary_header",
     "clcw_word",
     "cuc_4_2",
+    "cuc_4_2_tai",
+    "format_tai_ns_as_utc",
+    "tai_ns_from_utc_ns",
     "format_utc_ns",
     "idle_packet",
     "parse_utc_ns",

@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from pipeline.profile import ApidTraffic
-from pipeline.sim._time import cuc_4_2
+from pipeline.sim._time import cuc_4_2_tai, tai_ns_from_utc_ns
 
 __all__ = [
     "IDLE_APID",
@@ -47,6 +47,10 @@ class SimPacket:
         when it has one).
     generation_s :
         The same instant in seconds since the start of the recording.
+    generation_tai_ns :
+        The same instant on TAI (:func:`pipeline.sim.tai_ns_from_utc_ns`): the recording's start plus
+        ``generation_s`` SI seconds, exact across a leap second (``generation_ns``, a POSIX count, is
+        a second off after one); None when not given (then ``generation_ns`` is the time).
     """
 
     apid: int
@@ -55,6 +59,7 @@ class SimPacket:
     data: bytes
     generation_ns: int
     generation_s: float
+    generation_tai_ns: int | None = None
 
 
 def space_packet_header(*, apid: int, seq_count: int, data_length: int, secondary_header: bool,
@@ -145,6 +150,7 @@ class PacketSource:
         if not stop_s > start_s:
             raise ValueError(f"Argument 'stop_s' must be > start_s ({start_s}), not {stop_s}.")
         self.start_ns = int(start_ns)
+        self._start_tai_ns = tai_ns_from_utc_ns(self.start_ns)
         self.seed = seed
         self.start_s = float(start_s)
         self.stop_s = float(stop_s)
@@ -178,14 +184,15 @@ class PacketSource:
     def _make(self, i: int, t_s: float) -> SimPacket:
         tr = self.traffic[i]
         gen_ns = self.start_ns + round(t_s * 1e9)
+        gen_tai = self._start_tai_ns + round(t_s * 1e9)  # uniform: exact across a leap second
         if tr.time_code:
-            field = cuc_4_2(gen_ns) + self._rng.bytes(tr.length - 6)
+            field = cuc_4_2_tai(gen_tai) + self._rng.bytes(tr.length - 6)
         else:
             field = self._rng.bytes(tr.length)
         data = space_packet(apid=tr.apid, seq_count=self.seq_counts[i], data_field=field,
                             secondary_header=tr.time_code)
         pkt = SimPacket(apid=tr.apid, seq_count=self.seq_counts[i], vcid=tr.vcid, data=data,
-                        generation_ns=gen_ns, generation_s=t_s)
+                        generation_ns=gen_ns, generation_s=t_s, generation_tai_ns=gen_tai)
         self.seq_counts[i] = (self.seq_counts[i] + 1) & 0x3FFF
         self.next_index[i] += 1
         self.emitted += 1

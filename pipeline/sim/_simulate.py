@@ -27,7 +27,7 @@ from pipeline.sim._coding import ChannelCoder, NrzmPosition
 from pipeline.sim._frames import AosFrameBuilder, IdleMode, TmFrameBuilder
 from pipeline.sim._modulator import make_modulator
 from pipeline.sim._packets import PacketSource
-from pipeline.sim._time import format_utc_ns, parse_utc_ns
+from pipeline.sim._time import format_tai_ns_as_utc, parse_utc_ns, tai_ns_from_utc_ns
 
 __all__ = ["SimulationResult", "simulate", "soft_channel_symbols", "SOFT_SCALE"]
 
@@ -260,6 +260,7 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
 
     fs = S.sample_rate_hz
     start_ns = parse_utc_ns(S.start)
+    start_tai_ns = tai_ns_from_utc_ns(start_ns)  # the samples run on SI seconds: times after a leap second
     num_samples = int(round(seconds * fs))
     esn0_db = profile.esn0_from_ebn0(ebn0_db)
     esn0 = 10.0 ** (esn0_db / 10.0)
@@ -393,7 +394,7 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
                 # the instant a frame's time refers to: the (I-rail) peak of the symbol carrying the ASM's first bit
                 pos = modulator.symbol_position(int(asm_bit) // bps)
                 # ERT: the leading edge of the ASM's first channel symbol (its centre minus half a symbol)
-                ert = format_utc_ns(start_ns + int(round((pos - 0.5 * T) * 1e9 / fs)))
+                ert = format_tai_ns_as_utc(start_tai_ns + int(round((pos - 0.5 * T) * 1e9 / fs)))
                 rec = {"index": num_frames, "scid": profile.frames.spacecraft_id, "vcid": b.vcid, "mcfc": b.mcfc,
                        "vcfc": b.vcfc, "fhp": b.fhp, "idle": b.idle, "ocf": b.ocf.hex() if b.ocf else None,
                        "position": pos, "ert": ert, "channel_bit": int(asm_bit),
@@ -408,7 +409,8 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
                         "apid": p.apid, "seq_count": p.seq_count, "hex": p.data.hex(), "vcid": first["vcid"],
                         "scid": first["scid"], "mcfc": first["mcfc"], "vcfc": first["vcfc"], "ert": first["ert"],
                         "position": first["position"], "channel_bit": first["channel_bit"],
-                        "generation": format_utc_ns(p.generation_ns),
+                        "generation": format_tai_ns_as_utc(p.generation_tai_ns if p.generation_tai_ns is not None
+                                                           else tai_ns_from_utc_ns(p.generation_ns)),
                     }) + "\n")
                     num_packets += 1
             # channel bits whose symbol lies in the recording

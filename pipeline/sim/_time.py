@@ -15,6 +15,9 @@ __all__ = [
     "tai_minus_utc_s",
     "tai_seconds_since_1958",
     "cuc_4_2",
+    "cuc_4_2_tai",
+    "tai_ns_from_utc_ns",
+    "format_tai_ns_as_utc",
     "CUC_PFIELD_L1_4_2",
 ]
 
@@ -120,6 +123,46 @@ def tai_minus_utc_s(utc_ns: int) -> int:
     return dat
 
 
+def tai_ns_from_utc_ns(utc_ns: int) -> int:
+    """TAI on a uniform count of nanoseconds from 1970-01-01 (``utc_ns + (TAI - UTC)``): an instant
+    ``e`` SI seconds later is ``tai_ns_from_utc_ns(u) + e * 1e9``, leap seconds in between or not."""
+    return int(utc_ns) + tai_minus_utc_s(utc_ns) * _NS
+
+
+def format_tai_ns_as_utc(tai_ns: int) -> str:
+    """The UTC text (9 decimals, Z) of a TAI instant from :func:`tai_ns_from_utc_ns`; inside a leap second
+    the seconds read 60 (``2016-12-31T23:59:60.500000000Z``).
+
+    Notes
+    -----
+    The leap second inserted before a table date ``D`` (POSIX count ``d``) occupies the TAI instants
+    ``[d + before, d + after)`` (``before``, ``after`` the TAI - UTC values either side, in ns): it is
+    ``23:59:60`` of the day before ``D``.  Elsewhere UTC = TAI - (TAI - UTC in force).
+    """
+    tai_ns = int(tai_ns)
+    before = _LEAP_NS[0][1]
+    if tai_ns < _LEAP_NS[0][0] + before * _NS:
+        raise ValueError(f"Argument 'tai_ns' must be on or after 1972-01-01 UTC, not {tai_ns}.")
+    dat = before
+    for at_ns, value in _LEAP_NS[1:]:
+        if tai_ns >= at_ns + value * _NS:
+            dat = value
+            continue
+        if tai_ns >= at_ns + dat * _NS:  # inside the leap second before this date: 23:59:60.x
+            text = format_utc_ns(at_ns - _NS + (tai_ns - at_ns - dat * _NS))
+            return text[:17] + "60" + text[19:]
+        break
+    return format_utc_ns(tai_ns - dat * _NS)
+
+
+def cuc_4_2_tai(tai_ns: int) -> bytes:
+    """:func:`cuc_4_2` of a TAI instant from :func:`tai_ns_from_utc_ns` (valid inside a leap second too)."""
+    total = int(tai_ns) + _S_1958_TO_1970 * _NS
+    secs, ns = divmod(total, _NS)
+    fine = (ns << 16) // _NS
+    return (secs & 0xFFFFFFFF).to_bytes(4, "big") + fine.to_bytes(2, "big")
+
+
 def tai_seconds_since_1958(utc_ns: int) -> tuple[int, int]:
     """TAI time elapsed since 1958-01-01T00:00:00 TAI at a UTC instant, as (seconds, nanoseconds).
 
@@ -144,6 +187,4 @@ def cuc_4_2(utc_ns: int) -> bytes:
     ----------
     CCSDS 301.0-B-4 sec. 3.2 (CUC); REFERENCES.md sec. 6.
     """
-    secs, ns = tai_seconds_since_1958(utc_ns)
-    fine = (ns << 16) // _NS
-    return (secs & 0xFFFFFFFF).to_bytes(4, "big") + fine.to_bytes(2, "big")
+    return cuc_4_2_tai(tai_ns_from_utc_ns(utc_ns))
