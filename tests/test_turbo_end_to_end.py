@@ -139,9 +139,10 @@ def test_bpsk_iq_every_packet_and_a_spoiled_frame_is_turbo_failed(bpsk_pass):
     assert report["frames"]["status_counts"].get("turbo_failed") == 1
 
 
-@pytest.mark.parametrize("ebn0_db, phase_rad, inverted", [(2.6, 2.3, False), (2.6, -1.2, False), (2.6, 0.9, True),
-                                                            (1.8, -1.2, False), (1.8, 0.9, True)])
-def test_qpsk_iq_every_packet_whatever_the_carrier_phase(tmp_path, ebn0_db, phase_rad, inverted):
+@pytest.mark.parametrize("modulation, ebn0_db, phase_rad, inverted", [
+    ("qpsk", 2.6, 2.3, False), ("qpsk", 2.6, -1.2, False), ("qpsk", 2.6, 0.9, True), ("qpsk", 1.8, -1.2, False),
+    ("qpsk", 1.8, 0.9, True), ("oqpsk", 2.6, 2.3, False), ("oqpsk", 2.6, 0.9, True)])
+def test_qpsk_iq_every_packet_whatever_the_carrier_phase(tmp_path, modulation, ebn0_db, phase_rad, inverted):
     # the same transmitter's k = 1784 rate-1/2 channel bits in (I, Q) pairs on QPSK at Eb/N0 2.6 dB (issue 16: the
     # code-alone target + 1 dB) and 1.8 dB; the receiver locks at one of four phases (and a conjugated recording
     # mirrors the constellation): the rotation is resolved on the turbo marker by soft correlation
@@ -151,8 +152,8 @@ def test_qpsk_iq_every_packet_whatever_the_carrier_phase(tmp_path, ebn0_db, phas
     packets, frames = transmitter_frames(rng, 20, 1784)
     bits = tx.turbo_channel_bits(frames, rate="1/2", lead_bits=2000, seed=8)
     bits = bits[: bits.size // 2 * 2]
-    prof = turbo_profile("1/2", 1784, modulation="qpsk")
-    wave = ds.modulate(bits.size // 2, modulation="qpsk", sample_rate_hz=SAMPLE_RATE, symbol_rate_baud=SYMBOL_RATE,
+    prof = turbo_profile("1/2", 1784, modulation=modulation)
+    wave = ds.modulate(bits.size // 2, modulation=modulation, sample_rate_hz=SAMPLE_RATE, symbol_rate_baud=SYMBOL_RATE,
                        timing_offset=0.21, clock_offset_ppm=-40.0, carrier_offset_hz=-650.0, phase_rad=phase_rad,
                        esn0_db=prof.esn0_from_ebn0(ebn0_db), rng=rng, bits=(bits[0::2], bits[1::2]), lead_symbols=400)
     samples = np.conj(wave.samples) if inverted else wave.samples
