@@ -547,8 +547,8 @@ def test_kernel_bound_holds_on_hostile_input(rng, monkeypatch):
     calls = []
     real = dm.track_symbols
 
-    def counting(mf, base, t_limit, params, mod, third, state, out_pos, *rest):
-        n = real(mf, base, t_limit, params, mod, third, state, out_pos, *rest)
+    def counting(mf, base, t_limit, params, mod, third, state, c_table, out_pos, *rest):
+        n = real(mf, base, t_limit, params, mod, third, state, c_table, out_pos, *rest)
         calls.append((n, out_pos.size))
         return n
 

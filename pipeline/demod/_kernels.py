@@ -37,7 +37,9 @@ TRACK_PARAMS = np.dtype([
     ("c_min", np.float64), ("s_on", np.float64), ("s_off", np.float64), ("s_min", np.float64), ("r0", np.float64),
     ("kd", np.float64), ("warmup", np.float64), ("hbox", np.float64), ("v_max", np.float64), ("dd_gain", np.float64),
     ("t_ref_esn0", np.float64), ("t_min_scale", np.float64), ("c_bn", np.float64), ("c_loop_snr", np.float64),
-    ("gear_symbols", np.float64), ("c_hold", np.float64),
+    ("gear_symbols", np.float64), ("c_hold", np.float64), ("pull_symbols", np.float64), ("l_lock_slow", np.float64),
+    ("c_on_slow", np.float64), ("c_min_slow", np.float64), ("c_hold_slow", np.float64), ("slow_esn0", np.float64),
+    ("soft_c", np.float64), ("c_min_scale", np.float64), ("ct_db0", np.float64), ("ct_step", np.float64),
 ])
 
 #: Loop state of :func:`track_symbols` (one record, updated in place; meanings in its docstring).
@@ -55,6 +57,8 @@ TRACK_STATE = np.dtype([
     ("acc_q", np.float64),
     ("acc_mid", np.float64), ("blk_n", np.int64), ("blk_m2", np.float64), ("blk_m4", np.float64),
     ("ph_cos", np.float64), ("ph_sin", np.float64), ("ph_theta", np.float64), ("ph_count", np.int64),
+    ("pull_left", np.int64), ("m2g", np.float64), ("m4g", np.float64), ("wg", np.float64), ("cnum_g", np.float64),
+    ("cgood_g", np.int64), ("lock_path", np.int64), ("a_soft", np.float64), ("c_clip", np.float64),
 ])
 
 
@@ -240,7 +244,7 @@ def phasor_table(dphase_rad, out2):
 
 
 @njit(cache=True, nogil=True)
-def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
+def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_table,
                   out_pos, out_bitpos, out_soft, out_sym, out_flags, out_theta):
     """Gardner timing recovery with a cubic (Farrow) interpolator and a symbol-rate carrier loop.
 
@@ -388,6 +392,13 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     c_rho = pr["c_loop_snr"]
     gear = pr["gear_symbols"]
     c_hold = pr["c_hold"]
+    l_slow = pr["l_lock_slow"]
+    c_on_g = pr["c_on_slow"]
+    c_min_g = pr["c_min_slow"]
+    c_hold_g = pr["c_hold_slow"]
+    slow_esn0 = pr["slow_esn0"]
+    soft_c = pr["soft_c"] > 0.0
+    c_min_sc = pr["c_min_scale"]
     look = int(hbox + 0.5) + 2 if hbox > 0.0 else 2
 
     st = state[0]
@@ -432,10 +443,15 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     u3 = np.uint64(3)
     inv_kd = 1.0 / kd
     flags = clock + 2 * slock
+    # the loops track (second order, bandwidths from Es/N0) in lock and while a carrier the acquisition
+    # found is being pulled in; otherwise the first-order wide loop coasts
+    trk = 1 if clock == 1 or (st["pull_left"] > 0 and st["seen"] >= warmup) else 0
     # the loops' normalisation: carrier error / (A kdc), timing error / (A^2 K_D); the timing loop's
     # bandwidth scale and its gains
-    g_c = inv_amp / kdc
+    g_c = 1.0 / kdc if soft_c else inv_amp / kdc
     g_t = inv_amp * inv_amp * inv_kd
+    a_soft = st["a_soft"]
+    c_clip = st["c_clip"]
     t_scale = st["t_scale"]
     kp_tl = kp_t * t_scale
     ki_tl = ki_t * t_scale * t_scale
@@ -534,9 +550,12 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 sq = wi
                 et = p2r * (p1r - p3r) + p1i * (wi - p2i)
                 mid_e = p2r * p2r + p1i * p1i
-                sg_i = 1.0 if p1r >= 0.0 else -1.0
-                sg_q = 1.0 if wi >= 0.0 else -1.0
-                ec_raw = (sg_i * p1i - sg_q * wr) * inv_sqrt2
+                if soft_c:
+                    ec_raw = (math.tanh(a_soft * p1r * inv_amp) * p1i - math.tanh(a_soft * wi * inv_amp) * wr) * inv_amp
+                else:
+                    sg_i = 1.0 if p1r >= 0.0 else -1.0
+                    sg_q = 1.0 if wi >= 0.0 else -1.0
+                    ec_raw = (sg_i * p1i - sg_q * wr) * inv_sqrt2
             else:
                 sr = p1r
                 sq = p1i
@@ -545,6 +564,11 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 sg_i = 1.0 if sr >= 0.0 else -1.0
                 if mod_code == 0:
                     ec_raw = sg_i * sq
+                elif soft_c:
+                    # soft (MAP) QPSK detector on the normalised symbol: tanh(a I) Q - tanh(a Q) I
+                    yr = sr * inv_amp
+                    yi = sq * inv_amp
+                    ec_raw = math.tanh(a_soft * yr) * yi - math.tanh(a_soft * yi) * yr
                 else:
                     sg_q = 1.0 if sq >= 0.0 else -1.0
                     ec_raw = (sg_i * sq - sg_q * sr) * inv_sqrt2
@@ -581,12 +605,33 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                     inv_amp = 1.0 / amp
                     st["amp"] = amp
                 esn0 = sig / (m2 - sig) if m2 > sig else 1e3
-                if dd_gain > 0.0:
-                    # decision-directed slope at the measured Es/N0 (never below 0.3)
-                    kdc = math.erf(math.sqrt(esn0 if mod_code == 0 else 0.5 * esn0))
-                    if kdc < 0.3:
-                        kdc = 0.3
-                g_c = inv_amp / kdc
+                if soft_c:
+                    # the soft detector's slope at the measured Es/N0 x from the table (its Fisher information
+                    # J = sqrt(2) x slope per symbol); a = sqrt(2) x.  x from -6 dB while the loops track, from
+                    # 0 dB while they do not: the estimate over the first symbols of a warm-up (timing not yet
+                    # found) can be far too low, and the wide loop would take its noise at a gain of 1 / slope
+                    x_lo = 0.25 if trk == 1 else 1.0
+                    x_s = esn0 if esn0 > x_lo else x_lo
+                    u = (10.0 * math.log10(x_s) - pr["ct_db0"]) / pr["ct_step"]
+                    nt = c_table.shape[0]
+                    if u <= 0.0:
+                        kdc = c_table[0]
+                    elif u >= nt - 1:
+                        kdc = c_table[nt - 1]
+                    else:
+                        ju = int(u)
+                        kdc = c_table[ju] + (u - ju) * (c_table[ju + 1] - c_table[ju])
+                    fisher = sqrt2 * x_s * kdc
+                    c_clip = 4.0 / math.sqrt(fisher) if fisher < 1.0 and trk == 1 else 4.0
+                    a_soft = sqrt2 * x_s
+                    g_c = 1.0 / kdc
+                else:
+                    if dd_gain > 0.0:
+                        # decision-directed slope at the measured Es/N0 (never below 0.3)
+                        kdc = math.erf(math.sqrt(esn0 if mod_code == 0 else 0.5 * esn0))
+                        if kdc < 0.3:
+                            kdc = 0.3
+                    g_c = inv_amp / kdc
                 g_t = inv_amp * inv_amp * inv_kd
 
                 # carrier-lock statistic relative to its locked value, which comes from M2M4 moments
@@ -617,6 +662,29 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 if seen > warmup:
                     seen = int(warmup)
                 st["seen"] = seen
+                # the long carrier-lock average (QPSK/OQPSK at low Es/N0, where the fourth-power statistic
+                # over the short window is buried in its own noise): -Re(r^4) / M4 against its locked value
+                # S^2 / M4, both over the same long window
+                slow_ok = False
+                slow_bad = True
+                slow_low = False
+                if l_slow < 0.0:
+                    d_g = math.exp(acc_n * l_slow)
+                    m2g = d_g * st["m2g"] + (1.0 - d_g) * mr2
+                    m4g = d_g * st["m4g"] + (1.0 - d_g) * mr4
+                    wg = d_g * st["wg"] + (1.0 - d_g)
+                    cnum_g = d_g * st["cnum_g"] + (1.0 - d_g) * acc_q * inv_n
+                    st["m2g"] = m2g
+                    st["m4g"] = m4g
+                    st["wg"] = wg
+                    st["cnum_g"] = cnum_g
+                    s2g = 2.0 * m2g * m2g - m4g * wg
+                    ref_g = s2g if s2g > 0.0 else 0.0
+                    slow_ok = wg > 0.25 and cnum_g * wg > c_on_g * ref_g and cnum_g > c_min_g * m4g
+                    slow_bad = cnum_g * wg < c_off * ref_g or cnum_g < 0.5 * c_min_g * m4g
+                    # the long window's Es/N0 below slow_esn0: sg / (m2 - sg) < e  <=>  sg (1 + e) < e m2
+                    sg = math.sqrt(s2g) if s2g > 0.0 else 0.0
+                    slow_low = sg * (1.0 + slow_esn0) < slow_esn0 * m2g
                 if clock == 0:
                     # the condition must hold for `c_hold` symbols in a row: a loop slipping cycles
                     # at a large frequency error can push the statistic up for a moment
@@ -626,10 +694,32 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                         st["cgood"] = 0
                     if st["cgood"] >= c_hold and seen >= warmup:
                         clock = 1
+                        st["lock_path"] = 0
                         st["cgood"] = 0
-                else:
+                    # the long average declares lock only while a found carrier is pulled in
+                    if slow_ok and st["pull_left"] > 0:
+                        st["cgood_g"] += acc_n
+                    else:
+                        st["cgood_g"] = 0
+                    if clock == 0 and l_slow < 0.0 and st["cgood_g"] >= c_hold_g and seen >= warmup:
+                        clock = 1
+                        st["lock_path"] = 1
+                    if clock == 1:
+                        st["cgood_g"] = 0
+                    else:
+                        st["pull_left"] = st["pull_left"] - acc_n if st["pull_left"] > acc_n else 0
+                elif st["lock_path"] == 0:
                     if lhs < c_off * ref_num * cden or cnum < 0.5 * c_min * cden:
-                        clock = 0
+                        # at low Es/N0 (over the long window) the long average holds the lock if it says so
+                        if slow_ok and slow_low:
+                            st["lock_path"] = 1
+                        else:
+                            clock = 0
+                elif slow_bad:
+                    clock = 0
+                if clock == 0 and flags & 1:
+                    st["pull_left"] = 0  # lock lost: the wide loop coasts (a fade), as before any lock
+                trk = 1 if clock == 1 or (st["pull_left"] > 0 and seen >= warmup) else 0
 
                 # symbol-lock statistic: on-time versus midpoint energy, relative to r0 S / (S + N)
                 eon = d_ls * st["eon"] + (1.0 - d_ls) * mr2
@@ -655,7 +745,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 esn0 = sw / (m2w - sw) if m2w > sw else (1e3 if sw > 0.0 else 1e-3)
                 if esn0 < 1e-3:
                     esn0 = 1e-3
-                if clock == 1:
+                if trk == 1:
                     lock_age = st["lock_age"] + acc_n
                     st["lock_age"] = lock_age
                 else:
@@ -671,14 +761,24 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 # the carrier loop in lock: narrowed where the configured bandwidth would leave a loop
                 # SNR below c_loop_snr, B_L T <= (Es/N0) S_L / rho with the Costas squaring loss S_L
                 c_scale = 1.0
-                if geared:
-                    if mod_code == 0:
-                        s_l = 1.0 / (1.0 + 0.5 / esn0)
+                # a carrier pulled in after an acquisition (whose frequency is close) is narrowed at once: at
+                # low Es/N0 the full bandwidth's noise would walk the frequency away
+                pulling = clock == 0 and trk == 1
+                if geared or pulling:
+                    if soft_c:
+                        # loop SNR 1 / (2 B_L T / J) with the soft detector's Fisher information J per symbol
+                        bn_ok = 0.5 * sqrt2 * esn0 * kdc / c_rho
                     else:
-                        s_l = 1.0 / (1.0 + 4.5 / esn0 + 6.0 / (esn0 * esn0) + 1.5 / (esn0 * esn0 * esn0))
-                    bn_ok = esn0 * s_l / c_rho
+                        if mod_code == 0:
+                            s_l = 1.0 / (1.0 + 0.5 / esn0)
+                        else:
+                            s_l = 1.0 / (1.0 + 4.5 / esn0 + 6.0 / (esn0 * esn0) + 1.5 / (esn0 * esn0 * esn0))
+                        bn_ok = esn0 * s_l / c_rho
                     if bn_ok < c_bn:
-                        c_scale = bn_ok / c_bn if bn_ok > t_min * c_bn else t_min
+                        c_scale = bn_ok / c_bn if bn_ok > c_min_sc * c_bn else c_min_sc
+                        # narrowed gradually after the pull-in: gear / age of the full bandwidth, down to it
+                        if soft_c and not pulling and gear > c_scale * lock_age:
+                            c_scale = gear / lock_age
                 st["c_scale"] = c_scale
                 kp_cl = kp_c * c_scale
                 ki_cl = ki_c * c_scale * c_scale
@@ -726,11 +826,11 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
             # the carrier error bounded far outside the detector's range (4 noise deviations at Es/N0 =
             # -3 dB: an amplitude estimate that lags a sudden rise after silence cannot throw the
             # phase), the timing error at +-1
-            pend_ec = min(max(ec_raw * g_c, -4.0), 4.0)
+            pend_ec = min(max(ec_raw * g_c, -c_clip), c_clip)
             e_t = pend_et
             pend_et = min(max(et * g_t, -1.0), 1.0)
             # carrier loop (phase correction takes effect from the next half-strobe)
-            if clock == 1:
+            if trk == 1:
                 if third_order == 1:
                     w_rate += kr_cl * ec
                 w_int += ki_cl * ec + w_rate
@@ -739,7 +839,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 theta += kp_c_wide * ec
 
             # timing loop
-            if clock == 1:
+            if trk == 1:
                 v_int += ki_tl * e_t
                 if v_int > v_max:
                     v_int = v_max
@@ -777,6 +877,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     st["pend_et"] = pend_et
     st["inv_amp"] = inv_amp
     st["kdc"] = kdc
+    st["a_soft"] = a_soft
+    st["c_clip"] = c_clip
     st["clock"] = clock
     st["slock"] = slock
     st["acc_n"] = acc_n
