@@ -64,6 +64,9 @@ _CARRIER_MIN_SCALE = 1.0 / 16.0
 _LONG_SEARCH_SYMBOLS = 131072
 #: ... tried again after this many failed short searches (blocks).
 _LONG_SEARCH_EVERY = 8
+#: QPSK/OQPSK: below this Es/N0 (dB) the carrier loop takes the soft detector (above it the hard one, whose
+#: noise is then as low and which costs less in the timing loop).
+_SOFT_BELOW_DB = 2.0
 #: Es/N0 grid of the soft Costas detector's slope table: first value, step, end (dB).
 _SLOPE_TABLE_DB = (-10.0, 0.25, 40.25)
 #: Sub-intervals of a block whose mean frequencies give a track point's ``carrier_std_hz``.
@@ -493,7 +496,7 @@ class Demodulator:
             pr["l_lock_slow"] = math.log1p(-1.0 / _SLOW_LOCK_SYMBOLS)
             pr["c_on_slow"], pr["c_min_slow"], pr["c_hold_slow"] = 0.5, 0.03, _SLOW_LOCK_SYMBOLS / 4
             pr["slow_esn0"] = 10.0 ** (_SLOW_LOCK_ESN0_DB / 10.0)
-            pr["soft_c"] = 1.0
+            pr["soft_below"] = 10.0 ** (_SOFT_BELOW_DB / 10.0)
         pr["ct_db0"], pr["ct_step"] = _SLOPE_TABLE_DB[:2]
         self._c_table = soft_costas_slope(np.arange(_SLOPE_TABLE_DB[0], _SLOPE_TABLE_DB[2], _SLOPE_TABLE_DB[1]))
         pr["c_min_scale"] = _CARRIER_MIN_SCALE if qpsk else _TIMING_MIN_SCALE

@@ -17,6 +17,7 @@ __all__ = [
     "derotate",
     "fir_interleaved",
     "track_symbols",
+    "soft_costas_error",
     "nrzm_decode",
     "moments_m2m4",
     "mean_power_nonzero",
@@ -39,7 +40,7 @@ TRACK_PARAMS = np.dtype([
     ("t_ref_esn0", np.float64), ("t_min_scale", np.float64), ("c_bn", np.float64), ("c_loop_snr", np.float64),
     ("gear_symbols", np.float64), ("c_hold", np.float64), ("pull_symbols", np.float64), ("l_lock_slow", np.float64),
     ("c_on_slow", np.float64), ("c_min_slow", np.float64), ("c_hold_slow", np.float64), ("slow_esn0", np.float64),
-    ("soft_c", np.float64), ("c_min_scale", np.float64), ("ct_db0", np.float64), ("ct_step", np.float64),
+    ("soft_below", np.float64), ("c_min_scale", np.float64), ("ct_db0", np.float64), ("ct_step", np.float64),
 ])
 
 #: Loop state of :func:`track_symbols` (one record, updated in place; meanings in its docstring).
@@ -59,6 +60,7 @@ TRACK_STATE = np.dtype([
     ("ph_cos", np.float64), ("ph_sin", np.float64), ("ph_theta", np.float64), ("ph_count", np.int64),
     ("pull_left", np.int64), ("m2g", np.float64), ("m4g", np.float64), ("wg", np.float64), ("cnum_g", np.float64),
     ("cgood_g", np.int64), ("lock_path", np.int64), ("a_soft", np.float64), ("c_clip", np.float64),
+    ("soft_on", np.int64),
 ])
 
 
@@ -243,6 +245,29 @@ def phasor_table(dphase_rad, out2):
         c, s = c * wc - s * ws, s * wc + c * ws
 
 
+@njit(cache=True, nogil=True, error_model="numpy")
+def soft_costas_error(a, yi, yq, zq, zi):
+    """``tanh(a yi) zq - tanh(a yq) zi`` with ``tanh`` to within 1e-4: the soft QPSK Costas detector
+    (``zq = yq``, ``zi = yi``; OQPSK: each rail's decision on its own strobe, the other rail's value there).
+
+    ``tanh`` is the [7/6] Pade approximant, Lambert's continued fraction truncated:
+    ``z (135135 + 17325 z^2 + 378 z^4 + z^6) / (135135 + 62370 z^2 + 3150 z^4 + 28 z^6)`` with ``z``
+    clamped to +-4.97 (where it reaches 0.9999994); the two quotients share one division.  About 20
+    multiplies and one division, no exponential.
+    """
+    u = a * yi
+    v = a * yq
+    u = min(max(u, -4.97), 4.97)
+    v = min(max(v, -4.97), 4.97)
+    u2 = u * u
+    v2 = v * v
+    nu = u * (135135.0 + u2 * (17325.0 + u2 * (378.0 + u2)))
+    du = 135135.0 + u2 * (62370.0 + u2 * (3150.0 + 28.0 * u2))
+    nv = v * (135135.0 + v2 * (17325.0 + v2 * (378.0 + v2)))
+    dv = 135135.0 + v2 * (62370.0 + v2 * (3150.0 + 28.0 * v2))
+    return (nu * dv * zq - nv * du * zi) / (du * dv)
+
+
 @njit(cache=True, nogil=True)
 def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_table,
                   out_pos, out_bitpos, out_soft, out_sym, out_flags, out_theta):
@@ -397,7 +422,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     c_min_g = pr["c_min_slow"]
     c_hold_g = pr["c_hold_slow"]
     slow_esn0 = pr["slow_esn0"]
-    soft_c = pr["soft_c"] > 0.0
+    soft_below = pr["soft_below"]
+    soft_on = state[0]["soft_on"] == 1
     c_min_sc = pr["c_min_scale"]
     look = int(hbox + 0.5) + 2 if hbox > 0.0 else 2
 
@@ -448,7 +474,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     trk = 1 if clock == 1 or (st["pull_left"] > 0 and st["seen"] >= warmup) else 0
     # the loops' normalisation: carrier error / (A kdc), timing error / (A^2 K_D); the timing loop's
     # bandwidth scale and its gains
-    g_c = 1.0 / kdc if soft_c else inv_amp / kdc
+    g_c = 1.0 / kdc if soft_on else inv_amp / kdc
     g_t = inv_amp * inv_amp * inv_kd
     a_soft = st["a_soft"]
     c_clip = st["c_clip"]
@@ -550,8 +576,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                 sq = wi
                 et = p2r * (p1r - p3r) + p1i * (wi - p2i)
                 mid_e = p2r * p2r + p1i * p1i
-                if soft_c:
-                    ec_raw = (math.tanh(a_soft * p1r * inv_amp) * p1i - math.tanh(a_soft * wi * inv_amp) * wr) * inv_amp
+                if soft_on:
+                    ec_raw = soft_costas_error(a_soft, p1r * inv_amp, wi * inv_amp, p1i * inv_amp, wr * inv_amp)
                 else:
                     sg_i = 1.0 if p1r >= 0.0 else -1.0
                     sg_q = 1.0 if wi >= 0.0 else -1.0
@@ -564,11 +590,11 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                 sg_i = 1.0 if sr >= 0.0 else -1.0
                 if mod_code == 0:
                     ec_raw = sg_i * sq
-                elif soft_c:
+                elif soft_on:
                     # soft (MAP) QPSK detector on the normalised symbol: tanh(a I) Q - tanh(a Q) I
                     yr = sr * inv_amp
                     yi = sq * inv_amp
-                    ec_raw = math.tanh(a_soft * yr) * yi - math.tanh(a_soft * yi) * yr
+                    ec_raw = soft_costas_error(a_soft, yr, yi, yi, yr)
                 else:
                     sg_q = 1.0 if sq >= 0.0 else -1.0
                     ec_raw = (sg_i * sq - sg_q * sr) * inv_sqrt2
@@ -605,11 +631,13 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                     inv_amp = 1.0 / amp
                     st["amp"] = amp
                 esn0 = sig / (m2 - sig) if m2 > sig else 1e3
-                if soft_c:
-                    # the soft detector's slope at the measured Es/N0 x from the table (its Fisher information
-                    # J = sqrt(2) x slope per symbol); a = sqrt(2) x.  x from -6 dB while the loops track, from
-                    # 0 dB while they do not: the estimate over the first symbols of a warm-up (timing not yet
-                    # found) can be far too low, and the wide loop would take its noise at a gain of 1 / slope
+                soft_on = esn0 < soft_below
+                if soft_on:
+                    # below soft_below (QPSK/OQPSK) the soft detector, its slope at the measured Es/N0 x from the
+                    # table (its Fisher information J = sqrt(2) x slope per symbol); a = sqrt(2) x.  x from -6 dB
+                    # while the loops track, from 0 dB while they do not: the estimate over the first symbols of
+                    # a warm-up (timing not yet found) can be far too low, and the wide loop would take its noise
+                    # at a gain of 1 / slope
                     x_lo = 0.25 if trk == 1 else 1.0
                     x_s = esn0 if esn0 > x_lo else x_lo
                     u = (10.0 * math.log10(x_s) - pr["ct_db0"]) / pr["ct_step"]
@@ -626,6 +654,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                     a_soft = sqrt2 * x_s
                     g_c = 1.0 / kdc
                 else:
+                    c_clip = 4.0
                     if dd_gain > 0.0:
                         # decision-directed slope at the measured Es/N0 (never below 0.3)
                         kdc = math.erf(math.sqrt(esn0 if mod_code == 0 else 0.5 * esn0))
@@ -765,7 +794,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                 # low Es/N0 the full bandwidth's noise would walk the frequency away
                 pulling = clock == 0 and trk == 1
                 if geared or pulling:
-                    if soft_c:
+                    if soft_on:
                         # loop SNR 1 / (2 B_L T / J) with the soft detector's Fisher information J per symbol
                         bn_ok = 0.5 * sqrt2 * esn0 * kdc / c_rho
                     else:
@@ -777,7 +806,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                     if bn_ok < c_bn:
                         c_scale = bn_ok / c_bn if bn_ok > c_min_sc * c_bn else c_min_sc
                         # narrowed gradually after the pull-in: gear / age of the full bandwidth, down to it
-                        if soft_c and not pulling and gear > c_scale * lock_age:
+                        if soft_on and not pulling and gear > c_scale * lock_age:
                             c_scale = gear / lock_age
                 st["c_scale"] = c_scale
                 kp_cl = kp_c * c_scale
@@ -879,6 +908,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     st["kdc"] = kdc
     st["a_soft"] = a_soft
     st["c_clip"] = c_clip
+    st["soft_on"] = 1 if soft_on else 0
     st["clock"] = clock
     st["slock"] = slock
     st["acc_n"] = acc_n
