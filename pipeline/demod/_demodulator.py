@@ -686,6 +686,9 @@ class Demodulator:
                 if not st["clock"]:
                     # a new carrier: pulled in with the loops in their locked form, the long lock average afresh
                     st["pull_left"] = int(self._params[0]["pull_symbols"])
+                    # narrowest until the next statistics interval sets the bandwidth from Es/N0: at the full
+                    # one a few dozen symbols of low-Es/N0 noise would walk the frequency integrator away
+                    st["c_scale"] = self._params[0]["c_min_scale"]
                     st["m2g"], st["m4g"], st["wg"], st["cnum_g"], st["cgood_g"] = 0.0, 0.0, 0.0, 0.0, 0
                 self._history = []
                 self._long_tried = 0

@@ -631,7 +631,42 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                     inv_amp = 1.0 / amp
                     st["amp"] = amp
                 esn0 = sig / (m2 - sig) if m2 > sig else 1e3
+                # the long carrier-lock average (QPSK/OQPSK at low Es/N0, where the fourth-power statistic
+                # over the short window is buried in its own noise): -Re(r^4) / M4 against its locked value
+                # S^2 / M4, both over the same long window
+                slow_ok = False
+                slow_bad = True
+                slow_low = False
+                if l_slow < 0.0:
+                    d_g = math.exp(acc_n * l_slow)
+                    m2g = d_g * st["m2g"] + (1.0 - d_g) * mr2
+                    m4g = d_g * st["m4g"] + (1.0 - d_g) * mr4
+                    wg = d_g * st["wg"] + (1.0 - d_g)
+                    cnum_g = d_g * st["cnum_g"] + (1.0 - d_g) * acc_q * inv_n
+                    st["m2g"] = m2g
+                    st["m4g"] = m4g
+                    st["wg"] = wg
+                    st["cnum_g"] = cnum_g
+                    s2g = 2.0 * m2g * m2g - m4g * wg
+                    ref_g = s2g if s2g > 0.0 else 0.0
+                    slow_ok = wg > 0.25 and cnum_g * wg > c_on_g * ref_g and cnum_g > c_min_g * m4g
+                    slow_bad = cnum_g * wg < c_off * ref_g or cnum_g < 0.5 * c_min_g * m4g
+                    # the long window's Es/N0 below slow_esn0: sg / (m2 - sg) < e  <=>  sg (1 + e) < e m2
+                    sg = math.sqrt(s2g) if s2g > 0.0 else 0.0
+                    slow_low = sg * (1.0 + slow_esn0) < slow_esn0 * m2g
+                    # at low Es/N0 the soft detector takes amplitude and Es/N0 from the long window (over 1024
+                    # symbols M2M4's S has a relative spread of about 25 % at -3 dB, which the detector's slope,
+                    # nearly proportional to (Es/N0)^2 there, would double)
+                    if wg > 0.25 and s2g > 0.0 and esn0 < soft_below:
+                        sgn = sg / wg
+                        m2n = m2g / wg
+                        if m2n > sgn and sgn > 1e-30:
+                            esn0 = sgn / (m2n - sgn)
+                            amp = math.sqrt(sgn)
+                            inv_amp = 1.0 / amp
+                            st["amp"] = amp
                 soft_on = esn0 < soft_below
+                fisher = 1.0
                 if soft_on:
                     # below soft_below (QPSK/OQPSK) the soft detector, its slope at the measured Es/N0 x from the
                     # table (its Fisher information J = sqrt(2) x slope per symbol); a = sqrt(2) x.  x from -6 dB
@@ -691,29 +726,6 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                 if seen > warmup:
                     seen = int(warmup)
                 st["seen"] = seen
-                # the long carrier-lock average (QPSK/OQPSK at low Es/N0, where the fourth-power statistic
-                # over the short window is buried in its own noise): -Re(r^4) / M4 against its locked value
-                # S^2 / M4, both over the same long window
-                slow_ok = False
-                slow_bad = True
-                slow_low = False
-                if l_slow < 0.0:
-                    d_g = math.exp(acc_n * l_slow)
-                    m2g = d_g * st["m2g"] + (1.0 - d_g) * mr2
-                    m4g = d_g * st["m4g"] + (1.0 - d_g) * mr4
-                    wg = d_g * st["wg"] + (1.0 - d_g)
-                    cnum_g = d_g * st["cnum_g"] + (1.0 - d_g) * acc_q * inv_n
-                    st["m2g"] = m2g
-                    st["m4g"] = m4g
-                    st["wg"] = wg
-                    st["cnum_g"] = cnum_g
-                    s2g = 2.0 * m2g * m2g - m4g * wg
-                    ref_g = s2g if s2g > 0.0 else 0.0
-                    slow_ok = wg > 0.25 and cnum_g * wg > c_on_g * ref_g and cnum_g > c_min_g * m4g
-                    slow_bad = cnum_g * wg < c_off * ref_g or cnum_g < 0.5 * c_min_g * m4g
-                    # the long window's Es/N0 below slow_esn0: sg / (m2 - sg) < e  <=>  sg (1 + e) < e m2
-                    sg = math.sqrt(s2g) if s2g > 0.0 else 0.0
-                    slow_low = sg * (1.0 + slow_esn0) < slow_esn0 * m2g
                 if clock == 0:
                     # the condition must hold for `c_hold` symbols in a row: a loop slipping cycles
                     # at a large frequency error can push the statistic up for a moment
@@ -796,7 +808,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                 if geared or pulling:
                     if soft_on:
                         # loop SNR 1 / (2 B_L T / J) with the soft detector's Fisher information J per symbol
-                        bn_ok = 0.5 * sqrt2 * esn0 * kdc / c_rho
+                        bn_ok = 0.5 * fisher / c_rho
                     else:
                         if mod_code == 0:
                             s_l = 1.0 / (1.0 + 0.5 / esn0)
