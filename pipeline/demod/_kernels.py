@@ -301,7 +301,17 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
         ``B_L T`` and ``c_loop_snr`` the loop SNR it keeps in lock (its bandwidth scaled down to
         ``(Es/N0) S_L / c_loop_snr``, never below ``t_min_scale``: see Notes); ``gear_symbols`` the
         symbols of lock after which they apply; ``c_hold`` the symbols in a row the carrier lock
-        condition must hold before lock is declared.
+        condition must hold before lock is declared.  QPSK/OQPSK at low Es/N0 (all 0 for BPSK):
+        ``soft_below`` (linear Es/N0) below which the carrier loop takes the soft detector, its slope
+        from ``c_table`` on the grid ``ct_db0 + k ct_step`` dB; ``c_min_scale`` the narrowest carrier
+        bandwidth (fraction of ``c_bn``); ``pull_symbols`` the symbols a carrier found by the
+        acquisition is tracked before lock (the wrapper sets ``pull_left``); the long lock average:
+        ``l_lock_slow`` its ``log(1 - a)``, ``c_on_slow`` (relative), ``c_min_slow`` (absolute),
+        ``c_hold_slow`` its hold, ``slow_esn0`` the Es/N0 (linear) below which it holds a lock the
+        short average lost.
+    c_table : float64 array
+        Slope of the soft QPSK detector per radian at the Es/N0 grid above
+        (:func:`pipeline.demod._demodulator.soft_costas_slope`); any array for BPSK.
     mod_code : int
         0 BPSK, 1 QPSK, 2 OQPSK.
     third_order : int
@@ -324,7 +334,11 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
         interval in progress ``acc_n, acc_r2, acc_r4, acc_q, acc_mid``; the block sums for the
         Es/N0 estimate ``blk_n, blk_m2, blk_m4`` (of ``|r|^2`` and ``|r|^4``, reset by the caller);
         ``ph_cos, ph_sin`` the carrier phasor at phase ``ph_theta``, ``ph_count`` half-strobes
-        since it was last recomputed exactly.
+        since it was last recomputed exactly; ``pull_left`` symbols of tracking left awaiting lock,
+        ``m2g, m4g, wg, cnum_g`` the long averages (M2M4 and the fourth-power statistic),
+        ``cgood_g`` symbols in a row meeting the long lock condition, ``lock_path`` 1 when the long
+        average holds the lock, ``soft_on`` the soft detector in use with scale ``a_soft`` and the
+        bound ``c_clip`` of the normalised carrier error.
     out_pos, out_bitpos, out_soft, out_sym, out_flags, out_theta
         Per symbol (length ``cap``): position of the on-time (I) strobe (samples); per channel bit
         (length ``cap`` for BPSK, ``2 cap`` for QPSK/OQPSK, I then Q): the position of the strobe it
@@ -354,8 +368,16 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     + 2`` symbols (the bound the wrapper sizes the buffers by).  Carrier error: decision-directed
     Costas, ``sgn(I) Q`` (BPSK), ``sgn(I) Q - sgn(Q) I`` over ``sqrt(2) A`` (QPSK; OQPSK takes I and
     Q at their own strobes), divided by the detector's slope ``kdc`` so that the loop's gain, and
-    its bandwidth, hold at low Es/N0.  While the carrier is unlocked the loop runs first order with
-    a wider gain and both integrators hold their value (coasting through fades).
+    its bandwidth, hold at low Es/N0.  QPSK/OQPSK below ``soft_below``: the soft (MAP) detector
+    ``tanh(a I) Q - tanh(a Q) I`` on the symbol over its amplitude, ``a = sqrt(2) Es/N0``
+    (:func:`soft_costas_error`), which is ``1 / (sqrt(2) x)`` times the derivative of the
+    non-data-aided log-likelihood of the phase: its slope equals ``J / (sqrt(2) x)`` with the Fisher
+    information ``J`` per symbol (``c_table``), so divided by the slope the error has unit slope and
+    variance ``1 / J``, clipped at ``4 / sqrt(J)``.  (The hard QPSK detector's slope is
+    ``erf(u) - 2 u exp(-u^2) / sqrt(pi)``, ``u = sqrt(Es/2N0)``, not ``erf(u)``: 0.08 at -3 dB
+    against 0.52, and its ``J`` 0.010 against the soft one's 0.025.)  While the carrier is
+    unlocked, and no carrier found by the acquisition is being pulled in, the loop runs first order
+    with a wider gain and both integrators hold their value (coasting through fades).
 
     Amplitude, lock detectors and their averages are updated from sums the loop accumulates, once
     per interval of ``stat_symbols`` nominal symbol periods on the recording's sample grid (a
@@ -365,16 +387,31 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     weight ``1 - (1 - a)^n`` over ``n`` symbols; the symbols of an interval are normalised by, and
     flagged with, what the intervals before gave.  Amplitude from the M2M4 moments
     (``S = sqrt(2 M2^2 - M4)``), which need no carrier or decisions.  The decision-directed slope
-    at ``Es/N0 = S / (M2 - S)``: ``erf(sqrt(Es/N0))`` (BPSK) and ``erf(sqrt(Es/2N0))`` (QPSK).
+    at ``Es/N0 = S / (M2 - S)``: ``erf(sqrt(Es/N0))`` (BPSK) and ``erf(sqrt(Es/2N0))`` (QPSK above
+    ``soft_below``; too high at low Es/N0, see above).  Below ``soft_below`` amplitude and Es/N0 come
+    from the long window once its weight passes 1/4 (over 1024 symbols M2M4's ``S`` spreads by about
+    25 % at -3 dB).
+
+    QPSK/OQPSK lock at low Es/N0: the fourth-power statistic's noise over the short window (2048
+    symbols) is larger than its locked value below about 0 dB, so a long window (``l_lock_slow``,
+    65536 symbols) gives a second condition, ``-Re(r^4) / M4 > max(c_on_slow S^2 / M4, c_min_slow)``
+    over ``c_hold_slow`` symbols in a row once its weight passes 1/4, which may declare lock only while
+    a carrier found by the acquisition is being pulled in; it holds a lock the short average lost
+    when the long window's Es/N0 is below ``slow_esn0``, and lets it go when the long statistic falls
+    below ``c_off`` times its locked value or half its floor.  After the signal goes, such a lock
+    is reported for up to about one long window.
 
     Loop bandwidths from Es/N0 (once lock has been held for ``gear_symbols``; the full ones before,
-    so that the loops pull in): the timing loop's noise
+    so that the loops pull in; a found carrier pulled in takes the narrowed carrier loop at once,
+    its frequency being close): the timing loop's noise
     grows as ``1 / (Es/N0)`` at low Es/N0, so its bandwidth is scaled by ``Es/N0 / t_ref_esn0``
     below ``t_ref_esn0``; the carrier loop keeps a loop SNR of at least ``c_loop_snr`` where the
     configured bandwidth would not, ``B_L T <= (Es/N0) S_L / rho`` with the Costas squaring loss
     ``S_L = 1 / (1 + 1 / (2 Es/N0))`` (BPSK) and ``1 / (1 + 9 / (2 x) + 6 / x^2 + 3 / (2 x^3))``,
-    ``x = Es/N0`` (QPSK; from memory, not confirmed).  Gains scale as ``kp ~ s``, ``ki ~ s^2``,
-    ``kr ~ s^3`` (the damping stays).
+    ``x = Es/N0`` (QPSK above ``soft_below``; from memory, not confirmed), and with the soft detector
+    ``B_L T <= J / (2 rho)`` (phase variance ``2 B_L T / J``), never below ``c_min_scale``; after
+    ``gear_symbols`` the soft detector's loop narrows as ``gear / age`` of the full bandwidth down to
+    that.  Gains scale as ``kp ~ s``, ``ki ~ s^2``, ``kr ~ s^3`` (the damping stays).
     Cost: two interpolations and about 60 flops per symbol, plus about 100 flops per interval.
 
     References
@@ -383,7 +420,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     COM-34 (1986) 423-429; U. Mengali, A. N. D'Andrea, *Synchronization Techniques for Digital
     Receivers* (1997), sec. 5.7 (decision-directed phase detectors, their S-curve slope);
     W. C. Lindsey, M. K. Simon, *Telecommunication Systems Engineering* (1973), ch. 2 (Costas loop
-    squaring loss).
+    squaring loss); Mengali and D'Andrea ch. 5 (maximum-likelihood non-data-aided phase recovery).
     """
     n_mf = mf.shape[0]
     cap = out_pos.shape[0]
