@@ -388,7 +388,14 @@ class Demodulator:
     gives for that instant, so nothing is lost; when none is found only the window's first block
     is released (demodulated unlocked) and the search is tried again one block later, so a signal
     that starts anywhere in a window is found in the window that begins before it.  The strongest
-    line of every search is kept (``stats.strongest_line``, :meth:`no_lock_message`).
+    line of every search is kept (``stats.strongest_line``, :meth:`no_lock_message`).  QPSK/OQPSK:
+    when the band detector saw a signal but no line passed, the released blocks and the held window
+    are searched again as one long window (:meth:`CarrierSearch.search_long`: 4, then 8 blocks, then
+    ``long_search_blocks`` (about 131072 symbols) every 8 blocks; Doppler rates within +-64 grid steps,
+    +-233 Hz/s at 1 Msample/s), which finds a carrier at Es/N0 = -3 dB; its frequency is carried to
+    the held window's start with the found rate.  A carrier found (short or long search) is then
+    tracked with the loops in their locked form, the carrier loop narrowed from Es/N0 at once, for
+    up to 131072 symbols awaiting lock (no reacquisition meanwhile).
 
     Carrier loop bandwidth: ``[receiver] carrier_loop_bandwidth_hz``, or automatic
     ``0.002 * symbol_rate`` (480 Hz at 240 ksym/s): at Es/N0 = -1 dB its phase jitter is about

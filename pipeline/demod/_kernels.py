@@ -245,6 +245,14 @@ def phasor_table(dphase_rad, out2):
         c, s = c * wc - s * ws, s * wc + c * ws
 
 
+@njit(cache=True, nogil=True)
+def window_moments(d, m2, m4, w, cq, mr2, mr4, mq):
+    """One interval into a lock window's averages: each of ``M2, M4``, the weight and the carrier statistic
+    becomes ``d old + (1 - d) new`` (``d`` the interval's decay; the weight's new value is 1)."""
+    e = 1.0 - d
+    return d * m2 + e * mr2, d * m4 + e * mr4, d * w + e, d * cq + e * mq
+
+
 @njit(cache=True, nogil=True, error_model="numpy")
 def soft_costas_error(a, yi, yq, zq, zi):
     """``tanh(a yi) zq - tanh(a yq) zi`` with ``tanh`` to within 1e-4: the soft QPSK Costas detector
@@ -676,10 +684,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                 slow_low = False
                 if l_slow < 0.0:
                     d_g = math.exp(acc_n * l_slow)
-                    m2g = d_g * st["m2g"] + (1.0 - d_g) * mr2
-                    m4g = d_g * st["m4g"] + (1.0 - d_g) * mr4
-                    wg = d_g * st["wg"] + (1.0 - d_g)
-                    cnum_g = d_g * st["cnum_g"] + (1.0 - d_g) * acc_q * inv_n
+                    m2g, m4g, wg, cnum_g = window_moments(d_g, st["m2g"], st["m4g"], st["wg"], st["cnum_g"], mr2, mr4,
+                                                          acc_q * inv_n)
                     st["m2g"] = m2g
                     st["m4g"] = m4g
                     st["wg"] = wg
@@ -738,10 +744,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                 # carrier-lock statistic relative to its locked value, which comes from M2M4 moments
                 # averaged over the same window (a longer one would lag at a signal's onset and make a
                 # slipping loop look locked).  The ratios are compared cross-multiplied.
-                m2f = d_lc * st["m2f"] + (1.0 - d_lc) * mr2
-                m4f = d_lc * st["m4f"] + (1.0 - d_lc) * mr4
-                wf = d_lc * st["wf"] + (1.0 - d_lc)
-                cnum = d_lc * st["cnum"] + (1.0 - d_lc) * acc_q * inv_n
+                m2f, m4f, wf, cnum = window_moments(d_lc, st["m2f"], st["m4f"], st["wf"], st["cnum"], mr2, mr4,
+                                                    acc_q * inv_n)
                 st["m2f"] = m2f
                 st["m4f"] = m4f
                 st["wf"] = wf
