@@ -827,8 +827,8 @@ class Demodulator:
         parts.append({"bitpos": bitpos, "soft": soft, "sym": sym, "locked": clock, "track": track})
         self.stats.symbols_out += nsym
         self.stats.carrier_locked_symbols += locked
-        # (not while a found carrier is pulled in: at low Es/N0 lock is declared from the long average)
-        if not tail and self._unlocked_run >= self.reacquire_symbols and st["pull_left"] == 0:
+        # (not while a found carrier is pulled in at low Es/N0: lock is declared from the long average there)
+        if not tail and self._unlocked_run >= self.reacquire_symbols and not (st["pull_left"] and st["soft_on"]):
             self._unlocked_run = 0
             self._acquiring = True
 

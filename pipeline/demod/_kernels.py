@@ -515,8 +515,9 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     inv_kd = 1.0 / kd
     flags = clock + 2 * slock
     # the loops track (second order, bandwidths from Es/N0) in lock and while a carrier the acquisition
-    # found is being pulled in; otherwise the first-order wide loop coasts
-    trk = 1 if clock == 1 or (st["pull_left"] > 0 and st["seen"] >= warmup) else 0
+    # found is being pulled in below soft_below (above it lock comes within a few hundred symbols, and the
+    # wide loop pulls in as it always did); otherwise the first-order wide loop coasts
+    trk = 1 if clock == 1 or (st["pull_left"] > 0 and st["seen"] >= warmup and soft_on) else 0
     # the loops' normalisation: carrier error / (A kdc), timing error / (A^2 K_D); the timing loop's
     # bandwidth scale and its gains
     g_c = 1.0 / kdc if soft_on else inv_amp / kdc
@@ -708,7 +709,9 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                             amp = math.sqrt(sgn)
                             inv_amp = 1.0 / amp
                             st["amp"] = amp
-                soft_on = esn0 < soft_below
+                # (after the warm-up: over its first symbols, before the timing has converged, the estimate can
+                # be far too low, and the hard detector keeps the pull-in of a strong signal as it always was)
+                soft_on = esn0 < soft_below and st["seen"] >= warmup
                 fisher = 1.0
                 if soft_on:
                     # below soft_below (QPSK/OQPSK) the soft detector, its slope at the measured Es/N0 x from the
@@ -801,7 +804,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                     clock = 0
                 if clock == 0 and flags & 1:
                     st["pull_left"] = 0  # lock lost: the wide loop coasts (a fade), as before any lock
-                trk = 1 if clock == 1 or (st["pull_left"] > 0 and seen >= warmup) else 0
+                trk = 1 if clock == 1 or (st["pull_left"] > 0 and seen >= warmup and soft_on) else 0
 
                 # symbol-lock statistic: on-time versus midpoint energy, relative to r0 S / (S + N)
                 eon = d_ls * st["eon"] + (1.0 - d_ls) * mr2
