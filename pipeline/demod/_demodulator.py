@@ -62,6 +62,8 @@ _CARRIER_MIN_SCALE = 1.0 / 16.0
 #: QPSK/OQPSK: symbols in the window of the long carrier search (run when the short one saw a signal band
 #: but no line: the fourth-power line of a weak carrier rises over the noise only in a longer window).
 _LONG_SEARCH_SYMBOLS = 131072
+#: ... at most this many samples (fewer symbols above 8 samples per symbol).
+_LONG_SEARCH_MAX_SAMPLES = 1 << 20
 #: ... tried again after this many failed short searches (blocks).
 _LONG_SEARCH_EVERY = 8
 #: QPSK/OQPSK: below this Es/N0 (dB) the carrier loop takes the soft detector (above it the hard one, whose
@@ -391,11 +393,12 @@ class Demodulator:
     line of every search is kept (``stats.strongest_line``, :meth:`no_lock_message`).  QPSK/OQPSK:
     when the band detector saw a signal but no line passed, the released blocks and the held window
     are searched again as one long window (:meth:`CarrierSearch.search_long`: 4, then 8 blocks, then
-    ``long_search_blocks`` (about 131072 symbols) every 8 blocks; Doppler rates within +-64 grid steps,
-    +-233 Hz/s at 1 Msample/s), which finds a carrier at Es/N0 = -3 dB; its frequency is carried to
-    the held window's start with the found rate.  A carrier found (short or long search) is then
-    tracked with the loops in their locked form, the carrier loop narrowed from Es/N0 at once, for
-    up to 131072 symbols awaiting lock (no reacquisition meanwhile).
+    ``long_search_blocks`` (about 131072 symbols, at most 2^20 samples: fewer symbols above 8 samples
+    per symbol) every 8 blocks; Doppler rates within +-64 grid steps, +-233 Hz/s over 524288 samples),
+    which finds a carrier at Es/N0 = -3 dB at 4.17 samples per symbol; its frequency is carried to the
+    held window's start with the found rate.  A carrier found (short or long search) below Es/N0 =
+    2 dB is then tracked with the loops in their locked form, the carrier loop narrowed from Es/N0 at
+    once, for up to 131072 symbols awaiting lock (no reacquisition meanwhile).
 
     Carrier loop bandwidth: ``[receiver] carrier_loop_bandwidth_hz``, or automatic
     ``0.002 * symbol_rate`` (480 Hz at 240 ksym/s): at Es/N0 = -1 dB its phase jitter is about
@@ -451,7 +454,9 @@ class Demodulator:
         self.block_samples = max(32768, _next_pow2(4096 * sps))
         self.acquisition_samples = 2 * self.block_samples
         # QPSK/OQPSK: the long search's window (whole blocks, about _LONG_SEARCH_SYMBOLS) and its period
-        self.long_search_blocks = (int(math.ceil(_LONG_SEARCH_SYMBOLS * sps / self.block_samples))
+        # (at most _LONG_SEARCH_MAX_SAMPLES: memory and the matched filter's cost at many samples per symbol)
+        self.long_search_blocks = (max(4, min(int(math.ceil(_LONG_SEARCH_SYMBOLS * sps / self.block_samples)),
+                                              _LONG_SEARCH_MAX_SAMPLES // self.block_samples))
                                    if self._mod_code != 0 else 0)
         self.reacquire_symbols = 65536
 
