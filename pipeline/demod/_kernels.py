@@ -384,7 +384,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     variance ``1 / J``, clipped at ``4 / sqrt(J)``.  (The hard QPSK detector's slope is
     ``erf(u) - 2 u exp(-u^2) / sqrt(pi)``, ``u = sqrt(Es/2N0)``, not ``erf(u)``: 0.08 at -3 dB
     against 0.52, and its ``J`` 0.010 against the soft one's 0.025.)  While the carrier is
-    unlocked, and no carrier found by the acquisition is being pulled in, the loop runs first order
+    unlocked, and no carrier found by the acquisition is being pulled in (``pull_left``, below
+    ``soft_below`` after the warm-up), the loop runs first order
     with a wider gain and both integrators hold their value (coasting through fades).
 
     Amplitude, lock detectors and their averages are updated from sums the loop accumulates, once
