@@ -376,7 +376,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     + 2`` symbols (the bound the wrapper sizes the buffers by).  Carrier error: decision-directed
     Costas, ``sgn(I) Q`` (BPSK), ``sgn(I) Q - sgn(Q) I`` over ``sqrt(2) A`` (QPSK; OQPSK takes I and
     Q at their own strobes), divided by the detector's slope ``kdc`` so that the loop's gain, and
-    its bandwidth, hold at low Es/N0.  QPSK/OQPSK below ``soft_below``: the soft (MAP) detector
+    its bandwidth, hold at low Es/N0.  QPSK/OQPSK below ``soft_below`` (once the lock window's
+    weight passes 0.4, about 1000 symbols into a stream): the soft (MAP) detector
     ``tanh(a I) Q - tanh(a Q) I`` on the symbol over its amplitude, ``a = sqrt(2) Es/N0``
     (:func:`soft_costas_error`), which is ``1 / (sqrt(2) x)`` times the derivative of the
     non-data-aided log-likelihood of the phase: its slope equals ``J / (sqrt(2) x)`` with the Fisher
@@ -384,8 +385,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     variance ``1 / J``, clipped at ``4 / sqrt(J)``.  (The hard QPSK detector's slope is
     ``erf(u) - 2 u exp(-u^2) / sqrt(pi)``, ``u = sqrt(Es/2N0)``, not ``erf(u)``: 0.08 at -3 dB
     against 0.52, and its ``J`` 0.010 against the soft one's 0.025.)  While the carrier is
-    unlocked, and no carrier found by the acquisition is being pulled in (``pull_left``, below
-    ``soft_below`` after the warm-up), the loop runs first order
+    unlocked, and no carrier found by the acquisition is being pulled in (``pull_left``, with the
+    soft detector on), the loop runs first order
     with a wider gain and both integrators hold their value (coasting through fades).
 
     Amplitude, lock detectors and their averages are updated from sums the loop accumulates, once
@@ -710,9 +711,10 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                             amp = math.sqrt(sgn)
                             inv_amp = 1.0 / amp
                             st["amp"] = amp
-                # (after the warm-up: over its first symbols, before the timing has converged, the estimate can
-                # be far too low, and the hard detector keeps the pull-in of a strong signal as it always was)
-                soft_on = esn0 < soft_below and st["seen"] >= warmup
+                # (once the lock window holds about 1000 symbols: over the first symbols of a stream, before the
+                # timing has converged, the estimate can be far too low, and the hard detector keeps the pull-in
+                # of a strong signal, and the phase ambiguity it settles in, as they always were)
+                soft_on = esn0 < soft_below and st["wf"] > 0.4
                 fisher = 1.0
                 if soft_on:
                     # below soft_below (QPSK/OQPSK) the soft detector, its slope at the measured Es/N0 x from the
