@@ -18,7 +18,9 @@ ambiguity differs from the one before is a cycle slip (counted).  Each symbol er
 into the Es/N0 at which theory gives it (BPSK ``Q(sqrt(2 Es/N0))``, QPSK
 ``2 Q(sqrt(Es/N0)) - Q^2``; Proakis, *Digital Communications*, 4th ed., eqs. 5.2-5, 5.2-59); the
 implementation loss is the difference between the two receivers' values (same noise, so the
-statistical spread largely cancels), and beside it the loss against theory.  Lock: the fraction of
+statistical spread largely cancels), and beside it the loss against theory; the loss and the slips are
+also given over the symbols from the first lock declaration on (``loss lk``, ``slips lk``: the tracking
+alone, the acquisition time left out).  Lock: the fraction of
 symbols after the pull-in flagged with carrier lock, and the symbol at which lock was first declared.
 
 False lock: the receiver on complex white Gaussian noise alone (``--noise-seconds`` at 1 Msample/s,
@@ -146,10 +148,20 @@ def measure_point(mod: str, esn0_db: float, nsym: int, seed: int, receiver: Rece
     lock_sym = locked[::bps]
     first = int(np.argmax(lock_sym)) if lock_sym.any() else -1
     after = lock_sym[ok]
+    # the same from the first lock declaration on (the tracking alone, acquisition time left out)
+    loss_l, slips_l, n_l = float("nan"), -1, 0
+    if first >= 0:
+        k_first = max(SKIP, int(k[first]))
+        sel = k_ok >= k_first
+        e_l, n_l, slips_l = windowed_errors(hard_bits(z[sel], mod), tx[k_ok[sel]], mod)
+        e_lg, n_lg, _ = windowed_errors(hard_bits(g[k_first - SKIP:], mod), tx[k_first:], mod)
+        if n_l and n_lg:
+            loss_l = esn0_from_ser(e_lg / n_lg, mod) - esn0_from_ser(e_l / n_l, mod)
     return {"modulation": mod, "esn0_db": esn0_db, "symbols": int(n_rx), "ser_receiver": ser_rx, "ser_ideal": ser_g,
             "loss_db": eq_g - eq_rx, "loss_vs_theory_db": esn0_db - eq_rx, "ideal_vs_theory_db": esn0_db - eq_g,
             "locked_fraction": float(after.mean()) if after.size else 0.0, "first_lock_symbol": first,
-            "cycle_slips": slips, "symbols_lost": int(nsym - SKIP - n_rx) if n_rx else nsym,
+            "cycle_slips": slips, "loss_after_lock_db": loss_l, "slips_after_lock": slips_l,
+            "symbols_after_lock": int(n_l), "symbols_lost": int(nsym - SKIP - n_rx) if n_rx else nsym,
             "esn0_estimate_db": float(np.nanmedian([t.esn0_db for t in track[2:-1]])) if len(track) > 3
             else float("nan"),
             "msps": w.samples.size / dt / 1e6}
@@ -193,11 +205,13 @@ def main() -> None:
             else:
                 if len(rows) == 1:
                     print(f"{'mod':<5} {'Es/N0':>6} {'symbols':>8} {'SER rx':>9} {'SER ideal':>9} {'loss dB':>8} "
-                          f"{'vs theory':>9} {'locked':>7} {'1st lock':>8} {'slips':>5} {'est dB':>7} {'Msps':>6}")
+                          f"{'vs theory':>9} {'locked':>7} {'1st lock':>8} {'slips':>5} {'est dB':>7} {'Msps':>6} "
+                          f"{'loss lk':>7} {'slips lk':>8} {'sym lk':>7}")
                 print(f"{mod:<5} {e:6.1f} {r['symbols']:8d} {r['ser_receiver']:9.5f} {r['ser_ideal']:9.5f} "
                       f"{r['loss_db']:8.3f} {r['loss_vs_theory_db']:9.3f} {r['locked_fraction']:7.4f} "
                       f"{r['first_lock_symbol']:8d} {r['cycle_slips']:5d} {r['esn0_estimate_db']:7.2f} "
-                      f"{r['msps']:6.1f}", flush=True)
+                      f"{r['msps']:6.1f} {r['loss_after_lock_db']:7.3f} {r['slips_after_lock']:8d} "
+                      f"{r['symbols_after_lock']:7d}", flush=True)
     if args.noise_seconds > 0:
         for mod in args.mod.split(","):
             f = false_lock(mod, args.noise_seconds, args.noise_seeds, rx)

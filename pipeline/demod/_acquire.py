@@ -20,6 +20,11 @@ LINE_THRESHOLD = 40.0
 _BAND_THRESHOLD_Z = 8.0
 #: At most this many Doppler-rate hypotheses per search (the spacing widens beyond).
 _MAX_RATES = 65
+#: Line threshold of a long search (peak over median, 13.5 dB over the mean floor): it runs only where the
+#: band detector saw a signal, and its noise peaks measured 11.4-11.9 dB over 262144 samples and 65 rates.
+LONG_LINE_THRESHOLD = 32.0
+#: At most this many in a long search (:meth:`CarrierSearch.search_long`; the rates stop there).
+_MAX_RATES_LONG = 129
 
 
 @dataclass(frozen=True)
@@ -217,6 +222,25 @@ class CarrierSearch:
                 band_hz = centre
         return self._fine(x, band_hz)
 
+    def search_long(self, samples: np.ndarray, band_hz: float) -> CarrierAcquisition:
+        """The line search alone over a long window (complex, at least 1024 samples) around ``band_hz``.
+
+        For a weak carrier the short window's search cannot find (``M = 4`` at Es/N0 below about -1 dB):
+        the line's height over the noise floor grows in proportion to the window, so a window ``L``
+        times longer raises it by ``10 log10 L`` dB.  The Doppler-rate grid keeps its spacing
+        ``4 / (M T_w^2)`` for the long window, so the rates searched are limited to 65 steps of it
+        (``+- 64 * 4 / (M T_w^2)``: +-233 Hz/s for ``M = 4`` over 524288 samples at 1 Msample/s) rather
+        than widened, and the dechirping rows are formed by repeated multiplication (no table).
+        Threshold :data:`LONG_LINE_THRESHOLD`; the result as :meth:`search`'s (``band_hz`` as given: no coarse
+        stage).
+        """
+        x = np.asarray(samples)
+        if x.ndim != 1 or x.size < 1024 or not np.iscomplexobj(x):
+            raise ValueError(f"Argument 'samples' must be complex, one-dimensional, at least 1024 samples, "
+                             f"not {x.dtype} {x.shape}.")
+        x = (x - np.mean(x, dtype=np.complex128)).astype(np.complex64)
+        return self._fine(x, float(band_hz), long=True)
+
     # ---- stages -----------------------------------------------------------------------------
     def _template(self, nfft: int) -> tuple[np.ndarray, np.ndarray, float]:
         got = self._tpl_cache.get(nfft)
@@ -267,7 +291,7 @@ class CarrierSearch:
         excess = max(float(c[k]) / max(float(np.sum(h * h)), 1e-30), 1e-12)
         return float(f), float(z), 10.0 * math.log10(excess)
 
-    def _fine(self, x: np.ndarray, band_hz: float) -> CarrierAcquisition:
+    def _fine(self, x: np.ndarray, band_hz: float, long: bool = False) -> CarrierAcquisition:
         fs, m = self.sample_rate_hz, self.power
         n = x.size
         y = np.empty(n, dtype=np.complex64)
@@ -291,14 +315,29 @@ class CarrierSearch:
         fs_d = fs / dec
         base = zd * np.hanning(n_d)
         nfft1 = _next_pow2(n_d)
-        chirps, rates, outside = self._chirps(n, dec, nfft1)
+        if long:
+            chirps, rates, outside = None, self._rates(n / fs, widen=False), self._outside(dec, nfft1)
+            t = ((np.arange(n_d) * dec + 0.5 * (dec - 1)) - 0.5 * (n - 1)) / fs
+            step = rates[1] - rates[0] if rates.size > 1 else 0.0
+            c1 = np.exp(-1j * math.pi * m * step * t * t)
+        else:
+            chirps, rates, outside = self._chirps(n, dec, nfft1)
         best_r = 0.0
         if rates.size > 1:
             best_p = -1.0
             base32 = base.astype(np.complex64)
+            row = np.exp(-1j * math.pi * m * rates[0] * t * t) if long else None
             for a in range(0, rates.size, 16):
+                if long:
+                    # rows exp(-j pi M r_k t^2), r_k = r_0 + k step, by repeated multiplication (double precision)
+                    rows = np.empty((min(16, rates.size - a), n_d), dtype=np.complex64)
+                    for j in range(rows.shape[0]):
+                        rows[j] = row
+                        row = row * c1
+                else:
+                    rows = chirps[a:a + 16]
                 # single precision is ample to pick the best rate; the chosen one is transformed again below
-                spec = scipy.fft.fft(chirps[a:a + 16] * base32, nfft1, axis=1, workers=1)
+                spec = scipy.fft.fft(rows * base32, nfft1, axis=1, workers=1)
                 p = spec.real ** 2 + spec.imag ** 2
                 p[:, outside] = 0.0
                 peak = p.max(axis=1)
@@ -322,7 +361,8 @@ class CarrierSearch:
         centre = band_hz + f_line / m
         start = centre - best_r * 0.5 * (n - 1) / fs
         level = 10.0 * math.log10(ratio * math.log(2.0)) if ratio > 0 else -math.inf
-        return CarrierAcquisition(ratio >= self.threshold, float(start), float(centre), best_r, band_hz,
+        threshold = min(self.threshold, LONG_LINE_THRESHOLD) if long else self.threshold
+        return CarrierAcquisition(ratio >= threshold, float(start), float(centre), best_r, band_hz,
                                   SpectralLine(float(centre), level, kind))
 
     def _chirps(self, n: int, dec: int, nfft: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -337,22 +377,27 @@ class CarrierSearch:
             chirps = None
             if rates.size > 1:
                 chirps = np.exp(-1j * math.pi * m * rates[:, None] * (t * t)[None, :]).astype(np.complex64)
-            f1 = np.fft.fftfreq(nfft, d=dec / fs)
-            outside = np.abs(f1) > min(m * self.fine_hz, 0.5 * fs)
-            got = (chirps, rates, outside)
+            got = (chirps, rates, self._outside(dec, nfft))
             self._chirp_cache = {key: got}  # one window length in use at a time
         return got
 
-    def _rates(self, window_s: float) -> np.ndarray:
-        """Doppler-rate hypotheses: 0 and +-k s up to the maximum, ``s = 4 / (M T_w^2)``, at most 65."""
+    def _outside(self, dec: int, nfft: int) -> np.ndarray:
+        """Bins of the decimated spectrum outside the band the line can lie in."""
+        f1 = np.fft.fftfreq(nfft, d=dec / self.sample_rate_hz)
+        return np.abs(f1) > min(self.power * self.fine_hz, 0.5 * self.sample_rate_hz)
+
+    def _rates(self, window_s: float, widen: bool = True) -> np.ndarray:
+        """Doppler-rate hypotheses: 0 and +-k s up to the maximum, ``s = 4 / (M T_w^2)``, at most 65
+        (``widen``: the spacing widens to reach the maximum; else at most 129, stopping at 64 steps)."""
         r = self.max_rate_hz_per_s
         if r <= 0 or window_s <= 0:
             return np.zeros(1)
         step = 4.0 / (self.power * window_s * window_s)
         half = int(math.ceil(r / step))
-        if 2 * half + 1 > _MAX_RATES:
-            half = (_MAX_RATES - 1) // 2
-            step = r / half
+        if 2 * half + 1 > (_MAX_RATES if widen else _MAX_RATES_LONG):
+            half = ((_MAX_RATES if widen else _MAX_RATES_LONG) - 1) // 2
+            if widen:
+                step = r / half
         if half == 0:
             return np.zeros(1)
         return np.arange(-half, half + 1) * step

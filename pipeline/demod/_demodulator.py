@@ -8,7 +8,7 @@ from typing import Any
 
 import numpy as np
 
-from pipeline.demod._acquire import LINE_THRESHOLD, CarrierSearch, SpectralLine
+from pipeline.demod._acquire import LINE_THRESHOLD, CarrierAcquisition, CarrierSearch, SpectralLine
 from pipeline.demod._filters import gardner_detector_gain, matched_filter_taps, midpoint_energy_ratio
 from pipeline.demod._kernels import (
     BLOCK_SUMMARY,
@@ -51,6 +51,26 @@ _TIMING_MIN_SCALE = 0.125
 _GEAR_SYMBOLS = 1024
 #: Loop SNR (1 / phase variance) the locked carrier loop keeps by narrowing its bandwidth at low Es/N0.
 _CARRIER_LOOP_SNR = 100.0
+#: QPSK/OQPSK: symbols a carrier the acquisition found is tracked (loops in their locked form) awaiting lock.
+_PULL_SYMBOLS = 131072
+#: QPSK/OQPSK: symbols of the long carrier-lock average (weight 1 / this per symbol).
+_SLOW_LOCK_SYMBOLS = 65536
+#: QPSK/OQPSK: below this Es/N0 (dB, over the long average) the long average holds a lock the short one lost.
+_SLOW_LOCK_ESN0_DB = 1.0
+#: QPSK/OQPSK: the carrier loop is narrowed to at most this fraction of its configured bandwidth.
+_CARRIER_MIN_SCALE = 1.0 / 16.0
+#: QPSK/OQPSK: symbols in the window of the long carrier search (run when the short one saw a signal band
+#: but no line: the fourth-power line of a weak carrier rises over the noise only in a longer window).
+_LONG_SEARCH_SYMBOLS = 131072
+#: ... at most this many samples (fewer symbols above 8 samples per symbol).
+_LONG_SEARCH_MAX_SAMPLES = 1 << 20
+#: ... tried again after this many failed short searches (blocks).
+_LONG_SEARCH_EVERY = 8
+#: QPSK/OQPSK: below this Es/N0 (dB) the carrier loop takes the soft detector (above it the hard one, whose
+#: noise is then as low and which costs less in the timing loop).
+_SOFT_BELOW_DB = 2.0
+#: Es/N0 grid of the soft Costas detector's slope table: first value, step, end (dB).
+_SLOPE_TABLE_DB = (-10.0, 0.25, 40.25)
 #: Sub-intervals of a block whose mean frequencies give a track point's ``carrier_std_hz``.
 _FREQ_SUBINTERVALS = 8
 
@@ -240,6 +260,43 @@ class DcBlocker:
         return max(power, 0.0)
 
 
+def soft_costas_slope(esn0_db: np.ndarray) -> np.ndarray:
+    """Slope (per radian, unit symbol amplitude) of the soft QPSK Costas detector at Es/N0 ``esn0_db``.
+
+    The detector ``e = tanh(a I) Q - tanh(a Q) I``, ``a = sqrt(2) x`` (``x = Es/N0``; ``I, Q`` the
+    carrier-corrected symbol over its amplitude, rails at ``+-1/sqrt 2`` with noise variance
+    ``1 / (2 x)`` each), is ``1 / (sqrt(2) x)`` times the derivative of the non-data-aided
+    log-likelihood of the phase, so its slope is ``J / (sqrt(2) x)`` with the Fisher information
+    per symbol ``J = 2 x^2 E[e^2]``; with independent rails
+    ``E[e^2] = 2 E[tanh^2(a I)] E[I^2] - 2 E[tanh(a I) I]^2``, the expectations over
+    ``I ~ N(1/sqrt 2, 1/(2x))`` by 60-point Gauss-Hermite quadrature.  High Es/N0: ``J -> 2 x``
+    and the slope -> ``sqrt 2`` (the hard-decision detector's); at -3 dB J = 0.0254.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> s = soft_costas_slope(np.array([-3.0, 0.0, 30.0]))
+    >>> [round(float(v), 4) for v in s]
+    [0.0358, 0.1426, 1.4142]
+
+    References
+    ----------
+    U. Mengali, A. N. D'Andrea, *Synchronization Techniques for Digital Receivers* (1997), ch. 5
+    (maximum-likelihood non-data-aided phase recovery, its low-SNR form and the modified Cramer-Rao bound).
+    """
+    z, w = np.polynomial.hermite.hermgauss(60)
+    x = 10.0 ** (np.asarray(esn0_db, dtype=np.float64)[:, None] / 10.0)
+    var = 0.5 / x
+    rail = math.sqrt(0.5) + np.sqrt(2.0 * var) * z[None, :]
+    t = np.tanh(math.sqrt(2.0) * x * rail)
+    wt = w[None, :] / math.sqrt(math.pi)
+    t1 = np.sum(wt * t * rail, axis=1)
+    t2 = np.sum(wt * t * t, axis=1)
+    e2 = 2.0 * t2 * (0.5 + var[:, 0]) - 2.0 * t1 * t1
+    fisher = 2.0 * x[:, 0] ** 2 * e2
+    return np.ascontiguousarray(fisher / (math.sqrt(2.0) * x[:, 0]))
+
+
 def _next_pow2(n: float) -> int:
     return 1 << max(0, int(math.ceil(math.log2(max(1.0, n)))))
 
@@ -333,7 +390,15 @@ class Demodulator:
     gives for that instant, so nothing is lost; when none is found only the window's first block
     is released (demodulated unlocked) and the search is tried again one block later, so a signal
     that starts anywhere in a window is found in the window that begins before it.  The strongest
-    line of every search is kept (``stats.strongest_line``, :meth:`no_lock_message`).
+    line of every search is kept (``stats.strongest_line``, :meth:`no_lock_message`).  QPSK/OQPSK:
+    when the band detector saw a signal but no line passed, the released blocks and the held window
+    are searched again as one long window (:meth:`CarrierSearch.search_long`: 4, then 8 blocks, then
+    ``long_search_blocks`` (about 131072 symbols, at most 2^20 samples: fewer symbols above 8 samples
+    per symbol) every 8 blocks; Doppler rates within +-64 grid steps, +-233 Hz/s over 524288 samples),
+    which finds a carrier at Es/N0 = -3 dB at 4.17 samples per symbol; its frequency is carried to the
+    held window's start with the found rate.  A carrier found (short or long search) below Es/N0 =
+    2 dB is then tracked with the loops in their locked form, the carrier loop narrowed from Es/N0 at
+    once, for up to 131072 symbols awaiting lock (no reacquisition meanwhile).
 
     Carrier loop bandwidth: ``[receiver] carrier_loop_bandwidth_hz``, or automatic
     ``0.002 * symbol_rate`` (480 Hz at 240 ksym/s): at Es/N0 = -1 dB its phase jitter is about
@@ -388,6 +453,11 @@ class Demodulator:
         self._look = int(self._box_half + 0.5) + 2 if self._box_half else 2
         self.block_samples = max(32768, _next_pow2(4096 * sps))
         self.acquisition_samples = 2 * self.block_samples
+        # QPSK/OQPSK: the long search's window (whole blocks, about _LONG_SEARCH_SYMBOLS) and its period
+        # (at most _LONG_SEARCH_MAX_SAMPLES: memory and the matched filter's cost at many samples per symbol)
+        self.long_search_blocks = (max(4, min(int(math.ceil(_LONG_SEARCH_SYMBOLS * sps / self.block_samples)),
+                                              _LONG_SEARCH_MAX_SAMPLES // self.block_samples))
+                                   if self._mod_code != 0 else 0)
         self.reacquire_symbols = 65536
 
         bw_hz = receiver.carrier_loop_bandwidth_hz or _AUTO_CARRIER_BANDWIDTH * link.symbol_rate_baud
@@ -431,6 +501,17 @@ class Demodulator:
         # fourth-power statistic is averaged over 2048 symbols and rose on noise for a few hundred)
         pr["c_hold"] = 384.0 if qpsk else 128.0
         pr["c_on"], pr["c_off"], pr["c_min"] = 0.75, 0.3, 0.15 if qpsk else 0.25
+        if qpsk:
+            # low Es/N0 (QPSK/OQPSK): a found carrier is tracked for _PULL_SYMBOLS before lock is declared,
+            # and lock may come from the long average of the fourth-power statistic
+            pr["pull_symbols"] = _PULL_SYMBOLS
+            pr["l_lock_slow"] = math.log1p(-1.0 / _SLOW_LOCK_SYMBOLS)
+            pr["c_on_slow"], pr["c_min_slow"], pr["c_hold_slow"] = 0.5, 0.03, _SLOW_LOCK_SYMBOLS / 4
+            pr["slow_esn0"] = 10.0 ** (_SLOW_LOCK_ESN0_DB / 10.0)
+            pr["soft_below"] = 10.0 ** (_SOFT_BELOW_DB / 10.0)
+        pr["ct_db0"], pr["ct_step"] = _SLOPE_TABLE_DB[:2]
+        self._c_table = soft_costas_slope(np.arange(_SLOPE_TABLE_DB[0], _SLOPE_TABLE_DB[2], _SLOPE_TABLE_DB[1]))
+        pr["c_min_scale"] = _CARRIER_MIN_SCALE if qpsk else _TIMING_MIN_SCALE
         pr["s_on"], pr["s_off"], pr["s_min"] = 0.5, 0.25, 0.04
         pr["r0"], pr["kd"] = r0, kd
         pr["warmup"] = 128.0  # warm-up, and symbols in a row meeting the lock condition
@@ -476,6 +557,9 @@ class Demodulator:
         self._pending = np.zeros(0, dtype=np.complex64)
         self._pending_start = 0
         self._held: list[np.ndarray] = []
+        self._history: list[np.ndarray] = []  # blocks released unfound, for the long search
+        self._since_long = 0
+        self._long_tried = 0
         self._acquiring = True
         self._agc_power = 0.0
         self._dc = DcBlocker()
@@ -495,6 +579,8 @@ class Demodulator:
         self._state[0]["kdc"] = 1.0
         self._state[0]["t_scale"] = 1.0
         self._state[0]["c_scale"] = 1.0
+        self._state[0]["c_clip"] = 4.0
+        self._state[0]["a_soft"] = math.sqrt(2.0)  # the soft detector's scale at Es/N0 = 0 dB until measured
         self._state[0]["ph_cos"] = 1.0  # the carrier phasor at theta = 0
         self._summary = np.zeros(1, dtype=BLOCK_SUMMARY)
         self._mom4 = np.zeros(4, dtype=np.float64)
@@ -599,18 +685,33 @@ class Demodulator:
             acq = self._search.search(held)
             self.stats.last_peak_ratio = 10.0 ** (acq.line.level_db / 10.0) / math.log(2.0)
             self.stats.saw(acq.line)
+            offset = acq.offset_hz
+            if not acq.found and not final and acq.line.kind != "band":
+                acq, offset = self._search_long(acq.band_hz)
             if acq.found:
                 found = True
                 self.stats.carrier_found += 1
-                self._nco_hz = acq.offset_hz
+                self._nco_hz = offset
                 self._state[0]["w_int"] = 0.0
                 self._state[0]["w_rate"] = 0.0
+                st = self._state[0]
+                if not st["clock"]:
+                    # a new carrier: pulled in with the loops in their locked form, the long lock average afresh
+                    st["pull_left"] = int(self._params[0]["pull_symbols"])
+                    # narrowest until the next statistics interval sets the bandwidth from Es/N0: at the full
+                    # one a few dozen symbols of low-Es/N0 noise would walk the frequency integrator away
+                    st["c_scale"] = self._params[0]["c_min_scale"]
+                    st["m2g"], st["m4g"], st["wg"], st["cnum_g"], st["cgood_g"] = 0.0, 0.0, 0.0, 0.0, 0
+                self._history = []
+                self._long_tried = 0
         if found or final:
             blocks, self._held = self._held, []
             self._acquiring = False
         else:
             # slide the window by one block: the oldest is demodulated as it is (no carrier yet)
             blocks, self._held = self._held[:1], self._held[1:]
+            if self.long_search_blocks:
+                self._history = (self._history + [blocks[0][0]])[-self.long_search_blocks:]
         for b, cnt, mom in blocks:
             self._run_block(b, (cnt, mom), parts)
         if self._acquiring and self._state[0]["clock"]:
@@ -619,6 +720,28 @@ class Demodulator:
             self._acquiring = False
             for b, cnt, mom in blocks:
                 self._run_block(b, (cnt, mom), parts)
+
+    def _search_long(self, band_hz: float):
+        """The long search over the released blocks and the held window, when due; ``(result, offset_hz)`` with
+        the frequency at the held window's first sample (a result not found when not run)."""
+        self._since_long += 1
+        if not self.long_search_blocks:
+            return CarrierAcquisition(False, 0.0, 0.0, 0.0, band_hz, SpectralLine(band_hz, -math.inf, "band")), 0.0
+        # the window grows 4, 8, ... blocks up to its full length (a stronger carrier is found sooner), then
+        # the full one every _LONG_SEARCH_EVERY blocks
+        have = len(self._history) + len(self._held)
+        nb = min(self.long_search_blocks, have)
+        due = nb == self.long_search_blocks and self._since_long >= _LONG_SEARCH_EVERY
+        if not (due or (nb >= 4 and nb & (nb - 1) == 0 and nb > self._long_tried)):
+            return CarrierAcquisition(False, 0.0, 0.0, 0.0, band_hz, SpectralLine(band_hz, -math.inf, "band")), 0.0
+        self._since_long = 0
+        self._long_tried = nb
+        past = self._history[len(self._history) + len(self._held) - nb:]
+        window = np.concatenate(past + [h[0] for h in self._held])
+        acq = self._search.search_long(window, band_hz)
+        self.stats.saw(acq.line)
+        lead = sum(b.size for b in past) / self.sample_rate_hz
+        return acq, acq.offset_hz + acq.rate_hz_per_s * lead
 
     def _run_block(self, block: np.ndarray, moments: tuple | None, parts: list, t_limit: float = math.inf,
                    tail: bool = False) -> None:
@@ -709,7 +832,8 @@ class Demodulator:
         parts.append({"bitpos": bitpos, "soft": soft, "sym": sym, "locked": clock, "track": track})
         self.stats.symbols_out += nsym
         self.stats.carrier_locked_symbols += locked
-        if not tail and self._unlocked_run >= self.reacquire_symbols:
+        # (not while a found carrier is pulled in at low Es/N0: lock is declared from the long average there)
+        if not tail and self._unlocked_run >= self.reacquire_symbols and not (st["pull_left"] and st["soft_on"]):
             self._unlocked_run = 0
             self._acquiring = True
 
@@ -746,7 +870,7 @@ class Demodulator:
             flags = np.empty(cap, dtype=np.int8)
             theta = np.empty(cap, dtype=np.float64)
             nsym = track_symbols(mfbuf, base, t_limit, self._params, self._mod_code,
-                                 1 if self.carrier_loop_order == 3 else 0, self._state,
+                                 1 if self.carrier_loop_order == 3 else 0, self._state, self._c_table,
                                  pos, bitpos, soft, sym, flags, theta)
             outs.append((pos[:nsym], sym[:nsym], flags[:nsym], theta[:nsym], bitpos[:bps * nsym],
                          soft[:bps * nsym]))

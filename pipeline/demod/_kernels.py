@@ -17,6 +17,7 @@ __all__ = [
     "derotate",
     "fir_interleaved",
     "track_symbols",
+    "soft_costas_error",
     "nrzm_decode",
     "moments_m2m4",
     "mean_power_nonzero",
@@ -37,7 +38,9 @@ TRACK_PARAMS = np.dtype([
     ("c_min", np.float64), ("s_on", np.float64), ("s_off", np.float64), ("s_min", np.float64), ("r0", np.float64),
     ("kd", np.float64), ("warmup", np.float64), ("hbox", np.float64), ("v_max", np.float64), ("dd_gain", np.float64),
     ("t_ref_esn0", np.float64), ("t_min_scale", np.float64), ("c_bn", np.float64), ("c_loop_snr", np.float64),
-    ("gear_symbols", np.float64), ("c_hold", np.float64),
+    ("gear_symbols", np.float64), ("c_hold", np.float64), ("pull_symbols", np.float64), ("l_lock_slow", np.float64),
+    ("c_on_slow", np.float64), ("c_min_slow", np.float64), ("c_hold_slow", np.float64), ("slow_esn0", np.float64),
+    ("soft_below", np.float64), ("c_min_scale", np.float64), ("ct_db0", np.float64), ("ct_step", np.float64),
 ])
 
 #: Loop state of :func:`track_symbols` (one record, updated in place; meanings in its docstring).
@@ -55,6 +58,9 @@ TRACK_STATE = np.dtype([
     ("acc_q", np.float64),
     ("acc_mid", np.float64), ("blk_n", np.int64), ("blk_m2", np.float64), ("blk_m4", np.float64),
     ("ph_cos", np.float64), ("ph_sin", np.float64), ("ph_theta", np.float64), ("ph_count", np.int64),
+    ("pull_left", np.int64), ("m2g", np.float64), ("m4g", np.float64), ("wg", np.float64), ("cnum_g", np.float64),
+    ("cgood_g", np.int64), ("lock_path", np.int64), ("a_soft", np.float64), ("c_clip", np.float64),
+    ("soft_on", np.int64),
 ])
 
 
@@ -240,7 +246,38 @@ def phasor_table(dphase_rad, out2):
 
 
 @njit(cache=True, nogil=True)
-def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
+def window_moments(d, m2, m4, w, cq, mr2, mr4, mq):
+    """One interval into a lock window's averages: each of ``M2, M4``, the weight and the carrier statistic
+    becomes ``d old + (1 - d) new`` (``d`` the interval's decay; the weight's new value is 1)."""
+    e = 1.0 - d
+    return d * m2 + e * mr2, d * m4 + e * mr4, d * w + e, d * cq + e * mq
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def soft_costas_error(a, yi, yq, zq, zi):
+    """``tanh(a yi) zq - tanh(a yq) zi`` with ``tanh`` to within 1e-4: the soft QPSK Costas detector
+    (``zq = yq``, ``zi = yi``; OQPSK: each rail's decision on its own strobe, the other rail's value there).
+
+    ``tanh`` is the [7/6] Pade approximant, Lambert's continued fraction truncated:
+    ``z (135135 + 17325 z^2 + 378 z^4 + z^6) / (135135 + 62370 z^2 + 3150 z^4 + 28 z^6)`` with ``z``
+    clamped to +-4.97 (where it reaches 0.9999994); the two quotients share one division.  About 20
+    multiplies and one division, no exponential.
+    """
+    u = a * yi
+    v = a * yq
+    u = min(max(u, -4.97), 4.97)
+    v = min(max(v, -4.97), 4.97)
+    u2 = u * u
+    v2 = v * v
+    nu = u * (135135.0 + u2 * (17325.0 + u2 * (378.0 + u2)))
+    du = 135135.0 + u2 * (62370.0 + u2 * (3150.0 + 28.0 * u2))
+    nv = v * (135135.0 + v2 * (17325.0 + v2 * (378.0 + v2)))
+    dv = 135135.0 + v2 * (62370.0 + v2 * (3150.0 + 28.0 * v2))
+    return (nu * dv * zq - nv * du * zi) / (du * dv)
+
+
+@njit(cache=True, nogil=True)
+def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_table,
                   out_pos, out_bitpos, out_soft, out_sym, out_flags, out_theta):
     """Gardner timing recovery with a cubic (Farrow) interpolator and a symbol-rate carrier loop.
 
@@ -272,7 +309,17 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
         ``B_L T`` and ``c_loop_snr`` the loop SNR it keeps in lock (its bandwidth scaled down to
         ``(Es/N0) S_L / c_loop_snr``, never below ``t_min_scale``: see Notes); ``gear_symbols`` the
         symbols of lock after which they apply; ``c_hold`` the symbols in a row the carrier lock
-        condition must hold before lock is declared.
+        condition must hold before lock is declared.  QPSK/OQPSK at low Es/N0 (all 0 for BPSK):
+        ``soft_below`` (linear Es/N0) below which the carrier loop takes the soft detector, its slope
+        from ``c_table`` on the grid ``ct_db0 + k ct_step`` dB; ``c_min_scale`` the narrowest carrier
+        bandwidth (fraction of ``c_bn``); ``pull_symbols`` the symbols a carrier found by the
+        acquisition is tracked before lock (the wrapper sets ``pull_left``); the long lock average:
+        ``l_lock_slow`` its ``log(1 - a)``, ``c_on_slow`` (relative), ``c_min_slow`` (absolute),
+        ``c_hold_slow`` its hold, ``slow_esn0`` the Es/N0 (linear) below which it holds a lock the
+        short average lost.
+    c_table : float64 array
+        Slope of the soft QPSK detector per radian at the Es/N0 grid above
+        (:func:`pipeline.demod._demodulator.soft_costas_slope`); any array for BPSK.
     mod_code : int
         0 BPSK, 1 QPSK, 2 OQPSK.
     third_order : int
@@ -295,7 +342,11 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
         interval in progress ``acc_n, acc_r2, acc_r4, acc_q, acc_mid``; the block sums for the
         Es/N0 estimate ``blk_n, blk_m2, blk_m4`` (of ``|r|^2`` and ``|r|^4``, reset by the caller);
         ``ph_cos, ph_sin`` the carrier phasor at phase ``ph_theta``, ``ph_count`` half-strobes
-        since it was last recomputed exactly.
+        since it was last recomputed exactly; ``pull_left`` symbols of tracking left awaiting lock,
+        ``m2g, m4g, wg, cnum_g`` the long averages (M2M4 and the fourth-power statistic),
+        ``cgood_g`` symbols in a row meeting the long lock condition, ``lock_path`` 1 when the long
+        average holds the lock, ``soft_on`` the soft detector in use with scale ``a_soft`` and the
+        bound ``c_clip`` of the normalised carrier error.
     out_pos, out_bitpos, out_soft, out_sym, out_flags, out_theta
         Per symbol (length ``cap``): position of the on-time (I) strobe (samples); per channel bit
         (length ``cap`` for BPSK, ``2 cap`` for QPSK/OQPSK, I then Q): the position of the strobe it
@@ -325,8 +376,18 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     + 2`` symbols (the bound the wrapper sizes the buffers by).  Carrier error: decision-directed
     Costas, ``sgn(I) Q`` (BPSK), ``sgn(I) Q - sgn(Q) I`` over ``sqrt(2) A`` (QPSK; OQPSK takes I and
     Q at their own strobes), divided by the detector's slope ``kdc`` so that the loop's gain, and
-    its bandwidth, hold at low Es/N0.  While the carrier is unlocked the loop runs first order with
-    a wider gain and both integrators hold their value (coasting through fades).
+    its bandwidth, hold at low Es/N0.  QPSK/OQPSK below ``soft_below`` (once the lock window's
+    weight passes 0.4, about 1000 symbols into a stream): the soft (MAP) detector
+    ``tanh(a I) Q - tanh(a Q) I`` on the symbol over its amplitude, ``a = sqrt(2) Es/N0``
+    (:func:`soft_costas_error`), which is ``1 / (sqrt(2) x)`` times the derivative of the
+    non-data-aided log-likelihood of the phase: its slope equals ``J / (sqrt(2) x)`` with the Fisher
+    information ``J`` per symbol (``c_table``), so divided by the slope the error has unit slope and
+    variance ``1 / J``, clipped at ``4 / sqrt(J)``.  (The hard QPSK detector's slope is
+    ``erf(u) - 2 u exp(-u^2) / sqrt(pi)``, ``u = sqrt(Es/2N0)``, not ``erf(u)``: 0.08 at -3 dB
+    against 0.52, and its ``J`` 0.010 against the soft one's 0.025.)  While the carrier is
+    unlocked, and no carrier found by the acquisition is being pulled in (``pull_left``, with the
+    soft detector on), the loop runs first order
+    with a wider gain and both integrators hold their value (coasting through fades).
 
     Amplitude, lock detectors and their averages are updated from sums the loop accumulates, once
     per interval of ``stat_symbols`` nominal symbol periods on the recording's sample grid (a
@@ -336,16 +397,31 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     weight ``1 - (1 - a)^n`` over ``n`` symbols; the symbols of an interval are normalised by, and
     flagged with, what the intervals before gave.  Amplitude from the M2M4 moments
     (``S = sqrt(2 M2^2 - M4)``), which need no carrier or decisions.  The decision-directed slope
-    at ``Es/N0 = S / (M2 - S)``: ``erf(sqrt(Es/N0))`` (BPSK) and ``erf(sqrt(Es/2N0))`` (QPSK).
+    at ``Es/N0 = S / (M2 - S)``: ``erf(sqrt(Es/N0))`` (BPSK) and ``erf(sqrt(Es/2N0))`` (QPSK above
+    ``soft_below``; too high at low Es/N0, see above).  Below ``soft_below`` amplitude and Es/N0 come
+    from the long window once its weight passes 1/4 (over 1024 symbols M2M4's ``S`` spreads by about
+    25 % at -3 dB).
+
+    QPSK/OQPSK lock at low Es/N0: the fourth-power statistic's noise over the short window (2048
+    symbols) is larger than its locked value below about 0 dB, so a long window (``l_lock_slow``,
+    65536 symbols) gives a second condition, ``-Re(r^4) / M4 > max(c_on_slow S^2 / M4, c_min_slow)``
+    over ``c_hold_slow`` symbols in a row once its weight passes 1/4, which may declare lock only while
+    a carrier found by the acquisition is being pulled in; it holds a lock the short average lost
+    when the long window's Es/N0 is below ``slow_esn0``, and lets it go when the long statistic falls
+    below ``c_off`` times its locked value or half its floor.  After the signal goes, such a lock
+    is reported for up to about one long window.
 
     Loop bandwidths from Es/N0 (once lock has been held for ``gear_symbols``; the full ones before,
-    so that the loops pull in): the timing loop's noise
+    so that the loops pull in; a found carrier pulled in takes the narrowed carrier loop at once,
+    its frequency being close): the timing loop's noise
     grows as ``1 / (Es/N0)`` at low Es/N0, so its bandwidth is scaled by ``Es/N0 / t_ref_esn0``
     below ``t_ref_esn0``; the carrier loop keeps a loop SNR of at least ``c_loop_snr`` where the
     configured bandwidth would not, ``B_L T <= (Es/N0) S_L / rho`` with the Costas squaring loss
     ``S_L = 1 / (1 + 1 / (2 Es/N0))`` (BPSK) and ``1 / (1 + 9 / (2 x) + 6 / x^2 + 3 / (2 x^3))``,
-    ``x = Es/N0`` (QPSK; from memory, not confirmed).  Gains scale as ``kp ~ s``, ``ki ~ s^2``,
-    ``kr ~ s^3`` (the damping stays).
+    ``x = Es/N0`` (QPSK above ``soft_below``; from memory, not confirmed), and with the soft detector
+    ``B_L T <= J / (2 rho)`` (phase variance ``2 B_L T / J``), never below ``c_min_scale``; after
+    ``gear_symbols`` the soft detector's loop narrows as ``gear / age`` of the full bandwidth down to
+    that.  Gains scale as ``kp ~ s``, ``ki ~ s^2``, ``kr ~ s^3`` (the damping stays).
     Cost: two interpolations and about 60 flops per symbol, plus about 100 flops per interval.
 
     References
@@ -354,7 +430,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     COM-34 (1986) 423-429; U. Mengali, A. N. D'Andrea, *Synchronization Techniques for Digital
     Receivers* (1997), sec. 5.7 (decision-directed phase detectors, their S-curve slope);
     W. C. Lindsey, M. K. Simon, *Telecommunication Systems Engineering* (1973), ch. 2 (Costas loop
-    squaring loss).
+    squaring loss); Mengali and D'Andrea ch. 5 (maximum-likelihood non-data-aided phase recovery).
     """
     n_mf = mf.shape[0]
     cap = out_pos.shape[0]
@@ -388,6 +464,14 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     c_rho = pr["c_loop_snr"]
     gear = pr["gear_symbols"]
     c_hold = pr["c_hold"]
+    l_slow = pr["l_lock_slow"]
+    c_on_g = pr["c_on_slow"]
+    c_min_g = pr["c_min_slow"]
+    c_hold_g = pr["c_hold_slow"]
+    slow_esn0 = pr["slow_esn0"]
+    soft_below = pr["soft_below"]
+    soft_on = state[0]["soft_on"] == 1
+    c_min_sc = pr["c_min_scale"]
     look = int(hbox + 0.5) + 2 if hbox > 0.0 else 2
 
     st = state[0]
@@ -432,10 +516,16 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     u3 = np.uint64(3)
     inv_kd = 1.0 / kd
     flags = clock + 2 * slock
+    # the loops track (second order, bandwidths from Es/N0) in lock and while a carrier the acquisition
+    # found is being pulled in below soft_below (above it lock comes within a few hundred symbols, and the
+    # wide loop pulls in as it always did); otherwise the first-order wide loop coasts
+    trk = 1 if clock == 1 or (st["pull_left"] > 0 and st["seen"] >= warmup and soft_on) else 0
     # the loops' normalisation: carrier error / (A kdc), timing error / (A^2 K_D); the timing loop's
     # bandwidth scale and its gains
-    g_c = inv_amp / kdc
+    g_c = 1.0 / kdc if soft_on else inv_amp / kdc
     g_t = inv_amp * inv_amp * inv_kd
+    a_soft = st["a_soft"]
+    c_clip = st["c_clip"]
     t_scale = st["t_scale"]
     kp_tl = kp_t * t_scale
     ki_tl = ki_t * t_scale * t_scale
@@ -534,9 +624,12 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 sq = wi
                 et = p2r * (p1r - p3r) + p1i * (wi - p2i)
                 mid_e = p2r * p2r + p1i * p1i
-                sg_i = 1.0 if p1r >= 0.0 else -1.0
-                sg_q = 1.0 if wi >= 0.0 else -1.0
-                ec_raw = (sg_i * p1i - sg_q * wr) * inv_sqrt2
+                if soft_on:
+                    ec_raw = soft_costas_error(a_soft, p1r * inv_amp, wi * inv_amp, p1i * inv_amp, wr * inv_amp)
+                else:
+                    sg_i = 1.0 if p1r >= 0.0 else -1.0
+                    sg_q = 1.0 if wi >= 0.0 else -1.0
+                    ec_raw = (sg_i * p1i - sg_q * wr) * inv_sqrt2
             else:
                 sr = p1r
                 sq = p1i
@@ -545,6 +638,11 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 sg_i = 1.0 if sr >= 0.0 else -1.0
                 if mod_code == 0:
                     ec_raw = sg_i * sq
+                elif soft_on:
+                    # soft (MAP) QPSK detector on the normalised symbol: tanh(a I) Q - tanh(a Q) I
+                    yr = sr * inv_amp
+                    yi = sq * inv_amp
+                    ec_raw = soft_costas_error(a_soft, yr, yi, yi, yr)
                 else:
                     sg_q = 1.0 if sq >= 0.0 else -1.0
                     ec_raw = (sg_i * sq - sg_q * sr) * inv_sqrt2
@@ -581,21 +679,79 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                     inv_amp = 1.0 / amp
                     st["amp"] = amp
                 esn0 = sig / (m2 - sig) if m2 > sig else 1e3
-                if dd_gain > 0.0:
-                    # decision-directed slope at the measured Es/N0 (never below 0.3)
-                    kdc = math.erf(math.sqrt(esn0 if mod_code == 0 else 0.5 * esn0))
-                    if kdc < 0.3:
-                        kdc = 0.3
-                g_c = inv_amp / kdc
+                # the long carrier-lock average (QPSK/OQPSK at low Es/N0, where the fourth-power statistic
+                # over the short window is buried in its own noise): -Re(r^4) / M4 against its locked value
+                # S^2 / M4, both over the same long window
+                slow_ok = False
+                slow_bad = True
+                slow_low = False
+                if l_slow < 0.0:
+                    d_g = math.exp(acc_n * l_slow)
+                    m2g, m4g, wg, cnum_g = window_moments(d_g, st["m2g"], st["m4g"], st["wg"], st["cnum_g"], mr2, mr4,
+                                                          acc_q * inv_n)
+                    st["m2g"] = m2g
+                    st["m4g"] = m4g
+                    st["wg"] = wg
+                    st["cnum_g"] = cnum_g
+                    s2g = 2.0 * m2g * m2g - m4g * wg
+                    ref_g = s2g if s2g > 0.0 else 0.0
+                    slow_ok = wg > 0.25 and cnum_g * wg > c_on_g * ref_g and cnum_g > c_min_g * m4g
+                    slow_bad = cnum_g * wg < c_off * ref_g or cnum_g < 0.5 * c_min_g * m4g
+                    # the long window's Es/N0 below slow_esn0: sg / (m2 - sg) < e  <=>  sg (1 + e) < e m2
+                    sg = math.sqrt(s2g) if s2g > 0.0 else 0.0
+                    slow_low = sg * (1.0 + slow_esn0) < slow_esn0 * m2g
+                    # at low Es/N0 the soft detector takes amplitude and Es/N0 from the long window (over 1024
+                    # symbols M2M4's S has a relative spread of about 25 % at -3 dB, which the detector's slope,
+                    # nearly proportional to (Es/N0)^2 there, would double)
+                    if wg > 0.25 and s2g > 0.0 and esn0 < soft_below:
+                        sgn = sg / wg
+                        m2n = m2g / wg
+                        if m2n > sgn and sgn > 1e-30:
+                            esn0 = sgn / (m2n - sgn)
+                            amp = math.sqrt(sgn)
+                            inv_amp = 1.0 / amp
+                            st["amp"] = amp
+                # (once the lock window holds about 1000 symbols: over the first symbols of a stream, before the
+                # timing has converged, the estimate can be far too low, and the hard detector keeps the pull-in
+                # of a strong signal, and the phase ambiguity it settles in, as they always were)
+                soft_on = esn0 < soft_below and st["wf"] > 0.4
+                fisher = 1.0
+                if soft_on:
+                    # below soft_below (QPSK/OQPSK) the soft detector, its slope at the measured Es/N0 x from the
+                    # table (its Fisher information J = sqrt(2) x slope per symbol); a = sqrt(2) x.  x from -6 dB
+                    # while the loops track, from 0 dB while they do not: the estimate over the first symbols of
+                    # a warm-up (timing not yet found) can be far too low, and the wide loop would take its noise
+                    # at a gain of 1 / slope
+                    x_lo = 0.25 if trk == 1 else 1.0
+                    x_s = esn0 if esn0 > x_lo else x_lo
+                    u = (10.0 * math.log10(x_s) - pr["ct_db0"]) / pr["ct_step"]
+                    nt = c_table.shape[0]
+                    if u <= 0.0:
+                        kdc = c_table[0]
+                    elif u >= nt - 1:
+                        kdc = c_table[nt - 1]
+                    else:
+                        ju = int(u)
+                        kdc = c_table[ju] + (u - ju) * (c_table[ju + 1] - c_table[ju])
+                    fisher = sqrt2 * x_s * kdc
+                    c_clip = 4.0 / math.sqrt(fisher) if fisher < 1.0 and trk == 1 else 4.0
+                    a_soft = sqrt2 * x_s
+                    g_c = 1.0 / kdc
+                else:
+                    c_clip = 4.0
+                    if dd_gain > 0.0:
+                        # decision-directed slope at the measured Es/N0 (never below 0.3)
+                        kdc = math.erf(math.sqrt(esn0 if mod_code == 0 else 0.5 * esn0))
+                        if kdc < 0.3:
+                            kdc = 0.3
+                    g_c = inv_amp / kdc
                 g_t = inv_amp * inv_amp * inv_kd
 
                 # carrier-lock statistic relative to its locked value, which comes from M2M4 moments
                 # averaged over the same window (a longer one would lag at a signal's onset and make a
                 # slipping loop look locked).  The ratios are compared cross-multiplied.
-                m2f = d_lc * st["m2f"] + (1.0 - d_lc) * mr2
-                m4f = d_lc * st["m4f"] + (1.0 - d_lc) * mr4
-                wf = d_lc * st["wf"] + (1.0 - d_lc)
-                cnum = d_lc * st["cnum"] + (1.0 - d_lc) * acc_q * inv_n
+                m2f, m4f, wf, cnum = window_moments(d_lc, st["m2f"], st["m4f"], st["wf"], st["cnum"], mr2, mr4,
+                                                    acc_q * inv_n)
                 st["m2f"] = m2f
                 st["m4f"] = m4f
                 st["wf"] = wf
@@ -626,10 +782,32 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                         st["cgood"] = 0
                     if st["cgood"] >= c_hold and seen >= warmup:
                         clock = 1
+                        st["lock_path"] = 0
                         st["cgood"] = 0
-                else:
+                    # the long average declares lock only while a found carrier is pulled in
+                    if slow_ok and st["pull_left"] > 0:
+                        st["cgood_g"] += acc_n
+                    else:
+                        st["cgood_g"] = 0
+                    if clock == 0 and l_slow < 0.0 and st["cgood_g"] >= c_hold_g and seen >= warmup:
+                        clock = 1
+                        st["lock_path"] = 1
+                    if clock == 1:
+                        st["cgood_g"] = 0
+                    else:
+                        st["pull_left"] = st["pull_left"] - acc_n if st["pull_left"] > acc_n else 0
+                elif st["lock_path"] == 0:
                     if lhs < c_off * ref_num * cden or cnum < 0.5 * c_min * cden:
-                        clock = 0
+                        # at low Es/N0 (over the long window) the long average holds the lock if it says so
+                        if slow_ok and slow_low:
+                            st["lock_path"] = 1
+                        else:
+                            clock = 0
+                elif slow_bad:
+                    clock = 0
+                if clock == 0 and flags & 1:
+                    st["pull_left"] = 0  # lock lost: the wide loop coasts (a fade), as before any lock
+                trk = 1 if clock == 1 or (st["pull_left"] > 0 and seen >= warmup and soft_on) else 0
 
                 # symbol-lock statistic: on-time versus midpoint energy, relative to r0 S / (S + N)
                 eon = d_ls * st["eon"] + (1.0 - d_ls) * mr2
@@ -655,7 +833,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 esn0 = sw / (m2w - sw) if m2w > sw else (1e3 if sw > 0.0 else 1e-3)
                 if esn0 < 1e-3:
                     esn0 = 1e-3
-                if clock == 1:
+                if trk == 1:
                     lock_age = st["lock_age"] + acc_n
                     st["lock_age"] = lock_age
                 else:
@@ -671,14 +849,24 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 # the carrier loop in lock: narrowed where the configured bandwidth would leave a loop
                 # SNR below c_loop_snr, B_L T <= (Es/N0) S_L / rho with the Costas squaring loss S_L
                 c_scale = 1.0
-                if geared:
-                    if mod_code == 0:
-                        s_l = 1.0 / (1.0 + 0.5 / esn0)
+                # a carrier pulled in after an acquisition (whose frequency is close) is narrowed at once: at
+                # low Es/N0 the full bandwidth's noise would walk the frequency away
+                pulling = clock == 0 and trk == 1
+                if geared or pulling:
+                    if soft_on:
+                        # loop SNR 1 / (2 B_L T / J) with the soft detector's Fisher information J per symbol
+                        bn_ok = 0.5 * fisher / c_rho
                     else:
-                        s_l = 1.0 / (1.0 + 4.5 / esn0 + 6.0 / (esn0 * esn0) + 1.5 / (esn0 * esn0 * esn0))
-                    bn_ok = esn0 * s_l / c_rho
+                        if mod_code == 0:
+                            s_l = 1.0 / (1.0 + 0.5 / esn0)
+                        else:
+                            s_l = 1.0 / (1.0 + 4.5 / esn0 + 6.0 / (esn0 * esn0) + 1.5 / (esn0 * esn0 * esn0))
+                        bn_ok = esn0 * s_l / c_rho
                     if bn_ok < c_bn:
-                        c_scale = bn_ok / c_bn if bn_ok > t_min * c_bn else t_min
+                        c_scale = bn_ok / c_bn if bn_ok > c_min_sc * c_bn else c_min_sc
+                        # narrowed gradually after the pull-in: gear / age of the full bandwidth, down to it
+                        if soft_on and not pulling and gear > c_scale * lock_age:
+                            c_scale = gear / lock_age
                 st["c_scale"] = c_scale
                 kp_cl = kp_c * c_scale
                 ki_cl = ki_c * c_scale * c_scale
@@ -726,11 +914,11 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
             # the carrier error bounded far outside the detector's range (4 noise deviations at Es/N0 =
             # -3 dB: an amplitude estimate that lags a sudden rise after silence cannot throw the
             # phase), the timing error at +-1
-            pend_ec = min(max(ec_raw * g_c, -4.0), 4.0)
+            pend_ec = min(max(ec_raw * g_c, -c_clip), c_clip)
             e_t = pend_et
             pend_et = min(max(et * g_t, -1.0), 1.0)
             # carrier loop (phase correction takes effect from the next half-strobe)
-            if clock == 1:
+            if trk == 1:
                 if third_order == 1:
                     w_rate += kr_cl * ec
                 w_int += ki_cl * ec + w_rate
@@ -739,7 +927,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
                 theta += kp_c_wide * ec
 
             # timing loop
-            if clock == 1:
+            if trk == 1:
                 v_int += ki_tl * e_t
                 if v_int > v_max:
                     v_int = v_max
@@ -777,6 +965,9 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state,
     st["pend_et"] = pend_et
     st["inv_amp"] = inv_amp
     st["kdc"] = kdc
+    st["a_soft"] = a_soft
+    st["c_clip"] = c_clip
+    st["soft_on"] = 1 if soft_on else 0
     st["clock"] = clock
     st["slock"] = slock
     st["acc_n"] = acc_n
