@@ -85,6 +85,34 @@ def test_punctured_rate_every_packet_at_7db(tmp_path, rate, modulation, line_cod
     _check_every_packet(tmp_path, rate, modulation, line_code, seed=seed)
 
 
+@pytest.mark.parametrize("phase_rad, line_code, inverted", [(-2.4, "nrz-l", False), (-2.4, "nrz-m", False),
+                                                             (0.9, "nrz-l", False), (2.3, "nrz-l", True)])
+def test_rate_five_sixths_qpsk_whatever_phase_the_receiver_settles_in(tmp_path, phase_rad, line_code, inverted):
+    # at rate 5/6 the punctured code is its own image under the QPSK I/Q swap (a plain computation: both give the
+    # metric 0.995 here), so the decoder's metric cannot tell a constellation from its mirror image; with the
+    # receiver settled in the phase of -2.4 rad the mirrored hypothesis came first and nothing was decoded.
+    # The markers in each candidate's decoded bits decide (pipeline.sync.BranchSync, "Twins").
+    profile = _profile("5/6", "qpsk", line_code)
+    rng = np.random.default_rng(5)
+    packets = [tx.space_packet(100 + (i % 2), i // 2, bytes(rng.integers(0, 256, 20 + 13 * (i % 9), dtype=np.uint8)))
+               for i in range(48)]
+    frames = tx.tm_frames(packets, scid=77, vcid=1, length=223, ocf=True, fecf=False)
+    bits = tx.channel_bits(frames, rs_e=16, interleave=1, randomize=True, conv="5/6", nrz_m=line_code == "nrz-m")
+    bits = bits[: len(bits) // 2 * 2]
+    wave = ds.modulate(len(bits) // 2, modulation="qpsk", sample_rate_hz=SAMPLE_RATE, symbol_rate_baud=SYMBOL_RATE,
+                       timing_offset=0.3, clock_offset_ppm=25.0, carrier_offset_hz=310.0, phase_rad=phase_rad,
+                       esn0_db=profile.esn0_from_ebn0(EBN0_DB), rng=rng, bits=(bits[0::2], bits[1::2]),
+                       lead_symbols=300)
+    samples = np.conj(wave.samples) if inverted else wave.samples
+    (tmp_path / "r.sigmf-data").write_bytes(samples.astype("<c8").tobytes())
+    meta = {"global": {"core:datatype": "cf32_le", "core:sample_rate": SAMPLE_RATE, "core:version": "1.2.0"},
+            "captures": [{"core:sample_start": 0, "core:datetime": "2026-03-14T09:30:00Z"}], "annotations": []}
+    (tmp_path / "r.sigmf-meta").write_text(json.dumps(meta))
+    res = decode(tmp_path / "r.sigmf-meta", profile)
+    assert [bytes.fromhex(p["hex"]) for p in res.packets_list] == packets
+    assert res.frames_failed == 0
+
+
 def test_override_for_equipment_that_inverts_g2_before_puncturing(tmp_path):
     # [coding] convolutional_g2_inverted = true: the profile switch for transmitters that invert G2 on the
     # punctured codes too (not what CCSDS 131.0-B sec. 3.4 says, but such equipment exists).  The chain

@@ -397,6 +397,10 @@ def test_soft_marker_arguments():
         BranchSync(rate="none", modulation="qpsk", correlation="fuzzy")
     with pytest.raises(ValueError, match="'marker_threshold' must be in"):
         BranchSync(rate="none", modulation="qpsk", correlation="soft", marker_threshold=9.0)
+    with pytest.raises(ValueError, match="'marker_period_bits' must be"):
+        BranchSync(rate="5/6", modulation="qpsk", marker_period_bits=10)
+    with pytest.raises(TypeError, match="'nrz_m' must be True or False"):
+        BranchSync(rate="5/6", modulation="qpsk", nrz_m="yes")
 
 
 def test_noise_then_signal_is_acquired_when_it_appears(rng):

@@ -186,10 +186,12 @@ class FrontEnd:
         line_code = "nrz-l" if profile.link.line_code == "bi-phase-l" else profile.link.line_code
         self.line = LineDecoder(line_code=line_code)
         soft_code = soft_block_code(profile)  # turbo and LDPC: their own marker, found by soft correlation
+        marker = ({"asm": soft_code.marker, "correlation": "soft"} if soft_code is not None else
+                  {"marker_period_bits": profile.codeblock_bits + 32,  # the ASM tells the metric's twins apart
+                   "nrz_m": profile.link.line_code == "nrz-m"})
         self.branch = BranchSync(rate=profile.coding.convolutional, modulation=profile.link.modulation,
                                  g2_inverted=profile.coding.conv_g2_inverted,
-                                 mirror=rx.spectrum_inverted == "auto",
-                                 **({} if soft_code is None else {"asm": soft_code.marker, "correlation": "soft"}))
+                                 mirror=rx.spectrum_inverted == "auto", **marker)
         self.fsync = frame_sync_for(profile)  # the link's marker: the ASM on hard bits, a turbo marker soft
         self.codeblock = CodeblockDecoder(profile=profile)
         self.counts = FrontCounts()

@@ -55,6 +55,7 @@ _PARITY = np.array([bin(v).count("1") & 1 for v in range(128)], dtype=np.uint8)
 # trials was 0.0046 (1/2), 0.0030 (2/3), 0.0016 (3/4), 0.0012 (5/6), 0.0011 (7/8); these are about
 # twice that.  Real signals give 0.03 (1/2, Eb/N0 0 dB) to 0.008 (7/8, 3 dB).  No published source.
 _MIN_MARGIN = {"1/2": 0.009, "2/3": 0.006, "3/4": 0.0035, "5/6": 0.0025, "7/8": 0.0025}
+_MAX_TWINS = 4  # hypotheses within the margin told apart by their markers (more: noise, left undecided)
 _GUARD_PERIODS = 16  # decoded periods ignored at each end of an evaluation window (no prior state, short traceback)
 # Signal-presence gate of an evaluation while undecided: S / M2 of the window's soft values by the real M2M4
 # estimator (Pauluzzi and Beaulieu 2000).  Measured here over 8192 values: Gaussian noise alone 0.07 +- 0.08
@@ -79,6 +80,7 @@ class BranchSyncStats:
     blocks: int = 0  # monitored blocks of decoded bits
     blocks_below_threshold: int = 0
     channel_bits_discarded: int = 0  # channel bits never decoded (before a switch, or too few at the end)
+    marker_decisions: int = 0  # evaluations the metric could not decide, decided by the markers (see Twins)
     last_metric: float = float("nan")  # normalized metric of the last monitored block
 
     def as_dict(self) -> dict:
@@ -133,6 +135,11 @@ class BranchSync:
     marker_threshold : float or None
         The soft correlation's threshold; None: :func:`~pipeline.sync.soft_search_threshold` of the
         marker (4.5 for the 32-bit ASM, 4.98 for 64 bits, 5.34 for 192), the frame synchronizer's own.
+    marker_period_bits : int or None
+        Coded links: decoded bits from one marker (``asm``) to the next (the CADU).  When given, hypotheses
+        the metric cannot separate are told apart by the markers in their decoded bits (see Notes).
+    nrz_m : bool
+        The decoded bits are NRZ-M: the marker is looked for after differential decoding.
     marker_block_bits : int
         Uncoded QPSK/OQPSK: channel bits per rotation decision (1024 .. 2**22); it should hold
         at least one CADU.
@@ -187,6 +194,14 @@ class BranchSync:
     under it from the first held channel bit, so at a signal's onset (or after a fade with a phase
     slip) nothing received since up to 8 blocks before the decision is lost.
 
+    Twins: at rate 5/6 a QPSK constellation and its mirror image give the same metric (the punctured
+    code is its own image under the I/Q swap, at another branch offset), so an evaluation there can never
+    decide between them from the metric alone, and the first of the two was decoded whether or not it
+    was right (the wrong one decodes nothing).  With ``marker_period_bits``, the hypotheses within the
+    margin of the best (at most four, and only while a signal is present) are each decoded over two marker
+    periods, and the one whose decoded bits hold the most markers (either polarity, at most 2 bit errors)
+    is taken, decided, when it holds at least one and strictly more than the others.
+
     Tracking: the chosen hypothesis is decoded by one :class:`pipeline.fec.ViterbiDecoder`; the
     output is cut into blocks of ``block_bits`` (counted from the segment start), each re-encoded
     with a running encoder and scored the same way (kernel ``reencode_metrics``).  ``patience``
@@ -231,6 +246,8 @@ class BranchSync:
         mirror: bool = True,
         correlation: str = "hard",
         marker_threshold: float | None = None,
+        marker_period_bits: int | None = None,
+        nrz_m: bool = False,
     ) -> None:
         if rate not in CONV_RATES:
             raise ValueError(f"Argument 'rate' must be one of {' | '.join(CONV_RATES)}, not {rate!r}.")
@@ -258,6 +275,12 @@ class BranchSync:
         if correlation not in ("hard", "soft"):
             raise ValueError(f"Argument 'correlation' must be 'hard' or 'soft', not {correlation!r}.")
         self.correlation = correlation
+        if marker_period_bits is not None:
+            check_int("marker_period_bits", marker_period_bits, 64, 1 << 20)
+        self.marker_period_bits = marker_period_bits
+        if not isinstance(nrz_m, bool):
+            raise TypeError(f"Argument 'nrz_m' must be True or False, not {nrz_m!r}.")
+        self.nrz_m = nrz_m
         if marker_threshold is None:
             marker_threshold = soft_search_threshold(int(self._marker.size))
         marker_threshold = float(marker_threshold)
@@ -658,6 +681,19 @@ class BranchSync:
             runner_up = float(scores[best]) - 0.1
         hyp = self.hypotheses[best]
         decided = float(scores[best]) - runner_up >= _MIN_MARGIN[self.rate]
+        by_markers = False
+        if not decided and self.marker_period_bits is not None:
+            twins = [int(i) for i in order if scores[int(i)] > float(scores[best]) - _MIN_MARGIN[self.rate]]
+            if 2 <= len(twins) <= _MAX_TWINS and self._signal_present(t, min(need, self._n_in)):
+                verdict = self._markers_decide(t, twins, final)
+                if verdict is None:
+                    self._pending = t  # more input is needed to decode two marker periods
+                    return False
+                if verdict >= 0:
+                    best, decided, by_markers = verdict, True, True
+                    hyp = self.hypotheses[best]
+                    self.stats.marker_decisions += 1
+                    runner_up = max(float(scores[i]) for i in twins if i != best)
         if not decided:
             # no hypothesis stands out (noise, a fade): the running decoder (at the start the best
             # hypothesis) goes on, its output held back; the hypotheses are evaluated again every block
@@ -698,10 +734,36 @@ class BranchSync:
                 bit_index=self.stats.bits_out,
                 position=pos,
                 detail=(f"offset {off}, rotation {self._rotation_text(rot)}, metric {scores[best]:.4f} vs "
-                        f"{runner_up:.4f}" + ("" if decided else " (undecided)")),
+                        f"{runner_up:.4f}" + (" (undecided)" if not decided else
+                                              " (decided by the markers in the decoded bits)" if by_markers else "")),
             )
         )
         return True
+
+    def _markers_decide(self, t: int, twins: list[int], final: bool) -> int | None:
+        """Index of the hypothesis among ``twins`` whose decoded bits hold the most markers, -1 when none
+        stands out, None when the input does not yet hold two marker periods past ``t``."""
+        P, kp = self.period_symbols, self.period_bits
+        periods = -(-(2 * self.marker_period_bits + len(self._marker)) // kp) + 2 * _GUARD_PERIODS
+        counts = []
+        for i in twins:
+            off, rot = self.hypotheses[i]
+            s0 = t + (off - t) % P
+            have = (self._available(rot) - s0) // P
+            if have < periods and not final:
+                return None
+            n = min(periods, have)
+            if n < 4 * _GUARD_PERIODS:
+                return -1
+            bits = viterbi_decode(self._view(s0, s0 + n * P, rot), self.rate, traceback_depth=self.traceback_depth,
+                                  g2_inverted=self.g2_inverted)
+            if self.nrz_m:
+                bits = bits[1:] ^ bits[:-1]
+            counts.append(self._count_markers(1.0 - 2.0 * bits.astype(np.float32)))
+        top = max(counts)
+        if top == 0 or counts.count(top) > 1:
+            return -1
+        return twins[counts.index(top)]
 
     def _track(self, final: bool) -> bool:
         """Decode, score and output; False when nothing more can be done with the input at hand."""
