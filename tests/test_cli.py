@@ -174,7 +174,7 @@ def test_closed_pipe_exits_quietly():
 
 
 def test_decode_on_a_local_dask_cluster(tmp_path):
-    pytest.importorskip("dask.distributed")
+    import dask.distributed  # noqa: F401  (the [test] extra)
     from test_end_to_end import _write_profile, small_profile
 
     prof = _write_profile(tmp_path, small_profile("bpsk", "concatenated", "nrz-m", seconds=1.0))

@@ -12,16 +12,13 @@ from __future__ import annotations
 import json
 import math
 
+import demod_signals as ds
+import erfa  # pyerfa, installed with astropy (the [test] extra)
 import numpy as np
-import pytest
+import orbit_truth
+import sgp4  # noqa: F401  (a runtime dependency: missing, the test fails)
 
-pytest.importorskip("sgp4")
-erfa = pytest.importorskip("erfa")
-
-import demod_signals as ds  # noqa: E402
-import orbit_truth  # noqa: E402
-
-from pipeline.timescales import format_utc, tai_from_posix_ns  # noqa: E402
+from pipeline.timescales import format_utc, tai_from_posix_ns
 
 F_CARRIER = 2.2455e9  # Hz: the demo's invented S-band assignment
 OSC_OFFSET_HZ = 850.0  # the spacecraft oscillator's offset from nominal (the mean residual to find)

@@ -191,11 +191,10 @@ def _third_party_imports() -> set[str]:
 
 
 def test_runtime_dependencies_are_what_the_package_imports():
-    import sys
-
-    if sys.version_info < (3, 11):
-        pytest.skip("tomllib (the reader of pyproject.toml) is in the standard library from Python 3.11")
-    import tomllib
+    try:
+        import tomllib
+    except ModuleNotFoundError:  # Python 3.10: tomli, a runtime dependency there
+        import tomli as tomllib
 
     project = tomllib.loads((ROOT / "pyproject.toml").read_text(encoding="utf-8"))["project"]
 
