@@ -329,7 +329,8 @@ def test_uncoded_qpsk_phase_jump_and_chunking(rng):
 
 
 # ---- turbo / LDPC on QPSK: rotation by soft markers ----------------------------------------------------------
-# CCSDS 131.0-B sec. 6.4 (from memory, REFERENCES.md 13.4): the 64-bit marker of the rate-1/2 turbo code
+# the 64-bit marker of the rate-1/2 turbo code: REFERENCES.md sec. 1 (from memory, not confirmed; it equals the
+# first 64 bits of the rate-1/4 marker, CCSDS 131.0-B-2 Fig. 8-4)
 TURBO_R12_MARKER = bytes.fromhex("034776C7272895B0")
 
 
