@@ -102,26 +102,19 @@ def _is_count(v: Any) -> bool:
     return isinstance(v, (int, np.integer)) and not isinstance(v, bool)
 
 
+def _combine_stats(newer: Any, other: Any, sign: int) -> Any:
+    """Field-wise ``newer + sign * other`` of two statistics dataclasses for the counts; anything else (such as
+    a last metric) from ``newer``."""
+    kw = {}
+    for f in dataclasses.fields(newer):
+        a, b = getattr(newer, f.name), getattr(other, f.name)
+        kw[f.name] = a + sign * b if _is_count(a) and _is_count(b) else a
+    return dataclasses.replace(newer, **kw)
+
+
 def _add_stats(total: Any, part: Any) -> Any:
-    """Field-wise sum of two statistics dataclasses (counts added; anything else, such as a last metric, from
-    ``part``)."""
-    if total is None:
-        return dataclasses.replace(part)
-    kw = {}
-    for f in dataclasses.fields(total):
-        a, b = getattr(total, f.name), getattr(part, f.name)
-        kw[f.name] = a + b if _is_count(a) and _is_count(b) else b
-    return dataclasses.replace(total, **kw)
-
-
-def _sub_stats(later: Any, earlier: Any) -> Any:
-    """Field-wise difference of two snapshots of one statistics dataclass (counts subtracted; anything else
-    from ``later``): what a stage counted between them."""
-    kw = {}
-    for f in dataclasses.fields(later):
-        a, b = getattr(later, f.name), getattr(earlier, f.name)
-        kw[f.name] = a - b if _is_count(a) and _is_count(b) else a
-    return dataclasses.replace(later, **kw)
+    """Sum of a later segment's statistics ``part`` and the ``total`` so far (None: none yet)."""
+    return dataclasses.replace(part) if total is None else _combine_stats(part, total, 1)
 
 
 def owned_stats(after_owned: dict, before_owned: dict | None) -> dict:
@@ -134,7 +127,7 @@ def owned_stats(after_owned: dict, before_owned: dict | None) -> dict:
     """
     if before_owned is None:
         return {k: dataclasses.replace(v) for k, v in after_owned.items()}
-    return {k: _sub_stats(v, before_owned[k]) for k, v in after_owned.items()}
+    return {k: _combine_stats(v, before_owned[k], -1) for k, v in after_owned.items()}
 
 
 class FrontEnd:

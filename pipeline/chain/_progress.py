@@ -18,18 +18,16 @@ class Progress:
         False (or stderr not a terminal) draws nothing.
     unit : str, keyword-only
         What is counted ("sample", "symbol").
-    stage : str, keyword-only
-        What the run is doing, shown before the bar.
     """
 
-    def __init__(self, total: int | None, *, enabled: bool, unit: str = "sample", stage: str = "decoding"):
+    def __init__(self, total: int | None, *, enabled: bool, unit: str = "sample"):
         self._bar = None
         self._done = 0
         if enabled and sys.stderr.isatty():
             from tqdm import tqdm
 
             self._bar = tqdm(total=total, unit=unit, unit_scale=True, file=sys.stderr, leave=False,
-                             dynamic_ncols=True, mininterval=0.2, desc=stage)
+                             dynamic_ncols=True, mininterval=0.2, desc="decoding")
 
     def update(self, done: int) -> None:
         """``done`` units are now finished (monotonic)."""

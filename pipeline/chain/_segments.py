@@ -198,14 +198,12 @@ class SegmentedDecode:
         self._check = recording.checksum()
         self._check_future = None
         try:
-            for res in self._results(recording, plan):
-                self._start_check()
+            for res in self._results(recording, plan):  # each way of running starts the check (_start_check)
                 last = self._merge(res, back, final=res.index == len(plan) - 1, last=last, half_cadu=half_cadu)
                 summary.merge(res.summary)
                 self.segment_cpu_s.append(res.cpu_s)
                 if on_segment is not None:
                     on_segment(res)
-            self._start_check()
             if self._check_future is not None:
                 self._check_future.result()  # a mismatch raises here, before anything is marked complete
                 recording.checksum_verified = True
@@ -255,7 +253,7 @@ class SegmentedDecode:
         if self.scheduler is not None:
             yield from self._dask_results(jobs)
             return
-        if self.workers == 1 or len(plan) == 1:
+        if self.workers == 1 or len(plan) <= 1:
             self._start_check()
             for job in jobs:
                 yield decode_segment(*job)

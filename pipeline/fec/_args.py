@@ -13,11 +13,16 @@ Rate = Literal["1/2", "2/3", "3/4", "5/6", "7/8"]
 RATES: tuple[str, ...] = get_args(Rate)
 
 
+def check_choice(name: str, value, choices) -> str:
+    """Return ``value`` if it is one of the strings ``choices``, else raise ValueError naming them."""
+    if not isinstance(value, str) or value not in choices:
+        raise ValueError(f"Argument '{name}' must be one of {', '.join(choices)}, not {value!r}.")
+    return value
+
+
 def check_rate(rate) -> str:
     """Return ``rate`` if it is one of :data:`RATES`, else raise ValueError naming it."""
-    if not isinstance(rate, str) or rate not in RATES:
-        raise ValueError(f"Argument 'rate' must be one of {', '.join(RATES)}, not {rate!r}.")
-    return rate
+    return check_choice("rate", rate, RATES)
 
 
 def check_int(name: str, value, lo: int | None = None, hi: int | None = None, *, allowed: tuple = (),

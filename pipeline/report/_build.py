@@ -23,9 +23,6 @@ CAUTION = "Decoded data is no substitute for the mission's validated ground segm
 #: Version of the layout of ``report.json``; raised when a key changes meaning or goes away.
 SCHEMA_VERSION = 1
 
-#: Statuses that are not failures of a frame (any other status counts as failed).
-_NOT_FAILED = ("ok", "idle")
-
 
 @dataclass
 class RunFacts:

@@ -192,11 +192,6 @@ def _png(fig) -> bytes:
     return buf.getvalue()
 
 
-def _plain(text: str) -> str:
-    """Label text with mathtext switched off (a ``$`` must not start a formula)."""
-    return str(text).replace("$", r"\$")
-
-
 def _envelope(x: np.ndarray, y: np.ndarray, bins: int = MAX_LINE_BINS) -> tuple[np.ndarray, np.ndarray]:
     """Thin a long line to the min and max of ``bins`` equal runs of points (peaks stay visible).
 

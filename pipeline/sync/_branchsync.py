@@ -343,7 +343,7 @@ class BranchSync:
             return
         self.stats.lost_lock_notices += 1
         if self._pending is None and self._hyp is not None:
-            self._pending = self._seg_start + (self._seg_done // self.block_bits) * self._block_symbols
+            self._pending = self._frontier()
 
     def process(self, soft: np.ndarray, position: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Take soft channel bits (float, + = 0) and their sample positions; return decoded bits so far.
@@ -397,6 +397,7 @@ class BranchSync:
         self._n_in = 0
         self._hyp: tuple[int, int] | None = (0, 0) if self.marker_rotation else None
         self._pending: int | None = 0 if self.coded else None  # channel index of the next evaluation
+        self._scores_at: tuple[int, list] | None = None  # (t, scores) of an evaluation waiting for input
         self._seg_start = 0
         self._dec: ViterbiDecoder | None = None
         self._fed = 0
@@ -589,7 +590,6 @@ class BranchSync:
                 self.stats.evaluations += 1
                 if new_rot != rot:
                     self._switch(a, new_rot, f"soft: judged on {hits} markers")
-                block = np.array(block, dtype=np.float32)
             else:
                 block = self._view(a, b, rot)
                 if self._count_markers(block, first_only=True) == 0:
@@ -603,8 +603,9 @@ class BranchSync:
                             block = candidate
                             self._switch(a, other, f"uncoded: {other_hits} markers against 0")
                             break
-                block = np.array(block, dtype=np.float32)
-            self._out_bits.append(block)
+            # unrotated, the block is a view into the input buffer, which is reused: copied then; a rotated one
+            # is an array of its own
+            self._out_bits.append(block.copy() if self._hyp[1] == 0 else block)
             self._out_pos.append(self._raw_pos[a - self._raw_base : b - self._raw_base].copy())
             self.stats.bits_out += b - a
             self._fed = b
@@ -649,23 +650,16 @@ class BranchSync:
         if need > self._n_in and not final:
             return False
         self._pending = None
-        if self._holding and not self._signal_present(t, min(need, self._n_in)):
-            self.stats.quiet_evaluations += 1
-            return True  # still nothing to decide on: the held blocks go on aging
-        min_periods = 4 * _GUARD_PERIODS
-        scores = []
-        for off, rot in self.hypotheses:
-            s0 = t + (off - t) % P
-            periods = min(self._acquire_periods, (self._available(rot) - s0) // P)
-            if periods < min_periods:
-                scores.append(-np.inf)
-                continue
-            soft = self._view(s0, s0 + periods * P, rot)
-            inv = self.g2_inverted
-            code = conv_encode(viterbi_decode(soft, self.rate, traceback_depth=self.traceback_depth, g2_inverted=inv),
-                               self.rate, g2_inverted=inv)
-            g = _GUARD_PERIODS * P
-            scores.append(branch_metric(soft[g : periods * P - g], code[g : periods * P - g]))
+        present = None  # the signal-presence gate, computed at most once
+        if self._holding:
+            present = self._signal_present(t, min(need, self._n_in))
+            if not present:
+                self.stats.quiet_evaluations += 1
+                return True  # still nothing to decide on: the held blocks go on aging
+        if self._scores_at is not None and self._scores_at[0] == t:
+            scores = self._scores_at[1]  # the same window, scored while waiting for the markers' input
+        else:
+            scores = self._score_hypotheses(t)
         if not np.isfinite(max(scores)):
             # only at the end of the stream: too little left to judge.  Keep the current hypothesis;
             # without one, the remaining channel bits cannot be decoded.
@@ -684,10 +678,14 @@ class BranchSync:
         by_markers = False
         if not decided and self.marker_period_bits is not None:
             twins = [int(i) for i in order if scores[int(i)] > float(scores[best]) - _MIN_MARGIN[self.rate]]
-            if 2 <= len(twins) <= _MAX_TWINS and self._signal_present(t, min(need, self._n_in)):
+            if 2 <= len(twins) <= _MAX_TWINS:
+                if present is None:
+                    present = self._signal_present(t, min(need, self._n_in))
+            if 2 <= len(twins) <= _MAX_TWINS and present:
                 verdict = self._markers_decide(t, twins, final)
                 if verdict is None:
                     self._pending = t  # more input is needed to decode two marker periods
+                    self._scores_at = (t, scores)
                     return False
                 if verdict >= 0:
                     best, decided, by_markers = verdict, True, True
@@ -740,19 +738,40 @@ class BranchSync:
         )
         return True
 
+    def _score_hypotheses(self, t: int) -> list[float]:
+        """Every hypothesis's metric on the window from channel index ``t`` (-inf where too little is left)."""
+        P = self.period_symbols
+        min_periods = 4 * _GUARD_PERIODS
+        scores = []
+        for off, rot in self.hypotheses:
+            s0 = t + (off - t) % P
+            periods = min(self._acquire_periods, (self._available(rot) - s0) // P)
+            if periods < min_periods:
+                scores.append(-np.inf)
+                continue
+            soft = self._view(s0, s0 + periods * P, rot)
+            inv = self.g2_inverted
+            code = conv_encode(viterbi_decode(soft, self.rate, traceback_depth=self.traceback_depth, g2_inverted=inv),
+                               self.rate, g2_inverted=inv)
+            g = _GUARD_PERIODS * P
+            scores.append(branch_metric(soft[g : periods * P - g], code[g : periods * P - g]))
+        return scores
+
     def _markers_decide(self, t: int, twins: list[int], final: bool) -> int | None:
         """Index of the hypothesis among ``twins`` whose decoded bits hold the most markers, -1 when none
         stands out, None when the input does not yet hold two marker periods past ``t``."""
         P, kp = self.period_symbols, self.period_bits
         periods = -(-(2 * self.marker_period_bits + len(self._marker)) // kp) + 2 * _GUARD_PERIODS
-        counts = []
+        starts = []
         for i in twins:
             off, rot = self.hypotheses[i]
             s0 = t + (off - t) % P
             have = (self._available(rot) - s0) // P
             if have < periods and not final:
-                return None
-            n = min(periods, have)
+                return None  # (before any decoding: the call is made again with more input)
+            starts.append((s0, rot, min(periods, have)))
+        counts = []
+        for s0, rot, n in starts:
             if n < 4 * _GUARD_PERIODS:
                 return -1
             bits = viterbi_decode(self._view(s0, s0 + n * P, rot), self.rate, traceback_depth=self.traceback_depth,

@@ -8,6 +8,7 @@ from typing import Literal, get_args
 
 import numpy as np
 
+from pipeline.fec._args import check_choice
 from pipeline.fec.ldpc._codes import LdpcCode, expurgation_failures, parity_check
 from pipeline.fec.ldpc._kernels import (
     LDPC_LANES,
@@ -73,12 +74,6 @@ class LdpcResult:
     def failed(self) -> int:
         """Number of failed codewords."""
         return int(np.count_nonzero(~self.ok))
-
-
-def _check_choice(name, value, choices):
-    if not isinstance(value, str) or value not in choices:
-        raise ValueError(f"Argument '{name}' must be one of {', '.join(choices)}, not {value!r}.")
-    return value
 
 
 def _check_number(name, value, rule, ok):
@@ -178,8 +173,8 @@ class LdpcDecoder:
         if isinstance(max_iterations, (bool, np.bool_)) or not isinstance(max_iterations, (int, np.integer)) \
                 or not 1 <= max_iterations <= 1000:
             raise ValueError(f"Argument 'max_iterations' must be an integer 1..1000, not {max_iterations!r}.")
-        variant = _check_choice("variant", variant, MIN_SUM_VARIANTS)
-        kernel = _check_choice("kernel", kernel, get_args(Kernel))
+        variant = check_choice("variant", variant, MIN_SUM_VARIANTS)
+        kernel = check_choice("kernel", kernel, get_args(Kernel))
         if lanes not in LDPC_LANES or isinstance(lanes, bool):
             raise ValueError(f"Argument 'lanes' must be one of {', '.join(map(str, LDPC_LANES))}, not {lanes!r}.")
         llr_scale = float(_check_number("llr_scale", llr_scale, "in 0.25..64", lambda v: 0.25 <= v <= 64))

@@ -8,7 +8,7 @@ from typing import Literal, get_args
 
 import numpy as np
 
-from pipeline.fec._args import check_int
+from pipeline.fec._args import check_choice, check_int
 from pipeline.fec._crc import _TABLE as _CRC_TABLE
 from pipeline.fec.turbo._code import TurboCode, component_trellis
 from pipeline.fec.turbo._kernels import LANES, PARAMS_DTYPE, WINDOW, turbo_decode_kernel, vector_config
@@ -141,12 +141,6 @@ def _tables(rate: str, k: int):
     return code, out
 
 
-def _check_choice(name: str, value, choices: tuple[str, ...]) -> str:
-    if not isinstance(value, str) or value not in choices:
-        raise ValueError(f"Argument '{name}' must be one of {', '.join(choices)}, not {value!r}.")
-    return value
-
-
 class TurboDecoder:
     """Iterative decoder of one CCSDS turbo code (a stage: codewords in, frames with a status out).
 
@@ -221,9 +215,9 @@ class TurboDecoder:
         code = TurboCode(rate=rate, k=k)  # validates rate and k
         self.code, self._tables = _tables(code.rate, code.k)
         self.max_iterations = check_int("max_iterations", max_iterations, 1, 100)
-        self.check = _check_choice("check", check, TURBO_CHECKS)
-        self.algorithm = _check_choice("algorithm", algorithm, TURBO_ALGORITHMS)
-        self.kernel = _check_choice("kernel", kernel, ("vector", "scalar"))
+        self.check = check_choice("check", check, TURBO_CHECKS)
+        self.algorithm = check_choice("algorithm", algorithm, TURBO_ALGORITHMS)
+        self.kernel = check_choice("kernel", kernel, ("vector", "scalar"))
         logmap = self.algorithm == "log-map"
         params = np.zeros(1, dtype=PARAMS_DTYPE).view(np.recarray)  # fields by name, compiled or not
         p = params[0]
