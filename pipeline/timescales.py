@@ -46,7 +46,6 @@ __all__ = [
     "NS_PER_S",
     "NS_PER_DAY",
     "DAYS_1958_TO_1970",
-    "TAI_EPOCH",
     "BEFORE_1972",
     "SCALE_OFFSETS_NS",
     "TimeScale",
@@ -71,8 +70,6 @@ NS_PER_S = 1_000_000_000
 NS_PER_DAY = 86_400 * NS_PER_S
 #: Days from 1958-01-01 (the scale's epoch) to 1970-01-01 (the POSIX epoch): 12 years, 3 leap days.
 DAYS_1958_TO_1970 = 4383
-#: The epoch of the uniform scale: TAI nanoseconds count from this instant.
-TAI_EPOCH = "1958-01-01T00:00:00 TAI"
 #: The one wording of the refusal of UTC instants before 1972 (``{what}`` names the value).
 BEFORE_1972 = ("{what} is before 1972-01-01T00:00:00Z: UTC had no whole-second offset from TAI then, "
                "so the leap-second table cannot convert it")
@@ -163,11 +160,6 @@ class LeapSecondTable:
 
     # ---- derived ------------------------------------------------------------------------
     @property
-    def first_tai_ns(self) -> int:
-        """TAI ns of the first entry (1972-01-01T00:00:00Z for the IERS table)."""
-        return self._tai_start_ns[0]
-
-    @property
     def expires_tai_ns(self) -> int | None:
         """TAI ns of the expiry instant (UTC midnight of the ``#@`` date), None when the file has none."""
         if self.expires_utc_s is None:
@@ -240,11 +232,6 @@ class LeapSecondTable:
     def utc_day_to_tai(self, unix_day: int, ns_of_day: int) -> int:
         """TAI ns of ``ns_of_day`` into UTC day ``unix_day`` (days since 1970); see :meth:`tai_from_day`."""
         return self.tai_from_day(unix_day + DAYS_1958_TO_1970, ns_of_day)
-
-    def tai_to_utc_day(self, tai_ns: int) -> tuple[int, int]:
-        """UTC day (days since 1970) and ns into it; see :meth:`day_from_tai`."""
-        day, ns = self.day_from_tai(tai_ns)
-        return day - DAYS_1958_TO_1970, ns
 
 
 def _parse_leap_seconds(text: str, source: str) -> LeapSecondTable:

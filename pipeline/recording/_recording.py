@@ -31,7 +31,7 @@ from pipeline.recording._sigmf import (
     parse_metadata,
     validate_metadata,
 )
-from pipeline.recording._time import NS_PER_S, check_end_time, elapsed_ns, position_ratio, start_tai_ns
+from pipeline.recording._time import check_end_time, elapsed_ns, position_ratio, start_tai_ns
 from pipeline.timescales import format_utc, parse_utc, posix_ns_from_tai
 
 __all__ = [
@@ -588,12 +588,8 @@ def _timed_capture(sample_start: int, tai: int | None, freq: float | None, given
 
 def _check_time_span(p: Path, recording: Recording) -> Recording:
     """Refuse a recording whose time runs past the year 9999; warn once past the leap-second table's expiry."""
-    if recording.time_known:
-        try:
-            end = recording.tai_ns(recording.num_samples)
-        except ValueError:
-            raise RecordingError(f"{p}: the recording's time runs past the year 9999") from None
-        check_end_time(p, end)
+    if recording.time_known:  # tai_ns is integer arithmetic; check_end_time refuses past 9999 and warns
+        check_end_time(p, recording.tai_ns(recording.num_samples))
     return recording
 
 
@@ -722,7 +718,7 @@ def recording_from_sigmf_meta(meta: Any, *, meta_path: Path, data_path: Path, sa
         s0, own, f0 = parsed[0]
         t = start_tai_ns(mp, start)
         # The argument is the time of sample 0; move it to the first segment's start.
-        parsed[0] = (s0, t + round(Fraction(s0) * NS_PER_S / Fraction(rate)), f0)
+        parsed[0] = (s0, t + elapsed_ns(s0, 0, Fraction(rate)), f0)
         if own is not None:
             sources = sources[1:]
             _log.warning("%s: --start %s replaces the recording's own time %s (SigMF core:datetime of capture 0)",
@@ -783,7 +779,7 @@ def _resolve_times(parsed: list[tuple[int, int | None, float | None]], rate: flo
     known = [i for i, (_, t, _) in enumerate(parsed) if t is not None]
     if not known:
         # No time anywhere: POSIX counts from 1970 for utc_ns(); tai_ns() refuses (time_known False).
-        return tuple(_timed_capture(s0, None, f, False, round(Fraction(s0) * NS_PER_S / r)) for s0, _, f in parsed)
+        return tuple(_timed_capture(s0, None, f, False, elapsed_ns(s0, 0, r)) for s0, _, f in parsed)
     caps: list[Capture] = []
     anchor_i, anchor_t = known[0], parsed[known[0]][1]
     for s0, t, f in parsed:
@@ -792,10 +788,10 @@ def _resolve_times(parsed: list[tuple[int, int | None, float | None]], rate: flo
             continue
         if caps:
             prev = caps[-1]
-            t_new = prev.tai_ns + round(Fraction(s0 - prev.sample_start) * NS_PER_S / r)
+            t_new = prev.tai_ns + elapsed_ns(s0, prev.sample_start, r)
         else:
             # Before the first segment with a time: count back from it.
-            t_new = anchor_t - round(Fraction(parsed[anchor_i][0] - s0) * NS_PER_S / r)
+            t_new = anchor_t - elapsed_ns(parsed[anchor_i][0], s0, r)
         try:
             caps.append(_timed_capture(s0, t_new, f, False))
         except ValueError:
