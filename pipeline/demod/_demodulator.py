@@ -8,7 +8,7 @@ from typing import Any
 
 import numpy as np
 
-from pipeline.demod._acquire import LINE_THRESHOLD, CarrierAcquisition, CarrierSearch, SpectralLine
+from pipeline.demod._acquire import LINE_THRESHOLD, CarrierAcquisition, CarrierSearch, SpectralLine, _next_pow2
 from pipeline.demod._filters import gardner_detector_gain, matched_filter_taps, midpoint_energy_ratio
 from pipeline.demod._kernels import (
     BLOCK_SUMMARY,
@@ -295,10 +295,6 @@ def soft_costas_slope(esn0_db: np.ndarray) -> np.ndarray:
     e2 = 2.0 * t2 * (0.5 + var[:, 0]) - 2.0 * t1 * t1
     fisher = 2.0 * x[:, 0] ** 2 * e2
     return np.ascontiguousarray(fisher / (math.sqrt(2.0) * x[:, 0]))
-
-
-def _next_pow2(n: float) -> int:
-    return 1 << max(0, int(math.ceil(math.log2(max(1.0, n)))))
 
 
 def check_chunk(chunk: Any) -> tuple[np.ndarray, int]:

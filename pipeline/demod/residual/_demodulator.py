@@ -9,7 +9,7 @@ from typing import Any, Literal
 import numpy as np
 
 from pipeline.demod import DemodStats, Demodulator, SymbolBlock, TrackPoint
-from pipeline.demod._acquire import CarrierSearch, SpectralLine
+from pipeline.demod._acquire import CarrierSearch, SpectralLine, _next_pow2
 from pipeline.demod._demodulator import DcBlocker, check_chunk, continue_stream, cut_blocks
 from pipeline.demod.residual._kernels import (
     CARRIER_PARAMS,
@@ -148,10 +148,6 @@ def _power_split(wave: str, index_rad: float) -> tuple[float, float]:
 
         return float(j0(index_rad)) ** 2, 2.0 * float(j1(index_rad)) ** 2
     return math.cos(index_rad) ** 2, math.sin(index_rad) ** 2
-
-
-def _next_pow2(n: float) -> int:
-    return 1 << max(0, int(math.ceil(math.log2(max(1.0, n)))))
 
 
 def _frequency_std_hz(phase_rad: np.ndarray, edges: np.ndarray, sample_rate_hz: float) -> float:
@@ -662,9 +658,7 @@ class ResidualCarrierDemodulator:
         rot = block[:m].astype(np.complex128) * gain * np.exp(-2j * math.pi * acq.offset_hz / fs * np.arange(m))
         c2 = complex(np.mean(rot * rot))
         phase0 = 0.5 * math.atan2(c2.imag, c2.real)
-        st = self._cs[0]
-        self._reset_carrier(phase0, 2.0 * math.pi * acq.offset_hz / fs, 0.0, 0.0)
-        st["costas_warm"] = 0.0
+        self._reset_carrier(phase0, 2.0 * math.pi * acq.offset_hz / fs, 0.0, 0.0)  # (costas_warm zeroed too)
         self._acq_start = start
         self._tracking = True
         self._clear_symbol_stage(start)
@@ -893,7 +887,7 @@ class ResidualCarrierDemodulator:
             at = np.unique(np.concatenate([edges, [0, (n - 1) // 2, n - 1]])).astype(np.int64)
             ph = np.empty(at.size, dtype=np.float64)
             st = self._cs[0]
-            for name in ("sum_re", "sum_re2", "sum_u", "count"):
+            for name in ("sum_re", "sum_re2"):
                 st[name] = 0.0
             omega0, rate0 = float(st["frequency"]), float(st["rate"])
             track_carrier(block, gain, self._cparams, self._cs, self._cos, self._sin, at, u, uq, lk, ph)
@@ -902,7 +896,7 @@ class ResidualCarrierDemodulator:
                 # rate aiding follows the Doppler rate: the frequency's drift over the block beyond the aiding's
                 # own is the rate the aiding misses (a slow third integrator, one update per block)
                 st["rate"] = rate0 + _RATE_AIDING_GAIN * ((float(st["frequency"]) - omega0) / n - rate0)
-            cnt = max(st["count"], 1.0)
+            cnt = max(float(n), 1.0)  # the sums run over every sample of the block
             mean_re = st["sum_re"] / cnt
             var_re = max(st["sum_re2"] / cnt - mean_re * mean_re, 1e-30)
             info = {"start": start, "n": n, "at": at, "ph": ph, "edges": edges, "mean_re": mean_re,

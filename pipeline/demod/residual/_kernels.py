@@ -50,7 +50,7 @@ CARRIER_STATE = np.dtype([
     ("costas_warm", np.float64),
     ("locked", np.int64), ("above", np.int64), ("below", np.int64), ("decisions", np.int64),
     ("lk_count", np.int64), ("lk_sum", np.float64), ("lk_sum2", np.float64), ("lock_z", np.float64),
-    ("sum_re", np.float64), ("sum_re2", np.float64), ("sum_u", np.float64), ("count", np.float64),
+    ("sum_re", np.float64), ("sum_re2", np.float64),
 ])
 
 #: Parameters of :func:`rect_symbols`.
@@ -117,8 +117,8 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
         Costas arms ``costas_i, costas_q``, lock averages ``costas_num, costas_den`` and their
         weight ``costas_warm`` (no Costas decision below 1/2);
         lock ``locked``, the run counters ``above, below``, ``decisions`` made, the open interval's
-        ``lk_count, lk_sum, lk_sum2`` and the last statistic ``lock_z``; ``sum_re, sum_re2, sum_u,
-        count``: sums of ``Re r``, ``(Re r)^2`` and the data signal since the wrapper cleared them.
+        ``lk_count, lk_sum, lk_sum2`` and the last statistic ``lock_z``; ``sum_re, sum_re2``: sums of
+        ``Re r`` and ``(Re r)^2`` since the wrapper cleared them (over the block's samples).
     cos_table, sin_table : float64 arrays
         :func:`phasor_table`.
     phase_at : int64 array
@@ -204,8 +204,6 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
     lock_z = st["lock_z"]
     sum_re = st["sum_re"]
     sum_re2 = st["sum_re2"]
-    sum_u = st["sum_u"]
-    count = st["count"]
 
     two_pi = 2.0 * math.pi
     size = cos_table.shape[0]
@@ -316,8 +314,6 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
         out_u[k] = u
         sum_re += rr
         sum_re2 += rr * rr
-        sum_u += u
-        count += 1.0
 
         # ---- carrier loop filter ------------------------------------------------------------
         if locked == 1 or carrier_mode == 0:
@@ -360,8 +356,6 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
     st["lock_z"] = lock_z
     st["sum_re"] = sum_re
     st["sum_re2"] = sum_re2
-    st["sum_u"] = sum_u
-    st["count"] = count
 
 
 @njit(cache=True)
