@@ -17,12 +17,10 @@ from __future__ import annotations
 
 import argparse
 import ctypes
-import math
 import os
 import shutil
 import subprocess
 import tempfile
-import time
 
 import numpy as np
 
@@ -37,6 +35,7 @@ from pipeline.fec import (
     viterbi_decode,
 )
 from pipeline.fec import _kernels as fec_kernels
+from pipeline.tools._turbo import cpu_best_of
 
 C_VITERBI = r"""
 #include <stdint.h>
@@ -75,19 +74,7 @@ void vit_decode(const int8_t *sym, long n, uint8_t *dec, uint8_t *out) {
 """
 
 
-def best_of(fn, repeat):
-    """Best CPU time (process_time) of ``repeat`` runs after one warm-up run.
-
-    CPU time rather than wall time: on a shared machine it does not count the time the process
-    waited for a core, which is what "throughput on one core" means.
-    """
-    fn()
-    best = math.inf
-    for _ in range(repeat):
-        t0 = time.process_time()
-        fn()
-        best = min(best, time.process_time() - t0)
-    return best
+best_of = cpu_best_of  # best CPU time of ``repeat`` runs after one warm-up run (pipeline/tools/_turbo.py)
 
 
 def row(name, amount, unit, seconds, note=""):
