@@ -320,3 +320,20 @@ def test_clock_and_decode_clock_on_the_command_line(decoded, tmp_path, capsys):
     assert main(["decode", str(folder.parent / "pass.bits"), "--input", "bits", "--start", START, "--profile",
                  str(ptoml), "--out", str(tmp_path / "e"), "--clock", str(tmp_path / "bad.json")]) == 3
     assert capsys.readouterr().err.startswith("Error: ")
+
+
+def test_a_time_code_p_field_written_as_an_integral_float_reads_as_the_integer():
+    # TOML writes 47.0 as a float; the profile accepts it (pipeline.packets.check_time_code_config), so the
+    # onboard-time conversion must read it as 47 too (it raised TypeError before).  CUC P-field 0x2F: level 2
+    # epoch, 4 coarse and 3 fine octets (CCSDS 301.0-B-4 sec. 3.2; layout from memory, not confirmed)
+    from pipeline.packets import ClockModel
+    from pipeline.profile import profile_from_dict
+
+    pkt = bytes.fromhex("0864c0000009") + bytes.fromhex("0000000a80000000000000")
+    got = {}
+    for pfield in (0x2F, 47.0):
+        prof = profile_from_dict({"link": {}, "coding": {}, "frames": {},
+                                  "packets": {"time_code": [{"apid": 100, "code": "cuc", "pfield": pfield}]}})
+        conv = ObtToUtc(model=ClockModel(0.0, parse_utc("2026-03-14T09:30:00Z"), 1.0), profile=prof)
+        got[pfield] = conv.process({"apid": 100, "hex": pkt.hex()})["utc_from_obt"]
+    assert got[0x2F] == got[47.0] == "2026-03-14T09:30:10.500000000Z"

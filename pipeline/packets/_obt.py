@@ -12,6 +12,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from pipeline.errors import DataFileError
+from pipeline.packets._extract import _checked_time_code
 from pipeline.packets._timecodes import decode_obt_ns
 from pipeline.profile import LinkProfile
 from pipeline.timescales import NS_PER_S, format_utc, parse_utc
@@ -177,7 +178,9 @@ class ObtToUtc:
         if not isinstance(profile, LinkProfile):
             raise TypeError(f"Argument 'profile' must be a LinkProfile, not {type(profile).__name__}.")
         self.model = model
-        self.fields = {tc.apid: (tc.offset, tc.code, tc.pfield) for tc in profile.packets.time_codes}
+        # each time code through the extractor's own check (an integral float P-field becomes an int)
+        checked = [_checked_time_code(tc) for tc in profile.packets.time_codes]
+        self.fields = {tc.apid: (tc.offset, tc.code, tc.pfield) for tc in checked}
         c = profile.clock
         if c is not None and c.time_packet_apid not in self.fields:
             self.fields[c.time_packet_apid] = (c.time_field_offset, c.code, c.pfield)
