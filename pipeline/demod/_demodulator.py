@@ -328,6 +328,56 @@ def cut_blocks(pending: np.ndarray, samples: np.ndarray, block_samples: int) -> 
     return blocks, np.array(buf[nfull * block_samples:], dtype=np.complex64)
 
 
+class SymbolOut:
+    """The symbols of one :meth:`Demodulator.process` / :meth:`Demodulator.flush` call, written in place.
+
+    The tracker writes each block's symbols straight into these arrays (views at the fill point), so a
+    call's output needs no per-block arrays and no concatenation; ``reserve`` grows them (doubling, a
+    copy) on the rare call whose first estimate was short.  ``bits_per_symbol`` 1 (BPSK: the bit
+    positions are the symbol positions, one array) or 2.
+    """
+
+    def __init__(self, bits_per_symbol: int, capacity: int) -> None:
+        self.bits_per_symbol = bits_per_symbol
+        self.n = 0
+        self.track: list[TrackPoint] = []
+        self._allocate(max(int(capacity), 16))
+
+    def _allocate(self, cap: int) -> None:
+        bps = self.bits_per_symbol
+        self.pos = np.empty(cap, dtype=np.float64)
+        self.bitpos = self.pos if bps == 1 else np.empty(bps * cap, dtype=np.float64)
+        self.soft = np.empty(bps * cap, dtype=np.float32)
+        self.sym = np.empty(cap, dtype=np.complex64)
+        self.flags = np.empty(cap, dtype=np.int8)
+        self.theta = np.empty(cap, dtype=np.float64)
+        self.cap = cap
+
+    def reserve(self, count: int) -> None:
+        """Room for ``count`` more symbols after the fill point."""
+        if self.n + count <= self.cap:
+            return
+        old, n, bps = (self.pos, self.bitpos, self.soft, self.sym, self.flags, self.theta), self.n, self.bits_per_symbol
+        self._allocate(max(2 * self.cap, n + count))
+        self.pos[:n] = old[0][:n]
+        if bps != 1:
+            self.bitpos[:bps * n] = old[1][:bps * n]
+        self.soft[:bps * n] = old[2][:bps * n]
+        self.sym[:n] = old[3][:n]
+        self.flags[:n] = old[4][:n]
+        self.theta[:n] = old[5][:n]
+
+    def block(self) -> SymbolBlock:
+        """The symbols written so far as a :class:`SymbolBlock` (views into the arrays)."""
+        n, bps = self.n, self.bits_per_symbol
+        if n == 0 and not self.track:
+            return SymbolBlock()
+        locked = (self.flags[:n] & 1).view(bool)
+        return SymbolBlock(soft=self.soft[:bps * n], position=self.bitpos[:bps * n],
+                           locked=locked if bps == 1 else np.repeat(locked, bps), track=self.track,
+                           symbols=self.sym[:n])
+
+
 class Demodulator:
     """Suppressed-carrier BPSK / QPSK / OQPSK demodulator streaming in chunks.
 
@@ -604,18 +654,19 @@ class Demodulator:
         self._next_start = start + samples.size
         self.stats.samples_in += samples.size
         blocks, self._pending = cut_blocks(self._pending, samples, self.block_samples)
-        parts: list[dict] = []
+        parts = self._output(len(blocks) * self.block_samples, len(blocks))
         for block in blocks:
             self._feed_block(block, parts)
         self._pending_start += len(blocks) * self.block_samples
-        return self._assemble(parts)
+        return parts.block()
 
     def flush(self) -> SymbolBlock:
         """Demodulate what is left (partial block, held acquisition samples) up to the last sample."""
         if self._finished or self._next_start is None:
             self._finished = True
             return SymbolBlock()
-        parts: list[dict] = []
+        held = sum(h[0].size for h in self._held)
+        parts = self._output(self._pending.size + held, len(self._held) + 2)
         end = float(self._next_start)
         if self._pending.size:
             self._feed_block(self._pending, parts, final=True)
@@ -626,7 +677,7 @@ class Demodulator:
         tail = np.zeros(max(self.filter_delay_samples, self._look) + 4, dtype=np.complex64)
         self._run_block(tail, None, parts, t_limit=end, tail=True)
         self._finished = True
-        return self._assemble(parts)
+        return parts.block()
 
     def no_lock_message(self) -> str | None:
         """One line for stderr when no carrier lock was found so far (None when there was lock).
@@ -640,7 +691,7 @@ class Demodulator:
     def _check_chunk(self, chunk: Any) -> tuple[np.ndarray, int]:
         return check_chunk(chunk)
 
-    def _feed_block(self, block: np.ndarray, parts: list, final: bool = False) -> None:
+    def _feed_block(self, block: np.ndarray, parts: SymbolOut, final: bool = False) -> None:
         if self.conjugate:
             block = np.conj(block)
         if self._acquiring:
@@ -672,7 +723,7 @@ class Demodulator:
         if p > 0.0:
             self._agc_power = p if self._agc_power == 0.0 else 0.8 * self._agc_power + 0.2 * p
 
-    def _acquire(self, parts: list, final: bool = False) -> None:
+    def _acquire(self, parts: SymbolOut, final: bool = False) -> None:
         """Search the held window; release all of it if found (or at the end), else its first block."""
         held = np.concatenate([h[0] for h in self._held]) if len(self._held) > 1 else self._held[0][0]
         self.stats.acquisitions += 1
@@ -739,7 +790,7 @@ class Demodulator:
         lead = sum(b.size for b in past) / self.sample_rate_hz
         return acq, acq.offset_hz + acq.rate_hz_per_s * lead
 
-    def _run_block(self, block: np.ndarray, moments: tuple | None, parts: list, t_limit: float = math.inf,
+    def _run_block(self, block: np.ndarray, moments: tuple | None, parts: SymbolOut, t_limit: float = math.inf,
                    tail: bool = False) -> None:
         """Demodulate one block.
 
@@ -790,8 +841,10 @@ class Demodulator:
         base = self._mf_tail_base
         st = self._state[0]
         st["blk_n"], st["blk_m2"], st["blk_m4"] = 0, 0.0, 0.0
-        pos, sym, flags, theta, bitpos, soft = self._track(mfbuf, base, t_limit)
-        nsym = pos.size
+        first = parts.n
+        self._track(mfbuf, base, t_limit, parts)
+        nsym = parts.n - first
+        pos, flags, theta = parts.pos[first:parts.n], parts.flags[first:parts.n], parts.theta[first:parts.n]
         # keep what the next strobes need (a strobe can stand past the buffer's end: keep nothing then)
         keep_from = min(max(0, int(math.floor(st["t"])) - self._look - base), mfbuf.size)
         kept = mfbuf.size - keep_from
@@ -814,18 +867,15 @@ class Demodulator:
         self._nco_hz += st["w_int"] * fs / (2.0 * math.pi * sym_period)
         st["w_int"] = 0.0
 
-        clock = (flags & 1).view(bool)
-        track = []
         locked = int(sm["locked"])
         if nsym:
             # the block's means (frequency, Es/N0) refer to the middle of its symbols' interval;
             # the symbol's matched-filter centre was rotated at about this oscillator phase
             mid = float(sm["mid"])
             total_phase = phase_at_block + dphase * (mid - block_first) + float(sm["theta_mid"])
-            track.append(TrackPoint(mid, float(freq_hz), self._block_esn0_db(st), bool(flags[-1] & 1),
+            parts.track.append(TrackPoint(mid, float(freq_hz), self._block_esn0_db(st), bool(flags[-1] & 1),
                                     bool(flags[-1] & 2), float(total_phase), float(sm["spread_per_fs"]) * fs))
             self._unlocked_run = (self._unlocked_run + nsym) if locked == 0 else nsym - 1 - int(sm["last_locked"])
-        parts.append({"bitpos": bitpos, "soft": soft, "sym": sym, "locked": clock, "track": track})
         self.stats.symbols_out += nsym
         self.stats.carrier_locked_symbols += locked
         # (not while a found carrier is pulled in at low Es/N0: lock is declared from the long average there)
@@ -848,42 +898,24 @@ class Demodulator:
             return float("inf")
         return 10.0 * math.log10(sig / (m2 - sig))
 
-    def _track(self, mfbuf: np.ndarray, base: int, t_limit: float):
-        """:func:`track_symbols` over ``mfbuf``, with buffers sized from its bound (grown if ever full).
+    def _output(self, samples: int, blocks: int) -> SymbolOut:
+        """A :class:`SymbolOut` sized for ``samples`` new samples in ``blocks`` blocks (track_symbols' bound)."""
+        per_block = self._mf_head / self._min_symbol_advance + 2
+        return SymbolOut(self.bits_per_symbol, int(samples / self._min_symbol_advance + (blocks + 1) * per_block))
 
-        Returns per symbol the position, normalised symbol, flags and carrier phase, and per channel bit
-        the position and soft value.
-        """
+    def _track(self, mfbuf: np.ndarray, base: int, t_limit: float, out: SymbolOut) -> None:
+        """:func:`track_symbols` over ``mfbuf``, writing at ``out``'s fill point (room from its bound)."""
         # bound (track_symbols Notes): strobes lie within the buffer, one symbol per min_symbol_advance samples
         cap = int(mfbuf.size / self._min_symbol_advance) + 2
         bps = self.bits_per_symbol
-        outs = []
         while True:
-            pos = np.empty(cap, dtype=np.float64)
-            bitpos = pos if bps == 1 else np.empty(bps * cap, dtype=np.float64)
-            soft = np.empty(bps * cap, dtype=np.float32)
-            sym = np.empty(cap, dtype=np.complex64)
-            flags = np.empty(cap, dtype=np.int8)
-            theta = np.empty(cap, dtype=np.float64)
+            out.reserve(cap)
+            n = out.n
             nsym = track_symbols(mfbuf, base, t_limit, self._params, self._mod_code,
                                  1 if self.carrier_loop_order == 3 else 0, self._state, self._c_table,
-                                 pos, bitpos, soft, sym, flags, theta)
-            outs.append((pos[:nsym], sym[:nsym], flags[:nsym], theta[:nsym], bitpos[:bps * nsym],
-                         soft[:bps * nsym]))
+                                 out.pos[n:n + cap], out.bitpos[bps * n:bps * (n + cap)],
+                                 out.soft[bps * n:bps * (n + cap)], out.sym[n:n + cap], out.flags[n:n + cap],
+                                 out.theta[n:n + cap])
+            out.n = n + nsym
             if nsym < cap:
                 break
-        if len(outs) == 1:
-            return outs[0]
-        return tuple(np.concatenate(col) for col in zip(*outs))
-
-    def _assemble(self, parts: list) -> SymbolBlock:
-        if not parts:
-            return SymbolBlock()
-
-        def cat(key):
-            return parts[0][key] if len(parts) == 1 else np.concatenate([p[key] for p in parts])
-
-        locked = cat("locked")
-        return SymbolBlock(soft=cat("soft"), position=cat("bitpos"),
-                           locked=locked if self.bits_per_symbol == 1 else np.repeat(locked, 2),
-                           track=[t for p in parts for t in p["track"]], symbols=cat("sym"))

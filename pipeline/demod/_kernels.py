@@ -541,15 +541,94 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     sn = st["ph_sin"]
     theta_ph = st["ph_theta"]
     nresync = st["ph_count"]
-    while t < t_limit:
-        if parity == 1 and nout >= cap:
+    # one symbol per iteration: the on-time half-strobe (skipped when a call resumes at the midpoint), then
+    # the midpoint one, which completes the symbol; each half as its own straight-line code
+    while True:
+        if parity == 0:
+            if not t < t_limit:
+                break
+            m = int(math.floor(t))
+            i = m - base
+            if i + look >= n_mf:
+                break
+            if i - look < 0:
+                # the wrapper always keeps enough history; this only guards the first call
+                t += 0.5 * sps
+                continue
+            if hbox > 0.0:
+                # exact integrate-and-dump over [t - h, t + h] of the piecewise-constant samples:
+                # weight of sample j is the overlap of [j - 1/2, j + 1/2] with the window
+                vr = 0.0
+                vi = 0.0
+                jlo = int(math.floor(t - hbox - 0.5))
+                jhi = int(math.ceil(t + hbox + 0.5))
+                for j in range(jlo, jhi + 1):
+                    u = j - t
+                    lo_e = u - 0.5 if u - 0.5 > -hbox else -hbox
+                    hi_e = u + 0.5 if u + 0.5 < hbox else hbox
+                    wgt = hi_e - lo_e
+                    if wgt > 0.0:
+                        xs = mf[j - base]
+                        vr += wgt * float(xs.real)
+                        vi += wgt * float(xs.imag)
+            else:
+                # cubic Lagrange interpolator through samples -1, 0, 1, 2: weights from mu in double
+                # precision, shared by I and Q, and the sums in single precision, the samples' own (an
+                # unsigned index: i - 1 >= look - 1 > 0 here, and no negative-index wrap is compiled)
+                mu = t - m
+                iu = np.uint64(i - 1)
+                a0 = mf[iu]
+                a1 = mf[iu + u1]
+                a2 = mf[iu + u2]
+                a3 = mf[iu + u3]
+                mp1 = mu + 1.0
+                mm1 = mu - 1.0
+                mm2 = mu - 2.0
+                b_c = mu * mm1
+                a_d = mp1 * mm2
+                h0 = np.float32(-sixth * b_c * mm2)
+                h1 = np.float32(0.5 * a_d * mm1)
+                h2 = np.float32(-0.5 * a_d * mu)
+                h3 = np.float32(sixth * mp1 * b_c)
+                vr = float(h0 * a0.real + h1 * a1.real + h2 * a2.real + h3 * a3.real)
+                vi = float(h0 * a0.imag + h1 * a1.imag + h2 * a2.imag + h3 * a3.imag)
+            d = theta - theta_ph
+            if nresync >= 64 or d > 0.3 or d < -0.3:
+                cs = math.cos(theta)
+                sn = math.sin(theta)
+                nresync = 0
+            else:
+                d2 = d * d
+                cd = 1.0 - d2 * (0.5 - d2 / 24.0)
+                sd = d * (1.0 - d2 / 6.0)
+                cs, sn = cs * cd - sn * sd, sn * cd + cs * sd
+                nresync += 1
+            theta_ph = theta
+            wr = vr * cs + vi * sn
+            wi = vi * cs - vr * sn
+            t_on = t
+            q3r = q1r
+            q3i = q1i
+            q1r = vr
+            q1i = vi
+            t += 0.5 * sps * (1.0 - v_int)
+            p3r = p2r
+            p3i = p2i
+            p2r = p1r
+            p2i = p1i
+            p1r = wr
+            p1i = wi
+            theta += 0.5 * w_int
+            parity = 1
+        if not t < t_limit:
+            break
+        if nout >= cap:
             break  # buffers full: the next half-strobe completes a symbol; the caller continues
         m = int(math.floor(t))
         i = m - base
         if i + look >= n_mf:
             break
         if i - look < 0:
-            # the wrapper always keeps enough history; this only guards the first call
             t += 0.5 * sps
             continue
         if hbox > 0.0:
@@ -589,7 +668,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
             h3 = np.float32(sixth * mp1 * b_c)
             vr = float(h0 * a0.real + h1 * a1.real + h2 * a2.real + h3 * a3.real)
             vi = float(h0 * a0.imag + h1 * a1.imag + h2 * a2.imag + h3 * a3.imag)
-        if parity == 0 or mod_code == 2:
+        if mod_code == 2:
             d = theta - theta_ph
             if nresync >= 64 or d > 0.3 or d < -0.3:
                 cs = math.cos(theta)
@@ -610,330 +689,322 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
             wr = vr
             wi = vi
 
-        if parity == 0:
-            t_on = t
-            q3r = q1r
-            q3i = q1i
-            q1r = vr
-            q1i = vi
-            t += 0.5 * sps * (1.0 - v_int)
+        # symbol k complete: w[2k] = p1, w[2k-1] = p2, w[2k-2] = p3, w[2k+1] = (wr, wi)
+        if mod_code == 2:
+            sr = p1r
+            sq = wi
+            et = p2r * (p1r - p3r) + p1i * (wi - p2i)
+            mid_e = p2r * p2r + p1i * p1i
+            if soft_on:
+                ec_raw = soft_costas_error(a_soft, p1r * inv_amp, wi * inv_amp, p1i * inv_amp, wr * inv_amp)
+            else:
+                sg_i = 1.0 if p1r >= 0.0 else -1.0
+                sg_q = 1.0 if wi >= 0.0 else -1.0
+                ec_raw = (sg_i * p1i - sg_q * wr) * inv_sqrt2
         else:
-            # symbol k complete: w[2k] = p1, w[2k-1] = p2, w[2k-2] = p3, w[2k+1] = (wr, wi)
-            if mod_code == 2:
-                sr = p1r
-                sq = wi
-                et = p2r * (p1r - p3r) + p1i * (wi - p2i)
-                mid_e = p2r * p2r + p1i * p1i
-                if soft_on:
-                    ec_raw = soft_costas_error(a_soft, p1r * inv_amp, wi * inv_amp, p1i * inv_amp, wr * inv_amp)
-                else:
-                    sg_i = 1.0 if p1r >= 0.0 else -1.0
-                    sg_q = 1.0 if wi >= 0.0 else -1.0
-                    ec_raw = (sg_i * p1i - sg_q * wr) * inv_sqrt2
+            sr = p1r
+            sq = p1i
+            et = p2r * (q1r - q3r) + p2i * (q1i - q3i)
+            mid_e = p2r * p2r + p2i * p2i
+            sg_i = 1.0 if sr >= 0.0 else -1.0
+            if mod_code == 0:
+                ec_raw = sg_i * sq
+            elif soft_on:
+                # soft (MAP) QPSK detector on the normalised symbol: tanh(a I) Q - tanh(a Q) I
+                yr = sr * inv_amp
+                yi = sq * inv_amp
+                ec_raw = soft_costas_error(a_soft, yr, yi, yi, yr)
             else:
-                sr = p1r
-                sq = p1i
-                et = p2r * (q1r - q3r) + p2i * (q1i - q3i)
-                mid_e = p2r * p2r + p2i * p2i
-                sg_i = 1.0 if sr >= 0.0 else -1.0
-                if mod_code == 0:
-                    ec_raw = sg_i * sq
-                elif soft_on:
-                    # soft (MAP) QPSK detector on the normalised symbol: tanh(a I) Q - tanh(a Q) I
-                    yr = sr * inv_amp
-                    yi = sq * inv_amp
-                    ec_raw = soft_costas_error(a_soft, yr, yi, yi, yr)
+                sg_q = 1.0 if sq >= 0.0 else -1.0
+                ec_raw = (sg_i * sq - sg_q * sr) * inv_sqrt2
+        sr2 = sr * sr
+        sq2 = sq * sq
+        r2 = sr2 + sq2
+        r4 = r2 * r2
+        # ---- the statistics: when the symbol enters a new interval of stat_symbols symbol periods on
+        # the recording's sample grid (so that segments of a recording update at the same symbols), and
+        # every 8 symbols during the warm-up; off the loops' critical path ----
+        epoch = int(math.floor(t_on * inv_span))
+        if acc_n > 0 and (epoch != cur_epoch or (acc_n >= 8 and st["seen"] + acc_n < warmup)):
+            inv_n = 1.0 / acc_n
+            d_amp = math.exp(acc_n * l_amp)
+            d_lc = math.exp(acc_n * l_lc)
+            d_ls = math.exp(acc_n * l_ls)
+            mr2 = acc_r2 * inv_n
+            mr4 = acc_r4 * inv_n
+            # amplitude from the M2M4 moments
+            m2s = d_amp * st["m2s"] + (1.0 - d_amp) * mr2
+            m4s = d_amp * st["m4s"] + (1.0 - d_amp) * mr4
+            wsum = d_amp * st["wsum"] + (1.0 - d_amp)
+            st["m2s"] = m2s
+            st["m4s"] = m4s
+            st["wsum"] = wsum
+            m2 = m2s / wsum
+            m4 = m4s / wsum
+            s2 = 2.0 * m2 * m2 - m4
+            s_floor = 0.05 * m2
+            sig = math.sqrt(s2) if s2 > s_floor * s_floor else s_floor
+            if sig > 1e-30:
+                # nothing but zeros so far (erasures, a silent start): the amplitude is kept
+                amp = math.sqrt(sig)
+                inv_amp = 1.0 / amp
+                st["amp"] = amp
+            esn0 = sig / (m2 - sig) if m2 > sig else 1e3
+            # the long carrier-lock average (QPSK/OQPSK at low Es/N0, where the fourth-power statistic
+            # over the short window is buried in its own noise): -Re(r^4) / M4 against its locked value
+            # S^2 / M4, both over the same long window
+            slow_ok = False
+            slow_bad = True
+            slow_low = False
+            if l_slow < 0.0:
+                d_g = math.exp(acc_n * l_slow)
+                m2g, m4g, wg, cnum_g = window_moments(d_g, st["m2g"], st["m4g"], st["wg"], st["cnum_g"], mr2, mr4,
+                                                      acc_q * inv_n)
+                st["m2g"] = m2g
+                st["m4g"] = m4g
+                st["wg"] = wg
+                st["cnum_g"] = cnum_g
+                s2g = 2.0 * m2g * m2g - m4g * wg
+                ref_g = s2g if s2g > 0.0 else 0.0
+                slow_ok = wg > 0.25 and cnum_g * wg > c_on_g * ref_g and cnum_g > c_min_g * m4g
+                slow_bad = cnum_g * wg < c_off * ref_g or cnum_g < 0.5 * c_min_g * m4g
+                # the long window's Es/N0 below slow_esn0: sg / (m2 - sg) < e  <=>  sg (1 + e) < e m2
+                sg = math.sqrt(s2g) if s2g > 0.0 else 0.0
+                slow_low = sg * (1.0 + slow_esn0) < slow_esn0 * m2g
+                # at low Es/N0 the soft detector takes amplitude and Es/N0 from the long window (over 1024
+                # symbols M2M4's S has a relative spread of about 25 % at -3 dB, which the detector's slope,
+                # nearly proportional to (Es/N0)^2 there, would double)
+                if wg > 0.25 and s2g > 0.0 and esn0 < soft_below:
+                    sgn = sg / wg
+                    m2n = m2g / wg
+                    if m2n > sgn and sgn > 1e-30:
+                        esn0 = sgn / (m2n - sgn)
+                        amp = math.sqrt(sgn)
+                        inv_amp = 1.0 / amp
+                        st["amp"] = amp
+            # (once the lock window holds about 1000 symbols: over the first symbols of a stream, before the
+            # timing has converged, the estimate can be far too low, and the hard detector keeps the pull-in
+            # of a strong signal, and the phase ambiguity it settles in, as they always were)
+            soft_on = esn0 < soft_below and st["wf"] > 0.4
+            fisher = 1.0
+            if soft_on:
+                # below soft_below (QPSK/OQPSK) the soft detector, its slope at the measured Es/N0 x from the
+                # table (its Fisher information J = sqrt(2) x slope per symbol); a = sqrt(2) x.  x from -6 dB
+                # while the loops track, from 0 dB while they do not: the estimate over the first symbols of
+                # a warm-up (timing not yet found) can be far too low, and the wide loop would take its noise
+                # at a gain of 1 / slope
+                x_lo = 0.25 if trk == 1 else 1.0
+                x_s = esn0 if esn0 > x_lo else x_lo
+                u = (10.0 * math.log10(x_s) - pr["ct_db0"]) / pr["ct_step"]
+                nt = c_table.shape[0]
+                if u <= 0.0:
+                    kdc = c_table[0]
+                elif u >= nt - 1:
+                    kdc = c_table[nt - 1]
                 else:
-                    sg_q = 1.0 if sq >= 0.0 else -1.0
-                    ec_raw = (sg_i * sq - sg_q * sr) * inv_sqrt2
-            sr2 = sr * sr
-            sq2 = sq * sq
-            r2 = sr2 + sq2
-            r4 = r2 * r2
-            # ---- the statistics: when the symbol enters a new interval of stat_symbols symbol periods on
-            # the recording's sample grid (so that segments of a recording update at the same symbols), and
-            # every 8 symbols during the warm-up; off the loops' critical path ----
-            epoch = int(math.floor(t_on * inv_span))
-            if acc_n > 0 and (epoch != cur_epoch or (acc_n >= 8 and st["seen"] + acc_n < warmup)):
-                inv_n = 1.0 / acc_n
-                d_amp = math.exp(acc_n * l_amp)
-                d_lc = math.exp(acc_n * l_lc)
-                d_ls = math.exp(acc_n * l_ls)
-                mr2 = acc_r2 * inv_n
-                mr4 = acc_r4 * inv_n
-                # amplitude from the M2M4 moments
-                m2s = d_amp * st["m2s"] + (1.0 - d_amp) * mr2
-                m4s = d_amp * st["m4s"] + (1.0 - d_amp) * mr4
-                wsum = d_amp * st["wsum"] + (1.0 - d_amp)
-                st["m2s"] = m2s
-                st["m4s"] = m4s
-                st["wsum"] = wsum
-                m2 = m2s / wsum
-                m4 = m4s / wsum
-                s2 = 2.0 * m2 * m2 - m4
-                s_floor = 0.05 * m2
-                sig = math.sqrt(s2) if s2 > s_floor * s_floor else s_floor
-                if sig > 1e-30:
-                    # nothing but zeros so far (erasures, a silent start): the amplitude is kept
-                    amp = math.sqrt(sig)
-                    inv_amp = 1.0 / amp
-                    st["amp"] = amp
-                esn0 = sig / (m2 - sig) if m2 > sig else 1e3
-                # the long carrier-lock average (QPSK/OQPSK at low Es/N0, where the fourth-power statistic
-                # over the short window is buried in its own noise): -Re(r^4) / M4 against its locked value
-                # S^2 / M4, both over the same long window
-                slow_ok = False
-                slow_bad = True
-                slow_low = False
-                if l_slow < 0.0:
-                    d_g = math.exp(acc_n * l_slow)
-                    m2g, m4g, wg, cnum_g = window_moments(d_g, st["m2g"], st["m4g"], st["wg"], st["cnum_g"], mr2, mr4,
-                                                          acc_q * inv_n)
-                    st["m2g"] = m2g
-                    st["m4g"] = m4g
-                    st["wg"] = wg
-                    st["cnum_g"] = cnum_g
-                    s2g = 2.0 * m2g * m2g - m4g * wg
-                    ref_g = s2g if s2g > 0.0 else 0.0
-                    slow_ok = wg > 0.25 and cnum_g * wg > c_on_g * ref_g and cnum_g > c_min_g * m4g
-                    slow_bad = cnum_g * wg < c_off * ref_g or cnum_g < 0.5 * c_min_g * m4g
-                    # the long window's Es/N0 below slow_esn0: sg / (m2 - sg) < e  <=>  sg (1 + e) < e m2
-                    sg = math.sqrt(s2g) if s2g > 0.0 else 0.0
-                    slow_low = sg * (1.0 + slow_esn0) < slow_esn0 * m2g
-                    # at low Es/N0 the soft detector takes amplitude and Es/N0 from the long window (over 1024
-                    # symbols M2M4's S has a relative spread of about 25 % at -3 dB, which the detector's slope,
-                    # nearly proportional to (Es/N0)^2 there, would double)
-                    if wg > 0.25 and s2g > 0.0 and esn0 < soft_below:
-                        sgn = sg / wg
-                        m2n = m2g / wg
-                        if m2n > sgn and sgn > 1e-30:
-                            esn0 = sgn / (m2n - sgn)
-                            amp = math.sqrt(sgn)
-                            inv_amp = 1.0 / amp
-                            st["amp"] = amp
-                # (once the lock window holds about 1000 symbols: over the first symbols of a stream, before the
-                # timing has converged, the estimate can be far too low, and the hard detector keeps the pull-in
-                # of a strong signal, and the phase ambiguity it settles in, as they always were)
-                soft_on = esn0 < soft_below and st["wf"] > 0.4
-                fisher = 1.0
-                if soft_on:
-                    # below soft_below (QPSK/OQPSK) the soft detector, its slope at the measured Es/N0 x from the
-                    # table (its Fisher information J = sqrt(2) x slope per symbol); a = sqrt(2) x.  x from -6 dB
-                    # while the loops track, from 0 dB while they do not: the estimate over the first symbols of
-                    # a warm-up (timing not yet found) can be far too low, and the wide loop would take its noise
-                    # at a gain of 1 / slope
-                    x_lo = 0.25 if trk == 1 else 1.0
-                    x_s = esn0 if esn0 > x_lo else x_lo
-                    u = (10.0 * math.log10(x_s) - pr["ct_db0"]) / pr["ct_step"]
-                    nt = c_table.shape[0]
-                    if u <= 0.0:
-                        kdc = c_table[0]
-                    elif u >= nt - 1:
-                        kdc = c_table[nt - 1]
-                    else:
-                        ju = int(u)
-                        kdc = c_table[ju] + (u - ju) * (c_table[ju + 1] - c_table[ju])
-                    fisher = sqrt2 * x_s * kdc
-                    c_clip = 4.0 / math.sqrt(fisher) if fisher < 1.0 and trk == 1 else 4.0
-                    a_soft = sqrt2 * x_s
-                    g_c = 1.0 / kdc
-                else:
-                    c_clip = 4.0
-                    if dd_gain > 0.0:
-                        # decision-directed slope at the measured Es/N0 (never below 0.3)
-                        kdc = math.erf(math.sqrt(esn0 if mod_code == 0 else 0.5 * esn0))
-                        if kdc < 0.3:
-                            kdc = 0.3
-                    g_c = inv_amp / kdc
-                g_t = inv_amp * inv_amp * inv_kd
+                    ju = int(u)
+                    kdc = c_table[ju] + (u - ju) * (c_table[ju + 1] - c_table[ju])
+                fisher = sqrt2 * x_s * kdc
+                c_clip = 4.0 / math.sqrt(fisher) if fisher < 1.0 and trk == 1 else 4.0
+                a_soft = sqrt2 * x_s
+                g_c = 1.0 / kdc
+            else:
+                c_clip = 4.0
+                if dd_gain > 0.0:
+                    # decision-directed slope at the measured Es/N0 (never below 0.3)
+                    kdc = math.erf(math.sqrt(esn0 if mod_code == 0 else 0.5 * esn0))
+                    if kdc < 0.3:
+                        kdc = 0.3
+                g_c = inv_amp / kdc
+            g_t = inv_amp * inv_amp * inv_kd
 
-                # carrier-lock statistic relative to its locked value, which comes from M2M4 moments
-                # averaged over the same window (a longer one would lag at a signal's onset and make a
-                # slipping loop look locked).  The ratios are compared cross-multiplied.
-                m2f, m4f, wf, cnum = window_moments(d_lc, st["m2f"], st["m4f"], st["wf"], st["cnum"], mr2, mr4,
-                                                    acc_q * inv_n)
-                st["m2f"] = m2f
-                st["m4f"] = m4f
-                st["wf"] = wf
-                st["cnum"] = cnum
-                # the weight cancels in every ratio below, so the unnormalised sums are used
-                s2w = 2.0 * m2f * m2f - m4f * wf
-                if mod_code == 0:
-                    cden = d_lc * st["cden"] + (1.0 - d_lc) * mr2
-                    sigw = math.sqrt(s2w) if s2w > 0.0 else 0.0
-                    ref_num = sigw if sigw > 0.1 * m2f else 0.1 * m2f
-                    ref_den = m2f
+            # carrier-lock statistic relative to its locked value, which comes from M2M4 moments
+            # averaged over the same window (a longer one would lag at a signal's onset and make a
+            # slipping loop look locked).  The ratios are compared cross-multiplied.
+            m2f, m4f, wf, cnum = window_moments(d_lc, st["m2f"], st["m4f"], st["wf"], st["cnum"], mr2, mr4,
+                                                acc_q * inv_n)
+            st["m2f"] = m2f
+            st["m4f"] = m4f
+            st["wf"] = wf
+            st["cnum"] = cnum
+            # the weight cancels in every ratio below, so the unnormalised sums are used
+            s2w = 2.0 * m2f * m2f - m4f * wf
+            if mod_code == 0:
+                cden = d_lc * st["cden"] + (1.0 - d_lc) * mr2
+                sigw = math.sqrt(s2w) if s2w > 0.0 else 0.0
+                ref_num = sigw if sigw > 0.1 * m2f else 0.1 * m2f
+                ref_den = m2f
+            else:
+                cden = d_lc * st["cden"] + (1.0 - d_lc) * mr4
+                ref_num = s2w if s2w > 0.1 * m4f * wf else 0.1 * m4f * wf
+                ref_den = m4f * wf
+            st["cden"] = cden
+            lhs = cnum * ref_den
+            seen = st["seen"] + acc_n
+            if seen > warmup:
+                seen = int(warmup)
+            st["seen"] = seen
+            if clock == 0:
+                # the condition must hold for `c_hold` symbols in a row: a loop slipping cycles
+                # at a large frequency error can push the statistic up for a moment
+                if lhs > c_on * ref_num * cden and cnum > c_min * cden:
+                    st["cgood"] += acc_n
                 else:
-                    cden = d_lc * st["cden"] + (1.0 - d_lc) * mr4
-                    ref_num = s2w if s2w > 0.1 * m4f * wf else 0.1 * m4f * wf
-                    ref_den = m4f * wf
-                st["cden"] = cden
-                lhs = cnum * ref_den
-                seen = st["seen"] + acc_n
-                if seen > warmup:
-                    seen = int(warmup)
-                st["seen"] = seen
-                if clock == 0:
-                    # the condition must hold for `c_hold` symbols in a row: a loop slipping cycles
-                    # at a large frequency error can push the statistic up for a moment
-                    if lhs > c_on * ref_num * cden and cnum > c_min * cden:
-                        st["cgood"] += acc_n
-                    else:
-                        st["cgood"] = 0
-                    if st["cgood"] >= c_hold and seen >= warmup:
-                        clock = 1
-                        st["lock_path"] = 0
-                        st["cgood"] = 0
-                    # the long average declares lock only while a found carrier is pulled in
-                    if slow_ok and st["pull_left"] > 0:
-                        st["cgood_g"] += acc_n
-                    else:
-                        st["cgood_g"] = 0
-                    if clock == 0 and l_slow < 0.0 and st["cgood_g"] >= c_hold_g and seen >= warmup:
-                        clock = 1
+                    st["cgood"] = 0
+                if st["cgood"] >= c_hold and seen >= warmup:
+                    clock = 1
+                    st["lock_path"] = 0
+                    st["cgood"] = 0
+                # the long average declares lock only while a found carrier is pulled in
+                if slow_ok and st["pull_left"] > 0:
+                    st["cgood_g"] += acc_n
+                else:
+                    st["cgood_g"] = 0
+                if clock == 0 and l_slow < 0.0 and st["cgood_g"] >= c_hold_g and seen >= warmup:
+                    clock = 1
+                    st["lock_path"] = 1
+                if clock == 1:
+                    st["cgood_g"] = 0
+                else:
+                    st["pull_left"] = st["pull_left"] - acc_n if st["pull_left"] > acc_n else 0
+            elif st["lock_path"] == 0:
+                if lhs < c_off * ref_num * cden or cnum < 0.5 * c_min * cden:
+                    # at low Es/N0 (over the long window) the long average holds the lock if it says so
+                    if slow_ok and slow_low:
                         st["lock_path"] = 1
-                    if clock == 1:
-                        st["cgood_g"] = 0
                     else:
-                        st["pull_left"] = st["pull_left"] - acc_n if st["pull_left"] > acc_n else 0
-                elif st["lock_path"] == 0:
-                    if lhs < c_off * ref_num * cden or cnum < 0.5 * c_min * cden:
-                        # at low Es/N0 (over the long window) the long average holds the lock if it says so
-                        if slow_ok and slow_low:
-                            st["lock_path"] = 1
-                        else:
-                            clock = 0
-                elif slow_bad:
-                    clock = 0
-                if clock == 0 and flags & 1:
-                    st["pull_left"] = 0  # lock lost: the wide loop coasts (a fade), as before any lock
-                trk = 1 if clock == 1 or (st["pull_left"] > 0 and seen >= warmup and soft_on) else 0
+                        clock = 0
+            elif slow_bad:
+                clock = 0
+            if clock == 0 and flags & 1:
+                st["pull_left"] = 0  # lock lost: the wide loop coasts (a fade), as before any lock
+            trk = 1 if clock == 1 or (st["pull_left"] > 0 and seen >= warmup and soft_on) else 0
 
-                # symbol-lock statistic: on-time versus midpoint energy, relative to r0 S / (S + N)
-                eon = d_ls * st["eon"] + (1.0 - d_ls) * mr2
-                emid = d_ls * st["emid"] + (1.0 - d_ls) * acc_mid * inv_n
-                st["eon"] = eon
-                st["emid"] = emid
-                diff = eon - emid
-                rho_num = sig if sig > 0.05 * m2 else 0.05 * m2
-                if slock == 0:
-                    if diff * m2 > s_on * r0 * rho_num * eon and diff > s_min * eon and seen >= warmup:
-                        slock = 1
+            # symbol-lock statistic: on-time versus midpoint energy, relative to r0 S / (S + N)
+            eon = d_ls * st["eon"] + (1.0 - d_ls) * mr2
+            emid = d_ls * st["emid"] + (1.0 - d_ls) * acc_mid * inv_n
+            st["eon"] = eon
+            st["emid"] = emid
+            diff = eon - emid
+            rho_num = sig if sig > 0.05 * m2 else 0.05 * m2
+            if slock == 0:
+                if diff * m2 > s_on * r0 * rho_num * eon and diff > s_min * eon and seen >= warmup:
+                    slock = 1
+            else:
+                if diff * m2 < s_off * r0 * rho_num * eon or diff < 0.5 * s_min * eon:
+                    slock = 0
+            flags = clock + 2 * slock
+            # the timing loop: its full bandwidth while the carrier is unlocked (pull-in), and in
+            # lock narrowed in proportion to Es/N0 below t_ref (the detector's noise grows as
+            # 1 / (Es/N0)), to at most t_min of it
+            # (only once lock has been held for gear_symbols: the loops pull in at full bandwidth), from
+            # the Es/N0 of the lock window's moments, which follows a signal's onset sooner
+            sw = math.sqrt(s2w / (wf * wf)) if s2w > 0.0 else 0.0
+            m2w = m2f / wf if wf > 0.0 else 0.0
+            esn0 = sw / (m2w - sw) if m2w > sw else (1e3 if sw > 0.0 else 1e-3)
+            if esn0 < 1e-3:
+                esn0 = 1e-3
+            if trk == 1:
+                lock_age = st["lock_age"] + acc_n
+                st["lock_age"] = lock_age
+            else:
+                lock_age = 0
+                st["lock_age"] = 0
+            geared = lock_age >= gear
+            t_scale = 1.0
+            if geared and slock == 1 and esn0 < t_ref:  # never narrowed while the timing is not locked
+                t_scale = esn0 / t_ref if esn0 > t_min * t_ref else t_min
+            st["t_scale"] = t_scale
+            kp_tl = kp_t * t_scale
+            ki_tl = ki_t * t_scale * t_scale
+            # the carrier loop in lock: narrowed where the configured bandwidth would leave a loop
+            # SNR below c_loop_snr, B_L T <= (Es/N0) S_L / rho with the Costas squaring loss S_L
+            c_scale = 1.0
+            # a carrier pulled in after an acquisition (whose frequency is close) is narrowed at once: at
+            # low Es/N0 the full bandwidth's noise would walk the frequency away
+            pulling = clock == 0 and trk == 1
+            if geared or pulling:
+                if soft_on:
+                    # loop SNR 1 / (2 B_L T / J) with the soft detector's Fisher information J per symbol
+                    bn_ok = 0.5 * fisher / c_rho
                 else:
-                    if diff * m2 < s_off * r0 * rho_num * eon or diff < 0.5 * s_min * eon:
-                        slock = 0
-                flags = clock + 2 * slock
-                # the timing loop: its full bandwidth while the carrier is unlocked (pull-in), and in
-                # lock narrowed in proportion to Es/N0 below t_ref (the detector's noise grows as
-                # 1 / (Es/N0)), to at most t_min of it
-                # (only once lock has been held for gear_symbols: the loops pull in at full bandwidth), from
-                # the Es/N0 of the lock window's moments, which follows a signal's onset sooner
-                sw = math.sqrt(s2w / (wf * wf)) if s2w > 0.0 else 0.0
-                m2w = m2f / wf if wf > 0.0 else 0.0
-                esn0 = sw / (m2w - sw) if m2w > sw else (1e3 if sw > 0.0 else 1e-3)
-                if esn0 < 1e-3:
-                    esn0 = 1e-3
-                if trk == 1:
-                    lock_age = st["lock_age"] + acc_n
-                    st["lock_age"] = lock_age
-                else:
-                    lock_age = 0
-                    st["lock_age"] = 0
-                geared = lock_age >= gear
-                t_scale = 1.0
-                if geared and slock == 1 and esn0 < t_ref:  # never narrowed while the timing is not locked
-                    t_scale = esn0 / t_ref if esn0 > t_min * t_ref else t_min
-                st["t_scale"] = t_scale
-                kp_tl = kp_t * t_scale
-                ki_tl = ki_t * t_scale * t_scale
-                # the carrier loop in lock: narrowed where the configured bandwidth would leave a loop
-                # SNR below c_loop_snr, B_L T <= (Es/N0) S_L / rho with the Costas squaring loss S_L
-                c_scale = 1.0
-                # a carrier pulled in after an acquisition (whose frequency is close) is narrowed at once: at
-                # low Es/N0 the full bandwidth's noise would walk the frequency away
-                pulling = clock == 0 and trk == 1
-                if geared or pulling:
-                    if soft_on:
-                        # loop SNR 1 / (2 B_L T / J) with the soft detector's Fisher information J per symbol
-                        bn_ok = 0.5 * fisher / c_rho
+                    if mod_code == 0:
+                        s_l = 1.0 / (1.0 + 0.5 / esn0)
                     else:
-                        if mod_code == 0:
-                            s_l = 1.0 / (1.0 + 0.5 / esn0)
-                        else:
-                            s_l = 1.0 / (1.0 + 4.5 / esn0 + 6.0 / (esn0 * esn0) + 1.5 / (esn0 * esn0 * esn0))
-                        bn_ok = esn0 * s_l / c_rho
-                    if bn_ok < c_bn:
-                        c_scale = bn_ok / c_bn if bn_ok > c_min_sc * c_bn else c_min_sc
-                        # narrowed gradually after the pull-in: gear / age of the full bandwidth, down to it
-                        if soft_on and not pulling and gear > c_scale * lock_age:
-                            c_scale = gear / lock_age
-                st["c_scale"] = c_scale
-                kp_cl = kp_c * c_scale
-                ki_cl = ki_c * c_scale * c_scale
-                kr_cl = kr_c * c_scale * c_scale * c_scale
-                acc_n = 0
-                acc_r2 = 0.0
-                acc_r4 = 0.0
-                acc_q = 0.0
-                acc_mid = 0.0
-            cur_epoch = epoch
+                        s_l = 1.0 / (1.0 + 4.5 / esn0 + 6.0 / (esn0 * esn0) + 1.5 / (esn0 * esn0 * esn0))
+                    bn_ok = esn0 * s_l / c_rho
+                if bn_ok < c_bn:
+                    c_scale = bn_ok / c_bn if bn_ok > c_min_sc * c_bn else c_min_sc
+                    # narrowed gradually after the pull-in: gear / age of the full bandwidth, down to it
+                    if soft_on and not pulling and gear > c_scale * lock_age:
+                        c_scale = gear / lock_age
+            st["c_scale"] = c_scale
+            kp_cl = kp_c * c_scale
+            ki_cl = ki_c * c_scale * c_scale
+            kr_cl = kr_c * c_scale * c_scale * c_scale
+            acc_n = 0
+            acc_r2 = 0.0
+            acc_r4 = 0.0
+            acc_q = 0.0
+            acc_mid = 0.0
+        cur_epoch = epoch
 
-            # carrier-lock statistic: Re(r^2) (BPSK) or -Re(r^4) (QPSK)
-            if mod_code == 0:
-                acc_q += sr2 - sq2
-            else:
-                acc_q -= sr2 * sr2 - 6.0 * sr2 * sq2 + sq2 * sq2
-            acc_r2 += r2
-            acc_r4 += r4
-            acc_mid += mid_e
-            acc_n += 1
-            blk_m2 += r2
-            blk_m4 += r4
-            blk_n += 1
+        # carrier-lock statistic: Re(r^2) (BPSK) or -Re(r^4) (QPSK)
+        if mod_code == 0:
+            acc_q += sr2 - sq2
+        else:
+            acc_q -= sr2 * sr2 - 6.0 * sr2 * sq2 + sq2 * sq2
+        acc_r2 += r2
+        acc_r4 += r4
+        acc_mid += mid_e
+        acc_n += 1
+        blk_m2 += r2
+        blk_m4 += r4
+        blk_n += 1
 
-            out_pos[nout] = t_on
-            yr = sr * inv_amp
-            yi = sq * inv_amp
-            if mod_code == 0:
-                out_bitpos[nout] = t_on
-                out_soft[nout] = yr
-            else:
-                out_bitpos[2 * nout] = t_on
-                out_bitpos[2 * nout + 1] = t if mod_code == 2 else t_on
-                out_soft[2 * nout] = sqrt2 * yr
-                out_soft[2 * nout + 1] = sqrt2 * yi
-            out_sym[nout] = complex(yr, yi)
-            out_flags[nout] = flags
-            out_theta[nout] = theta
-            nout += 1
+        out_pos[nout] = t_on
+        yr = sr * inv_amp
+        yi = sq * inv_amp
+        if mod_code == 0:
+            out_bitpos[nout] = t_on
+            out_soft[nout] = yr
+        else:
+            out_bitpos[2 * nout] = t_on
+            out_bitpos[2 * nout + 1] = t if mod_code == 2 else t_on
+            out_soft[2 * nout] = sqrt2 * yr
+            out_soft[2 * nout + 1] = sqrt2 * yi
+        out_sym[nout] = complex(yr, yi)
+        out_flags[nout] = flags
+        out_theta[nout] = theta
+        nout += 1
 
-            # The loops act on the previous symbol's errors: one symbol of delay (negligible at loop
-            # bandwidths of a few thousandths of the symbol rate) takes the detectors off the strobe's
-            # and the phase's critical path, so consecutive symbols overlap in the processor.
-            ec = pend_ec
-            # the carrier error bounded far outside the detector's range (4 noise deviations at Es/N0 =
-            # -3 dB: an amplitude estimate that lags a sudden rise after silence cannot throw the
-            # phase), the timing error at +-1
-            pend_ec = min(max(ec_raw * g_c, -c_clip), c_clip)
-            e_t = pend_et
-            pend_et = min(max(et * g_t, -1.0), 1.0)
-            # carrier loop (phase correction takes effect from the next half-strobe)
-            if trk == 1:
-                if third_order == 1:
-                    w_rate += kr_cl * ec
-                w_int += ki_cl * ec + w_rate
-                theta += kp_cl * ec
-            else:
-                theta += kp_c_wide * ec
+        # The loops act on the previous symbol's errors: one symbol of delay (negligible at loop
+        # bandwidths of a few thousandths of the symbol rate) takes the detectors off the strobe's
+        # and the phase's critical path, so consecutive symbols overlap in the processor.
+        ec = pend_ec
+        # the carrier error bounded far outside the detector's range (4 noise deviations at Es/N0 =
+        # -3 dB: an amplitude estimate that lags a sudden rise after silence cannot throw the
+        # phase), the timing error at +-1
+        pend_ec = min(max(ec_raw * g_c, -c_clip), c_clip)
+        e_t = pend_et
+        pend_et = min(max(et * g_t, -1.0), 1.0)
+        # carrier loop (phase correction takes effect from the next half-strobe)
+        if trk == 1:
+            if third_order == 1:
+                w_rate += kr_cl * ec
+            w_int += ki_cl * ec + w_rate
+            theta += kp_cl * ec
+        else:
+            theta += kp_c_wide * ec
 
-            # timing loop
-            if trk == 1:
-                v_int += ki_tl * e_t
-                if v_int > v_max:
-                    v_int = v_max
-                elif v_int < -v_max:
-                    v_int = -v_max
-            t += 0.5 * sps * (1.0 - v_int) - sps * kp_tl * e_t
+        # timing loop
+        if trk == 1:
+            v_int += ki_tl * e_t
+            if v_int > v_max:
+                v_int = v_max
+            elif v_int < -v_max:
+                v_int = -v_max
+        t += 0.5 * sps * (1.0 - v_int) - sps * kp_tl * e_t
 
         p3r = p2r
         p3i = p2i
@@ -942,7 +1013,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
         p1r = wr
         p1i = wi
         theta += 0.5 * w_int
-        parity = 1 - parity
+        parity = 0
 
     st["t"] = t
     st["v_int"] = v_int
