@@ -16,7 +16,7 @@ import numpy as np
 from pipeline._version import __version__
 from pipeline.chain._backend import BackEnd
 from pipeline.chain._chain import DecodeChain
-from pipeline.chain._frontend import FrontSummary
+from pipeline.chain._frontend import FrontEnd, FrontSummary
 from pipeline.chain._output import OutputFolder
 from pipeline.chain._progress import Progress
 from pipeline.chain._segments import DEFAULT_SEGMENT_SAMPLES, SegmentedDecode
@@ -25,9 +25,6 @@ from pipeline.errors import ProfileError, UsageError
 from pipeline.profile import LinkProfile
 
 __all__ = ["DecodeSummary", "TimeProducts", "decode_in_memory", "decode_to_folder", "is_stream", "kernel_cache_cold"]
-
-#: Samples each receiver track point (a doppler.csv row) averages: the demodulators' track block.
-TRACK_BLOCK_SAMPLES = 32768
 
 #: Samples at the start of an IQ recording whose spectrum the report shows.
 SPECTRUM_SAMPLES = 1 << 18
@@ -127,6 +124,9 @@ class _Input:
     duration_s: float | None
     position_rate_hz: float
     live: bool = False
+    #: Samples each receiver track point (a doppler.csv row) averages: the demodulator's block (IQ input, after
+    #: the run; it grows with the samples per symbol)
+    block_samples: int | None = None
 
 
 def is_stream(path: str) -> bool:
@@ -305,6 +305,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
                                                   waterfall_row_samples=row, scheduler=scheduler,
                                                   verbose=verbose).run(
                 rec, back, on_segment=lambda res: bar.update(res.owned_stop))
+            # the segments' front ends are built in the workers: one more, built alike, names their block
+            inp.block_samples = FrontEnd(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz).block_samples
             spectrum_tap.feed(rec.read(0, min(SPECTRUM_SAMPLES, rec.num_samples)).samples)
         else:
             iq = inp.kind == "iq"
@@ -329,6 +331,7 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
                 inp.info["ended_by"] = "interrupt"  # Ctrl-C (or SIGTERM) is the normal end of a live run
             front = chain.finish()
             back = chain.back
+            inp.block_samples = chain.front.block_samples if iq else None
     finally:
         bar.close()
         sinks.close()
@@ -402,7 +405,7 @@ def _write_tdm(folder: Path, inp: _Input, profile: LinkProfile) -> None:
         return
     write_tdm(folder / "doppler.tdm", rows, spacecraft=profile.name.upper(),
               station=(profile.station.name or "STATION"), downlink_frequency_hz=downlink_hz,
-              integration_interval_s=TRACK_BLOCK_SAMPLES / inp.source.sample_rate_hz, tuning_offset_hz=tuning)
+              integration_interval_s=inp.block_samples / inp.source.sample_rate_hz, tuning_offset_hz=tuning)
 
 
 def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrite: bool = False,
