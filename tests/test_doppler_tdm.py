@@ -66,5 +66,11 @@ def test_tdm_integration_interval_is_the_track_block_of_the_link(tmp_path, modul
     assert interval == pytest.approx(block / FS, rel=1e-9)
     # the rows of doppler.csv are the same blocks (positions in samples of the recording)
     with open(out / "doppler.csv", encoding="utf-8", newline="") as f:
-        pos = np.array([float(r["sample_position"]) for r in csv.DictReader(f) if r["locked"] == "True"])
+        locked = [r for r in csv.DictReader(f) if r["locked"] == "True"]
+    pos = np.array([float(r["sample_position"]) for r in locked])
     assert np.median(np.diff(pos)) == pytest.approx(block, abs=FS * symbol_s)
+    # one RECEIVE_FREQ_1 per locked row: its epoch, and the received frequency = nominal + measured offset (the
+    # simulator's recording is centred on the nominal downlink frequency)
+    assert [(k, e) for k, e, _, _ in seg.observations] == [("RECEIVE_FREQ_1", r["utc"][:-1]) for r in locked]
+    for (_, _, _, value), r in zip(seg.observations, locked):
+        assert value == pytest.approx(prof.link.downlink_frequency_hz + float(r["carrier_offset_hz"]), abs=1e-6)
