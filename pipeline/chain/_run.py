@@ -167,23 +167,57 @@ class TimeProducts:
 
         return ObtToUtc(model=read_clock_json(self.clock), profile=profile)
 
-    def doppler_check(self, profile: LinkProfile, downlink_hz: float | None, tuning_hz: float):
-        if self.tle is None and self.oem is None:
-            return None
+    def _orbit_given(self) -> bool:
         if self.tle is not None and self.oem is not None:
             raise UsageError("--tle and --oem exclude each other: give one orbit")
-        if not downlink_hz:
-            raise UsageError("--tle/--oem need the downlink frequency: [link] downlink_frequency_hz in the profile "
-                             "or core:frequency in the recording")
-        from pipeline.orbit import DopplerComparison, GroundStation, OrbitPredictor, read_oem, read_tle
+        return self.tle is not None or self.oem is not None
 
-        orbit = read_tle(self.tle) if self.tle is not None else read_oem(self.oem)
+    def orbit_predictor(self, profile: LinkProfile):
+        """The :class:`~pipeline.orbit.OrbitPredictor` of ``tle`` or ``oem`` seen from the profile's station
+        (None without an orbit); ``downlink clock`` takes its light time from it too.
+
+        Raises
+        ------
+        UsageError
+            Both ``tle`` and ``oem`` given.
+        ProfileError
+            The profile's ``[station]`` has no position (checked before the orbit file is read).
+        DataFileError
+            The element set or ephemeris cannot be read.
+
+        Examples
+        --------
+        >>> import pipeline
+        >>> from pipeline.timescales import parse_utc
+        >>> with open("tamarisk.tle", "w") as f:  # an invented element set, not a real spacecraft
+        ...     _ = f.write("1 99999U 26001A   26073.39583333  .00000000  00000+0  00000+0 0  9997\\n"
+        ...                 "2 99999  97.5000 120.0000 0010000  90.0000 270.0000 15.20000000    19\\n")
+        >>> demo = pipeline.load_profile(pipeline.demo_profile_path())
+        >>> predictor = TimeProducts(tle="tamarisk.tle").orbit_predictor(demo)
+        >>> 0.002 < predictor.predict(parse_utc("2026-03-14T09:30:00Z")).light_time_s < 0.05
+        True
+        """
+        if not self._orbit_given():
+            return None
+        from pipeline.orbit import GroundStation, OrbitPredictor, read_oem, read_tle
+
         try:
             station = GroundStation.from_profile(profile)
         except ValueError as exc:
             raise ProfileError(str(exc)) from None
-        predictor = OrbitPredictor(orbit, station, ut1_minus_utc_s=self.ut1_minus_utc_s)
-        return DopplerComparison(predictor=predictor, downlink_frequency_hz=downlink_hz, tuning_offset_hz=tuning_hz)
+        orbit = read_tle(self.tle) if self.tle is not None else read_oem(self.oem)
+        return OrbitPredictor(orbit, station, ut1_minus_utc_s=self.ut1_minus_utc_s)
+
+    def doppler_check(self, profile: LinkProfile, downlink_hz: float | None, tuning_hz: float):
+        if not self._orbit_given():
+            return None
+        if not downlink_hz:
+            raise UsageError("--tle/--oem need the downlink frequency: [link] downlink_frequency_hz in the profile "
+                             "or core:frequency in the recording")
+        from pipeline.orbit import DopplerComparison
+
+        return DopplerComparison(predictor=self.orbit_predictor(profile), downlink_frequency_hz=downlink_hz,
+                                 tuning_offset_hz=tuning_hz)
 
 
 def _no_start(path: str) -> UsageError:
