@@ -16,7 +16,7 @@ import numpy as np
 from pipeline._version import __version__
 from pipeline.chain._backend import BackEnd
 from pipeline.chain._chain import DecodeChain
-from pipeline.chain._frontend import FrontSummary
+from pipeline.chain._frontend import FrontEnd, FrontSummary
 from pipeline.chain._output import OutputFolder
 from pipeline.chain._progress import Progress
 from pipeline.chain._segments import DEFAULT_SEGMENT_SAMPLES, SegmentedDecode
@@ -25,9 +25,6 @@ from pipeline.errors import ProfileError, UsageError
 from pipeline.profile import LinkProfile
 
 __all__ = ["DecodeSummary", "TimeProducts", "decode_in_memory", "decode_to_folder", "is_stream", "kernel_cache_cold"]
-
-#: Samples each receiver track point (a doppler.csv row) averages: the demodulators' track block.
-TRACK_BLOCK_SAMPLES = 32768
 
 #: Samples at the start of an IQ recording whose spectrum the report shows.
 SPECTRUM_SAMPLES = 1 << 18
@@ -170,23 +167,57 @@ class TimeProducts:
 
         return ObtToUtc(model=read_clock_json(self.clock), profile=profile)
 
-    def doppler_check(self, profile: LinkProfile, downlink_hz: float | None, tuning_hz: float):
-        if self.tle is None and self.oem is None:
-            return None
+    def _orbit_given(self) -> bool:
         if self.tle is not None and self.oem is not None:
             raise UsageError("--tle and --oem exclude each other: give one orbit")
-        if not downlink_hz:
-            raise UsageError("--tle/--oem need the downlink frequency: [link] downlink_frequency_hz in the profile "
-                             "or core:frequency in the recording")
-        from pipeline.orbit import DopplerComparison, GroundStation, OrbitPredictor, read_oem, read_tle
+        return self.tle is not None or self.oem is not None
 
-        orbit = read_tle(self.tle) if self.tle is not None else read_oem(self.oem)
+    def orbit_predictor(self, profile: LinkProfile):
+        """The :class:`~pipeline.orbit.OrbitPredictor` of ``tle`` or ``oem`` seen from the profile's station
+        (None without an orbit); ``downlink clock`` takes its light time from it too.
+
+        Raises
+        ------
+        UsageError
+            Both ``tle`` and ``oem`` given.
+        ProfileError
+            The profile's ``[station]`` has no position (checked before the orbit file is read).
+        DataFileError
+            The element set or ephemeris cannot be read.
+
+        Examples
+        --------
+        >>> import pipeline
+        >>> from pipeline.timescales import parse_utc
+        >>> with open("tamarisk.tle", "w") as f:  # an invented element set, not a real spacecraft
+        ...     _ = f.write("1 99999U 26001A   26073.39583333  .00000000  00000+0  00000+0 0  9997\\n"
+        ...                 "2 99999  97.5000 120.0000 0010000  90.0000 270.0000 15.20000000    19\\n")
+        >>> demo = pipeline.load_profile(pipeline.demo_profile_path())
+        >>> predictor = TimeProducts(tle="tamarisk.tle").orbit_predictor(demo)
+        >>> 0.002 < predictor.predict(parse_utc("2026-03-14T09:30:00Z")).light_time_s < 0.05
+        True
+        """
+        if not self._orbit_given():
+            return None
+        from pipeline.orbit import GroundStation, OrbitPredictor, read_oem, read_tle
+
         try:
             station = GroundStation.from_profile(profile)
         except ValueError as exc:
             raise ProfileError(str(exc)) from None
-        predictor = OrbitPredictor(orbit, station, ut1_minus_utc_s=self.ut1_minus_utc_s)
-        return DopplerComparison(predictor=predictor, downlink_frequency_hz=downlink_hz, tuning_offset_hz=tuning_hz)
+        orbit = read_tle(self.tle) if self.tle is not None else read_oem(self.oem)
+        return OrbitPredictor(orbit, station, ut1_minus_utc_s=self.ut1_minus_utc_s)
+
+    def doppler_check(self, profile: LinkProfile, downlink_hz: float | None, tuning_hz: float):
+        if not self._orbit_given():
+            return None
+        if not downlink_hz:
+            raise UsageError("--tle/--oem need the downlink frequency: [link] downlink_frequency_hz in the profile "
+                             "or core:frequency in the recording")
+        from pipeline.orbit import DopplerComparison
+
+        return DopplerComparison(predictor=self.orbit_predictor(profile), downlink_frequency_hz=downlink_hz,
+                                 tuning_offset_hz=tuning_hz)
 
 
 def _no_start(path: str) -> UsageError:
@@ -270,7 +301,9 @@ def _spectrum(x: np.ndarray, sample_rate_hz: float) -> tuple[np.ndarray, np.ndar
 def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bool,
          segment_samples: int = DEFAULT_SEGMENT_SAMPLES, scheduler: str | None = None, verbose: bool = False,
          products: TimeProducts | None = None, drop_duplicates: bool = False, live_latency: bool = False):
-    """Decode ``inp`` into ``sinks``; returns the summary, the report dict and the plot data.
+    """Decode ``inp`` into ``sinks``; returns the summary (with the report dict), the plot data and the
+    keywords of :func:`pipeline.orbit.write_tdm` but the rows (None where no ``doppler.tdm`` is written: symbol
+    input, no time, no downlink frequency).
 
     ``live_latency`` hands a live stream's samples on as each read returns them (``--follow``) instead of
     in whole chunks; the output is the same either way.
@@ -293,6 +326,7 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
     back_options = dict(downlink_frequency_hz=downlink_hz, tuning_offset_hz=tuning, drop_duplicates=drop_duplicates,
                         obt_to_utc=obt, doppler_check=check)
     spectrum_tap = _SpectrumTap()
+    block_samples = None  # samples each track point (a doppler.csv row) averages: the demodulator's block
     try:
         if inp.kind == "iq" and not inp.live:
             rec = inp.source
@@ -305,6 +339,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
                                                   waterfall_row_samples=row, scheduler=scheduler,
                                                   verbose=verbose).run(
                 rec, back, on_segment=lambda res: bar.update(res.owned_stop))
+            # the segments' front ends are built in the workers: one more, built alike, names their block
+            block_samples = FrontEnd(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz).block_samples
             spectrum_tap.feed(rec.read(0, min(SPECTRUM_SAMPLES, rec.num_samples)).samples)
         else:
             iq = inp.kind == "iq"
@@ -329,6 +365,7 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
                 inp.info["ended_by"] = "interrupt"  # Ctrl-C (or SIGTERM) is the normal end of a live run
             front = chain.finish()
             back = chain.back
+            block_samples = chain.front.block_samples if iq else None
     finally:
         bar.close()
         sinks.close()
@@ -371,7 +408,12 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
                             duration_s=float(inp.duration_s), elapsed_s=elapsed, samples=front.counts.samples,
                             channel_symbols=front.counts.channel_symbols, input_kind=inp.kind, report=report,
                             no_lock=no_lock)
-    return summary, plots
+    tdm = None
+    if inp.kind == "iq" and inp.timebase is not None and downlink_hz:
+        tdm = dict(spacecraft=profile.name.upper(), station=(profile.station.name or "STATION"),
+                   downlink_frequency_hz=downlink_hz, integration_interval_s=block_samples / inp.source.sample_rate_hz,
+                   tuning_offset_hz=tuning)
+    return summary, plots, tdm
 
 
 def _downlink(inp: _Input, profile: LinkProfile) -> tuple[float | None, float]:
@@ -384,25 +426,18 @@ def _downlink(inp: _Input, profile: LinkProfile) -> tuple[float | None, float]:
     return downlink_hz, tuning
 
 
-def _write_tdm(folder: Path, inp: _Input, profile: LinkProfile) -> None:
-    """``doppler.tdm``: the carrier track of ``doppler.csv`` as a CCSDS Tracking Data Message (503.0-B)."""
-    import csv
+class _TrackFolderSinks(FolderSinks):
+    """:class:`FolderSinks` that also keep what ``doppler.tdm`` is made of: the locked rows of ``doppler.csv``
+    (UTC, carrier offset) as they pass, in ``locked_rows``."""
 
-    from pipeline.orbit import write_tdm
+    def __init__(self, folder: Path, **options):
+        super().__init__(folder, **options)
+        self.locked_rows: list[dict] = []
 
-    downlink_hz, tuning = _downlink(inp, profile)
-    src = folder / "doppler.csv"
-    if inp.kind != "iq" or inp.timebase is None or not downlink_hz or not src.exists():
-        return
-    with open(src, encoding="utf-8", newline="") as f:
-        rows = [{"utc": r["utc"], "locked": r["locked"] == "True",
-                 "carrier_offset_hz": float(r["carrier_offset_hz"]) if r["carrier_offset_hz"] else None}
-                for r in csv.DictReader(f)]
-    if not any(r["locked"] for r in rows):
-        return
-    write_tdm(folder / "doppler.tdm", rows, spacecraft=profile.name.upper(),
-              station=(profile.station.name or "STATION"), downlink_frequency_hz=downlink_hz,
-              integration_interval_s=TRACK_BLOCK_SAMPLES / inp.source.sample_rate_hz, tuning_offset_hz=tuning)
+    def doppler(self, rows: list[dict]) -> None:
+        super().doppler(rows)
+        self.locked_rows.extend({"utc": r["utc"], "locked": True, "carrier_offset_hz": r["carrier_offset_hz"]}
+                                for r in rows if r["locked"])
 
 
 def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrite: bool = False,
@@ -415,8 +450,9 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
     """Decode ``recording`` with ``profile`` into the folder ``out``.
 
     Writes ``packets.jsonl``, ``frames.jsonl``, ``apid_NNNN.bin``, ``frames.bin``, ``frames_vcN.bin``,
-    ``doppler.csv`` (IQ input), ``report.json`` and ``report.html``; with ``cadus`` also ``cadus.bin``
-    (see :class:`~pipeline.chain.FolderSinks`).
+    ``doppler.csv`` (IQ input), ``doppler.tdm`` (its locked rows as a CCSDS Tracking Data Message, when the
+    input's time and the downlink frequency are known), ``report.json`` and ``report.html``; with ``cadus``
+    also ``cadus.bin`` (see :class:`~pipeline.chain.FolderSinks`).
 
     ``recording`` may be ``-`` (standard input) or a pipe: a live stream, decoded in one process as it
     comes; its end (or Ctrl-C) is the normal end of the run.  ``follow`` writes the records straight into
@@ -436,11 +472,14 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
 
         columns = (*DOPPLER_COLUMNS, *PREDICTION_COLUMNS)
     with OutputFolder(out, overwrite=overwrite, live=follow) as tmp:
-        sinks = FolderSinks(tmp, cadus=cadus, doppler_columns=columns, flush=follow, packets_to=packets_to)
-        summary, plots = _run(inp, profile, sinks, workers=workers, progress=progress,
-                              segment_samples=segment_samples, scheduler=scheduler, verbose=verbose,
-                              products=products, drop_duplicates=drop_duplicates, live_latency=follow)
-        _write_tdm(tmp, inp, profile)
+        sinks = _TrackFolderSinks(tmp, cadus=cadus, doppler_columns=columns, flush=follow, packets_to=packets_to)
+        summary, plots, tdm = _run(inp, profile, sinks, workers=workers, progress=progress,
+                                   segment_samples=segment_samples, scheduler=scheduler, verbose=verbose,
+                                   products=products, drop_duplicates=drop_duplicates, live_latency=follow)
+        if tdm is not None and sinks.locked_rows:  # the carrier track as a CCSDS Tracking Data Message (503.0-B)
+            from pipeline.orbit import write_tdm
+
+            write_tdm(tmp / "doppler.tdm", sinks.locked_rows, **tdm)
         write_report(tmp, summary.report, plots)
     summary.out = str(out)
     return summary
@@ -455,8 +494,8 @@ def decode_in_memory(recording: str, profile: LinkProfile, *, input_kind: str = 
     inp = _open_input(recording, profile, input_kind=input_kind, datatype=datatype, sample_rate_hz=sample_rate_hz,
                       start=start, no_time=no_time, verify_checksum=verify_checksum)
     sinks = MemorySinks()
-    summary, _ = _run(inp, profile, sinks, workers=workers, progress=progress, segment_samples=segment_samples,
-                      scheduler=scheduler, products=products, drop_duplicates=drop_duplicates)
+    summary, _, _ = _run(inp, profile, sinks, workers=workers, progress=progress, segment_samples=segment_samples,
+                         scheduler=scheduler, products=products, drop_duplicates=drop_duplicates)
     summary.packets_list = sinks.packets
     summary.frames_list = sinks.frames
     return summary

@@ -181,12 +181,47 @@ def _frame_categories(log: dict) -> np.ndarray:
     return table[idx] if idx.size else idx.astype(np.int8)
 
 
-def _clcw_summary(log: dict) -> dict | None:
-    value = np.asarray(log.get("clcw_report_value", ()), dtype=np.int64)
+@dataclass
+class _FrameArrays:
+    """The frame log's per-frame arrays (:attr:`RunFacts.frame_log`), taken out once for the verdict, the CLCW
+    summary and the plots.
+
+    ``category`` is :func:`_frame_categories`; ``clcw_value`` is -1 where a frame carries no CLCW;
+    ``iterations`` the iterative decoder's (-1 where none ran; None when the log has none); ``stride`` is how
+    many frames each entry stands for (the log keeps every other one past its size).
+    """
+
+    position: np.ndarray
+    rs_corrected: np.ndarray
+    asm_errors: np.ndarray
+    category: np.ndarray
+    flywheel: np.ndarray
+    clcw_value: np.ndarray
+    clcw_flags: np.ndarray
+    iterations: np.ndarray | None
+    stride: int
+
+    @classmethod
+    def of(cls, log: dict) -> _FrameArrays:
+        category = _frame_categories(log)
+        return cls(position=np.asarray(log.get("position", ()), dtype=np.float64),
+                   rs_corrected=np.asarray(log.get("rs_corrected", ()), dtype=np.int64),
+                   asm_errors=np.asarray(log.get("asm_errors", ()), dtype=np.int64),
+                   category=category,
+                   flywheel=np.asarray(log.get("flywheel", np.zeros(category.size, bool)), dtype=bool),
+                   clcw_value=np.asarray(log.get("clcw_report_value", ()), dtype=np.int64),
+                   clcw_flags=np.asarray(log.get("clcw_flags", ()), dtype=np.int64),
+                   iterations=(np.asarray(log["decoder_iterations"], dtype=np.int64)
+                               if "decoder_iterations" in log else None),
+                   stride=int(log.get("stride", 1)))
+
+
+def _clcw_summary(frames: _FrameArrays) -> dict | None:
+    value = frames.clcw_value
     have = value >= 0
     if not have.any():
         return None
-    flags = np.asarray(log["clcw_flags"], dtype=np.int64)[have]
+    flags = frames.clcw_flags[have]
     v = value[have]
     return {
         "frames_with_clcw": int(have.sum()),
@@ -198,14 +233,14 @@ def _clcw_summary(log: dict) -> dict | None:
         "report_value_first": int(v[0]),
         "report_value_last": int(v[-1]),
         "report_value_changes": int(np.count_nonzero(np.diff(v))),
-        "frames_sampled_every": int(log.get("stride", 1)),
+        "frames_sampled_every": frames.stride,
     }
 
 
-def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, flog, ber) -> dict:
+def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, frames: _FrameArrays, ber) -> dict:
     """The ``pass`` object: what an operator reads first."""
     p = f.profile
-    fpos = np.asarray(flog.get("position", ()), dtype=np.float64)
+    fpos = frames.position
     if locked.any():
         source = "receiver"
         first_pos, last_pos = float(tpos[locked][0]), float(tpos[locked][-1])
@@ -221,8 +256,6 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fl
     good_carrier = carrier[usable & np.isfinite(carrier)]
     status = dict(f.status_counts)
     ok, idle = status.get("ok", 0), status.get("idle", 0)
-    cats = _frame_categories(flog)
-    flywheel = np.asarray(flog.get("flywheel", np.zeros(cats.size, bool)), dtype=bool)
     time_known = f.ert is not None
     verdict = {
         "first_lock_utc": f.ert(first_pos) if time_known and first_pos is not None else None,
@@ -236,7 +269,7 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fl
         "packets_missing": int(f.packet_stats.get("sequence_missing", 0)),
         "frames_ok": ok,
         "frames_failed": f.frames - ok - idle,
-        "frames_failed_flywheel": int(np.count_nonzero((cats == 2) & flywheel)) * int(flog.get("stride", 1)),
+        "frames_failed_flywheel": int(np.count_nonzero((frames.category == 2) & frames.flywheel)) * frames.stride,
         "frames_missing": _frames_missing(f),
         "frames_idle": idle,
         "esn0_db_mean": _round(10 * np.log10(np.mean(10 ** (good / 10))), 2) if good.size else None,
@@ -296,10 +329,8 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
     carrier = np.asarray(f.track.get("carrier_hz", ()), dtype=np.float64)
     locked = np.asarray(f.track.get("locked", ()), dtype=bool)
     usable = _track_usable(tpos, locked)
-    flog = f.frame_log or {}
-    fpos = np.asarray(flog.get("position", ()), dtype=np.float64)
-    rs = np.asarray(flog.get("rs_corrected", ()), dtype=np.int64)
-    asm = np.asarray(flog.get("asm_errors", ()), dtype=np.int64)
+    frames = _FrameArrays.of(f.frame_log or {})
+    fpos, rs, asm = frames.position, frames.rs_corrected, frames.asm_errors
     span_hi = max([f.duration_s * f.position_rate_hz, *(x.max() for x in (tpos, fpos) if x.size)])
     clock = _Clock(f, (0.0, float(span_hi)))
 
@@ -338,11 +369,11 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         if "sample_position" in e and f.ert is not None:
             e["ert"] = f.ert(float(e["sample_position"]))
         events.append(e)
-    clcw = _clcw_summary(flog) if p.frames.ocf else None
+    clcw = _clcw_summary(frames) if p.frames.ocf else None
     report: dict = {
         "schema_version": SCHEMA_VERSION,
         "pass": _pass_verdict(f, tpos=tpos, esn0=esn0, carrier=carrier, usable=usable, locked=locked, clock=clock,
-                              flog=flog, ber=ber),
+                              frames=frames, ber=ber),
         "bit_error_rate": None if ber is None else {
             **ber.as_dict(),
             "estimator": ("Reed-Solomon: p = 1 - (1 - s/N)^(1/8) from s octets corrected among N received, "
@@ -394,7 +425,7 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
     if f.doppler_check is not None:
         report["doppler_check"] = f.doppler_check
     return report, _plot_data(f, clock, tpos=tpos, esn0=esn0, carrier=carrier, usable=usable, locked=locked,
-                              flog=flog, counted=counted, ber_kw=ber_kw, ocf=clcw is not None)
+                              frames=frames, counted=counted, ber_kw=ber_kw, ocf=clcw is not None)
 
 
 def _max_iterations(p) -> int:
@@ -407,20 +438,16 @@ def _max_iterations(p) -> int:
     return 0
 
 
-def _iterations(flog: dict, p) -> np.ndarray | None:
+def _iterations(frames: _FrameArrays, p) -> np.ndarray | None:
     """Decoder iterations per frame (-1 where none ran), or None on links without an iterative decoder."""
-    if not _max_iterations(p) or "decoder_iterations" not in flog:
-        return None
-    return np.asarray(flog["decoder_iterations"], dtype=np.int64)
+    return frames.iterations if _max_iterations(p) else None
 
 
-def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locked, flog, counted, ber_kw,
-               ocf) -> PlotData:
+def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locked, frames: _FrameArrays, counted,
+               ber_kw, ocf) -> PlotData:
     p = f.profile
-    fpos = np.asarray(flog.get("position", ()), dtype=np.float64)
+    fpos, rs, asm = frames.position, frames.rs_corrected, frames.asm_errors
     ft = clock.seconds(fpos)
-    rs = np.asarray(flog.get("rs_corrected", ()), dtype=np.int64)
-    asm = np.asarray(flog.get("asm_errors", ()), dtype=np.int64)
     series = bit_error_series(ft[counted], rs[counted], asm[counted], **ber_kw) if fpos.size else None
     wf_t = wf_f = wf_db = None
     if f.waterfall is not None:
@@ -438,7 +465,7 @@ def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locke
                  if g.get("kind") == counter and g.get("after_sample_position") is not None
                  and int(g.get("missing", 0)) > int(g.get("unusable_between", 0))]
     frame_s = p.samples_per_cadu(clock.rate) / clock.rate
-    clcw_value = np.asarray(flog.get("clcw_report_value", ()), dtype=np.int64)
+    clcw_value = frames.clcw_value
     return PlotData(
         time_is_utc=clock.utc,
         span_s=(float(clock.seconds([0.0])[0]), float(clock.seconds([f.duration_s * clock.rate])[0])),
@@ -454,13 +481,13 @@ def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locke
                                    if tpos.size and "residual_hz" in f.track else None),
         frame_time_s=ft if fpos.size else None,
         frame_duration_s=frame_s,
-        frame_category=_frame_categories(flog) if fpos.size else None,
+        frame_category=frames.category if fpos.size else None,
         frame_rs_corrected=rs if fpos.size and p.coding.reed_solomon else None,
         frame_rs_max=p.coding.reed_solomon * p.coding.interleave,
         frame_asm_errors=asm if fpos.size else None,
-        frame_iterations=_iterations(flog, p) if fpos.size else None,
+        frame_iterations=_iterations(frames, p) if fpos.size else None,
         frame_iterations_max=_max_iterations(p),
-        frame_flywheel=np.asarray(flog.get("flywheel", ()), dtype=bool) if fpos.size else None,
+        frame_flywheel=frames.flywheel if fpos.size else None,
         missing_spans_s=[tuple(clock.seconds(list(s))) for s in gap_spans],
         ber_time_s=None if series is None else series["time_s"],
         ber_estimate=None if series is None else series["estimate"],
@@ -469,5 +496,5 @@ def _plot_data(f: RunFacts, clock: _Clock, *, tpos, esn0, carrier, usable, locke
         ber_lower_bound=None if series is None else series["lower_bound"],
         clcw_time_s=ft[clcw_value >= 0] if ocf else None,
         clcw_report_value=clcw_value[clcw_value >= 0] if ocf else None,
-        clcw_flags=np.asarray(flog["clcw_flags"], dtype=np.int64)[clcw_value >= 0] if ocf else None,
+        clcw_flags=frames.clcw_flags[clcw_value >= 0] if ocf else None,
     )

@@ -8,6 +8,7 @@ import json
 import math
 import os
 import re
+from collections.abc import Iterable
 from pathlib import Path
 from typing import Any
 
@@ -159,12 +160,27 @@ def _label(key: str) -> str:
     return _esc(str(key).replace("_", " "))
 
 
-def _kv_table(items: list[tuple[str, Any]]) -> str:
-    rows = "".join(f"<tr><th>{_label(k)}</th>{_cell(v)}</tr>" for k, v in items)
+def _kv_table(items: Iterable[tuple[str, Any]]) -> str:
+    """A key/value table: one row per (heading, value), the heading already HTML."""
+    rows = "".join(f"<tr><th>{heading}</th>{_cell(v)}</tr>" for heading, v in items)
     return f'<table class="kv"><tbody>{rows}</tbody></table>'
 
 
+def _row_table(headings: list[str], rows: list[str], total: int) -> str:
+    """A scrolling table of rows: ``headings`` (HTML) over ``rows`` (each the HTML of its cells), and a note
+    when ``total`` rows were more than those shown."""
+    head = "".join(f"<th>{h}</th>" for h in headings)
+    body = "".join(f"<tr>{r}</tr>" for r in rows)
+    table = f'<div class="scroll"><table class="rows"><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>'
+    left = total - len(rows)
+    if left <= 0:
+        return table
+    return (f'{table}<p class="note">{left} more row{"s" if left != 1 else ""} not shown '
+            f"({total} in all; report.json has every row).</p>")
+
+
 def _list_table(rows: list[Any]) -> str:
+    """Every key of a list's dicts as a column (a row that is no dict spans them all)."""
     shown = rows[:MAX_TABLE_ROWS]
     cols: list[str] = []
     seen: set[str] = set()
@@ -174,25 +190,15 @@ def _list_table(rows: list[Any]) -> str:
                 if k not in seen:
                     seen.add(k)
                     cols.append(k)
-    parts = ['<div class="scroll"><table class="rows"><thead><tr>']
-    if not cols:
-        cols_html = "<th>value</th>"
-    else:
-        cols_html = "".join(f"<th>{_label(c)}</th>" for c in cols)
-    parts.append(cols_html + "</tr></thead><tbody>")
+    cells = []
     for r in shown:
         if isinstance(r, dict) and cols:
-            parts.append("<tr>" + "".join(_cell(r.get(c)) if c in r else "<td></td>" for c in cols) + "</tr>")
+            cells.append("".join(_cell(r.get(c)) if c in r else "<td></td>" for c in cols))
         else:
             span = f' colspan="{len(cols)}"' if len(cols) > 1 else ""
             cell = _cell(r)
-            parts.append("<tr>" + (cell.replace("<td", f"<td{span}", 1) if span else cell) + "</tr>")
-    parts.append("</tbody></table></div>")
-    if len(rows) > len(shown):
-        left = len(rows) - len(shown)
-        parts.append(f'<p class="note">{left} more row{"s" if left != 1 else ""} not shown '
-                     f"({len(rows)} in all; report.json has every row).</p>")
-    return "".join(parts)
+            cells.append(cell.replace("<td", f"<td{span}", 1) if span else cell)
+    return _row_table([_label(c) for c in cols] or ["value"], cells, len(rows))
 
 
 def _render_value(value: Any, depth: int) -> str:
@@ -202,7 +208,7 @@ def _render_value(value: Any, depth: int) -> str:
             return '<p class="note">(empty)</p>'
         scalars = [(k, v) for k, v in value.items() if _is_scalar(v) or depth >= _MAX_DEPTH]
         nested = [(k, v) for k, v in value.items() if not (_is_scalar(v) or depth >= _MAX_DEPTH)]
-        parts = [_kv_table(scalars)] if scalars else []
+        parts = [_kv_table((_label(k), v) for k, v in scalars)] if scalars else []
         tag = "h3" if depth == 0 else "h4"
         for k, v in nested:
             parts.append(f"<{tag}>{_label(k)}</{tag}>")
@@ -406,15 +412,8 @@ def _rows_table(rows: Any, columns: tuple[tuple[str, str], ...], empty: str) -> 
         return f'<p class="note">{_esc(empty)}</p>'
     shown = [r for r in rows if isinstance(r, dict)][:MAX_TABLE_ROWS]
     cols = [(k, h) for k, h in columns if any(k in r for r in shown)]
-    head = "".join(f"<th>{_esc(h)}</th>" for _, h in cols)
-    body = "".join("<tr>" + "".join(_row_cell(r.get(k)) for k, _ in cols) + "</tr>" for r in shown)
-    more = ""
-    if len(rows) > len(shown):
-        left = len(rows) - len(shown)
-        more = (f'<p class="note">{left} more row{"s" if left != 1 else ""} not shown '
-                f"({len(rows)} in all; report.json has every row).</p>")
-    table = f'<table class="rows"><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>'
-    return f'<div class="scroll">{table}</div>{more}'
+    cells = ["".join(_row_cell(r.get(k)) for k, _ in cols) for r in shown]
+    return _row_table([_esc(h) for _, h in cols], cells, len(rows))
 
 
 _VC_COLUMNS = (("scid", "spacecraft"), ("vcid", "VCID"), ("frames", "frames"), ("idle_frames", "idle"),
@@ -436,11 +435,6 @@ _CLCW_LABELS = (("frames_with_clcw", "good frames carrying a CLCW"), ("lockout_f
                 ("no_rf_available_frames", "with no RF available"), ("no_bit_lock_frames", "with no bit lock"),
                 ("report_value_first", "first report value N(R)"), ("report_value_last", "last report value N(R)"),
                 ("report_value_changes", "report value changes"))
-
-
-def _kv_labelled(d: dict, labels: tuple[tuple[str, str], ...]) -> str:
-    rows = "".join(f"<tr><th>{_esc(label)}</th>{_cell(d[k])}</tr>" for k, label in labels if k in d)
-    return f'<table class="kv"><tbody>{rows}</tbody></table>'
 
 
 def _gap_sections(data: dict, anchors: dict[str, str]) -> str:
@@ -534,7 +528,8 @@ def render_html(report: dict, plots: PlotData | None = None) -> str:
     if "clcw" in figures or isinstance(data.get("clcw"), dict):
         nav.append((anchors["clcw"], "CLCW"))
         clcw = data.get("clcw")
-        table = _kv_labelled(clcw, _CLCW_LABELS) if isinstance(clcw, dict) else ""
+        table = (_kv_table((_esc(label), clcw[k]) for k, label in _CLCW_LABELS if k in clcw)
+                 if isinstance(clcw, dict) else "")
         fig = _figure_html(figures["clcw"], ber) if "clcw" in figures else ""
         body.append(f'<section id="{anchors["clcw"]}"><h2>Link control word (CLCW) over the pass</h2>'
                     f"{fig}{table}</section>")

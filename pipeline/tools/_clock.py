@@ -390,7 +390,8 @@ def light_time_source(profile: LinkProfile, *, light_time_s: float | None = None
     DataFileError
         The element set or ephemeris cannot be read.
     """
-    from pipeline.orbit import ConstantLightTime, GroundStation, OrbitPredictor, read_oem, read_tle
+    from pipeline.chain import TimeProducts
+    from pipeline.orbit import ConstantLightTime
 
     given = [k for k, v in (("light_time_s", light_time_s), ("range_km", range_km), ("tle", tle), ("oem", oem))
              if v is not None]
@@ -402,12 +403,8 @@ def light_time_source(profile: LinkProfile, *, light_time_s: float | None = None
                                                             f"(--light-time)")
     if range_km is not None:
         return ConstantLightTime.from_range_km(range_km)
-    try:
-        station = GroundStation.from_profile(profile)
-    except ValueError as exc:
-        raise ProfileError(str(exc)) from None
-    orbit = read_tle(tle) if tle is not None else read_oem(oem)
-    return OrbitPredictor(orbit, station, ut1_minus_utc_s=ut1_minus_utc_s)
+    return TimeProducts(tle=None if tle is None else os.fspath(tle), oem=None if oem is None else os.fspath(oem),
+                        ut1_minus_utc_s=ut1_minus_utc_s).orbit_predictor(profile)
 
 
 # ---- the command ------------------------------------------------------------------------------------
