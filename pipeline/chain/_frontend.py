@@ -206,7 +206,7 @@ class FrontEnd:
     def block_samples(self) -> int:
         """The demodulator's processing block (a segment's reads start on this grid); 1 without one."""
         block = getattr(self.demod, "block_samples", 1)
-        return block if isinstance(block, int) and 1 <= block <= 1 << 20 else 1
+        return block if isinstance(block, int) and block >= 1 else 1
 
     # ---- feeding --------------------------------------------------------------------------
     def process_chunk(self, chunk) -> FrontOutput:

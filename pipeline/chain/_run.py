@@ -16,7 +16,7 @@ import numpy as np
 from pipeline._version import __version__
 from pipeline.chain._backend import BackEnd
 from pipeline.chain._chain import DecodeChain
-from pipeline.chain._frontend import FrontEnd, FrontSummary
+from pipeline.chain._frontend import FrontSummary
 from pipeline.chain._output import OutputFolder
 from pipeline.chain._progress import Progress
 from pipeline.chain._segments import DEFAULT_SEGMENT_SAMPLES, SegmentedDecode
@@ -335,12 +335,10 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
             # IQ recordings are decoded in fixed overlapping segments: the output depends on the segment
             # length only, never on the number of workers.
             row = waterfall_row_samples(rec.num_samples, rec.sample_rate_hz)
-            front: FrontSummary = SegmentedDecode(profile, workers=workers, segment_samples=segment_samples,
-                                                  waterfall_row_samples=row, scheduler=scheduler,
-                                                  verbose=verbose).run(
-                rec, back, on_segment=lambda res: bar.update(res.owned_stop))
-            # the segments' front ends are built in the workers: one more, built alike, names their block
-            block_samples = FrontEnd(profile, input_kind="iq", sample_rate_hz=rec.sample_rate_hz).block_samples
+            segmented = SegmentedDecode(profile, workers=workers, segment_samples=segment_samples,
+                                        waterfall_row_samples=row, scheduler=scheduler, verbose=verbose)
+            front: FrontSummary = segmented.run(rec, back, on_segment=lambda res: bar.update(res.owned_stop))
+            block_samples = segmented.block_samples
             spectrum_tap.feed(rec.read(0, min(SPECTRUM_SAMPLES, rec.num_samples)).samples)
         else:
             iq = inp.kind == "iq"

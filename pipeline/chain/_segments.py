@@ -176,6 +176,8 @@ class SegmentedDecode:
         self.frames_dropped_as_duplicates = 0
         #: CPU seconds of each segment's worker in the last :meth:`run`, in segment order
         self.segment_cpu_s: list[float] = []
+        #: the demodulator's processing block (a doppler.csv row's span), set by :meth:`run`
+        self.block_samples: int | None = None
         self._check = None  # the recording's core:sha512 check of the current run, and its future
         self._check_future = None
 
@@ -186,6 +188,7 @@ class SegmentedDecode:
         """
         fs = recording.sample_rate_hz
         probe = FrontEnd(self.profile, input_kind="iq", sample_rate_hz=fs)
+        self.block_samples = probe.block_samples  # the demodulator's block (a doppler.csv row's span)
         plan = segment_plan(recording.num_samples, self.profile, fs, segment_samples=self.segment_samples,
                             block_samples=probe.block_samples, acquisition_samples=probe.demod.acquisition_samples)
         half_cadu = 0.5 * math.ceil(self.profile.samples_per_cadu(fs))

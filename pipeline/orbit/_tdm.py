@@ -97,7 +97,7 @@ def format_tdm(rows: Iterable[dict], *, spacecraft: str, station: str, downlink_
     downlink_frequency_hz : float
         Nominal carrier frequency; each observable is ``f + carrier_offset_hz + tuning_offset_hz``.
     integration_interval_s : float
-        Seconds each row averages (the demodulator's track block: 32768 samples / sample rate).
+        Seconds each row averages (the demodulator's processing block over the sample rate).
     tuning_offset_hz : float
         Recording centre frequency minus ``f``.
     creation_tai_ns : int, optional
