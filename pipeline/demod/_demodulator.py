@@ -21,6 +21,7 @@ from pipeline.demod._kernels import (
     remove_dc,
     track_symbols,
 )
+from pipeline.demod._snr import esn0_db_from_moments
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "check_chunk", "continue_stream",
@@ -888,15 +889,7 @@ class Demodulator:
         n = int(st["blk_n"])
         if n < self.min_esn0_symbols:
             return float("nan")
-        m2 = float(st["blk_m2"]) / n
-        m4 = float(st["blk_m4"]) / n
-        s2 = 2.0 * m2 * m2 - m4
-        if s2 <= 0.0:
-            return float("nan")
-        sig = math.sqrt(s2)
-        if m2 - sig <= 0.0:
-            return float("inf")
-        return 10.0 * math.log10(sig / (m2 - sig))
+        return esn0_db_from_moments(float(st["blk_m2"]) / n, float(st["blk_m4"]) / n)
 
     def _output(self, samples: int, blocks: int) -> SymbolOut:
         """A :class:`SymbolOut` sized for ``samples`` new samples in ``blocks`` blocks (track_symbols' bound)."""

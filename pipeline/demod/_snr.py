@@ -8,7 +8,7 @@ import numpy as np
 
 from pipeline.demod._kernels import moments_m2m4
 
-__all__ = ["estimate_esn0_m2m4", "m2m4_signal_noise"]
+__all__ = ["esn0_db_from_moments", "estimate_esn0_m2m4", "m2m4_signal_noise"]
 
 
 def m2m4_signal_noise(symbols: np.ndarray) -> tuple[float, float]:
@@ -40,7 +40,10 @@ def m2m4_signal_noise(symbols: np.ndarray) -> tuple[float, float]:
         raise ValueError(f"Argument 'symbols' must be one-dimensional, not {sym.ndim}-dimensional.")
     mom = np.zeros(2, dtype=np.float64)
     moments_m2m4(sym, mom)
-    m2, m4 = float(mom[0]), float(mom[1])
+    return _signal_noise(float(mom[0]), float(mom[1]))
+
+
+def _signal_noise(m2: float, m4: float) -> tuple[float, float]:
     s2 = 2.0 * m2 * m2 - m4
     s = math.sqrt(s2) if s2 > 0.0 else 0.0
     return s, m2 - s
@@ -57,6 +60,23 @@ def estimate_esn0_m2m4(symbols: np.ndarray) -> float:
     if sym.size == 0:
         return float("nan")
     s, n = m2m4_signal_noise(sym)
+    return _esn0_db(s, n)
+
+
+def esn0_db_from_moments(m2: float, m4: float) -> float:
+    """Es/N0 in dB from the moments ``M2 = mean |r|^2`` and ``M4 = mean |r|^4`` (as :func:`estimate_esn0_m2m4`).
+
+    ``nan`` when ``2 M2^2 <= M4`` (no positive signal power), ``inf`` when no noise is left.
+
+    Examples
+    --------
+    >>> round(esn0_db_from_moments(2.0, 7.0), 3)  # S = 1, N = 1 (M4 = S^2 + 4 S N + 2 N^2)
+    0.0
+    """
+    return _esn0_db(*_signal_noise(m2, m4))
+
+
+def _esn0_db(s: float, n: float) -> float:
     if s <= 0.0:
         return float("nan")
     if n <= 0.0:
