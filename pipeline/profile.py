@@ -759,9 +759,14 @@ def _validate_clock(c: ClockSection, frame_kind: str, source: str) -> None:
     _check(0 <= c.time_field_offset <= 65535, source,
            f"[clock] time_field_offset must be 0..65535 octets, not {c.time_field_offset}")
     _choice(c.code, TimeCodeKind, "[clock] code", source)
-    _check(c.pfield is None or (isinstance(c.pfield, int) and 0 <= c.pfield <= (0xFFFF if c.code == "cuc" else 0xFF)),
-           source, f"[clock] pfield must be {'0..0xFFFF' if c.code == 'cuc' else 'one octet 0..0xFF'} for "
-                   f"{c.code.upper()}, not {c.pfield!r}")
+    # the P-field through the packet extractor's own check (one rule with [[packets.time_code]]); the clock reads
+    # onboard time, so the epoch given is only a valid placeholder
+    from pipeline.packets._timecodes import check_time_code_config
+
+    try:
+        check_time_code_config(c.code, c.pfield, "1958-01-01T00:00:00", c.time_field_offset)
+    except ValueError as exc:
+        raise ProfileError(f"{source}: [clock] {exc}") from None
     _check(0 <= c.onboard_delay_ns <= 1_000_000_000, source,
            f"[clock] onboard_delay_ns must be 0..1000000000, not {c.onboard_delay_ns}")
     if frame_kind == "tm":

@@ -67,6 +67,11 @@ onboard_delay_ns = 0     # spacecraft transmit-path delay
     ({"sampled_vcid": 2, "sampled_every": 6}, AOS, "must divide 16777216"),
     ({"code": "ccs"}, {}, r"\[clock\] code must be one of cuc \| cds"),
     ({"code": "cds", "pfield": 0x2F2F}, {}, "one octet"),
+    # the P-field's layout, as [[packets.time_code]] checks it (CCSDS 301.0-B-4 sec. 3.2 CUC, sec. 3.3 CDS;
+    # the bit layouts from memory, not confirmed: REFERENCES.md sec. 6)
+    ({"pfield": 0x4E}, {}, r"\[clock\] pfield is not a valid CUC P-field"),
+    ({"pfield": 0x9E}, {}, r"\[clock\] pfield is not a valid CUC P-field .*second octet"),
+    ({"code": "cds", "pfield": 0x1E}, {}, r"\[clock\] pfield is not a valid CDS P-field"),
     ({"time_packet_apid": 2047}, {}, "time_packet_apid must be 0..2046"),
     ({"onboard_delay_ns": -1}, {}, "onboard_delay_ns must be 0..1000000000"),
     ({"sampled_every": 8.0}, {}, "must be an integer"),
