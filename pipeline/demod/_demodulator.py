@@ -21,10 +21,12 @@ from pipeline.demod._kernels import (
     remove_dc,
     track_symbols,
 )
+from pipeline.demod._predicted import CarrierPrediction
 from pipeline.demod._snr import esn0_db_from_moments
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
-__all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "check_chunk", "continue_stream",
+__all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "centre_window", "check_chunk",
+           "check_prediction", "continue_stream", "shifted_line",
            "cut_blocks", "MIN_SAMPLES_PER_SYMBOL", "MAX_SAMPLES_PER_SYMBOL"]
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
@@ -140,8 +142,11 @@ class DemodStats:
 
     ``strongest_line`` is the strongest spectral line (or signal band) any acquisition saw;
     ``search_hz`` and ``line_threshold_db`` are the demodulator's searched half-band and the level a
-    line needs, so that :meth:`no_lock_message` needs nothing else.  Picklable; segments of one
-    decode combine with :meth:`merge` (not a field-wise sum).
+    line needs, so that :meth:`no_lock_message` needs nothing else.  ``acquisition_centre_hz`` is set when
+    the search was centred on a predicted carrier (a :class:`~pipeline.demod.CarrierPrediction`): the
+    prediction at the middle of the first acquisition window (None: centred on 0 Hz, the nominal
+    frequency).  Picklable; segments of one decode combine with :meth:`merge` (not a field-wise sum; the
+    first segment's centre is kept).
     """
 
     samples_in: int = 0
@@ -154,6 +159,7 @@ class DemodStats:
     strongest_line: SpectralLine | None = None
     search_hz: float = float("nan")
     line_threshold_db: float = float("nan")
+    acquisition_centre_hz: float | None = None
 
     def saw(self, line: SpectralLine) -> None:
         """Keep ``line`` if it is stronger than the strongest seen so far (a line beats a band)."""
@@ -172,6 +178,8 @@ class DemodStats:
             self.saw(other.strongest_line)
         if not math.isfinite(self.search_hz):
             self.search_hz, self.line_threshold_db = other.search_hz, other.line_threshold_db
+        if self.acquisition_centre_hz is None:
+            self.acquisition_centre_hz = other.acquisition_centre_hz
 
     def no_lock_message(self) -> str | None:
         """The one line to print when no carrier lock was found (None when there was lock).
@@ -189,6 +197,8 @@ class DemodStats:
         if self.carrier_locked_symbols:
             return None
         text = f"no carrier lock in +-{self.search_hz:.0f} Hz"
+        if self.acquisition_centre_hz is not None:
+            text += f" of the predicted carrier ({self.acquisition_centre_hz:+.0f} Hz at the first search)"
         line = self.strongest_line
         if line is None:
             return text + ": no acquisition could be tried (recording too short)"
@@ -315,6 +325,36 @@ def check_chunk(chunk: Any) -> tuple[np.ndarray, int]:
     return np.ascontiguousarray(samples, dtype=np.complex64), int(start)
 
 
+def check_prediction(carrier_prediction: Any) -> None:
+    """Raise unless ``carrier_prediction`` is None or a :class:`CarrierPrediction`."""
+    if carrier_prediction is not None and not isinstance(carrier_prediction, CarrierPrediction):
+        raise TypeError(f"Argument 'carrier_prediction' must be a CarrierPrediction or None, "
+                        f"not {type(carrier_prediction).__name__}.")
+
+
+def centre_window(window: np.ndarray, start: int, prediction: CarrierPrediction | None, sample_rate_hz: float,
+                  stats: DemodStats) -> tuple[np.ndarray, float, float]:
+    """A search window moved to the prediction: ``(window, prediction at its first sample, at its middle)``.
+
+    Without a prediction the window as it is and zeros.  With one: its mean removed (a DC offset must not
+    be moved off 0 Hz, where the search removes it), rotated by :meth:`CarrierPrediction.rotation` from
+    ``start``; the first call records the middle's prediction in ``stats.acquisition_centre_hz``.
+    """
+    if prediction is None:
+        return window, 0.0, 0.0
+    n = window.size
+    first, middle = (float(v) for v in prediction.offset_hz([float(start), start + 0.5 * (n - 1)]))
+    if stats.acquisition_centre_hz is None:
+        stats.acquisition_centre_hz = round(middle, 3)
+    x = window - np.complex64(np.mean(window, dtype=np.complex128))
+    return x * prediction.rotation(start, n, sample_rate_hz), first, middle
+
+
+def shifted_line(line: SpectralLine, hz: float) -> SpectralLine:
+    """``line`` moved by ``hz`` (a line found relative to the prediction, back in the recording's frame)."""
+    return line if hz == 0.0 else SpectralLine(line.frequency_hz + hz, line.level_db, line.kind)
+
+
 def continue_stream(next_start: int | None, start: int) -> None:
     """Raise unless a chunk starting at ``start`` continues a stream expected at ``next_start``."""
     if next_start is not None and start != next_start:
@@ -391,6 +431,9 @@ class Demodulator:
     sample_rate_hz : float
         Sample rate of the recording: 2 to 64 samples per symbol
         (:data:`MIN_SAMPLES_PER_SYMBOL`, :data:`MAX_SAMPLES_PER_SYMBOL`).
+    carrier_prediction : CarrierPrediction or None
+        The carrier's predicted offset over the recording (``--tle``/``--oem``): every acquisition searches
+        ``+- acquisition_search_hz`` around the prediction at the time of its window instead of around 0 Hz.
 
     Attributes
     ----------
@@ -447,6 +490,13 @@ class Demodulator:
     2 dB is then tracked with the loops in their locked form, the carrier loop narrowed from Es/N0 at
     once, for up to 131072 symbols awaiting lock (no reacquisition meanwhile).
 
+    With a ``carrier_prediction`` each searched window (short or long) first has its mean removed (a
+    receiver DC offset, which the search removes itself otherwise) and is rotated by the prediction over
+    its samples (:meth:`CarrierPrediction.rotation`: its offset and its rate), so the search runs around
+    0 Hz and 0 Hz/s of the prediction; the prediction at the held window's first sample is added back to
+    the frequency found, and lines seen are reported at the prediction at the window's middle plus their
+    offset.  ``stats.acquisition_centre_hz`` records the centre of the first search.
+
     Carrier loop bandwidth: ``[receiver] carrier_loop_bandwidth_hz``, or automatic
     ``0.002 * symbol_rate`` (480 Hz at 240 ksym/s): at Es/N0 = -1 dB its phase jitter is about
     4 degrees (squaring loss included), and the second-order loop's lag under a 5 kHz/s
@@ -460,7 +510,8 @@ class Demodulator:
     costs about 4 blocks' demodulation (BPSK, 65536 samples: 2 ms coarse, 6 ms fine).
     """
 
-    def __init__(self, *, link: LinkSection, receiver: ReceiverSection, sample_rate_hz: float) -> None:
+    def __init__(self, *, link: LinkSection, receiver: ReceiverSection, sample_rate_hz: float,
+                 carrier_prediction: CarrierPrediction | None = None) -> None:
         if not isinstance(link, LinkSection):
             raise TypeError(f"Argument 'link' must be a LinkSection, not {type(link).__name__}.")
         if not isinstance(receiver, ReceiverSection):
@@ -470,6 +521,7 @@ class Demodulator:
         fs = float(sample_rate_hz)
         if not (math.isfinite(fs) and fs > 0):
             raise ValueError(f"Argument 'sample_rate_hz' must be a positive finite number, not {sample_rate_hz!r}.")
+        check_prediction(carrier_prediction)
         if link.modulation not in _MOD_CODES:
             raise ValueError(f"Argument 'link.modulation' must be bpsk | qpsk | oqpsk for the Demodulator, "
                              f"not {link.modulation!r}.")
@@ -485,6 +537,7 @@ class Demodulator:
         self.link = link
         self.receiver = receiver
         self.sample_rate_hz = fs
+        self.carrier_prediction = carrier_prediction
         self.samples_per_symbol = sps
         self.modulation = link.modulation
         self.bits_per_symbol = link.bits_per_symbol
@@ -730,16 +783,19 @@ class Demodulator:
         self.stats.acquisitions += 1
         found = False
         if held.size >= 1024:
-            acq = self._search.search(held)
+            # the held window's first sample is the next one to run (the blocks before it have run)
+            window, first, middle = centre_window(held, self._run_sample, self.carrier_prediction,
+                                                  self.sample_rate_hz, self.stats)
+            acq = self._search.search(window)
             self.stats.last_peak_ratio = 10.0 ** (acq.line.level_db / 10.0) / math.log(2.0)
-            self.stats.saw(acq.line)
+            self.stats.saw(shifted_line(acq.line, middle))
             offset = acq.offset_hz
             if not acq.found and not final and acq.line.kind != "band":
                 acq, offset = self._search_long(acq.band_hz)
             if acq.found:
                 found = True
                 self.stats.carrier_found += 1
-                self._nco_hz = offset
+                self._nco_hz = offset + first
                 self._state[0]["w_int"] = 0.0
                 self._state[0]["w_rate"] = 0.0
                 st = self._state[0]
@@ -786,9 +842,13 @@ class Demodulator:
         self._long_tried = nb
         past = self._history[len(self._history) + len(self._held) - nb:]
         window = np.concatenate(past + [h[0] for h in self._held])
+        lead_samples = sum(b.size for b in past)
+        # with a prediction: relative to it over the long window (the caller adds it back at the held start)
+        window, _, middle = centre_window(window, self._run_sample - lead_samples, self.carrier_prediction,
+                                          self.sample_rate_hz, self.stats)
         acq = self._search.search_long(window, band_hz)
-        self.stats.saw(acq.line)
-        lead = sum(b.size for b in past) / self.sample_rate_hz
+        self.stats.saw(shifted_line(acq.line, middle))
+        lead = lead_samples / self.sample_rate_hz
         return acq, acq.offset_hz + acq.rate_hz_per_s * lead
 
     def _run_block(self, block: np.ndarray, moments: tuple | None, parts: SymbolOut, t_limit: float = math.inf,

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 from typing import Any, Literal
@@ -10,7 +11,16 @@ import numpy as np
 
 from pipeline.demod import DemodStats, Demodulator, SymbolBlock, TrackPoint
 from pipeline.demod._acquire import CarrierSearch, SpectralLine, _next_pow2
-from pipeline.demod._demodulator import DcBlocker, check_chunk, continue_stream, cut_blocks
+from pipeline.demod._demodulator import (
+    DcBlocker,
+    centre_window,
+    check_chunk,
+    check_prediction,
+    continue_stream,
+    cut_blocks,
+    shifted_line,
+)
+from pipeline.demod._predicted import CarrierPrediction
 from pipeline.demod.residual._kernels import (
     CARRIER_PARAMS,
     CARRIER_STATE,
@@ -225,6 +235,9 @@ class ResidualCarrierDemodulator:
     phasor : {"table", "exact"}
         How the carrier loop rotates each sample: a 4096-entry phasor table (default) or ``cos`` and
         ``sin`` of the exact phase (the reference the table is measured against).
+    carrier_prediction : CarrierPrediction or None
+        The carrier's predicted offset over the recording (``--tle``/``--oem``): the searches run over
+        ``+- acquisition_search_hz`` around it (below) instead of around 0 Hz.
 
     Notes
     -----
@@ -290,6 +303,13 @@ class ResidualCarrierDemodulator:
     Cost per sample: one complex rotation (a table read) and about 40 flops; per symbol O(samples
     per symbol); per searched block one FFT of the block.
 
+    With a ``carrier_prediction`` every searched block has its mean removed and is rotated by the
+    prediction before it is accumulated (one rotation per block), and the held window is rotated as one
+    piece (a continuous phase) before the fine stage; the fix is then moved back: the prediction's
+    offset, rate (its straight piece) and phase at the fix's start are added.  Bi-phase-L BPSK: the
+    block is centred likewise before :meth:`CarrierSearch.search`.  ``stats.acquisition_centre_hz``
+    records the prediction at the middle of the first searched block.
+
     References
     ----------
     J. H. Yuen (ed.), *Deep Space Telecommunications Systems Engineering*, Plenum 1983, ch. 5
@@ -298,7 +318,8 @@ class ResidualCarrierDemodulator:
     """
 
     def __init__(self, *, link: LinkSection, receiver: ReceiverSection, sample_rate_hz: float,
-                 phasor: Literal["table", "exact"] = "table") -> None:
+                 phasor: Literal["table", "exact"] = "table",
+                 carrier_prediction: CarrierPrediction | None = None) -> None:
         if not isinstance(link, LinkSection):
             raise TypeError(f"Argument 'link' must be a LinkSection, not {type(link).__name__}.")
         if not isinstance(receiver, ReceiverSection):
@@ -307,6 +328,7 @@ class ResidualCarrierDemodulator:
             raise TypeError(f"Argument 'sample_rate_hz' must be a number, not {type(sample_rate_hz).__name__}.")
         if phasor not in ("table", "exact"):
             raise ValueError(f"Argument 'phasor' must be table | exact, not {phasor!r}.")
+        check_prediction(carrier_prediction)
         fs = float(sample_rate_hz)
         if not (math.isfinite(fs) and fs > 0):
             raise ValueError(f"Argument 'sample_rate_hz' must be a positive finite number, not {sample_rate_hz!r}.")
@@ -342,6 +364,7 @@ class ResidualCarrierDemodulator:
         self.link = link
         self.receiver = receiver
         self.sample_rate_hz = fs
+        self.carrier_prediction = carrier_prediction
         self.samples_per_symbol = sps
         self.symbol_rate_baud = float(link.symbol_rate_baud)
         self.modulation = link.modulation
@@ -566,7 +589,12 @@ class ResidualCarrierDemodulator:
             if search.blocks >= search.max_blocks:
                 self._saw(search.detect())  # the dwell ends unfound: what it saw, then a new one
                 search.restart()
-            search.add(block, gain)
+            if self.carrier_prediction is None:
+                search.add(block, gain)
+            else:  # each block on its own: the periodograms add up incoherently
+                centred, _, _ = centre_window(block, start, self.carrier_prediction, self.sample_rate_hz,
+                                              self.stats)
+                search.add(centred, gain)
             if search.blocks == 1:
                 self._dwell_start = start
                 while self._held:  # blocks of an earlier dwell
@@ -591,8 +619,26 @@ class ResidualCarrierDemodulator:
             self._skip(self._held.pop(0), parts)
 
     def _refine(self, det) -> CarrierFix | None:
-        return self._search.refine([b for b, _, _ in self._held], [g for _, g, _ in self._held],
-                                   [s for _, _, s in self._held], det, self._dwell_start)
+        blocks = [b for b, _, _ in self._held]
+        starts = [s for _, _, s in self._held]
+        pred = self.carrier_prediction
+        if pred is None:
+            return self._search.refine(blocks, [g for _, g, _ in self._held], starts, det, self._dwell_start)
+        # the held blocks are consecutive: rotated as one window, so the phase runs on across them
+        fs = self.sample_rate_hz
+        sizes = [b.size for b in blocks]
+        rot = pred.rotation(starts[0], sum(sizes), fs)
+        edges = np.cumsum([0] + sizes)
+        centred = [(b - np.complex64(np.mean(b, dtype=np.complex128))) * rot[edges[i]:edges[i + 1]]
+                   for i, b in enumerate(blocks)]
+        fix = self._search.refine(centred, [g for _, g, _ in self._held], starts, det, self._dwell_start)
+        if fix is None:
+            return None
+        k = fix.start - starts[0]
+        phase = fix.phase_rad - math.atan2(float(rot[k].imag), float(rot[k].real))
+        return dataclasses.replace(fix, frequency_hz=fix.frequency_hz + float(pred.offset_hz(fix.start)),
+                                   rate_hz_per_s=fix.rate_hz_per_s + pred.rate_hz_per_s(fix.start, fs),
+                                   phase_rad=(phase + math.pi) % (2.0 * math.pi) - math.pi)
 
     def _window_ready(self, need_symbols: float) -> bool:
         return sum(b.size for b, _, _ in self._held) / self.samples_per_symbol >= need_symbols
@@ -637,7 +683,11 @@ class ResidualCarrierDemodulator:
     def _saw(self, det) -> None:
         if det.blocks:
             level = 10.0 * math.log10(max(10.0 ** (det.level_db / 10.0) + 1.0, 1e-12))
-            self.stats.saw(SpectralLine(det.frequency_hz, level, "carrier line"))
+            line = SpectralLine(det.frequency_hz, level, "carrier line")
+            if self.carrier_prediction is not None:  # the detection is relative to the dwell's first block
+                n = self.block_samples
+                line = shifted_line(line, float(self.carrier_prediction.offset_hz(self._dwell_start + 0.5 * (n - 1))))
+            self.stats.saw(line)
 
     def _feed_costas(self, item, parts: list) -> None:
         """Bi-phase-L BPSK: a :class:`CarrierSearch` on the block; found, the block is tracked from it."""
@@ -646,19 +696,21 @@ class ResidualCarrierDemodulator:
             self._skip(item, parts)
             return
         self.stats.acquisitions += 1
-        acq = self._search.search(block.astype(np.complex128) * gain)
-        self.stats.saw(acq.line)
+        window, first, middle = centre_window(block, start, self.carrier_prediction, self.sample_rate_hz, self.stats)
+        acq = self._search.search(window.astype(np.complex128) * gain)
+        self.stats.saw(shifted_line(acq.line, middle))
         self.stats.last_peak_ratio = 10.0 ** (acq.line.level_db / 10.0) / math.log(2.0)
         if not acq.found:
             self._skip(item, parts)
             return
         self.stats.carrier_found += 1
         fs = self.sample_rate_hz
+        offset = acq.offset_hz + first
         m = max(64, block.size // 4)
-        rot = block[:m].astype(np.complex128) * gain * np.exp(-2j * math.pi * acq.offset_hz / fs * np.arange(m))
+        rot = block[:m].astype(np.complex128) * gain * np.exp(-2j * math.pi * offset / fs * np.arange(m))
         c2 = complex(np.mean(rot * rot))
         phase0 = 0.5 * math.atan2(c2.imag, c2.real)
-        self._reset_carrier(phase0, 2.0 * math.pi * acq.offset_hz / fs, 0.0, 0.0)  # (costas_warm zeroed too)
+        self._reset_carrier(phase0, 2.0 * math.pi * offset / fs, 0.0, 0.0)  # (costas_warm zeroed too)
         self._acq_start = start
         self._tracking = True
         self._clear_symbol_stage(start)
@@ -1043,8 +1095,9 @@ class ResidualCarrierDemodulator:
         return SymbolBlock(soft=soft, position=pos, locked=locked, track=track, symbols=soft.astype(np.complex64))
 
 
-def make_demodulator(*, link: LinkSection, receiver: ReceiverSection, sample_rate_hz: float):
-    """The demodulator for a profile's ``[link]``.
+def make_demodulator(*, link: LinkSection, receiver: ReceiverSection, sample_rate_hz: float,
+                     carrier_prediction: CarrierPrediction | None = None):
+    """The demodulator for a profile's ``[link]`` (``carrier_prediction``: see either demodulator).
 
     Returns
     -------
@@ -1069,5 +1122,7 @@ def make_demodulator(*, link: LinkSection, receiver: ReceiverSection, sample_rat
     if link.modulation in ("qpsk", "oqpsk") and link.line_code == "bi-phase-l":
         raise ValueError(f"Argument 'link.line_code' must be nrz-l | nrz-m for {link.modulation}, not 'bi-phase-l'.")
     if link.modulation in ("pcm-pm", "pcm-psk-pm") or link.line_code == "bi-phase-l":
-        return ResidualCarrierDemodulator(link=link, receiver=receiver, sample_rate_hz=sample_rate_hz)
-    return Demodulator(link=link, receiver=receiver, sample_rate_hz=sample_rate_hz)
+        return ResidualCarrierDemodulator(link=link, receiver=receiver, sample_rate_hz=sample_rate_hz,
+                                          carrier_prediction=carrier_prediction)
+    return Demodulator(link=link, receiver=receiver, sample_rate_hz=sample_rate_hz,
+                       carrier_prediction=carrier_prediction)
