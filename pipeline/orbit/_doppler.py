@@ -99,6 +99,16 @@ class DopplerComparison:
         self.tuning_offset_hz = float(tuning_offset_hz)
         self.reset()
 
+    def predicted_offset_hz(self, tai_ns: int) -> float | None:
+        """The carrier offset the recording should show at ``tai_ns``: predicted Doppler - ``tuning_offset_hz``.
+
+        The inverse of the measured side of :meth:`process` (measured Doppler = ``carrier_offset_hz +
+        tuning_offset_hz``), so a carrier at this offset has a residual of 0; None where the orbit has no
+        state.  The demodulators centre their carrier search on it (a decode with ``--tle``/``--oem``).
+        """
+        pred = self.predictor.predict(int(tai_ns))
+        return None if pred is None else pred.doppler_hz(self.downlink_frequency_hz) - self.tuning_offset_hz
+
     def reset(self) -> None:
         """Forget the residuals seen so far."""
         self._n = 0
