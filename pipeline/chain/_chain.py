@@ -32,6 +32,8 @@ class DecodeChain:
         Sample rate of an IQ recording (required for "iq").
     waterfall_row_samples : int or None, keyword-only
         Accumulate the recording's waterfall (see :class:`~pipeline.chain.FrontEnd`).
+    carrier_prediction : CarrierPrediction or None, keyword-only
+        The carrier's predicted offset, for the demodulator's search (see :class:`~pipeline.chain.FrontEnd`).
     timebase, sinks : keyword-only
         Passed to the :class:`~pipeline.chain.BackEnd`.
     **back_options
@@ -50,10 +52,11 @@ class DecodeChain:
     """
 
     def __init__(self, profile: LinkProfile, *, input_kind: str = "iq", sample_rate_hz: float | None = None,
-                 waterfall_row_samples: int | None = None, timebase=None, sinks=None, **back_options):
+                 waterfall_row_samples: int | None = None, timebase=None, sinks=None, carrier_prediction=None,
+                 **back_options):
         self.profile = profile
         self.front = FrontEnd(profile, input_kind=input_kind, sample_rate_hz=sample_rate_hz,
-                              waterfall_row_samples=waterfall_row_samples)
+                              waterfall_row_samples=waterfall_row_samples, carrier_prediction=carrier_prediction)
         self.back = BackEnd(profile, timebase=timebase, sample_rate_hz=sample_rate_hz if input_kind == "iq" else None,
                             sinks=sinks, **back_options)
 

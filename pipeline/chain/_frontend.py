@@ -147,6 +147,9 @@ class FrontEnd:
         merge decides which to take.
     waterfall_row_samples : int or None, keyword-only
         Accumulate the recording's waterfall on rows of this many samples (IQ input only).
+    carrier_prediction : CarrierPrediction or None, keyword-only
+        The carrier's predicted offset over the recording (``--tle``/``--oem``), handed to the demodulator,
+        whose acquisitions then search around it (IQ input only).
 
     Notes
     -----
@@ -155,7 +158,8 @@ class FrontEnd:
     """
 
     def __init__(self, profile: LinkProfile, *, input_kind: InputKind = "iq", sample_rate_hz: float | None = None,
-                 owned: tuple[float, float] | None = None, waterfall_row_samples: int | None = None):
+                 owned: tuple[float, float] | None = None, waterfall_row_samples: int | None = None,
+                 carrier_prediction=None):
         from pipeline.demod import LineDecoder
         from pipeline.sync import BranchSync, CodeblockDecoder, frame_sync_for, soft_block_code
 
@@ -172,7 +176,8 @@ class FrontEnd:
             if sample_rate_hz is None:
                 raise ValueError("Argument 'sample_rate_hz' is required for input_kind 'iq'.")
             try:
-                self.demod = make_demodulator(link=profile.link, receiver=rx, sample_rate_hz=float(sample_rate_hz))
+                self.demod = make_demodulator(link=profile.link, receiver=rx, sample_rate_hz=float(sample_rate_hz),
+                                              carrier_prediction=carrier_prediction)
             except ValueError as exc:  # a link the demodulators cannot serve at this sample rate
                 raise ProfileError(f"{profile.name}: {exc}") from None
         # Bi-phase-L is removed inside the demodulator (half-symbol integration); what is left is NRZ-L.

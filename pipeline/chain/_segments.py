@@ -90,11 +90,14 @@ def segment_plan(num_samples: int, profile: LinkProfile, sample_rate_hz: float, 
 
 
 def decode_segment(recording, profile: LinkProfile, index: int, owned_start: int, owned_stop: int, read_start: int,
-                   read_stop: int, waterfall_row_samples: int | None = None) -> SegmentResult:
-    """Run a front end over one segment of ``recording`` and return what it found."""
+                   read_stop: int, waterfall_row_samples: int | None = None,
+                   carrier_prediction=None) -> SegmentResult:
+    """Run a front end over one segment of ``recording`` and return what it found (``carrier_prediction``: the
+    table of predicted carrier offsets the demodulator searches around, see :class:`SegmentedDecode`)."""
     t0 = time.thread_time()
     front = FrontEnd(profile, input_kind="iq", sample_rate_hz=recording.sample_rate_hz,
-                     owned=(owned_start, owned_stop), waterfall_row_samples=waterfall_row_samples)
+                     owned=(owned_start, owned_stop), waterfall_row_samples=waterfall_row_samples,
+                     carrier_prediction=carrier_prediction)
     res = SegmentResult(index, owned_start, owned_stop)
     n = profile.receiver.chunk_samples
 
@@ -140,6 +143,10 @@ class SegmentedDecode:
         Owned length of a segment, >= 2^20 samples; default :data:`DEFAULT_SEGMENT_SAMPLES`.
     waterfall_row_samples : int or None, keyword-only
         Also accumulate the recording's waterfall on rows of this many samples (see :class:`FrontEnd`).
+    carrier_prediction : CarrierPrediction or None, keyword-only
+        The carrier's predicted offset over the whole recording (``--tle``/``--oem``): a small picklable table
+        that travels with every segment's job to its worker (process pool or Dask), where the demodulator
+        searches around it.
 
     Notes
     -----
@@ -159,7 +166,8 @@ class SegmentedDecode:
     """
 
     def __init__(self, profile: LinkProfile, *, workers: int = 1, segment_samples: int = DEFAULT_SEGMENT_SAMPLES,
-                 waterfall_row_samples: int | None = None, scheduler: str | None = None, verbose: bool = False):
+                 waterfall_row_samples: int | None = None, scheduler: str | None = None, verbose: bool = False,
+                 carrier_prediction=None):
         if isinstance(workers, bool) or not isinstance(workers, int):
             raise TypeError(f"Argument 'workers' must be an integer, not {type(workers).__name__}.")
         if not 1 <= workers <= 64:
@@ -173,6 +181,7 @@ class SegmentedDecode:
         self.workers = workers
         self.segment_samples = segment_samples
         self.waterfall_row_samples = waterfall_row_samples
+        self.carrier_prediction = carrier_prediction
         self.frames_dropped_as_duplicates = 0
         #: CPU seconds of each segment's worker in the last :meth:`run`, in segment order
         self.segment_cpu_s: list[float] = []
@@ -252,7 +261,8 @@ class SegmentedDecode:
 
     def _results(self, recording, plan) -> Iterator[SegmentResult]:
         """Segment results in plan order; at most ``workers + 1`` segments in flight."""
-        jobs = [(recording, self.profile, i, *seg, self.waterfall_row_samples) for i, seg in enumerate(plan)]
+        jobs = [(recording, self.profile, i, *seg, self.waterfall_row_samples, self.carrier_prediction)
+                for i, seg in enumerate(plan)]
         if self.scheduler is not None:
             yield from self._dask_results(jobs)
             return
