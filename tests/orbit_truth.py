@@ -3,7 +3,9 @@
 - The lunar relay orbiter *Tamarisk*: an analytic trajectory in the Earth-centred EME2000 frame, the Moon
   on a circular orbit about the Earth plus a circular polar orbit about the Moon (two-body, invented
   elements).  An element set cannot describe it, so the demo's ephemeris is an OEM written from it.
-- An invented low Earth orbiter element set (catalogue number 99999) for the SGP4 tests.
+- An invented low Earth orbiter element set (catalogue number 99999) for the SGP4 tests, and the one-way
+  Doppler of its passes over Hollow Ridge from the ``sgp4`` library and erfa's GMST (light time iterated,
+  differentiated numerically): the truth the Doppler check and the predicted acquisition are tested against.
 
 ``python tests/orbit_truth.py`` rewrites ``pipeline/data/tamarisk.oem`` (a test checks the two agree).
 """
@@ -95,6 +97,74 @@ def leo_tle(epoch_yyddd: str = "20167.50000000", raan: str = "305.0000", anomaly
     l2 = f"2 99999  97.6000 {raan} 0012000  80.0000 {anomaly} 15.10000000 1000"
     assert len(l1) == 68 and len(l2) == 68, (len(l1), len(l2))
     return l1 + tle_checksum(l1), l2 + tle_checksum(l2)
+
+
+# ---- the one-way Doppler of a low orbiter over Hollow Ridge, from sgp4 and erfa (no pipeline/ code) --------------
+
+C_KM_S = 299_792.458
+HOLLOW_RIDGE = (44.7261, 3.4117, 1012.0)  # the invented station (the demo profile's): latitude, longitude (deg), m
+
+
+def station_ecef_km(lat_deg: float = HOLLOW_RIDGE[0], lon_deg: float = HOLLOW_RIDGE[1],
+                    alt_m: float = HOLLOW_RIDGE[2]) -> np.ndarray:
+    """WGS-84 geodetic -> Earth-fixed (the textbook formula; a = 6378.137 km, f = 1/298.257223563)."""
+    a, f = 6378.137, 1 / 298.257223563
+    e2 = f * (2 - f)
+    lat, lon = math.radians(lat_deg), math.radians(lon_deg)
+    n = a / math.sqrt(1 - e2 * math.sin(lat) ** 2)
+    h = alt_m / 1000.0
+    return np.array([(n + h) * math.cos(lat) * math.cos(lon), (n + h) * math.cos(lat) * math.sin(lon),
+                     (n * (1 - e2) + h) * math.sin(lat)])
+
+
+def julian_date(posix_s: float) -> tuple[float, float]:
+    """The two-part Julian date (day, fraction) of a POSIX time, as sgp4 and erfa take it."""
+    return 2440587.5 + math.floor(posix_s / 86400.0), (posix_s % 86400.0) / 86400.0
+
+
+def _station_teme(station: np.ndarray, posix_s: float) -> tuple[np.ndarray, float, float]:
+    import erfa  # pyerfa, installed with astropy (the [test] extra)
+
+    gmst = erfa.gmst82(*julian_date(posix_s))
+    c, s = math.cos(gmst), math.sin(gmst)
+    return np.array([c * station[0] - s * station[1], s * station[0] + c * station[1], station[2]]), c, s
+
+
+def light_time_s(sat, posix_r: float, station: np.ndarray) -> float:
+    """One-way light time of reception at ``posix_r`` (UTC seconds; UT1 = UTC): sgp4 position at emission,
+    the station rotated into TEME by erfa's GMST 1982."""
+    r_st, _, _ = _station_teme(station, posix_r)
+    tau = 0.0
+    for _ in range(8):
+        e, r, _ = sat.sgp4(*julian_date(posix_r - tau))
+        assert e == 0
+        tau = float(np.linalg.norm(np.array(r) - r_st)) / C_KM_S
+    return tau
+
+
+def doppler_hz(sat, posix_r: float, station: np.ndarray, carrier_hz: float, h: float = 0.01) -> float:
+    """One-way Doppler f (1 - d tau / d t_r) - f at reception, by a central difference of the light time."""
+    return -carrier_hz * (light_time_s(sat, posix_r + h, station) - light_time_s(sat, posix_r - h, station)) / (2 * h)
+
+
+def culmination_posix_s(sat, station: np.ndarray) -> float:
+    """POSIX time (UTC, on a 20 s grid) of the highest point of the first pass of the day after the epoch."""
+    epoch = (sat.jdsatepoch - 2440587.5 + sat.jdsatepochF) * 86400.0
+    best, best_t = -1.0, epoch
+    up = station / np.linalg.norm(station)
+    for k in range(0, 86400, 20):
+        t = epoch + k
+        r_st, c, s = _station_teme(station, t)
+        u = np.array([c * up[0] - s * up[1], s * up[0] + c * up[1], up[2]])
+        _, r, _ = sat.sgp4(*julian_date(t))
+        d = np.array(r) - r_st
+        elev = math.degrees(math.asin(float(np.dot(d, u)) / float(np.linalg.norm(d))))
+        if elev > best:
+            best, best_t = elev, t
+        elif best > 30 and elev < 0:
+            break
+    assert best > 30, "the invented element set must rise well above the station within a day"
+    return best_t
 
 
 if __name__ == "__main__":

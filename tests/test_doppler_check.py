@@ -10,10 +10,8 @@ within 5 Hz of the oscillator offset.
 from __future__ import annotations
 
 import json
-import math
 
 import demod_signals as ds
-import erfa  # pyerfa, installed with astropy (the [test] extra)
 import numpy as np
 import orbit_truth
 import sgp4  # noqa: F401  (a runtime dependency: missing, the test fails)
@@ -25,68 +23,16 @@ OSC_OFFSET_HZ = 850.0  # the spacecraft oscillator's offset from nominal (the me
 FS = 250e3
 RS = 60e3
 SECONDS = 4.0
-C_KM_S = 299_792.458
 LAT, LON, ALT_M = 44.7261, 3.4117, 1012.0  # the invented Hollow Ridge station (the demo profile's)
 
 
-def _station_ecef_km() -> np.ndarray:
-    # WGS-84 geodetic -> Earth-fixed (the textbook formula; a = 6378.137 km, f = 1/298.257223563)
-    a, f = 6378.137, 1 / 298.257223563
-    e2 = f * (2 - f)
-    lat, lon = math.radians(LAT), math.radians(LON)
-    n = a / math.sqrt(1 - e2 * math.sin(lat) ** 2)
-    h = ALT_M / 1000.0
-    return np.array([(n + h) * math.cos(lat) * math.cos(lon), (n + h) * math.cos(lat) * math.sin(lon),
-                     (n * (1 - e2) + h) * math.sin(lat)])
-
-
-def _jd(posix_s: float) -> tuple[float, float]:
-    return 2440587.5 + math.floor(posix_s / 86400.0), (posix_s % 86400.0) / 86400.0
-
-
-def _light_time_s(sat, posix_r: float, station: np.ndarray) -> float:
-    """One-way light time of reception at ``posix_r`` (UTC seconds; UT1 = UTC): sgp4 position at emission,
-    the station rotated into TEME by erfa's GMST 1982."""
-    gmst = erfa.gmst82(*_jd(posix_r))
-    c, s = math.cos(gmst), math.sin(gmst)
-    r_st = np.array([c * station[0] - s * station[1], s * station[0] + c * station[1], station[2]])
-    tau = 0.0
-    for _ in range(8):
-        e, r, _ = sat.sgp4(*_jd(posix_r - tau))
-        assert e == 0
-        tau = float(np.linalg.norm(np.array(r) - r_st)) / C_KM_S
-    return tau
-
-
-def _doppler_hz(sat, posix_r: float, station: np.ndarray, h: float = 0.01) -> float:
-    """One-way Doppler f (1 - d tau / d t_r) - f at reception, by a central difference of the light time."""
-    return -F_CARRIER * (_light_time_s(sat, posix_r + h, station) - _light_time_s(sat, posix_r - h, station)) / (2 * h)
-
-
-def _start_near_culmination(sat, station) -> float:
-    """POSIX time (UTC) of the highest point of the first pass of the day, less SECONDS / 2."""
-    epoch = (sat.jdsatepoch - 2440587.5 + sat.jdsatepochF) * 86400.0
-    best, best_t = -1.0, epoch
-    up = station / np.linalg.norm(station)
-    for k in range(0, 86400, 20):
-        t = epoch + k
-        gmst = erfa.gmst82(*_jd(t))
-        c, s = math.cos(gmst), math.sin(gmst)
-        r_st = np.array([c * station[0] - s * station[1], s * station[0] + c * station[1], station[2]])
-        u = np.array([c * up[0] - s * up[1], s * up[0] + c * up[1], up[2]])
-        _, r, _ = sat.sgp4(*_jd(t))
-        d = np.array(r) - r_st
-        elev = math.degrees(math.asin(float(np.dot(d, u)) / float(np.linalg.norm(d))))
-        if elev > best:
-            best, best_t = elev, t
-        elif best > 30 and elev < 0:
-            break
-    assert best > 30, "the invented element set must rise well above the station within a day"
-    return round(best_t - SECONDS / 2)
-
-
-def _decode_pass(tmp_path, *, conjugate: bool = False, receiver: str = ""):
-    """Simulate the pass (its samples conjugated: a spectrally inverted recording) and decode it with --tle."""
+def _decode_pass(tmp_path, *, conjugate: bool = False, receiver: str = "", from_culmination_s: float = 0.0,
+                 tle: bool = True, bits: np.ndarray | None = None, tuning_hz: float = 0.0):
+    """Simulate the pass (its samples conjugated: a spectrally inverted recording) and decode it with --tle
+    (``tle`` False: without); the recording's middle lies about ``from_culmination_s`` after the highest point
+    (on its 20 s grid, the start rounded to the second).  ``bits``: the channel bits to send (default: random
+    bits for about SECONDS); the profile is uncoded and randomized, TM frames of 223 octets, spacecraft 77.
+    ``tuning_hz``: the recording's centre lies this far above the nominal frequency (given in the profile)."""
     tmp_path.mkdir(parents=True, exist_ok=True)
     from sgp4.api import WGS72, Satrec
 
@@ -95,33 +41,36 @@ def _decode_pass(tmp_path, *, conjugate: bool = False, receiver: str = ""):
     l1, l2 = orbit_truth.leo_tle()
     (tmp_path / "leo.tle").write_text(f"TEST LEO\n{l1}\n{l2}\n")
     sat = Satrec.twoline2rv(l1, l2, WGS72)
-    station = _station_ecef_km()
-    t0 = _start_near_culmination(sat, station)
+    station = orbit_truth.station_ecef_km(LAT, LON, ALT_M)
+    t0 = round(orbit_truth.culmination_posix_s(sat, station) + from_culmination_s - SECONDS / 2)
     # the transmitter: BPSK, its carrier moved by the Doppler (10 ms grid, cubic in between) plus the offset
     rng = np.random.default_rng(17)
-    n_sym = int(SECONDS * RS) - 40
+    n_sym = int(SECONDS * RS) - 40 if bits is None else int(bits.size)
     wave = ds.modulate(n_sym, modulation="bpsk", sample_rate_hz=FS, symbol_rate_baud=RS, esn0_db=12.0, rng=rng,
-                       lead_symbols=20)
+                       lead_symbols=20, bits=None if bits is None else (bits, np.zeros_like(bits)))
     n = len(wave.samples)
     grid = np.arange(0.0, n / FS + 0.02, 0.01)
-    f_grid = np.array([_doppler_hz(sat, t0 + g, station) for g in grid]) + OSC_OFFSET_HZ
+    f_grid = np.array([orbit_truth.doppler_hz(sat, t0 + g, station, F_CARRIER) for g in grid]) + OSC_OFFSET_HZ
     from scipy.interpolate import CubicSpline
 
     f_t = CubicSpline(grid, f_grid)(np.arange(n) / FS)
     phase = 2 * np.pi * np.cumsum(f_t) / FS
     samples = (wave.samples * np.exp(1j * phase)).astype("<c8")
+    if tuning_hz:
+        samples = (samples * np.exp(-2j * np.pi * tuning_hz * np.arange(n) / FS)).astype("<c8")
     if conjugate:
         samples = np.conj(samples)
     (tmp_path / "pass.sigmf-data").write_bytes(samples.tobytes())
     start = format_utc(tai_from_posix_ns(int(t0) * 1_000_000_000))
     meta = {"global": {"core:datatype": "cf32_le", "core:sample_rate": FS, "core:version": "1.2.0"},
-            "captures": [{"core:sample_start": 0, "core:datetime": start, "core:frequency": F_CARRIER}],
+            "captures": [{"core:sample_start": 0, "core:datetime": start, "core:frequency": F_CARRIER + tuning_hz}],
             "annotations": []}
     (tmp_path / "pass.sigmf-meta").write_text(json.dumps(meta))
     (tmp_path / "p.toml").write_text(f"""
 name = "leo-test"
 [link]
 modulation = "bpsk"
+{f"downlink_frequency_hz = {F_CARRIER}" if tuning_hz else ""}
 symbol_rate = {RS}
 line_code = "nrz-l"
 [coding]
@@ -141,11 +90,11 @@ altitude_m = {ALT_M}
 """)
     prof = load_profile(tmp_path / "p.toml")
     out = tmp_path / "out"
-    summary = decode(tmp_path / "pass.sigmf-meta", prof, out, tle=tmp_path / "leo.tle")
+    summary = decode(tmp_path / "pass.sigmf-meta", prof, out, tle=tmp_path / "leo.tle" if tle else None)
     import csv
 
     with open(out / "doppler.csv", newline="") as f:
-        rows = [r for r in csv.DictReader(f) if r["locked"] == "True" and r["residual_hz"]]
+        rows = [r for r in csv.DictReader(f) if r["locked"] == "True" and r.get("residual_hz")]
     return rows, summary, out
 
 

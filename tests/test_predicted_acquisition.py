@@ -1,0 +1,192 @@
+"""The carrier search centred on the predicted Doppler (``decode --tle``/``--oem``).
+
+The pass: an invented low orbiter 120 s before its highest point over Hollow Ridge, where the one-way Doppler at
+S band is about +40 kHz, its carrier moved by the Doppler that sgp4 (PyPI) and erfa's GMST give
+(tests/orbit_truth.py, never pipeline.orbit), TM frames built by tests/third_party_tx.py.  Sign convention of
+the one-way Doppler: f_d = -f v_r / c, positive while the spacecraft approaches (../shared/REFERENCES.md sec. 9,
+formula from memory, not confirmed); the truth computes it as -f d(light time)/dt, the same convention.
+"""
+
+from __future__ import annotations
+
+import math
+import pickle
+
+import demod_signals as ds
+import numpy as np
+import orbit_truth
+import pytest
+import residual_signals as rs
+import test_doppler_check as pass_sim
+import third_party_tx as tx
+
+from pipeline.demod import CarrierPrediction, Demodulator
+from pipeline.demod.residual import ResidualCarrierDemodulator
+from pipeline.profile import LinkSection, ReceiverSection
+
+BEFORE_CULMINATION_S = -120.0  # the pass's Doppler is then about +40.5 kHz at 2.2455 GHz (sgp4 truth)
+NARROW_RANGE_HZ = 3000.0  # far narrower than the Doppler
+TUNING_HZ = 20e3  # the recording's centre above the nominal downlink frequency
+
+
+class _Chunk:
+    def __init__(self, samples, start):
+        self.samples, self.start, self.nonfinite = samples, start, 0
+
+
+def _frames_and_packets():
+    """Channel bits for about 4 s at 60 ksym/s: uncoded, randomized TM frames of 223 octets, spacecraft 77."""
+    rng = np.random.default_rng(3)
+    field = 223 - 6
+    n_frames = (int(pass_sim.SECONDS * pass_sim.RS) - 40 - 317 - 200) // (8 * (223 + 4)) - 1
+    packets, size = [], 0
+    while size + 400 < n_frames * field:
+        payload = bytes(rng.integers(0, 256, int(rng.integers(60, 300)), dtype=np.uint8))
+        packets.append(tx.space_packet((100, 200, 300)[len(packets) % 3], len(packets) // 3, payload))
+        size += len(packets[-1])
+    frames = tx.tm_frames(packets, scid=77, vcid=0, length=223, ocf=False, fecf=False)
+    bits = tx.channel_bits(frames, rs_e=0, interleave=1, randomize=True, conv=False, nrz_m=False)
+    return bits, packets
+
+
+def _truth_doppler_hz(t_offset_s: float) -> float:
+    """sgp4/erfa one-way Doppler at the pass's start plus ``t_offset_s`` (the helper's own start time)."""
+    from sgp4.api import WGS72, Satrec
+
+    l1, l2 = orbit_truth.leo_tle()
+    sat = Satrec.twoline2rv(l1, l2, WGS72)
+    station = orbit_truth.station_ecef_km(pass_sim.LAT, pass_sim.LON, pass_sim.ALT_M)
+    t0 = round(orbit_truth.culmination_posix_s(sat, station) + BEFORE_CULMINATION_S - pass_sim.SECONDS / 2)
+    return orbit_truth.doppler_hz(sat, t0 + t_offset_s, station, pass_sim.F_CARRIER)
+
+
+def test_a_narrow_search_loses_the_leo_carrier_without_the_orbit_and_finds_it_centred_on_the_prediction(tmp_path):
+    bits, packets = _frames_and_packets()
+    assert abs(_truth_doppler_hz(0.0)) > 10 * NARROW_RANGE_HZ  # the pass is far outside the narrow search
+    receiver = f"[receiver]\nacquisition_range_hz = {NARROW_RANGE_HZ}"
+    # without the orbit the search around the nominal frequency finds nothing: no lock, no packet
+    _, nominal, _ = pass_sim._decode_pass(tmp_path / "nominal", receiver=receiver, bits=bits, tle=False,
+                                          from_culmination_s=BEFORE_CULMINATION_S, tuning_hz=TUNING_HZ)
+    assert nominal.packets == 0 and nominal.frames == 0
+    assert nominal.no_lock.startswith(f"no carrier lock in +-{NARROW_RANGE_HZ:.0f} Hz:"), nominal.no_lock
+    assert "acquisition_centre_hz" not in nominal.report["demod"]
+    # with --tle the same search, centred on the prediction, recovers every packet
+    rows, summary, out = pass_sim._decode_pass(tmp_path / "tle", receiver=receiver, bits=bits,
+                                               from_culmination_s=BEFORE_CULMINATION_S, tuning_hz=TUNING_HZ)
+    assert summary.packets == len(packets) and summary.frames_failed == 0
+    for apid in (100, 200, 300):  # the octets of every packet, in order
+        sent = b"".join(p for p in packets if (int.from_bytes(p[:2], "big") & 0x7FF) == apid)
+        assert (out / f"apid_{apid:04d}.bin").read_bytes() == sent
+    # the centre is the sgp4 truth at the first window's middle less the tuning offset (the recording's frame);
+    # the window is the Demodulator's two first blocks
+    fs = pass_sim.FS
+    block = max(32768, 1 << math.ceil(math.log2(4096 * fs / pass_sim.RS)))
+    centre = summary.report["demod"]["acquisition_centre_hz"]
+    assert abs(centre - (_truth_doppler_hz((block - 0.5) / fs) - TUNING_HZ)) < 5.0, centre
+    # and the residuals against the same prediction are flat about the oscillator's offset (tracked, not just found)
+    residual = np.array([float(r["residual_hz"]) for r in rows[2:]])
+    assert len(residual) >= 20 and float(np.std(residual)) < 5.0
+    assert abs(float(np.mean(residual)) - pass_sim.OSC_OFFSET_HZ) < 5.0
+
+
+# ---- the Demodulator on its own ----------------------------------------------------------------------------------
+
+FS, RS = 250e3, 60e3
+
+
+def _bpsk(offset_hz: float, rate_hz_per_s: float = 0.0, seconds: float = 0.8):
+    rng = np.random.default_rng(11)
+    return ds.modulate(int(seconds * RS), modulation="bpsk", sample_rate_hz=FS, symbol_rate_baud=RS, esn0_db=10.0,
+                       rng=rng, carrier_offset_hz=offset_hz, doppler_rate_hz_per_s=rate_hz_per_s).samples
+
+
+def _run(demod, x, chunk=50_000):
+    track = []
+    for a in range(0, x.size, chunk):
+        track += demod.process(_Chunk(x[a:a + chunk], a)).track
+    track += demod.flush().track
+    return track
+
+
+@pytest.mark.parametrize("rate_hz_per_s", [0.0, -400.0])
+def test_the_demodulator_finds_a_carrier_outside_its_range_where_the_table_predicts_it(rate_hz_per_s):
+    offset = 21_000.0  # far outside +-2 kHz of the nominal frequency
+    x = _bpsk(offset, rate_hz_per_s)
+    rx = ReceiverSection(acquisition_range_hz=2000.0)
+    link = LinkSection(modulation="bpsk", symbol_rate_baud=RS)
+    plain = Demodulator(link=link, receiver=rx, sample_rate_hz=FS)
+    _run(plain, x)
+    assert plain.stats.carrier_locked_symbols == 0 and plain.stats.acquisition_centre_hz is None
+    # a prediction 600 Hz off the truth (an oscillator offset), following the same Doppler rate
+    t_end = x.size / FS
+    table = CarrierPrediction(positions=[0.0, float(x.size)],
+                              offsets_hz=[offset - 600.0, offset - 600.0 + rate_hz_per_s * t_end])
+    demod = Demodulator(link=link, receiver=rx, sample_rate_hz=FS, carrier_prediction=table)
+    track = _run(demod, x)
+    assert demod.stats.carrier_locked_symbols > 0.8 * demod.stats.symbols_out
+    mid = 0.5 * (2 * demod.block_samples - 1)
+    assert demod.stats.acquisition_centre_hz == pytest.approx(offset - 600.0 + rate_hz_per_s * mid / FS, abs=1e-3)
+    locked = [tp for tp in track if tp.carrier_locked]
+    for tp in locked[2:]:  # the measured carrier is the transmitter's, not the prediction's
+        assert abs(tp.carrier_offset_hz - (offset + rate_hz_per_s * tp.position / FS)) < 20.0
+
+
+def test_the_residual_carrier_search_is_centred_on_the_prediction():
+    # PCM/PM NRZ, 8 ksym/s at 200 kHz, carrier 30 kHz off nominal; search +-2 kHz
+    link = LinkSection(modulation="pcm-pm", symbol_rate_baud=8000.0, line_code="nrz-l", pulse="rect",
+                       modulation_index_rad=1.1)
+    fs, offset = 200e3, 30_000.0
+    sig = rs.transmit(16000, wave="nrz", sample_rate_hz=fs, symbol_rate_baud=8000.0, index_rad=1.1, esn0_db=8.0,
+                      carrier_hz=offset, rate_hz_per_s=-200.0)
+    x = sig.samples
+    rx = ReceiverSection(acquisition_range_hz=2000.0)
+    plain = ResidualCarrierDemodulator(link=link, receiver=rx, sample_rate_hz=fs)
+    _run(plain, x)
+    assert plain.stats.carrier_locked_symbols == 0
+    t_end = x.size / fs
+    table = CarrierPrediction(positions=[0.0, float(x.size)],
+                              offsets_hz=[offset + 500.0, offset + 500.0 - 200.0 * t_end])
+    demod = ResidualCarrierDemodulator(link=link, receiver=rx, sample_rate_hz=fs, carrier_prediction=table)
+    track = _run(demod, x)
+    assert demod.stats.carrier_locked_symbols > 0.8 * demod.stats.symbols_out
+    assert abs(demod.stats.acquisition_centre_hz - (offset + 500.0)) < 200.0
+    locked = [tp for tp in track if tp.carrier_locked]
+    assert len(locked) >= 10
+    for tp in locked[2:]:
+        assert abs(tp.carrier_offset_hz - (offset - 200.0 * tp.position / fs)) < 5.0
+
+
+# ---- the table -----------------------------------------------------------------------------------------------------
+
+def test_the_rotation_is_the_integral_of_the_piecewise_straight_prediction():
+    # slow reference: the phase at sample k is -2 pi times the exact integral of the piecewise-linear offset from
+    # the start to k (trapezoids between knots and sample ends), per sample
+    fs = 1000.0
+    table = CarrierPrediction(positions=[10.0, 60.0, 90.0], offsets_hz=[50.0, -20.0, 80.0])
+    start, n = 0, 120
+    rot = table.rotation(start, n, fs)
+    ref = np.empty(n, dtype=np.complex128)
+    for k in range(n):
+        grid = sorted({float(start), float(start + k), *[p for p in table.positions if start < p < start + k]})
+        f = [float(np.interp(p, table.positions, table.offsets_hz)) for p in grid]
+        cycles = sum(0.5 * (f[i] + f[i + 1]) * (grid[i + 1] - grid[i]) for i in range(len(grid) - 1)) / fs
+        ref[k] = np.exp(-2j * math.pi * cycles)
+    # the midpoint rule is exact on straight pieces; a sample straddling a knot errs by under (df/dp) / (8 fs) cycles
+    assert np.max(np.abs(rot - ref)) < 2 * math.pi * 1.4 / (8 * fs) + 1e-5
+    assert table.rate_hz_per_s(30.0, fs) == pytest.approx(-1400.0 * fs / 1000.0)
+    assert table.rate_hz_per_s(5.0, fs) == 0.0 and table.rate_hz_per_s(95.0, fs) == 0.0
+
+
+def test_the_table_is_validated_and_travels_to_workers():
+    table = CarrierPrediction(positions=[0.0, 125000.0], offsets_hz=[40e3, 39.9e3])
+    assert pickle.loads(pickle.dumps(table)) == table
+    with pytest.raises(ValueError, match="strictly increasing"):
+        CarrierPrediction(positions=[0.0, 0.0], offsets_hz=[1.0, 2.0])
+    with pytest.raises(ValueError, match="one equal length"):
+        CarrierPrediction(positions=[0.0, 1.0], offsets_hz=[1.0])
+    with pytest.raises(ValueError, match="finite"):
+        CarrierPrediction(positions=[0.0, 1.0], offsets_hz=[1.0, float("nan")])
+    link = LinkSection(modulation="bpsk", symbol_rate_baud=RS)
+    with pytest.raises(TypeError, match="Argument 'carrier_prediction' must be a CarrierPrediction or None, not "
+                                        "tuple."):
+        Demodulator(link=link, receiver=ReceiverSection(), sample_rate_hz=FS, carrier_prediction=([0.0], [1.0]))
