@@ -285,6 +285,40 @@ def test_kat_reencode_kernel_matches_fec_encoder(rate, g2_inverted):
     assert states[-1] == last
 
 
+
+@pytest.mark.kat
+@pytest.mark.parametrize("rate", ["1/2", "3/4"])
+def test_kat_reencode_kernel_sums_as_the_obvious_loop(rate):
+    # Noisy soft symbols: the kernel's metrics equal, to the last bit, a plain loop that adds +s for a re-encoded
+    # bit 0 and -s for a bit 1 in transmission order (the definition, BranchSync Notes; encoder
+    # pipeline.fec.conv_encode, CCSDS 131.0-B-2 sec. 3.3 and 3.4), and the last block may be short.
+    from pipeline.sync import _branchsync as B
+    from pipeline.sync import _kernels
+
+    rng = np.random.default_rng(11)
+    pat = puncture_pattern(rate)
+    kp = pat.shape[1]
+    bits = rng.integers(0, 2, 9 * kp * 4 + kp, dtype=np.uint8)
+    code = conv_encode(bits, rate)
+    soft = ((1.0 - 2.0 * code) + rng.normal(0.0, 0.8, code.size)).astype(np.float32)
+    block = 4 * kp
+    n_blocks = -(-bits.size // block)
+    metrics, states = np.zeros(n_blocks), np.zeros(n_blocks, np.int64)
+    _kernels.reencode_metrics(bits, 0, B._G1_MASK, B._G2_MASK, int(rate == "1/2"), np.ascontiguousarray(pat[0]),
+                              np.ascontiguousarray(pat[1]), B._PARITY, soft, block, metrics, states)
+    per_bit = [int(pat[0, i % kp]) + int(pat[1, i % kp]) for i in range(bits.size)]
+    k = 0
+    for j in range(n_blocks):
+        corr = mag = 0.0
+        for i in range(j * block, min((j + 1) * block, bits.size)):
+            for _ in range(per_bit[i]):
+                s = float(soft[k])
+                corr = corr - s if code[k] else corr + s
+                mag += abs(s)
+                k += 1
+        assert metrics[j] == corr / mag
+
+
 # ---- uncoded QPSK: rotation by markers --------------------------------------------------------------------
 def uncoded_cadu_stream(rng, n_frames, frame_bits=2000):
     from pipeline.fec import ASM

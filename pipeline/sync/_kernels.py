@@ -164,6 +164,14 @@ def reencode_metrics(bits, state, g1_mask, g2_mask, g2_invert, keep1, keep2, par
     """
     period = keep1.shape[0]
     n = bits.shape[0]
+    # +1.0 / -1.0 per register value for each generator (the sign of a code bit 0 / 1): the sums below
+    # add +-s without a branch on the data (the same terms, in the same order, as ``corr +=`` / ``-=``)
+    sign1 = np.empty(128, np.float64)
+    sign2 = np.empty(128, np.float64)
+    for r in range(128):
+        sign1[r] = 1.0 - 2.0 * parity[r & g1_mask]
+        sign2[r] = 1.0 - 2.0 * (parity[r & g2_mask] ^ g2_invert)
+    unpunctured = period == 1 and keep1[0] != 0 and keep2[0] != 0
     k = 0
     phase = 0
     for j in range(metrics.shape[0]):
@@ -173,28 +181,34 @@ def reencode_metrics(bits, state, g1_mask, g2_mask, g2_invert, keep1, keep2, par
             b = n
         corr = 0.0
         mag = 0.0
-        for i in range(a, b):
-            reg = ((state << 1) | bits[i]) & 127
-            state = reg & 63
-            if keep1[phase]:
+        if unpunctured:  # rate 1/2: two symbols per bit
+            for i in range(a, b):
+                reg = ((state << 1) | bits[i]) & 127
+                state = reg & 63
                 s = np.float64(soft[k])
-                k += 1
-                if parity[reg & g1_mask]:
-                    corr -= s
-                else:
-                    corr += s
+                corr += s * sign1[reg]
                 mag += abs(s)
-            if keep2[phase]:
-                s = np.float64(soft[k])
-                k += 1
-                if parity[reg & g2_mask] ^ g2_invert:
-                    corr -= s
-                else:
-                    corr += s
+                s = np.float64(soft[k + 1])
+                corr += s * sign2[reg]
                 mag += abs(s)
-            phase += 1
-            if phase == period:
-                phase = 0
+                k += 2
+        else:
+            for i in range(a, b):
+                reg = ((state << 1) | bits[i]) & 127
+                state = reg & 63
+                if keep1[phase]:
+                    s = np.float64(soft[k])
+                    k += 1
+                    corr += s * sign1[reg]
+                    mag += abs(s)
+                if keep2[phase]:
+                    s = np.float64(soft[k])
+                    k += 1
+                    corr += s * sign2[reg]
+                    mag += abs(s)
+                phase += 1
+                if phase == period:
+                    phase = 0
         metrics[j] = corr / mag if mag > 0.0 else 0.0
         states[j] = state
     return k
