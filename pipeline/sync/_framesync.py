@@ -278,6 +278,8 @@ class FrameSync:
         self.flywheel = int(flywheel)
         self.slip_bits = int(slip_bits)
         self.keep_soft = bool(keep_soft)
+        # hard correlation reads only the hard decisions: the soft bits are kept only when a CADU carries them
+        self._store_soft = self.keep_soft or self.correlation == "soft"
         self.marker_bits = m
         self.cadu_bits = m + self.frame_bits
         self._marker = np.unpackbits(np.frombuffer(asm, dtype=np.uint8)).astype(np.uint8)
@@ -356,14 +358,21 @@ class FrameSync:
     # ---- the bit buffer -------------------------------------------------------------------------
     # ``_hard``, ``_soft``, ``_pos`` are views of the bits held, ``_hard[0]`` being absolute bit ``_base``;
     # they live at ``_off`` in arrays of capacity ``_cap`` that double when full and are compacted in place.
+    # ``_soft`` is empty when the soft bits are not stored (hard correlation without ``keep_soft``).
     def _views(self) -> None:
         a, b = self._off, self._off + self._held_bits
         self._hard, self._soft, self._pos = self._hard_buf[a:b], self._soft_buf[a:b], self._pos_buf[a:b]
 
+    def _buffers(self) -> tuple:
+        """The arrays that hold bits: hard decisions, positions and (when stored) soft bits."""
+        if self._store_soft:
+            return self._hard_buf, self._pos_buf, self._soft_buf
+        return self._hard_buf, self._pos_buf
+
     def _new_buffer(self, capacity: int) -> None:
         self._cap = capacity
         self._hard_buf = np.zeros(capacity, dtype=np.uint8)
-        self._soft_buf = np.zeros(capacity, dtype=np.float32)
+        self._soft_buf = np.zeros(capacity if self._store_soft else 0, dtype=np.float32)
         self._pos_buf = np.zeros(capacity, dtype=np.float64)
         self._off = 0
 
@@ -371,15 +380,16 @@ class FrameSync:
         n, held = soft.size, self._held_bits
         self._last_chunk = n
         if self._off + held + n > self._cap:
-            old = (self._hard, self._soft, self._pos)
+            old = [buf[self._off : self._off + held] for buf in self._buffers()]
             if held + n > self._cap // 2:  # grow: the copy costs at most as much as the appends since the last
                 self._new_buffer(max(2 * self._cap, 2 * (held + n)))
             else:  # compact in place: the live part (at most half) moves to the front
                 self._off = 0
-            for buf, src in zip((self._hard_buf, self._soft_buf, self._pos_buf), old):
+            for buf, src in zip(self._buffers(), old):
                 buf[:held] = src
         a = self._off + held
-        self._soft_buf[a : a + n] = soft
+        if self._store_soft:
+            self._soft_buf[a : a + n] = soft
         self._pos_buf[a : a + n] = position
         _kernels.hard_decisions(soft, self._hard_buf[a : a + n])
         self._held_bits = held + n
@@ -394,9 +404,9 @@ class FrameSync:
         self._views()
         held = self._held_bits
         if self._cap > 4 * max(_MIN_BUFFER_BITS, held + self._last_chunk):  # after a large chunk or a long search
-            old = (self._hard[:held], self._soft[:held], self._pos[:held])
+            old = [buf[self._off : self._off + held] for buf in self._buffers()]
             self._new_buffer(max(_MIN_BUFFER_BITS, 2 * (held + self._last_chunk)))
-            for buf, src in zip((self._hard_buf, self._soft_buf, self._pos_buf), old):
+            for buf, src in zip(self._buffers(), old):
                 buf[:held] = src
         self._views()
 
