@@ -602,11 +602,12 @@ def test_kat_branch_output_kernel_matches_the_branch_index(rate):
     bits = np.array([0, 1, 1, 0, 1, 0, 0, 0, 1, 1, 1], dtype=np.uint8)  # not a whole number of periods
     raw_pos = np.arange(100, dtype=np.float64) * 0.5 + 7.0
     first = 3
-    signs, pos = np.empty(bits.size, np.float32), np.empty(bits.size, np.float64)
-    _kernels.branch_output(bits, raw_pos, first, period_index, P, signs, pos)
     want_pos = raw_pos[first + conv_bit_symbol_index(bits.size, rate)]
-    assert np.array_equal(pos, want_pos)
-    assert signs.tolist() == [1.0 - 2.0 * b for b in bits.tolist()]
+    for cut in (0, 4, 9, 10, 25, 100):  # the positions in two pieces, split anywhere
+        signs, pos = np.empty(bits.size, np.float32), np.empty(bits.size, np.float64)
+        _kernels.branch_output(bits, raw_pos[:cut], raw_pos[cut:], first, period_index, P, signs, pos)
+        assert np.array_equal(pos, want_pos), cut
+        assert signs.tolist() == [1.0 - 2.0 * b for b in bits.tolist()]
 
 
 def test_memory_follows_the_calls_not_the_stream(rng):

@@ -386,13 +386,16 @@ class BranchSync:
 
     # ---- internals --------------------------------------------------------------------------------
     def _clear_stream(self) -> None:
-        # the channel bits still needed live in [_head, _tail) of two reused buffers; _raw_soft / _raw_pos are
-        # views of that window (appending copies the new input once, trimming only moves _head)
+        # the soft channel bits still needed live in [_head, _tail) of a reused buffer; _raw_soft is a view of
+        # that window (appending copies the new input once, trimming only moves _head).  Their positions are two
+        # pieces: _pos_kept (owned) from _raw_base on, then _pos_new, the current call's input array, which is
+        # read during the call only: at its end the part still needed is copied into _pos_kept (O(held), not
+        # O(input): most of the input is output within the call)
         self._buf_soft = np.zeros(0, np.float32)
-        self._buf_pos = np.zeros(0, np.float64)
         self._head = self._tail = 0
         self._raw_soft = self._buf_soft[:0]
-        self._raw_pos = self._buf_pos[:0]
+        self._pos_kept = np.zeros(0, np.float64)
+        self._pos_new = self._pos_kept
         self._raw_base = 0  # absolute channel index of _raw_soft[0]
         self._n_in = 0
         self._hyp: tuple[int, int] | None = (0, 0) if self.marker_rotation else None
@@ -422,6 +425,7 @@ class BranchSync:
             bits, pos = np.zeros(0, np.float32), np.zeros(0, np.float64)
         self._out_bits, self._out_pos = [], []
         self._trim()
+        self._keep_positions()
         return bits, pos
 
     def _frontier(self) -> int:
@@ -443,28 +447,48 @@ class BranchSync:
             self._head += drop
             self._raw_base += drop
             self._raw_soft = self._buf_soft[self._head : self._tail]
-            self._raw_pos = self._buf_pos[self._head : self._tail]
+            k = self._pos_kept.size
+            if drop <= k:
+                self._pos_kept = self._pos_kept[drop:]
+            else:
+                self._pos_new = self._pos_new[drop - k :]
+                self._pos_kept = self._pos_kept[:0]
+
+    def _keep_positions(self) -> None:
+        """End of a call: the positions still needed become one owned array (the caller's input is let go)."""
+        self._pos_kept = np.concatenate((self._pos_kept, self._pos_new))
+        self._pos_new = self._pos_kept[:0]
+
+    def _pos_at(self, i: int) -> float:
+        """Position of absolute channel bit ``i`` (held)."""
+        r, k = i - self._raw_base, self._pos_kept.size
+        return float(self._pos_kept[r] if r < k else self._pos_new[r - k])
+
+    def _pos_range(self, a: int, b: int) -> np.ndarray:
+        """Positions of absolute channel bits [a, b) (held), as an array of their own."""
+        r0, r1, k = a - self._raw_base, b - self._raw_base, self._pos_kept.size
+        return np.concatenate((self._pos_kept[min(r0, k) : min(r1, k)], self._pos_new[max(r0 - k, 0) : max(r1 - k, 0)]))
 
     def _append_raw(self, soft: np.ndarray, position: np.ndarray) -> None:
-        """Append channel bits to the live window; the buffers are compacted (live part to the front), grown or
-        shrunk only when the new input does not fit behind it, so memory stays at 2 to 8 times what is held."""
+        """Append channel bits to the live window; the soft buffer is compacted (live part to the front), grown or
+        shrunk only when the new input does not fit behind it, so memory stays at 2 to 8 times what is held.
+        The positions are read from the caller's array until the end of the call (:meth:`_keep_positions`)."""
         n, live = soft.size, self._tail - self._head
         if self._tail + n > self._buf_soft.size:
             if not 2 * (live + n) <= self._buf_soft.size <= 8 * (live + n):
                 # grow (to twice what is needed: later calls fit), or shrink after a much larger call
-                cap = 2 * (live + n)
-                soft_buf, pos_buf = np.empty(cap, np.float32), np.empty(cap, np.float64)
+                soft_buf = np.empty(2 * (live + n), np.float32)
             else:
-                soft_buf, pos_buf = self._buf_soft, self._buf_pos
+                soft_buf = self._buf_soft
             soft_buf[:live] = self._buf_soft[self._head : self._tail]  # (overlapping moves are safe in numpy)
-            pos_buf[:live] = self._buf_pos[self._head : self._tail]
-            self._buf_soft, self._buf_pos = soft_buf, pos_buf
+            self._buf_soft = soft_buf
             self._head, self._tail = 0, live
         self._buf_soft[self._tail : self._tail + n] = soft
-        self._buf_pos[self._tail : self._tail + n] = position
         self._tail += n
         self._raw_soft = self._buf_soft[self._head : self._tail]
-        self._raw_pos = self._buf_pos[self._head : self._tail]
+        if self._pos_new.size:  # (each call ends with _keep_positions: not reached)
+            self._keep_positions()
+        self._pos_new = position
 
     def _view(self, a: int, b: int, rotation: int) -> np.ndarray:
         """Soft channel bits [a, b) (absolute) with the rotation hypothesis applied."""
@@ -579,7 +603,7 @@ class BranchSync:
             if b - a < Bm and not (final and b > a):
                 if final and self._n_in > self._fed:  # a last odd channel bit cannot be rotated: pass it
                     self._out_bits.append(self._raw_soft[self._fed - self._raw_base :].copy())
-                    self._out_pos.append(self._raw_pos[self._fed - self._raw_base :].copy())
+                    self._out_pos.append(self._pos_range(self._fed, self._n_in))
                     self.stats.bits_out += self._n_in - self._fed
                     self._fed = self._n_in
                 return
@@ -606,7 +630,7 @@ class BranchSync:
             # unrotated, the block is a view into the input buffer, which is reused: copied then; a rotated one
             # is an array of its own
             self._out_bits.append(block.copy() if self._hyp[1] == 0 else block)
-            self._out_pos.append(self._raw_pos[a - self._raw_base : b - self._raw_base].copy())
+            self._out_pos.append(self._pos_range(a, b))
             self.stats.bits_out += b - a
             self._fed = b
 
@@ -615,7 +639,7 @@ class BranchSync:
         self._hyp = (0, rot)
         self.stats.switches += 1
         self.events.append(SyncEvent(kind="branch_selected", bit_index=self.stats.bits_out,
-                                     position=float(self._raw_pos[a - self._raw_base]),
+                                     position=self._pos_at(a),
                                      detail=f"rotation {self._rotation_text(rot)} ({why})"))
 
     def _run(self, final: bool) -> None:
@@ -725,7 +749,7 @@ class BranchSync:
         self._bad = 0
         self.stats.switches += 1
         # (at the very end of a stream the segment may start after the last bit: use the last position)
-        pos = float(self._raw_pos[min(self._seg_start, self._n_in - 1) - self._raw_base])
+        pos = self._pos_at(min(self._seg_start, self._n_in - 1))
         self.events.append(
             SyncEvent(
                 kind="branch_selected",
@@ -853,8 +877,8 @@ class BranchSync:
         if n_out > 0:
             a = self._frontier()
             signs, pos = np.empty(n_out, np.float32), np.empty(n_out, np.float64)
-            _kernels.branch_output(self._seg_bits[:n_out], self._raw_pos, a - self._raw_base, self._period_index,
-                                   self.period_symbols, signs, pos)
+            _kernels.branch_output(self._seg_bits[:n_out], self._pos_kept, self._pos_new, a - self._raw_base,
+                                   self._period_index, self.period_symbols, signs, pos)
             self._out_bits.append(signs)
             self._out_pos.append(pos)
             self.stats.bits_out += n_out

@@ -215,9 +215,11 @@ def reencode_metrics(bits, state, g1_mask, g2_mask, g2_invert, keep1, keep2, par
 
 
 @numba.njit(cache=True)
-def branch_output(bits, raw_pos, first, period_index, period_symbols, signs, positions):  # pragma: no cover
-    """Decoded bits -> output values and positions (two simple loops, which compile to vector code).
+def branch_output(bits, pos_head, pos_rest, first, period_index, period_symbols, signs, positions):  # pragma: no cover
+    """Decoded bits -> output values and positions (simple loops, which compile to vector code).
 
+    The channel bits' positions are held in two pieces, ``raw_pos = concatenate((pos_head, pos_rest))``
+    (the positions kept from earlier calls, and those of the current input: no copy joins them).
     ``signs[i] = 1 - 2 bits[i]`` (float32: +1.0 for bit 0, -1.0 for bit 1) and ``positions[i] =
     raw_pos[first + (i // kp) * period_symbols + period_index[i % kp]]``, ``kp = len(period_index)``
     information bits per puncturing period: the position of the first channel bit of bit i's branch
@@ -225,12 +227,19 @@ def branch_output(bits, raw_pos, first, period_index, period_symbols, signs, pos
     """
     kp = period_index.shape[0]
     n = bits.shape[0]
+    nh = pos_head.shape[0]
     for i in range(n):
         signs[i] = np.float32(1 - 2 * np.int64(bits[i]))
-    if kp == 1:  # rate 1/2: a strided copy
+    if kp == 1:  # rate 1/2: two strided copies, the bits whose channel bit is in the head, then the rest
         at = first + period_index[0]
-        for i in range(n):
-            positions[i] = raw_pos[at + i * period_symbols]
+        split = 0
+        if nh > at:
+            split = min(n, (nh - at + period_symbols - 1) // period_symbols)
+        for i in range(split):
+            positions[i] = pos_head[at + i * period_symbols]
+        at -= nh
+        for i in range(split, n):
+            positions[i] = pos_rest[at + i * period_symbols]
         return
     i = 0
     at = first
@@ -238,6 +247,7 @@ def branch_output(bits, raw_pos, first, period_index, period_symbols, signs, pos
         for r in range(kp):
             if i == n:
                 break
-            positions[i] = raw_pos[at + period_index[r]]
+            j = at + period_index[r]
+            positions[i] = pos_head[j] if j < nh else pos_rest[j - nh]
             i += 1
         at += period_symbols
