@@ -340,6 +340,7 @@ class FrameSync:
         out: list[Cadu] = []
         self._advance(out, final=False)
         self._trim()
+        self._keep_positions()
         return out
 
     def flush(self) -> list[Cadu]:
@@ -356,24 +357,37 @@ class FrameSync:
         return out
 
     # ---- the bit buffer -------------------------------------------------------------------------
-    # ``_hard``, ``_soft``, ``_pos`` are views of the bits held, ``_hard[0]`` being absolute bit ``_base``;
-    # they live at ``_off`` in arrays of capacity ``_cap`` that double when full and are compacted in place.
-    # ``_soft`` is empty when the soft bits are not stored (hard correlation without ``keep_soft``).
+    # ``_hard`` and ``_soft`` are views of the bits held, ``_hard[0]`` being absolute bit ``_base``; they live
+    # at ``_off`` in arrays of capacity ``_cap`` that double when full and are compacted in place.  ``_soft`` is
+    # empty when the soft bits are not stored (hard correlation without ``keep_soft``).  The positions are two
+    # pieces: ``_pos_kept`` (owned) from ``_base`` on, then ``_pos_new``, the current call's input array, read
+    # during the call only: at its end the part still held is copied into ``_pos_kept`` (O(held), not O(input)).
     def _views(self) -> None:
         a, b = self._off, self._off + self._held_bits
-        self._hard, self._soft, self._pos = self._hard_buf[a:b], self._soft_buf[a:b], self._pos_buf[a:b]
+        self._hard, self._soft = self._hard_buf[a:b], self._soft_buf[a:b]
 
     def _buffers(self) -> tuple:
-        """The arrays that hold bits: hard decisions, positions and (when stored) soft bits."""
+        """The arrays that hold bits: hard decisions and (when stored) soft bits."""
         if self._store_soft:
-            return self._hard_buf, self._pos_buf, self._soft_buf
-        return self._hard_buf, self._pos_buf
+            return self._hard_buf, self._soft_buf
+        return (self._hard_buf,)
+
+    def _keep_positions(self) -> None:
+        """End of a call: the positions still held become one owned array (the caller's input is let go)."""
+        self._pos_kept = np.concatenate((self._pos_kept, self._pos_new))
+        self._pos_new = self._pos_kept[:0]
+
+    def _pos_at(self, at: int) -> float:
+        """Position of absolute bit ``at``; NaN when it is not held."""
+        r, k = at - self._base, self._pos_kept.size
+        if not 0 <= r < self._held_bits:
+            return float("nan")
+        return float(self._pos_kept[r] if r < k else self._pos_new[r - k])
 
     def _new_buffer(self, capacity: int) -> None:
         self._cap = capacity
         self._hard_buf = np.zeros(capacity, dtype=np.uint8)
         self._soft_buf = np.zeros(capacity if self._store_soft else 0, dtype=np.float32)
-        self._pos_buf = np.zeros(capacity, dtype=np.float64)
         self._off = 0
 
     def _append(self, soft: np.ndarray, position: np.ndarray) -> None:
@@ -390,12 +404,20 @@ class FrameSync:
         a = self._off + held
         if self._store_soft:
             self._soft_buf[a : a + n] = soft
-        self._pos_buf[a : a + n] = position
+        if self._pos_new.size:  # (each call ends with _keep_positions: not reached)
+            self._keep_positions()
+        self._pos_new = position
         _kernels.hard_decisions(soft, self._hard_buf[a : a + n])
         self._held_bits = held + n
         self._views()
 
     def _drop(self, count: int) -> None:
+        k = self._pos_kept.size
+        if count <= k:
+            self._pos_kept = self._pos_kept[count:]
+        else:
+            self._pos_new = self._pos_new[count - k :]
+            self._pos_kept = self._pos_kept[:0]
         self._off += count
         self._held_bits -= count
         self._base += count
@@ -415,6 +437,8 @@ class FrameSync:
         self._new_buffer(_MIN_BUFFER_BITS)
         self._held_bits = 0
         self._last_chunk = 0
+        self._pos_kept = np.zeros(0, np.float64)
+        self._pos_new = self._pos_kept
         self._views()
         self._base = end  # absolute bit index of self._hard[0]
         self._end = end  # absolute index one past the last bit received
@@ -718,7 +742,7 @@ class FrameSync:
         self._last_cadu_end = at + L
         return Cadu(
             data=np.packbits(bits).tobytes(),
-            position=float(self._pos[r]),
+            position=self._pos_at(at),
             asm_errors=int(asm_errors),
             inverted=self._inverted,
             flywheel=flywheel,
@@ -728,6 +752,5 @@ class FrameSync:
         )
 
     def _event(self, kind: str, at: int, offset_bits: int = 0, detail: str = "") -> None:
-        r = at - self._base
-        pos = float(self._pos[r]) if 0 <= r < self._pos.size else float("nan")
+        pos = self._pos_at(at)
         self.events.append(SyncEvent(kind=kind, bit_index=at, position=pos, offset_bits=offset_bits, detail=detail))
