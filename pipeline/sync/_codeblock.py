@@ -207,18 +207,28 @@ class CodeblockDecoder:
 
     def _rs_batch(self, cadus: list) -> list[DecodedFrame]:
         """:meth:`process` for several valid CADUs of a Reed-Solomon link: one decoder call for all of them
-        (:func:`pipeline.fec.rs_decode_blocks`, the same kernel), then each frame as :meth:`process` makes it."""
+        (:func:`pipeline.fec.rs_decode_blocks`, the same kernel) and the statistics of the batch at once, then
+        each frame as :meth:`process` makes it (a frame with a failed codeword through :meth:`_rs_frame`)."""
         blocks = np.frombuffer(b"".join(c.data for c in cadus), dtype=np.uint8).reshape(len(cadus), -1)
         if self._pn is not None:
             blocks = blocks ^ self._pn
         data, corrected = rs_decode_blocks(blocks, e=self.reed_solomon, interleave=self.interleave)
+        failed = (corrected < 0).any(axis=1)
         st = self.stats
+        st.codeblocks += len(cadus)
+        st.flywheel_codeblocks += sum(1 for c in cadus if c.flywheel)
+        frames = data[:, : self.frame_bytes]
+        good = corrected[~failed]
+        st.codewords += good.size
+        st.codewords_corrected += int(np.count_nonzero(good > 0))
+        st.symbols_corrected += int(good.sum())
+        st.ok += len(good)
         out = []
-        for j, cadu in enumerate(cadus):
-            st.codeblocks += 1
-            if cadu.flywheel:
-                st.flywheel_codeblocks += 1
-            out.append(self._rs_frame(cadu, blocks[j], data[j], corrected[j]))
+        for j, (cadu, row, bad) in enumerate(zip(cadus, corrected.tolist(), failed.tolist())):
+            if bad:
+                out.append(self._rs_frame(cadu, blocks[j], data[j], row))
+            else:
+                out.append(DecodedFrame(frame=frames[j].tobytes(), status="ok", rs_corrected=tuple(row), cadu=cadu))
         return out
 
     def _rs_frame(self, cadu: Cadu, block: np.ndarray, data: np.ndarray, corrected) -> DecodedFrame:
