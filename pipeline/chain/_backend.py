@@ -205,6 +205,8 @@ class BackEnd:
         self.gaps: list[dict] = []
         self.events: list[dict] = []  # receiver lock changes
         self._was_locked: bool | None = None
+        # ERT text of recent positions: a frame's packets (and gaps) carry the position of the frame they started in
+        self._ert_recent: dict[float, str | None] = {}
 
     # ---- feeding --------------------------------------------------------------------------
     def process(self, out) -> None:
@@ -272,7 +274,12 @@ class BackEnd:
         """The ERT string of a position (the centre of a frame's first ASM symbol); None without a time base."""
         if self.clock is None:
             return None
-        return self.clock.ert(position)
+        text = self._ert_recent.get(position)
+        if text is None:
+            if len(self._ert_recent) >= 64:
+                self._ert_recent.clear()
+            text = self._ert_recent[position] = self.clock.ert(position)
+        return text
 
     def _packet(self, pkt) -> None:
         self.packet_count += 1
