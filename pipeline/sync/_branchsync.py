@@ -13,7 +13,6 @@ from pipeline.fec import (
     ViterbiDecoder,
     conv_bit_symbol_index,
     conv_encode,
-    conv_output_length,
     puncture_pattern,
     viterbi_decode,
 )
@@ -309,6 +308,8 @@ class BranchSync:
                 self._period_index = self._period_index - self._period_index % 2
             self._period_index = np.ascontiguousarray(self._period_index, dtype=np.int64)
             self._keep1 = np.ascontiguousarray(pat[0], dtype=np.uint8)
+            # channel bits sent for the first r information bits of a puncturing period, r = 0 .. kp
+            self._symbols_before = [0] + np.cumsum(pat.sum(axis=0)).astype(int).tolist()
             self._keep2 = np.ascontiguousarray(pat[1], dtype=np.uint8)
             self.hypotheses = tuple((off, rot) for rot in self.rotations for off in range(P))
             # validates traceback_depth and g2_inverted once, here, and resolves the G2 convention
@@ -836,7 +837,8 @@ class BranchSync:
         if n_blocks:
             n_bits = min(n_blocks * B, have - self._scored)
             a = self._seg_start + (self._scored // B) * Bs
-            soft = np.ascontiguousarray(self._view(a, a + conv_output_length(n_bits, self.rate), rot))
+            n_sym = (n_bits // self.period_bits) * self.period_symbols + self._symbols_before[n_bits % self.period_bits]
+            soft = np.ascontiguousarray(self._view(a, a + n_sym, rot))
             metrics = np.empty(n_blocks, np.float64)
             states = np.empty(n_blocks, np.int64)
             r = self._scored - self._seg_done
