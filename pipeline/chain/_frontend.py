@@ -309,7 +309,8 @@ class FrontEnd:
             return
         # CCSDS 131.0-B-2 sec. 3.3.3: NRZ-M conversion is done at the convolutional encoder input,
         # so it is undone at the decoder output (uncoded links: the same place, on channel bits).
-        bits = self.line.process(bits)
+        if self.line.line_code != "nrz-l":  # (NRZ-L is the identity: no copy of the bits)
+            bits = self.line.process(bits)
         was = self.fsync.locked
         self._out.frames.extend(self.codeblock.process_cadus(self.fsync.process(bits, pos)))
         if was and not self.fsync.locked:
