@@ -271,19 +271,18 @@ def test_kat_reencode_kernel_matches_fec_encoder(rate, g2_inverted):
     metrics = np.zeros(7, np.float64)
     states = np.zeros(7, np.int64)
     used = _kernels.reencode_metrics(bits, 0, B._G1_MASK, B._G2_MASK, invert, np.ascontiguousarray(pat[0]),
-                                     np.ascontiguousarray(pat[1]), B._PARITY, soft, block, metrics, states)
+                                     np.ascontiguousarray(pat[1]), B._PARITY, soft, soft[:0], block, metrics, states)
     assert used == code.size
     assert np.allclose(metrics, 1.0)
     # one flipped symbol lowers exactly its block's metric
     soft[1] = -soft[1]
     _kernels.reencode_metrics(bits, 0, B._G1_MASK, B._G2_MASK, invert, np.ascontiguousarray(pat[0]),
-                              np.ascontiguousarray(pat[1]), B._PARITY, soft, block, metrics, states)
+                              np.ascontiguousarray(pat[1]), B._PARITY, soft, soft[:0], block, metrics, states)
     assert metrics[0] < 1.0 and np.allclose(metrics[1:], 1.0)
     last = 0
     for b in bits:
         last = ((last << 1) | int(b)) & 63
     assert states[-1] == last
-
 
 
 @pytest.mark.kat
@@ -305,7 +304,13 @@ def test_kat_reencode_kernel_sums_as_the_obvious_loop(rate):
     n_blocks = -(-bits.size // block)
     metrics, states = np.zeros(n_blocks), np.zeros(n_blocks, np.int64)
     _kernels.reencode_metrics(bits, 0, B._G1_MASK, B._G2_MASK, int(rate == "1/2"), np.ascontiguousarray(pat[0]),
-                              np.ascontiguousarray(pat[1]), B._PARITY, soft, block, metrics, states)
+                              np.ascontiguousarray(pat[1]), B._PARITY, soft, soft[:0], block, metrics, states)
+    for cut in (0, 1, 7, 8 * kp, 33, soft.size):  # the symbols in two pieces, split anywhere: the same sums
+        split, split_states = np.zeros(n_blocks), np.zeros(n_blocks, np.int64)
+        _kernels.reencode_metrics(bits, 0, B._G1_MASK, B._G2_MASK, int(rate == "1/2"), np.ascontiguousarray(pat[0]),
+                                  np.ascontiguousarray(pat[1]), B._PARITY, soft[:cut], soft[cut:], block, split,
+                                  split_states)
+        assert np.array_equal(split, metrics) and np.array_equal(split_states, states), cut
     per_bit = [int(pat[0, i % kp]) + int(pat[1, i % kp]) for i in range(bits.size)]
     k = 0
     for j in range(n_blocks):
@@ -611,18 +616,21 @@ def test_kat_branch_output_kernel_matches_the_branch_index(rate):
 
 
 def test_memory_follows_the_calls_not_the_stream(rng):
-    """Constant memory on a stream: after one large call the raw buffers shrink back to a few small calls'
-    worth, and the output equals one decode of the whole (common practice, no published source)."""
+    """Constant memory on a stream: between calls only the channel bits still needed are held (at most a decoder
+    block and a few monitored blocks, whatever the call sizes), in arrays of their own (the caller's input is not
+    kept), and the output equals one decode of the whole (common practice, no published source)."""
     bits = rng.integers(0, 2, 300000, dtype=np.uint8)
     soft = channel(rng, bits, "1/2", 5.0)
     pos = np.arange(soft.size, dtype=np.float64)
     whole, whole_pos = run(BranchSync(rate="1/2", modulation="bpsk"), soft, pos)
     bs = BranchSync(rate="1/2", modulation="bpsk")
     outs = [bs.process(soft[:240000], pos[:240000])]
-    big = bs._buf_soft.size
+    held = [bs._soft_kept.size]
     for a in range(240000, soft.size, 500):
         outs.append(bs.process(soft[a : a + 500], pos[a : a + 500]))
-    assert big >= 240000 and bs._buf_soft.size <= big // 4
+        held.append(bs._soft_kept.size)
+        assert bs._soft_new.size == 0 and bs._soft_kept.base is None and bs._pos_kept.base is None
+    assert max(held) <= bs._dec._block_symbols + 4 * bs._block_symbols
     outs.append(bs.flush())
     assert np.array_equal(np.concatenate([o[0] for o in outs]), whole)
     assert np.array_equal(np.concatenate([o[1] for o in outs]), whole_pos)

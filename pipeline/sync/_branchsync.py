@@ -387,17 +387,15 @@ class BranchSync:
 
     # ---- internals --------------------------------------------------------------------------------
     def _clear_stream(self) -> None:
-        # the soft channel bits still needed live in [_head, _tail) of a reused buffer; _raw_soft is a view of
-        # that window (appending copies the new input once, trimming only moves _head).  Their positions are two
-        # pieces: _pos_kept (owned) from _raw_base on, then _pos_new, the current call's input array, which is
-        # read during the call only: at its end the part still needed is copied into _pos_kept (O(held), not
-        # O(input): most of the input is output within the call)
-        self._buf_soft = np.zeros(0, np.float32)
-        self._head = self._tail = 0
-        self._raw_soft = self._buf_soft[:0]
+        # the channel bits still needed, [_raw_base, _n_in), are two pieces: _soft_kept / _pos_kept (owned) from
+        # _raw_base on, then _soft_new / _pos_new, the current call's input arrays, which are read during the call
+        # only: at its end the part still needed is copied into the kept arrays (O(held), not O(input): most of
+        # the input is decoded and output within the call)
+        self._soft_kept = np.zeros(0, np.float32)
+        self._soft_new = self._soft_kept
         self._pos_kept = np.zeros(0, np.float64)
         self._pos_new = self._pos_kept
-        self._raw_base = 0  # absolute channel index of _raw_soft[0]
+        self._raw_base = 0  # absolute channel index of the first kept channel bit
         self._n_in = 0
         self._hyp: tuple[int, int] | None = (0, 0) if self.marker_rotation else None
         self._pending: int | None = 0 if self.coded else None  # channel index of the next evaluation
@@ -426,7 +424,7 @@ class BranchSync:
             bits, pos = np.zeros(0, np.float32), np.zeros(0, np.float64)
         self._out_bits, self._out_pos = [], []
         self._trim()
-        self._keep_positions()
+        self._keep_raw()
         return bits, pos
 
     def _frontier(self) -> int:
@@ -445,20 +443,31 @@ class BranchSync:
         keep -= keep % 2  # keep rotation pairs whole
         drop = keep - self._raw_base
         if drop > 0:
-            self._head += drop
             self._raw_base += drop
-            self._raw_soft = self._buf_soft[self._head : self._tail]
-            k = self._pos_kept.size
+            k = self._soft_kept.size
             if drop <= k:
-                self._pos_kept = self._pos_kept[drop:]
+                self._soft_kept, self._pos_kept = self._soft_kept[drop:], self._pos_kept[drop:]
             else:
-                self._pos_new = self._pos_new[drop - k :]
-                self._pos_kept = self._pos_kept[:0]
+                self._soft_new, self._pos_new = self._soft_new[drop - k :], self._pos_new[drop - k :]
+                self._soft_kept, self._pos_kept = self._soft_kept[:0], self._pos_kept[:0]
 
-    def _keep_positions(self) -> None:
-        """End of a call: the positions still needed become one owned array (the caller's input is let go)."""
+    def _keep_raw(self) -> None:
+        """End of a call: the channel bits still needed become owned arrays (the caller's input is let go)."""
+        self._soft_kept = np.concatenate((self._soft_kept, self._soft_new))
         self._pos_kept = np.concatenate((self._pos_kept, self._pos_new))
-        self._pos_new = self._pos_kept[:0]
+        self._soft_new, self._pos_new = self._soft_kept[:0], self._pos_kept[:0]
+
+    def _soft_pieces(self, a: int, b: int) -> tuple[np.ndarray, np.ndarray]:
+        """Soft channel bits [a, b) (absolute, held) as two views: the kept part, then the current input's."""
+        r0, r1, k = a - self._raw_base, b - self._raw_base, self._soft_kept.size
+        return self._soft_kept[min(r0, k) : min(r1, k)], self._soft_new[max(r0 - k, 0) : max(r1 - k, 0)]
+
+    def _soft_range(self, a: int, b: int) -> np.ndarray:
+        """Soft channel bits [a, b) (absolute, held): a view when they lie in one piece, else joined."""
+        head, rest = self._soft_pieces(a, b)
+        if not rest.size:
+            return head
+        return rest if not head.size else np.concatenate((head, rest))
 
     def _pos_at(self, i: int) -> float:
         """Position of absolute channel bit ``i`` (held)."""
@@ -471,32 +480,18 @@ class BranchSync:
         return np.concatenate((self._pos_kept[min(r0, k) : min(r1, k)], self._pos_new[max(r0 - k, 0) : max(r1 - k, 0)]))
 
     def _append_raw(self, soft: np.ndarray, position: np.ndarray) -> None:
-        """Append channel bits to the live window; the soft buffer is compacted (live part to the front), grown or
-        shrunk only when the new input does not fit behind it, so memory stays at 2 to 8 times what is held.
-        The positions are read from the caller's array until the end of the call (:meth:`_keep_positions`)."""
-        n, live = soft.size, self._tail - self._head
-        if self._tail + n > self._buf_soft.size:
-            if not 2 * (live + n) <= self._buf_soft.size <= 8 * (live + n):
-                # grow (to twice what is needed: later calls fit), or shrink after a much larger call
-                soft_buf = np.empty(2 * (live + n), np.float32)
-            else:
-                soft_buf = self._buf_soft
-            soft_buf[:live] = self._buf_soft[self._head : self._tail]  # (overlapping moves are safe in numpy)
-            self._buf_soft = soft_buf
-            self._head, self._tail = 0, live
-        self._buf_soft[self._tail : self._tail + n] = soft
-        self._tail += n
-        self._raw_soft = self._buf_soft[self._head : self._tail]
-        if self._pos_new.size:  # (each call ends with _keep_positions: not reached)
-            self._keep_positions()
-        self._pos_new = position
+        """Take the call's input as the second piece of the live window, read in place until the end of the call
+        (:meth:`_keep_raw`); memory held between calls is what is still needed."""
+        if self._soft_new.size:  # (each call ends with _keep_raw: not reached)
+            self._keep_raw()
+        self._soft_new, self._pos_new = soft, position
 
     def _view(self, a: int, b: int, rotation: int) -> np.ndarray:
         """Soft channel bits [a, b) (absolute) with the rotation hypothesis applied."""
         if not rotation:
-            return self._raw_soft[a - self._raw_base : b - self._raw_base]
+            return self._soft_range(a, b)
         lo, hi = a - a % 2, b + b % 2
-        pairs = self._raw_soft[lo - self._raw_base : hi - self._raw_base].reshape(-1, 2)
+        pairs = self._soft_range(lo, hi).reshape(-1, 2)
         out = np.empty_like(pairs)
         if rotation == 1:  # (a, b) -> (b, -a): undoes I + jQ -> j (I + jQ)
             out[:, 0] = pairs[:, 1]
@@ -603,7 +598,7 @@ class BranchSync:
             b = min(a + Bm, self._n_in - self._n_in % 2)
             if b - a < Bm and not (final and b > a):
                 if final and self._n_in > self._fed:  # a last odd channel bit cannot be rotated: pass it
-                    self._out_bits.append(self._raw_soft[self._fed - self._raw_base :].copy())
+                    self._out_bits.append(self._soft_range(self._fed, self._n_in).copy())
                     self._out_pos.append(self._pos_range(self._fed, self._n_in))
                     self.stats.bits_out += self._n_in - self._fed
                     self._fed = self._n_in
@@ -657,7 +652,7 @@ class BranchSync:
 
     def _signal_present(self, a: int, b: int) -> bool:
         """The presence gate: real M2M4 ``S / M2`` of the soft channel bits [a, b) at least 0.35."""
-        x = self._raw_soft[a - self._raw_base : b - self._raw_base].astype(np.float64)
+        x = self._soft_range(a, b).astype(np.float64)
         if x.size < 64:
             return True
         x2 = x * x
@@ -838,13 +833,16 @@ class BranchSync:
             n_bits = min(n_blocks * B, have - self._scored)
             a = self._seg_start + (self._scored // B) * Bs
             n_sym = (n_bits // self.period_bits) * self.period_symbols + self._symbols_before[n_bits % self.period_bits]
-            soft = np.ascontiguousarray(self._view(a, a + n_sym, rot))
+            if rot:
+                head, rest = np.ascontiguousarray(self._view(a, a + n_sym, rot)), self._soft_kept[:0]
+            else:  # in place, in the two pieces they are held in
+                head, rest = self._soft_pieces(a, a + n_sym)
             metrics = np.empty(n_blocks, np.float64)
             states = np.empty(n_blocks, np.int64)
             r = self._scored - self._seg_done
             _kernels.reencode_metrics(self._seg_bits[r : r + n_bits], self._score_state, _G1_MASK, _G2_MASK,
-                                      int(self.g2_inverted), self._keep1, self._keep2, _PARITY, soft, B, metrics,
-                                      states)
+                                      int(self.g2_inverted), self._keep1, self._keep2, _PARITY, head, rest, B,
+                                      metrics, states)
             used = n_blocks
             for j in range(n_blocks):
                 if partial and j == n_blocks - 1:

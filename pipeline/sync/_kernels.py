@@ -150,20 +150,23 @@ def hard_decisions(soft, out):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True)
-def reencode_metrics(bits, state, g1_mask, g2_mask, g2_invert, keep1, keep2, parity, soft, block_bits, metrics,
-                     states):
+def reencode_metrics(bits, state, g1_mask, g2_mask, g2_invert, keep1, keep2, parity, soft_head, soft_rest, block_bits,
+                     metrics, states):
     """Re-encode decoded bits with the (punctured) convolutional code and score them against soft symbols.
 
-    For block ``j`` (``block_bits`` bits; the last block may be shorter) ``metrics[j] = sum(s (1 - 2 c)) /
-    sum(|s|)`` over its transmitted symbols ``s`` and re-encoded code bits ``c`` (0.0 if all ``s`` are 0),
-    and ``states[j]`` = the encoder memory after it.  The register is ``(state << 1) | bit`` (bit 0 the
-    newest), C1 = parity(reg & g1_mask), C2 = parity(reg & g2_mask) XOR g2_invert (1 at rate 1/2, 0 for
-    the punctured codes: CCSDS 131.0-B sec. 3.3 and 3.4), C1 first; ``keep1/keep2`` are
-    the puncturing rows (period = their length), starting at column 0.  ``parity`` is the 128-entry
-    parity table.  Returns the number of soft symbols used.  Cost O(len(bits)), no allocation.
+    The soft symbols are ``soft = concatenate((soft_head, soft_rest))``, given in two pieces (those kept from
+    earlier input and the current input: no copy joins them).  For block ``j`` (``block_bits`` bits; the last
+    block may be shorter) ``metrics[j] = sum(s (1 - 2 c)) / sum(|s|)`` over its transmitted symbols ``s`` and
+    re-encoded code bits ``c`` (0.0 if all ``s`` are 0), summed in transmission order, and ``states[j]`` = the
+    encoder memory after it.  The register is ``(state << 1) | bit`` (bit 0 the newest), C1 = parity(reg &
+    g1_mask), C2 = parity(reg & g2_mask) XOR g2_invert (1 at rate 1/2, 0 for the punctured codes: CCSDS
+    131.0-B sec. 3.3 and 3.4), C1 first; ``keep1/keep2`` are the puncturing rows (period = their length),
+    starting at column 0.  ``parity`` is the 128-entry parity table.  Returns the number of soft symbols
+    used.  Cost O(len(bits)), no allocation of the data's size.
     """
     period = keep1.shape[0]
     n = bits.shape[0]
+    nh = soft_head.shape[0]
     # +1.0 / -1.0 per register value for each generator (the sign of a code bit 0 / 1): the sums below
     # add +-s without a branch on the data (the same terms, in the same order, as ``corr +=`` / ``-=``)
     sign1 = np.empty(128, np.float64)
@@ -181,28 +184,32 @@ def reencode_metrics(bits, state, g1_mask, g2_mask, g2_invert, keep1, keep2, par
             b = n
         corr = 0.0
         mag = 0.0
-        if unpunctured:  # rate 1/2: two symbols per bit
+        m = 2 * (b - a)
+        if unpunctured and (k + m <= nh or k >= nh):  # rate 1/2, a block within one piece: two symbols per bit
+            src = soft_head if k + m <= nh else soft_rest
+            at = k if k + m <= nh else k - nh
             for i in range(a, b):
                 reg = ((state << 1) | bits[i]) & 127
                 state = reg & 63
-                s = np.float64(soft[k])
+                s = np.float64(src[at])
                 corr += s * sign1[reg]
                 mag += abs(s)
-                s = np.float64(soft[k + 1])
+                s = np.float64(src[at + 1])
                 corr += s * sign2[reg]
                 mag += abs(s)
-                k += 2
-        else:
+                at += 2
+            k += m
+        else:  # punctured, or the block that spans the two pieces
             for i in range(a, b):
                 reg = ((state << 1) | bits[i]) & 127
                 state = reg & 63
                 if keep1[phase]:
-                    s = np.float64(soft[k])
+                    s = np.float64(soft_head[k] if k < nh else soft_rest[k - nh])
                     k += 1
                     corr += s * sign1[reg]
                     mag += abs(s)
                 if keep2[phase]:
-                    s = np.float64(soft[k])
+                    s = np.float64(soft_head[k] if k < nh else soft_rest[k - nh])
                     k += 1
                     corr += s * sign2[reg]
                     mag += abs(s)
