@@ -285,16 +285,17 @@ class BackEnd:
         self.packet_count += 1
         if self.sinks is None:
             return
+        fields = pkt.as_dict()  # (its "hex" is the packet's octets as hex)
         obj = {
             "ert": self.ert(pkt.position),
             "apid": None if pkt.apid is None else int(pkt.apid),  # None: an encapsulation packet
             "seq_count": None if pkt.seq_count is None else int(pkt.seq_count),
-            "hex": bytes(pkt.data).hex(),
+            "hex": fields["hex"],
             "scid": int(pkt.scid),
             "vcid": int(pkt.vcid),
         }
-        for key, value in pkt.as_dict().items():
-            if key not in obj and key not in ("data", "hex"):
+        for key, value in fields.items():
+            if key not in obj and key != "data":
                 obj[key] = value
         obj["esn0_db"] = self.track.esn0_at(pkt.position)
         if pkt.time_ns is not None:  # a time code on UTC's scale (None before 1972)
