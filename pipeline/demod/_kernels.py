@@ -277,6 +277,46 @@ def soft_costas_error(a, yi, yq, zq, zi):
 
 
 @njit(cache=True, nogil=True)
+def box_strobe(mf, base, t, hbox):
+    """Exact integrate-and-dump of ``mf`` (centred on sample ``base`` at index 0) over ``[t - hbox, t + hbox]``.
+
+    The samples are piecewise constant: sample ``j`` weighs the overlap of ``[j - 1/2, j + 1/2]`` with the
+    window.  Returns ``(re, im)`` in double precision (:func:`track_symbols` with rect pulses).
+    """
+    vr = 0.0
+    vi = 0.0
+    jlo = int(math.floor(t - hbox - 0.5))
+    jhi = int(math.ceil(t + hbox + 0.5))
+    for j in range(jlo, jhi + 1):
+        u = j - t
+        lo_e = u - 0.5 if u - 0.5 > -hbox else -hbox
+        hi_e = u + 0.5 if u + 0.5 < hbox else hbox
+        wgt = hi_e - lo_e
+        if wgt > 0.0:
+            xs = mf[j - base]
+            vr += wgt * float(xs.real)
+            vi += wgt * float(xs.imag)
+    return vr, vi
+
+
+@njit(cache=True, nogil=True)
+def phasor_step(theta, theta_ph, cs, sn, count):
+    """The carrier phasor ``(cos, sin)`` at ``theta`` from the one at ``theta_ph``: ``(cs, sn, count)``.
+
+    A small-angle rotation (fourth-order cosine, third-order sine) of the previous phasor, or the exact
+    ``cos``/``sin`` after 64 steps (``count``) or a step beyond 0.3 rad, so it never drifts from ``theta``
+    by more than about 1e-7 rad (:func:`track_symbols`).
+    """
+    d = theta - theta_ph
+    if count >= 64 or d > 0.3 or d < -0.3:
+        return math.cos(theta), math.sin(theta), 0
+    d2 = d * d
+    cd = 1.0 - d2 * (0.5 - d2 / 24.0)
+    sd = d * (1.0 - d2 / 6.0)
+    return cs * cd - sn * sd, sn * cd + cs * sd, count + 1
+
+
+@njit(cache=True, nogil=True)
 def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_table,
                   out_pos, out_bitpos, out_soft, out_sym, out_flags, out_theta):
     """Gardner timing recovery with a cubic (Farrow) interpolator and a symbol-rate carrier loop.
@@ -556,21 +596,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                 t += 0.5 * sps
                 continue
             if hbox > 0.0:
-                # exact integrate-and-dump over [t - h, t + h] of the piecewise-constant samples:
-                # weight of sample j is the overlap of [j - 1/2, j + 1/2] with the window
-                vr = 0.0
-                vi = 0.0
-                jlo = int(math.floor(t - hbox - 0.5))
-                jhi = int(math.ceil(t + hbox + 0.5))
-                for j in range(jlo, jhi + 1):
-                    u = j - t
-                    lo_e = u - 0.5 if u - 0.5 > -hbox else -hbox
-                    hi_e = u + 0.5 if u + 0.5 < hbox else hbox
-                    wgt = hi_e - lo_e
-                    if wgt > 0.0:
-                        xs = mf[j - base]
-                        vr += wgt * float(xs.real)
-                        vi += wgt * float(xs.imag)
+                vr, vi = box_strobe(mf, base, t, hbox)
             else:
                 # cubic Lagrange interpolator through samples -1, 0, 1, 2: weights from mu in double
                 # precision, shared by I and Q, and the sums in single precision, the samples' own (an
@@ -592,17 +618,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                 h3 = np.float32(sixth * mp1 * b_c)
                 vr = float(h0 * a0.real + h1 * a1.real + h2 * a2.real + h3 * a3.real)
                 vi = float(h0 * a0.imag + h1 * a1.imag + h2 * a2.imag + h3 * a3.imag)
-            d = theta - theta_ph
-            if nresync >= 64 or d > 0.3 or d < -0.3:
-                cs = math.cos(theta)
-                sn = math.sin(theta)
-                nresync = 0
-            else:
-                d2 = d * d
-                cd = 1.0 - d2 * (0.5 - d2 / 24.0)
-                sd = d * (1.0 - d2 / 6.0)
-                cs, sn = cs * cd - sn * sd, sn * cd + cs * sd
-                nresync += 1
+            cs, sn, nresync = phasor_step(theta, theta_ph, cs, sn, nresync)
             theta_ph = theta
             wr = vr * cs + vi * sn
             wi = vi * cs - vr * sn
@@ -632,21 +648,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
             t += 0.5 * sps
             continue
         if hbox > 0.0:
-            # exact integrate-and-dump over [t - h, t + h] of the piecewise-constant samples:
-            # weight of sample j is the overlap of [j - 1/2, j + 1/2] with the window
-            vr = 0.0
-            vi = 0.0
-            jlo = int(math.floor(t - hbox - 0.5))
-            jhi = int(math.ceil(t + hbox + 0.5))
-            for j in range(jlo, jhi + 1):
-                u = j - t
-                lo_e = u - 0.5 if u - 0.5 > -hbox else -hbox
-                hi_e = u + 0.5 if u + 0.5 < hbox else hbox
-                wgt = hi_e - lo_e
-                if wgt > 0.0:
-                    xs = mf[j - base]
-                    vr += wgt * float(xs.real)
-                    vi += wgt * float(xs.imag)
+            vr, vi = box_strobe(mf, base, t, hbox)
         else:
             # cubic Lagrange interpolator through samples -1, 0, 1, 2: weights from mu in double
             # precision, shared by I and Q, and the sums in single precision, the samples' own (an
@@ -669,17 +671,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
             vr = float(h0 * a0.real + h1 * a1.real + h2 * a2.real + h3 * a3.real)
             vi = float(h0 * a0.imag + h1 * a1.imag + h2 * a2.imag + h3 * a3.imag)
         if mod_code == 2:
-            d = theta - theta_ph
-            if nresync >= 64 or d > 0.3 or d < -0.3:
-                cs = math.cos(theta)
-                sn = math.sin(theta)
-                nresync = 0
-            else:
-                d2 = d * d
-                cd = 1.0 - d2 * (0.5 - d2 / 24.0)
-                sd = d * (1.0 - d2 / 6.0)
-                cs, sn = cs * cd - sn * sd, sn * cd + cs * sd
-                nresync += 1
+            cs, sn, nresync = phasor_step(theta, theta_ph, cs, sn, nresync)
             theta_ph = theta
             wr = vr * cs + vi * sn
             wi = vi * cs - vr * sn
