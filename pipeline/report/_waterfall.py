@@ -79,19 +79,27 @@ class Waterfall:
     def feed(self, samples: np.ndarray, start: int) -> None:
         """Add samples ``[start, start + len(samples))``; chunks must come in order without gaps."""
         samples = np.asarray(samples, dtype=np.complex64)
+        start = int(start)
+        nfft = self.nfft
         if len(self._carry) and self._carry_start + len(self._carry) == start:
-            buf = np.concatenate([self._carry, samples])
+            # the FFTs that begin in the carry read a short joined buffer; the rest read the chunk in place
+            # (joining the whole chunk to the carry copied every sample once more)
             buf_start = self._carry_start
+            head = np.concatenate([self._carry, samples[:nfft - 1]])
         else:
-            buf, buf_start = samples, int(start)
-        end = buf_start + len(buf)
+            buf_start = start
+            head = samples[:0]
+        end = start + len(samples)
         first = -(-buf_start // self.step) * self.step  # the first FFT start at or after buf_start
-        starts = np.arange(first, end - self.nfft + 1, self.step, dtype=np.int64)
+        starts = np.arange(first, end - nfft + 1, self.step, dtype=np.int64)
         if self.owned is not None:
             starts = starts[(starts >= self.owned[0]) & (starts < self.owned[1])]
         if len(starts):
-            idx = (starts - buf_start)[:, None] + np.arange(self.nfft)[None, :]
-            spec = np.fft.fft(buf[idx] * self._window, axis=1)
+            taps = np.arange(nfft)[None, :]
+            early = starts < start
+            windows = np.concatenate([head[(starts[early] - buf_start)[:, None] + taps],
+                                      samples[(starts[~early] - start)[:, None] + taps]])
+            spec = np.fft.fft(windows * self._window, axis=1)
             power = (spec.real ** 2 + spec.imag ** 2) * self._scale
             rows = (starts // self.row_samples) >> self._merges
             for r in np.unique(rows):
@@ -102,8 +110,11 @@ class Waterfall:
                 self._count[int(r)] = self._count.get(int(r), 0) + int(np.count_nonzero(sel))
             if len(self._sum) > MAX_ROWS:
                 self._merge_pairs()
-        keep_from = max(buf_start, end - self.nfft + 1)
-        self._carry = np.array(buf[keep_from - buf_start:], dtype=np.complex64)
+        keep_from = max(buf_start, end - nfft + 1)
+        if keep_from >= start:
+            self._carry = np.array(samples[keep_from - start:], dtype=np.complex64)
+        else:
+            self._carry = np.concatenate([self._carry[keep_from - buf_start:], samples])
         self._carry_start = keep_from
 
     def _merge_pairs(self) -> None:
