@@ -626,3 +626,32 @@ def test_long_search_finds_a_weak_qpsk_carrier_the_short_one_cannot():
     assert abs(got.offset_hz - 2400.0) < 1.0 and abs(got.rate_hz_per_s - -40.0) < 4.0
     x = ((rng.standard_normal(524288) + 1j * rng.standard_normal(524288)) * math.sqrt(0.5)).astype(np.complex64)
     assert not s.search_long(x, 0.0).found
+
+
+def test_a_lock_without_a_find_forgets_the_blocks_released_unfound(monkeypatch):
+    """The long search joins the blocks released unfound to the held window, which is right only while they are
+    the blocks just before it.  A carrier the loop locks on by itself (here: every search reports nothing, a
+    strong QPSK carrier 150 Hz off) ends the acquisition as a find does, so those blocks must be forgotten,
+    else a later acquisition joins them to blocks far after them."""
+    from pipeline.demod import CarrierAcquisition, SpectralLine
+
+    rng = np.random.default_rng(21)
+    w = modulate(240_000, modulation="qpsk", esn0_db=12.0, carrier_offset_hz=150.0, rng=rng)
+    d = _demod("qpsk")
+    assert d.long_search_blocks > 0
+    nothing = CarrierAcquisition(False, 0.0, 0.0, 0.0, 1e3, SpectralLine(1e3, 0.0, "line"))
+    monkeypatch.setattr(d._search, "search", lambda x: nothing)
+    monkeypatch.setattr(d._search, "search_long", lambda x, band: nothing)
+    seen_history = []
+    run_block = d._run_block
+
+    def spy(*args, **kw):
+        seen_history.append(len(d._history))
+        return run_block(*args, **kw)
+
+    monkeypatch.setattr(d, "_run_block", spy)
+    for c in chunked(w.samples, [65536 * k for k in range(1, 16)]):
+        d.process(c)
+    assert max(seen_history) > 0, "blocks were released unfound before the lock"
+    assert d._state[0]["clock"] == 1 and not d._acquiring, "the loop locked by itself"
+    assert d._history == [] and d._long_tried == 0

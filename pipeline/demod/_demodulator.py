@@ -819,9 +819,12 @@ class Demodulator:
         for b, cnt, mom in blocks:
             self._run_block(b, (cnt, mom), parts)
         if self._acquiring and self._state[0]["clock"]:
-            # the loop locked on its own meanwhile: no search needed
+            # the loop locked on its own meanwhile: no search needed; the blocks released unfound are forgotten
+            # as after a find (a later acquisition's long search must not join them to blocks far after them)
             blocks, self._held = self._held, []
             self._acquiring = False
+            self._history = []
+            self._long_tried = 0
             for b, cnt, mom in blocks:
                 self._run_block(b, (cnt, mom), parts)
 
