@@ -273,6 +273,10 @@ def _decode(blocks: np.ndarray, e: int, interleave: int, erasures=None) -> tuple
     elif n_blocks != 1:
         era = np.zeros((n_blocks, interleave, n_par), dtype=np.int64)
         n_era = np.zeros((n_blocks, interleave), dtype=np.int64)
+    # read-only like the cached arrays of _layout: one compiled signature of the kernel, not two (each is about
+    # 1.7 s of a cold start)
+    era.flags.writeable = False
+    n_era.flags.writeable = False
     out = np.empty((n_blocks, n_rows * interleave), dtype=np.uint8)
     corrected = np.empty((n_blocks, interleave), dtype=np.int64)
     rs_decode_kernel(blocks, n_rows, interleave, n_par, 128 - e, fill, era, n_era, DUAL_TO_CONV, CONV_TO_DUAL,
