@@ -28,6 +28,8 @@ __all__ = ["CONSTELLATION_POINTS", "FrontCounts", "FrontEnd", "FrontOutput", "Fr
 
 #: Symbols kept for the report's constellation plot (the most recent locked stretch).
 CONSTELLATION_POINTS = 2000
+#: Track points held at most while the branch synchronizer has not told whether a QPSK recording is a mirror image
+MIRROR_HOLD_POINTS = 4096
 
 InputKind = str  # "iq" | "soft" | "bits"
 
@@ -201,6 +203,11 @@ class FrontEnd:
             own = None if owned is None else (int(owned[0]), int(owned[1]))
             self.waterfall = Waterfall(row_samples=int(waterfall_row_samples), owned=own)
         self._out = FrontOutput()
+        # QPSK with spectrum_inverted = "auto": the branch synchronizer finds out whether the recording is a
+        # mirror image (spectrally inverted), whose carrier offsets have the wrong sign; track points wait for
+        # its answer (or until MIRROR_HOLD_POINTS are held) and are then given with the true sign
+        self._mirror_held: list | None = ([] if self.demod is not None and profile.link.modulation == "qpsk"
+                                          and rx.spectrum_inverted == "auto" else None)
 
     @property
     def sample_rate_hz(self) -> float | None:
@@ -236,6 +243,7 @@ class FrontEnd:
         """Flush every stage in order; the front end is then spent."""
         if self.demod is not None:
             self._symbols(self.demod.flush())
+        self._release_track(final=True)
         bits, pos = self.branch.flush()
         self._bits(bits, pos)
         self._out.frames.extend(self.codeblock.process_cadus(self.fsync.flush()))
@@ -255,8 +263,11 @@ class FrontEnd:
                 if self._owns(ev.position):
                     events.append(sample_keys(ev.as_dict()))
         stats = self.stats_snapshot()
+        constellation = self.constellation
+        if constellation is not None and self._mirror_held is not None and self.branch.mirrored:
+            constellation = np.conj(constellation)  # the mirror image's constellation, seen upright
         return FrontSummary(counts=dataclasses.replace(self.counts), stats=stats, events=events,
-                            constellation=self.constellation, waterfall=self.waterfall,
+                            constellation=constellation, waterfall=self.waterfall,
                             demod=None if self.demod is None else dataclasses.replace(self.demod.stats))
 
     # ---- internals ------------------------------------------------------------------------
@@ -289,7 +300,11 @@ class FrontEnd:
         return out
 
     def _symbols(self, block) -> None:
-        self._out.track.extend(tp for tp in block.track if self._owns(tp.position))
+        points = [tp for tp in block.track if self._owns(tp.position)]
+        if self._mirror_held is None:
+            self._out.track.extend(points)
+        else:
+            self._mirror_held.extend(points)
         if len(block.soft):
             owned, locked = self._owned_counts(block.position, block.locked)
             self.counts.channel_symbols += owned
@@ -299,6 +314,22 @@ class FrontEnd:
             # the most recent locked stretch: a snapshot of the constellation as the pass went on
             self.constellation = np.array(syms[-CONSTELLATION_POINTS:], dtype=np.complex64)
         self._channel(block.soft, block.position)
+        self._release_track()
+
+    def _release_track(self, final: bool = False) -> None:
+        """Pass on the track points held for the mirror decision once it is made (or at the end, or when too
+        many are held): negated carrier offset and phase when the branch synchronizer found a mirror image."""
+        held = self._mirror_held
+        if not held:
+            return
+        mirrored = self.branch.mirrored
+        if mirrored is None and not final and len(held) < MIRROR_HOLD_POINTS:
+            return
+        if mirrored:
+            held = [dataclasses.replace(tp, carrier_offset_hz=-tp.carrier_offset_hz,
+                                        carrier_phase_rad=-tp.carrier_phase_rad) for tp in held]
+        self._out.track.extend(held)
+        self._mirror_held = []
 
     def _channel(self, soft: np.ndarray, position: np.ndarray) -> None:
         bits, pos = self.branch.process(soft, position)
