@@ -300,6 +300,34 @@ def box_strobe(mf, base, t, hbox):
 
 
 @njit(cache=True, nogil=True)
+def cubic_strobe(mf, i, mu):
+    """``mf`` interpolated at ``i + mu`` (``0 <= mu < 1``, ``1 <= i <= len(mf) - 3``): ``(re, im)``.
+
+    Cubic Lagrange interpolator through samples ``i - 1 .. i + 2``: the four weights from ``mu`` in double
+    precision, shared by I and Q, and the sums in single precision, the samples' own (an unsigned index:
+    no negative-index wrap is compiled).  Farrow-free: about 12 multiplies for the weights, 8 for the sums.
+    """
+    sixth = 1.0 / 6.0
+    u1 = np.uint64(1)
+    iu = np.uint64(i - 1)
+    a0 = mf[iu]
+    a1 = mf[iu + u1]
+    a2 = mf[iu + np.uint64(2)]
+    a3 = mf[iu + np.uint64(3)]
+    mp1 = mu + 1.0
+    mm1 = mu - 1.0
+    mm2 = mu - 2.0
+    b_c = mu * mm1
+    a_d = mp1 * mm2
+    h0 = np.float32(-sixth * b_c * mm2)
+    h1 = np.float32(0.5 * a_d * mm1)
+    h2 = np.float32(-0.5 * a_d * mu)
+    h3 = np.float32(sixth * mp1 * b_c)
+    return (float(h0 * a0.real + h1 * a1.real + h2 * a2.real + h3 * a3.real),
+            float(h0 * a0.imag + h1 * a1.imag + h2 * a2.imag + h3 * a3.imag))
+
+
+@njit(cache=True, nogil=True)
 def phasor_step(theta, theta_ph, cs, sn, count):
     """The carrier phasor ``(cos, sin)`` at ``theta`` from the one at ``theta_ph``: ``(cs, sn, count)``.
 
@@ -550,10 +578,6 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     q3i = st["q3i"]
     inv_sqrt2 = 1.0 / math.sqrt(2.0)
     sqrt2 = math.sqrt(2.0)
-    sixth = 1.0 / 6.0
-    u1 = np.uint64(1)
-    u2 = np.uint64(2)
-    u3 = np.uint64(3)
     inv_kd = 1.0 / kd
     flags = clock + 2 * slock
     # the loops track (second order, bandwidths from Es/N0) in lock and while a carrier the acquisition
@@ -598,26 +622,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
             if hbox > 0.0:
                 vr, vi = box_strobe(mf, base, t, hbox)
             else:
-                # cubic Lagrange interpolator through samples -1, 0, 1, 2: weights from mu in double
-                # precision, shared by I and Q, and the sums in single precision, the samples' own (an
-                # unsigned index: i - 1 >= look - 1 > 0 here, and no negative-index wrap is compiled)
-                mu = t - m
-                iu = np.uint64(i - 1)
-                a0 = mf[iu]
-                a1 = mf[iu + u1]
-                a2 = mf[iu + u2]
-                a3 = mf[iu + u3]
-                mp1 = mu + 1.0
-                mm1 = mu - 1.0
-                mm2 = mu - 2.0
-                b_c = mu * mm1
-                a_d = mp1 * mm2
-                h0 = np.float32(-sixth * b_c * mm2)
-                h1 = np.float32(0.5 * a_d * mm1)
-                h2 = np.float32(-0.5 * a_d * mu)
-                h3 = np.float32(sixth * mp1 * b_c)
-                vr = float(h0 * a0.real + h1 * a1.real + h2 * a2.real + h3 * a3.real)
-                vi = float(h0 * a0.imag + h1 * a1.imag + h2 * a2.imag + h3 * a3.imag)
+                vr, vi = cubic_strobe(mf, i, t - m)
             cs, sn, nresync = phasor_step(theta, theta_ph, cs, sn, nresync)
             theta_ph = theta
             wr = vr * cs + vi * sn
@@ -650,26 +655,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
         if hbox > 0.0:
             vr, vi = box_strobe(mf, base, t, hbox)
         else:
-            # cubic Lagrange interpolator through samples -1, 0, 1, 2: weights from mu in double
-            # precision, shared by I and Q, and the sums in single precision, the samples' own (an
-            # unsigned index: i - 1 >= look - 1 > 0 here, and no negative-index wrap is compiled)
-            mu = t - m
-            iu = np.uint64(i - 1)
-            a0 = mf[iu]
-            a1 = mf[iu + u1]
-            a2 = mf[iu + u2]
-            a3 = mf[iu + u3]
-            mp1 = mu + 1.0
-            mm1 = mu - 1.0
-            mm2 = mu - 2.0
-            b_c = mu * mm1
-            a_d = mp1 * mm2
-            h0 = np.float32(-sixth * b_c * mm2)
-            h1 = np.float32(0.5 * a_d * mm1)
-            h2 = np.float32(-0.5 * a_d * mu)
-            h3 = np.float32(sixth * mp1 * b_c)
-            vr = float(h0 * a0.real + h1 * a1.real + h2 * a2.real + h3 * a3.real)
-            vi = float(h0 * a0.imag + h1 * a1.imag + h2 * a2.imag + h3 * a3.imag)
+            vr, vi = cubic_strobe(mf, i, t - m)
         if mod_code == 2:
             cs, sn, nresync = phasor_step(theta, theta_ph, cs, sn, nresync)
             theta_ph = theta
