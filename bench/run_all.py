@@ -30,6 +30,7 @@ def _scripts(quick: bool) -> list[tuple[str, list[str]]]:
     rows = [
         ("bench_recording.py", ["--msamples", "4"] if quick else []),
         ("bench_demod.py", ["--seconds", "1"] if quick else []),
+        ("bench_track_replay.py", ["--seconds", "1", "--repeat", "3"] if quick else []),
         ("bench_acquisition.py", ["--cost-seconds", "5", "--skip-sensitivity"] if quick else []),
         ("bench_residual.py", ["--seconds", "2", "--repeat", "2"] if quick else []),
         ("bench_fec.py", ["--bits", "1000000", "--repeat", "3"] if quick else []),
