@@ -93,3 +93,29 @@ def test_frame_log_keeps_every_frame_then_thins_evenly():
     assert a["statuses"] == ["rs_uncorrectable", "ok"]
     assert a["rs_corrected"][0] == -1 and a["rs_corrected"][1] == 1 and a["asm_errors"][3] == 3
     assert np.all(a["clcw_report_value"] == -1)
+
+
+def test_track_log_is_bounded_and_keeps_its_newest_points_exact(monkeypatch):
+    # an endless live stream must not grow the track without bound (constant memory); the newest points,
+    # which the frames' Es/N0 is looked up in, stay exact, the history grows coarser with its age
+    from types import SimpleNamespace
+
+    import pipeline.chain._backend as backend
+
+    monkeypatch.setattr(backend, "MAX_TRACK_LOG", 64)
+    log = backend.TrackLog()
+    for i in range(1000):
+        log.residual_hz.append(float(i) / 10)  # as process_track extends it, one per track point
+        log.append(SimpleNamespace(position=100.0 * i, carrier_offset_hz=float(i), esn0_db=float(i % 50),
+                                   carrier_locked=True, symbol_locked=i % 2 == 0, modulation_index_rad=1.2))
+    a = log.arrays()
+    n = len(log.position)
+    assert 32 <= n <= 64 and len(log.modulation_index_rad) <= 64
+    assert all(len(getattr(log, k)) == n for k in backend._ALIGNED)
+    assert np.all(np.diff(a["position"]) > 0) and a["position"][-1] == 99_900.0
+    # every entry still holds its own track point's values
+    np.testing.assert_array_equal(a["carrier_hz"] * 100.0, a["position"])
+    np.testing.assert_array_equal(a["residual_hz"] * 1000.0, a["position"])
+    # the newest 32 points are all there, so a frame's Es/N0 lookup near the end is exact
+    assert a["position"][-32:].tolist() == [100.0 * i for i in range(968, 1000)]
+    assert log.esn0_at(99_950.0) == 49.0 and log.esn0_at(96_850.0) == 18.0

@@ -24,11 +24,20 @@ __all__ = ["BackEnd", "FrameLog", "TrackLog", "sample_keys"]
 
 #: Entries above which :class:`FrameLog` keeps every other one (memory stays bounded on endless streams).
 MAX_FRAME_LOG = 1 << 20
+#: Track points above which :class:`TrackLog` keeps every other one of its older half.
+MAX_TRACK_LOG = 1 << 18
+
+_ALIGNED = ("position", "carrier_hz", "esn0_db", "carrier_locked", "symbol_locked", "residual_hz", "cn0_dbhz")
 
 
 @dataclass
 class TrackLog:
-    """The receiver track of a run, one entry per track point, in stream order."""
+    """The receiver track of a run, one entry per track point, in stream order.
+
+    Bounded on endless streams: past :data:`MAX_TRACK_LOG` entries the older half keeps every other entry
+    (the history grows coarser, geometrically, with its age), so the newest quarter of a million points,
+    the ones :meth:`esn0_at` is asked about, stay exact.
+    """
 
     position: list = field(default_factory=list)
     carrier_hz: list = field(default_factory=list)
@@ -50,6 +59,12 @@ class TrackLog:
         m = getattr(tp, "modulation_index_rad", None)
         if m is not None and math.isfinite(float(m)):
             self.modulation_index_rad.append(float(m))
+            if len(self.modulation_index_rad) > MAX_TRACK_LOG:
+                _thin_older_half(self.modulation_index_rad)
+        if len(self.position) > MAX_TRACK_LOG:
+            half = len(self.position) // 2
+            for name in _ALIGNED:
+                _thin_older_half(getattr(self, name), half)
 
     def esn0_at(self, position: float) -> float | None:
         """Es/N0 (dB, 2 decimals) of the track point at or before ``position`` (the first one before it)."""
@@ -70,6 +85,12 @@ class TrackLog:
         if np.isfinite(cn0).any():
             out["cn0_dbhz"] = cn0
         return out
+
+
+def _thin_older_half(values: list, half: int | None = None) -> None:
+    """Keep every other one of the first ``half`` entries (default: half the list) of ``values``, in place."""
+    half = len(values) // 2 if half is None else min(half, len(values))
+    values[:half] = values[:half:2]
 
 
 def sample_keys(d: dict) -> dict:
