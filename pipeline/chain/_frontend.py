@@ -243,9 +243,9 @@ class FrontEnd:
         """Flush every stage in order; the front end is then spent."""
         if self.demod is not None:
             self._symbols(self.demod.flush())
-        self._release_track(final=True)
         bits, pos = self.branch.flush()
         self._bits(bits, pos)
+        self._release_track(final=True)  # after the branch synchronizer's last word on the mirror image
         self._out.frames.extend(self.codeblock.process_cadus(self.fsync.flush()))
         self._out.frames.extend(self.codeblock.flush())  # codewords still waiting for a full decoder batch
         return self._take()
