@@ -2,7 +2,8 @@
 
 Swapping a receiver's I and Q (or taking the lower sideband) conjugates the recording, and conjugation
 mirrors the spectrum: x*(t) has the transform X*(-f) (the Fourier transform's conjugation property, e.g.
-A. V. Oppenheim, A. S. Willsky, *Signals and Systems*, 2nd ed., 1997, table 4.1), so a carrier offset f
+A. V. Oppenheim, A. S. Willsky, *Signals and Systems*, 2nd ed., 1997, its table of Fourier transform
+properties; the table's number from memory, not confirmed), so a carrier offset f
 reads as -f.  BPSK cannot tell (it is its own mirror image), but a QPSK constellation's mirror image is
 another constellation, which the branch synchronizer recognises by the code (``[receiver]
 spectrum_inverted = "auto"``).  The Doppler rows (doppler.csv, doppler.tdm, the Doppler check) are

@@ -238,8 +238,6 @@ def carrier_prediction(check, recording, *, step_s: float = PREDICTION_STEP_S):
     ``step_s`` in samples) through the recording's own time base; positions where the orbit has no state are
     left out.  Cost: one prediction per point (about 0.2 ms: 0.4 s for a 15-minute pass).
     """
-    import numpy as np
-
     from pipeline.demod import CarrierPrediction
 
     n = int(recording.num_samples)

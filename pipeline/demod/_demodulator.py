@@ -708,11 +708,11 @@ class Demodulator:
         self._next_start = start + samples.size
         self.stats.samples_in += samples.size
         blocks, self._pending = cut_blocks(self._pending, samples, self.block_samples)
-        parts = self._output(len(blocks) * self.block_samples, len(blocks))
+        out = self._output(len(blocks) * self.block_samples, len(blocks))
         for block in blocks:
-            self._feed_block(block, parts)
+            self._feed_block(block, out)
         self._pending_start += len(blocks) * self.block_samples
-        return parts.block()
+        return out.block()
 
     def flush(self) -> SymbolBlock:
         """Demodulate what is left (partial block, held acquisition samples) up to the last sample."""
@@ -720,18 +720,18 @@ class Demodulator:
             self._finished = True
             return SymbolBlock()
         held = sum(h[0].size for h in self._held)
-        parts = self._output(self._pending.size + held, len(self._held) + 2)
+        out = self._output(self._pending.size + held, len(self._held) + 2)
         end = float(self._next_start)
         if self._pending.size:
-            self._feed_block(self._pending, parts, final=True)
+            self._feed_block(self._pending, out, final=True)
             self._pending = np.zeros(0, dtype=np.complex64)
         elif self._acquiring and self._held:
-            self._acquire(parts, final=True)
+            self._acquire(out, final=True)
         # push the matched filter's delay line out with zeros so the last symbols are produced
         tail = np.zeros(max(self.filter_delay_samples, self._look) + 4, dtype=np.complex64)
-        self._run_block(tail, None, parts, t_limit=end, tail=True)
+        self._run_block(tail, None, out, t_limit=end, tail=True)
         self._finished = True
-        return parts.block()
+        return out.block()
 
     def no_lock_message(self) -> str | None:
         """One line for stderr when no carrier lock was found so far (None when there was lock).
@@ -745,7 +745,7 @@ class Demodulator:
     def _check_chunk(self, chunk: Any) -> tuple[np.ndarray, int]:
         return check_chunk(chunk)
 
-    def _feed_block(self, block: np.ndarray, parts: SymbolOut, final: bool = False) -> None:
+    def _feed_block(self, block: np.ndarray, out: SymbolOut, final: bool = False) -> None:
         if self.conjugate:
             block = np.conj(block)
         if self._acquiring:
@@ -753,9 +753,9 @@ class Demodulator:
             # own copy: the caller's buffer may change
             self._held.append((np.array(block, dtype=np.complex64), cnt, mom))
             if sum(h[0].size for h in self._held) >= self.acquisition_samples or final:
-                self._acquire(parts, final=final)
+                self._acquire(out, final=final)
             return
-        self._run_block(block, None, parts)
+        self._run_block(block, None, out)
 
     def _moments(self, block: np.ndarray) -> tuple[np.ndarray, int, np.ndarray]:
         """The block (NaN/Inf replaced by 0 and counted), its non-zero count and moments (one pass)."""
@@ -777,7 +777,7 @@ class Demodulator:
         if p > 0.0:
             self._agc_power = p if self._agc_power == 0.0 else 0.8 * self._agc_power + 0.2 * p
 
-    def _acquire(self, parts: SymbolOut, final: bool = False) -> None:
+    def _acquire(self, out: SymbolOut, final: bool = False) -> None:
         """Search the held window; release all of it if found (or at the end), else its first block."""
         held = np.concatenate([h[0] for h in self._held]) if len(self._held) > 1 else self._held[0][0]
         self.stats.acquisitions += 1
@@ -817,7 +817,7 @@ class Demodulator:
             if self.long_search_blocks:
                 self._history = (self._history + [blocks[0][0]])[-self.long_search_blocks:]
         for b, cnt, mom in blocks:
-            self._run_block(b, (cnt, mom), parts)
+            self._run_block(b, (cnt, mom), out)
         if self._acquiring and self._state[0]["clock"]:
             # the loop locked on its own meanwhile: no search needed; the blocks released unfound are forgotten
             # as after a find (a later acquisition's long search must not join them to blocks far after them)
@@ -826,7 +826,7 @@ class Demodulator:
             self._history = []
             self._long_tried = 0
             for b, cnt, mom in blocks:
-                self._run_block(b, (cnt, mom), parts)
+                self._run_block(b, (cnt, mom), out)
 
     def _search_long(self, band_hz: float):
         """The long search over the released blocks and the held window, when due; ``(result, offset_hz)`` with
@@ -854,7 +854,7 @@ class Demodulator:
         lead = lead_samples / self.sample_rate_hz
         return acq, acq.offset_hz + acq.rate_hz_per_s * lead
 
-    def _run_block(self, block: np.ndarray, moments: tuple | None, parts: SymbolOut, t_limit: float = math.inf,
+    def _run_block(self, block: np.ndarray, moments: tuple | None, out: SymbolOut, t_limit: float = math.inf,
                    tail: bool = False) -> None:
         """Demodulate one block.
 
@@ -896,7 +896,7 @@ class Demodulator:
                 self._fir_hist2[:] = hist_before
                 self._nco_phase = phase_before
                 block, cnt, m3 = self._moments(block)
-                self._run_block(block, (cnt, m3), parts, t_limit)
+                self._run_block(block, (cnt, m3), out, t_limit)
                 return
             self._take_moments(int(mom[3]), mom)
         self._nco_phase_unwrapped += dphase * n
@@ -905,10 +905,10 @@ class Demodulator:
         base = self._mf_tail_base
         st = self._state[0]
         st["blk_n"], st["blk_m2"], st["blk_m4"] = 0, 0.0, 0.0
-        first = parts.n
-        self._track(mfbuf, base, t_limit, parts)
-        nsym = parts.n - first
-        pos, flags, theta = parts.pos[first:parts.n], parts.flags[first:parts.n], parts.theta[first:parts.n]
+        first = out.n
+        self._track(mfbuf, base, t_limit, out)
+        nsym = out.n - first
+        pos, flags, theta = out.pos[first:out.n], out.flags[first:out.n], out.theta[first:out.n]
         # keep what the next strobes need (a strobe can stand past the buffer's end: keep nothing then)
         keep_from = min(max(0, int(math.floor(st["t"])) - self._look - base), mfbuf.size)
         kept = mfbuf.size - keep_from
@@ -937,7 +937,7 @@ class Demodulator:
             # the symbol's matched-filter centre was rotated at about this oscillator phase
             mid = float(sm["mid"])
             total_phase = phase_at_block + dphase * (mid - block_first) + float(sm["theta_mid"])
-            parts.track.append(TrackPoint(mid, float(freq_hz), self._block_esn0_db(st), bool(flags[-1] & 1),
+            out.track.append(TrackPoint(mid, float(freq_hz), self._block_esn0_db(st), bool(flags[-1] & 1),
                                     bool(flags[-1] & 2), float(total_phase), float(sm["spread_per_fs"]) * fs))
             self._unlocked_run = (self._unlocked_run + nsym) if locked == 0 else nsym - 1 - int(sm["last_locked"])
         self.stats.symbols_out += nsym

@@ -620,10 +620,11 @@ class ResidualCarrierDemodulator:
 
     def _refine(self, det) -> CarrierFix | None:
         blocks = [b for b, _, _ in self._held]
+        gains = [g for _, g, _ in self._held]
         starts = [s for _, _, s in self._held]
         pred = self.carrier_prediction
         if pred is None:
-            return self._search.refine(blocks, [g for _, g, _ in self._held], starts, det, self._dwell_start)
+            return self._search.refine(blocks, gains, starts, det, self._dwell_start)
         # the held blocks are consecutive: rotated as one window, so the phase runs on across them
         fs = self.sample_rate_hz
         sizes = [b.size for b in blocks]
@@ -631,7 +632,7 @@ class ResidualCarrierDemodulator:
         edges = np.cumsum([0] + sizes)
         centred = [(b - np.complex64(np.mean(b, dtype=np.complex128))) * rot[edges[i]:edges[i + 1]]
                    for i, b in enumerate(blocks)]
-        fix = self._search.refine(centred, [g for _, g, _ in self._held], starts, det, self._dwell_start)
+        fix = self._search.refine(centred, gains, starts, det, self._dwell_start)
         if fix is None:
             return None
         k = fix.start - starts[0]
