@@ -782,7 +782,7 @@ def viterbi_block_kernel(soft, level, quant, positions, mother, n_steps, work, w
     n_emit = total - keep
     if n_emit <= 0:
         return 0
-    best = 0
+    best = np.int64(0)  # not the literal 0: the traceback then compiles once, for an int64 state
     for s in range(1, 64):
         if work[s] > work[best]:
             best = s
