@@ -612,9 +612,19 @@ def test_hard_costas_slope_against_monte_carlo():
     detector output's derivative in the phase on simulated symbols (a slow obvious reference): BPSK
     ``sgn(I) Q`` with slope ``erf(sqrt(Es/N0))``; QPSK ``(sgn(I) Q - sgn(Q) I) / sqrt 2``, whose slope is
     ``erf(u) - 2 u exp(-u^2) / sqrt(pi)`` (u = sqrt(Es/2N0)) and not ``erf(u)``, the decision moving with the
-    phase too (0.74 against 0.95 at 6 dB).  The closed forms are worked from the detector's definition here
-    (from memory, not confirmed against a textbook table); the Monte Carlo is the check."""
+    phase too (0.74 against 0.95 at 6 dB); OQPSK, whose cross terms are the other rail half a symbol from its
+    decisions (the raised-cosine response there, Proakis, *Digital Communications*, 4th ed., eq. 9.2-26, RRC
+    0.5, ideal timing), with that rail's power ``sum_i g(i + 1/2)^2`` in front of the second term.  The
+    closed forms are worked from the detector's definition (from memory, not confirmed against a textbook
+    table); the Monte Carlo is the check."""
     from pipeline.demod._kernels import hard_costas_slope
+
+    def rc(t, b=0.5):  # raised-cosine response, peak 1 (no sample here falls on its removable singularity)
+        return np.sinc(t) * np.cos(np.pi * b * t) / (1.0 - (2.0 * b * t) ** 2)
+
+    offsets = np.arange(-12, 12) + 0.5
+    g_mid = rc(offsets)
+    mid_power = float(np.sum(g_mid ** 2))
 
     rng = np.random.default_rng(13)
     n = 400_000
@@ -622,25 +632,39 @@ def test_hard_costas_slope_against_monte_carlo():
     for esn0_db in (3.0, 6.0, 9.0):
         x = 10 ** (esn0_db / 10)
         noise = math.sqrt(0.5 / x) * (rng.standard_normal(n) + 1j * rng.standard_normal(n))
-        for mod in (0, 1):
+        for mod in (0, 1, 2):
             if mod == 0:
                 s = (2.0 * rng.integers(0, 2, n) - 1.0).astype(complex)
             else:
                 s = np.exp(1j * (np.pi / 4 + np.pi / 2 * rng.integers(0, 4, n)))
             y = s + noise
+            y_i = y_q = y
+            if mod == 2:
+                # OQPSK: at the I strobe of symbol k the Q rail (its symbols half a symbol later) stands at
+                # sum_j b_j g(k - j - 1/2); at the Q strobe the I rail at sum_j a_j g(k - j + 1/2)
+                a, b = s.real, s.imag
+                q_mid = np.convolve(b, g_mid[::-1], mode="same")
+                i_mid = np.convolve(a, g_mid, mode="same")
+                noise2 = math.sqrt(0.5 / x) * (rng.standard_normal(n) + 1j * rng.standard_normal(n))
+                y_i = a + 1j * q_mid + noise   # the I strobe: (I, Q between its symbols)
+                y_q = i_mid + 1j * b + noise2  # the Q strobe: (I between its symbols, Q)
 
-            def mean_e(phi, y=y, mod=mod):
+            def mean_e(phi, y=y, mod=mod, y_i=y_i, y_q=y_q):
                 r = y * np.exp(-1j * phi)
                 if mod == 0:
                     return float(np.mean(np.sign(r.real) * r.imag))
-                return float(np.mean(np.sign(r.real) * r.imag - np.sign(r.imag) * r.real)) / math.sqrt(2)
+                if mod == 1:
+                    return float(np.mean(np.sign(r.real) * r.imag - np.sign(r.imag) * r.real)) / math.sqrt(2)
+                ri, rq = y_i * np.exp(-1j * phi), y_q * np.exp(-1j * phi)
+                return float(np.mean(np.sign(ri.real) * ri.imag - np.sign(rq.imag) * rq.real)) / math.sqrt(2)
 
             d = 0.02
             slope_mc = (mean_e(-d) - mean_e(d)) / (2 * d)  # positive when the symbols lag
-            slope = hard_costas_slope(x, mod, soft_below)
+            slope = hard_costas_slope(x, mod, soft_below, mid_power)
             assert abs(slope_mc - slope) < 0.02, (esn0_db, mod, slope_mc, slope)
     # at 6 dB the QPSK slope is well below erf(u), the first term alone
-    assert hard_costas_slope(10 ** 0.6, 1, soft_below) < 0.8 * math.erf(math.sqrt(0.5 * 10 ** 0.6))
+    assert hard_costas_slope(10 ** 0.6, 1, soft_below, mid_power) < 0.8 * math.erf(math.sqrt(0.5 * 10 ** 0.6))
+    assert abs(mid_power - 0.749) < 0.002  # RRC 0.5: 2 (0.600^2 + 0.120^2 + 0.017^2 + ...)
 
 
 def test_long_search_finds_a_weak_qpsk_carrier_the_short_one_cannot():

@@ -278,23 +278,26 @@ def soft_costas_error(a, yi, yq, zq, zi):
 
 
 @njit(cache=True, nogil=True)
-def hard_costas_slope(esn0, mod_code, soft_below):
+def hard_costas_slope(esn0, mod_code, soft_below, mid_power):
     """Slope per radian at zero phase error of the hard Costas detector over the amplitude, never below 0.3.
 
     BPSK (``mod_code`` 0) ``sgn(I) Q``: ``erf(sqrt(x))``, ``x = Es/N0`` (linear).  QPSK (1) ``(sgn(I) Q -
-    sgn(Q) I) / sqrt 2`` at ``x >= soft_below``: ``erf(u) - 2 u exp(-u^2) / sqrt(pi)``, ``u = sqrt(x / 2)``
-    (the decision ``sgn(Q)`` moves with the phase too and correlates with the cross term ``I``: 0.74 at
-    6 dB, where ``erf(u)`` is 0.95); below ``soft_below`` (the hard detector there only pulls a stream in,
-    before the soft one takes over) and for OQPSK (2, whose cross terms are taken half a symbol away) the
-    first term alone, ``erf(u)``.
+    sgn(Q) I) / sqrt 2`` at ``x >= soft_below``: ``erf(u) - 2 u exp(-u^2) / sqrt(pi)``, ``u = sqrt(x / 2)``:
+    the decision ``sgn(I)`` moves with the phase too, by the cross term ``Q`` over the density of ``I`` at
+    zero, which takes ``2 E[Q^2] f_I(0)`` off the slope (0.74 at 6 dB, where ``erf(u)`` is 0.95).  OQPSK (2)
+    takes the cross term half a symbol from the decision, where the other rail's mean power is
+    ``mid_power`` (``sum_i g(i + 1/2)^2`` of the combined pulse, 0.75 for RRC 0.5): ``erf(u) - mid_power 2 u
+    exp(-u^2) / sqrt(pi)``.  Below ``soft_below`` (the hard detector there only pulls a stream in, before
+    the soft one takes over) ``erf(u)`` as it always was.
     """
     if mod_code == 0:
         k = math.erf(math.sqrt(esn0))
     else:
         u = math.sqrt(0.5 * esn0)
         k = math.erf(u)
-        if mod_code == 1 and esn0 >= soft_below:
-            k -= 2.0 * u * math.exp(-u * u) / math.sqrt(math.pi)
+        if esn0 >= soft_below:
+            cross = 1.0 if mod_code == 1 else mid_power
+            k -= cross * 2.0 * u * math.exp(-u * u) / math.sqrt(math.pi)
     return k if k > 0.3 else 0.3
 
 
@@ -488,7 +491,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     flagged with, what the intervals before gave.  Amplitude from the M2M4 moments
     (``S = sqrt(2 M2^2 - M4)``), which need no carrier or decisions.  The decision-directed slope
     at ``Es/N0 = S / (M2 - S)`` (:func:`hard_costas_slope`): ``erf(sqrt(Es/N0))`` (BPSK) and
-    ``erf(u) - 2 u exp(-u^2) / sqrt(pi)`` (QPSK above ``soft_below``; OQPSK ``erf(u)``).  Below
+    ``erf(u) - 2 u exp(-u^2) / sqrt(pi)`` (QPSK above ``soft_below``; OQPSK with the other rail's power
+    between its symbols, ``1 - r0``, in front of the second term).  Below
     ``soft_below`` amplitude and Es/N0 come from the long window once its weight passes 1/4 (over 1024
     symbols M2M4's ``S`` spreads by about 25 % at -3 dB).
 
@@ -813,7 +817,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                 if dd_gain > 0.0:
                     # decision-directed slope at the measured Es/N0 (never below 0.3); QPSK from soft_below
                     # up with the decision's correlation with the cross term (see Notes)
-                    kdc = hard_costas_slope(esn0, mod_code, soft_below)
+                    kdc = hard_costas_slope(esn0, mod_code, soft_below, 1.0 - r0)
                 g_c = inv_amp / kdc
             g_t = inv_amp * inv_amp * inv_kd
 
