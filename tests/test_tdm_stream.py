@@ -57,7 +57,7 @@ def test_written_as_it_goes_equals_format_tdm_for_any_split(tmp_path, seed):
     # astropy (PyPI) reads the UTC text as the same TAI instants, 23:59:60.x included
     seconds = (Time([epoch for _, epoch, _, _ in obs], scale="utc") - tai).to_value("s")
     np.testing.assert_allclose(seconds, np.array([t for _, _, t, _ in obs]) * 1e-9, rtol=0, atol=1e-6)
-    for (_, epoch, tai_ns, value), r in zip(obs, kept):
+    for (_, epoch, _, value), r in zip(obs, kept):
         assert epoch == r["utc"][:-1]
         assert value == pytest.approx(KEYS["downlink_frequency_hz"] + r["carrier_offset_hz"] + KEYS["tuning_offset_hz"],
                                       abs=1e-6)
