@@ -6,6 +6,7 @@ records kept in lists (``pipeline.decode(..., out=None)``).
 
 from __future__ import annotations
 
+import logging
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -23,6 +24,15 @@ from pipeline.chain._segments import DEFAULT_SEGMENT_SAMPLES, SegmentedDecode
 from pipeline.chain._sinks import FolderSinks, MemorySinks
 from pipeline.errors import ProfileError, UsageError
 from pipeline.profile import LinkProfile
+
+log = logging.getLogger(__name__)
+
+#: Said in the report (``demod.inversion_note``) and the log when the carrier was found at the mirror image of the
+#: predicted Doppler only: the inversion is inferred from the prediction's sign, not seen in the signal itself.
+MIRRORED_PREDICTION_NOTE = ("the recording is spectrally inverted (I/Q swapped or conjugated), inferred from the "
+                            "predicted Doppler's sign: the carrier was found at the mirror image of the predicted "
+                            "carrier, not at it, so the samples were conjugated from then on (as with [receiver] "
+                            "spectrum_inverted = true) and the Doppler is given with its true sign")
 
 __all__ = ["DecodeSummary", "TimeProducts", "carrier_prediction", "decode_in_memory", "decode_to_folder", "is_stream",
            "kernel_cache_cold"]
@@ -436,6 +446,11 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         report["demod"]["no_lock"] = no_lock
     if front.demod is not None and front.demod.acquisition_centre_hz is not None:
         report["demod"]["acquisition_centre_hz"] = front.demod.acquisition_centre_hz  # centred on the prediction
+    if front.demod is not None and front.demod.carrier_found_mirrored:
+        # spectrum_inverted = "auto" with an orbit: the carrier was found at the mirror image of the prediction only
+        report["demod"]["carrier_found_mirrored"] = front.demod.carrier_found_mirrored
+        report["demod"]["inversion_note"] = MIRRORED_PREDICTION_NOTE
+        log.warning(MIRRORED_PREDICTION_NOTE)
     summary = DecodeSummary(frames=back.frame_count, frames_ok=ok, frames_idle=idle,
                             frames_failed=back.frame_count - ok - idle, packets=back.packet_count,
                             duration_s=float(inp.duration_s), elapsed_s=elapsed, samples=front.counts.samples,
