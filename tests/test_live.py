@@ -104,6 +104,8 @@ def test_follow_writes_as_it_goes_and_the_normal_end_removes_the_marker(tmp_path
     assert not (out / "INCOMPLETE").exists()
     assert json.loads((out / "report.json").read_text())["summary"]["packets"] > 0
     assert (out / "packets.jsonl").read_bytes() == (ref / "packets.jsonl").read_bytes()
+    # doppler.tdm was written as the rows came (its body beside it) and put together at the end
+    assert (out / "doppler.tdm").read_text().count("RECEIVE_FREQ_1") > 0 and not list(out.glob("*.partial"))
 
 
 def test_a_killed_live_run_keeps_its_records_and_the_marker(tmp_path, pass_3s):
@@ -122,6 +124,7 @@ def test_a_killed_live_run_keeps_its_records_and_the_marker(tmp_path, pass_3s):
     assert (out / "INCOMPLETE").exists()
     assert (out / "packets.jsonl").stat().st_size > 0  # what was decoded is there, each record flushed
     assert not (out / "report.json").exists()
+    assert not (out / "doppler.tdm").exists()  # its data lines may be there, never passed off as the message
 
 
 def test_a_live_stream_is_one_process(tmp_path):

@@ -89,6 +89,46 @@ def test_a_narrow_search_loses_the_leo_carrier_without_the_orbit_and_finds_it_ce
     assert abs(float(np.mean(residual)) - pass_sim.OSC_OFFSET_HZ) < 5.0
 
 
+def test_an_inverted_recording_is_found_at_the_mirrored_prediction_under_auto(tmp_path):
+    # the same pass with its samples conjugated (a spectrally inverted recording: the Doppler shows with the
+    # opposite sign): under spectrum_inverted = "auto" the narrow search finds nothing at the prediction, then
+    # finds the carrier at its mirror image, and the recording is demodulated as spectrum_inverted = true would
+    bits, packets = _frames_and_packets()
+    receiver = f"[receiver]\nacquisition_range_hz = {NARROW_RANGE_HZ}"
+    common = dict(bits=bits, from_culmination_s=BEFORE_CULMINATION_S, tuning_hz=TUNING_HZ)
+    up_rows, upright, _ = pass_sim._decode_pass(tmp_path / "upright", receiver=receiver, **common)
+    assert upright.packets == len(packets) and "carrier_found_mirrored" not in upright.report["demod"]
+    rows, summary, out = pass_sim._decode_pass(tmp_path / "inverted", conjugate=True, receiver=receiver, **common)
+    assert summary.packets == len(packets) and summary.frames_failed == 0
+    for apid in (100, 200, 300):  # the octets of every packet, in order
+        sent = b"".join(p for p in packets if (int.from_bytes(p[:2], "big") & 0x7FF) == apid)
+        assert (out / f"apid_{apid:04d}.bin").read_bytes() == sent
+    demod = summary.report["demod"]
+    assert demod["carrier_found_mirrored"] >= 1
+    assert "inferred from the predicted Doppler's sign" in demod["inversion_note"]
+    # doppler.csv: the spacecraft's Doppler with its true sign, the upright decode's (sgp4 truth less the tuning
+    # offset, plus the oscillator's offset: the residuals against the prediction are flat about it)
+    assert len(rows) >= 20 and len(rows) >= len(up_rows) - 2
+    up = {r["utc"]: float(r["carrier_offset_hz"]) for r in up_rows}
+    both = [(float(r["carrier_offset_hz"]), up[r["utc"]]) for r in rows[2:] if r["utc"] in up]
+    assert len(both) >= 20
+    for got, want in both:
+        assert np.sign(got) == np.sign(want) and abs(got - want) < 5.0, (got, want)
+    residual = np.array([float(r["residual_hz"]) for r in rows[2:]])
+    assert float(np.std(residual)) < 5.0 and abs(float(np.mean(residual)) - pass_sim.OSC_OFFSET_HZ) < 5.0
+    assert "doppler_note" not in summary.report["pass"]  # nothing left for the Doppler check to flag
+    tdm = (out / "doppler.tdm").read_text()
+    assert tdm.count("RECEIVE_FREQ_1") == len(rows)
+    # without the orbit: no lock, as before (the mirror is tried only around a prediction)
+    _, nominal, _ = pass_sim._decode_pass(tmp_path / "nominal", conjugate=True, receiver=receiver, tle=False, **common)
+    assert nominal.packets == 0 and nominal.frames == 0 and "carrier_found_mirrored" not in nominal.report["demod"]
+    # spectrum_inverted = false with the orbit: the mirror is not tried, so the inverted recording stays unlocked
+    _, upright_only, _ = pass_sim._decode_pass(tmp_path / "false", conjugate=True, tle=True, **common,
+                                               receiver=receiver + "\nspectrum_inverted = false")
+    assert upright_only.packets == 0 and "carrier_found_mirrored" not in upright_only.report["demod"]
+    assert upright_only.no_lock is not None and "of the predicted carrier" in upright_only.no_lock
+
+
 # ---- the Demodulator on its own ----------------------------------------------------------------------------------
 
 FS, RS = 250e3, 60e3

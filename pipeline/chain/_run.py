@@ -6,9 +6,8 @@ records kept in lists (``pipeline.decode(..., out=None)``).
 
 from __future__ import annotations
 
-import math
+import logging
 import time
-from array import array
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -25,6 +24,15 @@ from pipeline.chain._segments import DEFAULT_SEGMENT_SAMPLES, SegmentedDecode
 from pipeline.chain._sinks import FolderSinks, MemorySinks
 from pipeline.errors import ProfileError, UsageError
 from pipeline.profile import LinkProfile
+
+log = logging.getLogger(__name__)
+
+#: Said in the report (``demod.inversion_note``) and the log when the carrier was found at the mirror image of the
+#: predicted Doppler only: the inversion is inferred from the prediction's sign, not seen in the signal itself.
+MIRRORED_PREDICTION_NOTE = ("the recording is spectrally inverted (I/Q swapped or conjugated), inferred from the "
+                            "predicted Doppler's sign: the carrier was found at the mirror image of the predicted "
+                            "carrier, not at it, so the samples were conjugated from then on (as with [receiver] "
+                            "spectrum_inverted = true) and the Doppler is given with its true sign")
 
 __all__ = ["DecodeSummary", "TimeProducts", "carrier_prediction", "decode_in_memory", "decode_to_folder", "is_stream",
            "kernel_cache_cold"]
@@ -335,8 +343,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
          segment_samples: int = DEFAULT_SEGMENT_SAMPLES, scheduler: str | None = None, verbose: bool = False,
          products: TimeProducts | None = None, drop_duplicates: bool = False, live_latency: bool = False):
     """Decode ``inp`` into ``sinks``; returns the summary (with the report dict), the plot data and the
-    keywords of :func:`pipeline.orbit.write_tdm` but the rows (None where no ``doppler.tdm`` is written: symbol
-    input, no time, no downlink frequency).
+    seconds each track point (a ``doppler.csv`` row) averages, ``doppler.tdm``'s INTEGRATION_INTERVAL (None
+    for symbol input).
 
     ``live_latency`` hands a live stream's samples on as each read returns them (``--follow``) instead of
     in whole chunks; the output is the same either way.
@@ -438,17 +446,18 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         report["demod"]["no_lock"] = no_lock
     if front.demod is not None and front.demod.acquisition_centre_hz is not None:
         report["demod"]["acquisition_centre_hz"] = front.demod.acquisition_centre_hz  # centred on the prediction
+    if front.demod is not None and front.demod.carrier_found_mirrored:
+        # spectrum_inverted = "auto" with an orbit: the carrier was found at the mirror image of the prediction only
+        report["demod"]["carrier_found_mirrored"] = front.demod.carrier_found_mirrored
+        report["demod"]["inversion_note"] = MIRRORED_PREDICTION_NOTE
+        log.warning(MIRRORED_PREDICTION_NOTE)
     summary = DecodeSummary(frames=back.frame_count, frames_ok=ok, frames_idle=idle,
                             frames_failed=back.frame_count - ok - idle, packets=back.packet_count,
                             duration_s=float(inp.duration_s), elapsed_s=elapsed, samples=front.counts.samples,
                             channel_symbols=front.counts.channel_symbols, input_kind=inp.kind, report=report,
                             no_lock=no_lock)
-    tdm = None
-    if inp.kind == "iq" and inp.timebase is not None and downlink_hz:
-        tdm = dict(spacecraft=profile.name.upper(), station=(profile.station.name or "STATION"),
-                   downlink_frequency_hz=downlink_hz, integration_interval_s=block_samples / inp.source.sample_rate_hz,
-                   tuning_offset_hz=tuning)
-    return summary, plots, tdm
+    interval_s = None if block_samples is None else block_samples / inp.source.sample_rate_hz
+    return summary, plots, interval_s
 
 
 def _downlink(inp: _Input, profile: LinkProfile) -> tuple[float | None, float]:
@@ -462,35 +471,59 @@ def _downlink(inp: _Input, profile: LinkProfile) -> tuple[float | None, float]:
 
 
 class _TrackFolderSinks(FolderSinks):
-    """:class:`FolderSinks` that also keep what ``doppler.tdm`` is made of: the locked rows of ``doppler.csv``
-    (their time as TAI ns, their carrier offset) as they pass, 16 bytes a row (a live stream at 5 Msample/s
-    adds about 9 MB an hour), given back as rows by :meth:`locked_rows`."""
+    """:class:`FolderSinks` that also write ``doppler.tdm`` as the rows of ``doppler.csv`` pass: its data lines
+    go to a body file in the folder at once (:class:`pipeline.orbit.TdmWriter`), so a live stream of any
+    length holds no rows in memory; :meth:`finish_tdm` writes the message at the end of the run.
 
-    def __init__(self, folder: Path, **options):
+    ``tdm`` holds :class:`~pipeline.orbit.TdmWriter`'s keywords (None: no ``doppler.tdm``)."""
+
+    def __init__(self, folder: Path, *, tdm: dict | None = None, **options):
         super().__init__(folder, **options)
-        self._tai_ns = array("q")
-        self._offset_hz = array("d")
+        self.tdm = None
+        if tdm is not None:
+            from pipeline.orbit import TdmWriter
+
+            self.tdm = TdmWriter(self.folder / "doppler.tdm", **tdm)
 
     def doppler(self, rows: list[dict]) -> None:
         super().doppler(rows)
-        from pipeline.timescales import parse_utc
+        if self.tdm is not None:
+            try:
+                self.tdm.process(rows)
+            except OSError as exc:
+                raise self._error(exc) from None
 
-        for r in rows:
-            if r["locked"] and isinstance(r["utc"], str):
-                off = r["carrier_offset_hz"]
-                self._tai_ns.append(parse_utc(r["utc"], assume_utc=True))
-                self._offset_hz.append(math.nan if off is None else float(off))
+    def close(self) -> None:
+        super().close()
+        if self.tdm is not None:
+            try:
+                self.tdm.close()
+            except OSError as exc:
+                raise self._error(exc) from None
 
-    @property
-    def locked_count(self) -> int:
-        return len(self._tai_ns)
+    def finish_tdm(self, integration_interval_s: float | None) -> None:
+        """Write ``doppler.tdm`` when locked rows came (and the interval is known); else remove its body."""
+        if self.tdm is None:
+            return
+        try:
+            if self.tdm.locked_rows and integration_interval_s:
+                self.tdm.finish(integration_interval_s=integration_interval_s)
+            else:
+                self.tdm.discard()
+        except OSError as exc:
+            raise self._error(exc) from None
 
-    def locked_rows(self):
-        """The locked rows kept, as :func:`pipeline.orbit.format_tdm` reads them (UTC to the ns)."""
-        from pipeline.timescales import format_utc
 
-        for t, off in zip(self._tai_ns, self._offset_hz):
-            yield {"utc": format_utc(t), "locked": True, "carrier_offset_hz": off}
+def _tdm_keywords(inp: _Input, profile: LinkProfile) -> dict | None:
+    """:class:`pipeline.orbit.TdmWriter`'s keywords for this input; None where no ``doppler.tdm`` is written
+    (symbol input, no time, no downlink frequency)."""
+    if inp.kind != "iq" or inp.timebase is None:
+        return None
+    downlink_hz, tuning = _downlink(inp, profile)
+    if not downlink_hz:
+        return None
+    return dict(spacecraft=profile.name.upper(), station=(profile.station.name or "STATION"),
+                downlink_frequency_hz=downlink_hz, tuning_offset_hz=tuning)
 
 
 def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrite: bool = False,
@@ -525,14 +558,13 @@ def decode_to_folder(recording: str, profile: LinkProfile, out: str, *, overwrit
 
         columns = (*DOPPLER_COLUMNS, *PREDICTION_COLUMNS)
     with OutputFolder(out, overwrite=overwrite, live=follow) as tmp:
-        sinks = _TrackFolderSinks(tmp, cadus=cadus, doppler_columns=columns, flush=follow, packets_to=packets_to)
-        summary, plots, tdm = _run(inp, profile, sinks, workers=workers, progress=progress,
-                                   segment_samples=segment_samples, scheduler=scheduler, verbose=verbose,
-                                   products=products, drop_duplicates=drop_duplicates, live_latency=follow)
-        if tdm is not None and sinks.locked_count:  # the carrier track as a CCSDS Tracking Data Message (503.0-B)
-            from pipeline.orbit import write_tdm
-
-            write_tdm(tmp / "doppler.tdm", sinks.locked_rows(), **tdm)
+        # the carrier track as a CCSDS Tracking Data Message (503.0-B), its data lines written as they come
+        sinks = _TrackFolderSinks(tmp, cadus=cadus, doppler_columns=columns, flush=follow, packets_to=packets_to,
+                                  tdm=_tdm_keywords(inp, profile))
+        summary, plots, interval_s = _run(inp, profile, sinks, workers=workers, progress=progress,
+                                          segment_samples=segment_samples, scheduler=scheduler, verbose=verbose,
+                                          products=products, drop_duplicates=drop_duplicates, live_latency=follow)
+        sinks.finish_tdm(interval_s)
         write_report(tmp, summary.report, plots)
     summary.out = str(out)
     return summary

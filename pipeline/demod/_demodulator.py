@@ -8,7 +8,7 @@ from typing import Any
 
 import numpy as np
 
-from pipeline.demod._acquire import LINE_THRESHOLD, CarrierAcquisition, CarrierSearch, SpectralLine, _next_pow2
+from pipeline.demod._acquire import LINE_THRESHOLD, CarrierSearch, SpectralLine, _next_pow2
 from pipeline.demod._filters import gardner_detector_gain, matched_filter_taps, midpoint_energy_ratio
 from pipeline.demod._kernels import (
     BLOCK_SUMMARY,
@@ -26,7 +26,7 @@ from pipeline.demod._snr import esn0_db_from_moments
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "centre_window", "check_chunk",
-           "check_prediction", "continue_stream", "shifted_line",
+           "check_prediction", "continue_stream", "mirrored_line", "shifted_line",
            "cut_blocks", "MIN_SAMPLES_PER_SYMBOL", "MAX_SAMPLES_PER_SYMBOL"]
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
@@ -145,8 +145,11 @@ class DemodStats:
     line needs, so that :meth:`no_lock_message` needs nothing else.  ``acquisition_centre_hz`` is set when
     the search was centred on a predicted carrier (a :class:`~pipeline.demod.CarrierPrediction`): the
     prediction at the middle of the first acquisition window (None: centred on 0 Hz, the nominal
-    frequency).  Picklable; segments of one decode combine with :meth:`merge` (not a field-wise sum; the
-    first segment's centre is kept).
+    frequency).  ``carrier_found_mirrored`` counts the acquisitions (under ``spectrum_inverted = "auto"``
+    with a prediction) that found the carrier only at the mirror image of the prediction: the recording is
+    spectrally inverted, as inferred from the predicted Doppler's sign, and its samples were conjugated from
+    then on.  Picklable; segments of one decode combine with :meth:`merge` (not a field-wise sum; the first
+    segment's centre is kept).
     """
 
     samples_in: int = 0
@@ -160,6 +163,7 @@ class DemodStats:
     search_hz: float = float("nan")
     line_threshold_db: float = float("nan")
     acquisition_centre_hz: float | None = None
+    carrier_found_mirrored: int = 0
 
     def saw(self, line: SpectralLine) -> None:
         """Keep ``line`` if it is stronger than the strongest seen so far (a line beats a band)."""
@@ -171,7 +175,7 @@ class DemodStats:
     def merge(self, other: DemodStats) -> None:
         """Add another run's (a later segment's) counters; keep the stronger line."""
         for name in ("samples_in", "nonfinite_samples", "symbols_out", "carrier_locked_symbols", "acquisitions",
-                     "carrier_found"):
+                     "carrier_found", "carrier_found_mirrored"):
             setattr(self, name, getattr(self, name) + getattr(other, name))
         self.last_peak_ratio = other.last_peak_ratio
         if other.strongest_line is not None:
@@ -355,6 +359,12 @@ def shifted_line(line: SpectralLine, hz: float) -> SpectralLine:
     return line if hz == 0.0 else SpectralLine(line.frequency_hz + hz, line.level_db, line.kind)
 
 
+def mirrored_line(line: SpectralLine, hz: float) -> SpectralLine:
+    """A line found relative to the prediction in the conjugated window (the mirrored search), in the
+    recording's frame: at ``-(hz + f)``."""
+    return SpectralLine(-(line.frequency_hz + hz), line.level_db, line.kind)
+
+
 def continue_stream(next_start: int | None, start: int) -> None:
     """Raise unless a chunk starting at ``start`` continues a stream expected at ``next_start``."""
     if next_start is not None and start != next_start:
@@ -495,7 +505,11 @@ class Demodulator:
     its samples (:meth:`CarrierPrediction.rotation`: its offset and its rate), so the search runs around
     0 Hz and 0 Hz/s of the prediction; the prediction at the held window's first sample is added back to
     the frequency found, and lines seen are reported at the prediction at the window's middle plus their
-    offset.  ``stats.acquisition_centre_hz`` records the centre of the first search.
+    offset.  ``stats.acquisition_centre_hz`` records the centre of the first search.  Under
+    ``spectrum_inverted = "auto"`` (:attr:`mirror_search`), a window where nothing was found is searched again
+    conjugated (at the mirror image of the prediction) when the prediction lies further from 0 Hz than
+    ``acquisition_search_hz``; a carrier found there means a spectrally inverted recording, and from then on
+    the samples are conjugated as with ``spectrum_inverted = true`` (``stats.carrier_found_mirrored``).
 
     Carrier loop bandwidth: ``[receiver] carrier_loop_bandwidth_hz``, or automatic
     ``0.002 * symbol_rate`` (480 Hz at 240 ksym/s): at Es/N0 = -1 dB its phase jitter is about
@@ -544,6 +558,8 @@ class Demodulator:
         self._mod_code = _MOD_CODES[link.modulation]
         self._power = 2 if self._mod_code == 0 else 4
         self.conjugate = receiver.spectrum_inverted is True
+        # "auto" with a prediction: a carrier not found at the prediction is searched at its mirror image too
+        self.mirror_search = receiver.spectrum_inverted == "auto" and carrier_prediction is not None
 
         self.taps = matched_filter_taps(link.pulse, link.rolloff, sps, _RRC_SPAN_SYMBOLS)
         # rect pulses: the tracker integrates the raw samples over the exact symbol window at each
@@ -686,6 +702,7 @@ class Demodulator:
         self._mom4 = np.zeros(4, dtype=np.float64)
         self._unlocked_run = 0
         self._finished = False
+        self.conjugate = self.receiver.spectrum_inverted is True  # "auto" may turn it on (the mirrored search)
         self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
 
     # ---- public ------------------------------------------------------------------------
@@ -783,15 +800,14 @@ class Demodulator:
         self.stats.acquisitions += 1
         found = False
         if held.size >= 1024:
-            # the held window's first sample is the next one to run (the blocks before it have run)
-            window, first, middle = centre_window(held, self._run_sample, self.carrier_prediction,
-                                                  self.sample_rate_hz, self.stats)
-            acq = self._search.search(window)
-            self.stats.last_peak_ratio = 10.0 ** (acq.line.level_db / 10.0) / math.log(2.0)
-            self.stats.saw(shifted_line(acq.line, middle))
-            offset = acq.offset_hz
-            if not acq.found and not final and acq.line.kind != "band":
-                acq, offset = self._search_long(acq.band_hz)
+            acq, offset, first, middle, long_nb = self._search_held(held, final)
+            if not acq.found and self.mirror_search and not self.conjugate and abs(middle) > self.acquisition_search_hz:
+                # "auto" with a prediction: the mirror image of the prediction, when its band does not overlap the
+                # upright one (nearer 0 Hz the sign cannot be told); a carrier there is a spectrally inverted
+                # recording, demodulated from now on as spectrum_inverted = true does (conjugated samples)
+                acq, offset, _, _, _ = self._search_held(held, final, long_nb=long_nb, mirrored=True)
+                if acq.found:
+                    self._conjugate_held()
             if acq.found:
                 found = True
                 self.stats.carrier_found += 1
@@ -828,29 +844,66 @@ class Demodulator:
             for b, cnt, mom in blocks:
                 self._run_block(b, (cnt, mom), out)
 
-    def _search_long(self, band_hz: float):
-        """The long search over the released blocks and the held window, when due; ``(result, offset_hz)`` with
-        the frequency at the held window's first sample (a result not found when not run)."""
+    def _search_held(self, held: np.ndarray, final: bool, long_nb: int | None = None, mirrored: bool = False):
+        """The short search of the held window, then the long one when due and a band was seen.
+
+        ``mirrored``: the window conjugated, i.e. searched at the mirror image of the prediction (its lines are
+        kept in the recording's frame).  ``long_nb``: the long search's length in blocks when already decided
+        for this acquisition (0: not due), so the mirrored search runs the long search exactly when the upright
+        one did.  Returns ``(result, offset_hz, first, middle, long_nb)``: the offset at the held window's first
+        sample relative to the prediction there (``first``), and the prediction at the window's middle.
+        """
+        # the held window's first sample is the next one to run (the blocks before it have run)
+        window, first, middle = centre_window(np.conj(held) if mirrored else held, self._run_sample,
+                                              self.carrier_prediction, self.sample_rate_hz, self.stats)
+        acq = self._search.search(window)
+        if not mirrored:
+            self.stats.last_peak_ratio = 10.0 ** (acq.line.level_db / 10.0) / math.log(2.0)
+        self.stats.saw((mirrored_line if mirrored else shifted_line)(acq.line, middle))
+        offset = acq.offset_hz
+        if not acq.found and not final and acq.line.kind != "band":
+            if long_nb is None:
+                long_nb = self._long_search_due()
+            if long_nb:
+                acq, offset = self._search_long(long_nb, acq.band_hz, mirrored)
+        return acq, offset, first, middle, long_nb
+
+    def _conjugate_held(self) -> None:
+        """The carrier was found at the mirrored prediction: from now on the samples are conjugated as with
+        ``spectrum_inverted = true`` (the held blocks and their moments, and the DC offset estimate, too)."""
+        self.conjugate = True
+        self.stats.carrier_found_mirrored += 1
+        flip = np.array([1.0, -1.0, 1.0])  # moments [mean re, mean im, mean power] of the conjugate
+        self._held = [(np.conj(b), cnt, mom * flip) for b, cnt, mom in self._held]
+        self._dc.offset = self._dc.offset.conjugate()
+
+    def _long_search_due(self) -> int:
+        """The long search's window in blocks when one is due now, else 0 (counted once per acquisition)."""
         self._since_long += 1
         if not self.long_search_blocks:
-            return CarrierAcquisition(False, 0.0, 0.0, 0.0, band_hz, SpectralLine(band_hz, -math.inf, "band")), 0.0
+            return 0
         # the window grows 4, 8, ... blocks up to its full length (a stronger carrier is found sooner), then
         # the full one every _LONG_SEARCH_EVERY blocks
         have = len(self._history) + len(self._held)
         nb = min(self.long_search_blocks, have)
         due = nb == self.long_search_blocks and self._since_long >= _LONG_SEARCH_EVERY
         if not (due or (nb >= 4 and nb & (nb - 1) == 0 and nb > self._long_tried)):
-            return CarrierAcquisition(False, 0.0, 0.0, 0.0, band_hz, SpectralLine(band_hz, -math.inf, "band")), 0.0
+            return 0
         self._since_long = 0
         self._long_tried = nb
+        return nb
+
+    def _search_long(self, nb: int, band_hz: float, mirrored: bool = False):
+        """The long search over the last ``nb`` blocks (released ones and the held window; ``mirrored``:
+        conjugated); ``(result, offset_hz)`` with the frequency at the held window's first sample."""
         past = self._history[len(self._history) + len(self._held) - nb:]
         window = np.concatenate(past + [h[0] for h in self._held])
         lead_samples = sum(b.size for b in past)
         # with a prediction: relative to it over the long window (the caller adds it back at the held start)
-        window, _, middle = centre_window(window, self._run_sample - lead_samples, self.carrier_prediction,
-                                          self.sample_rate_hz, self.stats)
+        window, _, middle = centre_window(np.conj(window) if mirrored else window, self._run_sample - lead_samples,
+                                          self.carrier_prediction, self.sample_rate_hz, self.stats)
         acq = self._search.search_long(window, band_hz)
-        self.stats.saw(shifted_line(acq.line, middle))
+        self.stats.saw((mirrored_line if mirrored else shifted_line)(acq.line, middle))
         lead = lead_samples / self.sample_rate_hz
         return acq, acq.offset_hz + acq.rate_hz_per_s * lead
 

@@ -5,14 +5,14 @@ Message (502.0-B, key-value text, Hermite-interpolated); the station from the pr
 (WGS-84); predictions at the instant of reception, light time included (:class:`OrbitPredictor`); a
 constant light time or range for ``downlink clock`` (:class:`ConstantLightTime`); Doppler rows checked
 against the prediction (:func:`add_doppler_predictions`); the carrier track as a CCSDS Tracking Data
-Message (503.0-B, :func:`write_tdm`).  See DEVELOPERS.md, "pipeline.orbit".
+Message (503.0-B, :func:`write_tdm`, or :class:`TdmWriter` as the rows arrive).  See DEVELOPERS.md, "pipeline.orbit".
 """
 
 from pipeline.orbit._doppler import PREDICTION_COLUMNS, DopplerCheck, DopplerComparison, add_doppler_predictions
 from pipeline.orbit._earth import GroundStation, geodetic_to_ecef_km, gmst82_rad, inertial_to_earth_fixed
 from pipeline.orbit._oem import Ephemeris, EphemerisSegment, parse_oem, read_oem
 from pipeline.orbit._predict import ConstantLightTime, LightTimeSource, OrbitPredictor, Prediction
-from pipeline.orbit._tdm import TrackingData, TrackingSegment, format_tdm, parse_tdm, read_tdm, write_tdm
+from pipeline.orbit._tdm import TdmWriter, TrackingData, TrackingSegment, format_tdm, parse_tdm, read_tdm, write_tdm
 from pipeline.orbit._tle import ElementSet, parse_tle, read_tle
 
 __all__ = [
@@ -27,6 +27,7 @@ __all__ = [
     "OrbitPredictor",
     "PREDICTION_COLUMNS",
     "Prediction",
+    "TdmWriter",
     "TrackingData",
     "TrackingSegment",
     "add_doppler_predictions",

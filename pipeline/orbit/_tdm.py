@@ -30,6 +30,7 @@ from __future__ import annotations
 import math
 import os
 import re
+import shutil
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -38,7 +39,7 @@ from pipeline.errors import DataFileError
 from pipeline.orbit._files import bracket_step, keyword_value, read_text_file
 from pipeline.timescales import format_utc, parse_utc, tai_from_scale
 
-__all__ = ["TrackingData", "TrackingSegment", "format_tdm", "write_tdm", "parse_tdm", "read_tdm"]
+__all__ = ["TrackingData", "TrackingSegment", "TdmWriter", "format_tdm", "write_tdm", "parse_tdm", "read_tdm"]
 
 _NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
 _HEADER_KEYS = ("CCSDS_TDM_VERS", "CREATION_DATE", "ORIGINATOR", "MESSAGE_ID")
@@ -81,6 +82,80 @@ class TrackingData:
     source: str = "<text>"
 
 
+def _check_names(**names: str) -> None:
+    for name, value in names.items():
+        if not isinstance(value, str) or not value.strip() or "\n" in value or "=" in value:
+            raise ValueError(f"Argument '{name}' must be a one-line name without '=', not {value!r}.")
+
+
+def _check_frequency(downlink_frequency_hz) -> float:
+    f = float(downlink_frequency_hz)
+    if not (math.isfinite(f) and f > 0):
+        raise ValueError(f"Argument 'downlink_frequency_hz' must be a positive finite number, "
+                         f"not {downlink_frequency_hz!r}.")
+    return f
+
+
+def _check_interval(integration_interval_s) -> float:
+    ti = float(integration_interval_s)
+    if not (math.isfinite(ti) and ti > 0):
+        raise ValueError(f"Argument 'integration_interval_s' must be > 0, not {integration_interval_s!r}.")
+    return ti
+
+
+def _observation(row: dict, frequency_hz: float, tuning_offset_hz: float) -> tuple[int, float] | None:
+    """A row's epoch (TAI ns) and received frequency (Hz); None for a row without lock or a finite offset."""
+    off = row.get("carrier_offset_hz")
+    if off is None or not bool(row.get("locked")) or not math.isfinite(float(off)):
+        return None
+    return parse_utc(str(row["utc"]), assume_utc=True), frequency_hz + float(off) + float(tuning_offset_hz)
+
+
+def _data_line(tai_ns: int, frequency_hz: float) -> str:
+    """One data line of the message (with its newline): the one place a data line is formatted."""
+    return f"RECEIVE_FREQ_1 = {format_utc(tai_ns, zone=False)} {frequency_hz:.6f}\n"
+
+
+#: The end of the message, after the data lines.
+_TAIL = "DATA_STOP\n"
+
+
+def _head(*, first_tai_ns: int | None, last_tai_ns: int | None, spacecraft: str, station: str,
+          integration_interval_s: float, originator: str, creation_tai_ns: int | None, comment: str | None) -> str:
+    """Header and metadata up to and including ``DATA_START`` (with its newline)."""
+    if creation_tai_ns is None:
+        import time
+
+        from pipeline.timescales import tai_from_posix_ns
+
+        creation_tai_ns = tai_from_posix_ns(time.time_ns())
+    lines = ["CCSDS_TDM_VERS = 1.0"]
+    if comment:
+        lines.append("COMMENT " + " ".join(str(comment).split()))
+    lines += [f"CREATION_DATE = {format_utc(creation_tai_ns, digits=3, zone=False)}",
+              f"ORIGINATOR = {originator.strip()}",
+              "",
+              "META_START",
+              "COMMENT one-way carrier track: received frequency = nominal downlink frequency + measured offset",
+              "TIME_SYSTEM = UTC"]
+    if first_tai_ns is not None:
+        lines += [f"START_TIME = {format_utc(first_tai_ns, zone=False)}",
+                  f"STOP_TIME = {format_utc(last_tai_ns, zone=False)}"]
+    lines += [f"PARTICIPANT_1 = {station.strip()}",
+              f"PARTICIPANT_2 = {spacecraft.strip()}",
+              "MODE = SEQUENTIAL",
+              "PATH = 2,1",
+              f"INTEGRATION_INTERVAL = {integration_interval_s:.9g}",
+              "INTEGRATION_REF = MIDDLE",
+              "TIMETAG_REF = RECEIVE",
+              "FREQ_OFFSET = 0.0",
+              "META_STOP",
+              "",
+              "DATA_START",
+              ""]
+    return "\n".join(lines)
+
+
 def format_tdm(rows: Iterable[dict], *, spacecraft: str, station: str, downlink_frequency_hz: float,
                integration_interval_s: float, tuning_offset_hz: float = 0.0, originator: str = "DOWNLINK",
                creation_tai_ns: int | None = None, comment: str | None = None) -> str:
@@ -109,7 +184,8 @@ def format_tdm(rows: Iterable[dict], *, spacecraft: str, station: str, downlink_
     -------
     str
         Keywords as tabulated in the module docstring, epochs in UTC with 9 decimals (23:59:60.x inside
-        a leap second), frequencies in Hz with 6 decimals.
+        a leap second), frequencies in Hz with 6 decimals.  :class:`TdmWriter` writes the same text as the
+        rows arrive.
 
     Examples
     --------
@@ -119,62 +195,123 @@ def format_tdm(rows: Iterable[dict], *, spacecraft: str, station: str, downlink_
     >>> [ln for ln in text.splitlines() if ln.startswith("RECEIVE_FREQ_1")]
     ['RECEIVE_FREQ_1 = 2026-03-14T09:30:00.016384000 8450002301.500000']
     """
-    f = float(downlink_frequency_hz)
-    if not (math.isfinite(f) and f > 0):
-        raise ValueError(f"Argument 'downlink_frequency_hz' must be a positive finite number, "
-                         f"not {downlink_frequency_hz!r}.")
-    ti = float(integration_interval_s)
-    if not (math.isfinite(ti) and ti > 0):
-        raise ValueError(f"Argument 'integration_interval_s' must be > 0, not {integration_interval_s!r}.")
-    for name, value in (("spacecraft", spacecraft), ("station", station), ("originator", originator)):
-        if not isinstance(value, str) or not value.strip() or "\n" in value or "=" in value:
-            raise ValueError(f"Argument '{name}' must be a one-line name without '=', not {value!r}.")
-    data = []
-    for row in rows:
-        off = row.get("carrier_offset_hz")
-        if off is None or not bool(row.get("locked")) or not math.isfinite(float(off)):
-            continue
-        t = parse_utc(str(row["utc"]), assume_utc=True)
-        data.append((t, f + float(off) + float(tuning_offset_hz)))
-    if creation_tai_ns is None:
-        import time
-
-        from pipeline.timescales import tai_from_posix_ns
-
-        creation_tai_ns = tai_from_posix_ns(time.time_ns())
-    lines = ["CCSDS_TDM_VERS = 1.0"]
-    if comment:
-        lines.append("COMMENT " + " ".join(str(comment).split()))
-    lines += [f"CREATION_DATE = {format_utc(creation_tai_ns, digits=3, zone=False)}",
-              f"ORIGINATOR = {originator.strip()}",
-              "",
-              "META_START",
-              "COMMENT one-way carrier track: received frequency = nominal downlink frequency + measured offset",
-              "TIME_SYSTEM = UTC"]
-    if data:
-        lines += [f"START_TIME = {format_utc(data[0][0], zone=False)}",
-                  f"STOP_TIME = {format_utc(data[-1][0], zone=False)}"]
-    lines += [f"PARTICIPANT_1 = {station.strip()}",
-              f"PARTICIPANT_2 = {spacecraft.strip()}",
-              "MODE = SEQUENTIAL",
-              "PATH = 2,1",
-              f"INTEGRATION_INTERVAL = {ti:.9g}",
-              "INTEGRATION_REF = MIDDLE",
-              "TIMETAG_REF = RECEIVE",
-              "FREQ_OFFSET = 0.0",
-              "META_STOP",
-              "",
-              "DATA_START"]
-    lines += [f"RECEIVE_FREQ_1 = {format_utc(t, zone=False)} {value:.6f}" for t, value in data]
-    lines += ["DATA_STOP", ""]
-    return "\n".join(lines)
+    f = _check_frequency(downlink_frequency_hz)
+    ti = _check_interval(integration_interval_s)
+    _check_names(spacecraft=spacecraft, station=station, originator=originator)
+    data = [obs for obs in (_observation(row, f, tuning_offset_hz) for row in rows) if obs is not None]
+    head = _head(first_tai_ns=data[0][0] if data else None, last_tai_ns=data[-1][0] if data else None,
+                 spacecraft=spacecraft, station=station, integration_interval_s=ti, originator=originator,
+                 creation_tai_ns=creation_tai_ns, comment=comment)
+    return head + "".join(_data_line(t, value) for t, value in data) + _TAIL
 
 
 def write_tdm(path: str | os.PathLike, rows: Iterable[dict], **kwargs) -> Path:
-    """Write :func:`format_tdm` to ``path`` (the decode writes ``doppler.tdm``); returns the path."""
+    """Write :func:`format_tdm` to ``path``; returns the path."""
     p = Path(os.fspath(path))
     p.write_text(format_tdm(rows, **kwargs), encoding="ascii")
     return p
+
+
+class TdmWriter:
+    """A Tracking Data Message written as its rows arrive, in constant memory (the decode's ``doppler.tdm``).
+
+    The header names the first and last epoch, which a live stream knows only at its end, so the data
+    lines go to a body file beside the message (``NAME.body.partial``) as the rows come, and
+    :meth:`finish` writes the header, the body copied from that file and the end of the message under
+    ``NAME.partial``, renames it to ``NAME`` and removes the body.  Until then no file named ``NAME``
+    exists, so a run that fails or is killed leaves no message passed off as complete.  Python holds the
+    first and last epoch and two counters, whatever the length of the stream.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The message's file; its folder must exist.
+    spacecraft, station, downlink_frequency_hz, tuning_offset_hz, originator, comment
+        As :func:`format_tdm` (checked here, before any row).
+
+    Notes
+    -----
+    Every data line is formatted by the same function as :func:`format_tdm`'s, so for any split of the
+    rows into :meth:`process` calls the file equals ``format_tdm`` of all the rows (the same
+    ``creation_tai_ns`` given).  Cost: one UTC parse and one format per row; the copy at the end reads the
+    body once.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> rows = [{"utc": "2026-03-14T09:30:00.016384Z", "carrier_offset_hz": 2301.5, "locked": True}]
+    >>> keys = dict(spacecraft="TAMARISK", station="HOLLOW RIDGE", downlink_frequency_hz=8.45e9)
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     w = TdmWriter(pathlib.Path(d) / "doppler.tdm", **keys)
+    ...     w.process(rows)
+    ...     text = w.finish(integration_interval_s=0.032768, creation_tai_ns=2_159_000_000 * 10**9).read_text()
+    ...     names = sorted(p.name for p in pathlib.Path(d).iterdir())
+    >>> text == format_tdm(rows, integration_interval_s=0.032768, creation_tai_ns=2_159_000_000 * 10**9, **keys)
+    True
+    >>> names
+    ['doppler.tdm']
+    """
+
+    def __init__(self, path: str | os.PathLike, *, spacecraft: str, station: str, downlink_frequency_hz: float,
+                 tuning_offset_hz: float = 0.0, originator: str = "DOWNLINK", comment: str | None = None):
+        self.path = Path(os.fspath(path))
+        self.body_path = self.path.with_name(self.path.name + ".body.partial")
+        self.frequency_hz = _check_frequency(downlink_frequency_hz)
+        _check_names(spacecraft=spacecraft, station=station, originator=originator)
+        self.tuning_offset_hz = float(tuning_offset_hz)
+        self._names = dict(spacecraft=spacecraft, station=station, originator=originator, comment=comment)
+        self._body = None
+        self.reset()
+
+    def reset(self) -> None:
+        """Forget every row (the body file is removed)."""
+        self.discard()
+        self.locked_rows = 0  # rows with lock, a finite offset or not
+        self.lines = 0  # data lines written
+        self.first_tai_ns: int | None = None
+        self.last_tai_ns: int | None = None
+
+    def process(self, rows: Iterable[dict]) -> None:
+        """Append the data lines of ``rows`` (as :func:`format_tdm` reads them) to the body file."""
+        for row in rows:
+            self.locked_rows += bool(row.get("locked"))
+            obs = _observation(row, self.frequency_hz, self.tuning_offset_hz)
+            if obs is None:
+                continue
+            if self._body is None:
+                self._body = open(self.body_path, "w", encoding="ascii")
+            self._body.write(_data_line(*obs))
+            if self.first_tai_ns is None:
+                self.first_tai_ns = obs[0]
+            self.last_tai_ns = obs[0]
+            self.lines += 1
+
+    def close(self) -> None:
+        """Close the body file (it stays, under its partial name, until :meth:`finish` or :meth:`discard`)."""
+        if self._body is not None:
+            self._body.close()
+            self._body = None
+
+    def discard(self) -> None:
+        """Close and remove the body file: no message is written."""
+        self.close()
+        self.body_path.unlink(missing_ok=True)
+
+    def finish(self, *, integration_interval_s: float, creation_tai_ns: int | None = None) -> Path:
+        """Write the whole message to :attr:`path` (header, the body, ``DATA_STOP``); returns the path."""
+        ti = _check_interval(integration_interval_s)
+        self.close()
+        part = self.path.with_name(self.path.name + ".partial")
+        with open(part, "w", encoding="ascii") as out:
+            out.write(_head(first_tai_ns=self.first_tai_ns, last_tai_ns=self.last_tai_ns, integration_interval_s=ti,
+                            creation_tai_ns=creation_tai_ns, **self._names))
+            if self.lines:
+                with open(self.body_path, encoding="ascii") as body:
+                    shutil.copyfileobj(body, out)
+            out.write(_TAIL)
+        os.replace(part, self.path)
+        self.discard()
+        return self.path
 
 
 def parse_tdm(text: str, *, source: str = "<text>") -> TrackingData:
