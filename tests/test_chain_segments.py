@@ -23,6 +23,7 @@ from pipeline.chain import (
     SegmentedDecode,
     segment_plan,
 )
+from pipeline.chain._kernels import owned_counts
 from pipeline.recording import open_recording
 from pipeline.sim import simulate
 
@@ -115,6 +116,24 @@ def test_single_segment_is_the_plain_chain(tmp_path, recording, small_profile, r
                          segment_samples=DEFAULT_SEGMENT_SAMPLES)
     assert _outputs(tmp_path) == reference[1]
     assert back.front_summary.counts == reference[0].front_summary.counts
+
+
+@pytest.mark.kat
+def test_owned_counts_kernel_counts_the_half_open_range():
+    # the slow obvious reference: numpy's element-wise test lo <= p < hi (a segment's owned range [a, b))
+    rng = np.random.default_rng(5)
+    position = np.sort(rng.uniform(-50.0, 150.0, 300))
+    position[[7, 100]] = (0.0, 100.0)  # both ends exactly: lo is inside, hi is not
+    position[200] = np.nan  # never inside
+    mask = rng.random(300) < 0.6
+    out = np.zeros(2, np.int64)
+    owned_counts(position, mask, 0.0, 100.0, out)
+    inside = (position >= 0.0) & (position < 100.0)
+    assert out.tolist() == [int(inside.sum()), int((inside & mask).sum())]
+    owned_counts(position, np.zeros(0, np.bool_), 0.0, 100.0, out)  # no mask: the second count is 0
+    assert out.tolist() == [int(inside.sum()), 0]
+    owned_counts(position[:0], np.zeros(0, np.bool_), 0.0, 100.0, out)
+    assert out.tolist() == [0, 0]
 
 
 # ---- several segments ---------------------------------------------------------------------------
