@@ -285,6 +285,11 @@ def test_kat_reencode_kernel_matches_fec_encoder(rate, g2_inverted):
     assert states[-1] == last
 
 
+def per_bit_count(pat, i: int) -> int:
+    """Channel symbols sent for information bit ``i`` under the puncturing pattern ``pat``."""
+    return int(pat[0, i % pat.shape[1]]) + int(pat[1, i % pat.shape[1]])
+
+
 @pytest.mark.kat
 @pytest.mark.parametrize("rate", ["1/2", "3/4"])
 def test_kat_reencode_kernel_sums_as_the_obvious_loop(rate):
@@ -311,7 +316,14 @@ def test_kat_reencode_kernel_sums_as_the_obvious_loop(rate):
                                   np.ascontiguousarray(pat[1]), B._PARITY, soft[:cut], soft[cut:], block, split,
                                   split_states)
         assert np.array_equal(split, metrics) and np.array_equal(split_states, states), cut
-    per_bit = [int(pat[0, i % kp]) + int(pat[1, i % kp]) for i in range(bits.size)]
+    for first in (1, 2, 5):  # resumed at a block boundary with the encoder memory there: the same blocks
+        k0 = sum(per_bit_count(pat, i) for i in range(first * block))
+        rest, rest_states = np.zeros(n_blocks - first), np.zeros(n_blocks - first, np.int64)
+        _kernels.reencode_metrics(bits[first * block :], int(states[first - 1]), B._G1_MASK, B._G2_MASK,
+                                  int(rate == "1/2"), np.ascontiguousarray(pat[0]), np.ascontiguousarray(pat[1]),
+                                  B._PARITY, soft[k0:], soft[:0], block, rest, rest_states)
+        assert np.array_equal(rest, metrics[first:]) and np.array_equal(rest_states, states[first:]), first
+    per_bit = [per_bit_count(pat, i) for i in range(bits.size)]
     k = 0
     for j in range(n_blocks):
         corr = mag = 0.0

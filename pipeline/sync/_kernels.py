@@ -18,6 +18,7 @@ __all__ = [
     "find_marker_soft",
     "marker_scores",
     "hard_decisions",
+    "encoder_state_before",
     "reencode_metrics",
     "branch_output",
 ]
@@ -150,6 +151,16 @@ def hard_decisions(soft, out):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True)
+def encoder_state_before(bits, at, state):  # pragma: no cover - compiled
+    """The re-encoder's memory (6 bits, the newest in bit 0) just before ``bits[at]``, when it held ``state``
+    before ``bits[0]``: only the last 6 bits matter, so it costs at most 6 steps."""
+    s = state if at < 6 else 0
+    for i in range(max(0, at - 6), at):
+        s = ((s << 1) | bits[i]) & 63
+    return s
+
+
+@numba.njit(cache=True)
 def reencode_metrics(bits, state, g1_mask, g2_mask, g2_invert, keep1, keep2, parity, soft_head, soft_rest, block_bits,
                      metrics, states):
     """Re-encode decoded bits with the (punctured) convolutional code and score them against soft symbols.
@@ -163,6 +174,14 @@ def reencode_metrics(bits, state, g1_mask, g2_mask, g2_invert, keep1, keep2, par
     131.0-B sec. 3.3 and 3.4), C1 first; ``keep1/keep2`` are the puncturing rows (period = their length),
     starting at column 0.  ``parity`` is the 128-entry parity table.  Returns the number of soft symbols
     used.  Cost O(len(bits)), no allocation of the data's size.
+
+    Notes
+    -----
+    Each block's two sums are serial chains of float64 additions (their order fixes the rounding), so one
+    block at a time waits on the adder.  At rate 1/2 four whole blocks held in one piece are summed side by side
+    instead (each block's sums still in transmission order, so the same bits), their encoder memories taken
+    from the 6 bits before each (:func:`encoder_state_before`): four independent chains, about 1.2 ns per bit
+    against 2.0 one block at a time on the development machine.
     """
     period = keep1.shape[0]
     n = bits.shape[0]
@@ -175,10 +194,80 @@ def reencode_metrics(bits, state, g1_mask, g2_mask, g2_invert, keep1, keep2, par
         sign1[r] = 1.0 - 2.0 * parity[r & g1_mask]
         sign2[r] = 1.0 - 2.0 * (parity[r & g2_mask] ^ g2_invert)
     unpunctured = period == 1 and keep1[0] != 0 and keep2[0] != 0
+    n_blocks = metrics.shape[0]
+    state0 = state
     k = 0
     phase = 0
-    for j in range(metrics.shape[0]):
+    j = 0
+    while j < n_blocks:
         a = j * block_bits
+        if unpunctured and j + 4 <= n_blocks and a + 4 * block_bits <= n:
+            m4 = 8 * block_bits  # four whole blocks, two symbols per bit
+            if k + m4 <= nh or k >= nh:
+                src = soft_head if k + m4 <= nh else soft_rest
+                at = k if k + m4 <= nh else k - nh
+                s0 = state
+                s1 = encoder_state_before(bits, a + block_bits, state0)
+                s2 = encoder_state_before(bits, a + 2 * block_bits, state0)
+                s3 = encoder_state_before(bits, a + 3 * block_bits, state0)
+                c0 = c1 = c2 = c3 = 0.0
+                g0 = g1 = g2 = g3 = 0.0
+                step = 2 * block_bits
+                # one view per block: indices from 0 up, which the compiler knows are never negative (no
+                # wrap-around arithmetic per access)
+                x0 = src[at : at + step]
+                x1 = src[at + step : at + 2 * step]
+                x2 = src[at + 2 * step : at + 3 * step]
+                x3 = src[at + 3 * step : at + 4 * step]
+                b0 = bits[a : a + block_bits]
+                b1 = bits[a + block_bits : a + 2 * block_bits]
+                b2 = bits[a + 2 * block_bits : a + 3 * block_bits]
+                b3 = bits[a + 3 * block_bits : a + 4 * block_bits]
+                for i in range(block_bits):
+                    r0 = ((s0 << 1) | b0[i]) & 127
+                    r1 = ((s1 << 1) | b1[i]) & 127
+                    r2 = ((s2 << 1) | b2[i]) & 127
+                    r3 = ((s3 << 1) | b3[i]) & 127
+                    s0 = r0 & 63
+                    s1 = r1 & 63
+                    s2 = r2 & 63
+                    s3 = r3 & 63
+                    v0 = np.float64(x0[2 * i])
+                    v1 = np.float64(x1[2 * i])
+                    v2 = np.float64(x2[2 * i])
+                    v3 = np.float64(x3[2 * i])
+                    c0 += v0 * sign1[r0]
+                    c1 += v1 * sign1[r1]
+                    c2 += v2 * sign1[r2]
+                    c3 += v3 * sign1[r3]
+                    g0 += abs(v0)
+                    g1 += abs(v1)
+                    g2 += abs(v2)
+                    g3 += abs(v3)
+                    v0 = np.float64(x0[2 * i + 1])
+                    v1 = np.float64(x1[2 * i + 1])
+                    v2 = np.float64(x2[2 * i + 1])
+                    v3 = np.float64(x3[2 * i + 1])
+                    c0 += v0 * sign2[r0]
+                    c1 += v1 * sign2[r1]
+                    c2 += v2 * sign2[r2]
+                    c3 += v3 * sign2[r3]
+                    g0 += abs(v0)
+                    g1 += abs(v1)
+                    g2 += abs(v2)
+                    g3 += abs(v3)
+                metrics[j] = c0 / g0 if g0 > 0.0 else 0.0
+                metrics[j + 1] = c1 / g1 if g1 > 0.0 else 0.0
+                metrics[j + 2] = c2 / g2 if g2 > 0.0 else 0.0
+                metrics[j + 3] = c3 / g3 if g3 > 0.0 else 0.0
+                states[j] = s0
+                states[j + 1] = s1
+                states[j + 2] = s2
+                states[j + 3] = s3
+                state = s3
+                k += m4
+                j += 4
+                continue
         b = a + block_bits
         if b > n:
             b = n
@@ -218,6 +307,7 @@ def reencode_metrics(bits, state, g1_mask, g2_mask, g2_invert, keep1, keep2, par
                     phase = 0
         metrics[j] = corr / mag if mag > 0.0 else 0.0
         states[j] = state
+        j += 1
     return k
 
 
