@@ -16,6 +16,9 @@ from pipeline.errors import OutputError
 
 __all__ = ["FolderSinks", "MemorySinks"]
 
+#: ``json.dumps(obj, separators=(",", ":"))`` without building an encoder per record: the same text.
+_ENCODE = json.JSONEncoder(separators=(",", ":")).encode
+
 
 def _doppler_columns() -> tuple[str, ...]:
     from pipeline.demod.residual import DOPPLER_COLUMNS
@@ -77,7 +80,7 @@ class FolderSinks:
 
     def frame(self, obj: dict) -> None:
         try:
-            self._frames.write(json.dumps(obj, separators=(",", ":")) + "\n")
+            self._frames.write(_ENCODE(obj) + "\n")
             if self._flush:
                 self._frames.flush()
         except OSError as exc:
@@ -131,7 +134,7 @@ class FolderSinks:
             self._doppler_csv.writerow({k: ("" if row.get(k) is None else row.get(k)) for k in self._columns})
 
     def _packet(self, obj: dict, data: bytes) -> None:
-        line = json.dumps(obj, separators=(",", ":")) + "\n"
+        line = _ENCODE(obj) + "\n"
         self._packets.write(line)
         if self._flush:
             self._packets.flush()
