@@ -257,6 +257,7 @@ class CountTracker:
     def reset(self) -> None:
         """Forget every track."""
         self.tracks: list[CountTrack] = []  # least recently continued first
+        self._next_step: TrackStep | None = None  # the last plain "next" step handed out
 
     @property
     def newest(self) -> CountTrack | None:
@@ -276,10 +277,14 @@ class CountTracker:
             # the usual case, decided as the loop below decides it: one track, the next count (which a
             # master channel turns into a gap only after half the count range in time)
             t = self.tracks[0]
-            elapsed = None if period is None or pos is None else period.frames_between(t.last_position, pos)
-            if not (self.master and elapsed is not None and elapsed >= M / 2):
+            elapsed = (None if not self.master or period is None or pos is None else
+                       period.frames_between(t.last_position, pos))
+            if not (elapsed is not None and elapsed >= M / 2):
                 t.last, t.last_position = count, pos
-                return TrackStep("next", t)
+                step = self._next_step  # (a TrackStep is immutable: the one of this track is handed out again)
+                if step is None or step.track is not t:
+                    step = self._next_step = TrackStep("next", t)
+                return step
         dropped = []
         best_next = best_gap = best_dup = None
         newest = self.tracks[-1]
