@@ -129,3 +129,23 @@ def test_the_simulators_pass_across_the_leap_second_matches_its_truth(tmp_path, 
     cmp = compare_with_truth(sim.truth_path, out / "packets.jsonl")
     assert cmp["matched"] == cmp["sent"] == sim.num_packets
     assert cmp["worst_ert_error_s"] < 0.1 / prof.link.symbol_rate_baud
+
+
+def test_ert_text_is_format_utc_through_a_leap_second_and_midnight(demo_profile):
+    # ErtClock remembers the UTC day of its last text; every text must still be format_utc's own (2016-12-31
+    # ends with a leap second: IERS Bulletin C 52), before, inside and after 23:59:60, and across 2017-01-01
+    from pipeline.chain._time import ErtClock
+    from pipeline.timescales import format_utc
+
+    class Start:  # positions are ns from 2016-12-31T23:59:58.25Z (sample rate 1 GHz)
+        def tai_ns(self, position):
+            return parse_utc("2016-12-31T23:59:58.25Z") + round(position)
+
+    clock = ErtClock(Start(), demo_profile.with_changes(station={"receive_delay_ns": 0}), None)
+    steps = [0, 1, 999_999_999, 750_000_000, 1_000_000_000, 1_749_999_999, 1_750_000_000, 2_749_999_999,
+             2_750_000_000, 2_750_000_001, 86_400_000_000_000]
+    for p in steps + steps[::-1]:
+        assert clock.ert(float(p)) == format_utc(Start().tai_ns(p)), p
+    assert clock.ert(1_750_000_000.0) == "2016-12-31T23:59:60.000000000Z"
+    assert clock.ert(2_750_000_000.0) == "2017-01-01T00:00:00.000000000Z"
+

@@ -46,7 +46,7 @@ class ErtClock:
     """
 
     def __init__(self, timebase, profile: LinkProfile, sample_rate_hz: float | None):
-        from pipeline.timescales import format_utc, posix_ns_from_tai
+        from pipeline.timescales import NS_PER_DAY, NS_PER_S, format_utc, leap_seconds, posix_ns_from_tai
 
         self.timebase = timebase
         self.receive_delay_ns = int(profile.station.receive_delay_ns)
@@ -55,14 +55,36 @@ class ErtClock:
         self.half_symbol = 0.0 if sample_rate_hz is None else 0.5 * float(sample_rate_hz) / rate
         self._format = format_utc
         self._posix = posix_ns_from_tai
+        self._leap = leap_seconds()  # format_utc's table
+        self._ns_per_s, self._ns_per_day = NS_PER_S, NS_PER_DAY
+        # (TAI ns from, to, "YYYY-MM-DDT"): the part of the UTC day of the last ERT text without a leap second,
+        # where the text is that date and the time of day (see :meth:`ert`)
+        self._day: tuple[int, int, str] = (0, 0, "")
 
     def ert_tai_ns(self, position: float) -> int:
         """ERT of the channel symbol centred at ``position``, TAI ns since 1958."""
         return self.timebase.tai_ns(float(position) - self.half_symbol) - self.receive_delay_ns
 
     def ert(self, position: float) -> str:
-        """ERT as ISO-8601 UTC text with 9 decimals and ``Z``."""
-        return self._format(self.ert_tai_ns(position))
+        """ERT as ISO-8601 UTC text with 9 decimals and ``Z``.
+
+        The text of :func:`pipeline.timescales.format_utc`; an instant in the same UTC day as the last one, and
+        not in a leap second, takes that day's date and only the time of day is worked out (frames come in
+        time order, so nearly all do).
+        """
+        tai = self.ert_tai_ns(position)
+        lo, hi, date = self._day
+        if type(tai) is int and lo <= tai < hi:
+            secs, frac = divmod(tai - lo, self._ns_per_s)
+            hh, rem = divmod(secs, 3600)
+            mm, ss = divmod(rem, 60)
+            return f"{date}{hh:02d}:{mm:02d}:{ss:02d}.{frac:09d}Z"
+        text = self._format(tai)
+        day58, ns_of_day = self._leap.day_from_tai(int(tai))
+        if ns_of_day < self._ns_per_day:  # (in a leap second: no day part is remembered)
+            start = int(tai) - ns_of_day
+            self._day = (start, start + min(self._leap.day_length_ns(day58), self._ns_per_day), text[:11])
+        return text
 
     def received_tai_ns(self, position: float) -> int:
         """Reception time of the sample at ``position`` itself (no symbol shift), TAI ns: for measurements
