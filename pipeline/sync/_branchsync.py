@@ -844,16 +844,16 @@ class BranchSync:
                                       int(self.g2_inverted), self._keep1, self._keep2, _PARITY, head, rest, B,
                                       metrics, states)
             used = n_blocks
-            for j in range(n_blocks):
-                if partial and j == n_blocks - 1:
-                    break  # the last, partial block at the end of the stream: output, not judged
+            values = metrics.tolist()  # (Python floats: no numpy scalar per block)
+            judged = n_blocks - 1 if partial else n_blocks  # the last, partial block at the end: output, not judged
+            for j in range(judged):
                 self.stats.blocks += 1
-                self.stats.last_metric = float(metrics[j])
+                self.stats.last_metric = values[j]
                 if self._holding:
                     used = j + 1  # while undecided, the hypotheses are evaluated again after every block
                     evaluate_at = a + used * Bs
                     break
-                if metrics[j] < self.threshold:
+                if values[j] < self.threshold:
                     self.stats.blocks_below_threshold += 1
                     self._bad += 1
                 else:
