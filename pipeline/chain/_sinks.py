@@ -128,10 +128,10 @@ class FolderSinks:
         if self._doppler_csv is None:
             self._columns = self._columns or _doppler_columns()
             self._doppler_file = open(self.folder / "doppler.csv", "w", encoding="utf-8", newline="")
-            self._doppler_csv = csv.DictWriter(self._doppler_file, fieldnames=list(self._columns))
-            self._doppler_csv.writeheader()
-        for row in rows:
-            self._doppler_csv.writerow({k: ("" if row.get(k) is None else row.get(k)) for k in self._columns})
+            self._doppler_csv = csv.writer(self._doppler_file)  # (the rows as lists: what a DictWriter writes)
+            self._doppler_csv.writerow(self._columns)
+        columns = self._columns
+        self._doppler_csv.writerows([("" if row.get(k) is None else row.get(k)) for k in columns] for row in rows)
 
     def _packet(self, obj: dict, data: bytes) -> None:
         line = _ENCODE(obj) + "\n"
