@@ -424,9 +424,12 @@ class SymbolOut:
         if n == 0 and not self.track:
             return SymbolBlock()
         locked = (self.flags[:n] & 1).view(bool)
-        return SymbolBlock(soft=self.soft[:bps * n], position=self.bitpos[:bps * n],
-                           locked=locked if bps == 1 else np.repeat(locked, bps), track=self.track,
-                           symbols=self.sym[:n])
+        if bps == 2:
+            # each symbol's flag for both its bits: 257 b is the two bytes (b, b) in either byte order (a tenth
+            # of np.repeat's time)
+            locked = (locked.view(np.uint8).astype(np.uint16) * np.uint16(257)).view(bool)
+        return SymbolBlock(soft=self.soft[:bps * n], position=self.bitpos[:bps * n], locked=locked,
+                           track=self.track, symbols=self.sym[:n])
 
 
 class Demodulator:
