@@ -19,6 +19,7 @@ __all__ = [
     "track_symbols",
     "soft_costas_error",
     "hard_costas_slope",
+    "hard_costas_squaring_loss",
     "nrzm_decode",
     "moments_m2m4",
     "mean_power_nonzero",
@@ -302,6 +303,31 @@ def hard_costas_slope(esn0, mod_code, soft_below, mid_power):
 
 
 @njit(cache=True, nogil=True)
+def hard_costas_squaring_loss(esn0, mod_code):
+    """Squaring loss ``S_L`` of the hard Costas detector: its loop's phase variance is ``2 B_L T / (x S_L)``.
+
+    ``S_L = k^2 / (2 x Var(e))`` with ``x = Es/N0`` (linear), ``k`` the detector's true slope at zero phase
+    error (:func:`hard_costas_slope` without its floor) and ``Var(e)`` its variance there, on symbols of unit
+    energy (the data terms cancel at zero phase error, whatever the decisions).  BPSK ``sgn(I) Q``:
+    ``Var(e) = sigma^2 = 1 / (2 x)``, so ``S_L = erf(sqrt x)^2``.  QPSK ``(sgn(I) Q - sgn(Q) I) / sqrt 2``:
+    ``Var(e) = m^2 + sigma^2 - E|I|^2``, ``m = 1 / sqrt 2``, ``E|I| = m erf(u) + sigma sqrt(2 / pi)
+    exp(-u^2)``, ``u = sqrt(x / 2)``, ``k = erf(u) - 2 u exp(-u^2) / sqrt(pi)``: 0.15 at 2 dB, 0.58 at
+    6 dB (the analog four-phase Costas loop's ``1 / (1 + 9 / 2x + 6 / x^2 + 3 / 2x^3)`` gives 0.15 and
+    0.40).  OQPSK takes the QPSK value (its cross terms' correlations are not worked out here).
+    """
+    if mod_code == 0:
+        k = math.erf(math.sqrt(esn0))
+        return k * k
+    u = math.sqrt(0.5 * esn0)
+    k = math.erf(u) - 2.0 * u * math.exp(-u * u) / math.sqrt(math.pi)
+    sigma2 = 0.5 / esn0
+    m = math.sqrt(0.5)
+    e_abs = m * math.erf(u) + math.sqrt(sigma2 * 2.0 / math.pi) * math.exp(-u * u)
+    var = 0.5 + sigma2 - e_abs * e_abs
+    return k * k / (2.0 * esn0 * var)
+
+
+@njit(cache=True, nogil=True)
 def box_strobe(mf, base, t, hbox):
     """Exact integrate-and-dump of ``mf`` (centred on sample ``base`` at index 0) over ``[t - hbox, t + hbox]``.
 
@@ -510,9 +536,9 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     its frequency being close): the timing loop's noise
     grows as ``1 / (Es/N0)`` at low Es/N0, so its bandwidth is scaled by ``Es/N0 / t_ref_esn0``
     below ``t_ref_esn0``; the carrier loop keeps a loop SNR of at least ``c_loop_snr`` where the
-    configured bandwidth would not, ``B_L T <= (Es/N0) S_L / rho`` with the Costas squaring loss
-    ``S_L = 1 / (1 + 1 / (2 Es/N0))`` (BPSK) and ``1 / (1 + 9 / (2 x) + 6 / x^2 + 3 / (2 x^3))``,
-    ``x = Es/N0`` (QPSK above ``soft_below``; from memory, not confirmed), and with the soft detector
+    configured bandwidth would not, ``B_L T <= (Es/N0) S_L / rho`` with the hard detector's squaring loss
+    ``S_L`` (:func:`hard_costas_squaring_loss`: BPSK ``erf(sqrt(Es/N0))^2``, QPSK worked from the
+    detector's slope and variance), and with the soft detector
     ``B_L T <= J / (2 rho)`` (phase variance ``2 B_L T / J``), never below ``c_min_scale``; after
     ``gear_symbols`` the soft detector's loop narrows as ``gear / age`` of the full bandwidth down to
     that.  Gains scale as ``kp ~ s``, ``ki ~ s^2``, ``kr ~ s^3`` (the damping stays).
@@ -931,10 +957,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                     # loop SNR 1 / (2 B_L T / J) with the soft detector's Fisher information J per symbol
                     bn_ok = 0.5 * fisher / c_rho
                 else:
-                    if mod_code == 0:
-                        s_l = 1.0 / (1.0 + 0.5 / esn0)
-                    else:
-                        s_l = 1.0 / (1.0 + 4.5 / esn0 + 6.0 / (esn0 * esn0) + 1.5 / (esn0 * esn0 * esn0))
+                    s_l = hard_costas_squaring_loss(esn0, mod_code)
                     bn_ok = esn0 * s_l / c_rho
                 if bn_ok < c_bn:
                     c_scale = bn_ok / c_bn if bn_ok > c_min_sc * c_bn else c_min_sc
