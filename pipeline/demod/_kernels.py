@@ -1,7 +1,10 @@
 """Numba kernels of the demodulator.  Wrappers in ``_demodulator.py`` validate, cast and allocate.
 
 Every function here is a module-level ``@njit(cache=True)`` with all parameters as arguments, and
-gives the same answer with ``NUMBA_DISABLE_JIT=1``.
+gives the same answer with ``NUMBA_DISABLE_JIT=1``, but for the symbol tracker's rounding: its kernels
+(``track_symbols`` and what it calls) let the compiler fuse a multiply and an add into one operation
+(``_TRACK_FASTMATH``), which plain Python does not, so compiled and uncompiled tracking agree to within a
+few units in the last place per operation, not bit for bit.
 """
 
 from __future__ import annotations
@@ -31,6 +34,12 @@ __all__ = [
     "TRACK_PARAMS",
     "TRACK_STATE",
 ]
+
+#: LLVM fast-math flags of the symbol tracker's kernels: contraction of a multiply and an add into one fused
+#: multiply-add only (no reassociation, no assumption about NaN or Inf).  With the cubic's weights in single
+#: precision: 1.11x (QPSK link) and 1.15x (demo) on bench/bench_track_replay.py's calls; rounding changed,
+#: implementation loss unchanged (DEVELOPERS.md).
+_TRACK_FASTMATH = {"contract"}
 
 #: Parameters of :func:`track_symbols` (one record; meanings in its docstring).
 TRACK_PARAMS = np.dtype([
@@ -247,7 +256,7 @@ def phasor_table(dphase_rad, out2):
         c, s = c * wc - s * ws, s * wc + c * ws
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
 def window_moments(d, m2, m4, w, cq, mr2, mr4, mq):
     """One interval into a lock window's averages: each of ``M2, M4``, the weight and the carrier statistic
     becomes ``d old + (1 - d) new`` (``d`` the interval's decay; the weight's new value is 1)."""
@@ -255,7 +264,7 @@ def window_moments(d, m2, m4, w, cq, mr2, mr4, mq):
     return d * m2 + e * mr2, d * m4 + e * mr4, d * w + e, d * cq + e * mq
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH, error_model="numpy")
 def soft_costas_error(a, yi, yq, zq, zi):
     """``tanh(a yi) zq - tanh(a yq) zi`` with ``tanh`` to within 1e-4: the soft QPSK Costas detector
     (``zq = yq``, ``zi = yi``; OQPSK: each rail's decision on its own strobe, the other rail's value there).
@@ -278,7 +287,7 @@ def soft_costas_error(a, yi, yq, zq, zi):
     return (nu * dv * zq - nv * du * zi) / (du * dv)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
 def hard_costas_slope(esn0, mod_code, soft_below, mid_power):
     """Slope per radian at zero phase error of the hard Costas detector over the amplitude, never below 0.3.
 
@@ -302,7 +311,7 @@ def hard_costas_slope(esn0, mod_code, soft_below, mid_power):
     return k if k > 0.3 else 0.3
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
 def hard_costas_squaring_loss(esn0, mod_code):
     """Squaring loss ``S_L`` of the hard Costas detector: its loop's phase variance is ``2 B_L T / (x S_L)``.
 
@@ -327,7 +336,7 @@ def hard_costas_squaring_loss(esn0, mod_code):
     return k * k / (2.0 * esn0 * var)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
 def box_strobe(mf, base, t, hbox):
     """Exact integrate-and-dump of ``mf`` (centred on sample ``base`` at index 0) over ``[t - hbox, t + hbox]``.
 
@@ -350,13 +359,14 @@ def box_strobe(mf, base, t, hbox):
     return vr, vi
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
 def cubic_strobe(mf, i, mu):
     """``mf`` interpolated at ``i + mu`` (``0 <= mu < 1``, ``1 <= i <= len(mf) - 3``): ``(re, im)``.
 
-    Cubic Lagrange interpolator through samples ``i - 1 .. i + 2``: the four weights from ``mu`` in double
-    precision, shared by I and Q, and the sums in single precision, the samples' own (an unsigned index:
-    no negative-index wrap is compiled).  Farrow-free: about 12 multiplies for the weights, 8 for the sums.
+    Cubic Lagrange interpolator through samples ``i - 1 .. i + 2``: the four weights from ``mu`` and the sums
+    in single precision, the samples' own (``mu`` to 6e-8 of a sample: far finer than any timing jitter);
+    the weights are shared by I and Q (an unsigned index: no negative-index wrap is compiled).  Farrow-free:
+    about 12 multiplies for the weights, 8 for the sums.
     """
     sixth = 1.0 / 6.0
     u1 = np.uint64(1)
@@ -365,20 +375,21 @@ def cubic_strobe(mf, i, mu):
     a1 = mf[iu + u1]
     a2 = mf[iu + np.uint64(2)]
     a3 = mf[iu + np.uint64(3)]
-    mp1 = mu + 1.0
-    mm1 = mu - 1.0
-    mm2 = mu - 2.0
-    b_c = mu * mm1
+    m32 = np.float32(mu)
+    mp1 = m32 + np.float32(1.0)
+    mm1 = m32 - np.float32(1.0)
+    mm2 = m32 - np.float32(2.0)
+    b_c = m32 * mm1
     a_d = mp1 * mm2
-    h0 = np.float32(-sixth * b_c * mm2)
-    h1 = np.float32(0.5 * a_d * mm1)
-    h2 = np.float32(-0.5 * a_d * mu)
-    h3 = np.float32(sixth * mp1 * b_c)
+    h0 = np.float32(-sixth) * b_c * mm2
+    h1 = np.float32(0.5) * a_d * mm1
+    h2 = np.float32(-0.5) * a_d * m32
+    h3 = np.float32(sixth) * mp1 * b_c
     return (float(h0 * a0.real + h1 * a1.real + h2 * a2.real + h3 * a3.real),
             float(h0 * a0.imag + h1 * a1.imag + h2 * a2.imag + h3 * a3.imag))
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
 def phasor_step(theta, theta_ph, cs, sn, count):
     """The carrier phasor ``(cos, sin)`` at ``theta`` from the one at ``theta_ph``: ``(cs, sn, count)``.
 
@@ -395,7 +406,7 @@ def phasor_step(theta, theta_ph, cs, sn, count):
     return cs * cd - sn * sd, sn * cd + cs * sd, count + 1
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
 def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_table,
                   out_pos, out_bitpos, out_soft, out_sym, out_flags, out_theta):
     """Gardner timing recovery with a cubic (Farrow) interpolator and a symbol-rate carrier loop.
