@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 from dataclasses import dataclass
 from typing import Any, Literal
@@ -18,6 +19,7 @@ from pipeline.demod._demodulator import (
     check_prediction,
     continue_stream,
     cut_blocks,
+    mirrored_line,
     shifted_line,
 )
 from pipeline.demod._predicted import CarrierPrediction
@@ -310,6 +312,21 @@ class ResidualCarrierDemodulator:
     block is centred likewise before :meth:`CarrierSearch.search`.  ``stats.acquisition_centre_hz``
     records the prediction at the middle of the first searched block.
 
+    Under ``spectrum_inverted = "auto"`` with a prediction (:attr:`mirror_search`), when the prediction at the
+    middle of a dwell's first block (Bi-phase-L BPSK: of the block) lies further from 0 Hz than
+    ``acquisition_search_hz`` (the mirrored band clear of the upright one; nearer 0 Hz the sign cannot be
+    told), the carrier is also searched at the mirror image of the prediction: a second dwell accumulates
+    the same blocks conjugated and centred on the same prediction (which is the search at the negated
+    prediction), and is tested when the upright one finds nothing (Bi-phase-L BPSK: the block searched again
+    conjugated).  A line found there and confirmed by the fine stage (over the conjugated held blocks, with
+    the mirrored dwell's floor) is a spectrally inverted recording: from then on the samples are conjugated
+    as with ``spectrum_inverted = true`` (the held blocks and the DC offset estimate too; the mirrored dwell
+    becomes the upright one), and ``stats.carrier_found_mirrored`` counts it.  The switch is one way.  Cost,
+    only while nothing is found and only then: a second periodogram per searched block (one conjugation, one
+    rotation, one FFT of the decimated block and the rate sums; about 1 ms per block of 32768 samples, as
+    much again as the upright search, ``bench/bench_residual.py``) and a second accumulator (rates x bins
+    float32, at most 32 MB); Bi-phase-L BPSK a second :meth:`CarrierSearch.search` of the unfound block.
+
     References
     ----------
     J. H. Yuen (ed.), *Deep Space Telecommunications Systems Engineering*, Plenum 1983, ch. 5
@@ -377,6 +394,8 @@ class ResidualCarrierDemodulator:
         rng = receiver.acquisition_range_hz
         self.acquisition_search_hz = 0.5 * fs if rng is None else min(float(rng), 0.5 * fs)
         self.conjugate = receiver.spectrum_inverted is True
+        # "auto" with a prediction: a carrier not found at the prediction is searched at its mirror image too
+        self.mirror_search = receiver.spectrum_inverted == "auto" and carrier_prediction is not None
         self.nrz_pm = link.modulation == "pcm-pm" and not self.biphase
         fixed = float(receiver.carrier_loop_bandwidth_hz or 0.0)
         if fixed >= 0.05 * link.symbol_rate_baud:
@@ -433,12 +452,18 @@ class ResidualCarrierDemodulator:
         self.dwell_blocks = 1
         self.hold_blocks = 1
         self._search: ResidualCarrierSearch | CarrierSearch
+        #: the dwell at the mirror image of the prediction (conjugated blocks), accumulated beside the upright one
+        #: under mirror_search (residual carrier only; Bi-phase-L BPSK searches its block again instead)
+        self._mirror: ResidualCarrierSearch | None = None
         if residual:
             self.dwell_blocks = int(min(_MAX_DWELL_BLOCKS, max(1, math.ceil(_DWELL_SYMBOLS / symbols_per_block))))
             self.hold_blocks = int(max(1, min(self.dwell_blocks, _HOLD_SAMPLES // self.block_samples)))
-            self._search = ResidualCarrierSearch(sample_rate_hz=fs, block_samples=self.block_samples,
-                                                 search_hz=self.acquisition_search_hz, max_blocks=self.dwell_blocks,
-                                                 max_rate_hz_per_s=_MAX_DOPPLER_RATE)
+            dwell = functools.partial(ResidualCarrierSearch, sample_rate_hz=fs, block_samples=self.block_samples,
+                                      search_hz=self.acquisition_search_hz, max_blocks=self.dwell_blocks,
+                                      max_rate_hz_per_s=_MAX_DOPPLER_RATE)
+            self._search = dwell()
+            if self.mirror_search:
+                self._mirror = dwell()
             t = self._search.threshold(self.dwell_blocks) / self.dwell_blocks
             self.line_threshold_db = 10.0 * math.log10(t)
         else:
@@ -487,9 +512,9 @@ class ResidualCarrierDemodulator:
         self._finished = False
         self.loop_plan: LoopPlan | None = None
         self.modulation_index_rad = float("nan")
+        self.conjugate = self.receiver.spectrum_inverted is True  # "auto" may turn it on (the mirrored search)
         self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
-        if self.residual:
-            self._search.restart()
+        self._restart_search()
 
     def _clear_symbol_stage(self, base: int) -> None:
         """Empty the symbol buffers (the next symbols start a new timing acquisition at ``base``)."""
@@ -543,7 +568,7 @@ class ResidualCarrierDemodulator:
         if self._found is not None:
             self._complete_acquisition(parts)
         if not self._tracking and self.residual and self._search.blocks:
-            self._saw(self._search.detect())
+            self._saw_dwell()
         while self._held:
             self._skip(self._held.pop(0), parts)
         self._finished = True
@@ -587,27 +612,34 @@ class ResidualCarrierDemodulator:
             return
         if block.size == self.block_samples:
             if search.blocks >= search.max_blocks:
-                self._saw(search.detect())  # the dwell ends unfound: what it saw, then a new one
-                search.restart()
-            if self.carrier_prediction is None:
-                search.add(block, gain)
-            else:  # each block on its own: the periodograms add up incoherently
-                centred, _, _ = centre_window(block, start, self.carrier_prediction, self.sample_rate_hz,
-                                              self.stats)
-                search.add(centred, gain)
+                self._saw_dwell()  # the dwell ends unfound: what it saw, then a new one
+                self._restart_search()
+            middle = self._dwell_add(search, block, gain, start)
             if search.blocks == 1:
                 self._dwell_start = start
                 while self._held:  # blocks of an earlier dwell
                     self._skip(self._held.pop(0), parts)
+                # "auto" with a prediction whose mirrored band does not overlap the upright one (nearer 0 Hz the
+                # sign cannot be told): the dwell is accumulated at the mirror image of the prediction too
+                self._mirror_dwell = self._mirror is not None and self._mirror_due(middle)
+            if self._mirror_dwell:
+                self._dwell_add(self._mirror, block, gain, start, mirrored=True)
             self.stats.acquisitions += 1
         self._held.append(item)
         if search.blocks and block.size == self.block_samples:
             det = search.detect()
             self.stats.last_peak_ratio = 10.0 ** (det.level_db / 10.0) + 1.0
+            mirrored = False
+            if not det.found and self._mirror_dwell:
+                mirror_det = self._mirror.detect()
+                if mirror_det.found:  # a spectrally inverted recording (if the fine stage confirms it)
+                    det, mirrored = mirror_det, True
             if det.found:
-                self._saw(det)
-                fix = self._refine(det)
+                self._saw(det, mirrored)
+                fix = self._refine(det, mirrored)
                 if fix is not None:
+                    if mirrored:  # from now on demodulated as spectrum_inverted = true does
+                        self._conjugate_from_now()
                     while self._held and self._held[0][2] < fix.start:
                         self._skip(self._held.pop(0), parts)
                     need = self._window_needed(fix.cn0_hz)
@@ -618,13 +650,62 @@ class ResidualCarrierDemodulator:
         while len(self._held) > self.hold_blocks:
             self._skip(self._held.pop(0), parts)
 
-    def _refine(self, det) -> CarrierFix | None:
-        blocks = [b for b, _, _ in self._held]
+    def _dwell_add(self, search: ResidualCarrierSearch, block: np.ndarray, gain: float, start: int,
+                   mirrored: bool = False) -> float:
+        """Add a full block to a dwell; the prediction at the block's middle (0 without one).
+
+        ``mirrored``: the block conjugated, i.e. accumulated at the mirror image of the prediction.
+        """
+        if self.carrier_prediction is None:
+            search.add(block, gain)
+            return 0.0
+        # each block on its own: the periodograms add up incoherently
+        centred, _, middle = centre_window(np.conj(block) if mirrored else block, start, self.carrier_prediction,
+                                           self.sample_rate_hz, self.stats)
+        search.add(centred, gain)
+        return middle
+
+    def _mirror_due(self, middle: float) -> bool:
+        """Whether a carrier not found at the prediction (``middle``: at the searched window's middle) is
+        searched at its mirror image: ``"auto"`` with a prediction, not yet conjugating, and the mirrored band
+        clear of the upright one."""
+        return self.mirror_search and not self.conjugate and abs(middle) > self.acquisition_search_hz
+
+    def _restart_search(self) -> None:
+        """Start new dwells (upright and, under the mirrored search, mirrored)."""
+        self._mirror_dwell = False
+        if self.residual:
+            self._search.restart()
+        if self._mirror is not None:
+            self._mirror.restart()
+
+    def _saw_dwell(self) -> None:
+        """What the dwell (and its mirrored twin, when accumulated) saw, for the no-lock line."""
+        self._saw(self._search.detect())
+        if self._mirror_dwell:
+            self._saw(self._mirror.detect(), mirrored=True)
+
+    def _conjugate_from_now(self) -> None:
+        """The carrier was found at the mirror image of the prediction: from now on the samples are conjugated
+        as with ``spectrum_inverted = true`` (the held blocks and the DC offset estimate, too), and the mirrored
+        dwell becomes the upright one."""
+        self.conjugate = True
+        self.stats.carrier_found_mirrored += 1
+        self._held = [(np.conj(b), g, s) for b, g, s in self._held]
+        self._dc.offset = self._dc.offset.conjugate()
+        if self._mirror is not None:
+            self._search, self._mirror = self._mirror, self._search
+        self._mirror_dwell = False
+
+    def _refine(self, det, mirrored: bool = False) -> CarrierFix | None:
+        """The fine fix over the held blocks (``mirrored``: conjugated, with the mirrored dwell's floor)."""
+        blocks = [np.conj(b) if mirrored else b for b, _, _ in self._held]
         gains = [g for _, g, _ in self._held]
         starts = [s for _, _, s in self._held]
         pred = self.carrier_prediction
+        search = self._mirror if mirrored else self._search
         if pred is None:
-            return self._search.refine(blocks, gains, starts, det, self._dwell_start)
+            return search.refine(blocks, gains, starts, det, self._dwell_start)
         # the held blocks are consecutive: rotated as one window, so the phase runs on across them
         fs = self.sample_rate_hz
         sizes = [b.size for b in blocks]
@@ -632,7 +713,7 @@ class ResidualCarrierDemodulator:
         edges = np.cumsum([0] + sizes)
         centred = [(b - np.complex64(np.mean(b, dtype=np.complex128))) * rot[edges[i]:edges[i + 1]]
                    for i, b in enumerate(blocks)]
-        fix = self._search.refine(centred, gains, starts, det, self._dwell_start)
+        fix = search.refine(centred, gains, starts, det, self._dwell_start)
         if fix is None:
             return None
         k = fix.start - starts[0]
@@ -671,7 +752,7 @@ class ResidualCarrierDemodulator:
         if fix is None:
             # over the grown window (a line too weak to hold over it: the fix from the detection window)
             fix = self._refine(det) or first_fix
-        self._search.restart()
+        self._restart_search()
         if fix is None:  # the line did not hold over the longer window: search again
             while self._held:
                 self._skip(self._held.pop(0), parts)
@@ -681,13 +762,14 @@ class ResidualCarrierDemodulator:
         items, self._held = self._held, []
         self._start_tracking(fix, items, parts)
 
-    def _saw(self, det) -> None:
+    def _saw(self, det, mirrored: bool = False) -> None:
+        """Keep a dwell's line in the stats, in the recording's frame (``mirrored``: found in the mirrored dwell)."""
         if det.blocks:
             level = 10.0 * math.log10(max(10.0 ** (det.level_db / 10.0) + 1.0, 1e-12))
             line = SpectralLine(det.frequency_hz, level, "carrier line")
             if self.carrier_prediction is not None:  # the detection is relative to the dwell's first block
-                n = self.block_samples
-                line = shifted_line(line, float(self.carrier_prediction.offset_hz(self._dwell_start + 0.5 * (n - 1))))
+                hz = float(self.carrier_prediction.offset_hz(self._dwell_start + 0.5 * (self.block_samples - 1)))
+                line = (mirrored_line if mirrored else shifted_line)(line, hz)
             self.stats.saw(line)
 
     def _feed_costas(self, item, parts: list) -> None:
@@ -697,10 +779,15 @@ class ResidualCarrierDemodulator:
             self._skip(item, parts)
             return
         self.stats.acquisitions += 1
-        window, first, middle = centre_window(block, start, self.carrier_prediction, self.sample_rate_hz, self.stats)
-        acq = self._search.search(window.astype(np.complex128) * gain)
-        self.stats.saw(shifted_line(acq.line, middle))
-        self.stats.last_peak_ratio = 10.0 ** (acq.line.level_db / 10.0) / math.log(2.0)
+        acq, first, middle = self._costas_search(block, gain, start)
+        if not acq.found and self._mirror_due(middle):
+            # "auto" with a prediction: the mirror image of the prediction (its band clear of the upright one); a
+            # carrier there is a spectrally inverted recording, demodulated from now on as spectrum_inverted = true
+            acq, _, _ = self._costas_search(block, gain, start, mirrored=True)
+            if acq.found:
+                block = np.conj(block)
+                item = (block, gain, start)
+                self._conjugate_from_now()
         if not acq.found:
             self._skip(item, parts)
             return
@@ -716,6 +803,17 @@ class ResidualCarrierDemodulator:
         self._tracking = True
         self._clear_symbol_stage(start)
         self._track([item], parts)
+
+    def _costas_search(self, block: np.ndarray, gain: float, start: int, mirrored: bool = False):
+        """The :class:`CarrierSearch` of one Bi-phase-L BPSK block (``mirrored``: conjugated, i.e. at the mirror
+        image of the prediction); ``(result, prediction at the first sample, at the middle)``."""
+        window, first, middle = centre_window(np.conj(block) if mirrored else block, start, self.carrier_prediction,
+                                              self.sample_rate_hz, self.stats)
+        acq = self._search.search(window.astype(np.complex128) * gain)
+        self.stats.saw((mirrored_line if mirrored else shifted_line)(acq.line, middle))
+        if not mirrored:
+            self.stats.last_peak_ratio = 10.0 ** (acq.line.level_db / 10.0) / math.log(2.0)
+        return acq, first, middle
 
     def _skip(self, item, parts: list) -> None:
         """A block passed without demodulation (searched, not found): a track point of ``nan`` values."""
@@ -975,8 +1073,7 @@ class ResidualCarrierDemodulator:
         if self._unlocked_blocks >= _REACQUIRE_BLOCKS:  # search for the carrier again
             self._tracking = False
             self._unlocked_blocks = 0
-            if self.residual:
-                self._search.restart()
+            self._restart_search()
         # keep the samples the next symbol needs
         if self._timing_acquired:
             keep = int(math.floor(self._ss[0]["tau"] - (0.5 + 2.0 * _DTTL_WINDOW) * self._ss[0]["period"])) - 2
