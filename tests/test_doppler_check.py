@@ -27,12 +27,15 @@ LAT, LON, ALT_M = 44.7261, 3.4117, 1012.0  # the invented Hollow Ridge station (
 
 
 def _decode_pass(tmp_path, *, conjugate: bool = False, receiver: str = "", from_culmination_s: float = 0.0,
-                 tle: bool = True, bits: np.ndarray | None = None, tuning_hz: float = 0.0):
+                 tle: bool = True, bits: np.ndarray | None = None, tuning_hz: float = 0.0,
+                 baseband: np.ndarray | None = None, link: str | None = None):
     """Simulate the pass (its samples conjugated: a spectrally inverted recording) and decode it with --tle
     (``tle`` False: without); the recording's middle lies about ``from_culmination_s`` after the highest point
     (on its 20 s grid, the start rounded to the second).  ``bits``: the channel bits to send (default: random
     bits for about SECONDS); the profile is uncoded and randomized, TM frames of 223 octets, spacecraft 77.
-    ``tuning_hz``: the recording's centre lies this far above the nominal frequency (given in the profile)."""
+    ``tuning_hz``: the recording's centre lies this far above the nominal frequency (given in the profile).
+    ``baseband`` and ``link``: another transmitter's samples at FS before the Doppler (noise included) and the
+    profile's [link] keys for it (modulation, symbol rate, line code ...), instead of BPSK at RS."""
     tmp_path.mkdir(parents=True, exist_ok=True)
     from sgp4.api import WGS72, Satrec
 
@@ -44,18 +47,20 @@ def _decode_pass(tmp_path, *, conjugate: bool = False, receiver: str = "", from_
     station = orbit_truth.station_ecef_km(LAT, LON, ALT_M)
     t0 = round(orbit_truth.culmination_posix_s(sat, station) + from_culmination_s - SECONDS / 2)
     # the transmitter: BPSK, its carrier moved by the Doppler (10 ms grid, cubic in between) plus the offset
-    rng = np.random.default_rng(17)
-    n_sym = int(SECONDS * RS) - 40 if bits is None else int(bits.size)
-    wave = ds.modulate(n_sym, modulation="bpsk", sample_rate_hz=FS, symbol_rate_baud=RS, esn0_db=12.0, rng=rng,
-                       lead_symbols=20, bits=None if bits is None else (bits, np.zeros_like(bits)))
-    n = len(wave.samples)
+    if baseband is None:
+        rng = np.random.default_rng(17)
+        n_sym = int(SECONDS * RS) - 40 if bits is None else int(bits.size)
+        baseband = ds.modulate(n_sym, modulation="bpsk", sample_rate_hz=FS, symbol_rate_baud=RS, esn0_db=12.0,
+                               rng=rng, lead_symbols=20,
+                               bits=None if bits is None else (bits, np.zeros_like(bits))).samples
+    n = len(baseband)
     grid = np.arange(0.0, n / FS + 0.02, 0.01)
     f_grid = np.array([orbit_truth.doppler_hz(sat, t0 + g, station, F_CARRIER) for g in grid]) + OSC_OFFSET_HZ
     from scipy.interpolate import CubicSpline
 
     f_t = CubicSpline(grid, f_grid)(np.arange(n) / FS)
     phase = 2 * np.pi * np.cumsum(f_t) / FS
-    samples = (wave.samples * np.exp(1j * phase)).astype("<c8")
+    samples = (baseband * np.exp(1j * phase)).astype("<c8")
     if tuning_hz:
         samples = (samples * np.exp(-2j * np.pi * tuning_hz * np.arange(n) / FS)).astype("<c8")
     if conjugate:
@@ -69,10 +74,8 @@ def _decode_pass(tmp_path, *, conjugate: bool = False, receiver: str = "", from_
     (tmp_path / "p.toml").write_text(f"""
 name = "leo-test"
 [link]
-modulation = "bpsk"
+{link or f'modulation = "bpsk"{chr(10)}symbol_rate = {RS}{chr(10)}line_code = "nrz-l"'}
 {f"downlink_frequency_hz = {F_CARRIER}" if tuning_hz else ""}
-symbol_rate = {RS}
-line_code = "nrz-l"
 [coding]
 convolutional = "none"
 reed_solomon = 0

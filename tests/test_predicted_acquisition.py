@@ -9,6 +9,7 @@ formula from memory, not confirmed); the truth computes it as -f d(light time)/d
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import pickle
 
@@ -34,11 +35,12 @@ class _Chunk:
         self.samples, self.start, self.nonfinite = samples, start, 0
 
 
-def _frames_and_packets():
-    """Channel bits for about 4 s at 60 ksym/s: uncoded, randomized TM frames of 223 octets, spacecraft 77."""
+def _frames_and_packets(symbol_rate: float = pass_sim.RS):
+    """Channel bits for about 4 s at ``symbol_rate`` (60 ksym/s): uncoded, randomized TM frames of 223 octets,
+    spacecraft 77."""
     rng = np.random.default_rng(3)
     field = 223 - 6
-    n_frames = (int(pass_sim.SECONDS * pass_sim.RS) - 40 - 317 - 200) // (8 * (223 + 4)) - 1
+    n_frames = (int(pass_sim.SECONDS * symbol_rate) - 40 - 317 - 200) // (8 * (223 + 4)) - 1
     packets, size = [], 0
     while size + 400 < n_frames * field:
         payload = bytes(rng.integers(0, 256, int(rng.integers(60, 300)), dtype=np.uint8))
@@ -89,13 +91,40 @@ def test_a_narrow_search_loses_the_leo_carrier_without_the_orbit_and_finds_it_ce
     assert abs(float(np.mean(residual)) - pass_sim.OSC_OFFSET_HZ) < 5.0
 
 
-def test_an_inverted_recording_is_found_at_the_mirrored_prediction_under_auto(tmp_path):
+#: The residual-carrier receiver's links on the same pass: 16 ksym/s (15.6 samples per symbol; Bi-phase-L needs 8),
+#: sent by tests/residual_signals.py (wave, modulation index in rad, the profile's [link] keys).  Not 20 ksym/s:
+#: squared Bi-phase-L BPSK has lines at twice the carrier plus multiples of twice the chip rate, and the mirror
+#: image's line at -f + 40 kHz would lie within the search around f = +20.8 kHz (a false lock at +18.3 kHz).
+RESIDUAL_RS = 16e3
+RESIDUAL_LINKS = {
+    # PCM/PM, NRZ-L data directly on the carrier at m = 1.1 rad: the residual carrier's dwell of periodograms
+    "pcm-pm-nrz": ("nrz", 1.1, 'modulation = "pcm-pm"\nline_code = "nrz-l"\nmodulation_index = 1.1'),
+    # BPSK with Bi-phase-L (m = pi/2: no carrier left): the per-block CarrierSearch ahead of the Costas loop
+    "bpsk-biphase": ("biphase", math.pi / 2, 'modulation = "bpsk"\nline_code = "bi-phase-l"'),
+}
+
+
+def _transmitter(kind: str) -> tuple[dict, list[bytes]]:
+    """``(keyword arguments of pass_sim._decode_pass, packets sent)`` for the link ``kind`` on the LEO pass."""
+    if kind == "bpsk":  # the suppressed-carrier Demodulator (pass_sim's own BPSK transmitter at 60 ksym/s)
+        bits, packets = _frames_and_packets()
+        return dict(bits=bits), packets
+    wave, index, keys = RESIDUAL_LINKS[kind]
+    bits, packets = _frames_and_packets(RESIDUAL_RS)
+    sig = rs.transmit(bits.size, wave=wave, sample_rate_hz=pass_sim.FS, symbol_rate_baud=RESIDUAL_RS,
+                      index_rad=index, esn0_db=12.0, bits=bits, lead_samples=200, seed=23)
+    return dict(baseband=sig.samples, link=f'symbol_rate = {RESIDUAL_RS}\npulse = "rect"\n{keys}'), packets
+
+
+@pytest.mark.parametrize("kind", ["bpsk", *sorted(RESIDUAL_LINKS)])
+def test_an_inverted_recording_is_found_at_the_mirrored_prediction_under_auto(tmp_path, kind):
     # the same pass with its samples conjugated (a spectrally inverted recording: the Doppler shows with the
     # opposite sign): under spectrum_inverted = "auto" the narrow search finds nothing at the prediction, then
-    # finds the carrier at its mirror image, and the recording is demodulated as spectrum_inverted = true would
-    bits, packets = _frames_and_packets()
+    # finds the carrier at its mirror image, and the recording is demodulated as spectrum_inverted = true would;
+    # for each demodulator's search: the suppressed carrier's, the residual carrier's dwell, Bi-phase-L BPSK's
+    transmitter, packets = _transmitter(kind)
     receiver = f"[receiver]\nacquisition_range_hz = {NARROW_RANGE_HZ}"
-    common = dict(bits=bits, from_culmination_s=BEFORE_CULMINATION_S, tuning_hz=TUNING_HZ)
+    common = dict(**transmitter, from_culmination_s=BEFORE_CULMINATION_S, tuning_hz=TUNING_HZ)
     up_rows, upright, _ = pass_sim._decode_pass(tmp_path / "upright", receiver=receiver, **common)
     assert upright.packets == len(packets) and "carrier_found_mirrored" not in upright.report["demod"]
     rows, summary, out = pass_sim._decode_pass(tmp_path / "inverted", conjugate=True, receiver=receiver, **common)
@@ -194,6 +223,59 @@ def test_the_residual_carrier_search_is_centred_on_the_prediction():
     assert len(locked) >= 10
     for tp in locked[2:]:
         assert abs(tp.carrier_offset_hz - (offset - 200.0 * tp.position / fs)) < 5.0
+
+
+def _symbols(demod, x, chunk):
+    """``(soft, position, track)`` of a whole recording fed in chunks of ``chunk`` samples."""
+    out = [demod.process(_Chunk(x[a:a + chunk], a)) for a in range(0, x.size, chunk)] + [demod.flush()]
+    return (np.concatenate([b.soft for b in out]), np.concatenate([b.position for b in out]),
+            [tp for b in out for tp in b.track])
+
+
+@pytest.mark.parametrize("kind", ["pcm-pm-nrz", "bpsk-biphase"])
+def test_the_residual_demodulator_finds_an_inverted_carrier_at_the_mirrored_prediction(kind):
+    # the independent transmitter (tests/residual_signals.py) 27 kHz off nominal with a Doppler rate, its samples
+    # conjugated (a spectrally inverted recording), searched +-2 kHz around a prediction 500 Hz off the truth: under
+    # spectrum_inverted = "auto" the residual carrier's mirrored dwell (Bi-phase-L BPSK: the block searched again
+    # conjugated) finds it, and from then on the samples are conjugated, so the symbols and track points are the
+    # upright recording's, to the bit (conjugation is exact), whatever the chunking
+    wave, index, _ = RESIDUAL_LINKS[kind]
+    modulation, line_code = ("pcm-pm", "nrz-l") if wave == "nrz" else ("bpsk", "bi-phase-l")
+    link = LinkSection(modulation=modulation, symbol_rate_baud=8000.0, line_code=line_code, pulse="rect",
+                       modulation_index_rad=1.1)
+    fs, offset, rate = 200e3, 27_000.0, -200.0
+    x = rs.transmit(16000, wave=wave, sample_rate_hz=fs, symbol_rate_baud=8000.0, index_rad=index, esn0_db=8.0,
+                    carrier_hz=offset, rate_hz_per_s=rate).samples
+    t_end = x.size / fs
+    table = CarrierPrediction(positions=[0.0, float(x.size)],
+                              offsets_hz=[offset + 500.0, offset + 500.0 + rate * t_end])
+
+    def demod(inverted="auto"):
+        rx = ReceiverSection(acquisition_range_hz=2000.0, spectrum_inverted=inverted)
+        return ResidualCarrierDemodulator(link=link, receiver=rx, sample_rate_hz=fs, carrier_prediction=table)
+
+    upright = demod()
+    soft, pos, track = _symbols(upright, x, 50_000)
+    assert upright.stats.carrier_found_mirrored == 0 and upright.stats.carrier_locked_symbols > 0.8 * soft.size
+    for chunk in (50_000, 77_777):
+        mirrored = demod()
+        got_soft, got_pos, got_track = _symbols(mirrored, np.conj(x), chunk)
+        assert mirrored.stats.carrier_found_mirrored == 1 and mirrored.conjugate
+        np.testing.assert_array_equal(got_soft, soft)
+        np.testing.assert_array_equal(got_pos, pos)
+        np.testing.assert_equal([dataclasses.astuple(tp) for tp in got_track],  # (nan fields count as equal)
+                                [dataclasses.astuple(tp) for tp in track])
+    # the Doppler with its true sign: the transmitter's carrier (residual_signals: f + r t), not its mirror
+    locked = [tp for tp in got_track if tp.carrier_locked]
+    assert len(locked) >= 10
+    for tp in locked[2:]:
+        assert abs(tp.carrier_offset_hz - (offset + rate * tp.position / fs)) < 5.0
+    # spectrum_inverted = false, or no prediction: the mirror image is never searched, nothing locks
+    for unlocked in (demod(False), ResidualCarrierDemodulator(link=link, receiver=ReceiverSection(
+            acquisition_range_hz=2000.0), sample_rate_hz=fs)):
+        _symbols(unlocked, np.conj(x), 50_000)
+        assert unlocked.stats.carrier_found_mirrored == 0 and unlocked.stats.carrier_locked_symbols == 0
+        assert not unlocked.mirror_search and not unlocked.conjugate
 
 
 # ---- the table -----------------------------------------------------------------------------------------------------
