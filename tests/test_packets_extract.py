@@ -220,13 +220,51 @@ def test_sequence_count_wrap_and_gaps():
 
 
 def test_fhp_mismatch_when_partial_does_not_end_at_pointer():
+    # CCSDS 132.0-B-3 sec. 4.1.2.7 (first header pointer: where the first packet header of the data field starts,
+    # all ones if none does; from memory, not confirmed): a pointer one octet short of where packet 0 ends by its
+    # length cuts it: it cannot be whole and is dropped
     zl = _zone_len(TM)
     pk = [space_packet(3, 0, bytes(60)), space_packet(3, 1, bytes(10)), space_packet(3, 2, bytes(10))]
     zones, _ = cut_stream(pk, zl)
-    zones[1].fhp += 1  # the pointer in frame 1 no longer matches where packet 0 ends
+    zones[1].fhp -= 1
     out, ex = _run(TM, _frames_for_vc(TM, 0, zones))
     got = [p.data for p in out]
     assert pk[0] not in got and ex.stats.dropped["fhp_mismatch"] >= 1 and all(p in pk for p in got)
+    assert ex.stats.fhp_mismatch_delivered == 0
+
+
+def test_a_whole_packet_before_a_mismatched_pointer_is_delivered():
+    # a pointer one octet past where packet 0 ends by its own length: every octet of packet 0 is there, so it is
+    # delivered (it used to be dropped), the octet between skipped and the mismatch counted
+    zl = _zone_len(TM)
+    pk = [space_packet(3, 0, bytes(60)), space_packet(3, 1, bytes(10)), space_packet(3, 2, bytes(10))]
+    zones, _ = cut_stream(pk, zl)
+    zones[1].fhp += 1
+    out, ex = _run(TM, _frames_for_vc(TM, 0, zones))
+    got = [p.data for p in out]
+    assert got[0] == pk[0] and all(p in pk for p in got)  # (the packets after the wrong pointer are misread)
+    assert ex.stats.fhp_mismatch_delivered == 1 and ex.stats.as_dict()["fhp_mismatch_delivered"] == 1
+
+
+def test_a_packet_ending_in_a_frame_without_a_header_before_a_pad_is_delivered():
+    # a sender that fills the last few octets of a frame (too few for an idle packet, which needs 7) with zeros and
+    # sets the pointer to all ones (no header starts here): the packet that ends in that frame is whole by its
+    # length and is delivered, the pad skipped; the next frame's pointer brings the extractor back in step
+    zl = _zone_len(TM)
+    first = space_packet(5, 0, bytes(range(10)))
+    pad = 4
+    # packet 1 spans from frame 0 into frame 1 and ends pad octets before frame 1's end
+    body = 2 * zl - pad - len(first) - 6
+    second = space_packet(5, 1, bytes(i % 251 for i in range(body)))
+    third = space_packet(5, 2, b"\x33" * 30)
+    from test_link_builders import Zone
+    stream = first + second
+    zones = [Zone(fhp=0, data=stream[:zl]), Zone(fhp=0x7FF, data=stream[zl:] + bytes(pad))]
+    more, _ = cut_stream([third], zl)
+    out, ex = _run(TM, _frames_for_vc(TM, 0, zones + more))
+    assert [p.data for p in out] == [first, second, third]
+    assert ex.stats.fhp_mismatch_delivered == 1 and ex.stats.skipped_octets == pad
+    assert sum(ex.stats.dropped.values()) == 0
 
 
 def test_flush_counts_incomplete():

@@ -193,6 +193,10 @@ class PacketStats:
         "used": 0, "unusable": 0, "foreign": 0, "idle": 0, "no_packet_zone": 0, "duplicate": 0,
         "backward": 0, "gap": 0})
     skipped_octets: int = 0
+    # packets complete by their own length that ended before where the frame's first header pointer said the
+    # next header starts (or in a frame whose pointer says none starts there): delivered, the octets between
+    # counted in skipped_octets
+    fhp_mismatch_delivered: int = 0
     unverified_packets: int = 0  # delivered from frames no RS / LDPC / turbo decode or FECF verified
     count_anomalies: dict = field(default_factory=lambda: {"duplicate": 0, "backward": 0})  # delivered, flagged
     copies: int = 0  # byte-identical copies of delivered packets (delivered unless drop_duplicates)
@@ -218,6 +222,7 @@ class PacketStats:
             "dropped_total": sum(self.dropped.values()),
             "frames": dict(self.frames),
             "skipped_octets": self.skipped_octets,
+            "fhp_mismatch_delivered": self.fhp_mismatch_delivered,
             "unverified_packets": self.unverified_packets,
             "count_anomalies": dict(self.count_anomalies),
             "copies": self.copies,
@@ -497,8 +502,12 @@ class PacketExtractor:
                 if len(ra.partial) == length:
                     self._emit(bytes(ra.partial), ra.origin, ra.frames, ra.verified, out)
                     ra.partial, ra.need, ra.frames = bytearray(), _NEED_MORE, 0
-                else:  # the packet ends inside a frame whose pointer says no header starts there
-                    self._lose_sync(ra, "fhp_mismatch")
+                else:
+                    # the packet ends inside a frame whose pointer says no header starts there (a sender that
+                    # pads a frame's last few octets instead of starting an idle packet): the packet is whole
+                    # by its own length and is delivered; what follows it is no packet we can place
+                    self._deliver_before_mismatch(ra, length, out)
+                    ra.synced = False
             return
         if ra.partial:
             if fhp:
@@ -510,12 +519,25 @@ class PacketExtractor:
                 if length and len(ra.partial) == length:
                     self._emit(bytes(ra.partial), ra.origin, ra.frames, ra.verified, out)
                     ra.partial, ra.need, ra.frames = bytearray(), _NEED_MORE, 0
-                else:
+                elif length and len(ra.partial) > length:
+                    # whole by its own length before the pointer: delivered, the octets up to the pointer skipped
+                    self._deliver_before_mismatch(ra, length, out)
+                else:  # the pointer cuts the packet short (or its header): it cannot be whole
                     self._lose_sync(ra, "fhp_mismatch")
         elif fhp:
             self.stats.skipped_octets += fhp  # octets of a packet whose start we never had
         ra.partial, ra.need, ra.synced, ra.frames = bytearray(), _NEED_MORE, True, 0
         self._walk(ra, zone, fhp, origin, out)
+
+    def _deliver_before_mismatch(self, ra: _Reassembly, length: int, out: list[Packet]) -> None:
+        """The packet in progress is whole by its own ``length`` but octets follow it where the frame's first
+        header pointer places none: deliver it (flagged as its frames were verified or not, as any packet), count
+        the mismatch and skip the octets after it.  Before, such a packet was dropped as ``fhp_mismatch``,
+        though every octet of it was there (in verified frames too)."""
+        self.stats.fhp_mismatch_delivered += 1
+        self.stats.skipped_octets += len(ra.partial) - length
+        self._emit(bytes(ra.partial[:length]), ra.origin, ra.frames, ra.verified, out)
+        ra.partial, ra.need, ra.frames = bytearray(), _NEED_MORE, 0
 
     def _partial_length(self, ra: _Reassembly) -> int:
         """Whole length of the packet in progress (0 while its header is incomplete).
