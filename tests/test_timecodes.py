@@ -272,6 +272,28 @@ def test_cds_against_astropy_random(rng, astropy_time):
         assert encode_cds(tai, pfield=0x41) == cds
 
 
+def test_cds_short_against_spacepackets(rng):
+    # spacepackets (PyPI; an independent implementation of the CCSDS time codes, CCSDS 301.0-B-4 sec. 3.3): its
+    # CDS short timestamp, the P-field then a 16-bit day count from 1958-01-01 and a 32-bit ms of day, packs the
+    # same 7 octets as encode_cds with the P-field 0x40 given first, and reads ours back to the same instant; this
+    # confirms the P-field value 0x40 and the T-field layout that ../shared/REFERENCES.md sec. 6 has from memory.
+    # (Its from_datetime takes the ms of day through floating point and can come out 1 ms low, so whole seconds
+    # go through it, and any ms through its day and ms fields.)
+    from spacepackets.ccsds.time import CdsShortTimestamp
+
+    for ms in rng.integers(63072000 * 1000, 1_830_000_000 * 1000, 200, dtype=np.int64):
+        utc_ns = int(ms) * 1_000_000
+        when = dt.datetime.fromtimestamp(utc_ns // NS, tz=dt.timezone.utc) + dt.timedelta(
+            microseconds=(utc_ns % NS) // 1000)
+        ours = encode_cds(tai_from_posix_ns(utc_ns), pfield=0x40, explicit=True)
+        theirs = CdsShortTimestamp.unpack(ours)
+        assert theirs.as_datetime() == when
+        assert CdsShortTimestamp(theirs.ccsds_days, theirs.ms_of_day).pack() == ours
+        whole = when.replace(microsecond=0)
+        assert CdsShortTimestamp.from_datetime(whole).pack() == encode_cds(
+            tai_from_posix_ns(utc_ns // NS * NS), pfield=0x40, explicit=True)
+
+
 def test_cds_agency_epoch():
     tai, _ = decode_cds(bytes.fromhex("0001" "00000000"), pfield=0x48, epoch="2017-01-01")
     assert format_utc(tai) == "2017-01-02T00:00:00.000000000Z"
