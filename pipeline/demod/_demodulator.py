@@ -74,6 +74,10 @@ _LONG_SEARCH_EVERY = 8
 _SOFT_BELOW_DB = 2.0
 #: Es/N0 grid of the soft Costas detector's slope table: first value, step, end (dB).
 _SLOPE_TABLE_DB = (-10.0, 0.25, 40.25)
+#: Symbols the first lock after an acquisition (a carrier found, or the loop locking on its own) is on trial:
+#: lost within them, the acquisition starts again at once instead of after ``reacquire_symbols`` unlocked (at
+#: low Es/N0 the short lock average can hold for a few thousand symbols on a loop still pulling in).
+_LOCK_TRIAL = 16384
 #: Sub-intervals of a block whose mean frequencies give a track point's ``carrier_std_hz``.
 _FREQ_SUBINTERVALS = 8
 
@@ -484,7 +488,8 @@ class Demodulator:
     5. One :class:`TrackPoint` with the measured frequency, its spread and the block's M2M4
        Es/N0 (``nan`` below a quarter of a full block's symbols).
 
-    Acquisition (at the start, and when the carrier stayed unlocked for ``reacquire_symbols``):
+    Acquisition (at the start, when the carrier stayed unlocked for ``reacquire_symbols``, and at once
+    when the first lock after an acquisition is lost within ``_LOCK_TRIAL`` symbols):
     windows of ``acquisition_samples`` (two blocks) are held and searched with a
     :class:`~pipeline.demod._acquire.CarrierSearch` over ``+- acquisition_search_hz`` (where the
     signal's band lies, then the ``x^2`` / ``x^4`` line of the matched-filter output under Doppler
@@ -704,6 +709,8 @@ class Demodulator:
         self._summary = np.zeros(1, dtype=BLOCK_SUMMARY)
         self._mom4 = np.zeros(4, dtype=np.float64)
         self._unlocked_run = 0
+        self._trial_armed = False  # an acquisition ended: its first lock goes on trial (_LOCK_TRIAL)
+        self._on_trial = 0  # symbols left of that lock's trial
         self._finished = False
         self.conjugate = self.receiver.spectrum_inverted is True  # "auto" may turn it on (the mirrored search)
         self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
@@ -813,6 +820,7 @@ class Demodulator:
                     self._conjugate_held()
             if acq.found:
                 found = True
+                self._trial_armed = True
                 self.stats.carrier_found += 1
                 self._nco_hz = offset + first
                 self._state[0]["w_int"] = 0.0
@@ -844,6 +852,7 @@ class Demodulator:
             self._acquiring = False
             self._history = []
             self._long_tried = 0
+            self._trial_armed = True
             for b, cnt, mom in blocks:
                 self._run_block(b, (cnt, mom), out)
 
@@ -999,6 +1008,17 @@ class Demodulator:
         self.stats.symbols_out += nsym
         self.stats.carrier_locked_symbols += locked
         # (not while a found carrier is pulled in at low Es/N0: lock is declared from the long average there)
+        if self._trial_armed and locked:
+            self._trial_armed = False
+            self._on_trial = _LOCK_TRIAL
+        if self._on_trial and nsym:
+            if flags[-1] & 1:
+                self._on_trial = max(0, self._on_trial - nsym)
+            else:
+                self._on_trial = 0
+                if not tail and not self._acquiring:
+                    self._unlocked_run = 0
+                    self._acquiring = True
         if not tail and self._unlocked_run >= self.reacquire_symbols and not (st["pull_left"] and st["soft_on"]):
             self._unlocked_run = 0
             self._acquiring = True
