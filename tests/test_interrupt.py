@@ -14,6 +14,13 @@ import pytest
 from pipeline.profile import demo_profile_path
 
 
+def _interruptible() -> None:
+    """In the child before it starts: SIGINT as an interactive shell leaves it.  A shell starting the tests in
+    the background (``nohup pytest &``, some CI runners) hands its children SIGINT ignored, and Python then
+    keeps it ignored: Ctrl-C would never reach the run under test."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 @pytest.mark.parametrize("sig, code", [(signal.SIGINT, 130), (signal.SIGTERM, 143)])
 def test_signal_leaves_no_output(tmp_path, sig, code):
     out = tmp_path / "sim"
@@ -21,7 +28,7 @@ def test_signal_leaves_no_output(tmp_path, sig, code):
     proc = subprocess.Popen(
         [sys.executable, "-m", "pipeline", "simulate", "--profile", str(demo_profile_path()), "--out", str(out),
          "--seconds", "120", "-q"],
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env, text=True,
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env, text=True, preexec_fn=_interruptible,
     )
     deadline = time.monotonic() + 60
     # wait until the run has started writing (its hidden partial folder has data in it)

@@ -82,7 +82,9 @@ def _feed_slowly(proc, path, seconds_per_mb=0.5):
 def test_follow_writes_as_it_goes_and_the_normal_end_removes_the_marker(tmp_path, pass_3s, how):
     sim, ref = pass_3s
     out = tmp_path / "out"
-    proc = subprocess.Popen(_cmd(out, "--follow"), stdin=subprocess.PIPE, stderr=subprocess.PIPE)
+    # (SIGINT as an interactive shell leaves it: see test_interrupt._interruptible)
+    proc = subprocess.Popen(_cmd(out, "--follow"), stdin=subprocess.PIPE, stderr=subprocess.PIPE,
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     _feed_slowly(proc, sim.data_path)
     deadline = time.monotonic() + 120
     while time.monotonic() < deadline and not (out / "packets.jsonl").exists():
