@@ -22,6 +22,7 @@ __all__ = [
     "track_symbols",
     "soft_costas_error",
     "hard_costas_slope",
+    "costas_slope",
     "hard_costas_squaring_loss",
     "nrzm_decode",
     "moments_m2m4",
@@ -300,15 +301,25 @@ def hard_costas_slope(esn0, mod_code, soft_below, mid_power):
     exp(-u^2) / sqrt(pi)``.  Below ``soft_below`` (the hard detector there only pulls a stream in, before
     the soft one takes over) ``erf(u)`` as it always was.
     """
-    if mod_code == 0:
-        k = math.erf(math.sqrt(esn0))
-    else:
-        u = math.sqrt(0.5 * esn0)
-        k = math.erf(u)
-        if esn0 >= soft_below:
-            cross = 1.0 if mod_code == 1 else mid_power
-            k -= cross * 2.0 * u * math.exp(-u * u) / math.sqrt(math.pi)
+    cross = 0.0
+    if mod_code != 0 and esn0 >= soft_below:
+        cross = 1.0 if mod_code == 1 else mid_power
+    k = costas_slope(esn0, mod_code, cross)
     return k if k > 0.3 else 0.3
+
+
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
+def costas_slope(esn0, mod_code, cross):
+    """The hard Costas detector's slope at zero phase error, no floor (:func:`hard_costas_slope`): BPSK
+    ``erf(sqrt(x))``; QPSK/OQPSK ``erf(u) - cross 2 u exp(-u^2) / sqrt(pi)``, ``u = sqrt(x / 2)``, ``cross`` the
+    other rail's power where the detector takes it (1 QPSK, ``1 - r0`` OQPSK, 0 for the first term alone)."""
+    if mod_code == 0:
+        return math.erf(math.sqrt(esn0))
+    u = math.sqrt(0.5 * esn0)
+    k = math.erf(u)
+    if cross != 0.0:
+        k -= cross * 2.0 * u * math.exp(-u * u) / math.sqrt(math.pi)
+    return k
 
 
 @njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
@@ -316,7 +327,7 @@ def hard_costas_squaring_loss(esn0, mod_code):
     """Squaring loss ``S_L`` of the hard Costas detector: its loop's phase variance is ``2 B_L T / (x S_L)``.
 
     ``S_L = k^2 / (2 x Var(e))`` with ``x = Es/N0`` (linear), ``k`` the detector's true slope at zero phase
-    error (:func:`hard_costas_slope` without its floor) and ``Var(e)`` its variance there, on symbols of unit
+    error (:func:`costas_slope`) and ``Var(e)`` its variance there, on symbols of unit
     energy (the data terms cancel at zero phase error, whatever the decisions).  BPSK ``sgn(I) Q``:
     ``Var(e) = sigma^2 = 1 / (2 x)``, so ``S_L = erf(sqrt x)^2``.  QPSK ``(sgn(I) Q - sgn(Q) I) / sqrt 2``:
     ``Var(e) = m^2 + sigma^2 - E|I|^2``, ``m = 1 / sqrt 2``, ``E|I| = m erf(u) + sigma sqrt(2 / pi)
@@ -324,11 +335,10 @@ def hard_costas_squaring_loss(esn0, mod_code):
     6 dB (the analog four-phase Costas loop's ``1 / (1 + 9 / 2x + 6 / x^2 + 3 / 2x^3)`` gives 0.15 and
     0.40).  OQPSK takes the QPSK value (its cross terms' correlations are not worked out here).
     """
+    k = costas_slope(esn0, mod_code, 1.0)
     if mod_code == 0:
-        k = math.erf(math.sqrt(esn0))
         return k * k
     u = math.sqrt(0.5 * esn0)
-    k = math.erf(u) - 2.0 * u * math.exp(-u * u) / math.sqrt(math.pi)
     sigma2 = 0.5 / esn0
     m = math.sqrt(0.5)
     e_abs = m * math.erf(u) + math.sqrt(sigma2 * 2.0 / math.pi) * math.exp(-u * u)
@@ -387,6 +397,12 @@ def cubic_strobe(mf, i, mu):
     h3 = np.float32(sixth) * mp1 * b_c
     return (float(h0 * a0.real + h1 * a1.real + h2 * a2.real + h3 * a3.real),
             float(h0 * a0.imag + h1 * a1.imag + h2 * a2.imag + h3 * a3.imag))
+
+
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
+def derotated(vr, vi, cs, sn):
+    """``(vr + j vi) exp(-j theta)`` with the carrier phasor ``(cs, sn) = (cos, sin) theta``: ``(re, im)``."""
+    return vr * cs + vi * sn, vi * cs - vr * sn
 
 
 @njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
@@ -688,8 +704,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                 vr, vi = cubic_strobe(mf, i, t - m)
             cs, sn, nresync = phasor_step(theta, theta_ph, cs, sn, nresync)
             theta_ph = theta
-            wr = vr * cs + vi * sn
-            wi = vi * cs - vr * sn
+            wr, wi = derotated(vr, vi, cs, sn)
             t_on = t
             q3r = q1r
             q3i = q1i
@@ -722,8 +737,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
         if mod_code == 2:
             cs, sn, nresync = phasor_step(theta, theta_ph, cs, sn, nresync)
             theta_ph = theta
-            wr = vr * cs + vi * sn
-            wi = vi * cs - vr * sn
+            wr, wi = derotated(vr, vi, cs, sn)
         else:
             # BPSK/QPSK midpoint: the Gardner detector and the midpoint energy do not depend on a
             # common phase, so it is taken as interpolated (with the on-time values as interpolated)
