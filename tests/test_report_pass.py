@@ -86,7 +86,7 @@ def recorded_pass(tmp_path_factory):
     t_on = wave.peak_position[0] / SAMPLE_RATE  # first and last symbol of the signal
     t_off = wave.peak_position[-1] / SAMPLE_RATE
     return {"out": out, "report": json.loads((out / "report.json").read_text()), "untimed": untimed.report,
-            "t_on": t_on, "t_off": t_off, "packets": packets}
+            "t_on": t_on, "t_off": t_off, "fade": tuple(fade), "packets": packets}
 
 
 def _jsonl(path: Path) -> list[dict]:
@@ -117,6 +117,60 @@ def test_lock_window_against_the_signal_on_and_off(recorded_pass):
         # the UTC string is an ERT: the leading edge of the symbol there, half a symbol before its centre
         utc_s = (parse_iso_ns(v[f"{key}_lock_utc"]) - t0) * 1e-9
         assert abs(utc_s - (v[f"{key}_lock_s"] - 0.5 / SYMBOL_RATE)) < 1e-6
+
+
+def test_time_in_lock_leaves_out_the_fade(recorded_pass):
+    # The signal is off for five frames (0.43 s, about 2.6 receiver blocks) inside the window: the receiver loses
+    # lock there and finds it again, so the time in lock is the window less the fade, to within the receiver's
+    # reporting of lock once per block; the window itself is the span from first to last lock.
+    v = recorded_pass["report"]["pass"]
+    block = v["lock_resolution_s"]
+    fade = recorded_pass["fade"][1] - recorded_pass["fade"][0]
+    span = recorded_pass["t_off"] - recorded_pass["t_on"]
+    assert v["lock_span_s"] == pytest.approx(v["last_lock_s"] - v["first_lock_s"], abs=2e-6)
+    assert abs(v["lock_span_s"] - span) <= 2 * block
+    assert v["lock_losses"] == 1
+    # the time out of lock inside the window is the fade to within one block (lock is reported per block)
+    assert abs((v["lock_span_s"] - v["locked_s"]) - fade) <= block, (v["locked_s"], v["lock_span_s"], fade, block)
+    page = (recorded_pass["out"] / "report.html").read_text()
+    assert f"locked {v['locked_s']:.2f} s of {v['lock_span_s']:.2f} s, lock lost 1 time" in page
+
+
+def _lock_time_reference(pos, held, period=None):
+    """Sample by sample: the samples in lock between the first and the last point held, and the losses."""
+    idx = [i for i, h in enumerate(held) if h]
+    if not idx:
+        return 0.0, 0
+    if period is not None:  # frames: each covers [p, p + period), cut at the next frame
+        p = sorted(pos[i] for i in idx)
+        covered = set()
+        for k, a in enumerate(p):
+            end = min(a + period, p[k + 1]) if k + 1 < len(p) else a + period
+            covered.update(range(int(a), int(end)))
+        return float(len(covered)), sum(b - a > 1.5 * period for a, b in zip(p, p[1:]))
+    lo, hi = idx[0], idx[-1]
+    in_lock = 0.0
+    for i in range(lo + 1, hi + 1):  # point i stands for the samples since point i - 1
+        if held[i]:
+            in_lock += pos[i] - pos[i - 1]
+    losses = sum(1 for i in range(lo, hi) if held[i] and not held[i + 1])
+    return in_lock, losses
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_lock_time_against_a_sample_by_sample_count(seed):
+    from pipeline.report._build import _lock_time
+
+    rng = np.random.default_rng(seed)
+    pos = np.cumsum(rng.integers(900, 1100, size=60)).astype(np.float64)  # track points, integer samples
+    held = rng.random(60) < (0.3, 0.7, 0.95, 1.0, 0.0, 0.5)[seed]
+    got = _lock_time(pos, held)
+    assert got == pytest.approx(_lock_time_reference(list(pos), list(held)))
+    # frames of 1000 samples, some missed (a step of two or more periods) and some a little late
+    steps = np.where(rng.random(60) < 0.1, 1000 * rng.integers(2, 5, size=60), 1000 + rng.integers(0, 3, size=60))
+    fpos = np.cumsum(steps).astype(np.float64)
+    got = _lock_time(fpos, np.ones(60, bool), 1000.0)
+    assert got == pytest.approx(_lock_time_reference(list(fpos), [True] * 60, 1000.0))
 
 
 def test_counts_against_the_decode_and_the_transmitter(recorded_pass):
@@ -189,6 +243,29 @@ def test_clcw_section_only_with_an_ocf(tmp_path, ocf):
         assert report["clcw"]["frames_with_clcw"] == report["pass"]["frames_ok"]
         assert report["clcw"]["wait_frames"] == report["clcw"]["retransmit_frames"] == 0
         assert report["clcw"]["report_value_last"] == 0
+
+
+def test_frame_synchronizer_lock_time_leaves_out_a_gap(tmp_path):
+    """Channel bits (no receiver) with ten frames' worth of noise in the middle: the frame synchronizer's window
+    spans every frame sent, its time in lock only the frames it emitted (flywheel ones too), one loss."""
+    import third_party_tx as tx
+
+    n, lead_bits, cadu_bits = 40, 317, 8 * (4 + 255)
+    packets = _packets(120, seed=9)  # 53 frames; the first 40 are sent
+    frames = tx.tm_frames(packets, scid=77, vcid=2, length=223, ocf=True, fecf=False)[:n]
+    bits = tx.channel_bits(frames, rs_e=16, interleave=1, randomize=True, conv=True, nrz_m=True, lead_bits=lead_bits)
+    a, b = 2 * (lead_bits + 15 * cadu_bits), 2 * (lead_bits + 25 * cadu_bits)  # r = 1/2: two channel bits per bit
+    bits[a:b] = np.random.default_rng(3).integers(0, 2, b - a, dtype=np.uint8)
+    (tmp_path / "ch.bits").write_bytes(np.packbits(bits).tobytes())
+    decode(tmp_path / "ch.bits", _profile(), tmp_path / "out", input_kind="bits", start=START)
+    v = json.loads((tmp_path / "out" / "report.json").read_text())["pass"]
+    emitted = len(_jsonl(tmp_path / "out" / "frames.jsonl"))
+    assert v["lock_source"] == "frame synchronizer" and n - 10 <= emitted < n
+    cadu_s = 2 * cadu_bits / SYMBOL_RATE  # one channel bit per symbol period (BPSK)
+    assert v["lock_resolution_s"] == pytest.approx(cadu_s, abs=1e-6)
+    assert v["lock_span_s"] == pytest.approx(n * cadu_s, rel=1e-6)  # first frame's start to last frame's end
+    assert v["locked_s"] == pytest.approx(emitted * cadu_s, rel=1e-6)
+    assert v["lock_losses"] == 1
 
 
 # ---- the page in a real browser -----------------------------------------------------------------

@@ -21,7 +21,8 @@ __all__ = ["CAUTION", "SCHEMA_VERSION", "RunFacts", "build_report"]
 CAUTION = "Decoded data is no substitute for the mission's validated ground segment."
 
 #: Version of the layout of ``report.json``; raised when a key changes meaning or goes away.
-SCHEMA_VERSION = 1
+#: 2: ``pass.locked_s`` is the time in lock (in 1 it was the span from first to last lock, now ``lock_span_s``).
+SCHEMA_VERSION = 2
 
 
 @dataclass
@@ -157,6 +158,27 @@ def _track_usable(tpos: np.ndarray, locked: np.ndarray) -> np.ndarray:
     return locked & held_before
 
 
+def _lock_time(pos: np.ndarray, held: np.ndarray, period: float | None = None) -> tuple[float, int]:
+    """``(samples in lock, losses of lock)`` between the first and the last point held.
+
+    Receiver track (``period`` None): each point stands for the interval from the point before it, and a point
+    held counts that interval, but the first point held counts nothing (so an unbroken lock gives exactly the
+    span from first to last lock).  Frames (``period`` = samples per CADU, positions in order): each frame
+    covers ``period`` samples from its position, at most up to the next frame.  A loss is a run of points not
+    held (receiver) or a step longer than 1.5 periods between frames (frames missed) inside that span.
+    """
+    idx = np.flatnonzero(held)
+    if idx.size == 0:
+        return 0.0, 0
+    if period is not None:
+        step = np.diff(np.sort(pos[idx]))
+        return float(np.minimum(step, period).sum()) + period, int(np.count_nonzero(step > 1.5 * period))
+    lo, hi = int(idx[0]), int(idx[-1])
+    inside = held[lo:hi + 1]
+    losses = int(np.count_nonzero(inside[:-1] & ~inside[1:]))
+    return float(np.diff(pos[lo:hi + 1])[inside[1:]].sum()), losses
+
+
 def _frames_missing(f: RunFacts) -> int:
     """Frames never received, by the frame counters (TM: master channel; AOS: virtual channels).
 
@@ -245,13 +267,16 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fr
         source = "receiver"
         first_pos, last_pos = float(tpos[locked][0]), float(tpos[locked][-1])
         resolution = float(np.median(np.diff(tpos))) / clock.rate if tpos.size > 1 else None
+        in_lock, losses = _lock_time(tpos, locked)
     elif f.input_kind != "iq" and fpos.size:
         # channel-symbol input has no receiver: the frame synchronizer's first and last frame
         source = "frame synchronizer"
-        first_pos, last_pos = float(fpos[0]), float(fpos[-1] + p.samples_per_cadu(clock.rate))
-        resolution = p.samples_per_cadu(clock.rate) / clock.rate
+        cadu = p.samples_per_cadu(clock.rate)
+        first_pos, last_pos = float(fpos[0]), float(fpos[-1] + cadu)
+        resolution = cadu / clock.rate
+        in_lock, losses = _lock_time(fpos, np.ones(fpos.shape, bool), cadu)
     else:
-        source, first_pos, last_pos, resolution = None, None, None, None
+        source, first_pos, last_pos, resolution, in_lock, losses = None, None, None, None, None, None
     good = esn0[usable & np.isfinite(esn0)]
     good_carrier = carrier[usable & np.isfinite(carrier)]
     status = dict(f.status_counts)
@@ -262,7 +287,9 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fr
         "last_lock_utc": f.ert(last_pos) if time_known and last_pos is not None else None,
         "first_lock_s": _round(None if first_pos is None else first_pos / clock.rate, 6),
         "last_lock_s": _round(None if last_pos is None else last_pos / clock.rate, 6),
-        "locked_s": _round(None if first_pos is None else (last_pos - first_pos) / clock.rate, 6),
+        "locked_s": _round(None if in_lock is None else in_lock / clock.rate, 6),
+        "lock_span_s": _round(None if first_pos is None else (last_pos - first_pos) / clock.rate, 6),
+        "lock_losses": losses,
         "lock_source": source,
         "lock_resolution_s": _round(resolution, 6),
         "packets": f.packets,

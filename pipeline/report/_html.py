@@ -254,6 +254,11 @@ def _window_card(v: dict) -> tuple[str, str]:
     res = v.get("lock_resolution_s")
     res_txt = f"; lock times to within {_num(res, '.3g', 's')}" if isinstance(res, (int, float)) else ""
     locked = f"locked {_num(v.get('locked_s'), '.2f', 's')}"
+    losses = v.get("lock_losses")
+    if isinstance(losses, int) and losses > 0:
+        # a lock lost and found again inside the window: the window is not all locked time
+        locked += (f" of {_num(v.get('lock_span_s'), '.2f', 's')}, lock lost {losses} "
+                   f"time{'s' if losses > 1 else ''}")
     if first and last:
         day = first[0] if first[0] == last[0] else f"{first[0]} to {last[0]}"
         return f"{_esc(first[1])} &#8594; {_esc(last[1])} UTC", f"{_esc(day)}; {locked}{res_txt}"
