@@ -6,7 +6,8 @@ Run from the repository root: ``python bench/run_all.py [--quick] [--json FILE]`
    demo profile, segments on 1 and 2 processes, warm start, peak memory.  ``--json FILE`` also writes them
    as one JSON object.
 2. The stage scripts beside this file, each in its own ``python`` process with its defaults:
-   ``bench_recording.py``, ``bench_demod.py``, ``bench_acquisition.py`` (its sensitivity part left out
+   ``bench_recording.py``, ``bench_demod.py``, ``bench_track_replay.py``, ``bench_strobe_floor.py``,
+   ``bench_acquisition.py`` (its sensitivity part left out
    with ``--quick``), ``bench_fec.py``, ``bench_turbo.py``, ``bench_ldpc.py``,
    ``bench_end_to_end.py`` (a 1 GB recording; 0.25 GB with ``--quick``), ``bench_sweep.py``,
    ``sweep_turbo.py``, ``sweep_ldpc.py`` and ``bench_sync_onset.py`` (Monte-Carlo; left out with ``--quick``).  A
@@ -31,6 +32,7 @@ def _scripts(quick: bool) -> list[tuple[str, list[str]]]:
         ("bench_recording.py", ["--msamples", "4"] if quick else []),
         ("bench_demod.py", ["--seconds", "1"] if quick else []),
         ("bench_track_replay.py", ["--seconds", "1", "--repeat", "3"] if quick else []),
+        ("bench_strobe_floor.py", ["--repeat", "2"] if quick else []),
         ("bench_acquisition.py", ["--cost-seconds", "5", "--skip-sensitivity"] if quick else []),
         ("bench_residual.py", ["--seconds", "2", "--repeat", "2"] if quick else []),
         ("bench_fec.py", ["--bits", "1000000", "--repeat", "3"] if quick else []),
