@@ -92,9 +92,8 @@ def test_a_narrow_search_loses_the_leo_carrier_without_the_orbit_and_finds_it_ce
 
 
 #: The residual-carrier receiver's links on the same pass: 16 ksym/s (15.6 samples per symbol; Bi-phase-L needs 8),
-#: sent by tests/residual_signals.py (wave, modulation index in rad, the profile's [link] keys).  Not 20 ksym/s:
-#: squared Bi-phase-L BPSK has lines at twice the carrier plus multiples of twice the chip rate, and the mirror
-#: image's line at -f + 40 kHz would lie within the search around f = +20.8 kHz (a false lock at +18.3 kHz).
+#: sent by tests/residual_signals.py (wave, modulation index in rad, the profile's [link] keys).  20 ksym/s, where
+#: a data line of the mirror image falls within the search, has a test of its own below.
 RESIDUAL_RS = 16e3
 RESIDUAL_LINKS = {
     # PCM/PM, NRZ-L data directly on the carrier at m = 1.1 rad: the residual carrier's dwell of periodograms
@@ -104,16 +103,16 @@ RESIDUAL_LINKS = {
 }
 
 
-def _transmitter(kind: str) -> tuple[dict, list[bytes]]:
+def _transmitter(kind: str, symbol_rate: float = RESIDUAL_RS) -> tuple[dict, list[bytes]]:
     """``(keyword arguments of pass_sim._decode_pass, packets sent)`` for the link ``kind`` on the LEO pass."""
     if kind == "bpsk":  # the suppressed-carrier Demodulator (pass_sim's own BPSK transmitter at 60 ksym/s)
         bits, packets = _frames_and_packets()
         return dict(bits=bits), packets
     wave, index, keys = RESIDUAL_LINKS[kind]
-    bits, packets = _frames_and_packets(RESIDUAL_RS)
-    sig = rs.transmit(bits.size, wave=wave, sample_rate_hz=pass_sim.FS, symbol_rate_baud=RESIDUAL_RS,
+    bits, packets = _frames_and_packets(symbol_rate)
+    sig = rs.transmit(bits.size, wave=wave, sample_rate_hz=pass_sim.FS, symbol_rate_baud=symbol_rate,
                       index_rad=index, esn0_db=12.0, bits=bits, lead_samples=200, seed=23)
-    return dict(baseband=sig.samples, link=f'symbol_rate = {RESIDUAL_RS}\npulse = "rect"\n{keys}'), packets
+    return dict(baseband=sig.samples, link=f'symbol_rate = {symbol_rate}\npulse = "rect"\n{keys}'), packets
 
 
 @pytest.mark.parametrize("kind", ["bpsk", *sorted(RESIDUAL_LINKS)])
@@ -156,6 +155,28 @@ def test_an_inverted_recording_is_found_at_the_mirrored_prediction_under_auto(tm
                                                receiver=receiver + "\nspectrum_inverted = false")
     assert upright_only.packets == 0 and "carrier_found_mirrored" not in upright_only.report["demod"]
     assert upright_only.no_lock is not None and "of the predicted carrier" in upright_only.no_lock
+
+
+def test_a_data_line_of_the_mirror_image_is_not_taken_for_the_carrier(tmp_path):
+    # Bi-phase-L BPSK at 20 ksym/s on the inverted pass: the mirror image's carrier lies 2 R_s (40 kHz) below the
+    # prediction's +20.8 kHz, so the 4th data line of its square (2f + 4 R_s, derived in
+    # tests/test_biphase_line_search.py) lies within the search around the prediction, and through the chip-long box
+    # centred there it passed the threshold: a false lock at +18.3 kHz, 17 of 46 packets.  The search declines it
+    # (the carrier whose data line it is shows a stronger line of its own), the mirror is searched, and every packet
+    # comes out, octet for octet
+    transmitter, packets = _transmitter("bpsk-biphase", 20e3)
+    receiver = f"[receiver]\nacquisition_range_hz = {NARROW_RANGE_HZ}"
+    rows, summary, out = pass_sim._decode_pass(tmp_path / "inverted", conjugate=True, receiver=receiver,
+                                               **transmitter, from_culmination_s=BEFORE_CULMINATION_S,
+                                               tuning_hz=TUNING_HZ)
+    assert summary.packets == len(packets) and summary.frames_failed == 0
+    for apid in (100, 200, 300):  # the octets of every packet, in order
+        sent = b"".join(p for p in packets if (int.from_bytes(p[:2], "big") & 0x7FF) == apid)
+        assert (out / f"apid_{apid:04d}.bin").read_bytes() == sent
+    assert summary.report["demod"]["carrier_found_mirrored"] == 1
+    # the Doppler with its true sign (sgp4 truth less the tuning offset, plus the oscillator's offset)
+    residual = np.array([float(r["residual_hz"]) for r in rows[2:]])
+    assert len(residual) >= 20 and abs(float(np.mean(residual)) - pass_sim.OSC_OFFSET_HZ) < 5.0
 
 
 # ---- the Demodulator on its own ----------------------------------------------------------------------------------

@@ -473,10 +473,15 @@ class ResidualCarrierDemodulator:
             bw = plan_loops(symbol_rate_baud=self.symbol_rate_baud, cn0_hz=float("nan"), data_to_carrier=1.0,
                             nrz_pm=False, since_s=0.0, fixed_carrier_hz=self.fixed_carrier_hz).carrier_hz
             wn = loop_gains(bw / fs, 2)[0] / (2.0 * _ZETA) * fs  # natural frequency, rad/s
+            # a line found is tested against the carriers it could be a data line of (at multiples of R_s / 2)
+            # through a half-chip box: measured on squared Bi-phase-L at 20 ksym/s, the carrier's own line then
+            # stands 12 dB over the strongest other, the chip-long box's only 5 dB
+            half_chip = np.ones(max(1, int(round(0.5 * self.chip_samples))), dtype=np.float64)
             self._search = CarrierSearch(sample_rate_hz=fs, power=2, prefilter=box / math.sqrt(box.size),
                                          template=manchester, occupied_hz=4.0 * link.symbol_rate_baud,
                                          search_hz=self.acquisition_search_hz, fine_hz=0.05 * link.symbol_rate_baud,
-                                         max_rate_hz_per_s=min(5000.0, 0.2 * wn * wn / (2.0 * math.pi)))
+                                         max_rate_hz_per_s=min(5000.0, 0.2 * wn * wn / (2.0 * math.pi)),
+                                         symbol_rate_hz=link.symbol_rate_baud, check_taps=half_chip)
             from pipeline.demod._acquire import LINE_THRESHOLD
 
             self.line_threshold_db = 10.0 * math.log10(LINE_THRESHOLD * math.log(2.0))
