@@ -754,3 +754,25 @@ def test_a_lock_without_a_find_forgets_the_blocks_released_unfound(monkeypatch):
     assert max(seen_history) > 0, "blocks were released unfound before the lock"
     assert d._state[0]["clock"] == 1 and not d._acquiring, "the loop locked by itself"
     assert d._history == [] and d._long_tried == 0
+
+
+@pytest.mark.parametrize("mod", ["bpsk", "qpsk"])
+def test_the_receiver_does_not_lock_on_a_data_line_of_a_carrier_outside_its_range(rng, mod):
+    # A carrier R_s / M from the searched range's centre (M = 2 BPSK, 4 QPSK) puts a data line of x^M (at M f +- R_s,
+    # tests/test_biphase_line_search.py) at 0, inside a narrow range that does not hold the carrier itself.  The
+    # receiver must report no lock there, not a carrier at 0 (before the search's data-line test it found one there
+    # and locked).  With the carrier inside the range it locks as always.  (RRC pulses: with rect pulses the
+    # unlocked loop itself can settle at that false-lock point, as a Costas loop does; see DEVELOPERS.md.)
+    pulse = "rrc"
+    m = 2 if mod == "bpsk" else 4
+    for offset, inside in ((RS / m + 300.0, False), (300.0, True)):
+        w = modulate(60000, modulation=mod, pulse=pulse, esn0_db=10.0, carrier_offset_hz=offset, phase_rad=0.3,
+                     rng=rng)
+        d = Demodulator(link=LinkSection(modulation=mod, pulse=pulse),
+                        receiver=ReceiverSection(acquisition_range_hz=4000.0), sample_rate_hz=FS)
+        soft, pos, locked, track = _run(d, w.samples)
+        if inside:
+            assert d.stats.carrier_found >= 1 and locked.mean() > 0.8
+        else:
+            assert d.stats.carrier_found == 0 and not locked.any(), (d.stats.carrier_found, locked.mean())
+            assert "no carrier lock in +-4000 Hz" in d.no_lock_message()

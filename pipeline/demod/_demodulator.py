@@ -669,7 +669,8 @@ class Demodulator:
             occupied = 2.0 * link.symbol_rate_baud  # the main lobe of sinc^2
         self._search = CarrierSearch(sample_rate_hz=fs, power=self._power, prefilter=self.taps, occupied_hz=occupied,
                                      search_hz=self.acquisition_search_hz,
-                                     fine_hz=_FINE_SEARCH * link.symbol_rate_baud, max_rate_hz_per_s=max_rate)
+                                     fine_hz=_FINE_SEARCH * link.symbol_rate_baud, max_rate_hz_per_s=max_rate,
+                                     symbol_rate_hz=link.symbol_rate_baud)
         self.line_threshold_db = 10.0 * math.log10(LINE_THRESHOLD * math.log(2.0))
         self.reset()
 
