@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -139,6 +140,17 @@ def band_limited(z: np.ndarray, n_d: int) -> np.ndarray:
     half = n_d // 2
     kept = np.concatenate([spec[:n_d - half], spec[n - half:]]).astype(np.complex128)
     return scipy.fft.ifft(kept, workers=1)
+
+
+@functools.lru_cache(maxsize=4)
+def _half_bin_probes(n: int) -> np.ndarray:
+    """``exp(-2 pi j d k / n)`` for ``d = -1, -0.5, 0, 0.5, 1`` and ``k < n`` (complex64, 5 rows, read-only): DFT
+    probes half a bin apart, from one complex exponential (the others are its square and conjugates)."""
+    half = np.exp(-1j * math.pi * np.arange(n) / n)
+    one = half * half
+    probes = np.stack([one.conj(), half.conj(), np.ones(n), half, one]).astype(np.complex64)
+    probes.flags.writeable = False
+    return probes
 
 
 def _decimated_times(n: int, n_d: int, sample_rate_hz: float) -> np.ndarray:
@@ -462,11 +474,14 @@ class CarrierSearch:
         """
         fs, m = self.sample_rate_hz, self.power
         n = x.size
-        t = (np.arange(n) - 0.5 * (n - 1)) / fs
-        # each line within a bin of where it should be: five probes half a bin apart (Hann scalloping <= 0.4 dB)
-        probes = (np.hanning(n) * np.exp(-1j * math.pi * m * rate_hz_per_s * t * t))[None, :] \
-            * np.exp(-2j * math.pi * np.array([-1.0, -0.5, 0.0, 0.5, 1.0])[:, None] * np.arange(n)[None, :] / n)
-        probes = probes.astype(np.complex64)
+        # each line within a bin of where it should be: five probes half a bin apart (Hann scalloping <= 0.4 dB),
+        # the same for every window of n samples; the window and the found Doppler rate's dechirp apply per call
+        probes = _half_bin_probes(n)
+        if rate_hz_per_s:
+            t = (np.arange(n) - 0.5 * (n - 1)) / fs
+            weight = (np.hanning(n) * np.exp(-1j * math.pi * m * rate_hz_per_s * t * t)).astype(np.complex64)
+        else:
+            weight = np.hanning(n).astype(np.complex64)
         taps = self._check_taps
         y = np.empty(n, dtype=np.complex64)
         u = np.zeros(n + taps.size - 1, dtype=np.complex64)
@@ -479,7 +494,8 @@ class CarrierSearch:
             z = y * y
             if m == 4:
                 z *= z
-            v = probes @ z
+            z *= weight
+            v = np.array([np.dot(p, z) for p in probes])  # row by row: numpy's complex64 matmul can be slow here
             power.append(float(np.max(v.real.astype(np.float64) ** 2 + v.imag.astype(np.float64) ** 2)))
         return orders[int(np.argmax(power))]
 
