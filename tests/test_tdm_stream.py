@@ -68,9 +68,18 @@ def test_no_rows_and_no_lock(tmp_path):
     w = TdmWriter(tmp_path / "a.tdm", **KEYS)
     w.process([{"utc": "2026-03-14T09:30:00Z", "carrier_offset_hz": 5.0, "locked": False}])
     assert w.lines == 0 and w.locked_rows == 0 and list(tmp_path.iterdir()) == []  # no body file opened
-    w.finish(integration_interval_s=1.0, creation_tai_ns=CREATED)
-    assert (tmp_path / "a.tdm").read_text() == format_tdm([], integration_interval_s=1.0, creation_tai_ns=CREATED,
-                                                          **KEYS)
+    # no data line, no message: a TDM holds at least one observation (minOccurs 1 in the CCSDS TDM XML schema,
+    # as ccsds-ndm's generated models carry it; tests/test_ndm_reference.py), and format_tdm refuses alike
+    assert w.finish(integration_interval_s=1.0, creation_tai_ns=CREATED) is None
+    assert list(tmp_path.iterdir()) == []
+    with pytest.raises(ValueError, match="Argument 'rows' must hold a locked row with a finite carrier offset"):
+        format_tdm([], integration_interval_s=1.0, creation_tai_ns=CREATED, **KEYS)
+    # locked rows without a finite offset give no data line either: the body file is removed, nothing is written
+    w.process([{"utc": "2026-03-14T09:30:01Z", "carrier_offset_hz": math.nan, "locked": True},
+               {"utc": "2026-03-14T09:30:02Z", "carrier_offset_hz": None, "locked": True}])
+    assert w.locked_rows == 2 and w.lines == 0
+    assert w.finish(integration_interval_s=1.0, creation_tai_ns=CREATED) is None
+    assert list(tmp_path.iterdir()) == []
     with pytest.raises(ValueError, match="Argument 'integration_interval_s' must be > 0"):
         TdmWriter(tmp_path / "b.tdm", **KEYS).finish(integration_interval_s=0.0)
     with pytest.raises(ValueError, match="Argument 'station'"):

@@ -23,7 +23,7 @@ import numpy as np
 
 from pipeline.errors import DataFileError
 from pipeline.orbit._earth import EARTH_ROTATION_RAD_S, inertial_to_earth_fixed, working_frame
-from pipeline.orbit._files import bracket_step, keyword_value, read_text_file
+from pipeline.orbit._files import bracket_step, keyword_value, read_text_file, refuse_xml
 from pipeline.timescales import NS_PER_S, tai_from_scale
 
 __all__ = ["Ephemeris", "EphemerisSegment", "parse_oem", "read_oem", "DEFAULT_HERMITE_POINTS"]
@@ -282,6 +282,7 @@ def parse_oem(text: str, *, source: str = "<text>", points: int = DEFAULT_HERMIT
         raise TypeError(f"Argument 'text' must be a string, not {type(text).__name__}.")
     if isinstance(points, bool) or not isinstance(points, int) or not 2 <= points <= 16:
         raise ValueError(f"Argument 'points' must be 2..16, not {points!r}.")
+    refuse_xml(text, source, "an Orbit Ephemeris Message")
     header: dict[str, str] = {}
     segments: list[EphemerisSegment] = []
     meta: dict[str, str] | None = None
