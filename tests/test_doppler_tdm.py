@@ -1,8 +1,10 @@
 """``doppler.tdm``: the decode's carrier track as a CCSDS Tracking Data Message (CCSDS 503.0-B-2).
 
 INTEGRATION_INTERVAL is the time over which each observable is averaged (the Doppler count time) and
-INTEGRATION_REF = MIDDLE puts each epoch in the middle of its interval (CCSDS 503.0-B-2 sec. 3.5, keyword
-meanings from memory, not confirmed: ../shared/REFERENCES.md has no TDM section).  The receiver averages
+INTEGRATION_REF = MIDDLE puts each epoch in the middle of its interval (CCSDS 503.0-B sec. 3.5; the keyword
+names, value types and enumerations are checked against ccsds-ndm's models generated from the CCSDS TDM
+XML schema in tests/test_ndm_reference.py, but their meanings stay from memory, not confirmed:
+../shared/REFERENCES.md has no TDM section, and the schema does not say them).  The receiver averages
 each track point over one processing block and the blocks tile the recording, so the epochs of consecutive
 points are one interval apart: that spacing is measured on the file itself, on a link whose block is longer
 than 32768 samples (more than 8 samples per symbol on the suppressed-carrier demodulator).

@@ -518,6 +518,19 @@ def test_oem_written_by_ccsds_ndm_read_by_us(tmp_path):
     assert eph.state(parse_utc("2026-03-14T09:36:30Z", assume_utc=True)) is None
 
 
+def test_oem_state_units_are_the_schemas_only_ones():
+    # ccsds-ndm 3.1.1 (OEM 2.0 models from the CCSDS NDM XML schemas): the units attribute of each state column
+    # allows one value, the unit our reader assumes (km, km/s, km/s**2; pipeline/orbit/_oem.py)
+    columns = _schema_fields(ndm2_common.StateVectorAccType)
+    units = {}
+    for name, (_, _, kind) in columns.items():
+        if name != "EPOCH":
+            (enum_type,) = [a for a in typing.get_args(typing.get_type_hints(kind)["units"]) if a is not type(None)]
+            units[name] = [u.value for u in enum_type]
+    assert units == {**{k: ["km"] for k in ("X", "Y", "Z")}, **{k: ["km/s"] for k in ("X_DOT", "Y_DOT", "Z_DOT")},
+                     **{k: ["km/s**2"] for k in ("X_DDOT", "Y_DDOT", "Z_DDOT")}}
+
+
 # standard OEMs our reader refuses on purpose (CCSDS 502.0-B allows them): one line, the file named, the reason
 REFUSED = {
     "centre": (dict(center_name="MOON"), "only Earth-centred"),

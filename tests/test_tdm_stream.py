@@ -1,7 +1,9 @@
 """``doppler.tdm`` written as the rows arrive (:class:`pipeline.orbit.TdmWriter`): constant memory on a live stream.
 
-The message's layout is :func:`pipeline.orbit.format_tdm`'s (CCSDS 503.0-B KVN; keywords from memory, not
-confirmed: ../shared/REFERENCES.md has no TDM section), which is the slow obvious reference here: the file
+The message's layout is :func:`pipeline.orbit.format_tdm`'s (CCSDS 503.0-B KVN; its keywords, their order
+and values are checked against ccsds-ndm's models generated from the CCSDS TDM XML schema in
+tests/test_ndm_reference.py; what the keywords mean stays from memory, not confirmed, as listed in
+pipeline/orbit/_tdm.py), which is the slow obvious reference here: the file
 written row by row, in any split, equals ``format_tdm`` of all the rows.  The epochs are checked against
 astropy's UTC (an outside reference), a leap second included.
 """

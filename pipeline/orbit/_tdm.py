@@ -2,8 +2,15 @@
 
 The writer puts a pass's one-way carrier track in one segment: the station receives what the spacecraft
 sends, so the signal path runs from participant 2 (the spacecraft) to participant 1 (the station).
-Keywords (CCSDS 503.0-B-1, sec. 3; every one **from memory, not confirmed**: ../shared/REFERENCES.md has
-no TDM section; check against the Blue Book before relying on them):
+Keywords (CCSDS 503.0-B-1, sec. 3; ``CCSDS_TDM_VERS = 1.0``).  Their names, their order, the value types,
+enumerations, patterns and bounds, and that a segment holds at least one data line are checked against
+ccsds-ndm's data models, generated from the CCSDS TDM 1.0 XML schema, line by line on the messages we
+write (tests/test_ndm_reference.py).  The schema does not settle a keyword's *meaning*, so these stay
+**from memory, not confirmed** (../shared/REFERENCES.md has no TDM section): that participant 1 is the
+station and ``PATH = 2,1`` the one-way path from 2 to 1, that ``RECEIVE_FREQ_1`` is the frequency received
+by participant 1 (in Hz: the schema gives no unit) and is the nominal frequency plus the measured offset
+(its sign convention), that ``INTEGRATION_REF = MIDDLE`` puts the epoch in the middle of the interval,
+``TIMETAG_REF = RECEIVE`` makes it the epoch of reception, and ``FREQ_OFFSET`` is added to every value:
 
 =========================  ===============================================================
 ``CCSDS_TDM_VERS``         header: format version (``1.0``)
