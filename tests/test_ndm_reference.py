@@ -40,11 +40,11 @@ from ccsds_ndm.models.ndmxml2 import ndmxml_2_0_0_common_2_0 as ndm2_common
 from ccsds_ndm.models.ndmxml2 import ndmxml_2_0_0_master_2_0 as ndm2_master
 from ccsds_ndm.models.ndmxml2 import ndmxml_2_0_0_oem_2_0 as ndm2_oem
 from ccsds_ndm.ndm_io import NdmIo
+from tdm_links import tdm_link_profile
 
 from pipeline import decode, simulate
 from pipeline.errors import DataFileError
 from pipeline.orbit import format_tdm, parse_tdm, read_oem, read_tdm
-from pipeline.profile import profile_from_dict
 from pipeline.timescales import format_utc, parse_utc, tai_from_scale
 
 DEMO_OEM = Path(__file__).resolve().parents[1] / "pipeline" / "data" / "tamarisk.oem"
@@ -247,26 +247,6 @@ def _check_observations_read(obj, tokens: list[tuple[str, str, str]]) -> None:
 FS = 250_000.0
 
 
-def _profile(*, modulation: str, symbol_rate: float, seconds: float):
-    link = {"modulation": modulation, "symbol_rate": symbol_rate, "line_code": "nrz-l",
-            "downlink_frequency_hz": 2.2455e9}  # the demo's invented S-band assignment
-    if modulation == "pcm-pm":
-        link.update({"pulse": "rect", "modulation_index": 1.1})
-    else:
-        link.update({"pulse": "rrc", "rolloff": 0.5})
-    return profile_from_dict({
-        "name": f"ndm-{modulation}",
-        "link": link,
-        "coding": {"convolutional": "none", "reed_solomon": 16, "interleave": 1, "randomizer": True},
-        "frames": {"kind": "tm", "length": 223, "fecf": False, "ocf": False, "spacecraft_id": 499},
-        "station": {"name": "HOLLOW RIDGE"},
-        "simulate": {"start": "2026-03-14T09:30:00Z", "sample_rate_hz": FS, "seconds": seconds, "ebn0_db": 9.0,
-                     "carrier_offset_hz": 1200.0, "doppler_rate_hz_per_s": 0.0, "timing_offset": 0.37,
-                     "clock_offset_ppm": 20.0, "seed": 11,
-                     "traffic": [{"apid": 100, "length": 120, "rate_hz": 10.0, "vcid": 0}]},
-    })
-
-
 # the suppressed-carrier demodulator (BPSK) and the residual-carrier one (PCM/PM): short recordings, each a few
 # locked track points
 LINKS = {"suppressed": dict(modulation="bpsk", symbol_rate=31_250.0, seconds=0.8),
@@ -276,7 +256,7 @@ LINKS = {"suppressed": dict(modulation="bpsk", symbol_rate=31_250.0, seconds=0.8
 @pytest.fixture(scope="module", params=sorted(LINKS))
 def decoded(request, tmp_path_factory):
     """(profile, output folder) of a decode of a simulated recording of the link."""
-    prof = _profile(**LINKS[request.param])
+    prof = tdm_link_profile(**LINKS[request.param], sample_rate_hz=FS)
     base = tmp_path_factory.mktemp(request.param)
     sim = simulate(prof, base / "sim")
     decode(sim.meta_path, prof, base / "out")
