@@ -1,8 +1,10 @@
 """``doppler.tdm``: the decode's carrier track as a CCSDS Tracking Data Message (CCSDS 503.0-B-2).
 
 INTEGRATION_INTERVAL is the time over which each observable is averaged (the Doppler count time) and
-INTEGRATION_REF = MIDDLE puts each epoch in the middle of its interval (CCSDS 503.0-B-2 sec. 3.5, keyword
-meanings from memory, not confirmed: ../shared/REFERENCES.md has no TDM section).  The receiver averages
+INTEGRATION_REF = MIDDLE puts each epoch in the middle of its interval (CCSDS 503.0-B sec. 3.5; the keyword
+names, value types and enumerations are checked against ccsds-ndm's models generated from the CCSDS TDM
+XML schema in tests/test_ndm_reference.py, but their meanings stay from memory, not confirmed:
+../shared/REFERENCES.md has no TDM section, and the schema does not say them).  The receiver averages
 each track point over one processing block and the blocks tile the recording, so the epochs of consecutive
 points are one interval apart: that spacing is measured on the file itself, on a link whose block is longer
 than 32768 samples (more than 8 samples per symbol on the suppressed-carrier demodulator).
@@ -14,32 +16,12 @@ import csv
 
 import numpy as np
 import pytest
+from tdm_links import tdm_link_profile
 
 from pipeline import decode, simulate
 from pipeline.orbit import read_tdm
-from pipeline.profile import profile_from_dict
 
 FS = 1_000_000.0
-
-
-def _profile(*, modulation: str, symbol_rate: float, seconds: float):
-    link = {"modulation": modulation, "symbol_rate": symbol_rate, "line_code": "nrz-l",
-            "downlink_frequency_hz": 2.2455e9}  # the demo's invented S-band assignment
-    if modulation == "pcm-pm":
-        link.update({"pulse": "rect", "modulation_index": 1.1})
-    else:
-        link.update({"pulse": "rrc", "rolloff": 0.5})
-    return profile_from_dict({
-        "name": f"tdm-{modulation}",
-        "link": link,
-        "coding": {"convolutional": "none", "reed_solomon": 16, "interleave": 1, "randomizer": True},
-        "frames": {"kind": "tm", "length": 223, "fecf": False, "ocf": False, "spacecraft_id": 499},
-        "station": {"name": "HOLLOW RIDGE"},
-        "simulate": {"start": "2026-03-14T09:30:00Z", "sample_rate_hz": FS, "seconds": seconds, "ebn0_db": 9.0,
-                     "carrier_offset_hz": 1200.0, "doppler_rate_hz_per_s": 0.0, "timing_offset": 0.37,
-                     "clock_offset_ppm": 20.0, "seed": 11,
-                     "traffic": [{"apid": 100, "length": 120, "rate_hz": 10.0, "vcid": 0}]},
-    })
 
 
 # blocks of the demodulators (DEVELOPERS.md): suppressed carrier max(32768, 2^ceil(log2(4096 T))), residual carrier
@@ -47,7 +29,7 @@ def _profile(*, modulation: str, symbol_rate: float, seconds: float):
 @pytest.mark.parametrize("modulation, symbol_rate, seconds, block", [("bpsk", 62_500.0, 1.3, 65536),
                                                                   ("pcm-pm", 5_000.0, 2.4, 65536)])
 def test_tdm_integration_interval_is_the_track_block_of_the_link(tmp_path, modulation, symbol_rate, seconds, block):
-    prof = _profile(modulation=modulation, symbol_rate=symbol_rate, seconds=seconds)
+    prof = tdm_link_profile(modulation=modulation, symbol_rate=symbol_rate, seconds=seconds, sample_rate_hz=FS)
     sim = simulate(prof, tmp_path / "sim")
     out = tmp_path / "out"
     decode(sim.meta_path, prof, out)

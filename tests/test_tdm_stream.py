@@ -1,7 +1,9 @@
 """``doppler.tdm`` written as the rows arrive (:class:`pipeline.orbit.TdmWriter`): constant memory on a live stream.
 
-The message's layout is :func:`pipeline.orbit.format_tdm`'s (CCSDS 503.0-B KVN; keywords from memory, not
-confirmed: ../shared/REFERENCES.md has no TDM section), which is the slow obvious reference here: the file
+The message's layout is :func:`pipeline.orbit.format_tdm`'s (CCSDS 503.0-B KVN; its keywords, their order
+and values are checked against ccsds-ndm's models generated from the CCSDS TDM XML schema in
+tests/test_ndm_reference.py; what the keywords mean stays from memory, not confirmed, as listed in
+pipeline/orbit/_tdm.py), which is the slow obvious reference here: the file
 written row by row, in any split, equals ``format_tdm`` of all the rows.  The epochs are checked against
 astropy's UTC (an outside reference), a leap second included.
 """
@@ -68,9 +70,18 @@ def test_no_rows_and_no_lock(tmp_path):
     w = TdmWriter(tmp_path / "a.tdm", **KEYS)
     w.process([{"utc": "2026-03-14T09:30:00Z", "carrier_offset_hz": 5.0, "locked": False}])
     assert w.lines == 0 and w.locked_rows == 0 and list(tmp_path.iterdir()) == []  # no body file opened
-    w.finish(integration_interval_s=1.0, creation_tai_ns=CREATED)
-    assert (tmp_path / "a.tdm").read_text() == format_tdm([], integration_interval_s=1.0, creation_tai_ns=CREATED,
-                                                          **KEYS)
+    # no data line, no message: a TDM holds at least one observation (minOccurs 1 in the CCSDS TDM XML schema,
+    # as ccsds-ndm's generated models carry it; tests/test_ndm_reference.py), and format_tdm refuses alike
+    assert w.finish(integration_interval_s=1.0, creation_tai_ns=CREATED) is None
+    assert list(tmp_path.iterdir()) == []
+    with pytest.raises(ValueError, match="Argument 'rows' must hold a locked row with a finite carrier offset"):
+        format_tdm([], integration_interval_s=1.0, creation_tai_ns=CREATED, **KEYS)
+    # locked rows without a finite offset give no data line either: the body file is removed, nothing is written
+    w.process([{"utc": "2026-03-14T09:30:01Z", "carrier_offset_hz": math.nan, "locked": True},
+               {"utc": "2026-03-14T09:30:02Z", "carrier_offset_hz": None, "locked": True}])
+    assert w.locked_rows == 2 and w.lines == 0
+    assert w.finish(integration_interval_s=1.0, creation_tai_ns=CREATED) is None
+    assert list(tmp_path.iterdir()) == []
     with pytest.raises(ValueError, match="Argument 'integration_interval_s' must be > 0"):
         TdmWriter(tmp_path / "b.tdm", **KEYS).finish(integration_interval_s=0.0)
     with pytest.raises(ValueError, match="Argument 'station'"):

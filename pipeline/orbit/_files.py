@@ -7,7 +7,7 @@ from pathlib import Path
 
 from pipeline.errors import DataFileError
 
-__all__ = ["read_text_file"]
+__all__ = ["read_text_file", "refuse_xml"]
 
 
 def read_text_file(path: str | os.PathLike, *, what: str, max_bytes: int, encoding: str = "utf-8") -> tuple[Path, str]:
@@ -55,3 +55,13 @@ def keyword_value(line: str, where: str) -> tuple[str, str]:
     if not eq or not key:
         raise DataFileError(f"{where}: expected 'KEYWORD = value', got {line[:60]!r}")
     return key, value
+
+
+def refuse_xml(text: str, source: str, what: str) -> None:
+    """:class:`DataFileError` naming ``source`` when ``text`` is a CCSDS message in its XML form.
+
+    The orbit package reads the key-value notation (KVN) only; an XML message (its first character ``<``)
+    would otherwise be refused at its first line as an unknown keyword.
+    """
+    if text.lstrip().startswith("<"):
+        raise DataFileError(f"{source}: {what} in XML form; only the key-value form (KVN) is read")

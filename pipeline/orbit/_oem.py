@@ -1,6 +1,8 @@
 """CCSDS Orbit Ephemeris Messages (502.0-B, the text key-value form): reading and Hermite interpolation.
 
-Keywords read (CCSDS 502.0-B-2 sec. 5; from memory, not confirmed: ../shared/REFERENCES.md has no ODM
+Keywords read (CCSDS 502.0-B-2 sec. 5; names, data-line columns and units checked against ccsds-ndm's
+models generated from the CCSDS OEM 2.0 XML schema in tests/test_ndm_reference.py; the meaning of
+``USEABLE_*`` and ``INTERPOLATION_DEGREE`` from memory, not confirmed: ../shared/REFERENCES.md has no ODM
 section): header ``CCSDS_OEM_VERS``, ``CREATION_DATE``, ``ORIGINATOR``, ``COMMENT``; per segment
 ``META_START`` ... ``META_STOP`` with ``OBJECT_NAME``, ``OBJECT_ID``, ``CENTER_NAME``, ``REF_FRAME``,
 ``REF_FRAME_EPOCH``, ``TIME_SYSTEM``, ``START_TIME``, ``USEABLE_START_TIME``, ``USEABLE_STOP_TIME``,
@@ -8,7 +10,8 @@ section): header ``CCSDS_OEM_VERS``, ``CREATION_DATE``, ``ORIGINATOR``, ``COMMEN
 z_dot [x_ddot y_ddot z_ddot]`` in km, km/s (km/s^2); ``COVARIANCE_START`` ... ``COVARIANCE_STOP`` blocks
 are skipped.  Epochs are ``YYYY-MM-DDThh:mm:ss[.d]`` or ``YYYY-DDDThh:mm:ss[.d]`` on ``TIME_SYSTEM``
 (UTC, TAI, TT, GPS or TDB).  Only Earth-centred ephemerides are used (``CENTER_NAME = EARTH``): another
-centre would need that body's ephemeris, which the pipeline does not carry.
+centre would need that body's ephemeris, which the pipeline does not carry.  The XML form is refused (one
+line naming the file); the other time systems and frames the standard allows are refused likewise.
 """
 
 from __future__ import annotations
@@ -23,7 +26,7 @@ import numpy as np
 
 from pipeline.errors import DataFileError
 from pipeline.orbit._earth import EARTH_ROTATION_RAD_S, inertial_to_earth_fixed, working_frame
-from pipeline.orbit._files import bracket_step, keyword_value, read_text_file
+from pipeline.orbit._files import bracket_step, keyword_value, read_text_file, refuse_xml
 from pipeline.timescales import NS_PER_S, tai_from_scale
 
 __all__ = ["Ephemeris", "EphemerisSegment", "parse_oem", "read_oem", "DEFAULT_HERMITE_POINTS"]
@@ -282,6 +285,7 @@ def parse_oem(text: str, *, source: str = "<text>", points: int = DEFAULT_HERMIT
         raise TypeError(f"Argument 'text' must be a string, not {type(text).__name__}.")
     if isinstance(points, bool) or not isinstance(points, int) or not 2 <= points <= 16:
         raise ValueError(f"Argument 'points' must be 2..16, not {points!r}.")
+    refuse_xml(text, source, "an Orbit Ephemeris Message")
     header: dict[str, str] = {}
     segments: list[EphemerisSegment] = []
     meta: dict[str, str] | None = None

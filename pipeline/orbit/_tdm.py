@@ -2,8 +2,15 @@
 
 The writer puts a pass's one-way carrier track in one segment: the station receives what the spacecraft
 sends, so the signal path runs from participant 2 (the spacecraft) to participant 1 (the station).
-Keywords (CCSDS 503.0-B-1, sec. 3; every one **from memory, not confirmed**: ../shared/REFERENCES.md has
-no TDM section; check against the Blue Book before relying on them):
+Keywords (CCSDS 503.0-B-1, sec. 3; ``CCSDS_TDM_VERS = 1.0``).  Their names, their order, the value types,
+enumerations, patterns and bounds, and that a segment holds at least one data line are checked against
+ccsds-ndm's data models, generated from the CCSDS TDM 1.0 XML schema, line by line on the messages we
+write (tests/test_ndm_reference.py).  The schema does not settle a keyword's *meaning*, so these stay
+**from memory, not confirmed** (../shared/REFERENCES.md has no TDM section): that participant 1 is the
+station and ``PATH = 2,1`` the one-way path from 2 to 1, that ``RECEIVE_FREQ_1`` is the frequency received
+by participant 1 (in Hz: the schema gives no unit) and is the nominal frequency plus the measured offset
+(its sign convention), that ``INTEGRATION_REF = MIDDLE`` puts the epoch in the middle of the interval,
+``TIMETAG_REF = RECEIVE`` makes it the epoch of reception, and ``FREQ_OFFSET`` is added to every value:
 
 =========================  ===============================================================
 ``CCSDS_TDM_VERS``         header: format version (``1.0``)
@@ -12,13 +19,13 @@ no TDM section; check against the Blue Book before relying on them):
 ``COMMENT``                free text (header, metadata, data)
 ``META_START/META_STOP``   bracket the metadata of a segment
 ``TIME_SYSTEM``            the scale of every epoch in the segment (``UTC``)
-``START_TIME/STOP_TIME``   first and last data epoch (optional)
+``START_TIME/STOP_TIME``   first and last data epoch
 ``PARTICIPANT_1``, ``_2``  the station and the spacecraft
 ``MODE``                   ``SEQUENTIAL`` (one signal path)
 ``PATH``                   ``2,1``: from participant 2 to participant 1 (one-way downlink)
+``TIMETAG_REF``            the epoch is that of reception: ``RECEIVE``
 ``INTEGRATION_INTERVAL``   seconds each observable averages
 ``INTEGRATION_REF``        where in the interval the epoch lies: ``MIDDLE``
-``TIMETAG_REF``            the epoch is that of reception: ``RECEIVE``
 ``FREQ_OFFSET``            Hz added to every ``RECEIVE_FREQ`` value (0: full frequencies are written)
 ``DATA_START/DATA_STOP``   bracket the data lines
 ``RECEIVE_FREQ_1``         data: ``epoch value``, the frequency (Hz) received by participant 1
@@ -36,7 +43,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from pipeline.errors import DataFileError
-from pipeline.orbit._files import bracket_step, keyword_value, read_text_file
+from pipeline.orbit._files import bracket_step, keyword_value, read_text_file, refuse_xml
 from pipeline.timescales import format_utc, parse_utc, tai_from_scale
 
 __all__ = ["TrackingData", "TrackingSegment", "TdmWriter", "format_tdm", "write_tdm", "parse_tdm", "read_tdm"]
@@ -120,7 +127,7 @@ def _data_line(tai_ns: int, frequency_hz: float) -> str:
 _TAIL = "DATA_STOP\n"
 
 
-def _head(*, first_tai_ns: int | None, last_tai_ns: int | None, spacecraft: str, station: str,
+def _head(*, first_tai_ns: int, last_tai_ns: int, spacecraft: str, station: str,
           integration_interval_s: float, originator: str, creation_tai_ns: int | None, comment: str | None) -> str:
     """Header and metadata up to and including ``DATA_START`` (with its newline)."""
     if creation_tai_ns is None:
@@ -137,17 +144,16 @@ def _head(*, first_tai_ns: int | None, last_tai_ns: int | None, spacecraft: str,
               "",
               "META_START",
               "COMMENT one-way carrier track: received frequency = nominal downlink frequency + measured offset",
-              "TIME_SYSTEM = UTC"]
-    if first_tai_ns is not None:
-        lines += [f"START_TIME = {format_utc(first_tai_ns, zone=False)}",
-                  f"STOP_TIME = {format_utc(last_tai_ns, zone=False)}"]
-    lines += [f"PARTICIPANT_1 = {station.strip()}",
+              "TIME_SYSTEM = UTC",
+              f"START_TIME = {format_utc(first_tai_ns, zone=False)}",
+              f"STOP_TIME = {format_utc(last_tai_ns, zone=False)}",
+              f"PARTICIPANT_1 = {station.strip()}",
               f"PARTICIPANT_2 = {spacecraft.strip()}",
               "MODE = SEQUENTIAL",
               "PATH = 2,1",
+              "TIMETAG_REF = RECEIVE",
               f"INTEGRATION_INTERVAL = {integration_interval_s:.9g}",
               "INTEGRATION_REF = MIDDLE",
-              "TIMETAG_REF = RECEIVE",
               "FREQ_OFFSET = 0.0",
               "META_STOP",
               "",
@@ -187,6 +193,13 @@ def format_tdm(rows: Iterable[dict], *, spacecraft: str, station: str, downlink_
         a leap second), frequencies in Hz with 6 decimals.  :class:`TdmWriter` writes the same text as the
         rows arrive.
 
+    Raises
+    ------
+    ValueError
+        No row is locked with a finite offset: the message would have no data line, and a TDM's data
+        section holds at least one observation (``minOccurs="1"`` in the CCSDS TDM XML schema, as the
+        models of ccsds-ndm carry it; checked in tests/test_ndm_reference.py).
+
     Examples
     --------
     >>> rows = [{"utc": "2026-03-14T09:30:00.016384Z", "carrier_offset_hz": 2301.5, "locked": True}]
@@ -199,7 +212,10 @@ def format_tdm(rows: Iterable[dict], *, spacecraft: str, station: str, downlink_
     ti = _check_interval(integration_interval_s)
     _check_names(spacecraft=spacecraft, station=station, originator=originator)
     data = [obs for obs in (_observation(row, f, tuning_offset_hz) for row in rows) if obs is not None]
-    head = _head(first_tai_ns=data[0][0] if data else None, last_tai_ns=data[-1][0] if data else None,
+    if not data:
+        raise ValueError("Argument 'rows' must hold a locked row with a finite carrier offset (a Tracking Data "
+                         "Message has at least one data line), not none.")
+    head = _head(first_tai_ns=data[0][0], last_tai_ns=data[-1][0],
                  spacecraft=spacecraft, station=station, integration_interval_s=ti, originator=originator,
                  creation_tai_ns=creation_tai_ns, comment=comment)
     return head + "".join(_data_line(t, value) for t, value in data) + _TAIL
@@ -297,17 +313,23 @@ class TdmWriter:
         self.close()
         self.body_path.unlink(missing_ok=True)
 
-    def finish(self, *, integration_interval_s: float, creation_tai_ns: int | None = None) -> Path:
-        """Write the whole message to :attr:`path` (header, the body, ``DATA_STOP``); returns the path."""
+    def finish(self, *, integration_interval_s: float, creation_tai_ns: int | None = None) -> Path | None:
+        """Write the whole message to :attr:`path` (header, the body, ``DATA_STOP``); returns the path.
+
+        With no data line (no row locked with a finite offset) no message is written, since a TDM holds at
+        least one observation (as :func:`format_tdm` refuses): the body is removed and None returned.
+        """
         ti = _check_interval(integration_interval_s)
+        if not self.lines:
+            self.discard()
+            return None
         self.close()
         part = self.path.with_name(self.path.name + ".partial")
         with open(part, "w", encoding="ascii") as out:
             out.write(_head(first_tai_ns=self.first_tai_ns, last_tai_ns=self.last_tai_ns, integration_interval_s=ti,
                             creation_tai_ns=creation_tai_ns, **self._names))
-            if self.lines:
-                with open(self.body_path, encoding="ascii") as body:
-                    shutil.copyfileobj(body, out)
+            with open(self.body_path, encoding="ascii") as body:
+                shutil.copyfileobj(body, out)
             out.write(_TAIL)
         os.replace(part, self.path)
         self.discard()
@@ -337,6 +359,7 @@ def parse_tdm(text: str, *, source: str = "<text>") -> TrackingData:
     """
     if not isinstance(text, str):
         raise TypeError(f"Argument 'text' must be a string, not {type(text).__name__}.")
+    refuse_xml(text, source, "a Tracking Data Message")
     header: dict[str, str] = {}
     segments: list[TrackingSegment] = []
     seg: TrackingSegment | None = None
