@@ -502,7 +502,8 @@ class _TrackFolderSinks(FolderSinks):
                 raise self._error(exc) from None
 
     def finish_tdm(self, integration_interval_s: float | None) -> None:
-        """Write ``doppler.tdm`` when locked rows came (and the interval is known); else remove its body."""
+        """Write ``doppler.tdm`` when a data line came (a locked row with a finite offset; the interval known);
+        else remove its body (:meth:`pipeline.orbit.TdmWriter.finish` writes no message without a data line)."""
         if self.tdm is None:
             return
         try:
