@@ -77,3 +77,34 @@ def test_doppler_rows(tmp_path):
     with pytest.raises(ValueError, match="Argument 'downlink_frequency_hz'"):
         doppler_rows(tps, _utc, downlink_frequency_hz=-1.0)
     assert math.isfinite(rows[0]["sample_position"])
+
+
+def test_doppler_rows_through_a_leap_second_read_23_59_60():
+    # The decode chain hands doppler_rows its ErtClock, whose received_tai_ns gives TAI: rows inside the leap second
+    # at the end of 2016 read 23:59:60.x, in order, as astropy formats the same TAI instants (an independent
+    # implementation of UTC with its own leap-second table; IERS Bulletin C 52 announced that leap second).  The
+    # POSIX count has no 61st second, so formatting it gave 23:59:59.999999999 for every row in there.
+    from astropy import units
+    from astropy.time import Time
+
+    import pipeline
+    from pipeline.chain import ErtClock
+    from pipeline.timescales import parse_utc
+
+    t0 = parse_utc("2016-12-31T23:59:58Z")
+
+    class Start:  # a recording at 1 Msample/s starting at t0 (TAI ns since 1958)
+        def tai_ns(self, position):
+            return t0 + round(position * 1000)
+
+    clock = ErtClock(Start(), pipeline.load_profile(pipeline.demo_profile_path()), 1e6)
+    positions = [250_000.0 * k for k in range(17)]  # 0 .. 4 s, every 0.25 s
+    tps = [TrackPoint(p, 100.0, 7.0, True, True) for p in positions]
+    got = [r["utc"] for r in doppler_rows(tps, clock, 2.2455e9)]
+    assert got[8:12] == ["2016-12-31T23:59:60.000000000Z", "2016-12-31T23:59:60.250000000Z",
+                         "2016-12-31T23:59:60.500000000Z", "2016-12-31T23:59:60.750000000Z"]
+    assert len(set(got)) == len(got) and got[12] == "2017-01-01T00:00:00.000000000Z"
+    tai_1958 = Time("1958-01-01T00:00:00", scale="tai")
+    for p, text in zip(positions, got):
+        ref = (tai_1958 + (clock.received_tai_ns(p) / 1e9) * units.s).utc
+        assert ref.isot[:23] == text[:23], (ref.isot, text)

@@ -50,8 +50,11 @@ def doppler_rows(track_points: Iterable[Any], utc_ns: Callable[[float], int] | A
     track_points : iterable of TrackPoint
         From :class:`ResidualCarrierDemodulator` (with ``carrier_std_hz``) or the suppressed-carrier
         :class:`pipeline.demod.Demodulator` (then the std is ``None``).
-    utc_ns : callable or object with ``utc_ns``
-        Sample position -> integer UTC nanoseconds (``Recording.utc_ns``).
+    utc_ns : callable or object with ``utc_ns`` or ``received_tai_ns``
+        Sample position -> integer UTC nanoseconds (POSIX count, ``Recording.utc_ns``), or an object whose
+        ``received_tai_ns(position)`` gives TAI nanoseconds (:class:`pipeline.chain.ErtClock`): then the
+        ``utc`` text is formatted from TAI, and an instant in a leap second reads ``23:59:60.x`` (the POSIX
+        count has no such second: its rows there would all read ``23:59:59.999999999``).
     downlink_frequency_hz : float, optional
         Nominal downlink carrier frequency ``f``; when given, the range rate is added.
     tuning_offset_hz : float
@@ -73,9 +76,17 @@ def doppler_rows(track_points: Iterable[Any], utc_ns: Callable[[float], int] | A
     spacecraft oscillator is on its nominal frequency (a one-way link).
     """
     from pipeline.packets import format_ert
+    from pipeline.timescales import format_utc
 
+    to_tai = getattr(utc_ns, "received_tai_ns", None)
     to_ns = getattr(utc_ns, "utc_ns", utc_ns)
-    if not callable(to_ns):
+    if to_tai is not None:
+        def text(pos: float) -> str:
+            return format_utc(int(to_tai(pos)))
+    elif callable(to_ns):
+        def text(pos: float) -> str:
+            return format_ert(int(to_ns(pos)))
+    else:
         raise TypeError(f"Argument 'utc_ns' must be callable or have a 'utc_ns' method, not {type(utc_ns).__name__}.")
     if downlink_frequency_hz is not None:
         f = float(downlink_frequency_hz)
@@ -89,7 +100,7 @@ def doppler_rows(track_points: Iterable[Any], utc_ns: Callable[[float], int] | A
         std = getattr(tp, "carrier_std_hz", None)
         std = float(std) if std is not None and math.isfinite(float(std)) else None
         row = {
-            "utc": format_ert(int(to_ns(pos))),
+            "utc": text(pos),
             "sample_position": round(pos, 3),
             "carrier_offset_hz": round(off, 6) if math.isfinite(off) else None,
             "carrier_std_hz": None if std is None else round(std, 6),
