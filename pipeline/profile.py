@@ -697,6 +697,10 @@ def _validate(p: LinkProfile, source: str) -> None:
                f"interleave {C.interleave}, not {F.length}")
         _check(F.length > 2 * C.reed_solomon * 0 + C.interleave, source, "[frames] length too short for RS")
     _check(R.carrier_loop_bandwidth_hz >= 0, source, "[receiver] carrier_loop_bandwidth_hz must be >= 0")
+    # both receivers refuse a loop as wide as 5 % of the symbol rate (B_L T << 1: the loop gains' approximation)
+    _check(R.carrier_loop_bandwidth_hz < 0.05 * L.symbol_rate_baud, source,
+           f"[receiver] carrier_loop_bandwidth_hz must be below 5 % of the symbol rate "
+           f"({0.05 * L.symbol_rate_baud:g} Hz), not {R.carrier_loop_bandwidth_hz:g}")
     _check(R.carrier_loop_order in (2, 3), source,
            f"[receiver] carrier_loop_order must be 2 or 3, not {R.carrier_loop_order}")
     lo, hi = TIMING_LOOP_BANDWIDTH_RANGE

@@ -87,6 +87,10 @@ def test_virtual_fill_from_length():
         ({"receiver": {"spectrum_inverted": "yes"}}, 'spectrum_inverted must be true, false or "auto", not \'yes\''),
         ({"receiver": {"timing_loop_bandwidth": 0.09}}, "timing_loop_bandwidth must be 1e-05..0.05"),
         ({"receiver": {"timing_loop_bandwidth": 0.0}}, "timing_loop_bandwidth must be 1e-05..0.05"),
+        # README's [receiver] table: "below 5 % of the symbol rate", checked when the file is loaded (it was
+        # refused only by the receiver: 'downlink inspect' stopped with an internal error, exit 70)
+        ({"link": {"symbol_rate": 240000.0}, "receiver": {"carrier_loop_bandwidth_hz": 12000.0}},
+         "carrier_loop_bandwidth_hz must be below 5 % of the symbol rate (12000 Hz), not 12000"),
     ],
 )
 def test_out_of_range_values_name_the_key(data, fragment):
@@ -96,6 +100,13 @@ def test_out_of_range_values_name_the_key(data, fragment):
     assert msg.startswith("p.toml: ")
     assert fragment in msg
     assert "\n" not in msg
+
+
+def test_carrier_loop_bandwidth_just_below_the_receivers_limit_loads():
+    # the receivers' own bound (pipeline.demod: B_L / symbol rate < 0.05) is the profile's: just below it loads
+    p = profile_from_dict(_full({"link": {"symbol_rate": 240000.0},
+                                 "receiver": {"carrier_loop_bandwidth_hz": 11999.0}}))
+    assert p.receiver.carrier_loop_bandwidth_hz == 11999.0
 
 
 def test_convolutional_g2_inverted_key():

@@ -257,3 +257,22 @@ def test_refuses_to_overwrite_and_bad_arguments(tmp_path):
         simulate(prof, tmp_path / "y", seconds=0.0)
     with pytest.raises(TypeError, match="Argument 'fades'"):
         simulate(prof, tmp_path / "z", fades=[(1.0, 2.0)])
+
+
+def test_a_profile_the_simulator_cannot_make_is_bad_input(tmp_path, capsys):
+    # README: a profile value that cannot be used is one 'Error:' line and exit 3; an AOS profile with FHEC
+    # (valid for decoding, CCSDS 732.0-B sec. 4.1.2.6) stopped 'downlink simulate' with an internal error (70)
+    from pipeline.cli import main
+    from pipeline.errors import ProfileError
+
+    fhec = _profile(kind="aos", length=478, rs=8, interleave=2).with_changes(frames={"fhec": True})
+    with pytest.raises(ProfileError, match="fhec = true: the simulator does not generate"):
+        simulate(fhec, tmp_path / "a")
+    toml = tmp_path / "aos.toml"
+    toml.write_text('[link]\n[coding]\nreed_solomon = 8\ninterleave = 2\n'
+                    '[frames]\nkind = "aos"\nlength = 478\nfhec = true\nspacecraft_id = 5\n')
+    capsys.readouterr()
+    assert main(["simulate", "--profile", str(toml), "--out", str(tmp_path / "b"), "--seconds", "0.1"]) == 3
+    err = capsys.readouterr().err
+    assert err.startswith("Error: ") and "fhec" in err and err.count("\n") == 1
+    assert not (tmp_path / "b").exists()

@@ -21,6 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
+from pipeline.errors import ProfileError
 from pipeline.profile import LinkProfile
 from pipeline.sim._channel import Channel, DopplerPass, Fade, noise_variance_per_sample
 from pipeline.sim._coding import ChannelCoder, NrzmPosition
@@ -222,6 +223,10 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
 
     if not isinstance(profile, LinkProfile):
         raise TypeError(f"Argument 'profile' must be a LinkProfile, not {type(profile).__name__}.")
+    if profile.frames.kind == "aos" and profile.frames.fhec:
+        # a valid profile the simulator cannot make: the user's input, not a bug (the CLI's exit 3, not 70)
+        raise ProfileError(f"{profile.name}: [frames] fhec = true: the simulator does not generate the AOS frame "
+                           f"header error control (simulate the link with fhec = false)")
     S = profile.simulate
     seconds = _check_number("seconds", _pick(seconds, S.seconds))
     if seconds <= 0:
