@@ -353,6 +353,8 @@ class LinkProfile:
     station: StationSection = field(default_factory=StationSection)
     clock: ClockSection | None = None
     name: str = "profile"
+    #: Where the profile came from, for error messages: the file it was read from, else its name.
+    source: str = field(default="profile", compare=False)
 
     # ---- derived sizes -------------------------------------------------------------------
     @property
@@ -503,7 +505,8 @@ def profile_from_dict(data: dict, *, source: str = "<dict>", name: str = "profil
         sections["clock"] = _build_section(ClockSection, data["clock"], "clock", source)
     sections["packets"] = _build_packets(data.get("packets", {}), source)
     sections["simulate"] = _build_simulate(data.get("simulate", {}), source)
-    prof = LinkProfile(name=str(data.get("name", name)), **sections)
+    prof_name = str(data.get("name", name))
+    prof = LinkProfile(name=prof_name, source=prof_name if source == "<dict>" else str(source), **sections)
     _validate(prof, source)
     return prof
 

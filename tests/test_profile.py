@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 
 import pytest
 
@@ -406,3 +407,23 @@ def test_turbo_sizes_agree_with_the_codec():
             p, code = _turbo(rate, k), TurboCode(rate=rate, k=k)
             assert (p.codeblock_bits, p.marker_bits, p.frames.length) == (code.n, 8 * len(TURBO_ASMS[rate]),
                                                                           code.frame_octets)
+
+
+def test_errors_found_after_loading_name_the_profile_file(tmp_path):
+    # A profile valid on its own that a later step cannot use (no station position for an orbit's light time and
+    # Doppler) is refused naming the file it came from, as every error at loading does; a profile built from a dict
+    # is named by its name.
+    from pipeline.orbit import GroundStation
+
+    text = demo_profile_path().read_text()
+    cut = "\n".join(line for line in text.splitlines() if not line.startswith(("latitude_deg", "longitude_deg")))
+    path = tmp_path / "no-position.toml"
+    path.write_text(cut)
+    prof = load_profile(path)
+    assert prof.source == str(path) and not prof.station.has_position
+    with pytest.raises(ValueError, match=f"^{re.escape(str(path))}: \\[station\\] needs latitude_deg"):
+        GroundStation.from_profile(prof)
+    assert prof.with_changes(coding={"interleave": 5}).source == str(path)
+    from pipeline.profile import tomllib  # the stdlib's, or tomli before Python 3.11
+
+    assert profile_from_dict(tomllib.loads(cut)).source == prof.name  # from a dict: its name

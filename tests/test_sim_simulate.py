@@ -274,5 +274,5 @@ def test_a_profile_the_simulator_cannot_make_is_bad_input(tmp_path, capsys):
     capsys.readouterr()
     assert main(["simulate", "--profile", str(toml), "--out", str(tmp_path / "b"), "--seconds", "0.1"]) == 3
     err = capsys.readouterr().err
-    assert err.startswith("Error: ") and "fhec" in err and err.count("\n") == 1
+    assert err.startswith(f"Error: {toml}: ") and "fhec" in err and err.count("\n") == 1  # names the file
     assert not (tmp_path / "b").exists()

@@ -183,7 +183,7 @@ class FrontEnd:
                 self.demod = make_demodulator(link=profile.link, receiver=rx, sample_rate_hz=float(sample_rate_hz),
                                               carrier_prediction=carrier_prediction)
             except ValueError as exc:  # a link the demodulators cannot serve at this sample rate
-                raise ProfileError(f"{profile.name}: {exc}") from None
+                raise ProfileError(f"{profile.source}: {exc}") from None
         # Bi-phase-L is removed inside the demodulator (half-symbol integration); what is left is NRZ-L.
         line_code = "nrz-l" if profile.link.line_code == "bi-phase-l" else profile.link.line_code
         self.line = LineDecoder(line_code=line_code)

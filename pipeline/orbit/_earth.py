@@ -237,7 +237,7 @@ class GroundStation:
         """The ``[station]`` section of a profile (ValueError when it has no position)."""
         st = profile.station
         if not st.has_position:
-            raise ValueError(f"{profile.name}: [station] needs latitude_deg and longitude_deg for light time and "
+            raise ValueError(f"{profile.source}: [station] needs latitude_deg and longitude_deg for light time and "
                              f"predicted Doppler from an orbit")
         return cls(st.name or "STATION", float(st.latitude_deg), float(st.longitude_deg), float(st.altitude_m))
 

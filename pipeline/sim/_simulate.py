@@ -225,7 +225,7 @@ def simulate(profile: LinkProfile, out_dir, *, seconds: float | None = None, ebn
         raise TypeError(f"Argument 'profile' must be a LinkProfile, not {type(profile).__name__}.")
     if profile.frames.kind == "aos" and profile.frames.fhec:
         # a valid profile the simulator cannot make: the user's input, not a bug (the CLI's exit 3, not 70)
-        raise ProfileError(f"{profile.name}: [frames] fhec = true: the simulator does not generate the AOS frame "
+        raise ProfileError(f"{profile.source}: [frames] fhec = true: the simulator does not generate the AOS frame "
                            f"header error control (simulate the link with fhec = false)")
     S = profile.simulate
     seconds = _check_number("seconds", _pick(seconds, S.seconds))

@@ -180,7 +180,7 @@ def pair_time_packets(frames: list[dict], packets: list[dict], profile: LinkProf
     """
     c = profile.clock
     if c is None:
-        raise ProfileError(f"{profile.name}: the profile has no [clock] section (time packet APID, time code, "
+        raise ProfileError(f"{profile.source}: the profile has no [clock] section (time packet APID, time code, "
                            f"sampled frames)")
     scid = profile.frames.spacecraft_id
     frames = sorted((f for f in frames if f.get("scid") in (None, scid) or f.get("status") not in _GOOD),
