@@ -142,13 +142,16 @@ def band_limited(z: np.ndarray, n_d: int) -> np.ndarray:
     return scipy.fft.ifft(kept, workers=1)
 
 
-@functools.lru_cache(maxsize=4)
-def _half_bin_probes(n: int) -> np.ndarray:
-    """``exp(-2 pi j d k / n)`` for ``d = -1, -0.5, 0, 0.5, 1`` and ``k < n`` (complex64, 5 rows, read-only): DFT
-    probes half a bin apart, from one complex exponential (the others are its square and conjugates)."""
-    half = np.exp(-1j * math.pi * np.arange(n) / n)
-    one = half * half
-    probes = np.stack([one.conj(), half.conj(), np.ones(n), half, one]).astype(np.complex64)
+@functools.lru_cache(maxsize=8)
+def _half_bin_probes(n: int, block: int) -> np.ndarray:
+    """DFT probes of a length-``n`` window at ``d = -1, -0.5, 0, 0.5, 1`` bins, applied to its sums over blocks of
+    ``block`` samples (complex64, 5 rows of ``n / block``, read-only): ``exp(-2 pi j d c / n)`` at each block's
+    centre ``c``.  Within a bin of 0 Hz a block sum passes a line to within ``(pi / (n / block))^2 / 6`` and
+    stops the others it could fold there to ``block / n`` in amplitude (its nulls lie at multiples of
+    ``1 / block`` cycles per sample), so the probes see the window's spectrum there as the full sums would."""
+    centre = np.arange(n // block) * block + 0.5 * (block - 1)
+    d = np.array([-1.0, -0.5, 0.0, 0.5, 1.0])
+    probes = np.exp(-2j * math.pi * d[:, None] * centre[None, :] / n).astype(np.complex64)
     probes.flags.writeable = False
     return probes
 
@@ -476,7 +479,9 @@ class CarrierSearch:
         n = x.size
         # each line within a bin of where it should be: five probes half a bin apart (Hann scalloping <= 0.4 dB),
         # the same for every window of n samples; the window and the found Doppler rate's dechirp apply per call
-        probes = _half_bin_probes(n)
+        block = max(1, n // 4096)  # the probes on block sums: at most 4096 per window (see _half_bin_probes)
+        n_b = n // block
+        probes = _half_bin_probes(n, block)
         if rate_hz_per_s:
             t = (np.arange(n) - 0.5 * (n - 1)) / fs
             weight = (np.hanning(n) * np.exp(-1j * math.pi * m * rate_hz_per_s * t * t)).astype(np.complex64)
@@ -495,7 +500,8 @@ class CarrierSearch:
             if m == 4:
                 z *= z
             z *= weight
-            v = np.array([np.dot(p, z) for p in probes])  # row by row: numpy's complex64 matmul can be slow here
+            zb = z[:n_b * block].reshape(n_b, block).sum(axis=1)
+            v = np.array([np.dot(p, zb) for p in probes])  # row by row: numpy's complex64 matmul can be slow here
             power.append(float(np.max(v.real.astype(np.float64) ** 2 + v.imag.astype(np.float64) ** 2)))
         return orders[int(np.argmax(power))]
 
