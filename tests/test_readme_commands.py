@@ -32,14 +32,13 @@ from typing import get_args
 
 import numpy as np
 import pytest
-import tomllib
 
 from pipeline import decode, load_profile, simulate
 from pipeline.cli import build_parser
 from pipeline.errors import ProfileError
 from pipeline.link import FRAME_STATUSES, CountAnomaly, FrameParser
 from pipeline.packets import ClockModel
-from pipeline.profile import demo_profile_path, profile_from_dict
+from pipeline.profile import demo_profile_path, profile_from_dict, tomllib  # stdlib's, or tomli before 3.11
 from pipeline.report import RunFacts, build_report
 from pipeline.timescales import parse_utc
 
