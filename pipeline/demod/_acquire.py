@@ -156,6 +156,14 @@ def _half_bin_probes(n: int, block: int) -> np.ndarray:
     return probes
 
 
+@functools.lru_cache(maxsize=4)
+def _hann64(n: int) -> np.ndarray:
+    """``numpy.hanning(n)`` as complex64, read-only (the data-line test's window)."""
+    w = np.hanning(n).astype(np.complex64)
+    w.flags.writeable = False
+    return w
+
+
 def _decimated_times(n: int, n_d: int, sample_rate_hz: float) -> np.ndarray:
     """Times (s, from the window's centre) of :func:`band_limited`'s ``n_d`` samples of ``n``."""
     return (np.arange(n_d) * (n / n_d) - 0.5 * (n - 1)) / sample_rate_hz
@@ -482,11 +490,10 @@ class CarrierSearch:
         block = max(1, n // 4096)  # the probes on block sums: at most 4096 per window (see _half_bin_probes)
         n_b = n // block
         probes = _half_bin_probes(n, block)
+        weight = _hann64(n)
         if rate_hz_per_s:
             t = (np.arange(n) - 0.5 * (n - 1)) / fs
-            weight = (np.hanning(n) * np.exp(-1j * math.pi * m * rate_hz_per_s * t * t)).astype(np.complex64)
-        else:
-            weight = np.hanning(n).astype(np.complex64)
+            weight = weight * np.exp(-1j * math.pi * m * rate_hz_per_s * t * t).astype(np.complex64)
         taps = self._check_taps
         y = np.empty(n, dtype=np.complex64)
         u = np.zeros(n + taps.size - 1, dtype=np.complex64)
