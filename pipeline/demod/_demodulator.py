@@ -212,6 +212,8 @@ class DemodStats:
             return text + ": no acquisition could be tried (recording too short)"
         if line.kind == "band":
             return f"{text}: no signal band stood out of the noise ({line.describe()})"
+        if line.kind == "CW tone":
+            return f"{text}: {line.describe()} (a tone in the samples themselves, not a suppressed carrier: ignored)"
         return f"{text}: {line.describe()} ({self.line_threshold_db:.1f} dB needed)"
 
 
