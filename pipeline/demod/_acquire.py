@@ -204,7 +204,7 @@ def _tone_q(y: np.ndarray, ym: np.ndarray, power: int, offset_hz: float, rate_hz
     ``offset_hz`` from ``y``'s centre, Doppler rate ``rate_hz_per_s``) and by ``M`` times it.  For a CW tone
     ``A e^(j phi(t))`` in circular noise both are unbiased, ``E a_1 = A`` and ``E a_M = A^M`` (the noise's
     ``E n^2 = E n^4 = 0``), so the ratio is 1 whatever the tone's level (measured 0.94-1.02 from -10 to +30 dB
-    over the noise, tests/test_biphase_line_search.py); for a suppressed-carrier signal ``a_M`` comes from the
+    over the noise, tests/test_acquisition_tones.py); for a suppressed-carrier signal ``a_M`` comes from the
     modulation and ``a_1`` from the carrier leakage alone: 3.7-8 for BPSK leaking -10 dB of its power as
     carrier, 30 and more at -20 dB, thousands without leakage; QPSK 15 and more.  Cost: two weighted sums.
     """
@@ -295,6 +295,12 @@ class CarrierSearch:
     the found Doppler rate, the best of five probes within a bin), and the line is the carrier's only if
     ``k = 0`` gives the strongest; else ``found`` is False and ``data_line`` True.  Cost, only when a line
     is found: ``2 K + 1`` rotations, filters and ``M``-th powers of the window and 5 dot products each.
+
+    **CW tones** (a receiver spur, an interferer): the coarse stage's periodogram loses its narrow lines
+    before the correlation (:func:`_without_spikes`), so a tone cannot pull the band's centre to itself; and
+    a found line is refused as a tone (``tone`` True, the line's kind "CW tone") when the ``M``-th power's
+    line is the ``M``-th power of a line in the samples themselves (:func:`_tone_q` below :data:`TONE_Q`):
+    the square of a tone is a line as BPSK's is, and the loop would lock on it.
 
     Cost per window of ``N`` samples: one FFT pass of ``N log(16 sps)`` (coarse), the matched
     filter ``N (2 D_mf + 1)``, and ``R`` FFTs of ``N / D`` points for ``R`` rates (65536 samples
