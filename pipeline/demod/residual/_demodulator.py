@@ -35,7 +35,7 @@ from pipeline.demod.residual._kernels import (
 )
 from pipeline.demod.residual._lock import HeldDecision, MeanStatistic
 from pipeline.demod.residual._loops import LoopPlan, loop_gains, plan_loops
-from pipeline.demod.residual._search import CarrierFix, ResidualCarrierSearch
+from pipeline.demod.residual._search import CarrierFix, DataSidebands, ResidualCarrierSearch
 from pipeline.profile import LinkSection, ReceiverSection
 
 __all__ = ["ResidualCarrierDemodulator", "ResidualTrackPoint", "make_demodulator",
@@ -460,7 +460,12 @@ class ResidualCarrierDemodulator:
             self.hold_blocks = int(max(1, min(self.dwell_blocks, _HOLD_SAMPLES // self.block_samples)))
             dwell = functools.partial(ResidualCarrierSearch, sample_rate_hz=fs, block_samples=self.block_samples,
                                       search_hz=self.acquisition_search_hz, max_blocks=self.dwell_blocks,
-                                      max_rate_hz_per_s=_MAX_DOPPLER_RATE)
+                                      max_rate_hz_per_s=_MAX_DOPPLER_RATE,
+                                      sidebands=DataSidebands(symbol_rate_hz=self.symbol_rate_baud,
+                                                              data_to_carrier=self.data_to_carrier,
+                                                              biphase=self.biphase,
+                                                              subcarrier_hz=link.subcarrier_hz if sc_mode else 0.0,
+                                                              subcarrier_wave=link.subcarrier_wave))
             self._search = dwell()
             if self.mirror_search:
                 self._mirror = dwell()
@@ -771,7 +776,7 @@ class ResidualCarrierDemodulator:
         """Keep a dwell's line in the stats, in the recording's frame (``mirrored``: found in the mirrored dwell)."""
         if det.blocks:
             level = 10.0 * math.log10(max(10.0 ** (det.level_db / 10.0) + 1.0, 1e-12))
-            line = SpectralLine(det.frequency_hz, level, "carrier line")
+            line = SpectralLine(det.frequency_hz, level, "CW tone" if det.tone else "carrier line")
             if self.carrier_prediction is not None:  # the detection is relative to the dwell's first block
                 hz = float(self.carrier_prediction.offset_hz(self._dwell_start + 0.5 * (self.block_samples - 1)))
                 line = (mirrored_line if mirrored else shifted_line)(line, hz)

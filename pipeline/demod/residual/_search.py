@@ -9,7 +9,9 @@ import numpy as np
 import scipy.fft
 from scipy.special import gammainccinv, gammaincinv
 
-__all__ = ["CarrierFix", "LineDetection", "ResidualCarrierSearch"]
+from pipeline.demod._acquire import _without_spikes
+
+__all__ = ["CarrierFix", "DataSidebands", "LineDetection", "ResidualCarrierSearch"]
 
 #: Decimated samples per block in the fine stage (the line is within a bin of the coarse estimate, and the
 #: decimated band spans this many bins).
@@ -23,6 +25,83 @@ _MAX_FINE_RATES = 2049
 _MAX_ACCUMULATOR_VALUES = 1 << 23
 #: Coherent line SNR over the window (power over the noise of one bin) the fine stage must confirm.
 _FINE_MIN_SNR = 20.0
+#: At most this many lines above the threshold are weighed against each other by their data sidebands.
+_MAX_CANDIDATES = 8
+#: Data sidebands: seen when their z score reaches this and a tenth of what the line's power predicts; a line
+#: is refused for want of them only when they were predicted at least this z (below it they cannot be told).
+_SIDEBAND_Z_SEEN, _SIDEBAND_FRACTION, _SIDEBAND_Z_TESTABLE = 4.0, 0.1, 8.0
+#: Variance of a smooth weighted sum of Hann periodogram bins over that of independent bins: 1 + 2 (2/3)^2 +
+#: 2 (1/6)^2 (the power correlations of adjacent and next bins, |rho|^2 of the Hann-windowed DFT's
+#: -2/3 and 1/6; Harris 1978).
+_HANN_SUM_VARIANCE = 1.0 + 2.0 * (2.0 / 3.0) ** 2 + 2.0 * (1.0 / 6.0) ** 2
+
+
+@dataclass(frozen=True)
+class DataSidebands:
+    """Where a residual-carrier modulation puts its data power around the carrier, and how much of it.
+
+    ``symbol_rate_hz`` the channel symbol rate, ``data_to_carrier`` the data's power over the residual
+    carrier's (``tan^2 m`` for NRZ and a square subcarrier, ``2 J1(m)^2 / J0(m)^2`` for a sine subcarrier's
+    first-harmonic sidebands), ``biphase`` Bi-phase-L chips, ``subcarrier_hz`` (0: data directly on the
+    carrier) and ``subcarrier_wave`` "square" | "sine".
+    """
+
+    symbol_rate_hz: float
+    data_to_carrier: float
+    biphase: bool = False
+    subcarrier_hz: float = 0.0
+    subcarrier_wave: str = "square"
+
+    def __post_init__(self) -> None:
+        if not (self.symbol_rate_hz > 0 and math.isfinite(self.symbol_rate_hz)):
+            raise ValueError(f"Argument 'symbol_rate_hz' must be a positive finite number, "
+                             f"not {self.symbol_rate_hz!r}.")
+        if not (self.data_to_carrier >= 0 and math.isfinite(self.data_to_carrier)):
+            raise ValueError(f"Argument 'data_to_carrier' must be >= 0, not {self.data_to_carrier!r}.")
+        if not (self.subcarrier_hz >= 0 and math.isfinite(self.subcarrier_hz)):
+            raise ValueError(f"Argument 'subcarrier_hz' must be >= 0, not {self.subcarrier_hz!r}.")
+        if self.subcarrier_wave not in ("square", "sine"):
+            raise ValueError(f"Argument 'subcarrier_wave' must be square | sine, not {self.subcarrier_wave!r}.")
+
+    @property
+    def half_width_hz(self) -> float:
+        """Half the band the test looks at: the subcarrier plus two (Bi-phase-L three) symbol rates."""
+        return self.subcarrier_hz + (3.0 if self.biphase else 2.0) * self.symbol_rate_hz
+
+    def density(self, f_hz: np.ndarray) -> np.ndarray:
+        """The data's power spectral density per unit data power (1/Hz) at ``f_hz`` from the carrier.
+
+        NRZ: ``T sinc^2(f T)``; Bi-phase-L: ``T sinc^2(f T / 2) sin^2(pi f T / 2)``; on a subcarrier that shape
+        at ``+-f_sc``, halved for a sine, and for a square wave at the odd harmonics ``+-n f_sc`` with weight
+        ``(2 / (pi n))^2`` (n <= 7, 95 % of the power).  Each integrates to 1 (the last to 0.95).  On a
+        subcarrier coherent with the symbol clock the shifted lobes also interfere; their powers are summed here
+        (against Welch's periodogram of such a PCM/PSK/PM signal, 4 subcarrier cycles a symbol: correlation 0.99
+        within ``half_width_hz``, tests/test_residual_tones.py).
+
+        Examples
+        --------
+        >>> s = DataSidebands(symbol_rate_hz=1000.0, data_to_carrier=1.0)
+        >>> f = np.arange(-200000.0, 200000.0, 1.0)
+        >>> round(float(np.sum(s.density(f))), 2)
+        1.0
+        """
+        f = np.asarray(f_hz, dtype=np.float64)
+        t = 1.0 / self.symbol_rate_hz
+
+        def base(v):
+            if self.biphase:
+                return t * np.sinc(0.5 * v * t) ** 2 * np.sin(0.5 * math.pi * v * t) ** 2
+            return t * np.sinc(v * t) ** 2
+
+        if self.subcarrier_hz <= 0:
+            return base(f)
+        fsc = self.subcarrier_hz
+        if self.subcarrier_wave == "sine":
+            return 0.5 * (base(f - fsc) + base(f + fsc))
+        out = np.zeros_like(f)
+        for n in (1, 3, 5, 7):
+            out += (2.0 / (math.pi * n)) ** 2 * (base(f - n * fsc) + base(f + n * fsc))
+        return out
 
 
 @dataclass(frozen=True)
@@ -32,7 +111,10 @@ class LineDetection:
     ``found``: the accumulated line exceeded the threshold for this many blocks; ``frequency_hz``
     the line's frequency in the dwell's first block (bin centre), ``rate_hz_per_s`` its rate
     hypothesis, ``level_db`` the peak's mean excess over the noise floor (dB) and ``threshold_db``
-    what ``found`` needed (the same unit), ``blocks`` the number accumulated.
+    what ``found`` needed (the same unit), ``blocks`` the number accumulated.  ``tone``: lines exceeded
+    the threshold but none carried the modulation's data sidebands (``found`` False; the line given is the
+    strongest of them, a CW tone); ``sideband_z`` the data sidebands' z score at the line given (``nan``
+    when not tested).
     """
 
     found: bool
@@ -41,6 +123,8 @@ class LineDetection:
     level_db: float
     threshold_db: float
     blocks: int
+    tone: bool = False
+    sideband_z: float = float("nan")
 
 
 @dataclass(frozen=True)
@@ -81,6 +165,9 @@ class ResidualCarrierSearch:
         Doppler rates within ``+-`` this are hypothesised in the accumulation.
     false_alarm : float
         Probability that one test on noise alone passes (union bound over the searched bins).
+    sidebands : DataSidebands or None
+        The modulation's data spectrum around the carrier: lines above the threshold are weighed by the data
+        sidebands seen around them (see Notes).  None: the strongest line is taken, whatever it is.
 
     Notes
     -----
@@ -101,6 +188,26 @@ class ResidualCarrierSearch:
     blocks (1 - 2 % missed).  A dwell ends after ``max_blocks``; the next one starts empty.  Cost
     per block: one FFT of ``L`` points and ``R L`` additions.
 
+    **Data sidebands (with** ``sidebands`` **, when a line is found).**  A residual carrier carries its data's
+    spectrum around it; a CW tone in the band (a receiver spur, an interferer) carries none, and may stand far
+    above the carrier's line.  The dwell also keeps the rate-0 sum of the whole periodograms (the unsearched
+    bins too), whose mean over the ``K`` blocks, in floors, with its narrow lines taken out
+    (:func:`pipeline.demod._acquire._without_spikes`), less 1, is ``q``.  Up to 8 lines above the threshold
+    (the strongest first, each blanking the bins a rate hypothesis can move it by plus 6) are each scored
+    ``Z = sum_k w_k q_(c+k) / sqrt(1.94 sum_k w_k^2 / K)``: ``w`` the data's density (:meth:`DataSidebands.density`)
+    over ``|f| <= f_sc + 2 R_s`` (``3 R_s`` Bi-phase-L) from the line, the line's own 9 bins left out, made
+    zero-mean over that window (a floor's level and slope cancel); on noise alone ``Z`` is about N(0, 1)
+    (1.94: the power correlation of neighbouring Hann bins).  The line's power predicts ``Z``: its excess
+    ``r`` over 5 bins (floors) gives the data excess ``r (P_d / P_c) bin density(f)`` per bin, hence
+    ``Z_exp``.  A line shows its data when ``Z >= max(4, Z_exp / 10)`` (a tenth: a modulation index well
+    off the profile's still passes); a line whose ``Z_exp >= 8`` that does not is refused.  Of the lines left,
+    the one with the largest ``Z`` among those that show data, else the strongest, is taken; when every
+    line is refused nothing is found and the strongest is reported as a tone (``LineDetection.tone``).
+    The window must fit in the periodogram's band (``2 (f_sc + 2 R_s) <= fs / D``), else the strongest line
+    is taken as without ``sidebands``; the block sums' droop (at most 0.9 dB at the band edge) is not
+    corrected.  Cost, only while a line is above the threshold: one running median of 11 over the bins, and
+    one weighted sum over the window per line.
+
     **Fine (once, on the held samples).**  The held blocks are rotated by the coarse line (its rate
     too) and summed over ``block / 64`` samples (64 points per block: the residual offset, within
     a bin, loses nothing); the decimated window is dechirped for fine rate hypotheses (within the
@@ -116,12 +223,15 @@ class ResidualCarrierSearch:
     Proc. IEEE 66 (1978) 51 (Hann window: equivalent noise bandwidth 1.5 bins); threshold from the
     chi-square (Gamma) distribution of a sum of periodogram bins (S. M. Kay, *Fundamentals of
     Statistical Signal Processing*, vol. II, ch. 7); Rife and Boorstyn, IEEE Trans. Inf. Theory 20
-    (1974) 591 (single-tone frequency estimation).  Rate hypotheses by shifting: common practice,
-    no published source.
+    (1974) 591 (single-tone frequency estimation); data spectra of NRZ and Bi-phase-L and a subcarrier's
+    harmonics: M. K. Simon, S. M. Hinedi, W. C. Lindsey, *Digital Communication Techniques*, Prentice Hall
+    1995, ch. 2 (from memory, not confirmed).  Rate hypotheses by shifting, and the sideband score: common
+    practice, no published source.
     """
 
     def __init__(self, *, sample_rate_hz: float, block_samples: int, search_hz: float, max_blocks: int,
-                 max_rate_hz_per_s: float = 0.0, false_alarm: float = 1e-6) -> None:
+                 max_rate_hz_per_s: float = 0.0, false_alarm: float = 1e-6,
+                 sidebands: DataSidebands | None = None) -> None:
         fs = float(sample_rate_hz)
         if not (fs > 0 and math.isfinite(fs)):
             raise ValueError(f"Argument 'sample_rate_hz' must be a positive finite number, not {sample_rate_hz!r}.")
@@ -136,6 +246,8 @@ class ResidualCarrierSearch:
             raise ValueError(f"Argument 'max_rate_hz_per_s' must be >= 0, not {max_rate_hz_per_s!r}.")
         if not 0 < false_alarm < 1:
             raise ValueError(f"Argument 'false_alarm' must be in (0, 1), not {false_alarm!r}.")
+        if sidebands is not None and not isinstance(sidebands, DataSidebands):
+            raise TypeError(f"Argument 'sidebands' must be a DataSidebands or None, not {type(sidebands).__name__}.")
         self.sample_rate_hz = fs
         self.block_samples = int(block_samples)
         self.search_hz = min(float(search_hz), 0.5 * fs)
@@ -170,12 +282,26 @@ class ResidualCarrierSearch:
         self.max_rate_hz_per_s = float(max_rate_hz_per_s)
         self.rate_step_hz_per_s = step if half else 0.0
         self._thresholds: dict[int, float] = {}
+        # bins a rate hypothesis moves a line by over a dwell (a line's smear across the accumulators)
+        self._max_shift = int(math.ceil(float(np.max(np.abs(self.rates_hz_per_s))) * self.max_blocks * self.block_s
+                                        / self.bin_hz))
+        self.sidebands = sidebands
+        self._sideband_offsets = self._sideband_weights = self._sideband_density = None
+        fs_d = fs / dec
+        if sidebands is not None and 2.0 * sidebands.half_width_hz <= fs_d:
+            off = np.rint(freqs / self.bin_hz).astype(np.int64)  # bin offsets from a line, -bins/2 .. bins/2 - 1
+            use = (np.abs(freqs) <= sidebands.half_width_hz) & (np.abs(off) > 4)
+            dens = sidebands.density(freqs[use])
+            self._sideband_offsets = off[use]
+            self._sideband_weights = dens - float(np.mean(dens))
+            self._sideband_density = dens * sidebands.data_to_carrier * self.bin_hz
         self.restart()
 
     # ---- coarse ---------------------------------------------------------------------------
     def restart(self) -> None:
         """Start a new dwell (forget the accumulated periodograms)."""
         self._acc = np.zeros((self.rates_hz_per_s.size, self.bins), dtype=np.float32)
+        self._whole = np.zeros(self.bins if self._sideband_offsets is not None else 0, dtype=np.float32)
         self.blocks = 0
 
     def threshold(self, k: int) -> float:
@@ -199,6 +325,8 @@ class ResidualCarrierSearch:
         y = y - y.mean(dtype=np.complex128).astype(np.complex64)
         spec = scipy.fft.fft(y * self._window, workers=1)
         p = spec.real * spec.real + spec.imag * spec.imag
+        if self._whole.size:
+            self._whole += p  # the whole band: the data sidebands reach past the searched one
         p[self._outside] = 0.0
         b = self.blocks
         for i, r in enumerate(self.rates_hz_per_s):
@@ -219,21 +347,83 @@ class ResidualCarrierSearch:
             return LineDetection(False, float("nan"), 0.0, -math.inf, math.inf, 0)
         acc = self._acc  # bins outside the searched band hold 0
         floor = self.floor()
-        i, j = divmod(int(np.argmax(acc)), acc.shape[1])
+        t = self.threshold(k)
+        need = 10.0 * math.log10(max(t / k - 1.0, 1e-12))
+        i, j = self._line_at(int(np.argmax(acc)) % acc.shape[1], floor, global_peak=True)
+        found = floor > 0 and float(acc[i, j]) > t * floor
+        if not found or self._sideband_offsets is None:
+            return self._detection(bool(found), i, j, floor, need)
+        return self._weighed(floor, t, need)
+
+    def _line_at(self, j: int, floor: float, global_peak: bool = False) -> tuple[int, int]:
+        """Rate hypothesis and bin of the line peaking at bin ``j`` of the accumulators' maximum over rates.
+
+        A Doppler rate only when it beats the rate-0 accumulator's peak (over all bins when ``global_peak``,
+        else within the bins the rates move a line by) by 3 standard deviations of a sum of ``k`` noise bins
+        (``sqrt(k)`` floors): with few blocks the hypotheses differ by noise alone.
+        """
+        acc = self._acc
+        k = max(self.blocks, 1)
+        i = int(np.argmax(acc[:, j]))
         if i:
-            # a Doppler rate only when it beats the rate-0 accumulator's peak by 3 standard deviations of a
-            # sum of k noise bins (sqrt(k) floors): with few blocks the hypotheses differ by noise alone
-            j0 = int(np.argmax(acc[0]))
+            if global_peak:
+                j0 = int(np.argmax(acc[0]))
+            else:
+                near = (j + np.arange(-self._max_shift - 2, self._max_shift + 3)) % self.bins
+                j0 = int(near[np.argmax(acc[0, near])])
             if float(acc[i, j]) - float(acc[0, j0]) <= 3.0 * math.sqrt(k) * floor:
                 i, j = 0, j0
-        peak = float(acc[i, j])
-        t = self.threshold(k)
-        bin_k = j
-        f = float(self._freqs[bin_k])
+        return i, j
+
+    def _detection(self, found: bool, i: int, j: int, floor: float, need: float, tone: bool = False,
+                   z: float = float("nan")) -> LineDetection:
+        k = self.blocks
+        peak = float(self._acc[i, j])
         level = 10.0 * math.log10(max(peak / (k * floor) - 1.0, 1e-12)) if floor > 0 else math.inf
-        need = 10.0 * math.log10(max(t / k - 1.0, 1e-12))
-        found = floor > 0 and peak > t * floor
-        return LineDetection(bool(found), f, float(self.rates_hz_per_s[i]), level, need, k)
+        return LineDetection(found, float(self._freqs[j]), float(self.rates_hz_per_s[i]), level, need, k, tone,
+                             float(z))
+
+    def _candidates(self, level: np.ndarray) -> list[int]:
+        """Bins of up to 8 lines above ``level`` (per bin) in the accumulators' maximum over rates, the strongest
+        first."""
+        m = self._acc.max(axis=0)
+        out: list[int] = []
+        blank = np.arange(-self._max_shift - 6, self._max_shift + 7)
+        above = m > level
+        while len(out) < _MAX_CANDIDATES and above.any():
+            j = int(np.argmax(np.where(above, m, 0.0)))
+            out.append(j)
+            above[(j + blank) % self.bins] = False
+        return out
+
+    def _weighed(self, floor: float, t: float, need: float) -> LineDetection:
+        """The line whose data sidebands are seen (the class Notes), or a tone, or nothing."""
+        k = self.blocks
+        q_raw = self._whole.astype(np.float64) / (k * floor) - 1.0
+        q = _without_spikes(q_raw + 1.0) - 1.0
+        # a line stands above the local level (the data's own periodogram peaks do not, at a high Es/N0)
+        cands = self._candidates(t * floor * (1.0 + np.maximum(q, 0.0)))
+        if not cands:
+            i, j = self._line_at(int(np.argmax(self._acc)) % self.bins, floor, global_peak=True)
+            return self._detection(False, i, j, floor, need)
+        w, dens, offs = self._sideband_weights, self._sideband_density, self._sideband_offsets
+        sigma = math.sqrt(_HANN_SUM_VARIANCE * float(np.dot(w, w)) / k)
+        scored = []
+        for j in cands:
+            i, jj = self._line_at(j, floor)
+            r = max(float(np.sum(q_raw[(jj + np.arange(-2, 3)) % self.bins] - q[(jj + np.arange(-2, 3)) % self.bins])),
+                    0.0)
+            z = float(np.dot(w, q[(jj + offs) % self.bins])) / sigma
+            z_exp = r * float(np.dot(w, dens)) / sigma
+            seen = z >= max(_SIDEBAND_Z_SEEN, _SIDEBAND_FRACTION * z_exp)
+            scored.append((i, jj, z, seen, seen or z_exp < _SIDEBAND_Z_TESTABLE))
+        kept = [c for c in scored if c[4]]
+        if not kept:
+            i, j, z, _, _ = scored[0]
+            return self._detection(False, i, j, floor, need, tone=True, z=z)
+        shown = [c for c in kept if c[3]]
+        i, j, z, _, _ = max(shown, key=lambda c: c[2]) if shown else kept[0]
+        return self._detection(True, i, j, floor, need, z=z)
 
     # ---- fine -----------------------------------------------------------------------------
     def refine(self, blocks: list[np.ndarray], gains: list[float], starts: list[int], detection: LineDetection,
