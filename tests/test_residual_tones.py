@@ -90,6 +90,31 @@ def test_carrier_found_and_held_beside_a_stronger_tone(wave, offset_rs, rel_db):
         (wrong.mean(), g_wrong.mean())
 
 
+@pytest.mark.slow
+@pytest.mark.parametrize("wave,esn0_db,over_carrier_db,offset_rs",
+                         [("nrz", -6.0, 10.0, 1.5), ("square", -8.0, 10.0, 1.5), ("biphase", -6.0, 10.0, 0.8),
+                          ("nrz", -8.0, 20.0, 3.0)])
+def test_low_esn0_beside_a_tone(wave, esn0_db, over_carrier_db, offset_rs):
+    """At the receiver's low Es/N0 operating points (m = 1.2 rad) a tone 10-20 dB over the carrier's line costs the
+    symbols no more than it costs the genie (against the same recording without the tone)."""
+    sig = rs.transmit(40_000, wave=wave, sample_rate_hz=FS, symbol_rate_baud=RATE, index_rad=1.2,
+                      subcarrier_hz=4.0 * RATE, esn0_db=esn0_db, carrier_hz=CARRIER, clock_ppm=20.0, seed=7)
+    p = float(np.mean(np.abs(sig.samples.astype(np.complex128)) ** 2))
+    rel = 10.0 * math.log10(math.cos(1.2) ** 2 / p) + over_carrier_db  # P_c = cos^2 m of the unit signal
+    y = _with_tone(sig.samples, CARRIER + offset_rs * RATE, rel)
+    excess, discordant = [], 0
+    for samples in (sig.samples, y):
+        demod, soft, pos, track = _demodulate(wave, samples)
+        assert demod.stats.carrier_found == 1
+        held = [t for t in track if t.carrier_locked]
+        assert len(held) >= 0.8 * len(track) and all(abs(t.carrier_offset_hz - CARRIER) < 2.0 for t in held)
+        wrong, g_wrong = _errors(sig, samples, soft, pos, 12_000)
+        assert wrong.size > 0.95 * 28_000
+        excess.append(int(wrong.sum()) - int(g_wrong.sum()))
+        discordant += int(np.count_nonzero(wrong != g_wrong))
+    assert excess[1] - excess[0] <= 4.0 * math.sqrt(discordant + 1), excess
+
+
 @pytest.mark.parametrize("rel_db", [-10.0, 10.0])
 def test_tone_alone_in_noise_is_never_held(rel_db):
     noise = rs.transmit(16_000, wave="nrz", sample_rate_hz=FS, symbol_rate_baud=RATE, index_rad=INDEX, esn0_db=3.0,
