@@ -30,6 +30,8 @@ _MAX_CANDIDATES = 8
 #: Data sidebands: seen when their z score reaches this and a tenth of what the line's power predicts; a line
 #: is refused for want of them only when they were predicted at least this z (below it they cannot be told).
 _SIDEBAND_Z_SEEN, _SIDEBAND_FRACTION, _SIDEBAND_Z_TESTABLE = 4.0, 0.1, 8.0
+#: The local level a line must stand above is the spike-free periodogram's mean over this many bins.
+_LOCAL_BINS = 81
 #: Variance of a smooth weighted sum of Hann periodogram bins over that of independent bins: 1 + 2 (2/3)^2 +
 #: 2 (1/6)^2 (the power correlations of adjacent and next bins, |rho|^2 of the Hann-windowed DFT's
 #: -2/3 and 1/6; Harris 1978).
@@ -193,7 +195,9 @@ class ResidualCarrierSearch:
     above the carrier's line.  The dwell also keeps the rate-0 sum of the whole periodograms (the unsearched
     bins too), whose mean over the ``K`` blocks, in floors, with its narrow lines taken out
     (:func:`pipeline.demod._acquire._without_spikes`), less 1, is ``q``.  Up to 8 lines above the threshold
-    (the strongest first, each blanking the bins a rate hypothesis can move it by plus 6) are each scored
+    times the local level (the mean of ``q + 1`` over 81 bins, at least 1: the data's own periodogram peaks
+    do not pass at a high Es/N0; the strongest first, each blanking the bins a rate hypothesis can move it
+    by plus 6) are each scored
     ``Z = sum_k w_k q_(c+k) / sqrt(1.94 sum_k w_k^2 / K)``: ``w`` the data's density (:meth:`DataSidebands.density`)
     over ``|f| <= f_sc + 2 R_s`` (``3 R_s`` Bi-phase-L) from the line, the line's own 9 bins left out, made
     zero-mean over that window (a floor's level and slope cancel); on noise alone ``Z`` is about N(0, 1)
@@ -401,8 +405,9 @@ class ResidualCarrierSearch:
         k = self.blocks
         q_raw = self._whole.astype(np.float64) / (k * floor) - 1.0
         q = _without_spikes(q_raw + 1.0) - 1.0
-        # a line stands above the local level (the data's own periodogram peaks do not, at a high Es/N0)
-        cands = self._candidates(t * floor * (1.0 + np.maximum(q, 0.0)))
+        # a line stands above the local level (the data's own periodogram peaks do not, at a high Es/N0): the
+        # spike-free periodogram's mean over 81 bins, in floors
+        cands = self._candidates(t * floor * np.maximum(_moving_mean(q + 1.0, _LOCAL_BINS), 1.0))
         if not cands:
             i, j = self._line_at(int(np.argmax(self._acc)) % self.bins, floor, global_peak=True)
             return self._detection(False, i, j, floor, need)
@@ -568,6 +573,15 @@ class ResidualCarrierSearch:
         if snr < _FINE_MIN_SNR:
             return None
         return f_res, r_res, c0, snr
+
+
+def _moving_mean(x: np.ndarray, width: int) -> np.ndarray:
+    """Circular moving mean of ``x`` over ``width`` (odd) bins centred on each (prefix sums)."""
+    half = width // 2
+    if x.size < width:
+        return np.full(x.size, float(np.mean(x)))
+    c = np.concatenate([[0.0], np.cumsum(np.concatenate([x[-half:], x, x[:half]]))])
+    return (c[width:] - c[:-width]) / width
 
 
 def _signal_start(per_block: np.ndarray) -> int:
