@@ -167,4 +167,4 @@ def test_a_tone_before_the_signal_does_not_keep_the_receiver_from_it():
     # and the tone alone is named when nothing locks
     alone = _demod_link()
     _run(alone, _noise(rng, 2 * lead) + _tone(2 * lead, 80e3, 100.0))
-    assert "CW tone at +80000" in alone.no_lock_message() and "not a suppressed carrier" in alone.no_lock_message()
+    assert "CW tone at +80000" in alone.no_lock_message() and "not the link's carrier" in alone.no_lock_message()

@@ -186,14 +186,26 @@ def _without_spikes(p: np.ndarray, width: int = 11) -> np.ndarray:
     if n < 2 * width:
         return p
     half = width // 2
-    med = np.median(np.stack([np.roll(p, k) for k in range(-half, half + 1)]), axis=0)
-    spike = p > 2.0 * med
-    if not spike.any():
+    # a bin over twice its median is over twice its window's minimum: the medians are needed only there
+    low = p.copy()
+    for k in range(1, half + 1):
+        np.minimum(low, np.roll(p, k), out=low)
+        np.minimum(low, np.roll(p, -k), out=low)
+    cand = np.flatnonzero(p > 2.0 * low)
+    if cand.size == 0:
         return p
-    near = np.zeros(n, dtype=bool)
-    for k in range(-2, 3):
-        near |= np.roll(spike, k)
-    return np.where(near, med, p)
+    offsets = np.arange(-half, half + 1)
+
+    def median_at(bins: np.ndarray) -> np.ndarray:
+        return np.median(p[(bins[:, None] + offsets[None, :]) % n], axis=1)
+
+    spike = cand[p[cand] > 2.0 * median_at(cand)]
+    if spike.size == 0:
+        return p
+    near = np.unique((spike[:, None] + np.arange(-2, 3)[None, :]) % n)
+    out = p.copy()
+    out[near] = median_at(near)
+    return out
 
 
 def _tone_q(y: np.ndarray, ym: np.ndarray, power: int, offset_hz: float, rate_hz_per_s: float,

@@ -213,7 +213,8 @@ class DemodStats:
         if line.kind == "band":
             return f"{text}: no signal band stood out of the noise ({line.describe()})"
         if line.kind == "CW tone":
-            return f"{text}: {line.describe()} (a tone in the samples themselves, not a suppressed carrier: ignored)"
+            return (f"{text}: {line.describe()} (a tone without the modulation around it, not the link's carrier: "
+                    f"ignored)")
         return f"{text}: {line.describe()} ({self.line_threshold_db:.1f} dB needed)"
 
 
