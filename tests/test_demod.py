@@ -21,7 +21,7 @@ from pipeline.demod import (
     rrc_pulse,
 )
 from pipeline.demod._filters import gardner_detector_gain, midpoint_energy_ratio
-from pipeline.demod._kernels import derotate, fir_interleaved, nrzm_decode
+from pipeline.demod._kernels import dechirped_sum, derotate, fir_interleaved, nrzm_decode, power_block_sums
 from pipeline.profile import LinkSection, ReceiverSection
 
 FS = 1e6
@@ -121,6 +121,36 @@ def test_derotate_matches_exp(rng):
     ref = 0.5 * x * np.exp(-1j * (0.3 + 0.0123 * n))
     np.testing.assert_allclose(out, ref, atol=1e-5)
     assert abs(math.remainder(end - (0.3 + 0.0123 * x.size), 2 * math.pi)) < 1e-9
+
+
+
+@pytest.mark.kat
+@pytest.mark.parametrize("n", [1000, 4096, 65537])
+def test_dechirped_sum_matches_numpy_exp(rng, n):
+    # the carrier search's tone test: sum w x exp(-j (2 pi f u + pi r u^2)), u from the window's centre, against
+    # the obvious numpy expression in double precision (the kernel's phasor is exact every 256 samples)
+    x = (rng.standard_normal(n) + 1j * rng.standard_normal(n)).astype(np.complex64)
+    w = np.hanning(n).astype(np.float32)
+    u = np.arange(n) - 0.5 * (n - 1)
+    for f, r in ((0.0, 0.0), (0.0123, 0.0), (-0.31, 2.5e-9), (0.2, -7e-8)):
+        ref = np.sum(w * x.astype(np.complex128) * np.exp(-1j * (2 * np.pi * f * u + np.pi * r * u * u)))
+        got = dechirped_sum(x, w, f, r)
+        assert abs(got - ref) <= 1e-9 * np.sum(np.abs(w * x))
+
+
+@pytest.mark.kat
+@pytest.mark.parametrize("power,block,n_b", [(2, 1, 50), (4, 16, 4096), (4, 300, 7), (2, 4096, 3)])
+def test_power_block_sums_matches_numpy(rng, power, block, n_b):
+    # the data-line test's M-th power, window and block sums against numpy's expression (one block more of
+    # input than summed: the tail is ignored)
+    n = (n_b + 1) * block
+    y = (rng.standard_normal(n) + 1j * rng.standard_normal(n)).astype(np.complex64)
+    w = (np.hanning(n) * np.exp(1j * np.linspace(0.0, 5.0, n))).astype(np.complex64)
+    out = np.empty(n_b, dtype=np.complex64)
+    power_block_sums(y, power, w, block, out)
+    z = (w.astype(np.complex128) * y.astype(np.complex128) ** power)[: n_b * block].reshape(n_b, block).sum(axis=1)
+    scale = np.sum(np.abs(y.astype(np.complex128)) ** power) / n_b
+    np.testing.assert_allclose(out, z, atol=1e-5 * scale)
 
 
 def _nrzm_encode(bits, level0=1):

@@ -9,7 +9,8 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.fft
 
-from pipeline.demod._kernels import derotate, fir_interleaved
+from pipeline.demod._kernels import (condition_block, dechirped_sum, derotate, fir_interleaved, phasor_table,
+                                     power_block_sums)
 
 __all__ = ["CarrierAcquisition", "CarrierEstimate", "CarrierSearch", "SpectralLine", "estimate_carrier_offset",
            "spectral_line"]
@@ -171,6 +172,14 @@ def _hann64(n: int) -> np.ndarray:
     return w
 
 
+@functools.lru_cache(maxsize=4)
+def _hann32(n: int) -> np.ndarray:
+    """``numpy.hanning(n)`` as float32, read-only (the tone test's window)."""
+    w = np.hanning(n).astype(np.float32)
+    w.flags.writeable = False
+    return w
+
+
 def _without_spikes(p: np.ndarray, width: int = 11) -> np.ndarray:
     """The periodogram ``p`` with narrow lines taken out: bins more than twice the running median over ``width``
     bins (circular), and two bins on each side of them, take that median; every other bin is kept as it is.
@@ -218,14 +227,15 @@ def _tone_q(y: np.ndarray, ym: np.ndarray, power: int, offset_hz: float, rate_hz
     ``E n^2 = E n^4 = 0``), so the ratio is 1 whatever the tone's level (measured 0.94-1.02 from -10 to +30 dB
     over the noise, tests/test_acquisition_tones.py); for a suppressed-carrier signal ``a_M`` comes from the
     modulation and ``a_1`` from the carrier leakage alone: 3.7-8 for BPSK leaking -10 dB of its power as
-    carrier, 30 and more at -20 dB, thousands without leakage; QPSK 15 and more.  Cost: two weighted sums.
+    carrier, 30 and more at -20 dB, thousands without leakage; QPSK 15 and more.  Cost: two weighted sums
+    (:func:`~pipeline.demod._kernels.dechirped_sum`, about 0.1 ms each on 65536 samples).
     """
     n = y.size
-    t = (np.arange(n) - 0.5 * (n - 1)) / sample_rate_hz
-    rot = np.exp(-1j * (2.0 * math.pi * offset_hz * t + math.pi * rate_hz_per_s * t * t)).astype(np.complex64)
-    w = _hann64(n)
-    a1 = abs(complex(np.dot(w, y * rot)))
-    am = abs(complex(np.dot(w, ym * rot ** power)))
+    w = _hann32(n)
+    f_cyc = offset_hz / sample_rate_hz
+    r_cyc = rate_hz_per_s / (sample_rate_hz * sample_rate_hz)
+    a1 = abs(dechirped_sum(np.ascontiguousarray(y, dtype=np.complex64), w, f_cyc, r_cyc))
+    am = abs(dechirped_sum(np.ascontiguousarray(ym, dtype=np.complex64), w, power * f_cyc, power * r_cyc))
     a1 /= float(n) / 2.0  # the Hann window's sum
     am /= float(n) / 2.0
     return am / a1 ** power if a1 > 0.0 else math.inf
@@ -578,19 +588,29 @@ class CarrierSearch:
             t = (np.arange(n) - 0.5 * (n - 1)) / fs
             weight = weight * np.exp(-1j * math.pi * m * rate_hz_per_s * t * t).astype(np.complex64)
         taps = self._check_taps
+        x = np.ascontiguousarray(x, dtype=np.complex64)
         y = np.empty(n, dtype=np.complex64)
-        u = np.zeros(n + taps.size - 1, dtype=np.complex64)
+        zb = np.empty(n_b, dtype=np.complex64)
+        # odd symmetric taps (the matched filter): derotation and filter in one pass (condition_block, its
+        # table-driven phasor); other taps (the Bi-phase-L chip's box) through derotate and fir_interleaved
+        fused = taps.size % 2 == 1 and bool(np.array_equal(taps, taps[::-1]))
+        table = np.empty(512, dtype=np.float32)
+        hist = np.zeros(2 * (taps.size - 1), dtype=np.float32)
+        mom = np.empty(4, dtype=np.float64)
+        u = None if fused else np.zeros(n + taps.size - 1, dtype=np.complex64)
         orders = [0, *(k for j in range(1, self.data_line_orders + 1) for k in (j, -j))]
         power = []
         for k in orders:
-            derotate(x, 1.0, 0.0, 2.0 * math.pi * (centre_hz - k * self.symbol_rate_hz / m) / fs, 256,
-                     u[taps.size - 1:])
-            fir_interleaved(u.view(np.float32), taps, y.view(np.float32))
-            z = y * y
-            if m == 4:
-                z *= z
-            z *= weight
-            zb = z[:n_b * block].reshape(n_b, block).sum(axis=1)
+            dphase = 2.0 * math.pi * (centre_hz - k * self.symbol_rate_hz / m) / fs
+            if fused:
+                phasor_table(dphase, table)
+                hist[:] = 0.0
+                condition_block(x.view(np.float32), 0.0, 0.0, 1.0, 0.0, dphase, table, taps, hist,
+                                y.view(np.float32), mom)
+            else:
+                derotate(x, 1.0, 0.0, dphase, 256, u[taps.size - 1:])
+                fir_interleaved(u.view(np.float32), taps, y.view(np.float32))
+            power_block_sums(y, m, weight, block, zb)  # the window's M-th power summed over blocks, in one pass
             v = np.array([np.dot(p, zb) for p in probes])  # row by row: numpy's complex64 matmul can be slow here
             power.append(float(np.max(v.real.astype(np.float64) ** 2 + v.imag.astype(np.float64) ** 2)))
         return orders[int(np.argmax(power))]
