@@ -9,8 +9,14 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.fft
 
-from pipeline.demod._kernels import (condition_block, dechirped_sum, derotate, fir_interleaved, phasor_table,
-                                     power_block_sums)
+from pipeline.demod._kernels import (
+    condition_block,
+    dechirped_sum,
+    derotate,
+    fir_interleaved,
+    phasor_table,
+    power_block_sums,
+)
 
 __all__ = ["CarrierAcquisition", "CarrierEstimate", "CarrierSearch", "SpectralLine", "estimate_carrier_offset",
            "spectral_line"]
