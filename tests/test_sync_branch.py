@@ -7,6 +7,7 @@ import pytest
 
 from pipeline.fec import conv_bit_symbol_index, conv_encode, puncture_pattern, viterbi_decode
 from pipeline.sync import BranchSync, branch_metric
+from pipeline.sync._kernels import rotated_pairs
 
 RATES = {"1/2": 0.5, "2/3": 2 / 3, "3/4": 0.75, "5/6": 5 / 6, "7/8": 7 / 8}
 
@@ -646,3 +647,26 @@ def test_memory_follows_the_calls_not_the_stream(rng):
     outs.append(bs.flush())
     assert np.array_equal(np.concatenate([o[0] for o in outs]), whole)
     assert np.array_equal(np.concatenate([o[1] for o in outs]), whole_pos)
+
+
+def _rotated_reference(pairs: np.ndarray, rotation: int) -> np.ndarray:
+    """The rotation hypotheses as plain column assignments: 1 (a, b) -> (b, -a), 2 -> (a, -b), 3 -> (b, a)."""
+    out = np.empty_like(pairs)
+    a, b = pairs[:, 0], pairs[:, 1]
+    out[:, 0] = a if rotation == 2 else b
+    out[:, 1] = {1: -a, 2: -b, 3: a}[rotation]
+    return out.reshape(-1)
+
+
+@pytest.mark.kat
+@pytest.mark.parametrize("rotation", [1, 2, 3])
+@pytest.mark.parametrize("split", [0, 1, 2, 7, 10, 12])
+def test_rotated_pairs_matches_column_assignments_across_a_split(rng, rotation, split):
+    # the soft bits held in two pieces (kept and new) that may split a pair: the same values, bit for bit, as
+    # joining them and rotating the pairs column by column
+    soft = rng.standard_normal(12).astype(np.float32)
+    soft[3] = 0.0  # an erasure keeps its sign bit as numpy's negation gives it
+    out = np.empty(12, np.float32)
+    rotated_pairs(soft[:split], soft[split:], rotation, out)
+    ref = _rotated_reference(soft.reshape(-1, 2), rotation)
+    assert np.array_equal(out.view(np.uint32), ref.view(np.uint32))

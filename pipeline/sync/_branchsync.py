@@ -490,19 +490,13 @@ class BranchSync:
         """Soft channel bits [a, b) (absolute) with the rotation hypothesis applied."""
         if not rotation:
             return self._soft_range(a, b)
+        # rotation 1: (a, b) -> (b, -a), undoes I + jQ -> j (I + jQ); 2: (a, b) -> (a, -b), OQPSK re-paired after
+        # 90 degrees, or a mirror image; 3: (a, b) -> (b, a), a mirror image (one pass over both pieces)
         lo, hi = a - a % 2, b + b % 2
-        pairs = self._soft_range(lo, hi).reshape(-1, 2)
-        out = np.empty_like(pairs)
-        if rotation == 1:  # (a, b) -> (b, -a): undoes I + jQ -> j (I + jQ)
-            out[:, 0] = pairs[:, 1]
-            out[:, 1] = -pairs[:, 0]
-        elif rotation == 2:  # (a, b) -> (a, -b): OQPSK re-paired after 90 degrees, or a mirror image
-            out[:, 0] = pairs[:, 0]
-            out[:, 1] = -pairs[:, 1]
-        else:  # (a, b) -> (b, a): a mirror image
-            out[:, 0] = pairs[:, 1]
-            out[:, 1] = pairs[:, 0]
-        return out.reshape(-1)[a - lo : b - lo]
+        head, rest = self._soft_pieces(lo, hi)
+        out = np.empty(head.size + rest.size, dtype=np.float32)
+        _kernels.rotated_pairs(head, rest, int(rotation), out)
+        return out[a - lo : b - lo]
 
     def _available(self, rotation: int) -> int:
         """One past the last channel index usable under a rotation (pairs must be complete)."""

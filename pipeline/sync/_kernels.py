@@ -21,6 +21,7 @@ __all__ = [
     "encoder_state_before",
     "reencode_metrics",
     "branch_output",
+    "rotated_pairs",
 ]
 
 
@@ -338,3 +339,39 @@ def branch_output(bits, pos_head, pos_rest, first, period_index, period_symbols,
             positions[i] = pos_head[j] if j < nh else pos_rest[j - nh]
             i += 1
         at += period_symbols
+
+
+@numba.njit(cache=True)
+def rotated_pairs(head, rest, rotation, out):  # pragma: no cover - compiled
+    """Soft channel-bit pairs ``(a, b)`` of ``concatenate((head, rest))`` under a rotation hypothesis, into ``out``.
+
+    ``rotation`` 1: ``(b, -a)`` (undoes ``I + jQ -> j (I + jQ)``), 2: ``(a, -b)``, 3: ``(b, a)``; the joined input
+    has ``len(out)`` values, an even number (the pieces may split a pair).  One pass, no temporaries (the numpy
+    column assignments it replaces made three passes and a temporary: 0.7 ms per 2^20 values).  The sign is a
+    multiplication by +-1, exact.
+    """
+    nh = head.shape[0]
+    n = out.shape[0]
+    swap = rotation != 2
+    sign = np.float32(1.0) if rotation == 3 else np.float32(-1.0)
+    j = 2 * (min(nh, n) // 2)
+    hs = head[:j]
+    for i in range(j // 2):
+        a = hs[2 * i]
+        b = hs[2 * i + 1]
+        out[2 * i] = b if swap else a
+        out[2 * i + 1] = sign * (a if swap else b)
+    if j < n:  # the first pair after the head's whole pairs: split between the pieces, or the rest's first
+        a = head[j] if j < nh else rest[j - nh]
+        b = head[j + 1] if j + 1 < nh else rest[j + 1 - nh]
+        out[j] = b if swap else a
+        out[j + 1] = sign * (a if swap else b)
+        j += 2
+    if j < n:
+        src = rest[j - nh:n - nh]
+        o = out[j:n]
+        for i in range((n - j) // 2):
+            a = src[2 * i]
+            b = src[2 * i + 1]
+            o[2 * i] = b if swap else a
+            o[2 * i + 1] = sign * (a if swap else b)
