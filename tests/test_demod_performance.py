@@ -220,6 +220,33 @@ def test_reacquisition_after_a_long_fade_with_a_frequency_jump():
     assert abs(np.median(f_late) - 6300.0) < 5.0
 
 
+
+@pytest.mark.parametrize("step_hz", [2000.0, -5000.0])
+def test_reacquisition_soon_after_a_carrier_step(step_hz):
+    """A carrier that jumps while the signal stays (a transponder switching between coherent and one-way, a
+    receiver retuned): the loop loses lock within a few ms and the search starts again after _REACQUIRE_SYMBOLS
+    unlocked symbols (16384, 68 ms at 240 ksym/s; it was 65536, 273 ms), the held window demodulated from its
+    start once the carrier is found."""
+    rng = np.random.default_rng(63)
+    w = modulate(192_000, esn0_db=6.0, carrier_offset_hz=2300.0, clock_offset_ppm=20.0, rng=rng)
+    x = w.samples.astype(np.complex128)
+    t = np.arange(x.size) / FS
+    late = t >= 0.3
+    x[late] *= np.exp(2j * math.pi * step_hz * (t[late] - 0.3))  # continuous phase, a frequency step
+    blk, d = _demodulate(x.astype(np.complex64))
+    tp = blk.position / FS
+    assert d.stats.carrier_found >= 2
+    lost = np.flatnonzero(~blk.locked & (tp > 0.3))
+    assert lost.size and tp[lost[0]] < 0.31  # the step is seen at once
+    back = np.flatnonzero(blk.locked & (tp > tp[lost[0]]))
+    assert back.size and tp[back[0]] - 0.3 < 0.15  # 65536 symbols unlocked before the search gave 0.31 s
+    assert blk.locked[back[0]:].mean() > 0.99
+    sub = SymbolBlock(soft=blk.soft[back[0] + 200:], position=blk.position[back[0] + 200:])
+    e, n, _ = symbol_errors(sub, w, "bpsk", skip=0)
+    assert e / n < 2 * theory_ser(6.0, "bpsk") + 1e-3
+    f_late = [p.carrier_offset_hz for p in blk.track if p.carrier_locked and p.position / FS > 0.5]
+    assert abs(np.median(f_late) - (2300.0 + step_hz)) < 5.0
+
 def test_recording_starting_before_the_signal():
     rng = np.random.default_rng(62)
     w = modulate(120_000, esn0_db=2.0, carrier_offset_hz=-1700.0, dropout=(0.0, 0.25), rng=rng)

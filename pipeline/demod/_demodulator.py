@@ -78,6 +78,14 @@ _SLOPE_TABLE_DB = (-10.0, 0.25, 40.25)
 #: lost within them, the acquisition starts again at once instead of after ``reacquire_symbols`` unlocked (at
 #: low Es/N0 the short lock average can hold for a few thousand symbols on a loop still pulling in).
 _LOCK_TRIAL = 16384
+#: Symbols the carrier stays unlocked, after a lock held past its trial, before the acquisition starts again.
+#: What was demodulated unlocked meanwhile is lost; the held window from then on is not.  A carrier that jumps
+#: (a transponder switching between coherent and one-way, a receiver retuned) is lost about 2 ms after the
+#: step at 240 ksym/s; 65536 symbols (273 ms there, 3.3 s at 20 ksym/s) cost the demo pass 4 frames for a
+#: 2 kHz step, 16384 cost it 1 (the frame the step falls in); tests/test_demod_performance.py.  Over a fade the
+#: coasting loop relocks on its own when the signal returns, or the search finds it (about 2 ms of CPU per
+#: 32768-sample block while nothing is there, the band detector's cost).
+_REACQUIRE_SYMBOLS = 16384
 #: Sub-intervals of a block whose mean frequencies give a track point's ``carrier_std_hz``.
 _FREQ_SUBINTERVALS = 8
 
@@ -585,7 +593,7 @@ class Demodulator:
         self.long_search_blocks = (max(4, min(int(math.ceil(_LONG_SEARCH_SYMBOLS * sps / self.block_samples)),
                                               _LONG_SEARCH_MAX_SAMPLES // self.block_samples))
                                    if self._mod_code != 0 else 0)
-        self.reacquire_symbols = 65536
+        self.reacquire_symbols = _REACQUIRE_SYMBOLS
 
         bw_hz = receiver.carrier_loop_bandwidth_hz or _AUTO_CARRIER_BANDWIDTH * link.symbol_rate_baud
         self.carrier_loop_bandwidth_hz = float(bw_hz)
