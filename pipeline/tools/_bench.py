@@ -419,7 +419,7 @@ def measure(*, seconds: float = 4.0, repeats: int = 3, segmented_seconds: float 
         Timed repeats per figure; the best is kept.
     segmented_seconds : float
         Length of the recording for the overlapping-segment figures (0 skips them); it must hold
-        several default segments (2^23 samples) to show a speed-up.
+        at least two default segments (2^24 samples) to show a speed-up.
     fresh_runs : int
         Fresh processes started for the warm-start and memory figures (the first fills the cache).
     progress : callable or None
