@@ -194,6 +194,24 @@ def test_c2_qpsk_iq_every_packet(tmp_path_factory):
     check_pass(P, res.frames_list, [bytes.fromhex(g["hex"]) for g in res.packets_list])
 
 
+
+def test_ar4ja_qpsk_a_90_degree_jump_costs_the_codeword_it_falls_in(tmp_path_factory):
+    # the carrier phase jumps by 90 degrees inside codeword 40 (a cycle slip of the receiver's loop looks the same
+    # to what follows it): the branch synchronizer switches the rotation at the next marker on the CADU grid, so
+    # the codeword with the jump is lost, not the rest of a 65536-bit rotation block (21 codewords before)
+    P = _iq_pass(tmp_path_factory, "ar4ja-1/2-1024", "qpsk", 2.8, 100, 154, fecf=True)
+    wave = P["wave"]
+    x = wave.samples.copy()
+    jump_bit = P["lead"] + 40 * (32 + P["n"]) + 700  # inside the second 65536-bit block
+    at = int(wave.peak_position[jump_bit // 2])  # QPSK: two channel bits per symbol
+    x[at:] *= np.complex64(1j)
+    meta = write_sigmf(P["folder"] / "jump", x)
+    res = decode(meta, P["prof"])
+    statuses = [f["status"] for f in res.frames_list]
+    assert len(statuses) == 100
+    bad = [k for k, st in enumerate(statuses) if st != "ok"]
+    assert bad == [P["spoiled"], 40]
+
 def test_soft_and_bits_symbol_files(ar4ja_bpsk, tmp_path):
     P = ar4ja_bpsk
     write_symbol_files(tmp_path, P["bits"], P["esn0_db"], np.random.default_rng(153), scale=20.0)

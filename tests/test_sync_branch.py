@@ -445,6 +445,54 @@ def test_a_wrong_rotation_showing_markers_is_still_left(rng):
     assert bs.stats.switches == 1
 
 
+
+@pytest.mark.parametrize("esn0_db", [20.0, -1.4])
+@pytest.mark.parametrize("turns", [1, 3])
+def test_a_rotation_change_inside_a_block_switches_at_its_first_marker(rng, esn0_db, turns):
+    # a carrier slip inside a block (turbo markers, soft correlation, the marker period given): the output
+    # switches at the first marker of the new rotation, not at the next block (3 CADUs of 3640 bits later here)
+    bits = turbo_cadu_stream(rng, 40)
+    period = 64 + 3576
+    sigma = np.sqrt(1.0 / (2.0 * 10.0 ** (esn0_db / 10.0)))
+    soft = (1.0 - 2.0 * bits + rng.normal(0.0, sigma, bits.size)).astype(np.float32)[: bits.size - bits.size % 2]
+    jump = 3 * 16384 + 5000  # a pair boundary inside the fourth block
+    rx = np.concatenate((soft[:jump], rotate(soft[jump:], turns)))
+    pos = np.arange(rx.size, dtype=np.float64)
+
+    def sync():
+        return BranchSync(rate="none", modulation="qpsk", marker_block_bits=16384, asm=TURBO_R12_MARKER,
+                          correlation="soft", marker_period_bits=period)
+
+    bs = sync()
+    out, opos = run(bs, rx, pos)
+    assert np.array_equal(opos, pos)
+    switches = [e.bit_index for e in bs.events]
+    assert len(switches) == 1 and jump <= switches[0] <= jump + period + 64 + 3
+    k = switches[0]
+    assert np.array_equal(np.abs(out[k:]), np.abs(soft[k:]))  # the stream (or its complement) from the switch on
+    assert abs(float(np.mean(np.sign(out[k:]) == np.sign(soft[k:]))) - 0.5) > 0.49
+    assert np.array_equal(out[:jump], soft[:jump])
+    out2, _ = run(sync(), rx, pos, cuts=rng.choice(np.arange(1, rx.size), 25, replace=False))  # chunking
+    assert np.array_equal(out, out2)
+
+
+def test_channel_bits_lost_and_a_rotation_change_inside_a_block(rng):
+    # samples dropped: 274 channel bits gone (the marker grid moves) and the carrier phase jumps with them
+    # (hard-correlation link, the 32-bit ASM, 2000-bit frames): switched at the first marker after the loss
+    bits = uncoded_cadu_stream(rng, 60)
+    soft = (1.0 - 2.0 * bits).astype(np.float32)[:-1]
+    cut_at = 4 * 8192 + 3000
+    rx = np.concatenate((soft[:cut_at], rotate(soft[cut_at + 274:], 1)))
+    pos = np.arange(rx.size, dtype=np.float64)
+    bs = BranchSync(rate="none", modulation="qpsk", marker_block_bits=8192, marker_period_bits=2032)
+    out, _ = run(bs, rx, pos)
+    switches = [e.bit_index for e in bs.events]
+    assert len(switches) == 1 and cut_at <= switches[0] <= cut_at + 2032 + 32
+    k = switches[0]
+    assert np.array_equal(out[k:], soft[k + 274:])
+    assert np.array_equal(out[:cut_at], soft[:cut_at])
+
+
 def test_soft_marker_arguments():
     with pytest.raises(ValueError, match="'correlation' must be 'hard' or 'soft'"):
         BranchSync(rate="none", modulation="qpsk", correlation="fuzzy")

@@ -188,7 +188,8 @@ class FrontEnd:
         line_code = "nrz-l" if profile.link.line_code == "bi-phase-l" else profile.link.line_code
         self.line = LineDecoder(line_code=line_code)
         soft_code = soft_block_code(profile)  # turbo and LDPC: their own marker, found by soft correlation
-        marker = ({"asm": soft_code.marker, "correlation": "soft"} if soft_code is not None else
+        marker = ({"asm": soft_code.marker, "correlation": "soft",
+                   "marker_period_bits": int(round(profile.cadu_channel_bits))} if soft_code is not None else
                   {"marker_period_bits": profile.codeblock_bits + 32,  # the ASM tells the metric's twins apart
                    "nrz_m": profile.link.line_code == "nrz-m"})
         self.branch = BranchSync(rate=profile.coding.convolutional, modulation=profile.link.modulation,
