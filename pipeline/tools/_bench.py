@@ -319,8 +319,10 @@ for chunk in rec.chunks(profile.receiver.chunk_samples):
         first = time.monotonic()
 chain.finish()
 sinks.close()
-status = {l.split(":")[0]: l.split()[1] for l in open("/proc/self/status") if l.startswith(("VmHWM", "RssAnon", "RssFile"))}
-peak = int(status["VmHWM"]) / 1024.0 if "VmHWM" in status else resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+status = {l.split(":")[0]: l.split()[1] for l in open("/proc/self/status")
+          if l.startswith(("VmHWM", "RssAnon", "RssFile"))}
+peak = (int(status["VmHWM"]) / 1024.0 if "VmHWM" in status
+        else resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0)
 anon, file = (int(status[k]) / 1024.0 if k in status else float("nan") for k in ("RssAnon", "RssFile"))
 print(json.dumps({"first": first, "end": time.monotonic(), "packets": chain.back.packet_count, "peak_rss_mb": peak,
                   "end_rss_anon_mb": anon, "end_rss_file_mb": file}))
