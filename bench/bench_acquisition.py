@@ -7,6 +7,9 @@ Run: ``python bench/bench_acquisition.py [--seconds S] [--cost-seconds S] [--ebn
    for the default (whole-band) search and for the former narrow one (``[receiver] acquisition_range_hz
    = 12000``, 5 % of 240 ksym/s, the old default), and for a recording of noise alone (where the search
    runs once per processing block).
+   ``--window`` also times one search of a 65536-sample window of each link (the demo's and ``downlink
+   bench``'s 2 Msym/s QPSK link, 0.2 s simulated with seed 3, the window from sample 20000): the
+   receiver's own :class:`~pipeline.demod.CarrierSearch`, best of 20 after one, in milliseconds.
 2. Sensitivity.  The same recordings (identical seeds) at each Eb/N0 are decoded with the whole-band
    search and with the narrow one; the packets each loses (against the simulator's truth) are counted
    and compared.  The issue asks for at least 600 frames per point: the default 52 s of the demo link
@@ -20,6 +23,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import os
 import tempfile
 import time
@@ -117,6 +121,27 @@ def sensitivity(tmp: Path, base, seconds: float, ebn0s: list[float], seed: int) 
               f"{len(lost_w & lost_n):13d} {len(lost_w - lost_n):10d}")
 
 
+def window_cost(tmp: Path, base) -> None:
+    """One search of a 65536-sample window of the demo link and of the 2 Msym/s QPSK link (ms, best of 20)."""
+    from pipeline.demod import Demodulator
+    from pipeline.profile import profile_from_dict
+    from pipeline.tools._bench import QPSK_LINK
+
+    print("one search of a 65536-sample window (the receiver's CarrierSearch), best of 20")
+    for name, prof in (("demo", base), ("qpsk-2msym", profile_from_dict(QPSK_LINK))):
+        sim = pipeline.simulate(prof, tmp / f"window_{name}", seed=3, seconds=0.2)
+        x = np.fromfile(sim.data_path, dtype=np.complex64)
+        demod = Demodulator(link=prof.link, receiver=prof.receiver, sample_rate_hz=prof.simulate.sample_rate_hz)
+        w = x[20000:20000 + 65536].copy()
+        found = demod._search.search(w).found
+        best = math.inf
+        for _ in range(20):
+            t0 = time.perf_counter()
+            demod._search.search(w)
+            best = min(best, time.perf_counter() - t0)
+        print(f"  {name:12s} {best * 1e3:6.2f} ms  (carrier found: {found}; load {os.getloadavg()[0]:.2f})")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__)
     ap.add_argument("--seconds", type=float, default=52.0, help="length of each sensitivity recording")
@@ -124,10 +149,13 @@ def main() -> None:
     ap.add_argument("--ebn0", type=float, nargs="+", default=[2.7, 3.0])
     ap.add_argument("--seed", type=int, default=2026)
     ap.add_argument("--skip-sensitivity", action="store_true")
+    ap.add_argument("--window", action="store_true", help="also time one search of a window of each link")
     args = ap.parse_args()
     base = pipeline.load_profile(pipeline.demo_profile_path())
     with tempfile.TemporaryDirectory(prefix="bench-acq-") as d:
         tmp = Path(d)
+        if args.window:
+            window_cost(tmp, base)
         cost(tmp, base, args.cost_seconds, args.seed)
         if not args.skip_sensitivity:
             sensitivity(tmp, base, args.seconds, args.ebn0, args.seed)
