@@ -232,6 +232,28 @@ def test_implementation_loss_within_half_a_db_at_esn0_5db(mode):
     assert ber < theory_at_loss, (ber, theory_at_loss)
 
 
+
+@pytest.mark.parametrize("gain_db", [-10.0, 10.0])
+@pytest.mark.parametrize("mode", ["pm-nrz", "psk-square"])
+def test_a_sudden_level_change_keeps_the_scale_of_the_soft_values(mode, gain_db):
+    # the samples (signal and noise) 10 dB weaker or stronger from inside a block on (a gain switched): the AGC
+    # takes the change at once (pipeline.demod._demodulator._AGC_ATTACK), so the soft values keep their scale,
+    # which a soft decoder's LLRs depend on (turbo k = 1784 on PCM/PM at 1.5 dB lost 2 of 26 codewords more to a
+    # 10 dB fall); with the 0.8 / 0.2 average alone they were scaled by the change for several blocks
+    link = _link(mode)
+    bits, mod, _, y = _recording(link, nbits=30_000 if mode == "pm-nrz" else 6_000, esn0_db=2.0, seed=44)
+    step = 10 * 32768 + 12_345  # inside a block (32768 samples at these rates)
+    y = y.copy()
+    y[step:] *= np.float32(10.0 ** (gain_db / 20.0))
+    demod = make_demodulator(link=link, receiver=ReceiverSection(), sample_rate_hz=FS)
+    soft, pos, locked, _ = _demodulate(demod, y)
+    a = np.abs(soft)
+    before = a[(pos >= step - 100_000) & (pos < step)].mean()
+    for lo in range(step, step + 150_000, 50_000):
+        after = a[(pos >= lo) & (pos < lo + 50_000)].mean()
+        assert 0.85 < after / before < 1.15, (lo - step, after / before)
+    assert locked[pos >= step].mean() > 0.99
+
 @pytest.mark.parametrize("mode", sorted(MODES))
 def test_coded_link_snr_es_n0_0db(mode):
     # Es/N0 = 0 dB is Eb/N0 = 3 dB on a rate-1/2 link: the loops must stay locked, one acquisition

@@ -26,7 +26,7 @@ from pipeline.demod._snr import esn0_db_from_moments
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "centre_window", "check_chunk",
-           "check_prediction", "continue_stream", "mirrored_line", "shifted_line",
+           "check_prediction", "continue_stream", "level_change_at", "mirrored_line", "shifted_line",
            "cut_blocks", "MIN_SAMPLES_PER_SYMBOL", "MAX_SAMPLES_PER_SYMBOL"]
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
@@ -303,6 +303,27 @@ class DcBlocker:
         # mean |x - d|^2 over the non-zero samples = mean |x|^2 - 2 Re(conj(d) mean) + |d|^2
         power = float(moments[2]) - 2.0 * (d.real * mean.real + d.imag * mean.imag) + abs(d) ** 2
         return max(power, 0.0)
+
+
+def level_change_at(dev: np.ndarray, agc_power: float, rise: bool, stretch: int = 256) -> tuple[int, float] | None:
+    """Where a block's level crossed ``_AGC_ATTACK`` times the AGC's power (``rise``) or fell under it by as much.
+
+    ``dev`` the block's samples less the DC offset (zeros are erasures: they count in no mean).  Returns the index
+    of the first ``stretch``-sample stretch beyond the threshold and the mean power from there on, or None when no
+    stretch is beyond it (a rise with none: the whole block, index 0).  Both demodulators' AGC scale the samples
+    from that index on by ``sqrt(agc_power / power)`` and then take ``power`` (:data:`_AGC_ATTACK`).
+    """
+    live = dev != 0
+    e = dev.real.astype(np.float64) ** 2 + dev.imag.astype(np.float64) ** 2
+    m = dev.size // stretch * stretch
+    cnt = live[:m].reshape(-1, stretch).sum(axis=1)
+    mean = e[:m].reshape(-1, stretch).sum(axis=1) / np.maximum(cnt, 1)
+    beyond = (mean > _AGC_ATTACK * agc_power) if rise else (_AGC_ATTACK * mean < agc_power)
+    over = np.flatnonzero(beyond & (cnt > 0))
+    if not over.size and not rise:
+        return None
+    k = int(over[0]) * stretch if over.size else 0
+    return k, float(np.sum(e[k:])) / max(int(np.count_nonzero(live[k:])), 1)
 
 
 def soft_costas_slope(esn0_db: np.ndarray) -> np.ndarray:
@@ -1079,28 +1100,18 @@ class Demodulator:
     def _level_change(self, block: np.ndarray, rise: bool) -> tuple[np.ndarray, float] | None:
         """A block whose power rose over ``_AGC_ATTACK`` times the AGC's (``rise``) or fell under it by as much: a
         copy with its samples from the first 256-sample stretch beyond that threshold on scaled about the DC
-        offset to the AGC's level (erasures stay zero, and count in no mean), and their mean power less the
-        offset, which the AGC takes (None for a fall with no stretch beyond the threshold).  The loops then see
-        one level across the change (within the stretch it falls in), and the block stays one block (one track
+        offset to the AGC's level (erasures stay zero), and their mean power less the offset, which the AGC takes
+        (None for a fall with no stretch beyond the threshold; :func:`level_change_at`).  The loops then see one
+        level across the change (within the stretch it falls in), and the block stays one block (one track
         point, the chunking unchanged)."""
         agc = self._agc_power
         d = np.complex64(self._dc.offset)
         live = block != 0
         dev = np.where(live, block - d, np.complex64(0))
-        e = dev.real.astype(np.float64) ** 2 + dev.imag.astype(np.float64) ** 2
-        sub = 256
-        m = block.size // sub * sub
-        cnt = live[:m].reshape(-1, sub).sum(axis=1)
-        mean = e[:m].reshape(-1, sub).sum(axis=1) / np.maximum(cnt, 1)
-        beyond = (mean > _AGC_ATTACK * agc) if rise else (_AGC_ATTACK * mean < agc)
-        over = np.flatnonzero(beyond & (cnt > 0))
-        if not over.size:
-            if not rise:
-                return None  # down, but no stretch beyond the threshold: the average follows as usual
-            k = 0
-        else:
-            k = int(over[0]) * sub
-        p_after = float(np.sum(e[k:])) / max(int(np.count_nonzero(live[k:])), 1)
+        found = level_change_at(dev, agc, rise)
+        if found is None:
+            return None
+        k, p_after = found
         scaled = block.copy()
         if p_after > 0.0:
             g = np.float32(math.sqrt(agc / p_after))

@@ -13,12 +13,15 @@ import numpy as np
 from pipeline.demod import DemodStats, Demodulator, SymbolBlock, TrackPoint
 from pipeline.demod._acquire import CarrierSearch, SpectralLine, _next_pow2
 from pipeline.demod._demodulator import (
+    _AGC_ATTACK,
+    _AGC_FALL_CHECK,
     DcBlocker,
     centre_window,
     check_chunk,
     check_prediction,
     continue_stream,
     cut_blocks,
+    level_change_at,
     mirrored_line,
     shifted_line,
 )
@@ -251,7 +254,9 @@ class ResidualCarrierDemodulator:
     depend on the chunking.  Per block:
 
     1. NaN/Inf samples become 0 (counted); conjugated when ``[receiver] spectrum_inverted = true``;
-       the DC offset removed (:class:`pipeline.demod.DcBlocker`); AGC to unit mean power.
+       the DC offset removed (:class:`pipeline.demod.DcBlocker`); AGC to unit mean power (a level change over
+       ``_AGC_ATTACK`` inside a block is scaled back from its first 256-sample stretch and taken at once, as in
+       the suppressed-carrier demodulator).
     2. While no carrier is held, the block goes to the search and is held back
        (:class:`~pipeline.demod.residual._search.ResidualCarrierSearch`: periodograms accumulated over
        up to ``dwell_blocks`` blocks, about 8192 symbols).  When the line is found the window grows
@@ -599,8 +604,20 @@ class ResidualCarrierDemodulator:
         if self.conjugate:
             block = np.conj(block)
         block, pw = self._dc.process(block)
+        agc = self._agc_power
+        if pw > 0 and agc > 0 and (pw > _AGC_ATTACK * agc or pw < _AGC_FALL_CHECK * agc):
+            # the level changed by more than _AGC_ATTACK in power (a gain switched, out of a fade): the samples from
+            # the change on are scaled to the level before it, whose gain the block takes, and the AGC the new level
+            # (as the suppressed-carrier demodulator's AGC does; else the average's 0.8 / 0.2 step per block lags)
+            found = level_change_at(block, agc, rise=pw > agc)
+            if found is not None:
+                k, p_after = found
+                if p_after > 0.0:
+                    block[k:] *= np.float32(math.sqrt(agc / p_after))
+                    self._agc_power = p_after
+                return block, 1.0 / math.sqrt(agc)
         if pw > 0:
-            self._agc_power = pw if self._agc_power == 0.0 else 0.8 * self._agc_power + 0.2 * pw
+            self._agc_power = pw if agc == 0.0 else 0.8 * agc + 0.2 * pw
         gain = 1.0 / math.sqrt(self._agc_power) if self._agc_power > 0 else 1.0
         return block, gain
 
