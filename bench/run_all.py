@@ -9,7 +9,8 @@ Run from the repository root: ``python bench/run_all.py [--quick] [--json FILE]`
    ``bench_recording.py``, ``bench_demod.py``, ``bench_track_replay.py``, ``bench_strobe_floor.py``,
    ``bench_acquisition.py`` (its sensitivity part left out
    with ``--quick``), ``bench_fec.py``, ``bench_turbo.py``, ``bench_ldpc.py``,
-   ``bench_end_to_end.py`` (a 1 GB recording; 0.25 GB with ``--quick``), ``bench_sweep.py``,
+   ``bench_end_to_end.py`` (a 1 GB recording; 0.25 GB with ``--quick``), ``bench_impairments.py`` (the demo
+   and QPSK links only with ``--quick``), ``bench_sweep.py``,
    ``sweep_turbo.py``, ``sweep_ldpc.py`` and ``bench_sync_onset.py`` (Monte-Carlo; left out with ``--quick``).  A
    script that is missing or fails is reported and the others still run; the exit status is 1 if any
    failed.
@@ -39,6 +40,7 @@ def _scripts(quick: bool) -> list[tuple[str, list[str]]]:
         ("bench_turbo.py", ["--frames", "64", "--repeat", "2"] if quick else []),
         ("bench_ldpc.py", ["--codewords", "256", "--repeat", "3"] if quick else []),
         ("bench_end_to_end.py", ["--gigabytes", "0.25"] if quick else []),
+        ("bench_impairments.py", ["--links", "demo,qpsk"] if quick else []),
     ]
     if not quick:
         rows.append(("bench_sweep.py", []))
