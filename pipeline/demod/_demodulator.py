@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 from typing import Any
@@ -324,6 +325,13 @@ def level_change_at(dev: np.ndarray, agc_power: float, rise: bool, stretch: int 
         return None
     k = int(over[0]) * stretch if over.size else 0
     return k, float(np.sum(e[k:])) / max(int(np.count_nonzero(live[k:])), 1)
+
+
+@functools.lru_cache(maxsize=1)
+def _slope_table() -> np.ndarray:
+    """:func:`soft_costas_slope` on the grid :data:`_SLOPE_TABLE_DB`, computed once per process (1 ms; the tracker
+    only reads it)."""
+    return soft_costas_slope(np.arange(_SLOPE_TABLE_DB[0], _SLOPE_TABLE_DB[2], _SLOPE_TABLE_DB[1]))
 
 
 def soft_costas_slope(esn0_db: np.ndarray) -> np.ndarray:
@@ -683,7 +691,7 @@ class Demodulator:
             pr["slow_esn0"] = 10.0 ** (_SLOW_LOCK_ESN0_DB / 10.0)
             pr["soft_below"] = 10.0 ** (_SOFT_BELOW_DB / 10.0)
         pr["ct_db0"], pr["ct_step"] = _SLOPE_TABLE_DB[:2]
-        self._c_table = soft_costas_slope(np.arange(_SLOPE_TABLE_DB[0], _SLOPE_TABLE_DB[2], _SLOPE_TABLE_DB[1]))
+        self._c_table = _slope_table()
         pr["c_min_scale"] = _CARRIER_MIN_SCALE if qpsk else _TIMING_MIN_SCALE
         pr["s_on"], pr["s_off"], pr["s_min"] = 0.5, 0.25, 0.04
         pr["r0"], pr["kd"] = r0, kd
