@@ -7,7 +7,7 @@ import pytest
 
 from pipeline.fec import conv_bit_symbol_index, conv_encode, puncture_pattern, viterbi_decode
 from pipeline.sync import BranchSync, branch_metric
-from pipeline.sync._kernels import rotated_pairs
+from pipeline.sync._kernels import marker_scores, near_marker_scores, rotated_pairs
 
 RATES = {"1/2": 0.5, "2/3": 2 / 3, "3/4": 0.75, "5/6": 5 / 6, "7/8": 7 / 8}
 
@@ -718,3 +718,26 @@ def test_rotated_pairs_matches_column_assignments_across_a_split(rng, rotation, 
     rotated_pairs(soft[:split], soft[split:], rotation, out)
     ref = _rotated_reference(soft.reshape(-1, 2), rotation)
     assert np.array_equal(out.view(np.uint32), ref.view(np.uint32))
+
+
+@pytest.mark.kat
+def test_near_marker_scores_match_the_scores_one_offset_at_a_time(rng):
+    # the largest |score| within 3 offsets of each place, and where (the first of equals), against marker_scores
+    # offset by offset; places at both ends of the array, where fewer offsets fit, and one where none does
+    sign = 1.0 - 2.0 * rng.integers(0, 2, 32).astype(np.float64)
+    soft = rng.normal(0.0, 1.0, 400).astype(np.float32)
+    soft[100:132] = sign  # a marker at 100
+    places = np.array([0, 2, 98, 101, 250, 365, 368, 372, 399], dtype=np.int64)
+    scores, offsets = np.empty(places.size), np.empty(places.size, np.int64)
+    near_marker_scores(soft, places, 3, sign, scores, offsets)
+    m = sign.size
+    for p, sc, at in zip(places, scores, offsets):
+        lo, hi = max(p - 3, 0), min(p + 3, soft.size - m)
+        if hi < lo:
+            assert (sc, at) == (0.0, p)
+            continue
+        out = np.empty(hi - lo + 1)
+        marker_scores(soft, lo, hi - lo + 1, sign, out)
+        j = int(np.argmax(np.abs(out)))
+        assert sc == abs(out[j]) and at == lo + j
+    assert offsets[2] == 100 and scores[2] == pytest.approx(np.sqrt(32.0))

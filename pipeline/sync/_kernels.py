@@ -17,6 +17,7 @@ __all__ = [
     "marker_score",
     "find_marker_soft",
     "marker_scores",
+    "near_marker_scores",
     "hard_decisions",
     "encoder_state_before",
     "reencode_metrics",
@@ -142,6 +143,27 @@ def marker_scores(soft, start, count, sign, out):  # pragma: no cover - compiled
     """``out[k]`` = :func:`marker_score` at offset ``start + k``, ``k = 0 .. count - 1``.  Cost O(count m)."""
     for k in range(count):
         out[k] = marker_score(soft, start + k, sign)
+
+
+@numba.njit(cache=True)
+def near_marker_scores(soft, places, near, sign, scores, offsets):  # pragma: no cover - compiled
+    """At each of ``places``: the largest ``|marker_score|`` within ``near`` offsets of it (clipped to the array)
+    into ``scores`` and its offset (the first of equals) into ``offsets``; 0.0 and the place itself where no
+    offset fits.  Cost O(len(places) (2 near + 1) m)."""
+    m = sign.shape[0]
+    for i in range(places.shape[0]):
+        p = places[i]
+        lo = max(p - near, 0)
+        hi = min(p + near, soft.shape[0] - m)
+        best = 0.0
+        at = p
+        for k in range(lo, hi + 1):
+            sc = abs(marker_score(soft, k, sign))
+            if sc > best or k == lo:
+                best = sc
+                at = k
+        scores[i] = best
+        offsets[i] = at
 
 
 @numba.njit(cache=True)
