@@ -170,18 +170,11 @@ def _half_bin_probes(n: int, block: int) -> np.ndarray:
     return probes
 
 
-@functools.lru_cache(maxsize=4)
-def _hann64(n: int) -> np.ndarray:
-    """``numpy.hanning(n)`` as complex64, read-only (the data-line test's window)."""
-    w = np.hanning(n).astype(np.complex64)
-    w.flags.writeable = False
-    return w
-
-
-@functools.lru_cache(maxsize=4)
-def _hann32(n: int) -> np.ndarray:
-    """``numpy.hanning(n)`` as float32, read-only (the tone test's window)."""
-    w = np.hanning(n).astype(np.float32)
+@functools.lru_cache(maxsize=8)
+def _hann(n: int, dtype: type) -> np.ndarray:
+    """``numpy.hanning(n)`` as ``dtype``, read-only (the data-line test's window, complex64; the tone test's,
+    float32)."""
+    w = np.hanning(n).astype(dtype)
     w.flags.writeable = False
     return w
 
@@ -237,7 +230,7 @@ def _tone_q(y: np.ndarray, ym: np.ndarray, power: int, offset_hz: float, rate_hz
     (:func:`~pipeline.demod._kernels.dechirped_sum`, about 0.1 ms each on 65536 samples).
     """
     n = y.size
-    w = _hann32(n)
+    w = _hann(n, np.float32)
     f_cyc = offset_hz / sample_rate_hz
     r_cyc = rate_hz_per_s / (sample_rate_hz * sample_rate_hz)
     a1 = abs(dechirped_sum(np.ascontiguousarray(y, dtype=np.complex64), w, f_cyc, r_cyc))
@@ -382,6 +375,11 @@ class CarrierSearch:
             max(1, int(0.5 * self.power * self.occupied_hz / self.symbol_rate_hz + 1e-9))
         taps = check_taps if check_taps is not None else prefilter
         self._check_taps = np.ones(1, np.float32) if taps is None else np.ascontiguousarray(taps, dtype=np.float32)
+        # odd symmetric check taps (the matched filter): the data-line test derotates and filters in one pass
+        # (condition_block, its table-driven phasor); others (the Bi-phase-L chip's box) through derotate and
+        # fir_interleaved
+        ct = self._check_taps
+        self._check_fused = ct.size % 2 == 1 and bool(np.array_equal(ct, ct[::-1]))
         self._tpl = None if tpl is None else np.asarray(tpl, dtype=np.float64)
         self._tpl_cache: dict[int, tuple[np.ndarray, np.ndarray, float]] = {}
 
@@ -600,7 +598,7 @@ class CarrierSearch:
         block = max(1, n // 4096)  # the probes on block sums: at most 4096 per window (see _half_bin_probes)
         n_b = n // block
         probes = _half_bin_probes(n, block)
-        weight = _hann64(n)
+        weight = _hann(n, np.complex64)
         if rate_hz_per_s:
             t = (np.arange(n) - 0.5 * (n - 1)) / fs
             weight = weight * np.exp(-1j * math.pi * m * rate_hz_per_s * t * t).astype(np.complex64)
@@ -608,9 +606,7 @@ class CarrierSearch:
         x = np.ascontiguousarray(x, dtype=np.complex64)
         y = np.empty(n, dtype=np.complex64)
         zb = np.empty(n_b, dtype=np.complex64)
-        # odd symmetric taps (the matched filter): derotation and filter in one pass (condition_block, its
-        # table-driven phasor); other taps (the Bi-phase-L chip's box) through derotate and fir_interleaved
-        fused = taps.size % 2 == 1 and bool(np.array_equal(taps, taps[::-1]))
+        fused = self._check_fused
         table = np.empty(512, dtype=np.float32)
         hist = np.zeros(2 * (taps.size - 1), dtype=np.float32)
         mom = np.empty(4, dtype=np.float64)

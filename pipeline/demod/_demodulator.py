@@ -27,7 +27,8 @@ from pipeline.demod._snr import esn0_db_from_moments
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "centre_window", "check_chunk",
-           "check_prediction", "continue_stream", "level_change_at", "mirrored_line", "shifted_line",
+           "check_prediction", "continue_stream", "agc_average", "level_change_at", "level_suspect",
+           "mirrored_line", "shifted_line",
            "cut_blocks", "MIN_SAMPLES_PER_SYMBOL", "MAX_SAMPLES_PER_SYMBOL"]
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
@@ -300,10 +301,28 @@ class DcBlocker:
             self.offset += self.weight * (mean - self.offset)
         else:
             self.offset, self._started = mean, True
+        return max(self.power_after(moments), 0.0)
+
+    def power_after(self, moments: np.ndarray) -> float:
+        """A block's mean power (``moments`` as :meth:`update` takes them) less the current offset: mean
+        ``|x - d|^2`` over the non-zero samples ``= mean |x|^2 - 2 Re(conj(d) mean) + |d|^2``."""
         d = self.offset
-        # mean |x - d|^2 over the non-zero samples = mean |x|^2 - 2 Re(conj(d) mean) + |d|^2
-        power = float(moments[2]) - 2.0 * (d.real * mean.real + d.imag * mean.imag) + abs(d) ** 2
-        return max(power, 0.0)
+        return float(moments[2]) - 2.0 * (d.real * float(moments[0]) + d.imag * float(moments[1])) + abs(d) ** 2
+
+
+def agc_average(agc_power: float, power: float) -> float:
+    """The AGC's average after a block of mean ``power`` (> 0): the first block's own, a block over
+    ``_AGC_ATTACK`` times the average or under it by as much its own too, else 0.8 of the average and 0.2 of it."""
+    if agc_power == 0.0 or power > _AGC_ATTACK * agc_power or _AGC_ATTACK * power < agc_power:
+        return power
+    return 0.8 * agc_power + 0.2 * power
+
+
+def level_suspect(power: float, agc_power: float) -> bool:
+    """Whether a block of mean ``power`` may hold a level change for :func:`level_change_at` to look for: over
+    ``_AGC_ATTACK`` times the average, or under ``_AGC_FALL_CHECK`` of it (a fall inside a block lowers its mean by
+    the fraction after it only)."""
+    return agc_power > 0.0 and power > 0.0 and (power > _AGC_ATTACK * agc_power or power < _AGC_FALL_CHECK * agc_power)
 
 
 def level_change_at(dev: np.ndarray, agc_power: float, rise: bool, stretch: int = 256) -> tuple[int, float] | None:
@@ -860,10 +879,7 @@ class Demodulator:
         """DC offset and AGC power from a block's moments."""
         p = self._dc.update(count, moments)
         if p > 0.0:
-            # a block over _AGC_ATTACK times the average, or under it by as much, takes its own power
-            agc = self._agc_power
-            jump = agc == 0.0 or p > _AGC_ATTACK * agc or _AGC_ATTACK * p < agc
-            self._agc_power = p if jump else 0.8 * self._agc_power + 0.2 * p
+            self._agc_power = agc_average(self._agc_power, p)
 
     def _acquire(self, out: SymbolOut, final: bool = False) -> None:
         """Search the held window; release all of it if found (or at the end), else its first block."""
@@ -1024,12 +1040,10 @@ class Demodulator:
                 block, cnt, m3 = self._moments(block)
                 self._run_block(block, (cnt, m3), out, t_limit)
                 return
-            p_block, agc = (self._power_after_dc(mom), self._agc_power) if mom[3] > 0 else (0.0, 0.0)
-            # (a fall inside the block lowers its mean by the fraction after it only: its stretches are looked at
-            # once the mean is down by _AGC_FALL_CHECK)
+            p_block = self._dc.power_after(mom) if mom[3] > 0 else 0.0
             change = None
-            if agc > 0.0 and p_block > 0.0 and (p_block > _AGC_ATTACK * agc or p_block < _AGC_FALL_CHECK * agc):
-                change = self._level_change(block, rise=p_block > agc)
+            if level_suspect(p_block, self._agc_power):
+                change = self._level_change(block, rise=p_block > self._agc_power)
             if change is not None:
                 # the level changed by more than _AGC_ATTACK in power (out of a fade, a gain switched): undo, scale
                 # the samples from the change on to the level before it, run the block so, and take the new level
@@ -1098,12 +1112,6 @@ class Demodulator:
         if not tail and self._unlocked_run >= self.reacquire_symbols and not (st["pull_left"] and st["soft_on"]):
             self._unlocked_run = 0
             self._acquiring = True
-
-    def _power_after_dc(self, mom: np.ndarray) -> float:
-        """A block's mean power (non-zero samples, moments as :func:`mean_power_nonzero` gives them) less the DC
-        offset estimated so far, as the AGC measures it."""
-        d = self._dc.offset
-        return float(mom[2]) - 2.0 * (d.real * float(mom[0]) + d.imag * float(mom[1])) + abs(d) ** 2
 
     def _level_change(self, block: np.ndarray, rise: bool) -> tuple[np.ndarray, float] | None:
         """A block whose power rose over ``_AGC_ATTACK`` times the AGC's (``rise``) or fell under it by as much: a

@@ -509,6 +509,18 @@ class BranchSync:
         _kernels.rotated_pairs(head, rest, int(rotation), out)
         return out[a - lo : b - lo]
 
+    def _views(self, a: int, b: int):
+        """``view(r)``: soft channel bits [a, b) under rotation ``r`` as a contiguous float32 array, each
+        rotation made once however often it is asked for."""
+        views: dict[int, np.ndarray] = {}
+
+        def view(r: int) -> np.ndarray:
+            if r not in views:
+                views[r] = np.ascontiguousarray(self._view(a, b, r), dtype=np.float32)
+            return views[r]
+
+        return view
+
     def _available(self, rotation: int) -> int:
         """One past the last channel index usable under a rotation (pairs must be complete)."""
         return self._n_in - (self._n_in % 2 if rotation else 0)
@@ -571,12 +583,7 @@ class BranchSync:
         off at up to 0.64 of their own score (5.1 of 8.0 for the 64-bit marker, above its threshold of
         4.98 when the signal is strong), so the rotation is chosen by how well it explains the markers.
         """
-        views: dict[int, np.ndarray] = {}
-
-        def view(r: int) -> np.ndarray:
-            if r not in views:
-                views[r] = np.ascontiguousarray(self._view(a, b, r), dtype=np.float32)
-            return views[r]
+        view = self._views(a, b)
 
         hits = self._soft_hits(view(rot), _SOFT_MARKERS)
         if not hits:  # none under the current rotation: the markers every other rotation shows
@@ -674,12 +681,7 @@ class BranchSync:
         n = b - a
         if P is None or n < 3 * P:
             return None
-        views: dict[int, np.ndarray] = {}
-
-        def view(r: int) -> np.ndarray:
-            if r not in views:
-                views[r] = np.ascontiguousarray(self._view(a, b, r), dtype=np.float32)
-            return views[r]
+        view = self._views(a, b)
 
         grids: list[dict] = []  # each grid's scores per rotation at its places
 

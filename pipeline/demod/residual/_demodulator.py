@@ -13,15 +13,15 @@ import numpy as np
 from pipeline.demod import DemodStats, Demodulator, SymbolBlock, TrackPoint
 from pipeline.demod._acquire import CarrierSearch, SpectralLine, _next_pow2
 from pipeline.demod._demodulator import (
-    _AGC_ATTACK,
-    _AGC_FALL_CHECK,
     DcBlocker,
+    agc_average,
     centre_window,
     check_chunk,
     check_prediction,
     continue_stream,
     cut_blocks,
     level_change_at,
+    level_suspect,
     mirrored_line,
     shifted_line,
 )
@@ -605,7 +605,7 @@ class ResidualCarrierDemodulator:
             block = np.conj(block)
         block, pw = self._dc.process(block)
         agc = self._agc_power
-        if pw > 0 and agc > 0 and (pw > _AGC_ATTACK * agc or pw < _AGC_FALL_CHECK * agc):
+        if level_suspect(pw, agc):
             # the level changed by more than _AGC_ATTACK in power (a gain switched, out of a fade): the samples from
             # the change on are scaled to the level before it, whose gain the block takes, and the AGC the new level
             # (as the suppressed-carrier demodulator's AGC does; else the average's 0.8 / 0.2 step per block lags)
@@ -617,7 +617,7 @@ class ResidualCarrierDemodulator:
                     self._agc_power = p_after
                 return block, 1.0 / math.sqrt(agc)
         if pw > 0:
-            self._agc_power = pw if agc == 0.0 else 0.8 * agc + 0.2 * pw
+            self._agc_power = agc_average(agc, pw)
         gain = 1.0 / math.sqrt(self._agc_power) if self._agc_power > 0 else 1.0
         return block, gain
 
