@@ -427,7 +427,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
     facts = RunFacts(
         tool=f"downlink {__version__}", profile=profile, input_kind=inp.kind, recording_info=inp.info,
         duration_s=float(inp.duration_s), elapsed_s=elapsed, samples=front.counts.samples,
-        nonfinite=front.counts.nonfinite, channel_symbols=front.counts.channel_symbols,
+        nonfinite=front.counts.nonfinite, clip_checked=front.counts.clip_checked,
+        clipped_values=front.counts.clipped_values, channel_symbols=front.counts.channel_symbols,
         locked_symbols=front.counts.locked_symbols, stage_stats=front.stats, sync_events=front.events,
         demod_events=back.events, track=back.track.arrays(), modulation_index_rad=back.track.modulation_index_rad,
         position_rate_hz=inp.position_rate_hz, frames=back.frame_count, packets=back.packet_count,
@@ -451,6 +452,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         report["demod"]["carrier_found_mirrored"] = front.demod.carrier_found_mirrored
         report["demod"]["inversion_note"] = MIRRORED_PREDICTION_NOTE
         log.warning(MIRRORED_PREDICTION_NOTE)
+    if report["pass"].get("clipping_note"):
+        log.warning(report["pass"]["clipping_note"])
     summary = DecodeSummary(frames=back.frame_count, frames_ok=ok, frames_idle=idle,
                             frames_failed=back.frame_count - ok - idle, packets=back.packet_count,
                             duration_s=float(inp.duration_s), elapsed_s=elapsed, samples=front.counts.samples,

@@ -10,6 +10,7 @@ from pipeline.demod._acquire import (
     CarrierSearch,
     SpectralLine,
     estimate_carrier_offset,
+    rail_values,
 )
 from pipeline.demod._demodulator import DcBlocker, DemodStats, Demodulator, SymbolBlock, TrackPoint
 from pipeline.demod._filters import matched_filter_taps, raised_cosine_pulse, rrc_pulse
@@ -37,6 +38,7 @@ __all__ = [
     "write_inspect_plots",
     "m2m4_signal_noise",
     "matched_filter_taps",
+    "rail_values",
     "raised_cosine_pulse",
     "rrc_pulse",
 ]

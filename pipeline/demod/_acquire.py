@@ -19,7 +19,7 @@ from pipeline.demod._kernels import (
 )
 
 __all__ = ["CarrierAcquisition", "CarrierEstimate", "CarrierSearch", "SpectralLine", "estimate_carrier_offset",
-           "spectral_line"]
+           "rail_values", "rails_clipped", "spectral_line"]
 
 #: Detection threshold of a spectral line: peak over the median bin of the searched band (16 dB; the
 #: mean of an exponential is 1/ln 2 times its median, so a noise bin passes with probability e^-27.7).
@@ -33,6 +33,10 @@ _MAX_RATES = 65
 LONG_LINE_THRESHOLD = 32.0
 #: At most this many in a long search (:meth:`CarrierSearch.search_long`; the rates stop there).
 _MAX_RATES_LONG = 129
+#: A window with at least this fraction of its values at one of a rail's two extremes (the most positive or the
+#: most negative real or imaginary part, exactly) has clipped rails: unclipped samples reach an extreme once or
+#: twice (:func:`rails_clipped`).
+CLIPPED_FRACTION = 1.0 / 1024.0
 #: A found line whose ``|a_M| / |a_1|^M`` (:func:`_tone_q`) is below this is a CW tone, not a suppressed carrier
 #: (tones measure 0.94-1.02, BPSK leaking -10 dB of its power as carrier 3.7 and more).
 TONE_Q = 2.0
@@ -111,6 +115,40 @@ class CarrierAcquisition:
     line: SpectralLine
     data_line: bool = False
     tone: bool = False
+
+
+def rail_values(x: np.ndarray) -> int:
+    """The values (real and imaginary parts) of ``x`` that sit exactly at one of its rails' extremes (the most
+    positive or most negative real or imaginary part), counting only the extremes that at least
+    :data:`CLIPPED_FRACTION` of the samples (and 8) reach: 0 for samples below full scale, which reach each
+    extreme once or twice.  An ADC driven past full scale (or a recording clipped on conversion) repeats its
+    largest and smallest codes.  Cost: four passes over each rail.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> x = np.random.default_rng(1).standard_normal(4096).astype(np.complex64)
+    >>> rail_values(x), rail_values(np.clip(x.real, -1, 1) + 1j * np.clip(x.imag, -1, 1))
+    (0, 1284)
+    """
+    x = np.asarray(x)
+    if x.size == 0:
+        return 0
+    need = max(8, int(CLIPPED_FRACTION * x.size))
+    total = 0
+    for rail in (x.real, x.imag):
+        hi, lo = rail.max(), rail.min()
+        if hi == lo:
+            continue  # constant (a rail of zeros): nothing clipped
+        for edge in (hi, lo):
+            k = int(np.count_nonzero(rail == edge))
+            total += k if k >= need else 0
+    return total
+
+
+def rails_clipped(x: np.ndarray) -> bool:
+    """Whether ``x`` has clipped rails (:func:`rail_values` above 0)."""
+    return rail_values(x) > 0
 
 
 def _next_pow2(n: float) -> int:
@@ -390,6 +428,7 @@ class CarrierSearch:
         if x.ndim != 1 or x.size < 1024 or not np.iscomplexobj(x):
             raise ValueError(f"Argument 'samples' must be complex, one-dimensional, at least 1024 samples, "
                              f"not {x.dtype} {x.shape}.")
+        clipped = rails_clipped(x)
         # a receiver DC offset would otherwise square into a false line at 0 Hz
         x = (x - np.mean(x, dtype=np.complex128)).astype(np.complex64)
         band_hz = 0.0
@@ -399,7 +438,7 @@ class CarrierSearch:
                 return CarrierAcquisition(False, centre, centre, 0.0, centre, SpectralLine(centre, excess_db, "band"))
             if self.coarse:
                 band_hz = centre
-        return self._fine(x, band_hz)
+        return self._fine(x, band_hz, clipped=clipped)
 
     def search_long(self, samples: np.ndarray, band_hz: float) -> CarrierAcquisition:
         """The line search alone over a long window (complex, at least 1024 samples) around ``band_hz``.
@@ -417,8 +456,9 @@ class CarrierSearch:
         if x.ndim != 1 or x.size < 1024 or not np.iscomplexobj(x):
             raise ValueError(f"Argument 'samples' must be complex, one-dimensional, at least 1024 samples, "
                              f"not {x.dtype} {x.shape}.")
+        clipped = rails_clipped(x)
         x = (x - np.mean(x, dtype=np.complex128)).astype(np.complex64)
-        return self._fine(x, float(band_hz), long=True)
+        return self._fine(x, float(band_hz), long=True, clipped=clipped)
 
     # ---- stages -----------------------------------------------------------------------------
     def _template(self, nfft: int) -> tuple[np.ndarray, np.ndarray, float]:
@@ -475,7 +515,16 @@ class CarrierSearch:
         excess = max(float(c[k]) / max(float(np.sum(h * h)), 1e-30), 1e-12)
         return float(f), float(z), 10.0 * math.log10(excess)
 
-    def _fine(self, x: np.ndarray, band_hz: float, long: bool = False) -> CarrierAcquisition:
+    def _fine(self, x: np.ndarray, band_hz: float, long: bool = False, clipped: bool = False) -> CarrierAcquisition:
+        """The line search (class Notes); ``clipped``: the window's rails are clipped, so the recording's own 0 Hz
+        is taken out of the ``M``-th power first, and put back if no line is found without it."""
+        if clipped:
+            got = self._fine_once(x, band_hz, long, True)
+            if got.found or got.data_line or got.tone:
+                return got
+        return self._fine_once(x, band_hz, long, False)
+
+    def _fine_once(self, x: np.ndarray, band_hz: float, long: bool, no_clip_line: bool) -> CarrierAcquisition:
         fs, m = self.sample_rate_hz, self.power
         n = x.size
         y = np.empty(n, dtype=np.complex64)
@@ -493,6 +542,11 @@ class CarrierSearch:
         if m == 4:
             zz *= zz
         line_band = min(m * self.fine_hz, 0.5 * fs)
+        if no_clip_line and m * abs(band_hz) <= line_band:
+            # clipped rails: the recording's samples fill a square, whose M-th power has a line at the recording's
+            # own 0 Hz (here -M band_hz) whatever the carrier; its projection over the window is taken out
+            art = np.exp(-2j * math.pi * (m * band_hz / fs) * np.arange(n)).astype(np.complex64)
+            zz -= art * np.complex64(np.vdot(art, zz) / n)
         n_d = n // max(1, int(fs / (2.5 * line_band)))
         zd = band_limited(zz, n_d)
         fs_d = fs * n_d / n

@@ -33,6 +33,9 @@ __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker"
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
 _RRC_SPAN_SYMBOLS = 8
+#: QPSK/OQPSK carrier lock: the lowest locked value of the fourth-power statistic taken from its own window, as a
+#: fraction of S^2 from the M2M4 moments (rails clipped at their rms read 0.44; track_symbols Notes).
+_LOCK_MAGNITUDE_FLOOR = 0.4
 _AUTO_CARRIER_BANDWIDTH = 0.002  # x symbol rate; see Demodulator Notes
 _ZETA = 1.0 / math.sqrt(2.0)
 #: Samples per symbol the suppressed-carrier demodulator serves.  Below 2 the Gardner detector has no
@@ -701,6 +704,9 @@ class Demodulator:
         # fourth-power statistic is averaged over 2048 symbols and rose on noise for a few hundred)
         pr["c_hold"] = 384.0 if qpsk else 128.0
         pr["c_on"], pr["c_off"], pr["c_min"] = 0.75, 0.3, 0.15 if qpsk else 0.25
+        # QPSK/OQPSK: the fourth-power statistic's locked value is its window's own magnitude where that is below
+        # S^2 from M2M4, down to _LOCK_MAGNITUDE_FLOOR of it (clipped rails; track_symbols Notes)
+        pr["c_mag"] = _LOCK_MAGNITUDE_FLOOR if qpsk else 1.0
         if qpsk:
             # low Es/N0 (QPSK/OQPSK): a found carrier is tracked for _PULL_SYMBOLS before lock is declared,
             # and lock may come from the long average of the fourth-power statistic

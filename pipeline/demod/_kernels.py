@@ -55,6 +55,7 @@ TRACK_PARAMS = np.dtype([
     ("gear_symbols", np.float64), ("c_hold", np.float64), ("pull_symbols", np.float64), ("l_lock_slow", np.float64),
     ("c_on_slow", np.float64), ("c_min_slow", np.float64), ("c_hold_slow", np.float64), ("slow_esn0", np.float64),
     ("soft_below", np.float64), ("c_min_scale", np.float64), ("ct_db0", np.float64), ("ct_step", np.float64),
+    ("c_mag", np.float64),
 ])
 
 #: Loop state of :func:`track_symbols` (one record, updated in place; meanings in its docstring).
@@ -64,12 +65,13 @@ TRACK_STATE = np.dtype([
     ("p3i", np.float64), ("q1r", np.float64), ("q1i", np.float64), ("q3r", np.float64), ("q3i", np.float64),
     ("t_on", np.float64), ("parity", np.int64), ("pend_ec", np.float64), ("pend_et", np.float64),
     ("m2s", np.float64), ("m4s", np.float64), ("wsum", np.float64), ("cnum", np.float64), ("cden", np.float64),
-    ("m2f", np.float64), ("m4f", np.float64), ("wf", np.float64), ("eon", np.float64), ("emid", np.float64),
+    ("m2f", np.float64), ("m4f", np.float64), ("wf", np.float64), ("cnum_i", np.float64), ("eon", np.float64),
+    ("emid", np.float64),
     ("amp", np.float64), ("inv_amp", np.float64), ("kdc", np.float64), ("t_scale", np.float64),
     ("c_scale", np.float64), ("lock_age", np.int64), ("clock", np.int64), ("slock", np.int64),
     ("seen", np.int64), ("cgood", np.int64),
     ("acc_n", np.int64), ("stat_epoch", np.int64), ("acc_r2", np.float64), ("acc_r4", np.float64),
-    ("acc_q", np.float64),
+    ("acc_q", np.float64), ("acc_qi", np.float64),
     ("acc_mid", np.float64), ("blk_n", np.int64), ("blk_m2", np.float64), ("blk_m4", np.float64),
     ("ph_cos", np.float64), ("ph_sin", np.float64), ("ph_theta", np.float64), ("ph_count", np.int64),
     ("pull_left", np.int64), ("m2g", np.float64), ("m4g", np.float64), ("wg", np.float64), ("cnum_g", np.float64),
@@ -484,6 +486,17 @@ def cubic_strobe(mf, i, mu):
 
 
 @njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
+def quarter_im4_sum(sym, a, b):
+    """``sum Im(y^4) / 4`` over ``sym[a:b]`` (complex64), in double: ``Im y^4 = 4 (y_r^2 - y_i^2) y_r y_i``."""
+    acc = 0.0
+    for k in range(a, b):
+        yr = float(sym[k].real)
+        yi = float(sym[k].imag)
+        acc += (yr * yr - yi * yi) * (yr * yi)
+    return acc
+
+
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
 def derotated(vr, vi, cs, sn):
     """``(vr + j vi) exp(-j theta)`` with the carrier phasor ``(cs, sn) = (cos, sin) theta``: ``(re, im)``."""
     return vr * cs + vi * sn, vi * cs - vr * sn
@@ -546,7 +559,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
         acquisition is tracked before lock (the wrapper sets ``pull_left``); the long lock average:
         ``l_lock_slow`` its ``log(1 - a)``, ``c_on_slow`` (relative), ``c_min_slow`` (absolute),
         ``c_hold_slow`` its hold, ``slow_esn0`` the Es/N0 (linear) below which it holds a lock the
-        short average lost.
+        short average lost; ``c_mag`` the lowest locked value of the fourth-power statistic taken from its
+        own window, as a fraction of ``S^2`` (1 for BPSK: ``S^2`` alone; see Notes).
     c_table : float64 array
         Slope of the soft QPSK detector per radian at the Es/N0 grid above
         (:func:`pipeline.demod._demodulator.soft_costas_slope`); any array for BPSK.
@@ -564,12 +578,12 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
         ``pend_ec, pend_et`` the normalised carrier and timing errors of the last symbol, which the
         loops take at the next one;
         the statistics: ``m2s, m4s, wsum`` averages of ``|r|^2``, ``|r|^4`` and their weight,
-        ``cnum, cden`` carrier-lock averages, ``m2f, m4f, wf`` the M2M4 averages over the
-        carrier-lock window, ``eon, emid`` on-time / midpoint energy averages, ``amp`` the
-        amplitude, ``inv_amp`` its inverse, ``kdc`` the carrier detector's slope, ``clock`` /
-        ``slock`` carrier / symbol lock, ``seen`` symbols seen (saturating at ``warmup``),
+        ``cnum, cden`` carrier-lock averages (``cnum_i`` the imaginary part of ``r^4``'s, QPSK/OQPSK),
+        ``m2f, m4f, wf`` the M2M4 averages over the carrier-lock window, ``eon, emid`` on-time / midpoint
+        energy averages, ``amp`` the amplitude, ``inv_amp`` its inverse, ``kdc`` the carrier detector's slope,
+        ``clock`` / ``slock`` carrier / symbol lock, ``seen`` symbols seen (saturating at ``warmup``),
         ``cgood`` symbols in a row meeting the lock condition; the sums of the statistics
-        interval in progress ``acc_n, acc_r2, acc_r4, acc_q, acc_mid``; the block sums for the
+        interval in progress ``acc_n, acc_r2, acc_r4, acc_q, acc_qi, acc_mid``; the block sums for the
         Es/N0 estimate ``blk_n, blk_m2, blk_m4`` (of ``|r|^2`` and ``|r|^4``, reset by the caller);
         ``ph_cos, ph_sin`` the carrier phasor at phase ``ph_theta``, ``ph_count`` half-strobes
         since it was last recomputed exactly; ``pull_left`` symbols of tracking left awaiting lock,
@@ -632,6 +646,17 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     between its symbols, ``1 - r0``, in front of the second term).  Below
     ``soft_below`` amplitude and Es/N0 come from the long window once its weight passes 1/4 (over 1024
     symbols M2M4's ``S`` spreads by about 25 % at -3 dB).
+
+    Carrier lock: ``Re(r^2)`` (BPSK) or ``-Re(r^4)`` (QPSK/OQPSK) averaged over the lock window, whose
+    value in lock is ``S`` or ``S^2`` when the noise is Gaussian and circular, against ``c_on`` (lock, held
+    ``c_hold`` symbols in a row) and ``c_off`` (loss) times that, and against ``c_min`` (``c_min / 2`` for the
+    loss) times ``M2`` or ``M4``.  QPSK/OQPSK: noise that is not Gaussian lowers ``-Re E r^4`` and raises
+    M2M4's ``S`` (rails clipped before the matched filter: the clipping's distortion is tied to the data and
+    sub-Gaussian; at rails clipped at their rms ``-Re E r^4`` is 0.44 ``S^2`` in lock and M2M4 reads Es/N0
+    2.6 dB high), so the locked value is the window's own ``|E r^4|`` where that is lower than ``S^2``, but
+    not below ``c_mag S^2``: in lock ``-Re E r^4 = |E r^4|`` whatever the noise, while a loop slipping
+    cycles averages ``E r^4`` down (and turns it), which ``c_mag`` and ``c_min`` bound.  Every lock the
+    ``S^2`` test declares is declared as soon and held at least as long.
 
     QPSK/OQPSK lock at low Es/N0: the fourth-power statistic's noise over the short window (2048
     symbols) is larger than its locked value below about 0 dB, so a long window (``l_lock_slow``,
@@ -703,6 +728,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     soft_below = pr["soft_below"]
     soft_on = state[0]["soft_on"] == 1
     c_min_sc = pr["c_min_scale"]
+    c_mag = pr["c_mag"]
     look = int(hbox + 0.5) + 2 if hbox > 0.0 else 2
 
     st = state[0]
@@ -730,6 +756,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     acc_r2 = st["acc_r2"]
     acc_r4 = st["acc_r4"]
     acc_q = st["acc_q"]
+    acc_qi = st["acc_qi"]
     acc_mid = st["acc_mid"]
     blk_n = st["blk_n"]
     blk_m2 = st["blk_m2"]
@@ -761,6 +788,7 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     ki_cl = ki_c * c_scale * c_scale
     kr_cl = kr_c * c_scale * c_scale * c_scale
     nout = 0
+    iv0 = 0  # the statistics interval's first symbol in out_sym (its symbols of earlier calls are in acc_qi)
     # carrier phasor exp(j theta_ph): advanced by small-angle rotations and recomputed exactly every 64
     # half-strobes, so it never drifts from theta by more than ~1e-7 rad; kept in the state, so the
     # output does not depend on where one call ends and the next begins
@@ -865,6 +893,10 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
         # every 8 symbols during the warm-up; off the loops' critical path ----
         epoch = int(math.floor(t_on * inv_span))
         if acc_n > 0 and (epoch != cur_epoch or (acc_n >= 8 and st["seen"] + acc_n < warmup)):
+            if mod_code != 0:
+                # Im r^4 / 4 of the interval's symbols, from their normalised copies in out_sym (one amplitude over an
+                # interval): off the loop, whose every extra sum costs about 1.5 ns a symbol
+                acc_qi += quarter_im4_sum(out_sym, iv0, nout) / (inv_amp * inv_amp * inv_amp * inv_amp)
             inv_n = 1.0 / acc_n
             d_amp = math.exp(acc_n * l_amp)
             d_lc = math.exp(acc_n * l_lc)
@@ -965,6 +997,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
             st["m4f"] = m4f
             st["wf"] = wf
             st["cnum"] = cnum
+            cnum_i = d_lc * st["cnum_i"] + (1.0 - d_lc) * 4.0 * acc_qi * inv_n
+            st["cnum_i"] = cnum_i
             # the weight cancels in every ratio below, so the unnormalised sums are used
             s2w = 2.0 * m2f * m2f - m4f * wf
             if mod_code == 0:
@@ -975,6 +1009,12 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
             else:
                 cden = d_lc * st["cden"] + (1.0 - d_lc) * mr4
                 ref_num = s2w if s2w > 0.1 * m4f * wf else 0.1 * m4f * wf
+                # the locked value is the window's own |E r^4| where that is lower (down to c_mag of S^2): noise
+                # that is not Gaussian and circular (rails clipped before the matched filter) lowers -Re E r^4
+                # and raises M2M4's S (see Notes)
+                mag = math.sqrt(cnum * cnum + cnum_i * cnum_i) * wf
+                if mag < ref_num:
+                    ref_num = mag if mag > c_mag * ref_num else c_mag * ref_num
                 ref_den = m4f * wf
             st["cden"] = cden
             lhs = cnum * ref_den
@@ -1081,6 +1121,8 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
             acc_r2 = 0.0
             acc_r4 = 0.0
             acc_q = 0.0
+            acc_qi = 0.0
+            iv0 = nout
             acc_mid = 0.0
         cur_epoch = epoch
 
@@ -1181,6 +1223,9 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     st["acc_r2"] = acc_r2
     st["acc_r4"] = acc_r4
     st["acc_q"] = acc_q
+    if mod_code != 0:
+        acc_qi += quarter_im4_sum(out_sym, iv0, nout) / (inv_amp * inv_amp * inv_amp * inv_amp)
+    st["acc_qi"] = acc_qi
     st["acc_mid"] = acc_mid
     st["blk_n"] = blk_n
     st["blk_m2"] = blk_m2

@@ -39,7 +39,7 @@ class RunFacts:
         What the input is (path, format, rate, start, ``time_known``, ``ert_definition``, ...).
     duration_s, elapsed_s : float
         Length of the input and wall time of the decode.
-    samples, nonfinite, channel_symbols, locked_symbols : int
+    samples, nonfinite, channel_symbols, locked_symbols, clip_checked, clipped_values : int
         Front-end counts (see :class:`pipeline.chain.FrontCounts`).
     stage_stats : dict
         ``{"branch" | "frame_sync" | "codeblock": statistics dataclass}``.
@@ -84,6 +84,8 @@ class RunFacts:
     elapsed_s: float
     samples: int = 0
     nonfinite: int = 0
+    clip_checked: int = 0
+    clipped_values: int = 0
     channel_symbols: int = 0
     locked_symbols: int = 0
     stage_stats: dict = field(default_factory=dict)
@@ -318,7 +320,20 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fr
         verdict["carrier_cn0_dbhz_min"] = _round(np.min(good_cn0), 2) if good_cn0.size else None
     if f.doppler_check and f.doppler_check.get("note"):
         verdict["doppler_note"] = f.doppler_check["note"]
+    clipped = _clipped_fraction(f)
+    if clipped:
+        verdict["clipping_note"] = (
+            f"{100 * clipped:.3g} % of the samples' real and imaginary parts sit at the recording's rails: the "
+            "receiver's input was clipped (its gain too high for the signal); Es/N0 then reads high, and the data "
+            "lost part of its margin")
     return verdict
+
+
+def _clipped_fraction(f: RunFacts) -> float | None:
+    """Values at clipped rails per value looked at (``FrontCounts``); None when nothing was looked at."""
+    if not f.clip_checked:
+        return None
+    return round(f.clipped_values / (2 * f.clip_checked), 5)
 
 
 def _frames_while_locked(fpos: np.ndarray, tpos: np.ndarray, locked: np.ndarray) -> np.ndarray:
@@ -376,6 +391,7 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         "carrier_offset_hz_first": round(float(carrier[usable][0]), 1) if usable.any() else None,
         "carrier_offset_hz_last": round(float(carrier[usable][-1]), 1) if usable.any() else None,
         "nonfinite_samples": f.nonfinite,
+        "clipped_fraction": _clipped_fraction(f),
         "channel_symbols": f.channel_symbols,
     }
     if f.modulation_index_rad:

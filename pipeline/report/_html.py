@@ -339,6 +339,10 @@ def _verdict_html(v: dict, ber: dict | None, anchor: str) -> str:
     if note and cls == "":
         cls = "warn"
     note_html = f'<p class="time"><strong>Doppler check:</strong> {_esc(note)}.</p>' if note else ""
+    clip = v.get("clipping_note")
+    if clip:
+        cls = cls or "warn"
+        note_html += f'<p class="time"><strong>Clipping:</strong> {_esc(clip)}.</p>'
     return (f'<section id="{anchor}" class="verdict {cls}"><h2>Verdict</h2>'
             f'<p class="headline">{headline}</p><dl class="cards">{body}</dl>'
             f'<p class="time">{_esc(time_txt)}{_esc(_sentence(v.get("ert_definition")))}</p>{note_html}</section>')
