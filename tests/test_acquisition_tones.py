@@ -164,7 +164,8 @@ def test_a_tone_before_the_signal_does_not_keep_the_receiver_from_it():
     out = _run(_demod_link(), x)
     assert not out.locked[out.position < lead].any()  # no lock on the tone
     assert out.locked[out.position > lead + 0.1 * FS].mean() > 0.95
-    # and the tone alone is named when nothing locks
+    # and the tone alone is named when nothing locks (taken out before the search: tests/test_tone_cancel.py)
     alone = _demod_link()
     _run(alone, _noise(rng, 2 * lead) + _tone(2 * lead, 80e3, 100.0))
     assert "CW tone at +80000" in alone.no_lock_message() and "not the link's carrier" in alone.no_lock_message()
+    assert "taken out" in alone.no_lock_message()

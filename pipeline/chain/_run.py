@@ -452,6 +452,9 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         report["demod"]["carrier_found_mirrored"] = front.demod.carrier_found_mirrored
         report["demod"]["inversion_note"] = MIRRORED_PREDICTION_NOTE
         log.warning(MIRRORED_PREDICTION_NOTE)
+    if front.demod is not None and front.demod.tones_hz:
+        # CW tones in the band (spurs, interferers) taken out of the samples before the matched filter
+        report["demod"]["tones_removed_hz"] = [round(f, 1) for f in sorted(front.demod.tones_hz)]
     if report["pass"].get("clipping_note"):
         log.warning(report["pass"]["clipping_note"])
     summary = DecodeSummary(frames=back.frame_count, frames_ok=ok, frames_idle=idle,

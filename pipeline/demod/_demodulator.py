@@ -24,6 +24,7 @@ from pipeline.demod._kernels import (
 )
 from pipeline.demod._predicted import CarrierPrediction
 from pipeline.demod._snr import esn0_db_from_moments
+from pipeline.demod._tones import ToneCanceller, find_tones
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "centre_window", "check_chunk",
@@ -33,6 +34,10 @@ __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker"
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
 _RRC_SPAN_SYMBOLS = 8
+#: Tones are looked for in each acquisition's window and in every block whose index on the recording's block grid
+#: is a multiple of this (about 1.7 s at 5 Msample/s, 8.4 s at 1 Msample/s): a tone that comes up later is taken
+#: out from there.
+_TONE_LOOK_BLOCKS = 256
 #: QPSK/OQPSK carrier lock: the lowest locked value of the fourth-power statistic taken from its own window, as a
 #: fraction of S^2 from the M2M4 moments (rails clipped at their rms read 0.44; track_symbols Notes).
 _LOCK_MAGNITUDE_FLOOR = 0.4
@@ -180,8 +185,9 @@ class DemodStats:
     frequency).  ``carrier_found_mirrored`` counts the acquisitions (under ``spectrum_inverted = "auto"``
     with a prediction) that found the carrier only at the mirror image of the prediction: the recording is
     spectrally inverted, as inferred from the predicted Doppler's sign, and its samples were conjugated from
-    then on.  Picklable; segments of one decode combine with :meth:`merge` (not a field-wise sum; the first
-    segment's centre is kept).
+    then on.  ``tones_hz`` are the CW tones found in the band and taken out of the samples before the matched
+    filter (:class:`~pipeline.demod._tones.ToneCanceller`).  Picklable; segments of one decode combine with
+    :meth:`merge` (not a field-wise sum; the first segment's centre is kept).
     """
 
     samples_in: int = 0
@@ -196,6 +202,7 @@ class DemodStats:
     line_threshold_db: float = float("nan")
     acquisition_centre_hz: float | None = None
     carrier_found_mirrored: int = 0
+    tones_hz: list = field(default_factory=list)
 
     def saw(self, line: SpectralLine) -> None:
         """Keep ``line`` if it is stronger than the strongest seen so far (a line beats a band)."""
@@ -216,6 +223,10 @@ class DemodStats:
             self.search_hz, self.line_threshold_db = other.search_hz, other.line_threshold_db
         if self.acquisition_centre_hz is None:
             self.acquisition_centre_hz = other.acquisition_centre_hz
+        # the tones each segment took out (a segment finds its own; the same tone within a few Hz once)
+        for f in other.tones_hz:
+            if all(abs(f - g) > 1.0 for g in self.tones_hz):
+                self.tones_hz.append(f)
 
     def no_lock_message(self) -> str | None:
         """The one line to print when no carrier lock was found (None when there was lock).
@@ -236,14 +247,16 @@ class DemodStats:
         if self.acquisition_centre_hz is not None:
             text += f" of the predicted carrier ({self.acquisition_centre_hz:+.0f} Hz at the first search)"
         line = self.strongest_line
+        # tones taken out before the search (a tone without the modulation around it is never the carrier)
+        tones = "".join(f"; CW tone at {f:+.0f} Hz taken out (not the link's carrier)" for f in self.tones_hz)
         if line is None:
-            return text + ": no acquisition could be tried (recording too short)"
+            return text + ": no acquisition could be tried (recording too short)" + tones
         if line.kind == "band":
-            return f"{text}: no signal band stood out of the noise ({line.describe()})"
+            return f"{text}: no signal band stood out of the noise ({line.describe()}){tones}"
         if line.kind == "CW tone":
             return (f"{text}: {line.describe()} (a tone without the modulation around it, not the link's carrier: "
-                    f"ignored)")
-        return f"{text}: {line.describe()} ({self.line_threshold_db:.1f} dB needed)"
+                    f"ignored){tones}")
+        return f"{text}: {line.describe()} ({self.line_threshold_db:.1f} dB needed){tones}"
 
 
 class DcBlocker:
@@ -768,6 +781,8 @@ class Demodulator:
         self._since_long = 0
         self._long_tried = 0
         self._acquiring = True
+        self._tones_looked = False  # the acquisition under way has looked for tones in its window
+        self._tones = ToneCanceller(self.sample_rate_hz)
         self._agc_power = 0.0
         self._dc = DcBlocker()
         self._nco_hz = 0.0
@@ -819,8 +834,8 @@ class Demodulator:
         self.stats.samples_in += samples.size
         blocks, self._pending = cut_blocks(self._pending, samples, self.block_samples)
         out = self._output(len(blocks) * self.block_samples, len(blocks))
-        for block in blocks:
-            self._feed_block(block, out)
+        for k, block in enumerate(blocks):
+            self._feed_block(block, self._pending_start + k * self.block_samples, out)
         self._pending_start += len(blocks) * self.block_samples
         return out.block()
 
@@ -833,7 +848,7 @@ class Demodulator:
         out = self._output(self._pending.size + held, len(self._held) + 2)
         end = float(self._next_start)
         if self._pending.size:
-            self._feed_block(self._pending, out, final=True)
+            self._feed_block(self._pending, self._pending_start, out, final=True)
             self._pending = np.zeros(0, dtype=np.complex64)
         elif self._acquiring and self._held:
             self._acquire(out, final=True)
@@ -855,9 +870,12 @@ class Demodulator:
     def _check_chunk(self, chunk: Any) -> tuple[np.ndarray, int]:
         return check_chunk(chunk)
 
-    def _feed_block(self, block: np.ndarray, out: SymbolOut, final: bool = False) -> None:
+    def _feed_block(self, block: np.ndarray, start: int, out: SymbolOut, final: bool = False) -> None:
         if self.conjugate:
             block = np.conj(block)
+        block = self._tones.apply(block, start)
+        if not self._acquiring and (start // self.block_samples) % _TONE_LOOK_BLOCKS == 0:
+            block = self._look_for_tones(block, start)
         if self._acquiring:
             block, cnt, mom = self._moments(block)
             # own copy: the caller's buffer may change
@@ -866,6 +884,19 @@ class Demodulator:
                 self._acquire(out, final=final)
             return
         self._run_block(block, None, out)
+
+    def _look_for_tones(self, block: np.ndarray, start: int) -> np.ndarray:
+        """CW tones in ``block`` (its first sample at ``start``, the tones known already taken out) taken out from now
+        on, this block included (:func:`~pipeline.demod._tones.find_tones`)."""
+        new = self._tones.add(find_tones(block, self.sample_rate_hz))
+        self._note_tones()
+        if not new:
+            return block
+        return self._tones.apply(block, start, only=new)
+
+    def _note_tones(self) -> None:
+        """The tones taken out, in the recording's frame (not conjugated), into the statistics."""
+        self.stats.tones_hz = [-f if self.conjugate else f for f in self._tones.tones_hz]
 
     def _moments(self, block: np.ndarray) -> tuple[np.ndarray, int, np.ndarray]:
         """The block (NaN/Inf replaced by 0 and counted), its non-zero count and moments (one pass)."""
@@ -891,6 +922,18 @@ class Demodulator:
         """Search the held window; release all of it if found (or at the end), else its first block."""
         held = np.concatenate([h[0] for h in self._held]) if len(self._held) > 1 else self._held[0][0]
         self.stats.acquisitions += 1
+        if not self._tones_looked:
+            # once per acquisition: tones in its window are taken out of it, and of every block after it
+            self._tones_looked = True
+            new = self._tones.add(find_tones(held, self.sample_rate_hz))
+            self._note_tones()
+            if new:
+                start, rebuilt = self._run_sample, []  # the held window's first sample is the next one to run
+                for b, _, _ in self._held:
+                    rebuilt.append(self._moments(self._tones.apply(b, start, only=new)))
+                    start += b.size
+                self._held = rebuilt
+                held = np.concatenate([h[0] for h in self._held]) if len(self._held) > 1 else self._held[0][0]
         found = False
         if held.size >= 1024:
             acq, offset, first, middle, long_nb = self._search_held(held, final)
@@ -971,6 +1014,7 @@ class Demodulator:
         flip = np.array([1.0, -1.0, 1.0])  # moments [mean re, mean im, mean power] of the conjugate
         self._held = [(np.conj(b), cnt, mom * flip) for b, cnt, mom in self._held]
         self._dc.offset = self._dc.offset.conjugate()
+        self._tones.conjugate()
 
     def _long_search_due(self) -> int:
         """The long search's window in blocks when one is due now, else 0 (counted once per acquisition)."""
@@ -1115,9 +1159,11 @@ class Demodulator:
                 if not tail and not self._acquiring:
                     self._unlocked_run = 0
                     self._acquiring = True
+                    self._tones_looked = False
         if not tail and self._unlocked_run >= self.reacquire_symbols and not (st["pull_left"] and st["soft_on"]):
             self._unlocked_run = 0
             self._acquiring = True
+            self._tones_looked = False
 
     def _level_change(self, block: np.ndarray, rise: bool) -> tuple[np.ndarray, float] | None:
         """A block whose power rose over ``_AGC_ATTACK`` times the AGC's (``rise``) or fell under it by as much: a

@@ -15,6 +15,7 @@ import numpy as np
 from numba import njit
 
 __all__ = [
+    "cancel_tones",
     "condition_block",
     "phasor_table",
     "derotate",
@@ -1426,3 +1427,83 @@ def remove_dc(x, dc_re, dc_im, out):
             out[i] = complex(re - dc_re, im - dc_im)
         else:
             out[i] = 0j
+
+
+@njit(cache=True, nogil=True, fastmath={"contract", "reassoc"})
+def cancel_tones(x2, n0, freqs, sub, amps):
+    """Take CW tones out of a block in place: per tone and per stretch of ``sub`` samples, its projection.
+
+    Parameters
+    ----------
+    x2 : float32 array
+        The block's complex samples viewed as interleaved floats (re, im, ...), ``n`` samples, changed in place.
+    n0 : int
+        Absolute index (in the recording) of the block's first sample.
+    freqs : float64 array
+        The tones' frequencies in cycles per sample.
+    sub : int
+        Stretch length: stretches lie on the recording's grid of ``sub`` samples (``[k sub, (k + 1) sub)``).
+    amps : complex128 array
+        Per tone the complex amplitude of its last whole stretch (against ``exp(j 2 pi f n)``, ``n`` absolute),
+        updated in place; a stretch shorter than ``sub / 2`` (the recording's first or last, a block's end that is
+        off the grid) takes it instead of its own.
+
+    Notes
+    -----
+    For each stretch and tone, ``a = mean(x[n] exp(-j 2 pi f n))`` and ``x[n] -= a exp(j 2 pi f n)``, tone after tone:
+    the stretch's component at exactly ``f`` is removed, a notch about ``fs / sub`` wide (at 4096 samples a
+    20000th of the band at 5 Msample/s: the signal loses nothing measurable).  The phasor of sample ``g + j`` of a
+    stretch starting at ``g`` is ``exp(j 2 pi f g)`` (``f g`` reduced to its fraction in double precision, exact
+    per stretch) times the table entry ``exp(j 2 pi f j)`` (single precision, exact every 64 entries), so the result
+    depends only on the samples of the stretch, not on how they were cut into blocks, and the sample loops have
+    no dependency between samples (they vectorise; sums reassociated).  Cost per tone and sample: two complex
+    multiply-adds.
+    """
+    n = x2.shape[0] // 2
+    two_pi = 2.0 * math.pi
+    tab = np.empty(2 * sub, dtype=np.float32)
+    for t in range(freqs.shape[0]):
+        f = freqs[t]
+        wr = math.cos(two_pi * f)
+        wi = math.sin(two_pi * f)
+        cr = 1.0
+        ci = 0.0
+        for j in range(sub):
+            if j % 64 == 0:
+                cr = math.cos(two_pi * f * j)
+                ci = math.sin(two_pi * f * j)
+            tab[2 * j] = cr
+            tab[2 * j + 1] = ci
+            cr, ci = cr * wr - ci * wi, cr * wi + ci * wr
+        a = 0
+        while a < n:
+            g = n0 + a
+            b = min(n, a + (sub - g % sub))
+            m = b - a
+            fr = f * g
+            fr -= math.floor(fr)
+            c0 = complex(math.cos(two_pi * fr), math.sin(two_pi * fr))
+            if 2 * m >= sub:
+                sr = np.float32(0.0)
+                si = np.float32(0.0)
+                for j in range(m):
+                    xr = x2[2 * (a + j)]
+                    xi = x2[2 * (a + j) + 1]
+                    tr = tab[2 * j]
+                    ti = tab[2 * j + 1]
+                    sr += xr * tr + xi * ti
+                    si += xi * tr - xr * ti
+                amp = c0.conjugate() * complex(float(sr) / m, float(si) / m)
+                if m == sub:
+                    amps[t] = amp
+            else:
+                amp = amps[t]
+            bb = amp * c0
+            br = np.float32(bb.real)
+            bi = np.float32(bb.imag)
+            for j in range(m):
+                tr = tab[2 * j]
+                ti = tab[2 * j + 1]
+                x2[2 * (a + j)] -= br * tr - bi * ti
+                x2[2 * (a + j) + 1] -= br * ti + bi * tr
+            a = b
