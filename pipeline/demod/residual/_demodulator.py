@@ -26,6 +26,7 @@ from pipeline.demod._demodulator import (
     shifted_line,
 )
 from pipeline.demod._predicted import CarrierPrediction
+from pipeline.demod._tones import TONE_STRETCH, ToneCanceller, find_tones
 from pipeline.demod.residual._kernels import (
     CARRIER_PARAMS,
     CARRIER_STATE,
@@ -67,6 +68,9 @@ _HOLD_SAMPLES = 1 << 22
 #: Per block, this fraction of the rate the second-order carrier loop's frequency integrator followed goes
 #: into the rate aiding.
 _RATE_AIDING_GAIN = 0.25
+#: Tones are looked for when the carrier is first tracked and in every block whose index on the recording's block
+#: grid is a multiple of this (pipeline.demod._tones).
+_TONE_LOOK_BLOCKS = 256
 #: Doppler rates hypothesised by the carrier search (Hz/s).
 _MAX_DOPPLER_RATE = 10.0
 #: Carrier lock: t statistic of the coherent carrier amplitude, on above 5 (two decisions in a row), off below 3.
@@ -529,6 +533,7 @@ class ResidualCarrierDemodulator:
         self.modulation_index_rad = float("nan")
         self.conjugate = self.receiver.spectrum_inverted is True  # "auto" may turn it on (the mirrored search)
         self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
+        self._tones = ToneCanceller(self.sample_rate_hz)
         self._restart_search()
 
     def _clear_symbol_stage(self, base: int) -> None:
@@ -623,10 +628,15 @@ class ResidualCarrierDemodulator:
 
     def _feed(self, block: np.ndarray, start: int, parts: list) -> None:
         block, gain = self._condition(block)
-        item = (block, gain, start)
         if self._tracking:
-            self._track([item], parts)
+            carrier_hz = float(self._cs[0]["frequency"]) * self.sample_rate_hz / (2.0 * math.pi)
+            block = self._tones.apply(block, start, only=self._tones_clear_of(carrier_hz))
+            if (start // self.block_samples) % _TONE_LOOK_BLOCKS == 0:
+                block = self._tones.apply(block, start, only=self._look_for_tones(block, carrier_hz))
+            self._track([(block, gain, start)], parts)
             return
+        block = self._tones.apply(block, start, only=self._tones_clear_of(None))
+        item = (block, gain, start)
         if not self.residual:
             self._feed_costas(item, parts)
             return
@@ -718,6 +728,7 @@ class ResidualCarrierDemodulator:
         dwell becomes the upright one."""
         self.conjugate = True
         self.stats.carrier_found_mirrored += 1
+        self._tones.conjugate()
         self._held = [(np.conj(b), g, s) for b, g, s in self._held]
         self._dc.offset = self._dc.offset.conjugate()
         if self._mirror is not None:
@@ -869,9 +880,48 @@ class ResidualCarrierDemodulator:
         st["sc_frequency"] = self.subcarrier_cycles_per_sample
         st["sc_phase"] = 0.0
 
+    # ---- tones --------------------------------------------------------------------------
+    def _carrier_lines(self, carrier_hz: float) -> list[float]:
+        """Where the signal's own lines may stand: the carrier and, on a subcarrier, the carrier plus and minus its
+        odd harmonics (a data pattern that repeats, or an unbalanced one, leaves the subcarrier a line)."""
+        lines = [carrier_hz]
+        if self.subcarrier_mode:
+            sc = self.subcarrier_cycles_per_sample * self.sample_rate_hz
+            lines += [carrier_hz + k * sc for k in (-5, -3, -1, 1, 3, 5)]
+        return lines
+
+    def _tone_guard_hz(self) -> float:
+        """A tone this close to one of the signal's lines is left alone: 5 % of the symbol rate, and at least two
+        stretch bins (the notch's width), so that the carrier is never taken out as it drifts past a tone."""
+        return max(0.05 * self.symbol_rate_baud, 2.0 * self.sample_rate_hz / TONE_STRETCH)
+
+    def _look_for_tones(self, samples: np.ndarray, carrier_hz: float) -> list[int]:
+        """Tones in ``samples`` (known tones already out of them) away from the signal's lines, taken out from
+        now on; the indices of the new ones."""
+        guard = self._tone_guard_hz()
+        lines = self._carrier_lines(carrier_hz)
+        found = [f for f in find_tones(samples, self.sample_rate_hz) if all(abs(f - g) > guard for g in lines)]
+        new = self._tones.add(np.array(found))
+        self.stats.tones_hz = [-f if self.conjugate else f for f in self._tones.tones_hz]
+        return new
+
+    def _tones_clear_of(self, carrier_hz: float | None) -> list[int]:
+        """The known tones not within the guard of the signal's lines (all while the carrier is not tracked)."""
+        if carrier_hz is None:
+            return list(range(len(self._tones.tones_hz)))
+        guard = self._tone_guard_hz()
+        lines = self._carrier_lines(carrier_hz)
+        return [k for k, f in enumerate(self._tones.tones_hz) if all(abs(f - g) > guard for g in lines)]
+
     def _start_tracking(self, fix: CarrierFix, items: list, parts: list) -> None:
-        """Start the loops from the fine acquisition and demodulate the held window ``items``."""
+        """Start the loops from the fine acquisition and demodulate the held window ``items`` (tones away from the
+        signal's lines taken out of it first)."""
         fs = self.sample_rate_hz
+        if items:
+            held = np.concatenate([b for b, _, _ in items]) if len(items) > 1 else items[0][0]
+            new = self._look_for_tones(held, fix.frequency_hz)
+            if new:
+                items = [(self._tones.apply(b, st, only=new), g, st) for b, g, st in items]
         self.stats.carrier_found += 1
         self._reset_carrier(fix.phase_rad, 2.0 * math.pi * fix.frequency_hz / fs,
                             2.0 * math.pi * fix.rate_hz_per_s / (fs * fs), fix.amplitude)
