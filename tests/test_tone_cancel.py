@@ -180,4 +180,6 @@ def test_qpsk_link_with_an_in_band_tone_decodes_as_clean_and_the_report_names_it
     assert got.packets == clean.packets == sim.num_packets and got.frames_failed == 0
     report = json.loads((tmp_path / "out" / "report.json").read_text())
     assert [round(f) for f in report["demod"]["tones_removed_hz"]] == [round(f_tone)]
-    assert "tones_removed_hz" not in clean.report["demod"]
+    assert f"{f_tone:+.0f} Hz" in report["pass"]["tones_note"]
+    assert "Interference:" in (tmp_path / "out" / "report.html").read_text()
+    assert "tones_removed_hz" not in clean.report["demod"] and "tones_note" not in clean.report["pass"]

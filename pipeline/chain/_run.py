@@ -428,7 +428,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         tool=f"downlink {__version__}", profile=profile, input_kind=inp.kind, recording_info=inp.info,
         duration_s=float(inp.duration_s), elapsed_s=elapsed, samples=front.counts.samples,
         nonfinite=front.counts.nonfinite, clip_checked=front.counts.clip_checked,
-        clipped_values=front.counts.clipped_values, channel_symbols=front.counts.channel_symbols,
+        clipped_values=front.counts.clipped_values, tones_hz=[] if front.demod is None else list(front.demod.tones_hz),
+        channel_symbols=front.counts.channel_symbols,
         locked_symbols=front.counts.locked_symbols, stage_stats=front.stats, sync_events=front.events,
         demod_events=back.events, track=back.track.arrays(), modulation_index_rad=back.track.modulation_index_rad,
         position_rate_hz=inp.position_rate_hz, frames=back.frame_count, packets=back.packet_count,
@@ -452,9 +453,6 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         report["demod"]["carrier_found_mirrored"] = front.demod.carrier_found_mirrored
         report["demod"]["inversion_note"] = MIRRORED_PREDICTION_NOTE
         log.warning(MIRRORED_PREDICTION_NOTE)
-    if front.demod is not None and front.demod.tones_hz:
-        # CW tones in the band (spurs, interferers) taken out of the samples before the matched filter
-        report["demod"]["tones_removed_hz"] = [round(f, 1) for f in sorted(front.demod.tones_hz)]
     if report["pass"].get("clipping_note"):
         log.warning(report["pass"]["clipping_note"])
     summary = DecodeSummary(frames=back.frame_count, frames_ok=ok, frames_idle=idle,

@@ -41,6 +41,8 @@ class RunFacts:
         Length of the input and wall time of the decode.
     samples, nonfinite, channel_symbols, locked_symbols, clip_checked, clipped_values : int
         Front-end counts (see :class:`pipeline.chain.FrontCounts`).
+    tones_hz : list of float
+        CW tones the receiver took out of the samples (``DemodStats.tones_hz``, the recording's frame).
     stage_stats : dict
         ``{"branch" | "frame_sync" | "codeblock": statistics dataclass}``.
     sync_events, demod_events : list of dict
@@ -86,6 +88,7 @@ class RunFacts:
     nonfinite: int = 0
     clip_checked: int = 0
     clipped_values: int = 0
+    tones_hz: list = field(default_factory=list)
     channel_symbols: int = 0
     locked_symbols: int = 0
     stage_stats: dict = field(default_factory=dict)
@@ -320,6 +323,10 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fr
         verdict["carrier_cn0_dbhz_min"] = _round(np.min(good_cn0), 2) if good_cn0.size else None
     if f.doppler_check and f.doppler_check.get("note"):
         verdict["doppler_note"] = f.doppler_check["note"]
+    if f.tones_hz:
+        listed = ", ".join(f"{t:+.0f} Hz" for t in sorted(f.tones_hz))
+        verdict["tones_note"] = (f"CW tone{'s' if len(f.tones_hz) > 1 else ''} at {listed} (a spur or an interferer in "
+                                 "the band) taken out of the samples before demodulation")
     clipped = _clipped_fraction(f)
     if clipped:
         verdict["clipping_note"] = (
@@ -393,6 +400,7 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         "nonfinite_samples": f.nonfinite,
         "clipped_fraction": _clipped_fraction(f),
         "channel_symbols": f.channel_symbols,
+        **({"tones_removed_hz": [round(t, 1) for t in sorted(f.tones_hz)]} if f.tones_hz else {}),
     }
     if f.modulation_index_rad:
         demod["modulation_index_rad_median"] = round(float(np.median(f.modulation_index_rad)), 4)

@@ -339,6 +339,9 @@ def _verdict_html(v: dict, ber: dict | None, anchor: str) -> str:
     if note and cls == "":
         cls = "warn"
     note_html = f'<p class="time"><strong>Doppler check:</strong> {_esc(note)}.</p>' if note else ""
+    tones = v.get("tones_note")
+    if tones:
+        note_html += f'<p class="time"><strong>Interference:</strong> {_esc(tones)}.</p>'
     clip = v.get("clipping_note")
     if clip:
         cls = cls or "warn"
