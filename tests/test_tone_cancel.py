@@ -109,7 +109,9 @@ def test_find_tones_sees_a_tone_20_db_under_the_samples_and_nothing_in_a_clean_b
     p = float(np.mean(np.abs(x) ** 2))
     tone = math.sqrt(0.01 * p) * np.exp(2j * np.pi * (144_321.0 / FS) * np.arange(x.size))
     f = find_tones(x + tone, FS)
-    assert f.size == 1 and abs(f[0] - 144_321.0) < 0.05 * FS / 65536  # a twentieth of a bin
+    # within a fifth of the periodogram's bin: the cancellation needs a tenth of a stretch's bin (fs / 4096), 8 times
+    # coarser (a tenth of it off costs about 20 dB of the cancellation)
+    assert f.size == 1 and abs(f[0] - 144_321.0) < 0.2 * FS / 32768
     # BPSK, noise alone, a DC offset: nothing
     b = ds.modulate(30_000, modulation="bpsk", esn0_db=10.0, rng=rng).samples[:65536]
     assert find_tones(b, FS).size == 0
@@ -179,7 +181,8 @@ def test_qpsk_link_with_an_in_band_tone_decodes_as_clean_and_the_report_names_it
     got = decode(folder / sim.meta_path.name, prof, tmp_path / "out")
     assert got.packets == clean.packets == sim.num_packets and got.frames_failed == 0
     report = json.loads((tmp_path / "out" / "report.json").read_text())
-    assert [round(f) for f in report["demod"]["tones_removed_hz"]] == [round(f_tone)]
-    assert f"{f_tone:+.0f} Hz" in report["pass"]["tones_note"]
+    removed = report["demod"]["tones_removed_hz"]
+    assert len(removed) == 1 and abs(removed[0] - f_tone) < 0.1 * 5e6 / 32768
+    assert f"{removed[0]:+.0f} Hz" in report["pass"]["tones_note"]
     assert "Interference:" in (tmp_path / "out" / "report.html").read_text()
     assert "tones_removed_hz" not in clean.report["demod"] and "tones_note" not in clean.report["pass"]

@@ -37,6 +37,8 @@ _MAX_RATES_LONG = 129
 #: most negative real or imaginary part, exactly) has clipped rails: unclipped samples reach an extreme once or
 #: twice (:func:`rails_clipped`).
 CLIPPED_FRACTION = 1.0 / 1024.0
+#: A search looks at this many of its window's first samples for clipped rails.
+_CLIP_LOOK = 16384
 #: A found line whose ``|a_M| / |a_1|^M`` (:func:`_tone_q`) is below this is a CW tone, not a suppressed carrier
 #: (tones measure 0.94-1.02, BPSK leaking -10 dB of its power as carrier 3.7 and more).
 TONE_Q = 2.0
@@ -428,7 +430,7 @@ class CarrierSearch:
         if x.ndim != 1 or x.size < 1024 or not np.iscomplexobj(x):
             raise ValueError(f"Argument 'samples' must be complex, one-dimensional, at least 1024 samples, "
                              f"not {x.dtype} {x.shape}.")
-        clipped = rails_clipped(x)
+        clipped = rails_clipped(x[:_CLIP_LOOK])
         # a receiver DC offset would otherwise square into a false line at 0 Hz
         x = (x - np.mean(x, dtype=np.complex128)).astype(np.complex64)
         band_hz = 0.0
@@ -456,7 +458,7 @@ class CarrierSearch:
         if x.ndim != 1 or x.size < 1024 or not np.iscomplexobj(x):
             raise ValueError(f"Argument 'samples' must be complex, one-dimensional, at least 1024 samples, "
                              f"not {x.dtype} {x.shape}.")
-        clipped = rails_clipped(x)
+        clipped = rails_clipped(x[:_CLIP_LOOK])
         x = (x - np.mean(x, dtype=np.complex128)).astype(np.complex64)
         return self._fine(x, float(band_hz), long=True, clipped=clipped)
 

@@ -521,6 +521,272 @@ def phasor_step(theta, theta_ph, cs, sn, count):
 
 
 @njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
+def close_interval(st, pr, c_table, mod_code, acc_n, acc_r2, acc_r4, acc_q, acc_qi, acc_mid, inv_amp, kdc, clock,
+                   slock, flags, trk, soft_on, a_soft, c_clip, g_c):
+    """One statistics interval of :func:`track_symbols` closed (its Notes): amplitude, Es/N0, the detectors'
+    scales, carrier and symbol lock, the loops' bandwidths, from the interval's sums; the state record ``st``
+    updated; returns the loop's new ``(inv_amp, kdc, clock, slock, flags, trk, soft_on, a_soft, c_clip, g_c, g_t,
+    kp_tl, ki_tl, kp_cl, ki_cl, kr_cl)``.  A function of its own, called once an interval, so that the symbol
+    loop's code stays small (its registers, and its compile time)."""
+    kd = pr["kd"]
+    l_slow = pr["l_lock_slow"]
+    inv_kd = 1.0 / kd
+    warmup = pr["warmup"]
+    gear = pr["gear_symbols"]
+    kp_t = pr["kp_t"]
+    kp_c = pr["kp_c"]
+    l_amp = pr["l_amp"]
+    l_lc = pr["l_lock_c"]
+    l_ls = pr["l_lock_s"]
+    soft_below = pr["soft_below"]
+    sqrt2 = math.sqrt(2.0)
+    dd_gain = pr["dd_gain"]
+    t_ref = pr["t_ref_esn0"]
+    t_min = pr["t_min_scale"]
+    ki_t = pr["ki_t"]
+    c_bn = pr["c_bn"]
+    ki_c = pr["ki_c"]
+    slow_esn0 = pr["slow_esn0"]
+    c_hold = pr["c_hold"]
+    c_hold_g = pr["c_hold_slow"]
+    c_rho = pr["c_loop_snr"]
+    c_min_sc = pr["c_min_scale"]
+    kr_c = pr["kr_c"]
+    c_on_g = pr["c_on_slow"]
+    c_min_g = pr["c_min_slow"]
+    c_off = pr["c_off"]
+    r0 = pr["r0"]
+    c_mag = pr["c_mag"]
+    c_min = pr["c_min"]
+    s_min = pr["s_min"]
+    c_on = pr["c_on"]
+    s_on = pr["s_on"]
+    s_off = pr["s_off"]
+    inv_n = 1.0 / acc_n
+    d_amp = math.exp(acc_n * l_amp)
+    d_lc = math.exp(acc_n * l_lc)
+    d_ls = math.exp(acc_n * l_ls)
+    mr2 = acc_r2 * inv_n
+    mr4 = acc_r4 * inv_n
+    # amplitude from the M2M4 moments
+    m2s = d_amp * st["m2s"] + (1.0 - d_amp) * mr2
+    m4s = d_amp * st["m4s"] + (1.0 - d_amp) * mr4
+    wsum = d_amp * st["wsum"] + (1.0 - d_amp)
+    st["m2s"] = m2s
+    st["m4s"] = m4s
+    st["wsum"] = wsum
+    m2 = m2s / wsum
+    m4 = m4s / wsum
+    s2 = 2.0 * m2 * m2 - m4
+    s_floor = 0.05 * m2
+    sig = math.sqrt(s2) if s2 > s_floor * s_floor else s_floor
+    if sig > 1e-30:
+        # nothing but zeros so far (erasures, a silent start): the amplitude is kept
+        amp = math.sqrt(sig)
+        inv_amp = 1.0 / amp
+        st["amp"] = amp
+    esn0 = sig / (m2 - sig) if m2 > sig else 1e3
+    # the long carrier-lock average (QPSK/OQPSK at low Es/N0, where the fourth-power statistic
+    # over the short window is buried in its own noise): -Re(r^4) / M4 against its locked value
+    # S^2 / M4, both over the same long window
+    slow_ok = False
+    slow_bad = True
+    slow_low = False
+    if l_slow < 0.0:
+        d_g = math.exp(acc_n * l_slow)
+        m2g, m4g, wg, cnum_g = window_moments(d_g, st["m2g"], st["m4g"], st["wg"], st["cnum_g"], mr2, mr4,
+                                              acc_q * inv_n)
+        st["m2g"] = m2g
+        st["m4g"] = m4g
+        st["wg"] = wg
+        st["cnum_g"] = cnum_g
+        s2g = 2.0 * m2g * m2g - m4g * wg
+        ref_g = s2g if s2g > 0.0 else 0.0
+        slow_ok = wg > 0.25 and cnum_g * wg > c_on_g * ref_g and cnum_g > c_min_g * m4g
+        slow_bad = cnum_g * wg < c_off * ref_g or cnum_g < 0.5 * c_min_g * m4g
+        # the long window's Es/N0 below slow_esn0: sg / (m2 - sg) < e  <=>  sg (1 + e) < e m2
+        sg = math.sqrt(s2g) if s2g > 0.0 else 0.0
+        slow_low = sg * (1.0 + slow_esn0) < slow_esn0 * m2g
+        # at low Es/N0 the soft detector takes amplitude and Es/N0 from the long window (over 1024
+        # symbols M2M4's S has a relative spread of about 25 % at -3 dB, which the detector's slope,
+        # nearly proportional to (Es/N0)^2 there, would double)
+        if wg > 0.25 and s2g > 0.0 and esn0 < soft_below:
+            sgn = sg / wg
+            m2n = m2g / wg
+            if m2n > sgn and sgn > 1e-30:
+                esn0 = sgn / (m2n - sgn)
+                amp = math.sqrt(sgn)
+                inv_amp = 1.0 / amp
+                st["amp"] = amp
+    # (once the lock window holds about 1000 symbols: over the first symbols of a stream, before the
+    # timing has converged, the estimate can be far too low, and the hard detector keeps the pull-in
+    # of a strong signal, and the phase ambiguity it settles in, as they always were)
+    soft_on = esn0 < soft_below and st["wf"] > 0.4
+    fisher = 1.0
+    if soft_on:
+        # below soft_below (QPSK/OQPSK) the soft detector, its slope at the measured Es/N0 x from the
+        # table (its Fisher information J = sqrt(2) x slope per symbol); a = sqrt(2) x.  x from -6 dB
+        # while the loops track, from 0 dB while they do not: the estimate over the first symbols of
+        # a warm-up (timing not yet found) can be far too low, and the wide loop would take its noise
+        # at a gain of 1 / slope
+        x_lo = 0.25 if trk == 1 else 1.0
+        x_s = esn0 if esn0 > x_lo else x_lo
+        u = (10.0 * math.log10(x_s) - pr["ct_db0"]) / pr["ct_step"]
+        nt = c_table.shape[0]
+        if u <= 0.0:
+            kdc = c_table[0]
+        elif u >= nt - 1:
+            kdc = c_table[nt - 1]
+        else:
+            ju = int(u)
+            kdc = c_table[ju] + (u - ju) * (c_table[ju + 1] - c_table[ju])
+        fisher = sqrt2 * x_s * kdc
+        c_clip = 4.0 / math.sqrt(fisher) if fisher < 1.0 and trk == 1 else 4.0
+        a_soft = sqrt2 * x_s
+        g_c = 1.0 / kdc
+    else:
+        c_clip = 4.0
+        if dd_gain > 0.0:
+            # decision-directed slope at the measured Es/N0 (never below 0.3); QPSK from soft_below
+            # up with the decision's correlation with the cross term (see Notes)
+            kdc = hard_costas_slope(esn0, mod_code, soft_below, 1.0 - r0)
+        g_c = inv_amp / kdc
+    g_t = inv_amp * inv_amp * inv_kd
+
+    # carrier-lock statistic relative to its locked value, which comes from M2M4 moments
+    # averaged over the same window (a longer one would lag at a signal's onset and make a
+    # slipping loop look locked).  The ratios are compared cross-multiplied.
+    m2f, m4f, wf, cnum = window_moments(d_lc, st["m2f"], st["m4f"], st["wf"], st["cnum"], mr2, mr4,
+                                        acc_q * inv_n)
+    st["m2f"] = m2f
+    st["m4f"] = m4f
+    st["wf"] = wf
+    st["cnum"] = cnum
+    cnum_i = d_lc * st["cnum_i"] + (1.0 - d_lc) * 4.0 * acc_qi * inv_n
+    st["cnum_i"] = cnum_i
+    # the weight cancels in every ratio below, so the unnormalised sums are used
+    s2w = 2.0 * m2f * m2f - m4f * wf
+    if mod_code == 0:
+        cden = d_lc * st["cden"] + (1.0 - d_lc) * mr2
+        sigw = math.sqrt(s2w) if s2w > 0.0 else 0.0
+        ref_num = sigw if sigw > 0.1 * m2f else 0.1 * m2f
+        ref_den = m2f
+    else:
+        cden = d_lc * st["cden"] + (1.0 - d_lc) * mr4
+        ref_num = s2w if s2w > 0.1 * m4f * wf else 0.1 * m4f * wf
+        # the locked value is the window's own |E r^4| where that is lower (down to c_mag of S^2): noise
+        # that is not Gaussian and circular (rails clipped before the matched filter) lowers -Re E r^4
+        # and raises M2M4's S (see Notes)
+        mag = math.sqrt(cnum * cnum + cnum_i * cnum_i) * wf
+        if mag < ref_num:
+            ref_num = mag if mag > c_mag * ref_num else c_mag * ref_num
+        ref_den = m4f * wf
+    st["cden"] = cden
+    lhs = cnum * ref_den
+    seen = st["seen"] + acc_n
+    if seen > warmup:
+        seen = int(warmup)
+    st["seen"] = seen
+    if clock == 0:
+        # the condition must hold for `c_hold` symbols in a row: a loop slipping cycles
+        # at a large frequency error can push the statistic up for a moment
+        if lhs > c_on * ref_num * cden and cnum > c_min * cden:
+            st["cgood"] += acc_n
+        else:
+            st["cgood"] = 0
+        if st["cgood"] >= c_hold and seen >= warmup:
+            clock = 1
+            st["lock_path"] = 0
+            st["cgood"] = 0
+        # the long average declares lock only while a found carrier is pulled in
+        if slow_ok and st["pull_left"] > 0:
+            st["cgood_g"] += acc_n
+        else:
+            st["cgood_g"] = 0
+        if clock == 0 and l_slow < 0.0 and st["cgood_g"] >= c_hold_g and seen >= warmup:
+            clock = 1
+            st["lock_path"] = 1
+        if clock == 1:
+            st["cgood_g"] = 0
+        else:
+            st["pull_left"] = st["pull_left"] - acc_n if st["pull_left"] > acc_n else 0
+    elif st["lock_path"] == 0:
+        if lhs < c_off * ref_num * cden or cnum < 0.5 * c_min * cden:
+            # at low Es/N0 (over the long window) the long average holds the lock if it says so
+            if slow_ok and slow_low:
+                st["lock_path"] = 1
+            else:
+                clock = 0
+    elif slow_bad:
+        clock = 0
+    if clock == 0 and flags & 1:
+        st["pull_left"] = 0  # lock lost: the wide loop coasts (a fade), as before any lock
+    trk = 1 if clock == 1 or (st["pull_left"] > 0 and seen >= warmup and soft_on) else 0
+
+    # symbol-lock statistic: on-time versus midpoint energy, relative to r0 S / (S + N)
+    eon = d_ls * st["eon"] + (1.0 - d_ls) * mr2
+    emid = d_ls * st["emid"] + (1.0 - d_ls) * acc_mid * inv_n
+    st["eon"] = eon
+    st["emid"] = emid
+    diff = eon - emid
+    rho_num = sig if sig > 0.05 * m2 else 0.05 * m2
+    if slock == 0:
+        if diff * m2 > s_on * r0 * rho_num * eon and diff > s_min * eon and seen >= warmup:
+            slock = 1
+    else:
+        if diff * m2 < s_off * r0 * rho_num * eon or diff < 0.5 * s_min * eon:
+            slock = 0
+    flags = clock + 2 * slock
+    # the timing loop: its full bandwidth while the carrier is unlocked (pull-in), and in
+    # lock narrowed in proportion to Es/N0 below t_ref (the detector's noise grows as
+    # 1 / (Es/N0)), to at most t_min of it
+    # (only once lock has been held for gear_symbols: the loops pull in at full bandwidth), from
+    # the Es/N0 of the lock window's moments, which follows a signal's onset sooner
+    sw = math.sqrt(s2w / (wf * wf)) if s2w > 0.0 else 0.0
+    m2w = m2f / wf if wf > 0.0 else 0.0
+    esn0 = sw / (m2w - sw) if m2w > sw else (1e3 if sw > 0.0 else 1e-3)
+    if esn0 < 1e-3:
+        esn0 = 1e-3
+    if trk == 1:
+        lock_age = st["lock_age"] + acc_n
+        st["lock_age"] = lock_age
+    else:
+        lock_age = 0
+        st["lock_age"] = 0
+    geared = lock_age >= gear
+    t_scale = 1.0
+    if geared and slock == 1 and esn0 < t_ref:  # never narrowed while the timing is not locked
+        t_scale = esn0 / t_ref if esn0 > t_min * t_ref else t_min
+    st["t_scale"] = t_scale
+    kp_tl = kp_t * t_scale
+    ki_tl = ki_t * t_scale * t_scale
+    # the carrier loop in lock: narrowed where the configured bandwidth would leave a loop
+    # SNR below c_loop_snr, B_L T <= (Es/N0) S_L / rho with the Costas squaring loss S_L
+    c_scale = 1.0
+    # a carrier pulled in after an acquisition (whose frequency is close) is narrowed at once: at
+    # low Es/N0 the full bandwidth's noise would walk the frequency away
+    pulling = clock == 0 and trk == 1
+    if geared or pulling:
+        if soft_on:
+            # loop SNR 1 / (2 B_L T / J) with the soft detector's Fisher information J per symbol
+            bn_ok = 0.5 * fisher / c_rho
+        else:
+            s_l = hard_costas_squaring_loss(esn0, mod_code)
+            bn_ok = esn0 * s_l / c_rho
+        if bn_ok < c_bn:
+            c_scale = bn_ok / c_bn if bn_ok > c_min_sc * c_bn else c_min_sc
+            # narrowed gradually after the pull-in: gear / age of the full bandwidth, down to it
+            if soft_on and not pulling and gear > c_scale * lock_age:
+                c_scale = gear / lock_age
+    st["c_scale"] = c_scale
+    kp_cl = kp_c * c_scale
+    ki_cl = ki_c * c_scale * c_scale
+    kr_cl = kr_c * c_scale * c_scale * c_scale
+    return (inv_amp, kdc, clock, slock, flags, trk, soft_on, a_soft, c_clip, g_c, g_t, kp_tl, ki_tl, kp_cl, ki_cl,
+            kr_cl)
+
+
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
 def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_table,
                   out_pos, out_bitpos, out_soft, out_sym, out_flags, out_theta):
     """Gardner timing recovery with a cubic (Farrow) interpolator and a symbol-rate carrier loop.
@@ -700,36 +966,11 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
     kr_c = pr["kr_c"]
     kp_c_wide = pr["kp_c_wide"]
     inv_span = 1.0 / (pr["stat_symbols"] * sps)
-    l_amp = pr["l_amp"]
-    l_lc = pr["l_lock_c"]
-    l_ls = pr["l_lock_s"]
-    c_on = pr["c_on"]
-    c_off = pr["c_off"]
-    c_min = pr["c_min"]
-    s_on = pr["s_on"]
-    s_off = pr["s_off"]
-    s_min = pr["s_min"]
-    r0 = pr["r0"]
     kd = pr["kd"]
     warmup = pr["warmup"]
     hbox = pr["hbox"]
     v_max = pr["v_max"]
-    dd_gain = pr["dd_gain"]
-    t_ref = pr["t_ref_esn0"]
-    t_min = pr["t_min_scale"]
-    c_bn = pr["c_bn"]
-    c_rho = pr["c_loop_snr"]
-    gear = pr["gear_symbols"]
-    c_hold = pr["c_hold"]
-    l_slow = pr["l_lock_slow"]
-    c_on_g = pr["c_on_slow"]
-    c_min_g = pr["c_min_slow"]
-    c_hold_g = pr["c_hold_slow"]
-    slow_esn0 = pr["slow_esn0"]
-    soft_below = pr["soft_below"]
     soft_on = state[0]["soft_on"] == 1
-    c_min_sc = pr["c_min_scale"]
-    c_mag = pr["c_mag"]
     look = int(hbox + 0.5) + 2 if hbox > 0.0 else 2
 
     st = state[0]
@@ -898,226 +1139,9 @@ def track_symbols(mf, base, t_limit, params, mod_code, third_order, state, c_tab
                 # Im r^4 / 4 of the interval's symbols, from their normalised copies in out_sym (one amplitude over an
                 # interval): off the loop, whose every extra sum costs about 1.5 ns a symbol
                 acc_qi += quarter_im4_sum(out_sym, iv0, nout) / (inv_amp * inv_amp * inv_amp * inv_amp)
-            inv_n = 1.0 / acc_n
-            d_amp = math.exp(acc_n * l_amp)
-            d_lc = math.exp(acc_n * l_lc)
-            d_ls = math.exp(acc_n * l_ls)
-            mr2 = acc_r2 * inv_n
-            mr4 = acc_r4 * inv_n
-            # amplitude from the M2M4 moments
-            m2s = d_amp * st["m2s"] + (1.0 - d_amp) * mr2
-            m4s = d_amp * st["m4s"] + (1.0 - d_amp) * mr4
-            wsum = d_amp * st["wsum"] + (1.0 - d_amp)
-            st["m2s"] = m2s
-            st["m4s"] = m4s
-            st["wsum"] = wsum
-            m2 = m2s / wsum
-            m4 = m4s / wsum
-            s2 = 2.0 * m2 * m2 - m4
-            s_floor = 0.05 * m2
-            sig = math.sqrt(s2) if s2 > s_floor * s_floor else s_floor
-            if sig > 1e-30:
-                # nothing but zeros so far (erasures, a silent start): the amplitude is kept
-                amp = math.sqrt(sig)
-                inv_amp = 1.0 / amp
-                st["amp"] = amp
-            esn0 = sig / (m2 - sig) if m2 > sig else 1e3
-            # the long carrier-lock average (QPSK/OQPSK at low Es/N0, where the fourth-power statistic
-            # over the short window is buried in its own noise): -Re(r^4) / M4 against its locked value
-            # S^2 / M4, both over the same long window
-            slow_ok = False
-            slow_bad = True
-            slow_low = False
-            if l_slow < 0.0:
-                d_g = math.exp(acc_n * l_slow)
-                m2g, m4g, wg, cnum_g = window_moments(d_g, st["m2g"], st["m4g"], st["wg"], st["cnum_g"], mr2, mr4,
-                                                      acc_q * inv_n)
-                st["m2g"] = m2g
-                st["m4g"] = m4g
-                st["wg"] = wg
-                st["cnum_g"] = cnum_g
-                s2g = 2.0 * m2g * m2g - m4g * wg
-                ref_g = s2g if s2g > 0.0 else 0.0
-                slow_ok = wg > 0.25 and cnum_g * wg > c_on_g * ref_g and cnum_g > c_min_g * m4g
-                slow_bad = cnum_g * wg < c_off * ref_g or cnum_g < 0.5 * c_min_g * m4g
-                # the long window's Es/N0 below slow_esn0: sg / (m2 - sg) < e  <=>  sg (1 + e) < e m2
-                sg = math.sqrt(s2g) if s2g > 0.0 else 0.0
-                slow_low = sg * (1.0 + slow_esn0) < slow_esn0 * m2g
-                # at low Es/N0 the soft detector takes amplitude and Es/N0 from the long window (over 1024
-                # symbols M2M4's S has a relative spread of about 25 % at -3 dB, which the detector's slope,
-                # nearly proportional to (Es/N0)^2 there, would double)
-                if wg > 0.25 and s2g > 0.0 and esn0 < soft_below:
-                    sgn = sg / wg
-                    m2n = m2g / wg
-                    if m2n > sgn and sgn > 1e-30:
-                        esn0 = sgn / (m2n - sgn)
-                        amp = math.sqrt(sgn)
-                        inv_amp = 1.0 / amp
-                        st["amp"] = amp
-            # (once the lock window holds about 1000 symbols: over the first symbols of a stream, before the
-            # timing has converged, the estimate can be far too low, and the hard detector keeps the pull-in
-            # of a strong signal, and the phase ambiguity it settles in, as they always were)
-            soft_on = esn0 < soft_below and st["wf"] > 0.4
-            fisher = 1.0
-            if soft_on:
-                # below soft_below (QPSK/OQPSK) the soft detector, its slope at the measured Es/N0 x from the
-                # table (its Fisher information J = sqrt(2) x slope per symbol); a = sqrt(2) x.  x from -6 dB
-                # while the loops track, from 0 dB while they do not: the estimate over the first symbols of
-                # a warm-up (timing not yet found) can be far too low, and the wide loop would take its noise
-                # at a gain of 1 / slope
-                x_lo = 0.25 if trk == 1 else 1.0
-                x_s = esn0 if esn0 > x_lo else x_lo
-                u = (10.0 * math.log10(x_s) - pr["ct_db0"]) / pr["ct_step"]
-                nt = c_table.shape[0]
-                if u <= 0.0:
-                    kdc = c_table[0]
-                elif u >= nt - 1:
-                    kdc = c_table[nt - 1]
-                else:
-                    ju = int(u)
-                    kdc = c_table[ju] + (u - ju) * (c_table[ju + 1] - c_table[ju])
-                fisher = sqrt2 * x_s * kdc
-                c_clip = 4.0 / math.sqrt(fisher) if fisher < 1.0 and trk == 1 else 4.0
-                a_soft = sqrt2 * x_s
-                g_c = 1.0 / kdc
-            else:
-                c_clip = 4.0
-                if dd_gain > 0.0:
-                    # decision-directed slope at the measured Es/N0 (never below 0.3); QPSK from soft_below
-                    # up with the decision's correlation with the cross term (see Notes)
-                    kdc = hard_costas_slope(esn0, mod_code, soft_below, 1.0 - r0)
-                g_c = inv_amp / kdc
-            g_t = inv_amp * inv_amp * inv_kd
-
-            # carrier-lock statistic relative to its locked value, which comes from M2M4 moments
-            # averaged over the same window (a longer one would lag at a signal's onset and make a
-            # slipping loop look locked).  The ratios are compared cross-multiplied.
-            m2f, m4f, wf, cnum = window_moments(d_lc, st["m2f"], st["m4f"], st["wf"], st["cnum"], mr2, mr4,
-                                                acc_q * inv_n)
-            st["m2f"] = m2f
-            st["m4f"] = m4f
-            st["wf"] = wf
-            st["cnum"] = cnum
-            cnum_i = d_lc * st["cnum_i"] + (1.0 - d_lc) * 4.0 * acc_qi * inv_n
-            st["cnum_i"] = cnum_i
-            # the weight cancels in every ratio below, so the unnormalised sums are used
-            s2w = 2.0 * m2f * m2f - m4f * wf
-            if mod_code == 0:
-                cden = d_lc * st["cden"] + (1.0 - d_lc) * mr2
-                sigw = math.sqrt(s2w) if s2w > 0.0 else 0.0
-                ref_num = sigw if sigw > 0.1 * m2f else 0.1 * m2f
-                ref_den = m2f
-            else:
-                cden = d_lc * st["cden"] + (1.0 - d_lc) * mr4
-                ref_num = s2w if s2w > 0.1 * m4f * wf else 0.1 * m4f * wf
-                # the locked value is the window's own |E r^4| where that is lower (down to c_mag of S^2): noise
-                # that is not Gaussian and circular (rails clipped before the matched filter) lowers -Re E r^4
-                # and raises M2M4's S (see Notes)
-                mag = math.sqrt(cnum * cnum + cnum_i * cnum_i) * wf
-                if mag < ref_num:
-                    ref_num = mag if mag > c_mag * ref_num else c_mag * ref_num
-                ref_den = m4f * wf
-            st["cden"] = cden
-            lhs = cnum * ref_den
-            seen = st["seen"] + acc_n
-            if seen > warmup:
-                seen = int(warmup)
-            st["seen"] = seen
-            if clock == 0:
-                # the condition must hold for `c_hold` symbols in a row: a loop slipping cycles
-                # at a large frequency error can push the statistic up for a moment
-                if lhs > c_on * ref_num * cden and cnum > c_min * cden:
-                    st["cgood"] += acc_n
-                else:
-                    st["cgood"] = 0
-                if st["cgood"] >= c_hold and seen >= warmup:
-                    clock = 1
-                    st["lock_path"] = 0
-                    st["cgood"] = 0
-                # the long average declares lock only while a found carrier is pulled in
-                if slow_ok and st["pull_left"] > 0:
-                    st["cgood_g"] += acc_n
-                else:
-                    st["cgood_g"] = 0
-                if clock == 0 and l_slow < 0.0 and st["cgood_g"] >= c_hold_g and seen >= warmup:
-                    clock = 1
-                    st["lock_path"] = 1
-                if clock == 1:
-                    st["cgood_g"] = 0
-                else:
-                    st["pull_left"] = st["pull_left"] - acc_n if st["pull_left"] > acc_n else 0
-            elif st["lock_path"] == 0:
-                if lhs < c_off * ref_num * cden or cnum < 0.5 * c_min * cden:
-                    # at low Es/N0 (over the long window) the long average holds the lock if it says so
-                    if slow_ok and slow_low:
-                        st["lock_path"] = 1
-                    else:
-                        clock = 0
-            elif slow_bad:
-                clock = 0
-            if clock == 0 and flags & 1:
-                st["pull_left"] = 0  # lock lost: the wide loop coasts (a fade), as before any lock
-            trk = 1 if clock == 1 or (st["pull_left"] > 0 and seen >= warmup and soft_on) else 0
-
-            # symbol-lock statistic: on-time versus midpoint energy, relative to r0 S / (S + N)
-            eon = d_ls * st["eon"] + (1.0 - d_ls) * mr2
-            emid = d_ls * st["emid"] + (1.0 - d_ls) * acc_mid * inv_n
-            st["eon"] = eon
-            st["emid"] = emid
-            diff = eon - emid
-            rho_num = sig if sig > 0.05 * m2 else 0.05 * m2
-            if slock == 0:
-                if diff * m2 > s_on * r0 * rho_num * eon and diff > s_min * eon and seen >= warmup:
-                    slock = 1
-            else:
-                if diff * m2 < s_off * r0 * rho_num * eon or diff < 0.5 * s_min * eon:
-                    slock = 0
-            flags = clock + 2 * slock
-            # the timing loop: its full bandwidth while the carrier is unlocked (pull-in), and in
-            # lock narrowed in proportion to Es/N0 below t_ref (the detector's noise grows as
-            # 1 / (Es/N0)), to at most t_min of it
-            # (only once lock has been held for gear_symbols: the loops pull in at full bandwidth), from
-            # the Es/N0 of the lock window's moments, which follows a signal's onset sooner
-            sw = math.sqrt(s2w / (wf * wf)) if s2w > 0.0 else 0.0
-            m2w = m2f / wf if wf > 0.0 else 0.0
-            esn0 = sw / (m2w - sw) if m2w > sw else (1e3 if sw > 0.0 else 1e-3)
-            if esn0 < 1e-3:
-                esn0 = 1e-3
-            if trk == 1:
-                lock_age = st["lock_age"] + acc_n
-                st["lock_age"] = lock_age
-            else:
-                lock_age = 0
-                st["lock_age"] = 0
-            geared = lock_age >= gear
-            t_scale = 1.0
-            if geared and slock == 1 and esn0 < t_ref:  # never narrowed while the timing is not locked
-                t_scale = esn0 / t_ref if esn0 > t_min * t_ref else t_min
-            st["t_scale"] = t_scale
-            kp_tl = kp_t * t_scale
-            ki_tl = ki_t * t_scale * t_scale
-            # the carrier loop in lock: narrowed where the configured bandwidth would leave a loop
-            # SNR below c_loop_snr, B_L T <= (Es/N0) S_L / rho with the Costas squaring loss S_L
-            c_scale = 1.0
-            # a carrier pulled in after an acquisition (whose frequency is close) is narrowed at once: at
-            # low Es/N0 the full bandwidth's noise would walk the frequency away
-            pulling = clock == 0 and trk == 1
-            if geared or pulling:
-                if soft_on:
-                    # loop SNR 1 / (2 B_L T / J) with the soft detector's Fisher information J per symbol
-                    bn_ok = 0.5 * fisher / c_rho
-                else:
-                    s_l = hard_costas_squaring_loss(esn0, mod_code)
-                    bn_ok = esn0 * s_l / c_rho
-                if bn_ok < c_bn:
-                    c_scale = bn_ok / c_bn if bn_ok > c_min_sc * c_bn else c_min_sc
-                    # narrowed gradually after the pull-in: gear / age of the full bandwidth, down to it
-                    if soft_on and not pulling and gear > c_scale * lock_age:
-                        c_scale = gear / lock_age
-            st["c_scale"] = c_scale
-            kp_cl = kp_c * c_scale
-            ki_cl = ki_c * c_scale * c_scale
-            kr_cl = kr_c * c_scale * c_scale * c_scale
+            (inv_amp, kdc, clock, slock, flags, trk, soft_on, a_soft, c_clip, g_c, g_t, kp_tl, ki_tl, kp_cl, ki_cl,
+             kr_cl) = close_interval(st, pr, c_table, mod_code, acc_n, acc_r2, acc_r4, acc_q, acc_qi, acc_mid, inv_amp,
+                                     kdc, clock, slock, flags, trk, soft_on, a_soft, c_clip, g_c)
             acc_n = 0
             acc_r2 = 0.0
             acc_r4 = 0.0
