@@ -361,7 +361,7 @@ def written(tmp_path_factory):
     facts = RunFacts(tool="downlink test", profile=demo, input_kind="iq", recording_info={}, duration_s=3.0,
                      elapsed_s=1.0, position_rate_hz=1000.0, track=track,
                      doppler_check={"note": "residuals flat only with the sign flipped", "rows": pos.size},
-                     clip_checked=8192, clipped_values=2000, tones_hz=[12345.6])
+                     clip_checked=8192, clipped_values=2000, tones_hz=[12345.6], iq_image_db=-13.3)
     built, _ = build_report(facts)
     return SimpleNamespace(packets=res.packets_list + aos_res.packets_list,
                            frames=res.frames_list + aos_res.frames_list + [fhec],

@@ -429,6 +429,7 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         duration_s=float(inp.duration_s), elapsed_s=elapsed, samples=front.counts.samples,
         nonfinite=front.counts.nonfinite, clip_checked=front.counts.clip_checked,
         clipped_values=front.counts.clipped_values, tones_hz=[] if front.demod is None else list(front.demod.tones_hz),
+        iq_image_db=None if front.demod is None else front.demod.iq_image_db,
         channel_symbols=front.counts.channel_symbols,
         locked_symbols=front.counts.locked_symbols, stage_stats=front.stats, sync_events=front.events,
         demod_events=back.events, track=back.track.arrays(), modulation_index_rad=back.track.modulation_index_rad,

@@ -11,6 +11,7 @@ import numpy as np
 
 from pipeline.demod._acquire import LINE_THRESHOLD, CarrierSearch, SpectralLine, _next_pow2
 from pipeline.demod._filters import gardner_detector_gain, matched_filter_taps, midpoint_energy_ratio
+from pipeline.demod._iq import IqBalance
 from pipeline.demod._kernels import (
     BLOCK_SUMMARY,
     TRACK_PARAMS,
@@ -186,8 +187,10 @@ class DemodStats:
     with a prediction) that found the carrier only at the mirror image of the prediction: the recording is
     spectrally inverted, as inferred from the predicted Doppler's sign, and its samples were conjugated from
     then on.  ``tones_hz`` are the CW tones found in the band and taken out of the samples before the matched
-    filter (:class:`~pipeline.demod._tones.ToneCanceller`).  Picklable; segments of one decode combine with
-    :meth:`merge` (not a field-wise sum; the first segment's centre is kept).
+    filter (:class:`~pipeline.demod._tones.ToneCanceller`); ``iq_image_db`` the level of the front end's I/Q image
+    under the signal when it was taken out (QPSK/OQPSK, :class:`~pipeline.demod._iq.IqBalance`), else None.
+    Picklable; segments of one decode combine with :meth:`merge` (not a field-wise sum; the first segment's centre
+    is kept).
     """
 
     samples_in: int = 0
@@ -203,6 +206,7 @@ class DemodStats:
     acquisition_centre_hz: float | None = None
     carrier_found_mirrored: int = 0
     tones_hz: list = field(default_factory=list)
+    iq_image_db: float | None = None
 
     def saw(self, line: SpectralLine) -> None:
         """Keep ``line`` if it is stronger than the strongest seen so far (a line beats a band)."""
@@ -223,6 +227,8 @@ class DemodStats:
             self.search_hz, self.line_threshold_db = other.search_hz, other.line_threshold_db
         if self.acquisition_centre_hz is None:
             self.acquisition_centre_hz = other.acquisition_centre_hz
+        if other.iq_image_db is not None:
+            self.iq_image_db = other.iq_image_db
         # the tones each segment took out (a segment finds its own; the same tone within a few Hz once)
         for f in other.tones_hz:
             if all(abs(f - g) > 1.0 for g in self.tones_hz):
@@ -783,6 +789,8 @@ class Demodulator:
         self._acquiring = True
         self._tones_looked = False  # the acquisition under way has looked for tones in its window
         self._tones = ToneCanceller(self.sample_rate_hz)
+        # QPSK/OQPSK are circular: a front end's I/Q imbalance is measured and taken out (BPSK is not)
+        self._iq = IqBalance() if self._mod_code != 0 else None
         self._agc_power = 0.0
         self._dc = DcBlocker()
         self._nco_hz = 0.0
@@ -873,6 +881,11 @@ class Demodulator:
     def _feed_block(self, block: np.ndarray, start: int, out: SymbolOut, final: bool = False) -> None:
         if self.conjugate:
             block = np.conj(block)
+        if self._iq is not None:
+            self._iq.update(block)
+            block = self._iq.apply(block)
+            if self._iq.applied:
+                self.stats.iq_image_db = self._iq.image_db
         block = self._tones.apply(block, start)
         if not self._acquiring and (start // self.block_samples) % _TONE_LOOK_BLOCKS == 0:
             block = self._look_for_tones(block, start)
@@ -1015,6 +1028,8 @@ class Demodulator:
         self._held = [(np.conj(b), cnt, mom * flip) for b, cnt, mom in self._held]
         self._dc.offset = self._dc.offset.conjugate()
         self._tones.conjugate()
+        if self._iq is not None:
+            self._iq.conjugate()
 
     def _long_search_due(self) -> int:
         """The long search's window in blocks when one is due now, else 0 (counted once per acquisition)."""

@@ -16,6 +16,8 @@ from numba import njit
 
 __all__ = [
     "cancel_tones",
+    "iq_sums",
+    "remove_image",
     "condition_block",
     "phasor_table",
     "derotate",
@@ -1531,3 +1533,45 @@ def cancel_tones(x2, n0, freqs, sub, amps):
                 x2[2 * (a + j)] -= br * tr - bi * ti
                 x2[2 * (a + j) + 1] -= br * ti + bi * tr
             a = b
+
+
+@njit(cache=True, nogil=True)
+def iq_sums(x2, out):
+    """Sums over the non-zero samples of ``x2`` (interleaved float32, ``n`` samples) for the I/Q balance.
+
+    ``out`` (float64, 6) is set to ``[count, sum re, sum im, sum re^2, sum im^2, sum re im]``; zeros are erasures
+    and are skipped.  One pass, double-precision sums.
+    """
+    cnt = 0.0
+    sr = 0.0
+    si = 0.0
+    srr = 0.0
+    sii = 0.0
+    sri = 0.0
+    for k in range(x2.shape[0] // 2):
+        r = float(x2[2 * k])
+        i = float(x2[2 * k + 1])
+        if r != 0.0 or i != 0.0:
+            cnt += 1.0
+            sr += r
+            si += i
+            srr += r * r
+            sii += i * i
+            sri += r * i
+    out[0] = cnt
+    out[1] = sr
+    out[2] = si
+    out[3] = srr
+    out[4] = sii
+    out[5] = sri
+
+
+@njit(cache=True, nogil=True)
+def remove_image(x2, rho_re, rho_im):
+    """In place: ``x - rho conj(x)`` for every sample of ``x2`` (interleaved float32); zeros stay zero."""
+    for k in range(x2.shape[0] // 2):
+        r = x2[2 * k]
+        i = x2[2 * k + 1]
+        # rho conj(x) = (rho_re r + rho_im i) + j (rho_im r - rho_re i)
+        x2[2 * k] = np.float32(r - (rho_re * r + rho_im * i))
+        x2[2 * k + 1] = np.float32(i - (rho_im * r - rho_re * i))

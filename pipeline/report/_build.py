@@ -43,6 +43,8 @@ class RunFacts:
         Front-end counts (see :class:`pipeline.chain.FrontCounts`).
     tones_hz : list of float
         CW tones the receiver took out of the samples (``DemodStats.tones_hz``, the recording's frame).
+    iq_image_db : float or None
+        The front end's I/Q image under the signal (dB) when the receiver took it out (``DemodStats.iq_image_db``).
     stage_stats : dict
         ``{"branch" | "frame_sync" | "codeblock": statistics dataclass}``.
     sync_events, demod_events : list of dict
@@ -89,6 +91,7 @@ class RunFacts:
     clip_checked: int = 0
     clipped_values: int = 0
     tones_hz: list = field(default_factory=list)
+    iq_image_db: float | None = None
     channel_symbols: int = 0
     locked_symbols: int = 0
     stage_stats: dict = field(default_factory=dict)
@@ -327,6 +330,9 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fr
         listed = ", ".join(f"{t:+.0f} Hz" for t in sorted(f.tones_hz))
         verdict["tones_note"] = (f"CW tone{'s' if len(f.tones_hz) > 1 else ''} at {listed} (a spur or an interferer in "
                                  "the band) taken out of the samples before demodulation")
+    if f.iq_image_db is not None:
+        verdict["iq_note"] = (f"the receiver's I and Q paths were out of balance: the signal's mirror image stood "
+                              f"{-f.iq_image_db:.1f} dB under it, taken out of the samples before demodulation")
     clipped = _clipped_fraction(f)
     if clipped:
         verdict["clipping_note"] = (
@@ -401,6 +407,7 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         "clipped_fraction": _clipped_fraction(f),
         "channel_symbols": f.channel_symbols,
         **({"tones_removed_hz": [round(t, 1) for t in sorted(f.tones_hz)]} if f.tones_hz else {}),
+        **({"iq_image_removed_db": round(f.iq_image_db, 1)} if f.iq_image_db is not None else {}),
     }
     if f.modulation_index_rad:
         demod["modulation_index_rad_median"] = round(float(np.median(f.modulation_index_rad)), 4)

@@ -342,6 +342,9 @@ def _verdict_html(v: dict, ber: dict | None, anchor: str) -> str:
     tones = v.get("tones_note")
     if tones:
         note_html += f'<p class="time"><strong>Interference:</strong> {_esc(tones)}.</p>'
+    iq = v.get("iq_note")
+    if iq:
+        note_html += f'<p class="time"><strong>I/Q balance:</strong> {_esc(iq)}.</p>'
     clip = v.get("clipping_note")
     if clip:
         cls = cls or "warn"
