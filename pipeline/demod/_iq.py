@@ -61,8 +61,8 @@ class IqBalance:
         return 20.0 * math.log10(abs(self.rho)) if self.rho else float("-inf")
 
     def update(self, block: np.ndarray) -> None:
-        """Take a block (complex64, as recorded) into the estimate."""
-        iq_sums(np.ascontiguousarray(block[:IQ_LOOK_SAMPLES]).view(np.float32), self._sums)
+        """Take a block (complex64, contiguous, as recorded) into the estimate."""
+        iq_sums(block[:IQ_LOOK_SAMPLES].view(np.float32), self._sums)
         cnt, sr, si, srr, sii, sri = self._sums
         if cnt < 256:
             return
