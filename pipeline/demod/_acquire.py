@@ -122,9 +122,11 @@ class CarrierAcquisition:
 def rail_values(x: np.ndarray) -> int:
     """The values (real and imaginary parts) of ``x`` that sit exactly at one of its rails' extremes (the most
     positive or most negative real or imaginary part), counting only the extremes that at least
-    :data:`CLIPPED_FRACTION` of the samples (and 8) reach: 0 for samples below full scale, which reach each
-    extreme once or twice.  An ADC driven past full scale (or a recording clipped on conversion) repeats its
-    largest and smallest codes.  Cost: four passes over each rail.
+    :data:`CLIPPED_FRACTION` of the samples (and 8) reach and more of them than reach the next value inside: 0 for
+    samples below full scale, which reach each extreme once or twice (or, quantised to a few codes, less often
+    than the code next to it).  An ADC driven past full scale (or a recording clipped on conversion) piles its
+    values up at its largest and smallest codes.  Cost: four passes over each rail, two more for an extreme that
+    many values reach.
 
     Examples
     --------
@@ -142,9 +144,16 @@ def rail_values(x: np.ndarray) -> int:
         hi, lo = rail.max(), rail.min()
         if hi == lo:
             continue  # constant (a rail of zeros): nothing clipped
-        for edge in (hi, lo):
+        for edge, inside in ((hi, rail < hi), (lo, rail > lo)):
             k = int(np.count_nonzero(rail == edge))
-            total += k if k >= need else 0
+            if k < need:
+                continue
+            # a pile-up: more values at the extreme than at the next value inside it (coarsely quantised samples
+            # far below full scale, a few codes in all, reach their extreme code often, but less often than the
+            # code next to it, as a tail does)
+            nxt = rail[inside]
+            nxt = nxt.max() if edge == hi else nxt.min()
+            total += k if k > int(np.count_nonzero(rail == nxt)) else 0
     return total
 
 
