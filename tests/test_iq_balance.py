@@ -130,13 +130,7 @@ def test_qpsk_link_with_an_imbalanced_front_end_and_the_report(tmp_path):
     prof = profile_from_dict(QPSK_LINK)
     sim = simulate(prof, tmp_path / "clean", seconds=0.4, seed=9)
     x = np.fromfile(sim.data_path, dtype=np.complex64)
-    folder = tmp_path / "iq"
-    folder.mkdir()
-    _imbalanced(x, 3.0, 15.0).tofile(folder / sim.data_path.name)
-    meta = json.loads(sim.meta_path.read_text())
-    meta["global"].pop("core:sha512", None)
-    (folder / sim.meta_path.name).write_text(json.dumps(meta))
-    got = decode(folder / sim.meta_path.name, prof, tmp_path / "out")
+    got = decode(ds.rewritten_recording(sim, _imbalanced(x, 3.0, 15.0), tmp_path / "iq"), prof, tmp_path / "out")
     assert got.packets == sim.num_packets and got.frames_failed == 0
     report = json.loads((tmp_path / "out" / "report.json").read_text())
     assert abs(-report["demod"]["iq_image_removed_db"] - _image_rejection_db(3.0, 15.0)) < 0.3

@@ -172,13 +172,7 @@ def test_qpsk_link_with_an_in_band_tone_decodes_as_clean_and_the_report_names_it
     p = float(np.mean(np.abs(x) ** 2))
     f_tone = 12e3 + 0.4 * 2e6
     y = (x + math.sqrt(0.5 * p) * np.exp(2j * np.pi * (f_tone / 5e6) * np.arange(x.size))).astype(np.complex64)
-    folder = tmp_path / "tone"
-    folder.mkdir()
-    y.tofile(folder / sim.data_path.name)
-    meta = json.loads(sim.meta_path.read_text())
-    meta["global"].pop("core:sha512", None)
-    (folder / sim.meta_path.name).write_text(json.dumps(meta))
-    got = decode(folder / sim.meta_path.name, prof, tmp_path / "out")
+    got = decode(ds.rewritten_recording(sim, y, tmp_path / "tone"), prof, tmp_path / "out")
     assert got.packets == clean.packets == sim.num_packets and got.frames_failed == 0
     report = json.loads((tmp_path / "out" / "report.json").read_text())
     removed = report["demod"]["tones_removed_hz"]

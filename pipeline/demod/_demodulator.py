@@ -25,7 +25,7 @@ from pipeline.demod._kernels import (
 )
 from pipeline.demod._predicted import CarrierPrediction
 from pipeline.demod._snr import esn0_db_from_moments
-from pipeline.demod._tones import ToneCanceller, find_tones
+from pipeline.demod._tones import ToneCanceller
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "centre_window", "check_chunk",
@@ -901,15 +901,13 @@ class Demodulator:
     def _look_for_tones(self, block: np.ndarray, start: int) -> np.ndarray:
         """CW tones in ``block`` (its first sample at ``start``, the tones known already taken out) taken out from now
         on, this block included (:func:`~pipeline.demod._tones.find_tones`)."""
-        new = self._tones.add(find_tones(block, self.sample_rate_hz))
-        self._note_tones()
-        if not new:
-            return block
+        new = self._tones.look(block)
+        self.stats.tones_hz = self._tones.recorded_hz(self.conjugate)
         return self._tones.apply(block, start, only=new)
 
-    def _note_tones(self) -> None:
-        """The tones taken out, in the recording's frame (not conjugated), into the statistics."""
-        self.stats.tones_hz = [-f if self.conjugate else f for f in self._tones.tones_hz]
+    def _held_window(self) -> np.ndarray:
+        """The blocks held for the acquisition as one window."""
+        return np.concatenate([h[0] for h in self._held]) if len(self._held) > 1 else self._held[0][0]
 
     def _moments(self, block: np.ndarray) -> tuple[np.ndarray, int, np.ndarray]:
         """The block (NaN/Inf replaced by 0 and counted), its non-zero count and moments (one pass)."""
@@ -933,20 +931,20 @@ class Demodulator:
 
     def _acquire(self, out: SymbolOut, final: bool = False) -> None:
         """Search the held window; release all of it if found (or at the end), else its first block."""
-        held = np.concatenate([h[0] for h in self._held]) if len(self._held) > 1 else self._held[0][0]
+        held = self._held_window()
         self.stats.acquisitions += 1
         if not self._tones_looked:
             # once per acquisition: tones in its window are taken out of it, and of every block after it
             self._tones_looked = True
-            new = self._tones.add(find_tones(held, self.sample_rate_hz))
-            self._note_tones()
+            new = self._tones.look(held)
+            self.stats.tones_hz = self._tones.recorded_hz(self.conjugate)
             if new:
                 start, rebuilt = self._run_sample, []  # the held window's first sample is the next one to run
                 for b, _, _ in self._held:
                     rebuilt.append(self._moments(self._tones.apply(b, start, only=new)))
                     start += b.size
                 self._held = rebuilt
-                held = np.concatenate([h[0] for h in self._held]) if len(self._held) > 1 else self._held[0][0]
+                held = self._held_window()
         found = False
         if held.size >= 1024:
             acq, offset, first, middle, long_nb = self._search_held(held, final)

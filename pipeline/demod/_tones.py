@@ -143,6 +143,18 @@ class ToneCanceller:
             self._amps = np.concatenate([self._amps, np.zeros(len(new), dtype=np.complex128)])
         return new
 
+    def look(self, samples: np.ndarray, away_from: tuple = (), guard_hz: float = 0.0) -> list[int]:
+        """The tones :func:`find_tones` sees in ``samples`` (the known ones already out of them), but none within
+        ``guard_hz`` of a frequency of ``away_from`` (a residual carrier's own lines), taken out from now on
+        (:meth:`add`); the indices of the new ones."""
+        found = [f for f in find_tones(samples, self.sample_rate_hz) if all(abs(f - g) > guard_hz for g in away_from)]
+        return self.add(np.array(found))
+
+    def recorded_hz(self, conjugated: bool) -> list[float]:
+        """The tones' frequencies in the recording's own frame (``conjugated``: the samples taken out of are the
+        recording's conjugate, a spectrally inverted recording)."""
+        return [-f if conjugated else f for f in self.tones_hz]
+
     def conjugate(self) -> None:
         """The samples are conjugated from now on (a spectrally inverted recording): each tone at minus its
         frequency, its amplitude conjugated."""

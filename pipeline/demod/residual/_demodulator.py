@@ -26,7 +26,7 @@ from pipeline.demod._demodulator import (
     shifted_line,
 )
 from pipeline.demod._predicted import CarrierPrediction
-from pipeline.demod._tones import TONE_STRETCH, ToneCanceller, find_tones
+from pipeline.demod._tones import TONE_STRETCH, ToneCanceller
 from pipeline.demod.residual._kernels import (
     CARRIER_PARAMS,
     CARRIER_STATE,
@@ -898,11 +898,8 @@ class ResidualCarrierDemodulator:
     def _look_for_tones(self, samples: np.ndarray, carrier_hz: float) -> list[int]:
         """Tones in ``samples`` (known tones already out of them) away from the signal's lines, taken out from
         now on; the indices of the new ones."""
-        guard = self._tone_guard_hz()
-        lines = self._carrier_lines(carrier_hz)
-        found = [f for f in find_tones(samples, self.sample_rate_hz) if all(abs(f - g) > guard for g in lines)]
-        new = self._tones.add(np.array(found))
-        self.stats.tones_hz = [-f if self.conjugate else f for f in self._tones.tones_hz]
+        new = self._tones.look(samples, self._carrier_lines(carrier_hz), self._tone_guard_hz())
+        self.stats.tones_hz = self._tones.recorded_hz(self.conjugate)
         return new
 
     def _tones_clear_of(self, carrier_hz: float | None) -> list[int]:
