@@ -139,8 +139,12 @@ def test_two_recordings_with_one_file_name_decode_into_two_folders(tmp_path, dem
     capfd.readouterr()
     assert run_batch(recs, demo_profile, "p.toml", str(out), workers=2) == 0
     err = capfd.readouterr().err.strip().splitlines()
-    # one progress line per recording and a summary: no scheduler logging without -v
-    assert len(err) == 3 and err[0].startswith("[1/2]") and err[-1].startswith("batch: 2 decoded"), err
+    # one progress line per recording and a summary: no scheduler logging without -v.  (Only the batch's own lines
+    # and the scheduler's are counted: a worker compiling a kernel whose cache another worker is writing may warn
+    # once on stderr, which is numba's, not the scheduler's.)
+    ours = [line for line in err if line.startswith(("[", "batch:"))]
+    assert len(ours) == 3 and ours[0].startswith("[1/2]") and ours[-1].startswith("batch: 2 decoded"), err
+    assert not [line for line in err if "distributed." in line or "dask" in line.lower()], err
     for d in ("day1", "day2"):
         assert (out / d / "recording" / "packets.jsonl").stat().st_size > 0
     index = json.loads((out / "index.json").read_text())
