@@ -242,13 +242,15 @@ def bit_errors_iq(block, wave: Waveform, skip: int = 2000):
 
 def rewritten_recording(sim, samples: np.ndarray, folder) -> Path:
     """A copy of a simulated SigMF recording (``sim``: what ``pipeline.sim.simulate`` returned) in ``folder`` with
-    ``samples`` (complex64) as its data: the metadata as it was, less the ``core:sha512`` the new samples would fail.
-    Returns the copy's metadata path (for an impaired copy of a pass: clipped, with a tone, ...)."""
+    ``samples`` (complex64) as its data: the metadata as it was, less the ``core:sha512`` the new samples would fail
+    and the sample count samples dropped or inserted would.  Returns the copy's metadata path (for an impaired copy
+    of a pass: clipped, with a tone, with samples dropped, ...)."""
     folder = Path(folder)
     folder.mkdir(parents=True)
     np.asarray(samples, dtype=np.complex64).tofile(folder / Path(sim.data_path).name)
     meta = json.loads(Path(sim.meta_path).read_text())
     meta["global"].pop("core:sha512", None)
+    meta["global"].pop("downlink:sample_count", None)
     path = folder / Path(sim.meta_path).name
     path.write_text(json.dumps(meta))
     return path

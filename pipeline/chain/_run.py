@@ -430,6 +430,8 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         nonfinite=front.counts.nonfinite, clip_checked=front.counts.clip_checked,
         clipped_values=front.counts.clipped_values, tones_hz=[] if front.demod is None else list(front.demod.tones_hz),
         iq_image_db=None if front.demod is None else front.demod.iq_image_db,
+        timing_jumps=0 if front.demod is None else front.demod.timing_jumps,
+        phase_jumps=0 if front.demod is None else front.demod.phase_jumps,
         channel_symbols=front.counts.channel_symbols,
         locked_symbols=front.counts.locked_symbols, stage_stats=front.stats, sync_events=front.events,
         demod_events=back.events, track=back.track.arrays(), modulation_index_rad=back.track.modulation_index_rad,

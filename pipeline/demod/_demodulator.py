@@ -207,6 +207,8 @@ class DemodStats:
     carrier_found_mirrored: int = 0
     tones_hz: list = field(default_factory=list)
     iq_image_db: float | None = None
+    timing_jumps: int = 0
+    phase_jumps: int = 0
 
     def saw(self, line: SpectralLine) -> None:
         """Keep ``line`` if it is stronger than the strongest seen so far (a line beats a band)."""
@@ -218,7 +220,7 @@ class DemodStats:
     def merge(self, other: DemodStats) -> None:
         """Add another run's (a later segment's) counters; keep the stronger line."""
         for name in ("samples_in", "nonfinite_samples", "symbols_out", "carrier_locked_symbols", "acquisitions",
-                     "carrier_found", "carrier_found_mirrored"):
+                     "carrier_found", "carrier_found_mirrored", "timing_jumps", "phase_jumps"):
             setattr(self, name, getattr(self, name) + getattr(other, name))
         self.last_peak_ratio = other.last_peak_ratio
         if other.strongest_line is not None:

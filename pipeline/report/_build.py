@@ -45,6 +45,10 @@ class RunFacts:
         CW tones the receiver took out of the samples (``DemodStats.tones_hz``, the recording's frame).
     iq_image_db : float or None
         The front end's I/Q image under the signal (dB) when the receiver took it out (``DemodStats.iq_image_db``).
+    timing_jumps, phase_jumps : int
+        Times the residual-carrier receiver found its symbols moved by a fraction of a period at once, or the
+        carrier's phase jumped, and took the new timing or phase (``DemodStats.timing_jumps``, ``phase_jumps``:
+        samples lost by the recorder, most likely).
     stage_stats : dict
         ``{"branch" | "frame_sync" | "codeblock": statistics dataclass}``.
     sync_events, demod_events : list of dict
@@ -92,6 +96,8 @@ class RunFacts:
     clipped_values: int = 0
     tones_hz: list = field(default_factory=list)
     iq_image_db: float | None = None
+    timing_jumps: int = 0
+    phase_jumps: int = 0
     channel_symbols: int = 0
     locked_symbols: int = 0
     stage_stats: dict = field(default_factory=dict)
@@ -333,6 +339,14 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fr
     if f.iq_image_db is not None:
         verdict["iq_note"] = (f"the receiver's I and Q paths were out of balance: the signal's mirror image stood "
                               f"{-f.iq_image_db:.1f} dB under it, taken out of the samples before demodulation")
+    if f.timing_jumps or f.phase_jumps:
+        def times(k: int) -> str:
+            return "once" if k == 1 else f"{k} times"
+        what = [f"the symbols moved by a fraction of a symbol period at once {times(f.timing_jumps)}"] \
+            if f.timing_jumps else []
+        what += [f"the carrier's phase jumped {times(f.phase_jumps)}"] if f.phase_jumps else []
+        verdict["timing_note"] = (f"{' and '.join(what)} (samples lost by the recorder, most likely); the receiver "
+                                  "took the new timing and phase at once, and the frame in which it happened is lost")
     clipped = _clipped_fraction(f)
     if clipped:
         verdict["clipping_note"] = (
@@ -408,6 +422,8 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         "channel_symbols": f.channel_symbols,
         **({"tones_removed_hz": [round(t, 1) for t in sorted(f.tones_hz)]} if f.tones_hz else {}),
         **({"iq_image_removed_db": round(f.iq_image_db, 1)} if f.iq_image_db is not None else {}),
+        **({"timing_jumps": f.timing_jumps} if f.timing_jumps else {}),
+        **({"phase_jumps": f.phase_jumps} if f.phase_jumps else {}),
     }
     if f.modulation_index_rad:
         demod["modulation_index_rad_median"] = round(float(np.median(f.modulation_index_rad)), 4)

@@ -57,6 +57,31 @@ _TIMING_TRIALS = 32
 #: Symbol and subcarrier clock offsets the acquisition searches (fraction of nominal).
 _CLOCK_SEARCH = 200e-6
 _TIMING_MAX_SYMBOLS = 8192
+#: Symbol timing re-found in a block whose last symbols' mean energy fell (a recorder that dropped samples moves the
+#: symbols by a fraction of a period at once, which a transition loop narrowed for low Es/N0 takes thousands of
+#: symbols to follow; :meth:`ResidualCarrierDemodulator._timing_jump`): the mean symbol energy over the block's last
+#: symbols (at most ``_JUMP_SYMBOLS``, at least ``_JUMP_MIN_SYMBOLS``) at ``_JUMP_TRIALS`` timings per period, and a
+#: timing at least ``_JUMP_MIN_PERIODS`` away whose energy beats the tracked symbols' by ``_JUMP_SIGMAS`` standard
+#: errors of their paired difference is taken from the symbol the move happened at.
+_JUMP_SYMBOLS = 1024
+_JUMP_MIN_SYMBOLS = 256
+_JUMP_TRIALS = 16
+_JUMP_MIN_PERIODS = 0.125
+_JUMP_SIGMAS = 5.0
+#: The carrier's phase re-found (:meth:`ResidualCarrierDemodulator._phase_jump`) in a block whose mean in-phase
+#: carrier fell under ``_PHASE_JUMP_TRIGGER`` of the carrier's amplitude, and significantly, or whose loop phase
+#: strayed from where it would have run by more than ``_PHASE_JUMP_TURN`` rad, once the loop has been locked for
+#: ``_PHASE_JUMP_SETTLED`` blocks: the block's stretches of ``_PHASE_JUMP_STRETCH`` samples, the cut where their
+#: mean changes most, the change over the ``_PHASE_JUMP_LOCAL`` stretches each side of it standing ``_PHASE_JUMP_Z``
+#: out (a chi-square statistic with two degrees of freedom) and turning the carrier by more than
+#: ``_PHASE_JUMP_MIN_RAD``.
+_PHASE_JUMP_TRIGGER = 0.9
+_PHASE_JUMP_TURN = 1.2
+_PHASE_JUMP_SETTLED = 4
+_PHASE_JUMP_STRETCH = 256
+_PHASE_JUMP_LOCAL = 32
+_PHASE_JUMP_Z = 20.0
+_PHASE_JUMP_MIN_RAD = math.pi / 4.0
 _SUB_BLOCKS = 8
 _REACQUIRE_BLOCKS = 3
 #: The carrier search accumulates up to this many symbols (at most 32 blocks) before it starts again.
@@ -524,6 +549,10 @@ class ResidualCarrierDemodulator:
         self._acq_start = 0
         self._amp_floor = 0.0
         self._carrier_amp = float("nan")
+        self._loop_rate = float("nan")  # the carrier loop's mean frequency rate over the last block (rad/sample^2)
+        self._locked_blocks = 0  # blocks in a row the carrier stage ended locked
+        self._loop_mean_w = float("nan")  # its mean frequency over the last block (rad/sample) ...
+        self._loop_mean_n = 0  # ... of this many samples
         self._cn0_hz = float("nan")
         self._noise_var = float("nan")
         self._clock_ratio = 1.0
@@ -543,6 +572,7 @@ class ResidualCarrierDemodulator:
         self._lbuf = np.zeros(0, dtype=np.int8)
         self._ubase = int(base)
         self._timing_acquired = False
+        self._energy_ref = float("nan")
         self._symbol_lock = MeanStatistic(memory_symbols=_LOCK_MEMORY_SYMBOLS)
         self._subcarrier_lock = MeanStatistic(memory_symbols=_LOCK_MEMORY_SYMBOLS)
         self._symbol_decision = HeldDecision(on=_SYMBOL_Z_ON, off=_SYMBOL_Z_OFF, hold=_SYMBOL_HOLD)
@@ -927,6 +957,7 @@ class ResidualCarrierDemodulator:
         self._cn0_hz = fix.cn0_hz
         self._acq_start = fix.start
         self._unlocked_blocks = 0
+        self._locked_blocks = 0
         self._tracking = True
         self._clear_symbol_stage(items[0][2])
         self._clock_ratio = 1.0
@@ -1092,6 +1123,151 @@ class ResidualCarrierDemodulator:
             ss["amp"] = math.sqrt(float(e_0)) / period
         self._timing_acquired = True
 
+    def _energy_fell(self, raw: np.ndarray) -> bool:
+        """The mean energy of the block's last symbols (at most ``_JUMP_SYMBOLS``) under 0.95 of the blocks' before,
+        and under it by 3 standard errors: the symbols may have moved (the timing check's trigger; a timing ``d``
+        periods off takes ``2 |d| - 2 d^2`` of the signal's energy, 0.22 at an eighth of a period)."""
+        ref = self._energy_ref
+        if not math.isfinite(ref):
+            return False
+        e = raw[-_JUMP_SYMBOLS:] ** 2
+        mean = float(np.mean(e))
+        return mean < 0.95 * ref and ref - mean > 3.0 * float(np.std(e)) / math.sqrt(e.size)
+
+    def _in_phase_fell(self, n: int) -> bool:
+        """The block's mean in-phase carrier (``Re r``, the carrier stage's sums) under ``_PHASE_JUMP_TRIGGER`` of the
+        carrier's amplitude, and under it by 3 standard errors: the carrier may have turned (a phase jump)."""
+        st = self._cs[0]
+        a = self._carrier_amp
+        if not (math.isfinite(a) and a > 0 and n > 1):
+            return False
+        mean = float(st["sum_re"]) / n
+        var = max(float(st["sum_re2"]) / n - mean * mean, 0.0)
+        return mean < _PHASE_JUMP_TRIGGER * a and a - mean > 3.0 * math.sqrt(var / n)
+
+    def _phase_jump(self, block: np.ndarray, gain: float, at: np.ndarray, before: np.ndarray, free: tuple,
+                    u: np.ndarray, uq: np.ndarray, lk: np.ndarray, ph: np.ndarray) -> float:
+        """The block's carrier stage again, from where the carrier's phase jumped, with the loop's phase moved by the
+        jump: ``u, uq, lk, ph`` (filled by the first pass, which started from the state ``before``) overwritten.
+        Returns the phase the loop was moved by (0 when the carrier did not jump).
+
+        A loop error ``Im(r) / A_c`` is ``sin`` of the phase error, so a phase that jumps by more than a quarter turn
+        (samples lost by the recorder: the carrier's phase moves by ``2 pi f`` times the samples lost) leaves the loop
+        near its unstable point, through which it turns back slowly, for hundreds of milliseconds at the narrow
+        bandwidths of a weak carrier, the data arm fading through zero on the way.  The block's samples, derotated
+        as the loop would have run (``free``: its phase at the block's start, the mean frequency of the block
+        before, the Doppler rate), are averaged over stretches of ``_PHASE_JUMP_STRETCH`` samples; the cut where
+        their mean changes most (each part weighed by its spread: the real part holds the carrier and noise, the
+        imaginary part the data too) is the candidate, and the change across it over the ``_PHASE_JUMP_LOCAL``
+        stretches each side (a loop still taking up a frequency turns the carrier smoothly, far less over so short
+        a span) is the jump, taken when it stands ``_PHASE_JUMP_Z`` out (a chi-square statistic of two degrees of
+        freedom) and turns the carrier by more than ``_PHASE_JUMP_MIN_RAD``.  Called only for a block whose
+        in-phase carrier fell or whose loop turned (:meth:`_in_phase_fell`, :func:`_loop_turned`).  At P_c/N0 =
+        25 dB-Hz (Es/N0 = 0 dB, m = 1.2 rad, 2 ksym/s) jumps of 135 degrees and more are found and taken, 90 in
+        one case of five, 60 not (tests/test_residual_timing_jump.py; the loop turns back from those by itself).
+        """
+        n = block.size
+        m = n // _PHASE_JUMP_STRETCH
+        if m < 8 or at.size < 2:
+            return 0.0
+        x = block[:m * _PHASE_JUMP_STRETCH].astype(np.complex128)
+        t = np.arange(m * _PHASE_JUMP_STRETCH, dtype=np.float64)
+        # derotated as the loop would have run (``free``: its phase and frequency at the block's start, the Doppler
+        # rate): the carrier stands still before a jump and at the jump's angle after it, whatever the loop did
+        phase0, _, omega, rate = free
+        means = gain * (x * np.exp(-1j * (phase0 + omega * t + 0.5 * rate * t * t))).reshape(
+            m, _PHASE_JUMP_STRETCH).mean(axis=1)
+        c = np.concatenate([[0.0], np.cumsum(means)])
+        k = np.arange(1, m)
+        left = c[k] / k
+        right = (c[m] - c[k]) / (m - k)
+        # the cut where the two parts' means differ most (each part of the stretch means in units of its spread)
+        stat = k * (m - k) / m * ((right.real - left.real) ** 2 / max(float(np.var(means.real)), 1e-30)
+                                  + (right.imag - left.imag) ** 2 / max(float(np.var(means.imag)), 1e-30))
+        kk = int(k[int(np.argmax(stat))])
+        # then the change across it over the stretches next to it only (a frequency or a Doppler rate the loop was
+        # still taking up turns the carrier smoothly, which over so short a span stays far under a jump's angle),
+        # against the spread within them
+        span = min(_PHASE_JUMP_LOCAL, kk, m - kk)
+        if span < 8:
+            return 0.0
+        a, b = means[kk - span:kk], means[kk:kk + span]
+        ma, mb = a.mean(), b.mean()
+        var_re = max(0.5 * (float(np.var(a.real)) + float(np.var(b.real))), 1e-30)
+        var_im = max(0.5 * (float(np.var(a.imag)) + float(np.var(b.imag))), 1e-30)
+        z = 0.5 * span * ((mb.real - ma.real) ** 2 / var_re + (mb.imag - ma.imag) ** 2 / var_im)
+        jump = math.atan2(mb.imag, mb.real) - math.atan2(ma.imag, ma.real)
+        jump = (jump + math.pi) % (2.0 * math.pi) - math.pi
+        if not (z > _PHASE_JUMP_Z and abs(jump) > _PHASE_JUMP_MIN_RAD):
+            return 0.0
+        cut = kk * _PHASE_JUMP_STRETCH
+        self._cs[:] = before
+        st = self._cs[0]
+        st["sum_re"] = 0.0
+        st["sum_re2"] = 0.0
+        first = at < cut
+        ph1 = np.empty(int(first.sum()))
+        ph2 = np.empty(at.size - ph1.size)
+        track_carrier(block[:cut], gain, self._cparams, self._cs, self._cos, self._sin, at[first], u[:cut],
+                      uq[:cut] if uq.size else uq, lk[:cut], ph1)
+        st = self._cs[0]
+        st["phase"] = (float(st["phase"]) + jump) % (2.0 * math.pi)
+        st["total"] = float(st["total"]) + jump
+        track_carrier(block[cut:], gain, self._cparams, self._cs, self._cos, self._sin, at[~first] - cut, u[cut:],
+                      uq[cut:] if uq.size else uq, lk[cut:], ph2)
+        ph[:] = np.concatenate([ph1, ph2])
+        self.stats.phase_jumps += 1
+        return jump
+
+    def _timing_jump(self, cols: tuple, upto: int) -> tuple:
+        """The block's symbols ``cols`` (as :meth:`_symbols` gives them), again from where the symbols moved by a
+        fraction of a period at once, at the new timing; ``cols`` as they were when they did not move.
+
+        A timing ``d`` periods late integrates an NRZ symbol with a transition to ``1 - 2 |d|`` of its value, so the
+        mean energy falls as ``1 - 2 |d| + 2 d^2`` of the signal's (0.54 at ``d = 0.36``): over 1024 symbols at
+        Es/N0 = -1.5 dB that is about 8 standard errors.  The energies at ``_JUMP_TRIALS`` timings over the block's
+        last symbols come from prefix sums (:func:`timing_energy`); a candidate at least ``_JUMP_MIN_PERIODS`` from
+        the tracked timing (outside the loop's own range) is tested symbol by symbol against the tracked symbols
+        (the noise they share cancels in the paired difference).  Once taken, the move's symbol is where the
+        paired difference's sum from there on is largest (it is ``-mu`` a symbol before the move and ``+mu``
+        after), and the symbols from there are integrated again at the new timing (no transition update across the
+        move): the block loses nothing but the symbols the move itself broke.
+        """
+        pos, raw = cols[0], cols[1]
+        ss = self._ss[0]
+        period = float(ss["period"])
+        n = min(pos.size, _JUMP_SYMBOLS)
+        centres = pos[-n:-1]  # the last symbol's successor may lie beyond the block
+        lo = max(int(math.floor(pos[0] - period)) - 2 - self._ubase, 0)
+        u = self._ubuf[lo:upto]
+        base = self._ubase + lo
+        cum = np.zeros(u.size + 1, dtype=np.float64)
+        np.cumsum(u, dtype=np.float64, out=cum[1:])
+        energy = np.empty((1, _JUMP_TRIALS), dtype=np.float64)
+        timing_energy(cum, u, np.int64(base), float(centres[0]), np.array([period]), _JUMP_TRIALS, centres.size,
+                      1 if self.biphase else 0, energy)
+        row = energy[0]
+        j = int(np.argmax(row))
+        e_m, e_0, e_p = row[(j - 1) % _JUMP_TRIALS], row[j], row[(j + 1) % _JUMP_TRIALS]
+        den = e_m - 2.0 * e_0 + e_p
+        frac = 0.5 * (e_m - e_p) / den if den < 0 else 0.0
+        d = (j + frac) / _JUMP_TRIALS
+        d -= math.floor(d + 0.5)  # in [-1/2, 1/2) periods
+        if abs(d) < _JUMP_MIN_PERIODS:
+            return cols
+        s_new = _held_integrals(cum, u, base, pos[:-1] + d * period, 0.5 * period, self.biphase)
+        diff = s_new * s_new - raw[:-1] * raw[:-1]
+        tail = diff[-(n - 1):]
+        if not float(np.mean(tail)) > _JUMP_SIGMAS * float(np.std(tail)) / math.sqrt(tail.size):
+            return cols
+        gain = np.cumsum(diff[::-1])[::-1]  # gain[k] = sum of diff[k:]
+        k = int(np.argmax(gain))
+        ss["tau"] = float(pos[k]) + d * period
+        ss["prev"] = 0.0  # no transition update across the move
+        self.stats.timing_jumps += 1
+        again = self._symbols(upto)
+        return tuple(np.concatenate([c[:k], a]) for c, a in zip(cols, again))
+
     def _symbol_noise(self, period: float) -> float:
         """Noise variance of one integrated symbol, ``sigma^2 (T - 1/3) g``, from the carrier stage's last block."""
         return self._noise_var * (period - 1.0 / 3.0) * self._ref_power
@@ -1115,8 +1291,30 @@ class ResidualCarrierDemodulator:
             for name in ("sum_re", "sum_re2"):
                 st[name] = 0.0
             omega0, rate0 = float(st["frequency"]), float(st["rate"])
+            # (the phase-jump check only once the loop has held lock for a few blocks: while it still takes up a
+            # Doppler rate its phase turns smoothly, by more than a jump's angle over a block)
+            settled = self.residual and st["locked"] and self._locked_blocks >= _PHASE_JUMP_SETTLED
+            before = self._cs.copy() if settled else None
+            moved = 0.0
             track_carrier(block, gain, self._cparams, self._cs, self._cos, self._sin, at, u, uq, lk, ph)
+            if before is not None and math.isfinite(self._loop_mean_w):
+                # where the loop would have run: from its phase at the block's start on at the mean frequency it ran
+                # at over the last block, moved on by the Doppler rate it followed (the frequency and rate integrators'
+                # own values are too noisy to run on over a block)
+                rate = self._loop_rate if self.carrier_loop_order == 3 else rate0
+                rate = rate if math.isfinite(rate) else rate0
+                free = (float(before[0]["phase"]), float(before[0]["total"]),
+                        self._loop_mean_w + 0.5 * rate * self._loop_mean_n, rate)
+                if self._in_phase_fell(n) or _loop_turned(free, at, ph):
+                    moved = self._phase_jump(block, gain, at, before, free, u, uq, lk, ph)
             st = self._cs[0]
+            self._loop_rate = (float(st["frequency"]) - omega0) / n
+            # the loop's mean frequency over the block (rad/sample), from its total phase at the first and last samples
+            # (less the phase a jump moved it by)
+            self._loop_mean_w = (float(ph[-1]) - float(ph[0]) - moved) / max(int(at[-1]) - int(at[0]), 1) \
+                if at.size > 1 else float("nan")
+            self._loop_mean_n = n
+            self._locked_blocks = self._locked_blocks + 1 if st["locked"] else 0
             if self.residual and self.carrier_loop_order == 2 and st["locked"]:
                 # rate aiding follows the Doppler rate: the frequency's drift over the block beyond the aiding's
                 # own is the rate the aiding misses (a slow third integrator, one update per block)
@@ -1172,7 +1370,13 @@ class ResidualCarrierDemodulator:
             ss = self._ss[0]
             if self.residual and math.isfinite(self._data_amp) and self._data_amp > 0:
                 ss["amp"] = self._data_amp
-            pos, raw, soft, slock, h1, h2, sq = self._symbols(upto)
+            cols = self._symbols(upto)
+            if info["locked"] and cols[0].size >= _JUMP_MIN_SYMBOLS and self._energy_fell(cols[1]):
+                cols = self._timing_jump(cols, upto)
+            pos, raw, soft, slock, h1, h2, sq = cols
+            if raw.size:
+                e = float(np.mean(raw * raw))
+                self._energy_ref = e if not math.isfinite(self._energy_ref) else 0.75 * self._energy_ref + 0.25 * e
         nsym = pos.size
         # ---- statistics ----------------------------------------------------------------------
         carrier_locked = info["locked"]
@@ -1265,6 +1469,33 @@ class ResidualCarrierDemodulator:
         locked = np.concatenate([p["locked"] for p in parts]).astype(bool)
         track = [t for p in parts for t in p["track"]]
         return SymbolBlock(soft=soft, position=pos, locked=locked, track=track, symbols=soft.astype(np.complex64))
+
+
+def _loop_turned(free: tuple, at: np.ndarray, ph: np.ndarray) -> bool:
+    """The loop's phase at the block's last recorded sample (``ph`` at the samples ``at``) strays from where the loop
+    would have run by more than ``_PHASE_JUMP_TURN``: the loop turned after the carrier (a locked loop's phase follows
+    its frequency and Doppler rate, its jitter over a block a few tenths of a radian at most).  ``free`` is the
+    loop's ``(phase, total phase, frequency, rate)`` at the block's start (rad, rad/sample, rad/sample^2)."""
+    if at.size < 2:
+        return False
+    _, total, omega, rate = free
+    t = float(at[-1])
+    return abs(float(ph[-1]) - (total + omega * t + 0.5 * rate * t * t)) > _PHASE_JUMP_TURN
+
+
+def _held_integrals(cum: np.ndarray, u: np.ndarray, base: int, centres: np.ndarray, half: float,
+                    biphase: bool) -> np.ndarray:
+    """The symbols centred at ``centres`` (``half`` a period each side) as :func:`rect_symbols` integrates them
+    (NRZ: the integral; Bi-phase-L: first half less second half), from the prefix sums ``cum`` of ``u``
+    (``u[0]`` is recording sample ``base``), the samples held over their cells as ``timing_energy`` takes them."""
+    def held(t: np.ndarray) -> np.ndarray:
+        m = np.floor(t + 0.5).astype(np.int64) - base
+        mi = np.clip(m, 0, u.size - 1)
+        inner = cum[mi] + (t + 0.5 - (mi + base)) * u[mi].astype(np.float64)
+        return np.where(m <= 0, 0.0, np.where(m >= u.size, cum[u.size], inner))
+
+    fa, fm, fb = held(centres - half), held(centres), held(centres + half)
+    return (fm - fa) - (fb - fm) if biphase else fb - fa
 
 
 def make_demodulator(*, link: LinkSection, receiver: ReceiverSection, sample_rate_hz: float,
