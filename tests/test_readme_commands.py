@@ -353,15 +353,16 @@ def written(tmp_path_factory):
     parser = FrameParser(frames=aos.with_changes(frames={"fhec": True}).frames)
     cadu = SimpleNamespace(position=0.0, asm_errors=0, inverted=False, flywheel=False)
     fhec = parser.process(SimpleNamespace(frame=bytes(892), status="ok", rs_corrected=(), cadu=cadu)).as_dict()
-    # a residual-carrier track (Pc/N0), a Doppler check that found the spectrum inverted and clipped rails,
-    # through pipeline.report's own builder: the pass keys only such runs have
+    # a residual-carrier track (Pc/N0) with jumps taken, a Doppler check that found the spectrum inverted and clipped
+    # rails, through pipeline.report's own builder: the pass keys only such runs have
     pos = np.arange(100.0, 3001.0, 100.0)
     track = {"position": pos, "esn0_db": np.full(pos.size, 3.0), "carrier_hz": np.full(pos.size, 10.0),
              "locked": np.ones(pos.size, bool), "cn0_dbhz": np.full(pos.size, 40.0)}
     facts = RunFacts(tool="downlink test", profile=demo, input_kind="iq", recording_info={}, duration_s=3.0,
                      elapsed_s=1.0, position_rate_hz=1000.0, track=track,
                      doppler_check={"note": "residuals flat only with the sign flipped", "rows": pos.size},
-                     clip_checked=8192, clipped_values=2000, tones_hz=[12345.6], iq_image_db=-13.3)
+                     clip_checked=8192, clipped_values=2000, tones_hz=[12345.6], iq_image_db=-13.3, timing_jumps=1,
+                     phase_jumps=2, carrier_moves=1)
     built, _ = build_report(facts)
     return SimpleNamespace(packets=res.packets_list + aos_res.packets_list,
                            frames=res.frames_list + aos_res.frames_list + [fhec],

@@ -208,7 +208,8 @@ def test_turbo_pcm_pm_pass_with_samples_dropped_and_the_report(tmp_path):
     report = json.loads((tmp_path / "out" / "report.json").read_text())
     # the drop moved the symbols by 0.36 of a period and the carrier (1200 Hz) by 145 degrees
     assert report["demod"]["timing_jumps"] == 1 and report["demod"]["phase_jumps"] == 1
-    assert "recorder" in report["pass"]["timing_note"] and "phase jumped once" in report["pass"]["timing_note"]
+    note = report["pass"]["jumps_note"]
+    assert "recorder" in note and "phase jumped once" in note and "moved by a fraction" in note
     assert "Jumps:" in (tmp_path / "out" / "report.html").read_text()
     clean_demod = json.loads((tmp_path / "clean" / "report.json").read_text())["demod"]
     assert "timing_jumps" not in clean_demod and "phase_jumps" not in clean_demod

@@ -432,6 +432,7 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
         iq_image_db=None if front.demod is None else front.demod.iq_image_db,
         timing_jumps=0 if front.demod is None else front.demod.timing_jumps,
         phase_jumps=0 if front.demod is None else front.demod.phase_jumps,
+        carrier_moves=0 if front.demod is None else front.demod.carrier_moved,
         channel_symbols=front.counts.channel_symbols,
         locked_symbols=front.counts.locked_symbols, stage_stats=front.stats, sync_events=front.events,
         demod_events=back.events, track=back.track.arrays(), modulation_index_rad=back.track.modulation_index_rad,

@@ -97,6 +97,10 @@ _LOCK_TRIAL = 16384
 #: coasting loop relocks on its own when the signal returns, or the search finds it (about 2 ms of CPU per
 #: 32768-sample block while nothing is there, the band detector's cost).
 _REACQUIRE_SYMBOLS = 16384
+#: ... but at once, after this many symbols unlocked, when the block's Es/N0 (M2M4, which needs no carrier) stays
+#: within this many dB of the locked blocks': the signal is there, its carrier moved.
+_MOVED_SYMBOLS = 2048
+_MOVED_ESN0_DB = 3.0
 #: The AGC's attack and release: a block whose mean power is over this times the AGC's average, or under it by the
 #: same factor, is run again with its samples from the change on scaled to the level before it
 #: (:meth:`Demodulator._level_change`), and the average takes the new level, instead of its 0.8 / 0.2 step per
@@ -209,6 +213,7 @@ class DemodStats:
     iq_image_db: float | None = None
     timing_jumps: int = 0
     phase_jumps: int = 0
+    carrier_moved: int = 0
 
     def saw(self, line: SpectralLine) -> None:
         """Keep ``line`` if it is stronger than the strongest seen so far (a line beats a band)."""
@@ -220,7 +225,7 @@ class DemodStats:
     def merge(self, other: DemodStats) -> None:
         """Add another run's (a later segment's) counters; keep the stronger line."""
         for name in ("samples_in", "nonfinite_samples", "symbols_out", "carrier_locked_symbols", "acquisitions",
-                     "carrier_found", "carrier_found_mirrored", "timing_jumps", "phase_jumps"):
+                     "carrier_found", "carrier_found_mirrored", "timing_jumps", "phase_jumps", "carrier_moved"):
             setattr(self, name, getattr(self, name) + getattr(other, name))
         self.last_peak_ratio = other.last_peak_ratio
         if other.strongest_line is not None:
@@ -817,6 +822,8 @@ class Demodulator:
         self._summary = np.zeros(1, dtype=BLOCK_SUMMARY)
         self._mom4 = np.zeros(4, dtype=np.float64)
         self._unlocked_run = 0
+        self._locked_esn0_db = math.nan  # Es/N0 over the blocks that ended locked (an average)
+        self._moved_armed = False  # a block ended locked since the search last started because the carrier moved
         self._trial_armed = False  # an acquisition ended: its first lock goes on trial (_LOCK_TRIAL)
         self._on_trial = 0  # symbols left of that lock's trial
         self._finished = False
@@ -1157,9 +1164,22 @@ class Demodulator:
             # the symbol's matched-filter centre was rotated at about this oscillator phase
             mid = float(sm["mid"])
             total_phase = phase_at_block + dphase * (mid - block_first) + float(sm["theta_mid"])
-            out.track.append(TrackPoint(mid, float(freq_hz), self._block_esn0_db(st), bool(flags[-1] & 1),
+            esn0_db = self._block_esn0_db(st)
+            out.track.append(TrackPoint(mid, float(freq_hz), esn0_db, bool(flags[-1] & 1),
                                     bool(flags[-1] & 2), float(total_phase), float(sm["spread_per_fs"]) * fs))
             self._unlocked_run = (self._unlocked_run + nsym) if locked == 0 else nsym - 1 - int(sm["last_locked"])
+            if flags[-1] & 1 and math.isfinite(esn0_db):
+                self._locked_esn0_db = esn0_db if not math.isfinite(self._locked_esn0_db) else \
+                    0.8 * self._locked_esn0_db + 0.2 * esn0_db
+                self._moved_armed = True
+            # the lock lost while the signal stays (M2M4's Es/N0 needs no carrier: it holds through a frequency step,
+            # and falls in a fade): the carrier moved (a transponder switched between coherent and one-way, a receiver
+            # retuned), and the search starts at once instead of after reacquire_symbols
+            # (once a lock: a carrier the search then cannot hold is searched for as before)
+            moved = (self._moved_armed and not flags[-1] & 1 and self._unlocked_run >= _MOVED_SYMBOLS
+                     and math.isfinite(esn0_db) and esn0_db > self._locked_esn0_db - _MOVED_ESN0_DB)
+        else:
+            moved = False
         self.stats.symbols_out += nsym
         self.stats.carrier_locked_symbols += locked
         # (not while a found carrier is pulled in at low Es/N0: lock is declared from the long average there)
@@ -1175,7 +1195,11 @@ class Demodulator:
                     self._unlocked_run = 0
                     self._acquiring = True
                     self._tones_looked = False
-        if not tail and self._unlocked_run >= self.reacquire_symbols and not (st["pull_left"] and st["soft_on"]):
+        if not tail and (self._unlocked_run >= self.reacquire_symbols or moved) \
+                and not (st["pull_left"] and st["soft_on"]):
+            if moved and not self._acquiring:
+                self.stats.carrier_moved += 1
+                self._moved_armed = False
             self._unlocked_run = 0
             self._acquiring = True
             self._tones_looked = False

@@ -49,6 +49,9 @@ class RunFacts:
         Times the residual-carrier receiver found its symbols moved by a fraction of a period at once, or the
         carrier's phase jumped, and took the new timing or phase (``DemodStats.timing_jumps``, ``phase_jumps``:
         samples lost by the recorder, most likely).
+    carrier_moves : int
+        Times the suppressed-carrier receiver lost lock while the signal stayed and searched for the carrier at once
+        (``DemodStats.carrier_moved``: the carrier's frequency jumped).
     stage_stats : dict
         ``{"branch" | "frame_sync" | "codeblock": statistics dataclass}``.
     sync_events, demod_events : list of dict
@@ -98,6 +101,7 @@ class RunFacts:
     iq_image_db: float | None = None
     timing_jumps: int = 0
     phase_jumps: int = 0
+    carrier_moves: int = 0
     channel_symbols: int = 0
     locked_symbols: int = 0
     stage_stats: dict = field(default_factory=dict)
@@ -339,14 +343,19 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fr
     if f.iq_image_db is not None:
         verdict["iq_note"] = (f"the receiver's I and Q paths were out of balance: the signal's mirror image stood "
                               f"{-f.iq_image_db:.1f} dB under it, taken out of the samples before demodulation")
-    if f.timing_jumps or f.phase_jumps:
+    if f.timing_jumps or f.phase_jumps or f.carrier_moves:
         def times(k: int) -> str:
             return "once" if k == 1 else f"{k} times"
         what = [f"the symbols moved by a fraction of a symbol period at once {times(f.timing_jumps)}"] \
             if f.timing_jumps else []
         what += [f"the carrier's phase jumped {times(f.phase_jumps)}"] if f.phase_jumps else []
-        verdict["timing_note"] = (f"{' and '.join(what)} (samples lost by the recorder, most likely); the receiver "
-                                  "took the new timing and phase at once, and the frame in which it happened is lost")
+        why = ["samples lost by the recorder, most likely"] if what else []
+        if f.carrier_moves:
+            what += [f"the carrier's frequency jumped {times(f.carrier_moves)}"]
+            why += ["a transponder switching between coherent and one-way, a receiver retuned"]
+        verdict["jumps_note"] = (f"{', '.join(what[:-1]) + ' and ' if len(what) > 1 else ''}{what[-1]} "
+                                 f"({'; '.join(why)}); the receiver took each at once, and the frames around it "
+                                 "are lost")
     clipped = _clipped_fraction(f)
     if clipped:
         verdict["clipping_note"] = (
@@ -424,6 +433,7 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         **({"iq_image_removed_db": round(f.iq_image_db, 1)} if f.iq_image_db is not None else {}),
         **({"timing_jumps": f.timing_jumps} if f.timing_jumps else {}),
         **({"phase_jumps": f.phase_jumps} if f.phase_jumps else {}),
+        **({"carrier_moves": f.carrier_moves} if f.carrier_moves else {}),
     }
     if f.modulation_index_rad:
         demod["modulation_index_rad_median"] = round(float(np.median(f.modulation_index_rad)), 4)

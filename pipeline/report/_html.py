@@ -345,7 +345,7 @@ def _verdict_html(v: dict, ber: dict | None, anchor: str) -> str:
     iq = v.get("iq_note")
     if iq:
         note_html += f'<p class="time"><strong>I/Q balance:</strong> {_esc(iq)}.</p>'
-    moved = v.get("timing_note")
+    moved = v.get("jumps_note")
     if moved:
         note_html += f'<p class="time"><strong>Jumps:</strong> {_esc(moved)}.</p>'
     clip = v.get("clipping_note")
