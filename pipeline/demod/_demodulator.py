@@ -281,7 +281,9 @@ class DcBlocker:
     power after removal.  A signal whose carrier lies within about ``fs / (8 N)`` of 0 Hz (``N``
     samples per block: 3.8 Hz at 1 Msample/s and 32768) cannot be told from an offset and is
     attenuated; a modulated carrier's own block mean is about ``1 / sqrt(symbols per block)`` of
-    its amplitude.  Cost: two passes over the block.
+    its amplitude.  A receiver that knows its carrier is there sets :attr:`frozen` (the residual-carrier
+    receiver: while it searches, with the offset at 0, and while it tracks a carrier within two bins of
+    0 Hz).  Cost: two passes over the block.
 
     Examples
     --------
@@ -295,6 +297,8 @@ class DcBlocker:
 
     def __init__(self, weight: float = 0.125) -> None:
         self.weight = float(weight)
+        #: Hold the estimate as it is (a residual carrier near 0 Hz, which the block means would take for an offset).
+        self.frozen = False
         self.reset()
 
     def reset(self) -> None:
@@ -321,15 +325,17 @@ class DcBlocker:
 
     def update(self, count: int, moments: np.ndarray) -> float:
         """Take a block's ``count`` non-zero samples and their ``moments`` (``mean_power_nonzero``: mean re,
-        mean im, mean power): update :attr:`offset`, return the block's mean power after removal (0.0 if empty).
+        mean im, mean power): update :attr:`offset` (unless :attr:`frozen`), return the block's mean power after
+        removal (0.0 if empty).
         """
         if count == 0:
             return 0.0
         mean = complex(moments[0], moments[1])
-        if self._started:
-            self.offset += self.weight * (mean - self.offset)
-        else:
-            self.offset, self._started = mean, True
+        if not self.frozen:
+            if self._started:
+                self.offset += self.weight * (mean - self.offset)
+            else:
+                self.offset, self._started = mean, True
         return max(self.power_after(moments), 0.0)
 
     def power_after(self, moments: np.ndarray) -> float:

@@ -82,6 +82,10 @@ _PHASE_JUMP_STRETCH = 256
 _PHASE_JUMP_LOCAL = 32
 _PHASE_JUMP_Z = 20.0
 _PHASE_JUMP_MIN_RAD = math.pi / 4.0
+#: A tracked residual carrier within this many bins (``fs / block_samples``) of 0 Hz holds the DC offset estimate:
+#: the blocks' means would take it for the offset (a carrier ``f`` from 0 Hz leaves ``sinc(f T_b)`` of its amplitude
+#: in a block's mean, and the estimate's average over blocks more of it the slower it turns).
+_DC_GUARD_BINS = 2.0
 _SUB_BLOCKS = 8
 _REACQUIRE_BLOCKS = 3
 #: The carrier search accumulates up to this many symbols (at most 32 blocks) before it starts again.
@@ -283,9 +287,11 @@ class ResidualCarrierDemodulator:
     depend on the chunking.  Per block:
 
     1. NaN/Inf samples become 0 (counted); conjugated when ``[receiver] spectrum_inverted = true``;
-       the DC offset removed (:class:`pipeline.demod.DcBlocker`); AGC to unit mean power (a level change over
-       ``_AGC_ATTACK`` inside a block is scaled back from its first 256-sample stretch and taken at once, as in
-       the suppressed-carrier demodulator).
+       the DC offset removed (:class:`pipeline.demod.DcBlocker`; its estimate held at 0 while the carrier is
+       searched for, which keeps and searches 0 Hz too, and held as it is while a carrier is tracked within
+       ``_DC_GUARD_BINS`` of 0 Hz: a carrier there is not taken for the offset); AGC to unit mean power (a level
+       change over ``_AGC_ATTACK`` inside a block is scaled back from its first 256-sample stretch and taken at
+       once, as in the suppressed-carrier demodulator).
     2. While no carrier is held, the block goes to the search and is held back
        (:class:`~pipeline.demod.residual._search.ResidualCarrierSearch`: periodograms accumulated over
        up to ``dwell_blocks`` blocks, about 8192 symbols).  When the line is found the window grows
@@ -494,7 +500,7 @@ class ResidualCarrierDemodulator:
             self.hold_blocks = int(max(1, min(self.dwell_blocks, _HOLD_SAMPLES // self.block_samples)))
             dwell = functools.partial(ResidualCarrierSearch, sample_rate_hz=fs, block_samples=self.block_samples,
                                       search_hz=self.acquisition_search_hz, max_blocks=self.dwell_blocks,
-                                      max_rate_hz_per_s=_MAX_DOPPLER_RATE,
+                                      max_rate_hz_per_s=_MAX_DOPPLER_RATE, keep_dc=True,
                                       sidebands=DataSidebands(symbol_rate_hz=self.symbol_rate_baud,
                                                               data_to_carrier=self.data_to_carrier,
                                                               biphase=self.biphase,
@@ -638,6 +644,18 @@ class ResidualCarrierDemodulator:
             block[bad] = 0
         if self.conjugate:
             block = np.conj(block)
+        # a residual carrier may stand at or pass through 0 Hz (a recording tuned to its predicted frequency), where
+        # the blocks' means would take it for the offset: while it is searched for the offset is left in the samples
+        # (held at 0; the search refuses its bare line as any tone's), and while one is tracked within
+        # _DC_GUARD_BINS of 0 Hz the estimate is held as it is (at 0 for a carrier found there: the loop then holds
+        # the carrier and a front end's offset together)
+        if self.residual:
+            if self._tracking:
+                f = float(self._cs[0]["frequency"]) * self.block_samples / (2.0 * math.pi)  # bins
+                self._dc.frozen = abs(f) < _DC_GUARD_BINS
+            else:
+                self._dc.frozen = True
+                self._dc.offset = 0j
         block, pw = self._dc.process(block)
         agc = self._agc_power
         if level_suspect(pw, agc):

@@ -172,11 +172,15 @@ class ResidualCarrierSearch:
     sidebands : DataSidebands or None
         The modulation's data spectrum around the carrier: lines above the threshold are weighed by the data
         sidebands seen around them (see Notes).  None: the strongest line is taken, whatever it is.
+    keep_dc : bool
+        Keep the blocks' means and search 0 Hz too (a carrier there: a recording tuned to its predicted
+        frequency); a receiver DC offset is then a bare line at 0 Hz, which ``sidebands`` refuse as any tone's.
+        False: each block's mean is removed (a DC offset is never taken for the carrier, and a carrier within a
+        bin of 0 Hz goes with it) and the bins within one of 0 Hz are not searched.
 
     Notes
     -----
-    **Coarse (per block, while searching).**  The block (gain-scaled, its mean removed: a receiver
-    DC offset is never taken for the carrier, and a carrier within a bin of 0 Hz goes with it) is
+    **Coarse (per block, while searching).**  The block (gain-scaled, its mean removed unless ``keep_dc``) is
     decimated by a power of two ``D`` when the searched band allows it (``search_hz <= fs / 16``:
     sums of ``D <= fs / (4 search_hz)`` samples, which keep white noise white and lose at most 0.9 dB
     of the line at the band edge), Hann-windowed and transformed (``L = block / D`` points, single
@@ -237,7 +241,7 @@ class ResidualCarrierSearch:
 
     def __init__(self, *, sample_rate_hz: float, block_samples: int, search_hz: float, max_blocks: int,
                  max_rate_hz_per_s: float = 0.0, false_alarm: float = 1e-6,
-                 sidebands: DataSidebands | None = None) -> None:
+                 sidebands: DataSidebands | None = None, keep_dc: bool = False) -> None:
         fs = float(sample_rate_hz)
         if not (fs > 0 and math.isfinite(fs)):
             raise ValueError(f"Argument 'sample_rate_hz' must be a positive finite number, not {sample_rate_hz!r}.")
@@ -268,12 +272,10 @@ class ResidualCarrierSearch:
         self.bin_hz = fs / self.block_samples
         self.block_s = self.block_samples / fs
         freqs = np.fft.fftfreq(self.bins, d=dec / fs)
-        searched = (np.abs(freqs) <= self.search_hz) & (np.abs(np.arange(self.bins) - 0.0) > 1) \
-            & (np.abs(np.arange(self.bins) - self.bins) > 1)
-        self._searched = np.flatnonzero(searched)
-        self._outside = np.flatnonzero(~searched)  # zeroed in every periodogram: never a peak
-        self._floor_bins = self._searched[::max(1, self._searched.size // 65536)]  # the floor from <= 2^16 bins
         self._freqs = freqs
+        self._thresholds: dict[int, float] = {}
+        self.keep_dc = bool(keep_dc)
+        self._band()
         self._window = np.hanning(self.bins).astype(np.float32)
         self.window_power = float(np.sum(self._window.astype(np.float64) ** 2))
         # rate hypotheses: one bin of drift over a whole dwell apart
@@ -287,7 +289,6 @@ class ResidualCarrierSearch:
         self.rates_hz_per_s = np.array(order, dtype=np.float64) * step if half else np.zeros(1)
         self.max_rate_hz_per_s = float(max_rate_hz_per_s)
         self.rate_step_hz_per_s = step if half else 0.0
-        self._thresholds: dict[int, float] = {}
         # bins a rate hypothesis moves a line by over a dwell (a line's smear across the accumulators)
         self._max_shift = int(math.ceil(float(np.max(np.abs(self.rates_hz_per_s))) * self.max_blocks * self.block_s
                                         / self.bin_hz))
@@ -302,6 +303,16 @@ class ResidualCarrierSearch:
             self._sideband_weights = dens - float(np.mean(dens))
             self._sideband_density = dens * sidebands.data_to_carrier * self.bin_hz
         self.restart()
+
+    def _band(self) -> None:
+        """The searched bins: within ``search_hz``, and, unless ``keep_dc``, not within a bin of 0 Hz (where the
+        blocks' means were taken out)."""
+        near_dc = (np.abs(np.arange(self.bins)) <= 1) | (np.abs(np.arange(self.bins) - self.bins) <= 1)
+        searched = (np.abs(self._freqs) <= self.search_hz) & (self.keep_dc | ~near_dc)
+        self._searched = np.flatnonzero(searched)
+        self._outside = np.flatnonzero(~searched)  # zeroed in every periodogram: never a peak
+        self._floor_bins = self._searched[::max(1, self._searched.size // 65536)]  # the floor from <= 2^16 bins
+        self._thresholds.clear()
 
     # ---- coarse ---------------------------------------------------------------------------
     def restart(self) -> None:
@@ -328,7 +339,8 @@ class ResidualCarrierSearch:
         y = x.astype(np.complex64) * np.float32(gain)
         if self.decimation > 1:
             y = y.reshape(self.bins, self.decimation).sum(axis=1, dtype=np.complex64)
-        y = y - y.mean(dtype=np.complex128).astype(np.complex64)
+        if not self.keep_dc:
+            y = y - y.mean(dtype=np.complex128).astype(np.complex64)
         spec = scipy.fft.fft(y * self._window, workers=1)
         p = spec.real * spec.real + spec.imag * spec.imag
         if self._whole.size:
@@ -460,7 +472,7 @@ class ResidualCarrierSearch:
             n = np.arange(n_blk, dtype=np.float64) + (s0 - t_ref)
             tt = n / fs
             model = np.exp(-2j * np.pi * (f_c * tt + 0.5 * r_c * tt * tt))
-            y = (x.astype(np.complex128) - x.mean(dtype=np.complex128)) * g * model
+            y = (x.astype(np.complex128) - (0.0 if self.keep_dc else x.mean(dtype=np.complex128))) * g * model
             z[b * _FINE_PER_BLOCK:(b + 1) * _FINE_PER_BLOCK] = y.reshape(_FINE_PER_BLOCK, dec).sum(axis=1)
             times[b * _FINE_PER_BLOCK:(b + 1) * _FINE_PER_BLOCK] = \
                 (s0 - t_first + dec * np.arange(_FINE_PER_BLOCK) + 0.5 * (dec - 1)) / fs
