@@ -15,7 +15,7 @@ segments into one back end, one process).  The impairments are what recordings f
 - ``drop 1234`` / ``zeros 5000``: samples lost by the recorder, or a gap it filled with zeros;
 - ``tone -20 dB`` / ``tone -6 dB``: a CW tone 20 or 6 dB under the samples' power (signal and noise: at low
   Es/N0 the noise's), 0.6 symbol rates from the carrier, inside the signal's band, over the whole recording
-  (a receiver spur, an interferer);
+  (a receiver spur, an interferer); ``tone -6 dB mid``: the second switched on in the middle of the pass;
 - ``IQ 1 dB 5 deg`` / ``IQ 3 dB 15 deg``: I/Q gain and phase imbalance of the front end (an image 25 or 13 dB
   down), over the whole recording;
 - ``clip 1.5 rms`` / ``clip 1 rms``: each rail clipped at 1.5 times or at its rms (an ADC overdriven: 13 % or 32 %
@@ -98,6 +98,8 @@ def _impairments(x: np.ndarray, fs: float, rs: float) -> dict:
     for db in (-20.0, -6.0):  # under the samples' power (signal and noise)
         tone = np.sqrt(p * 10.0 ** (db / 10.0)) * np.exp(2j * np.pi * f_tone * np.arange(n) / fs)
         out[f"tone {db:g} dB"] = (x + tone).astype(np.complex64)
+    tone[:mid] = 0.0  # the -6 dB tone switched on in the middle of the pass
+    out["tone -6 dB mid"] = (x + tone).astype(np.complex64)
     for gdb, deg in ((1.0, 5.0), (3.0, 15.0)):
         g, ph = 10.0 ** (gdb / 20.0), np.deg2rad(deg)
         out[f"IQ {gdb:g} dB {deg:g} deg"] = (x.real + 1j * g * (np.sin(ph) * x.real + np.cos(ph) * x.imag)).astype(

@@ -193,6 +193,27 @@ def test_a_tone_inside_the_data_is_taken_out_once_the_carrier_is_held(wave):
         (wrong.mean(), g_clean.mean())
 
 
+def test_a_tone_that_comes_up_mid_pass_is_taken_out_soon():
+    # the same tone switched on 2 s into an 8 s NRZ pass: the receiver looks for new tones about every 0.25 s of
+    # recording (one block at 128 ksample/s), so from 0.5 s after the onset the symbols are as the genie recovers them
+    # without the tone.  Before, it looked every 256 blocks (65 s here): the rest of the pass went with the tone
+    sig = rs.transmit(16_000, wave="nrz", sample_rate_hz=FS, symbol_rate_baud=RATE, index_rad=INDEX,
+                      esn0_db=3.0, carrier_hz=CARRIER, clock_ppm=20.0, seed=3)
+    tone_hz = CARRIER + 0.625 * RATE
+    onset = int(2.0 * FS)
+    y = sig.samples.copy()
+    y[onset:] = _with_tone(sig.samples, tone_hz, -10.0)[onset:]
+    demod, soft, pos, track = _demodulate("nrz", y)
+    assert len(demod.stats.tones_hz) == 1 and abs(demod.stats.tones_hz[0] - tone_hz) < 1.0
+    first = int(sig.symbol_index(onset + int(0.5 * FS)))
+    wrong, _ = _errors(sig, y, soft, pos, first)
+    _, g_clean = _errors(sig, sig.samples, soft, pos, first)
+    assert wrong.size > 0.95 * (16_000 - first)
+    discordant = np.count_nonzero(wrong != g_clean)
+    assert wrong.sum() - g_clean.sum() <= 3.0 * math.sqrt(discordant + 1) + 0.002 * wrong.size, \
+        (wrong.mean(), g_clean.mean())
+
+
 def test_the_carrier_and_the_subcarrier_are_never_taken_out():
     # PCM/PSK/PM on a square subcarrier, carrier held, no tone: nothing is taken out (the carrier's line and the
     # subcarrier's are the signal's own)

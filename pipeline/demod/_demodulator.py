@@ -25,7 +25,7 @@ from pipeline.demod._kernels import (
 )
 from pipeline.demod._predicted import CarrierPrediction
 from pipeline.demod._snr import esn0_db_from_moments
-from pipeline.demod._tones import ToneCanceller
+from pipeline.demod._tones import ToneCanceller, tone_look_blocks
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "centre_window", "check_chunk",
@@ -35,10 +35,6 @@ __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker"
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
 _RRC_SPAN_SYMBOLS = 8
-#: Tones are looked for in each acquisition's window and in every block whose index on the recording's block grid
-#: is a multiple of this (about 1.7 s at 5 Msample/s, 8.4 s at 1 Msample/s): a tone that comes up later is taken
-#: out from there.
-_TONE_LOOK_BLOCKS = 256
 #: QPSK/OQPSK carrier lock: the lowest locked value of the fourth-power statistic taken from its own window, as a
 #: fraction of S^2 from the M2M4 moments (rails clipped at their rms read 0.44; track_symbols Notes).
 _LOCK_MAGNITUDE_FLOOR = 0.4
@@ -687,6 +683,7 @@ class Demodulator:
         self.filter_delay_samples = 0 if self._box_half else (self.taps.size - 1) // 2
         self._look = int(self._box_half + 0.5) + 2 if self._box_half else 2
         self.block_samples = max(32768, _next_pow2(4096 * sps))
+        self._tone_look_blocks = tone_look_blocks(self.sample_rate_hz, self.block_samples)
         self.acquisition_samples = 2 * self.block_samples
         # QPSK/OQPSK: the long search's window (whole blocks, about _LONG_SEARCH_SYMBOLS) and its period
         # (at most _LONG_SEARCH_MAX_SAMPLES: memory and the matched filter's cost at many samples per symbol)
@@ -902,7 +899,10 @@ class Demodulator:
             if self._iq.applied:
                 self.stats.iq_image_db = self._iq.image_db
         block = self._tones.apply(block, start)
-        if not self._acquiring and (start // self.block_samples) % _TONE_LOOK_BLOCKS == 0:
+        # tones are looked for in each acquisition's window and in every block whose index on the recording's block
+        # grid is a multiple of _tone_look_blocks (about every TONE_LOOK_S of recording): a tone that comes up later
+        # (an interferer switched on) is taken out from there
+        if not self._acquiring and (start // self.block_samples) % self._tone_look_blocks == 0:
             block = self._look_for_tones(block, start)
         if self._acquiring:
             block, cnt, mom = self._moments(block)

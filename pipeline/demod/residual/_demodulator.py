@@ -26,7 +26,7 @@ from pipeline.demod._demodulator import (
     shifted_line,
 )
 from pipeline.demod._predicted import CarrierPrediction
-from pipeline.demod._tones import TONE_STRETCH, ToneCanceller
+from pipeline.demod._tones import TONE_STRETCH, ToneCanceller, tone_look_blocks
 from pipeline.demod.residual._kernels import (
     CARRIER_PARAMS,
     CARRIER_STATE,
@@ -97,9 +97,6 @@ _HOLD_SAMPLES = 1 << 22
 #: Per block, this fraction of the rate the second-order carrier loop's frequency integrator followed goes
 #: into the rate aiding.
 _RATE_AIDING_GAIN = 0.25
-#: Tones are looked for when the carrier is first tracked and in every block whose index on the recording's block
-#: grid is a multiple of this (pipeline.demod._tones).
-_TONE_LOOK_BLOCKS = 256
 #: Doppler rates hypothesised by the carrier search (Hz/s).
 _MAX_DOPPLER_RATE = 10.0
 #: Carrier lock: t statistic of the coherent carrier amplitude, on above 5 (two decisions in a row), off below 3.
@@ -431,6 +428,7 @@ class ResidualCarrierDemodulator:
         self.phasor = phasor
         self.wave = {0: "nrz", 1: "square", 2: "sine"}[sc_mode]
         self.block_samples = max(32768, _next_pow2(256 * sps))
+        self._tone_look_blocks = tone_look_blocks(self.sample_rate_hz, self.block_samples)
         rng = receiver.acquisition_range_hz
         self.acquisition_search_hz = 0.5 * fs if rng is None else min(float(rng), 0.5 * fs)
         self.conjugate = receiver.spectrum_inverted is True
@@ -679,7 +677,9 @@ class ResidualCarrierDemodulator:
         if self._tracking:
             carrier_hz = float(self._cs[0]["frequency"]) * self.sample_rate_hz / (2.0 * math.pi)
             block = self._tones.apply(block, start, only=self._tones_clear_of(carrier_hz))
-            if (start // self.block_samples) % _TONE_LOOK_BLOCKS == 0:
+            # tones are looked for when the carrier is first tracked and in every block whose index on the recording's
+            # block grid is a multiple of _tone_look_blocks (about every TONE_LOOK_S of recording)
+            if (start // self.block_samples) % self._tone_look_blocks == 0:
                 block = self._tones.apply(block, start, only=self._look_for_tones(block, carrier_hz))
             self._track([(block, gain, start)], parts)
             return
