@@ -194,9 +194,10 @@ def test_a_tone_inside_the_data_is_taken_out_once_the_carrier_is_held(wave):
 
 
 def test_a_tone_that_comes_up_mid_pass_is_taken_out_soon():
-    # the same tone switched on 2 s into an 8 s NRZ pass: the receiver looks for new tones about every 0.25 s of
-    # recording (one block at 128 ksample/s), so from 0.5 s after the onset the symbols are as the genie recovers them
-    # without the tone.  Before, it looked every 256 blocks (65 s here): the rest of the pass went with the tone
+    # the same tone switched on 2 s into an 8 s NRZ pass: the samples' power rises 0.4 dB and the receiver looks for
+    # new tones in the next block (and about every 2 s in any case), so from 0.5 s after the onset the symbols are as
+    # the genie recovers them without the tone.  Before, it looked every 256 blocks (65 s here): the rest of the pass
+    # went with the tone
     sig = rs.transmit(16_000, wave="nrz", sample_rate_hz=FS, symbol_rate_baud=RATE, index_rad=INDEX,
                       esn0_db=3.0, carrier_hz=CARRIER, clock_ppm=20.0, seed=3)
     tone_hz = CARRIER + 0.625 * RATE

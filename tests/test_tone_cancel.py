@@ -164,10 +164,10 @@ def test_a_tone_as_strong_as_the_signal_costs_the_decisions_nothing(mod, inverte
 
 @pytest.mark.parametrize("mod", ["qpsk", "bpsk"])
 def test_a_tone_that_comes_up_mid_pass_is_taken_out_within_a_quarter_second(mod):
-    # an interferer switched on 0.3 s into the pass (a tone of the signal's power, inside its band): the receiver
-    # looks for new tones about every TONE_LOOK_S (0.25 s; 8 blocks at 1 Msample/s), so from 0.3 s after the onset on
-    # the symbols are as good as without it.  Before, it looked every 256 blocks (8.4 s here) and the rest of the
-    # pass (0.7 s) went with the tone: 1.2 (QPSK) and 1.4 (BPSK) times the errors
+    # an interferer switched on 0.3 s into the pass (a tone of the signal's power, inside its band): the samples'
+    # power rises, the receiver looks for new tones in the next block (and about every TONE_LOOK_S in any case), so
+    # from 0.3 s after the onset on the symbols are as good as without it.  Before, it looked every 256 blocks (8.4 s
+    # here) and the rest of the pass (0.7 s) went with the tone: 1.2 (QPSK) and 1.4 (BPSK) times the errors
     rng = np.random.default_rng(27)
     esn0 = 1.0
     w = ds.modulate(240_000, modulation=mod, esn0_db=esn0, carrier_offset_hz=2500.0, clock_offset_ppm=20.0, rng=rng)

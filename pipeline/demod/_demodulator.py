@@ -25,7 +25,7 @@ from pipeline.demod._kernels import (
 )
 from pipeline.demod._predicted import CarrierPrediction
 from pipeline.demod._snr import esn0_db_from_moments
-from pipeline.demod._tones import ToneCanceller, tone_look_blocks
+from pipeline.demod._tones import TONE_LOOK_RISE_DB, ToneCanceller, tone_look_blocks
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "centre_window", "check_chunk",
@@ -34,6 +34,7 @@ __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker"
            "cut_blocks", "MIN_SAMPLES_PER_SYMBOL", "MAX_SAMPLES_PER_SYMBOL"]
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
+_TONE_LOOK_RISE = 10.0 ** (TONE_LOOK_RISE_DB / 10.0)
 _RRC_SPAN_SYMBOLS = 8
 #: QPSK/OQPSK carrier lock: the lowest locked value of the fourth-power statistic taken from its own window, as a
 #: fraction of S^2 from the M2M4 moments (rails clipped at their rms read 0.44; track_symbols Notes).
@@ -802,6 +803,7 @@ class Demodulator:
         # QPSK/OQPSK are circular: a front end's I/Q imbalance is measured and taken out (BPSK is not)
         self._iq = IqBalance() if self._mod_code != 0 else None
         self._agc_power = 0.0
+        self._tone_look_due = False
         self._dc = DcBlocker()
         self._nco_hz = 0.0
         self._nco_phase = 0.0
@@ -899,10 +901,11 @@ class Demodulator:
             if self._iq.applied:
                 self.stats.iq_image_db = self._iq.image_db
         block = self._tones.apply(block, start)
-        # tones are looked for in each acquisition's window and in every block whose index on the recording's block
-        # grid is a multiple of _tone_look_blocks (about every TONE_LOOK_S of recording): a tone that comes up later
-        # (an interferer switched on) is taken out from there
-        if not self._acquiring and (start // self.block_samples) % self._tone_look_blocks == 0:
+        # tones are looked for in each acquisition's window, in every block whose index on the recording's block grid
+        # is a multiple of _tone_look_blocks (about every TONE_LOOK_S of recording) and in the block after one whose
+        # power rose (_take_moments): a tone that comes up later (an interferer switched on) is taken out from there
+        if not self._acquiring and (self._tone_look_due or (start // self.block_samples) % self._tone_look_blocks == 0):
+            self._tone_look_due = False
             block = self._look_for_tones(block, start)
         if self._acquiring:
             block, cnt, mom = self._moments(block)
@@ -942,6 +945,8 @@ class Demodulator:
         """DC offset and AGC power from a block's moments."""
         p = self._dc.update(count, moments)
         if p > 0.0:
+            if self._agc_power > 0.0 and p > self._agc_power * _TONE_LOOK_RISE:
+                self._tone_look_due = True  # a tone may have come up: looked for in the next block
             self._agc_power = agc_average(self._agc_power, p)
 
     def _acquire(self, out: SymbolOut, final: bool = False) -> None:

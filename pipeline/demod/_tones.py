@@ -16,7 +16,7 @@ import scipy.fft
 from pipeline.demod._acquire import _hann
 from pipeline.demod._kernels import cancel_tones
 
-__all__ = ["TONE_STRETCH", "ToneCanceller", "find_tones", "tone_look_blocks"]
+__all__ = ["TONE_LOOK_RISE_DB", "TONE_STRETCH", "ToneCanceller", "find_tones", "tone_look_blocks"]
 
 #: Samples per stretch over which a tone's amplitude is measured and taken out (a notch ``fs / 4096`` wide).
 TONE_STRETCH = 4096
@@ -26,10 +26,13 @@ TONE_THRESHOLD_DB = 20.0
 #: At most this many tones are taken out; a window with more narrow lines than this is a signal with a line
 #: spectrum of its own (data that repeats), and none is taken out.
 MAX_TONES = 4
-#: A receiver looks for new tones about this often (seconds of recording): a tone that comes up mid-pass (an
-#: interferer switched on) is taken out within about this long.  One look costs one periodogram of up to 32768
-#: samples (about 0.45 ms), so 2 ms of CPU a second of recording whatever the sample rate.
-TONE_LOOK_S = 0.25
+#: A receiver looks for new tones about this often (seconds of recording), and in the block after one whose power
+#: rose by ``TONE_LOOK_RISE_DB`` or more over the receiver's average (a tone 10 dB under the samples' power adds
+#: 0.4 dB): a tone that comes up mid-pass (an interferer switched on) is taken out within a block, or within about
+#: ``TONE_LOOK_S`` when it is too weak to show in the power.  One look costs one periodogram of up to 32768 samples
+#: (about 0.5 ms), so 0.25 ms of CPU a second of recording whatever the sample rate.
+TONE_LOOK_S = 2.0
+TONE_LOOK_RISE_DB = 0.25
 _NFFT_MAX = 32768
 _FLOOR_BINS = 64  # the local level: the median of each run of this many bins
 _EDGE_BINS = 4  # a tone's line has fallen 20 dB this many bins from its peak (Hann: main lobe +-2 bins)
@@ -41,8 +44,8 @@ def tone_look_blocks(sample_rate_hz: float, block_samples: int) -> int:
 
     Examples
     --------
-    >>> tone_look_blocks(1e6, 32768), tone_look_blocks(5e6, 32768), tone_look_blocks(64e3, 32768)
-    (8, 38, 1)
+    >>> tone_look_blocks(1e6, 32768), tone_look_blocks(5e6, 32768), tone_look_blocks(8e3, 32768)
+    (61, 305, 1)
     """
     return max(1, int(round(TONE_LOOK_S * float(sample_rate_hz) / int(block_samples))))
 

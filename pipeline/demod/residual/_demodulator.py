@@ -26,7 +26,7 @@ from pipeline.demod._demodulator import (
     shifted_line,
 )
 from pipeline.demod._predicted import CarrierPrediction
-from pipeline.demod._tones import TONE_STRETCH, ToneCanceller, tone_look_blocks
+from pipeline.demod._tones import TONE_LOOK_RISE_DB, TONE_STRETCH, ToneCanceller, tone_look_blocks
 from pipeline.demod.residual._kernels import (
     CARRIER_PARAMS,
     CARRIER_STATE,
@@ -553,6 +553,7 @@ class ResidualCarrierDemodulator:
         self._acq_start = 0
         self._amp_floor = 0.0
         self._carrier_amp = float("nan")
+        self._tone_look_due = False
         self._loop_rate = float("nan")  # the carrier loop's mean frequency rate over the last block (rad/sample^2)
         self._locked_blocks = 0  # blocks in a row the carrier stage ended locked
         self._loop_mean_w = float("nan")  # its mean frequency over the last block (rad/sample) ...
@@ -668,6 +669,8 @@ class ResidualCarrierDemodulator:
                     self._agc_power = p_after
                 return block, 1.0 / math.sqrt(agc)
         if pw > 0:
+            if agc > 0 and pw > agc * 10.0 ** (TONE_LOOK_RISE_DB / 10.0):
+                self._tone_look_due = True  # a tone may have come up: looked for in the next block
             self._agc_power = agc_average(agc, pw)
         gain = 1.0 / math.sqrt(self._agc_power) if self._agc_power > 0 else 1.0
         return block, gain
@@ -677,9 +680,11 @@ class ResidualCarrierDemodulator:
         if self._tracking:
             carrier_hz = float(self._cs[0]["frequency"]) * self.sample_rate_hz / (2.0 * math.pi)
             block = self._tones.apply(block, start, only=self._tones_clear_of(carrier_hz))
-            # tones are looked for when the carrier is first tracked and in every block whose index on the recording's
-            # block grid is a multiple of _tone_look_blocks (about every TONE_LOOK_S of recording)
-            if (start // self.block_samples) % self._tone_look_blocks == 0:
+            # tones are looked for when the carrier is first tracked, in every block whose index on the recording's
+            # block grid is a multiple of _tone_look_blocks (about every TONE_LOOK_S of recording) and in the block
+            # after one whose power rose (_condition)
+            if self._tone_look_due or (start // self.block_samples) % self._tone_look_blocks == 0:
+                self._tone_look_due = False
                 block = self._tones.apply(block, start, only=self._look_for_tones(block, carrier_hz))
             self._track([(block, gain, start)], parts)
             return
