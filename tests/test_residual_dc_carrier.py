@@ -103,3 +103,14 @@ def test_a_dc_offset_alone_is_not_a_carrier():
     demod.flush()
     assert demod.stats.carrier_found == 0 and demod.stats.carrier_locked_symbols == 0
     assert "tone" in (demod.no_lock_message() or "")
+
+
+@pytest.mark.parametrize("carrier_hz", [300.0, 1500.0])
+def test_a_strong_offset_beside_the_carrier(carrier_hz):
+    # a front end's offset 10 dB over the whole signal, the carrier 0.15 and 0.75 symbol rates from it (inside the
+    # data's sidebands, which the search weighs): the search at 0 Hz refuses the offset's bare line, finds the carrier,
+    # and the offset estimate takes the offset out once the carrier is tracked away from it
+    demod, wrong, g_wrong, n = _run(carrier_hz, dc=3.16 * np.exp(0.5j))
+    assert demod.stats.carrier_found == 1 and demod.stats.acquisitions == 1
+    assert demod.stats.carrier_locked_symbols > 0.85 * N_SYMBOLS
+    assert wrong <= 1.15 * g_wrong + 10, (wrong, g_wrong, n)
