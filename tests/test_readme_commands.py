@@ -35,6 +35,7 @@ import pytest
 
 from pipeline import decode, load_profile, simulate
 from pipeline.cli import build_parser
+from pipeline.demod import DemodStats
 from pipeline.errors import ProfileError
 from pipeline.link import FRAME_STATUSES, CountAnomaly, FrameParser
 from pipeline.packets import ClockModel
@@ -361,8 +362,9 @@ def written(tmp_path_factory):
     facts = RunFacts(tool="downlink test", profile=demo, input_kind="iq", recording_info={}, duration_s=3.0,
                      elapsed_s=1.0, position_rate_hz=1000.0, track=track,
                      doppler_check={"note": "residuals flat only with the sign flipped", "rows": pos.size},
-                     clip_checked=8192, clipped_values=2000, tones_hz=[12345.6], iq_image_db=-13.3, timing_jumps=1,
-                     phase_jumps=2, carrier_moves=1)
+                     clip_checked=8192, clipped_values=2000,
+                     demod_stats=DemodStats(tones_hz=[12345.6], iq_image_db=-13.3, timing_jumps=1, phase_jumps=2,
+                                            carrier_moved=1))
     built, _ = build_report(facts)
     return SimpleNamespace(packets=res.packets_list + aos_res.packets_list,
                            frames=res.frames_list + aos_res.frames_list + [fhec],

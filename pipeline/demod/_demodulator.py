@@ -25,7 +25,7 @@ from pipeline.demod._kernels import (
 )
 from pipeline.demod._predicted import CarrierPrediction
 from pipeline.demod._snr import esn0_db_from_moments
-from pipeline.demod._tones import TONE_LOOK_RISE_DB, ToneCanceller, tone_look_blocks
+from pipeline.demod._tones import TONE_LOOK_RISE, ToneCanceller, tone_look_blocks
 from pipeline.profile import TIMING_LOOP_BANDWIDTH_RANGE, LinkSection, ReceiverSection
 
 __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker", "centre_window", "check_chunk",
@@ -34,7 +34,6 @@ __all__ = ["Demodulator", "SymbolBlock", "TrackPoint", "DemodStats", "DcBlocker"
            "cut_blocks", "MIN_SAMPLES_PER_SYMBOL", "MAX_SAMPLES_PER_SYMBOL"]
 
 _MOD_CODES = {"bpsk": 0, "qpsk": 1, "oqpsk": 2}
-_TONE_LOOK_RISE = 10.0 ** (TONE_LOOK_RISE_DB / 10.0)
 _RRC_SPAN_SYMBOLS = 8
 #: QPSK/OQPSK carrier lock: the lowest locked value of the fourth-power statistic taken from its own window, as a
 #: fraction of S^2 from the M2M4 moments (rails clipped at their rms read 0.44; track_symbols Notes).
@@ -945,7 +944,7 @@ class Demodulator:
         """DC offset and AGC power from a block's moments."""
         p = self._dc.update(count, moments)
         if p > 0.0:
-            if self._agc_power > 0.0 and p > self._agc_power * _TONE_LOOK_RISE:
+            if self._agc_power > 0.0 and p > self._agc_power * TONE_LOOK_RISE:
                 self._tone_look_due = True  # a tone may have come up: looked for in the next block
             self._agc_power = agc_average(self._agc_power, p)
 

@@ -16,7 +16,7 @@ import scipy.fft
 from pipeline.demod._acquire import _hann
 from pipeline.demod._kernels import cancel_tones
 
-__all__ = ["TONE_LOOK_RISE_DB", "TONE_STRETCH", "ToneCanceller", "find_tones", "tone_look_blocks"]
+__all__ = ["TONE_LOOK_RISE", "TONE_LOOK_RISE_DB", "TONE_STRETCH", "ToneCanceller", "find_tones", "tone_look_blocks"]
 
 #: Samples per stretch over which a tone's amplitude is measured and taken out (a notch ``fs / 4096`` wide).
 TONE_STRETCH = 4096
@@ -33,6 +33,8 @@ MAX_TONES = 4
 #: (about 0.5 ms), so 0.25 ms of CPU a second of recording whatever the sample rate.
 TONE_LOOK_S = 2.0
 TONE_LOOK_RISE_DB = 0.25
+#: ... as a power ratio.
+TONE_LOOK_RISE = 10.0 ** (TONE_LOOK_RISE_DB / 10.0)
 _NFFT_MAX = 32768
 _FLOOR_BINS = 64  # the local level: the median of each run of this many bins
 _EDGE_BINS = 4  # a tone's line has fallen 20 dB this many bins from its peak (Hann: main lobe +-2 bins)

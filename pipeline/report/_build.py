@@ -12,6 +12,7 @@ from typing import Any
 
 import numpy as np
 
+from pipeline.demod import DemodStats
 from pipeline.report._plots import PlotData
 from pipeline.report._quality import bit_error_estimate, bit_error_series
 
@@ -41,17 +42,12 @@ class RunFacts:
         Length of the input and wall time of the decode.
     samples, nonfinite, channel_symbols, locked_symbols, clip_checked, clipped_values : int
         Front-end counts (see :class:`pipeline.chain.FrontCounts`).
-    tones_hz : list of float
-        CW tones the receiver took out of the samples (``DemodStats.tones_hz``, the recording's frame).
-    iq_image_db : float or None
-        The front end's I/Q image under the signal (dB) when the receiver took it out (``DemodStats.iq_image_db``).
-    timing_jumps, phase_jumps : int
-        Times the residual-carrier receiver found its symbols moved by a fraction of a period at once, or the
-        carrier's phase jumped, and took the new timing or phase (``DemodStats.timing_jumps``, ``phase_jumps``:
-        samples lost by the recorder, most likely).
-    carrier_moves : int
-        Times the suppressed-carrier receiver lost lock while the signal stayed and searched for the carrier at once
-        (``DemodStats.carrier_moved``: the carrier's frequency jumped).
+    demod_stats : DemodStats or None
+        The receiver's counters (:class:`pipeline.demod.DemodStats`; None for symbol input): the report takes the
+        CW tones it took out (``tones_hz``, the recording's frame), the I/Q image it took out (``iq_image_db``),
+        the jumps of the symbols' timing and the carrier's phase the residual-carrier receiver took
+        (``timing_jumps``, ``phase_jumps``: samples lost by the recorder, most likely) and the carrier searches the
+        suppressed-carrier receiver started at once because the carrier's frequency jumped (``carrier_moved``).
     stage_stats : dict
         ``{"branch" | "frame_sync" | "codeblock": statistics dataclass}``.
     sync_events, demod_events : list of dict
@@ -97,11 +93,7 @@ class RunFacts:
     nonfinite: int = 0
     clip_checked: int = 0
     clipped_values: int = 0
-    tones_hz: list = field(default_factory=list)
-    iq_image_db: float | None = None
-    timing_jumps: int = 0
-    phase_jumps: int = 0
-    carrier_moves: int = 0
+    demod_stats: DemodStats | None = None
     channel_symbols: int = 0
     locked_symbols: int = 0
     stage_stats: dict = field(default_factory=dict)
@@ -336,22 +328,23 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fr
         verdict["carrier_cn0_dbhz_min"] = _round(np.min(good_cn0), 2) if good_cn0.size else None
     if f.doppler_check and f.doppler_check.get("note"):
         verdict["doppler_note"] = f.doppler_check["note"]
-    if f.tones_hz:
-        listed = ", ".join(f"{t:+.0f} Hz" for t in sorted(f.tones_hz))
-        verdict["tones_note"] = (f"CW tone{'s' if len(f.tones_hz) > 1 else ''} at {listed} (a spur or an interferer in "
+    d = f.demod_stats or DemodStats()
+    if d.tones_hz:
+        listed = ", ".join(f"{t:+.0f} Hz" for t in sorted(d.tones_hz))
+        verdict["tones_note"] = (f"CW tone{'s' if len(d.tones_hz) > 1 else ''} at {listed} (a spur or an interferer in "
                                  "the band) taken out of the samples before demodulation")
-    if f.iq_image_db is not None:
+    if d.iq_image_db is not None:
         verdict["iq_note"] = (f"the receiver's I and Q paths were out of balance: the signal's mirror image stood "
-                              f"{-f.iq_image_db:.1f} dB under it, taken out of the samples before demodulation")
-    if f.timing_jumps or f.phase_jumps or f.carrier_moves:
+                              f"{-d.iq_image_db:.1f} dB under it, taken out of the samples before demodulation")
+    if d.timing_jumps or d.phase_jumps or d.carrier_moved:
         def times(k: int) -> str:
             return "once" if k == 1 else f"{k} times"
-        what = [f"the symbols moved by a fraction of a symbol period at once {times(f.timing_jumps)}"] \
-            if f.timing_jumps else []
-        what += [f"the carrier's phase jumped {times(f.phase_jumps)}"] if f.phase_jumps else []
+        what = [f"the symbols moved by a fraction of a symbol period at once {times(d.timing_jumps)}"] \
+            if d.timing_jumps else []
+        what += [f"the carrier's phase jumped {times(d.phase_jumps)}"] if d.phase_jumps else []
         why = ["samples lost by the recorder, most likely"] if what else []
-        if f.carrier_moves:
-            what += [f"the carrier's frequency jumped {times(f.carrier_moves)}"]
+        if d.carrier_moved:
+            what += [f"the carrier's frequency jumped {times(d.carrier_moved)}"]
             why += ["a transponder switching between coherent and one-way, a receiver retuned"]
         verdict["jumps_note"] = (f"{', '.join(what[:-1]) + ' and ' if len(what) > 1 else ''}{what[-1]} "
                                  f"({'; '.join(why)}); the receiver took each at once, and the frames around it "
@@ -420,6 +413,7 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
 
     lock_fraction = f.locked_symbols / f.channel_symbols if iq and f.channel_symbols else None
     good_esn0 = esn0[usable & np.isfinite(esn0)]
+    ds = f.demod_stats or DemodStats()
     demod = {
         "input": f.input_kind,
         "lock_fraction": None if lock_fraction is None else round(lock_fraction, 4),
@@ -429,11 +423,11 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         "nonfinite_samples": f.nonfinite,
         "clipped_fraction": _clipped_fraction(f),
         "channel_symbols": f.channel_symbols,
-        **({"tones_removed_hz": [round(t, 1) for t in sorted(f.tones_hz)]} if f.tones_hz else {}),
-        **({"iq_image_removed_db": round(f.iq_image_db, 1)} if f.iq_image_db is not None else {}),
-        **({"timing_jumps": f.timing_jumps} if f.timing_jumps else {}),
-        **({"phase_jumps": f.phase_jumps} if f.phase_jumps else {}),
-        **({"carrier_moves": f.carrier_moves} if f.carrier_moves else {}),
+        **({"tones_removed_hz": [round(t, 1) for t in sorted(ds.tones_hz)]} if ds.tones_hz else {}),
+        **({"iq_image_removed_db": round(ds.iq_image_db, 1)} if ds.iq_image_db is not None else {}),
+        **({"timing_jumps": ds.timing_jumps} if ds.timing_jumps else {}),
+        **({"phase_jumps": ds.phase_jumps} if ds.phase_jumps else {}),
+        **({"carrier_moves": ds.carrier_moved} if ds.carrier_moved else {}),
     }
     if f.modulation_index_rad:
         demod["modulation_index_rad_median"] = round(float(np.median(f.modulation_index_rad)), 4)

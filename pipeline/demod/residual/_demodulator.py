@@ -26,7 +26,7 @@ from pipeline.demod._demodulator import (
     shifted_line,
 )
 from pipeline.demod._predicted import CarrierPrediction
-from pipeline.demod._tones import TONE_LOOK_RISE_DB, TONE_STRETCH, ToneCanceller, tone_look_blocks
+from pipeline.demod._tones import TONE_LOOK_RISE, TONE_STRETCH, ToneCanceller, tone_look_blocks
 from pipeline.demod.residual._kernels import (
     CARRIER_PARAMS,
     CARRIER_STATE,
@@ -34,6 +34,7 @@ from pipeline.demod.residual._kernels import (
     SYMBOL_STATE,
     phasor_table,
     rect_symbols,
+    symbol_integrals,
     timing_energy,
     track_carrier,
 )
@@ -669,7 +670,7 @@ class ResidualCarrierDemodulator:
                     self._agc_power = p_after
                 return block, 1.0 / math.sqrt(agc)
         if pw > 0:
-            if agc > 0 and pw > agc * 10.0 ** (TONE_LOOK_RISE_DB / 10.0):
+            if agc > 0 and pw > agc * TONE_LOOK_RISE:
                 self._tone_look_due = True  # a tone may have come up: looked for in the next block
             self._agc_power = agc_average(agc, pw)
         gain = 1.0 / math.sqrt(self._agc_power) if self._agc_power > 0 else 1.0
@@ -1278,7 +1279,8 @@ class ResidualCarrierDemodulator:
         d -= math.floor(d + 0.5)  # in [-1/2, 1/2) periods
         if abs(d) < _JUMP_MIN_PERIODS:
             return cols
-        s_new = _held_integrals(cum, u, base, pos[:-1] + d * period, 0.5 * period, self.biphase)
+        s_new = np.empty(pos.size - 1)
+        symbol_integrals(cum, u, np.int64(base), pos[:-1] + d * period, 0.5 * period, 1 if self.biphase else 0, s_new)
         diff = s_new * s_new - raw[:-1] * raw[:-1]
         tail = diff[-(n - 1):]
         if not float(np.mean(tail)) > _JUMP_SIGMAS * float(np.std(tail)) / math.sqrt(tail.size):
@@ -1504,21 +1506,6 @@ def _loop_turned(free: tuple, at: np.ndarray, ph: np.ndarray) -> bool:
     _, total, omega, rate = free
     t = float(at[-1])
     return abs(float(ph[-1]) - (total + omega * t + 0.5 * rate * t * t)) > _PHASE_JUMP_TURN
-
-
-def _held_integrals(cum: np.ndarray, u: np.ndarray, base: int, centres: np.ndarray, half: float,
-                    biphase: bool) -> np.ndarray:
-    """The symbols centred at ``centres`` (``half`` a period each side) as :func:`rect_symbols` integrates them
-    (NRZ: the integral; Bi-phase-L: first half less second half), from the prefix sums ``cum`` of ``u``
-    (``u[0]`` is recording sample ``base``), the samples held over their cells as ``timing_energy`` takes them."""
-    def held(t: np.ndarray) -> np.ndarray:
-        m = np.floor(t + 0.5).astype(np.int64) - base
-        mi = np.clip(m, 0, u.size - 1)
-        inner = cum[mi] + (t + 0.5 - (mi + base)) * u[mi].astype(np.float64)
-        return np.where(m <= 0, 0.0, np.where(m >= u.size, cum[u.size], inner))
-
-    fa, fm, fb = held(centres - half), held(centres), held(centres + half)
-    return (fm - fa) - (fb - fm) if biphase else fb - fa
 
 
 def make_demodulator(*, link: LinkSection, receiver: ReceiverSection, sample_rate_hz: float,

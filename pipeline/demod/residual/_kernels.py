@@ -22,6 +22,7 @@ __all__ = [
     "interval_sum",
     "phasor_table",
     "rect_symbols",
+    "symbol_integrals",
     "timing_energy",
     "track_carrier",
 ]
@@ -545,13 +546,26 @@ def timing_energy(cum, u, base, first_centre, periods, n_phase, n_sym, biphase, 
             t0 = first_centre + j * period / n_phase
             acc = 0.0
             for k in range(n_sym):
-                tau = t0 + k * period
-                fa = _held_integral(cum, u, base, tau - 0.5 * period)
-                fm = _held_integral(cum, u, base, tau)
-                fb = _held_integral(cum, u, base, tau + 0.5 * period)
-                if biphase == 1:
-                    s = (fm - fa) - (fb - fm)
-                else:
-                    s = fb - fa
+                s = _symbol_integral(cum, u, base, t0 + k * period, 0.5 * period, biphase)
                 acc += s * s
             out_energy[i, j] = acc / n_sym if n_sym > 0 else 0.0
+
+
+@njit(cache=True)
+def _symbol_integral(cum, u, base, tau, half, biphase):
+    """The matched-filter output of :func:`rect_symbols` for a symbol centred at ``tau`` (``half`` a period each
+    side) from the prefix sums: NRZ the integral, Bi-phase-L first half less second half."""
+    fa = _held_integral(cum, u, base, tau - half)
+    fm = _held_integral(cum, u, base, tau)
+    fb = _held_integral(cum, u, base, tau + half)
+    if biphase == 1:
+        return (fm - fa) - (fb - fm)
+    return fb - fa
+
+
+@njit(cache=True)
+def symbol_integrals(cum, u, base, centres, half, biphase, out):
+    """``out[k]``: the matched-filter output of :func:`rect_symbols` for a symbol centred at ``centres[k]`` (``half``
+    a period each side), from the prefix sums ``cum`` of ``u`` as :func:`timing_energy` takes them."""
+    for k in range(centres.shape[0]):
+        out[k] = _symbol_integral(cum, u, base, centres[k], half, biphase)
