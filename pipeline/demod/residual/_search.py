@@ -273,9 +273,14 @@ class ResidualCarrierSearch:
         self.block_s = self.block_samples / fs
         freqs = np.fft.fftfreq(self.bins, d=dec / fs)
         self._freqs = freqs
-        self._thresholds: dict[int, float] = {}
         self.keep_dc = bool(keep_dc)
-        self._band()
+        # the searched bins: within search_hz, and, unless keep_dc, not within a bin of 0 Hz (where the blocks'
+        # means are taken out)
+        near_dc = (np.abs(np.arange(self.bins)) <= 1) | (np.abs(np.arange(self.bins) - self.bins) <= 1)
+        searched = (np.abs(freqs) <= self.search_hz) & (self.keep_dc | ~near_dc)
+        self._searched = np.flatnonzero(searched)
+        self._outside = np.flatnonzero(~searched)  # zeroed in every periodogram: never a peak
+        self._floor_bins = self._searched[::max(1, self._searched.size // 65536)]  # the floor from <= 2^16 bins
         self._window = np.hanning(self.bins).astype(np.float32)
         self.window_power = float(np.sum(self._window.astype(np.float64) ** 2))
         # rate hypotheses: one bin of drift over a whole dwell apart
@@ -289,6 +294,7 @@ class ResidualCarrierSearch:
         self.rates_hz_per_s = np.array(order, dtype=np.float64) * step if half else np.zeros(1)
         self.max_rate_hz_per_s = float(max_rate_hz_per_s)
         self.rate_step_hz_per_s = step if half else 0.0
+        self._thresholds: dict[int, float] = {}
         # bins a rate hypothesis moves a line by over a dwell (a line's smear across the accumulators)
         self._max_shift = int(math.ceil(float(np.max(np.abs(self.rates_hz_per_s))) * self.max_blocks * self.block_s
                                         / self.bin_hz))
@@ -303,16 +309,6 @@ class ResidualCarrierSearch:
             self._sideband_weights = dens - float(np.mean(dens))
             self._sideband_density = dens * sidebands.data_to_carrier * self.bin_hz
         self.restart()
-
-    def _band(self) -> None:
-        """The searched bins: within ``search_hz``, and, unless ``keep_dc``, not within a bin of 0 Hz (where the
-        blocks' means were taken out)."""
-        near_dc = (np.abs(np.arange(self.bins)) <= 1) | (np.abs(np.arange(self.bins) - self.bins) <= 1)
-        searched = (np.abs(self._freqs) <= self.search_hz) & (self.keep_dc | ~near_dc)
-        self._searched = np.flatnonzero(searched)
-        self._outside = np.flatnonzero(~searched)  # zeroed in every periodogram: never a peak
-        self._floor_bins = self._searched[::max(1, self._searched.size // 65536)]  # the floor from <= 2^16 bins
-        self._thresholds.clear()
 
     # ---- coarse ---------------------------------------------------------------------------
     def restart(self) -> None:
