@@ -181,8 +181,8 @@ def test_search_measures_a_doppler_rate(rng):
 def test_no_doppler_rate_from_the_data_at_the_carrier(carrier_hz, seed):
     # NRZ PCM/PM puts its data's spectral peak on the carrier (P_d T sinc^2(f T), Proakis and Salehi, *Digital
     # Communications*, 5th ed., sec. 3.4, from memory): at Es/N0 = 10 dB, m = 1.2 rad and 64 samples a symbol ten
-    # times the noise's density.  Over the one block a strong line is found in, that fluctuation moved the fine line's peak a
-    # whole rate step (15 Hz/s) from 0, which, weighed against the noise alone, looked significant: the loop then
+    # times the noise's density.  Over the one block a strong line is found in, that fluctuation moved the fine line's
+    # peak a whole rate step (15 Hz/s) from 0, which, weighed against the noise alone, looked significant: the loop then
     # followed a rate that was not there, lost the carrier and searched again (2 to 4 acquisitions at such
     # carriers and seeds, half of them; the first 2.5 s of symbols unlocked).  No rate now, one acquisition, lock
     # from then on.
