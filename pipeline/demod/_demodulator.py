@@ -188,7 +188,8 @@ class DemodStats:
     spectrally inverted, as inferred from the predicted Doppler's sign, and its samples were conjugated from
     then on.  ``tones_hz`` are the CW tones found in the band and taken out of the samples before the matched
     filter (:class:`~pipeline.demod._tones.ToneCanceller`); ``iq_image_db`` the level of the front end's I/Q image
-    under the signal when it was taken out (QPSK/OQPSK, :class:`~pipeline.demod._iq.IqBalance`), else None.
+    under the signal when it was taken out (QPSK/OQPSK, :class:`~pipeline.demod._iq.IqBalance`; a residual
+    carrier, :class:`~pipeline.demod._iq.MirrorLine`), else None.
     Picklable; segments of one decode combine with :meth:`merge` (not a field-wise sum; the first segment's centre
     is kept).
     """

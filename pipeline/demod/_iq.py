@@ -5,7 +5,11 @@ signal plus its mirror image, ``|nu / mu|^2`` under it (an image 13 dB down at 3
 soft-decoded link near its threshold cannot afford.  QPSK and OQPSK are circular, ``E[s^2] = 0``, and so is the
 noise; so ``E[x^2] / E[|x|^2] = 2 rho / (1 + |rho|^2)`` with ``rho = nu / conj(mu)``, and ``x - rho conj(x) =
 (|mu|^2 - |nu|^2) / conj(mu) s`` has no image.  BPSK is not circular (``E[s^2]`` is the signal's own power when the
-carrier is near 0 Hz), so it is left alone; so is a residual carrier.
+carrier is near 0 Hz), so it is left alone.
+
+A residual carrier is not circular either (its own line is a deterministic part), but that line gives the image
+directly: the image ``nu s*`` carries the carrier's line at minus its frequency, so with the carrier loop's phase
+``theta``, ``E[x exp(+j theta)] / conj(E[x exp(-j theta)]) = rho`` (:class:`MirrorLine`).
 """
 
 from __future__ import annotations
@@ -16,7 +20,7 @@ import numpy as np
 
 from pipeline.demod._kernels import iq_sums, remove_image
 
-__all__ = ["IQ_LOOK_SAMPLES", "IqBalance"]
+__all__ = ["IQ_LOOK_SAMPLES", "IqBalance", "MirrorLine"]
 
 #: Samples at the start of each block the estimate is taken from (about 4 us).
 IQ_LOOK_SAMPLES = 4096
@@ -95,3 +99,90 @@ class IqBalance:
         out = np.array(block, dtype=np.complex64)
         remove_image(out.view(np.float32), float(self.rho.real), float(self.rho.imag))
         return out
+
+
+class MirrorLine:
+    """The image ratio ``rho`` of a front end measured on a residual carrier's mirror line and, once it stands clear
+    of its own noise, taken out.
+
+    Attributes
+    ----------
+    rho : complex
+        The estimate (0 until a locked block was measured).
+    applied : bool
+        Whether the last :meth:`apply` took the image out.
+
+    Notes
+    -----
+    With ``x = mu s + nu s*`` and a carrier loop locked to the direct carrier's phase ``theta`` (that of ``mu A
+    exp(j phi)``), the loop-frame carrier is ``sum x exp(-j theta) = n |mu| A_c`` and the mirror line ``sum x exp(+j
+    theta) = n nu A_c exp(j arg mu)`` (the data sidebands and the noise have no mean), so their ratio
+    ``sum x e^{+j theta} / conj(sum x e^{-j theta}) = nu / conj(mu) = rho``, the ratio :class:`IqBalance` estimates
+    for circular signals, and ``x - rho conj(x)`` (:func:`~pipeline.demod._kernels.remove_image`) has no image and
+    the direct signal's phase.  The direct carrier itself adds ``(sum x e^{-j theta} / n) sum exp(2 j theta)`` to
+    the mirror sum (a line turning at twice the carrier's frequency: small unless the carrier is near 0 Hz), which
+    is taken out; blocks with the carrier within a few bins of 0 Hz, where the two lines are one, are not used.
+    The sums come from the carrier loop (:func:`pipeline.demod.residual._kernels.track_carrier`) over samples this
+    class may already have corrected with ``rho0``; they are brought back to the recorded samples exactly (``x =
+    (x' + rho0 conj(x')) / (1 - |rho0|^2)``, linear in ``x'``), so the estimate is open-loop.  The blocks' sums are
+    averaged as :class:`IqBalance` averages its ratios (a plain mean over the first 16 blocks, then weight 1/16).
+    Applied when ``|rho|`` is over half of :data:`IQ_MIN_RATIO` (an image 46 dB down) and over five times its
+    standard deviation, at most ``1 / (a sqrt(N))`` for ``N`` samples averaged and a carrier of amplitude ``a``
+    (the samples' power, the gain's reference, being 1: everything but the carrier is at most that).
+    """
+
+    def __init__(self) -> None:
+        self.rho = 0j
+        self.applied = False
+        self._used = 0j
+        self._img = 0j
+        self._dir = 0j
+        self._len = 0.0
+        self._blocks = 0
+        self._n_eff = 0.0
+
+    @property
+    def image_db(self) -> float:
+        """``20 log10 |rho|``: the image's level under the signal (-inf before an estimate)."""
+        return 20.0 * math.log10(abs(self.rho)) if self.rho else float("-inf")
+
+    def significant(self) -> bool:
+        """Whether the estimate stands clear of its noise (and of an image too small to matter)."""
+        a = abs(self._dir) / self._len if self._len > 0.0 else 0.0
+        r = abs(self.rho)
+        return a > 0.0 and self._n_eff > 0.0 and r > 0.5 * IQ_MIN_RATIO and r * a * math.sqrt(self._n_eff) > 5.0
+
+    def apply(self, block: np.ndarray) -> np.ndarray:
+        """``block`` with the image taken out (a new array), or ``block`` itself while the estimate does not stand
+        clear of its noise; the sums of the next :meth:`update` are taken to be over what this returned."""
+        self.applied = self.significant()
+        self._used = self.rho if self.applied else 0j
+        if not self.applied:
+            return block
+        out = np.array(block, dtype=np.complex64)
+        remove_image(out.view(np.float32), float(self._used.real), float(self._used.imag))
+        return out
+
+    def update(self, n: int, direct: complex, mirror: complex, double: complex) -> None:
+        """One locked block's sums over the ``n`` samples :meth:`apply` returned: ``direct = sum x e^{-j theta}``,
+        ``mirror = sum x e^{+j theta}``, ``double = sum e^{2 j theta}`` (any common gain)."""
+        if n <= 0:
+            return
+        r0 = self._used
+        if r0:
+            d = 1.0 - abs(r0) ** 2
+            direct, mirror = (direct + r0 * mirror.conjugate()) / d, (mirror + r0 * direct.conjugate()) / d
+        mirror -= direct / n * double
+        self._blocks += 1
+        w = max(IQ_WEIGHT, 1.0 / self._blocks)
+        self._img += w * (mirror - self._img)
+        self._dir += w * (direct - self._dir)
+        self._len += w * (n - self._len)
+        self._n_eff = min(self._n_eff + n, n * (2.0 - IQ_WEIGHT) / IQ_WEIGHT)
+        self.rho = self._img / self._dir.conjugate() if self._dir else 0j
+
+    def conjugate(self) -> None:
+        """The samples are conjugated from now on (a spectrally inverted recording): the estimate with them."""
+        self._img = self._img.conjugate()
+        self._dir = self._dir.conjugate()
+        self.rho = self.rho.conjugate()

@@ -25,6 +25,7 @@ from pipeline.demod._demodulator import (
     mirrored_line,
     shifted_line,
 )
+from pipeline.demod._iq import MirrorLine
 from pipeline.demod._predicted import CarrierPrediction
 from pipeline.demod._tones import TONE_LOOK_RISE, TONE_STRETCH, ToneCanceller, tone_look_blocks
 from pipeline.demod.residual._kernels import (
@@ -87,6 +88,11 @@ _PHASE_JUMP_MIN_RAD = math.pi / 4.0
 #: the blocks' means would take it for the offset (a carrier ``f`` from 0 Hz leaves ``sinc(f T_b)`` of its amplitude
 #: in a block's mean, and the estimate's average over blocks more of it the slower it turns).
 _DC_GUARD_BINS = 2.0
+#: The I/Q image is measured on the carrier's mirror line (:class:`~pipeline.demod._iq.MirrorLine`) only in blocks
+#: whose carrier is at least this many bins (of the block) from 0 Hz, where the carrier and its mirror are one line.
+_MIRROR_GUARD_BINS = 4.0
+#: The carrier loop's sums over a block (track_carrier), cleared before it runs.
+_BLOCK_SUMS = ("sum_re", "sum_re2", "sum_im", "img_re", "img_im", "dbl_re", "dbl_im")
 _SUB_BLOCKS = 8
 _REACQUIRE_BLOCKS = 3
 #: The carrier search accumulates up to this many symbols (at most 32 blocks) before it starts again.
@@ -309,7 +315,10 @@ class ResidualCarrierDemodulator:
        sample rate on the residual carrier (a Costas loop for BPSK), started from the acquired
        frequency, phase and Doppler rate (a second-order loop keeps the rate as aiding), and a
        Costas loop on the subcarrier; the data signal is the carrier's quadrature times the
-       subcarrier reference.
+       subcarrier reference.  A residual carrier's loop also sums the carrier's mirror line, which gives the front
+       end's I/Q imbalance (:class:`~pipeline.demod._iq.MirrorLine`): once it stands clear of its noise the image is
+       taken out of each block before the loop (``stats.iq_image_db``); blocks whose carrier is within
+       ``_MIRROR_GUARD_BINS`` of 0 Hz, where the two lines are one, are not measured.
     4. :func:`~pipeline.demod.residual._kernels.rect_symbols`: integrate-and-dump matched filter
        (``+`` then ``-`` half for Bi-phase-L) and a data-transition tracking loop.
     5. One :class:`ResidualTrackPoint`: mean carrier frequency over the block with its standard
@@ -569,6 +578,7 @@ class ResidualCarrierDemodulator:
         self.conjugate = self.receiver.spectrum_inverted is True  # "auto" may turn it on (the mirrored search)
         self.stats = DemodStats(search_hz=self.acquisition_search_hz, line_threshold_db=self.line_threshold_db)
         self._tones = ToneCanceller(self.sample_rate_hz)
+        self._image = MirrorLine()
         self._restart_search()
 
     def _clear_symbol_stage(self, base: int) -> None:
@@ -783,6 +793,7 @@ class ResidualCarrierDemodulator:
         self.conjugate = True
         self.stats.carrier_found_mirrored += 1
         self._tones.conjugate()
+        self._image.conjugate()
         self._held = [(np.conj(b), g, s) for b, g, s in self._held]
         self._dc.offset = self._dc.offset.conjugate()
         if self._mirror is not None:
@@ -1227,8 +1238,8 @@ class ResidualCarrierDemodulator:
         cut = kk * _PHASE_JUMP_STRETCH
         self._cs[:] = before
         st = self._cs[0]
-        st["sum_re"] = 0.0
-        st["sum_re2"] = 0.0
+        for name in _BLOCK_SUMS:
+            st[name] = 0.0
         first = at < cut
         ph1 = np.empty(int(first.sum()))
         ph2 = np.empty(at.size - ph1.size)
@@ -1313,8 +1324,13 @@ class ResidualCarrierDemodulator:
             at = np.unique(np.concatenate([edges, [0, (n - 1) // 2, n - 1]])).astype(np.int64)
             ph = np.empty(at.size, dtype=np.float64)
             st = self._cs[0]
-            for name in ("sum_re", "sum_re2"):
+            for name in _BLOCK_SUMS:
                 st[name] = 0.0
+            if self.residual:
+                # the front end's I/Q image, measured on the carrier's mirror line, out of the samples
+                block = self._image.apply(block)
+                if self._image.applied:
+                    self.stats.iq_image_db = self._image.image_db
             omega0, rate0 = float(st["frequency"]), float(st["rate"])
             # (the phase-jump check only once the loop has held lock for a few blocks: while it still takes up a
             # Doppler rate its phase turns smoothly, by more than a jump's angle over a block)
@@ -1333,6 +1349,10 @@ class ResidualCarrierDemodulator:
                 if self._in_phase_fell(n) or _loop_turned(free, at, ph):
                     moved = self._phase_jump(block, gain, at, before, free, u, uq, lk, ph)
             st = self._cs[0]
+            if settled and st["locked"] and moved == 0.0 and \
+                    abs(float(st["frequency"])) * n / (2.0 * math.pi) >= _MIRROR_GUARD_BINS:
+                self._image.update(n, complex(st["sum_re"], st["sum_im"]), complex(st["img_re"], st["img_im"]),
+                                   complex(st["dbl_re"], st["dbl_im"]))
             self._loop_rate = (float(st["frequency"]) - omega0) / n
             # the loop's mean frequency over the block (rad/sample), from its total phase at the first and last samples
             # (less the phase a jump moved it by)

@@ -52,6 +52,8 @@ CARRIER_STATE = np.dtype([
     ("locked", np.int64), ("above", np.int64), ("below", np.int64), ("decisions", np.int64),
     ("lk_count", np.int64), ("lk_sum", np.float64), ("lk_sum2", np.float64), ("lock_z", np.float64),
     ("sum_re", np.float64), ("sum_re2", np.float64),
+    ("sum_im", np.float64), ("img_re", np.float64), ("img_im", np.float64), ("dbl_re", np.float64),
+    ("dbl_im", np.float64),
 ])
 
 #: Parameters of :func:`rect_symbols`.
@@ -119,7 +121,9 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
         weight ``costas_warm`` (no Costas decision below 1/2);
         lock ``locked``, the run counters ``above, below``, ``decisions`` made, the open interval's
         ``lk_count, lk_sum, lk_sum2`` and the last statistic ``lock_z``; ``sum_re, sum_re2``: sums of
-        ``Re r`` and ``(Re r)^2`` since the wrapper cleared them (over the block's samples).
+        ``Re r`` and ``(Re r)^2`` since the wrapper cleared them (over the block's samples); residual carrier
+        only, the sums of the mirror line (see Notes): ``sum_im`` of ``Im r``, ``img_re, img_im`` of
+        ``gain x exp(+j theta)``, ``dbl_re, dbl_im`` of ``exp(2 j theta)``.
     cos_table, sin_table : float64 arrays
         :func:`phasor_table`.
     phase_at : int64 array
@@ -150,8 +154,12 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
     ahead; the wrapper's gains include that slope.  Carrier lock: the coherent carrier amplitude in
     units of its own standard error, a t statistic that is about N(0, 1) without a carrier and
     ``sqrt(2 P_c T_d / N0)`` with one (``T_d`` the decision interval).
+    The mirror-line sums (residual carrier): a front end's I/Q imbalance records ``mu s + nu s*``, whose image
+    ``nu s*`` carries the carrier's line at minus its frequency; ``sum(gain x exp(+j theta))`` picks that line up
+    (plus the direct carrier's own line turned by ``exp(2 j theta)``, which ``dbl`` gives the caller to take out),
+    and ``sum(r)`` the direct one (:class:`pipeline.demod._iq.MirrorLine`).
     Cost per sample: one complex rotation (a table read with ``table_phasor``, else ``cos`` and
-    ``sin``), two subcarrier references and about 40 flops.
+    ``sin``), two subcarrier references and about 50 flops.
     """
     n = x.shape[0]
     p = params[0]
@@ -205,6 +213,11 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
     lock_z = st["lock_z"]
     sum_re = st["sum_re"]
     sum_re2 = st["sum_re2"]
+    sum_im = st["sum_im"]
+    img_re = st["img_re"]
+    img_im = st["img_im"]
+    dbl_re = st["dbl_re"]
+    dbl_im = st["dbl_im"]
 
     two_pi = 2.0 * math.pi
     size = cos_table.shape[0]
@@ -236,6 +249,11 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
             lk_sum += rr
             lk_sum2 += rr * rr
             lk_count += 1
+            sum_im += ri
+            img_re += xr * c - xi * s
+            img_im += xi * c + xr * s
+            dbl_re += c * c - s * s
+            dbl_im += 2.0 * c * s
             if lk_count >= lock_interval:
                 mean = lk_sum / lk_count
                 var = lk_sum2 / lk_count - mean * mean
@@ -357,6 +375,11 @@ def track_carrier(x, gain, params, state, cos_table, sin_table, phase_at, out_u,
     st["lock_z"] = lock_z
     st["sum_re"] = sum_re
     st["sum_re2"] = sum_re2
+    st["sum_im"] = sum_im
+    st["img_re"] = img_re
+    st["img_im"] = img_im
+    st["dbl_re"] = dbl_re
+    st["dbl_im"] = dbl_im
 
 
 @njit(cache=True)
