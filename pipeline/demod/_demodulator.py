@@ -189,7 +189,10 @@ class DemodStats:
     then on.  ``tones_hz`` are the CW tones found in the band and taken out of the samples before the matched
     filter (:class:`~pipeline.demod._tones.ToneCanceller`); ``iq_image_db`` the level of the front end's I/Q image
     under the signal when it was taken out (QPSK/OQPSK, :class:`~pipeline.demod._iq.IqBalance`; a residual
-    carrier, :class:`~pipeline.demod._iq.MirrorLine`), else None.
+    carrier, :class:`~pipeline.demod._iq.MirrorLine`), else None.  ``carrier_moved`` counts the searches started
+    at once because the carrier's frequency jumped: the suppressed-carrier receiver's when the lock went while the
+    signal stayed, the residual-carrier receiver's when a strong carrier went within a block and was found again
+    elsewhere; ``timing_jumps`` and ``phase_jumps`` the jumps the residual-carrier receiver followed.
     Picklable; segments of one decode combine with :meth:`merge` (not a field-wise sum; the first segment's centre
     is kept).
     """

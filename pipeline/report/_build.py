@@ -46,8 +46,8 @@ class RunFacts:
         The receiver's counters (:class:`pipeline.demod.DemodStats`; None for symbol input): the report takes the
         CW tones it took out (``tones_hz``, the recording's frame), the I/Q image it took out (``iq_image_db``),
         the jumps of the symbols' timing and the carrier's phase the residual-carrier receiver took
-        (``timing_jumps``, ``phase_jumps``: samples lost by the recorder, most likely) and the carrier searches the
-        suppressed-carrier receiver started at once because the carrier's frequency jumped (``carrier_moved``).
+        (``timing_jumps``, ``phase_jumps``: samples lost by the recorder, most likely) and the carrier searches
+        either receiver started at once because the carrier's frequency jumped (``carrier_moved``).
     stage_stats : dict
         ``{"branch" | "frame_sync" | "codeblock": statistics dataclass}``.
     sync_events, demod_events : list of dict

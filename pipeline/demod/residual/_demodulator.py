@@ -95,6 +95,16 @@ _MIRROR_GUARD_BINS = 4.0
 _BLOCK_SUMS = ("sum_re", "sum_re2", "sum_im", "img_re", "img_im", "dbl_re", "dbl_im")
 _SUB_BLOCKS = 8
 _REACQUIRE_BLOCKS = 3
+#: A carrier held for ``_PHASE_JUMP_SETTLED`` blocks whose amplitude stood at least ``_GONE_MIN_Z`` standard errors of a
+#: block's in-phase mean over 0, and whose in-phase mean then falls under ``_GONE_FRACTION`` of that amplitude over a
+#: whole block (with no phase jump taken), is gone: its frequency jumped (a transponder switched between coherent and
+#: one-way, a receiver retuned) or the signal ended.  The search starts with the next block instead of after
+#: ``_REACQUIRE_BLOCKS`` unlocked blocks (the lock detector's two decision intervals and the three blocks cost a 2 kHz
+#: step at 8 ksym/s 0.7 s of symbols), and the block's symbols are flagged unlocked.  A carrier found again more than
+#: ``_MOVED_HZ`` from where it went counts in ``stats.carrier_moved``.
+_GONE_MIN_Z = 8.0
+_GONE_FRACTION = 0.25
+_MOVED_HZ = 20.0
 #: The carrier search accumulates up to this many symbols (at most 32 blocks) before it starts again.
 _DWELL_SYMBOLS = 8192
 _MAX_DWELL_BLOCKS = 32
@@ -347,7 +357,8 @@ class ResidualCarrierDemodulator:
     after two below 3; subcarrier, the same with ``s_k^2 - q_k^2`` (``q_k`` the integral with the
     quadrature reference).  ``TrackPoint.symbol_locked`` is all three; a symbol's ``locked`` flag
     is the carrier lock at its centre.  After three unlocked blocks (once the carrier detector has
-    decided) the carrier is searched again.  Bi-phase-L BPSK: the Costas ratio
+    decided) the carrier is searched again; a strong carrier that is gone over a whole block (its frequency
+    jumped, or the signal ended) from the next block (``_carrier_went``).  Bi-phase-L BPSK: the Costas ratio
     ``<I^2 - Q^2> / <I^2 + Q^2>`` above 0.1 (off below 0.05), symbol lock from Es/N0 above -3 dB.
     Cost per sample: one complex rotation (a table read) and about 40 flops; per symbol O(samples
     per symbol); per searched block one FFT of the block.
@@ -572,6 +583,7 @@ class ResidualCarrierDemodulator:
         self._noise_var = float("nan")
         self._clock_ratio = 1.0
         self._unlocked_blocks = 0
+        self._went_hz: float | None = None  # the carrier's frequency when it went (until it is found again)
         self._finished = False
         self.loop_plan: LoopPlan | None = None
         self.modulation_index_rad = float("nan")
@@ -987,6 +999,10 @@ class ResidualCarrierDemodulator:
         self.stats.carrier_found += 1
         self._reset_carrier(fix.phase_rad, 2.0 * math.pi * fix.frequency_hz / fs,
                             2.0 * math.pi * fix.rate_hz_per_s / (fs * fs), fix.amplitude)
+        if self._went_hz is not None:
+            if abs(fix.frequency_hz - self._went_hz) > _MOVED_HZ:
+                self.stats.carrier_moved += 1
+            self._went_hz = None
         self._amp_floor = 0.25 * fix.amplitude
         self._carrier_amp = fix.amplitude
         self._cn0_hz = fix.cn0_hz
@@ -1169,6 +1185,11 @@ class ResidualCarrierDemodulator:
         mean = float(np.mean(e))
         return mean < 0.95 * ref and ref - mean > 3.0 * float(np.std(e)) / math.sqrt(e.size)
 
+    def _carrier_went(self, mean_re: float, var_re: float, n: float) -> bool:
+        """A strong carrier's in-phase mean gone over a whole block (``_GONE_MIN_Z``, ``_GONE_FRACTION``)."""
+        a = self._carrier_amp
+        return math.isfinite(a) and a > _GONE_MIN_Z * math.sqrt(var_re / n) and mean_re < _GONE_FRACTION * a
+
     def _in_phase_fell(self, n: int) -> bool:
         """The block's mean in-phase carrier (``Re r``, the carrier stage's sums) under ``_PHASE_JUMP_TRIGGER`` of the
         carrier's amplitude, and under it by 3 standard errors: the carrier may have turned (a phase jump)."""
@@ -1313,6 +1334,7 @@ class ResidualCarrierDemodulator:
         """Carrier stage over the blocks ``items``, then their symbols, lock statistics and track points."""
         fs = self.sample_rate_hz
         infos = []
+        went = False
         for block, gain, start in items:
             plan = self._plan(start)
             n = block.size
@@ -1349,6 +1371,14 @@ class ResidualCarrierDemodulator:
                 if self._in_phase_fell(n) or _loop_turned(free, at, ph):
                     moved = self._phase_jump(block, gain, at, before, free, u, uq, lk, ph)
             st = self._cs[0]
+            cnt = max(float(n), 1.0)  # the sums run over every sample of the block
+            mean_re = st["sum_re"] / cnt
+            var_re = max(st["sum_re2"] / cnt - mean_re * mean_re, 1e-30)
+            if settled and moved == 0.0 and not went and self._carrier_went(mean_re, var_re, cnt):
+                went = True
+                self._went_hz = float(st["frequency"]) * fs / (2.0 * math.pi)
+                lk[:] = 0  # (the lock detector still holds: its decisions lag by up to two intervals)
+                st["locked"] = 0
             if settled and st["locked"] and moved == 0.0 and \
                     abs(float(st["frequency"])) * n / (2.0 * math.pi) >= _MIRROR_GUARD_BINS:
                 self._image.update(n, complex(st["sum_re"], st["sum_im"]), complex(st["img_re"], st["img_im"]),
@@ -1364,9 +1394,6 @@ class ResidualCarrierDemodulator:
                 # rate aiding follows the Doppler rate: the frequency's drift over the block beyond the aiding's
                 # own is the rate the aiding misses (a slow third integrator, one update per block)
                 st["rate"] = rate0 + _RATE_AIDING_GAIN * ((float(st["frequency"]) - omega0) / n - rate0)
-            cnt = max(float(n), 1.0)  # the sums run over every sample of the block
-            mean_re = st["sum_re"] / cnt
-            var_re = max(st["sum_re2"] / cnt - mean_re * mean_re, 1e-30)
             info = {"start": start, "n": n, "at": at, "ph": ph, "edges": edges, "mean_re": mean_re,
                     "var_re": var_re, "locked": bool(st["locked"]), "lock_z": float(st["lock_z"]), "plan": plan,
                     "decisions": int(st["decisions"]),
@@ -1387,7 +1414,7 @@ class ResidualCarrierDemodulator:
             self._acquire_timing()
         for info in infos:
             self._block_symbols(info, parts)
-        if self._unlocked_blocks >= _REACQUIRE_BLOCKS:  # search for the carrier again
+        if self._unlocked_blocks >= _REACQUIRE_BLOCKS or went:  # search for the carrier again
             self._tracking = False
             self._unlocked_blocks = 0
             self._restart_search()
