@@ -556,6 +556,26 @@ def test_track_points_are_tagged_at_the_middle_of_their_interval(rng):
     assert np.max(np.abs(err)) < 3.0  # truth: the transmitter's instantaneous frequency at the tag
 
 
+@pytest.mark.parametrize("mod,esn0_db,rate", [("bpsk", 6.0, 0.0), ("qpsk", 2.0, 200.0)])
+def test_track_point_std_is_the_standard_error_of_its_mean(mod, esn0_db, rate):
+    # carrier_std_hz is the standard error of the block's mean frequency (the residual-carrier receiver's meaning):
+    # the spread of 8 sub-interval means about a line over sqrt 8 (a line's value at the centre has variance
+    # s_r^2 / K: least-squares regression, e.g. N. R. Draper, H. Smith, Applied Regression Analysis, ch. 1; from
+    # memory).  It covers the actual error, on the large side (the loop's phase error decorrelates within a 4 ms
+    # sub-interval at 240 ksym/s, which makes the sub-intervals' frequencies negatively correlated) but by less than
+    # sqrt 8: the spread itself, reported before, was 7-8 times the actual error.
+    rng = np.random.default_rng(17)
+    w = modulate(800_000, modulation=mod, esn0_db=esn0_db, carrier_offset_hz=900.0, doppler_rate_hz_per_s=rate,
+                 clock_offset_ppm=20.0, rng=rng)
+    _, _, _, track = _run(_demod(mod), w.samples, [1 << 18])
+    pts = [p for p in track if p.carrier_locked and p.position > 0.3 * FS and math.isfinite(p.carrier_std_hz)]
+    assert len(pts) > 80
+    err = np.array([p.carrier_offset_hz - (900.0 + rate * p.position / FS) for p in pts])
+    z = err / np.array([p.carrier_std_hz for p in pts])
+    assert np.mean(np.abs(z) < 3.0) > 0.95
+    assert 0.25 < math.sqrt(float(np.mean(z * z))) < 1.2
+
+
 @pytest.mark.kat
 def test_kernel_buffers_full_continue_exactly():
     """track_symbols stops when its buffers are full and a call with new ones continues exactly: the
