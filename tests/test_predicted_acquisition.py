@@ -333,3 +333,62 @@ def test_the_table_is_validated_and_travels_to_workers():
     with pytest.raises(TypeError, match="Argument 'carrier_prediction' must be a CarrierPrediction or None, not "
                                         "tuple."):
         Demodulator(link=link, receiver=ReceiverSection(), sample_rate_hz=FS, carrier_prediction=([0.0], [1.0]))
+
+
+def test_a_stream_table_worked_out_ahead_answers_as_the_whole_table():
+    # a predictor known everywhere but only at the table's points: the stream's table, extended as it is asked,
+    # against a CarrierPrediction built beforehand on the same points
+    from pipeline.demod import StreamPrediction
+
+    fs, step = 1000.0, 50
+
+    def predict(p):
+        return None if 600 <= p < 800 else 40e3 - 3.0 * p + 0.004 * p * p  # the orbit without state in a gap
+
+    asked = []
+    stream = StreamPrediction(lambda p: asked.append(p) or predict(p), step_samples=step, ahead_points=4)
+    assert max(asked) == 150  # the first stretch only
+    points = [float(p) for p in range(0, 5000, step) if predict(p) is not None]
+    whole = CarrierPrediction(positions=points, offsets_hz=[predict(p) for p in points])
+    for start, n in ((0, 120), (130, 400), (590, 300), (2000, 1500)):
+        np.testing.assert_allclose(stream.rotation(start, n, fs), whole.rotation(start, n, fs), atol=2e-6)
+        np.testing.assert_array_equal(stream.offset_hz([start, start + n / 2]), whole.offset_hz([start, start + n / 2]))
+        assert stream.rate_hz_per_s(start + n / 2, fs) == whole.rate_hz_per_s(start + n / 2, fs)
+    assert max(asked) <= 3500 + 2 * 4 * step  # worked out ahead by at most a stretch past what was asked
+    with pytest.raises(ValueError, match="no state"):
+        StreamPrediction(lambda p: None, step_samples=step)
+    with pytest.raises(ValueError, match="step_samples"):
+        StreamPrediction(predict, step_samples=0)
+
+
+def test_a_live_stream_is_searched_centred_on_the_prediction(tmp_path):
+    # the narrow search of the first test, on the pass piped into `decode -` with --start and --tle: before, a live
+    # stream's search stayed on the nominal frequency and found nothing
+    import json
+    import subprocess
+    import sys
+
+    bits, packets = _frames_and_packets()
+    link = f'modulation = "bpsk"\nsymbol_rate = {pass_sim.RS}\nline_code = "nrz-l"\n' \
+           f'downlink_frequency_hz = {pass_sim.F_CARRIER}'
+    receiver = f"[receiver]\nacquisition_range_hz = {NARROW_RANGE_HZ}"
+    _, recorded, folder = pass_sim._decode_pass(tmp_path / "file", receiver=receiver, bits=bits, link=link,
+                                                from_culmination_s=BEFORE_CULMINATION_S)
+    assert recorded.packets == len(packets)
+    folder = folder.parent
+    start = json.loads((folder / "pass.sigmf-meta").read_text())["captures"][0]["core:datetime"]
+    out = tmp_path / "live"
+    with open(folder / "pass.sigmf-data", "rb") as f:
+        r = subprocess.run([sys.executable, "-m", "pipeline", "decode", "-", "--format", "cf32", "--sample-rate",
+                            str(pass_sim.FS), "--start", start, "--profile", str(folder / "p.toml"), "--tle",
+                            str(folder / "leo.tle"), "--out", str(out), "-q"],
+                           stdin=f, capture_output=True, text=True, timeout=300)
+    assert r.returncode == 0, r.stderr
+    keys = ("apid", "seq_count", "hex")
+    live = [tuple(json.loads(line)[k] for k in keys) for line in (out / "packets.jsonl").read_text().splitlines()]
+    ref = [tuple(json.loads(line)[k] for k in keys)
+           for line in (folder / "out" / "packets.jsonl").read_text().splitlines()]
+    assert live == ref and len(live) == len(packets)
+    report = json.loads((out / "report.json").read_text())
+    assert report["recording"]["live"] is True
+    assert abs(report["demod"]["acquisition_centre_hz"] - recorded.report["demod"]["acquisition_centre_hz"]) < 1.0

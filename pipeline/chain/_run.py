@@ -35,7 +35,7 @@ MIRRORED_PREDICTION_NOTE = ("the recording is spectrally inverted (I/Q swapped o
                             "spectrum_inverted = true) and the Doppler is given with its true sign")
 
 __all__ = ["DecodeSummary", "TimeProducts", "carrier_prediction", "decode_in_memory", "decode_to_folder", "is_stream",
-           "kernel_cache_cold"]
+           "kernel_cache_cold", "stream_carrier_prediction"]
 
 #: Samples at the start of an IQ recording whose spectrum the report shows.
 SPECTRUM_SAMPLES = 1 << 18
@@ -261,6 +261,21 @@ def carrier_prediction(check, recording, *, step_s: float = PREDICTION_STEP_S):
     return CarrierPrediction(positions=np.array(positions), offsets_hz=np.array(offsets))
 
 
+def stream_carrier_prediction(check, stream, sample_rate_hz: float, *, step_s: float = PREDICTION_STEP_S):
+    """The predicted carrier offset over a live stream, worked out ahead as the stream goes
+    (:class:`~pipeline.demod.StreamPrediction`; None when the orbit has no state over its first minute).
+
+    As :func:`carrier_prediction`, through the stream's own time base (``stream.tai_ns``, from ``--start``).
+    """
+    from pipeline.demod import StreamPrediction
+
+    step = max(1, int(round(step_s * float(sample_rate_hz))))
+    try:
+        return StreamPrediction(lambda p: check.predicted_offset_hz(stream.tai_ns(p)), step_samples=step)
+    except ValueError:
+        return None
+
+
 def _no_start(path: str) -> UsageError:
     return UsageError(f"{path}: the input carries no start time: give --start (ISO-8601 UTC of its first sample) "
                       f"or --no-time (then every ERT is null)")
@@ -385,8 +400,11 @@ def _run(inp: _Input, profile: LinkProfile, sinks, *, workers: int, progress: bo
             spectrum_tap.feed(rec.read(0, min(SPECTRUM_SAMPLES, rec.num_samples)).samples)
         else:
             iq = inp.kind == "iq"
+            # a live stream's length is not known: the prediction is worked out ahead as it goes
+            prediction = None if check is None or not iq else \
+                stream_carrier_prediction(check, inp.timebase, inp.source.sample_rate_hz)
             chain = DecodeChain(profile, input_kind=inp.kind, sample_rate_hz=inp.source.sample_rate_hz if iq else None,
-                                timebase=inp.timebase, sinks=sinks,
+                                timebase=inp.timebase, sinks=sinks, carrier_prediction=prediction,
                                 waterfall_row_samples=waterfall_row_samples(inp.total, inp.position_rate_hz)
                                 if iq else None, **back_options)
             try:

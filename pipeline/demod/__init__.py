@@ -16,13 +16,14 @@ from pipeline.demod._demodulator import DcBlocker, DemodStats, Demodulator, Symb
 from pipeline.demod._filters import matched_filter_taps, raised_cosine_pulse, rrc_pulse
 from pipeline.demod._inspect import fit_carrier_track, inspect_recording, write_inspect_plots
 from pipeline.demod._line import LineDecoder
-from pipeline.demod._predicted import CarrierPrediction
+from pipeline.demod._predicted import CarrierPrediction, StreamPrediction
 from pipeline.demod._snr import estimate_esn0_m2m4, m2m4_signal_noise
 
 __all__ = [
     "CarrierAcquisition",
     "CarrierEstimate",
     "CarrierPrediction",
+    "StreamPrediction",
     "CarrierSearch",
     "DcBlocker",
     "DemodStats",

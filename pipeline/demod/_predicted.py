@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 
-__all__ = ["CarrierPrediction"]
+__all__ = ["CarrierPrediction", "StreamPrediction"]
 
 
 class CarrierPrediction:
@@ -85,3 +85,78 @@ class CarrierPrediction:
         out.real = np.cos(ph)
         out.imag = np.sin(ph)
         return out
+
+
+class StreamPrediction(CarrierPrediction):
+    """A :class:`CarrierPrediction` for a live stream, whose length is not known: the table is worked out ahead, a
+    stretch at a time, as the receiver reaches it.
+
+    Parameters
+    ----------
+    predict : callable
+        Sample position (int) -> the predicted offset (Hz) there, or None where the orbit has no state (such
+        positions are left out of the table, as for a recording).
+    step_samples : int, keyword-only
+        The table's spacing, samples (>= 1).
+    ahead_points : int, keyword-only
+        Positions worked out at a time (default 120: a minute at one point per 0.5 s, about 25 ms of orbit
+        prediction).
+
+    Raises
+    ------
+    ValueError
+        When the orbit has no state at any position of the first stretch (the caller then searches without a
+        prediction, as for a recording the orbit does not cover).
+
+    Notes
+    -----
+    Every method first extends the table to one step past the last position it is asked about, so its answers
+    are those of a :class:`CarrierPrediction` on the same points (positions ``0, step, 2 step, ...``, a
+    recording's table without its end point) built over the whole stream beforehand.  Not picklable (it holds
+    the predictor): a live stream is decoded by one process.
+    """
+
+    def __init__(self, predict, *, step_samples: int, ahead_points: int = 120) -> None:
+        if isinstance(step_samples, bool) or not isinstance(step_samples, (int, np.integer)) or step_samples < 1:
+            raise ValueError(f"Argument 'step_samples' must be an integer >= 1, not {step_samples!r}.")
+        if isinstance(ahead_points, bool) or not isinstance(ahead_points, (int, np.integer)) or ahead_points < 1:
+            raise ValueError(f"Argument 'ahead_points' must be an integer >= 1, not {ahead_points!r}.")
+        self._predict = predict
+        self._step = int(step_samples)
+        self._ahead = int(ahead_points)
+        self._next = 0  # the next table position to work out
+        pos, off = self._stretch()
+        if not pos:
+            raise ValueError("The orbit has no state over the stream's first stretch.")
+        super().__init__(positions=pos, offsets_hz=off)
+
+    def _stretch(self) -> tuple[list[float], list[float]]:
+        """The next ``ahead_points`` positions' predictions (those the orbit has)."""
+        pos, off = [], []
+        for k in range(self._ahead):
+            p = self._next + k * self._step
+            f = self._predict(p)
+            if f is not None:
+                pos.append(float(p))
+                off.append(float(f))
+        self._next += self._ahead * self._step
+        return pos, off
+
+    def _cover(self, position: float) -> None:
+        while self._next <= position + self._step:
+            pos, off = self._stretch()
+            if pos:
+                self.positions = np.concatenate([self.positions, pos])
+                self.offsets_hz = np.concatenate([self.offsets_hz, off])
+
+    def offset_hz(self, position):
+        self._cover(float(np.max(position)))
+        return super().offset_hz(position)
+
+    def rate_hz_per_s(self, position: float, sample_rate_hz: float) -> float:
+        self._cover(float(position))
+        return super().rate_hz_per_s(position, sample_rate_hz)
+
+    def rotation(self, start: int, n: int, sample_rate_hz: float) -> np.ndarray:
+        self._cover(float(start) + n)
+        return super().rotation(start, n, sample_rate_hz)
