@@ -349,6 +349,12 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fr
         verdict["jumps_note"] = (f"{', '.join(what[:-1]) + ' and ' if len(what) > 1 else ''}{what[-1]} "
                                  f"({'; '.join(why)}); the receiver took each at once, and the frames around it "
                                  "are lost")
+    rate = _symbol_rate(f, frames, clock)
+    if rate is not None:
+        verdict["symbol_rate_note"] = (
+            f"{rate[0]:,.2f} symbols per second from the spacing of the frame markers over {rate[2]} CADUs, "
+            f"{rate[1]:+.2f} ppm from the profile's {f.profile.link.symbol_rate_baud:,.0f}: the spacecraft's symbol "
+            "clock, the Doppler (the range rate over the speed of light) and the recording's sample clock together")
     clipped = _clipped_fraction(f)
     if clipped:
         verdict["clipping_note"] = (
@@ -363,6 +369,79 @@ def _clipped_fraction(f: RunFacts) -> float | None:
     if not f.clip_checked:
         return None
     return round(f.clipped_values / (2 * f.clip_checked), 5)
+
+
+#: Frame-marker spacings more than this fraction from the nominal CADU (samples lost or inserted by the recorder, a
+#: re-acquisition), or more than half a symbol period off the median spacing over the CADUs they span (a symbol
+#: slipped), break the runs the symbol rate is fitted over; at least ``_RATE_MIN_CADUS`` CADUs of runs are needed.
+_RATE_FAR = 2e-3
+_RATE_MIN_CADUS = 10
+
+
+def measured_symbol_rate(position: np.ndarray, marker_found: np.ndarray, cadu_samples: float,
+                         symbol_samples: float) -> tuple[float, int] | None:
+    """The spacing of the frame markers, samples per CADU, and the CADUs it was measured over (None when fewer than
+    ``_RATE_MIN_CADUS``).
+
+    Parameters
+    ----------
+    position : float array
+        The frames' marker positions (samples, increasing; a thinned log's entries are fine).
+    marker_found : bool array
+        Frames whose marker was found (verified frames, not flywheel ones).
+    cadu_samples : float
+        The nominal CADU length in samples (:meth:`~pipeline.profile.LinkProfile.samples_per_cadu`).
+    symbol_samples : float
+        The nominal symbol period in samples.
+
+    Notes
+    -----
+    Consecutive found markers ``p_i, p_{i+1}`` are ``k_i = round((p_{i+1} - p_i) / C)`` CADUs apart.  A pair whose
+    mean spacing is more than ``_RATE_FAR`` from ``C`` (samples lost or inserted, a re-acquisition), or whose
+    spacing is more than half a symbol period off ``k_i`` times the median spacing (a symbol slipped), ends a run;
+    over the runs, ``p = a_run + s n`` with ``n`` the CADU index is fitted by least squares (one slope, an
+    intercept per run), so a marker's jitter (a few hundredths of a sample) and a first marker still settling count
+    as in a straight-line fit, over a baseline of the whole pass.  The symbol rate is the profile's times ``C / s``;
+    measured against the recording's sample clock, it holds the spacecraft's symbol clock, the Doppler's time
+    compression (``-v / c``: 25 ppm at 7.5 km/s) and the recorder's clock error together.
+    """
+    p = np.asarray(position, dtype=np.float64)[np.asarray(marker_found, dtype=bool)]
+    if p.size < 2 or not cadu_samples > 0:
+        return None
+    diff = np.diff(p)
+    k = np.rint(diff / cadu_samples)
+    ok = k >= 1
+    spacing = diff / np.maximum(k, 1.0)
+    ok &= np.abs(spacing / cadu_samples - 1.0) < _RATE_FAR
+    if not ok.any():
+        return None
+    median = float(np.median(spacing[ok]))
+    ok &= np.abs(diff - k * median) < 0.5 * symbol_samples
+    n = np.concatenate([[0.0], np.cumsum(np.where(ok, k, 0.0))])  # CADU index within the runs
+    run = np.concatenate([[0], np.cumsum(~ok)])  # a new run after each pair left out
+    counts = np.bincount(run)
+    n_mean = np.bincount(run, n) / counts
+    p_mean = np.bincount(run, p) / counts
+    dn = n - n_mean[run]
+    sxx = float(np.sum(dn * dn))
+    cadus = int(np.sum(np.where(ok, k, 0.0)))
+    if cadus < _RATE_MIN_CADUS or sxx <= 0.0:
+        return None
+    return float(np.sum(dn * (p - p_mean[run])) / sxx), cadus
+
+
+def _symbol_rate(f: RunFacts, frames: _FrameArrays, clock) -> tuple[float, float, int] | None:
+    """IQ input: the symbol rate measured on the frame markers (:func:`measured_symbol_rate`), its offset from the
+    profile's (ppm) and the CADUs it spans; None otherwise."""
+    if f.input_kind != "iq" or not frames.position.size:
+        return None
+    cadu = f.profile.samples_per_cadu(clock.rate)
+    symbol = clock.rate / f.profile.link.symbol_rate_baud
+    got = measured_symbol_rate(frames.position, (frames.category <= 1) & ~frames.flywheel, cadu, symbol)
+    if got is None:
+        return None
+    ratio = cadu / got[0]
+    return f.profile.link.symbol_rate_baud * ratio, (ratio - 1.0) * 1e6, got[1]
 
 
 def _frames_while_locked(fpos: np.ndarray, tpos: np.ndarray, locked: np.ndarray) -> np.ndarray:
@@ -429,8 +508,11 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         **({"phase_jumps": ds.phase_jumps} if ds.phase_jumps else {}),
         **({"carrier_moves": ds.carrier_moved} if ds.carrier_moved else {}),
     }
-    if f.modulation_index_rad:
-        demod["modulation_index_rad_median"] = round(float(np.median(f.modulation_index_rad)), 4)
+    rate = _symbol_rate(f, frames, clock)
+    if rate is not None:
+        demod["symbol_rate_measured_baud"] = round(rate[0], 4)
+        demod["symbol_rate_offset_ppm"] = round(rate[1], 3)
+        demod["symbol_rate_cadus"] = rate[2]
     if f.downlink_frequency_hz:
         demod["downlink_frequency_hz"] = f.downlink_frequency_hz
     if iq:

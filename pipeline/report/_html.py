@@ -345,6 +345,9 @@ def _verdict_html(v: dict, ber: dict | None, anchor: str) -> str:
     iq = v.get("iq_note")
     if iq:
         note_html += f'<p class="time"><strong>I/Q balance:</strong> {_esc(iq)}.</p>'
+    rate = v.get("symbol_rate_note")
+    if rate:
+        note_html += f'<p class="time"><strong>Symbol rate:</strong> {_esc(rate)}.</p>'
     moved = v.get("jumps_note")
     if moved:
         note_html += f'<p class="time"><strong>Jumps:</strong> {_esc(moved)}.</p>'
