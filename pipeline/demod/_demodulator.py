@@ -11,7 +11,7 @@ import numpy as np
 
 from pipeline.demod._acquire import LINE_THRESHOLD, CarrierSearch, SpectralLine, _next_pow2
 from pipeline.demod._filters import gardner_detector_gain, matched_filter_taps, midpoint_energy_ratio
-from pipeline.demod._iq import IqBalance
+from pipeline.demod._iq import IqBalance, MirrorLine
 from pipeline.demod._kernels import (
     BLOCK_SUMMARY,
     TRACK_PARAMS,
@@ -19,6 +19,7 @@ from pipeline.demod._kernels import (
     block_summary,
     condition_block,
     mean_power_nonzero,
+    mirror_sums,
     phasor_table,
     remove_dc,
     track_symbols,
@@ -112,6 +113,13 @@ _AGC_ATTACK = 4.0
 #: A block whose mean power is under this times the AGC's average has its 256-sample stretches looked at for a
 #: fall beyond _AGC_ATTACK inside it (its mean falls by the fraction after the fall only).
 _AGC_FALL_CHECK = 0.85
+#: BPSK's I/Q image (:class:`~pipeline.demod._iq.MirrorLine`): measured on the first ``_IMAGE_SYMBOLS`` symbols of
+#: every ``_IMAGE_EVERY``-th block once the carrier was locked over more than ``_IMAGE_SETTLED`` whole blocks in a row
+#: (an image 13 dB down is taken out after about 8 such blocks; the measurement costs about 1 % of the demo link's
+#: front end).
+_IMAGE_SYMBOLS = 512
+_IMAGE_EVERY = 4
+_IMAGE_SETTLED = 4
 #: Sub-intervals of a block whose mean frequencies give a track point's ``carrier_std_hz``.
 _FREQ_SUBINTERVALS = 8
 
@@ -192,7 +200,7 @@ class DemodStats:
     spectrally inverted, as inferred from the predicted Doppler's sign, and its samples were conjugated from
     then on.  ``tones_hz`` are the CW tones found in the band and taken out of the samples before the matched
     filter (:class:`~pipeline.demod._tones.ToneCanceller`); ``iq_image_db`` the level of the front end's I/Q image
-    under the signal when it was taken out (QPSK/OQPSK, :class:`~pipeline.demod._iq.IqBalance`; a residual
+    under the signal when it was taken out (QPSK/OQPSK, :class:`~pipeline.demod._iq.IqBalance`; BPSK and a residual
     carrier, :class:`~pipeline.demod._iq.MirrorLine`), else None.  ``carrier_moved`` counts the searches started
     at once because the carrier's frequency jumped: the suppressed-carrier receiver's when the lock went while the
     signal stayed, the residual-carrier receiver's when a strong carrier went within a block and was found again
@@ -807,8 +815,11 @@ class Demodulator:
         self._acquiring = True
         self._tones_looked = False  # the acquisition under way has looked for tones in its window
         self._tones = ToneCanceller(self.sample_rate_hz)
-        # QPSK/OQPSK are circular: a front end's I/Q imbalance is measured and taken out (BPSK is not)
+        # a front end's I/Q imbalance is measured and taken out: QPSK/OQPSK are circular (IqBalance); BPSK is not,
+        # and its image is measured on its decisions against the carrier's phase (MirrorLine)
         self._iq = IqBalance() if self._mod_code != 0 else None
+        self._image = MirrorLine() if self._mod_code == 0 else None
+        self._image_blocks = 0  # blocks in a row wholly carrier-locked (BPSK's image is measured after a few)
         self._agc_power = 0.0
         self._tone_look_due = False
         self._dc = DcBlocker()
@@ -833,6 +844,7 @@ class Demodulator:
         self._state[0]["ph_cos"] = 1.0  # the carrier phasor at theta = 0
         self._summary = np.zeros(1, dtype=BLOCK_SUMMARY)
         self._mom4 = np.zeros(4, dtype=np.float64)
+        self._mirror8 = np.zeros(8, dtype=np.float64)
         self._unlocked_run = 0
         self._locked_esn0_db = math.nan  # Es/N0 over the blocks that ended locked (an average)
         self._moved_armed = False  # a block ended locked since the search last started because the carrier moved
@@ -907,6 +919,10 @@ class Demodulator:
             block = self._iq.apply(block)
             if self._iq.applied:
                 self.stats.iq_image_db = self._iq.image_db
+        elif self._image is not None:
+            block = self._image.apply(block)
+            if self._image.applied:
+                self.stats.iq_image_db = self._image.image_db
         block = self._tones.apply(block, start)
         # tones are looked for in each acquisition's window, in every block whose index on the recording's block grid
         # is a multiple of _tone_look_blocks (about every TONE_LOOK_S of recording) and in the block after one whose
@@ -1055,6 +1071,8 @@ class Demodulator:
         self._tones.conjugate()
         if self._iq is not None:
             self._iq.conjugate()
+        if self._image is not None:
+            self._image.conjugate()
 
     def _long_search_due(self) -> int:
         """The long search's window in blocks when one is due now, else 0 (counted once per acquisition)."""
@@ -1177,6 +1195,9 @@ class Demodulator:
         st["w_int"] = 0.0
 
         locked = int(sm["locked"])
+        if self._image is not None and not tail:
+            self._image_update(out.sym[first:out.n], pos, theta, phase_at_block, dphase, block_first,
+                               nsym > 0 and locked == nsym)
         if nsym:
             # the block's means (frequency, Es/N0) refer to the middle of its symbols' interval;
             # the symbol's matched-filter centre was rotated at about this oscillator phase
@@ -1222,6 +1243,22 @@ class Demodulator:
             self._unlocked_run = 0
             self._acquiring = True
             self._tones_looked = False
+
+    def _image_update(self, sym: np.ndarray, pos: np.ndarray, theta: np.ndarray, phase0: float, dphase: float,
+                      sample0: int, locked: bool) -> None:
+        """BPSK: the block's image sums (its first ``_IMAGE_SYMBOLS`` symbols, :func:`mirror_sums`) into the estimate,
+        every ``_IMAGE_EVERY``-th block once the carrier has been locked over ``_IMAGE_SETTLED`` whole blocks, and
+        when the carrier turned enough over them for the image to be told from a change of the signal's gain
+        (``|mean e^{2 j T}| < 1/2``)."""
+        self._image_blocks = self._image_blocks + 1 if locked else 0
+        if self._image_blocks <= _IMAGE_SETTLED or self._image_blocks % _IMAGE_EVERY:
+            return
+        m = min(sym.size, _IMAGE_SYMBOLS)
+        s = self._mirror8
+        mirror_sums(sym[:m], pos[:m], theta[:m], phase0, dphase, float(sample0), s)
+        double = complex(s[4], s[5])
+        if abs(double) < 0.5 * m:
+            self._image.update(m, complex(s[0], s[1]), complex(s[2], s[3]), double, power=float(s[6]) / m)
 
     def _level_change(self, block: np.ndarray, rise: bool) -> tuple[np.ndarray, float] | None:
         """A block whose power rose over ``_AGC_ATTACK`` times the AGC's (``rise``) or fell under it by as much: a

@@ -123,12 +123,18 @@ class MirrorLine:
     the mirror sum (a line turning at twice the carrier's frequency: small unless the carrier is near 0 Hz), which
     is taken out; blocks with the carrier within a few bins of 0 Hz, where the two lines are one, are not used.
     The sums come from the carrier loop (:func:`pipeline.demod.residual._kernels.track_carrier`) over samples this
-    class may already have corrected with ``rho0``; they are brought back to the recorded samples exactly (``x =
-    (x' + rho0 conj(x')) / (1 - |rho0|^2)``, linear in ``x'``), so the estimate is open-loop.  The blocks' sums are
-    averaged as :class:`IqBalance` averages its ratios (a plain mean over the first 16 blocks, then weight 1/16).
-    Applied when ``|rho|`` is over half of :data:`IQ_MIN_RATIO` (an image 46 dB down) and over five times its
-    standard deviation, at most ``1 / (a sqrt(N))`` for ``N`` samples averaged and a carrier of amplitude ``a``
-    (the samples' power, the gain's reference, being 1: everything but the carrier is at most that).
+    class may already have corrected with ``rho0``.  BPSK (suppressed carrier) gives the same sums in the symbol
+    domain with its decisions ``d`` taking the data off (:func:`~pipeline.demod._kernels.mirror_sums`): the
+    matched filter is real and linear, so ``y d = |mu| A + nu A e^{j arg mu} e^{-2 j T}`` with ``T`` the total
+    carrier phase, and ``sum y d e^{2 j T} / conj(sum y d)`` is ``rho`` as well; near 0 Hz (``T`` not turning)
+    BPSK's image is a mere change of its complex gain, which ``sum e^{2 j T}`` tells (such blocks are not used).
+    Either way the sums are over samples this class may have corrected with ``rho0``; they are brought back to the
+    recorded samples exactly (``x = (x' + rho0 conj(x')) / (1 - |rho0|^2)``, linear in ``x'``), so the estimate is
+    open-loop.  The blocks' sums are averaged as :class:`IqBalance` averages its ratios (a plain mean over the
+    first 16 blocks, then weight 1/16).  Applied when ``|rho|`` is over half of :data:`IQ_MIN_RATIO` (an image 46
+    dB down) and over five times its standard deviation, at most ``1 / (a sqrt(N))`` for ``N`` samples (symbols)
+    averaged and a carrier (data) amplitude ``a`` relative to the root of their mean power (the samples' power,
+    the gain's reference, is 1; the symbols' is passed to :meth:`update`): everything but it is at most that.
     """
 
     def __init__(self) -> None:
@@ -163,11 +169,16 @@ class MirrorLine:
         remove_image(out.view(np.float32), float(self._used.real), float(self._used.imag))
         return out
 
-    def update(self, n: int, direct: complex, mirror: complex, double: complex) -> None:
+    def update(self, n: int, direct: complex, mirror: complex, double: complex, power: float = 0.0) -> None:
         """One locked block's sums over the ``n`` samples :meth:`apply` returned: ``direct = sum x e^{-j theta}``,
-        ``mirror = sum x e^{+j theta}``, ``double = sum e^{2 j theta}`` (any common gain)."""
+        ``mirror = sum x e^{+j theta}``, ``double = sum e^{2 j theta}`` (any common gain); ``power`` the mean of
+        ``|x|^2`` in the same units when it is not 1 (the sums are scaled to it, so the test's amplitude is
+        relative to the samples' power)."""
         if n <= 0:
             return
+        if power > 0.0:
+            scale = 1.0 / math.sqrt(power)
+            direct, mirror = direct * scale, mirror * scale
         r0 = self._used
         if r0:
             d = 1.0 - abs(r0) ** 2

@@ -18,6 +18,7 @@ __all__ = [
     "cancel_tones",
     "iq_sums",
     "remove_image",
+    "mirror_sums",
     "condition_block",
     "phasor_table",
     "derotate",
@@ -1576,3 +1577,47 @@ def remove_image(x2, rho_re, rho_im):
         # rho conj(x) = (rho_re r + rho_im i) + j (rho_im r - rho_re i)
         x2[2 * k] = np.float32(r - (rho_re * r + rho_im * i))
         x2[2 * k + 1] = np.float32(i - (rho_im * r - rho_re * i))
+
+
+@njit(cache=True, nogil=True)
+def mirror_sums(sym, pos, theta, phase0, dphase, sample0, out):
+    """BPSK's image sums (:class:`pipeline.demod._iq.MirrorLine`) over the symbols ``sym`` (complex64, carrier-corrected
+    and normalised), their positions ``pos`` (samples) and the loop's phases ``theta`` (rad).
+
+    The total carrier phase a symbol was turned by is ``T = phase0 + dphase (pos - sample0) + theta`` (the oscillator
+    over the block, linear, plus the loop); with the decision ``d = sign(Re y)``: ``out[0:2]`` = ``sum y d`` (re,
+    im), ``out[2:4]`` = ``sum y d exp(2 j T)``, ``out[4:6]`` = ``sum exp(2 j T)``, ``out[6]`` = ``sum |y|^2``,
+    ``out[7]`` = the symbols (all of them: the caller passes the slice it wants).
+    """
+    dr = 0.0
+    di = 0.0
+    mr = 0.0
+    mi = 0.0
+    er = 0.0
+    ei = 0.0
+    pw = 0.0
+    n = sym.shape[0]
+    for k in range(n):
+        t = 2.0 * (phase0 + dphase * (pos[k] - sample0) + theta[k])
+        c = math.cos(t)
+        s = math.sin(t)
+        yr = float(sym[k].real)
+        yi = float(sym[k].imag)
+        if yr < 0.0:
+            yr = -yr
+            yi = -yi
+        dr += yr
+        di += yi
+        mr += yr * c - yi * s
+        mi += yr * s + yi * c
+        er += c
+        ei += s
+        pw += yr * yr + yi * yi
+    out[0] = dr
+    out[1] = di
+    out[2] = mr
+    out[3] = mi
+    out[4] = er
+    out[5] = ei
+    out[6] = pw
+    out[7] = n
