@@ -254,3 +254,17 @@ def rewritten_recording(sim, samples: np.ndarray, folder) -> Path:
     path = folder / Path(sim.meta_path).name
     path.write_text(json.dumps(meta))
     return path
+
+
+def imbalanced(x: np.ndarray, gain_db: float, phase_deg: float) -> np.ndarray:
+    """``x`` through a front end whose Q path is ``gain_db`` stronger and ``phase_deg`` off quadrature
+    (bench/bench_impairments.py's model): ``I + j g (sin(phi) I + cos(phi) Q)``."""
+    g, ph = 10.0 ** (gain_db / 20.0), math.radians(phase_deg)
+    return (x.real + 1j * g * (math.sin(ph) * x.real + math.cos(ph) * x.imag)).astype(np.complex64)
+
+
+def image_rejection_db(gain_db: float, phase_deg: float) -> float:
+    """The image rejection ratio (dB) of that front end: ``(1 + 2 g cos phi + g^2) / (1 - 2 g cos phi + g^2)``
+    (B. Razavi, RF Microelectronics, 2nd ed., sec. 4.2.5; from memory)."""
+    g, ph = 10.0 ** (gain_db / 20.0), math.radians(phase_deg)
+    return 10.0 * math.log10((1 + 2 * g * math.cos(ph) + g * g) / (1 - 2 * g * math.cos(ph) + g * g))

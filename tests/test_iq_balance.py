@@ -25,20 +25,6 @@ from pipeline.sim import simulate
 FS = 1e6
 
 
-def _imbalanced(x: np.ndarray, gain_db: float, phase_deg: float) -> np.ndarray:
-    """The Q path ``gain_db`` stronger and ``phase_deg`` off quadrature (bench_impairments' model)."""
-    g, ph = 10.0 ** (gain_db / 20.0), math.radians(phase_deg)
-    return (x.real + 1j * g * (math.sin(ph) * x.real + math.cos(ph) * x.imag)).astype(np.complex64)
-
-
-def _image_rejection_db(gain_db: float, phase_deg: float) -> float:
-    # image rejection ratio of a quadrature front end with amplitude ratio g and phase error phi:
-    # (1 + 2 g cos phi + g^2) / (1 - 2 g cos phi + g^2) (B. Razavi, RF Microelectronics, 2nd ed., sec. 4.2.5;
-    # from memory)
-    g, ph = 10.0 ** (gain_db / 20.0), math.radians(phase_deg)
-    return 10.0 * math.log10((1 + 2 * g * math.cos(ph) + g * g) / (1 - 2 * g * math.cos(ph) + g * g))
-
-
 def _qpsk_noise(rng, n: int) -> np.ndarray:
     s = ((rng.integers(0, 2, n) * 2 - 1) + 1j * (rng.integers(0, 2, n) * 2 - 1)) / math.sqrt(2)
     return s * np.exp(2j * np.pi * 0.0123 * np.arange(n)) + 0.5 * (rng.standard_normal(n) + 1j * rng.standard_normal(n))
@@ -63,7 +49,7 @@ def test_kernels_against_numpy():
 @pytest.mark.parametrize("gain_db,phase_deg", [(1.0, 5.0), (3.0, 15.0), (-2.0, -8.0), (0.5, 0.0)])
 def test_the_image_measured_as_theory_has_it_and_taken_out(gain_db, phase_deg):
     rng = np.random.default_rng(32)
-    x = _imbalanced(_qpsk_noise(rng, 32768 * 24), gain_db, phase_deg)
+    x = ds.imbalanced(_qpsk_noise(rng, 32768 * 24), gain_db, phase_deg)
     iq = IqBalance()
     for k in range(0, x.size, 32768):
         iq.update(x[k:k + 32768])
@@ -71,10 +57,10 @@ def test_the_image_measured_as_theory_has_it_and_taken_out(gain_db, phase_deg):
     assert iq.applied
     # within 4 standard deviations of the estimate, sqrt(2 / N) on |c| = 2 |rho| / (1 + |rho|^2) from N = 16 x 4096
     # samples (and more before the average turns exponential): 0.2 dB for an image 13 dB down, 1 dB at 31 dB
-    rho = 10.0 ** (-_image_rejection_db(gain_db, phase_deg) / 20.0)
+    rho = 10.0 ** (-ds.image_rejection_db(gain_db, phase_deg) / 20.0)
     c = 2.0 * rho / (1.0 + rho * rho)
     tol_db = 20.0 * math.log10(1.0 + 4.0 * math.sqrt(2.0 / (16 * 4096)) / c)
-    assert abs(-iq.image_db - _image_rejection_db(gain_db, phase_deg)) < tol_db
+    assert abs(-iq.image_db - ds.image_rejection_db(gain_db, phase_deg)) < tol_db
     # what is left of the image in the last block: the estimate's own noise (sqrt(2 / N) over 32768 samples)
     y = y - y.mean()
     assert abs(np.mean(y * y)) / np.mean(np.abs(y) ** 2) < 4.0 * math.sqrt(2.0 / y.size)
@@ -107,7 +93,7 @@ def test_symbol_errors_with_an_image_13_db_down_as_without_it(mod):
     rng = np.random.default_rng(33)
     w = ds.modulate(120_000, modulation=mod, esn0_db=2.0, carrier_offset_hz=900.0, clock_offset_ppm=20.0, rng=rng)
     a, _ = _demodulate(w.samples, mod)
-    b, d = _demodulate(_imbalanced(w.samples, 3.0, 15.0), mod)
+    b, d = _demodulate(ds.imbalanced(w.samples, 3.0, 15.0), mod)
     if mod == "qpsk":
         e0, n0, _ = ds.symbol_errors(a, w, mod, skip=4000)
         e1, n1, _ = ds.symbol_errors(b, w, mod, skip=4000)
@@ -115,7 +101,7 @@ def test_symbol_errors_with_an_image_13_db_down_as_without_it(mod):
         e0, n0 = ds.bit_errors_iq(a, w, skip=4000)
         e1, n1 = ds.bit_errors_iq(b, w, skip=4000)
     assert n1 > 100_000 and e1 / n1 < 1.05 * e0 / n0
-    assert abs(-d.stats.iq_image_db - _image_rejection_db(3.0, 15.0)) < 0.2
+    assert abs(-d.stats.iq_image_db - ds.image_rejection_db(3.0, 15.0)) < 0.2
 
 
 def test_mirror_sums_against_numpy():
@@ -142,7 +128,7 @@ def test_bpsk_near_0_hz_is_left_alone():
     # nothing is touched
     rng = np.random.default_rng(34)
     w = ds.modulate(40_000, modulation="bpsk", esn0_db=6.0, carrier_offset_hz=3.0, rng=rng)
-    _, d = _demodulate(_imbalanced(w.samples, 3.0, 15.0), "bpsk")
+    _, d = _demodulate(ds.imbalanced(w.samples, 3.0, 15.0), "bpsk")
     assert d.stats.iq_image_db is None and d.stats.carrier_locked_symbols > 0 and d._image._blocks == 0
 
 
@@ -156,7 +142,7 @@ def test_bpsk_symbol_errors_with_an_image_13_db_down_as_without_it(offset_hz):
     w = ds.modulate(360_000, modulation="bpsk", esn0_db=2.0, carrier_offset_hz=offset_hz, clock_offset_ppm=20.0,
                     rng=rng)
     a, _ = _demodulate(w.samples, "bpsk")
-    b, d = _demodulate(_imbalanced(w.samples, 3.0, 15.0), "bpsk")
+    b, d = _demodulate(ds.imbalanced(w.samples, 3.0, 15.0), "bpsk")
     e0, n0, _ = ds.symbol_errors(a, w, "bpsk", skip=180_000)
     e1, n1, _ = ds.symbol_errors(b, w, "bpsk", skip=180_000)
     assert n1 > 175_000 and e1 <= 1.01 * e0
@@ -164,7 +150,7 @@ def test_bpsk_symbol_errors_with_an_image_13_db_down_as_without_it(offset_hz):
     # |rho| = 0.22, 0.35 dB), and low by the decisions' errors at most
     im = d._image
     std = 1.0 / (abs(im._dir) / im._len * math.sqrt(im._n_eff))
-    r = 10.0 ** (-_image_rejection_db(3.0, 15.0) / 20.0)
+    r = 10.0 ** (-ds.image_rejection_db(3.0, 15.0) / 20.0)
     assert abs(abs(im.rho) - r) < 4.0 * std
 
 
@@ -183,9 +169,9 @@ def test_qpsk_link_with_an_imbalanced_front_end_and_the_report(tmp_path):
     prof = profile_from_dict(QPSK_LINK)
     sim = simulate(prof, tmp_path / "clean", seconds=0.4, seed=9)
     x = np.fromfile(sim.data_path, dtype=np.complex64)
-    got = decode(ds.rewritten_recording(sim, _imbalanced(x, 3.0, 15.0), tmp_path / "iq"), prof, tmp_path / "out")
+    got = decode(ds.rewritten_recording(sim, ds.imbalanced(x, 3.0, 15.0), tmp_path / "iq"), prof, tmp_path / "out")
     assert got.packets == sim.num_packets and got.frames_failed == 0
     report = json.loads((tmp_path / "out" / "report.json").read_text())
-    assert abs(-report["demod"]["iq_image_removed_db"] - _image_rejection_db(3.0, 15.0)) < 0.3
+    assert abs(-report["demod"]["iq_image_removed_db"] - ds.image_rejection_db(3.0, 15.0)) < 0.3
     assert "mirror image" in report["pass"]["iq_note"]
     assert "I/Q balance:" in (tmp_path / "out" / "report.html").read_text()

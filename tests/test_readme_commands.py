@@ -354,8 +354,9 @@ def written(tmp_path_factory):
     parser = FrameParser(frames=aos.with_changes(frames={"fhec": True}).frames)
     cadu = SimpleNamespace(position=0.0, asm_errors=0, inverted=False, flywheel=False)
     fhec = parser.process(SimpleNamespace(frame=bytes(892), status="ok", rs_corrected=(), cadu=cadu)).as_dict()
-    # a residual-carrier track (Pc/N0) with jumps taken, a Doppler check that found the spectrum inverted and clipped
-    # rails, through pipeline.report's own builder: the pass keys only such runs have
+    # a residual-carrier track (Pc/N0) with jumps taken, a Doppler check that found the spectrum inverted, clipped
+    # rails and frames enough for the symbol rate, through pipeline.report's own builder: the pass keys only such
+    # runs have
     pos = np.arange(100.0, 3001.0, 100.0)
     track = {"position": pos, "esn0_db": np.full(pos.size, 3.0), "carrier_hz": np.full(pos.size, 10.0),
              "locked": np.ones(pos.size, bool), "cn0_dbhz": np.full(pos.size, 40.0)}
@@ -363,6 +364,10 @@ def written(tmp_path_factory):
                      elapsed_s=1.0, position_rate_hz=1000.0, track=track,
                      doppler_check={"note": "residuals flat only with the sign flipped", "rows": pos.size},
                      clip_checked=8192, clipped_values=2000,
+                     # 20 verified frames 10 ppm further apart than the demo link's CADU: a symbol rate measured
+                     frame_log={"position": 50.0 + np.arange(20) * demo.samples_per_cadu(1000.0) * (1 + 1e-5),
+                                "statuses": ["ok"], "status": np.zeros(20, np.int8),
+                                "rs_corrected": np.zeros(20, np.int16), "asm_errors": np.zeros(20, np.int8)},
                      demod_stats=DemodStats(tones_hz=[12345.6], iq_image_db=-13.3, timing_jumps=1, phase_jumps=2,
                                             carrier_moved=1))
     built, _ = build_report(facts)

@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 from types import SimpleNamespace
 
+import demod_signals as ds
 import numpy as np
 import pytest
 import residual_signals as rs
@@ -27,20 +28,6 @@ from pipeline.profile import LinkSection, ReceiverSection
 RATE, SPS, INDEX = 2000.0, 64, 1.2
 FS = RATE * SPS
 N_SYMBOLS = 16_000
-
-
-def _imbalanced(x: np.ndarray, gain_db: float, phase_deg: float) -> np.ndarray:
-    """The Q path ``gain_db`` stronger and ``phase_deg`` off quadrature (bench_impairments' model)."""
-    g, ph = 10.0 ** (gain_db / 20.0), math.radians(phase_deg)
-    return (x.real + 1j * g * (math.sin(ph) * x.real + math.cos(ph) * x.imag)).astype(np.complex64)
-
-
-def _image_rejection_db(gain_db: float, phase_deg: float) -> float:
-    # image rejection ratio of a quadrature front end with amplitude ratio g and phase error phi:
-    # (1 + 2 g cos phi + g^2) / (1 - 2 g cos phi + g^2) (B. Razavi, RF Microelectronics, 2nd ed., sec. 4.2.5;
-    # from memory)
-    g, ph = 10.0 ** (gain_db / 20.0), math.radians(phase_deg)
-    return 10.0 * math.log10((1 + 2 * g * math.cos(ph) + g * g) / (1 - 2 * g * math.cos(ph) + g * g))
 
 
 def _signal(esn0_db: float, *, carrier_hz: float = 700.0, seed: int = 3, wave: str = "nrz"):
@@ -128,7 +115,7 @@ def test_sums_brought_back_to_the_recorded_samples():
 @pytest.mark.parametrize("gain_db,phase_deg", [(1.0, 5.0), (3.0, 15.0), (-2.0, -8.0)])
 def test_the_image_measured_as_theory_has_it_and_taken_out(gain_db, phase_deg):
     sig = _signal(6.0)
-    y = _imbalanced(sig.samples, gain_db, phase_deg)
+    y = ds.imbalanced(sig.samples, gain_db, phase_deg)
     _, _, applied, demod = _receive(y)
     im = demod._image
     # (the report's figure is the image taken out of the last block: the estimate before that block's sums)
@@ -136,7 +123,7 @@ def test_the_image_measured_as_theory_has_it_and_taken_out(gain_db, phase_deg):
     # within 4 of the estimate's standard deviations (MirrorLine Notes: at most 1 / (a sqrt(N)))
     a = abs(im._dir) / im._len
     std = 1.0 / (a * math.sqrt(im._n_eff))
-    r = 10.0 ** (-_image_rejection_db(gain_db, phase_deg) / 20.0)
+    r = 10.0 ** (-ds.image_rejection_db(gain_db, phase_deg) / 20.0)
     assert abs(abs(im.rho) - r) < 4.0 * std
     # the image left in the corrected samples, on the transmitter's own carrier phase: the estimate's noise
     z = y.astype(np.complex128) - im.rho * np.conj(y.astype(np.complex128))
@@ -160,14 +147,14 @@ def test_soft_symbols_with_an_image_13_db_down_as_without_it(esn0_db):
     # 12800 at 0 dB)
     sig = _signal(esn0_db)
     balanced = _soft_snr_db(sig, *_receive(sig.samples)[:2])
-    soft, pos, applied, _ = _receive(_imbalanced(sig.samples, 3.0, 15.0))
+    soft, pos, applied, _ = _receive(ds.imbalanced(sig.samples, 3.0, 15.0))
     assert applied[-1] and pos.size > 0.95 * N_SYMBOLS
     assert _soft_snr_db(sig, soft, pos) > balanced - 0.12
 
 
 def test_chunking_does_not_change_the_symbols():
     sig = _signal(6.0)
-    y = _imbalanced(sig.samples, 3.0, 15.0)
+    y = ds.imbalanced(sig.samples, 3.0, 15.0)
     a = _receive(y)
     b = _receive(y, step=12_345)
     np.testing.assert_array_equal(a[0], b[0])
@@ -177,7 +164,7 @@ def test_chunking_does_not_change_the_symbols():
 def test_a_carrier_at_0_hz_is_left_alone():
     # at 0 Hz the carrier and its mirror are one line: no block is measured, nothing is taken out
     sig = _signal(6.0, carrier_hz=0.0)
-    _, _, applied, demod = _receive(_imbalanced(sig.samples, 3.0, 15.0))
+    _, _, applied, demod = _receive(ds.imbalanced(sig.samples, 3.0, 15.0))
     assert not any(applied) and demod._image._blocks == 0 and demod._cs[0]["locked"]
 
 
@@ -186,7 +173,6 @@ def test_pcm_pm_link_with_an_imbalanced_front_end_and_the_report(tmp_path):
     # names the image taken out, at the level theory gives
     import json
 
-    import demod_signals as ds
     from test_residual_end_to_end import CASES, _profile
 
     from pipeline import decode
@@ -195,9 +181,9 @@ def test_pcm_pm_link_with_an_imbalanced_front_end_and_the_report(tmp_path):
     prof = _profile(**{**CASES["psk-square-conv"], "seconds": 4.0})
     sim = simulate(prof, tmp_path / "clean")
     x = np.fromfile(sim.data_path, dtype=np.complex64)
-    got = decode(ds.rewritten_recording(sim, _imbalanced(x, 3.0, 15.0), tmp_path / "iq"), prof, tmp_path / "out")
+    got = decode(ds.rewritten_recording(sim, ds.imbalanced(x, 3.0, 15.0), tmp_path / "iq"), prof, tmp_path / "out")
     assert got.packets == sim.num_packets and got.frames_failed == 0
     report = json.loads((tmp_path / "out" / "report.json").read_text())
-    assert abs(-report["demod"]["iq_image_removed_db"] - _image_rejection_db(3.0, 15.0)) < 0.5
+    assert abs(-report["demod"]["iq_image_removed_db"] - ds.image_rejection_db(3.0, 15.0)) < 0.5
     assert "mirror image" in report["pass"]["iq_note"]
     assert "I/Q balance:" in (tmp_path / "out" / "report.html").read_text()
