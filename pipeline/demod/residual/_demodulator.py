@@ -1376,7 +1376,7 @@ class ResidualCarrierDemodulator:
             var_re = max(st["sum_re2"] / cnt - mean_re * mean_re, 1e-30)
             if settled and moved == 0.0 and not went and self._carrier_went(mean_re, var_re, cnt):
                 went = True
-                self._went_hz = float(st["frequency"]) * fs / (2.0 * math.pi)
+                self._went_hz = omega0 * fs / (2.0 * math.pi)  # (where it was when the block began)
                 lk[:] = 0  # (the lock detector still holds: its decisions lag by up to two intervals)
                 st["locked"] = 0
             if settled and st["locked"] and moved == 0.0 and \
