@@ -8,6 +8,8 @@ the report; the unit checks use marker positions made up here.
 
 from __future__ import annotations
 
+import math
+
 import demod_signals as ds
 import numpy as np
 import pytest
@@ -67,3 +69,40 @@ def test_the_report_gives_the_transmitters_symbol_rate(tmp_path, ppm):
     assert f"{demod['symbol_rate_offset_ppm']:+.2f} ppm from the profile's 60,000" in summary.report["pass"][
         "symbol_rate_note"]
     assert "Symbol rate:" in (out / "report.html").read_text()
+
+
+def test_with_an_orbit_the_dopplers_part_is_taken_out(tmp_path):
+    # the transmitter's symbol clock exact, its symbols reaching the station compressed by the light time's change
+    # (orbit_truth.light_time_s: sgp4 and erfa, never pipeline.orbit) on the LEO pass 120 s before its highest point,
+    # where the range shrinks at about 5.4 km/s: the measured offset is the Doppler's (about +18 ppm), and less the
+    # orbit's predicted Doppler (decode --tle) it is the symbol clock's, 0
+    import orbit_truth
+    from sgp4.api import WGS72, Satrec
+
+    bits, packets = _frames_and_packets()
+    l1, l2 = orbit_truth.leo_tle()
+    sat = Satrec.twoline2rv(l1, l2, WGS72)
+    station = orbit_truth.station_ecef_km(pass_sim.LAT, pass_sim.LON, pass_sim.ALT_M)
+    from_culmination_s = -120.0
+    t0 = round(orbit_truth.culmination_posix_s(sat, station) + from_culmination_s - pass_sim.SECONDS / 2)
+    fs, rs = pass_sim.FS, pass_sim.RS
+    # receive times on a grid, their transmit times t - (tau(t) - tau(0)); the symbols' transmit times mapped back
+    grid = np.arange(0.0, bits.size / rs + 1.0, 0.01)
+    tau = np.array([orbit_truth.light_time_s(sat, t0 + g, station) for g in grid])
+    centres = np.interp((20 + np.arange(bits.size) + 0.37) / rs, grid - (tau - tau[0]), grid) * fs
+    n = int(math.ceil(centres[-1] + 40 * fs / rs))
+    s, e_pulse = ds._add_pulses(n, centres, (1.0 - 2.0 * bits).astype(np.complex128), fs / rs, "rrc", 0.5, 16)
+    rng = np.random.default_rng(6)
+    sigma = math.sqrt(e_pulse / 10 ** (12.0 / 10) / 2)
+    baseband = (s + sigma * (rng.standard_normal(n) + 1j * rng.standard_normal(n))).astype(np.complex64)
+    link = f'modulation = "bpsk"\nsymbol_rate = {rs}\nline_code = "nrz-l"\ndownlink_frequency_hz = {pass_sim.F_CARRIER}'
+    _, summary, _ = pass_sim._decode_pass(tmp_path, baseband=baseband, link=link,
+                                          from_culmination_s=from_culmination_s)
+    assert summary.packets == len(packets)
+    demod = summary.report["demod"]
+    compression = -(tau[-1] - tau[0]) / (grid[-1] - grid[0]) * 1e6  # the mean -d tau / dt, ppm
+    assert 15.0 < demod["symbol_rate_offset_ppm"] < 21.0
+    assert abs(demod["symbol_rate_offset_ppm"] - compression) < 0.5  # (the frames' span is inside the grid's)
+    assert abs(demod["symbol_rate_doppler_ppm"] - demod["symbol_rate_offset_ppm"]) < 0.05
+    assert abs(demod["symbol_rate_offset_less_doppler_ppm"]) < 0.05
+    assert "less the orbit's predicted Doppler" in summary.report["pass"]["symbol_rate_note"]

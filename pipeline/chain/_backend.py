@@ -27,7 +27,8 @@ MAX_FRAME_LOG = 1 << 20
 #: Track points above which :class:`TrackLog` keeps every other one of its older half.
 MAX_TRACK_LOG = 1 << 18
 
-_ALIGNED = ("position", "carrier_hz", "esn0_db", "carrier_locked", "symbol_locked", "residual_hz", "cn0_dbhz")
+_ALIGNED = ("position", "carrier_hz", "esn0_db", "carrier_locked", "symbol_locked", "residual_hz", "predicted_hz",
+            "cn0_dbhz")
 
 
 @dataclass
@@ -46,6 +47,7 @@ class TrackLog:
     symbol_locked: list = field(default_factory=list)
     modulation_index_rad: list = field(default_factory=list)
     residual_hz: list = field(default_factory=list)  # measured - predicted Doppler (--tle/--oem), NaN where none
+    predicted_hz: list = field(default_factory=list)  # the predicted one-way Doppler (--tle/--oem), NaN where none
     cn0_dbhz: list = field(default_factory=list)  # residual carrier's Pc/N0 (dB-Hz), NaN where none
 
     def append(self, tp) -> None:
@@ -81,6 +83,8 @@ class TrackLog:
                "esn0_db": np.asarray(self.esn0_db), "locked": locked}
         if self.residual_hz:
             out["residual_hz"] = np.asarray(self.residual_hz, np.float64)
+        if self.predicted_hz:
+            out["predicted_hz"] = np.asarray(self.predicted_hz, np.float64)
         cn0 = np.asarray(self.cn0_dbhz, np.float64)
         if np.isfinite(cn0).any():
             out["cn0_dbhz"] = cn0
@@ -248,6 +252,8 @@ class BackEnd:
                 rows = self.doppler_check.process(rows)
                 self.track.residual_hz.extend(math.nan if r["residual_hz"] is None else float(r["residual_hz"])
                                               for r in rows)
+                self.track.predicted_hz.extend(math.nan if r["predicted_hz"] is None else float(r["predicted_hz"])
+                                               for r in rows)
             self.sinks.doppler(rows)
         for tp in track:
             self.track.append(tp)

@@ -354,7 +354,10 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fr
         verdict["symbol_rate_note"] = (
             f"{rate[0]:,.2f} symbols per second from the spacing of the frame markers over {rate[2]} CADUs, "
             f"{rate[1]:+.2f} ppm from the profile's {f.profile.link.symbol_rate_baud:,.0f}: the spacecraft's symbol "
-            "clock, the Doppler (the range rate over the speed of light) and the recording's sample clock together")
+            "clock, the Doppler (the range rate over the speed of light) and the recording's sample clock together"
+            + ("" if rate[3] is None else
+               f"; less the orbit's predicted Doppler ({rate[3]:+.2f} ppm), {_less_doppler_ppm(rate[1], rate[3]):+.2f}"
+               " ppm: the spacecraft's symbol clock and the recording's sample clock"))
     clipped = _clipped_fraction(f)
     if clipped:
         verdict["clipping_note"] = (
@@ -430,18 +433,33 @@ def measured_symbol_rate(position: np.ndarray, marker_found: np.ndarray, cadu_sa
     return float(np.sum(dn * (p - p_mean[run])) / sxx), cadus
 
 
-def _symbol_rate(f: RunFacts, frames: _FrameArrays, clock) -> tuple[float, float, int] | None:
+def _symbol_rate(f: RunFacts, frames: _FrameArrays, clock) -> tuple[float, float, int, float | None] | None:
     """IQ input: the symbol rate measured on the frame markers (:func:`measured_symbol_rate`), its offset from the
-    profile's (ppm) and the CADUs it spans; None otherwise."""
+    profile's (ppm), the CADUs it spans, and with an orbit the Doppler's part of that offset (ppm: the mean predicted
+    one-way Doppler over the markers' span over the downlink frequency, ``-v / c``; None without); None otherwise."""
     if f.input_kind != "iq" or not frames.position.size:
         return None
     cadu = f.profile.samples_per_cadu(clock.rate)
     symbol = clock.rate / f.profile.link.symbol_rate_baud
-    got = measured_symbol_rate(frames.position, (frames.category <= 1) & ~frames.flywheel, cadu, symbol)
+    found = (frames.category <= 1) & ~frames.flywheel
+    got = measured_symbol_rate(frames.position, found, cadu, symbol)
     if got is None:
         return None
     ratio = cadu / got[0]
-    return f.profile.link.symbol_rate_baud * ratio, (ratio - 1.0) * 1e6, got[1]
+    doppler_ppm = None
+    predicted = np.asarray(f.track.get("predicted_hz", ()), dtype=np.float64)
+    tpos = np.asarray(f.track.get("position", ()), dtype=np.float64)
+    if predicted.size == tpos.size and predicted.size and f.downlink_frequency_hz:
+        p = frames.position[found]
+        inside = (tpos >= p.min()) & (tpos <= p.max()) & np.isfinite(predicted)
+        if inside.any():
+            doppler_ppm = float(np.mean(predicted[inside])) / float(f.downlink_frequency_hz) * 1e6
+    return f.profile.link.symbol_rate_baud * ratio, (ratio - 1.0) * 1e6, got[1], doppler_ppm
+
+
+def _less_doppler_ppm(offset_ppm: float, doppler_ppm: float) -> float:
+    """The offset with the Doppler's time compression divided out (ppm)."""
+    return ((1.0 + offset_ppm * 1e-6) / (1.0 + doppler_ppm * 1e-6) - 1.0) * 1e6
 
 
 def _frames_while_locked(fpos: np.ndarray, tpos: np.ndarray, locked: np.ndarray) -> np.ndarray:
@@ -513,6 +531,9 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         demod["symbol_rate_measured_baud"] = round(rate[0], 4)
         demod["symbol_rate_offset_ppm"] = round(rate[1], 3)
         demod["symbol_rate_cadus"] = rate[2]
+        if rate[3] is not None:
+            demod["symbol_rate_doppler_ppm"] = round(rate[3], 3)
+            demod["symbol_rate_offset_less_doppler_ppm"] = round(_less_doppler_ppm(rate[1], rate[3]), 3)
     if f.downlink_frequency_hz:
         demod["downlink_frequency_hz"] = f.downlink_frequency_hz
     if iq:
