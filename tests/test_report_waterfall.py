@@ -105,7 +105,8 @@ def test_track_log_is_bounded_and_keeps_its_newest_points_exact(monkeypatch):
     monkeypatch.setattr(backend, "MAX_TRACK_LOG", 64)
     log = backend.TrackLog()
     for i in range(1000):
-        log.residual_hz.append(float(i) / 10)  # as process_track extends it, one per track point
+        log.residual_hz.append(float(i) / 10)  # as process_track extends them, one per track point
+        log.predicted_hz.append(float(i) / 100)
         log.append(SimpleNamespace(position=100.0 * i, carrier_offset_hz=float(i), esn0_db=float(i % 50),
                                    carrier_locked=True, symbol_locked=i % 2 == 0, modulation_index_rad=1.2))
     a = log.arrays()
@@ -116,6 +117,7 @@ def test_track_log_is_bounded_and_keeps_its_newest_points_exact(monkeypatch):
     # every entry still holds its own track point's values
     np.testing.assert_array_equal(a["carrier_hz"] * 100.0, a["position"])
     np.testing.assert_array_equal(a["residual_hz"] * 1000.0, a["position"])
+    np.testing.assert_array_equal(a["predicted_hz"] * 10000.0, a["position"])
     # the newest 32 points are all there, so a frame's Es/N0 lookup near the end is exact
     assert a["position"][-32:].tolist() == [100.0 * i for i in range(968, 1000)]
     assert log.esn0_at(99_950.0) == 49.0 and log.esn0_at(96_850.0) == 18.0
