@@ -102,6 +102,8 @@ def test_residual_recording_decodes_every_packet(tmp_path, case):
     assert verdict["carrier_cn0_dbhz_mean"] == pytest.approx(want_cn0, abs=0.5)
     assert verdict["carrier_cn0_dbhz_min"] <= verdict["carrier_cn0_dbhz_mean"]
     assert "Residual carrier Pc/N0 while locked" in (out / "report.html").read_text()
+    # the modulation index the receiver measured (carrier against data amplitude), the simulated one
+    assert report["demod"]["modulation_index_rad_median"] == pytest.approx(m, abs=0.05)
     # the SigMF core:frequency carries the profile's downlink frequency
     meta = json.loads(sim.meta_path.read_text())
     assert meta["captures"][0]["core:frequency"] == pytest.approx(8.42e9)

@@ -526,6 +526,8 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
         **({"phase_jumps": ds.phase_jumps} if ds.phase_jumps else {}),
         **({"carrier_moves": ds.carrier_moved} if ds.carrier_moved else {}),
     }
+    if f.modulation_index_rad:
+        demod["modulation_index_rad_median"] = round(float(np.median(f.modulation_index_rad)), 4)
     rate = _symbol_rate(f, frames, clock)
     if rate is not None:
         demod["symbol_rate_measured_baud"] = round(rate[0], 4)
