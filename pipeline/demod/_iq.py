@@ -30,6 +30,18 @@ IQ_WEIGHT = 1.0 / 16.0
 IQ_MIN_RATIO = 0.01
 
 
+def _image_db(rho: complex) -> float:
+    """``20 log10 |rho|``: the image's level under the signal (-inf for no estimate)."""
+    return 20.0 * math.log10(abs(rho)) if rho else float("-inf")
+
+
+def _without_image(block: np.ndarray, rho: complex) -> np.ndarray:
+    """A copy of ``block`` with the image ``rho conj(x)`` taken out (:func:`~pipeline.demod._kernels.remove_image`)."""
+    out = np.array(block, dtype=np.complex64)
+    remove_image(out.view(np.float32), float(rho.real), float(rho.imag))
+    return out
+
+
 class IqBalance:
     """The image ratio ``rho`` estimated block by block and, once it stands clear of its own noise, taken out.
 
@@ -62,7 +74,7 @@ class IqBalance:
     @property
     def image_db(self) -> float:
         """``20 log10 |rho|``: the image's level under the signal (-inf before an estimate)."""
-        return 20.0 * math.log10(abs(self.rho)) if self.rho else float("-inf")
+        return _image_db(self.rho)
 
     def update(self, block: np.ndarray) -> None:
         """Take a block (complex64, contiguous, as recorded) into the estimate."""
@@ -94,11 +106,7 @@ class IqBalance:
         clear of its noise."""
         a = abs(self._c)
         self.applied = self._n_eff > 0 and a > IQ_MIN_RATIO and a > 5.0 * math.sqrt(2.0 / self._n_eff)
-        if not self.applied:
-            return block
-        out = np.array(block, dtype=np.complex64)
-        remove_image(out.view(np.float32), float(self.rho.real), float(self.rho.imag))
-        return out
+        return _without_image(block, self.rho) if self.applied else block
 
 
 class MirrorLine:
@@ -150,7 +158,7 @@ class MirrorLine:
     @property
     def image_db(self) -> float:
         """``20 log10 |rho|``: the image's level under the signal (-inf before an estimate)."""
-        return 20.0 * math.log10(abs(self.rho)) if self.rho else float("-inf")
+        return _image_db(self.rho)
 
     def significant(self) -> bool:
         """Whether the estimate stands clear of its noise (and of an image too small to matter)."""
@@ -163,11 +171,7 @@ class MirrorLine:
         clear of its noise; the sums of the next :meth:`update` are taken to be over what this returned."""
         self.applied = self.significant()
         self._used = self.rho if self.applied else 0j
-        if not self.applied:
-            return block
-        out = np.array(block, dtype=np.complex64)
-        remove_image(out.view(np.float32), float(self._used.real), float(self._used.imag))
-        return out
+        return _without_image(block, self._used) if self.applied else block
 
     def update(self, n: int, direct: complex, mirror: complex, double: complex, power: float = 0.0) -> None:
         """One locked block's sums over the ``n`` samples :meth:`apply` returned: ``direct = sum x e^{-j theta}``,

@@ -8,11 +8,11 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from types import SimpleNamespace
 from typing import Any
 
 import numpy as np
 
-from pipeline.demod import DemodStats
 from pipeline.report._plots import PlotData
 from pipeline.report._quality import bit_error_estimate, bit_error_series
 
@@ -42,8 +42,9 @@ class RunFacts:
         Length of the input and wall time of the decode.
     samples, nonfinite, channel_symbols, locked_symbols, clip_checked, clipped_values : int
         Front-end counts (see :class:`pipeline.chain.FrontCounts`).
-    demod_stats : DemodStats or None
-        The receiver's counters (:class:`pipeline.demod.DemodStats`; None for symbol input): the report takes the
+    demod_stats : object or None
+        The receiver's counters (a :class:`pipeline.demod.DemodStats`, read by its field names: the report room does
+        not import the receiver's; None for symbol input): the report takes the
         CW tones it took out (``tones_hz``, the recording's frame), the I/Q image it took out (``iq_image_db``),
         the jumps of the symbols' timing and the carrier's phase the residual-carrier receiver took
         (``timing_jumps``, ``phase_jumps``: samples lost by the recorder, most likely) and the carrier searches
@@ -93,7 +94,7 @@ class RunFacts:
     nonfinite: int = 0
     clip_checked: int = 0
     clipped_values: int = 0
-    demod_stats: DemodStats | None = None
+    demod_stats: Any = None
     channel_symbols: int = 0
     locked_symbols: int = 0
     stage_stats: dict = field(default_factory=dict)
@@ -269,7 +270,12 @@ def _clcw_summary(frames: _FrameArrays) -> dict | None:
     }
 
 
-def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, frames: _FrameArrays, ber) -> dict:
+#: What the report reads of a run without receiver counters (symbol input): no tones, image or jumps.
+_NO_DEMOD_STATS = SimpleNamespace(tones_hz=[], iq_image_db=None, timing_jumps=0, phase_jumps=0, carrier_moved=0)
+
+
+def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, frames: _FrameArrays, ber,
+                  rate) -> dict:
     """The ``pass`` object: what an operator reads first."""
     p = f.profile
     fpos = frames.position
@@ -328,7 +334,7 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fr
         verdict["carrier_cn0_dbhz_min"] = _round(np.min(good_cn0), 2) if good_cn0.size else None
     if f.doppler_check and f.doppler_check.get("note"):
         verdict["doppler_note"] = f.doppler_check["note"]
-    d = f.demod_stats or DemodStats()
+    d = f.demod_stats or _NO_DEMOD_STATS
     if d.tones_hz:
         listed = ", ".join(f"{t:+.0f} Hz" for t in sorted(d.tones_hz))
         verdict["tones_note"] = (f"CW tone{'s' if len(d.tones_hz) > 1 else ''} at {listed} (a spur or an interferer in "
@@ -349,7 +355,6 @@ def _pass_verdict(f: RunFacts, *, tpos, esn0, carrier, usable, locked, clock, fr
         verdict["jumps_note"] = (f"{', '.join(what[:-1]) + ' and ' if len(what) > 1 else ''}{what[-1]} "
                                  f"({'; '.join(why)}); the receiver took each at once, and the frames around it "
                                  "are lost")
-    rate = _symbol_rate(f, frames, clock)
     if rate is not None:
         verdict["symbol_rate_note"] = (
             f"{rate[0]:,.2f} symbols per second from the spacing of the frame markers over {rate[2]} CADUs, "
@@ -510,7 +515,8 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
 
     lock_fraction = f.locked_symbols / f.channel_symbols if iq and f.channel_symbols else None
     good_esn0 = esn0[usable & np.isfinite(esn0)]
-    ds = f.demod_stats or DemodStats()
+    ds = f.demod_stats or _NO_DEMOD_STATS
+    rate = _symbol_rate(f, frames, clock)
     demod = {
         "input": f.input_kind,
         "lock_fraction": None if lock_fraction is None else round(lock_fraction, 4),
@@ -528,7 +534,6 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
     }
     if f.modulation_index_rad:
         demod["modulation_index_rad_median"] = round(float(np.median(f.modulation_index_rad)), 4)
-    rate = _symbol_rate(f, frames, clock)
     if rate is not None:
         demod["symbol_rate_measured_baud"] = round(rate[0], 4)
         demod["symbol_rate_offset_ppm"] = round(rate[1], 3)
@@ -556,7 +561,7 @@ def build_report(f: RunFacts) -> tuple[dict, PlotData]:
     report: dict = {
         "schema_version": SCHEMA_VERSION,
         "pass": _pass_verdict(f, tpos=tpos, esn0=esn0, carrier=carrier, usable=usable, locked=locked, clock=clock,
-                              frames=frames, ber=ber),
+                              frames=frames, ber=ber, rate=rate),
         "bit_error_rate": None if ber is None else {
             **ber.as_dict(),
             "estimator": ("Reed-Solomon: p = 1 - (1 - s/N)^(1/8) from s octets corrected among N received, "

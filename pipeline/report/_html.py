@@ -292,6 +292,11 @@ def _sentence(text: Any) -> str:
     return f"ERT (Earth-received time): {text}{'' if text.endswith('.') else '.'}"
 
 
+#: The verdict's notes (``pass`` keys) and their labels on the page, in the page's order.
+_VERDICT_NOTES = (("doppler_note", "Doppler check"), ("tones_note", "Interference"), ("iq_note", "I/Q balance"),
+                  ("symbol_rate_note", "Symbol rate"), ("jumps_note", "Jumps"), ("clipping_note", "Clipping"))
+
+
 def _verdict_html(v: dict, ber: dict | None, anchor: str) -> str:
     ok, failed, missing = v.get("frames_ok"), v.get("frames_failed"), v.get("frames_missing")
     packets, pk_missing = v.get("packets"), v.get("packets_missing")
@@ -335,26 +340,14 @@ def _verdict_html(v: dict, ber: dict | None, anchor: str) -> str:
     time_txt = ("Time is known: ERT and the times above are UTC. " if known else
                 "Time is unknown: the recording carries no start time, so no ERT is given and times are seconds "
                 "from its start. ")
-    note = v.get("doppler_note")
-    if note and cls == "":
+    # the verdict's notes, each a line under its label when the run has it; a Doppler note or clipping makes the
+    # verdict a warning
+    if cls == "" and v.get("doppler_note"):
         cls = "warn"
-    note_html = f'<p class="time"><strong>Doppler check:</strong> {_esc(note)}.</p>' if note else ""
-    tones = v.get("tones_note")
-    if tones:
-        note_html += f'<p class="time"><strong>Interference:</strong> {_esc(tones)}.</p>'
-    iq = v.get("iq_note")
-    if iq:
-        note_html += f'<p class="time"><strong>I/Q balance:</strong> {_esc(iq)}.</p>'
-    rate = v.get("symbol_rate_note")
-    if rate:
-        note_html += f'<p class="time"><strong>Symbol rate:</strong> {_esc(rate)}.</p>'
-    moved = v.get("jumps_note")
-    if moved:
-        note_html += f'<p class="time"><strong>Jumps:</strong> {_esc(moved)}.</p>'
-    clip = v.get("clipping_note")
-    if clip:
+    if v.get("clipping_note"):
         cls = cls or "warn"
-        note_html += f'<p class="time"><strong>Clipping:</strong> {_esc(clip)}.</p>'
+    note_html = "".join(f'<p class="time"><strong>{label}:</strong> {_esc(v[key])}.</p>'
+                        for key, label in _VERDICT_NOTES if v.get(key))
     return (f'<section id="{anchor}" class="verdict {cls}"><h2>Verdict</h2>'
             f'<p class="headline">{headline}</p><dl class="cards">{body}</dl>'
             f'<p class="time">{_esc(time_txt)}{_esc(_sentence(v.get("ert_definition")))}</p>{note_html}</section>')
