@@ -36,7 +36,9 @@ def test_the_spacing_is_the_sum_over_the_kept_pairs():
     # the pairs across the insertion and the slip are left out: 199 CADUs less 2
     assert cadus == 197
     # a straight-line fit through three runs of about 65 markers with 0.05 samples of jitter each: a slope error
-    # of 0.05 sqrt(12 / (3 65^3)) = 5.5e-5 samples per CADU (its standard deviation), here within 4 of them
+    # of 0.05 sqrt(12 / (3 65^3)) = 5.5e-5 samples per CADU (its standard deviation), here within 4 of them (a
+    # least-squares slope's variance sigma^2 / sum (n - mean n)^2, about 12 sigma^2 / N^3 per run of N: N. R. Draper,
+    # H. Smith, Applied Regression Analysis, ch. 1; from memory)
     assert spacing == pytest.approx(true, abs=4 * 0.05 * np.sqrt(12 / (3 * 65 ** 3)))
 
 
