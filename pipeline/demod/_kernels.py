@@ -1249,7 +1249,7 @@ def track_locked(mf, base, t_limit, params, mod_code, third_order, state, c_tabl
     e_c = st["b_ec"]
     e_t = st["b_et"]
     flags = clock + 2 * slock
-    trk = 1
+    trk = st["clock"]  # 1 here (locked); an int64 like track_each's, so close_interval compiles once
     g_c = 1.0 / kdc if soft_on else inv_amp / kdc
     g_t = inv_amp * inv_amp * inv_kd
     t_scale = st["t_scale"]
