@@ -59,7 +59,7 @@ def kernel_cache_cold() -> bool:
         from pipeline.demod import _kernels as demod_kernels
         from pipeline.fec import _kernels as fec_kernels
 
-        for kernel in (demod_kernels.track_symbols, fec_kernels.viterbi_block_kernel, fec_kernels.rs_decode_kernel):
+        for kernel in (demod_kernels.track_each, fec_kernels.viterbi_block_kernel, fec_kernels.rs_decode_kernel):
             if not os.path.exists(kernel._cache._cache_file._index_path):
                 return True
     except Exception:  # numba internals are not an API: never fail a decode over a notice

@@ -768,7 +768,8 @@ class Demodulator:
         pr["warmup"] = 128.0  # warm-up, and symbols in a row meeting the lock condition
         pr["hbox"] = self._box_half  # > 0: exact integrate-and-dump (rect pulses)
         pr["v_max"] = _TIMING_RATE_LIMIT
-        pr["batch"] = 1.0  # in lock, symbols in batches with the loops held (track_symbols Notes)
+        # QPSK in lock: symbols in batches with the loops held (track_symbols Notes); BPSK gains nothing by them
+        pr["batch"] = 1.0 if self._mod_code == 1 else 0.0
         self._params = params
         # A symbol moves the strobe by at least sps (1 - v_max - kp_t) samples (track_symbols Notes); with
         # kp_t = 2.67 B_L T <= 0.134 (the validator's largest timing bandwidth, 0.05) that is more than 0.84 sps.
