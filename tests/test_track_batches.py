@@ -47,9 +47,17 @@ def test_acquisition_is_the_per_symbol_loop_and_lock_goes_in_batches(rng, mod):
     assert np.mean(locked_b[::bps][first + 2000:]) == 1.0
 
 
+def test_the_receiver_batches_qpsk_only():
+    """QPSK takes batches by default; BPSK, OQPSK and rect pulses keep the per-symbol loop (BPSK's is lighter and
+    gained nothing by them, DEVELOPERS.md)."""
+    for mod, pulse, batch in (("qpsk", "rrc", 1.0), ("bpsk", "rrc", 0.0), ("oqpsk", "rrc", 0.0), ("qpsk", "rect", 0.0)):
+        d = Demodulator(link=LinkSection(modulation=mod, pulse=pulse), receiver=ReceiverSection(), sample_rate_hz=FS)
+        assert d._params[0]["batch"] == batch or (pulse == "rect" and d._params[0]["hbox"] > 0.0), (mod, pulse)
+
+
 @pytest.mark.parametrize("mod, pulse", [("oqpsk", "rrc"), ("bpsk", "rect")])
 def test_oqpsk_and_rect_pulses_keep_the_per_symbol_loop(rng, mod, pulse):
-    """OQPSK (its rails' own strobes) and rect pulses (the exact integrate-and-dump) never batch."""
+    """OQPSK (its rails' own strobes) and rect pulses (the exact integrate-and-dump) never batch, even when asked."""
     w = modulate(8000, modulation=mod, pulse=pulse, esn0_db=8.0, carrier_offset_hz=900.0, rng=rng)
     (soft_b, pos_b, _), (soft_s, pos_s, _) = _pair(mod, w.samples, pulse=pulse)
     np.testing.assert_array_equal(pos_b, pos_s)
