@@ -1195,6 +1195,8 @@ def track_locked(mf, base, t_limit, params, mod_code, third_order, state, c_tabl
     kr_c = pr["kr_c"]
     inv_span = 1.0 / (pr["stat_symbols"] * sps)
     inv_cell = inv_span * BATCH_CELLS
+    cell_len = 1.0 / inv_cell
+    inv_sps = 1.0 / sps
     warmup = pr["warmup"]
     v_max = pr["v_max"]
     inv_kd = 1.0 / pr["kd"]
@@ -1283,7 +1285,7 @@ def track_locked(mf, base, t_limit, params, mod_code, third_order, state, c_tabl
             # the symbols whose on-time strobes share the cell of this one (an estimate, then made exact) and
             # whose last strobe lies before t_limit and within the buffer (floor(x) + look < base + n_mf)
             cell = math.floor(t * inv_cell)
-            nb = min(max(int(((cell + 1.0) / inv_cell - t) / (2.0 * half)) + 1, 1), BATCH_MAX)
+            nb = min(max(int(((cell + 1.0) * cell_len - t) * inv_sps) + 1, 1), BATCH_MAX)
             while nb > 1 and math.floor((t + (2 * (nb - 1)) * half) * inv_cell) != cell:
                 nb -= 1
             while nb < BATCH_MAX and math.floor((t + (2 * nb) * half) * inv_cell) == cell:
