@@ -5,8 +5,9 @@ Run: ``python bench/bench_strobe_floor.py [--repeat 5] [--json]``.
 Issue 19 asks for the 2 Msym/s QPSK link (5 Msample/s, 2.5 samples per symbol) at 10x real time on one core:
 0.10 s of CPU per second of recording for the whole chain.  The rest of the chain takes about 0.076 s of it
 (``bench/bench_qpsk_link.py``: ``qpsk_cpu_s`` less ``track_symbols``), so the tracker would have to run at
-about 12 ns per symbol; today's :func:`pipeline.demod._kernels.track_symbols` takes 27-28 ns
-(``bench/bench_track_replay.py``).  This script measures, on the same kind of matched-filter buffer (complex64
+about 12 ns per symbol; the per-symbol loop (:func:`pipeline.demod._kernels.track_each`) takes 27-28 ns, and
+since 2026-12-06 a locked QPSK link goes in batches (:func:`pipeline.demod._kernels.track_locked`, about 20 ns;
+``bench/bench_track_replay.py``).  This script measures, on the same kind of matched-filter buffer (complex64
 noise; the values do not matter, the memory access and arithmetic do), what parts of a
 tracker cost when nothing else runs, with the house's numba flags (``fastmath={"contract"}``), on one
 receiver block (32768 samples, in cache as in the demodulator) passed over as often as 3 s of the link takes:
