@@ -48,8 +48,8 @@ def test_acquisition_is_the_per_symbol_loop_and_lock_goes_in_batches(rng, mod):
 
 
 def test_the_receiver_batches_qpsk_only():
-    """QPSK takes batches by default; BPSK, OQPSK and rect pulses keep the per-symbol loop (BPSK's is lighter and
-    gained nothing by them, DEVELOPERS.md)."""
+    """QPSK takes batches by default; BPSK, OQPSK and rect pulses keep the per-symbol loop (BPSK's small gain is not
+    worth the kernel's compile on the demo's first run, DEVELOPERS.md)."""
     for mod, pulse, batch in (("qpsk", "rrc", 1.0), ("bpsk", "rrc", 0.0), ("oqpsk", "rrc", 0.0), ("qpsk", "rect", 0.0)):
         d = Demodulator(link=LinkSection(modulation=mod, pulse=pulse), receiver=ReceiverSection(), sample_rate_hz=FS)
         assert d._params[0]["batch"] == batch or (pulse == "rect" and d._params[0]["hbox"] > 0.0), (mod, pulse)

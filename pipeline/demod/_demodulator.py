@@ -768,7 +768,8 @@ class Demodulator:
         pr["warmup"] = 128.0  # warm-up, and symbols in a row meeting the lock condition
         pr["hbox"] = self._box_half  # > 0: exact integrate-and-dump (rect pulses)
         pr["v_max"] = _TIMING_RATE_LIMIT
-        # QPSK in lock: symbols in batches with the loops held (track_symbols Notes); BPSK gains nothing by them
+        # QPSK in lock: symbols in batches with the loops held (track_symbols Notes); BPSK's 2-3 % is worth less
+        # than the 2 s track_locked compiles from an empty cache (DEVELOPERS.md)
         pr["batch"] = 1.0 if self._mod_code == 1 else 0.0
         self._params = params
         # A symbol moves the strobe by at least sps (1 - v_max - kp_t) samples (track_symbols Notes); with
