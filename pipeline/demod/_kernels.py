@@ -798,6 +798,20 @@ def close_interval(st, pr, c_table, mod_code, acc_n, acc_r2, acc_r4, acc_q, acc_
             kr_cl)
 
 
+@njit(cache=True, nogil=True, fastmath=_TRACK_FASTMATH)
+def loop_gains(pr, st, soft_on, inv_amp, kdc):
+    """The loops' normalisations and gains as :func:`close_interval` last set them, from the parameters ``pr``, the
+    state ``st`` (its ``t_scale``, ``c_scale``), the detector in use, the amplitude's inverse and the carrier
+    detector's slope: ``(g_c, g_t, kp_tl, ki_tl, kp_cl, ki_cl, kr_cl)``, carrier error / (A kdc) (the soft
+    detector's / kdc), timing error / (A^2 K_D), and the bandwidths' scales applied to the gains."""
+    g_c = 1.0 / kdc if soft_on else inv_amp / kdc
+    g_t = inv_amp * inv_amp * (1.0 / pr["kd"])
+    t_scale = st["t_scale"]
+    c_scale = st["c_scale"]
+    return (g_c, g_t, pr["kp_t"] * t_scale, pr["ki_t"] * t_scale * t_scale, pr["kp_c"] * c_scale,
+            pr["ki_c"] * c_scale * c_scale, pr["kr_c"] * c_scale * c_scale * c_scale)
+
+
 #: The locked tracker's batches (:func:`track_locked`): cells of ``stat_symbols / BATCH_CELLS`` nominal symbol
 #: periods on the recording's sample grid (16 symbols), at most ``BATCH_MAX`` symbols each (the timing rate is
 #: bounded by ``v_max``, 0.02: 17 at most).
@@ -817,14 +831,8 @@ def track_each(mf, base, t_limit, params, mod_code, third_order, state, c_table,
     cap = out_pos.shape[0]
     pr = params[0]
     sps = pr["sps"]
-    kp_t = pr["kp_t"]
-    ki_t = pr["ki_t"]
-    kp_c = pr["kp_c"]
-    ki_c = pr["ki_c"]
-    kr_c = pr["kr_c"]
     kp_c_wide = pr["kp_c_wide"]
     inv_span = 1.0 / (pr["stat_symbols"] * sps)
-    kd = pr["kd"]
     warmup = pr["warmup"]
     hbox = pr["hbox"]
     v_max = pr["v_max"]
@@ -868,25 +876,14 @@ def track_each(mf, base, t_limit, params, mod_code, third_order, state, c_table,
     q3i = st["q3i"]
     inv_sqrt2 = 1.0 / math.sqrt(2.0)
     sqrt2 = math.sqrt(2.0)
-    inv_kd = 1.0 / kd
     flags = clock + 2 * slock
     # the loops track (second order, bandwidths from Es/N0) in lock and while a carrier the acquisition
     # found is being pulled in below soft_below (above it lock comes within a few hundred symbols, and the
     # wide loop pulls in as it always did); otherwise the first-order wide loop coasts
     trk = 1 if clock == 1 or (st["pull_left"] > 0 and st["seen"] >= warmup and soft_on) else 0
-    # the loops' normalisation: carrier error / (A kdc), timing error / (A^2 K_D); the timing loop's
-    # bandwidth scale and its gains
-    g_c = 1.0 / kdc if soft_on else inv_amp / kdc
-    g_t = inv_amp * inv_amp * inv_kd
+    g_c, g_t, kp_tl, ki_tl, kp_cl, ki_cl, kr_cl = loop_gains(pr, st, soft_on, inv_amp, kdc)
     a_soft = st["a_soft"]
     c_clip = st["c_clip"]
-    t_scale = st["t_scale"]
-    kp_tl = kp_t * t_scale
-    ki_tl = ki_t * t_scale * t_scale
-    c_scale = st["c_scale"]
-    kp_cl = kp_c * c_scale
-    ki_cl = ki_c * c_scale * c_scale
-    kr_cl = kr_c * c_scale * c_scale * c_scale
     nout = 0
     iv0 = 0  # the statistics interval's first symbol in out_sym (its symbols of earlier calls are in acc_qi)
     # carrier phasor exp(j theta_ph): advanced by small-angle rotations and recomputed exactly every 64
@@ -1193,18 +1190,12 @@ def track_locked(mf, base, t_limit, params, mod_code, third_order, state, c_tabl
     cap = out_pos.shape[0]
     pr = params[0]
     sps = pr["sps"]
-    kp_t = pr["kp_t"]
-    ki_t = pr["ki_t"]
-    kp_c = pr["kp_c"]
-    ki_c = pr["ki_c"]
-    kr_c = pr["kr_c"]
     inv_span = 1.0 / (pr["stat_symbols"] * sps)
     inv_cell = inv_span * BATCH_CELLS
     cell_len = 1.0 / inv_cell
     inv_sps = 1.0 / sps
     warmup = pr["warmup"]
     v_max = pr["v_max"]
-    inv_kd = 1.0 / pr["kd"]
     look = 2
     sqrt2 = math.sqrt(2.0)
     inv_sqrt2 = 1.0 / sqrt2
@@ -1264,15 +1255,7 @@ def track_locked(mf, base, t_limit, params, mod_code, third_order, state, c_tabl
     e_t = st["b_et"]
     flags = clock + 2 * slock
     trk = st["clock"]  # 1 here (locked); an int64 like track_each's, so close_interval compiles once
-    g_c = 1.0 / kdc if soft_on else inv_amp / kdc
-    g_t = inv_amp * inv_amp * inv_kd
-    t_scale = st["t_scale"]
-    kp_tl = kp_t * t_scale
-    ki_tl = ki_t * t_scale * t_scale
-    c_scale = st["c_scale"]
-    kp_cl = kp_c * c_scale
-    ki_cl = ki_c * c_scale * c_scale
-    kr_cl = kr_c * c_scale * c_scale * c_scale
+    g_c, g_t, kp_tl, ki_tl, kp_cl, ki_cl, kr_cl = loop_gains(pr, st, soft_on, inv_amp, kdc)
     u1 = np.uint64(1)
     idx = np.empty(2 * BATCH_MAX, dtype=np.int64)
     wts = np.empty((4, 2 * BATCH_MAX), dtype=np.float32)
