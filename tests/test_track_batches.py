@@ -89,7 +89,8 @@ def test_batches_are_cells_of_the_recording_sample_grid(rng):
 @pytest.mark.parametrize("mod, esn0_db", [("bpsk", 4.0), ("qpsk", 7.0)])
 def test_symbol_errors_are_those_of_the_per_symbol_loop_and_of_theory(rng, mod, esn0_db):
     # Proakis, Digital Communications, 4th ed., eqs. 5.2-5 / 5.2-59 (theory_ser); a Doppler rate the carrier loop
-    # follows with a lag of about 0.015 rad (2 pi R / wn^2 at B_L T = 0.002)
+    # follows with a lag of about 0.015 rad (2 pi R / wn^2 at B_L T = 0.002: the second-order loop's steady-state error
+    # to a frequency ramp, F. M. Gardner, Phaselock Techniques, ch. 2; from memory)
     w = modulate(60000, modulation=mod, esn0_db=esn0_db, carrier_offset_hz=2400.0, doppler_rate_hz_per_s=-2000.0,
                  clock_offset_ppm=50.0, rng=rng)
     got = []
